@@ -1,0 +1,3 @@
+from benchkit.cli import main
+
+main()

@@ -1,0 +1,667 @@
+"""Analysis of a steady tone: fundamental, harmonics, THD, THD+N, noise.
+
+Method, in order (every figure is relative to the fitted fundamental):
+
+1. A windowed FFT of the record finds the strongest line; parabolic
+   interpolation of the log spectrum places it within a few hundredths of a
+   bin.
+2. A least-squares fit of an offset, the fundamental and its harmonics up to
+   order 10 (:func:`benchkit.analysis.sinefit.fit_tone`, IEEE Std 1057/1241)
+   refines the frequency and gives their amplitudes and phases.
+3. The residual is the record less the fitted offset and fundamental: a
+   perfect digital notch. Its windowed FFT, limited to the measurement band
+   (AES17: 20 Hz to 20 kHz by default), gives THD+N; harmonics above order 10
+   are read from that FFT at their exact frequencies; the noise is the band
+   power of the residual away from every harmonic.
+
+All levels are in full-scale units (FS = sample value 1.0); volts follow from
+a scale in volts peak per FS when one is given.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.fft
+
+from benchkit import units
+from benchkit.analysis import spectrum as sp
+from benchkit.analysis.sinefit import RecordLayout, fit_tone
+from benchkit.errors import BenchkitError
+
+SCHEMA_VERSION = 1
+DEFAULT_BAND_HZ = (20.0, 20000.0)
+#: Harmonic orders fitted jointly with the fundamental; higher ones are read
+#: from the residual spectrum.
+FIT_ORDERS = 10
+#: A record must hold at least this many periods of the fundamental.
+MIN_PERIODS = 5
+#: The strongest line must stand this far above the median spectrum level.
+MIN_TONE_PROMINENCE_DB = 30.0
+#: Samples at or above this fraction of full scale may be clipped ones.
+CLIP_LEVEL_FS = 0.99
+#: Consecutive equal samples at the clip level that mark clipping.
+CLIP_RUN = 3
+#: Harmonic power below this fraction of the noise power reads "below noise".
+_BURIED_RATIO = 1e-2
+
+SCALE_SOURCES = ("none", "profile", "simulation", "given")
+METHOD = (
+    "least-squares fit of offset, fundamental and harmonics to order {orders} "
+    "(IEEE 1057/1241); residual = record less offset and fundamental; "
+    "band power from a windowed FFT; higher harmonics read at their exact frequency"
+)
+
+
+@dataclass(frozen=True)
+class Harmonic:
+    """One harmonic of the fundamental.
+
+    ``phase_deg`` is ``phi_k - k phi_1`` (cosine reference), wrapped to
+    [-180, 180): it does not change when the capture is shifted in time.
+    ``method`` is "fit" (joint least-squares fit) or "spectrum" (read from
+    the residual spectrum).
+    """
+
+    order: int
+    freq_hz: float
+    amplitude_fs: float
+    level_dbc: float
+    level_dbfs: float
+    phase_deg: float
+    method: str
+
+    def to_dict(self, volts_per_fs: float | None = None) -> dict:
+        d = {
+            "order": self.order,
+            "freq_hz": self.freq_hz,
+            "level_dbc": self.level_dbc,
+            "level_dbfs": self.level_dbfs,
+            "phase_deg": self.phase_deg,
+            "method": self.method,
+        }
+        if volts_per_fs is not None:
+            d["level_vrms"] = units.vrms_from_vpk(self.amplitude_fs * volts_per_fs)
+        return d
+
+
+@dataclass(frozen=True)
+class ToneTraces:
+    """Arrays for the report plots (not part of the JSON result).
+
+    ``spectrum_dbfs`` is the level of a sine at each bin in dBFS (power
+    averaged over blocks when averaging); ``residual_fs`` is the residual,
+    limited to the measurement band, over two periods of the fundamental
+    starting at a positive-going zero crossing; ``fundamental_fs`` is the
+    fitted fundamental over the same span.
+    """
+
+    freq_hz: np.ndarray
+    spectrum_dbfs: np.ndarray
+    time_s: np.ndarray
+    residual_fs: np.ndarray
+    fundamental_fs: np.ndarray
+
+
+@dataclass(frozen=True)
+class ToneResult:
+    """The figures of one tone analysis, with the conditions they hold under.
+
+    Levels are in FS units (peak amplitudes for sines, RMS for noise);
+    ratios are relative to the fundamental.
+    """
+
+    sample_rate_hz: float
+    n_samples: int
+    fundamental_hz: float
+    fundamental_fs: float
+    fundamental_phase_deg: float
+    harmonics: tuple[Harmonic, ...]
+    thd_ratio: float
+    thdn_ratio: float
+    noise_rms_fs: float
+    dc_fs: float
+    peak_fs: float
+    rms_fs: float
+    crest_factor: float
+    bandwidth_hz: tuple[float, float]
+    clipped: bool
+    valid: bool
+    warnings: tuple[str, ...]
+    harmonic_profile: str
+    averages: int
+    fit_iterations: int
+    fitted_orders: int
+    scale_source: str = "none"
+    volts_per_fs: float | None = None
+    load_ohms: float | None = None
+    traces: ToneTraces | None = field(default=None, compare=False, repr=False)
+
+    # --- derived figures -------------------------------------------------
+    @property
+    def duration_s(self) -> float:
+        return self.n_samples / self.sample_rate_hz
+
+    @property
+    def fundamental_dbfs(self) -> float:
+        return units.dbfs_from_peak(self.fundamental_fs)
+
+    @property
+    def thd_pct(self) -> float:
+        return units.pct_from_ratio(self.thd_ratio)
+
+    @property
+    def thd_db(self) -> float:
+        return units.db_from_ratio(self.thd_ratio)
+
+    @property
+    def thdn_pct(self) -> float:
+        return units.pct_from_ratio(self.thdn_ratio)
+
+    @property
+    def thdn_db(self) -> float:
+        return units.db_from_ratio(self.thdn_ratio)
+
+    @property
+    def sinad_db(self) -> float:
+        return -self.thdn_db
+
+    @property
+    def noise_dbfs(self) -> float:
+        return units.dbfs_from_rms(self.noise_rms_fs)
+
+    @property
+    def fundamental_vrms(self) -> float | None:
+        if self.volts_per_fs is None:
+            return None
+        return units.vrms_from_vpk(self.fundamental_fs * self.volts_per_fs)
+
+    @property
+    def noise_vrms(self) -> float | None:
+        return None if self.volts_per_fs is None else self.noise_rms_fs * self.volts_per_fs
+
+    @property
+    def power_w(self) -> float | None:
+        v = self.fundamental_vrms
+        if v is None or self.load_ohms is None:
+            return None
+        return units.watts_from_vrms(v, self.load_ohms)
+
+    def to_dict(self) -> dict:
+        """The JSON layout documented in docs/results-json.md (kind "tone")."""
+        d = {
+            "kind": "tone",
+            "schema_version": SCHEMA_VERSION,
+            "sample_rate_hz": self.sample_rate_hz,
+            "n_samples": self.n_samples,
+            "duration_s": self.duration_s,
+            "fundamental_hz": self.fundamental_hz,
+            "fundamental_dbfs": self.fundamental_dbfs,
+            "fundamental_phase_deg": self.fundamental_phase_deg,
+            "thd_pct": self.thd_pct,
+            "thd_db": self.thd_db,
+            "thdn_pct": self.thdn_pct,
+            "thdn_db": self.thdn_db,
+            "sinad_db": self.sinad_db,
+            "noise_dbfs": self.noise_dbfs,
+            "dc_fs": self.dc_fs,
+            "peak_fs": self.peak_fs,
+            "crest_factor": self.crest_factor,
+            "bandwidth_hz": list(self.bandwidth_hz),
+            "harmonics": [h.to_dict(self.volts_per_fs) for h in self.harmonics],
+            "harmonic_profile": self.harmonic_profile,
+            "clipped": self.clipped,
+            "valid": self.valid,
+            "warnings": list(self.warnings),
+            "scale_source": self.scale_source,
+            "conditions": {
+                "window": sp.WINDOW_NAME,
+                "method": METHOD.format(orders=self.fitted_orders),
+                "averages": self.averages,
+                "fit_iterations": self.fit_iterations,
+                "volts_per_fs": self.volts_per_fs,
+                "load_ohms": self.load_ohms,
+            },
+        }
+        if self.volts_per_fs is not None:
+            d["fundamental_vrms"] = self.fundamental_vrms
+            d["noise_vrms"] = self.noise_vrms
+        if self.power_w is not None:
+            d["power_w"] = self.power_w
+        return d
+
+
+# --- internals ---------------------------------------------------------------
+
+
+@dataclass
+class _Block:
+    freq_hz: float
+    amp1: float
+    phase1: float
+    offset: float
+    orders: np.ndarray  # harmonic orders 2..K in the band
+    amps: np.ndarray  # their peak amplitudes
+    phases: np.ndarray  # their phases phi_k (rad)
+    methods: list[str]
+    res_power: float  # residual mean square in the band
+    noise_power: float
+    iterations: int
+    fitted_orders: int
+    spec_power: np.ndarray | None = None
+    residual: np.ndarray | None = None
+    fund_wave: np.ndarray | None = None
+
+
+def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tuple[float, complex, np.ndarray]:
+    """Fundamental from the windowed spectrum: fractional bin, complex
+    amplitude ``A e^{j phi}`` there, and the spectrum's power."""
+    n = x.size
+    # no offset removal needed: the window puts a DC offset >100 dB down by
+    # the first bin searched
+    spec = scipy.fft.rfft(np.multiply(x, sp.window(n)))
+    power = spec.real**2 + spec.imag**2
+    kmin, kmax = MIN_PERIODS + 1, n // 2 - sp.MAIN_LOBE_BINS - 1
+    if kmax <= kmin:
+        raise BenchkitError(f"the record is too short to analyse ({n} samples)")
+    if hint_hz is not None:
+        centre = hint_hz * n / sample_rate
+        span = max(5.0, 0.02 * centre)
+        lo, hi = max(kmin, int(centre - span)), min(kmax, int(math.ceil(centre + span)))
+        if lo >= hi:
+            raise BenchkitError(
+                f"the given fundamental {hint_hz:g} Hz cannot be analysed in this record "
+                f"(needs at least {MIN_PERIODS} periods and must lie below {sample_rate / 2:g} Hz)"
+            )
+    else:
+        lo, hi = kmin, kmax
+    peak = lo + int(np.argmax(power[lo:hi]))
+    # median level from ~2000 bins spread over the spectrum: as good a floor
+    floor = float(np.median(power[kmin:kmax:max(1, (kmax - kmin) // 2048)]))
+    if floor > 0 and power[peak] < floor * 10 ** (MIN_TONE_PROMINENCE_DB / 10):
+        where = f" near {hint_hz:g} Hz" if hint_hz is not None else ""
+        raise BenchkitError(
+            f"no tone found{where}: the strongest line stands only "
+            f"{10 * math.log10(power[peak] / floor):.1f} dB above the median spectrum level "
+            f"(needs {MIN_TONE_PROMINENCE_DB:g} dB)"
+        )
+    nu = sp.refine_peak(spec, peak, n)
+    return nu, sp.peak_amplitude(spec, peak, nu, n), power
+
+
+def _harmonic_orders(f0: float, sample_rate: float, n: int, hi_hz: float) -> np.ndarray:
+    """Orders 2..K whose frequency lies in the band and clear of fs/2."""
+    limit = min(hi_hz, sample_rate / 2.0 - (sp.MAIN_LOBE_BINS + 1) * sample_rate / n)
+    kmax = int(math.floor(limit / f0 * (1 + 1e-9)))
+    return np.arange(2, kmax + 1) if kmax >= 2 else np.zeros(0, dtype=int)
+
+
+def _analyse_block(
+    x: np.ndarray,
+    sample_rate: float,
+    band: tuple[float, float],
+    hint_hz: float | None,
+    fit_orders: int,
+    keep: bool,
+) -> _Block:
+    n = x.size
+    energy = float(x @ x)
+    nu0, amp0, spec_power = _find_tone(x, sample_rate, hint_hz)
+    f_start = nu0 * sample_rate / n
+    orders = _harmonic_orders(f_start, sample_rate, n, band[1])
+    k_fit = max(1, min(fit_orders, int(orders[-1]) if orders.size else 1))
+    layout = RecordLayout(n)
+    fit = fit_tone(x, layout, nu0 / n, k_fit, start=amp0, energy=energy)
+    if abs(fit.cycles * n - nu0) > 1.5:
+        raise BenchkitError("the sine fit did not settle on the tone found in the spectrum; give --fundamental")
+    f0 = fit.cycles * sample_rate
+    if f0 * n / sample_rate < MIN_PERIODS:
+        raise BenchkitError(
+            f"the record holds only {f0 * n / sample_rate:.1f} periods of {f0:.4g} Hz; "
+            f"at least {MIN_PERIODS} are needed"
+        )
+    orders = _harmonic_orders(f0, sample_rate, n, band[1])
+
+    residual = layout.sine(fit.cycles, float(fit.cos[0]), float(fit.sin[0]))
+    fund = residual.copy() if keep else None
+    np.subtract(x, residual, out=residual)
+    residual -= fit.offset
+    rspec = scipy.fft.rfft(np.multiply(residual, sp.window(n)))
+    in_band = sp.band_bins(n, sample_rate, *band)
+    rpow = np.zeros(rspec.size)
+    rpow[in_band] = rspec.real[in_band] ** 2 + rspec.imag[in_band] ** 2
+    pscale = sp.power_scale(n)
+    res_power = pscale * float(np.sum(rpow[in_band]))
+
+    amp_fit, ph_fit = fit.amplitude(), fit.phase_rad()
+    amps = np.empty(orders.size)
+    phases = np.empty(orders.size)
+    from_fit = orders <= k_fit
+    amps[from_fit] = amp_fit[orders[from_fit] - 1]
+    phases[from_fit] = ph_fit[orders[from_fit] - 1]
+    if np.any(~from_fit):
+        z = sp.read_components(rspec, n, orders[~from_fit] * fit.cycles * n)
+        amps[~from_fit] = np.abs(z)
+        phases[~from_fit] = np.angle(z)
+    methods = ["fit" if f else "spectrum" for f in from_fit]
+
+    noise_power = _noise_power(rpow, in_band, fit.cycles * n, orders, pscale)
+    if noise_power is None:
+        noise_power = max(res_power - 0.5 * float(np.sum(amps**2)), 0.0)
+
+    block = _Block(
+        freq_hz=f0,
+        amp1=float(amp_fit[0]),
+        phase1=float(ph_fit[0]),
+        offset=fit.offset,
+        orders=orders,
+        amps=amps,
+        phases=phases,
+        methods=methods,
+        res_power=res_power,
+        noise_power=noise_power,
+        iterations=fit.iterations,
+        fitted_orders=k_fit,
+    )
+    if keep:
+        block.spec_power = spec_power
+        block.residual = _band_limit(residual, sample_rate, band)
+        block.fund_wave = fund
+    return block
+
+
+def _noise_power(rpow: np.ndarray, in_band: slice, nu1: float, orders: np.ndarray, pscale: float) -> float | None:
+    """Band power of the residual away from the fundamental and every
+    harmonic, scaled up to the whole band; None when the harmonics leave
+    too few bins to judge by."""
+    keep = np.zeros(rpow.size, dtype=bool)
+    keep[in_band] = True
+    total = int(np.count_nonzero(keep))
+    guard = np.arange(-sp.MAIN_LOBE_BINS - 1, sp.MAIN_LOBE_BINS + 2)
+    centres = np.rint(np.concatenate([[1], orders]) * nu1).astype(int)
+    keep[np.clip(np.add.outer(centres, guard), 0, keep.size - 1)] = False
+    kept = int(np.count_nonzero(keep))
+    if kept < 8 or kept < 0.2 * total:
+        return None
+    return pscale * float(np.sum(rpow[keep])) * total / kept
+
+
+def _band_limit(x: np.ndarray, sample_rate: float, band: tuple[float, float]) -> np.ndarray:
+    spec = scipy.fft.rfft(x)
+    keep = sp.band_bins(x.size, sample_rate, *band)
+    spec[: keep.start] = 0.0
+    spec[keep.stop :] = 0.0
+    return scipy.fft.irfft(spec, x.size)
+
+
+def detect_clipping(x: np.ndarray, full_scale: float = 1.0, peak: float | None = None) -> tuple[bool, str | None]:
+    """Whether a capture shows clipping at the converter's full scale.
+
+    Clipping shows as samples beyond full scale, or as runs of at least
+    ``CLIP_RUN`` equal samples at or above ``CLIP_LEVEL_FS`` of it (a flat
+    top). Common practice; a stage that clips below the converter's full
+    scale is distortion to be measured, not a clipped capture.
+
+    Parameters
+    ----------
+    x : ndarray
+    full_scale : float
+    peak : float, optional
+        ``max(abs(x))`` when already known.
+
+    Returns
+    -------
+    clipped : bool
+    reason : str or None
+        A sentence for the warning.
+    """
+    if peak is None:
+        peak = float(np.max(np.abs(x)))
+    if peak < CLIP_LEVEL_FS * full_scale:
+        return False, None
+    a = np.abs(x)
+    if peak > full_scale * (1.0 + 1e-9):
+        over = int(np.count_nonzero(a > full_scale * (1.0 + 1e-9)))
+        return True, f"{over} samples exceed full scale (peak {peak:.4f} FS): the capture is clipped"
+    top = a >= peak - 1e-9 * full_scale
+    flat = top[:-1] & top[1:] & (x[:-1] == x[1:])
+    # runs of CLIP_RUN equal samples = CLIP_RUN-1 consecutive equal pairs
+    run = np.convolve(flat.astype(np.int8), np.ones(CLIP_RUN - 1, dtype=np.int8), "valid")
+    runs = int(np.count_nonzero(np.diff(np.concatenate([[0], (run == CLIP_RUN - 1).astype(np.int8)])) == 1))
+    if runs:
+        return True, f"{runs} flat tops at {peak:.4f} FS: the capture is clipped"
+    return False, None
+
+
+def classify_harmonics(orders: np.ndarray, amps: np.ndarray, noise_power: float) -> str:
+    """A plain reading of the harmonic profile.
+
+    Returns one of "even-order", "odd-order", "high-order-tail", "mixed",
+    "below-noise" (common practice: a smooth asymmetric curve gives mostly
+    H2, a symmetric one mostly H3, hard clipping or a sharp kink a long tail
+    of high orders).
+    """
+    p = 0.5 * np.asarray(amps) ** 2
+    total = float(np.sum(p))
+    if total <= _BURIED_RATIO * noise_power or total == 0.0:
+        return "below-noise"
+    if float(np.sum(p[orders >= 5])) > 0.05 * total:
+        return "high-order-tail"
+    even = float(np.sum(p[orders % 2 == 0]))
+    odd = total - even
+    if even > 2.0 * odd:
+        return "even-order"
+    if odd > 2.0 * even:
+        return "odd-order"
+    return "mixed"
+
+
+def _wrap_deg(rad: np.ndarray) -> np.ndarray:
+    return (np.degrees(rad) + 180.0) % 360.0 - 180.0
+
+
+def _resolve_band(bandwidth_hz, sample_rate: float, warnings: list[str]) -> tuple[float, float]:
+    nyq = sample_rate / 2.0
+    if bandwidth_hz is None:
+        return 0.0, nyq
+    lo, hi = (float(v) for v in bandwidth_hz)
+    if not (0.0 <= lo < hi) or not math.isfinite(hi):
+        raise BenchkitError(f"bandwidth must be LO:HI in Hz with 0 <= LO < HI, got {lo:g}:{hi:g}")
+    if lo >= nyq:
+        raise BenchkitError(f"bandwidth {lo:g}:{hi:g} Hz lies above half the sample rate ({nyq:g} Hz)")
+    if hi > nyq:
+        warnings.append(f"band upper edge {hi:g} Hz is above half the sample rate; using {nyq:g} Hz")
+        hi = nyq
+    return lo, hi
+
+
+def analyze_tone(
+    samples,
+    sample_rate: float,
+    *,
+    fundamental_hz: float | None = None,
+    bandwidth_hz: tuple[float, float] | None = DEFAULT_BAND_HZ,
+    averages: int = 1,
+    volts_per_fs: float | None = None,
+    scale_source: str | None = None,
+    load_ohms: float | None = None,
+    traces: bool = False,
+    fit_orders: int = FIT_ORDERS,
+) -> ToneResult:
+    """Analyse a steady tone: frequency, level, harmonics, THD, THD+N, noise.
+
+    Parameters
+    ----------
+    samples : array_like
+        One channel, in FS units (1.0 = full scale).
+    sample_rate : float
+        In Hz.
+    fundamental_hz : float, optional
+        Where to look for the fundamental (within 2 % or 5 bins); by default
+        the strongest line.
+    bandwidth_hz : (lo, hi) or None
+        Measurement band for THD+N, noise and harmonics; None is the full
+        band, 0 to fs/2. Default 20 Hz to 20 kHz (AES17).
+    averages : int
+        Split the record into this many equal blocks, analyse each and
+        power-average the figures.
+    volts_per_fs : float, optional
+        Volts peak at the measured point per FS; adds volts to the result.
+    scale_source : str, optional
+        Where ``volts_per_fs`` came from: "profile", "simulation" or "given"
+        (default "given" when a scale is set, else "none").
+    load_ohms : float, optional
+        Load resistance; with a scale it adds the power into it.
+    traces : bool
+        Keep the arrays the report plots need (``result.traces``).
+    fit_orders : int
+        Harmonic orders fitted jointly with the fundamental.
+
+    Returns
+    -------
+    ToneResult
+
+    Raises
+    ------
+    BenchkitError
+        Empty, non-finite or silent input, no detectable tone, a record too
+        short for the tone, or a fundamental outside the band.
+
+    References
+    ----------
+    IEEE Std 1057-2017 and IEEE Std 1241-2010 (sine fitting; SINAD);
+    AES17-2015 (dBFS, THD+N bandwidth).
+    """
+    x = np.asarray(samples, dtype=np.float64)
+    if x.ndim != 1:
+        raise BenchkitError(f"analyze_tone takes one channel (a 1-D array), got shape {x.shape}")
+    if x.size == 0:
+        raise BenchkitError("the capture holds no samples")
+    if not math.isfinite(float(np.sum(x))):
+        bad = int(np.count_nonzero(~np.isfinite(x)))
+        raise BenchkitError(f"the capture holds {bad} NaN or infinite samples")
+    if not (sample_rate > 0 and math.isfinite(sample_rate)):
+        raise BenchkitError(f"sample rate must be a positive number of Hz, got {sample_rate}")
+    xmax, xmin = float(np.max(x)), float(np.min(x))
+    if xmax == xmin:
+        raise BenchkitError(
+            "the capture is silent (every sample is zero)" if xmax == 0 else "the capture is constant: no tone in it"
+        )
+    if averages < 1 or int(averages) != averages:
+        raise BenchkitError(f"averages must be a whole number of blocks >= 1, got {averages}")
+    if scale_source is None:
+        scale_source = "none" if volts_per_fs is None else "given"
+    if scale_source not in SCALE_SOURCES:
+        raise BenchkitError(f"scale_source must be one of {', '.join(SCALE_SOURCES)}")
+    if volts_per_fs is not None and not (volts_per_fs > 0 and math.isfinite(volts_per_fs)):
+        raise BenchkitError(f"volts per FS must be a positive number, got {volts_per_fs}")
+    if load_ohms is not None and not (load_ohms > 0 and math.isfinite(load_ohms)):
+        raise BenchkitError(f"load must be a positive resistance in ohms, got {load_ohms}")
+
+    warnings: list[str] = []
+    band = _resolve_band(bandwidth_hz, sample_rate, warnings)
+    clipped, reason = detect_clipping(x, peak=max(xmax, -xmin))
+    if clipped:
+        warnings.append(reason + "; its figures are not valid")
+
+    nblk = x.size // int(averages)
+    blocks = [
+        _analyse_block(x[i * nblk : (i + 1) * nblk], sample_rate, band, fundamental_hz, fit_orders, traces)
+        for i in range(int(averages))
+    ]
+    f0 = float(np.mean([b.freq_hz for b in blocks]))
+    tol = 0.005 * f0
+    if f0 > band[1] + tol or f0 < band[0] - tol:
+        raise BenchkitError(
+            f"the fundamental ({f0:.6g} Hz) lies outside the measurement band "
+            f"({band[0]:g} to {band[1]:g} Hz); widen it with --bandwidth"
+        )
+    first = blocks[0]
+    nh = min(b.orders.size for b in blocks)
+    orders = first.orders[:nh]
+    p1 = float(np.mean([b.amp1**2 for b in blocks]))
+    amp1 = math.sqrt(p1)
+    pk = np.mean([b.amps[:nh] ** 2 for b in blocks], axis=0) if nh else np.zeros(0)
+    amps = np.sqrt(pk)
+    rel = np.array([b.phases[:nh] - orders * b.phase1 for b in blocks])
+    weights = np.array([b.amps[:nh] for b in blocks]) + 1e-300
+    rel_phase = np.angle(np.sum(weights * np.exp(1j * rel), axis=0)) if nh else np.zeros(0)
+    res_power = float(np.mean([b.res_power for b in blocks]))
+    noise_power = float(np.mean([b.noise_power for b in blocks]))
+
+    level_dbc = units.db_from_ratio(amps / amp1) if nh else []
+    level_dbfs = units.dbfs_from_peak(amps) if nh else []
+    phase_deg = _wrap_deg(rel_phase)
+    harmonics = tuple(
+        Harmonic(
+            order=int(orders[i]),
+            freq_hz=float(orders[i] * f0),
+            amplitude_fs=float(amps[i]),
+            level_dbc=float(level_dbc[i]),
+            level_dbfs=float(level_dbfs[i]),
+            phase_deg=float(phase_deg[i]),
+            method=first.methods[i],
+        )
+        for i in range(nh)
+    )
+    if not harmonics:
+        warnings.append(f"no harmonic of {f0:.6g} Hz lies in the band; THD is not defined and reads as zero")
+
+    dc = float(np.mean([b.offset for b in blocks]))
+    mean_sq = float(x @ x) / x.size
+    ac_rms = math.sqrt(max(mean_sq - 2.0 * dc * float(np.mean(x)) + dc * dc, 0.0))
+    result_traces = _traces(blocks, sample_rate, nblk) if traces else None
+    return ToneResult(
+        sample_rate_hz=float(sample_rate),
+        n_samples=int(x.size),
+        fundamental_hz=f0,
+        fundamental_fs=amp1,
+        fundamental_phase_deg=float(_wrap_deg(first.phase1)),
+        harmonics=harmonics,
+        thd_ratio=math.sqrt(float(np.sum(pk)) / p1),
+        thdn_ratio=math.sqrt(res_power / (p1 / 2.0)),
+        noise_rms_fs=math.sqrt(noise_power),
+        dc_fs=dc,
+        peak_fs=max(xmax, -xmin),
+        rms_fs=math.sqrt(mean_sq),
+        crest_factor=max(xmax - dc, dc - xmin) / ac_rms if ac_rms > 0 else 0.0,
+        bandwidth_hz=band,
+        clipped=clipped,
+        valid=not clipped,
+        warnings=tuple(warnings),
+        harmonic_profile=classify_harmonics(orders, amps, noise_power),
+        averages=int(averages),
+        fit_iterations=max(b.iterations for b in blocks),
+        fitted_orders=first.fitted_orders,
+        scale_source=scale_source,
+        volts_per_fs=volts_per_fs,
+        load_ohms=load_ohms,
+        traces=result_traces,
+    )
+
+
+def _traces(blocks: list[_Block], sample_rate: float, n: int) -> ToneTraces:
+    first = blocks[0]
+    power = np.mean([b.spec_power for b in blocks], axis=0)
+    scale = sp.sine_amplitude_scale(n)
+    freq = np.arange(power.size) * sample_rate / n
+    spectrum_dbfs = units.db_from_ratio(np.sqrt(power) * scale)
+    # two periods from the middle of the first block, from a rising zero crossing
+    period = sample_rate / first.freq_hz
+    mid = n // 2
+    cycles = first.freq_hz / sample_rate
+    phase_mid = (cycles * mid + first.phase1 / (2 * np.pi)) % 1.0  # of cos
+    # cos(2 pi u) rises through zero at u = 0.75
+    start = int(round(mid + ((0.75 - phase_mid) % 1.0) * period))
+    stop = min(n, start + int(math.ceil(2 * period)) + 1)
+    start = max(0, min(start, stop - 2))
+    idx = np.arange(start, stop)
+    return ToneTraces(
+        freq_hz=freq,
+        spectrum_dbfs=spectrum_dbfs,
+        time_s=(idx - start) / sample_rate,
+        residual_fs=first.residual[idx],
+        fundamental_fs=first.fund_wave[idx],
+    )

@@ -1,0 +1,150 @@
+"""Captures on disk: audio files and the sidecar JSON beside each.
+
+A capture is a WAV (or FLAC) file read through soundfile, plus an optional
+sidecar ``<name>.json`` in the same folder that says what was played, how the
+channels were wired and how to turn FS into volts (docs/file-formats.md).
+Every measuring command writes its raw capture here *before* analysing it.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from benchkit.errors import BenchkitError
+
+SIDECAR_KIND = "capture"
+SIDECAR_SCHEMA_VERSION = 1
+
+
+@dataclass(frozen=True)
+class Recording:
+    """One channel of a capture file, in FS units (float64).
+
+    ``channel`` is numbered from 1; ``sidecar`` is the parsed sidecar JSON
+    (empty when there is none); ``warnings`` says what was odd about it.
+    """
+
+    path: Path
+    samples: np.ndarray
+    sample_rate_hz: float
+    channel: int
+    n_channels: int
+    sidecar: dict = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def stimulus_frequency_hz(self) -> float | None:
+        """The tone frequency the sidecar says was played, if any."""
+        stim = self.sidecar.get("stimulus") or {}
+        f = stim.get("frequency_hz") if isinstance(stim, dict) else None
+        return float(f) if isinstance(f, (int, float)) and math.isfinite(f) and f > 0 else None
+
+    def channel_scale(self) -> tuple[float | None, str]:
+        """Volts peak per FS for this channel from the sidecar, and where the
+        sidecar says that scale came from ("simulation", "profile", ...)."""
+        for ch in self.sidecar.get("channels") or []:
+            if isinstance(ch, dict) and ch.get("number") == self.channel:
+                v = ch.get("volts_per_fs")
+                if isinstance(v, (int, float)) and math.isfinite(v) and v > 0:
+                    return float(v), str(self.sidecar.get("scale_source", "given"))
+        return None, "none"
+
+
+def sidecar_path(audio_path: str | os.PathLike) -> Path:
+    """Where the sidecar of an audio file lives: same folder, same stem, .json."""
+    return Path(audio_path).with_suffix(".json")
+
+
+def read_capture(path: str | os.PathLike, channel: int = 1) -> Recording:
+    """Read one channel of a capture file and its sidecar.
+
+    Parameters
+    ----------
+    path : path-like
+        A WAV or FLAC file (anything libsndfile reads).
+    channel : int
+        Channel number, from 1.
+
+    Raises
+    ------
+    BenchkitError
+        Missing path, a folder, a file that is not audio or is cut short,
+        no samples, or a channel the file does not have.
+    """
+    import soundfile as sf
+
+    p = Path(path)
+    if not p.exists():
+        raise BenchkitError(f"{p}: no such file")
+    if p.is_dir():
+        raise BenchkitError(f"{p}: is a folder, not a capture file")
+    if p.stat().st_size == 0:
+        raise BenchkitError(f"{p}: the file is empty")
+    try:
+        data, rate = sf.read(str(p), dtype="float64", always_2d=True)
+    except Exception as exc:  # libsndfile's own errors carry the reason
+        reason = str(exc).strip().splitlines()[-1] if str(exc).strip() else type(exc).__name__
+        raise BenchkitError(f"{p}: cannot read it as audio ({reason})") from exc
+    n_channels = data.shape[1]
+    if not isinstance(channel, int) or channel < 1 or channel > n_channels:
+        raise BenchkitError(f"{p}: has {n_channels} channel(s); channel {channel} does not exist (numbered from 1)")
+    if data.shape[0] == 0:
+        raise BenchkitError(f"{p}: holds no samples")
+    sidecar, warnings = _read_sidecar(p)
+    return Recording(
+        path=p,
+        samples=np.ascontiguousarray(data[:, channel - 1]),
+        sample_rate_hz=float(rate),
+        channel=channel,
+        n_channels=n_channels,
+        sidecar=sidecar,
+        warnings=tuple(warnings),
+    )
+
+
+def _read_sidecar(audio: Path) -> tuple[dict, list[str]]:
+    side = sidecar_path(audio)
+    if not side.is_file():
+        return {}, []
+    try:
+        doc = json.loads(side.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        return {}, [f"sidecar {side.name} is unreadable ({exc.__class__.__name__}); ignored"]
+    if not isinstance(doc, dict) or doc.get("kind") != SIDECAR_KIND:
+        return {}, [f"sidecar {side.name} is not a benchkit capture description; ignored"]
+    version = doc.get("schema_version")
+    if not isinstance(version, int) or version > SIDECAR_SCHEMA_VERSION:
+        return {}, [f"sidecar {side.name} has layout version {version!r}, newer than this benchkit reads; ignored"]
+    return doc, []
+
+
+def write_capture(
+    path: str | os.PathLike,
+    data: np.ndarray,
+    sample_rate: float,
+    sidecar: dict | None = None,
+    subtype: str = "FLOAT",
+) -> Path:
+    """Write a capture (samples x channels, FS units) and its sidecar.
+
+    The audio is written first, to a temporary name, and renamed into place;
+    the sidecar follows. ``subtype`` is a soundfile subtype ("FLOAT" for
+    32-bit float, "PCM_24" for 24-bit).
+    """
+    import soundfile as sf
+
+    p = Path(path)
+    p.parent.mkdir(parents=True, exist_ok=True)
+    tmp = p.with_name(p.name + ".part")
+    sf.write(str(tmp), np.asarray(data, dtype=np.float64), int(round(sample_rate)), subtype=subtype, format="WAV")
+    os.replace(tmp, p)
+    if sidecar is not None:
+        doc = {"kind": SIDECAR_KIND, "schema_version": SIDECAR_SCHEMA_VERSION, **sidecar}
+        sidecar_path(p).write_text(json.dumps(doc, indent=2) + "\n", encoding="utf-8")
+    return p

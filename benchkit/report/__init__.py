@@ -1,0 +1,1 @@
+"""Reports: plots (PNG), tables (CSV), results (JSON) and text summaries."""

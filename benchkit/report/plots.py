@@ -1,0 +1,106 @@
+"""PNG plots of a tone analysis: spectrum and residual.
+
+Uses matplotlib's object interface with the Agg canvas: no pyplot, no
+global state, no display needed.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+from matplotlib.ticker import FuncFormatter
+
+from benchkit.analysis.tone import ToneResult
+from benchkit.report.summary import conditions_line
+
+_TRACE = "#1f3b57"
+_BAND = "#dfe9f3"
+_MARK = "#c2571a"
+_FAINT = "#9aa5b1"
+_LABELLED_HARMONICS = 9
+
+
+def _hz(v, _pos=None) -> str:
+    return f"{v / 1000:g}k" if v >= 1000 else f"{v:g}"
+
+
+def _save(fig: Figure, path: Path) -> Path:
+    FigureCanvasAgg(fig)
+    fig.savefig(path, dpi=110)
+    return path
+
+
+def spectrum_png(result: ToneResult, path: Path, title: str) -> Path:
+    """Spectrum on a log frequency axis, the band shaded, the harmonics
+    marked with order and level, the conditions in a caption."""
+    tr = result.traces
+    if tr is None:
+        raise ValueError("the result was analysed without traces")
+    fig = Figure(figsize=(10, 5.6))
+    ax = fig.add_subplot(1, 1, 1)
+    lo_f = max(tr.freq_hz[1], min(10.0, result.fundamental_hz / 2))
+    sel = tr.freq_hz >= lo_f
+    ax.axvspan(max(result.bandwidth_hz[0], lo_f), result.bandwidth_hz[1], color=_BAND, zorder=0, label="measurement band")
+    ax.plot(tr.freq_hz[sel], tr.spectrum_dbfs[sel], color=_TRACE, lw=0.8, zorder=2)
+    lo, hi = result.bandwidth_hz
+    band = tr.spectrum_dbfs[(tr.freq_hz >= max(lo, lo_f)) & (tr.freq_hz <= hi)]
+    floor = float(np.median(band if band.size else tr.spectrum_dbfs[sel]))
+    ax.plot([result.fundamental_hz], [result.fundamental_dbfs], "o", ms=6, mfc="none", mec=_MARK, zorder=3)
+    ax.annotate(
+        f"{result.fundamental_hz:.2f} Hz\n{result.fundamental_dbfs:.2f} dBFS",
+        (result.fundamental_hz, result.fundamental_dbfs),
+        textcoords="offset points", xytext=(8, -4), fontsize=8, color=_MARK, va="top",
+    )
+    for h in result.harmonics[:_LABELLED_HARMONICS]:
+        if h.level_dbfs < floor + 10.0:  # not clear of the noise: leave unlabelled
+            continue
+        ax.plot([h.freq_hz], [h.level_dbfs], "v", ms=5, color=_MARK, zorder=3)
+        ax.annotate(
+            f"H{h.order}\n{h.level_dbc:.1f} dBc", (h.freq_hz, h.level_dbfs),
+            textcoords="offset points", xytext=(0, 6), ha="center", fontsize=7, color=_MARK,
+        )
+    ax.set_xscale("log")
+    ax.set_xlim(lo_f, tr.freq_hz[-1])
+    ax.xaxis.set_major_formatter(FuncFormatter(_hz))
+    ax.set_ylim(max(floor - 25.0, -260.0), max(5.0, result.fundamental_dbfs + 10.0))
+    ax.set_xlabel("frequency (Hz)")
+    ax.set_ylabel("level of a sine (dBFS)")
+    ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
+    ax.set_title(title, loc="left", fontsize=10)
+    fig.text(0.01, 0.01, conditions_line(result), fontsize=7.5, color="#333333", ha="left", va="bottom", wrap=True)
+    fig.subplots_adjust(left=0.08, right=0.98, top=0.92, bottom=0.16)
+    return _save(fig, path)
+
+
+def residual_png(result: ToneResult, path: Path, title: str) -> Path:
+    """The notched residual over two periods, with the fundamental drawn
+    faintly on its own axis for phase."""
+    tr = result.traces
+    if tr is None:
+        raise ValueError("the result was analysed without traces")
+    fig = Figure(figsize=(10, 5.0))
+    ax = fig.add_subplot(1, 1, 1)
+    scale, unit = 1.0, "FS"
+    if result.volts_per_fs is not None:
+        scale, unit = result.volts_per_fs * 1000.0, "mV"
+    t_ms = tr.time_s * 1000.0
+    ax2 = ax.twinx()
+    ax2.plot(t_ms, tr.fundamental_fs * scale, color=_FAINT, lw=1.0, alpha=0.6)
+    ax2.set_ylabel(f"fundamental ({unit}), faint", color=_FAINT)
+    ax2.tick_params(axis="y", colors=_FAINT)
+    ax.plot(t_ms, tr.residual_fs * scale, color=_TRACE, lw=1.1, zorder=3)
+    ax.set_zorder(ax2.get_zorder() + 1)
+    ax.patch.set_visible(False)
+    ax.axhline(0.0, color="#cccccc", lw=0.6)
+    ax.set_xlim(t_ms[0], t_ms[-1])
+    ax.set_xlabel("time from a rising zero crossing of the fundamental (ms)")
+    ax.set_ylabel(f"residual, band-limited ({unit})")
+    ax.grid(True, color="#eeeeee", lw=0.5)
+    lo, hi = result.bandwidth_hz
+    ax.set_title(f"{title}: residual without the fundamental ({lo:g} Hz to {hi:g} Hz)", loc="left", fontsize=10)
+    fig.text(0.01, 0.01, conditions_line(result), fontsize=7.5, color="#333333", ha="left", va="bottom", wrap=True)
+    fig.subplots_adjust(left=0.09, right=0.91, top=0.91, bottom=0.17)
+    return _save(fig, path)

@@ -1,0 +1,72 @@
+"""One-screen text summaries of results, for stderr."""
+
+from __future__ import annotations
+
+from benchkit.analysis import spectrum as sp
+from benchkit.analysis.tone import ToneResult
+
+#: Plain readings of the harmonic profile (common practice).
+PROFILE_TEXT = {
+    "even-order": "even-order dominant: an asymmetric transfer curve, the usual signature of a single-ended stage",
+    "odd-order": "odd-order dominant: a symmetric curvature, as from a push-pull stage or a symmetric soft limit",
+    "high-order-tail": (
+        "a long high-order tail: hard clipping or a sharp kink in the transfer curve; the residual plot shows which"
+    ),
+    "mixed": "even and odd orders alike: more than one mechanism at work",
+    "below-noise": "no harmonic stands clear of the noise: the residual is noise, not distortion",
+}
+
+_PREFIXES = ((1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"))
+
+
+def format_si(value: float, unit: str, digits: int = 4) -> str:
+    """``0.0123, "V"`` -> ``"12.30 mV"``."""
+    mag = abs(value)
+    for scale, prefix in _PREFIXES:
+        if mag >= scale or scale == 1e-9:
+            return f"{value / scale:.{digits}g} {prefix}{unit}"
+    return f"{value:g} {unit}"  # pragma: no cover
+
+
+def conditions_line(r: ToneResult) -> str:
+    """The conditions a tone result holds under, in one line."""
+    lo, hi = r.bandwidth_hz
+    scale = "no voltage scale" if r.volts_per_fs is None else f"{r.volts_per_fs:g} V peak per FS ({r.scale_source})"
+    return (
+        f"{r.sample_rate_hz:g} Hz, {r.n_samples} samples ({r.duration_s:.3g} s), band {lo:g} to {hi:g} Hz, "
+        f"{sp.WINDOW_NAME.split(',')[0]} window, averages {r.averages}, "
+        f"fit to H{r.fitted_orders}, {scale}"
+    )
+
+
+def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> str:
+    """The figures of a tone analysis on one screen, ending with a plain
+    reading of the harmonic profile."""
+    lines = []
+    head = " ".join(x for x in (name, f"channel {channel}" if channel else "") if x)
+    if head:
+        lines.append(head)
+    if not r.valid:
+        lines.append("  NOT VALID: " + "; ".join(w for w in r.warnings if "clipped" in w))
+    fund = f"  fundamental  {r.fundamental_hz:.4f} Hz   {r.fundamental_dbfs:.2f} dBFS"
+    if r.fundamental_vrms is not None:
+        fund += f"   {format_si(r.fundamental_vrms, 'Vrms')}"
+    if r.power_w is not None:
+        fund += f"   {format_si(r.power_w, 'W')} into {r.load_ohms:g} ohm"
+    lines.append(fund)
+    orders = f"H2..H{r.harmonics[-1].order}" if r.harmonics else "no harmonics in band"
+    lines.append(f"  THD          {r.thd_pct:.4g} %   {r.thd_db:.2f} dB   ({orders})")
+    lines.append(f"  THD+N        {r.thdn_pct:.4g} %   {r.thdn_db:.2f} dB   SINAD {r.sinad_db:.2f} dB")
+    noise = f"  noise        {r.noise_dbfs:.1f} dBFS"
+    if r.noise_vrms is not None:
+        noise += f"   {format_si(r.noise_vrms, 'Vrms')}"
+    lines.append(noise)
+    lines.append(f"  DC {r.dc_fs:+.3g} FS   peak {r.peak_fs:.4g} FS   crest factor {r.crest_factor:.3f}")
+    if r.harmonics:
+        hs = "  ".join(f"H{h.order} {h.level_dbc:.1f}" for h in r.harmonics[:9])
+        lines.append(f"  dBc          {hs}")
+    lines.append(f"  conditions   {conditions_line(r)}")
+    for w in r.warnings:
+        lines.append(f"  warning      {w}")
+    lines.append(f"  reading      {PROFILE_TEXT[r.harmonic_profile]}")
+    return "\n".join(lines)

@@ -1,0 +1,265 @@
+"""Every unit conversion benchkit uses, in one place.
+
+Conventions (see docs/measurement-guide.md):
+
+* Full scale (FS) is a sample value of 1.0.
+* An interface's scale is the volts *peak* at its jack for one FS; a
+  ``volts_per_fs`` number anywhere in benchkit means volts peak at the point
+  measured (after undoing any pad) per unit sample value.
+* dBFS of any signal is ``20 log10(sqrt(2) * RMS / FS)`` (AES17), so a sine
+  whose peaks just reach FS is 0 dBFS and a sine of peak 0.5 FS is -6.02 dBFS.
+* 0 dBV = 1 Vrms; 0 dBu = sqrt(0.6) Vrms = 0.7746 Vrms.
+* Ratios in dB are amplitude ratios (``20 log10``) unless named ``power``.
+
+Logarithms of zero are floored at :data:`DB_FLOOR` so that results stay finite
+and JSON-serialisable; a figure at the floor means "nothing measurable".
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+
+import numpy as np
+
+from benchkit.errors import BenchkitError
+
+SQRT2 = math.sqrt(2.0)
+#: 0 dBu in Vrms: the voltage that dissipates 1 mW in 600 ohm.
+DBU_REF_VRMS = math.sqrt(0.6)
+#: 0 dBV in Vrms.
+DBV_REF_VRMS = 1.0
+#: Lowest level any dB conversion returns (amplitude ratio 1e-20).
+DB_FLOOR = -400.0
+
+_TINY_AMPLITUDE = 10.0 ** (DB_FLOOR / 20.0)
+
+
+def _scalar_or_array(out: np.ndarray):
+    return float(out) if out.ndim == 0 else out
+
+
+def db_from_ratio(ratio):
+    """Amplitude ratio to dB, ``20 log10(ratio)``, floored at DB_FLOOR."""
+    r = np.maximum(np.abs(np.asarray(ratio, dtype=float)), _TINY_AMPLITUDE)
+    return _scalar_or_array(20.0 * np.log10(r))
+
+
+def ratio_from_db(db):
+    """dB to amplitude ratio, ``10^(db/20)``."""
+    return _scalar_or_array(10.0 ** (np.asarray(db, dtype=float) / 20.0))
+
+
+def db_from_power_ratio(power_ratio):
+    """Power ratio to dB, ``10 log10(power_ratio)``, floored at DB_FLOOR."""
+    p = np.maximum(np.asarray(power_ratio, dtype=float), _TINY_AMPLITUDE**2)
+    return _scalar_or_array(10.0 * np.log10(p))
+
+
+def pct_from_ratio(ratio):
+    """Ratio to percent."""
+    return ratio * 100.0
+
+
+def dbfs_from_rms(rms_fs):
+    """dBFS of a signal of the given RMS (in FS units), AES17 definition."""
+    return db_from_ratio(SQRT2 * np.asarray(rms_fs, dtype=float))
+
+
+def rms_from_dbfs(dbfs):
+    """RMS in FS units of a signal at the given dBFS (AES17 definition)."""
+    return ratio_from_db(dbfs) / SQRT2
+
+
+def dbfs_from_peak(amplitude_fs):
+    """dBFS of a sine of the given peak amplitude in FS units."""
+    return db_from_ratio(amplitude_fs)
+
+
+def vrms_from_vpk(vpk):
+    """RMS of a sine from its peak."""
+    return vpk / SQRT2
+
+
+def vpk_from_vrms(vrms):
+    """Peak of a sine from its RMS."""
+    return vrms * SQRT2
+
+
+def dbv_from_vrms(vrms):
+    """Volts RMS to dBV (re 1 Vrms)."""
+    return db_from_ratio(np.asarray(vrms, dtype=float) / DBV_REF_VRMS)
+
+
+def vrms_from_dbv(dbv):
+    """dBV to volts RMS."""
+    return DBV_REF_VRMS * ratio_from_db(dbv)
+
+
+def dbu_from_vrms(vrms):
+    """Volts RMS to dBu (re 0.7746 Vrms)."""
+    return db_from_ratio(np.asarray(vrms, dtype=float) / DBU_REF_VRMS)
+
+
+def vrms_from_dbu(dbu):
+    """dBu to volts RMS."""
+    return DBU_REF_VRMS * ratio_from_db(dbu)
+
+
+def watts_from_vrms(vrms, load_ohms):
+    """Average power of a voltage of the given RMS into a resistor, V^2/R."""
+    _check_load(load_ohms)
+    return _scalar_or_array(np.asarray(vrms, dtype=float) ** 2 / load_ohms)
+
+
+def vrms_from_watts(watts, load_ohms):
+    """RMS voltage that puts the given average power into a resistor."""
+    _check_load(load_ohms)
+    if watts < 0:
+        raise BenchkitError(f"power must not be negative, got {watts} W")
+    return math.sqrt(watts * load_ohms)
+
+
+def _check_load(load_ohms: float) -> None:
+    if not (load_ohms > 0 and math.isfinite(load_ohms)):
+        raise BenchkitError(f"load must be a positive resistance in ohms, got {load_ohms}")
+
+
+# --- level strings ---------------------------------------------------------
+
+_UNIT_ALIASES = {
+    "dbfs": "dBFS",
+    "vrms": "Vrms",
+    "v": "Vrms",
+    "vpk": "Vpk",
+    "vp": "Vpk",
+    "vpp": "Vpp",
+    "dbv": "dBV",
+    "dbu": "dBu",
+    "w": "W",
+}
+_PREFIX = {"m": 1e-3, "u": 1e-6, "µ": 1e-6, "k": 1e3, "": 1.0}
+
+_LEVEL_RE = re.compile(
+    r"""^\s*(?P<value>[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?)\s*
+        (?P<unit>[a-zA-Zµ]+)
+        (\s*(@|into)\s*(?P<load>(\d+(\.\d*)?|\.\d+))\s*(ohms?|Ω|r)?)?\s*$""",
+    re.VERBOSE | re.IGNORECASE,
+)
+
+
+@dataclass(frozen=True)
+class Level:
+    """A level as the user wrote it: a number with a unit.
+
+    ``unit`` is one of dBFS, Vrms, Vpk, Vpp, dBV, dBu, W. ``load_ohms`` is set
+    for a power ("2 W@8ohm"). Voltages are of a sine.
+    """
+
+    value: float
+    unit: str
+    load_ohms: float | None = None
+
+    def to_vrms(self, volts_per_fs: float | None = None) -> float:
+        """The level as volts RMS at the measured point.
+
+        A dBFS level needs ``volts_per_fs`` (volts peak per FS).
+        """
+        if self.unit == "Vrms":
+            return self.value
+        if self.unit == "Vpk":
+            return vrms_from_vpk(self.value)
+        if self.unit == "Vpp":
+            return vrms_from_vpk(self.value / 2.0)
+        if self.unit == "dBV":
+            return vrms_from_dbv(self.value)
+        if self.unit == "dBu":
+            return vrms_from_dbu(self.value)
+        if self.unit == "W":
+            return vrms_from_watts(self.value, self.load_ohms)
+        # dBFS
+        if volts_per_fs is None:
+            raise BenchkitError(
+                f"{self} is relative to full scale; converting it to volts needs the interface scale"
+            )
+        return rms_from_dbfs(self.value) * volts_per_fs
+
+    def to_dbfs(self, volts_per_fs: float | None = None) -> float:
+        """The level in dBFS; an absolute level needs ``volts_per_fs``."""
+        if self.unit == "dBFS":
+            return self.value
+        if volts_per_fs is None:
+            raise BenchkitError(
+                f"{self} is a voltage; converting it to dBFS needs the interface scale (volts per FS)"
+            )
+        return dbfs_from_rms(self.to_vrms() / volts_per_fs)
+
+    def __str__(self) -> str:
+        load = f"@{self.load_ohms:g}ohm" if self.load_ohms is not None else ""
+        return f"{self.value:g} {self.unit}{load}"
+
+
+def parse_level(text: str) -> Level:
+    """Parse a level such as "-12 dBFS", "0.5 Vrms", "300 mVrms", "-6 dBV",
+    "+4 dBu", "2.8 Vpk", "2 W@8ohm" or "2 W into 8 ohm".
+
+    A bare "V" means volts RMS. Raises :class:`BenchkitError` on anything else.
+    """
+    m = _LEVEL_RE.match(text)
+    if not m:
+        raise BenchkitError(f"cannot read level {text!r}: expected e.g. '-12 dBFS', '0.5 Vrms', '+4 dBu' or '2 W@8ohm'")
+    value = float(m.group("value"))
+    raw_unit = m.group("unit")
+    unit, scale = _resolve_unit(raw_unit)
+    if unit is None:
+        raise BenchkitError(
+            f"unknown unit {raw_unit!r} in {text!r}: use dBFS, Vrms, Vpk, Vpp, dBV, dBu or W@<ohms>"
+        )
+    load = m.group("load")
+    if unit == "W":
+        if load is None:
+            raise BenchkitError(f"a power needs its load, e.g. '{value:g} W@8ohm'")
+        load_ohms = float(load)
+        _check_load(load_ohms)
+        if value * scale < 0:
+            raise BenchkitError(f"power must not be negative in {text!r}")
+        return Level(value * scale, "W", load_ohms)
+    if load is not None:
+        raise BenchkitError(f"only a power takes a load: {text!r}")
+    if unit in ("Vrms", "Vpk", "Vpp") and value * scale < 0:
+        raise BenchkitError(f"a voltage level must not be negative in {text!r}")
+    return Level(value * scale, unit)
+
+
+def _resolve_unit(raw: str) -> tuple[str | None, float]:
+    key = raw.lower()
+    if key in _UNIT_ALIASES:
+        return _UNIT_ALIASES[key], 1.0
+    # prefixed volts and watts: mVrms, uVrms, mW, kW ... (not the dB units)
+    prefix, rest = raw[:1], raw[1:].lower()
+    if prefix in ("m", "u", "µ", "k") and rest in ("vrms", "v", "vpk", "vp", "vpp", "w"):
+        return _UNIT_ALIASES[rest], _PREFIX[prefix]
+    return None, 1.0
+
+
+def parse_frequency(text: str) -> float:
+    """A frequency in Hz: "997", "20k", "1.5 kHz", "20000Hz"."""
+    m = re.match(r"^\s*(?P<v>(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?)\s*(?P<k>k)?\s*(hz)?\s*$", text, re.IGNORECASE)
+    if not m:
+        raise BenchkitError(f"cannot read frequency {text!r}: expected e.g. '997', '20k' or '1.5 kHz'")
+    return float(m.group("v")) * (1000.0 if m.group("k") else 1.0)
+
+
+def parse_band(text: str) -> tuple[float, float] | None:
+    """A measurement band "LO:HI" in Hz ("20:20k", "22:22000"), or "full"
+    (returned as None: 0 Hz to half the sample rate)."""
+    if text.strip().lower() == "full":
+        return None
+    parts = text.split(":")
+    if len(parts) != 2:
+        raise BenchkitError(f"cannot read band {text!r}: expected LO:HI in Hz (e.g. 20:20000) or 'full'")
+    lo, hi = parse_frequency(parts[0]), parse_frequency(parts[1])
+    if not lo < hi:
+        raise BenchkitError(f"band {text!r}: the low edge must be below the high edge")
+    return lo, hi
