@@ -278,6 +278,21 @@ def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tupl
     else:
         lo, hi = kmin, kmax
     peak = lo + int(np.argmax(power[lo:hi]))
+    if hint_hz is None:
+        # a stronger line below the search range means a tone with too few
+        # periods in the record; take the offset out of those bins first
+        # (the window's DFT at integer bins is a_0 N, -a_1 N/2, a_2 N/2, ...)
+        low = spec[1:kmin].copy()
+        coeffs = sp.WINDOW_COEFFS
+        mean = float(np.mean(x))
+        for k in range(1, min(len(coeffs), kmin)):
+            low[k - 1] -= mean * (-1) ** k * coeffs[k] * n / 2.0
+        if np.max(np.abs(low) ** 2) > power[peak]:
+            raise BenchkitError(
+                f"the record is too short for its tone: the strongest line lies below "
+                f"{kmin * sample_rate / n:.4g} Hz, with fewer than {MIN_PERIODS} periods in "
+                f"the {n / sample_rate:.4g} s record"
+            )
     # median level from ~2000 bins spread over the spectrum: as good a floor
     floor = float(np.median(power[kmin:kmax:max(1, (kmax - kmin) // 2048)]))
     if floor > 0 and power[peak] < floor * 10 ** (MIN_TONE_PROMINENCE_DB / 10):
@@ -291,9 +306,9 @@ def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tupl
     return nu, sp.peak_amplitude(spec, peak, nu, n), power
 
 
-def _harmonic_orders(f0: float, sample_rate: float, n: int, hi_hz: float) -> np.ndarray:
-    """Orders 2..K whose frequency lies in the band and clear of fs/2."""
-    limit = min(hi_hz, sample_rate / 2.0 - (sp.MAIN_LOBE_BINS + 1) * sample_rate / n)
+def _harmonic_orders(f0: float, sample_rate: float, n: int, hi_hz: float, guard_bins: float = sp.MAIN_LOBE_BINS + 1) -> np.ndarray:
+    """Orders 2..K below ``hi_hz`` and at least ``guard_bins`` clear of fs/2."""
+    limit = min(hi_hz, sample_rate / 2.0 - guard_bins * sample_rate / n)
     kmax = int(math.floor(limit / f0 * (1 + 1e-9)))
     return np.arange(2, kmax + 1) if kmax >= 2 else np.zeros(0, dtype=int)
 
@@ -310,8 +325,10 @@ def _analyse_block(
     energy = float(x @ x)
     nu0, amp0, spec_power = _find_tone(x, sample_rate, hint_hz)
     f_start = nu0 * sample_rate / n
-    orders = _harmonic_orders(f_start, sample_rate, n, band[1])
-    k_fit = max(1, min(fit_orders, int(orders[-1]) if orders.size else 1))
+    # the fit models the signal, harmonics above the band included (they
+    # would bias the fundamental otherwise); the band decides what is reported
+    below_nyquist = _harmonic_orders(f_start, sample_rate, n, sample_rate / 2.0, guard_bins=2.0)
+    k_fit = max(1, min(fit_orders, int(below_nyquist[-1]) if below_nyquist.size else 1))
     layout = RecordLayout(n)
     fit = fit_tone(x, layout, nu0 / n, k_fit, start=amp0, energy=energy)
     if abs(fit.cycles * n - nu0) > 1.5:

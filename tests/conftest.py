@@ -1,0 +1,34 @@
+"""Shared helpers for the tests: signals with known content (numpy only)."""
+
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+
+def cosine(freq_hz: float, rate: float, seconds: float = 1.0, amp: float = 0.5, phase: float = 0.0) -> np.ndarray:
+    n = np.arange(int(round(rate * seconds)))
+    return amp * np.cos(2 * np.pi * freq_hz * n / rate + phase)
+
+
+def run_cli(*args: str, cwd=None) -> subprocess.CompletedProcess:
+    """Run the real console entry point in a subprocess."""
+    return subprocess.run(
+        [sys.executable, "-m", "benchkit", *args], capture_output=True, text=True, cwd=cwd, timeout=120
+    )
+
+
+@pytest.fixture(scope="session")
+def sox_path() -> str:
+    """The sox program; required in CI (it installs it), skipped elsewhere."""
+    path = shutil.which("sox")
+    if path is None:
+        if os.environ.get("CI"):
+            pytest.fail("sox is not installed; CI must install it (apt-get install sox)")
+        pytest.skip("sox is not installed (apt-get install sox)")
+    return path

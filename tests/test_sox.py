@@ -1,0 +1,65 @@
+"""Offline analysis of WAV files written by the sox program, which nobody in
+this project wrote (an independent generator, REFERENCES.md)."""
+
+from __future__ import annotations
+
+import json
+import math
+import subprocess
+
+import pytest
+
+from benchkit import analyze_tone
+from benchkit.recordings import read_capture
+
+from conftest import run_cli
+
+
+def _sox(sox_path, path, *effects, dither=False, bits=16, rate=48000, seconds=1.0):
+    cmd = [sox_path] + ([] if dither else ["-D"]) + ["-n", "-r", str(rate), "-b", str(bits), "-e", "signed-integer", str(path)]
+    subprocess.run(cmd + ["synth", str(seconds), *effects], check=True, capture_output=True, timeout=60)
+    return path
+
+
+def test_sox_sine_frequency_and_level(sox_path, tmp_path):
+    # sox synth writes a sine at the frequency asked for; 'gain -6' lowers it
+    # by 6 dB from its full-scale peak (sox documentation, from memory)
+    wav = _sox(sox_path, tmp_path / "tone.wav", "sine", "1234.5", "gain", "-6", bits=24)
+    rec = read_capture(wav)
+    r = analyze_tone(rec.samples, rec.sample_rate_hz)
+    assert r.fundamental_hz == pytest.approx(1234.5, abs=1e-3)
+    assert r.fundamental_dbfs == pytest.approx(-6.0, abs=0.05)
+
+
+@pytest.mark.parametrize("dither, penalty_db", [(False, 0.0), (True, 10 * math.log10(3))])
+def test_sox_16_bit_sine_sinad(sox_path, tmp_path, dither, penalty_db):
+    # IEEE 1241: 6.02 N + 1.76 dB at full scale, less the level below FS;
+    # sox's default dither (without -D) is TPDF of 2 LSB p-p, 4.77 dB worse
+    # (Lipshitz et al. 1992; sox's default from memory)
+    wav = _sox(sox_path, tmp_path / "q.wav", "sine", "997", "gain", "-1", dither=dither)
+    rec = read_capture(wav)
+    r = analyze_tone(rec.samples, rec.sample_rate_hz, bandwidth_hz=None)
+    ideal = 6.02 * 16 + 1.76 + r.fundamental_dbfs - penalty_db
+    assert r.sinad_db == pytest.approx(ideal, abs=0.3)
+
+
+def test_sox_square_wave_thd_through_the_cli(sox_path, tmp_path):
+    # sox's square is a sampled square: at 1 kHz and 48 kHz, 24 samples high
+    # and 24 low. The Fourier series of such a sampled square (aliases
+    # included) has odd harmonics H_k / H_1 = sin(pi/P) / sin(pi k/P), P = 48
+    wav = _sox(sox_path, tmp_path / "sq.wav", "square", "1000", "gain", "-3", bits=24)
+    res = run_cli("analyze", str(wav), "--json")
+    assert res.returncode == 0, res.stderr
+    doc = json.loads(res.stdout)
+    period = 48
+
+    def ratio(k):
+        return math.sin(math.pi / period) / math.sin(math.pi * k / period)
+
+    by_order = {h["order"]: h for h in doc["harmonics"]}
+    for k in (3, 5, 7, 9, 11, 19):
+        assert by_order[k]["level_dbc"] == pytest.approx(20 * math.log10(ratio(k)), abs=0.01)
+    assert by_order[2]["level_dbc"] < -120  # no even harmonics in a symmetric square
+    partial = math.sqrt(sum(ratio(k) ** 2 for k in range(3, 20, 2)))
+    assert doc["thd_pct"] == pytest.approx(100 * partial, abs=0.01)
+    assert doc["harmonic_profile"] == "high-order-tail"

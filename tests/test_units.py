@@ -1,0 +1,105 @@
+"""Unit conversions against their definitions.
+
+dBFS: AES17 (a sine whose peaks reach full scale is 0 dBFS; sqrt(2) x RMS).
+dBu/dBV: common definitions (0 dBu = 0.7746 Vrms, 0 dBV = 1 Vrms).
+Power into a resistor: circuit theory, P = Vrms^2 / R = Vpk^2 / (2 R).
+"""
+
+import math
+
+import numpy as np
+import pytest
+
+from benchkit import units
+from benchkit.errors import BenchkitError
+
+
+def test_dbfs_of_full_scale_and_half_scale_sines():
+    # AES17: a full-scale sine reads 0 dBFS; half the peak reads -6.02 dBFS
+    n = np.arange(48000)
+    for peak, expect in ((1.0, 0.0), (0.5, -6.0206)):
+        x = peak * np.sin(2 * np.pi * 997 * n / 48000)
+        rms = float(np.sqrt(np.mean(x**2)))
+        assert units.dbfs_from_rms(rms) == pytest.approx(expect, abs=1e-3)
+        assert units.dbfs_from_peak(peak) == pytest.approx(expect, abs=1e-3)
+
+
+def test_dbfs_of_a_square_wave_exceeds_zero():
+    # AES17 definition: a full-scale square wave (RMS = 1) reads +3.01 dBFS
+    assert units.dbfs_from_rms(1.0) == pytest.approx(3.0103, abs=1e-4)
+
+
+def test_dbu_and_dbv_references():
+    # common definitions: 0 dBu = 0.7746 Vrms, +4 dBu = 1.228 Vrms, 0 dBV = 1 Vrms
+    assert units.vrms_from_dbu(0.0) == pytest.approx(0.7746, abs=1e-4)
+    assert units.vrms_from_dbu(4.0) == pytest.approx(1.2277, abs=1e-4)
+    assert units.dbv_from_vrms(1.0) == pytest.approx(0.0)
+    assert units.dbu_from_vrms(1.0) == pytest.approx(2.2185, abs=1e-4)
+    assert units.vrms_from_dbv(-6.0) == pytest.approx(0.50119, abs=1e-5)
+
+
+def test_power_into_a_resistor():
+    # circuit theory: 2.83 Vrms into 8 ohm is 1 W; Vpk^2/(2R) gives the same
+    assert units.watts_from_vrms(math.sqrt(8.0), 8.0) == pytest.approx(1.0)
+    vpk = 4.0
+    assert units.watts_from_vrms(units.vrms_from_vpk(vpk), 8.0) == pytest.approx(vpk**2 / 16.0)
+    assert units.vrms_from_watts(2.0, 8.0) == pytest.approx(4.0)
+
+
+def test_floor_keeps_logs_finite():
+    assert units.db_from_ratio(0.0) == units.DB_FLOOR
+    assert math.isfinite(units.dbfs_from_rms(0.0))
+
+
+@pytest.mark.parametrize(
+    "text, unit, value",
+    [
+        ("-12 dBFS", "dBFS", -12.0),
+        ("0.5 Vrms", "Vrms", 0.5),
+        ("300mVrms", "Vrms", 0.3),
+        ("-6 dBV", "dBV", -6.0),
+        ("+4 dBu", "dBu", 4.0),
+        ("2.8 Vpk", "Vpk", 2.8),
+        ("5.6 Vpp", "Vpp", 5.6),
+    ],
+)
+def test_parse_level(text, unit, value):
+    lvl = units.parse_level(text)
+    assert lvl.unit == unit
+    assert lvl.value == pytest.approx(value)
+
+
+def test_parse_power_level_to_volts():
+    # circuit theory: 2 W into 8 ohm is 4 Vrms
+    lvl = units.parse_level("2 W@8ohm")
+    assert (lvl.unit, lvl.load_ohms) == ("W", 8.0)
+    assert lvl.to_vrms() == pytest.approx(4.0)
+    assert units.parse_level("2 W into 8 ohm").to_vrms() == pytest.approx(4.0)
+
+
+def test_level_conversions_with_a_scale():
+    # a -6.02 dBFS sine on a 2 V-peak input is 1 V peak, 0.7071 Vrms (AES17 dBFS)
+    assert units.parse_level("-6.0206 dBFS").to_vrms(volts_per_fs=2.0) == pytest.approx(0.70711, abs=1e-5)
+    assert units.parse_level("+4 dBu").to_dbfs(volts_per_fs=2.0) == pytest.approx(
+        20 * math.log10(1.2277 * math.sqrt(2) / 2.0), abs=1e-3
+    )
+
+
+@pytest.mark.parametrize("bad", ["", "loud", "-3 dBQ", "2 W", "-1 Vrms", "3 dBFS@8ohm"])
+def test_parse_level_rejects(bad):
+    with pytest.raises(BenchkitError):
+        units.parse_level(bad)
+
+
+def test_dbfs_level_needs_a_scale_for_volts():
+    with pytest.raises(BenchkitError):
+        units.parse_level("-12 dBFS").to_vrms()
+
+
+def test_parse_band():
+    assert units.parse_band("20:20k") == (20.0, 20000.0)
+    assert units.parse_band("22:22000") == (22.0, 22000.0)
+    assert units.parse_band("full") is None
+    for bad in ("20", "20000:20", "a:b"):
+        with pytest.raises(BenchkitError):
+            units.parse_band(bad)
