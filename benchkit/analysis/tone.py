@@ -261,8 +261,8 @@ def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tupl
     n = x.size
     # no offset removal needed: the window puts a DC offset >100 dB down by
     # the first bin searched
-    spec = scipy.fft.rfft(np.multiply(x, sp.window(n)))
-    power = spec.real**2 + spec.imag**2
+    spec = sp.windowed_rfft(x)
+    power = sp.power(spec)
     kmin, kmax = MIN_PERIODS + 1, n // 2 - sp.MAIN_LOBE_BINS - 1
     if kmax <= kmin:
         raise BenchkitError(f"the record is too short to analyse ({n} samples)")
@@ -345,10 +345,10 @@ def _analyse_block(
     fund = residual.copy() if keep else None
     np.subtract(x, residual, out=residual)
     residual -= fit.offset
-    rspec = scipy.fft.rfft(np.multiply(residual, sp.window(n)))
+    rspec = sp.windowed_rfft(residual)
     in_band = sp.band_bins(n, sample_rate, *band)
     rpow = np.zeros(rspec.size)
-    rpow[in_band] = rspec.real[in_band] ** 2 + rspec.imag[in_band] ** 2
+    rpow[in_band] = sp.power(rspec[in_band])
     pscale = sp.power_scale(n)
     res_power = pscale * float(np.sum(rpow[in_band]))
 
