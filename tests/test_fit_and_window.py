@@ -90,3 +90,28 @@ def test_components_read_at_exact_frequencies():
     assert np.abs(z) == pytest.approx([0.3, 1e-4], rel=1e-6)
     assert np.angle(z) == pytest.approx([0.7, -2.0], abs=1e-5)
     assert sp.power_scale(n) == pytest.approx(2 / (n * np.sum(sp.window(n) ** 2)))
+
+
+@pytest.mark.parametrize("delta", [0.3, 0.5, 1e-7, 1e-13, 1 - 1e-13, 0.0])
+def test_kernel_at_bins_near_and_far(delta):
+    # W(j - delta) at integer j, against the direct DFT of the window (numpy),
+    # including tones a hair away from a bin, where cancellation would bite
+    n = 6000
+    w = sp.window(n)
+    j = np.array([-2999, -400, -9, -4, -3, -1, 0, 1, 2, 3, 4, 8, 9, 57, 2999])
+    direct = np.array([np.sum(w * np.exp(-2j * np.pi * (jj - delta) * np.arange(n) / n)) for jj in j])
+    assert np.max(np.abs(sp.kernel_at_bins(j, delta, n) - direct)) < 1e-13 * n
+
+
+@pytest.mark.parametrize("n", [4800, 20000, 20001])
+@pytest.mark.parametrize("nu", [3.2, 40.0, 997.3, 123.0000001, -3.0])
+def test_remove_tone_equals_the_fft_of_the_residual(n, nu):
+    # removing a known sine and offset from the windowed spectrum must equal
+    # the windowed FFT of the record without them (numpy FFT as reference)
+    nu = n / 2 - 3.0 if nu < 0 else nu  # and one just below half the rate
+    k = np.arange(n)
+    rest = 1e-3 * np.cos(2 * np.pi * 2 * nu * k / n + 1.0)
+    x = 0.7 * np.cos(2 * np.pi * nu * k / n + 0.4) + 0.01 + rest
+    got = sp.remove_tone(np.fft.rfft(x * sp.window(n)), n, nu, 0.7 * np.exp(0.4j), 0.01)
+    want = np.fft.rfft(rest * sp.window(n))
+    assert np.max(np.abs(got - want)) < 1e-11 * n

@@ -255,9 +255,9 @@ class _Block:
     fund_wave: np.ndarray | None = None
 
 
-def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tuple[float, complex, np.ndarray]:
+def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tuple[float, complex, np.ndarray, np.ndarray]:
     """Fundamental from the windowed spectrum: fractional bin, complex
-    amplitude ``A e^{j phi}`` there, and the spectrum's power."""
+    amplitude ``A e^{j phi}`` there, the spectrum and its power."""
     n = x.size
     # no offset removal needed: the window puts a DC offset >100 dB down by
     # the first bin searched
@@ -303,7 +303,7 @@ def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tupl
             f"(needs {MIN_TONE_PROMINENCE_DB:g} dB)"
         )
     nu = sp.refine_peak(spec, peak, n)
-    return nu, sp.peak_amplitude(spec, peak, nu, n), power
+    return nu, sp.peak_amplitude(spec, peak, nu, n), spec, power
 
 
 def _harmonic_orders(f0: float, sample_rate: float, n: int, hi_hz: float, guard_bins: float = sp.MAIN_LOBE_BINS + 1) -> np.ndarray:
@@ -323,7 +323,7 @@ def _analyse_block(
 ) -> _Block:
     n = x.size
     energy = float(x @ x)
-    nu0, amp0, spec_power = _find_tone(x, sample_rate, hint_hz)
+    nu0, amp0, spec, spec_power = _find_tone(x, sample_rate, hint_hz)
     f_start = nu0 * sample_rate / n
     # the fit models the signal, harmonics above the band included (they
     # would bias the fundamental otherwise); the band decides what is reported
@@ -341,11 +341,10 @@ def _analyse_block(
         )
     orders = _harmonic_orders(f0, sample_rate, n, band[1])
 
-    residual = layout.sine(fit.cycles, float(fit.cos[0]), float(fit.sin[0]))
-    fund = residual.copy() if keep else None
-    np.subtract(x, residual, out=residual)
-    residual -= fit.offset
-    rspec = sp.windowed_rfft(residual)
+    # the residual's windowed spectrum: the record's, less the fitted offset
+    # and fundamental (exact kernel), which spares a second FFT
+    amp1 = complex(float(fit.cos[0]), -float(fit.sin[0]))  # A e^{j phi}
+    rspec = sp.remove_tone(spec, n, fit.cycles * n, amp1, fit.offset)
     in_band = sp.band_bins(n, sample_rate, *band)
     rpow = np.zeros(rspec.size)
     rpow[in_band] = sp.power(rspec[in_band])
@@ -383,8 +382,9 @@ def _analyse_block(
         fitted_orders=k_fit,
     )
     if keep:
+        fund = layout.sine(fit.cycles, float(fit.cos[0]), float(fit.sin[0]))
         block.spec_power = spec_power
-        block.residual = _band_limit(residual, sample_rate, band)
+        block.residual = _band_limit(x - fit.offset - fund, sample_rate, band)
         block.fund_wave = fund
     return block
 
