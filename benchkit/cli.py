@@ -34,6 +34,17 @@ def _err(text: str) -> None:
     print(text, file=sys.stderr)
 
 
+def _progress(items: list, what: str):
+    """Iterate with a progress bar on stderr when there are several items
+    and stderr is a terminal; plainly otherwise."""
+    if len(items) < 2 or not sys.stderr.isatty():
+        return items
+    from rich.console import Console
+    from rich.progress import track
+
+    return track(items, description=what, console=Console(stderr=True), transient=True)
+
+
 def _version(value: bool) -> None:
     if value:
         print(f"benchkit {__version__}")
@@ -79,7 +90,7 @@ def analyze(
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
     docs, failed = [], 0
-    for path in files:
+    for path in _progress(files, "analysing"):
         try:
             docs.append(_analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out))
         except BenchkitError as exc:

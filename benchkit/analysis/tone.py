@@ -455,10 +455,10 @@ def detect_clipping(x: np.ndarray, full_scale: float = 1.0, peak: float | None =
 def classify_harmonics(orders: np.ndarray, amps: np.ndarray, noise_power: float) -> str:
     """A plain reading of the harmonic profile.
 
-    Returns one of "even-order", "odd-order", "high-order-tail", "mixed",
-    "below-noise" (common practice: a smooth asymmetric curve gives mostly
-    H2, a symmetric one mostly H3, hard clipping or a sharp kink a long tail
-    of high orders).
+    Returns one of "even-order", "odd-order", "high-order-tail" (over 5 % of
+    the harmonic power in orders 5 and up), "mixed", "below-noise" (common
+    practice: a smooth asymmetric curve gives mostly H2, a symmetric one
+    mostly H3, hard clipping or a sharp kink a long tail of high orders).
     """
     p = 0.5 * np.asarray(amps) ** 2
     total = float(np.sum(p))

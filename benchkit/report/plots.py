@@ -54,13 +54,13 @@ def spectrum_png(result: ToneResult, path: Path, title: str) -> Path:
         (result.fundamental_hz, result.fundamental_dbfs),
         textcoords="offset points", xytext=(8, -4), fontsize=8, color=_MARK, va="top",
     )
-    for h in result.harmonics[:_LABELLED_HARMONICS]:
+    for i, h in enumerate(result.harmonics[:_LABELLED_HARMONICS]):
         if h.level_dbfs < floor + 10.0:  # not clear of the noise: leave unlabelled
             continue
         ax.plot([h.freq_hz], [h.level_dbfs], "v", ms=5, color=_MARK, zorder=3)
-        ax.annotate(
+        ax.annotate(  # alternate heights so neighbours on a log axis do not collide
             f"H{h.order}\n{h.level_dbc:.1f} dBc", (h.freq_hz, h.level_dbfs),
-            textcoords="offset points", xytext=(0, 6), ha="center", fontsize=7, color=_MARK,
+            textcoords="offset points", xytext=(0, 6 + 22 * (i % 2)), ha="center", fontsize=7, color=_MARK,
         )
     ax.set_xscale("log")
     ax.set_xlim(lo_f, tr.freq_hz[-1])
