@@ -106,12 +106,20 @@ def analyze(
 
 
 def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out) -> dict:
-    from benchkit.report.summary import tone_summary
+    from benchkit import runs
+    from benchkit.report import summary
 
     rec = read_capture(path, channel)
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
     if load is not None and scale is None:
         raise BenchkitError(f"{path}: --load needs a voltage scale (--volts-per-fs, or a sidecar that gives one)")
+    if runs.is_stepped(rec) and fundamental is None and averages == 1:
+        steps = runs.analyze_steps(rec, band, load, volts_per_fs, traces=out is not None)
+        _err(summary.steps_summary(steps, f"{path} channel {channel} ({len(steps.steps)} steps)"))
+        if out is not None:
+            for written in _write_steps_reports(steps, Path(path), channel, out):
+                _err(f"  wrote        {written}")
+        return steps.to_dict()
     result = analyze_tone(
         rec.samples,
         rec.sample_rate_hz,
@@ -126,20 +134,25 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
     d = result.to_dict()
     doc = {"kind": d.pop("kind"), "schema_version": d.pop("schema_version"), "file": str(path), "channel": channel, **d}
     doc["warnings"] = list(rec.warnings) + doc["warnings"]
-    _err(tone_summary(result, str(path), channel))
+    _err(summary.tone_summary(result, str(path), channel))
     if out is not None:
         for written in _write_reports(result, doc, Path(path), channel, out):
             _err(f"  wrote        {written}")
     return doc
 
 
-def _write_reports(result, doc, path: Path, channel: int, out: Path) -> list[Path]:
-    from benchkit.report import plots, tables
-
+def _report_folder(out: Path) -> Path:
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise BenchkitError(f"cannot create report folder {out}: {exc.strerror}") from exc
+    return out
+
+
+def _write_reports(result, doc, path: Path, channel: int, out: Path) -> list[Path]:
+    from benchkit.report import plots, tables
+
+    _report_folder(out)
     stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
     title = f"{path.name}, channel {channel}"
     return [
@@ -149,6 +162,135 @@ def _write_reports(result, doc, path: Path, channel: int, out: Path) -> list[Pat
         plots.spectrum_png(result, out / f"{stem}.spectrum.png", title),
         plots.residual_png(result, out / f"{stem}.residual.png", title),
     ]
+
+
+def _write_steps_reports(steps, path: Path, channel: int, out: Path) -> list[Path]:
+    from benchkit.report import plots, tables
+
+    _report_folder(out)
+    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    written = [
+        tables.write_json(steps.to_dict(), out / f"{stem}.result.json"),
+        tables.write_steps_csv(steps, out / f"{stem}.steps.csv"),
+        plots.steps_png([(path.name, steps)], out / f"{stem}.thdn.png", f"{path.name}: THD+N"),
+    ]
+    for s in steps.steps:
+        tag = f"{stem}-drive{s.drive_dbfs:+.0f}dBFS"
+        title = f"{path.name}, drive {s.drive_dbfs:g} dBFS"
+        written += [
+            plots.spectrum_png(s.result, out / f"{tag}.spectrum.png", title),
+            plots.residual_png(s.result, out / f"{tag}.residual.png", title),
+            tables.write_harmonics_csv(s.result, out / f"{tag}.harmonics.csv"),
+        ]
+    return written
+
+
+# --- live measurements ---------------------------------------------------------
+
+_SIM_HELP = "Simulated stage for --device virtual: ideal, poly, hard-clip, se-class-a (see 'benchkit models')."
+
+
+def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pad: str, seed: int):
+    """The capture backend a command asked for; says on stderr which."""
+    from benchkit import pads
+    from benchkit.capture import resolve_device
+    from benchkit.capture.stages import parse_params
+    from benchkit.capture.virtual import DEMO_PAD, virtual_bench
+
+    name = resolve_device(device)
+    if name != "virtual":
+        raise BenchkitError(
+            f"device {name!r}: real interfaces need the PortAudio backend, which this version does not have yet; "
+            "use --device virtual (or unset BENCHKIT_DEVICE)"
+        )
+    pad = DEMO_PAD if sim_pad == "demo" else pads.parse_pad(sim_pad)
+    bench = virtual_bench(sim, parse_params(sim_params), pad=pad, seed=seed)
+    pad_text = "no pad" if pad is None else f"pad {pad.r1_ohms:g}:{pad.r2_ohms:g} ohm ({1 / bench.pad_ratio():.2f}:1)"
+    _err(f"device: virtual bench (simulated interface, stage {sim}, {pad_text}); nothing is played")
+    return bench
+
+
+@app.command()
+def tone(
+    frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz (997 Hz keeps harmonics off sub-multiples of the rate)."),
+    levels: List[str] = typer.Option(["-20 dBFS"], "--level", help="Drive level at the interface output, dBFS (repeat for steps)."),
+    channel: int = typer.Option(1, "--channel", "-c", help="Input that carries the stage output, from 1."),
+    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: adds power in W."),
+    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
+    out: Optional[Path] = typer.Option(None, "--out", help="Run folder for the capture and reports (default: tone-<time>)."),
+    device: Optional[str] = typer.Option(None, "--device", help="Capture device; default 'virtual' unless BENCHKIT_DEVICE names one."),
+    sim: str = typer.Option("se-class-a", "--sim", help=_SIM_HELP),
+    sim_param: List[str] = typer.Option([], "--sim-param", help="Stage parameter key=value (repeatable), e.g. bias=1.2."),
+    sim_pad: str = typer.Option("demo", "--sim-pad", help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200)."),
+    seed: int = typer.Option(1, "--seed", help="Seed of the virtual bench (latency, noise)."),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
+) -> None:
+    """Play stepped tones into the stage, capture through the pad, analyse each step.
+
+    The capture is written to the run folder before it is analysed.
+
+    Example: benchkit tone --level -30dBFS --level -20dBFS --level -14dBFS --load 8 --sim-param bias=1.2
+
+    Safety: on a real bench, start low, measure through a pad into a dummy
+    load, and keep speakers off the output.
+    """
+    from datetime import datetime
+
+    from benchkit import runs
+    from benchkit.report import summary
+
+    try:
+        band = units.parse_band(bandwidth)
+        drive = [units.parse_level(text).to_dbfs() for text in levels]
+        backend = _open_backend(device, sim, sim_param, sim_pad, seed)
+        folder = _report_folder(out or Path(f"tone-{datetime.now():%Y%m%d-%H%M%S}"))
+        steps = runs.tone_run(backend, folder, frequency, drive, load_ohms=load, bandwidth_hz=band, channel=channel, traces=True)
+        _err(summary.steps_summary(steps, f"{frequency:g} Hz, {len(drive)} steps"))
+        for written in _write_steps_reports(steps, folder / "capture.wav", channel, folder):
+            _err(f"  wrote        {written}")
+        _err(f"run folder: {folder}")
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        raise typer.Exit(EXIT_BAD_INPUT)
+    if as_json:
+        from benchkit.report.tables import dumps
+
+        print(dumps(steps.to_dict()))
+
+
+@app.command()
+def demo(
+    out: Path = typer.Option(Path("benchkit-demo"), "--out", help="Report folder."),
+    seed: int = typer.Option(1, "--seed", help="Seed of the virtual bench."),
+) -> None:
+    """Run the demo on the virtual bench: Test stage B-2 at 0.8 A and 1.2 A bias, compared.
+
+    No hardware and no options needed; writes captures, PNG, CSV, JSON and a
+    summary into the report folder and prints where it is.
+
+    Example: benchkit demo --out demo-report
+    """
+    from benchkit.demo import run_demo
+
+    try:
+        _report_folder(out)
+        report = run_demo(out, seed=seed, say=_err)
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        raise typer.Exit(EXIT_BAD_INPUT)
+    _err(report.text)
+    _err(f"report: {report.folder.resolve()} ({len(report.files)} files)")
+
+
+@app.command()
+def models() -> None:
+    """List the virtual bench's stage models with their parameters and units.
+
+    Example: benchkit models
+    """
+    from benchkit.capture.stages import models_help
+
+    print(models_help())
 
 
 def main() -> None:

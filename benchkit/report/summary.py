@@ -70,3 +70,33 @@ def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> s
         lines.append(f"  warning      {w}")
     lines.append(f"  reading      {PROFILE_TEXT[r.harmonic_profile]}")
     return "\n".join(lines)
+
+
+def steps_summary(steps, title: str = "") -> str:
+    """A stepped-tone run as a table: one line per step."""
+    lines = [title] if title else []
+    lines.append("  drive dBFS    level        power      THD+N %    THD+N dB   H2 dBc   H3 dBc")
+    for s in steps.steps:
+        r = s.result
+        by_order = {h.order: h.level_dbc for h in r.harmonics}
+        level = format_si(r.fundamental_vrms, "Vrms") if r.fundamental_vrms is not None else f"{r.fundamental_dbfs:.2f} dBFS"
+        power = format_si(r.power_w, "W") if r.power_w is not None else "-"
+        mark = "" if r.valid else "   NOT VALID (clipped capture)"
+        lines.append(
+            f"  {s.drive_dbfs:9.2f}   {level:>11}  {power:>10}  {r.thdn_pct:9.4g}  {r.thdn_db:9.2f}  "
+            f"{by_order.get(2, float('nan')):7.1f}  {by_order.get(3, float('nan')):7.1f}{mark}"
+        )
+    return "\n".join(lines)
+
+
+def comparison_summary(deltas, labels: tuple[str, str]) -> str:
+    """Before/after, step by step: THD+N and its change (lower is better)."""
+    a, b = labels
+    lines = [f"  drive dBFS   THD+N {a:>10}   THD+N {b:>10}   change"]
+    for d in deltas:
+        better = "better" if d.thdn_change_db < -0.1 else "worse" if d.thdn_change_db > 0.1 else "same"
+        lines.append(
+            f"  {d.drive_dbfs:9.2f}   {d.before.thdn_db:13.2f} dB   {d.after.thdn_db:13.2f} dB   "
+            f"{d.thdn_change_db:+6.2f} dB ({better})"
+        )
+    return "\n".join(lines)

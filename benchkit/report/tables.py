@@ -70,3 +70,56 @@ def write_spectrum_csv(result: ToneResult, path: Path) -> Path:
         w.writerow(["freq_hz", "level_dbfs"])
         w.writerows(zip(np.char.mod("%.4f", tr.freq_hz), np.char.mod("%.3f", tr.spectrum_dbfs)))
     return path
+
+
+def _steps_row(drive: float, r) -> list:
+    by_order = {h.order: h.level_dbc for h in r.harmonics}
+    return [
+        f"{drive:.2f}",
+        f"{r.fundamental_hz:.4f}",
+        f"{r.fundamental_dbfs:.3f}",
+        "" if r.fundamental_vrms is None else f"{r.fundamental_vrms:.5g}",
+        "" if r.power_w is None else f"{r.power_w:.5g}",
+        f"{r.thd_pct:.5g}",
+        f"{r.thd_db:.3f}",
+        f"{r.thdn_pct:.5g}",
+        f"{r.thdn_db:.3f}",
+        f"{by_order.get(2, float('nan')):.2f}",
+        f"{by_order.get(3, float('nan')):.2f}",
+        f"{r.noise_dbfs:.2f}",
+        str(r.valid).lower(),
+    ]
+
+
+STEPS_HEADER = [
+    "drive_dbfs", "fundamental_hz", "fundamental_dbfs", "level_vrms", "power_w", "thd_pct", "thd_db",
+    "thdn_pct", "thdn_db", "h2_dbc", "h3_dbc", "noise_dbfs", "valid",
+]
+
+
+def write_steps_csv(steps, path: Path) -> Path:
+    """One row per step of a stepped-tone run."""
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(STEPS_HEADER)
+        for s in steps.steps:
+            w.writerow(_steps_row(s.drive_dbfs, s.result))
+    return path
+
+
+def write_comparison_csv(deltas, labels: tuple[str, str], path: Path) -> Path:
+    """Two runs side by side, step by step, with the change in THD+N."""
+    a, b = labels
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["drive_dbfs", f"power_w_{a}", f"power_w_{b}", f"thdn_db_{a}", f"thdn_db_{b}",
+                    "thdn_change_db", f"h2_dbc_{a}", f"h2_dbc_{b}", "valid"])
+        for d in deltas:
+            h2a = {h.order: h.level_dbc for h in d.before.harmonics}.get(2, float("nan"))
+            h2b = {h.order: h.level_dbc for h in d.after.harmonics}.get(2, float("nan"))
+            pa = "" if d.before.power_w is None else f"{d.before.power_w:.5g}"
+            pb = "" if d.after.power_w is None else f"{d.after.power_w:.5g}"
+            w.writerow([f"{d.drive_dbfs:.2f}", pa, pb, f"{d.before.thdn_db:.3f}", f"{d.after.thdn_db:.3f}",
+                        f"{d.thdn_change_db:+.3f}", f"{h2a:.2f}", f"{h2b:.2f}",
+                        str(d.before.valid and d.after.valid).lower()])
+    return path

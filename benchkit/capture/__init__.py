@@ -1,0 +1,122 @@
+"""Capture: play a stimulus, record the inputs, hand back an aligned capture.
+
+Every backend implements :class:`Backend`; :func:`run` plays a stimulus
+through one and aligns what came back by finding the stimulus' marker in the
+recording (the reported latency is never trusted). Backends: the virtual
+bench (``virtual``, the default) and, later, sound cards through PortAudio.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from typing import Protocol
+
+import numpy as np
+
+from benchkit.errors import BenchkitError
+from benchkit.signals import Stimulus
+
+#: The device every command uses unless told otherwise.
+DEFAULT_DEVICE = "virtual"
+DEVICE_ENV = "BENCHKIT_DEVICE"
+
+
+@dataclass(frozen=True)
+class InputChannel:
+    """One interface input: its number (from 1), what is wired to it, and
+    its scale in volts peak at the measured point per FS when known."""
+
+    number: int
+    role: str
+    volts_per_fs: float | None = None
+    scale_source: str = "none"
+
+    def to_dict(self) -> dict:
+        return {"number": self.number, "role": self.role, "volts_per_fs": self.volts_per_fs}
+
+
+@dataclass(frozen=True)
+class RawRecording:
+    """What a backend recorded: (n, inputs) in FS, longer than the stimulus
+    by at least the round trip, plus what happened on the way."""
+
+    samples: np.ndarray
+    events: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class Capture:
+    """An aligned capture: sample k of ``samples`` answers sample k of the
+    stimulus. ``latency_samples`` is the round trip found in the recording."""
+
+    samples: np.ndarray
+    sample_rate_hz: float
+    latency_samples: int
+    inputs: tuple[InputChannel, ...]
+    device: str
+    events: tuple[str, ...] = field(default_factory=tuple)
+
+    def channel(self, number: int) -> np.ndarray:
+        if not 1 <= number <= self.samples.shape[1]:
+            raise BenchkitError(f"input channel {number} does not exist (1 to {self.samples.shape[1]})")
+        return self.samples[:, number - 1]
+
+    def input(self, number: int) -> InputChannel:
+        return self.inputs[number - 1]
+
+
+class Backend(Protocol):
+    """What every capture backend provides."""
+
+    name: str
+    sample_rate_hz: float
+    n_outputs: int
+
+    def inputs(self) -> tuple[InputChannel, ...]:
+        """The inputs, with their roles and known scales."""
+
+    def reference_input(self) -> int | None:
+        """The input wired straight to the driven output, if any."""
+
+    def play_record(self, stimulus: Stimulus) -> RawRecording:
+        """Play the stimulus and record every input, at least
+        ``stimulus.n_samples`` plus the round trip. Must leave the outputs
+        silent on every exit path."""
+
+
+def resolve_device(device: str | None) -> str:
+    """The device a command uses: the option, else BENCHKIT_DEVICE, else
+    the virtual bench (safety by default)."""
+    if device:
+        return device
+    return os.environ.get(DEVICE_ENV, "").strip() or DEFAULT_DEVICE
+
+
+def run(backend: Backend, stimulus: Stimulus) -> Capture:
+    """Play ``stimulus`` through ``backend`` and return the aligned capture."""
+    from benchkit.capture.align import find_marker
+
+    if abs(backend.sample_rate_hz - stimulus.sample_rate_hz) > 1e-6:
+        raise BenchkitError(
+            f"stimulus at {stimulus.sample_rate_hz:g} Hz cannot play on a device running at {backend.sample_rate_hz:g} Hz"
+        )
+    raw = backend.play_record(stimulus)
+    ref = backend.reference_input()
+    # the stimulus keeps silence between its marker and its first step: look
+    # for the marker there, where nothing else can resemble it
+    first = stimulus.segments[0].start if stimulus.segments else stimulus.n_samples
+    search = raw.samples[: first + stimulus.marker.size, (ref or 1) - 1]
+    found = find_marker(search, stimulus.marker)
+    latency = found - stimulus.marker_start
+    if latency < 0 or latency + stimulus.n_samples > raw.samples.shape[0]:
+        raise BenchkitError(f"the capture could not be aligned: marker found {latency} samples off the stimulus")
+    aligned = np.ascontiguousarray(raw.samples[latency : latency + stimulus.n_samples])
+    return Capture(
+        samples=aligned,
+        sample_rate_hz=stimulus.sample_rate_hz,
+        latency_samples=int(latency),
+        inputs=backend.inputs(),
+        device=backend.name,
+        events=raw.events,
+    )

@@ -1,0 +1,318 @@
+"""Simulated amplifier stages for the virtual bench.
+
+Each model maps the voltage at its input to the voltage across its load,
+sample by sample, at the bench's oversampled rate (the virtual interface
+band-limits and decimates around it, so a hard limit does not alias).
+Models keep state between calls (coupling capacitors, temperature, time)
+and say what their operating point is. docs/virtual-bench.md describes the
+physics and parameters of each; `benchkit demo --help` lists them.
+
+Add a model by subclassing :class:`StageModel`, declaring its ``PARAMS``
+and registering it in :data:`MODELS`; callers do not change.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.signal
+
+from benchkit.errors import BenchkitError
+
+#: kT/q at 300 K, volts.
+THERMAL_VOLTAGE = 0.02585
+#: The audio band the noise figures refer to.
+_NOISE_BAND_HZ = 19980.0
+
+
+@dataclass(frozen=True)
+class Param:
+    name: str
+    default: float
+    unit: str
+    help: str
+
+
+class StageModel:
+    """Base of every simulated stage."""
+
+    NAME = ""
+    SUMMARY = ""
+    PARAMS: tuple[Param, ...] = ()
+
+    def __init__(self, seed: int = 0, **params: float):
+        known = {p.name: p for p in self.PARAMS}
+        unknown = sorted(set(params) - set(known))
+        if unknown:
+            raise BenchkitError(
+                f"stage model {self.NAME!r} has no parameter {unknown[0]!r}; it takes: {', '.join(known)}"
+            )
+        self.params = {name: float(params.get(name, p.default)) for name, p in known.items()}
+        for name, value in self.params.items():
+            if not math.isfinite(value):
+                raise BenchkitError(f"stage parameter {name} must be a finite number")
+        self.seed = seed
+        self.validate()
+        self.reset()
+
+    def validate(self) -> None:
+        """Refuse parameter values the model cannot represent."""
+
+    def reset(self) -> None:
+        """Back to power-on: cold, discharged, time zero."""
+        self.time_s = 0.0
+        self._rng = np.random.default_rng(self.seed)
+
+    def process(self, v_in: np.ndarray, rate: float) -> np.ndarray:
+        """Volts across the load for input volts ``v_in`` at ``rate``."""
+        out = self._transfer(np.asarray(v_in, dtype=float), rate)
+        self.time_s += v_in.size / rate
+        return out
+
+    def _transfer(self, v_in: np.ndarray, rate: float) -> np.ndarray:
+        raise NotImplementedError
+
+    def advance(self, seconds: float) -> None:
+        """Let time pass with no signal (warming up, settling)."""
+        self.time_s += seconds
+
+    def operating_point(self) -> dict:
+        """DC conditions now (supply current, dissipation, temperatures)."""
+        return {}
+
+    def describe(self) -> dict:
+        return {"model": self.NAME, "params": dict(self.params), "operating_point": self.operating_point()}
+
+    def _positive(self, *names: str) -> None:
+        for name in names:
+            if not self.params[name] > 0:
+                raise BenchkitError(f"stage parameter {name} must be positive, got {self.params[name]:g}")
+
+
+class Ideal(StageModel):
+    NAME = "ideal"
+    SUMMARY = "gain only: v_out = gain x v_in"
+    PARAMS = (Param("gain", 10.0, "V/V", "voltage gain"),)
+
+    def _transfer(self, v_in, rate):
+        return self.params["gain"] * v_in
+
+
+class Poly(StageModel):
+    NAME = "poly"
+    SUMMARY = "polynomial: v_out = gain v + a2 v^2 + a3 v^3 + a4 v^4 + a5 v^5 (v = input volts)"
+    PARAMS = (
+        Param("gain", 10.0, "V/V", "linear gain"),
+        Param("a2", 0.0, "1/V", "second-order coefficient"),
+        Param("a3", 0.0, "1/V^2", "third-order coefficient"),
+        Param("a4", 0.0, "1/V^3", "fourth-order coefficient"),
+        Param("a5", 0.0, "1/V^4", "fifth-order coefficient"),
+    )
+
+    def _transfer(self, v_in, rate):
+        p = self.params
+        return v_in * (p["gain"] + v_in * (p["a2"] + v_in * (p["a3"] + v_in * (p["a4"] + v_in * p["a5"]))))
+
+
+class HardClip(StageModel):
+    NAME = "hard-clip"
+    SUMMARY = "gain with symmetric hard clipping at +-vclip volts"
+    PARAMS = (
+        Param("gain", 10.0, "V/V", "voltage gain"),
+        Param("vclip", 9.5, "V", "clipping level, either polarity"),
+    )
+
+    def validate(self):
+        self._positive("vclip")
+
+    def _transfer(self, v_in, rate):
+        return np.clip(self.params["gain"] * v_in, -self.params["vclip"], self.params["vclip"])
+
+
+class SingleEndedClassA(StageModel):
+    """Single supply, single-ended class A: the output device pulls down,
+    a constant-current source of I_bias pulls up, and the load hangs off
+    the output node through a coupling capacitor.
+
+    - Load current v/R_L comes out of the bias current, so the device
+      carries I_bias - v/R_L: the positive swing at the load ends where the
+      device cuts off, at I_bias x R_L (current-limited half); the negative
+      swing ends at the midpoint less the saturation voltage (rail-limited
+      half).
+    - The device's V_BE follows the exponential law, V_T ln(i/I_s), plus
+      its emitter resistor; the ratio of that curve to its slope at rest is
+      the open-loop shape of the stage, whose curvature gives H2 growing
+      with level and falling as the bias rises. Negative feedback with loop
+      gain T divides the departure from a straight line by T.
+    - The coupling capacitor into the load is a first-order high-pass at
+      1 / (2 pi R_L C) on the drive the loop delivers; the limits act on
+      the load voltage that results.
+    - The midpoint drifts as the device warms: junction temperature rises
+      towards ambient + R_th x P_device with a first-order time constant,
+      and the midpoint moves by its temperature coefficient per degree.
+    """
+
+    NAME = "se-class-a"
+    SUMMARY = "single-ended class A, constant-current pull-up, capacitor-coupled load (demo stage B-2)"
+    PARAMS = (
+        Param("rail", 24.0, "V", "single supply rail"),
+        Param("bias", 0.8, "A", "constant-current pull-up (bias current)"),
+        Param("load", 8.0, "ohm", "load resistance"),
+        Param("coupling_uf", 2200.0, "uF", "output coupling capacitor"),
+        Param("gain", 10.0, "V/V", "closed-loop voltage gain"),
+        Param("loop_gain", 30.0, "V/V", "feedback loop gain that divides the distortion"),
+        Param("re", 0.22, "ohm", "emitter resistor of the output device"),
+        Param("vsat", 1.0, "V", "saturation voltage at the negative swing"),
+        Param("knee", 0.2, "V", "softness of the negative-swing limit"),
+        Param("noise_uv", 60.0, "uVrms", "output noise over 20 Hz to 20 kHz"),
+        Param("ripple_mv", 0.3, "mVrms", "supply ripple at the output, at twice the mains frequency"),
+        Param("mains_hz", 50.0, "Hz", "mains frequency"),
+        Param("ambient_c", 23.0, "degC", "ambient temperature"),
+        Param("rth", 1.5, "degC/W", "junction-to-ambient thermal resistance"),
+        Param("tau_s", 240.0, "s", "thermal time constant"),
+        Param("mid_tc_mv", -10.0, "mV/degC", "midpoint drift per degree of junction temperature"),
+    )
+
+    def validate(self):
+        self._positive("rail", "bias", "load", "coupling_uf", "gain", "loop_gain", "knee", "tau_s")
+        p = self.params
+        if p["vsat"] >= p["rail"] / 2:
+            raise BenchkitError("stage parameter vsat must be below half the rail")
+        if p["re"] < 0 or p["rth"] < 0 or p["noise_uv"] < 0 or p["ripple_mv"] < 0:
+            raise BenchkitError("stage parameters re, rth, noise_uv and ripple_mv must not be negative")
+
+    def reset(self):
+        super().reset()
+        self._hp_state = None
+        self._hp_rate = None
+
+    # --- DC and thermal -------------------------------------------------
+    @property
+    def current_limit_v(self) -> float:
+        """Peak positive swing at the load, I_bias x R_L."""
+        return self.params["bias"] * self.params["load"]
+
+    def junction_rise_c(self, t: float | None = None) -> float:
+        p = self.params
+        t = self.time_s if t is None else t
+        steady = p["rth"] * self._device_watts()
+        return steady * (1.0 - math.exp(-t / p["tau_s"]))
+
+    def midpoint_v(self, t: float | None = None) -> float:
+        """DC voltage of the output node: half the rail, drifting as the
+        junction warms."""
+        p = self.params
+        return p["rail"] / 2.0 + p["mid_tc_mv"] * 1e-3 * self.junction_rise_c(t)
+
+    def _device_watts(self) -> float:
+        return self.params["rail"] / 2.0 * self.params["bias"]
+
+    def operating_point(self) -> dict:
+        p = self.params
+        mid = self.midpoint_v()
+        return {
+            "time_s": self.time_s,
+            "supply_current_a": p["bias"],
+            "supply_watts": p["rail"] * p["bias"],
+            "device_watts": mid * p["bias"],
+            "pullup_watts": (p["rail"] - mid) * p["bias"],
+            "junction_c": p["ambient_c"] + self.junction_rise_c(),
+            "midpoint_v": mid,
+            "positive_limit_v": self.current_limit_v,
+            "negative_limit_v": -(mid - p["vsat"]),
+            "coupling_corner_hz": 1.0 / (2 * math.pi * p["load"] * p["coupling_uf"] * 1e-6),
+        }
+
+    # --- signal ------------------------------------------------------------
+    def _shape(self, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Open-loop shape g(v) (slope 1 at rest) and its derivative."""
+        p = self.params
+        vi = self.current_limit_v
+        kr = p["re"] / p["load"]
+        slope0 = THERMAL_VOLTAGE / vi + kr
+        y = 1.0 - v / vi
+        g = -(THERMAL_VOLTAGE * np.log(y) - kr * v) / slope0
+        dg = (THERMAL_VOLTAGE / (vi * y) + kr) / slope0
+        return g, dg
+
+    def _node_swing(self, target: np.ndarray) -> np.ndarray:
+        """Solve v + (g(v) - v) / T = target for the load voltage v < I R
+        (the device carries I_bias - v / R_L)."""
+        t_loop = self.params["loop_gain"]
+        vi = self.current_limit_v
+        top = vi * (1.0 - 1e-12)
+        v = np.minimum(target, 0.999 * vi)
+        for _ in range(60):
+            g, dg = self._shape(v)
+            h = v + (g - v) / t_loop - target
+            step = h / (1.0 + (dg - 1.0) / t_loop)
+            v_new = v - step
+            # stay on the physical side of the cut-off
+            v_new = np.where(v_new >= top, 0.5 * (v + top), v_new)
+            done = np.max(np.abs(v_new - v)) < 1e-13 * vi
+            v = v_new
+            if done:
+                break
+        return v
+
+    def _transfer(self, v_in, rate):
+        p = self.params
+        # the drive the loop asks for, as it reaches the load through the
+        # coupling capacitor; the device current follows the load current
+        wanted = self._couple(p["gain"] * v_in, rate)
+        load_v = self._node_swing(wanted)
+        # rail-limited half (the node cannot fall below the saturation
+        # voltage; the capacitor holds the midpoint), with a softened knee
+        floor = self.midpoint_v() - p["vsat"]
+        load_v = -floor + p["knee"] * np.logaddexp(0.0, (load_v + floor) / p["knee"])
+        t = self.time_s + np.arange(v_in.size) / rate
+        ripple = p["ripple_mv"] * 1e-3 * math.sqrt(2)
+        f_r = 2.0 * p["mains_hz"]
+        load_v = load_v + ripple * (np.sin(2 * np.pi * f_r * t) + 0.5 * np.sin(4 * np.pi * f_r * t + 0.7))
+        sigma = p["noise_uv"] * 1e-6 * math.sqrt((rate / 2.0) / _NOISE_BAND_HZ)
+        return load_v + sigma * self._rng.standard_normal(v_in.size)
+
+    def _couple(self, node: np.ndarray, rate: float) -> np.ndarray:
+        p = self.params
+        fc = 1.0 / (2 * math.pi * p["load"] * p["coupling_uf"] * 1e-6)
+        b, a = scipy.signal.butter(1, fc, btype="highpass", fs=rate)
+        if self._hp_state is None or self._hp_rate != rate:
+            self._hp_state = np.zeros(1)
+            self._hp_rate = rate
+        out, self._hp_state = scipy.signal.lfilter(b, a, node, zi=self._hp_state)
+        return out
+
+
+MODELS: dict[str, type[StageModel]] = {m.NAME: m for m in (Ideal, Poly, HardClip, SingleEndedClassA)}
+
+
+def make_stage(name: str, params: dict[str, float] | None = None, seed: int = 0) -> StageModel:
+    """A stage model by name with parameters overridden."""
+    if name not in MODELS:
+        raise BenchkitError(f"unknown stage model {name!r}; choose one of: {', '.join(MODELS)}")
+    return MODELS[name](seed=seed, **(params or {}))
+
+
+def parse_params(items: list[str]) -> dict[str, float]:
+    """``["bias=1.2", "gain=10"]`` -> ``{"bias": 1.2, "gain": 10.0}``."""
+    out = {}
+    for item in items:
+        key, sep, value = item.partition("=")
+        if not sep or not key.strip():
+            raise BenchkitError(f"cannot read stage parameter {item!r}: expected key=value, e.g. bias=1.2")
+        try:
+            out[key.strip()] = float(value)
+        except ValueError:
+            raise BenchkitError(f"stage parameter {key.strip()} needs a number, got {value!r}") from None
+    return out
+
+
+def models_help() -> str:
+    """Every model with its parameters, units and defaults (for --help)."""
+    lines = []
+    for m in MODELS.values():
+        params = ", ".join(f"{p.name} [{p.unit}] = {p.default:g}" for p in m.PARAMS)
+        lines.append(f"{m.NAME}: {m.SUMMARY}. Parameters: {params}.")
+    return "\n\n".join(lines)

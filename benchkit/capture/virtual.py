@@ -1,0 +1,227 @@
+"""The virtual bench: a simulated interface, pad and stage behind the
+capture protocol, the embedded default device.
+
+Signal path (docs/virtual-bench.md):
+
+    output 1 --DAC--> stage input --stage--> load --pad--> input 1 --ADC
+           \\________________________________________--> input 2 (reference loopback)
+
+The analog part runs at 8x the interface rate: the DAC's reconstruction and
+the ADC's anti-alias filter are the same linear-phase low-pass (flat to
+about 0.41 fs, -6 dB at 0.46 fs, about 110 dB down from 0.52 fs). The DAC and ADC add
+their noise floors and a small residual distortion; the input is AC coupled
+(first-order high-pass) unless DC coupled; the ADC clips at full scale;
+optional mains hum joins at the input; the round trip is a latency that
+differs run to run (seeded) and an optional clock offset between DAC and
+ADC. It computes; it does not wait.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+from fractions import Fraction
+from functools import lru_cache
+
+import numpy as np
+import scipy.signal
+
+from benchkit.capture import InputChannel, RawRecording
+from benchkit.capture.stages import StageModel, make_stage
+from benchkit.errors import BenchkitError
+from benchkit.pads import Pad
+from benchkit.signals import Stimulus
+
+OVERSAMPLE = 8
+#: The round trip drawn for each run, samples.
+LATENCY_RANGE = (300, 3000)
+_BAND_HZ = 19980.0
+
+
+@dataclass(frozen=True)
+class InterfaceSpec:
+    """Parameters of the simulated interface (all overridable)."""
+
+    sample_rate_hz: float = 48000.0
+    n_inputs: int = 2
+    n_outputs: int = 2
+    output_vpk_per_fs: float = 2.0
+    input_vpk_per_fs: float = 2.0
+    input_ohms: float = 10e3
+    dac_noise_dbfs: float = -110.0  # over 20 Hz to 20 kHz
+    adc_noise_dbfs: float = -110.0
+    residual_h2_dbc: float = -115.0  # at full scale, growing with level
+    residual_h3_dbc: float = -120.0
+    ac_coupling_hz: float | None = 3.0  # None: DC coupled
+    antialias_fraction: float = 0.46  # -6 dB point of the converters' filter
+    clock_ppm: float = 0.0
+    hum_hz: float | None = None  # 50 or 60
+    hum_dbfs: float = -100.0
+    adc_bits: int = 24
+
+    def __post_init__(self):
+        if self.n_inputs < 2 or self.n_outputs < 2:
+            raise BenchkitError("the virtual interface has at least 2 inputs and 2 outputs")
+        if not (8000 <= self.sample_rate_hz <= 384000):
+            raise BenchkitError(f"sample rate {self.sample_rate_hz:g} Hz is outside 8 kHz to 384 kHz")
+        if self.output_vpk_per_fs <= 0 or self.input_vpk_per_fs <= 0 or self.input_ohms <= 0:
+            raise BenchkitError("interface scales and input impedance must be positive")
+
+
+# demo pad: a 10:1 divider loaded by the interface's 10 k input
+DEMO_PAD = Pad(1800.0, 200.0)
+
+
+@lru_cache(maxsize=4)
+def _lowpass(fraction: float) -> np.ndarray:
+    """Linear-phase FIR at the oversampled rate: the converters' filter,
+    -6 dB at ``fraction`` x fs, about 110 dB down 0.05 fs beyond it."""
+    cutoff = fraction / (OVERSAMPLE / 2.0)  # relative to the oversampled Nyquist
+    # unit DC gain: resample_poly itself scales by the up factor
+    return scipy.signal.firwin(64 * OVERSAMPLE + 1, cutoff, window=("kaiser", 11.0))
+
+
+def _white(rng: np.random.Generator, n: int, dbfs_in_band: float, rate: float) -> np.ndarray:
+    """White noise whose level over 20 Hz-20 kHz is ``dbfs_in_band`` (AES17)."""
+    rms = 10 ** (dbfs_in_band / 20) / math.sqrt(2)
+    return rms * math.sqrt((rate / 2) / _BAND_HZ) * rng.standard_normal(n)
+
+
+def _residual(x: np.ndarray, h2_dbc: float, h3_dbc: float) -> np.ndarray:
+    """A converter's small curvature: H2 and H3 at full scale as given,
+    falling with level (power-reduction identities: a2 = 2 H2, a3 = 4 H3)."""
+    a2 = 2 * 10 ** (h2_dbc / 20)
+    a3 = 4 * 10 ** (h3_dbc / 20)
+    return x + a2 * x * x + a3 * x * x * x
+
+
+class VirtualBench:
+    """Simulated interface + pad + stage; a capture backend.
+
+    Parameters
+    ----------
+    stage : StageModel, optional
+        Default: the ``se-class-a`` model of the demo stage.
+    pad : Pad or None
+        Between the load and input 1; None for no pad.
+    spec : InterfaceSpec
+    seed : int
+        Draws the latency and noise of each run, run after run.
+    """
+
+    name = "virtual"
+
+    def __init__(
+        self,
+        stage: StageModel | None = None,
+        pad: Pad | None = DEMO_PAD,
+        spec: InterfaceSpec | None = None,
+        seed: int = 1,
+    ):
+        self.spec = spec or InterfaceSpec()
+        self.stage = stage if stage is not None else make_stage("se-class-a", seed=seed)
+        self.pad = pad
+        self._rng = np.random.default_rng(seed)
+        self.last_latency_samples: int | None = None
+        self.effective_clock_ppm = 0.0
+
+    # --- the protocol -----------------------------------------------------
+    @property
+    def sample_rate_hz(self) -> float:
+        return self.spec.sample_rate_hz
+
+    @property
+    def n_outputs(self) -> int:
+        return self.spec.n_outputs
+
+    def pad_ratio(self) -> float:
+        return 1.0 if self.pad is None else self.pad.ratio(self.spec.input_ohms)
+
+    def inputs(self) -> tuple[InputChannel, ...]:
+        """Input 1: the stage's load through the pad; input 2: output 1 looped
+        back. The bench knows its true scales."""
+        stage_scale = self.spec.input_vpk_per_fs / self.pad_ratio()
+        pad = "" if self.pad is None else f" through a {1 / self.pad_ratio():.2f}:1 pad"
+        chans = [
+            InputChannel(1, f"stage output{pad}", stage_scale, "simulation"),
+            InputChannel(2, "reference: output 1 looped back", self.spec.input_vpk_per_fs, "simulation"),
+        ]
+        chans += [InputChannel(k, "unused", self.spec.input_vpk_per_fs, "simulation") for k in range(3, self.spec.n_inputs + 1)]
+        return tuple(chans)
+
+    def reference_input(self) -> int | None:
+        return 2
+
+    def describe(self) -> dict:
+        s = self.spec
+        return {
+            "device": self.name,
+            "interface": {k: getattr(s, k) for k in s.__dataclass_fields__},
+            "pad": None if self.pad is None else self.pad.to_dict(s.input_ohms),
+            "stage": self.stage.describe(),
+        }
+
+    def play_record(self, stimulus: Stimulus) -> RawRecording:
+        s = self.spec
+        if stimulus.samples.shape[1] > s.n_outputs:
+            raise BenchkitError(f"the stimulus has {stimulus.samples.shape[1]} outputs; the interface has {s.n_outputs}")
+        rate = s.sample_rate_hz
+        n = stimulus.n_samples
+        latency = int(self._rng.integers(*LATENCY_RANGE))
+        self.last_latency_samples = latency
+        total = n + LATENCY_RANGE[1] + int(0.05 * rate)
+        drive = np.zeros(total)
+        drive[:n] = stimulus.samples[:, 0]
+        # DAC: curvature, noise, reconstruction filter, volts at the jack
+        dac = _residual(drive, s.residual_h2_dbc, s.residual_h3_dbc) + _white(self._rng, total, s.dac_noise_dbfs, rate)
+        h = _lowpass(s.antialias_fraction)
+        analog = scipy.signal.resample_poly(dac, OVERSAMPLE, 1, window=h) * s.output_vpk_per_fs
+        # the stage at 8x, then the pad into input 1; input 2 is the loopback
+        load_v = self.stage.process(analog, rate * OVERSAMPLE)
+        at_input = [load_v * self.pad_ratio(), analog]
+        channels = [self._adc(scipy.signal.resample_poly(v, 1, OVERSAMPLE, window=h)) for v in at_input]
+        channels += [self._adc(np.zeros(total)) for _ in range(2, s.n_inputs)]
+        rec = np.stack(channels, axis=1)
+        # the round trip: a delay nobody reports correctly, and clock offset
+        rec = np.concatenate([np.zeros((latency, s.n_inputs)), rec[: total - latency]])
+        if s.clock_ppm:
+            rec = self._clock_offset(rec)
+        return RawRecording(samples=rec)
+
+    # --- the converter ----------------------------------------------------
+    def _adc(self, volts: np.ndarray) -> np.ndarray:
+        s = self.spec
+        rate = s.sample_rate_hz
+        x = volts / s.input_vpk_per_fs
+        if s.hum_hz:
+            t = np.arange(x.size) / rate
+            amp = 10 ** (s.hum_dbfs / 20)
+            x = x + amp * (np.sin(2 * np.pi * s.hum_hz * t) + 0.3 * np.sin(6 * np.pi * s.hum_hz * t + 1.0))
+        if s.ac_coupling_hz:
+            b, a = scipy.signal.butter(1, s.ac_coupling_hz, btype="highpass", fs=rate)
+            x = scipy.signal.lfilter(b, a, x)
+        x = _residual(x, s.residual_h2_dbc, s.residual_h3_dbc) + _white(self._rng, x.size, s.adc_noise_dbfs, rate)
+        lsb = 2.0 ** (1 - s.adc_bits)
+        return np.clip(np.round(x / lsb) * lsb, -1.0, 1.0 - lsb)
+
+    def _clock_offset(self, rec: np.ndarray) -> np.ndarray:
+        """The ADC's clock runs clock_ppm fast: the recording is resampled
+        by the nearest ratio p/q (q <= 20000) to 1 + ppm 1e-6, which is
+        kept as ``effective_clock_ppm``."""
+        ratio = Fraction(1.0 + self.spec.clock_ppm * 1e-6).limit_denominator(20000)
+        self.effective_clock_ppm = (float(ratio) - 1.0) * 1e6
+        n = rec.shape[0]
+        out = scipy.signal.resample_poly(rec, ratio.numerator, ratio.denominator, axis=0)
+        return out[:n] if out.shape[0] >= n else np.concatenate([out, np.zeros((n - out.shape[0], rec.shape[1]))])
+
+
+def virtual_bench(
+    model: str = "se-class-a",
+    params: dict[str, float] | None = None,
+    pad: Pad | None = DEMO_PAD,
+    seed: int = 1,
+    **spec: float,
+) -> VirtualBench:
+    """A virtual bench with the named stage model."""
+    base = InterfaceSpec()
+    return VirtualBench(make_stage(model, params, seed=seed), pad, replace(base, **spec) if spec else base, seed)

@@ -1,0 +1,187 @@
+"""Stimulus generation: pure functions returning arrays plus a description.
+
+A :class:`Stimulus` is what a capture backend plays: samples in FS for
+every output channel, an alignment marker at the start, and the list of
+segments (one per step) with the span of each that is settled and fit to
+analyse. Every tone starts and ends with a raised-cosine fade, and every
+stimulus ends in silence, so nothing is ever left playing.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from benchkit import units
+from benchkit.errors import BenchkitError
+
+#: Raised-cosine fade at each end of a tone.
+FADE_S = 0.01
+#: Marker: a short logarithmic chirp that the capture layer finds to align.
+MARKER_S = 0.04
+MARKER_BAND_HZ = (500.0, 8000.0)
+MARKER_DBFS = -26.0
+#: Silence before the marker, after it, and at the end of a stimulus.
+LEAD_S = 0.05
+AFTER_MARKER_S = 0.25
+TAIL_S = 0.1
+#: Highest level any stimulus may reach (a tone whose peaks touch full
+#: scale would clip a real converter's reconstruction filter).
+MAX_DBFS = -0.5
+
+
+@dataclass(frozen=True)
+class Segment:
+    """One step of a stimulus, in samples from the stimulus start.
+
+    ``start``/``stop`` span the whole tone with its fades; ``settled`` is
+    where the analysis may begin (after the fade-in and the settle time) and
+    ``end`` where it must stop (before the fade-out).
+    """
+
+    start: int
+    stop: int
+    settled: int
+    end: int
+    frequency_hz: float
+    level_dbfs: float
+    channel: int
+
+    def to_dict(self) -> dict:
+        return {
+            "start": self.start,
+            "stop": self.stop,
+            "settled": self.settled,
+            "end": self.end,
+            "frequency_hz": self.frequency_hz,
+            "level_dbfs": self.level_dbfs,
+            "channel": self.channel,
+        }
+
+
+@dataclass(frozen=True)
+class Stimulus:
+    """What a backend plays: ``samples`` is (n, output channels) in FS."""
+
+    samples: np.ndarray
+    sample_rate_hz: float
+    segments: tuple[Segment, ...]
+    marker: np.ndarray
+    marker_start: int
+    description: dict = field(default_factory=dict)
+
+    @property
+    def n_samples(self) -> int:
+        return int(self.samples.shape[0])
+
+    @property
+    def duration_s(self) -> float:
+        return self.n_samples / self.sample_rate_hz
+
+
+def fade(n: int, rate: float, fade_s: float = FADE_S) -> np.ndarray:
+    """Gain envelope of length n: raised-cosine ramps in and out."""
+    k = min(int(round(fade_s * rate)), n // 2)
+    env = np.ones(n)
+    if k > 0:
+        ramp = 0.5 - 0.5 * np.cos(np.pi * (np.arange(k) + 0.5) / k)
+        env[:k] = ramp
+        env[n - k :] = ramp[::-1]
+    return env
+
+
+def tone(frequency_hz: float, level_dbfs: float, seconds: float, rate: float, phase: float = 0.0) -> np.ndarray:
+    """A faded sine of the given level (dBFS, AES17: peak = 10^(dBFS/20))."""
+    n = int(round(seconds * rate))
+    t = np.arange(n) / rate
+    return units.ratio_from_db(level_dbfs) * np.sin(2 * np.pi * frequency_hz * t + phase) * fade(n, rate)
+
+
+def marker(rate: float) -> np.ndarray:
+    """The alignment marker: a Hann-windowed logarithmic chirp."""
+    n = int(round(MARKER_S * rate))
+    f1, f2 = MARKER_BAND_HZ
+    t = np.arange(n) / rate
+    k = math.log(f2 / f1) / MARKER_S
+    chirp = np.sin(2 * np.pi * f1 * (np.exp(k * t) - 1.0) / k)
+    return units.ratio_from_db(MARKER_DBFS) * chirp * np.hanning(n)
+
+
+def _check_level(level_dbfs: float) -> None:
+    if not math.isfinite(level_dbfs) or level_dbfs > MAX_DBFS:
+        raise BenchkitError(f"drive level {level_dbfs:g} dBFS is above the {MAX_DBFS:g} dBFS the output allows")
+
+
+def stepped_tones(
+    frequency_hz: float,
+    levels_dbfs: list[float],
+    rate: float,
+    step_s: float = 1.0,
+    settle_s: float = 0.3,
+    gap_s: float = 0.05,
+    out_channel: int = 1,
+    n_out: int = 2,
+) -> Stimulus:
+    """Tones of one frequency at several levels, one after another.
+
+    Parameters
+    ----------
+    frequency_hz : float
+    levels_dbfs : list of float
+        Drive level of each step at the interface output, dBFS.
+    rate : float
+        Sample rate, Hz.
+    step_s : float
+        Analysed length of each step, after the settle time.
+    settle_s : float
+        Time after the fade-in before analysis starts (coupling capacitors
+        and the stage settle).
+    gap_s : float
+        Silence between steps.
+    out_channel, n_out : int
+        The output the tone plays on (from 1) and how many outputs there are.
+    """
+    if not levels_dbfs:
+        raise BenchkitError("at least one level is needed")
+    if not (0 < frequency_hz < rate / 2):
+        raise BenchkitError(f"tone frequency {frequency_hz:g} Hz must lie between 0 and half the sample rate")
+    if not 1 <= out_channel <= n_out:
+        raise BenchkitError(f"output channel {out_channel} does not exist (1 to {n_out})")
+    for lvl in levels_dbfs:
+        _check_level(lvl)
+    mk = marker(rate)
+    pieces = [np.zeros(int(LEAD_S * rate)), mk, np.zeros(int(AFTER_MARKER_S * rate))]
+    pos = sum(p.size for p in pieces)
+    marker_start = pieces[0].size
+    fade_n = int(round(FADE_S * rate))
+    segments = []
+    for lvl in levels_dbfs:
+        seconds = settle_s + step_s + 2 * FADE_S
+        x = tone(frequency_hz, lvl, seconds, rate)
+        settled = pos + fade_n + int(round(settle_s * rate))
+        segments.append(
+            Segment(pos, pos + x.size, settled, pos + x.size - fade_n, float(frequency_hz), float(lvl), out_channel)
+        )
+        pieces += [x, np.zeros(int(gap_s * rate))]
+        pos += x.size + pieces[-1].size
+    pieces.append(np.zeros(int(TAIL_S * rate)))
+    mono = np.concatenate(pieces)
+    out = np.zeros((mono.size, n_out))
+    out[:, out_channel - 1] = mono
+    return Stimulus(
+        samples=out,
+        sample_rate_hz=float(rate),
+        segments=tuple(segments),
+        marker=mk,
+        marker_start=marker_start,
+        description={
+            "kind": "stepped-tones",
+            "frequency_hz": float(frequency_hz),
+            "levels_dbfs": [float(v) for v in levels_dbfs],
+            "step_s": step_s,
+            "settle_s": settle_s,
+            "out_channel": out_channel,
+        },
+    )
