@@ -82,7 +82,7 @@ def analyze(
 ) -> None:
     """Analyse recorded tone captures offline: THD, THD+N, harmonics, noise.
 
-    Example: benchkit analyze sample_captures/b2-bias0.8A-997Hz.wav --load 8 --out report/
+    Example: benchkit analyze sample_captures/b2-bias0.8A-997Hz-steps.wav --load 8 --out report/
     """
     try:
         band = units.parse_band(bandwidth)
@@ -213,7 +213,7 @@ def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pa
 @app.command()
 def tone(
     frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz (997 Hz keeps harmonics off sub-multiples of the rate)."),
-    levels: List[str] = typer.Option(["-20 dBFS"], "--level", help="Drive level at the interface output, dBFS (repeat for steps)."),
+    levels: List[str] = typer.Option(["-20 dBFS"], "--level", help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms (repeat for steps)."),
     channel: int = typer.Option(1, "--channel", "-c", help="Input that carries the stage output, from 1."),
     load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: adds power in W."),
     bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
@@ -241,8 +241,9 @@ def tone(
 
     try:
         band = units.parse_band(bandwidth)
-        drive = [units.parse_level(text).to_dbfs() for text in levels]
         backend = _open_backend(device, sim, sim_param, sim_pad, seed)
+        # a level in volts is at the interface output, whose scale the device knows
+        drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]
         folder = _report_folder(out or Path(f"tone-{datetime.now():%Y%m%d-%H%M%S}"))
         steps = runs.tone_run(backend, folder, frequency, drive, load_ohms=load, bandwidth_hz=band, channel=channel, traces=True)
         _err(summary.steps_summary(steps, f"{frequency:g} Hz, {len(drive)} steps"))

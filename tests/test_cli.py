@@ -176,15 +176,19 @@ def test_clipped_capture_is_reported_invalid_not_refused(tmp_path):
     assert "NOT VALID" in res.stderr
 
 
-def test_sample_captures_analyse(tmp_path):
-    # the shipped demo captures (invented data) stay readable, and the higher
-    # bias gives less H2, as class-A theory says (REFERENCES.md: textbook class A)
-    low = json.loads(run_cli("analyze", str(REPO / "sample_captures/b2-bias0.8A-997Hz.wav"), "--json").stdout)
-    high = json.loads(run_cli("analyze", str(REPO / "sample_captures/b2-bias1.2A-997Hz.wav"), "--json").stdout)
-    assert low["harmonics"][0]["level_dbc"] > high["harmonics"][0]["level_dbc"] + 2.0
-    assert low["fundamental_vrms"] == pytest.approx(2.0, rel=0.01)
-    nopad = json.loads(run_cli("analyze", str(REPO / "sample_captures/b2-nopad-997Hz.wav"), "--json").stdout)
-    assert nopad["valid"] is False
+def test_stepped_capture_analyses_each_step(tmp_path):
+    # a stepped-tone capture from the virtual bench: one result per step
+    res = run_cli("analyze", str(REPO / "sample_captures/b2-bias0.8A-997Hz-steps.wav"), "--load", "8", "--json",
+                  "--out", str(tmp_path))
+    assert res.returncode == 0, res.stderr
+    doc = json.loads(res.stdout)
+    assert doc["kind"] == "tone-steps" and len(doc["steps"]) == 4
+    assert [s["drive_dbfs"] for s in doc["steps"]] == [-30.0, -20.0, -14.0, -9.0]
+    assert all(s["kind"] == "tone" and s["scale_source"] == "simulation" for s in doc["steps"])
+    # 6 dB more drive, 6 dB more output, while the stage is linear (gain is a ratio)
+    v = [s["fundamental_vrms"] for s in doc["steps"]]
+    assert 20 * math.log10(v[2] / v[1]) == pytest.approx(6.0, abs=0.05)
+    assert (tmp_path / "b2-bias0.8A-997Hz-steps.steps.csv").is_file()
 
 
 def test_help_has_an_example():

@@ -72,6 +72,8 @@ class Backend(Protocol):
     name: str
     sample_rate_hz: float
     n_outputs: int
+    #: volts peak at the driven output per FS, when known
+    output_vpk_per_fs: float | None
 
     def inputs(self) -> tuple[InputChannel, ...]:
         """The inputs, with their roles and known scales."""

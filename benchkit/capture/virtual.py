@@ -134,6 +134,10 @@ class VirtualBench:
     def n_outputs(self) -> int:
         return self.spec.n_outputs
 
+    @property
+    def output_vpk_per_fs(self) -> float:
+        return self.spec.output_vpk_per_fs
+
     def pad_ratio(self) -> float:
         return 1.0 if self.pad is None else self.pad.ratio(self.spec.input_ohms)
 

@@ -1,0 +1,94 @@
+"""`benchkit demo`, `benchkit tone` and device selection, end to end.
+
+Figures are checked against the power-reduction identities and textbook
+class-A behaviour; the rest is plumbing (outputs exist and parse).
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+import os
+import subprocess
+import sys
+
+import pytest
+
+from conftest import run_cli
+
+
+def test_demo_runs_and_its_outputs_parse(tmp_path):
+    out = tmp_path / "demo"
+    res = run_cli("demo", "--out", str(out))
+    assert res.returncode == 0, res.stderr
+    assert "report:" in res.stderr and str(out.resolve()) in res.stderr
+    assert "virtual bench" in res.stderr
+    for sub in ("b2-bias0.8A", "b2-bias1.2A"):
+        side = json.loads((out / sub / "tones.json").read_text())
+        assert side["kind"] == "capture" and side["scale_source"] == "simulation"
+        doc = json.loads((out / sub / "tones.result.json").read_text())
+        assert doc["kind"] == "tone-steps" and len(doc["steps"]) == 4
+        assert (out / sub / "tones.wav").stat().st_size > 100_000
+        for png in (out / sub).glob("*.png"):
+            assert png.read_bytes()[:4] == b"\x89PNG"
+    with (out / "comparison.csv").open() as fh:
+        rows = list(csv.DictReader(fh))
+    assert len(rows) == 4
+    # textbook class A: more bias current, less distortion at the top level
+    assert float(rows[-1]["thdn_change_db"]) < -3.0
+    assert (out / "summary.txt").read_text().count("bias") >= 4
+
+
+def test_tone_on_the_poly_model(tmp_path):
+    # identities: y = g x + a2 x^2 gives H2/H1 = a2 A / (2 g) for input peak A
+    g, a2, drive = 10.0, 0.1, -20.0
+    amp = 2.0 * 10 ** (drive / 20)
+    res = run_cli("tone", "--sim", "poly", "--sim-param", f"gain={g}", "--sim-param", f"a2={a2}",
+                  "--level", f"{drive}dBFS", "--out", str(tmp_path / "run"), "--json")
+    assert res.returncode == 0, res.stderr
+    doc = json.loads(res.stdout)
+    step = doc["steps"][0]
+    assert step["harmonics"][0]["level_dbc"] == pytest.approx(20 * math.log10(a2 * amp / (2 * g)), abs=0.05)
+    assert (tmp_path / "run" / "capture.wav").is_file() and (tmp_path / "run" / "capture.json").is_file()
+    assert "device: virtual bench" in res.stderr
+
+
+def test_capture_is_on_disk_even_when_analysis_refuses(tmp_path):
+    # a silent stage: the analysis finds no tone, but the capture is kept
+    res = run_cli("tone", "--sim", "ideal", "--sim-param", "gain=0", "--out", str(tmp_path / "run"))
+    assert res.returncode != 0 and "Traceback" not in res.stderr
+    assert (tmp_path / "run" / "capture.wav").is_file()
+
+
+def test_real_device_names_are_refused_clearly(tmp_path):
+    env = {**os.environ, "BENCHKIT_DEVICE": "Studio Interface 2"}
+    res = subprocess.run([sys.executable, "-m", "benchkit", "tone", "--out", str(tmp_path / "r")],
+                         capture_output=True, text=True, env=env, timeout=120)
+    assert res.returncode != 0 and "Traceback" not in res.stderr
+    assert "Studio Interface 2" in res.stderr and "--device virtual" in res.stderr
+    ok = subprocess.run([sys.executable, "-m", "benchkit", "tone", "--device", "virtual", "--out", str(tmp_path / "v")],
+                        capture_output=True, text=True, env=env, timeout=120)
+    assert ok.returncode == 0, ok.stderr
+
+
+@pytest.mark.parametrize("args, needle", [
+    (["--sim", "nonesuch"], "unknown stage model"),
+    (["--sim-param", "bias"], "key=value"),
+    (["--sim-param", "bais=1"], "no parameter"),
+    (["--sim-pad", "1k"], "R1:R2"),
+    (["--level", "+3 dBFS"], "above"),
+    (["--level", "loud"], "cannot read level"),
+    (["--level", "2 Vrms"], "above"),  # 2 Vrms is 2.83 V peak: over a 2 V-peak output
+])
+def test_tone_bad_options(tmp_path, args, needle):
+    res = run_cli("tone", "--out", str(tmp_path / "r"), *args)
+    assert res.returncode != 0 and "Traceback" not in res.stderr
+    assert needle in res.stderr
+
+
+def test_models_lists_parameters_with_units():
+    res = run_cli("models")
+    assert res.returncode == 0
+    for name in ("ideal", "poly", "hard-clip", "se-class-a", "bias [A] = 0.8", "coupling_uf [uF]"):
+        assert name in res.stdout

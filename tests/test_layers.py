@@ -1,0 +1,50 @@
+"""Plumbing: the layering of DEVELOPERS.md holds (no outside source needed;
+these are rules of this codebase, not measurements)."""
+
+from __future__ import annotations
+
+import ast
+from pathlib import Path
+
+import pytest
+
+from conftest import run_cli
+
+PKG = Path(__file__).resolve().parents[1] / "benchkit"
+
+
+def _imports(path: Path) -> set[str]:
+    tree = ast.parse(path.read_text())
+    names = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Import):
+            names.update(a.name for a in node.names)
+        elif isinstance(node, ast.ImportFrom) and node.module:
+            names.add(node.module)
+    return names
+
+
+@pytest.mark.parametrize(
+    "folder, forbidden",
+    [
+        ("analysis", ("benchkit.capture", "benchkit.report", "benchkit.cli", "benchkit.recordings", "benchkit.runs")),
+        ("capture", ("benchkit.report", "benchkit.cli")),
+        ("report", ("benchkit.capture", "benchkit.cli")),
+    ],
+)
+def test_layers_do_not_reach_up(folder, forbidden):
+    for path in (PKG / folder).glob("*.py"):
+        bad = {m for m in _imports(path) if m.startswith(forbidden)}
+        assert not bad, f"{path.name} imports {bad}"
+
+
+def test_sounddevice_only_lazily():
+    for path in PKG.rglob("*.py"):
+        if path.name != "portaudio.py":
+            assert "sounddevice" not in _imports(path), path
+
+
+@pytest.mark.parametrize("command", ["analyze", "tone", "demo", "models"])
+def test_every_command_has_help_with_an_example(command):
+    res = run_cli(command, "--help")
+    assert res.returncode == 0 and "Example: benchkit" in res.stdout
