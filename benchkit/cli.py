@@ -113,8 +113,8 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
     if load is not None and scale is None:
         raise BenchkitError(f"{path}: --load needs a voltage scale (--volts-per-fs, or a sidecar that gives one)")
-    if runs.is_stepped(rec) and fundamental is None and averages == 1:
-        steps = runs.analyze_steps(rec, band, load, volts_per_fs, traces=out is not None)
+    if runs.is_stepped(rec):
+        steps = runs.analyze_steps(rec, band, load, volts_per_fs, out is not None, fundamental, averages)
         _err(summary.steps_summary(steps, f"{path} channel {channel} ({len(steps.steps)} steps)"))
         if out is not None:
             for written in _write_steps_reports(steps, Path(path), channel, out):

@@ -63,8 +63,11 @@ def analyze_steps(
     load_ohms: float | None = None,
     volts_per_fs: float | None = None,
     traces: bool = False,
+    fundamental_hz: float | None = None,
+    averages: int = 1,
 ) -> StepsResult:
-    """Analyse each settled step of a stepped-tone capture on disk."""
+    """Analyse each settled step of a stepped-tone capture on disk (at the
+    frequency each step played, unless ``fundamental_hz`` says otherwise)."""
     stim = rec.sidecar["stimulus"]
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
     steps = []
@@ -79,8 +82,9 @@ def analyze_steps(
         result = analyze_tone(
             rec.samples[lo:hi],
             rec.sample_rate_hz,
-            fundamental_hz=float(seg["frequency_hz"]),
+            fundamental_hz=fundamental_hz if fundamental_hz is not None else float(seg["frequency_hz"]),
             bandwidth_hz=bandwidth_hz,
+            averages=averages,
             volts_per_fs=scale,
             scale_source=source,
             load_ohms=load_ohms,

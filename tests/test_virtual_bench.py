@@ -236,3 +236,27 @@ def test_interface_floor_on_the_loopback():
     r = analyze_tone(cap.channel(2)[seg.settled : seg.end], RATE)
     assert r.noise_dbfs == pytest.approx(10 * math.log10(2 * 10 ** (-110 / 10)), abs=1.0)
     assert r.fundamental_dbfs == pytest.approx(-20.0, abs=0.01)
+
+
+def test_hum_joins_at_the_input(tmp_path):
+    # mains hum at 50 Hz and its third harmonic (common practice: hum shows
+    # at the mains frequency and its harmonics) raises the noise to its level
+    bench = VirtualBench(make_stage("ideal", dict(gain=1.0)), None, InterfaceSpec(hum_hz=50.0, hum_dbfs=-70.0), seed=1)
+    r = tone_run(bench, tmp_path, 997.0, [-20.0]).steps[0].result
+    hum_rms = 10 ** (-70 / 20) * math.sqrt((1 + 0.3**2) / 2)
+    assert r.noise_dbfs == pytest.approx(20 * math.log10(math.sqrt(2) * hum_rms), abs=0.3)
+
+
+def test_dc_coupled_input_passes_dc(tmp_path):
+    # the converters' own curvature makes DC (x^2 has a mean a2 A^2/2:
+    # identities). AC coupling (a first-order high-pass before the ADC,
+    # circuit theory) blocks the DAC's share; a DC-coupled input keeps both
+    def dc(coupling):
+        spec = InterfaceSpec(ac_coupling_hz=coupling, residual_h2_dbc=-40.0, adc_noise_dbfs=-140.0, dac_noise_dbfs=-140.0)
+        bench = VirtualBench(make_stage("ideal", dict(gain=1.0)), None, spec, seed=1)
+        return tone_run(bench, tmp_path / str(coupling), 997.0, [-6.0]).steps[0].result.dc_fs
+
+    a, a2 = 10 ** (-6 / 20), 2 * 10 ** (-40 / 20)
+    one_share = a2 * a**2 / 2
+    assert dc(3.0) == pytest.approx(one_share, rel=0.02)
+    assert dc(None) == pytest.approx(2 * one_share, rel=0.02)
