@@ -190,7 +190,7 @@ def _write_steps_reports(steps, path: Path, channel: int, out: Path) -> list[Pat
 _SIM_HELP = "Simulated stage for --device virtual: ideal, poly, hard-clip, se-class-a (see 'benchkit models')."
 
 
-def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pad: str, seed: int):
+def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pad: str, seed: int, real: dict | None = None):
     """The capture backend a command asked for; says on stderr which."""
     from benchkit import pads
     from benchkit.capture import resolve_device
@@ -199,10 +199,13 @@ def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pa
 
     name = resolve_device(device)
     if name != "virtual":
-        raise BenchkitError(
-            f"device {name!r}: real interfaces need the PortAudio backend, which this version does not have yet; "
-            "use --device virtual (or unset BENCHKIT_DEVICE)"
-        )
+        from benchkit.capture.portaudio import PortAudioBackend
+
+        backend = PortAudioBackend(name, **(real or {}))
+        cap = backend.drive_cap_dbfs
+        _err(f"device: {backend.name}; drive capped at {cap:g} dBFS; output {backend.out_channel} drives the stage, "
+             f"input {backend.in_channel} measures it" + (f", input {backend.ref_channel} is the reference" if backend.ref_channel else ""))
+        return backend
     pad = DEMO_PAD if sim_pad == "demo" else pads.parse_pad(sim_pad)
     bench = virtual_bench(sim, parse_params(sim_params), pad=pad, seed=seed)
     pad_text = "no pad" if pad is None else f"pad {pad.r1_ohms:g}:{pad.r2_ohms:g} ohm ({1 / bench.pad_ratio():.2f}:1)"
@@ -211,14 +214,50 @@ def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pa
 
 
 @app.command()
+def devices(as_json: bool = typer.Option(False, "--json", help="Print the list as JSON on stdout.")) -> None:
+    """List the interfaces PortAudio sees, and the virtual bench.
+
+    Example: benchkit devices --json
+    """
+    entries = [{"index": None, "name": "virtual", "host_api": "benchkit virtual bench", "max_input_channels": 2,
+                "max_output_channels": 2, "default_sample_rate_hz": 48000.0}]
+    note = None
+    try:
+        from benchkit.capture.portaudio import list_devices
+
+        entries += list_devices()
+    except BenchkitError as exc:
+        note = str(exc)
+    if as_json:
+        from benchkit.report.tables import dumps
+
+        print(dumps({"kind": "devices", "schema_version": 1, "devices": entries, "note": note}))
+    else:
+        for d in entries:
+            idx = "-" if d["index"] is None else d["index"]
+            _err(f"  {idx:>3}  {d['name']}  [{d['host_api']}]  in {d['max_input_channels']}, out "
+                 f"{d['max_output_channels']}, {d['default_sample_rate_hz']:g} Hz")
+    if note:
+        _err(f"benchkit: {note}")
+
+
+@app.command()
 def tone(
     frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz (997 Hz keeps harmonics off sub-multiples of the rate)."),
     levels: List[str] = typer.Option(["-20 dBFS"], "--level", help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms (repeat for steps)."),
-    channel: int = typer.Option(1, "--channel", "-c", help="Input that carries the stage output, from 1."),
     load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: adds power in W."),
     bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
     out: Optional[Path] = typer.Option(None, "--out", help="Run folder for the capture and reports (default: tone-<time>)."),
-    device: Optional[str] = typer.Option(None, "--device", help="Capture device; default 'virtual' unless BENCHKIT_DEVICE names one."),
+    device: Optional[str] = typer.Option(None, "--device", help="'virtual', or a real interface by index or part of its name; default 'virtual' unless BENCHKIT_DEVICE names one."),
+    in_channel: int = typer.Option(1, "--in-channel", help="Input carrying the stage output (through the pad), from 1."),
+    out_channel: int = typer.Option(1, "--out-channel", help="Output driving the stage, from 1 (real devices)."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices)."),
+    rate: float = typer.Option(48000.0, "--rate", help="Sample rate, Hz (real devices)."),
+    blocksize: int = typer.Option(1024, "--blocksize", help="Frames per audio callback (real devices)."),
+    latency: str = typer.Option("high", "--latency", help="Stream latency: low, high, or seconds (real devices)."),
+    drive_cap: float = typer.Option(-12.0, "--drive-cap", help="Highest drive a real device may get, dBFS peak."),
+    override_drive_cap: bool = typer.Option(False, "--override-drive-cap", help="Allow up to -0.5 dBFS on a real device: can overload a stage, a pad or a speaker."),
+    volts_per_fs: Optional[float] = typer.Option(None, "--volts-per-fs", help="Volts peak at the stage per full scale of the input (real devices)."),
     sim: str = typer.Option("se-class-a", "--sim", help=_SIM_HELP),
     sim_param: List[str] = typer.Option([], "--sim-param", help="Stage parameter key=value (repeatable), e.g. bias=1.2."),
     sim_pad: str = typer.Option("demo", "--sim-pad", help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200)."),
@@ -227,29 +266,49 @@ def tone(
 ) -> None:
     """Play stepped tones into the stage, capture through the pad, analyse each step.
 
-    The capture is written to the run folder before it is analysed.
+    The whole run is one stream; the raw recording goes to disk as it
+    arrives and the aligned capture is written before it is analysed.
 
     Example: benchkit tone --level -30dBFS --level -20dBFS --level -14dBFS --load 8 --sim-param bias=1.2
 
     Safety: on a real bench, start low, measure through a pad into a dummy
-    load, and keep speakers off the output.
+    load, and keep speakers off the output. Ctrl-C fades the output to
+    silence and keeps the partial capture.
     """
     from datetime import datetime
 
     from benchkit import runs
+    from benchkit.capture.portaudio import CaptureInterrupted
     from benchkit.report import summary
 
     try:
         band = units.parse_band(bandwidth)
-        backend = _open_backend(device, sim, sim_param, sim_pad, seed)
+        lat: str | float = latency if latency in ("low", "high") else float(units.parse_frequency(latency))
+        if override_drive_cap:
+            _err("WARNING: the drive cap is overridden: full-scale drive can overload the stage, the pad, the "
+                 "interface input and any speaker. Keep a dummy load on the output.")
+        real = dict(sample_rate=rate, in_channel=in_channel, out_channel=out_channel, ref_channel=ref_channel,
+                    blocksize=blocksize, latency=lat, drive_cap_dbfs=-0.5 if override_drive_cap else drive_cap,
+                    volts_per_fs=volts_per_fs)
+        backend = _open_backend(device, sim, sim_param, sim_pad, seed, real)
         # a level in volts is at the interface output, whose scale the device knows
         drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]
         folder = _report_folder(out or Path(f"tone-{datetime.now():%Y%m%d-%H%M%S}"))
+        channel = in_channel
         steps = runs.tone_run(backend, folder, frequency, drive, load_ohms=load, bandwidth_hz=band, channel=channel, traces=True)
-        _err(summary.steps_summary(steps, f"{frequency:g} Hz, {len(drive)} steps"))
+        _err(summary.steps_summary(steps, f"{frequency:g} Hz, {len(drive)} steps, latency {steps.latency_samples} samples"))
         for written in _write_steps_reports(steps, folder / "capture.wav", channel, folder):
             _err(f"  wrote        {written}")
         _err(f"run folder: {folder}")
+    except CaptureInterrupted as exc:
+        _err(f"benchkit: stopped: {exc}")
+        if exc.device_lost:
+            # PortAudio can hang for good shutting down a dead server's
+            # client; everything is on disk, so leave without it
+            sys.stdout.flush()
+            sys.stderr.flush()
+            os._exit(EXIT_BAD_INPUT)
+        raise typer.Exit(130 if str(exc).startswith("interrupted") else EXIT_BAD_INPUT)
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)

@@ -8,14 +8,14 @@ after a crash) goes through the same :func:`analyze_steps`.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import datetime, timezone
 from pathlib import Path
 
 from benchkit import capture
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION, ToneResult, analyze_tone
 from benchkit.errors import BenchkitError
-from benchkit.recordings import Recording, read_capture, write_capture
+from benchkit.recordings import Recording, read_capture, write_capture, write_capture_sidecar
 from benchkit.signals import stepped_tones
 
 
@@ -39,6 +39,9 @@ class StepsResult:
     frequency_hz: float
     steps: tuple[StepResult, ...]
     warnings: tuple[str, ...] = ()
+    device: str | None = None
+    latency_samples: int | None = None
+    clock_offset_ppm: float | None = None
 
     def to_dict(self) -> dict:
         return {
@@ -47,6 +50,9 @@ class StepsResult:
             "file": self.file,
             "channel": self.channel,
             "frequency_hz": self.frequency_hz,
+            "device": self.device,
+            "latency_samples": self.latency_samples,
+            "clock_offset_ppm": self.clock_offset_ppm,
             "warnings": list(self.warnings),
             "steps": [s.to_dict() for s in self.steps],
         }
@@ -70,17 +76,22 @@ def analyze_steps(
     frequency each step played, unless ``fundamental_hz`` says otherwise)."""
     stim = rec.sidecar["stimulus"]
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
+    takes = {None: rec}
     steps = []
     for seg in stim["segments"]:
         try:
             lo, hi = int(seg["settled"]), int(seg["end"])
             drive = float(seg["level_dbfs"])
-        except (KeyError, TypeError, ValueError) as exc:
+            take = seg.get("file")
+        except (KeyError, TypeError, ValueError, AttributeError) as exc:
             raise BenchkitError(f"{rec.path}: the sidecar's step list is damaged") from exc
-        if not 0 <= lo < hi <= rec.samples.size:
-            raise BenchkitError(f"{rec.path}: a step lies outside the capture (samples {lo} to {hi})")
+        if take not in takes:
+            takes[take] = read_capture(rec.path.parent / Path(str(take)).name, rec.channel)
+        src = takes[take]
+        if not 0 <= lo < hi <= src.samples.size:
+            raise BenchkitError(f"{src.path}: a step lies outside the capture (samples {lo} to {hi})")
         result = analyze_tone(
-            rec.samples[lo:hi],
+            src.samples[lo:hi],
             rec.sample_rate_hz,
             fundamental_hz=fundamental_hz if fundamental_hz is not None else float(seg["frequency_hz"]),
             bandwidth_hz=bandwidth_hz,
@@ -89,9 +100,56 @@ def analyze_steps(
             scale_source=source,
             load_ohms=load_ohms,
             traces=traces,
+            check_dropouts=True,
         )
+        if seg.get("spoiled"):
+            result = replace(result, valid=False, warnings=result.warnings + ("a stream fault spoiled this step",))
         steps.append(StepResult(drive, result))
-    return StepsResult(str(rec.path), rec.channel, float(stim.get("frequency_hz", 0.0)), tuple(steps), rec.warnings)
+    side = rec.sidecar
+    return StepsResult(
+        str(rec.path), rec.channel, float(stim.get("frequency_hz", 0.0)), tuple(steps),
+        rec.warnings + tuple(side.get("warnings") or ()),
+        device=side.get("device"), latency_samples=side.get("latency_samples"),
+        clock_offset_ppm=side.get("clock_offset_ppm"),
+    )
+
+
+#: How many times a step spoiled by a stream fault is played again.
+MAX_RETRIES = 2
+#: Clock offset between output and input worth a warning, ppm.
+CLOCK_WARN_PPM = 20.0
+
+
+def _capture_sidecar(cap, stim, channel: int, backend, note: str) -> dict:
+    side = {
+        "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        "sample_rate_hz": cap.sample_rate_hz,
+        "device": cap.device,
+        "scale_source": cap.input(channel).scale_source,
+        "channels": [ch.to_dict() for ch in cap.inputs],
+        "stimulus": {**stim.description, "segments": [s.to_dict() for s in stim.segments]},
+        "latency_samples": cap.latency_samples,
+        "events": list(cap.events),
+        "note": note,
+    }
+    describe = getattr(backend, "describe", None)
+    if describe is not None:
+        side["bench"] = describe()
+    return side
+
+
+def clock_offset_ppm(cap, stim) -> float | None:
+    """Output-to-input clock offset from the reference input: the first
+    step's tone as recorded there against the frequency played."""
+    ref = next((ch.number for ch in cap.inputs if ch.role.startswith("reference")), None)
+    if ref is None or not stim.segments:
+        return None
+    seg = stim.segments[0]
+    try:
+        got = analyze_tone(cap.channel(ref)[seg.settled : seg.end], cap.sample_rate_hz, fundamental_hz=seg.frequency_hz)
+    except BenchkitError:
+        return None
+    return (got.fundamental_hz / seg.frequency_hz - 1.0) * 1e6
 
 
 def tone_run(
@@ -108,26 +166,51 @@ def tone_run(
 ) -> StepsResult:
     """Play stepped tones, store the capture, analyse every step.
 
-    Returns the analysis; the capture and its sidecar are at
-    ``folder / f"{name}.wav"`` and ``.json`` whatever happens in analysis.
+    The raw recording streams to ``NAME.partial.wav`` while it plays (kept
+    if the run breaks off); the aligned capture and its sidecar go to
+    ``NAME.wav`` and ``NAME.json`` before any analysis. A step that a
+    stream fault (overflow, underflow) touched is played again, up to
+    ``MAX_RETRIES`` times, into ``NAME.retryK.wav``; the sidecar points each
+    step at the capture that holds its good take.
     """
-    stim = stepped_tones(frequency_hz, levels_dbfs, backend.sample_rate_hz, n_out=backend.n_outputs)
-    cap = capture.run(backend, stim)
-    sidecar = {
-        "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
-        "sample_rate_hz": cap.sample_rate_hz,
-        "device": cap.device,
-        "scale_source": cap.input(channel).scale_source,
-        "channels": [ch.to_dict() for ch in cap.inputs],
-        "stimulus": {**stim.description, "segments": [s.to_dict() for s in stim.segments]},
-        "latency_samples": cap.latency_samples,
-        "events": list(cap.events),
-        "note": note,
-    }
-    describe = getattr(backend, "describe", None)
-    if describe is not None:
-        sidecar["bench"] = describe()
-    path = write_capture(folder / f"{name}.wav", cap.samples, cap.sample_rate_hz, sidecar)
+    out_ch = getattr(backend, "drive_output", 1)
+    lead = getattr(backend, "lead_s", 0.05)
+
+    def play(levels, stem):
+        stim = stepped_tones(frequency_hz, levels, backend.sample_rate_hz, out_channel=out_ch,
+                             n_out=backend.n_outputs, lead_s=lead)
+        partial = folder / f"{stem}.partial.wav"
+        cap = capture.run(backend, stim, partial)
+        side = _capture_sidecar(cap, stim, channel, backend, note)
+        ppm = clock_offset_ppm(cap, stim)
+        side["clock_offset_ppm"] = ppm
+        path = write_capture(folder / f"{stem}.wav", cap.samples, cap.sample_rate_hz, side)
+        partial.unlink(missing_ok=True)
+        return stim, cap, side, path
+
+    stim, cap, side, path = play(levels_dbfs, name)
+    segments = side["stimulus"]["segments"]
+    pending = [i for i, seg in enumerate(stim.segments) if cap.spoiled(seg.settled, seg.end)]
+    for attempt in range(1, MAX_RETRIES + 1):
+        if not pending:
+            break
+        r_stim, r_cap, _side, r_path = play([levels_dbfs[i] for i in pending], f"{name}.retry{attempt}")
+        still = []
+        for i, seg in zip(pending, r_stim.segments):
+            if r_cap.spoiled(seg.settled, seg.end):
+                still.append(i)
+            else:
+                segments[i] = {**seg.to_dict(), "file": r_path.name}
+        pending = still
+    warnings = []
+    if pending:
+        warnings.append(f"steps {', '.join(str(i + 1) for i in pending)} were spoiled by stream faults in every take")
+        for i in pending:
+            segments[i] = {**segments[i], "spoiled": True}
+    if side["clock_offset_ppm"] is not None and abs(side["clock_offset_ppm"]) > CLOCK_WARN_PPM:
+        warnings.append(f"the input clock runs {side['clock_offset_ppm']:+.1f} ppm against the output: separate clocks?")
+    side["warnings"] = warnings
+    write_capture_sidecar(path, side)
     return analyze_steps(read_capture(path, channel), bandwidth_hz, load_ohms, traces=traces)
 
 

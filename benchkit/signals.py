@@ -123,6 +123,7 @@ def stepped_tones(
     gap_s: float = 0.05,
     out_channel: int = 1,
     n_out: int = 2,
+    lead_s: float = LEAD_S,
 ) -> Stimulus:
     """Tones of one frequency at several levels, one after another.
 
@@ -142,6 +143,8 @@ def stepped_tones(
         Silence between steps.
     out_channel, n_out : int
         The output the tone plays on (from 1) and how many outputs there are.
+    lead_s : float
+        Silence before the marker (a real stream wants time to settle).
     """
     if not levels_dbfs:
         raise BenchkitError("at least one level is needed")
@@ -152,7 +155,7 @@ def stepped_tones(
     for lvl in levels_dbfs:
         _check_level(lvl)
     mk = marker(rate)
-    pieces = [np.zeros(int(LEAD_S * rate)), mk, np.zeros(int(AFTER_MARKER_S * rate))]
+    pieces = [np.zeros(int(lead_s * rate)), mk, np.zeros(int(AFTER_MARKER_S * rate))]
     pos = sum(p.size for p in pieces)
     marker_start = pieces[0].size
     fade_n = int(round(FADE_S * rate))

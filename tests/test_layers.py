@@ -48,3 +48,23 @@ def test_sounddevice_only_lazily():
 def test_every_command_has_help_with_an_example(command):
     res = run_cli(command, "--help")
     assert res.returncode == 0 and "Example: benchkit" in res.stdout
+
+
+def test_missing_portaudio_is_one_clear_line(monkeypatch):
+    # without the PortAudio library, sounddevice fails to import with OSError;
+    # real-device commands must say which system package to install
+    import builtins
+
+    from benchkit.capture import portaudio
+    from benchkit.errors import BenchkitError
+
+    real_import = builtins.__import__
+
+    def fake(name, *args, **kwargs):
+        if name == "sounddevice":
+            raise OSError("PortAudio library not found")
+        return real_import(name, *args, **kwargs)
+
+    monkeypatch.setattr(builtins, "__import__", fake)
+    with pytest.raises(BenchkitError, match="libportaudio2"):
+        portaudio.list_devices()

@@ -253,6 +253,7 @@ class _Block:
     spec_power: np.ndarray | None = None
     residual: np.ndarray | None = None
     fund_wave: np.ndarray | None = None
+    dropouts_s: list[float] = field(default_factory=list)
 
 
 def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tuple[float, complex, np.ndarray, np.ndarray]:
@@ -320,6 +321,7 @@ def _analyse_block(
     hint_hz: float | None,
     fit_orders: int,
     keep: bool,
+    dropouts: bool = False,
 ) -> _Block:
     n = x.size
     energy = float(x @ x)
@@ -381,11 +383,15 @@ def _analyse_block(
         iterations=fit.iterations,
         fitted_orders=k_fit,
     )
-    if keep:
+    if keep or dropouts:
         fund = layout.sine(fit.cycles, float(fit.cos[0]), float(fit.sin[0]))
-        block.spec_power = spec_power
-        block.residual = _band_limit(x - fit.offset - fund, sample_rate, band)
-        block.fund_wave = fund
+        residual = x - fit.offset - fund
+        if dropouts:
+            block.dropouts_s = find_dropouts(x, residual, sample_rate, f0, float(amp_fit[0]))
+        if keep:
+            block.spec_power = spec_power
+            block.residual = _band_limit(residual, sample_rate, band)
+            block.fund_wave = fund
     return block
 
 
@@ -403,6 +409,38 @@ def _noise_power(rpow: np.ndarray, in_band: slice, nu1: float, orders: np.ndarra
     if kept < 8 or kept < 0.2 * total:
         return None
     return pscale * float(np.sum(rpow[keep])) * total / kept
+
+
+def find_dropouts(x: np.ndarray, residual: np.ndarray, sample_rate: float, f0: float, amp1: float) -> list[float]:
+    """Times (s) where the capture breaks: a gap, a skipped or repeated
+    block, a click.
+
+    Two checks (common practice for spotting dropouts; the thresholds are
+    this project's): blocks of two periods (at least 2 ms) whose residual
+    RMS exceeds ten times the median block's and -60 dB re the fundamental;
+    and chunks of at least 8 periods whose fundamental, projected at the
+    fitted frequency, departs from the median chunk's in phase (0.02 rad) or
+    level (2 %), as a skipped block does.
+    """
+    found = set()
+    size = max(int(round(0.002 * sample_rate)), int(round(2 * sample_rate / f0)))
+    nblk = residual.size // size
+    if nblk >= 4:
+        rms = np.sqrt(np.mean(residual[: nblk * size].reshape(nblk, size) ** 2, axis=1))
+        limit = max(10.0 * float(np.median(rms)), 1e-3 * amp1 / math.sqrt(2))
+        found.update(float(i * size / sample_rate) for i in np.flatnonzero(rms > limit))
+    chunks = min(16, int(x.size * f0 / sample_rate // 8))
+    if chunks >= 4:
+        step = x.size // chunks
+        n = np.arange(chunks * step)
+        ph = np.exp(-2j * np.pi * np.mod(f0 / sample_rate * n, 1.0))
+        z = (x[: n.size] * ph).reshape(chunks, step).sum(axis=1) * (2.0 / step)
+        ref = complex(np.median(z.real), np.median(z.imag))
+        noise = float(np.sqrt(np.mean(residual**2))) / max(amp1 * math.sqrt(step / 2.0), 1e-300)
+        off_phase = np.abs(np.angle(z / ref)) > max(0.02, 5 * noise)
+        off_level = np.abs(np.abs(z) / abs(ref) - 1.0) > max(0.02, 5 * noise)
+        found.update(float(i * step / sample_rate) for i in np.flatnonzero(off_phase | off_level))
+    return sorted(found)
 
 
 def _band_limit(x: np.ndarray, sample_rate: float, band: tuple[float, float]) -> np.ndarray:
@@ -506,6 +544,7 @@ def analyze_tone(
     load_ohms: float | None = None,
     traces: bool = False,
     fit_orders: int = FIT_ORDERS,
+    check_dropouts: bool = False,
 ) -> ToneResult:
     """Analyse a steady tone: frequency, level, harmonics, THD, THD+N, noise.
 
@@ -535,6 +574,9 @@ def analyze_tone(
         Keep the arrays the report plots need (``result.traces``).
     fit_orders : int
         Harmonic orders fitted jointly with the fundamental.
+    check_dropouts : bool
+        Look for gaps and clicks in the capture (:func:`find_dropouts`);
+        any found make the result not valid.
 
     Returns
     -------
@@ -585,7 +627,7 @@ def analyze_tone(
 
     nblk = x.size // int(averages)
     blocks = [
-        _analyse_block(x[i * nblk : (i + 1) * nblk], sample_rate, band, fundamental_hz, fit_orders, traces)
+        _analyse_block(x[i * nblk : (i + 1) * nblk], sample_rate, band, fundamental_hz, fit_orders, traces, check_dropouts)
         for i in range(int(averages))
     ]
     f0 = float(np.mean([b.freq_hz for b in blocks]))
@@ -626,6 +668,11 @@ def analyze_tone(
     if not harmonics:
         warnings.append(f"no harmonic of {f0:.6g} Hz lies in the band; THD is not defined and reads as zero")
 
+    gaps = [i * nblk / sample_rate + t for i, b in enumerate(blocks) for t in b.dropouts_s]
+    if gaps:
+        where = ", ".join(f"{t:.3f} s" for t in gaps[:5]) + (" ..." if len(gaps) > 5 else "")
+        warnings.append(f"the capture has dropouts or clicks (at {where}); its figures are not valid")
+
     dc = float(np.mean([b.offset for b in blocks]))
     mean_sq = float(x @ x) / x.size
     ac_rms = math.sqrt(max(mean_sq - 2.0 * dc * float(np.mean(x)) + dc * dc, 0.0))
@@ -646,7 +693,7 @@ def analyze_tone(
         crest_factor=max(xmax - dc, dc - xmin) / ac_rms if ac_rms > 0 else 0.0,
         bandwidth_hz=band,
         clipped=clipped,
-        valid=not clipped,
+        valid=not clipped and not gaps,
         warnings=tuple(warnings),
         harmonic_profile=classify_harmonics(orders, amps, noise_power),
         averages=int(averages),

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import os
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Protocol
 
 import numpy as np
@@ -39,10 +40,14 @@ class InputChannel:
 @dataclass(frozen=True)
 class RawRecording:
     """What a backend recorded: (n, inputs) in FS, longer than the stimulus
-    by at least the round trip, plus what happened on the way."""
+    by at least the round trip, plus what happened on the way:
+    ``fault_frames`` are the first frames of blocks of ``fault_block``
+    frames during which the stream reported an overflow or underflow."""
 
     samples: np.ndarray
     events: tuple[str, ...] = ()
+    fault_frames: tuple[int, ...] = ()
+    fault_block: int = 0
 
 
 @dataclass(frozen=True)
@@ -56,6 +61,12 @@ class Capture:
     inputs: tuple[InputChannel, ...]
     device: str
     events: tuple[str, ...] = field(default_factory=tuple)
+    #: frame spans [start, stop) of the aligned capture hit by stream faults
+    faults: tuple[tuple[int, int], ...] = field(default_factory=tuple)
+
+    def spoiled(self, start: int, stop: int) -> bool:
+        """Whether a stream fault touched samples start..stop."""
+        return any(a < stop and start < b for a, b in self.faults)
 
     def channel(self, number: int) -> np.ndarray:
         if not 1 <= number <= self.samples.shape[1]:
@@ -81,9 +92,15 @@ class Backend(Protocol):
     def reference_input(self) -> int | None:
         """The input wired straight to the driven output, if any."""
 
-    def play_record(self, stimulus: Stimulus) -> RawRecording:
+    #: the output the stimulus drives, from 1
+    drive_output: int
+    #: silence wanted before the marker, seconds
+    lead_s: float
+
+    def play_record(self, stimulus: Stimulus, partial: Path | None = None) -> RawRecording:
         """Play the stimulus and record every input, at least
-        ``stimulus.n_samples`` plus the round trip. Must leave the outputs
+        ``stimulus.n_samples`` plus the round trip, streaming the raw
+        recording to ``partial`` as it arrives. Must leave the outputs
         silent on every exit path."""
 
 
@@ -95,15 +112,16 @@ def resolve_device(device: str | None) -> str:
     return os.environ.get(DEVICE_ENV, "").strip() or DEFAULT_DEVICE
 
 
-def run(backend: Backend, stimulus: Stimulus) -> Capture:
-    """Play ``stimulus`` through ``backend`` and return the aligned capture."""
+def run(backend: Backend, stimulus: Stimulus, partial: Path | None = None) -> Capture:
+    """Play ``stimulus`` through ``backend`` and return the aligned capture;
+    the raw recording goes to ``partial`` as it arrives."""
     from benchkit.capture.align import find_marker
 
     if abs(backend.sample_rate_hz - stimulus.sample_rate_hz) > 1e-6:
         raise BenchkitError(
             f"stimulus at {stimulus.sample_rate_hz:g} Hz cannot play on a device running at {backend.sample_rate_hz:g} Hz"
         )
-    raw = backend.play_record(stimulus)
+    raw = backend.play_record(stimulus, partial)
     ref = backend.reference_input()
     # the stimulus keeps silence between its marker and its first step: look
     # for the marker there, where nothing else can resemble it
@@ -121,4 +139,5 @@ def run(backend: Backend, stimulus: Stimulus) -> Capture:
         inputs=backend.inputs(),
         device=backend.name,
         events=raw.events,
+        faults=tuple((f - latency, f - latency + raw.fault_block) for f in raw.fault_frames),
     )

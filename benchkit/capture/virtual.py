@@ -22,6 +22,7 @@ import math
 from dataclasses import dataclass, replace
 from fractions import Fraction
 from functools import lru_cache
+from pathlib import Path
 
 import numpy as np
 import scipy.signal
@@ -30,6 +31,7 @@ from benchkit.capture import InputChannel, RawRecording
 from benchkit.capture.stages import StageModel, make_stage
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
+from benchkit.recordings import WavStreamWriter
 from benchkit.signals import Stimulus
 
 OVERSAMPLE = 8
@@ -110,6 +112,8 @@ class VirtualBench:
     """
 
     name = "virtual"
+    drive_output = 1
+    lead_s = 0.05
 
     def __init__(
         self,
@@ -165,7 +169,7 @@ class VirtualBench:
             "stage": self.stage.describe(),
         }
 
-    def play_record(self, stimulus: Stimulus) -> RawRecording:
+    def play_record(self, stimulus: Stimulus, partial: Path | None = None) -> RawRecording:
         s = self.spec
         if stimulus.samples.shape[1] > s.n_outputs:
             raise BenchkitError(f"the stimulus has {stimulus.samples.shape[1]} outputs; the interface has {s.n_outputs}")
@@ -190,6 +194,9 @@ class VirtualBench:
         rec = np.concatenate([np.zeros((latency, s.n_inputs)), rec[: total - latency]])
         if s.clock_ppm:
             rec = self._clock_offset(rec)
+        if partial is not None:
+            with WavStreamWriter(partial, rate, s.n_inputs) as w:
+                w.write(rec)
         return RawRecording(samples=rec)
 
     # --- the converter ----------------------------------------------------

@@ -1,0 +1,345 @@
+"""Sound cards through PortAudio (sounddevice): the real capture backend.
+
+A whole run is ONE duplex callback stream. The callback copies the next
+block of the stimulus out and the arriving block into a buffer allocated
+before the stream starts; a writer thread streams that buffer to disk as it
+fills (no disk I/O in the callback). Safety:
+
+- the stimulus itself fades in and out and ends in silence;
+- on Ctrl-C, an exception or a watchdog timeout the callback ramps the
+  output to zero over ``ABORT_FADE_S`` from the block it is in, then writes
+  silence: the samples written reach zero within 50 ms of the event;
+- a watchdog ends a run whose stream stops calling back (device lost);
+- the drive cannot exceed a cap (default ``DEFAULT_DRIVE_CAP_DBFS``) unless
+  the command is given an explicit override;
+- the partial capture stays on disk whatever happens.
+
+sounddevice is imported only here, and only when a real device is used, so
+everything else runs where PortAudio is absent.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+
+from benchkit import units
+from benchkit.capture import InputChannel, RawRecording
+from benchkit.errors import BenchkitError
+from benchkit.recordings import WavStreamWriter
+from benchkit.signals import Stimulus
+
+#: Conservative cap on the drive at a real interface's output, dBFS.
+DEFAULT_DRIVE_CAP_DBFS = -12.0
+#: Length of the emergency fade to silence.
+ABORT_FADE_S = 0.02
+#: A stream that has not called back for this long is taken as lost.
+WATCHDOG_S = 2.0
+#: Silence before the marker on a real device: streams and patch bays settle.
+LEAD_S = 0.5
+DEFAULT_BLOCKSIZE = 1024
+
+
+class CaptureInterrupted(BenchkitError):
+    """The run stopped early (Ctrl-C, device loss); ``partial`` is the raw
+    recording kept on disk."""
+
+    def __init__(self, message: str, partial: Path | None, device_lost: bool = False):
+        super().__init__(message)
+        self.partial = partial
+        #: the device (or its server) went away: PortAudio may hang on shutdown
+        self.device_lost = device_lost
+
+
+def _sd():
+    """sounddevice, or a one-line reason why not."""
+    try:
+        import sounddevice
+    except OSError as exc:  # the PortAudio library itself is missing
+        raise BenchkitError(
+            "PortAudio is not installed, so real interfaces are unavailable: install the system package "
+            "libportaudio2 (Debian/Ubuntu: apt-get install libportaudio2); the virtual bench still works"
+        ) from exc
+    except ImportError as exc:
+        raise BenchkitError("the Python package sounddevice is missing: pip install sounddevice") from exc
+    return sounddevice
+
+
+def list_devices() -> list[dict]:
+    """Every device PortAudio sees: index, name, host API, channels, rate."""
+    sd = _sd()
+    apis = sd.query_hostapis()
+    return [
+        {
+            "index": int(d["index"]),
+            "name": d["name"],
+            "host_api": apis[d["hostapi"]]["name"],
+            "max_input_channels": int(d["max_input_channels"]),
+            "max_output_channels": int(d["max_output_channels"]),
+            "default_sample_rate_hz": float(d["default_samplerate"]),
+        }
+        for d in sd.query_devices()
+    ]
+
+
+def find_device(spec: str) -> dict:
+    """A device by index ("3") or by part of its name ("USB"), case-blind;
+    refuses an ambiguous or unknown name."""
+    devices = list_devices()
+    if spec.strip().isdigit():
+        idx = int(spec)
+        for d in devices:
+            if d["index"] == idx:
+                return d
+        raise BenchkitError(f"no audio device has index {idx}; 'benchkit devices' lists them")
+    hits = [d for d in devices if spec.lower() in d["name"].lower()]
+    exact = [d for d in hits if d["name"].lower() == spec.lower()]
+    if len(exact) == 1:
+        return exact[0]
+    if len(hits) == 1:
+        return hits[0]
+    if not hits:
+        raise BenchkitError(f"no audio device matches {spec!r}; 'benchkit devices' lists them")
+    names = ", ".join(f"{d['index']}: {d['name']}" for d in hits)
+    raise BenchkitError(f"{spec!r} matches several devices ({names}); give the index")
+
+
+class PortAudioBackend:
+    """A real interface as a capture backend.
+
+    Parameters
+    ----------
+    device : str
+        Index or part of the name (see :func:`find_device`).
+    sample_rate : float
+    in_channel : int
+        Input carrying the stage's output (through the pad), from 1.
+    out_channel : int
+        Output that drives the stage, from 1.
+    ref_channel : int, optional
+        Input wired straight from the driven output (a loopback reference).
+    blocksize : int
+        Frames per callback.
+    latency : str or float
+        PortAudio's suggested latency: "low", "high" or seconds.
+    drive_cap_dbfs : float
+        Highest peak level the stimulus may have.
+    volts_per_fs : float, optional
+        Scale of ``in_channel`` in volts at the stage per FS, when known.
+    """
+
+    def __init__(
+        self,
+        device: str,
+        sample_rate: float = 48000.0,
+        in_channel: int = 1,
+        out_channel: int = 1,
+        ref_channel: int | None = None,
+        blocksize: int = DEFAULT_BLOCKSIZE,
+        latency: str | float = "high",
+        drive_cap_dbfs: float = DEFAULT_DRIVE_CAP_DBFS,
+        volts_per_fs: float | None = None,
+        watchdog_s: float = WATCHDOG_S,
+    ):
+        self.sd = _sd()
+        self.info = find_device(device)
+        self.name = f"{self.info['name']} ({self.info['host_api']})"
+        self.sample_rate_hz = float(sample_rate)
+        self.in_channel, self.out_channel, self.ref_channel = in_channel, out_channel, ref_channel
+        wanted_in = max(in_channel, ref_channel or 0)
+        if in_channel < 1 or (ref_channel is not None and ref_channel < 1) or out_channel < 1:
+            raise BenchkitError("channels are numbered from 1")
+        if wanted_in > self.info["max_input_channels"]:
+            raise BenchkitError(f"{self.name} has {self.info['max_input_channels']} inputs; input {wanted_in} does not exist")
+        if out_channel > self.info["max_output_channels"]:
+            raise BenchkitError(f"{self.name} has {self.info['max_output_channels']} outputs; output {out_channel} does not exist")
+        if ref_channel is not None and ref_channel == in_channel:
+            raise BenchkitError("the reference input must differ from the stage's input")
+        self.n_inputs = wanted_in
+        self.n_outputs = out_channel
+        self.drive_output = out_channel
+        self.blocksize = int(blocksize)
+        self.latency = latency
+        self.drive_cap_dbfs = drive_cap_dbfs
+        self.volts_per_fs = volts_per_fs
+        self.watchdog_s = watchdog_s
+        self.output_vpk_per_fs = None  # known only from a calibration
+        self.lead_s = LEAD_S
+        self.partial_path: Path | None = None
+        self._abort = threading.Event()
+
+    # --- the protocol -----------------------------------------------------
+    def inputs(self) -> tuple[InputChannel, ...]:
+        chans = []
+        for k in range(1, self.n_inputs + 1):
+            if k == self.in_channel:
+                source = "given" if self.volts_per_fs is not None else "none"
+                chans.append(InputChannel(k, "stage output", self.volts_per_fs, source))
+            elif k == self.ref_channel:
+                chans.append(InputChannel(k, f"reference: output {self.out_channel} looped back"))
+            else:
+                chans.append(InputChannel(k, "unused"))
+        return tuple(chans)
+
+    def reference_input(self) -> int | None:
+        return self.ref_channel
+
+    def describe(self) -> dict:
+        return {
+            "device": self.info,
+            "blocksize": self.blocksize,
+            "latency": self.latency,
+            "drive_cap_dbfs": self.drive_cap_dbfs,
+            "in_channel": self.in_channel,
+            "out_channel": self.out_channel,
+            "ref_channel": self.ref_channel,
+        }
+
+    def request_abort(self) -> None:
+        """Fade out and stop (thread-safe; also what Ctrl-C does)."""
+        self._abort.set()
+
+    def play_record(self, stimulus: Stimulus, partial: Path | None = None) -> RawRecording:
+        """Play and record in one duplex stream; stream the raw recording
+        to ``partial`` (a WAV) as it arrives."""
+        sd = self.sd
+        peak = float(np.max(np.abs(stimulus.samples))) if stimulus.n_samples else 0.0
+        if peak > 0 and units.db_from_ratio(peak) > self.drive_cap_dbfs + 1e-9:
+            raise BenchkitError(
+                f"the drive would peak at {units.db_from_ratio(peak):.1f} dBFS, above the cap of "
+                f"{self.drive_cap_dbfs:g} dBFS; lower the level, or raise the cap knowingly (--drive-cap)"
+            )
+        rate = self.sample_rate_hz
+        n_play = stimulus.n_samples
+        tail = int(0.3 * rate) + 4 * self.blocksize  # room for the round trip
+        total = n_play + tail
+        out = np.zeros((n_play, self.n_outputs), dtype=np.float32)
+        cols = min(stimulus.samples.shape[1], self.n_outputs)
+        out[:, :cols] = stimulus.samples[:, :cols]
+        rec = np.zeros((total + self.blocksize, self.n_inputs), dtype=np.float32)
+        fade_n = max(1, int(ABORT_FADE_S * rate))
+        after_abort = int(0.25 * rate)
+        ramp = np.linspace(1.0, 0.0, fade_n, dtype=np.float32)
+        state = {"pos": 0, "fade_at": -1, "last": time.monotonic(), "faults": [], "statuses": []}
+        done = threading.Event()
+        self._abort.clear()
+
+        def callback(indata, outdata, frames, _time, status):
+            pos = state["pos"]
+            state["last"] = time.monotonic()
+            if status:
+                state["faults"].append(pos)
+                state["statuses"].append(str(status))
+            # output: the stimulus, or the emergency fade, or silence
+            if self._abort.is_set() and state["fade_at"] < 0:
+                state["fade_at"] = pos
+            n = max(0, min(frames, n_play - pos))
+            outdata[:n] = out[pos : pos + n]
+            outdata[n:] = 0.0
+            fa = state["fade_at"]
+            if fa >= 0:
+                k0 = pos - fa  # how far into the fade this block starts
+                if k0 >= fade_n:
+                    outdata[:] = 0.0
+                else:
+                    k1 = min(fade_n, k0 + frames)
+                    outdata[: k1 - k0] *= ramp[k0:k1, None]
+                    outdata[k1 - k0 :] = 0.0
+            # input, into the buffer allocated up front
+            m = max(0, min(frames, rec.shape[0] - pos))
+            rec[pos : pos + m] = indata[:m]
+            state["pos"] = pos + frames
+            # after an abort, keep recording silence for a round trip, so
+            # the capture shows the fade arriving
+            finished = state["pos"] >= total or (fa >= 0 and pos - fa >= fade_n + after_abort)
+            if finished:
+                done.set()
+                raise sd.CallbackStop
+
+        writer = WavStreamWriter(partial, rate, self.n_inputs) if partial is not None else None
+        self.partial_path = partial
+        stop_writer = threading.Event()
+        written = {"frames": 0}
+
+        def drain():
+            while True:
+                stopping = stop_writer.wait(0.1)
+                upto = min(state["pos"], total)
+                if upto > written["frames"]:
+                    writer.write(rec[written["frames"] : upto])
+                    written["frames"] = upto
+                if stopping:
+                    return
+
+        thread = threading.Thread(target=drain, name="benchkit-capture-writer", daemon=True) if writer else None
+        reason = None
+        lost = False
+        try:
+            stream = sd.Stream(
+                samplerate=rate,
+                blocksize=self.blocksize,
+                device=(self.info["index"], self.info["index"]),
+                channels=(self.n_inputs, self.n_outputs),
+                dtype="float32",
+                latency=self.latency,
+                callback=callback,
+                finished_callback=done.set,
+            )
+        except Exception as exc:  # PortAudio's reasons are in the message
+            if writer:
+                writer.close()
+            raise BenchkitError(f"cannot open {self.name}: {exc}") from exc
+        if thread:
+            thread.start()
+        try:
+            stream.start()
+            while not done.wait(0.02):
+                if time.monotonic() - state["last"] > self.watchdog_s:
+                    reason = f"the audio stream stopped calling back for {self.watchdog_s:g} s (device lost?)"
+                    lost = True
+                    self._abort.set()
+                    break
+        except KeyboardInterrupt:
+            reason = "interrupted"
+            self._abort.set()
+            done.wait(1.0 + 4 * self.blocksize / rate)
+        except Exception as exc:
+            reason = f"the audio stream failed: {exc}"
+            lost = True
+            self._abort.set()
+            done.wait(0.5)
+        finally:
+            _close(stream, timeout=1.0)
+            stop_writer.set()
+            if thread:
+                thread.join(timeout=5.0)
+            if writer:
+                writer.close()
+        if reason is not None:
+            where = f"; the partial capture is in {partial}" if partial is not None else ""
+            raise CaptureInterrupted(f"{reason}: the output faded to silence{where}", partial, lost)
+        got = min(state["pos"], total)
+        events = tuple(f"frame {p}: {s}" for p, s in zip(state["faults"], state["statuses"]))
+        return RawRecording(samples=rec[:got].astype(np.float64), events=events, fault_frames=tuple(state["faults"]),
+                            fault_block=self.blocksize)
+
+
+def _close(stream, timeout: float) -> None:
+    """Stop and close a stream without hanging on a dead server."""
+
+    def work():
+        try:
+            stream.abort()
+        except Exception:  # noqa: BLE001 - already gone
+            pass
+        try:
+            stream.close()
+        except Exception:  # noqa: BLE001
+            pass
+
+    t = threading.Thread(target=work, daemon=True)
+    t.start()
+    t.join(timeout)

@@ -1,0 +1,194 @@
+"""A real audio server for the tests: a JACK server on the dummy driver, and
+JACK clients (jack-client package) that wire benchkit's PortAudio ports
+through a loopback or a known nonlinearity.
+
+benchkit itself runs in a subprocess (the real console entry point) that
+finds the server through JACK_DEFAULT_SERVER.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import threading
+import time
+import uuid
+
+import numpy as np
+
+
+class JackServer:
+    """jackd --no-realtime -d dummy with a name unique to this run."""
+
+    def __init__(self, period: int = 1024, rate: int = 48000):
+        self.name = f"benchkit-test-{uuid.uuid4().hex[:8]}"
+        self.period, self.rate = period, rate
+        self.proc: subprocess.Popen | None = None
+
+    def start(self) -> "JackServer":
+        self.proc = subprocess.Popen(
+            ["jackd", "--no-realtime", "-n", self.name, "-d", "dummy", "-r", str(self.rate), "-p", str(self.period)],
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.DEVNULL,
+        )
+        deadline = time.monotonic() + 10
+        while time.monotonic() < deadline:
+            ok = subprocess.run(["jack_lsp", "-s", self.name], capture_output=True, timeout=5)
+            if ok.returncode == 0 and b"system:playback_1" in ok.stdout:
+                return self
+            time.sleep(0.1)
+        self.stop()
+        raise RuntimeError("jackd did not come up")
+
+    def env(self) -> dict:
+        return {**os.environ, "JACK_DEFAULT_SERVER": self.name, "JACK_NO_START_SERVER": "1"}
+
+    def stop(self) -> None:
+        if self.proc and self.proc.poll() is None:
+            self.proc.send_signal(signal.SIGTERM)
+            try:
+                self.proc.wait(5)
+            except subprocess.TimeoutExpired:
+                self.proc.kill()
+                self.proc.wait(5)
+
+    def kill(self) -> None:
+        if self.proc and self.proc.poll() is None:
+            self.proc.kill()
+            self.proc.wait(5)
+
+    def __enter__(self):
+        return self.start()
+
+    def __exit__(self, *exc):
+        self.stop()
+
+
+def have_jack() -> bool:
+    return shutil.which("jackd") is not None
+
+
+class Patchbay:
+    """Waits for benchkit's PortAudio client and wires it.
+
+    mode "loopback": out_0 -> in_0 and in_1. mode "poly": out_0 -> a client
+    applying y = x + a2 x^2 + a3 x^3 -> in_0, and out_0 -> in_1 (reference).
+    ``stall_after`` seconds after wiring, the stage client sleeps 0.2 s in
+    its process callback once: an xrun for everyone.
+    """
+
+    def __init__(self, server: JackServer, mode: str = "loopback", a2: float = 0.0, a3: float = 0.0,
+                 stall_after: float | None = None):
+        import jack
+
+        self.jack = jack
+        self.mode, self.a2, self.a3 = mode, a2, a3
+        self.stall_after = stall_after
+        self.wired_at: float | None = None
+        self.stalled = False
+        self.client = jack.Client(f"patch-{uuid.uuid4().hex[:6]}", servername=server.name, no_start_server=True)
+        self.inp = self.client.inports.register("in")
+        self.out = self.client.outports.register("out")
+        self.client.set_process_callback(self._process)
+        self.client.activate()
+        self._stop = threading.Event()
+        self.thread = threading.Thread(target=self._watch, daemon=True)
+        self.thread.start()
+
+    def _process(self, frames):
+        x = self.inp.get_array()
+        y = self.out.get_array()
+        if self.mode == "poly":
+            y[:] = x + self.a2 * x * x + self.a3 * x * x * x
+        else:
+            y[:] = x
+        if self.stall_after is not None and not self.stalled and self.wired_at is not None:
+            if time.monotonic() - self.wired_at > self.stall_after:
+                self.stalled = True
+                time.sleep(0.2)
+
+    def _watch(self):
+        # every stream benchkit opens (a retry opens a new one) comes up
+        # with fresh port names wired to the system ports: rewire each
+        c = self.client
+        while not self._stop.is_set():
+            try:
+                plan = self._plan(c)
+                if plan and not self._wired(c, plan):
+                    self._wire(c, plan)
+                    if self.wired_at is None:
+                        self.wired_at = time.monotonic()
+            except self.jack.JackError:
+                pass
+            time.sleep(0.002)
+
+    def _plan(self, c):
+        def number(p):
+            return int(p.name.rsplit("_", 1)[1])
+
+        outs = sorted(c.get_ports("PortAudio:out_", is_output=True), key=number)
+        ins = sorted(c.get_ports("PortAudio:in_", is_input=True), key=number)
+        if len(outs) < 1 or len(ins) < 2:
+            return None
+        out0, in0, in1 = outs[0].name, ins[0].name, ins[1].name
+        if self.mode == "poly":
+            return [(out0, self.inp.name), (self.out.name, in0), (out0, in1)]
+        return [(out0, in0), (out0, in1)]
+
+    def _wired(self, c, plan) -> bool:
+        have = set()
+        for p in c.get_ports("PortAudio:", is_output=True) + [self.out]:
+            have.update((p.name, q.name) for q in c.get_all_connections(p))
+        return set(plan) <= have and not any(b.startswith("system:") for _a, b in have)
+
+    def _wire(self, c, plan):
+        for p in c.get_ports("PortAudio:"):
+            for q in c.get_all_connections(p):
+                if q.name.startswith("system:"):
+                    try:
+                        c.disconnect(p, q) if p.is_output else c.disconnect(q, p)
+                    except self.jack.JackError:
+                        pass
+        for a, b in plan:
+            try:
+                c.connect(a, b)
+            except self.jack.JackError:
+                pass  # already connected
+
+    def close(self):
+        self._stop.set()
+        try:
+            self.client.deactivate()
+            self.client.close()
+        except Exception:  # noqa: BLE001 - the server may be gone already
+            pass
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+def benchkit(server: JackServer, *args: str, timeout: float = 60) -> subprocess.Popen:
+    """Start the benchkit console entry point against the server."""
+    return subprocess.Popen(
+        [sys.executable, "-m", "benchkit", *args],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        env=server.env(),
+    )
+
+
+def played_segment(levels, index: int, rate: int = 48000) -> np.ndarray:
+    """The samples benchkit played for a step, as the stream carried them."""
+    from benchkit.capture.portaudio import LEAD_S
+    from benchkit.signals import stepped_tones
+
+    stim = stepped_tones(997.0, levels, rate, lead_s=LEAD_S, n_out=1)
+    seg = stim.segments[index]
+    return stim.samples[seg.settled : seg.end, 0].astype(np.float32).astype(np.float64)
