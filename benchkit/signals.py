@@ -76,6 +76,13 @@ class Stimulus:
     def n_samples(self) -> int:
         return int(self.samples.shape[0])
 
+    def render(self, start: int, frames: int) -> np.ndarray:
+        """Samples ``start`` to ``start + frames`` (fewer at the end), as
+        a stream's callback asks for them. A stimulus that decides its next
+        step while the stream runs provides the same method and computes
+        the block instead of slicing it."""
+        return self.samples[start : start + frames]
+
     @property
     def duration_s(self) -> float:
         return self.n_samples / self.sample_rate_hz

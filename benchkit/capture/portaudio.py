@@ -216,9 +216,7 @@ class PortAudioBackend:
         n_play = stimulus.n_samples
         tail = int(0.3 * rate) + 4 * self.blocksize  # room for the round trip
         total = n_play + tail
-        out = np.zeros((n_play, self.n_outputs), dtype=np.float32)
         cols = min(stimulus.samples.shape[1], self.n_outputs)
-        out[:, :cols] = stimulus.samples[:, :cols]
         rec = np.zeros((total + self.blocksize, self.n_inputs), dtype=np.float32)
         fade_n = max(1, int(ABORT_FADE_S * rate))
         after_abort = int(0.25 * rate)
@@ -228,6 +226,17 @@ class PortAudioBackend:
         self._abort.clear()
 
         def callback(indata, outdata, frames, _time, status):
+            try:
+                fill(indata, outdata, frames, status)
+            except sd.CallbackStop:
+                raise
+            except Exception as exc:  # noqa: BLE001 - handed to the main thread
+                outdata[:] = 0.0
+                state["error"] = exc
+                done.set()
+                raise sd.CallbackAbort from exc
+
+        def fill(indata, outdata, frames, status):
             pos = state["pos"]
             state["last"] = time.monotonic()
             if status:
@@ -236,8 +245,12 @@ class PortAudioBackend:
             # output: the stimulus, or the emergency fade, or silence
             if self._abort.is_set() and state["fade_at"] < 0:
                 state["fade_at"] = pos
-            n = max(0, min(frames, n_play - pos))
-            outdata[:n] = out[pos : pos + n]
+            n = 0
+            if pos < n_play:
+                block = stimulus.render(pos, frames)
+                n = block.shape[0]
+                outdata[:n, :cols] = block[:, :cols]
+                outdata[:n, cols:] = 0.0
             outdata[n:] = 0.0
             fa = state["fade_at"]
             if fa >= 0:
@@ -318,6 +331,8 @@ class PortAudioBackend:
                 thread.join(timeout=5.0)
             if writer:
                 writer.close()
+        if reason is None and state.get("error") is not None:
+            reason = f"the audio callback failed ({state['error']!r})"
         if reason is not None:
             where = f"; the partial capture is in {partial}" if partial is not None else ""
             raise CaptureInterrupted(f"{reason}: the output faded to silence{where}", partial, lost)
