@@ -249,6 +249,7 @@ def tone(
     bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
     out: Optional[Path] = typer.Option(None, "--out", help="Run folder for the capture and reports (default: tone-<time>)."),
     device: Optional[str] = typer.Option(None, "--device", help="'virtual', or a real interface by index or part of its name; default 'virtual' unless BENCHKIT_DEVICE names one."),
+    in_device: Optional[str] = typer.Option(None, "--in-device", help="A separate input interface (its clock offset is measured on the reference)."),
     in_channel: int = typer.Option(1, "--in-channel", help="Input carrying the stage output (through the pad), from 1."),
     out_channel: int = typer.Option(1, "--out-channel", help="Output driving the stage, from 1 (real devices)."),
     ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices)."),
@@ -289,7 +290,7 @@ def tone(
                  "interface input and any speaker. Keep a dummy load on the output.")
         real = dict(sample_rate=rate, in_channel=in_channel, out_channel=out_channel, ref_channel=ref_channel,
                     blocksize=blocksize, latency=lat, drive_cap_dbfs=-0.5 if override_drive_cap else drive_cap,
-                    volts_per_fs=volts_per_fs)
+                    volts_per_fs=volts_per_fs, in_device=in_device)
         backend = _open_backend(device, sim, sim_param, sim_pad, seed, real)
         # a level in volts is at the interface output, whose scale the device knows
         drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]

@@ -139,8 +139,9 @@ def _capture_sidecar(cap, stim, channel: int, backend, note: str) -> dict:
 
 
 def clock_offset_ppm(cap, stim) -> float | None:
-    """Output-to-input clock offset from the reference input: the first
-    step's tone as recorded there against the frequency played."""
+    """How fast the input clock runs against the output's, ppm, from the
+    reference input: the first step's tone as recorded there against the
+    frequency played."""
     ref = next((ch.number for ch in cap.inputs if ch.role.startswith("reference")), None)
     if ref is None or not stim.segments:
         return None
@@ -149,7 +150,8 @@ def clock_offset_ppm(cap, stim) -> float | None:
         got = analyze_tone(cap.channel(ref)[seg.settled : seg.end], cap.sample_rate_hz, fundamental_hz=seg.frequency_hz)
     except BenchkitError:
         return None
-    return (got.fundamental_hz / seg.frequency_hz - 1.0) * 1e6
+    # an input clock running fast sees the tone low
+    return (seg.frequency_hz / got.fundamental_hz - 1.0) * 1e6
 
 
 def tone_run(

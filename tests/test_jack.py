@@ -173,3 +173,10 @@ def test_sigkill_leaves_a_readable_partial_capture(server, tmp_path):
     data, rate = sf.read(partial, always_2d=True)
     assert rate == 48000 and data.shape[0] >= 2 * 48000
     assert time.monotonic() - start < 10
+
+
+def test_the_drive_cap_holds_on_a_real_device(server, tmp_path):
+    # the default cap is -12 dBFS; a hotter level is refused before anything plays
+    rc, _out, err = _tone(server, tmp_path / "run", -6.0)
+    assert rc != 0 and "cap" in err and "Traceback" not in err
+    assert not (tmp_path / "run" / "capture.partial.wav").exists()

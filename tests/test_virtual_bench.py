@@ -221,9 +221,13 @@ def test_no_pad_clips_the_converter(tmp_path):
 def test_clock_offset_shifts_the_frequency(tmp_path):
     # an ADC clock running 100 ppm fast sees 997 Hz as 997 / (1 + 1e-4)
     bench = VirtualBench(make_stage("ideal", dict(gain=1.0)), None, InterfaceSpec(clock_ppm=100.0), seed=1)
-    r = tone_run(bench, tmp_path, 997.0, [-20.0]).steps[0].result
+    steps = tone_run(bench, tmp_path, 997.0, [-20.0])
+    r = steps.steps[0].result
     assert bench.effective_clock_ppm == pytest.approx(100.0, abs=0.01)
     assert r.fundamental_hz == pytest.approx(997.0 / (1 + 100e-6), abs=2e-4)
+    # measured on the reference input, and warned about
+    assert steps.clock_offset_ppm == pytest.approx(100.0, abs=0.5)
+    assert any("ppm" in w for w in steps.warnings)
 
 
 def test_interface_floor_on_the_loopback():

@@ -129,6 +129,9 @@ class PortAudioBackend:
         Highest peak level the stimulus may have.
     volts_per_fs : float, optional
         Scale of ``in_channel`` in volts at the stage per FS, when known.
+    in_device : str, optional
+        A separate input device (index or name); its clock is then not the
+        output's, and the offset between them is measured on the reference.
     """
 
     def __init__(
@@ -143,17 +146,21 @@ class PortAudioBackend:
         drive_cap_dbfs: float = DEFAULT_DRIVE_CAP_DBFS,
         volts_per_fs: float | None = None,
         watchdog_s: float = WATCHDOG_S,
+        in_device: str | None = None,
     ):
         self.sd = _sd()
         self.info = find_device(device)
+        self.in_info = find_device(in_device) if in_device else self.info
         self.name = f"{self.info['name']} ({self.info['host_api']})"
+        if self.in_info is not self.info:
+            self.name = f"{self.in_info['name']} in, {self.name} out"
         self.sample_rate_hz = float(sample_rate)
         self.in_channel, self.out_channel, self.ref_channel = in_channel, out_channel, ref_channel
         wanted_in = max(in_channel, ref_channel or 0)
         if in_channel < 1 or (ref_channel is not None and ref_channel < 1) or out_channel < 1:
             raise BenchkitError("channels are numbered from 1")
-        if wanted_in > self.info["max_input_channels"]:
-            raise BenchkitError(f"{self.name} has {self.info['max_input_channels']} inputs; input {wanted_in} does not exist")
+        if wanted_in > self.in_info["max_input_channels"]:
+            raise BenchkitError(f"{self.in_info['name']} has {self.in_info['max_input_channels']} inputs; input {wanted_in} does not exist")
         if out_channel > self.info["max_output_channels"]:
             raise BenchkitError(f"{self.name} has {self.info['max_output_channels']} outputs; output {out_channel} does not exist")
         if ref_channel is not None and ref_channel == in_channel:
@@ -190,6 +197,7 @@ class PortAudioBackend:
     def describe(self) -> dict:
         return {
             "device": self.info,
+            "input_device": self.in_info,
             "blocksize": self.blocksize,
             "latency": self.latency,
             "drive_cap_dbfs": self.drive_cap_dbfs,
@@ -294,7 +302,7 @@ class PortAudioBackend:
             stream = sd.Stream(
                 samplerate=rate,
                 blocksize=self.blocksize,
-                device=(self.info["index"], self.info["index"]),
+                device=(self.in_info["index"], self.info["index"]),
                 channels=(self.n_inputs, self.n_outputs),
                 dtype="float32",
                 latency=self.latency,
