@@ -8,6 +8,7 @@ finds the server through JACK_DEFAULT_SERVER.
 
 from __future__ import annotations
 
+import glob
 import os
 import shutil
 import signal
@@ -29,18 +30,28 @@ class JackServer:
         self.proc: subprocess.Popen | None = None
 
     def start(self) -> "JackServer":
-        self.proc = subprocess.Popen(
-            ["jackd", "--no-realtime", "-n", self.name, "-d", "dummy", "-r", str(self.rate), "-p", str(self.period)],
-            stdout=subprocess.DEVNULL,
-            stderr=subprocess.DEVNULL,
-        )
-        deadline = time.monotonic() + 10
-        while time.monotonic() < deadline:
-            ok = subprocess.run(["jack_lsp", "-s", self.name], capture_output=True, timeout=5)
-            if ok.returncode == 0 and b"system:playback_1" in ok.stdout:
-                return self
-            time.sleep(0.1)
-        self.stop()
+        for attempt in range(2):
+            self.proc = subprocess.Popen(
+                ["jackd", "--no-realtime", "-n", self.name, "-d", "dummy", "-r", str(self.rate), "-p", str(self.period)],
+                stdout=subprocess.DEVNULL,
+                stderr=subprocess.DEVNULL,
+            )
+            deadline = time.monotonic() + 10
+            while time.monotonic() < deadline and self.proc.poll() is None:
+                ok = subprocess.run(["jack_lsp", "-s", self.name], capture_output=True, timeout=5)
+                if ok.returncode == 0 and b"system:playback_1" in ok.stdout:
+                    return self
+                time.sleep(0.1)
+            self.stop()
+            # jackd keeps at most 8 servers in its shared registry, and a
+            # server that died hard leaves its entry behind; with no jackd
+            # running, the registry can only hold stale entries
+            if attempt == 0 and subprocess.run(["pgrep", "-x", "jackd"], capture_output=True).returncode != 0:
+                for stale in glob.glob("/dev/shm/jack*"):
+                    try:
+                        os.unlink(stale)
+                    except OSError:
+                        pass
         raise RuntimeError("jackd did not come up")
 
     def env(self) -> dict:
@@ -55,11 +66,6 @@ class JackServer:
                 self.proc.kill()
                 self.proc.wait(5)
 
-    def kill(self) -> None:
-        if self.proc and self.proc.poll() is None:
-            self.proc.kill()
-            self.proc.wait(5)
-
     def __enter__(self):
         return self.start()
 
@@ -72,7 +78,9 @@ def have_jack() -> bool:
 
 
 class Patchbay:
-    """Waits for benchkit's PortAudio client and wires it.
+    """Waits for benchkit's PortAudio client and wires it, from a process
+    of its own (libjack stays out of the test process, which a dying
+    server could otherwise take down).
 
     mode "loopback": out_0 -> in_0 and in_1. mode "poly": out_0 -> a client
     applying y = x + a2 x^2 + a3 x^3 -> in_0, and out_0 -> in_1 (reference).
@@ -82,6 +90,47 @@ class Patchbay:
 
     def __init__(self, server: JackServer, mode: str = "loopback", a2: float = 0.0, a3: float = 0.0,
                  stall_after: float | None = None):
+        self.lines: list[str] = []
+        self.proc = subprocess.Popen(
+            [sys.executable, __file__, server.name, mode, str(a2), str(a3), str(stall_after or -1)],
+            stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True,
+        )
+        self._reader = threading.Thread(target=self._read, daemon=True)
+        self._reader.start()
+        deadline = time.monotonic() + 10
+        while "ready" not in self.lines:
+            if time.monotonic() > deadline or self.proc.poll() is not None:
+                raise RuntimeError("the JACK patch bay did not start")
+            time.sleep(0.01)
+
+    def _read(self):
+        for line in self.proc.stdout:
+            self.lines.append(line.strip())
+
+    @property
+    def stalled(self) -> bool:
+        return "stalled" in self.lines
+
+    def close(self):
+        if self.proc.poll() is None:
+            self.proc.terminate()
+            try:
+                self.proc.wait(5)
+            except subprocess.TimeoutExpired:
+                self.proc.kill()
+        self._reader.join(2)
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+class _PatchClient:
+    """The JACK side of :class:`Patchbay` (runs in its own process)."""
+
+    def __init__(self, server: str, mode: str, a2: float, a3: float, stall_after: float | None):
         import jack
 
         self.jack = jack
@@ -89,14 +138,11 @@ class Patchbay:
         self.stall_after = stall_after
         self.wired_at: float | None = None
         self.stalled = False
-        self.client = jack.Client(f"patch-{uuid.uuid4().hex[:6]}", servername=server.name, no_start_server=True)
+        self.client = jack.Client(f"patch-{uuid.uuid4().hex[:6]}", servername=server, no_start_server=True)
         self.inp = self.client.inports.register("in")
         self.out = self.client.outports.register("out")
         self.client.set_process_callback(self._process)
         self.client.activate()
-        self._stop = threading.Event()
-        self.thread = threading.Thread(target=self._watch, daemon=True)
-        self.thread.start()
 
     def _process(self, frames):
         x = self.inp.get_array()
@@ -109,18 +155,21 @@ class Patchbay:
             if time.monotonic() - self.wired_at > self.stall_after:
                 self.stalled = True
                 time.sleep(0.2)
+                print("stalled", flush=True)
 
-    def _watch(self):
+    def watch(self):
         # every stream benchkit opens (a retry opens a new one) comes up
         # with fresh port names wired to the system ports: rewire each
         c = self.client
-        while not self._stop.is_set():
+        print("ready", flush=True)
+        while True:
             try:
                 plan = self._plan(c)
                 if plan and not self._wired(c, plan):
                     self._wire(c, plan)
                     if self.wired_at is None:
                         self.wired_at = time.monotonic()
+                    print("wired", flush=True)
             except self.jack.JackError:
                 pass
             time.sleep(0.002)
@@ -158,20 +207,6 @@ class Patchbay:
             except self.jack.JackError:
                 pass  # already connected
 
-    def close(self):
-        self._stop.set()
-        try:
-            self.client.deactivate()
-            self.client.close()
-        except Exception:  # noqa: BLE001 - the server may be gone already
-            pass
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        self.close()
-
 
 def benchkit(server: JackServer, *args: str, timeout: float = 60) -> subprocess.Popen:
     """Start the benchkit console entry point against the server."""
@@ -192,3 +227,8 @@ def played_segment(levels, index: int, rate: int = 48000) -> np.ndarray:
     stim = stepped_tones(997.0, levels, rate, lead_s=LEAD_S, n_out=1)
     seg = stim.segments[index]
     return stim.samples[seg.settled : seg.end, 0].astype(np.float32).astype(np.float64)
+
+
+if __name__ == "__main__":
+    name, mode, a2, a3, stall = sys.argv[1:6]
+    _PatchClient(name, mode, float(a2), float(a3), float(stall) if float(stall) >= 0 else None).watch()

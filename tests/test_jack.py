@@ -151,7 +151,7 @@ def test_killing_the_server_mid_run_exits_cleanly(server, tmp_path):
             proc = jackbench.benchkit(doomed, "tone", "--device", "system", "--ref-channel", "2", "--out", str(folder),
                                       *sum((["--level", "-20dBFS"] for _ in range(6)), []))
             partial = _wait_until_running(proc, folder)
-            doomed.kill()
+            doomed.stop()  # the server goes away under the running stream
             _, err = proc.communicate(timeout=30)
     assert proc.returncode not in (0, None) and "Traceback" not in err
     assert "stopped" in err

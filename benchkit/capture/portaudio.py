@@ -229,6 +229,7 @@ class PortAudioBackend:
         fade_n = max(1, int(ABORT_FADE_S * rate))
         after_abort = int(0.25 * rate)
         ramp = np.linspace(1.0, 0.0, fade_n, dtype=np.float32)
+        cap_fs = np.float32(units.ratio_from_db(self.drive_cap_dbfs))
         state = {"pos": 0, "fade_at": -1, "last": time.monotonic(), "faults": [], "statuses": []}
         done = threading.Event()
         self._abort.clear()
@@ -269,6 +270,8 @@ class PortAudioBackend:
                     k1 = min(fade_n, k0 + frames)
                     outdata[: k1 - k0] *= ramp[k0:k1, None]
                     outdata[k1 - k0 :] = 0.0
+            # the cap holds whatever the stimulus renders (last line of defence)
+            np.clip(outdata, -cap_fs, cap_fs, out=outdata)
             # input, into the buffer allocated up front
             m = max(0, min(frames, rec.shape[0] - pos))
             rec[pos : pos + m] = indata[:m]
@@ -341,6 +344,9 @@ class PortAudioBackend:
                 writer.close()
         if reason is None and state.get("error") is not None:
             reason = f"the audio callback failed ({state['error']!r})"
+        if reason is None and state["pos"] < total and state["fade_at"] < 0:
+            reason = "the audio stream ended before the run did (device or server gone?)"
+            lost = True
         if reason is not None:
             where = f"; the partial capture is in {partial}" if partial is not None else ""
             raise CaptureInterrupted(f"{reason}: the output faded to silence{where}", partial, lost)
