@@ -83,7 +83,8 @@ class Patchbay:
     server could otherwise take down).
 
     mode "loopback": out_0 -> in_0 and in_1. mode "poly": out_0 -> a client
-    applying y = x + a2 x^2 + a3 x^3 -> in_0, and out_0 -> in_1 (reference).
+    applying y = x + a2 x^2 + a3 x^3 -> in_0 (its harmonics follow the
+    power-reduction identities), and out_0 -> in_1 (reference).
     ``stall_after`` seconds after wiring, the stage client sleeps 0.2 s in
     its process callback once: an xrun for everyone.
     """

@@ -1,5 +1,6 @@
-"""Plumbing: the layering of DEVELOPERS.md holds (no outside source needed;
-these are rules of this codebase, not measurements)."""
+"""Plumbing: the layering of DEVELOPERS.md holds. No outside source is
+needed: these are rules of this codebase, not measurements (REFERENCES.md
+lists the sources the measurement tests use)."""
 
 from __future__ import annotations
 
