@@ -7,6 +7,7 @@ BENCHKIT_DEBUG=1 to see one).
 
 from __future__ import annotations
 
+import math
 import os
 import sys
 from pathlib import Path
@@ -16,6 +17,7 @@ import typer
 
 from benchkit import __version__, units
 from benchkit.analysis.tone import SCHEMA_VERSION, analyze_tone
+from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
 from benchkit.recordings import read_capture
 
@@ -77,6 +79,7 @@ def analyze(
         None, "--volts-per-fs", help="Volts peak at the measured point per full scale (overrides the sidecar)."
     ),
     load: Optional[float] = typer.Option(None, "--load", help="Load resistance in ohms: adds power in W."),
+    calibration: Optional[Path] = typer.Option(None, "--calibration", help="Calibration profile: volts at the stage from its scale and pad."),
     out: Optional[Path] = typer.Option(None, "--out", help="Write spectrum/residual PNG, CSV and JSON here."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
 ) -> None:
@@ -86,13 +89,14 @@ def analyze(
     """
     try:
         band = units.parse_band(bandwidth)
+        profile = load_profile(calibration) if calibration is not None else None
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
     docs, failed = [], 0
     for path in _progress(files, "analysing"):
         try:
-            docs.append(_analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out))
+            docs.append(_analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile, calibration))
         except BenchkitError as exc:
             failed += 1
             _err(f"benchkit: error: {exc}")
@@ -105,11 +109,19 @@ def analyze(
         raise typer.Exit(EXIT_BAD_INPUT)
 
 
-def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out) -> dict:
+def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile=None, profile_path=None) -> dict:
+    from dataclasses import replace
+
     from benchkit import runs
     from benchkit.report import summary
 
     rec = read_capture(path, channel)
+    if profile is not None and volts_per_fs is None:
+        side = dict(rec.sidecar)
+        side.setdefault("channels", [])
+        side["channels"] = [c for c in side["channels"] if c.get("number") != channel] + [{"number": channel}]
+        runs._apply_calibration(side, profile, str(profile_path), channel)
+        rec = replace(rec, sidecar=side)
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
     if load is not None and scale is None:
         raise BenchkitError(f"{path}: --load needs a voltage scale (--volts-per-fs, or a sidecar that gives one)")
@@ -131,9 +143,15 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
         load_ohms=load,
         traces=out is not None,
     )
+    cal = rec.sidecar.get("calibration")
+    note = runs.floor_warning(result, (cal or {}).get("loopback_floor"))
+    if note:
+        result = replace(result, warnings=result.warnings + (note,))
     d = result.to_dict()
     doc = {"kind": d.pop("kind"), "schema_version": d.pop("schema_version"), "file": str(path), "channel": channel, **d}
     doc["warnings"] = list(rec.warnings) + doc["warnings"]
+    if cal:
+        doc["calibration"] = cal
     _err(summary.tone_summary(result, str(path), channel))
     if out is not None:
         for written in _write_reports(result, doc, Path(path), channel, out):
@@ -259,6 +277,7 @@ def tone(
     drive_cap: float = typer.Option(-12.0, "--drive-cap", help="Highest drive a real device may get, dBFS peak."),
     override_drive_cap: bool = typer.Option(False, "--override-drive-cap", help="Allow up to -0.5 dBFS on a real device: can overload a stage, a pad or a speaker."),
     volts_per_fs: Optional[float] = typer.Option(None, "--volts-per-fs", help="Volts peak at the stage per full scale of the input (real devices)."),
+    calibration: Optional[Path] = typer.Option(None, "--calibration", help="Calibration profile (from 'benchkit calibrate'): results in volts at the stage."),
     sim: str = typer.Option("se-class-a", "--sim", help=_SIM_HELP),
     sim_param: List[str] = typer.Option([], "--sim-param", help="Stage parameter key=value (repeatable), e.g. bias=1.2."),
     sim_pad: str = typer.Option("demo", "--sim-pad", help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200)."),
@@ -291,12 +310,22 @@ def tone(
         real = dict(sample_rate=rate, in_channel=in_channel, out_channel=out_channel, ref_channel=ref_channel,
                     blocksize=blocksize, latency=lat, drive_cap_dbfs=-0.5 if override_drive_cap else drive_cap,
                     volts_per_fs=volts_per_fs, in_device=in_device)
+        profile = load_profile(calibration) if calibration is not None else None
+        if profile is not None:
+            real["volts_per_fs"] = profile.stage_volts_per_fs
         backend = _open_backend(device, sim, sim_param, sim_pad, seed, real)
+        if profile is not None:
+            if backend.name != "virtual":  # the virtual bench knows its own output
+                backend.output_vpk_per_fs = profile.output_vpk_per_fs
+            _err(f"calibration: {calibration} ({profile.interface}, {profile.stage_volts_per_fs:.4g} V peak per FS at the stage)")
+        elif backend.name != "virtual":
+            _err("no calibration profile: figures stay in dBFS (benchkit calibrate makes one)")
         # a level in volts is at the interface output, whose scale the device knows
         drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]
         folder = _report_folder(out or Path(f"tone-{datetime.now():%Y%m%d-%H%M%S}"))
         channel = in_channel
-        steps = runs.tone_run(backend, folder, frequency, drive, load_ohms=load, bandwidth_hz=band, channel=channel, traces=True)
+        steps = runs.tone_run(backend, folder, frequency, drive, load_ohms=load, bandwidth_hz=band, channel=channel,
+                              traces=True, calibration=profile, calibration_file=None if calibration is None else str(calibration))
         _err(summary.steps_summary(steps, f"{frequency:g} Hz, {len(drive)} steps, latency {steps.latency_samples} samples"))
         for written in _write_steps_reports(steps, folder / "capture.wav", channel, folder):
             _err(f"  wrote        {written}")
@@ -317,6 +346,167 @@ def tone(
         from benchkit.report.tables import dumps
 
         print(dumps(steps.to_dict()))
+
+
+@app.command()
+def calibrate(
+    out: Path = typer.Option(..., "--out", help="Where to write the profile (JSON)."),
+    reading: Optional[str] = typer.Option(None, "--reading", help="Voltmeter reading at the output jack while the calibration tone plays, e.g. 0.1414V (Vrms)."),
+    level: str = typer.Option("-20 dBFS", "--level", help="Level of the calibration tone, dBFS."),
+    voltmeter_pct: float = typer.Option(1.0, "--voltmeter-pct", help="Voltmeter accuracy at the tone's frequency, +-%."),
+    pad: Optional[str] = typer.Option(None, "--pad", help="The pad's resistors R1:R2 in ohms (e.g. 1.8k:200)."),
+    input_ohms: float = typer.Option(10e3, "--input-ohms", help="The interface input's impedance, ohms (loads the pad)."),
+    measure_pad: bool = typer.Option(False, "--measure-pad", help="Measure the pad's ratio with the pad in place instead."),
+    note: str = typer.Option("", "--note", help="Free note kept in the profile."),
+    device: Optional[str] = typer.Option(None, "--device", help="'virtual', or a real interface by index or part of its name."),
+    in_channel: int = typer.Option(1, "--in-channel", help="Input to calibrate, from 1."),
+    out_channel: int = typer.Option(1, "--out-channel", help="Output to calibrate, from 1."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Loopback reference input, if wired."),
+    rate: float = typer.Option(48000.0, "--rate", help="Sample rate, Hz."),
+    seed: int = typer.Option(1, "--seed", help="Seed of the virtual bench."),
+) -> None:
+    """Calibrate an interface: output and input scale, pad, floor, response, polarity, DC coupling.
+
+    With --reading the output scale comes from that voltmeter reading (the
+    tone at --level, 997 Hz); without it a real interface plays the tone and
+    asks, and the virtual bench reads its own output. Writes the profile
+    that --calibration takes.
+
+    Example: benchkit calibrate --reading 0.1414V --pad 1.8k:200 --out calibration/my-interface.json
+
+    Safety: calibrate with the stage disconnected, into the interface only.
+    """
+    from benchkit import pads
+    from benchkit.calibrate import calibrate as run_calibration
+    from benchkit.calibration import save_profile
+
+    try:
+        lvl = units.parse_level(level).to_dbfs()
+        real = dict(sample_rate=rate, in_channel=in_channel, out_channel=out_channel, ref_channel=ref_channel)
+        backend = _open_backend(device, "ideal", [], "demo", seed, real)
+        virtual = backend.name == "virtual"
+        if reading is not None:
+            volts = units.parse_level(reading).to_vrms()
+        elif virtual:
+            volts = backend.output_vrms(lvl)
+            _err(f"virtual bench: the voltmeter reads {volts:.5g} Vrms at the output")
+        else:
+            volts = _ask_reading(backend, lvl)
+        resistors = pads.parse_pad(pad) if pad else None
+
+        def wire(step: str) -> None:
+            if virtual:
+                backend.wiring = step
+            elif step != "stage":
+                what = {"loopback": "a cable from the output straight to the input",
+                        "pad": "the output through the pad into the input"}[step]
+                typer.prompt(f"wire {what}, then press Enter", default="", show_default=False, err=True)
+
+        profile = run_calibration(backend, volts, lvl, voltmeter_pct, resistors, input_ohms if resistors else None,
+                                  measure_pad, in_channel, wire, note=note)
+        save_profile(profile, out)
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        raise typer.Exit(EXIT_BAD_INPUT)
+    u = profile.uncertainty
+    _err(f"output {profile.output_vpk_per_fs:.5g} V peak per FS, input {profile.input_vpk_per_fs:.5g} V peak per FS, "
+         f"pad ratio {profile.pad_ratio:.5g}: {profile.stage_volts_per_fs:.5g} V peak per FS at the stage")
+    _err(f"loopback floor THD+N {profile.loopback_floor['thdn_db']:.1f} dB at {profile.loopback_floor['level_dbfs']:.1f} dBFS; "
+         f"{'inverting' if profile.polarity_inverts else 'non-inverting'}; "
+         f"{'DC coupled' if profile.dc_coupled else f'AC coupled ({profile.ac_corner_hz:.2g} Hz)'}; latency {profile.latency_samples} samples")
+    _err(f"uncertainty of the volts: +-{u['total_db']:.3f} dB (voltmeter +-{u['voltmeter_pct']:g} %, repeatability {u['repeatability_db']:.4f} dB)")
+    _err(f"profile: {out} (hash {profile.digest()})")
+
+
+def _ask_reading(backend, level_dbfs: float) -> float:
+    """Play a steady tone on a real interface until the user types the
+    voltmeter reading; the tone fades out when the answer comes."""
+    import threading
+
+    from benchkit.signals import stepped_tones
+
+    stim = stepped_tones(997.0, [level_dbfs], backend.sample_rate_hz, step_s=120.0, settle_s=0.0,
+                         out_channel=backend.drive_output, n_out=backend.n_outputs, lead_s=0.1)
+    result = {}
+
+    def play():
+        try:
+            backend.play_record(stim)
+        except BenchkitError as exc:  # the abort that ends the tone lands here
+            result["stopped"] = str(exc)
+
+    t = threading.Thread(target=play, daemon=True)
+    t.start()
+    try:
+        text = typer.prompt("a 997 Hz tone plays: voltmeter reading at the output (e.g. 0.1414V)", err=True)
+    finally:
+        backend.request_abort()
+        t.join(5.0)
+    return units.parse_level(text).to_vrms()
+
+
+@app.command()
+def pad(
+    stage_vpk: Optional[float] = typer.Option(None, "--stage-vpk", help="Highest voltage the stage can produce at its output, volts peak."),
+    rail: Optional[float] = typer.Option(None, "--rail", help="Or its supply rail, volts: the worst case taken as the whole rail (a failed stage can put it there)."),
+    input_fs_vpk: float = typer.Option(2.0, "--input-fs", help="The interface input's full scale, volts peak."),
+    input_ohms: float = typer.Option(10e3, "--input-ohms", help="The interface input's impedance, ohms."),
+    headroom_db: float = typer.Option(6.0, "--headroom", help="How far below full scale the worst case must land, dB."),
+    series: str = typer.Option("E24", "--series", help="Preferred values: E12, E24 or E96 (IEC 60063)."),
+    input_noise_dbfs: float = typer.Option(-110.0, "--input-noise", help="The input's own noise floor, dBFS, to refer to the stage."),
+    check: Optional[List[str]] = typer.Option(None, "--check", help="Judge a pad you have: --check R1 --check R2 (ohms, k/M allowed)."),
+    as_json: bool = typer.Option(False, "--json", help="Print the pads as JSON on stdout."),
+) -> None:
+    """Design an attenuator pad for the stage's output, or check one you have.
+
+    Proposes divider pairs from a preferred series whose ratio, with the
+    input's impedance loading it, puts the worst case the headroom below
+    full scale; shows each resistor's power at the worst case with a
+    rating of at least twice it, and the highest stage voltage the pad is
+    safe for.
+
+    Example: benchkit pad --rail 24 --input-fs 2.0 --input-ohms 10k
+
+    Cautions: an unbalanced input's ground joins the stage's ground: a
+    bridged (BTL) output, whose minus terminal is not at ground, must not
+    go into it, and two grounds make a hum loop. Balanced inputs take the
+    pad on both legs. Never connect a speaker output straight to a line input.
+    """
+    from benchkit import pads as padlib
+
+    try:
+        if check:
+            if len(check) != 2:
+                raise BenchkitError("--check takes two resistances: --check R1 --check R2")
+            if stage_vpk is None and rail is None:
+                raise BenchkitError("give --stage-vpk or --rail to check the pad against")
+        elif stage_vpk is None and rail is None:
+            raise BenchkitError("give --stage-vpk (the stage's highest output, V peak) or --rail (its supply, V)")
+        worst = stage_vpk if stage_vpk is not None else rail
+        if check:
+            reports = [padlib.judge(padlib.parse_pad(f"{check[0]}:{check[1]}"), worst, input_fs_vpk, input_ohms)]
+        else:
+            reports = padlib.design(worst, input_fs_vpk, input_ohms, headroom_db, series)
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        raise typer.Exit(EXIT_BAD_INPUT)
+    basis = f"{worst:g} V {'peak from the stage' if stage_vpk is not None else 'rail (worst case)'}"
+    _err(f"worst case {basis}; input full scale {input_fs_vpk:g} V peak, {input_ohms:g} ohm; headroom {headroom_db:g} dB")
+    _err("    R1 ohm    R2 ohm    ratio      worst at input   safe to (V pk)   P(R1) -> rating   P(R2) -> rating   noise floor at the stage")
+    for r in reports:
+        floor_uv = 10 ** (input_noise_dbfs / 20) / math.sqrt(2) * input_fs_vpk / r.ratio * 1e6
+        _err(f"  {r.pad.r1_ohms:8g}  {r.pad.r2_ohms:8g}  1:{1 / r.ratio:<8.4g}  {20 * math.log10(max(r.input_peak_fs, 1e-12)):7.1f} dBFS     "
+             f"{r.max_safe_stage_vpk:10.4g}       {r.r1_watts:7.3g} W -> {r.r1_rating_w:g} W   {r.r2_watts:7.3g} W -> {r.r2_rating_w:g} W   "
+             f"+{r.noise_penalty_db:.1f} dB ({floor_uv:.3g} uVrms)")
+        if r.input_peak_fs > 10 ** (-headroom_db / 20) * (1 + 1e-9):
+            _err(f"  warning: the worst case lands at {20 * math.log10(r.input_peak_fs):.1f} dBFS: less than {headroom_db:g} dB of headroom")
+    _err("  ratings are at least twice the worst-case power; balanced inputs need the pad on both legs;"
+         " keep the interface's ground and a bridged output apart")
+    if as_json:
+        from benchkit.report.tables import dumps
+
+        print(dumps({"kind": "pads", "schema_version": 1, "worst_stage_v": worst, "input_fs_vpk": input_fs_vpk,
+                     "input_ohms": input_ohms, "headroom_db": headroom_db, "pads": [r.to_dict() for r in reports]}))
 
 
 @app.command()

@@ -76,3 +76,126 @@ def _ohms(text: str) -> float:
         return float(t) * scale
     except ValueError:
         raise BenchkitError(f"cannot read resistance {text!r}") from None
+
+
+# --- preferred values (IEC 60063) --------------------------------------------
+
+#: The E24 series; E24 (and so E12, every other value) departs from the
+#: rounded geometric series at several places, so it is listed as published.
+E24 = (1.0, 1.1, 1.2, 1.3, 1.5, 1.6, 1.8, 2.0, 2.2, 2.4, 2.7, 3.0,
+       3.3, 3.6, 3.9, 4.3, 4.7, 5.1, 5.6, 6.2, 6.8, 7.5, 8.2, 9.1)
+E12 = E24[::2]
+
+
+def e_series(name: str) -> tuple[float, ...]:
+    """One decade of a preferred-value series: E12, E24 or E96 (IEC 60063).
+    E96 is the geometric series 10^(i/96) rounded to three figures."""
+    key = name.upper()
+    if key == "E12":
+        return E12
+    if key == "E24":
+        return E24
+    if key == "E96":
+        return tuple(round(10 ** (i / 96), 2) for i in range(96))
+    raise BenchkitError(f"unknown resistor series {name!r}: use E12, E24 or E96")
+
+
+def values(series: str, lo_ohms: float = 10.0, hi_ohms: float = 1e6) -> list[float]:
+    """Every value of a series between lo_ohms and hi_ohms."""
+    out = []
+    for decade in range(-1, 8):
+        for v in e_series(series):
+            r = round(v * 10**decade, 6)
+            if lo_ohms <= r <= hi_ohms:
+                out.append(r)
+    return sorted(set(out))
+
+
+#: Common resistor power ratings, W.
+RATINGS_W = (0.125, 0.25, 0.5, 0.6, 1.0, 2.0, 3.0, 5.0, 10.0)
+
+
+def suggested_rating(watts: float, factor: float = 2.0) -> float:
+    """The smallest common rating of at least ``factor`` times the power."""
+    for r in RATINGS_W:
+        if r >= factor * watts:
+            return r
+    return math.ceil(factor * watts)
+
+
+@dataclass(frozen=True)
+class PadReport:
+    """A pad judged against the worst case it will see."""
+
+    pad: Pad
+    ratio: float
+    worst_stage_v: float  # volts peak (or DC) the stage can put across the pad
+    input_peak_fs: float  # where that worst case lands at the input, FS
+    max_safe_stage_vpk: float  # stage volts peak that just reach full scale
+    r1_watts: float
+    r2_watts: float
+    r1_rating_w: float
+    r2_rating_w: float
+    noise_penalty_db: float  # the interface's floor, referred to the stage, rises by this
+
+    def to_dict(self) -> dict:
+        return {
+            "r1_ohms": self.pad.r1_ohms, "r2_ohms": self.pad.r2_ohms, "ratio": self.ratio,
+            "worst_stage_v": self.worst_stage_v, "input_peak_fs": self.input_peak_fs,
+            "max_safe_stage_vpk": self.max_safe_stage_vpk,
+            "r1_watts": self.r1_watts, "r2_watts": self.r2_watts,
+            "r1_rating_w": self.r1_rating_w, "r2_rating_w": self.r2_rating_w,
+            "noise_penalty_db": self.noise_penalty_db,
+        }
+
+
+def judge(pad: Pad, worst_stage_v: float, input_fs_vpk: float, input_ohms: float) -> PadReport:
+    """Evaluate a pad: ratio loaded by the input, where the worst case lands,
+    resistor powers with the worst case held as DC (a failed stage can put
+    its rail there: V^2/R, circuit theory) and ratings of at least 2x."""
+    ratio = pad.ratio(input_ohms)
+    v_out = worst_stage_v * ratio
+    p1 = (worst_stage_v - v_out) ** 2 / pad.r1_ohms if pad.r1_ohms > 0 else 0.0
+    p2 = v_out**2 / pad.r2_ohms
+    return PadReport(
+        pad=pad, ratio=ratio, worst_stage_v=worst_stage_v, input_peak_fs=v_out / input_fs_vpk,
+        max_safe_stage_vpk=input_fs_vpk / ratio, r1_watts=p1, r2_watts=p2,
+        r1_rating_w=suggested_rating(p1), r2_rating_w=suggested_rating(p2),
+        noise_penalty_db=-20 * math.log10(ratio),
+    )
+
+
+def design(
+    worst_stage_v: float,
+    input_fs_vpk: float,
+    input_ohms: float,
+    headroom_db: float = 6.0,
+    series: str = "E24",
+    shunt_range: tuple[float, float] = (100.0, 2200.0),
+    count: int = 5,
+) -> list[PadReport]:
+    """Pads from a preferred series whose loaded ratio puts the worst case
+    ``headroom_db`` below the input's full scale (or a little lower), the
+    closest first.
+
+    R2 is kept low (100 ohm to 2.2 k by default) so that the input's own
+    impedance and its spread barely move the ratio, and the pad adds little
+    noise.
+    """
+    if not (worst_stage_v > 0 and input_fs_vpk > 0 and input_ohms > 0):
+        raise BenchkitError("the stage voltage, the input full scale and its impedance must be positive")
+    target = input_fs_vpk * 10 ** (-headroom_db / 20) / worst_stage_v
+    if target >= 1.0:
+        return [judge(Pad(0.0, math.inf), worst_stage_v, input_fs_vpk, input_ohms)]
+    found = []
+    r1s = values(series, 10.0, 10e6)
+    for r2 in values(series, *shunt_range):
+        shunt = parallel(r2, input_ohms)
+        exact_r1 = shunt * (1 / target - 1)
+        # the nearest value at or above the exact R1 keeps the ratio at or below target
+        r1 = next((v for v in r1s if v >= exact_r1 * (1 - 1e-9)), None)
+        if r1 is None:
+            continue
+        found.append(judge(Pad(r1, r2), worst_stage_v, input_fs_vpk, input_ohms))
+    found.sort(key=lambda rep: (abs(20 * math.log10(rep.ratio / target)), rep.pad.r2_ohms))
+    return found[:count]

@@ -42,6 +42,7 @@ class StepsResult:
     device: str | None = None
     latency_samples: int | None = None
     clock_offset_ppm: float | None = None
+    calibration: dict | None = None
 
     def to_dict(self) -> dict:
         return {
@@ -53,9 +54,16 @@ class StepsResult:
             "device": self.device,
             "latency_samples": self.latency_samples,
             "clock_offset_ppm": self.clock_offset_ppm,
+            "calibration": self.calibration,
             "warnings": list(self.warnings),
             "steps": [s.to_dict() for s in self.steps],
         }
+
+
+def _first_frequency(value) -> float:
+    if isinstance(value, (list, tuple)):
+        value = value[0] if value else 0.0
+    return float(value or 0.0)
 
 
 def is_stepped(rec: Recording) -> bool:
@@ -104,13 +112,17 @@ def analyze_steps(
         )
         if seg.get("spoiled"):
             result = replace(result, valid=False, warnings=result.warnings + ("a stream fault spoiled this step",))
+        note = floor_warning(result, (rec.sidecar.get("calibration") or {}).get("loopback_floor"))
+        if note:
+            result = replace(result, warnings=result.warnings + (note,))
         steps.append(StepResult(drive, result))
     side = rec.sidecar
     return StepsResult(
-        str(rec.path), rec.channel, float(stim.get("frequency_hz", 0.0)), tuple(steps),
+        str(rec.path), rec.channel, _first_frequency(stim.get("frequency_hz")), tuple(steps),
         rec.warnings + tuple(side.get("warnings") or ()),
         device=side.get("device"), latency_samples=side.get("latency_samples"),
         clock_offset_ppm=side.get("clock_offset_ppm"),
+        calibration=side.get("calibration"),
     )
 
 
@@ -136,6 +148,39 @@ def _capture_sidecar(cap, stim, channel: int, backend, note: str) -> dict:
     if describe is not None:
         side["bench"] = describe()
     return side
+
+
+def _apply_calibration(side: dict, profile, path: str | None, channel: int) -> None:
+    """Record the profile a run used, and take its scale for the stage."""
+    side["scale_source"] = "profile"
+    for ch in side["channels"]:
+        if ch["number"] == channel:
+            ch["volts_per_fs"] = profile.stage_volts_per_fs
+    side["calibration"] = {
+        "file": path,
+        "hash": profile.digest(),
+        "interface": profile.interface,
+        "created": profile.created,
+        "loopback_floor": profile.loopback_floor,
+        "uncertainty_db": profile.uncertainty.get("total_db"),
+    }
+
+
+#: A step this close to the interface's own floor is limited by it.
+FLOOR_MARGIN_DB = 3.0
+
+
+def floor_warning(result: ToneResult, floor: dict | None) -> str | None:
+    """A warning when a THD+N lies within FLOOR_MARGIN_DB of the loopback
+    floor the calibration measured (the interface, not the stage)."""
+    if not floor or "thdn_db" not in floor or "level_dbfs" not in floor:
+        return None
+    # the interface's residual is about constant in dBFS: refer it to this level
+    limit = floor["thdn_db"] + floor["level_dbfs"] - result.fundamental_dbfs
+    if result.thdn_db < limit + FLOOR_MARGIN_DB:
+        return (f"THD+N {result.thdn_db:.1f} dB is within {FLOOR_MARGIN_DB:g} dB of the interface's own floor "
+                f"({limit:.1f} dB at this level): limited by the interface, not the stage")
+    return None
 
 
 def clock_offset_ppm(cap, stim) -> float | None:
@@ -165,6 +210,8 @@ def tone_run(
     bandwidth_hz: tuple[float, float] | None = DEFAULT_BAND_HZ,
     note: str = "",
     traces: bool = False,
+    calibration=None,
+    calibration_file: str | None = None,
 ) -> StepsResult:
     """Play stepped tones, store the capture, analyse every step.
 
@@ -184,6 +231,8 @@ def tone_run(
         partial = folder / f"{stem}.partial.wav"
         cap = capture.run(backend, stim, partial)
         side = _capture_sidecar(cap, stim, channel, backend, note)
+        if calibration is not None:
+            _apply_calibration(side, calibration, calibration_file, channel)
         ppm = clock_offset_ppm(cap, stim)
         side["clock_offset_ppm"] = ppm
         path = write_capture(folder / f"{stem}.wav", cap.samples, cap.sample_rate_hz, side)

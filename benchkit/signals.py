@@ -122,7 +122,7 @@ def _check_level(level_dbfs: float) -> None:
 
 
 def stepped_tones(
-    frequency_hz: float,
+    frequency_hz: float | list[float],
     levels_dbfs: list[float],
     rate: float,
     step_s: float = 1.0,
@@ -136,7 +136,8 @@ def stepped_tones(
 
     Parameters
     ----------
-    frequency_hz : float
+    frequency_hz : float or list of float
+        One frequency for every step, or one per step.
     levels_dbfs : list of float
         Drive level of each step at the interface output, dBFS.
     rate : float
@@ -155,8 +156,12 @@ def stepped_tones(
     """
     if not levels_dbfs:
         raise BenchkitError("at least one level is needed")
-    if not (0 < frequency_hz < rate / 2):
-        raise BenchkitError(f"tone frequency {frequency_hz:g} Hz must lie between 0 and half the sample rate")
+    freqs = [float(f) for f in frequency_hz] if isinstance(frequency_hz, (list, tuple)) else [float(frequency_hz)] * len(levels_dbfs)
+    if len(freqs) != len(levels_dbfs):
+        raise BenchkitError("give one frequency, or one per level")
+    for f in freqs:
+        if not (0 < f < rate / 2):
+            raise BenchkitError(f"tone frequency {f:g} Hz must lie between 0 and half the sample rate")
     if not 1 <= out_channel <= n_out:
         raise BenchkitError(f"output channel {out_channel} does not exist (1 to {n_out})")
     for lvl in levels_dbfs:
@@ -167,13 +172,11 @@ def stepped_tones(
     marker_start = pieces[0].size
     fade_n = int(round(FADE_S * rate))
     segments = []
-    for lvl in levels_dbfs:
+    for f, lvl in zip(freqs, levels_dbfs):
         seconds = settle_s + step_s + 2 * FADE_S
-        x = tone(frequency_hz, lvl, seconds, rate)
+        x = tone(f, lvl, seconds, rate)
         settled = pos + fade_n + int(round(settle_s * rate))
-        segments.append(
-            Segment(pos, pos + x.size, settled, pos + x.size - fade_n, float(frequency_hz), float(lvl), out_channel)
-        )
+        segments.append(Segment(pos, pos + x.size, settled, pos + x.size - fade_n, f, float(lvl), out_channel))
         pieces += [x, np.zeros(int(gap_s * rate))]
         pos += x.size + pieces[-1].size
     pieces.append(np.zeros(int(TAIL_S * rate)))
@@ -188,7 +191,7 @@ def stepped_tones(
         marker_start=marker_start,
         description={
             "kind": "stepped-tones",
-            "frequency_hz": float(frequency_hz),
+            "frequency_hz": freqs[0] if len(set(freqs)) == 1 else freqs,
             "levels_dbfs": [float(v) for v in levels_dbfs],
             "step_s": step_s,
             "settle_s": settle_s,

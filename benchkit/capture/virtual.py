@@ -126,6 +126,10 @@ class VirtualBench:
         self.stage = stage if stage is not None else make_stage("se-class-a", seed=seed)
         self.pad = pad
         self._rng = np.random.default_rng(seed)
+        #: "stage": output 1 -> stage -> pad -> input 1 (the bench set up to
+        #: measure); "loopback": a cable from output 1 to input 1; "pad":
+        #: output 1 -> pad -> input 1 (calibrating the pad's ratio)
+        self.wiring = "stage"
         self.last_latency_samples: int | None = None
         self.effective_clock_ppm = 0.0
 
@@ -144,6 +148,10 @@ class VirtualBench:
 
     def pad_ratio(self) -> float:
         return 1.0 if self.pad is None else self.pad.ratio(self.spec.input_ohms)
+
+    def output_vrms(self, level_dbfs: float) -> float:
+        """What a voltmeter reads at output 1 for a sine at ``level_dbfs``."""
+        return self.spec.output_vpk_per_fs * 10 ** (level_dbfs / 20) / math.sqrt(2)
 
     def inputs(self) -> tuple[InputChannel, ...]:
         """Input 1: the stage's load through the pad; input 2: output 1 looped
@@ -185,8 +193,13 @@ class VirtualBench:
         h = _lowpass(s.antialias_fraction)
         analog = scipy.signal.resample_poly(dac, OVERSAMPLE, 1, window=h) * s.output_vpk_per_fs
         # the stage at 8x, then the pad into input 1; input 2 is the loopback
-        load_v = self.stage.process(analog, rate * OVERSAMPLE)
-        at_input = [load_v * self.pad_ratio(), analog]
+        if self.wiring == "loopback":
+            first = analog
+        elif self.wiring == "pad":
+            first = analog * self.pad_ratio()
+        else:
+            first = self.stage.process(analog, rate * OVERSAMPLE) * self.pad_ratio()
+        at_input = [first, analog]
         channels = [self._adc(scipy.signal.resample_poly(v, 1, OVERSAMPLE, window=h)) for v in at_input]
         channels += [self._adc(np.zeros(total)) for _ in range(2, s.n_inputs)]
         rec = np.stack(channels, axis=1)
