@@ -231,6 +231,31 @@ def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pa
     return bench
 
 
+def _preflight(backend, profile, drive, frequency, channel, gain, margin, rail, pad_rating, load, btl):
+    """Predict the run from the scales and the stage's gain; refuse it before
+    anything plays if it would overload the input or the pad."""
+    from benchkit import preflight, runs
+
+    virtual = backend.name == "virtual"
+    stage_vpf = profile.stage_volts_per_fs if profile is not None else backend.inputs()[channel - 1].volts_per_fs
+    out_vpk = backend.output_vpk_per_fs
+    pad = getattr(backend, "pad", None) if virtual else (profile.pad.pad() if profile and profile.pad else None)
+    ratio = backend.pad_ratio() if virtual else (profile.pad_ratio if profile is not None else None)
+    in_vpk = backend.spec.input_vpk_per_fs if virtual else (profile.input_vpk_per_fs if profile is not None else None)
+    input_ohms = backend.spec.input_ohms if virtual else ((profile.pad.input_ohms if profile and profile.pad else None) or math.inf)
+    if not virtual and stage_vpf is None and (load is not None or pad_rating is not None):
+        raise BenchkitError("--load and --pad-rating need volts at the stage: give --calibration (or --volts-per-fs)")
+    if gain is not None:
+        if out_vpk is None or stage_vpf is None:
+            raise BenchkitError("--gain needs the output and input scales: give --calibration")
+        gain_fs = gain * out_vpk / stage_vpf
+    else:
+        probe = min(min(drive) - 10.0, -40.0)
+        gain_fs = runs.probe_gain(backend, frequency, probe, channel)
+        _err(f"pre-flight: a {probe:g} dBFS step measured {units.db_from_ratio(gain_fs):+.1f} dB from output to input")
+    return preflight.check(drive, gain_fs, stage_vpf, in_vpk, pad, ratio, input_ohms, pad_rating, rail, load, btl, margin)
+
+
 @app.command()
 def devices(as_json: bool = typer.Option(False, "--json", help="Print the list as JSON on stdout.")) -> None:
     """List the interfaces PortAudio sees, and the virtual bench.
@@ -278,6 +303,11 @@ def tone(
     override_drive_cap: bool = typer.Option(False, "--override-drive-cap", help="Allow up to -0.5 dBFS on a real device: can overload a stage, a pad or a speaker."),
     volts_per_fs: Optional[float] = typer.Option(None, "--volts-per-fs", help="Volts peak at the stage per full scale of the input (real devices)."),
     calibration: Optional[Path] = typer.Option(None, "--calibration", help="Calibration profile (from 'benchkit calibrate'): results in volts at the stage."),
+    gain: Optional[float] = typer.Option(None, "--gain", help="Expected voltage gain of the stage (V/V); without it a low-level step measures it first."),
+    margin: float = typer.Option(3.0, "--margin", help="Headroom the top step must keep below the input's full scale, dB."),
+    rail: Optional[float] = typer.Option(None, "--rail", help="The stage's supply, V: refuse a pad that lets it overload the input."),
+    pad_rating: Optional[float] = typer.Option(None, "--pad-rating", help="Power rating of the pad resistors, W."),
+    btl: bool = typer.Option(False, "--btl", help="The stage has a bridged (BTL) output."),
     sim: str = typer.Option("se-class-a", "--sim", help=_SIM_HELP),
     sim_param: List[str] = typer.Option([], "--sim-param", help="Stage parameter key=value (repeatable), e.g. bias=1.2."),
     sim_pad: str = typer.Option("demo", "--sim-pad", help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200)."),
@@ -322,10 +352,14 @@ def tone(
             _err("no calibration profile: figures stay in dBFS (benchkit calibrate makes one)")
         # a level in volts is at the interface output, whose scale the device knows
         drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]
-        folder = _report_folder(out or Path(f"tone-{datetime.now():%Y%m%d-%H%M%S}"))
         channel = in_channel
+        plan = _preflight(backend, profile, drive, frequency, channel, gain, margin, rail, pad_rating, load, btl)
+        for w in plan.warnings:
+            _err(f"warning: {w}")
+        folder = _report_folder(out or Path(f"tone-{datetime.now():%Y%m%d-%H%M%S}"))
         steps = runs.tone_run(backend, folder, frequency, drive, load_ohms=load, bandwidth_hz=band, channel=channel,
-                              traces=True, calibration=profile, calibration_file=None if calibration is None else str(calibration))
+                              traces=True, calibration=profile, calibration_file=None if calibration is None else str(calibration),
+                              warnings=plan.warnings)
         _err(summary.steps_summary(steps, f"{frequency:g} Hz, {len(drive)} steps, latency {steps.latency_samples} samples"))
         for written in _write_steps_reports(steps, folder / "capture.wav", channel, folder):
             _err(f"  wrote        {written}")

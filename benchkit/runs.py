@@ -183,6 +183,20 @@ def floor_warning(result: ToneResult, floor: dict | None) -> str | None:
     return None
 
 
+def probe_gain(backend, frequency_hz: float, level_dbfs: float, channel: int = 1) -> float:
+    """Input FS per output FS through the stage, from one low-level step
+    (nothing kept on disk: it plays before the run, as a check)."""
+    stim = stepped_tones(frequency_hz, [level_dbfs], backend.sample_rate_hz, step_s=0.3, settle_s=0.3,
+                         out_channel=getattr(backend, "drive_output", 1), n_out=backend.n_outputs,
+                         lead_s=getattr(backend, "lead_s", 0.05))
+    cap = capture.run(backend, stim)
+    seg = stim.segments[0]
+    r = analyze_tone(cap.channel(channel)[seg.settled : seg.end], cap.sample_rate_hz, fundamental_hz=frequency_hz)
+    if not r.valid:
+        raise BenchkitError(f"even the {level_dbfs:g} dBFS probe step clipped the input: check the pad and the wiring")
+    return r.fundamental_fs / 10 ** (level_dbfs / 20)
+
+
 def clock_offset_ppm(cap, stim) -> float | None:
     """How fast the input clock runs against the output's, ppm, from the
     reference input: the first step's tone as recorded there against the
@@ -212,6 +226,7 @@ def tone_run(
     traces: bool = False,
     calibration=None,
     calibration_file: str | None = None,
+    warnings: tuple[str, ...] = (),
 ) -> StepsResult:
     """Play stepped tones, store the capture, analyse every step.
 
@@ -253,7 +268,7 @@ def tone_run(
             else:
                 segments[i] = {**seg.to_dict(), "file": r_path.name}
         pending = still
-    warnings = []
+    warnings = list(warnings)
     if pending:
         warnings.append(f"steps {', '.join(str(i + 1) for i in pending)} were spoiled by stream faults in every take")
         for i in pending:

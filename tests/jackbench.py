@@ -85,15 +85,17 @@ class Patchbay:
     mode "loopback": out_0 -> in_0 and in_1. mode "poly": out_0 -> a client
     applying y = x + a2 x^2 + a3 x^3 -> in_0 (its harmonics follow the
     power-reduction identities), and out_0 -> in_1 (reference).
-    ``stall_after`` seconds after wiring, the stage client sleeps 0.2 s in
-    its process callback once: an xrun for everyone.
+    ``stall_after`` seconds after wiring stream number ``stall_stream``
+    (benchkit opens one per run: a pre-flight probe, the run, retries), the
+    stage client sleeps 0.2 s in its process callback once: an xrun for
+    everyone.
     """
 
     def __init__(self, server: JackServer, mode: str = "loopback", a2: float = 0.0, a3: float = 0.0,
-                 stall_after: float | None = None):
+                 stall_after: float | None = None, stall_stream: int = 1):
         self.lines: list[str] = []
         self.proc = subprocess.Popen(
-            [sys.executable, __file__, server.name, mode, str(a2), str(a3), str(stall_after or -1)],
+            [sys.executable, __file__, server.name, mode, str(a2), str(a3), str(stall_after or -1), str(stall_stream)],
             stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True,
         )
         self._reader = threading.Thread(target=self._read, daemon=True)
@@ -131,8 +133,10 @@ class Patchbay:
 class _PatchClient:
     """The JACK side of :class:`Patchbay` (runs in its own process)."""
 
-    def __init__(self, server: str, mode: str, a2: float, a3: float, stall_after: float | None):
+    def __init__(self, server: str, mode: str, a2: float, a3: float, stall_after: float | None, stall_stream: int = 1):
         import jack
+
+        self.stall_stream = stall_stream
 
         self.jack = jack
         self.mode, self.a2, self.a3 = mode, a2, a3
@@ -168,7 +172,10 @@ class _PatchClient:
                 plan = self._plan(c)
                 if plan and not self._wired(c, plan):
                     self._wire(c, plan)
-                    if self.wired_at is None:
+                    # PortAudio numbers each new stream's ports on: out_0 is
+                    # the first stream's, out_1 the second's...
+                    stream = int(plan[0][0].rsplit("_", 1)[1]) + 1
+                    if stream == self.stall_stream and self.wired_at is None:
                         self.wired_at = time.monotonic()
                     print("wired", flush=True)
             except self.jack.JackError:
@@ -231,5 +238,5 @@ def played_segment(levels, index: int, rate: int = 48000) -> np.ndarray:
 
 
 if __name__ == "__main__":
-    name, mode, a2, a3, stall = sys.argv[1:6]
-    _PatchClient(name, mode, float(a2), float(a3), float(stall) if float(stall) >= 0 else None).watch()
+    name, mode, a2, a3, stall, stream = sys.argv[1:7]
+    _PatchClient(name, mode, float(a2), float(a3), float(stall) if float(stall) >= 0 else None, int(stream)).watch()

@@ -100,8 +100,9 @@ def test_latency_repeatable_and_found_after_a_period_change(server, tmp_path):
 def test_an_xrun_spoils_its_step_and_the_step_is_retried(server, tmp_path):
     # a client that sleeps 0.2 s in its process callback makes the stream
     # see an overflow and underflow (DESIGN.md, measured on CI's machines);
-    # it stalls once, 1.6 s in: inside the first step's analysed span
-    with jackbench.Patchbay(server, "loopback", stall_after=1.6) as bay:
+    # it stalls once, 1.6 s into the run (the second stream, after the
+    # pre-flight probe): inside the first step's analysed span
+    with jackbench.Patchbay(server, "loopback", stall_after=1.6, stall_stream=2) as bay:
         rc, out, err = _tone(server, tmp_path / "run", -20.0, -14.0)
     assert rc == 0, err
     assert bay.stalled
@@ -180,3 +181,10 @@ def test_the_drive_cap_holds_on_a_real_device(server, tmp_path):
     rc, _out, err = _tone(server, tmp_path / "run", -6.0)
     assert rc != 0 and "cap" in err and "Traceback" not in err
     assert not (tmp_path / "run" / "capture.partial.wav").exists()
+
+
+def test_a_missing_profile_is_refused_before_anything_plays(server, tmp_path):
+    # watts need volts at the stage: a real interface needs its calibration
+    rc, _out, err = _tone(server, tmp_path / "run", -30.0, extra=("--load", "8"))
+    assert rc != 0 and "--calibration" in err and "Traceback" not in err
+    assert not (tmp_path / "run").exists()

@@ -1,0 +1,114 @@
+"""Pre-flight: what a run will do to the interface and the pad, predicted
+before a sample is played, and refused when it would overload them.
+
+From the drive levels, the output scale, the stage's gain (given, or
+measured first at a low level), the pad and the input's full scale, the
+peak at the stage and at the input follow (a linear stage: gain is a
+ratio). A run is refused when the top step would come within ``margin_db``
+of the input's full scale, when a rail's worst case would overload the
+input through the pad, or when a pad resistor would see more than its
+rating; each refusal names the number to change. Warnings cover what
+cannot be checked by numbers alone.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from benchkit import units
+from benchkit.errors import BenchkitError
+from benchkit.pads import Pad
+
+DEFAULT_MARGIN_DB = 3.0
+#: The lowest step landing below this at the input is close to a typical
+#: interface's floor (common practice: keep 30 dB or more above it).
+NEAR_FLOOR_DBFS = -80.0
+
+
+@dataclass(frozen=True)
+class Plan:
+    """The predicted levels of a run (FS at the input; volts when known)."""
+
+    input_peak_fs: tuple[float, ...]
+    stage_vpk: tuple[float | None, ...]
+    gain_fs: float
+    warnings: tuple[str, ...]
+
+
+def check(
+    drive_dbfs: list[float],
+    gain_fs: float,
+    stage_volts_per_fs: float | None = None,
+    input_vpk_per_fs: float | None = None,
+    pad: Pad | None = None,
+    pad_ratio: float | None = None,
+    input_ohms: float = math.inf,
+    pad_rating_w: float | None = None,
+    rail_v: float | None = None,
+    load_ohms: float | None = None,
+    bridged: bool = False,
+    margin_db: float = DEFAULT_MARGIN_DB,
+) -> Plan:
+    """Predict a run and refuse it if it would overload anything.
+
+    Parameters
+    ----------
+    drive_dbfs : list of float
+        The steps, dBFS at the output.
+    gain_fs : float
+        Input FS per output FS through the stage and pad (measured or given).
+    stage_volts_per_fs : float, optional
+        Volts peak at the stage per input FS (calibration or simulation).
+    input_vpk_per_fs, pad, pad_ratio, input_ohms
+        The input's full scale in volts and what is in front of it.
+    pad_rating_w : float, optional
+        Power rating of the pad resistors.
+    rail_v : float, optional
+        The stage's supply: its worst case must not overload the input.
+    load_ohms, bridged
+        For the warnings.
+    """
+    limit = units.ratio_from_db(-margin_db)
+    peaks = tuple(units.ratio_from_db(d) * gain_fs for d in drive_dbfs)
+    top = max(peaks)
+    if top > limit:
+        room = units.db_from_ratio(limit / top)
+        raise BenchkitError(
+            f"the top step would reach {units.db_from_ratio(top):+.1f} dBFS at the input, over the "
+            f"{-margin_db:g} dBFS limit: lower the drive to {max(drive_dbfs) + room:.1f} dBFS or less, "
+            "or use a larger pad"
+        )
+    stage = tuple(p * stage_volts_per_fs if stage_volts_per_fs else None for p in peaks)
+    ratio = pad.ratio(input_ohms) if pad is not None else pad_ratio
+    if rail_v is not None and input_vpk_per_fs and ratio is not None:
+        at_input = rail_v * ratio
+        if at_input > input_vpk_per_fs * limit:
+            need = rail_v / (input_vpk_per_fs * limit)
+            raise BenchkitError(
+                f"the pad (1:{1 / ratio:.4g}) would let the {rail_v:g} V rail put {at_input:.3g} V on an input "
+                f"whose full scale is {input_vpk_per_fs:g} V peak: use a pad of at least 1:{need:.3g} "
+                f"(benchkit pad --rail {rail_v:g})"
+            )
+    if pad is not None and pad_rating_w is not None and stage[0] is not None:
+        worst = max(v for v in stage if v is not None)
+        p1, p2 = pad.resistor_watts(units.vrms_from_vpk(worst), input_ohms)
+        for name, p in (("R1", p1), ("R2", p2)):
+            if p > pad_rating_w:
+                raise BenchkitError(
+                    f"pad resistor {name} would dissipate {p:.3g} W at the top step, over its {pad_rating_w:g} W "
+                    "rating: use a higher rating or lower the drive"
+                )
+    warnings = []
+    if (ratio is None or ratio >= 1.0) and load_ohms is not None:
+        warnings.append("no pad between a power stage and the input: one fault and the input takes the stage's full swing")
+    low = units.db_from_ratio(min(peaks))
+    if low < NEAR_FLOOR_DBFS:
+        warnings.append(f"the lowest step lands at {low:.0f} dBFS at the input, close to the interface's floor: "
+                        "a smaller pad ratio or more drive would read it better")
+    if load_ohms is None:
+        warnings.append("no load given: measure a power stage into a dummy load of the right rating")
+    if bridged:
+        warnings.append("bridged (BTL) output: its minus terminal is not at ground and must not go to the interface's "
+                        "ground; use a balanced (differential) input")
+    return Plan(peaks, stage, gain_fs, tuple(warnings))

@@ -1,0 +1,183 @@
+"""Calibration profiles, the pad designer and pre-flight refusals.
+
+Checks: the loaded divider and P = V^2/R (circuit theory); preferred values
+against the IEC 60063 series (E12/E24 lists from memory of the standard's
+tables); a first-order coupling corner (circuit theory); the calibrated
+volts of the virtual stage against its true output (power-reduction
+identities do not enter: the stage is ideal, gain 10).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import pytest
+
+from benchkit import pads
+from benchkit.calibrate import calibrate
+from benchkit.calibration import load_profile, save_profile
+from benchkit.capture.virtual import DEMO_PAD, virtual_bench
+from benchkit.errors import BenchkitError
+
+from conftest import run_cli
+
+# IEC 60063 (from memory of its tables)
+E12_IEC = [1.0, 1.2, 1.5, 1.8, 2.2, 2.7, 3.3, 3.9, 4.7, 5.6, 6.8, 8.2]
+E24_IEC = [1.0, 1.1, 1.2, 1.3, 1.5, 1.6, 1.8, 2.0, 2.2, 2.4, 2.7, 3.0,
+           3.3, 3.6, 3.9, 4.3, 4.7, 5.1, 5.6, 6.2, 6.8, 7.5, 8.2, 9.1]
+E96_SOME = {0: 1.00, 1: 1.02, 10: 1.27, 24: 1.78, 48: 3.16, 72: 5.62, 95: 9.76}
+
+
+def test_preferred_values_are_the_iec_60063_series():
+    assert list(pads.e_series("E12")) == E12_IEC
+    assert list(pads.e_series("E24")) == E24_IEC
+    e96 = pads.e_series("E96")
+    assert len(e96) == 96 and all(e96[i] == v for i, v in E96_SOME.items())
+    with pytest.raises(BenchkitError):
+        pads.e_series("E7")
+
+
+@pytest.mark.parametrize("r1, r2, rin, vin", [(1800.0, 200.0, 10e3, 10.0), (9100.0, 1000.0, 20e3, 30.0), (47e3, 2.2e3, math.inf, 50.0)])
+def test_loaded_divider_and_resistor_power_by_hand(r1, r2, rin, vin):
+    # circuit theory: Vout/Vin = (R2 || Rin) / (R1 + R2 || Rin); P = V^2 / R
+    shunt = r2 if math.isinf(rin) else r2 * rin / (r2 + rin)
+    ratio = shunt / (r1 + shunt)
+    rep = pads.judge(pads.Pad(r1, r2), vin, 2.0, rin)
+    assert rep.ratio == pytest.approx(ratio, rel=1e-12)
+    assert rep.r1_watts == pytest.approx((vin - vin * ratio) ** 2 / r1, rel=1e-12)
+    assert rep.r2_watts == pytest.approx((vin * ratio) ** 2 / r2, rel=1e-12)
+    assert rep.max_safe_stage_vpk == pytest.approx(2.0 / ratio)
+    assert rep.r1_rating_w >= 2 * rep.r1_watts and rep.r2_rating_w >= 2 * rep.r2_watts
+
+
+def test_designed_pads_keep_the_headroom():
+    # a 24 V rail into a 2 V-peak, 10 k input with 6 dB of headroom
+    proposals = pads.design(24.0, 2.0, 10e3, headroom_db=6.0, series="E24")
+    assert proposals
+    for rep in proposals:
+        landing = 20 * math.log10(rep.input_peak_fs)
+        assert -6.7 < landing <= -6.0 + 1e-9
+        assert rep.pad.r1_ohms in pads.values("E24", 10, 1e7) and rep.pad.r2_ohms in pads.values("E24", 10, 1e7)
+
+
+def test_pad_command_designs_and_checks():
+    res = run_cli("pad", "--rail", "24", "--json")
+    assert res.returncode == 0, res.stderr
+    doc = json.loads(res.stdout)
+    assert doc["kind"] == "pads" and len(doc["pads"]) >= 3
+    assert "BTL" in run_cli("pad", "--help").stdout
+    chk = run_cli("pad", "--rail", "50", "--check", "1.8k", "--check", "200", "--json")
+    one = json.loads(chk.stdout)["pads"][0]
+    assert one["input_peak_fs"] > 1.0 and "less than 6 dB of headroom" in chk.stderr
+    assert run_cli("pad").returncode != 0
+
+
+# --- profiles ------------------------------------------------------------------------
+
+
+@pytest.fixture()
+def profile_path(tmp_path):
+    bench = virtual_bench("ideal", seed=5)
+    prof = calibrate(bench, bench.output_vrms(-20.0), pad=DEMO_PAD, input_ohms=10e3,
+                     wire=lambda step: setattr(bench, "wiring", step))
+    return save_profile(prof, tmp_path / "cal.json")
+
+
+def test_calibration_finds_the_virtual_interface(profile_path):
+    prof = load_profile(profile_path)
+    assert prof.output_vpk_per_fs == pytest.approx(2.0, rel=1e-4)
+    assert prof.input_vpk_per_fs == pytest.approx(2.0, rel=1e-4)
+    assert prof.stage_volts_per_fs == pytest.approx(2.0 / DEMO_PAD.ratio(10e3), rel=1e-4)
+    assert not prof.polarity_inverts and not prof.dc_coupled
+    # circuit theory: the virtual input's first-order coupling at 3 Hz
+    assert prof.ac_corner_hz == pytest.approx(3.0, rel=0.02)
+    # and its response at 20 Hz: -10 log10(1 + (3/20)^2) dB
+    assert prof.loopback_response[0][1] == pytest.approx(-10 * math.log10(1 + (3 / 20) ** 2), abs=0.02)
+    assert prof.loopback_floor["thdn_db"] < -80
+    assert prof.uncertainty["total_db"] == pytest.approx(20 * math.log10(1.01), abs=0.01)
+    assert len(prof.digest()) == 12
+
+
+def test_calibration_round_trip_reports_the_true_stage_voltage(tmp_path):
+    # calibrate with a voltmeter reading, then measure the virtual stage with
+    # the profile: within 0.1 dB of its true output (ideal stage, gain 10)
+    cal = tmp_path / "cal.json"
+    res = run_cli("calibrate", "--reading", "0.14142V", "--pad", "1.8k:200", "--out", str(cal))
+    assert res.returncode == 0, res.stderr
+    out = run_cli("tone", "--calibration", str(cal), "--sim", "ideal", "--level", "-20dBFS", "--gain", "10",
+                  "--load", "8", "--out", str(tmp_path / "run"), "--json")
+    assert out.returncode == 0, out.stderr
+    doc = json.loads(out.stdout)
+    step = doc["steps"][0]
+    true_vrms = 2.0 * 10 ** (-20 / 20) * 10.0 / math.sqrt(2)
+    assert step["scale_source"] == "profile"
+    assert 20 * math.log10(step["fundamental_vrms"] / true_vrms) == pytest.approx(0.0, abs=0.1)
+    assert doc["calibration"]["hash"] == load_profile(cal).digest()
+
+
+@pytest.mark.parametrize(
+    "content, needle",
+    [
+        ("{not json", "not valid JSON"),
+        ('{"kind": "calibration-profile", "schema_version": 1, "interface": "x"', "not valid JSON"),
+        ('{"kind": "calibration-profile", "schema_version": 99, "interface": "x"}', "newer"),
+        ('{"kind": "something-else"}', "not a benchkit calibration profile"),
+        ('{"kind": "calibration-profile", "schema_version": 1, "interface": "x"}', "missing"),
+    ],
+)
+def test_bad_profiles_are_refused_clearly(tmp_path, content, needle):
+    bad = tmp_path / "bad.json"
+    bad.write_text(content)
+    with pytest.raises(BenchkitError, match=needle):
+        load_profile(bad)
+    res = run_cli("tone", "--calibration", str(bad), "--out", str(tmp_path / "run"))
+    assert res.returncode != 0 and "Traceback" not in res.stderr and needle in res.stderr
+    assert not (tmp_path / "run").exists()
+
+
+def test_the_interface_floor_is_marked(tmp_path, profile_path):
+    # an ideal stage of gain 1 and no pad: what is measured is the interface
+    res = run_cli("tone", "--calibration", str(profile_path), "--sim", "ideal", "--sim-param", "gain=1",
+                  "--sim-pad", "none", "--level", "-20dBFS", "--out", str(tmp_path / "run"), "--json")
+    assert res.returncode == 0, res.stderr
+    step = json.loads(res.stdout)["steps"][0]
+    assert any("limited by the interface" in w for w in step["warnings"])
+
+
+# --- pre-flight ------------------------------------------------------------------------
+
+
+def _nothing_played(folder):
+    return not folder.exists() or not any(folder.glob("capture*"))
+
+
+def test_preflight_refuses_a_drive_that_would_clip_the_input(tmp_path):
+    # gain 10, no pad: -6 dBFS out would be +14 dBFS in
+    res = run_cli("tone", "--sim-pad", "none", "--gain", "10", "--level", "-6dBFS", "--load", "8",
+                  "--out", str(tmp_path / "run"))
+    assert res.returncode != 0 and "top step would reach" in res.stderr and "lower the drive" in res.stderr
+    assert _nothing_played(tmp_path / "run")
+
+
+def test_preflight_refuses_a_pad_too_small_for_the_rail(tmp_path):
+    res = run_cli("tone", "--rail", "50", "--gain", "10", "--level", "-30dBFS", "--load", "8",
+                  "--out", str(tmp_path / "run"))
+    assert res.returncode != 0 and "50 V rail" in res.stderr and "benchkit pad" in res.stderr
+    assert _nothing_played(tmp_path / "run")
+
+
+def test_preflight_refuses_an_overloaded_pad_resistor(tmp_path):
+    # 7 V peak at the stage: R1 of 1.8 k takes (5 V - 0.5 V)^2 / 1.8 k = 11 mW (circuit theory)
+    res = run_cli("tone", "--gain", "10", "--level", "-9dBFS", "--pad-rating", "0.005", "--load", "8",
+                  "--out", str(tmp_path / "run"))
+    assert res.returncode != 0 and "R1 would dissipate" in res.stderr
+    assert _nothing_played(tmp_path / "run")
+
+
+def test_preflight_warnings_reach_the_results(tmp_path):
+    res = run_cli("tone", "--level", "-20dBFS", "--btl", "--out", str(tmp_path / "run"), "--json")
+    assert res.returncode == 0, res.stderr
+    warnings = json.loads(res.stdout)["warnings"]
+    assert any("no load given" in w for w in warnings) and any("BTL" in w for w in warnings)
+    assert "pre-flight:" in res.stderr  # the gain was measured at a low level first
