@@ -330,6 +330,7 @@ def tone(
     from benchkit import runs
     from benchkit.capture.portaudio import CaptureInterrupted
     from benchkit.report import summary
+    from benchkit.signals import check_level
 
     try:
         band = units.parse_band(bandwidth)
@@ -352,6 +353,8 @@ def tone(
             _err("no calibration profile: figures stay in dBFS (benchkit calibrate makes one)")
         # a level in volts is at the interface output, whose scale the device knows
         drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]
+        for d in drive:
+            check_level(d)
         channel = in_channel
         plan = _preflight(backend, profile, drive, frequency, channel, gain, margin, rail, pad_rating, load, btl)
         for w in plan.warnings:

@@ -256,7 +256,21 @@ def tone_run(
 
     stim, cap, side, path = play(levels_dbfs, name)
     segments = side["stimulus"]["segments"]
-    pending = [i for i, seg in enumerate(stim.segments) if cap.spoiled(seg.settled, seg.end)]
+    stop_note = None
+    if cap.stopped_at is not None:
+        # the steps finished before the input clipped are measured; the one
+        # it clipped in and those after it are not
+        kept = [i for i, seg in enumerate(stim.segments) if seg.end <= cap.stopped_at]
+        at = cap.stopped_at / cap.sample_rate_hz
+        clipping = next((seg for seg in stim.segments if seg.end > cap.stopped_at), None)
+        where = f" during the {clipping.level_dbfs:g} dBFS step" if clipping is not None else ""
+        if not kept:
+            raise BenchkitError(f"the input clipped at {at:.2f} s{where}, before any step was measured: "
+                                "lower the drive or use a larger pad")
+        segments[:] = [segments[i] for i in kept]
+        stop_note = (f"the input clipped at {at:.2f} s{where}: the run stopped stepping up; "
+                     f"{len(stim.segments) - len(kept)} step(s) were not measured")
+    pending = [i for i, seg in enumerate(stim.segments[: len(segments)]) if cap.spoiled(seg.settled, seg.end)]
     for attempt in range(1, MAX_RETRIES + 1):
         if not pending:
             break
@@ -268,7 +282,7 @@ def tone_run(
             else:
                 segments[i] = {**seg.to_dict(), "file": r_path.name}
         pending = still
-    warnings = list(warnings)
+    warnings = list(warnings) + ([stop_note] if stop_note else [])
     if pending:
         warnings.append(f"steps {', '.join(str(i + 1) for i in pending)} were spoiled by stream faults in every take")
         for i in pending:

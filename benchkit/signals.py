@@ -116,7 +116,8 @@ def marker(rate: float) -> np.ndarray:
     return units.ratio_from_db(MARKER_DBFS) * chirp * np.hanning(n)
 
 
-def _check_level(level_dbfs: float) -> None:
+def check_level(level_dbfs: float) -> None:
+    """Refuse a drive level the output cannot take."""
     if not math.isfinite(level_dbfs) or level_dbfs > MAX_DBFS:
         raise BenchkitError(f"drive level {level_dbfs:g} dBFS is above the {MAX_DBFS:g} dBFS the output allows")
 
@@ -165,7 +166,7 @@ def stepped_tones(
     if not 1 <= out_channel <= n_out:
         raise BenchkitError(f"output channel {out_channel} does not exist (1 to {n_out})")
     for lvl in levels_dbfs:
-        _check_level(lvl)
+        check_level(lvl)
     mk = marker(rate)
     pieces = [np.zeros(int(lead_s * rate)), mk, np.zeros(int(AFTER_MARKER_S * rate))]
     pos = sum(p.size for p in pieces)

@@ -36,6 +36,7 @@ def make(folder: Path) -> list[Path]:
     written = []
     for i, (name, params, pad, levels, note) in enumerate(CASES):
         bench = virtual_bench("se-class-a", {**params, "ambient_c": 23.0}, pad=pad, seed=20261201 + i)
+        bench.stop_on_clip = False  # keep the clipped capture whole, to show what one looks like
         with tempfile.TemporaryDirectory() as tmp:
             tone_run(bench, Path(tmp), 997.0, levels, name=name, note=f"invented demo data: {note}")
             rec = read_capture(Path(tmp) / f"{name}.wav")

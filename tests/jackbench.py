@@ -58,10 +58,12 @@ class JackServer:
         return {**os.environ, "JACK_DEFAULT_SERVER": self.name, "JACK_NO_START_SERVER": "1"}
 
     def stop(self) -> None:
+        # SIGTERM and patience: a jackd killed outright leaves its entry in
+        # the shared registry of (at most 8) servers
         if self.proc and self.proc.poll() is None:
             self.proc.send_signal(signal.SIGTERM)
             try:
-                self.proc.wait(5)
+                self.proc.wait(30)
             except subprocess.TimeoutExpired:
                 self.proc.kill()
                 self.proc.wait(5)

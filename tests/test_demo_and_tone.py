@@ -55,8 +55,9 @@ def test_tone_on_the_poly_model(tmp_path):
 
 
 def test_capture_is_on_disk_even_when_analysis_refuses(tmp_path):
-    # a silent stage: the analysis finds no tone, but the capture is kept
-    res = run_cli("tone", "--sim", "ideal", "--sim-param", "gain=0", "--out", str(tmp_path / "run"))
+    # a silent stage (its gain given, so no pre-flight probe): the analysis
+    # finds no tone, but the capture is kept
+    res = run_cli("tone", "--sim", "ideal", "--sim-param", "gain=0", "--gain", "0", "--out", str(tmp_path / "run"))
     assert res.returncode != 0 and "Traceback" not in res.stderr
     assert (tmp_path / "run" / "capture.wav").is_file()
 

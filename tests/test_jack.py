@@ -188,3 +188,15 @@ def test_a_missing_profile_is_refused_before_anything_plays(server, tmp_path):
     rc, _out, err = _tone(server, tmp_path / "run", -30.0, extra=("--load", "8"))
     assert rc != 0 and "--calibration" in err and "Traceback" not in err
     assert not (tmp_path / "run").exists()
+
+
+def test_the_run_stops_stepping_up_when_the_input_clips(server, tmp_path):
+    # y = x + 12 x^2: at -12 dBFS (x = 0.25 peak) the positive peaks reach
+    # 0.25 + 12 x 0.0625 = 1.0 FS (identities aside, plain arithmetic): the
+    # input clips and the run stops there, the steps before it measured
+    with jackbench.Patchbay(server, "poly", a2=12.0):
+        rc, out, err = _tone(server, tmp_path / "run", -40.0, -30.0, -12.0, -13.0)
+    assert rc == 0, err
+    doc = json.loads(out)
+    assert [s["drive_dbfs"] for s in doc["steps"]] == [-40.0, -30.0]
+    assert any("stopped stepping up" in w for w in doc["warnings"])

@@ -211,11 +211,12 @@ def test_poly_end_to_end_within_the_interface_floor(tmp_path):
 
 
 def test_no_pad_clips_the_converter(tmp_path):
-    # 2.83 V peak at the stage into a 2 V peak input: the ADC clips
+    # 2.83 V peak at the stage into a 2 V peak input: the ADC clips, and a
+    # run whose first step clips has nothing to measure
     bench = virtual_bench("ideal", dict(gain=10.0), pad=None, seed=2)
-    steps = tone_run(bench, tmp_path, 997.0, [20 * math.log10(0.283 / 2.0)])
-    r = steps.steps[0].result
-    assert r.clipped and not r.valid
+    with pytest.raises(BenchkitError, match="input clipped"):
+        tone_run(bench, tmp_path, 997.0, [20 * math.log10(0.283 / 2.0)])
+    assert (tmp_path / "capture.wav").is_file()  # the capture is kept all the same
 
 
 def test_clock_offset_shifts_the_frequency(tmp_path):
@@ -264,3 +265,13 @@ def test_dc_coupled_input_passes_dc(tmp_path):
     one_share = a2 * a**2 / 2
     assert dc(3.0) == pytest.approx(one_share, rel=0.02)
     assert dc(None) == pytest.approx(2 * one_share, rel=0.02)
+
+
+def test_a_run_stops_stepping_up_once_the_input_clips(tmp_path):
+    # no pad, gain 10: 0.283 V peak out becomes 2.83 V peak at a 2 V-peak
+    # input; the steps after the one that clips are not played
+    bench = virtual_bench("ideal", dict(gain=10.0), pad=None, seed=2)
+    steps = tone_run(bench, tmp_path, 997.0, [-40.0, -30.0, -17.0, -10.0, -6.0])
+    assert [s.drive_dbfs for s in steps.steps] == [-40.0, -30.0]
+    assert all(s.result.valid for s in steps.steps)
+    assert any("stopped stepping up" in w and "-17 dBFS step" in w and "3 step(s)" in w for w in steps.warnings)

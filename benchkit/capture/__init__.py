@@ -18,6 +18,10 @@ import numpy as np
 from benchkit.errors import BenchkitError
 from benchkit.signals import Stimulus
 
+#: An input sample at or beyond this fraction of full scale stops a run
+#: from stepping up (the converter is at its limit).
+CLIP_STOP_FS = 0.999
+
 #: The device every command uses unless told otherwise.
 DEFAULT_DEVICE = "virtual"
 DEVICE_ENV = "BENCHKIT_DEVICE"
@@ -48,6 +52,8 @@ class RawRecording:
     events: tuple[str, ...] = ()
     fault_frames: tuple[int, ...] = ()
     fault_block: int = 0
+    #: raw frame where the run stopped early because the input clipped
+    stopped_at: int | None = None
 
 
 @dataclass(frozen=True)
@@ -63,6 +69,8 @@ class Capture:
     events: tuple[str, ...] = field(default_factory=tuple)
     #: frame spans [start, stop) of the aligned capture hit by stream faults
     faults: tuple[tuple[int, int], ...] = field(default_factory=tuple)
+    #: aligned frame where the run stopped stepping up (the input clipped)
+    stopped_at: int | None = None
 
     def spoiled(self, start: int, stop: int) -> bool:
         """Whether a stream fault touched samples start..stop."""
@@ -129,9 +137,12 @@ def run(backend: Backend, stimulus: Stimulus, partial: Path | None = None) -> Ca
     search = raw.samples[: first + stimulus.marker.size, (ref or 1) - 1]
     found = find_marker(search, stimulus.marker)
     latency = found - stimulus.marker_start
-    if latency < 0 or latency + stimulus.n_samples > raw.samples.shape[0]:
+    short = latency + stimulus.n_samples - raw.samples.shape[0]
+    if latency < 0 or (short > 0 and raw.stopped_at is None):
         raise BenchkitError(f"the capture could not be aligned: marker found {latency} samples off the stimulus")
-    aligned = np.ascontiguousarray(raw.samples[latency : latency + stimulus.n_samples])
+    aligned = np.zeros((stimulus.n_samples, raw.samples.shape[1]))
+    got = raw.samples[latency : latency + stimulus.n_samples]
+    aligned[: got.shape[0]] = got
     return Capture(
         samples=aligned,
         sample_rate_hz=stimulus.sample_rate_hz,
@@ -140,4 +151,5 @@ def run(backend: Backend, stimulus: Stimulus, partial: Path | None = None) -> Ca
         device=backend.name,
         events=raw.events,
         faults=tuple((f - latency, f - latency + raw.fault_block) for f in raw.fault_frames),
+        stopped_at=None if raw.stopped_at is None else raw.stopped_at - latency,
     )

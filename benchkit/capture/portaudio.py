@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from benchkit import units
-from benchkit.capture import InputChannel, RawRecording
+from benchkit.capture import CLIP_STOP_FS, InputChannel, RawRecording
 from benchkit.errors import BenchkitError
 from benchkit.recordings import WavStreamWriter
 from benchkit.signals import Stimulus
@@ -230,7 +230,8 @@ class PortAudioBackend:
         after_abort = int(0.25 * rate)
         ramp = np.linspace(1.0, 0.0, fade_n, dtype=np.float32)
         cap_fs = np.float32(units.ratio_from_db(self.drive_cap_dbfs))
-        state = {"pos": 0, "fade_at": -1, "last": time.monotonic(), "faults": [], "statuses": []}
+        state = {"pos": 0, "fade_at": -1, "last": time.monotonic(), "faults": [], "statuses": [], "clipped_at": -1}
+        in_col = self.in_channel - 1
         done = threading.Event()
         self._abort.clear()
 
@@ -275,6 +276,10 @@ class PortAudioBackend:
             # input, into the buffer allocated up front
             m = max(0, min(frames, rec.shape[0] - pos))
             rec[pos : pos + m] = indata[:m]
+            # the measuring input at full scale: stop stepping up, fade out
+            if state["clipped_at"] < 0 and m and np.max(np.abs(indata[:m, in_col])) >= CLIP_STOP_FS:
+                state["clipped_at"] = pos
+                self._abort.set()
             state["pos"] = pos + frames
             # after an abort, keep recording silence for a round trip, so
             # the capture shows the fade arriving
@@ -344,6 +349,7 @@ class PortAudioBackend:
                 writer.close()
         if reason is None and state.get("error") is not None:
             reason = f"the audio callback failed ({state['error']!r})"
+        clipped_at = state["clipped_at"] if state["clipped_at"] >= 0 else None
         if reason is None and state["pos"] < total and state["fade_at"] < 0:
             reason = "the audio stream ended before the run did (device or server gone?)"
             lost = True
@@ -352,8 +358,10 @@ class PortAudioBackend:
             raise CaptureInterrupted(f"{reason}: the output faded to silence{where}", partial, lost)
         got = min(state["pos"], total)
         events = tuple(f"frame {p}: {s}" for p, s in zip(state["faults"], state["statuses"]))
+        if clipped_at is not None:
+            events += (f"frame {clipped_at}: the input clipped; the run stopped",)
         return RawRecording(samples=rec[:got].astype(np.float64), events=events, fault_frames=tuple(state["faults"]),
-                            fault_block=self.blocksize)
+                            fault_block=self.blocksize, stopped_at=clipped_at)
 
 
 def _close(stream, timeout: float) -> None:

@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 import scipy.signal
 
-from benchkit.capture import InputChannel, RawRecording
+from benchkit.capture import CLIP_STOP_FS, InputChannel, RawRecording
 from benchkit.capture.stages import StageModel, make_stage
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
@@ -130,6 +130,8 @@ class VirtualBench:
         #: measure); "loopback": a cable from output 1 to input 1; "pad":
         #: output 1 -> pad -> input 1 (calibrating the pad's ratio)
         self.wiring = "stage"
+        #: stop a run once the measuring input clips, as a real run does
+        self.stop_on_clip = True
         self.last_latency_samples: int | None = None
         self.effective_clock_ppm = 0.0
 
@@ -207,10 +209,18 @@ class VirtualBench:
         rec = np.concatenate([np.zeros((latency, s.n_inputs)), rec[: total - latency]])
         if s.clock_ppm:
             rec = self._clock_offset(rec)
+        # a run stops stepping up once the measuring input clips: what a
+        # real stream does, the bench does too (a round trip of silence after)
+        stopped = None
+        hot = np.flatnonzero(np.abs(rec[:, 0]) >= CLIP_STOP_FS) if self.stop_on_clip else np.zeros(0, int)
+        if hot.size:
+            stopped = int(hot[0])
+            rec = rec[: min(rec.shape[0], stopped + int(0.25 * rate))]
         if partial is not None:
             with WavStreamWriter(partial, rate, s.n_inputs) as w:
                 w.write(rec)
-        return RawRecording(samples=rec)
+        return RawRecording(samples=rec, stopped_at=stopped,
+                            events=() if stopped is None else (f"frame {stopped}: the input clipped; the run stopped",))
 
     # --- the converter ----------------------------------------------------
     def _adc(self, volts: np.ndarray) -> np.ndarray:
