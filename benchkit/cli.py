@@ -395,6 +395,7 @@ def calibrate(
     input_ohms: float = typer.Option(10e3, "--input-ohms", help="The interface input's impedance, ohms (loads the pad)."),
     measure_pad: bool = typer.Option(False, "--measure-pad", help="Measure the pad's ratio with the pad in place instead."),
     note: str = typer.Option("", "--note", help="Free note kept in the profile."),
+    yes: bool = typer.Option(False, "--yes", help="Do not ask for the wiring: the output is already looped to the input (scripted use)."),
     device: Optional[str] = typer.Option(None, "--device", help="'virtual', or a real interface by index or part of its name."),
     in_channel: int = typer.Option(1, "--in-channel", help="Input to calibrate, from 1."),
     out_channel: int = typer.Option(1, "--out-channel", help="Output to calibrate, from 1."),
@@ -434,7 +435,7 @@ def calibrate(
         def wire(step: str) -> None:
             if virtual:
                 backend.wiring = step
-            elif step != "stage":
+            elif step != "stage" and not yes:
                 what = {"loopback": "a cable from the output straight to the input",
                         "pad": "the output through the pad into the input"}[step]
                 typer.prompt(f"wire {what}, then press Enter", default="", show_default=False, err=True)

@@ -112,9 +112,10 @@ def analyze_steps(
         )
         if seg.get("spoiled"):
             result = replace(result, valid=False, warnings=result.warnings + ("a stream fault spoiled this step",))
-        note = floor_warning(result, (rec.sidecar.get("calibration") or {}).get("loopback_floor"))
-        if note:
-            result = replace(result, warnings=result.warnings + (note,))
+        cal = rec.sidecar.get("calibration") or {}
+        notes = [floor_warning(result, cal.get("loopback_floor")), dc_warning(result, cal.get("dc_coupled"))]
+        if any(notes):
+            result = replace(result, warnings=result.warnings + tuple(n for n in notes if n))
         steps.append(StepResult(drive, result))
     side = rec.sidecar
     return StepsResult(
@@ -163,6 +164,7 @@ def _apply_calibration(side: dict, profile, path: str | None, channel: int) -> N
         "created": profile.created,
         "loopback_floor": profile.loopback_floor,
         "uncertainty_db": profile.uncertainty.get("total_db"),
+        "dc_coupled": profile.dc_coupled,
     }
 
 
@@ -195,6 +197,21 @@ def probe_gain(backend, frequency_hz: float, level_dbfs: float, channel: int = 1
     if not r.valid:
         raise BenchkitError(f"even the {level_dbfs:g} dBFS probe step clipped the input: check the pad and the wiring")
     return r.fundamental_fs / 10 ** (level_dbfs / 20)
+
+
+#: DC at a stage's output worth a warning, volts (common practice: keep a
+#: speaker output within a few tens of mV; often quoted, under 50 mV).
+DC_WARN_V = 0.05
+
+
+def dc_warning(result: ToneResult, dc_coupled: bool | None) -> str | None:
+    """A warning when a DC-coupled input shows DC at the stage's output."""
+    if not dc_coupled or result.volts_per_fs is None:
+        return None
+    dc_v = result.dc_fs * result.volts_per_fs
+    if abs(dc_v) > DC_WARN_V:
+        return f"{dc_v * 1000:+.0f} mV of DC at the stage's output: check the offset before a speaker goes on it"
+    return None
 
 
 def clock_offset_ppm(cap, stim) -> float | None:

@@ -181,3 +181,21 @@ def test_preflight_warnings_reach_the_results(tmp_path):
     warnings = json.loads(res.stdout)["warnings"]
     assert any("no load given" in w for w in warnings) and any("BTL" in w for w in warnings)
     assert "pre-flight:" in res.stderr  # the gain was measured at a low level first
+
+
+def test_dc_at_a_dc_coupled_stage_output_is_warned_about(tmp_path):
+    # a stage with a square term puts DC on its output: a2 A^2 / 2 for
+    # x = A cos (identities): 0.5 x 1^2 / 2 = 0.25 V at 1 V peak in, well
+    # over the ~50 mV kept at a speaker output (common practice)
+    from benchkit.capture.virtual import InterfaceSpec, VirtualBench
+    from benchkit.capture.stages import make_stage
+    from benchkit.runs import tone_run
+
+    bench = VirtualBench(make_stage("poly", dict(gain=1.0, a2=0.5)), DEMO_PAD, InterfaceSpec(ac_coupling_hz=None), seed=3)
+    prof = calibrate(bench, bench.output_vrms(-20.0), pad=DEMO_PAD, input_ohms=10e3,
+                     wire=lambda step: setattr(bench, "wiring", step))
+    assert prof.dc_coupled
+    steps = tone_run(bench, tmp_path, 997.0, [-6.0], calibration=prof)
+    r = steps.steps[0].result
+    assert r.dc_fs * r.volts_per_fs == pytest.approx(0.5 * (2.0 * 10 ** (-6 / 20)) ** 2 / 2, rel=0.02)
+    assert any("of DC at the stage's output" in w for w in r.warnings)

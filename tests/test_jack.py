@@ -200,3 +200,19 @@ def test_the_run_stops_stepping_up_when_the_input_clips(server, tmp_path):
     doc = json.loads(out)
     assert [s["drive_dbfs"] for s in doc["steps"]] == [-40.0, -30.0]
     assert any("stopped stepping up" in w for w in doc["warnings"])
+
+
+def test_calibrate_on_the_jack_loopback(server, tmp_path):
+    # a digital loopback: the input reads exactly what the output plays, so
+    # the input scale equals the output scale, without inversion
+    cal = tmp_path / "cal.json"
+    with jackbench.Patchbay(server, "loopback"):
+        proc = jackbench.benchkit(server, "calibrate", "--device", "system", "--ref-channel", "2", "--yes",
+                                  "--reading", "0.5V", "--out", str(cal))
+        _out, err = proc.communicate(timeout=90)
+    assert proc.returncode == 0, err
+    prof = json.loads(cal.read_text())
+    assert prof["input_vpk_per_fs"] == pytest.approx(prof["output_vpk_per_fs"], rel=1e-4)
+    assert prof["output_vpk_per_fs"] == pytest.approx(0.5 * math.sqrt(2) / 10 ** (-20 / 20), rel=1e-9)
+    assert prof["polarity_inverts"] is False and prof["dc_coupled"] is True
+    assert prof["latency_samples"] > 0

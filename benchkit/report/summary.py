@@ -86,6 +86,11 @@ def steps_summary(steps, title: str = "") -> str:
             f"  {s.drive_dbfs:9.2f}   {level:>11}  {power:>10}  {r.thdn_pct:9.4g}  {r.thdn_db:9.2f}  "
             f"{by_order.get(2, float('nan')):7.1f}  {by_order.get(3, float('nan')):7.1f}{mark}"
         )
+    seen = set()
+    for w in list(steps.warnings) + [w for s in steps.steps for w in s.result.warnings]:
+        if w not in seen:
+            seen.add(w)
+            lines.append(f"  warning      {w}")
     return "\n".join(lines)
 
 
