@@ -298,7 +298,11 @@ class PortAudioBackend:
                 stopping = stop_writer.wait(0.1)
                 upto = min(state["pos"], total)
                 if upto > written["frames"]:
-                    writer.write(rec[written["frames"] : upto])
+                    try:
+                        writer.write(rec[written["frames"] : upto])
+                    except OSError as exc:  # disk full, folder gone: the run goes on in memory
+                        state["writer_error"] = f"{exc.strerror or exc}"
+                        return
                     written["frames"] = upto
                 if stopping:
                     return
@@ -360,6 +364,8 @@ class PortAudioBackend:
         events = tuple(f"frame {p}: {s}" for p, s in zip(state["faults"], state["statuses"]))
         if clipped_at is not None:
             events += (f"frame {clipped_at}: the input clipped; the run stopped",)
+        if state.get("writer_error"):
+            events += (f"the raw recording could not be streamed to {partial}: {state['writer_error']}",)
         return RawRecording(samples=rec[:got].astype(np.float64), events=events, fault_frames=tuple(state["faults"]),
                             fault_block=self.blocksize, stopped_at=clipped_at)
 
