@@ -81,7 +81,7 @@ def calibrate(
     cap, takes = _run(backend, [CAL_FREQ_HZ] * 3, [level_dbfs] * 3, in_channel=in_channel)
     amps = np.array([r.fundamental_fs for _, r in takes])
     in_vpk = out_vpk * units.ratio_from_db(level_dbfs) / float(np.mean(amps))
-    repeat_db = float(np.std(20 * np.log10(amps), ddof=1))
+    repeat_db = float(np.std(units.db_from_ratio(amps), ddof=1))
     seg, first = takes[0]
     # polarity: the tone is sin(2 pi f t) from its segment's start, i.e. a
     # cosine of phase 2 pi f (settled - start)/fs - 90 deg at the analysed start

@@ -120,7 +120,7 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
         side = dict(rec.sidecar)
         side.setdefault("channels", [])
         side["channels"] = [c for c in side["channels"] if c.get("number") != channel] + [{"number": channel}]
-        runs._apply_calibration(side, profile, str(profile_path), channel)
+        runs.apply_calibration(side, profile, str(profile_path), channel)
         rec = replace(rec, sidecar=side)
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
     if load is not None and scale is None:
@@ -231,31 +231,6 @@ def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pa
     return bench
 
 
-def _preflight(backend, profile, drive, frequency, channel, gain, margin, rail, pad_rating, load, btl):
-    """Predict the run from the scales and the stage's gain; refuse it before
-    anything plays if it would overload the input or the pad."""
-    from benchkit import preflight, runs
-
-    virtual = backend.name == "virtual"
-    stage_vpf = profile.stage_volts_per_fs if profile is not None else backend.inputs()[channel - 1].volts_per_fs
-    out_vpk = backend.output_vpk_per_fs
-    pad = getattr(backend, "pad", None) if virtual else (profile.pad.pad() if profile and profile.pad else None)
-    ratio = backend.pad_ratio() if virtual else (profile.pad_ratio if profile is not None else None)
-    in_vpk = backend.spec.input_vpk_per_fs if virtual else (profile.input_vpk_per_fs if profile is not None else None)
-    input_ohms = backend.spec.input_ohms if virtual else ((profile.pad.input_ohms if profile and profile.pad else None) or math.inf)
-    if not virtual and stage_vpf is None and (load is not None or pad_rating is not None):
-        raise BenchkitError("--load and --pad-rating need volts at the stage: give --calibration (or --volts-per-fs)")
-    if gain is not None:
-        if out_vpk is None or stage_vpf is None:
-            raise BenchkitError("--gain needs the output and input scales: give --calibration")
-        gain_fs = gain * out_vpk / stage_vpf
-    else:
-        probe = min(min(drive) - 10.0, -40.0)
-        gain_fs = runs.probe_gain(backend, frequency, probe, channel)
-        _err(f"pre-flight: a {probe:g} dBFS step measured {units.db_from_ratio(gain_fs):+.1f} dB from output to input")
-    return preflight.check(drive, gain_fs, stage_vpf, in_vpk, pad, ratio, input_ohms, pad_rating, rail, load, btl, margin)
-
-
 @app.command()
 def devices(as_json: bool = typer.Option(False, "--json", help="Print the list as JSON on stdout.")) -> None:
     """List the interfaces PortAudio sees, and the virtual bench.
@@ -356,7 +331,7 @@ def tone(
         for d in drive:
             check_level(d)
         channel = in_channel
-        plan = _preflight(backend, profile, drive, frequency, channel, gain, margin, rail, pad_rating, load, btl)
+        plan = runs.plan_run(backend, profile, drive, frequency, channel, gain, margin, rail, pad_rating, load, btl, say=_err)
         for w in plan.warnings:
             _err(f"warning: {w}")
         folder = _report_folder(out or Path(f"tone-{datetime.now():%Y%m%d-%H%M%S}"))
@@ -532,12 +507,12 @@ def pad(
     _err(f"worst case {basis}; input full scale {input_fs_vpk:g} V peak, {input_ohms:g} ohm; headroom {headroom_db:g} dB")
     _err("    R1 ohm    R2 ohm    ratio      worst at input   safe to (V pk)   P(R1) -> rating   P(R2) -> rating   noise floor at the stage")
     for r in reports:
-        floor_uv = 10 ** (input_noise_dbfs / 20) / math.sqrt(2) * input_fs_vpk / r.ratio * 1e6
-        _err(f"  {r.pad.r1_ohms:8g}  {r.pad.r2_ohms:8g}  1:{1 / r.ratio:<8.4g}  {20 * math.log10(max(r.input_peak_fs, 1e-12)):7.1f} dBFS     "
+        floor_uv = units.rms_from_dbfs(input_noise_dbfs) * input_fs_vpk / r.ratio * 1e6
+        _err(f"  {r.pad.r1_ohms:8g}  {r.pad.r2_ohms:8g}  1:{1 / r.ratio:<8.4g}  {units.db_from_ratio(r.input_peak_fs):7.1f} dBFS     "
              f"{r.max_safe_stage_vpk:10.4g}       {r.r1_watts:7.3g} W -> {r.r1_rating_w:g} W   {r.r2_watts:7.3g} W -> {r.r2_rating_w:g} W   "
              f"+{r.noise_penalty_db:.1f} dB ({floor_uv:.3g} uVrms)")
         if r.input_peak_fs > 10 ** (-headroom_db / 20) * (1 + 1e-9):
-            _err(f"  warning: the worst case lands at {20 * math.log10(r.input_peak_fs):.1f} dBFS: less than {headroom_db:g} dB of headroom")
+            _err(f"  warning: the worst case lands at {units.db_from_ratio(r.input_peak_fs):.1f} dBFS: less than {headroom_db:g} dB of headroom")
     _err("  ratings are at least twice the worst-case power; balanced inputs need the pad on both legs;"
          " keep the interface's ground and a bridged output apart")
     if as_json:

@@ -13,6 +13,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+from benchkit import units
 from benchkit.errors import BenchkitError
 
 
@@ -40,10 +41,6 @@ class Pad:
         """Vout/Vin with the pad loaded by the interface input."""
         shunt = parallel(self.r2_ohms, input_ohms)
         return shunt / (self.r1_ohms + shunt)
-
-    def source_ohms(self, input_ohms: float = math.inf) -> float:
-        """Impedance the stage sees looking into the loaded pad."""
-        return self.r1_ohms + parallel(self.r2_ohms, input_ohms)
 
     def resistor_watts(self, vrms_in: float, input_ohms: float = math.inf) -> tuple[float, float]:
         """Average power in R1 and in R2 for a stage output of ``vrms_in``."""
@@ -161,7 +158,7 @@ def judge(pad: Pad, worst_stage_v: float, input_fs_vpk: float, input_ohms: float
         pad=pad, ratio=ratio, worst_stage_v=worst_stage_v, input_peak_fs=v_out / input_fs_vpk,
         max_safe_stage_vpk=input_fs_vpk / ratio, r1_watts=p1, r2_watts=p2,
         r1_rating_w=suggested_rating(p1), r2_rating_w=suggested_rating(p2),
-        noise_penalty_db=-20 * math.log10(ratio),
+        noise_penalty_db=-units.db_from_ratio(ratio),
     )
 
 
@@ -197,5 +194,5 @@ def design(
         if r1 is None:
             continue
         found.append(judge(Pad(r1, r2), worst_stage_v, input_fs_vpk, input_ohms))
-    found.sort(key=lambda rep: (abs(20 * math.log10(rep.ratio / target)), rep.pad.r2_ohms))
+    found.sort(key=lambda rep: (abs(units.db_from_ratio(rep.ratio / target)), rep.pad.r2_ohms))
     return found[:count]

@@ -8,11 +8,12 @@ after a crash) goes through the same :func:`analyze_steps`.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 from datetime import datetime, timezone
 from pathlib import Path
 
-from benchkit import capture
+from benchkit import capture, units
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION, ToneResult, analyze_tone
 from benchkit.errors import BenchkitError
 from benchkit.recordings import Recording, read_capture, write_capture, write_capture_sidecar
@@ -151,7 +152,7 @@ def _capture_sidecar(cap, stim, channel: int, backend, note: str) -> dict:
     return side
 
 
-def _apply_calibration(side: dict, profile, path: str | None, channel: int) -> None:
+def apply_calibration(side: dict, profile, path: str | None, channel: int) -> None:
     """Record the profile a run used, and take its scale for the stage."""
     side["scale_source"] = "profile"
     for ch in side["channels"]:
@@ -183,6 +184,40 @@ def floor_warning(result: ToneResult, floor: dict | None) -> str | None:
         return (f"THD+N {result.thdn_db:.1f} dB is within {FLOOR_MARGIN_DB:g} dB of the interface's own floor "
                 f"({limit:.1f} dB at this level): limited by the interface, not the stage")
     return None
+
+
+def plan_run(backend, profile, drive, frequency_hz, channel, gain, margin_db, rail_v, pad_rating_w, load_ohms,
+             bridged, say=lambda _m: None):
+    """Pre-flight for a stepped-tone run: gather the scales (calibration, or
+    the virtual bench's own), take the stage's gain as given or measure it
+    with a low-level probe step, and let :func:`benchkit.preflight.check`
+    refuse the run before it plays if it would overload the input or the pad."""
+    from benchkit import preflight
+
+    virtual = backend.name == "virtual"
+    pad_spec = profile.pad if profile is not None else None
+    stage_vpf = profile.stage_volts_per_fs if profile is not None else backend.inputs()[channel - 1].volts_per_fs
+    out_vpk = backend.output_vpk_per_fs
+    if virtual:
+        pad, ratio = backend.pad, backend.pad_ratio()
+        in_vpk, input_ohms = backend.spec.input_vpk_per_fs, backend.spec.input_ohms
+    else:
+        pad = pad_spec.pad() if pad_spec is not None else None
+        ratio = profile.pad_ratio if profile is not None else None
+        in_vpk = profile.input_vpk_per_fs if profile is not None else None
+        input_ohms = (pad_spec.input_ohms if pad_spec is not None else None) or math.inf
+    if not virtual and stage_vpf is None and (load_ohms is not None or pad_rating_w is not None):
+        raise BenchkitError("--load and --pad-rating need volts at the stage: give --calibration (or --volts-per-fs)")
+    if gain is not None:
+        if out_vpk is None or stage_vpf is None:
+            raise BenchkitError("--gain needs the output and input scales: give --calibration")
+        gain_fs = gain * out_vpk / stage_vpf
+    else:
+        probe = min(min(drive) - 10.0, -40.0)
+        gain_fs = probe_gain(backend, frequency_hz, probe, channel)
+        say(f"pre-flight: a {probe:g} dBFS step measured {units.db_from_ratio(gain_fs):+.1f} dB from output to input")
+    return preflight.check(drive, gain_fs, stage_vpf, in_vpk, pad, ratio, input_ohms, pad_rating_w, rail_v,
+                           load_ohms, bridged, margin_db)
 
 
 def probe_gain(backend, frequency_hz: float, level_dbfs: float, channel: int = 1) -> float:
@@ -264,7 +299,7 @@ def tone_run(
         cap = capture.run(backend, stim, partial)
         side = _capture_sidecar(cap, stim, channel, backend, note)
         if calibration is not None:
-            _apply_calibration(side, calibration, calibration_file, channel)
+            apply_calibration(side, calibration, calibration_file, channel)
         ppm = clock_offset_ppm(cap, stim)
         side["clock_offset_ppm"] = ppm
         path = write_capture(folder / f"{stem}.wav", cap.samples, cap.sample_rate_hz, side)

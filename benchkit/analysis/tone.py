@@ -300,7 +300,7 @@ def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tupl
         where = f" near {hint_hz:g} Hz" if hint_hz is not None else ""
         raise BenchkitError(
             f"no tone found{where}: the strongest line stands only "
-            f"{10 * math.log10(power[peak] / floor):.1f} dB above the median spectrum level "
+            f"{units.db_from_power_ratio(power[peak] / floor):.1f} dB above the median spectrum level "
             f"(needs {MIN_TONE_PROMINENCE_DB:g} dB)"
         )
     nu = sp.refine_peak(spec, peak, n)

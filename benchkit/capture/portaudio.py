@@ -175,7 +175,6 @@ class PortAudioBackend:
         self.watchdog_s = watchdog_s
         self.output_vpk_per_fs = None  # known only from a calibration
         self.lead_s = LEAD_S
-        self.partial_path: Path | None = None
         self._abort = threading.Event()
 
     # --- the protocol -----------------------------------------------------
@@ -289,7 +288,6 @@ class PortAudioBackend:
                 raise sd.CallbackStop
 
         writer = WavStreamWriter(partial, rate, self.n_inputs) if partial is not None else None
-        self.partial_path = partial
         stop_writer = threading.Event()
         written = {"frames": 0}
 

@@ -313,6 +313,6 @@ def models_help() -> str:
     """Every model with its parameters, units and defaults (for --help)."""
     lines = []
     for m in MODELS.values():
-        params = ", ".join(f"{p.name} [{p.unit}] = {p.default:g}" for p in m.PARAMS)
+        params = ", ".join(f"{p.name} [{p.unit}] = {p.default:g} ({p.help})" for p in m.PARAMS)
         lines.append(f"{m.NAME}: {m.SUMMARY}. Parameters: {params}.")
     return "\n\n".join(lines)
