@@ -7,6 +7,8 @@ BENCHKIT_DEBUG=1 to see one).
 
 from __future__ import annotations
 
+import functools
+import inspect
 import math
 import os
 import sys
@@ -81,14 +83,22 @@ def analyze(
     load: Optional[float] = typer.Option(None, "--load", help="Load resistance in ohms: adds power in W."),
     calibration: Optional[Path] = typer.Option(None, "--calibration", help="Calibration profile: volts at the stage from its scale and pad."),
     out: Optional[Path] = typer.Option(None, "--out", help="Write spectrum/residual PNG, CSV and JSON here."),
+    sweep: Optional[str] = typer.Option(None, "--sweep", help="The capture holds a synchronized sweep F1:F2:SECONDS of unit amplitude made elsewhere, after unknown silence."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Response captures: the reference input (default: the sidecar's)."),
+    ref_freq: float = typer.Option(1000.0, "--ref-freq", help="Response captures: the frequency the level is referred to, Hz."),
+    smooth: Optional[int] = typer.Option(None, "--smooth", help="Response captures: smooth the plotted magnitude over 1/N octave."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
 ) -> None:
-    """Analyse recorded tone captures offline: THD, THD+N, harmonics, noise.
+    """Analyse recorded captures offline: tones (THD, THD+N, harmonics, noise) or responses (sweeps, stepped sines).
+
+    A sweep or stepped-sine capture that benchkit wrote is recognised from
+    its sidecar; --sweep analyses one made elsewhere.
 
     Example: benchkit analyze sample_captures/b2-bias0.8A-997Hz-steps.wav --load 8 --out report/
     """
     try:
         band = units.parse_band(bandwidth)
+        sweep_spec = _parse_sweep(sweep) if sweep else None
         profile = load_profile(calibration) if calibration is not None else None
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
@@ -96,7 +106,8 @@ def analyze(
     docs, failed = [], 0
     for path in _progress(files, "analysing"):
         try:
-            docs.append(_analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile, calibration))
+            docs.append(_analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile, calibration,
+                                     (sweep_spec, ref_channel, ref_freq, smooth)))
         except BenchkitError as exc:
             failed += 1
             _err(f"benchkit: error: {exc}")
@@ -109,10 +120,21 @@ def analyze(
         raise typer.Exit(EXIT_BAD_INPUT)
 
 
-def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile=None, profile_path=None) -> dict:
+def _parse_sweep(text: str) -> tuple[float, float, float]:
+    parts = text.split(":")
+    try:
+        f1, f2, seconds = (float(units.parse_frequency(p)) for p in parts)
+    except (ValueError, BenchkitError):
+        raise BenchkitError(f"--sweep wants F1:F2:SECONDS, e.g. 20:20000:5, got {text!r}") from None
+    return f1, f2, seconds
+
+
+def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile=None, profile_path=None,
+                 response_opts=(None, None, 1000.0, None)) -> dict:
     from dataclasses import replace
 
-    from benchkit import runs
+    from benchkit import responses, runs
+    from benchkit.analysis.sweep import SyncSweep
     from benchkit.report import summary
 
     rec = read_capture(path, channel)
@@ -125,6 +147,17 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
     if load is not None and scale is None:
         raise BenchkitError(f"{path}: --load needs a voltage scale (--volts-per-fs, or a sidecar that gives one)")
+    sweep_spec, ref_channel, ref_freq, smooth = response_opts
+    if sweep_spec is not None or responses.is_response(rec):
+        spec = None if sweep_spec is None else SyncSweep.design(*sweep_spec, rec.sample_rate_hz, faded=False)
+        if ref_channel is None and sweep_spec is None:
+            ref_channel = rec.sidecar.get("reference_channel")
+        result = responses.analyze_response(rec, ref_channel, spec, ref_freq, load, band)
+        _err(summary.response_summary(result, f"{path} channel {channel}: {result.method} response"))
+        if out is not None:
+            for written in _write_response_reports(result, Path(path), channel, out, smooth):
+                _err(f"  wrote        {written}")
+        return result.to_dict()
     if runs.is_stepped(rec):
         steps = runs.analyze_steps(rec, band, load, volts_per_fs, out is not None, fundamental, averages)
         _err(summary.steps_summary(steps, f"{path} channel {channel} ({len(steps.steps)} steps)"))
@@ -259,35 +292,97 @@ def devices(as_json: bool = typer.Option(False, "--json", help="Print the list a
         _err(f"benchkit: {note}")
 
 
+# options every live measurement takes: (type, option) by parameter name
+_LIVE = {
+    "device": (Optional[str], lambda: typer.Option(None, "--device", help="'virtual', or a real interface by index or part of its name; default 'virtual' unless BENCHKIT_DEVICE names one.")),
+    "in_device": (Optional[str], lambda: typer.Option(None, "--in-device", help="A separate input interface (its clock offset is measured on the reference).")),
+    "in_channel": (int, lambda: typer.Option(1, "--in-channel", help="Input carrying the stage output (through the pad), from 1.")),
+    "out_channel": (int, lambda: typer.Option(1, "--out-channel", help="Output driving the stage, from 1 (real devices).")),
+    "rate": (float, lambda: typer.Option(48000.0, "--rate", help="Sample rate, Hz (real devices).")),
+    "blocksize": (int, lambda: typer.Option(1024, "--blocksize", help="Frames per audio callback (real devices).")),
+    "latency": (str, lambda: typer.Option("high", "--latency", help="Stream latency: low, high, or seconds (real devices).")),
+    "drive_cap": (float, lambda: typer.Option(-12.0, "--drive-cap", help="Highest drive a real device may get, dBFS peak.")),
+    "override_drive_cap": (bool, lambda: typer.Option(False, "--override-drive-cap", help="Allow up to -0.5 dBFS on a real device: can overload a stage, a pad or a speaker.")),
+    "volts_per_fs": (Optional[float], lambda: typer.Option(None, "--volts-per-fs", help="Volts peak at the stage per full scale of the input (real devices).")),
+    "calibration": (Optional[Path], lambda: typer.Option(None, "--calibration", help="Calibration profile (from 'benchkit calibrate'): results in volts at the stage.")),
+    "gain": (Optional[float], lambda: typer.Option(None, "--gain", help="Expected voltage gain of the stage (V/V); without it a low-level step measures it first.")),
+    "margin": (float, lambda: typer.Option(3.0, "--margin", help="Headroom the top step must keep below the input's full scale, dB.")),
+    "rail": (Optional[float], lambda: typer.Option(None, "--rail", help="The stage's supply, V: refuse a pad that lets it overload the input.")),
+    "pad_rating": (Optional[float], lambda: typer.Option(None, "--pad-rating", help="Power rating of the pad resistors, W.")),
+    "btl": (bool, lambda: typer.Option(False, "--btl", help="The stage has a bridged (BTL) output.")),
+    "sim": (str, lambda: typer.Option("se-class-a", "--sim", help=_SIM_HELP)),
+    "sim_param": (List[str], lambda: typer.Option([], "--sim-param", help="Stage parameter key=value (repeatable), e.g. bias=1.2.")),
+    "sim_pad": (str, lambda: typer.Option("demo", "--sim-pad", help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200).")),
+    "seed": (int, lambda: typer.Option(1, "--seed", help="Seed of the virtual bench (latency, noise).")),
+}
+
+
+def _live_options(command):
+    """Give a command the options every live measurement takes; they
+    reach it as one dict, ``live``, after its own options."""
+    own = [p for p in inspect.signature(command, eval_str=True).parameters.values() if p.name != "live"]
+    extra = [inspect.Parameter(name, inspect.Parameter.KEYWORD_ONLY, default=make(), annotation=kind)
+             for name, (kind, make) in _LIVE.items()]
+
+    @functools.wraps(command)
+    def wrapper(**kwargs):
+        return command(live={name: kwargs.pop(name) for name in _LIVE}, **kwargs)
+
+    wrapper.__signature__ = inspect.Signature(
+        [p.replace(kind=inspect.Parameter.KEYWORD_ONLY) for p in own] + extra)
+    del wrapper.__wrapped__  # typer must read the new signature, not the command's
+    return wrapper
+
+
+def _live_setup(live: dict, ref_channel: int | None):
+    """Open the backend a live command asked for, with its profile: says
+    on stderr what it uses and warns of an overridden drive cap."""
+    latency, override_drive_cap, calibration = live["latency"], live["override_drive_cap"], live["calibration"]
+    lat: str | float = latency if latency in ("low", "high") else float(units.parse_frequency(latency))
+    if override_drive_cap:
+        _err("WARNING: the drive cap is overridden: full-scale drive can overload the stage, the pad, the "
+             "interface input and any speaker. Keep a dummy load on the output.")
+    real = dict(sample_rate=live["rate"], in_channel=live["in_channel"], out_channel=live["out_channel"],
+                ref_channel=ref_channel, blocksize=live["blocksize"], latency=lat,
+                drive_cap_dbfs=-0.5 if override_drive_cap else live["drive_cap"],
+                volts_per_fs=live["volts_per_fs"], in_device=live["in_device"])
+    profile = load_profile(calibration) if calibration is not None else None
+    if profile is not None:
+        real["volts_per_fs"] = profile.stage_volts_per_fs
+    backend = _open_backend(live["device"], live["sim"], live["sim_param"], live["sim_pad"], live["seed"], real)
+    if profile is not None:
+        if backend.name != "virtual":  # the virtual bench knows its own output
+            backend.output_vpk_per_fs = profile.output_vpk_per_fs
+        _err(f"calibration: {calibration} ({profile.interface}, {profile.stage_volts_per_fs:.4g} V peak per FS at the stage)")
+    elif backend.name != "virtual":
+        _err("no calibration profile: figures stay in dBFS (benchkit calibrate makes one)")
+    return backend, profile
+
+
+def _interrupted(exc) -> None:
+    """End a live command that a Ctrl-C or a lost device stopped (the
+    output has faded; the partial capture is on disk)."""
+    _err(f"benchkit: stopped: {exc}")
+    if exc.device_lost:
+        # PortAudio can hang for good shutting down a dead server's
+        # client; everything is on disk, so leave without it
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(EXIT_BAD_INPUT)
+    raise typer.Exit(130 if str(exc).startswith("interrupted") else EXIT_BAD_INPUT)
+
+
 @app.command()
+@_live_options
 def tone(
     frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz (997 Hz keeps harmonics off sub-multiples of the rate)."),
     levels: List[str] = typer.Option(["-20 dBFS"], "--level", help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms (repeat for steps)."),
     load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: adds power in W."),
     bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
     out: Optional[Path] = typer.Option(None, "--out", help="Run folder for the capture and reports (default: tone-<time>)."),
-    device: Optional[str] = typer.Option(None, "--device", help="'virtual', or a real interface by index or part of its name; default 'virtual' unless BENCHKIT_DEVICE names one."),
-    in_device: Optional[str] = typer.Option(None, "--in-device", help="A separate input interface (its clock offset is measured on the reference)."),
-    in_channel: int = typer.Option(1, "--in-channel", help="Input carrying the stage output (through the pad), from 1."),
-    out_channel: int = typer.Option(1, "--out-channel", help="Output driving the stage, from 1 (real devices)."),
     ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices)."),
-    rate: float = typer.Option(48000.0, "--rate", help="Sample rate, Hz (real devices)."),
-    blocksize: int = typer.Option(1024, "--blocksize", help="Frames per audio callback (real devices)."),
-    latency: str = typer.Option("high", "--latency", help="Stream latency: low, high, or seconds (real devices)."),
-    drive_cap: float = typer.Option(-12.0, "--drive-cap", help="Highest drive a real device may get, dBFS peak."),
-    override_drive_cap: bool = typer.Option(False, "--override-drive-cap", help="Allow up to -0.5 dBFS on a real device: can overload a stage, a pad or a speaker."),
-    volts_per_fs: Optional[float] = typer.Option(None, "--volts-per-fs", help="Volts peak at the stage per full scale of the input (real devices)."),
-    calibration: Optional[Path] = typer.Option(None, "--calibration", help="Calibration profile (from 'benchkit calibrate'): results in volts at the stage."),
-    gain: Optional[float] = typer.Option(None, "--gain", help="Expected voltage gain of the stage (V/V); without it a low-level step measures it first."),
-    margin: float = typer.Option(3.0, "--margin", help="Headroom the top step must keep below the input's full scale, dB."),
-    rail: Optional[float] = typer.Option(None, "--rail", help="The stage's supply, V: refuse a pad that lets it overload the input."),
-    pad_rating: Optional[float] = typer.Option(None, "--pad-rating", help="Power rating of the pad resistors, W."),
-    btl: bool = typer.Option(False, "--btl", help="The stage has a bridged (BTL) output."),
-    sim: str = typer.Option("se-class-a", "--sim", help=_SIM_HELP),
-    sim_param: List[str] = typer.Option([], "--sim-param", help="Stage parameter key=value (repeatable), e.g. bias=1.2."),
-    sim_pad: str = typer.Option("demo", "--sim-pad", help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200)."),
-    seed: int = typer.Option(1, "--seed", help="Seed of the virtual bench (latency, noise)."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
+    live: dict = None,
 ) -> None:
     """Play stepped tones into the stage, capture through the pad, analyse each step.
 
@@ -309,29 +404,16 @@ def tone(
 
     try:
         band = units.parse_band(bandwidth)
-        lat: str | float = latency if latency in ("low", "high") else float(units.parse_frequency(latency))
-        if override_drive_cap:
-            _err("WARNING: the drive cap is overridden: full-scale drive can overload the stage, the pad, the "
-                 "interface input and any speaker. Keep a dummy load on the output.")
-        real = dict(sample_rate=rate, in_channel=in_channel, out_channel=out_channel, ref_channel=ref_channel,
-                    blocksize=blocksize, latency=lat, drive_cap_dbfs=-0.5 if override_drive_cap else drive_cap,
-                    volts_per_fs=volts_per_fs, in_device=in_device)
-        profile = load_profile(calibration) if calibration is not None else None
-        if profile is not None:
-            real["volts_per_fs"] = profile.stage_volts_per_fs
-        backend = _open_backend(device, sim, sim_param, sim_pad, seed, real)
-        if profile is not None:
-            if backend.name != "virtual":  # the virtual bench knows its own output
-                backend.output_vpk_per_fs = profile.output_vpk_per_fs
-            _err(f"calibration: {calibration} ({profile.interface}, {profile.stage_volts_per_fs:.4g} V peak per FS at the stage)")
-        elif backend.name != "virtual":
-            _err("no calibration profile: figures stay in dBFS (benchkit calibrate makes one)")
+        backend, profile = _live_setup(live, ref_channel)
+        in_channel, calibration = live["in_channel"], live["calibration"]
+        preflight = dict(gain=live["gain"], margin_db=live["margin"], rail_v=live["rail"],
+                         pad_rating_w=live["pad_rating"], bridged=live["btl"])
         # a level in volts is at the interface output, whose scale the device knows
         drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]
         for d in drive:
             check_level(d)
         channel = in_channel
-        plan = runs.plan_run(backend, profile, drive, frequency, channel, gain, margin, rail, pad_rating, load, btl, say=_err)
+        plan = runs.plan_run(backend, profile, drive, frequency, channel, load_ohms=load, say=_err, **preflight)
         for w in plan.warnings:
             _err(f"warning: {w}")
         folder = _report_folder(out or Path(f"tone-{datetime.now():%Y%m%d-%H%M%S}"))
@@ -343,14 +425,7 @@ def tone(
             _err(f"  wrote        {written}")
         _err(f"run folder: {folder}")
     except CaptureInterrupted as exc:
-        _err(f"benchkit: stopped: {exc}")
-        if exc.device_lost:
-            # PortAudio can hang for good shutting down a dead server's
-            # client; everything is on disk, so leave without it
-            sys.stdout.flush()
-            sys.stderr.flush()
-            os._exit(EXIT_BAD_INPUT)
-        raise typer.Exit(130 if str(exc).startswith("interrupted") else EXIT_BAD_INPUT)
+        _interrupted(exc)
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
@@ -358,6 +433,94 @@ def tone(
         from benchkit.report.tables import dumps
 
         print(dumps(steps.to_dict()))
+
+
+@app.command()
+@_live_options
+def sweep(
+    span: str = typer.Option("10:22000", "--span", help="Frequencies F1:F2 in Hz (the response is reported past the fades)."),
+    length: float = typer.Option(5.0, "--length", help="Sweep length, seconds (rounded so its harmonics line up)."),
+    level: str = typer.Option("-20 dBFS", "--level", help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms."),
+    stepped: bool = typer.Option(False, "--stepped", help="Stepped sines instead of a sweep: slower, the reference method, with THD+N."),
+    per_octave: int = typer.Option(3, "--per-octave", help="Stepped sines: frequencies per octave over the span."),
+    freqs: List[float] = typer.Option([], "--at", help="Stepped sines at these frequencies, Hz (repeatable) instead."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output: response = output / reference (the virtual bench's is 2)."),
+    ref_freq: float = typer.Option(1000.0, "--ref-freq", help="Frequency whose level the response is referred to without volts, Hz."),
+    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: estimates the coupling capacitor."),
+    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Band for ripple and harmonics LO:HI in Hz, or 'full'."),
+    smooth: Optional[int] = typer.Option(None, "--smooth", help="Smooth the plotted magnitude over 1/N octave (CSV and JSON stay raw)."),
+    out: Optional[Path] = typer.Option(None, "--out", help="Run folder for the capture and reports (default: sweep-<time>)."),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
+    live: dict = None,
+) -> None:
+    """Measure frequency response and distortion against frequency: a synchronized sweep, or stepped sines.
+
+    Gives magnitude, phase and group delay, the -3 dB and -1 dB points,
+    passband ripple, the levels at 20 Hz and 20 kHz, the coupling capacitor
+    when the low corner is first order (with --load), and THD, H2 and H3
+    against frequency. The capture is on disk before it is analysed.
+
+    Example: benchkit sweep --span 2:22000 --length 10 --load 8 --out b2-response
+
+    Safety: a sweep puts full level at every frequency, the highest too:
+    measure into a dummy load, never a speaker (tweeters burn first), and
+    keep the level low until the stage's gain is known. Ctrl-C fades the
+    output to silence and keeps the partial capture.
+    """
+    from datetime import datetime
+
+    from benchkit import responses, runs
+    from benchkit.capture.portaudio import CaptureInterrupted
+    from benchkit.report import summary
+    from benchkit.signals import check_level
+
+    try:
+        band = units.parse_band(bandwidth)
+        f1, f2 = units.parse_band(span) or (0.0, 0.0)
+        backend, profile = _live_setup(live, ref_channel)
+        in_channel, calibration = live["in_channel"], live["calibration"]
+        preflight = dict(gain=live["gain"], margin_db=live["margin"], rail_v=live["rail"],
+                         pad_rating_w=live["pad_rating"], bridged=live["btl"])
+        if ref_channel is None:
+            ref_channel = backend.reference_input() if backend.name == "virtual" else (profile.ref_channel if profile else None)
+        drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
+        check_level(drive)
+        if smooth is not None and smooth < 1:
+            raise BenchkitError("--smooth takes N >= 1 (1/N octave)")
+        plan = runs.plan_run(backend, profile, [drive], ref_freq, in_channel, load_ohms=load, say=_err, **preflight)
+        for w in plan.warnings:
+            _err(f"warning: {w}")
+        folder = _report_folder(out or Path(f"sweep-{datetime.now():%Y%m%d-%H%M%S}"))
+        result = responses.response_run(
+            backend, folder, drive, (f1, f2), length, stepped, per_octave, [float(f) for f in freqs] or None,
+            in_channel, ref_channel, load, band, ref_freq, profile, None if calibration is None else str(calibration),
+            warnings=plan.warnings)
+        _err(summary.response_summary(result, f"{result.method} response, {f1:g} to {f2:g} Hz at {drive:g} dBFS"))
+        for written in _write_response_reports(result, folder / "capture.wav", in_channel, folder, smooth):
+            _err(f"  wrote        {written}")
+        _err(f"run folder: {folder}")
+    except CaptureInterrupted as exc:
+        _interrupted(exc)
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        raise typer.Exit(EXIT_BAD_INPUT)
+    if as_json:
+        from benchkit.report.tables import dumps
+
+        print(dumps(result.to_dict()))
+
+
+def _write_response_reports(result, path: Path, channel: int, out: Path, smooth: int | None = None) -> list[Path]:
+    from benchkit.report import plots, tables
+
+    _report_folder(out)
+    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    return [
+        tables.write_json(result.to_dict(), out / f"{stem}.response.json"),
+        tables.write_response_csv(result, out / f"{stem}.response.csv"),
+        plots.response_png(result, out / f"{stem}.response.png", path.name, smooth),
+        plots.distortion_png(result, out / f"{stem}.distortion.png", path.name),
+    ]
 
 
 @app.command()

@@ -6,7 +6,10 @@ capacitor-coupled into an 8 ohm dummy load, measured through a 10:1 pad into
 a line input of 2.0 V peak full scale, at 0.8 A and then 1.2 A of bias,
 ambient 23 degC. Each bias gets a 997 Hz tone at several levels; the report
 folder holds every capture, its analysis and a before/after comparison.
-Later capabilities (sweeps, power, drift) add their parts here.
+At 1.2 A a synchronized sweep from 2 Hz gives the response (the output
+capacitor's corner into the load, the capacitor estimated from it) and
+distortion against frequency. Later capabilities (power, drift) add their
+parts here.
 """
 
 from __future__ import annotations
@@ -17,6 +20,7 @@ from typing import Callable
 
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
 from benchkit.report import plots, summary, tables
+from benchkit.responses import response_run
 from benchkit.runs import StepsResult, compare_steps, tone_run
 
 BIASES_A = (0.8, 1.2)
@@ -26,12 +30,18 @@ FREQUENCY_HZ = 997.0
 DRIVE_DBFS = (-30.0, -20.0, -14.0, -11.0)
 LOAD_OHMS = 8.0
 AMBIENT_C = 23.0
+#: The sweep: from 2 Hz (two octaves below the expected 9 Hz corner) to
+#: 22 kHz in about 9 s (L = 1 s), at the -20 dBFS step's level.
+SWEEP_SPAN_HZ = (2.0, 22000.0)
+SWEEP_S = 10.0
+SWEEP_DBFS = -20.0
 
 
 @dataclass(frozen=True)
 class DemoReport:
     folder: Path
     runs: tuple[tuple[str, StepsResult], ...]
+    response: object
     files: tuple[Path, ...]
     text: str
 
@@ -62,12 +72,25 @@ def run_demo(out: Path, seed: int = 1, say: Callable[[str], None] = lambda _m: N
             files.append(tables.write_harmonics_csv(s.result, folder / f"{stem}.harmonics.csv"))
         files.append(plots.steps_png([(label, steps)], folder / "tones.thdn.png", f"Test stage B-2, {label}: THD+N"))
         texts.append(summary.steps_summary(steps, f"Test stage B-2, {label}"))
+    label = f"bias {BIASES_A[-1]:g} A"
+    say(f"virtual bench: stage B-2 at {label}, sweep {SWEEP_SPAN_HZ[0]:g} Hz to {SWEEP_SPAN_HZ[1]:g} Hz")
+    bench = virtual_bench("se-class-a", {"bias": BIASES_A[-1], "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 7)
+    folder = out / f"b2-bias{BIASES_A[-1]:g}A"
+    response = response_run(bench, folder, SWEEP_DBFS, SWEEP_SPAN_HZ, SWEEP_S, ref_channel=bench.reference_input(),
+                            load_ohms=LOAD_OHMS, name="sweep", note=f"demo: Test stage B-2 (invented), {label}")
+    title = f"Test stage B-2, {label}"
+    files += [folder / "sweep.wav", folder / "sweep.json",
+              tables.write_json(response.to_dict(), folder / "sweep.response.json"),
+              tables.write_response_csv(response, folder / "sweep.response.csv"),
+              plots.response_png(response, folder / "sweep.response.png", title, smooth_fraction=None),
+              plots.distortion_png(response, folder / "sweep.distortion.png", title)]
     (la, a), (lb, b) = runs
     deltas = compare_steps(a, b)
     files.append(tables.write_comparison_csv(deltas, ("0.8A", "1.2A"), out / "comparison.csv"))
     files.append(plots.steps_png(runs, out / "comparison.png", "Test stage B-2: THD+N before and after the bias change"))
     texts.append(f"Before/after ({la} -> {lb}):\n" + summary.comparison_summary(deltas, (la, lb)))
+    texts.append(summary.response_summary(response, f"Test stage B-2, {label}: response"))
     text = "\n\n".join(texts)
     (out / "summary.txt").write_text(text + "\n", encoding="utf-8")
     files.append(out / "summary.txt")
-    return DemoReport(out, tuple(runs), tuple(files), text)
+    return DemoReport(out, tuple(runs), response, tuple(files), text)

@@ -166,6 +166,9 @@ def apply_calibration(side: dict, profile, path: str | None, channel: int) -> No
         "loopback_floor": profile.loopback_floor,
         "uncertainty_db": profile.uncertainty.get("total_db"),
         "dc_coupled": profile.dc_coupled,
+        "output_vpk_per_fs": profile.output_vpk_per_fs,
+        "loopback_response": profile.loopback_response,
+        "ac_corner_hz": profile.ac_corner_hz,
     }
 
 

@@ -122,12 +122,19 @@ def check_level(level_dbfs: float) -> None:
         raise BenchkitError(f"drive level {level_dbfs:g} dBFS is above the {MAX_DBFS:g} dBFS the output allows")
 
 
+def _per_step(value, n: int, what: str) -> list[float]:
+    values = [float(v) for v in value] if isinstance(value, (list, tuple)) else [float(value)] * n
+    if len(values) != n:
+        raise BenchkitError(f"give one of the {what}, or one per step")
+    return values
+
+
 def stepped_tones(
     frequency_hz: float | list[float],
     levels_dbfs: list[float],
     rate: float,
-    step_s: float = 1.0,
-    settle_s: float = 0.3,
+    step_s: float | list[float] = 1.0,
+    settle_s: float | list[float] = 0.3,
     gap_s: float = 0.05,
     out_channel: int = 1,
     n_out: int = 2,
@@ -143,9 +150,10 @@ def stepped_tones(
         Drive level of each step at the interface output, dBFS.
     rate : float
         Sample rate, Hz.
-    step_s : float
-        Analysed length of each step, after the settle time.
-    settle_s : float
+    step_s : float or list of float
+        Analysed length of each step, after the settle time (one for all,
+        or one per step).
+    settle_s : float or list of float
         Time after the fade-in before analysis starts (coupling capacitors
         and the stage settle).
     gap_s : float
@@ -160,6 +168,8 @@ def stepped_tones(
     freqs = [float(f) for f in frequency_hz] if isinstance(frequency_hz, (list, tuple)) else [float(frequency_hz)] * len(levels_dbfs)
     if len(freqs) != len(levels_dbfs):
         raise BenchkitError("give one frequency, or one per level")
+    steps = _per_step(step_s, len(freqs), "step lengths")
+    settles = _per_step(settle_s, len(freqs), "settle times")
     for f in freqs:
         if not (0 < f < rate / 2):
             raise BenchkitError(f"tone frequency {f:g} Hz must lie between 0 and half the sample rate")
@@ -173,10 +183,9 @@ def stepped_tones(
     marker_start = pieces[0].size
     fade_n = int(round(FADE_S * rate))
     segments = []
-    for f, lvl in zip(freqs, levels_dbfs):
-        seconds = settle_s + step_s + 2 * FADE_S
-        x = tone(f, lvl, seconds, rate)
-        settled = pos + fade_n + int(round(settle_s * rate))
+    for f, lvl, step, settle in zip(freqs, levels_dbfs, steps, settles):
+        x = tone(f, lvl, settle + step + 2 * FADE_S, rate)
+        settled = pos + fade_n + int(round(settle * rate))
         segments.append(Segment(pos, pos + x.size, settled, pos + x.size - fade_n, f, float(lvl), out_channel))
         pieces += [x, np.zeros(int(gap_s * rate))]
         pos += x.size + pieces[-1].size
@@ -194,8 +203,37 @@ def stepped_tones(
             "kind": "stepped-tones",
             "frequency_hz": freqs[0] if len(set(freqs)) == 1 else freqs,
             "levels_dbfs": [float(v) for v in levels_dbfs],
-            "step_s": step_s,
-            "settle_s": settle_s,
+            "step_s": steps[0] if len(set(steps)) == 1 else steps,
+            "settle_s": settles[0] if len(set(settles)) == 1 else settles,
             "out_channel": out_channel,
         },
+    )
+
+
+def sweep_stimulus(sweep, level_dbfs: float, out_channel: int = 1, n_out: int = 2, lead_s: float = LEAD_S,
+                   tail_s: float = 0.5) -> Stimulus:
+    """A synchronized sweep (:class:`benchkit.analysis.sweep.SyncSweep`,
+    faded) at ``level_dbfs`` peak, after the marker, then ``tail_s`` of
+    silence for the stage's response to die away. Its one segment spans
+    the sweep; the half second of silence before it shows any steady hum."""
+    check_level(level_dbfs)
+    if not 1 <= out_channel <= n_out:
+        raise BenchkitError(f"output channel {out_channel} does not exist (1 to {n_out})")
+    rate = sweep.rate
+    mk = marker(rate)
+    x = units.ratio_from_db(level_dbfs) * sweep.samples()
+    lead = np.zeros(int(lead_s * rate))
+    head = np.concatenate([lead, mk, np.zeros(int(0.5 * rate))])
+    mono = np.concatenate([head, x, np.zeros(int(tail_s * rate))])
+    out = np.zeros((mono.size, n_out))
+    out[:, out_channel - 1] = mono
+    start = head.size
+    seg = Segment(start, start + x.size, start, start + x.size, sweep.f1_hz, float(level_dbfs), out_channel)
+    return Stimulus(
+        samples=out,
+        sample_rate_hz=float(rate),
+        segments=(seg,),
+        marker=mk,
+        marker_start=lead.size,
+        description={"kind": "sweep", **sweep.to_dict(), "level_dbfs": float(level_dbfs), "out_channel": out_channel},
     )

@@ -12,6 +12,13 @@ multiplies the continuous-time spectrum of the response, FFT(y)/fs. The
 deconvolved response holds the linear impulse response at t = 0 and the
 k-th harmonic's before it, at -L ln k (Farina, AES 108th Convention 2000;
 Novak 2015), each windowed out and transformed on its own.
+
+A sweep that starts at f1 leaves the deconvolved response spread around
+t = 0 at the lowest frequencies (the inverse filter assumes a sweep that
+never started), and fades bend both ends. Both are the same for every
+signal processed the same way, so :func:`measure` divides the output's
+responses by those of a reference processed identically: the reference
+input when one is wired, otherwise the digital sweep that was played.
 """
 
 from __future__ import annotations
@@ -21,40 +28,85 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.fft
+import scipy.signal
 
 from benchkit.errors import BenchkitError
+
+#: Raised-cosine fade-in over the first third of an octave and fade-out
+#: over the last twelfth (the sweep spends L ln(2^(1/N)) s there).
+FADE_IN_OCTAVES = 1.0 / 3.0
+FADE_OUT_OCTAVES = 1.0 / 12.0
+#: Highest harmonic order separated.
+MAX_ORDER = 5
+#: Longest window kept after the linear response, s.
+MAX_IR_S = 1.0
 
 
 @dataclass(frozen=True)
 class SyncSweep:
-    """A synchronized exponential sweep from f1 to f2 Hz."""
+    """A synchronized exponential sweep from f1 to f2 Hz.
+
+    ``seconds`` is the length asked for; ``faded`` says whether the played
+    sweep had benchkit's fades (a sweep made elsewhere, exactly the formula,
+    does not).
+    """
 
     f1_hz: float
     f2_hz: float
     rate: float
     L: float
+    seconds: float
+    faded: bool = True
 
     @classmethod
-    def design(cls, f1_hz: float, f2_hz: float, seconds: float, rate: float) -> "SyncSweep":
+    def design(cls, f1_hz: float, f2_hz: float, seconds: float, rate: float, faded: bool = True) -> "SyncSweep":
         """The sweep of about ``seconds`` (L rounded so harmonics stay in phase)."""
-        if not (0 < f1_hz < f2_hz <= rate / 2) or seconds <= 0:
+        if not (0 < f1_hz < f2_hz <= rate / 2) or not seconds > 0:
             raise BenchkitError(f"a sweep needs 0 < F1 < F2 <= fs/2 and a positive length, got {f1_hz:g}:{f2_hz:g}:{seconds:g}")
         L = round(f1_hz * seconds / math.log(f2_hz / f1_hz)) / f1_hz
         if L <= 0:
             raise BenchkitError("the sweep is too short for its start frequency: lengthen it or start higher")
-        return cls(float(f1_hz), float(f2_hz), float(rate), L)
+        return cls(float(f1_hz), float(f2_hz), float(rate), L, float(seconds), faded)
+
+    @classmethod
+    def from_dict(cls, d: dict, rate: float) -> "SyncSweep":
+        try:
+            return cls.design(float(d["f1_hz"]), float(d["f2_hz"]), float(d["seconds"]), rate, bool(d.get("faded", True)))
+        except (KeyError, TypeError, ValueError) as exc:
+            raise BenchkitError("the sidecar's sweep description is damaged") from exc
+
+    def to_dict(self) -> dict:
+        return {"f1_hz": self.f1_hz, "f2_hz": self.f2_hz, "seconds": self.seconds, "L_s": self.L,
+                "duration_s": self.duration_s, "faded": self.faded}
 
     @property
     def duration_s(self) -> float:
         """T^ = L ln(f2/f1)."""
         return self.L * math.log(self.f2_hz / self.f1_hz)
 
+    @property
+    def n_samples(self) -> int:
+        return int(math.floor(self.duration_s * self.rate))
+
+    @property
+    def band_hz(self) -> tuple[float, float]:
+        """Where the response is reported: past the fades."""
+        if not self.faded:
+            return self.f1_hz, self.f2_hz
+        return self.f1_hz * 2 ** FADE_IN_OCTAVES, self.f2_hz * 2 ** -FADE_OUT_OCTAVES
+
     def samples(self, amplitude: float = 1.0) -> np.ndarray:
-        """The sweep itself, unit amplitude by default, with no fades: its
-        phase starts at zero, so it starts at zero."""
-        n = int(math.floor(self.duration_s * self.rate))
-        t = np.arange(n) / self.rate
-        return amplitude * np.sin(2 * np.pi * self.f1_hz * self.L * (np.exp(t / self.L) - 1.0))
+        """The sweep as played: its phase starts at zero, so it starts at
+        zero; with fades when ``faded``."""
+        t = np.arange(self.n_samples) / self.rate
+        x = amplitude * np.sin(2 * np.pi * self.f1_hz * self.L * (np.exp(t / self.L) - 1.0))
+        if self.faded:
+            t_in = self.L * math.log(2 ** FADE_IN_OCTAVES)
+            t_out = self.L * math.log(2 ** FADE_OUT_OCTAVES)
+            head, tail = t < t_in, t > self.duration_s - t_out
+            x[head] *= 0.5 - 0.5 * np.cos(np.pi * t[head] / t_in)
+            x[tail] *= 0.5 - 0.5 * np.cos(np.pi * (self.duration_s - t[tail]) / t_out)
+        return x
 
     def harmonic_delay_s(self, order: int) -> float:
         """How long before the linear response the order-k response lies."""
@@ -71,29 +123,87 @@ class SyncSweep:
         )
         return out
 
+    def windows(self, orders: int) -> list[tuple[float, float]]:
+        """(before, after) seconds of the window round each order's
+        response: before reaches at most half way to the next order (which
+        lies earlier), after half way to the previous one, and the linear
+        response keeps up to MAX_IR_S after it and 3/f1 before it."""
+        spans = []
+        for k in range(1, orders + 1):
+            up = 0.5 * self.L * math.log((k + 1) / k)
+            before = min(3.0 / (k * self.f1_hz), up)
+            after = MAX_IR_S if k == 1 else 0.5 * self.L * math.log(k / (k - 1))
+            spans.append((before, after))
+        return spans
 
-def deconvolve(response: np.ndarray, sweep: SyncSweep) -> np.ndarray:
+
+def deconvolve(response: np.ndarray, sweep: SyncSweep, nfft: int | None = None) -> np.ndarray:
     """The deconvolved response: linear IR at index 0, the harmonics' IRs
     wrapped round to the end of the buffer (negative times).
 
     ``response`` must start where the sweep starts (align it first).
     """
     y = np.asarray(response, dtype=float)
-    need = int(math.ceil((sweep.duration_s + sweep.harmonic_delay_s(8) + 1.0) * sweep.rate))
-    nfft = scipy.fft.next_fast_len(max(need, y.size) * 2)
+    if nfft is None:
+        nfft = deconvolution_length(sweep, y.size)
     f = np.fft.rfftfreq(nfft, 1 / sweep.rate)
-    spec = scipy.fft.rfft(y, nfft) / sweep.rate * sweep.inverse(f)
+    spec = scipy.fft.rfft(y, nfft)
+    spec *= sweep.inverse(f) / sweep.rate
     return scipy.fft.irfft(spec, nfft)
+
+
+def deconvolution_length(sweep: SyncSweep, n: int) -> int:
+    """An FFT length that keeps every response apart from its wrap."""
+    need = int(math.ceil((sweep.duration_s + sweep.harmonic_delay_s(MAX_ORDER + 3) + MAX_IR_S + 1.0) * sweep.rate))
+    return scipy.fft.next_fast_len(max(need, n) + int(MAX_IR_S * sweep.rate))
+
+
+def _window(n_before: int, n_after: int) -> np.ndarray:
+    """Flat, with raised-cosine tapers over half the span before and a
+    third of the span after."""
+    w = np.ones(n_before + n_after)
+    a = max(1, n_before // 2)
+    w[:a] = 0.5 - 0.5 * np.cos(np.pi * (np.arange(a) + 0.5) / a)
+    b = max(1, n_after // 3)
+    w[w.size - b:] = 0.5 + 0.5 * np.cos(np.pi * (np.arange(b) + 0.5) / b)
+    return w
+
+
+def response_at(h: np.ndarray, sweep: SyncSweep, order: int, freqs: np.ndarray) -> np.ndarray:
+    """The order-k response, windowed out of ``h`` and evaluated at
+    ``freqs`` (for k > 1, the harmonic's own frequencies k f), referred to
+    its exact time -L ln k."""
+    rate = sweep.rate
+    before, after = sweep.windows(order)[order - 1]
+    t0 = -sweep.harmonic_delay_s(order)
+    at = int(math.floor(t0 * rate))
+    nb, na = int(round(before * rate)), int(round(after * rate))
+    seg = h[(np.arange(-nb, na) + at) % h.size] * _window(nb, na)
+    # the response's own t = 0 at index 0 (the part before wraps to the
+    # end), so the spectrum is smooth; zero-padded 16x, linear
+    # interpolation between its bins is then exact to about 1e-4
+    nfft = scipy.fft.next_fast_len(16 * seg.size)
+    buf = np.zeros(nfft)
+    buf[:na] = seg[nb:]
+    buf[nfft - nb:] = seg[:nb]
+    spec = scipy.fft.rfft(buf)
+    grid = np.asarray(freqs, float) * nfft / rate
+    k = np.clip(np.floor(grid).astype(int), 0, spec.size - 2)
+    frac = grid - k
+    z = spec[k] * (1 - frac) + spec[k + 1] * frac
+    # index 0 is sample ``at``; the exact time is t0
+    return z * np.exp(-2j * np.pi * np.asarray(freqs) * (at / rate - t0))
 
 
 @dataclass(frozen=True)
 class SweepResponses:
-    """Linear and harmonic responses of one deconvolved sweep.
+    """Linear and harmonic responses of one sweep measurement.
 
     ``freq_hz`` is the fundamental's frequency for every curve;
-    ``linear`` is the complex transfer function there; ``harmonics`` maps
-    order k to the complex response of the k-th harmonic, as a ratio to the
-    linear one (level in dBc = 20 log10 |.|).
+    ``linear`` is the complex transfer function there (output over
+    reference); ``harmonics`` maps order k to the complex level of the
+    k-th harmonic relative to the fundamental, NaN where k f lies outside
+    the band analysed.
     """
 
     freq_hz: np.ndarray
@@ -101,41 +211,97 @@ class SweepResponses:
     harmonics: dict
 
 
-def separate(h: np.ndarray, sweep: SyncSweep, orders: int = 5, freqs: np.ndarray | None = None,
-             ir_seconds: float | None = None) -> SweepResponses:
-    """Window out the linear and harmonic impulse responses and transform each.
-
-    Each window spans from a little before its response to half way to the
-    next one (the gap between orders k and k+1 is L ln((k+1)/k)).
-    """
-    rate = sweep.rate
-    n = h.size
-    gap = sweep.harmonic_delay_s(orders + 1) - sweep.harmonic_delay_s(orders)
-    length = ir_seconds if ir_seconds is not None else min(0.5 * gap, 1.0)
-    pre = min(0.1 * length, 0.005)
-    m = int(round((pre + length) * rate))
-    nfft = scipy.fft.next_fast_len(max(m, int(rate)) * 2)
+def separate(h: np.ndarray, sweep: SyncSweep, orders: int = MAX_ORDER, freqs: np.ndarray | None = None,
+             band_hz: tuple[float, float] | None = None) -> SweepResponses:
+    """Window out the linear and harmonic responses of one deconvolved
+    signal and transform each; harmonics only where the fundamental f and
+    k f both lie in ``band_hz`` (default: the sweep's band to 0.45 fs)."""
     if freqs is None:
-        freqs = np.geomspace(max(sweep.f1_hz, 1.0), sweep.f2_hz, 400)
-    win = np.ones(m)
-    taper = max(1, int(0.2 * m))
-    win[-taper:] = 0.5 + 0.5 * np.cos(np.pi * np.arange(taper) / taper)
-    k0 = max(1, int(round(pre * rate)))
-    win[:k0] = 0.5 - 0.5 * np.cos(np.pi * np.arange(k0) / k0)
-
-    def response_at(order: int, at: np.ndarray) -> np.ndarray:
-        start = int(round(-sweep.harmonic_delay_s(order) * rate)) - k0 if order > 1 else -k0
-        idx = (np.arange(m) + start) % n
-        seg = h[idx] * win
-        # the segment starts k0 samples before the response's t = 0
-        spec = scipy.fft.rfft(seg, nfft)
-        f = np.fft.rfftfreq(nfft, 1 / rate)
-        z = np.interp(at, f, spec.real) + 1j * np.interp(at, f, spec.imag)
-        frac = -sweep.harmonic_delay_s(order) * rate - (start + k0) if order > 1 else 0.0
-        return z * np.exp(2j * np.pi * at * (k0 + frac) / rate)
-
-    linear = response_at(1, freqs)
+        freqs = log_grid(*sweep.band_hz)
+    freqs = np.asarray(freqs, float)
+    lo, top = band_hz if band_hz is not None else (sweep.band_hz[0], 0.45 * sweep.rate)
+    linear = response_at(h, sweep, 1, freqs)
     harmonics = {}
     for k in range(2, orders + 1):
-        harmonics[k] = response_at(k, k * freqs) / linear
-    return SweepResponses(np.asarray(freqs), linear, harmonics)
+        z = np.full(freqs.shape, np.nan + 0j)
+        ok = (freqs >= lo) & (k * freqs <= top)
+        if ok.any():
+            z[ok] = response_at(h, sweep, k, k * freqs[ok]) / linear[ok]
+        harmonics[k] = z
+    return SweepResponses(freqs, linear, harmonics)
+
+
+def log_grid(lo_hz: float, hi_hz: float, per_octave: int = 24) -> np.ndarray:
+    """Log-spaced frequencies from lo to hi, ``per_octave`` to the octave."""
+    n = max(2, int(math.ceil(math.log2(hi_hz / lo_hz) * per_octave)) + 1)
+    return np.geomspace(lo_hz, hi_hz, n)
+
+
+def measure(output: np.ndarray, sweep: SyncSweep, reference: np.ndarray | None = None, orders: int = MAX_ORDER,
+            freqs: np.ndarray | None = None, band_hz: tuple[float, float] | None = None,
+            amplitude: float = 1.0) -> SweepResponses:
+    """The response of what lies between the reference and the output.
+
+    ``output`` and ``reference`` start where the sweep starts; without a
+    reference the digital sweep played at ``amplitude`` is the reference
+    (so the result is in output FS per played FS, processing artefacts
+    removed).
+    """
+    ref = reference if reference is not None else sweep.samples(amplitude)
+    n = deconvolution_length(sweep, max(output.size, ref.size))
+    got = separate(deconvolve(output, sweep, n), sweep, orders, freqs, band_hz)
+    base = response_at(deconvolve(ref, sweep, n), sweep, 1, got.freq_hz)
+    return SweepResponses(got.freq_hz, got.linear / base, got.harmonics)
+
+
+def find_start(recording: np.ndarray, sweep: SyncSweep) -> float:
+    """Where the sweep starts in a recording with unknown leading silence,
+    in samples (fractional): the peak of the deconvolved linear response,
+    refined by a parabola through its neighbours.
+
+    Raises
+    ------
+    BenchkitError
+        When no response stands out (no sweep in the recording).
+    """
+    h = deconvolve(recording, sweep)
+    usable = max(1, recording.size)
+    mag = np.abs(h[:usable])
+    peak = int(np.argmax(mag))
+    if mag[peak] < 20 * (np.median(mag) + 1e-30):
+        raise BenchkitError("no synchronized sweep with these parameters was found in the recording")
+    if 0 < peak < usable - 1:
+        a, b, c = mag[peak - 1], mag[peak], mag[peak + 1]
+        den = a - 2 * b + c
+        if den < 0:
+            return peak + 0.5 * (a - c) / den
+    return float(peak)
+
+
+#: A steady line stands this far above the median of the quiet spectrum.
+LINE_PROMINENCE_DB = 15.0
+
+
+def steady_lines(quiet: np.ndarray, rate: float, lo_hz: float = 20.0) -> list[float]:
+    """Frequencies of steady tones (hum, supply ripple) in a stretch with
+    no stimulus. A sweep cannot tell them from distortion: a tone at F
+    shows as a harmonic response of order k at F / k."""
+    n = quiet.size
+    if n < int(0.1 * rate):
+        return []
+    # Blackman-Harris: sidelobes 92 dB down, so a strong line has no neighbours
+    spec = np.abs(scipy.fft.rfft(quiet * scipy.signal.get_window("blackmanharris", n), 4 * n))
+    f = np.fft.rfftfreq(4 * n, 1 / rate)
+    level = 20 * np.log10(spec + 1e-300)
+    use = f >= lo_hz
+    floor = np.median(level[use])
+    hot = use[1:-1] & (level[1:-1] > floor + LINE_PROMINENCE_DB) & (level[1:-1] >= level[:-2]) & (level[1:-1] > level[2:])
+    return [float(x) for x in f[1:-1][hot]]
+
+
+def line_mask(freqs: np.ndarray, order: int, lines: list[float], resolution_hz: float) -> np.ndarray:
+    """Where k f lies within ``resolution_hz`` of a steady line."""
+    hit = np.zeros(np.shape(freqs), bool)
+    for line in lines:
+        hit |= np.abs(order * np.asarray(freqs) - line) <= max(resolution_hz, 0.03 * line)
+    return hit

@@ -138,3 +138,70 @@ def steps_png(runs: list[tuple[str, object]], path: Path, title: str) -> Path:
     fig.text(0.01, 0.01, conditions_line(first), fontsize=7.5, color="#333333", ha="left", va="bottom", wrap=True)
     fig.subplots_adjust(left=0.1, right=0.97, top=0.92, bottom=0.16)
     return _save(fig, path)
+
+
+def _log_hz_axis(ax) -> None:
+    ax.set_xscale("log")
+    ax.xaxis.set_major_formatter(FuncFormatter(_hz))
+    ax.grid(True, which="both", color="#eeeeee", lw=0.5)
+
+
+def _response_caption(r) -> str:
+    sweep = r.info.get("sweep")
+    how = (f"synchronized sweep {sweep['f1_hz']:g} to {sweep['f2_hz']:g} Hz, {sweep['duration_s']:.3g} s, "
+           f"{sweep['level_dbfs']:.1f} dBFS" if sweep else f"stepped sines, {r.freq_hz.size} frequencies")
+    return f"{how}; referred by {r.scale_source}; magnitude in {r.mag_units}"
+
+
+def response_png(result, path: Path, title: str, smooth_fraction: int | None = None) -> Path:
+    """Magnitude over a phase panel, log frequency, the -3 dB corners
+    marked; smoothing (1/N octave) changes the plot only."""
+    from benchkit.analysis import response as resp
+
+    f = result.freq_hz
+    fig = Figure(figsize=(10, 6.4))
+    ax, axp = fig.add_subplot(2, 1, 1), fig.add_subplot(2, 1, 2)
+    mag = resp.smooth(f, result.mag_db, smooth_fraction) if smooth_fraction else result.mag_db
+    ax.plot(f, mag, color=_TRACE, lw=1.2)
+    ref = result.ref_db
+    low, high = result.corners_3db
+    for x in (low, high):
+        if x is not None:
+            ax.axvline(x, color=_MARK, lw=0.8, ls="--")
+            ax.annotate(f"-3 dB {_hz(round(x, 2 if x < 100 else 0))} Hz", (x, ref - 3), textcoords="offset points",
+                        xytext=(5, -12), fontsize=8, color=_MARK)
+    ax.axhline(ref - 3, color=_FAINT, lw=0.6, ls=":")
+    span = max(6.0, float(np.nanmax(mag) - np.nanmin(mag)) + 2.0)
+    ax.set_ylim(min(ref - 6, float(np.nanmin(mag)) - 1), max(ref + 3, float(np.nanmax(mag)) + 1) if span < 60 else ref + 6)
+    ax.set_ylabel(result.mag_units.replace("dB re the level at", "dB re"))
+    smooth_note = f", 1/{smooth_fraction}-octave smoothing for display" if smooth_fraction else ""
+    ax.set_title(f"{title}: magnitude{smooth_note}", loc="left", fontsize=10)
+    axp.plot(f, result.phase_deg, color=_TRACE, lw=1.0)
+    axp.set_ylabel("phase (deg)")
+    axp.set_xlabel("frequency (Hz)")
+    for a in (ax, axp):
+        _log_hz_axis(a)
+    fig.text(0.01, 0.01, _response_caption(result), fontsize=7.5, color="#333333", ha="left", va="bottom")
+    fig.subplots_adjust(left=0.09, right=0.97, top=0.94, bottom=0.11, hspace=0.28)
+    return _save(fig, path)
+
+
+def distortion_png(result, path: Path, title: str) -> Path:
+    """THD (and THD+N for stepped sines), H2 and H3 against the
+    fundamental's frequency, in dB re the fundamental."""
+    fig = Figure(figsize=(10, 5.2))
+    ax = fig.add_subplot(1, 1, 1)
+    f = result.freq_hz
+    ax.plot(f, result.thd_db, color=_TRACE, lw=1.4, label="THD")
+    if result.thdn_db is not None:
+        ax.plot(f, result.thdn_db, color=_FAINT, lw=1.2, ls="--", label="THD+N")
+    for c, colour in zip(result.harmonics[:2], (_MARK, "#4b8a3e")):
+        ax.plot(c.freq_hz, c.level_dbc, color=colour, lw=0.9, label=f"H{c.order}")
+    _log_hz_axis(ax)
+    ax.set_xlabel("fundamental frequency (Hz)")
+    ax.set_ylabel("dB re the fundamental")
+    ax.legend(loc="upper left", fontsize=8, frameon=False)
+    ax.set_title(f"{title}: distortion against frequency", loc="left", fontsize=10)
+    fig.text(0.01, 0.01, _response_caption(result), fontsize=7.5, color="#333333", ha="left", va="bottom")
+    fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.15)
+    return _save(fig, path)

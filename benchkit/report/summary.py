@@ -105,3 +105,35 @@ def comparison_summary(deltas, labels: tuple[str, str]) -> str:
             f"{d.thdn_change_db:+6.2f} dB ({better})"
         )
     return "\n".join(lines)
+
+
+def response_summary(r, title: str = "") -> str:
+    """The derived figures of a frequency response, one screen."""
+    d = r.to_dict()
+
+    def hz(v):
+        return "beyond the measured range" if v is None else f"{v:.4g} Hz"
+
+    def db(v):
+        return "not measured" if v is None else f"{v:+.2f} dB"
+
+    lines = [title] if title else []
+    lines += [
+        f"  method       {r.method}, referred by {r.scale_source}; magnitude in {r.mag_units}",
+        f"  at {r.reference_hz:g} Hz   {r.ref_db:+.2f} dB",
+        f"  -3 dB        {hz(d['low_3db_hz'])} and {hz(d['high_3db_hz'])}",
+        f"  -1 dB        {hz(d['low_1db_hz'])} and {hz(d['high_1db_hz'])}",
+        f"  ripple       {'not measured' if d['ripple_db'] is None else format(d['ripple_db'], '.2f') + ' dB peak to peak'}",
+        f"  20 Hz, 20 kHz {db(d['level_20hz_db'])}, {db(d['level_20khz_db'])}",
+    ]
+    fit = r.corner_fit
+    if fit is not None:
+        verdict = "fits" if fit.fits else "does not fit"
+        lines.append(f"  low corner   {verdict} a first-order high-pass at {fit.corner_hz:.4g} Hz (RMS error {fit.rms_error_db:.2f} dB)")
+        if r.coupling_capacitor_f is not None:
+            lines.append(f"  coupling C   {r.coupling_capacitor_f * 1e6:.4g} uF into {r.load_ohms:g} ohm (C = 1/(2 pi R f))")
+    thd = [v for v in r.thd_db if v == v]
+    if thd:
+        lines.append(f"  THD          {min(thd):.1f} to {max(thd):.1f} dB over frequency")
+    lines += [f"  warning      {w}" for w in r.warnings]
+    return "\n".join(lines)

@@ -123,3 +123,23 @@ def write_comparison_csv(deltas, labels: tuple[str, str], path: Path) -> Path:
                         f"{d.thdn_change_db:+.3f}", f"{h2a:.2f}", f"{h2b:.2f}",
                         str(d.before.valid and d.after.valid).lower()])
     return path
+
+
+def write_response_csv(result, path: Path) -> Path:
+    """One row per frequency: magnitude, phase, group delay, THD (THD+N
+    for stepped sines) and H2..H5, raw (never smoothed); empty where not
+    measured."""
+    from benchkit.analysis.response import group_delay_s
+
+    gd = group_delay_s(result.freq_hz, result.phase_deg)
+    orders = [c.order for c in result.harmonics]
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["freq_hz", f"mag_db ({result.mag_units})", "phase_deg", "group_delay_s", "thd_db", "thdn_db"]
+                   + [f"h{k}_dbc" for k in orders])
+        for i, f in enumerate(result.freq_hz):
+            cells = [result.thd_db[i], None if result.thdn_db is None else result.thdn_db[i]]
+            cells += [c.level_dbc[i] for c in result.harmonics]
+            w.writerow([f"{f:.4f}", f"{result.mag_db[i]:.4f}", f"{result.phase_deg[i]:.3f}", f"{gd[i]:.4e}"]
+                       + ["" if v is None or not math.isfinite(v) else f"{v:.2f}" for v in cells])
+    return path

@@ -1,0 +1,319 @@
+"""Frequency-response runs: a sweep or stepped sines -> capture -> on disk
+-> :class:`benchkit.analysis.response.ResponseResult`.
+
+The interface's own response comes out in one of three ways, in this
+order: the reference input, wired straight from the driven output
+(response = output / reference); the calibration profile's loopback
+response divided out (magnitude only); or nothing, with the response
+given relative to its level at a reference frequency (1 kHz).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from benchkit import capture, units
+from benchkit.analysis import response as resp
+from benchkit.analysis import sweep as sw
+from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
+from benchkit.errors import BenchkitError
+from benchkit.recordings import Recording, read_capture, write_capture, write_capture_sidecar
+from benchkit.signals import stepped_tones, sweep_stimulus
+
+#: A stepped-sine step: at least this long, and this many periods.
+STEP_MIN_S, STEP_PERIODS = 0.25, 10.0
+SETTLE_MIN_S, SETTLE_PERIODS = 0.2, 4.0
+HARMONIC_ORDERS = (2, 3, 4, 5)
+#: The stretch before a sweep searched for steady lines (hum, ripple), s.
+QUIET_S = 0.45
+
+
+def stepped_frequencies(lo_hz: float, hi_hz: float, per_octave: int) -> list[float]:
+    """Log-spaced frequencies, ``per_octave`` to the octave, from lo to hi."""
+    if not (0 < lo_hz < hi_hz) or per_octave < 1:
+        raise BenchkitError("stepped sines need 0 < F1 < F2 and at least one point per octave")
+    return [float(f) for f in sw.log_grid(lo_hz, hi_hz, per_octave)]
+
+
+def stepped_stimulus(freqs: list[float], level_dbfs: float, rate: float, out_channel: int = 1, n_out: int = 2,
+                     lead_s: float = 0.05):
+    """Stepped sines: each long enough to settle and to hold ten periods."""
+    steps = [max(STEP_MIN_S, STEP_PERIODS / f) for f in freqs]
+    settles = [max(SETTLE_MIN_S, SETTLE_PERIODS / f) for f in freqs]
+    stim = stepped_tones(list(freqs), [level_dbfs] * len(freqs), rate, step_s=steps, settle_s=settles,
+                         out_channel=out_channel, n_out=n_out, lead_s=lead_s)
+    stim.description["purpose"] = "response"
+    return stim
+
+
+def is_response(rec: Recording) -> bool:
+    stim = rec.sidecar.get("stimulus") or {}
+    return isinstance(stim, dict) and (stim.get("kind") == "sweep" or stim.get("purpose") == "response")
+
+
+@dataclass(frozen=True)
+class _Reference:
+    """How the output is referred: samples of the reference input (or
+    None for the played signal), its scale, and what it is."""
+
+    samples: np.ndarray | None
+    volts_per_fs: float | None
+    source: str
+
+
+def _reference(rec: Recording, ref_channel: int | None) -> _Reference:
+    if ref_channel is None:
+        return _Reference(None, None, "played")
+    if ref_channel == rec.channel:
+        raise BenchkitError("the reference channel cannot be the measured channel")
+    if not 1 <= ref_channel <= rec.n_channels:
+        raise BenchkitError(f"{rec.path}: reference channel {ref_channel} does not exist (1 to {rec.n_channels})")
+    other = read_capture(rec.path, ref_channel)
+    return _Reference(other.samples, other.channel_scale()[0], "reference-channel")
+
+
+def _profile_gain(freqs: np.ndarray, cal: dict) -> np.ndarray | None:
+    """The loopback's gain re 1 kHz at ``freqs`` from a profile's stepped
+    measurement, extended below it by its first-order input coupling."""
+    pts = cal.get("loopback_response") or []
+    if len(pts) < 2:
+        return None
+    f_pts = np.array([p[0] for p in pts], float)
+    g_pts = np.array([p[1] for p in pts], float)
+    order = np.argsort(f_pts)
+    f_pts, g_pts = f_pts[order], g_pts[order]
+    g = np.interp(np.log(freqs), np.log(f_pts), g_pts)
+    fc = cal.get("ac_corner_hz")
+    if fc:
+        def hp(f):
+            return -10 * np.log10(1 + (fc / f) ** 2)
+        low = freqs < f_pts[0]
+        g[low] = g_pts[0] + hp(freqs[low]) - hp(f_pts[0])
+    return g
+
+
+def _finish(method, freqs, h_fs, curves, thd, thdn, rec: Recording, ref: _Reference, reference_hz, load_ohms,
+            band, warnings, info) -> resp.ResponseResult:
+    """Turn output/reference ratios into the reported magnitude and phase."""
+    warnings = list(warnings)
+    out_vpf = rec.channel_scale()[0]
+    cal = rec.sidecar.get("calibration") or {}
+    mag = units.db_from_ratio(np.abs(h_fs))
+    phase = np.angle(h_fs, deg=True)
+    source, mag_units = ref.source, None
+    if ref.samples is not None:
+        if out_vpf is not None and ref.volts_per_fs is not None:
+            mag = mag + units.db_from_ratio(out_vpf / ref.volts_per_fs)
+            mag_units = "dB re 1 V/V"
+    else:
+        loop = _profile_gain(freqs, cal)
+        out_vpk = (rec.sidecar.get("output_vpk_per_fs") or cal.get("output_vpk_per_fs"))
+        if loop is not None:
+            source = "profile"
+            mag = mag - loop
+            warnings.append("no reference input: the profile's loopback magnitude is divided out; the phase "
+                            "includes the interface's own")
+            lo = min(p[0] for p in cal["loopback_response"])
+            if freqs[0] < lo and not cal.get("ac_corner_hz"):
+                warnings.append(f"the profile's loopback response starts at {lo:g} Hz: below it, it is held constant")
+            if out_vpf is not None and out_vpk:
+                mag = mag + units.db_from_ratio(out_vpf / out_vpk)
+                mag_units = "dB re 1 V/V"
+        else:
+            source = "reference-frequency"
+    if mag_units is None:
+        ref_level = resp.level_at(freqs, mag, reference_hz)
+        if ref_level is None:
+            raise BenchkitError(f"the reference frequency {reference_hz:g} Hz lies outside the measured range "
+                                f"{freqs[0]:.3g}-{freqs[-1]:.5g} Hz: give --ref-freq")
+        mag = mag - ref_level
+        mag_units = f"dB re the level at {reference_hz:g} Hz"
+    return resp.ResponseResult(method, freqs, np.asarray(mag, float), phase, tuple(curves), thd, thdn, source,
+                               mag_units, reference_hz, load_ohms, band, tuple(warnings), info)
+
+
+def _info(rec: Recording, ref: _Reference, ref_channel) -> dict:
+    side = rec.sidecar
+    return {"file": str(rec.path), "channel": rec.channel,
+            "ref_channel": ref_channel if ref.samples is not None else None,
+            "device": side.get("device"), "latency_samples": side.get("latency_samples"),
+            "calibration": side.get("calibration")}
+
+
+def analyze_response(
+    rec: Recording,
+    ref_channel: int | None = None,
+    sweep: sw.SyncSweep | None = None,
+    reference_hz: float = resp.REFERENCE_HZ,
+    load_ohms: float | None = None,
+    bandwidth_hz: tuple[float, float] | None = DEFAULT_BAND_HZ,
+) -> resp.ResponseResult:
+    """The response in a capture on disk: a sweep or stepped sines that
+    benchkit played (from the sidecar), or ``sweep``, a synchronized sweep
+    of unit amplitude made elsewhere, after unknown silence."""
+    ref = _reference(rec, ref_channel)
+    if sweep is not None:
+        return _sweep_response(rec, ref, ref_channel, sweep, None, 1.0, reference_hz, load_ohms, bandwidth_hz)
+    stim = rec.sidecar.get("stimulus") or {}
+    if stim.get("kind") == "sweep":
+        seg = (stim.get("segments") or [{}])[0]
+        try:
+            start, level = int(seg["start"]), float(stim["level_dbfs"])
+        except (KeyError, TypeError, ValueError) as exc:
+            raise BenchkitError(f"{rec.path}: the sidecar's sweep description is damaged") from exc
+        s = sw.SyncSweep.from_dict(stim, rec.sample_rate_hz)
+        return _sweep_response(rec, ref, ref_channel, s, start, units.ratio_from_db(level), reference_hz, load_ohms,
+                               bandwidth_hz)
+    if stim.get("purpose") == "response":
+        return _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, bandwidth_hz)
+    raise BenchkitError(f"{rec.path}: not a response capture: give --sweep F1:F2:SECONDS for a sweep made elsewhere")
+
+
+def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz, load_ohms, band):
+    rate = rec.sample_rate_hz
+    if abs(sweep.rate - rate) > 1e-6:
+        sweep = sw.SyncSweep.design(sweep.f1_hz, sweep.f2_hz, sweep.seconds, rate, sweep.faded)
+    info = {**_info(rec, ref, ref_channel), "sweep": {**sweep.to_dict(), "level_dbfs": units.db_from_ratio(amplitude)}}
+    warnings = list(rec.warnings) + list(rec.sidecar.get("warnings") or ())
+    frac = 0.0
+    if start is None:
+        found = sw.find_start(rec.samples if ref.samples is None else ref.samples, sweep)
+        start, frac = int(math.floor(found)), found - math.floor(found)
+        info["sweep_start_s"] = found / rate
+    short = start + sweep.n_samples - rec.samples.size
+    if short > 0:
+        raise BenchkitError(f"{rec.path}: the capture ends {short / rate:.2f} s before the sweep does: truncated")
+    out = rec.samples[start:]
+    if np.max(np.abs(out[: sweep.n_samples])) >= capture.CLIP_STOP_FS:
+        warnings.append("the input clipped during the sweep: the response and distortion are not valid")
+    freqs = sw.log_grid(*sweep.band_hz)
+    got = sw.measure(out, sweep, None if ref.samples is None else ref.samples[start:], freqs=freqs,
+                     band_hz=band or (sweep.band_hz[0], 0.45 * rate), amplitude=amplitude)
+    h = got.linear * np.exp(2j * np.pi * freqs * frac / rate)  # the fraction of a sample the start lies late
+    # steady tones in the quiet before the sweep would pass for harmonics
+    quiet = rec.samples[max(0, start - int(QUIET_S * rate)): max(0, start - int(0.02 * rate))]
+    lines = sw.steady_lines(quiet, rate)
+    curves, blanked = [], np.zeros(freqs.size, bool)
+    for k, z in got.harmonics.items():
+        level = np.where(np.isfinite(z), units.db_from_ratio(np.abs(np.nan_to_num(z))), np.nan)
+        if lines:
+            hit = sw.line_mask(freqs, k, lines, 4 * rate / max(quiet.size, 1)) & np.isfinite(level)
+            level[hit] = np.nan
+            blanked |= hit
+        curves.append(resp.HarmonicCurve(k, freqs, level))
+    if lines:
+        shown = ", ".join(f"{x:.0f}" for x in lines[:6])
+        warnings.append(f"steady lines at {shown} Hz (hum or ripple) before the sweep: the harmonic curves are blanked "
+                        "where k f falls on them (a sweep cannot tell them from distortion; stepped sines can)")
+    thd = resp.thd_db_from_harmonics(tuple(curves), freqs.size)
+    thd[blanked] = np.nan  # a sum with an order missing
+    return _finish("sweep", freqs, h, curves, thd, None, rec, ref, reference_hz, load_ohms, band, warnings, info)
+
+
+def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
+    rate = rec.sample_rate_hz
+    segs = rec.sidecar["stimulus"].get("segments") or []
+    freqs, h, thd, thdn, warnings = [], [], [], [], list(rec.warnings) + list(rec.sidecar.get("warnings") or ())
+    levels = {k: [] for k in HARMONIC_ORDERS}
+    for seg in segs:
+        try:
+            lo, hi, f0, start = int(seg["settled"]), int(seg["end"]), float(seg["frequency_hz"]), int(seg["start"])
+            drive = float(seg["level_dbfs"])
+        except (KeyError, TypeError, ValueError) as exc:
+            raise BenchkitError(f"{rec.path}: the sidecar's step list is damaged") from exc
+        if not 0 <= lo < hi <= rec.samples.size:
+            raise BenchkitError(f"{rec.path}: a step lies outside the capture (samples {lo} to {hi}): truncated")
+        # a step outside the band widens it for its own analysis
+        b = None if band is None else (min(band[0], f0 / 2), max(band[1], min(0.49 * rate, 1.05 * f0)))
+        r = analyze_tone(rec.samples[lo:hi], rate, fundamental_hz=f0, bandwidth_hz=b)
+        if not r.valid:
+            warnings.append(f"the {f0:.4g} Hz step is not valid ({'clipped' if r.clipped else 'see its warnings'})")
+        if ref.samples is not None:
+            q = analyze_tone(ref.samples[lo:hi], rate, fundamental_hz=f0, bandwidth_hz=b)
+            den = q.fundamental_fs * np.exp(1j * np.radians(q.fundamental_phase_deg))
+        else:
+            # the step is a sine from phase 0 at its start: in cosine terms,
+            # 2 pi f (settled - start) / fs - 90 degrees where analysis begins
+            den = units.ratio_from_db(drive) * np.exp(1j * (2 * np.pi * f0 * (lo - start) / rate - np.pi / 2))
+        freqs.append(f0)
+        h.append(r.fundamental_fs * np.exp(1j * np.radians(r.fundamental_phase_deg)) / den)
+        # distortion against frequency: fundamentals in the band, harmonics in it
+        lo, top = band if band else (0.0, 0.45 * rate)
+        in_band = lo <= f0 and 2 * f0 <= top
+        thd.append(r.thd_db if in_band else np.nan)
+        thdn.append(r.thdn_db if lo <= f0 <= top else np.nan)
+        by_order = {x.order: x for x in r.harmonics}
+        for k in HARMONIC_ORDERS:
+            x = by_order.get(k)
+            levels[k].append(x.level_dbc if x is not None and lo <= f0 and k * f0 <= top else np.nan)
+    if len(freqs) < 2:
+        raise BenchkitError(f"{rec.path}: a response needs at least two steps")
+    f = np.array(freqs)
+    order = np.argsort(f)
+    curves = [resp.HarmonicCurve(k, f[order], np.array(v)[order]) for k, v in levels.items()]
+    info = _info(rec, ref, ref_channel)
+    return _finish("stepped", f[order], np.array(h)[order], curves, np.array(thd)[order], np.array(thdn)[order],
+                   rec, ref, reference_hz, load_ohms, band, warnings, info)
+
+
+def response_run(
+    backend: capture.Backend,
+    folder: Path,
+    level_dbfs: float,
+    span_hz: tuple[float, float],
+    seconds: float = 5.0,
+    stepped: bool = False,
+    per_octave: int = 3,
+    freqs: list[float] | None = None,
+    channel: int = 1,
+    ref_channel: int | None = None,
+    load_ohms: float | None = None,
+    bandwidth_hz: tuple[float, float] | None = DEFAULT_BAND_HZ,
+    reference_hz: float = resp.REFERENCE_HZ,
+    calibration=None,
+    calibration_file: str | None = None,
+    note: str = "",
+    warnings: tuple[str, ...] = (),
+    name: str = "capture",
+) -> resp.ResponseResult:
+    """Play a sweep (or stepped sines), store the capture and its sidecar,
+    then analyse the stored capture.
+
+    The raw recording streams to ``NAME.partial.wav``; an input that clips
+    stops the run (the partial capture is kept) with a clear error.
+    """
+    from benchkit.runs import _capture_sidecar, apply_calibration
+
+    rate = backend.sample_rate_hz
+    out_ch = getattr(backend, "drive_output", 1)
+    lead = getattr(backend, "lead_s", 0.05)
+    if stepped:
+        stim = stepped_stimulus(freqs or stepped_frequencies(*span_hz, per_octave), level_dbfs, rate, out_ch,
+                                backend.n_outputs, lead)
+    else:
+        stim = sweep_stimulus(sw.SyncSweep.design(span_hz[0], span_hz[1], seconds, rate), level_dbfs, out_ch,
+                              backend.n_outputs, lead)
+    partial = folder / f"{name}.partial.wav"
+    cap = capture.run(backend, stim, partial)
+    side = _capture_sidecar(cap, stim, channel, backend, note)
+    side["reference_channel"] = ref_channel
+    side["output_vpk_per_fs"] = backend.output_vpk_per_fs
+    if calibration is not None:
+        apply_calibration(side, calibration, calibration_file, channel)
+    side["warnings"] = list(warnings)
+    path = write_capture(folder / f"{name}.wav", cap.samples, cap.sample_rate_hz, side)
+    partial.unlink(missing_ok=True)
+    if cap.stopped_at is not None:
+        at = cap.stopped_at / rate
+        raise BenchkitError(f"the input clipped at {at:.2f} s into the run: lower the level or use a larger pad "
+                            f"(capture kept: {path})")
+    spoiled = [s for s in stim.segments if cap.spoiled(s.settled, s.end)]
+    if spoiled:
+        side["warnings"].append("a stream fault (overflow or underflow) touched the measurement: run it again")
+        write_capture_sidecar(path, side)
+    return analyze_response(read_capture(path, channel), ref_channel, reference_hz=reference_hz,
+                            load_ohms=load_ohms, bandwidth_hz=bandwidth_hz)
