@@ -8,21 +8,12 @@ Run: python bench/analysis_speed.py
 
 from __future__ import annotations
 
-import time
-
 import numpy as np
 import scipy.fft
 
 import benchkit
 
-
-def best_of(fn, repeats: int) -> float:
-    best = float("inf")
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        best = min(best, time.perf_counter() - t0)
-    return best
+from _timing import best_of
 
 
 def main() -> None:

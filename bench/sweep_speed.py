@@ -8,22 +8,13 @@ Run: python bench/sweep_speed.py
 
 from __future__ import annotations
 
-import time
-
 import numpy as np
 import scipy.fft
 import scipy.signal
 
 from benchkit.analysis.sweep import SyncSweep, log_grid, measure
 
-
-def best_of(fn, repeats: int) -> float:
-    best = float("inf")
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        best = min(best, time.perf_counter() - t0)
-    return best
+from _timing import best_of
 
 
 def main() -> None:

@@ -7,6 +7,7 @@ BENCHKIT_DEBUG=1 to see one).
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import inspect
 import math
@@ -359,17 +360,37 @@ def _live_setup(live: dict, ref_channel: int | None):
     return backend, profile
 
 
-def _interrupted(exc) -> None:
-    """End a live command that a Ctrl-C or a lost device stopped (the
-    output has faded; the partial capture is on disk)."""
-    _err(f"benchkit: stopped: {exc}")
-    if exc.device_lost:
-        # PortAudio can hang for good shutting down a dead server's
-        # client; everything is on disk, so leave without it
-        sys.stdout.flush()
-        sys.stderr.flush()
-        os._exit(EXIT_BAD_INPUT)
-    raise typer.Exit(130 if str(exc).startswith("interrupted") else EXIT_BAD_INPUT)
+@contextlib.contextmanager
+def _live_run():
+    """How a live command ends on bad input, Ctrl-C or a lost device: one
+    line and a non-zero exit (the output has faded; the partial capture is
+    on disk)."""
+    from benchkit.capture.portaudio import CaptureInterrupted
+
+    try:
+        yield
+    except CaptureInterrupted as exc:
+        _err(f"benchkit: stopped: {exc}")
+        if exc.device_lost:
+            # PortAudio can hang for good shutting down a dead server's
+            # client; everything is on disk, so leave without it
+            sys.stdout.flush()
+            sys.stderr.flush()
+            os._exit(EXIT_BAD_INPUT)
+        raise typer.Exit(130 if str(exc).startswith("interrupted") else EXIT_BAD_INPUT)
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        raise typer.Exit(EXIT_BAD_INPUT)
+
+
+def _finish_run(written: list[Path], folder: Path, doc: dict, as_json: bool) -> None:
+    for path in written:
+        _err(f"  wrote        {path}")
+    _err(f"run folder: {folder}")
+    if as_json:
+        from benchkit.report.tables import dumps
+
+        print(dumps(doc))
 
 
 @app.command()
@@ -398,11 +419,10 @@ def tone(
     from datetime import datetime
 
     from benchkit import runs
-    from benchkit.capture.portaudio import CaptureInterrupted
     from benchkit.report import summary
     from benchkit.signals import check_level
 
-    try:
+    with _live_run():
         band = units.parse_band(bandwidth)
         backend, profile = _live_setup(live, ref_channel)
         in_channel, calibration = live["in_channel"], live["calibration"]
@@ -421,18 +441,8 @@ def tone(
                               traces=True, calibration=profile, calibration_file=None if calibration is None else str(calibration),
                               warnings=plan.warnings)
         _err(summary.steps_summary(steps, f"{frequency:g} Hz, {len(drive)} steps, latency {steps.latency_samples} samples"))
-        for written in _write_steps_reports(steps, folder / "capture.wav", channel, folder):
-            _err(f"  wrote        {written}")
-        _err(f"run folder: {folder}")
-    except CaptureInterrupted as exc:
-        _interrupted(exc)
-    except BenchkitError as exc:
-        _err(f"benchkit: error: {exc}")
-        raise typer.Exit(EXIT_BAD_INPUT)
-    if as_json:
-        from benchkit.report.tables import dumps
-
-        print(dumps(steps.to_dict()))
+        written = _write_steps_reports(steps, folder / "capture.wav", channel, folder)
+    _finish_run(written, folder, steps.to_dict(), as_json)
 
 
 @app.command()
@@ -470,11 +480,10 @@ def sweep(
     from datetime import datetime
 
     from benchkit import responses, runs
-    from benchkit.capture.portaudio import CaptureInterrupted
     from benchkit.report import summary
     from benchkit.signals import check_level
 
-    try:
+    with _live_run():
         band = units.parse_band(bandwidth)
         f1, f2 = units.parse_band(span) or (0.0, 0.0)
         backend, profile = _live_setup(live, ref_channel)
@@ -496,18 +505,8 @@ def sweep(
             in_channel, ref_channel, load, band, ref_freq, profile, None if calibration is None else str(calibration),
             warnings=plan.warnings)
         _err(summary.response_summary(result, f"{result.method} response, {f1:g} to {f2:g} Hz at {drive:g} dBFS"))
-        for written in _write_response_reports(result, folder / "capture.wav", in_channel, folder, smooth):
-            _err(f"  wrote        {written}")
-        _err(f"run folder: {folder}")
-    except CaptureInterrupted as exc:
-        _interrupted(exc)
-    except BenchkitError as exc:
-        _err(f"benchkit: error: {exc}")
-        raise typer.Exit(EXIT_BAD_INPUT)
-    if as_json:
-        from benchkit.report.tables import dumps
-
-        print(dumps(result.to_dict()))
+        written = _write_response_reports(result, folder / "capture.wav", in_channel, folder, smooth)
+    _finish_run(written, folder, result.to_dict(), as_json)
 
 
 def _write_response_reports(result, path: Path, channel: int, out: Path, smooth: int | None = None) -> list[Path]:

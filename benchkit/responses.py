@@ -28,6 +28,8 @@ from benchkit.signals import stepped_tones, sweep_stimulus
 STEP_MIN_S, STEP_PERIODS = 0.25, 10.0
 SETTLE_MIN_S, SETTLE_PERIODS = 0.2, 4.0
 HARMONIC_ORDERS = (2, 3, 4, 5)
+#: A clock offset worth saying so, ppm.
+CLOCK_NOTE_PPM = 2.0
 #: The stretch before a sweep searched for steady lines (hum, ripple), s.
 QUIET_S = 0.45
 
@@ -180,7 +182,8 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
     info = {**_info(rec, ref, ref_channel), "sweep": {**sweep.to_dict(), "level_dbfs": units.db_from_ratio(amplitude)}}
     warnings = list(rec.warnings) + list(rec.sidecar.get("warnings") or ())
     frac = 0.0
-    if start is None:
+    found = start is None
+    if found:
         found = sw.find_start(rec.samples if ref.samples is None else ref.samples, sweep)
         start, frac = int(math.floor(found)), found - math.floor(found)
         info["sweep_start_s"] = found / rate
@@ -194,6 +197,20 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
     got = sw.measure(out, sweep, None if ref.samples is None else ref.samples[start:], freqs=freqs,
                      band_hz=band or (sweep.band_hz[0], 0.45 * rate), amplitude=amplitude)
     h = got.linear * np.exp(2j * np.pi * freqs * frac / rate)  # the fraction of a sample the start lies late
+    if found and ref.samples is None:
+        # a sweep made elsewhere: most likely played and recorded on two clocks
+        mag = np.abs(h)
+        ref_db = resp.level_at(freqs, units.db_from_ratio(mag), reference_hz)
+        low, high = resp.corners(freqs, units.db_from_ratio(mag), ref_db if ref_db is not None else 0.0, 3.0,
+                                 reference_hz)
+        est = sw.clock_offset(freqs, np.angle(h), sweep, max(200.0, 8 * (low or 0.0)),
+                              min(20000.0, 0.5 * (high or math.inf)))
+        if est is not None:
+            info["clock_offset_ppm"], bend = est
+            h = h * np.exp(-1j * bend)
+            if abs(est[0]) > CLOCK_NOTE_PPM:
+                warnings.append(f"the recorder's clock ran {est[0]:+.1f} ppm against the player's: its delay and "
+                                "phase are taken out of the phase (the magnitude is not affected)")
     # steady tones in the quiet before the sweep would pass for harmonics
     quiet = rec.samples[max(0, start - int(QUIET_S * rate)): max(0, start - int(0.02 * rate))]
     lines = sw.steady_lines(quiet, rate)

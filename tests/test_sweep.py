@@ -226,15 +226,17 @@ def _elsewhere(tmp_path, silence: int, ppm: float = 0.0, cut_s: float = 0.0):
     return path, sos, rate
 
 
-@pytest.mark.parametrize("ppm", [0.0, 40.0])
+@pytest.mark.parametrize("ppm", [0.0, 40.0, -30.0])
 def test_offline_sweep_after_unknown_silence(tmp_path, ppm):
     path, sos, rate = _elsewhere(tmp_path, silence=23457, ppm=ppm)
+    # the recorder's clock as resampled: the nearest p/q to 1 + ppm 1e-6
+    true_ppm = (float(Fraction(1 + ppm * 1e-6).limit_denominator(20000)) - 1) * 1e6
     res = run_cli("analyze", str(path), "--sweep", "10:22000:6", "--json", "--out", str(tmp_path / "rep"))
     assert res.returncode == 0, res.stderr
     d = json.loads(res.stdout)
     assert d["kind"] == "response" and d["method"] == "sweep"
     # a clock offset smears the start over ppm x the sweep's length
-    assert d["sweep_start_s"] == pytest.approx(23457 / rate, abs=2e-4 + ppm * 1e-6 * 7)
+    assert d["sweep_start_s"] == pytest.approx(23457 / rate, abs=2e-4 + abs(ppm) * 1e-6 * 7)
     f = np.array(d["response"]["freq_hz"])
     sel = (f >= 20) & (f <= 20000)
     _, h = ss.sosfreqz(sos, worN=f[sel], fs=rate)
@@ -244,9 +246,10 @@ def test_offline_sweep_after_unknown_silence(tmp_path, ppm):
     assert np.max(np.abs(np.array(d["response"]["mag_db"])[sel] - want)) < (0.05 if not ppm else 0.1)
     # circuit theory: the first-order 30 Hz corner, within 1 %
     assert d["low_3db_hz"] == pytest.approx(30.0, rel=0.01) and d["low_corner_fit"]["fits"]
-    if not ppm:
-        assert np.max(np.abs(np.angle(np.exp(1j * np.radians(np.array(d["response"]["phase_deg"])[sel]))
-                                      / (h / np.abs(h)), deg=True))) < 1.0
+    # the clock offset is found, and its delay and stretch taken out of the phase
+    assert d["clock_offset_ppm"] == pytest.approx(true_ppm, abs=0.5)
+    assert np.max(np.abs(np.angle(np.exp(1j * np.radians(np.array(d["response"]["phase_deg"])[sel]))
+                                  / (h / np.abs(h)), deg=True))) < 1.0
     assert (tmp_path / "rep" / "elsewhere.response.csv").exists()
 
 

@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 import scipy.fft
@@ -126,13 +127,14 @@ class SyncSweep:
     def windows(self, orders: int) -> list[tuple[float, float]]:
         """(before, after) seconds of the window round each order's
         response: before reaches at most half way to the next order (which
-        lies earlier), after half way to the previous one, and the linear
-        response keeps up to MAX_IR_S after it and 3/f1 before it."""
+        lies earlier), after half way to the previous one; the linear
+        response keeps 3/f1 before it and four periods of f1 after it
+        (0.25 s to MAX_IR_S)."""
         spans = []
         for k in range(1, orders + 1):
             up = 0.5 * self.L * math.log((k + 1) / k)
             before = min(3.0 / (k * self.f1_hz), up)
-            after = MAX_IR_S if k == 1 else 0.5 * self.L * math.log(k / (k - 1))
+            after = min(MAX_IR_S, max(0.25, 4.0 / self.f1_hz)) if k == 1 else 0.5 * self.L * math.log(k / (k - 1))
             spans.append((before, after))
         return spans
 
@@ -146,10 +148,18 @@ def deconvolve(response: np.ndarray, sweep: SyncSweep, nfft: int | None = None) 
     y = np.asarray(response, dtype=float)
     if nfft is None:
         nfft = deconvolution_length(sweep, y.size)
-    f = np.fft.rfftfreq(nfft, 1 / sweep.rate)
     spec = scipy.fft.rfft(y, nfft)
-    spec *= sweep.inverse(f) / sweep.rate
+    spec *= _inverse_bins(sweep, nfft)
     return scipy.fft.irfft(spec, nfft)
+
+
+@lru_cache(maxsize=2)
+def _inverse_bins(sweep: SyncSweep, nfft: int) -> np.ndarray:
+    """X~(f) / fs at the bins of an nfft-point FFT (kept: the output and
+    its reference are deconvolved alike)."""
+    out = sweep.inverse(np.fft.rfftfreq(nfft, 1 / sweep.rate)) / sweep.rate
+    out.setflags(write=False)
+    return out
 
 
 def deconvolution_length(sweep: SyncSweep, n: int) -> int:
@@ -180,9 +190,10 @@ def response_at(h: np.ndarray, sweep: SyncSweep, order: int, freqs: np.ndarray) 
     nb, na = int(round(before * rate)), int(round(after * rate))
     seg = h[(np.arange(-nb, na) + at) % h.size] * _window(nb, na)
     # the response's own t = 0 at index 0 (the part before wraps to the
-    # end), so the spectrum is smooth; zero-padded 16x, linear
-    # interpolation between its bins is then exact to about 1e-4
-    nfft = scipy.fft.next_fast_len(16 * seg.size)
+    # end), so the spectrum is smooth; zero-padded 8x, linear
+    # interpolation between its bins is then exact to about 1e-4 for what
+    # lies within a tenth of the window of t = 0
+    nfft = scipy.fft.next_fast_len(8 * seg.size)
     buf = np.zeros(nfft)
     buf[:na] = seg[nb:]
     buf[nfft - nb:] = seg[:nb]
@@ -305,3 +316,24 @@ def line_mask(freqs: np.ndarray, order: int, lines: list[float], resolution_hz: 
     for line in lines:
         hit |= np.abs(order * np.asarray(freqs) - line) <= max(resolution_hz, 0.03 * line)
     return hit
+
+
+def clock_offset(freqs: np.ndarray, phase_rad: np.ndarray, sweep: SyncSweep, lo_hz: float, hi_hz: float):
+    """How fast the recorder's clock ran against the player's, ppm, from
+    the phase of a sweep recorded on another device, and the phase the
+    offset and the delay it leaves add (to subtract).
+
+    A recorder running e fast stretches the sweep: the response at f
+    arrives e L ln(f/f1) late, adding 2 pi f e L ln(f/f1) to the phase's
+    -2 pi f tau. Fitted over lo..hi with a c/f + d term for the stage's own
+    low corner and polarity. None when there are too few points.
+    """
+    f = np.asarray(freqs, float)
+    sel = (f >= lo_hz) & (f <= hi_hz)
+    if sel.sum() < 8:
+        return None
+    ph = np.unwrap(np.asarray(phase_rad, float))
+    cols = np.stack([f, f * np.log(f / sweep.f1_hz), 1.0 / f, np.ones_like(f)], axis=1)
+    coef, *_ = np.linalg.lstsq(cols[sel], ph[sel], rcond=None)
+    ppm = -coef[1] / (2 * np.pi * sweep.L) * 1e6
+    return float(ppm), cols[:, :2] @ coef[:2]
