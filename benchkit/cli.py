@@ -19,6 +19,7 @@ from typing import List, Optional
 import typer
 
 from benchkit import __version__, units
+from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB
 from benchkit.analysis.tone import SCHEMA_VERSION, analyze_tone
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
@@ -88,6 +89,15 @@ def analyze(
     ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Response captures: the reference input (default: the sidecar's)."),
     ref_freq: float = typer.Option(1000.0, "--ref-freq", help="Response captures: the frequency the level is referred to, Hz."),
     smooth: Optional[int] = typer.Option(None, "--smooth", help="Response captures: smooth the plotted magnitude over 1/N octave."),
+    power: bool = typer.Option(False, "--power", help="Stepped captures: power at the distortion limits, clipping onset and half (needs --load and volts)."),
+    limits: List[float] = typer.Option(list(DEFAULT_LIMITS_PCT), "--limit", help="Distortion limits for --power, percent (repeatable; the first is the rated point)."),
+    metric: str = typer.Option("thdn", "--metric", help="What the limits apply to: thdn or thd."),
+    onset_db: float = typer.Option(ONSET_DB, "--onset-db", help="Clipping onset: THD+N this far over its low-level trend, dB."),
+    supply_volts: Optional[float] = typer.Option(None, "--supply-volts", help="The stage's supply voltage: efficiency and dissipation."),
+    supply_amps: Optional[float] = typer.Option(None, "--supply-amps", help="Its supply current (class A: about the bias)."),
+    rail: Optional[float] = typer.Option(None, "--rail", help="Describe the stage (se-class-a): its rail, V, for the expected ceiling."),
+    bias: Optional[float] = typer.Option(None, "--bias", help="Describe the stage: its bias current, A."),
+    vsat: float = typer.Option(1.0, "--vsat", help="Describe the stage: its saturation voltage, V."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
 ) -> None:
     """Analyse recorded captures offline: tones (THD, THD+N, harmonics, noise) or responses (sweeps, stepped sines).
@@ -101,6 +111,7 @@ def analyze(
         band = units.parse_band(bandwidth)
         sweep_spec = _parse_sweep(sweep) if sweep else None
         profile = load_profile(calibration) if calibration is not None else None
+        power_opts = _power_options(power, load, limits, metric, onset_db, supply_volts, supply_amps, rail, bias, vsat)
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
@@ -108,7 +119,7 @@ def analyze(
     for path in _progress(files, "analysing"):
         try:
             docs.append(_analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile, calibration,
-                                     (sweep_spec, ref_channel, ref_freq, smooth)))
+                                     (sweep_spec, ref_channel, ref_freq, smooth), power_opts))
         except BenchkitError as exc:
             failed += 1
             _err(f"benchkit: error: {exc}")
@@ -121,6 +132,27 @@ def analyze(
         raise typer.Exit(EXIT_BAD_INPUT)
 
 
+def _power_options(power, load, limits, metric, onset_db, supply_volts, supply_amps, rail, bias, vsat) -> dict | None:
+    """The checked options of a power analysis, or None without --power."""
+    from benchkit.budget import ClassABudget
+
+    if not power:
+        return None
+    if load is None:
+        raise BenchkitError("--power needs --load (ohms)")
+    if metric not in ("thdn", "thd"):
+        raise BenchkitError(f"--metric is thdn or thd, got {metric!r}")
+    if not limits or any(not (0 < x < 100) for x in limits):
+        raise BenchkitError("--limit takes percentages between 0 and 100")
+    if (supply_volts is None) != (supply_amps is None):
+        raise BenchkitError("give both --supply-volts and --supply-amps, or neither")
+    if (rail is None) != (bias is None):
+        raise BenchkitError("describe the stage with both --rail and --bias")
+    budget = ClassABudget(rail, bias, load, vsat) if rail is not None else None
+    return dict(load_ohms=load, metric=metric, limits_pct=tuple(limits), onset_db=onset_db,
+                supply_v=supply_volts, supply_a=supply_amps, budget=budget)
+
+
 def _parse_sweep(text: str) -> tuple[float, float, float]:
     parts = text.split(":")
     try:
@@ -131,7 +163,7 @@ def _parse_sweep(text: str) -> tuple[float, float, float]:
 
 
 def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile=None, profile_path=None,
-                 response_opts=(None, None, 1000.0, None)) -> dict:
+                 response_opts=(None, None, 1000.0, None), power_opts=None) -> dict:
     from dataclasses import replace
 
     from benchkit import responses, runs
@@ -159,8 +191,20 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
             for written in _write_response_reports(result, Path(path), channel, out, smooth):
                 _err(f"  wrote        {written}")
         return result.to_dict()
+    if power_opts is not None and not runs.is_stepped(rec):
+        raise BenchkitError(f"{path}: --power needs a stepped capture that benchkit wrote (its sidecar lists the steps)")
     if runs.is_stepped(rec):
         steps = runs.analyze_steps(rec, band, load, volts_per_fs, out is not None, fundamental, averages)
+        if power_opts is not None:
+            from benchkit.power_runs import power_from_steps
+
+            inverts = bool((rec.sidecar.get("calibration") or {}).get("polarity_inverts"))
+            result = power_from_steps(steps, polarity_inverts=inverts, **power_opts)
+            _err(summary.power_summary(result, f"{path} channel {channel}: power into {load:g} ohm"))
+            if out is not None:
+                for written in _write_power_reports(result, Path(path), channel, out):
+                    _err(f"  wrote        {written}")
+            return result.to_dict()
         _err(summary.steps_summary(steps, f"{path} channel {channel} ({len(steps.steps)} steps)"))
         if out is not None:
             for written in _write_steps_reports(steps, Path(path), channel, out):
@@ -213,6 +257,18 @@ def _write_reports(result, doc, path: Path, channel: int, out: Path) -> list[Pat
         tables.write_spectrum_csv(result, out / f"{stem}.spectrum.csv"),
         plots.spectrum_png(result, out / f"{stem}.spectrum.png", title),
         plots.residual_png(result, out / f"{stem}.residual.png", title),
+    ]
+
+
+def _write_power_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
+    from benchkit.report import plots, tables
+
+    _report_folder(out)
+    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    return [
+        tables.write_json(result.to_dict(), out / f"{stem}.power.json"),
+        tables.write_power_csv(result, out / f"{stem}.power.csv"),
+        plots.power_png(result, out / f"{stem}.power.png", path.name),
     ]
 
 
@@ -682,6 +738,45 @@ def pad(
 
         print(dumps({"kind": "pads", "schema_version": 1, "worst_stage_v": worst, "input_fs_vpk": input_fs_vpk,
                      "input_ohms": input_ohms, "headroom_db": headroom_db, "pads": [r.to_dict() for r in reports]}))
+
+
+@app.command()
+def budget(
+    rail: float = typer.Option(..., "--rail", help="Supply rail, V."),
+    bias: float = typer.Option(..., "--bias", help="Bias current of the constant-current pull-up, A."),
+    load: float = typer.Option(8.0, "--load", help="Load resistance, ohms."),
+    vsat: float = typer.Option(1.0, "--vsat", help="Saturation voltage at the negative swing, V."),
+    target_power: Optional[float] = typer.Option(None, "--target-power", help="Power wanted into the load, W: the bias and rail it needs."),
+    limit_current: Optional[float] = typer.Option(None, "--limit-current", help="Current a base-emitter limiter should hold, A: its sense resistor."),
+    vbe: float = typer.Option(0.65, "--vbe", help="The limiter transistor's V_BE, V (about 0.6-0.7 V, falling about 2 mV per degC)."),
+    as_json: bool = typer.Option(False, "--json", help="Print the budget as JSON on stdout."),
+) -> None:
+    """Expected ceilings of a single-ended class-A stage from its design numbers.
+
+    The current-limited (I x R) and rail-limited (rail/2 - Vsat) peak
+    swings, the largest clean sine, the supply draw (all heat at idle), the
+    efficiency (at most 25 %), the bias and rail a target power needs, and
+    a current limiter's sense resistor.
+
+    Example: benchkit budget --rail 24 --bias 1.2 --load 8 --target-power 4 --limit-current 1.5
+
+    Safety: a class-A stage dissipates its full supply power at idle: size
+    the heat sink for that, and mind the mains side; follow local codes.
+    """
+    from benchkit.budget import ClassABudget
+    from benchkit.report import summary
+
+    try:
+        b = ClassABudget(rail, bias, load, vsat)
+        doc = b.to_dict(target_power, limit_current, vbe)
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        raise typer.Exit(EXIT_BAD_INPUT)
+    _err(summary.budget_summary(doc))
+    if as_json:
+        from benchkit.report.tables import dumps
+
+        print(dumps(doc))
 
 
 @app.command()

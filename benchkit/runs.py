@@ -282,8 +282,11 @@ def tone_run(
     calibration=None,
     calibration_file: str | None = None,
     warnings: tuple[str, ...] = (),
+    step_s: float = 1.0,
+    settle_s: float = 0.3,
 ) -> StepsResult:
-    """Play stepped tones, store the capture, analyse every step.
+    """Play stepped tones, store the capture, analyse every step
+    (``step_s`` analysed after ``settle_s`` of settling, each).
 
     The raw recording streams to ``NAME.partial.wav`` while it plays (kept
     if the run breaks off); the aligned capture and its sidecar go to
@@ -296,8 +299,8 @@ def tone_run(
     lead = getattr(backend, "lead_s", 0.05)
 
     def play(levels, stem):
-        stim = stepped_tones(frequency_hz, levels, backend.sample_rate_hz, out_channel=out_ch,
-                             n_out=backend.n_outputs, lead_s=lead)
+        stim = stepped_tones(frequency_hz, levels, backend.sample_rate_hz, step_s=step_s, settle_s=settle_s,
+                             out_channel=out_ch, n_out=backend.n_outputs, lead_s=lead)
         partial = folder / f"{stem}.partial.wav"
         cap = capture.run(backend, stim, partial)
         side = _capture_sidecar(cap, stim, channel, backend, note)

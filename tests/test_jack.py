@@ -216,3 +216,29 @@ def test_calibrate_on_the_jack_loopback(server, tmp_path):
     assert prof["output_vpk_per_fs"] == pytest.approx(0.5 * math.sqrt(2) / 10 ** (-20 / 20), rel=1e-9)
     assert prof["polarity_inverts"] is False and prof["dc_coupled"] is True
     assert prof["latency_samples"] > 0
+
+
+def test_sweep_through_jack_separates_the_poly_harmonics(server, tmp_path):
+    # a sweep played and captured on a real stream; the poly client's H2 and
+    # H3 against the power-reduction identities, the flat response against
+    # the reference input (response = output / reference: 0 dB, 0 degrees)
+    a2, a3, level = 0.02, 0.01, -14.0
+    amp = 10 ** (level / 20)
+    with jackbench.Patchbay(server, "poly", a2=a2, a3=a3):
+        proc = jackbench.benchkit(server, "sweep", "--device", "system", "--ref-channel", "2", "--span", "20:22000",
+                                  "--length", "3", "--level", f"{level}dBFS", "--out", str(tmp_path / "run"), "--json")
+        out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 0, err
+    d = json.loads(out)
+    assert d["scale_source"] == "reference-channel"
+    f = np.array(d["response"]["freq_hz"])
+    mid = (f >= 100) & (f <= 10000)
+    h1 = amp + 3 * a3 * amp**3 / 4
+    # the fundamental: h1/amp over the reference's amp
+    assert np.max(np.abs(np.array(d["response"]["mag_db"])[mid] - 20 * math.log10(h1 / amp))) < 0.05
+    assert np.max(np.abs(np.array(d["response"]["phase_deg"])[mid])) < 1.0
+    by_order = {h["order"]: h for h in d["harmonic_responses"]}
+    for order, want in ((2, a2 * amp**2 / 2 / h1), (3, a3 * amp**3 / 4 / h1)):
+        fk, lk = np.array(by_order[order]["freq_hz"]), np.array(by_order[order]["level_dbc"])
+        sel = (fk >= 200) & (fk <= 3000)
+        assert np.max(np.abs(lk[sel] - 20 * math.log10(want))) < 0.5

@@ -205,3 +205,48 @@ def distortion_png(result, path: Path, title: str) -> Path:
     fig.text(0.01, 0.01, _response_caption(result), fontsize=7.5, color="#333333", ha="left", va="bottom")
     fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.15)
     return _save(fig, path)
+
+
+def power_png(result, path: Path, title: str) -> Path:
+    """THD+N (and THD) against output power, log-log, the limits and their
+    crossings marked, the clipping onset and the expected ceiling shown;
+    beside it THD+N against the output level in Vrms."""
+    fig = Figure(figsize=(12, 5.4))
+    ax, axv = fig.add_subplot(1, 2, 1), fig.add_subplot(1, 2, 2)
+    p = [s.power_w for s in result.steps]
+    v = [s.vrms for s in result.steps]
+    thdn = [s.thdn_pct for s in result.steps]
+    thd = [s.thd_pct for s in result.steps]
+    plain = FuncFormatter(lambda x, _pos: f"{x:g}")
+    for a, xs, xlabel in ((ax, p, "output power (W)"), (axv, v, "output level (Vrms)")):
+        a.plot(xs, thdn, "-o", ms=3, lw=1.2, color=_TRACE, label="THD+N")
+        a.plot(xs, thd, "-", lw=0.9, color=_FAINT, label="THD")
+        a.set_xscale("log")
+        a.set_yscale("log")
+        for axis in (a.xaxis, a.yaxis):
+            axis.set_major_formatter(plain)
+        a.set_xlabel(xlabel)
+        a.set_ylabel("percent")
+        a.grid(True, which="both", color="#e6e6e6", lw=0.5)
+    for lim, pt in result.limits:
+        ax.axhline(lim, color=_FAINT, lw=0.6, ls=":")
+        if pt is not None:
+            ax.plot([pt.power_w], [lim], "s", ms=6, mfc="none", mec=_MARK)
+            ax.annotate(f"{pt.power_w:.3g} W at {lim:g} %", (pt.power_w, lim), textcoords="offset points",
+                        xytext=(-8, 6), ha="right", fontsize=8, color=_MARK)
+    if result.onset is not None:
+        ax.axvline(result.onset.power_w, color=_MARK, lw=0.8, ls="--")
+        ax.annotate(f"onset {result.onset.power_w:.3g} W", (result.onset.power_w, min(thdn)), textcoords="offset points",
+                    xytext=(4, 4), fontsize=8, color=_MARK)
+    if result.expected:
+        ax.axvline(result.expected["max_sine_w"], color="#4b8a3e", lw=0.8, ls="-.")
+        ax.annotate(f"expected ceiling {result.expected['max_sine_w']:.3g} W", (result.expected["max_sine_w"], max(thdn)),
+                    textcoords="offset points", xytext=(-4, -12), ha="right", fontsize=8, color="#4b8a3e")
+    ax.legend(loc="upper left", fontsize=8, frameon=False)
+    ax.set_title(f"{title}: distortion against power", loc="left", fontsize=10)
+    axv.set_title("against level", loc="left", fontsize=10)
+    half = f"; clipping half: {result.half}" if result.half else ""
+    fig.text(0.01, 0.01, f"{result.frequency_hz:g} Hz into {result.load_ohms:g} ohm; limits on "
+             f"{'THD+N' if result.metric == 'thdn' else 'THD'}{half}", fontsize=7.5, color="#333333", ha="left", va="bottom")
+    fig.subplots_adjust(left=0.07, right=0.98, top=0.92, bottom=0.14, wspace=0.22)
+    return _save(fig, path)

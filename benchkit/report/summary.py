@@ -137,3 +137,54 @@ def response_summary(r, title: str = "") -> str:
         lines.append(f"  THD          {min(thd):.1f} to {max(thd):.1f} dB over frequency")
     lines += [f"  warning      {w}" for w in r.warnings]
     return "\n".join(lines)
+
+
+def power_summary(r, title: str = "") -> str:
+    """Power at the limits, onset, clipping half, efficiency; measured
+    beside expected when the stage is described."""
+    metric = "THD+N" if r.metric == "thdn" else "THD"
+    lines = [title] if title else []
+    for lim, pt in r.limits:
+        if pt is None:
+            lines.append(f"  at {lim:g} % {metric}".ljust(22) + "not reached")
+        else:
+            s0, s1 = r.steps[pt.below], r.steps[pt.above]
+            lines.append(f"  at {lim:g} % {metric}".ljust(22) + f"{format_si(pt.power_w, 'W')} ({pt.vrms:.4g} Vrms), "
+                         f"between the {s0.drive_dbfs:g} and {s1.drive_dbfs:g} dBFS steps")
+    if r.onset is not None:
+        lines.append(f"  clipping onset       {format_si(r.onset.power_w, 'W')} ({r.onset.vrms:.4g} Vrms, "
+                     f"THD+N {r.onset.departure_db:g} dB over its low-level trend)")
+    if r.half:
+        lines.append(f"  clipping half        {r.half}")
+    if r.supply_w:
+        eff = "" if r.rated is None else f", efficiency {100 * r.rated.power_w / r.supply_w:.1f} % at {r.limits[0][0]:g} %"
+        lines.append(f"  supply               {r.supply_w:.3g} W ({r.supply_v:g} V x {r.supply_a:g} A; all heat at idle){eff}")
+    if r.expected:
+        e = r.expected
+        got = r.onset.power_w if r.onset is not None else None
+        lines.append(f"  expected ceiling     {format_si(e['max_sine_w'], 'W')} ({e['limiting_half']} half first: "
+                     f"+{e['current_limited_vpk']:.3g} V / -{e['rail_limited_vpk']:.3g} V peak)"
+                     + ("" if got is None else f"; measured onset {100 * got / e['max_sine_w']:.0f} % of it"))
+    lines += [f"  warning              {w}" for w in r.warnings]
+    return "\n".join(lines)
+
+
+def budget_summary(d: dict) -> str:
+    """A class-A budget (``ClassABudget.to_dict``) on one screen."""
+    lines = [
+        f"se-class-a: {d['rail_v']:g} V rail, {d['bias_a']:g} A bias, {d['load_ohms']:g} ohm load, {d['vsat_v']:g} V saturation",
+        f"  positive swing      +{d['current_limited_vpk']:.3g} V peak (current-limited: I x R)",
+        f"  negative swing      -{d['rail_limited_vpk']:.3g} V peak (rail-limited: rail/2 - Vsat)",
+        f"  clips first         {d['limiting_half']} half",
+        f"  largest clean sine  {format_si(d['max_sine_w'], 'W')} (Vpk^2 / 2R)",
+        f"  supply draw         {d['supply_w']:.3g} W at idle and at full power; idle dissipation {d['idle_dissipation_w']:.3g} W",
+        f"  efficiency          {d['max_efficiency_pct']:.1f} % at the largest clean sine (class A: at most 25 %)",
+    ]
+    if "target" in d:
+        t = d["target"]
+        lines.append(f"  for {t['power_w']:g} W         bias {t['bias_a']:.3g} A and a rail of at least {t['rail_v']:.3g} V")
+    if "current_limiter" in d:
+        c = d["current_limiter"]
+        lines.append(f"  limiter at {c['limit_a']:g} A     sense resistor {c['sense_ohms']:.3g} ohm ({c['vbe_v']:g} V / I), "
+                     f"{c['sense_w']:.3g} W in it: rate it at least {2 * c['sense_w']:.2g} W")
+    return "\n".join(lines)

@@ -143,3 +143,20 @@ def write_response_csv(result, path: Path) -> Path:
             w.writerow([f"{f:.4f}", f"{result.mag_db[i]:.4f}", f"{result.phase_deg[i]:.3f}", f"{gd[i]:.4e}"]
                        + ["" if v is None or not math.isfinite(v) else f"{v:.2f}" for v in cells])
     return path
+
+
+def write_power_csv(result, path: Path) -> Path:
+    """One row per step of a power run, with the efficiency when the supply is known."""
+    sw = result.supply_w
+    header = ["drive_dbfs", "vrms", "power_w", "thd_pct", "thdn_pct", "h2_dbc", "h3_dbc", "h4_dbc", "h5_dbc",
+              "noise_vrms", "efficiency_pct", "valid"]
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(header)
+        for s in result.steps:
+            h = [s.harmonics_dbc.get(k) for k in (2, 3, 4, 5)]
+            w.writerow([f"{s.drive_dbfs:.3f}", f"{s.vrms:.6g}", f"{s.power_w:.6g}", f"{s.thd_pct:.5g}",
+                        f"{s.thdn_pct:.5g}"] + ["" if x is None else f"{x:.2f}" for x in h]
+                       + ["" if s.noise_vrms is None else f"{s.noise_vrms:.4g}",
+                          "" if not sw else f"{100 * s.power_w / sw:.3f}", s.valid])
+    return path

@@ -1,0 +1,246 @@
+"""Output power at a set distortion, the clipping onset and which half
+clips, from the steps of a stepped-level run.
+
+Pure functions on the per-step figures (output Vrms, power, THD+N or THD
+in percent) and, for the clipping half, on the samples of one step.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.optimize
+
+#: Limits reported by default, percent: the first is the headline figure.
+DEFAULT_LIMITS_PCT = (1.0, 0.1, 10.0)
+#: How far THD+N must rise over its low-level trend to call clipping, dB
+#: (6 dB: twice the trend; curvature alone grows steeply near a limit).
+ONSET_DB = 6.0
+#: THD+N rising faster than level^JUMP_SLOPE between two steps: a limit hit.
+JUMP_SLOPE = 3.0
+#: Peaks of the two halves within this fraction of each other: symmetric.
+SYMMETRY_TOL = 0.03
+
+
+@dataclass(frozen=True)
+class LimitPoint:
+    """Where the metric crosses a limit, interpolated on log axes between
+    the two bracketing steps (indices into the steps as given)."""
+
+    limit_pct: float
+    power_w: float
+    vrms: float
+    below: int
+    above: int
+
+    def to_dict(self) -> dict:
+        return {"limit_pct": self.limit_pct, "power_w": self.power_w, "vrms": self.vrms,
+                "bracketing_steps": [self.below, self.above]}
+
+
+def _log_cross(x0, x1, y0, y1, y):
+    """x where log y crosses between (x0, y0) and (x1, y1), in log x."""
+    t = (math.log(y) - math.log(y0)) / (math.log(y1) - math.log(y0))
+    return math.exp(math.log(x0) + t * (math.log(x1) - math.log(x0)))
+
+
+def power_at_limit(vrms, power_w, metric_pct, limit_pct: float) -> LimitPoint | None:
+    """The first rise through ``limit_pct`` above the metric's minimum (at
+    the lowest levels noise can lie above a small limit); None when the
+    steps never reach it."""
+    v, p, m = (np.asarray(a, float) for a in (vrms, power_w, metric_pct))
+    start = int(np.nanargmin(m))
+    for i in range(start, m.size - 1):
+        if m[i] < limit_pct <= m[i + 1]:
+            pw = _log_cross(p[i], p[i + 1], m[i], m[i + 1], limit_pct)
+            return LimitPoint(limit_pct, pw, _log_cross(v[i], v[i + 1], m[i], m[i + 1], limit_pct), i, i + 1)
+    return None
+
+
+@dataclass(frozen=True)
+class Onset:
+    """The clipping onset: where THD+N departs from its low-level trend."""
+
+    power_w: float
+    vrms: float
+    departure_db: float
+    step: int  # the first step past it
+
+    def to_dict(self) -> dict:
+        return {"power_w": self.power_w, "vrms": self.vrms, "departure_db": self.departure_db,
+                "first_step_past": self.step}
+
+
+def low_level_trend(vrms, thdn_pct, fit_below_vrms: float):
+    """THD+N against level as noise and smooth curvature would have it:
+    thdn^2 = (a / V)^2 + (b V)^2 + (c V^2)^2 (noise of fixed volts, second
+    and third harmonics growing as V and V^2), fitted without negative
+    terms to the steps at or below ``fit_below_vrms``. Returns a function
+    of V, or None with fewer than three such steps."""
+    v, m = np.asarray(vrms, float), np.asarray(thdn_pct, float)
+    sel = v <= fit_below_vrms
+    if sel.sum() < 3:
+        return None
+    vs = v[sel]
+    cols = np.stack([vs**-2.0, vs**2.0, vs**4.0], axis=1)
+    # weight each step by its own size so that every level counts alike
+    w = 1.0 / m[sel] ** 2
+    coef, _ = scipy.optimize.nnls(cols * w[:, None], m[sel] ** 2 * w)
+    return lambda x: np.sqrt(coef[0] * np.asarray(x, float) ** -2.0 + coef[1] * np.asarray(x, float) ** 2.0
+                             + coef[2] * np.asarray(x, float) ** 4.0)
+
+
+def clipping_onset(vrms, power_w, thdn_pct, departure_db: float = ONSET_DB,
+                   fit_margin_db: float = 6.0) -> Onset | None:
+    """Where THD+N first rises ``departure_db`` over its low-level trend.
+
+    The trend is fitted to the steps before the first jump (THD+N rising
+    faster than the cube of the level, which no smooth curvature does:
+    the stage has hit a limit), leaving out the step before it; without a
+    jump, to the steps ``fit_margin_db`` below the top. The crossing is
+    interpolated in log level between the bracketing steps.
+    """
+    v, p, m = (np.asarray(a, float) for a in (vrms, power_w, thdn_pct))
+    start = int(np.nanargmin(m))
+    slope = np.diff(np.log(m)) / np.diff(np.log(v))
+    jumps = [i + 1 for i in range(start, v.size - 1) if slope[i] > JUMP_SLOPE]
+    limit = v[jumps[0] - 2] if jumps and jumps[0] >= 2 else v[-1] * 10 ** (-fit_margin_db / 20)
+    trend = low_level_trend(v, m, limit)
+    if trend is None:
+        return None
+    excess = 20 * np.log10(m / trend(v))
+    for i in range(max(1, start), v.size):
+        if excess[i] >= departure_db:
+            if excess[i - 1] >= departure_db:
+                return Onset(float(p[i - 1]), float(v[i - 1]), departure_db, i - 1)
+            # interpolate the excess (in dB) linearly in log level
+            t = (departure_db - excess[i - 1]) / (excess[i] - excess[i - 1])
+            vo = math.exp(math.log(v[i - 1]) + t * (math.log(v[i]) - math.log(v[i - 1])))
+            return Onset(float(p[i - 1] * (vo / v[i - 1]) ** 2), float(vo), departure_db, i)
+    return None
+
+
+def clipping_half(samples: np.ndarray, dc: float = 0.0, tol: float = SYMMETRY_TOL) -> str:
+    """Which half of a clipped sine is flattened: "positive", "negative" or
+    "symmetric", from its peaks about the DC level (the lower peak is the
+    clipped half)."""
+    x = np.asarray(samples, float) - dc
+    pos, neg = float(np.max(x)), float(-np.min(x))
+    if pos <= 0 or neg <= 0:
+        return "symmetric"
+    ratio = pos / neg
+    if ratio < 1 - tol:
+        return "positive"
+    if ratio > 1 / (1 - tol):
+        return "negative"
+    return "symmetric"
+
+
+@dataclass(frozen=True)
+class PowerStep:
+    """One step of a stepped-level run, as the power report shows it."""
+
+    drive_dbfs: float
+    vrms: float
+    power_w: float
+    thd_pct: float
+    thdn_pct: float
+    harmonics_dbc: dict
+    noise_vrms: float | None
+    valid: bool
+
+    def to_dict(self, supply_w: float | None = None) -> dict:
+        d = {"drive_dbfs": self.drive_dbfs, "vrms": self.vrms, "power_w": self.power_w, "thd_pct": self.thd_pct,
+             "thdn_pct": self.thdn_pct, **{f"h{k}_dbc": v for k, v in self.harmonics_dbc.items()},
+             "noise_vrms": self.noise_vrms, "valid": self.valid}
+        if supply_w:
+            d["efficiency_pct"] = 100.0 * self.power_w / supply_w
+        return d
+
+
+@dataclass(frozen=True)
+class PowerResult:
+    """Power at the set limits, clipping onset and half, efficiency."""
+
+    frequency_hz: float
+    load_ohms: float
+    metric: str  # "thdn" or "thd"
+    steps: tuple[PowerStep, ...]
+    limits: tuple[tuple[float, LimitPoint | None], ...]
+    onset: Onset | None
+    half: str | None
+    supply_v: float | None = None
+    supply_a: float | None = None
+    expected: dict | None = None
+    warnings: tuple[str, ...] = ()
+    info: dict | None = None
+
+    @property
+    def supply_w(self) -> float | None:
+        return None if self.supply_v is None or self.supply_a is None else self.supply_v * self.supply_a
+
+    @property
+    def rated(self) -> LimitPoint | None:
+        """The point at the first (headline) limit."""
+        return self.limits[0][1] if self.limits else None
+
+    def to_dict(self) -> dict:
+        sw = self.supply_w
+        rated = self.rated
+        d = {
+            "kind": "power",
+            "schema_version": 1,
+            **(self.info or {}),
+            "load_ohm": self.load_ohms,
+            "frequency_hz": self.frequency_hz,
+            "limit_metric": self.metric,
+            "power_at_limit_w": {f"{lim:g}": None if pt is None else pt.power_w for lim, pt in self.limits},
+            "limits": [{"limit_pct": lim, **({} if pt is None else pt.to_dict())} for lim, pt in self.limits],
+            "clipping_onset_w": None if self.onset is None else self.onset.power_w,
+            "clipping_onset": None if self.onset is None else self.onset.to_dict(),
+            "clipping_half": self.half,
+            "supply": None if sw is None else {"volts": self.supply_v, "amps": self.supply_a, "watts": sw},
+            "efficiency_pct": None if sw is None or rated is None else 100.0 * rated.power_w / sw,
+            "idle_dissipation_w": sw,
+            "expected": self.expected,
+            "steps": [s.to_dict(sw) for s in self.steps],
+            "warnings": list(self.warnings),
+        }
+        return d
+
+
+def analyze_power(steps, load_ohms: float, metric: str = "thdn", limits_pct=DEFAULT_LIMITS_PCT,
+                  onset_db: float = ONSET_DB, supply_v: float | None = None, supply_a: float | None = None,
+                  samples_of=None, expected: dict | None = None, info: dict | None = None,
+                  warnings: tuple[str, ...] = ()) -> PowerResult:
+    """The power figures of a stepped-level run.
+
+    ``steps`` are (drive dBFS, ToneResult) in rising order, analysed in
+    volts into ``load_ohms``; ``samples_of(i)`` gives the samples of step i
+    and its DC, or None: the top step's show which half clips.
+    """
+    if metric not in ("thdn", "thd"):
+        raise ValueError("metric is 'thdn' or 'thd'")
+    rows = []
+    for drive, r in steps:
+        if r.power_w is None:
+            raise ValueError("every step needs volts and a load")
+        rows.append(PowerStep(drive, r.fundamental_vrms, r.power_w, r.thd_pct, r.thdn_pct,
+                              {h.order: h.level_dbc for h in r.harmonics if 2 <= h.order <= 5},
+                              r.noise_vrms, r.valid))
+    v = [s.vrms for s in rows]
+    p = [s.power_w for s in rows]
+    m = [s.thdn_pct if metric == "thdn" else s.thd_pct for s in rows]
+    points = tuple((float(lim), power_at_limit(v, p, m, lim)) for lim in limits_pct)
+    onset = clipping_onset(v, p, [s.thdn_pct for s in rows], onset_db) if len(rows) >= 4 else None
+    half = None
+    if samples_of is not None and rows:
+        # the top step, the most clipped, shows which half goes first
+        got = samples_of(len(rows) - 1)
+        if got is not None:
+            half = clipping_half(*got)
+    freq = float(steps[0][1].fundamental_hz) if steps else 0.0
+    return PowerResult(freq, load_ohms, metric, tuple(rows), points, onset, half, supply_v, supply_a, expected,
+                       tuple(warnings), info)

@@ -1,0 +1,190 @@
+"""Power at a set distortion, the clipping onset and half, and the stage
+budget, against circuit theory, the textbook class-A analysis of
+REFERENCES.md, hand-worked cases and a direct Fourier-series solution.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+import scipy.integrate
+import scipy.optimize
+
+from benchkit.analysis import power
+from benchkit.analysis.tone import analyze_tone
+from benchkit.budget import ClassABudget, sense_resistor
+from benchkit.capture.stages import make_stage
+
+RATE = 48000
+F0 = 997.0
+
+
+# --- the budget: hand-worked cases ----------------------------------------------------
+
+
+def test_budget_of_the_demo_stage_by_hand():
+    # 24 V rail, 0.8 A bias, 8 ohm, 1 V saturation: I R = 6.4 V < 24/2 - 1 = 11 V,
+    # so the positive (current-limited) half clips first; P = 6.4^2 / (2 x 8) = 2.56 W
+    b = ClassABudget(24.0, 0.8, 8.0, 1.0)
+    assert b.current_limited_vpk == pytest.approx(6.4) and b.rail_limited_vpk == pytest.approx(11.0)
+    assert b.limiting_half == "positive"
+    assert b.max_sine_w == pytest.approx(2.56)
+    assert b.supply_w == pytest.approx(19.2) and b.idle_dissipation_w == pytest.approx(19.2)
+    assert b.max_efficiency_pct == pytest.approx(100 * 2.56 / 19.2)
+    # 4 W into 8 ohm needs Vpk = sqrt(2 x 4 x 8) = 8 V: 1.0 A, and a rail of 2 (8 + 1) = 18 V
+    assert b.bias_for(4.0) == pytest.approx(1.0) and b.rail_for(4.0) == pytest.approx(18.0)
+    # at 1.6 A the current limit (12.8 V) passes the rail limit: the negative half clips first
+    assert ClassABudget(24.0, 1.6, 8.0, 1.0).limiting_half == "negative"
+
+
+def test_class_a_efficiency_is_at_most_a_quarter():
+    # textbook class-A analysis: at I = V / (2 R) and no saturation, P = V^2 / (8 R) of V^2 / (2 R): 25 %
+    assert ClassABudget(24.0, 1.5, 8.0, 0.0).max_efficiency_pct == pytest.approx(25.0)
+    for bias in np.linspace(0.2, 3.0, 15):
+        assert ClassABudget(24.0, float(bias), 8.0, 0.0).max_efficiency_pct <= 25.0 + 1e-9
+
+
+def test_sense_resistor_by_hand():
+    # common practice: the limiter's V_BE is about 0.65 V: 1.5 A needs 0.65 / 1.5 = 0.433 ohm, 0.975 W in it
+    s = sense_resistor(1.5)
+    assert s["sense_ohms"] == pytest.approx(0.4333, abs=1e-4) and s["sense_w"] == pytest.approx(0.975)
+
+
+# --- interpolation and onset ----------------------------------------------------------------
+
+
+def test_power_at_limit_is_exact_on_a_power_law():
+    # between two steps on a straight line in log-log, the log interpolation is exact
+    p = np.array([0.5, 0.9, 1.7, 2.6, 3.4])
+    m = 1.0 * (p / 2.0) ** 1.5  # 1 % exactly at 2 W
+    v = np.sqrt(p * 8.0)
+    pt = power.power_at_limit(v, p, m, 1.0)
+    assert pt.power_w == pytest.approx(2.0, rel=1e-12) and (pt.below, pt.above) == (2, 3)
+    assert pt.vrms == pytest.approx(4.0, rel=1e-12)
+    assert power.power_at_limit(v, p, m, 50.0) is None
+
+
+def test_power_at_limit_skips_the_noise_at_the_lowest_steps():
+    v = np.geomspace(0.05, 5.0, 41)
+    m = np.hypot(0.002 / v, 0.02 * v)  # noise falling, distortion rising
+    m[0] = 0.5  # a noisy first step already over 0.1 %
+    pt = power.power_at_limit(v, v**2 / 8, m, 0.1)
+    assert pt.vrms == pytest.approx(5.0 / 1.0, rel=0.05)  # 0.02 V = 0.1 % at V = 5
+
+
+def test_clipping_onset_finds_the_knee():
+    # noise and a growing H2, then a hard knee at 6.4 V peak (4.525 Vrms)
+    v = np.geomspace(0.05, 6.0, 60)
+    knee = 6.4 / math.sqrt(2)
+    m = np.hypot(0.004 / v, 0.01 * v) + np.where(v > knee, 30.0 * (v / knee - 1), 0.0)
+    on = power.clipping_onset(v, v**2 / 8, m)
+    assert on.vrms == pytest.approx(knee, rel=0.05)
+
+
+# --- against a direct Fourier-series solution ---------------------------------------------------
+
+
+def _clipped_harmonics(amp: float, orders: int) -> np.ndarray:
+    """Fourier-series sine amplitudes of amp sin(t) clipped at +-1, by quadrature."""
+    def b(k):
+        return 2 / math.pi * scipy.integrate.quad(lambda t: np.clip(amp * math.sin(t), -1, 1) * math.sin(k * t),
+                                                  0, math.pi, limit=200)[0]
+    return np.array([b(k) for k in range(1, orders + 1)])
+
+
+def test_hard_clip_power_at_one_percent_matches_the_fourier_series():
+    # THD over the harmonics in the 20 kHz band (H2..H20 at 997 Hz); the
+    # clipped sine's series solved for THD = 1 % directly
+    def thd(amp):
+        b = _clipped_harmonics(amp, 20)
+        return math.sqrt(np.sum(b[1:] ** 2)) / b[0]
+
+    amp = scipy.optimize.brentq(lambda a: thd(a) - 0.01, 1.0001, 2.0, xtol=1e-10)
+    want_w = _clipped_harmonics(amp, 1)[0] ** 2 / 2 / 8.0
+    # a stepped-level run by hand: 0.25 dB steps through the clip, each analysed by the tone core
+    t = np.arange(int(0.5 * RATE)) / RATE
+    steps = []
+    for db in np.arange(-6.0, 4.0, 0.25):
+        a = 10 ** (db / 20)
+        x = np.clip(a * np.sin(2 * np.pi * F0 * t), -1, 1)
+        steps.append((db, analyze_tone(x, RATE, fundamental_hz=F0, volts_per_fs=1.0, load_ohms=8.0)))
+    r = power.analyze_power(steps, 8.0, metric="thd",
+                            samples_of=lambda i: (np.clip(10 ** (steps[i][0] / 20) * np.sin(2 * np.pi * F0 * t), -1, 1), 0.0))
+    assert r.rated.power_w == pytest.approx(want_w, rel=0.01)
+    assert r.half == "symmetric"
+    d = r.to_dict()
+    assert d["kind"] == "power" and d["limit_metric"] == "thd" and set(d["power_at_limit_w"]) == {"1", "0.1", "10"}
+
+
+@pytest.mark.parametrize("bias, half", [(0.8, "positive"), (1.6, "negative")])
+def test_se_class_a_clips_the_half_the_budget_says(bias, half):
+    # the model's transfer past its limits: the current-limited half when
+    # I R is below the rail limit, the rail-limited half when above
+    stage = make_stage("se-class-a", {"bias": bias, "noise_uv": 0.0, "ripple_mv": 0.0})
+    rate = 8 * RATE
+    t = np.arange(int(0.4 * rate)) / rate
+    budget = ClassABudget(24.0, bias, 8.0, 1.0)
+    vin = 1.3 * budget.peak_vpk / 10.0  # 30 % past the ceiling, gain 10
+    out = stage.process(vin * np.sin(2 * np.pi * F0 * t), rate)[len(t) // 2:]
+    assert budget.limiting_half == half
+    assert power.clipping_half(out, float(np.mean(out))) == half
+
+
+# --- the se-class-a stage through the virtual bench -----------------------------------------
+
+
+def _stepped_power(tmp_path, bias: float, name: str):
+    """A stepped-level run of B-2 at ``bias``: 3 dB steps up to 2 dB below
+    the budget's ceiling, then 0.1 dB steps across it (as the adaptive run
+    refines), short steps, analysed for power into 8 ohm."""
+    from benchkit.capture.virtual import virtual_bench
+    from benchkit.power_runs import power_from_steps
+    from benchkit.runs import tone_run
+
+    budget = ClassABudget(24.0, bias, 8.0, 1.0)
+    knee = 20 * math.log10(budget.peak_vpk / 20.0)  # gain 10, 2 V peak per FS at the output
+    levels = [float(x) for x in np.arange(knee - 23, knee - 1.5, 3.0)] + [float(x) for x in np.arange(knee - 1.2, knee + 0.85, 0.1)]
+    bench = virtual_bench("se-class-a", {"bias": bias, "ripple_mv": 0.0}, seed=3)
+    steps = tone_run(bench, tmp_path, F0, levels, name=name, load_ohms=8.0, step_s=0.25, settle_s=0.1)
+    return budget, power_from_steps(steps, 8.0, supply_v=24.0, supply_a=bias, budget=budget)
+
+
+def _model_power_at(bias: float, thd_pct: float) -> float:
+    """The model's own power at a THD, found densely from its transfer
+    (no interface, no run): numpy least squares for H1..H20 of the output,
+    bisection on the level."""
+    stage = make_stage("se-class-a", {"bias": bias, "noise_uv": 0.0, "ripple_mv": 0.0})
+    rate = 8 * RATE
+    t = np.arange(int(0.3 * rate)) / rate
+    keep = slice(len(t) // 2, None)
+    basis = np.concatenate([np.stack([np.sin(2 * np.pi * k * F0 * t[keep]), np.cos(2 * np.pi * k * F0 * t[keep])], 1)
+                            for k in range(1, 21)] + [np.ones((t[keep].size, 1))], axis=1)
+
+    def thd_and_power(vin_pk):
+        stage.reset()
+        out = stage.process(vin_pk * np.sin(2 * np.pi * F0 * t), rate)[keep]
+        c, *_ = np.linalg.lstsq(basis, out, rcond=None)
+        amp = np.hypot(c[0:40:2], c[1:40:2])
+        return 100 * math.sqrt(np.sum(amp[1:] ** 2)) / amp[0], amp[0] ** 2 / (2 * 8.0)
+
+    vin = scipy.optimize.brentq(lambda a: thd_and_power(a)[0] - thd_pct, 0.3, 1.2, xtol=1e-6)
+    return thd_and_power(vin)[1]
+
+
+def test_se_class_a_power_onset_half_and_efficiency(tmp_path):
+    low_b, low = _stepped_power(tmp_path, 0.8, "b08")
+    # textbook class A: the positive, current-limited half clips first at 0.8 A
+    assert low.half == "positive"
+    # the onset within 5 % of the budget's I x R ceiling
+    assert low.onset.power_w == pytest.approx(low_b.max_sine_w, rel=0.05)
+    # the power at 1 % THD+N within 2 % of the model's own dense solution
+    assert low.rated.power_w == pytest.approx(_model_power_at(0.8, 1.0), rel=0.02)
+    # efficiency never above the 25 % of class A (REFERENCES.md)
+    d = low.to_dict()
+    assert max(s["efficiency_pct"] for s in d["steps"]) <= 25.0
+    assert d["efficiency_pct"] == pytest.approx(100 * low.rated.power_w / 19.2)
+    # raising the bias raises the ceiling as the budget predicts
+    high_b, high = _stepped_power(tmp_path, 1.2, "b12")
+    assert high.onset.power_w / low.onset.power_w == pytest.approx(high_b.max_sine_w / low_b.max_sine_w, rel=0.05)
