@@ -70,7 +70,72 @@ def _root(
     """
 
 
+_SIM_HELP = "Simulated stage for --device virtual: ideal, poly, hard-clip, se-class-a (see 'benchkit models')."
+
+# options every live measurement takes: (type, option) by parameter name
+_LIVE = {
+    "device": (Optional[str], lambda: typer.Option(None, "--device", help="'virtual', or a real interface by index or part of its name; default 'virtual' unless BENCHKIT_DEVICE names one.")),
+    "in_device": (Optional[str], lambda: typer.Option(None, "--in-device", help="A separate input interface (its clock offset is measured on the reference).")),
+    "in_channel": (int, lambda: typer.Option(1, "--in-channel", help="Input carrying the stage output (through the pad), from 1.")),
+    "out_channel": (int, lambda: typer.Option(1, "--out-channel", help="Output driving the stage, from 1 (real devices).")),
+    "rate": (float, lambda: typer.Option(48000.0, "--rate", help="Sample rate, Hz (real devices).")),
+    "blocksize": (int, lambda: typer.Option(1024, "--blocksize", help="Frames per audio callback (real devices).")),
+    "latency": (str, lambda: typer.Option("high", "--latency", help="Stream latency: low, high, or seconds (real devices).")),
+    "drive_cap": (float, lambda: typer.Option(-12.0, "--drive-cap", help="Highest drive a real device may get, dBFS peak.")),
+    "override_drive_cap": (bool, lambda: typer.Option(False, "--override-drive-cap", help="Allow up to -0.5 dBFS on a real device: can overload a stage, a pad or a speaker.")),
+    "volts_per_fs": (Optional[float], lambda: typer.Option(None, "--volts-per-fs", help="Volts peak at the stage per full scale of the input (real devices).")),
+    "calibration": (Optional[Path], lambda: typer.Option(None, "--calibration", help="Calibration profile (from 'benchkit calibrate'): results in volts at the stage.")),
+    "gain": (Optional[float], lambda: typer.Option(None, "--gain", help="Expected voltage gain of the stage (V/V); without it a low-level step measures it first.")),
+    "margin": (float, lambda: typer.Option(3.0, "--margin", help="Headroom the top step must keep below the input's full scale, dB.")),
+    "rail": (Optional[float], lambda: typer.Option(None, "--rail", help="The stage's supply, V: refuse a pad that lets it overload the input.")),
+    "pad_rating": (Optional[float], lambda: typer.Option(None, "--pad-rating", help="Power rating of the pad resistors, W.")),
+    "btl": (bool, lambda: typer.Option(False, "--btl", help="The stage has a bridged (BTL) output.")),
+    "sim": (str, lambda: typer.Option("se-class-a", "--sim", help=_SIM_HELP)),
+    "sim_param": (List[str], lambda: typer.Option([], "--sim-param", help="Stage parameter key=value (repeatable), e.g. bias=1.2.")),
+    "sim_pad": (str, lambda: typer.Option("demo", "--sim-pad", help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200).")),
+    "seed": (int, lambda: typer.Option(1, "--seed", help="Seed of the virtual bench (latency, noise).")),
+}
+
+
+def _option_group(name: str, spec: dict):
+    """A decorator giving a command a group of options, ``spec`` (type
+    and option by parameter name); they reach it as one dict, ``name``,
+    after its own options."""
+
+    def decorate(command):
+        own = [p for p in inspect.signature(command, eval_str=True).parameters.values() if p.name != name]
+        extra = [inspect.Parameter(key, inspect.Parameter.KEYWORD_ONLY, default=make(), annotation=kind)
+                 for key, (kind, make) in spec.items()]
+
+        @functools.wraps(command)
+        def wrapper(**kwargs):
+            return command(**{name: {key: kwargs.pop(key) for key in spec}}, **kwargs)
+
+        wrapper.__signature__ = inspect.Signature(
+            [p.replace(kind=inspect.Parameter.KEYWORD_ONLY) for p in own] + extra)
+        del wrapper.__wrapped__  # typer must read the new signature, not the command's
+        return wrapper
+
+    return decorate
+
+
+_live_options = _option_group("live", _LIVE)
+
+# how power figures are read from stepped levels (analyze --power, power)
+_FIGURES = {
+    "limits": (List[float], lambda: typer.Option(list(DEFAULT_LIMITS_PCT), "--limit", help="Distortion limits, percent (repeatable; the first is the rated point; a power run stops past the highest).")),
+    "metric": (str, lambda: typer.Option("thdn", "--metric", help="What the limits apply to: thdn or thd.")),
+    "onset_db": (float, lambda: typer.Option(ONSET_DB, "--onset-db", help="Clipping onset: THD+N this far over its low-level trend, dB.")),
+    "supply_volts": (Optional[float], lambda: typer.Option(None, "--supply-volts", help="The stage's supply voltage: efficiency and dissipation.")),
+    "supply_amps": (Optional[float], lambda: typer.Option(None, "--supply-amps", help="Its supply current (class A: about the bias).")),
+    "bias": (Optional[float], lambda: typer.Option(None, "--bias", help="Describe the stage (se-class-a, with --rail): its bias, A; shows the expected ceiling.")),
+    "vsat": (float, lambda: typer.Option(1.0, "--vsat", help="Describe the stage: its saturation voltage, V.")),
+}
+_figure_options = _option_group("figures", _FIGURES)
+
+
 @app.command()
+@_figure_options
 def analyze(
     files: List[Path] = typer.Argument(..., help="WAV or FLAC captures.", show_default=False),
     channel: int = typer.Option(1, "--channel", "-c", help="Channel to analyse, numbered from 1."),
@@ -90,15 +155,9 @@ def analyze(
     ref_freq: float = typer.Option(1000.0, "--ref-freq", help="Response captures: the frequency the level is referred to, Hz."),
     smooth: Optional[int] = typer.Option(None, "--smooth", help="Response captures: smooth the plotted magnitude over 1/N octave."),
     power: bool = typer.Option(False, "--power", help="Stepped captures: power at the distortion limits, clipping onset and half (needs --load and volts)."),
-    limits: List[float] = typer.Option(list(DEFAULT_LIMITS_PCT), "--limit", help="Distortion limits for --power, percent (repeatable; the first is the rated point)."),
-    metric: str = typer.Option("thdn", "--metric", help="What the limits apply to: thdn or thd."),
-    onset_db: float = typer.Option(ONSET_DB, "--onset-db", help="Clipping onset: THD+N this far over its low-level trend, dB."),
-    supply_volts: Optional[float] = typer.Option(None, "--supply-volts", help="The stage's supply voltage: efficiency and dissipation."),
-    supply_amps: Optional[float] = typer.Option(None, "--supply-amps", help="Its supply current (class A: about the bias)."),
     rail: Optional[float] = typer.Option(None, "--rail", help="Describe the stage (se-class-a): its rail, V, for the expected ceiling."),
-    bias: Optional[float] = typer.Option(None, "--bias", help="Describe the stage: its bias current, A."),
-    vsat: float = typer.Option(1.0, "--vsat", help="Describe the stage: its saturation voltage, V."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
+    figures: dict = None,
 ) -> None:
     """Analyse recorded captures offline: tones (THD, THD+N, harmonics, noise) or responses (sweeps, stepped sines).
 
@@ -111,7 +170,7 @@ def analyze(
         band = units.parse_band(bandwidth)
         sweep_spec = _parse_sweep(sweep) if sweep else None
         profile = load_profile(calibration) if calibration is not None else None
-        power_opts = _power_options(power, load, limits, metric, onset_db, supply_volts, supply_amps, rail, bias, vsat)
+        power_opts = _power_options(power, load, rail, **figures) if power else None
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
@@ -132,12 +191,10 @@ def analyze(
         raise typer.Exit(EXIT_BAD_INPUT)
 
 
-def _power_options(power, load, limits, metric, onset_db, supply_volts, supply_amps, rail, bias, vsat) -> dict | None:
-    """The checked options of a power analysis, or None without --power."""
+def _power_options(power, load, rail, limits, metric, onset_db, supply_volts, supply_amps, bias, vsat) -> dict:
+    """The checked options of a power analysis."""
     from benchkit.budget import ClassABudget
 
-    if not power:
-        return None
     if load is None:
         raise BenchkitError("--power needs --load (ohms)")
     if metric not in ("thdn", "thd"):
@@ -295,7 +352,6 @@ def _write_steps_reports(steps, path: Path, channel: int, out: Path) -> list[Pat
 
 # --- live measurements ---------------------------------------------------------
 
-_SIM_HELP = "Simulated stage for --device virtual: ideal, poly, hard-clip, se-class-a (see 'benchkit models')."
 
 
 def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pad: str, seed: int, real: dict | None = None):
@@ -349,46 +405,6 @@ def devices(as_json: bool = typer.Option(False, "--json", help="Print the list a
         _err(f"benchkit: {note}")
 
 
-# options every live measurement takes: (type, option) by parameter name
-_LIVE = {
-    "device": (Optional[str], lambda: typer.Option(None, "--device", help="'virtual', or a real interface by index or part of its name; default 'virtual' unless BENCHKIT_DEVICE names one.")),
-    "in_device": (Optional[str], lambda: typer.Option(None, "--in-device", help="A separate input interface (its clock offset is measured on the reference).")),
-    "in_channel": (int, lambda: typer.Option(1, "--in-channel", help="Input carrying the stage output (through the pad), from 1.")),
-    "out_channel": (int, lambda: typer.Option(1, "--out-channel", help="Output driving the stage, from 1 (real devices).")),
-    "rate": (float, lambda: typer.Option(48000.0, "--rate", help="Sample rate, Hz (real devices).")),
-    "blocksize": (int, lambda: typer.Option(1024, "--blocksize", help="Frames per audio callback (real devices).")),
-    "latency": (str, lambda: typer.Option("high", "--latency", help="Stream latency: low, high, or seconds (real devices).")),
-    "drive_cap": (float, lambda: typer.Option(-12.0, "--drive-cap", help="Highest drive a real device may get, dBFS peak.")),
-    "override_drive_cap": (bool, lambda: typer.Option(False, "--override-drive-cap", help="Allow up to -0.5 dBFS on a real device: can overload a stage, a pad or a speaker.")),
-    "volts_per_fs": (Optional[float], lambda: typer.Option(None, "--volts-per-fs", help="Volts peak at the stage per full scale of the input (real devices).")),
-    "calibration": (Optional[Path], lambda: typer.Option(None, "--calibration", help="Calibration profile (from 'benchkit calibrate'): results in volts at the stage.")),
-    "gain": (Optional[float], lambda: typer.Option(None, "--gain", help="Expected voltage gain of the stage (V/V); without it a low-level step measures it first.")),
-    "margin": (float, lambda: typer.Option(3.0, "--margin", help="Headroom the top step must keep below the input's full scale, dB.")),
-    "rail": (Optional[float], lambda: typer.Option(None, "--rail", help="The stage's supply, V: refuse a pad that lets it overload the input.")),
-    "pad_rating": (Optional[float], lambda: typer.Option(None, "--pad-rating", help="Power rating of the pad resistors, W.")),
-    "btl": (bool, lambda: typer.Option(False, "--btl", help="The stage has a bridged (BTL) output.")),
-    "sim": (str, lambda: typer.Option("se-class-a", "--sim", help=_SIM_HELP)),
-    "sim_param": (List[str], lambda: typer.Option([], "--sim-param", help="Stage parameter key=value (repeatable), e.g. bias=1.2.")),
-    "sim_pad": (str, lambda: typer.Option("demo", "--sim-pad", help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200).")),
-    "seed": (int, lambda: typer.Option(1, "--seed", help="Seed of the virtual bench (latency, noise).")),
-}
-
-
-def _live_options(command):
-    """Give a command the options every live measurement takes; they
-    reach it as one dict, ``live``, after its own options."""
-    own = [p for p in inspect.signature(command, eval_str=True).parameters.values() if p.name != "live"]
-    extra = [inspect.Parameter(name, inspect.Parameter.KEYWORD_ONLY, default=make(), annotation=kind)
-             for name, (kind, make) in _LIVE.items()]
-
-    @functools.wraps(command)
-    def wrapper(**kwargs):
-        return command(live={name: kwargs.pop(name) for name in _LIVE}, **kwargs)
-
-    wrapper.__signature__ = inspect.Signature(
-        [p.replace(kind=inspect.Parameter.KEYWORD_ONLY) for p in own] + extra)
-    del wrapper.__wrapped__  # typer must read the new signature, not the command's
-    return wrapper
 
 
 def _live_setup(live: dict, ref_channel: int | None):
@@ -579,6 +595,80 @@ def _write_response_reports(result, path: Path, channel: int, out: Path, smooth:
 
 
 @app.command()
+@_live_options
+@_figure_options
+def power(
+    load: float = typer.Option(..., "--load", help="Load resistance, ohms (a dummy load of the right rating)."),
+    frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz."),
+    start: Optional[float] = typer.Option(None, "--start", help="First drive level, dBFS (default: 40 dB below the expected maximum)."),
+    step_db: float = typer.Option(1.0, "--step-db", help="Step while THD+N rises slowly, dB (a quarter of it once it rises fast)."),
+    fine_db: float = typer.Option(0.1, "--fine-db", help="Bisect until each limit lies between steps this close, dB."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices)."),
+    out: Optional[Path] = typer.Option(None, "--out", help="Run folder (default: power-<time>)."),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
+    live: dict = None,
+    figures: dict = None,
+) -> None:
+    """Measure the power at set distortion limits: one stream of rising steps, each next level chosen from the last.
+
+    Reports the power where THD+N (or THD) crosses each limit (1 %, 0.1 %
+    and 10 % by default), interpolated on log axes between the bracketing
+    steps, the clipping onset, which half clips first, and with the supply
+    known the efficiency and idle dissipation; beside the expected ceiling
+    when --rail and --bias describe the stage.
+
+    Example: benchkit power --load 8 --rail 24 --bias 0.8 --supply-volts 24 --supply-amps 0.8
+
+    Safety: this drives the stage into clipping at full power. Use a dummy
+    load rated for the power (never a speaker), mind the heat sink and the
+    load's temperature, and keep the pad rated for the highest output.
+    Ctrl-C fades the output to silence and reports the completed steps.
+    """
+    from datetime import datetime
+
+    from benchkit import runs
+    from benchkit.power_runs import power_run
+    from benchkit.report import summary
+
+    with _live_run():
+        opts = _power_options(True, load, live["rail"], **figures)
+        if step_db <= 0 or fine_db <= 0:
+            raise BenchkitError("--step-db and --fine-db must be positive")
+        backend, profile = _live_setup(live, ref_channel)
+        in_channel, calibration = live["in_channel"], live["calibration"]
+        if ref_channel is None and backend.name == "virtual":
+            ref_channel = backend.reference_input()
+        cap = -0.5 if backend.name == "virtual" else backend.drive_cap_dbfs
+        gain_fs = runs.probe_gain(backend, frequency, -40.0, in_channel)
+        # the highest drive: the cap, or where the input would come within the margin of full scale
+        top = min(cap, -live["margin"] - units.db_from_ratio(gain_fs))
+        _err(f"pre-flight: a -40 dBFS step measured {units.db_from_ratio(gain_fs):+.1f} dB from output to input")
+        plan = runs.plan_run(backend, profile, [top], frequency, in_channel, None, live["margin"], None,
+                             live["pad_rating"], load, live["btl"], say=_err, gain_fs=gain_fs)
+        for w in plan.warnings:
+            _err(f"warning: {w}")
+        expected = top
+        budget = opts["budget"]
+        scale = plan.stage_vpk[0] / 10 ** (top / 20) if plan.stage_vpk and plan.stage_vpk[0] else None
+        if budget is not None and scale:
+            expected = min(top, units.db_from_ratio(budget.peak_vpk / scale))
+        first = start if start is not None else expected - 40.0
+        _err(f"steps from {first:.1f} dBFS, at most {top:.1f} dBFS (the input's margin or the drive cap)")
+        folder = _report_folder(out or Path(f"power-{datetime.now():%Y%m%d-%H%M%S}"))
+        result = power_run(backend, folder, frequency, first, top, load, in_channel, ref_channel, opts["metric"],
+                           opts["limits_pct"], opts["onset_db"], opts["supply_v"], opts["supply_a"], budget, profile,
+                           None if calibration is None else str(calibration), step_db=step_db, fine_db=fine_db,
+                           warnings=plan.warnings, input_margin_db=live["margin"])
+        info = result.info or {}
+        _err(summary.power_summary(result, f"{frequency:g} Hz into {load:g} ohm: {info.get('steps_played')} steps, "
+                                           f"{info.get('stimulus_s', 0):.1f} s; stopped: {info.get('stop_reason')}"))
+        written = _write_power_reports(result, folder / "capture.wav", in_channel, folder)
+    _finish_run(written, folder, result.to_dict(), as_json)
+    if info.get("interrupted"):
+        raise typer.Exit(130)
+
+
+@app.command()
 def calibrate(
     out: Path = typer.Option(..., "--out", help="Where to write the profile (JSON)."),
     reading: Optional[str] = typer.Option(None, "--reading", help="Voltmeter reading at the output jack while the calibration tone plays, e.g. 0.1414V (Vrms)."),
@@ -743,9 +833,7 @@ def pad(
 @app.command()
 def budget(
     rail: float = typer.Option(..., "--rail", help="Supply rail, V."),
-    bias: float = typer.Option(..., "--bias", help="Bias current of the constant-current pull-up, A."),
     load: float = typer.Option(8.0, "--load", help="Load resistance, ohms."),
-    vsat: float = typer.Option(1.0, "--vsat", help="Saturation voltage at the negative swing, V."),
     target_power: Optional[float] = typer.Option(None, "--target-power", help="Power wanted into the load, W: the bias and rail it needs."),
     limit_current: Optional[float] = typer.Option(None, "--limit-current", help="Current a base-emitter limiter should hold, A: its sense resistor."),
     vbe: float = typer.Option(0.65, "--vbe", help="The limiter transistor's V_BE, V (about 0.6-0.7 V, falling about 2 mV per degC)."),

@@ -8,8 +8,9 @@ ambient 23 degC. Each bias gets a 997 Hz tone at several levels; the report
 folder holds every capture, its analysis and a before/after comparison.
 At 1.2 A a synchronized sweep from 2 Hz gives the response (the output
 capacitor's corner into the load, the capacitor estimated from it) and
-distortion against frequency. Later capabilities (power, drift) add their
-parts here.
+distortion against frequency; at each bias a power run finds the power at
+1 %, 0.1 % and 10 % THD+N beside the class-A budget's ceiling. Later
+capabilities (drift) add their parts here.
 """
 
 from __future__ import annotations
@@ -18,7 +19,10 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
+from benchkit.budget import ClassABudget
+from benchkit import units
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
+from benchkit.power_runs import power_run
 from benchkit.report import plots, summary, tables
 from benchkit.responses import response_run
 from benchkit.runs import StepsResult, compare_steps, tone_run
@@ -35,6 +39,10 @@ AMBIENT_C = 23.0
 SWEEP_SPAN_HZ = (2.0, 22000.0)
 SWEEP_S = 10.0
 SWEEP_DBFS = -20.0
+#: The stage as designed: 24 V rail, 1 V saturation; gain 10 and 2 V peak
+#: per FS at the interface output put the drive for a stage peak V at
+#: 20 log10(V / 20) dBFS.
+RAIL_V, VSAT_V = 24.0, 1.0
 
 
 @dataclass(frozen=True)
@@ -49,7 +57,7 @@ class DemoReport:
 def run_demo(out: Path, seed: int = 1, say: Callable[[str], None] = lambda _m: None) -> DemoReport:
     """Run the demo scenario and write its report folder."""
     out.mkdir(parents=True, exist_ok=True)
-    runs, files, texts = [], [], []
+    runs, powers, files, texts = [], [], [], []
     for i, bias in enumerate(BIASES_A):
         label = f"bias {bias:g} A"
         say(f"virtual bench: stage B-2 at {label}, {FREQUENCY_HZ:g} Hz at {len(DRIVE_DBFS)} levels")
@@ -72,6 +80,19 @@ def run_demo(out: Path, seed: int = 1, say: Callable[[str], None] = lambda _m: N
             files.append(tables.write_harmonics_csv(s.result, folder / f"{stem}.harmonics.csv"))
         files.append(plots.steps_png([(label, steps)], folder / "tones.thdn.png", f"Test stage B-2, {label}: THD+N"))
         texts.append(summary.steps_summary(steps, f"Test stage B-2, {label}"))
+        say(f"virtual bench: stage B-2 at {label}, power run to 10 % THD+N")
+        budget = ClassABudget(RAIL_V, bias, LOAD_OHMS, VSAT_V)
+        first = units.db_from_ratio(budget.peak_vpk / 20.0) - 40.0
+        pw_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 11 + i)
+        pw = power_run(pw_bench, folder, FREQUENCY_HZ, first, -3.0, LOAD_OHMS, ref_channel=pw_bench.reference_input(),
+                       supply_v=RAIL_V, supply_a=bias, budget=budget, name="power",
+                       note=f"demo: Test stage B-2 (invented), {label}")
+        powers.append((label, pw))
+        files += [folder / "power.wav", folder / "power.json",
+                  tables.write_json(pw.to_dict(), folder / "power.result.json"),
+                  tables.write_power_csv(pw, folder / "power.csv"),
+                  plots.power_png(pw, folder / "power.png", f"Test stage B-2, {label}")]
+        texts.append(summary.power_summary(pw, f"Test stage B-2, {label}: power into {LOAD_OHMS:g} ohm"))
     label = f"bias {BIASES_A[-1]:g} A"
     say(f"virtual bench: stage B-2 at {label}, sweep {SWEEP_SPAN_HZ[0]:g} Hz to {SWEEP_SPAN_HZ[1]:g} Hz")
     bench = virtual_bench("se-class-a", {"bias": BIASES_A[-1], "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 7)

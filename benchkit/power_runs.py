@@ -9,7 +9,12 @@ from the samples of the first step past the clipping onset.
 
 from __future__ import annotations
 
+import math
+import threading
+from dataclasses import replace
 from pathlib import Path
+
+import numpy as np
 
 from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB, PowerResult, analyze_power
 from benchkit.budget import ClassABudget
@@ -29,9 +34,10 @@ def power_from_steps(steps: StepsResult, load_ohms: float, metric: str = "thdn",
         raise BenchkitError("power needs volts at the stage: give --calibration or --volts-per-fs, and --load")
     ordered = sorted(steps.steps, key=lambda s: s.drive_dbfs)
     warnings = list(steps.warnings)
-    if [s.drive_dbfs for s in ordered] != [s.drive_dbfs for s in steps.steps]:
-        warnings.append("the steps did not rise in order: sorted by drive")
     side = read_capture(steps.file, steps.channel).sidecar
+    adaptive = bool((side.get("stimulus") or {}).get("adaptive"))
+    if not adaptive and [s.drive_dbfs for s in ordered] != [s.drive_dbfs for s in steps.steps]:
+        warnings.append("the steps did not rise in order: sorted by drive")
     segs = sorted((side.get("stimulus") or {}).get("segments") or [], key=lambda s: float(s["level_dbfs"]))
     takes = {}
 
@@ -57,3 +63,313 @@ def power_from_steps(steps: StepsResult, load_ohms: float, metric: str = "thdn",
             "calibration": steps.calibration}
     return analyze_power([(s.drive_dbfs, s.result) for s in ordered], load_ohms, metric, limits_pct, onset_db,
                          supply_v, supply_a, samples_of, expected, info, tuple(warnings))
+
+
+#: Climbing: this step at first, a quarter of it once THD+N rises fast.
+STEP_DB = 1.0
+#: Bisection stops when each limit is bracketed this finely.
+FINE_DB = 0.1
+#: THD+N rising faster than level^FAST_SLOPE between steps: refine.
+FAST_SLOPE = 3.0
+
+
+class LevelPlanner:
+    """Chooses each next drive level of a stepped-level run from the
+    results so far: ``step_db`` steps up, a quarter of that once THD+N
+    rises fast, and once the highest limit is passed, bisection until
+    every limit lies between two steps at most ``fine_db`` apart.
+    Levels are dBFS at the interface output; metric in percent."""
+
+    def __init__(self, start_dbfs: float, max_dbfs: float, limits_pct=DEFAULT_LIMITS_PCT,
+                 step_db: float = STEP_DB, fine_db: float = FINE_DB):
+        if start_dbfs > max_dbfs:
+            raise BenchkitError(f"the first step ({start_dbfs:g} dBFS) is above the highest allowed ({max_dbfs:g} dBFS)")
+        self.start, self.max_dbfs = float(start_dbfs), float(max_dbfs)
+        self.limits = sorted(float(x) for x in limits_pct)
+        self.step_db, self.fine_db = step_db, fine_db
+        self.done: list[tuple[float, float]] = []
+        self.reason = ""
+
+    def first(self) -> float:
+        return self.start
+
+    def next(self, level_dbfs: float, metric_pct: float) -> float | None:
+        """Record a step; the next level, or None when the run is complete
+        (``reason`` says why)."""
+        self.done.append((float(level_dbfs), float(metric_pct)))
+        pts = sorted(self.done)
+        levels = [p[0] for p in pts]
+        metric = [p[1] for p in pts]
+        if max(metric) < self.limits[-1]:
+            top = levels[-1]
+            fast = len(pts) >= 2 and metric[-2] > 0 and (
+                math.log(metric[-1] / metric[-2]) / math.log(10 ** ((levels[-1] - levels[-2]) / 20)) > FAST_SLOPE)
+            nxt = top + (self.step_db / 4 if fast else self.step_db)
+            if nxt > self.max_dbfs + 1e-9:
+                if top < self.max_dbfs - 1e-9:
+                    return self.max_dbfs
+                self.reason = f"the drive limit ({self.max_dbfs:g} dBFS) was reached before {self.limits[-1]:g} %"
+                return None
+            return nxt
+        low = int(np.argmin(metric))
+        for lim in self.limits:
+            above = next((i for i in range(low, len(pts)) if metric[i] >= lim), None)
+            if above is None or above == 0:
+                continue
+            lo, hi = levels[above - 1], levels[above]
+            if hi - lo > self.fine_db + 1e-9:
+                return round((lo + hi) / 2, 6)
+        self.reason = f"every limit is bracketed within {self.fine_db:g} dB"
+        return None
+
+
+class AdaptiveSteps:
+    """A stepped-level stimulus that listens: each next level is chosen
+    by a :class:`LevelPlanner` from the analysis of the step just
+    recorded, while the stream runs (silence fills the wait).
+
+    It offers what a backend plays (``render``, ``samples``, ``segments``,
+    the marker) and what an interactive backend feeds (``listen`` with
+    each recorded block, ``stop`` when the backend must end the run).
+    Before each step it checks that the input's peak, scaled from the last
+    step, keeps ``input_margin_db`` below full scale.
+    """
+
+    def __init__(self, planner: LevelPlanner, frequency_hz: float, rate: float, metric: str = "thdn",
+                 in_channel: int = 1, ref_channel: int | None = None, out_channel: int = 1, n_out: int = 2,
+                 lead_s: float = 0.05, step_s: float = 0.5, settle_s: float = 0.2, gap_s: float = 0.05,
+                 input_margin_db: float = 3.0, max_s: float = 600.0):
+        from benchkit import signals
+
+        self._signals = signals
+        self.planner, self.frequency_hz, self.sample_rate_hz, self.metric = planner, float(frequency_hz), float(rate), metric
+        self.in_col, self.ref_col = in_channel - 1, (ref_channel or in_channel) - 1
+        self.out_col, self.n_out = out_channel - 1, n_out
+        self.step_s, self.settle_s, self.gap_s = step_s, settle_s, gap_s
+        self.input_limit = 10 ** (-input_margin_db / 20)
+        self.max_samples = int(max_s * rate)
+        self.marker = signals.marker(rate)
+        self.marker_start = int(lead_s * rate)
+        head = np.concatenate([np.zeros(self.marker_start), self.marker, np.zeros(int(signals.AFTER_MARKER_S * rate))])
+        self.head_n = head.size
+        self._chunks: list[np.ndarray] = []
+        self._rendered = 0
+        self._queue: list[np.ndarray] = [head]
+        self.segments: list = []
+        self._input = np.zeros((0,))
+        self._ref = np.zeros((0,))
+        self.latency: int | None = None
+        self.finished = False
+        self.stop_reason = ""
+        self._lock = threading.Lock()
+        self.description = {"kind": "stepped-tones", "purpose": "power", "frequency_hz": self.frequency_hz,
+                            "levels_dbfs": [], "step_s": step_s, "settle_s": settle_s, "out_channel": out_channel,
+                            "adaptive": True}
+        self._schedule(planner.first())
+
+    # --- what a backend plays ----------------------------------------------
+    @property
+    def n_samples(self) -> int:
+        return self._rendered if self.finished and not self._queue else self.max_samples
+
+    @property
+    def samples(self) -> np.ndarray:
+        """What has been played so far (all of it, once the run is over)."""
+        mono = np.concatenate(self._chunks) if self._chunks else np.zeros(0)
+        out = np.zeros((mono.size, self.n_out))
+        out[:, self.out_col] = mono
+        return out
+
+    @property
+    def duration_s(self) -> float:
+        return self._rendered / self.sample_rate_hz
+
+    def render(self, start: int, frames: int) -> np.ndarray:
+        """The next ``frames`` (fewer, none at all, once the run is over)."""
+        with self._lock:
+            parts, need = [], frames
+            while need and self._queue:
+                head = self._queue[0]
+                take = head[:need]
+                parts.append(take)
+                need -= take.size
+                if take.size == head.size:
+                    self._queue.pop(0)
+                else:
+                    self._queue[0] = head[take.size:]
+            if need and not self.finished:
+                parts.append(np.zeros(need))  # waiting for the next decision
+            mono = np.concatenate(parts) if parts else np.zeros(0)
+            self._chunks.append(mono)
+            self._rendered += mono.size
+            if self._rendered > self.max_samples and not self.finished:
+                self._finish("the run reached its longest allowed duration")
+        out = np.zeros((mono.size, self.n_out))
+        out[:, self.out_col] = mono
+        return out
+
+    # --- what a listening backend feeds --------------------------------------
+    def listen(self, block: np.ndarray, pos: int) -> None:
+        """Recorded frames ``block`` starting at raw frame ``pos``."""
+        if self.finished:
+            return
+        self._input = np.concatenate([self._input, block[:, self.in_col]])
+        self._ref = np.concatenate([self._ref, block[:, self.ref_col]])
+        if self.latency is None:
+            self._find_latency()
+            if self.latency is None:
+                return
+        seg = self.segments[-1]
+        if self._input.size < seg.end + self.latency:
+            return
+        self._decide(seg)
+
+    def stop(self, reason: str) -> None:
+        """End the run now, fading out whatever is playing."""
+        with self._lock:
+            self._finish(reason)
+
+    # --- internals ---------------------------------------------------------------
+    def _finish(self, reason: str) -> None:
+        fade = int(0.02 * self.sample_rate_hz)
+        rest = np.concatenate(self._queue) if self._queue else np.zeros(0)
+        tail = rest[:fade] * np.linspace(1.0, 0.0, min(fade, rest.size)) if rest.size else rest
+        self._queue = [tail] if tail.size else []
+        self.finished = True
+        self.stop_reason = self.stop_reason or reason
+
+    def _find_latency(self) -> None:
+        from benchkit.capture.align import find_marker
+
+        if self._ref.size < self.head_n:
+            return
+        try:
+            found = find_marker(self._ref[: self.head_n + min(self._ref.size - self.head_n, int(self.sample_rate_hz))],
+                                self.marker)
+        except BenchkitError:
+            if self._ref.size > self.head_n + 2 * self.sample_rate_hz:
+                self.stop("the alignment marker did not come back: check the wiring from the output to the input")
+            return
+        self.latency = found - self.marker_start
+
+    def _decide(self, seg) -> None:
+        from benchkit.analysis.tone import analyze_tone
+
+        lat = self.latency
+        x = self._input[seg.settled + lat: seg.end + lat]
+        r = analyze_tone(x, self.sample_rate_hz, fundamental_hz=self.frequency_hz)
+        value = r.thdn_pct if self.metric == "thdn" else r.thd_pct
+        nxt = self.planner.next(seg.level_dbfs, value)
+        if nxt is None:
+            self.stop(self.planner.reason)
+            return
+        # pre-flight for the next step: the input's peak, scaled from this one
+        predicted = r.peak_fs * 10 ** ((nxt - seg.level_dbfs) / 20)
+        if r.clipped or predicted > self.input_limit:
+            self.stop(f"the next step ({nxt:.2f} dBFS) would reach {20 * math.log10(max(predicted, 1e-12)):.1f} dBFS "
+                      "at the input, over its limit: use a larger pad")
+            return
+        self._schedule(nxt)
+
+    def _schedule(self, level: float) -> None:
+        s = self._signals
+        s.check_level(level)
+        rate = self.sample_rate_hz
+        x = s.tone(self.frequency_hz, level, self.settle_s + self.step_s + 2 * s.FADE_S, rate)
+        fade_n = int(round(s.FADE_S * rate))
+        with self._lock:
+            start = self._rendered + sum(q.size for q in self._queue)
+            settled = start + fade_n + int(round(self.settle_s * rate))
+            self.segments.append(s.Segment(start, start + x.size, settled, start + x.size - fade_n,
+                                           self.frequency_hz, float(level), self.out_col + 1))
+            self.description["levels_dbfs"].append(float(level))
+            self._queue += [x, np.zeros(int(self.gap_s * rate))]
+
+
+def power_run(
+    backend,
+    folder: Path,
+    frequency_hz: float,
+    start_dbfs: float,
+    max_dbfs: float,
+    load_ohms: float,
+    channel: int = 1,
+    ref_channel: int | None = None,
+    metric: str = "thdn",
+    limits_pct=DEFAULT_LIMITS_PCT,
+    onset_db: float = ONSET_DB,
+    supply_v: float | None = None,
+    supply_a: float | None = None,
+    budget: ClassABudget | None = None,
+    calibration=None,
+    calibration_file: str | None = None,
+    note: str = "",
+    warnings: tuple[str, ...] = (),
+    name: str = "capture",
+    step_db: float = STEP_DB,
+    fine_db: float = FINE_DB,
+    step_s: float = 0.3,
+    settle_s: float = 0.15,
+    input_margin_db: float = 3.0,
+) -> PowerResult:
+    """A stepped-level run to the highest limit: one stream, each next
+    level chosen from the step just recorded; the capture and its sidecar
+    on disk before the analysis; an interrupted run keeps (and reports)
+    its completed steps, with ``info["interrupted"]`` set."""
+    from benchkit import capture
+    from benchkit.runs import _capture_sidecar, analyze_steps, apply_calibration
+    from benchkit.recordings import write_capture
+
+    planner = LevelPlanner(start_dbfs, max_dbfs, limits_pct, step_db, fine_db)
+    stim = AdaptiveSteps(planner, frequency_hz, backend.sample_rate_hz, metric, in_channel=channel,
+                         ref_channel=ref_channel or backend.reference_input(), out_channel=getattr(backend, "drive_output", 1),
+                         n_out=backend.n_outputs, lead_s=getattr(backend, "lead_s", 0.05), step_s=step_s,
+                         settle_s=settle_s, input_margin_db=input_margin_db)
+    partial = folder / f"{name}.partial.wav"
+    interrupted = None
+    try:
+        cap = capture.run(backend, stim, partial)
+    except BenchkitError as exc:
+        if not getattr(exc, "partial", None) or stim.latency is None:
+            raise
+        interrupted = exc
+        stim.stop(str(exc))
+        cap = _salvage(partial, stim, backend)
+    end = cap.samples.shape[0] if cap.stopped_at is None else cap.stopped_at
+    done = [s for s in stim.segments if s.end <= end and not cap.spoiled(s.settled, s.end)]
+    dropped = len(stim.segments) - len(done)
+    side = _capture_sidecar(cap, stim, channel, backend, note)
+    side["stimulus"]["segments"] = [s.to_dict() for s in done]
+    side["stimulus"]["levels_dbfs"] = [s.level_dbfs for s in done]
+    side["stop_reason"] = stim.stop_reason
+    if calibration is not None:
+        apply_calibration(side, calibration, calibration_file, channel)
+    notes = list(warnings)
+    if interrupted is not None:
+        notes.append(f"interrupted ({interrupted}): the {len(done)} completed steps are reported")
+    elif dropped:
+        notes.append(f"{dropped} step(s) were cut short ({stim.stop_reason}) and are left out")
+    side["warnings"] = notes
+    path = write_capture(folder / f"{name}.wav", cap.samples, cap.sample_rate_hz, side)
+    partial.unlink(missing_ok=True)
+    if len(done) < 2:
+        raise BenchkitError(f"the run ended after {len(done)} step(s) ({stim.stop_reason or interrupted}): "
+                            f"nothing to report (capture kept: {path})")
+    steps = analyze_steps(read_capture(path, channel), load_ohms=load_ohms)
+    result = power_from_steps(steps, load_ohms, metric, limits_pct, onset_db, supply_v, supply_a, budget)
+    info = {**(result.info or {}), "stop_reason": stim.stop_reason, "interrupted": None if interrupted is None else str(interrupted),
+            "steps_played": len(stim.segments), "stimulus_s": stim.duration_s, "latency_samples": cap.latency_samples}
+    return replace(result, info=info)
+
+
+def _salvage(partial: Path, stim: AdaptiveSteps, backend):
+    """The aligned capture of an interrupted run, from its partial raw
+    recording and the latency the run found."""
+    import soundfile as sf
+
+    from benchkit.capture import Capture
+
+    raw, _rate = sf.read(str(partial), always_2d=True, dtype="float64")
+    aligned = raw[stim.latency:]
+    return Capture(samples=aligned, sample_rate_hz=stim.sample_rate_hz, latency_samples=stim.latency,
+                   inputs=backend.inputs(), device=backend.name, events=("interrupted",))

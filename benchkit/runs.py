@@ -190,10 +190,11 @@ def floor_warning(result: ToneResult, floor: dict | None) -> str | None:
 
 
 def plan_run(backend, profile, drive, frequency_hz, channel, gain, margin_db, rail_v, pad_rating_w, load_ohms,
-             bridged, say=lambda _m: None):
+             bridged, say=lambda _m: None, gain_fs: float | None = None):
     """Pre-flight for a stepped-tone run: gather the scales (calibration, or
-    the virtual bench's own), take the stage's gain as given or measure it
-    with a low-level probe step, and let :func:`benchkit.preflight.check`
+    the virtual bench's own), take the stage's gain as given (V/V, or
+    ``gain_fs`` input FS per output FS) or measure it with a low-level
+    probe step, and let :func:`benchkit.preflight.check`
     refuse the run before it plays if it would overload the input or the pad."""
     from benchkit import preflight
 
@@ -211,7 +212,9 @@ def plan_run(backend, profile, drive, frequency_hz, channel, gain, margin_db, ra
         input_ohms = (pad_spec.input_ohms if pad_spec is not None else None) or math.inf
     if not virtual and stage_vpf is None and (load_ohms is not None or pad_rating_w is not None):
         raise BenchkitError("--load and --pad-rating need volts at the stage: give --calibration (or --volts-per-fs)")
-    if gain is not None:
+    if gain_fs is not None:
+        pass  # measured already
+    elif gain is not None:
         if out_vpk is None or stage_vpf is None:
             raise BenchkitError("--gain needs the output and input scales: give --calibration")
         gain_fs = gain * out_vpk / stage_vpf

@@ -242,3 +242,41 @@ def test_sweep_through_jack_separates_the_poly_harmonics(server, tmp_path):
         fk, lk = np.array(by_order[order]["freq_hz"]), np.array(by_order[order]["level_dbc"])
         sel = (fk >= 200) & (fk <= 3000)
         assert np.max(np.abs(lk[sel] - 20 * math.log10(want))) < 0.5
+
+
+def _power(server, out, *extra):
+    return jackbench.benchkit(server, "power", "--device", "system", "--ref-channel", "2", "--load", "8",
+                              "--volts-per-fs", "1", "--metric", "thd", "--limit", "1", "--limit", "3",
+                              "--start", "-40", "--step-db", "2", "--out", str(out), *extra)
+
+
+def test_power_run_through_jack_finds_the_identity_level(server, tmp_path):
+    # y = x + a2 x^2: H2/H1 = a2 A / 2 (power-reduction identities), so THD
+    # is 1 % at A = 0.02 / a2 and 3 % at 0.06 / a2 (FS peak, 1 V per FS)
+    a2 = 0.5
+    with jackbench.Patchbay(server, "poly", a2=a2):
+        proc = _power(server, tmp_path / "run", "--json")
+        out, err = proc.communicate(timeout=90)
+    assert proc.returncode == 0, err
+    d = json.loads(out)
+    assert d["kind"] == "power" and d["limit_metric"] == "thd"
+    for lim in (1.0, 3.0):
+        want_vrms = (2 * lim / 100 / a2) / math.sqrt(2)
+        got = next(x for x in d["limits"] if x["limit_pct"] == lim)
+        assert got["vrms"] == pytest.approx(want_vrms, rel=0.01)
+        assert d["power_at_limit_w"][f"{lim:g}"] == pytest.approx(want_vrms**2 / 8, rel=0.02)
+
+
+def test_an_interrupted_power_run_reports_its_completed_steps(server, tmp_path):
+    folder = tmp_path / "run"
+    with jackbench.Patchbay(server, "poly", a2=0.5):
+        proc = _power(server, folder, "--step-db", "0.5")
+        _wait_until_running(proc, folder, seconds=4.0)
+        proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=30)
+    assert proc.returncode == 130, err
+    assert "Traceback" not in err
+    d = json.loads((folder / "capture.power.json").read_text())
+    assert len(d["steps"]) >= 3 and d["interrupted"]
+    assert any("interrupted" in w for w in d["warnings"])
+    assert (folder / "capture.wav").exists() and (folder / "capture.power.png").exists()

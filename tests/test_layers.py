@@ -45,7 +45,7 @@ def test_sounddevice_only_lazily():
             assert "sounddevice" not in _imports(path), path
 
 
-@pytest.mark.parametrize("command", ["analyze", "tone", "sweep", "demo", "models"])
+@pytest.mark.parametrize("command", ["analyze", "tone", "sweep", "power", "budget", "demo", "models"])
 def test_every_command_has_help_with_an_example(command):
     res = run_cli(command, "--help")
     assert res.returncode == 0 and "Example: benchkit" in res.stdout

@@ -136,19 +136,19 @@ def test_se_class_a_clips_the_half_the_budget_says(bias, half):
 
 
 def _stepped_power(tmp_path, bias: float, name: str):
-    """A stepped-level run of B-2 at ``bias``: 3 dB steps up to 2 dB below
-    the budget's ceiling, then 0.1 dB steps across it (as the adaptive run
-    refines), short steps, analysed for power into 8 ohm."""
+    """An adaptive power run of B-2 at ``bias`` on the virtual bench, with
+    the defaults (1 dB steps from 40 dB below the budget's ceiling), into 8 ohm."""
     from benchkit.capture.virtual import virtual_bench
-    from benchkit.power_runs import power_from_steps
-    from benchkit.runs import tone_run
+    from benchkit.power_runs import power_run
 
     budget = ClassABudget(24.0, bias, 8.0, 1.0)
     knee = 20 * math.log10(budget.peak_vpk / 20.0)  # gain 10, 2 V peak per FS at the output
-    levels = [float(x) for x in np.arange(knee - 23, knee - 1.5, 3.0)] + [float(x) for x in np.arange(knee - 1.2, knee + 0.85, 0.1)]
     bench = virtual_bench("se-class-a", {"bias": bias, "ripple_mv": 0.0}, seed=3)
-    steps = tone_run(bench, tmp_path, F0, levels, name=name, load_ohms=8.0, step_s=0.25, settle_s=0.1)
-    return budget, power_from_steps(steps, 8.0, supply_v=24.0, supply_a=bias, budget=budget)
+    folder = tmp_path / name
+    folder.mkdir()
+    r = power_run(bench, folder, F0, knee - 40.0, -3.0, 8.0, ref_channel=2, supply_v=24.0, supply_a=bias,
+                  budget=budget)
+    return budget, r
 
 
 def _model_power_at(bias: float, thd_pct: float) -> float:
@@ -185,6 +185,57 @@ def test_se_class_a_power_onset_half_and_efficiency(tmp_path):
     d = low.to_dict()
     assert max(s["efficiency_pct"] for s in d["steps"]) <= 25.0
     assert d["efficiency_pct"] == pytest.approx(100 * low.rated.power_w / 19.2)
+    assert low.info["stop_reason"].startswith("every limit is bracketed")
+    for lim, pt in low.limits:  # bisection brackets every limit within 0.1 dB
+        assert 20 * math.log10(low.steps[pt.above].vrms / low.steps[pt.below].vrms) <= 0.11
     # raising the bias raises the ceiling as the budget predicts
     high_b, high = _stepped_power(tmp_path, 1.2, "b12")
     assert high.onset.power_w / low.onset.power_w == pytest.approx(high_b.max_sine_w / low_b.max_sine_w, rel=0.05)
+
+
+def test_the_planner_climbs_then_bisects_each_limit():
+    from benchkit.power_runs import LevelPlanner
+
+    # a stage whose THD+N in % is 0.01 x 10^(level/20) x 100, clipping hard above -10 dBFS
+    def thdn(level):
+        return 100 * 0.0005 * 10 ** ((level + 40) / 20) * (1 if level < -10 else 10 ** ((level + 10) * 2))
+
+    plan = LevelPlanner(-40.0, -0.5, (1.0, 0.1, 10.0))
+    level, seen = plan.first(), []
+    while level is not None:
+        seen.append(level)
+        level = plan.next(level, thdn(level))
+    assert seen[:3] == [-40.0, -39.0, -38.0]  # 1 dB steps while it rises slowly
+    assert plan.reason.startswith("every limit is bracketed")
+    pts = sorted((lv, thdn(lv)) for lv in seen)
+    for lim in (0.1, 1.0, 10.0):
+        above = next(i for i, (_lv, m) in enumerate(pts) if m >= lim)
+        assert pts[above][0] - pts[above - 1][0] <= 0.1 + 1e-9
+    stuck = LevelPlanner(-20.0, -18.0, (1.0,))
+    assert stuck.next(-20.0, 0.01) == -19.0 and stuck.next(-19.0, 0.01) == -18.0
+    assert stuck.next(-18.0, 0.01) is None and "drive limit" in stuck.reason
+
+
+def test_budget_and_power_commands(tmp_path):
+    import json
+
+    from conftest import run_cli
+
+    res = run_cli("budget", "--rail", "24", "--bias", "0.8", "--load", "8", "--target-power", "4",
+                  "--limit-current", "1.5", "--json")
+    assert res.returncode == 0, res.stderr
+    d = json.loads(res.stdout)
+    assert d["kind"] == "budget" and d["max_sine_w"] == pytest.approx(2.56) and d["target"]["bias_a"] == pytest.approx(1.0)
+    assert run_cli("budget", "--rail", "24", "--bias", "0").returncode == 1
+    # a stepped capture analysed for power offline: the sample with four levels, the top one past the limit
+    from pathlib import Path
+
+    sample = str(Path(__file__).resolve().parents[1] / "sample_captures" / "b2-bias0.8A-997Hz-steps.wav")
+    off = run_cli("analyze", sample, "--power", "--load", "8", "--rail", "24", "--bias", "0.8", "--json",
+                  "--out", str(tmp_path / "rep"))
+    assert off.returncode == 0, off.stderr
+    p = json.loads(off.stdout)
+    assert p["kind"] == "power" and len(p["steps"]) == 4 and p["expected"]["max_sine_w"] == pytest.approx(2.56)
+    assert (tmp_path / "rep" / "b2-bias0.8A-997Hz-steps.power.png").exists()
+    bad = run_cli("analyze", sample, "--power")
+    assert bad.returncode == 1 and "--load" in bad.stderr

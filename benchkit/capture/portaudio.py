@@ -213,7 +213,11 @@ class PortAudioBackend:
         """Play and record in one duplex stream; stream the raw recording
         to ``partial`` (a WAV) as it arrives."""
         sd = self.sd
-        peak = float(np.max(np.abs(stimulus.samples))) if stimulus.n_samples else 0.0
+        # a stimulus that listens decides as it plays: its samples so far,
+        # its length an upper bound; the cap below holds it all the same
+        listening = hasattr(stimulus, "listen")
+        known = stimulus.samples
+        peak = float(np.max(np.abs(known))) if known.size else 0.0
         if peak > 0 and units.db_from_ratio(peak) > self.drive_cap_dbfs + 1e-9:
             raise BenchkitError(
                 f"the drive would peak at {units.db_from_ratio(peak):.1f} dBFS, above the cap of "
@@ -223,13 +227,14 @@ class PortAudioBackend:
         n_play = stimulus.n_samples
         tail = int(0.3 * rate) + 4 * self.blocksize  # room for the round trip
         total = n_play + tail
-        cols = min(stimulus.samples.shape[1], self.n_outputs)
+        cols = min(known.shape[1], self.n_outputs)
         rec = np.zeros((total + self.blocksize, self.n_inputs), dtype=np.float32)
         fade_n = max(1, int(ABORT_FADE_S * rate))
         after_abort = int(0.25 * rate)
         ramp = np.linspace(1.0, 0.0, fade_n, dtype=np.float32)
         cap_fs = np.float32(units.ratio_from_db(self.drive_cap_dbfs))
-        state = {"pos": 0, "fade_at": -1, "last": time.monotonic(), "faults": [], "statuses": [], "clipped_at": -1}
+        state = {"pos": 0, "fade_at": -1, "last": time.monotonic(), "faults": [], "statuses": [], "clipped_at": -1,
+                 "end": total}
         in_col = self.in_channel - 1
         done = threading.Event()
         self._abort.clear()
@@ -255,11 +260,13 @@ class PortAudioBackend:
             if self._abort.is_set() and state["fade_at"] < 0:
                 state["fade_at"] = pos
             n = 0
-            if pos < n_play:
+            if pos < n_play and state["end"] == total:
                 block = stimulus.render(pos, frames)
                 n = block.shape[0]
                 outdata[:n, :cols] = block[:, :cols]
                 outdata[:n, cols:] = 0.0
+                if listening and n < frames:  # it has finished: a round trip more, then stop
+                    state["end"] = min(total, pos + n + tail)
             outdata[n:] = 0.0
             fa = state["fade_at"]
             if fa >= 0:
@@ -282,30 +289,39 @@ class PortAudioBackend:
             state["pos"] = pos + frames
             # after an abort, keep recording silence for a round trip, so
             # the capture shows the fade arriving
-            finished = state["pos"] >= total or (fa >= 0 and pos - fa >= fade_n + after_abort)
+            finished = state["pos"] >= state["end"] or (fa >= 0 and pos - fa >= fade_n + after_abort)
             if finished:
                 done.set()
                 raise sd.CallbackStop
 
         writer = WavStreamWriter(partial, rate, self.n_inputs) if partial is not None else None
         stop_writer = threading.Event()
-        written = {"frames": 0}
+        written = {"frames": 0, "heard": 0}
 
         def drain():
+            # off the audio thread: the raw recording to disk, and to a
+            # stimulus that listens (it analyses and decides here)
             while True:
-                stopping = stop_writer.wait(0.1)
+                stopping = stop_writer.wait(0.05)
                 upto = min(state["pos"], total)
-                if upto > written["frames"]:
+                if writer is not None and upto > written["frames"] and "writer_error" not in state:
                     try:
                         writer.write(rec[written["frames"] : upto])
+                        written["frames"] = upto
                     except OSError as exc:  # disk full, folder gone: the run goes on in memory
                         state["writer_error"] = f"{exc.strerror or exc}"
-                        return
-                    written["frames"] = upto
+                if listening and upto > written["heard"]:
+                    try:
+                        stimulus.listen(rec[written["heard"] : upto].astype(np.float64), written["heard"])
+                    except Exception as exc:  # noqa: BLE001 - the run must still fade out and end
+                        state["error"] = exc
+                        self._abort.set()
+                    written["heard"] = upto
                 if stopping:
                     return
 
-        thread = threading.Thread(target=drain, name="benchkit-capture-writer", daemon=True) if writer else None
+        thread = (threading.Thread(target=drain, name="benchkit-capture-writer", daemon=True)
+                  if writer or listening else None)
         reason = None
         lost = False
         try:
@@ -352,13 +368,13 @@ class PortAudioBackend:
         if reason is None and state.get("error") is not None:
             reason = f"the audio callback failed ({state['error']!r})"
         clipped_at = state["clipped_at"] if state["clipped_at"] >= 0 else None
-        if reason is None and state["pos"] < total and state["fade_at"] < 0:
+        if reason is None and state["pos"] < state["end"] and state["fade_at"] < 0:
             reason = "the audio stream ended before the run did (device or server gone?)"
             lost = True
         if reason is not None:
             where = f"; the partial capture is in {partial}" if partial is not None else ""
             raise CaptureInterrupted(f"{reason}: the output faded to silence{where}", partial, lost)
-        got = min(state["pos"], total)
+        got = min(state["pos"], state["end"])
         events = tuple(f"frame {p}: {s}" for p, s in zip(state["faults"], state["statuses"]))
         if clipped_at is not None:
             events += (f"frame {clipped_at}: the input clipped; the run stopped",)

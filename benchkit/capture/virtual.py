@@ -180,6 +180,8 @@ class VirtualBench:
         }
 
     def play_record(self, stimulus: Stimulus, partial: Path | None = None) -> RawRecording:
+        if hasattr(stimulus, "listen"):
+            return self._play_interactive(stimulus, partial)
         s = self.spec
         if stimulus.samples.shape[1] > s.n_outputs:
             raise BenchkitError(f"the stimulus has {stimulus.samples.shape[1]} outputs; the interface has {s.n_outputs}")
@@ -222,18 +224,65 @@ class VirtualBench:
         return RawRecording(samples=rec, stopped_at=stopped,
                             events=() if stopped is None else (f"frame {stopped}: the input clipped; the run stopped",))
 
+    def _play_interactive(self, stimulus, partial: Path | None) -> RawRecording:
+        """A stimulus that listens (it decides what comes next from what
+        came back) runs block by block through the same chain, with
+        state carried from block to block, as a stream would."""
+        s = self.spec
+        if s.clock_ppm:
+            raise BenchkitError("the virtual bench simulates a clock offset only for stimuli known in advance")
+        rate = s.sample_rate_hz
+        latency = int(self._rng.integers(*LATENCY_RANGE))
+        self.last_latency_samples = latency
+        chain = _StreamChain(self, rate)
+        block = int(0.05 * rate)
+        pending = np.zeros((latency, s.n_inputs))  # the round trip: what is still on its way back
+        got, pos, stopped, events = [], 0, None, ()
+        tail = LATENCY_RANGE[1] + int(0.05 * rate)
+        writer = WavStreamWriter(partial, rate, s.n_inputs) if partial is not None else None
+        try:
+            while True:
+                out = stimulus.render(pos, block)
+                if out.shape[0] == 0:
+                    if tail <= 0:
+                        break
+                    out = np.zeros((min(block, tail), stimulus.samples.shape[1]))
+                    tail -= out.shape[0]
+                rec = chain.process(out[:, 0])
+                pending = np.concatenate([pending, rec])
+                back, pending = pending[: out.shape[0]], pending[out.shape[0]:]
+                got.append(back)
+                if writer is not None:
+                    writer.write(back)
+                hot = np.flatnonzero(np.abs(back[:, 0]) >= CLIP_STOP_FS) if self.stop_on_clip else ()
+                if len(hot) and stopped is None:
+                    stopped = pos + int(hot[0])
+                    events = (f"frame {stopped}: the input clipped; the run stopped",)
+                    stimulus.stop("the input clipped")
+                stimulus.listen(back, pos)
+                pos += out.shape[0]
+        finally:
+            if writer is not None:
+                writer.close()
+        return RawRecording(samples=np.concatenate(got), stopped_at=stopped, events=events)
+
     # --- the converter ----------------------------------------------------
-    def _adc(self, volts: np.ndarray) -> np.ndarray:
+    def _adc(self, volts: np.ndarray, start: int = 0, state: dict | None = None) -> np.ndarray:
+        """Volts at an input to FS; ``start`` (samples) and ``state`` (the
+        coupling filter's) carry a stream from block to block."""
         s = self.spec
         rate = s.sample_rate_hz
         x = volts / s.input_vpk_per_fs
         if s.hum_hz:
-            t = np.arange(x.size) / rate
+            t = (start + np.arange(x.size)) / rate
             amp = 10 ** (s.hum_dbfs / 20)
             x = x + amp * (np.sin(2 * np.pi * s.hum_hz * t) + 0.3 * np.sin(6 * np.pi * s.hum_hz * t + 1.0))
         if s.ac_coupling_hz:
             b, a = scipy.signal.butter(1, s.ac_coupling_hz, btype="highpass", fs=rate)
-            x = scipy.signal.lfilter(b, a, x)
+            if state is None:
+                x = scipy.signal.lfilter(b, a, x)
+            else:
+                x, state["zi"] = scipy.signal.lfilter(b, a, x, zi=state.get("zi", np.zeros(1)))
         x = _residual(x, s.residual_h2_dbc, s.residual_h3_dbc) + _white(self._rng, x.size, s.adc_noise_dbfs, rate)
         lsb = 2.0 ** (1 - s.adc_bits)
         return np.clip(np.round(x / lsb) * lsb, -1.0, 1.0 - lsb)
@@ -247,6 +296,47 @@ class VirtualBench:
         n = rec.shape[0]
         out = scipy.signal.resample_poly(rec, ratio.numerator, ratio.denominator, axis=0)
         return out[:n] if out.shape[0] >= n else np.concatenate([out, np.zeros((n - out.shape[0], rec.shape[1]))])
+
+
+class _StreamChain:
+    """The bench's signal path for a stream, block by block: the same
+    converters, filters and stage as a whole-stimulus run, with every
+    filter's history kept (causal: the converters' filter delays by half
+    its length, which the marker alignment takes out like any latency)."""
+
+    def __init__(self, bench: VirtualBench, rate: float):
+        self.bench, self.rate = bench, rate
+        self.h = _lowpass(bench.spec.antialias_fraction) * OVERSAMPLE  # upfirdn does not scale by the up factor
+        self.hist_in = np.zeros(int(math.ceil(self.h.size / OVERSAMPLE)))
+        self.hist_up = [np.zeros(self.h.size - 1) for _ in range(2)]
+        self.adc_state = [{}, {}]
+        self.n = 0
+
+    def process(self, drive: np.ndarray) -> np.ndarray:
+        b, s = self.bench, self.bench.spec
+        n = drive.size
+        dac = _residual(drive, s.residual_h2_dbc, s.residual_h3_dbc) + _white(b._rng, n, s.dac_noise_dbfs, self.rate)
+        ext = np.concatenate([self.hist_in, dac])
+        up = scipy.signal.upfirdn(self.h, ext, up=OVERSAMPLE)
+        k0 = self.hist_in.size * OVERSAMPLE
+        analog = up[k0 : k0 + n * OVERSAMPLE] * s.output_vpk_per_fs
+        self.hist_in = ext[ext.size - self.hist_in.size :]
+        if b.wiring == "loopback":
+            first = analog
+        elif b.wiring == "pad":
+            first = analog * b.pad_ratio()
+        else:
+            first = b.stage.process(analog, self.rate * OVERSAMPLE) * b.pad_ratio()
+        chans = []
+        for i, v in enumerate((first, analog)):
+            ext_up = np.concatenate([self.hist_up[i], v])
+            down = scipy.signal.upfirdn(self.h / OVERSAMPLE, ext_up, down=OVERSAMPLE)
+            k = self.hist_up[i].size // OVERSAMPLE
+            chans.append(b._adc(down[k : k + n], self.n, self.adc_state[i]))
+            self.hist_up[i] = ext_up[ext_up.size - self.hist_up[i].size :]
+        chans += [b._adc(np.zeros(n)) for _ in range(2, s.n_inputs)]
+        self.n += n
+        return np.stack(chans, axis=1)
 
 
 def virtual_bench(

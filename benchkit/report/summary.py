@@ -150,7 +150,7 @@ def power_summary(r, title: str = "") -> str:
         else:
             s0, s1 = r.steps[pt.below], r.steps[pt.above]
             lines.append(f"  at {lim:g} % {metric}".ljust(22) + f"{format_si(pt.power_w, 'W')} ({pt.vrms:.4g} Vrms), "
-                         f"between the {s0.drive_dbfs:g} and {s1.drive_dbfs:g} dBFS steps")
+                         f"between the {s0.drive_dbfs:.2f} and {s1.drive_dbfs:.2f} dBFS steps")
     if r.onset is not None:
         lines.append(f"  clipping onset       {format_si(r.onset.power_w, 'W')} ({r.onset.vrms:.4g} Vrms, "
                      f"THD+N {r.onset.departure_db:g} dB over its low-level trend)")
