@@ -833,6 +833,8 @@ def pad(
 @app.command()
 def budget(
     rail: float = typer.Option(..., "--rail", help="Supply rail, V."),
+    bias: float = typer.Option(..., "--bias", help="Bias current of the constant-current pull-up, A."),
+    vsat: float = typer.Option(1.0, "--vsat", help="Saturation voltage at the negative swing, V."),
     load: float = typer.Option(8.0, "--load", help="Load resistance, ohms."),
     target_power: Optional[float] = typer.Option(None, "--target-power", help="Power wanted into the load, W: the bias and rail it needs."),
     limit_current: Optional[float] = typer.Option(None, "--limit-current", help="Current a base-emitter limiter should hold, A: its sense resistor."),

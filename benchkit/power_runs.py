@@ -1,10 +1,15 @@
-"""Power runs: the power figures of a stepped-level capture on disk.
+"""Power runs: a stepped-level stimulus that chooses each next level as
+the stream runs, and the power figures of a stepped capture on disk.
 
-A stepped capture that benchkit wrote (``benchkit tone`` with rising
-levels, or a power run) is analysed step by step with the tone core, in
-volts into the stated load, then summarised by
-:func:`benchkit.analysis.power.analyze_power`; the clipped half is read
-from the samples of the first step past the clipping onset.
+:class:`AdaptiveSteps` plays rising steps and, listening to what comes
+back, asks a :class:`LevelPlanner` for the next level (climb, then
+bisection round each limit). :func:`power_run` plays it through a backend,
+writes the capture before analysing it, and keeps the completed steps of
+an interrupted run. :func:`power_from_steps` analyses any stepped capture
+that benchkit wrote, step by step with the tone core, in volts into the
+stated load, then summarises it with
+:func:`benchkit.analysis.power.analyze_power`; the top step's samples show
+which half clips.
 """
 
 from __future__ import annotations
@@ -16,7 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
-from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB, PowerResult, analyze_power
+from benchkit.analysis.power import DEFAULT_LIMITS_PCT, JUMP_SLOPE, ONSET_DB, PowerResult, analyze_power
 from benchkit.budget import ClassABudget
 from benchkit.errors import BenchkitError
 from benchkit.recordings import read_capture
@@ -69,14 +74,12 @@ def power_from_steps(steps: StepsResult, load_ohms: float, metric: str = "thdn",
 STEP_DB = 1.0
 #: Bisection stops when each limit is bracketed this finely.
 FINE_DB = 0.1
-#: THD+N rising faster than level^FAST_SLOPE between steps: refine.
-FAST_SLOPE = 3.0
 
 
 class LevelPlanner:
     """Chooses each next drive level of a stepped-level run from the
     results so far: ``step_db`` steps up, a quarter of that once THD+N
-    rises fast, and once the highest limit is passed, bisection until
+    rises faster than level^JUMP_SLOPE, and once the highest limit is passed, bisection until
     every limit lies between two steps at most ``fine_db`` apart.
     Levels are dBFS at the interface output; metric in percent."""
 
@@ -103,7 +106,7 @@ class LevelPlanner:
         if max(metric) < self.limits[-1]:
             top = levels[-1]
             fast = len(pts) >= 2 and metric[-2] > 0 and (
-                math.log(metric[-1] / metric[-2]) / math.log(10 ** ((levels[-1] - levels[-2]) / 20)) > FAST_SLOPE)
+                math.log(metric[-1] / metric[-2]) / math.log(10 ** ((levels[-1] - levels[-2]) / 20)) > JUMP_SLOPE)
             nxt = top + (self.step_db / 4 if fast else self.step_db)
             if nxt > self.max_dbfs + 1e-9:
                 if top < self.max_dbfs - 1e-9:

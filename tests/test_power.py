@@ -239,3 +239,34 @@ def test_budget_and_power_commands(tmp_path):
     assert (tmp_path / "rep" / "b2-bias0.8A-997Hz-steps.power.png").exists()
     bad = run_cli("analyze", sample, "--power")
     assert bad.returncode == 1 and "--load" in bad.stderr
+
+
+def test_hard_clip_model_power_run_matches_the_fourier_series(tmp_path):
+    # the virtual bench's hard-clip stage (gain 10, clipping at 9.5 V) through
+    # an adaptive run: THD crosses 1 % where the clipped sine's series says
+    from benchkit.capture.virtual import virtual_bench
+    from benchkit.power_runs import power_run
+
+    def thd(amp):
+        b = _clipped_harmonics(amp, 20)
+        return math.sqrt(np.sum(b[1:] ** 2)) / b[0]
+
+    amp = scipy.optimize.brentq(lambda a: thd(a) - 0.01, 1.0001, 2.0, xtol=1e-10)
+    want_w = (9.5 * _clipped_harmonics(amp, 1)[0]) ** 2 / 2 / 8.0
+    bench = virtual_bench("hard-clip", {"gain": 10.0, "vclip": 9.5}, seed=4)
+    r = power_run(bench, tmp_path, F0, 20 * math.log10(9.5 / 20) - 25.0, -3.0, 8.0, ref_channel=2, metric="thd",
+                  limits_pct=(1.0,))
+    assert r.rated.power_w == pytest.approx(want_w, rel=0.01)
+    assert r.half == "symmetric"
+
+
+def test_a_run_that_would_clip_the_input_stops_before_it_does(tmp_path):
+    # no pad: the stage's 11 V peak would reach 5.5x the input's 2 V full
+    # scale; the check before each step ends the run with every step clean
+    from benchkit.capture.virtual import virtual_bench
+    from benchkit.power_runs import power_run
+
+    bench = virtual_bench("se-class-a", {"bias": 0.8}, pad=None, seed=5)
+    r = power_run(bench, tmp_path, F0, -40.0, -0.5, 8.0, ref_channel=2)
+    assert "would reach" in r.info["stop_reason"]
+    assert all(s.valid for s in r.steps) and max(s.vrms for s in r.steps) * math.sqrt(2) < 2.0

@@ -109,7 +109,13 @@ class Backend(Protocol):
         """Play the stimulus and record every input, at least
         ``stimulus.n_samples`` plus the round trip, streaming the raw
         recording to ``partial`` as it arrives. Must leave the outputs
-        silent on every exit path."""
+        silent on every exit path.
+
+        A stimulus with a ``listen(block, frame)`` method decides as it
+        plays (benchkit.power_runs.AdaptiveSteps): the backend feeds it
+        every recorded block, off the audio thread; its ``n_samples`` is an
+        upper bound until ``render`` returns fewer frames than asked, which
+        ends it; ``stop(reason)`` ends it from the backend's side."""
 
 
 def resolve_device(device: str | None) -> str:

@@ -246,7 +246,7 @@ class VirtualBench:
                 if out.shape[0] == 0:
                     if tail <= 0:
                         break
-                    out = np.zeros((min(block, tail), stimulus.samples.shape[1]))
+                    out = np.zeros((min(block, tail), out.shape[1]))
                     tail -= out.shape[0]
                 rec = chain.process(out[:, 0])
                 pending = np.concatenate([pending, rec])
