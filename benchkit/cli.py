@@ -603,6 +603,10 @@ def power(
     start: Optional[float] = typer.Option(None, "--start", help="First drive level, dBFS (default: 40 dB below the expected maximum)."),
     step_db: float = typer.Option(1.0, "--step-db", help="Step while THD+N rises slowly, dB (a quarter of it once it rises fast)."),
     fine_db: float = typer.Option(0.1, "--fine-db", help="Bisect until each limit lies between steps this close, dB."),
+    rated_power: Optional[float] = typer.Option(None, "--rated-power", help="The claimed power, W: say whether the power at the first limit reaches it."),
+    precondition_run: bool = typer.Option(False, "--precondition", help="First hold 1/8 of --rated-power for an hour (16 CFR 432 manner)."),
+    precondition_s: Optional[float] = typer.Option(None, "--precondition-s", help="Shorten (or lengthen) the preconditioning, seconds: the report says so."),
+    channels: int = typer.Option(1, "--channels", help="How many channels the amplifier has (benchkit drives one; the report says so)."),
     ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices)."),
     out: Optional[Path] = typer.Option(None, "--out", help="Run folder (default: power-<time>)."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
@@ -634,6 +638,10 @@ def power(
         opts = _power_options(True, load, live["rail"], **figures)
         if step_db <= 0 or fine_db <= 0:
             raise BenchkitError("--step-db and --fine-db must be positive")
+        if precondition_run and rated_power is None:
+            raise BenchkitError("--precondition needs --rated-power (it holds 1/8 of it)")
+        if precondition_s is not None and not precondition_run:
+            raise BenchkitError("--precondition-s goes with --precondition")
         backend, profile = _live_setup(live, ref_channel)
         in_channel, calibration = live["in_channel"], live["calibration"]
         if ref_channel is None and backend.name == "virtual":
@@ -653,12 +661,21 @@ def power(
         if budget is not None and scale:
             expected = min(top, units.db_from_ratio(budget.peak_vpk / scale))
         first = start if start is not None else expected - 40.0
+        conditions = None
+        if precondition_run:
+            from benchkit.power_runs import PRECONDITION_S, precondition
+
+            if not scale:
+                raise BenchkitError("--precondition needs volts at the stage: give --calibration or --volts-per-fs")
+            conditions = precondition(backend, frequency, rated_power, load, scale, precondition_s or PRECONDITION_S,
+                                      channels, say=_err)
         _err(f"steps from {first:.1f} dBFS, at most {top:.1f} dBFS (the input's margin or the drive cap)")
         folder = _report_folder(out or Path(f"power-{datetime.now():%Y%m%d-%H%M%S}"))
         result = power_run(backend, folder, frequency, first, top, load, in_channel, ref_channel, opts["metric"],
                            opts["limits_pct"], opts["onset_db"], opts["supply_v"], opts["supply_a"], budget, profile,
                            None if calibration is None else str(calibration), step_db=step_db, fine_db=fine_db,
-                           warnings=plan.warnings, input_margin_db=live["margin"])
+                           warnings=plan.warnings, input_margin_db=live["margin"], rated_w=rated_power,
+                           conditions=conditions)
         info = result.info or {}
         _err(summary.power_summary(result, f"{frequency:g} Hz into {load:g} ohm: {info.get('steps_played')} steps, "
                                            f"{info.get('stimulus_s', 0):.1f} s; stopped: {info.get('stop_reason')}"))

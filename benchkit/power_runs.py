@@ -289,6 +289,57 @@ class AdaptiveSteps:
             self._queue += [x, np.zeros(int(self.gap_s * rate))]
 
 
+#: Rated-power conditions in the manner of 16 CFR Part 432 (432.2, 432.3):
+#: precondition at 1/8 of the rated power for an hour, then the test.
+PRECONDITION_S = 3600.0
+PRECONDITION_FRACTION = 1.0 / 8.0
+
+
+def precondition(backend, frequency_hz: float, rated_w: float, load_ohms: float, volts_per_drive_fs: float,
+                 seconds: float = PRECONDITION_S, channels: int = 1, say=lambda _m: None) -> dict:
+    """Play 1/8 of the rated power into the load for ``seconds`` (an hour
+    unless shortened on purpose) before the rated-power test, and return
+    the conditions for the report. ``volts_per_drive_fs`` is the stage's
+    output peak per FS of drive (from the pre-flight)."""
+    from benchkit.signals import check_level
+
+    if rated_w <= 0 or seconds <= 0 or channels < 1:
+        raise BenchkitError("preconditioning needs a positive rated power and time, and at least one channel")
+    hold = getattr(backend, "hold_tone", None)
+    if hold is None:
+        raise BenchkitError(f"{backend.name} cannot hold a preconditioning tone")
+    power_w = rated_w * PRECONDITION_FRACTION
+    level = 20 * math.log10(math.sqrt(2 * power_w * load_ohms) / volts_per_drive_fs)
+    check_level(level)
+    say(f"preconditioning: {power_w:.3g} W (1/8 of {rated_w:g} W) at {level:.1f} dBFS for {seconds:g} s")
+    got = hold(frequency_hz, level, seconds)
+    return {
+        "manner_of": "16 CFR Part 432",
+        "rated_power_w": rated_w,
+        "preconditioning": {"power_w": power_w, "level_dbfs": level, "seconds": got["seconds"],
+                            "frequency_hz": frequency_hz, "shortened": seconds < PRECONDITION_S},
+        "channels_driven": f"1 of {channels}",
+        "all_channels_driven": channels == 1,
+    }
+
+
+def rating_verdict(result: PowerResult, rated_w: float, conditions: dict | None) -> dict:
+    """Whether the power at the first limit reaches the rated power, with
+    what the test did not cover said plainly."""
+    got = result.rated
+    lim = result.limits[0][0]
+    notes = [f"at {result.frequency_hz:g} Hz only: a rating holds over its whole stated band"]
+    if conditions is None:
+        notes.append("not preconditioned")
+    elif conditions["preconditioning"]["shortened"]:
+        notes.append(f"preconditioning shortened to {conditions['preconditioning']['seconds']:g} s")
+    if conditions is not None and not conditions["all_channels_driven"]:
+        notes.append(f"{conditions['channels_driven']} channels driven: not an all-channels-driven rating")
+    return {**(conditions or {"rated_power_w": rated_w}), "limit_pct": lim,
+            "measured_w": None if got is None else got.power_w,
+            "meets": None if got is None else got.power_w >= rated_w, "notes": notes}
+
+
 def power_run(
     backend,
     folder: Path,
@@ -314,6 +365,8 @@ def power_run(
     step_s: float = 0.3,
     settle_s: float = 0.15,
     input_margin_db: float = 3.0,
+    rated_w: float | None = None,
+    conditions: dict | None = None,
 ) -> PowerResult:
     """A stepped-level run to the highest limit: one stream, each next
     level chosen from the step just recorded; the capture and its sidecar
@@ -362,6 +415,8 @@ def power_run(
     result = power_from_steps(steps, load_ohms, metric, limits_pct, onset_db, supply_v, supply_a, budget)
     info = {**(result.info or {}), "stop_reason": stim.stop_reason, "interrupted": None if interrupted is None else str(interrupted),
             "steps_played": len(stim.segments), "stimulus_s": stim.duration_s, "latency_samples": cap.latency_samples}
+    if rated_w is not None:
+        info["rating"] = rating_verdict(result, rated_w, conditions)
     return replace(result, info=info)
 
 

@@ -280,3 +280,20 @@ def test_an_interrupted_power_run_reports_its_completed_steps(server, tmp_path):
     assert len(d["steps"]) >= 3 and d["interrupted"]
     assert any("interrupted" in w for w in d["warnings"])
     assert (folder / "capture.wav").exists() and (folder / "capture.power.png").exists()
+
+
+def test_preconditioning_holds_a_tone_then_rates(server, tmp_path):
+    # 16 CFR 432 manner: 1/8 of the rated power first (shortened to 2 s
+    # here, on purpose), then the run; the report says what was done
+    with jackbench.Patchbay(server, "poly", a2=0.5):
+        t0 = time.monotonic()
+        proc = _power(server, tmp_path / "run", "--rated-power", "9e-5", "--precondition", "--precondition-s", "2",
+                      "--json")
+        out, err = proc.communicate(timeout=90)
+    assert proc.returncode == 0, err
+    assert time.monotonic() - t0 > 2.0
+    rating = json.loads(out)["rating"]
+    assert rating["preconditioning"]["seconds"] == pytest.approx(2.0, abs=0.1)
+    assert rating["preconditioning"]["shortened"] and rating["meets"] is True
+    # 1/8 of 90 uW into 8 ohm at 1 V per FS: 20 log10(sqrt(2 x 11.25e-6 x 8)) dBFS
+    assert rating["preconditioning"]["level_dbfs"] == pytest.approx(20 * math.log10(math.sqrt(2 * 9e-5 / 8 * 8)), abs=0.2)

@@ -270,3 +270,21 @@ def test_a_run_that_would_clip_the_input_stops_before_it_does(tmp_path):
     r = power_run(bench, tmp_path, F0, -40.0, -0.5, 8.0, ref_channel=2)
     assert "would reach" in r.info["stop_reason"]
     assert all(s.valid for s in r.steps) and max(s.vrms for s in r.steps) * math.sqrt(2) < 2.0
+
+
+def test_preconditioning_in_the_manner_of_16_cfr_432():
+    # 16 CFR 432.3: 1/8 of the rated power for one hour before the test.
+    # 2.5 W rated into 8 ohm: 0.3125 W, Vpk = sqrt(2 x 0.3125 x 8) = 2.236 V;
+    # at 20 V peak per FS of drive (gain 10, 2 V per FS), 20 log10(2.236 / 20) dBFS
+    from benchkit.capture.virtual import virtual_bench
+    from benchkit.power_runs import precondition
+
+    bench = virtual_bench("se-class-a", {"bias": 0.8})
+    got = precondition(bench, F0, 2.5, 8.0, 20.0)
+    assert got["preconditioning"]["power_w"] == pytest.approx(0.3125)
+    assert got["preconditioning"]["level_dbfs"] == pytest.approx(20 * math.log10(math.sqrt(5.0) / 20), abs=1e-9)
+    assert got["preconditioning"]["seconds"] == 3600.0 and not got["preconditioning"]["shortened"]
+    assert got["all_channels_driven"]
+    # the stage has warmed for the hour: its junction near its steady rise (tau 240 s)
+    op = bench.stage.operating_point()
+    assert op["time_s"] == pytest.approx(3600.0) and op["junction_c"] > 23.0 + 0.99 * 1.5 * 12 * 0.8

@@ -209,6 +209,63 @@ class PortAudioBackend:
         """Fade out and stop (thread-safe; also what Ctrl-C does)."""
         self._abort.set()
 
+    def hold_tone(self, frequency_hz: float, level_dbfs: float, seconds: float) -> dict:
+        """Play a steady tone for ``seconds`` and record nothing
+        (preconditioning a stage: an hour is not kept in memory). Faded in
+        and out; Ctrl-C, an abort or a silent stream fade it within 20 ms."""
+        sd = self.sd
+        if level_dbfs > self.drive_cap_dbfs + 1e-9:
+            raise BenchkitError(f"the preconditioning tone ({level_dbfs:.1f} dBFS) is above the drive cap of "
+                                f"{self.drive_cap_dbfs:g} dBFS")
+        rate = self.sample_rate_hz
+        amp = units.ratio_from_db(level_dbfs)
+        n_total = int(seconds * rate)
+        fade_n = max(1, int(ABORT_FADE_S * rate))
+        col = self.out_channel - 1
+        state = {"pos": 0, "fade_at": -1, "last": time.monotonic()}
+        done = threading.Event()
+        self._abort.clear()
+
+        def callback(outdata, frames, _time, _status):
+            pos = state["pos"]
+            state["last"] = time.monotonic()
+            if self._abort.is_set() and state["fade_at"] < 0:
+                state["fade_at"] = pos
+            k = pos + np.arange(frames)
+            env = np.clip(np.minimum((k + 0.5) / fade_n, (n_total - k) / fade_n), 0.0, 1.0)
+            if state["fade_at"] >= 0:
+                env = np.minimum(env, np.clip(1.0 - (k - state["fade_at"]) / fade_n, 0.0, 1.0))
+            outdata[:] = 0.0
+            outdata[:, col] = amp * env * np.sin(2 * np.pi * frequency_hz * k / rate)
+            state["pos"] = pos + frames
+            if pos >= n_total or (state["fade_at"] >= 0 and pos - state["fade_at"] > fade_n):
+                done.set()
+                raise sd.CallbackStop
+
+        try:
+            stream = sd.OutputStream(samplerate=rate, blocksize=self.blocksize, device=self.info["index"],
+                                     channels=self.n_outputs, dtype="float32", latency=self.latency,
+                                     callback=callback, finished_callback=done.set)
+        except Exception as exc:
+            raise BenchkitError(f"cannot open {self.name}: {exc}") from exc
+        reason, lost = None, False
+        try:
+            stream.start()
+            while not done.wait(0.05):
+                if time.monotonic() - state["last"] > self.watchdog_s:
+                    reason, lost = "the audio stream stopped calling back (device lost?)", True
+                    self._abort.set()
+                    break
+        except KeyboardInterrupt:
+            reason = "interrupted"
+            self._abort.set()
+            done.wait(1.0)
+        finally:
+            _close(stream, timeout=1.0)
+        if reason is not None:
+            raise CaptureInterrupted(f"{reason} during preconditioning: the output faded to silence", None, lost)
+        return {"seconds": state["pos"] / rate, "level_dbfs": level_dbfs, "frequency_hz": frequency_hz}
+
     def play_record(self, stimulus: Stimulus, partial: Path | None = None) -> RawRecording:
         """Play and record in one duplex stream; stream the raw recording
         to ``partial`` (a WAV) as it arrives."""

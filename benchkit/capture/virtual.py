@@ -224,6 +224,15 @@ class VirtualBench:
         return RawRecording(samples=rec, stopped_at=stopped,
                             events=() if stopped is None else (f"frame {stopped}: the input clipped; the run stopped",))
 
+    def hold_tone(self, frequency_hz: float, level_dbfs: float, seconds: float) -> dict:
+        """Precondition the stage with a steady tone: the models' thermal
+        state follows time and bias alone (class A draws the same supply
+        power at any level), so the stage's clock moves on by ``seconds``
+        without simulating an hour of samples."""
+        self.stage.advance(seconds)
+        return {"seconds": float(seconds), "level_dbfs": level_dbfs, "frequency_hz": frequency_hz,
+                "simulated": "the stage's clock advanced"}
+
     def _play_interactive(self, stimulus, partial: Path | None) -> RawRecording:
         """A stimulus that listens (it decides what comes next from what
         came back) runs block by block through the same chain, with

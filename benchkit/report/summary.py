@@ -165,6 +165,14 @@ def power_summary(r, title: str = "") -> str:
         lines.append(f"  expected ceiling     {format_si(e['max_sine_w'], 'W')} ({e['limiting_half']} half first: "
                      f"+{e['current_limited_vpk']:.3g} V / -{e['rail_limited_vpk']:.3g} V peak)"
                      + ("" if got is None else f"; measured onset {100 * got / e['max_sine_w']:.0f} % of it"))
+    rating = (r.info or {}).get("rating")
+    if rating:
+        pre = rating.get("preconditioning")
+        if pre:
+            lines.append(f"  preconditioned       {pre['power_w']:.3g} W for {pre['seconds']:g} s ({rating['manner_of']} manner)")
+        verdict = {True: "reaches", False: "falls short of", None: "cannot be judged against"}[rating["meets"]]
+        lines.append(f"  rating               {verdict} {rating['rated_power_w']:g} W at {rating['limit_pct']:g} %: "
+                     + "; ".join(rating["notes"]))
     lines += [f"  warning              {w}" for w in r.warnings]
     return "\n".join(lines)
 
