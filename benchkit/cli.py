@@ -133,9 +133,19 @@ _FIGURES = {
 }
 _figure_options = _option_group("figures", _FIGURES)
 
+# how a drift log is judged (analyze of a CSV, drift)
+_JUDGE = {
+    "dc_limit": (Optional[float], lambda: typer.Option(None, "--dc-limit", help="Drift: verdict, within this of --nominal, V (e.g. 0.05 for a speaker output's offset, common practice).")),
+    "nominal": (float, lambda: typer.Option(0.0, "--nominal", help="Drift: the value the limit is about, V: 0 for an output offset, the design midpoint (about half the rail) for a capacitor-coupled stage.")),
+    "settle_band": (Optional[float], lambda: typer.Option(None, "--settle-band", help="Drift: settled within this of the final value, V (default: a tenth of --dc-limit, else 1 mV).")),
+    "window": (float, lambda: typer.Option(60.0, "--window", help="Drift: the rate over the last this many seconds.")),
+}
+_judge_options = _option_group("judge", _JUDGE)
+
 
 @app.command()
 @_figure_options
+@_judge_options
 def analyze(
     files: List[Path] = typer.Argument(..., help="WAV or FLAC captures.", show_default=False),
     channel: int = typer.Option(1, "--channel", "-c", help="Channel to analyse, numbered from 1."),
@@ -154,10 +164,13 @@ def analyze(
     ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Response captures: the reference input (default: the sidecar's)."),
     ref_freq: float = typer.Option(1000.0, "--ref-freq", help="Response captures: the frequency the level is referred to, Hz."),
     smooth: Optional[int] = typer.Option(None, "--smooth", help="Response captures: smooth the plotted magnitude over 1/N octave."),
+    time_col: str = typer.Option("1", "--time-col", help="Drift CSVs: the time column, by name or number from 1 (units in the header are applied)."),
+    value_col: str = typer.Option("2", "--value-col", help="Drift CSVs: the value column, by name or number."),
     power: bool = typer.Option(False, "--power", help="Stepped captures: power at the distortion limits, clipping onset and half (needs --load and volts)."),
     rail: Optional[float] = typer.Option(None, "--rail", help="Describe the stage (se-class-a): its rail, V, for the expected ceiling."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     figures: dict = None,
+    judge: dict = None,
 ) -> None:
     """Analyse recorded captures offline: tones (THD, THD+N, harmonics, noise) or responses (sweeps, stepped sines).
 
@@ -177,6 +190,9 @@ def analyze(
     docs, failed = [], 0
     for path in _progress(files, "analysing"):
         try:
+            if Path(path).suffix.lower() == ".csv":
+                docs.append(_analyze_drift_file(Path(path), time_col, value_col, out, **judge))
+                continue
             docs.append(_analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile, calibration,
                                      (sweep_spec, ref_channel, ref_freq, smooth), power_opts))
         except BenchkitError as exc:
@@ -208,6 +224,18 @@ def _power_options(power, load, rail, limits, metric, onset_db, supply_volts, su
     budget = ClassABudget(rail, bias, load, vsat) if rail is not None else None
     return dict(load_ohms=load, metric=metric, limits_pct=tuple(limits), onset_db=onset_db,
                 supply_v=supply_volts, supply_a=supply_amps, budget=budget)
+
+
+def _analyze_drift_file(path: Path, time_col, value_col, out, dc_limit, nominal, settle_band, window) -> dict:
+    from benchkit.drift_runs import analyze_drift_csv
+    from benchkit.report import summary
+
+    result = analyze_drift_csv(path, time_col, value_col, dc_limit, settle_band, window, nominal_v=nominal)
+    _err(summary.drift_summary(result, f"{path}: drift"))
+    if out is not None:
+        for written in _write_drift_reports(result, path, out):
+            _err(f"  wrote        {written}")
+    return result.to_dict()
 
 
 def _parse_sweep(text: str) -> tuple[float, float, float]:
@@ -683,6 +711,94 @@ def power(
     _finish_run(written, folder, result.to_dict(), as_json)
     if info.get("interrupted"):
         raise typer.Exit(130)
+
+
+@app.command()
+@_judge_options
+def drift(
+    source: str = typer.Option("virtual", "--source", help="virtual (the se-class-a midpoint, accelerated), meter (SCPI over pyvisa) or interface (a DC-coupled input)."),
+    resource: Optional[str] = typer.Option(None, "--resource", help="The meter's VISA resource, e.g. TCPIP::192.168.1.50::5025::SOCKET or ASRL/dev/ttyUSB0::INSTR."),
+    interval: float = typer.Option(1.0, "--interval", help="Seconds between readings."),
+    duration: Optional[float] = typer.Option(None, "--duration", help="Log this long, seconds."),
+    until_settled: bool = typer.Option(False, "--until-settled", help="Stop once settled within --settle-band."),
+    accelerate: float = typer.Option(60.0, "--accelerate", help="Virtual source: model seconds per second of interval."),
+    out: Optional[Path] = typer.Option(None, "--out", help="Run folder (default: drift-<time>)."),
+    device: Optional[str] = _LIVE["device"][1](),
+    in_channel: int = _LIVE["in_channel"][1](),
+    calibration: Optional[Path] = _LIVE["calibration"][1](),
+    sim_param: List[str] = _LIVE["sim_param"][1](),
+    seed: int = _LIVE["seed"][1](),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
+    judge: dict = None,
+) -> None:
+    """Log the DC operating point as the stage warms: offset, drift rate, settling fit, verdict.
+
+    Every reading goes to log.csv as it comes (Ctrl-C or a crash keeps them
+    all); a live line shows the latest value, the rate and the estimated
+    time to settle. The virtual source is the se-class-a stage's midpoint,
+    its thermal model in accelerated time.
+
+    Example: benchkit drift --source meter --resource TCPIP::192.168.1.50::5025::SOCKET --interval 2 --until-settled --dc-limit 0.05
+
+    Safety: probe a live, hot stage with one hand, with insulated probes,
+    and mind the supply's stored charge; follow local codes for anything
+    mains-powered.
+    """
+    from datetime import datetime
+
+    from benchkit import meters
+    from benchkit.drift_runs import analyze_drift_csv, log_drift
+    from benchkit.report import summary
+
+    try:
+        if source == "virtual":
+            from benchkit.capture.stages import make_stage, parse_params
+
+            reader = meters.VirtualMidpoint(make_stage("se-class-a", parse_params(sim_param), seed=seed), accelerate, seed)
+        elif source == "meter":
+            if not resource:
+                raise BenchkitError("--source meter needs --resource (the meter's VISA address)")
+            reader = meters.ScpiMeter(resource)
+        elif source == "interface":
+            profile = load_profile(calibration) if calibration is not None else None
+            backend = _open_backend(device, "ideal", [], "demo", seed, dict(in_channel=in_channel))
+            reader = meters.InterfaceDc(backend, profile, in_channel)
+        else:
+            raise BenchkitError(f"--source is virtual, meter or interface, got {source!r}")
+        dc_limit, nominal, window = judge["dc_limit"], judge["nominal"], judge["window"]
+        band = judge["settle_band"] if judge["settle_band"] is not None else (dc_limit / 10 if dc_limit else 1e-3)
+        folder = _report_folder(out or Path(f"drift-{datetime.now():%Y%m%d-%H%M%S}"))
+        log = folder / "log.csv"
+        _err(f"source: {reader.name}; logging to {log}")
+        try:
+            end = log_drift(reader, log, interval, duration, until_settled, band, window, say=_err)
+        finally:
+            reader.close()
+        notes = () if end.how in ("duration", "settled") else (f"the log stopped early: {end.message}",)
+        if end.how == "lost":
+            _err(f"benchkit: {end.message}: the log stopped; every reading so far is in {log}")
+        result = analyze_drift_csv(log, limit_v=dc_limit, band_v=band, window_s=window,
+                                   info={"source": reader.name, "ended": end.how,
+                                         "accelerated": getattr(reader, "accelerated", 0.0) or None},
+                                   warnings=notes, nominal_v=nominal)
+        _err(summary.drift_summary(result, f"{reader.name}: {end.how}"))
+        written = _write_drift_reports(result, log, folder)
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        raise typer.Exit(EXIT_BAD_INPUT)
+    _finish_run(written, folder, result.to_dict(), as_json)
+    if end.how != "duration" and end.how != "settled":
+        raise typer.Exit(130 if end.how == "interrupted" else EXIT_BAD_INPUT)
+
+
+def _write_drift_reports(result, log: Path, out: Path) -> list[Path]:
+    from benchkit.report import plots, tables
+
+    _report_folder(out)
+    return [
+        tables.write_json(result.to_dict(), out / f"{log.stem}.drift.json"),
+        plots.drift_png(result, out / f"{log.stem}.drift.png", log.name),
+    ]
 
 
 @app.command()

@@ -9,8 +9,9 @@ folder holds every capture, its analysis and a before/after comparison.
 At 1.2 A a synchronized sweep from 2 Hz gives the response (the output
 capacitor's corner into the load, the capacitor estimated from it) and
 distortion against frequency; at each bias a power run finds the power at
-1 %, 0.1 % and 10 % THD+N beside the class-A budget's ceiling. Later
-capabilities (drift) add their parts here.
+1 %, 0.1 % and 10 % THD+N beside the class-A budget's ceiling. After the
+bias change the midpoint is logged as the stage warms (the virtual thermal
+model in accelerated time: 25 minutes of it in no time).
 """
 
 from __future__ import annotations
@@ -43,6 +44,27 @@ SWEEP_DBFS = -20.0
 #: per FS at the interface output put the drive for a stage peak V at
 #: 20 log10(V / 20) dBFS.
 RAIL_V, VSAT_V = 24.0, 1.0
+
+
+#: The drift log: 25 minutes of model time, a reading every 10 s of it.
+DRIFT_S, DRIFT_STEP_S = 1500.0, 10.0
+
+
+def _demo_drift(folder: Path, seed: int):
+    """The midpoint of B-2 at 1.2 A from cold, against +-0.5 V of half the rail."""
+    from benchkit.capture.stages import make_stage
+    from benchkit.drift_runs import analyze_drift_csv, log_drift
+    from benchkit.meters import VirtualMidpoint
+
+    folder.mkdir(exist_ok=True)
+    stage = make_stage("se-class-a", {"bias": BIASES_A[-1], "ambient_c": AMBIENT_C}, seed=seed)
+    log = folder / "log.csv"
+    log_drift(VirtualMidpoint(stage, accelerated=DRIFT_STEP_S, seed=seed), log, 1.0, DRIFT_S)
+    result = analyze_drift_csv(log, limit_v=0.5, band_v=0.01, nominal_v=RAIL_V / 2,
+                               info={"source": "virtual se-class-a midpoint", "accelerated": DRIFT_STEP_S})
+    files = [log, tables.write_json(result.to_dict(), folder / "log.drift.json"),
+             plots.drift_png(result, folder / "log.drift.png", "Test stage B-2, bias 1.2 A: midpoint")]
+    return result, files
 
 
 @dataclass(frozen=True)
@@ -105,12 +127,17 @@ def run_demo(out: Path, seed: int = 1, say: Callable[[str], None] = lambda _m: N
               tables.write_response_csv(response, folder / "sweep.response.csv"),
               plots.response_png(response, folder / "sweep.response.png", title, smooth_fraction=None),
               plots.distortion_png(response, folder / "sweep.distortion.png", title)]
+    say(f"virtual bench: stage B-2 at {label}, midpoint drift while it warms (accelerated time)")
+    drift = _demo_drift(out / "b2-drift", seed)
+    files += drift[1]
     (la, a), (lb, b) = runs
     deltas = compare_steps(a, b)
     files.append(tables.write_comparison_csv(deltas, ("0.8A", "1.2A"), out / "comparison.csv"))
     files.append(plots.steps_png(runs, out / "comparison.png", "Test stage B-2: THD+N before and after the bias change"))
     texts.append(f"Before/after ({la} -> {lb}):\n" + summary.comparison_summary(deltas, (la, lb)))
     texts.append(summary.response_summary(response, f"Test stage B-2, {label}: response"))
+    texts.append(summary.drift_summary(drift[0], f"Test stage B-2, {label}: midpoint after power-on "
+                                                 "(virtual thermal model, accelerated 10x)"))
     text = "\n\n".join(texts)
     (out / "summary.txt").write_text(text + "\n", encoding="utf-8")
     files.append(out / "summary.txt")

@@ -11,7 +11,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.optimize
 
 #: Limits reported by default, percent: the first is the headline figure.
 DEFAULT_LIMITS_PCT = (1.0, 0.1, 10.0)
@@ -83,6 +82,8 @@ def low_level_trend(vrms, thdn_pct, fit_below_vrms: float):
     sel = v <= fit_below_vrms
     if sel.sum() < 3:
         return None
+    import scipy.optimize  # here: the CLI reads this module's defaults at start-up
+
     vs = v[sel]
     cols = np.stack([vs**-2.0, vs**2.0, vs**4.0], axis=1)
     # weight each step by its own size so that every level counts alike

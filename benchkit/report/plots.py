@@ -250,3 +250,36 @@ def power_png(result, path: Path, title: str) -> Path:
              f"{'THD+N' if result.metric == 'thdn' else 'THD'}{half}", fontsize=7.5, color="#333333", ha="left", va="bottom")
     fig.subplots_adjust(left=0.07, right=0.98, top=0.92, bottom=0.14, wspace=0.22)
     return _save(fig, path)
+
+
+def drift_png(result, path: Path, title: str) -> Path:
+    """Volts (mV) against time, the settling fit over it, the limit band
+    and the sudden steps marked."""
+    fig = Figure(figsize=(10, 5.2))
+    ax = fig.add_subplot(1, 1, 1)
+    t, v = result.t_s, result.v * 1e3
+    minutes = t[-1] - t[0] > 600
+    scale = 60.0 if minutes else 1.0
+    ax.plot(t / scale, v, ".", ms=2.5, color=_TRACE, label="readings")
+    if result.fit is not None:
+        f = result.fit
+        tt = np.linspace(f.start_s, t[-1], 400)
+        ax.plot(tt / scale, f.value_at(tt) * 1e3, color=_MARK, lw=1.2,
+                label=f"first-order fit: {f.final_v * 1e3:.2f} mV, tau {f.tau_s:.3g} s")
+        if f.settle_s is not None and f.settle_s <= t[-1]:
+            ax.axvline(f.settle_s / scale, color=_MARK, lw=0.7, ls="--")
+    if result.limit_v is not None:
+        lim = result.limit_v * 1e3
+        lo, hi = ax.get_ylim()
+        if -lim > lo or lim < hi:
+            ax.axhspan(-lim, lim, color=_BAND, zorder=0, label=f"limit +-{lim:g} mV")
+    for e in result.events:
+        ax.axvline(e["time_s"] / scale, color="#b00020", lw=0.8, ls=":")
+    ax.set_xlabel("time (min)" if minutes else "time (s)")
+    ax.set_ylabel("DC (mV)")
+    ax.grid(True, color="#eeeeee", lw=0.5)
+    ax.legend(loc="best", fontsize=8, frameon=False)
+    verdict = f"; verdict: {result.verdict}" if result.verdict else ""
+    ax.set_title(f"{title}: DC drift{verdict}", loc="left", fontsize=10)
+    fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.11)
+    return _save(fig, path)

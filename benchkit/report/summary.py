@@ -196,3 +196,29 @@ def budget_summary(d: dict) -> str:
         lines.append(f"  limiter at {c['limit_a']:g} A     sense resistor {c['sense_ohms']:.3g} ohm ({c['vbe_v']:g} V / I), "
                      f"{c['sense_w']:.3g} W in it: rate it at least {2 * c['sense_w']:.2g} W")
     return "\n".join(lines)
+
+
+def drift_summary(r, title: str = "") -> str:
+    """The figures of a drift log."""
+    d = r.to_dict()
+    lines = [title] if title else []
+    lines += [
+        f"  readings     {d['samples']} over {d['duration_s']:.1f} s",
+        f"  now          {d['last_v'] * 1e3:.3f} mV (min {d['min_v'] * 1e3:.3f}, max {d['max_v'] * 1e3:.3f}, "
+        f"peak to peak {d['pp_v'] * 1e3:.3f} mV)",
+    ]
+    if d["rate_mv_per_min"] is not None:
+        lines.append(f"  drift rate   {d['rate_mv_per_min']:+.4f} mV/min over the last {d['rate_window_s']:g} s")
+    f = r.fit
+    if f is not None:
+        settle = "" if f.settle_s is None else (
+            f"; within {f.band_v * 1e3:g} mV from {f.settle_s:.0f} s (+-{f.settle_sd_s:.0f} s)")
+        lines.append(f"  settling     towards {f.final_v * 1e3:.3f} mV (+-{f.final_sd_v * 1e3:.3f}), "
+                     f"tau {f.tau_s:.3g} s (+-{f.tau_sd_s:.2g}){settle}")
+    for e in r.events:
+        lines.append(f"  step         at {e['time_s']:.1f} s: {e['step_v'] * 1e3:+.3f} mV")
+    if r.verdict:
+        about = f" about {r.nominal_v:g} V" if r.nominal_v else ""
+        lines.append(f"  verdict      {r.verdict} (limit +-{r.limit_v * 1e3:g} mV{about})")
+    lines += [f"  warning      {w}" for w in r.warnings]
+    return "\n".join(lines)

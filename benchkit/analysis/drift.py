@@ -1,0 +1,191 @@
+"""DC drift: offset, drift rate, a first-order settling fit, steps, verdict.
+
+Pure functions on a log of (time s, volts). The settling model is the
+first-order response of a stage warming towards equilibrium,
+
+    v(t) = v_final + (v_start - v_final) exp(-(t - t_start) / tau),
+
+fitted by least squares (scipy.optimize.curve_fit) with its covariance
+giving the uncertainties. Sudden steps (a bias adjustment, a bumped probe)
+are flagged as events and the fit uses the log after the last one.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.optimize
+
+#: A jump between two readings this many times the readings' own noise
+#: (robust: from the median absolute difference) is a step, not drift.
+STEP_SIGMAS = 12.0
+#: Readings needed for a fit.
+MIN_FIT_POINTS = 8
+
+
+@dataclass(frozen=True)
+class SettlingFit:
+    """First-order settling: final value, time constant, when it settles."""
+
+    final_v: float
+    final_sd_v: float
+    tau_s: float
+    tau_sd_s: float
+    start_s: float
+    start_v: float
+    settle_s: float | None  # when |v - final| stays within the band (None: no band)
+    settle_sd_s: float | None
+    band_v: float | None
+    rms_residual_v: float
+
+    def value_at(self, t_s) -> np.ndarray:
+        t = np.asarray(t_s, float)
+        return self.final_v + (self.start_v - self.final_v) * np.exp(-(t - self.start_s) / self.tau_s)
+
+    def to_dict(self) -> dict:
+        return {"final_v": self.final_v, "final_sd_v": self.final_sd_v, "tau_s": self.tau_s, "tau_sd_s": self.tau_sd_s,
+                "settle_s": self.settle_s, "settle_sd_s": self.settle_sd_s, "band_v": self.band_v,
+                "start_s": self.start_s, "start_v": self.start_v, "rms_residual_v": self.rms_residual_v}
+
+
+def fit_settling(t_s, v, band_v: float | None = None) -> SettlingFit | None:
+    """Fit the first-order model; None when there are too few readings or
+    the fit does not converge (no settling to see)."""
+    t, y = np.asarray(t_s, float), np.asarray(v, float)
+    if t.size < MIN_FIT_POINTS or np.ptp(t) <= 0:
+        return None
+    t0 = float(t[0])
+    span = float(t[-1] - t0)
+
+    def model(x, vf, dv, tau):
+        return vf + dv * np.exp(-(x - t0) / tau)
+
+    guess = (float(y[-1]), float(y[0] - y[-1]), max(span / 5, 1e-6))
+    try:
+        popt, pcov = scipy.optimize.curve_fit(model, t, y, p0=guess, maxfev=20000)
+    except (RuntimeError, ValueError):
+        return None
+    vf, dv, tau = (float(x) for x in popt)
+    if not (tau > 0 and math.isfinite(tau)) or not np.all(np.isfinite(pcov)):
+        return None
+    sd = np.sqrt(np.diag(pcov))
+    resid = y - model(t, *popt)
+    settle = settle_sd = None
+    if band_v is not None and band_v > 0:
+        if abs(dv) <= band_v:
+            settle, settle_sd = t0, 0.0
+        else:
+            settle = t0 + tau * math.log(abs(dv) / band_v)
+            # first-order propagation through tau and dv
+            d_tau = math.log(abs(dv) / band_v)
+            d_dv = tau / abs(dv)
+            settle_sd = math.sqrt((d_tau * sd[2]) ** 2 + (d_dv * sd[1]) ** 2)
+    return SettlingFit(vf, float(sd[0]), tau, float(sd[2]), t0, vf + dv, settle, settle_sd, band_v,
+                       float(np.sqrt(np.mean(resid**2))))
+
+
+def find_steps(t_s, v, sigmas: float = STEP_SIGMAS) -> list[dict]:
+    """Sudden jumps between consecutive readings: a difference that stands
+    out from its neighbours' (their median, so smooth drift of any speed
+    is not a step) by more than ``sigmas`` times the robust spread of such
+    departures, and by more than a microvolt."""
+    y = np.asarray(v, float)
+    if y.size < 6:
+        return []
+    d = np.diff(y)
+    pad = np.pad(d, 2, mode="edge")
+    neighbours = np.median(np.stack([pad[0:-4], pad[1:-3], pad[3:-1], pad[4:]]), axis=0)
+    r = d - neighbours
+    noise = 1.4826 * float(np.median(np.abs(r - np.median(r))))
+    limit = max(sigmas * noise, 1e-6)
+    t = np.asarray(t_s, float)
+    return [{"time_s": float(t[i + 1]), "step_v": float(d[i]), "from_v": float(y[i]), "to_v": float(y[i + 1])}
+            for i in np.flatnonzero(np.abs(r) > limit)]
+
+
+def drift_rate_v_per_s(t_s, v, window_s: float) -> float | None:
+    """Slope of a straight line through the last ``window_s`` of readings."""
+    t, y = np.asarray(t_s, float), np.asarray(v, float)
+    sel = t >= t[-1] - window_s
+    if sel.sum() < 2 or np.ptp(t[sel]) <= 0:
+        return None
+    return float(np.polyfit(t[sel], y[sel], 1)[0])
+
+
+@dataclass(frozen=True)
+class DriftResult:
+    """The figures of a drift log."""
+
+    t_s: np.ndarray
+    v: np.ndarray
+    fit: SettlingFit | None
+    events: tuple[dict, ...]
+    rate_v_per_s: float | None
+    window_s: float
+    limit_v: float | None
+    nominal_v: float = 0.0
+    warnings: tuple[str, ...] = ()
+    info: dict = field(default_factory=dict)
+
+    @property
+    def verdict(self) -> str | None:
+        """Against the limit about the nominal value: "within", "over", or
+        "settling" (inside now, heading out, or the reverse); None without
+        a limit."""
+        if self.limit_v is None:
+            return None
+        now_ok = abs(float(self.v[-1]) - self.nominal_v) <= self.limit_v
+        end_ok = now_ok if self.fit is None else abs(self.fit.final_v - self.nominal_v) <= self.limit_v
+        if now_ok and end_ok:
+            return "within"
+        if not now_ok and not end_ok:
+            return "over"
+        return "settling"
+
+    def to_dict(self) -> dict:
+        v = self.v
+        return {
+            "kind": "drift",
+            "schema_version": 1,
+            **self.info,
+            "samples": int(v.size),
+            "duration_s": float(self.t_s[-1] - self.t_s[0]) if v.size else 0.0,
+            "last_v": float(v[-1]),
+            "min_v": float(v.min()),
+            "max_v": float(v.max()),
+            "pp_v": float(np.ptp(v)),
+            "rate_mv_per_min": None if self.rate_v_per_s is None else self.rate_v_per_s * 60e3,
+            "rate_window_s": self.window_s,
+            "fit": None if self.fit is None else self.fit.to_dict(),
+            "events": list(self.events),
+            "limit_v": self.limit_v,
+            "nominal_v": self.nominal_v,
+            "verdict": self.verdict,
+            "warnings": list(self.warnings),
+        }
+
+
+def analyze_drift(t_s, v, limit_v: float | None = None, band_v: float | None = None, window_s: float = 60.0,
+                  info: dict | None = None, warnings: tuple[str, ...] = (), nominal_v: float = 0.0) -> DriftResult:
+    """Figures of a drift log: ``band_v`` (default a tenth of the limit,
+    else 1 mV) decides when it has settled; the verdict holds the value
+    within ``limit_v`` of ``nominal_v`` (0 for an output offset; the
+    design midpoint for a capacitor-coupled stage)."""
+    t, y = np.asarray(t_s, float), np.asarray(v, float)
+    if t.size == 0:
+        raise ValueError("an empty drift log")
+    events = find_steps(t, y)
+    start = 0
+    if events:
+        start = int(np.searchsorted(t, events[-1]["time_s"]))
+    band = band_v if band_v is not None else (limit_v / 10 if limit_v else 1e-3)
+    fit = fit_settling(t[start:], y[start:], band)
+    notes = list(warnings)
+    if events:
+        notes.append(f"{len(events)} sudden step(s) in the log: the fit uses the readings after the last one")
+    if fit is None and t.size >= MIN_FIT_POINTS:
+        notes.append("no first-order settling could be fitted (not settling, or too noisy)")
+    return DriftResult(t, y, fit, tuple(events), drift_rate_v_per_s(t, y, window_s), window_s, limit_v,
+                       nominal_v, tuple(notes), dict(info or {}))
