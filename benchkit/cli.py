@@ -217,8 +217,8 @@ def _power_options(power, load, rail, limits, metric, onset_db, supply_volts, su
         raise BenchkitError(f"--metric is thdn or thd, got {metric!r}")
     if not limits or any(not (0 < x < 100) for x in limits):
         raise BenchkitError("--limit takes percentages between 0 and 100")
-    if (supply_volts is None) != (supply_amps is None):
-        raise BenchkitError("give both --supply-volts and --supply-amps, or neither")
+    if supply_amps is not None and supply_volts is None:
+        raise BenchkitError("--supply-amps needs --supply-volts")
     if (rail is None) != (bias is None):
         raise BenchkitError("describe the stage with both --rail and --bias")
     budget = ClassABudget(rail, bias, load, vsat) if rail is not None else None
@@ -631,6 +631,7 @@ def power(
     start: Optional[float] = typer.Option(None, "--start", help="First drive level, dBFS (default: 40 dB below the expected maximum)."),
     step_db: float = typer.Option(1.0, "--step-db", help="Step while THD+N rises slowly, dB (a quarter of it once it rises fast)."),
     fine_db: float = typer.Option(0.1, "--fine-db", help="Bisect until each limit lies between steps this close, dB."),
+    supply_meter: Optional[str] = typer.Option(None, "--supply-meter", help="A meter reading the supply's DC current (VISA resource), read during every step; needs --supply-volts."),
     rated_power: Optional[float] = typer.Option(None, "--rated-power", help="The claimed power, W: say whether the power at the first limit reaches it."),
     precondition_run: bool = typer.Option(False, "--precondition", help="First hold 1/8 of --rated-power for an hour (16 CFR 432 manner)."),
     precondition_s: Optional[float] = typer.Option(None, "--precondition-s", help="Shorten (or lengthen) the preconditioning, seconds: the report says so."),
@@ -666,6 +667,8 @@ def power(
         opts = _power_options(True, load, live["rail"], **figures)
         if step_db <= 0 or fine_db <= 0:
             raise BenchkitError("--step-db and --fine-db must be positive")
+        if supply_meter and figures["supply_volts"] is None:
+            raise BenchkitError("--supply-meter needs --supply-volts (efficiency is P / (V I))")
         if precondition_run and rated_power is None:
             raise BenchkitError("--precondition needs --rated-power (it holds 1/8 of it)")
         if precondition_s is not None and not precondition_run:
@@ -699,11 +702,19 @@ def power(
                                       channels, say=_err)
         _err(f"steps from {first:.1f} dBFS, at most {top:.1f} dBFS (the input's margin or the drive cap)")
         folder = _report_folder(out or Path(f"power-{datetime.now():%Y%m%d-%H%M%S}"))
+        amps_meter = None
+        if supply_meter:
+            from benchkit.meters import ScpiMeter
+
+            amps_meter = ScpiMeter(supply_meter, quantity="amps")
+            _err(f"supply current: {amps_meter.name}")
         result = power_run(backend, folder, frequency, first, top, load, in_channel, ref_channel, opts["metric"],
                            opts["limits_pct"], opts["onset_db"], opts["supply_v"], opts["supply_a"], budget, profile,
                            None if calibration is None else str(calibration), step_db=step_db, fine_db=fine_db,
                            warnings=plan.warnings, input_margin_db=live["margin"], rated_w=rated_power,
-                           conditions=conditions)
+                           conditions=conditions, supply_meter=amps_meter)
+        if amps_meter is not None:
+            amps_meter.close()
         info = result.info or {}
         _err(summary.power_summary(result, f"{frequency:g} Hz into {load:g} ohm: {info.get('steps_played')} steps, "
                                            f"{info.get('stimulus_s', 0):.1f} s; stopped: {info.get('stop_reason')}"))
@@ -718,6 +729,7 @@ def power(
 def drift(
     source: str = typer.Option("virtual", "--source", help="virtual (the se-class-a midpoint, accelerated), meter (SCPI over pyvisa) or interface (a DC-coupled input)."),
     resource: Optional[str] = typer.Option(None, "--resource", help="The meter's VISA resource, e.g. TCPIP::192.168.1.50::5025::SOCKET or ASRL/dev/ttyUSB0::INSTR."),
+    current_resource: Optional[str] = typer.Option(None, "--current-resource", help="A second meter reading the supply's DC current, logged beside the volts."),
     interval: float = typer.Option(1.0, "--interval", help="Seconds between readings."),
     duration: Optional[float] = typer.Option(None, "--duration", help="Log this long, seconds."),
     until_settled: bool = typer.Option(False, "--until-settled", help="Stop once settled within --settle-band."),
@@ -769,11 +781,14 @@ def drift(
         band = judge["settle_band"] if judge["settle_band"] is not None else (dc_limit / 10 if dc_limit else 1e-3)
         folder = _report_folder(out or Path(f"drift-{datetime.now():%Y%m%d-%H%M%S}"))
         log = folder / "log.csv"
-        _err(f"source: {reader.name}; logging to {log}")
+        amps = meters.ScpiMeter(current_resource, quantity="amps") if current_resource else None
+        _err(f"source: {reader.name}; logging to {log}" + (f"; supply current: {amps.name}" if amps else ""))
         try:
-            end = log_drift(reader, log, interval, duration, until_settled, band, window, say=_err)
+            end = log_drift(reader, log, interval, duration, until_settled, band, window, say=_err, current=amps)
         finally:
             reader.close()
+            if amps is not None:
+                amps.close()
         notes = () if end.how in ("duration", "settled") else (f"the log stopped early: {end.message}",)
         if end.how == "lost":
             _err(f"benchkit: {end.message}: the log stopped; every reading so far is in {log}")
@@ -797,6 +812,7 @@ def _write_drift_reports(result, log: Path, out: Path) -> list[Path]:
     _report_folder(out)
     return [
         tables.write_json(result.to_dict(), out / f"{log.stem}.drift.json"),
+        tables.write_drift_csv(result, out / f"{log.stem}.drift.csv"),
         plots.drift_png(result, out / f"{log.stem}.drift.png", log.name),
     ]
 

@@ -60,12 +60,14 @@ def log_drift(
     say: Callable[[str], None] = lambda _m: None,
     clock: Callable[[], float] = time.monotonic,
     sleep: Callable[[float], None] = time.sleep,
+    current=None,
 ) -> LogEnd:
     """Read ``source`` every ``interval_s`` into ``csv_path`` until the
     duration is up, it has settled within ``band_v`` (``until_settled``),
     Ctrl-C, or the source goes away. A source with ``accelerated`` > 0 is
     simulated: no waiting, ``accelerated`` x ``interval_s`` of its own
-    time per reading."""
+    time per reading. ``current``, a second meter reading amps (the
+    supply's draw), adds an ``amps`` column."""
     if interval_s <= 0:
         raise BenchkitError("the interval must be positive")
     if duration_s is None and not until_settled:
@@ -79,7 +81,7 @@ def log_drift(
         raise BenchkitError(f"cannot write {csv_path}: {exc.strerror or exc}") from None
     end = LogEnd("duration")
     with fh:
-        fh.write("time_s,volts\n")
+        fh.write("time_s,volts,amps\n" if current is not None else "time_s,volts\n")
         fh.flush()
         t0 = clock()
         k = 0
@@ -90,10 +92,11 @@ def log_drift(
                     break
                 try:
                     v = source.read()
+                    amps = "" if current is None else f",{current.read():.9g}"
                 except SourceLost as exc:
                     end = LogEnd("lost", str(exc))
                     break
-                fh.write(f"{t:.3f},{v:.9g}\n")
+                fh.write(f"{t:.3f},{v:.9g}{amps}\n")
                 fh.flush()
                 live.add(t, v)
                 k += 1
@@ -133,5 +136,12 @@ def analyze_drift_csv(path: Path, time_col: str = "1", value_col: str = "2", lim
                       warnings: tuple[str, ...] = (), nominal_v: float = 0.0) -> DriftResult:
     """The drift figures of a CSV log on disk (benchkit's, or a logger's)."""
     t, v, notes = read_drift_csv(path, time_col, value_col)
-    return analyze_drift(t, v, limit_v, band_v, window_s, {"file": str(path), **(info or {})},
-                         tuple(notes) + tuple(warnings), nominal_v)
+    extra = {"file": str(path), **(info or {})}
+    try:
+        _t, amps, _n = read_drift_csv(path, time_col, "amps")
+    except BenchkitError:
+        amps = None  # no supply-current column
+    if amps is not None:
+        extra["supply_current_a"] = {"last": float(amps[-1]), "min": float(amps.min()), "max": float(amps.max()),
+                                     "mean": float(amps.mean())}
+    return analyze_drift(t, v, limit_v, band_v, window_s, extra, tuple(notes) + tuple(warnings), nominal_v)

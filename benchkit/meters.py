@@ -32,12 +32,15 @@ class SourceLost(BenchkitError):
 
 
 class ScpiMeter:
-    """A multimeter reading DC volts over SCPI (``*IDN?``, ``CONF:VOLT:DC``,
-    ``READ?``)."""
+    """A multimeter reading DC volts (or, ``quantity="amps"``, DC current:
+    a supply's draw) over SCPI (``*IDN?``, ``CONF:VOLT:DC`` or
+    ``CONF:CURR:DC``, ``READ?``)."""
 
     accelerated = 0.0
 
-    def __init__(self, resource: str, timeout_s: float = 5.0):
+    def __init__(self, resource: str, timeout_s: float = 5.0, quantity: str = "volts"):
+        if quantity not in ("volts", "amps"):
+            raise BenchkitError(f"a meter reads volts or amps, not {quantity!r}")
         try:
             import pyvisa
         except ImportError:
@@ -50,9 +53,10 @@ class ScpiMeter:
             self._inst.read_termination = "\n"
             self._inst.write_termination = "\n"
             self.idn = self._inst.query("*IDN?").strip()
-            self._inst.write("CONF:VOLT:DC")
+            self._inst.write("CONF:VOLT:DC" if quantity == "volts" else "CONF:CURR:DC")
         except self._errors as exc:
             raise BenchkitError(f"cannot reach the multimeter at {resource}: {exc}") from None
+        self.quantity = quantity
         self.name = f"{self.idn} at {resource}"
 
     def read(self) -> float:

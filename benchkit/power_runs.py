@@ -66,8 +66,9 @@ def power_from_steps(steps: StepsResult, load_ohms: float, metric: str = "thdn",
     expected = budget.to_dict() if budget is not None else None
     info = {"file": steps.file, "channel": steps.channel, "device": steps.device,
             "calibration": steps.calibration}
+    amps = [seg.get("supply_a") for seg in segs] if len(segs) == len(ordered) else None
     return analyze_power([(s.drive_dbfs, s.result) for s in ordered], load_ohms, metric, limits_pct, onset_db,
-                         supply_v, supply_a, samples_of, expected, info, tuple(warnings))
+                         supply_v, supply_a, samples_of, expected, info, tuple(warnings), amps)
 
 
 #: Climbing: this step at first, a quarter of it once THD+N rises fast.
@@ -141,7 +142,7 @@ class AdaptiveSteps:
     def __init__(self, planner: LevelPlanner, frequency_hz: float, rate: float, metric: str = "thdn",
                  in_channel: int = 1, ref_channel: int | None = None, out_channel: int = 1, n_out: int = 2,
                  lead_s: float = 0.05, step_s: float = 0.5, settle_s: float = 0.2, gap_s: float = 0.05,
-                 input_margin_db: float = 3.0, max_s: float = 600.0):
+                 input_margin_db: float = 3.0, max_s: float = 300.0, supply_meter=None):
         from benchkit import signals
 
         self._signals = signals
@@ -162,6 +163,9 @@ class AdaptiveSteps:
         self._input = np.zeros((0,))
         self._ref = np.zeros((0,))
         self.latency: int | None = None
+        self.supply_meter = supply_meter
+        #: supply current read half way through each step, by step index
+        self.supply_a: dict[int, float] = {}
         self.finished = False
         self.stop_reason = ""
         self._lock = threading.Lock()
@@ -223,6 +227,14 @@ class AdaptiveSteps:
             if self.latency is None:
                 return
         seg = self.segments[-1]
+        k = len(self.segments) - 1
+        if self.supply_meter is not None and k not in self.supply_a and \
+                self._input.size >= (seg.settled + seg.end) // 2 + self.latency:
+            try:
+                self.supply_a[k] = float(self.supply_meter.read())
+            except BenchkitError as exc:
+                self.stop(f"the supply meter stopped answering ({exc})")
+                return
         if self._input.size < seg.end + self.latency:
             return
         self._decide(seg)
@@ -367,11 +379,13 @@ def power_run(
     input_margin_db: float = 3.0,
     rated_w: float | None = None,
     conditions: dict | None = None,
+    supply_meter=None,
 ) -> PowerResult:
     """A stepped-level run to the highest limit: one stream, each next
     level chosen from the step just recorded; the capture and its sidecar
     on disk before the analysis; an interrupted run keeps (and reports)
-    its completed steps, with ``info["interrupted"]`` set."""
+    its completed steps, with ``info["interrupted"]`` set. A
+    ``supply_meter`` (reading amps) is read half way through every step."""
     from benchkit import capture
     from benchkit.runs import _capture_sidecar, analyze_steps, apply_calibration
     from benchkit.recordings import write_capture
@@ -380,7 +394,7 @@ def power_run(
     stim = AdaptiveSteps(planner, frequency_hz, backend.sample_rate_hz, metric, in_channel=channel,
                          ref_channel=ref_channel or backend.reference_input(), out_channel=getattr(backend, "drive_output", 1),
                          n_out=backend.n_outputs, lead_s=getattr(backend, "lead_s", 0.05), step_s=step_s,
-                         settle_s=settle_s, input_margin_db=input_margin_db)
+                         settle_s=settle_s, input_margin_db=input_margin_db, supply_meter=supply_meter)
     partial = folder / f"{name}.partial.wav"
     interrupted = None
     try:
@@ -392,10 +406,12 @@ def power_run(
         stim.stop(str(exc))
         cap = _salvage(partial, stim, backend)
     end = cap.samples.shape[0] if cap.stopped_at is None else cap.stopped_at
-    done = [s for s in stim.segments if s.end <= end and not cap.spoiled(s.settled, s.end)]
+    done = [(i, s) for i, s in enumerate(stim.segments) if s.end <= end and not cap.spoiled(s.settled, s.end)]
     dropped = len(stim.segments) - len(done)
     side = _capture_sidecar(cap, stim, channel, backend, note)
-    side["stimulus"]["segments"] = [s.to_dict() for s in done]
+    side["stimulus"]["segments"] = [{**s.to_dict(), **({"supply_a": stim.supply_a[i]} if i in stim.supply_a else {})}
+                                    for i, s in done]
+    done = [s for _i, s in done]
     side["stimulus"]["levels_dbfs"] = [s.level_dbfs for s in done]
     side["stop_reason"] = stim.stop_reason
     if calibration is not None:

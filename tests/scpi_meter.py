@@ -70,6 +70,7 @@ class EmulatedMeter:
         if cmd == "*IDN?":
             return "benchkit-tests,emulated DMM,0001,1.0"
         if cmd.startswith("CONF"):
+            self.function = cmd
             return None
         if cmd in ("READ?", "MEAS:VOLT:DC?"):
             now = time.monotonic()

@@ -65,6 +65,23 @@ def test_meter_over_pyvisa_settles_as_its_exponential(tmp_path):
     assert r.fit.tau_s == pytest.approx(1.5, rel=0.05)
 
 
+def test_a_second_meter_logs_the_supply_current(tmp_path):
+    volts = EmulatedMeter(final_v=0.02, start_v=0.03, tau_s=1.0)
+    amps = EmulatedMeter(final_v=1.20, start_v=1.25, tau_s=1.0, noise_v=1e-4)
+    out = tmp_path / "run"
+    try:
+        res = run_cli("drift", "--source", "meter", "--resource", volts.resource, "--current-resource", amps.resource,
+                      "--interval", "0.05", "--duration", "2", "--out", str(out), "--json")
+    finally:
+        volts.close()
+        amps.close()
+    assert res.returncode == 0, res.stderr
+    doc = json.loads(res.stdout)
+    assert amps.function == "CONF:CURR:DC" and volts.function == "CONF:VOLT:DC"
+    assert 1.19 < doc["supply_current_a"]["last"] < 1.23 and doc["supply_current_a"]["max"] <= 1.26
+    assert (out / "log.drift.csv").exists()
+
+
 def test_meter_going_away_stops_cleanly_and_keeps_the_log(tmp_path):
     meter = EmulatedMeter(final_v=0.01, start_v=0.02, tau_s=2.0, close_after_s=1.0)
     out = tmp_path / "run"

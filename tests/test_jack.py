@@ -297,3 +297,24 @@ def test_preconditioning_holds_a_tone_then_rates(server, tmp_path):
     assert rating["preconditioning"]["shortened"] and rating["meets"] is True
     # 1/8 of 90 uW into 8 ohm at 1 V per FS: 20 log10(sqrt(2 x 11.25e-6 x 8)) dBFS
     assert rating["preconditioning"]["level_dbfs"] == pytest.approx(20 * math.log10(math.sqrt(2 * 9e-5 / 8 * 8)), abs=0.2)
+
+
+def test_power_run_reads_the_supply_current_at_every_step(server, tmp_path):
+    # a SCPI meter (the test emulator, through pyvisa-py) read half way
+    # through every step; efficiency = P / (V I) with that step's own current
+    pytest.importorskip("pyvisa_py")
+    from scpi_meter import EmulatedMeter
+
+    amps = EmulatedMeter(final_v=0.5, start_v=0.5, tau_s=1.0, noise_v=0.0)
+    try:
+        with jackbench.Patchbay(server, "poly", a2=0.5):
+            proc = _power(server, tmp_path / "run", "--supply-meter", amps.resource, "--supply-volts", "24", "--json")
+            out, err = proc.communicate(timeout=90)
+    finally:
+        amps.close()
+    assert proc.returncode == 0, err
+    d = json.loads(out)
+    assert amps.function == "CONF:CURR:DC" and amps.readings >= len(d["steps"])
+    for s in d["steps"]:
+        assert s["supply_a"] == pytest.approx(0.5)
+        assert s["efficiency_pct"] == pytest.approx(100 * s["power_w"] / 12.0)

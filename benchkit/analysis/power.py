@@ -151,13 +151,23 @@ class PowerStep:
     harmonics_dbc: dict
     noise_vrms: float | None
     valid: bool
+    #: the supply current a meter read during the step, A
+    supply_a: float | None = None
 
-    def to_dict(self, supply_w: float | None = None) -> dict:
+    def efficiency_pct(self, supply_v: float | None, supply_a: float | None) -> float | None:
+        """Output power over supply power, with this step's own current when metered."""
+        amps = self.supply_a if self.supply_a is not None else supply_a
+        return None if not supply_v or not amps else 100.0 * self.power_w / (supply_v * amps)
+
+    def to_dict(self, supply_v: float | None = None, supply_a: float | None = None) -> dict:
         d = {"drive_dbfs": self.drive_dbfs, "vrms": self.vrms, "power_w": self.power_w, "thd_pct": self.thd_pct,
              "thdn_pct": self.thdn_pct, **{f"h{k}_dbc": v for k, v in self.harmonics_dbc.items()},
              "noise_vrms": self.noise_vrms, "valid": self.valid}
-        if supply_w:
-            d["efficiency_pct"] = 100.0 * self.power_w / supply_w
+        if self.supply_a is not None:
+            d["supply_a"] = self.supply_a
+        eff = self.efficiency_pct(supply_v, supply_a)
+        if eff is not None:
+            d["efficiency_pct"] = eff
         return d
 
 
@@ -187,9 +197,18 @@ class PowerResult:
         """The point at the first (headline) limit."""
         return self.limits[0][1] if self.limits else None
 
+    @property
+    def efficiency_pct(self) -> float | None:
+        """At the first limit: with the current metered at the step above
+        it, else the stated supply current."""
+        rated = self.rated
+        if rated is None or not self.supply_v:
+            return None
+        amps = self.steps[rated.above].supply_a or self.supply_a
+        return None if not amps else 100.0 * rated.power_w / (self.supply_v * amps)
+
     def to_dict(self) -> dict:
         sw = self.supply_w
-        rated = self.rated
         d = {
             "kind": "power",
             "schema_version": 1,
@@ -203,10 +222,10 @@ class PowerResult:
             "clipping_onset": None if self.onset is None else self.onset.to_dict(),
             "clipping_half": self.half,
             "supply": None if sw is None else {"volts": self.supply_v, "amps": self.supply_a, "watts": sw},
-            "efficiency_pct": None if sw is None or rated is None else 100.0 * rated.power_w / sw,
+            "efficiency_pct": self.efficiency_pct,
             "idle_dissipation_w": sw,
             "expected": self.expected,
-            "steps": [s.to_dict(sw) for s in self.steps],
+            "steps": [s.to_dict(self.supply_v, self.supply_a) for s in self.steps],
             "warnings": list(self.warnings),
         }
         return d
@@ -215,22 +234,24 @@ class PowerResult:
 def analyze_power(steps, load_ohms: float, metric: str = "thdn", limits_pct=DEFAULT_LIMITS_PCT,
                   onset_db: float = ONSET_DB, supply_v: float | None = None, supply_a: float | None = None,
                   samples_of=None, expected: dict | None = None, info: dict | None = None,
-                  warnings: tuple[str, ...] = ()) -> PowerResult:
+                  warnings: tuple[str, ...] = (), step_amps=None) -> PowerResult:
     """The power figures of a stepped-level run.
 
     ``steps`` are (drive dBFS, ToneResult) in rising order, analysed in
     volts into ``load_ohms``; ``samples_of(i)`` gives the samples of step i
     and its DC, or None: the top step's show which half clips.
+    ``step_amps`` gives each step's metered supply current (or None).
     """
     if metric not in ("thdn", "thd"):
         raise ValueError("metric is 'thdn' or 'thd'")
     rows = []
-    for drive, r in steps:
+    amps = list(step_amps) if step_amps is not None else [None] * len(steps)
+    for (drive, r), a in zip(steps, amps):
         if r.power_w is None:
             raise ValueError("every step needs volts and a load")
         rows.append(PowerStep(drive, r.fundamental_vrms, r.power_w, r.thd_pct, r.thdn_pct,
                               {h.order: h.level_dbc for h in r.harmonics if 2 <= h.order <= 5},
-                              r.noise_vrms, r.valid))
+                              r.noise_vrms, r.valid, a))
     v = [s.vrms for s in rows]
     p = [s.power_w for s in rows]
     m = [s.thdn_pct if metric == "thdn" else s.thd_pct for s in rows]

@@ -156,9 +156,13 @@ def power_summary(r, title: str = "") -> str:
                      f"THD+N {r.onset.departure_db:g} dB over its low-level trend)")
     if r.half:
         lines.append(f"  clipping half        {r.half}")
+    eff = r.efficiency_pct
+    at = "" if eff is None else f", efficiency {eff:.1f} % at {r.limits[0][0]:g} %"
     if r.supply_w:
-        eff = "" if r.rated is None else f", efficiency {100 * r.rated.power_w / r.supply_w:.1f} % at {r.limits[0][0]:g} %"
-        lines.append(f"  supply               {r.supply_w:.3g} W ({r.supply_v:g} V x {r.supply_a:g} A; all heat at idle){eff}")
+        lines.append(f"  supply               {r.supply_w:.3g} W ({r.supply_v:g} V x {r.supply_a:g} A; all heat at idle){at}")
+    elif r.supply_v and any(s.supply_a is not None for s in r.steps):
+        metered = [s.supply_a for s in r.steps if s.supply_a is not None]
+        lines.append(f"  supply               {r.supply_v:g} V, {min(metered):.4g} to {max(metered):.4g} A metered{at}")
     if r.expected:
         e = r.expected
         got = r.onset.power_w if r.onset is not None else None

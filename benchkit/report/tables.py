@@ -146,10 +146,10 @@ def write_response_csv(result, path: Path) -> Path:
 
 
 def write_power_csv(result, path: Path) -> Path:
-    """One row per step of a power run, with the efficiency when the supply is known."""
-    sw = result.supply_w
+    """One row per step of a power run, with the supply current a meter
+    read and the efficiency when the supply is known."""
     header = ["drive_dbfs", "vrms", "power_w", "thd_pct", "thdn_pct", "h2_dbc", "h3_dbc", "h4_dbc", "h5_dbc",
-              "noise_vrms", "efficiency_pct", "valid"]
+              "noise_vrms", "supply_a", "efficiency_pct", "valid"]
     with path.open("w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
         w.writerow(header)
@@ -158,5 +158,23 @@ def write_power_csv(result, path: Path) -> Path:
             w.writerow([f"{s.drive_dbfs:.3f}", f"{s.vrms:.6g}", f"{s.power_w:.6g}", f"{s.thd_pct:.5g}",
                         f"{s.thdn_pct:.5g}"] + ["" if x is None else f"{x:.2f}" for x in h]
                        + ["" if s.noise_vrms is None else f"{s.noise_vrms:.4g}",
-                          "" if not sw else f"{100 * s.power_w / sw:.3f}", s.valid])
+                          "" if s.supply_a is None else f"{s.supply_a:.5g}",
+                          "" if (e := s.efficiency_pct(result.supply_v, result.supply_a)) is None else f"{e:.3f}",
+                          s.valid])
+    return path
+
+
+def write_drift_csv(result, path: Path) -> Path:
+    """The readings beside the settling fit: time, volts, fitted volts and
+    the residual (empty before the fit's start or without a fit)."""
+    fit = result.fit
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["time_s", "volts", "fit_v", "residual_v"])
+        for t, v in zip(result.t_s, result.v):
+            if fit is not None and t >= fit.start_s:
+                f = float(fit.value_at(t))
+                w.writerow([f"{t:.3f}", f"{v:.9g}", f"{f:.9g}", f"{v - f:.3e}"])
+            else:
+                w.writerow([f"{t:.3f}", f"{v:.9g}", "", ""])
     return path
