@@ -45,6 +45,16 @@ def test_sounddevice_only_lazily():
             assert "sounddevice" not in _imports(path), path
 
 
+def test_pyvisa_is_an_optional_extra():
+    # only the meter source imports it, inside the class that needs it
+    for path in PKG.rglob("*.py"):
+        names = _imports(path)
+        if path.name != "meters.py":
+            assert not any(n.startswith("pyvisa") for n in names), path
+    top = ast.parse((PKG / "meters.py").read_text())
+    assert not any(isinstance(n, ast.Import) and any(a.name.startswith("pyvisa") for a in n.names) for n in top.body)
+
+
 @pytest.mark.parametrize("command", ["analyze", "tone", "sweep", "power", "budget", "demo", "models"])
 def test_every_command_has_help_with_an_example(command):
     res = run_cli(command, "--help")
