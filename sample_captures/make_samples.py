@@ -16,6 +16,7 @@ from pathlib import Path
 
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
 from benchkit.recordings import read_capture, write_capture
+from benchkit.responses import response_run
 from benchkit.runs import tone_run
 
 HERE = Path(__file__).resolve().parent
@@ -28,6 +29,13 @@ CASES = [
      "four levels at 0.8 A, the top one past the 6.4 V current limit"),
     ("b2-nopad-997Hz", {"bias": 0.8}, None, [-17.0],
      "no pad: 2.8 V peak into a 2.0 V peak input clips the converter"),
+]
+
+
+#: name, stage parameters, span (Hz), length (s), level (dBFS), note
+SWEEPS = [
+    ("b2-bias1.2A-sweep", {"bias": 1.2}, (3.0, 22000.0), 5.0, -20.0,
+     "a synchronized sweep at 1.2 A, the stage on input 1 and the reference loopback on input 2"),
 ]
 
 
@@ -44,6 +52,18 @@ def make(folder: Path) -> list[Path]:
             # keep the files small: the stage's input only, 24-bit
             side["channels"] = side["channels"][:1]
             written.append(write_capture(folder / f"{name}.wav", rec.samples[:, None], rec.sample_rate_hz, side, "PCM_24"))
+    for j, (name, params, span, seconds, level, note) in enumerate(SWEEPS):
+        bench = virtual_bench("se-class-a", {**params, "ambient_c": 23.0}, pad=DEMO_PAD, seed=20261202 + j)
+        with tempfile.TemporaryDirectory() as tmp:
+            response_run(bench, Path(tmp), level, span, seconds, ref_channel=2, name=name,
+                         note=f"invented demo data: {note}")
+            import soundfile as sf
+
+            both, rate = sf.read(str(Path(tmp) / f"{name}.wav"), always_2d=True, dtype="float64")
+            side = {k: v for k, v in read_capture(Path(tmp) / f"{name}.wav").sidecar.items()
+                    if k not in ("kind", "schema_version", "created")}
+            # both inputs (the response is output / reference), 24-bit
+            written.append(write_capture(folder / f"{name}.wav", both[:, :2], rate, side, "PCM_24"))
     return written
 
 
