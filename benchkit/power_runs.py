@@ -127,6 +127,27 @@ class LevelPlanner:
         return None
 
 
+class _Growing:
+    """A 1-D float buffer that grows by doubling: appending is amortised
+    O(1), however long the run."""
+
+    def __init__(self):
+        self._buf = np.zeros(1 << 16)
+        self.size = 0
+
+    def append(self, x: np.ndarray) -> None:
+        need = self.size + x.size
+        if need > self._buf.size:
+            grown = np.zeros(max(need, 2 * self._buf.size))
+            grown[: self.size] = self._buf[: self.size]
+            self._buf = grown
+        self._buf[self.size: need] = x
+        self.size = need
+
+    def __getitem__(self, span: slice) -> np.ndarray:
+        return self._buf[: self.size][span]
+
+
 class AdaptiveSteps:
     """A stepped-level stimulus that listens: each next level is chosen
     by a :class:`LevelPlanner` from the analysis of the step just
@@ -160,8 +181,8 @@ class AdaptiveSteps:
         self._rendered = 0
         self._queue: list[np.ndarray] = [head]
         self.segments: list = []
-        self._input = np.zeros((0,))
-        self._ref = np.zeros((0,))
+        self._input = _Growing()
+        self._ref = _Growing()
         self.latency: int | None = None
         self.supply_meter = supply_meter
         #: supply current read half way through each step, by step index
@@ -220,8 +241,8 @@ class AdaptiveSteps:
         """Recorded frames ``block`` starting at raw frame ``pos``."""
         if self.finished:
             return
-        self._input = np.concatenate([self._input, block[:, self.in_col]])
-        self._ref = np.concatenate([self._ref, block[:, self.ref_col]])
+        self._input.append(block[:, self.in_col])
+        self._ref.append(block[:, self.ref_col])
         if self.latency is None:
             self._find_latency()
             if self.latency is None:
