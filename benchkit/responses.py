@@ -182,11 +182,11 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
     info = {**_info(rec, ref, ref_channel), "sweep": {**sweep.to_dict(), "level_dbfs": units.db_from_ratio(amplitude)}}
     warnings = list(rec.warnings) + list(rec.sidecar.get("warnings") or ())
     frac = 0.0
-    found = start is None
-    if found:
-        found = sw.find_start(rec.samples if ref.samples is None else ref.samples, sweep)
-        start, frac = int(math.floor(found)), found - math.floor(found)
-        info["sweep_start_s"] = found / rate
+    elsewhere = start is None  # a sweep made elsewhere, after unknown silence
+    if elsewhere:
+        at = sw.find_start(rec.samples if ref.samples is None else ref.samples, sweep)
+        start, frac = int(math.floor(at)), at - math.floor(at)
+        info["sweep_start_s"] = at / rate
     short = start + sweep.n_samples - rec.samples.size
     if short > 0:
         raise BenchkitError(f"{rec.path}: the capture ends {short / rate:.2f} s before the sweep does: truncated")
@@ -197,8 +197,8 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
     got = sw.measure(out, sweep, None if ref.samples is None else ref.samples[start:], freqs=freqs,
                      band_hz=band or (sweep.band_hz[0], 0.45 * rate), amplitude=amplitude)
     h = got.linear * np.exp(2j * np.pi * freqs * frac / rate)  # the fraction of a sample the start lies late
-    if found and ref.samples is None:
-        # a sweep made elsewhere: most likely played and recorded on two clocks
+    if elsewhere and ref.samples is None:
+        # most likely played and recorded on two clocks
         mag = np.abs(h)
         ref_db = resp.level_at(freqs, units.db_from_ratio(mag), reference_hz)
         low, high = resp.corners(freqs, units.db_from_ratio(mag), ref_db if ref_db is not None else 0.0, 3.0,
