@@ -720,6 +720,11 @@ def power(
                                            f"{info.get('stimulus_s', 0):.1f} s; stopped: {info.get('stop_reason')}"))
         written = _write_power_reports(result, folder / "capture.wav", in_channel, folder)
     _finish_run(written, folder, result.to_dict(), as_json)
+    if info.get("device_lost"):
+        # everything is on disk; PortAudio can hang for good shutting down a dead server's client
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(EXIT_BAD_INPUT)
     if info.get("interrupted"):
         raise typer.Exit(130)
 

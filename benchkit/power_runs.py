@@ -451,6 +451,7 @@ def power_run(
     steps = analyze_steps(read_capture(path, channel), load_ohms=load_ohms)
     result = power_from_steps(steps, load_ohms, metric, limits_pct, onset_db, supply_v, supply_a, budget)
     info = {**(result.info or {}), "stop_reason": stim.stop_reason, "interrupted": None if interrupted is None else str(interrupted),
+            "device_lost": bool(getattr(interrupted, "device_lost", False)),
             "steps_played": len(stim.segments), "stimulus_s": stim.duration_s, "latency_samples": cap.latency_samples}
     if rated_w is not None:
         info["rating"] = rating_verdict(result, rated_w, conditions)

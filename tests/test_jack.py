@@ -318,3 +318,16 @@ def test_power_run_reads_the_supply_current_at_every_step(server, tmp_path):
     for s in d["steps"]:
         assert s["supply_a"] == pytest.approx(0.5)
         assert s["efficiency_pct"] == pytest.approx(100 * s["power_w"] / 12.0)
+
+
+def test_losing_the_server_mid_power_run_reports_the_completed_steps(server, tmp_path):
+    folder = tmp_path / "run"
+    with jackbench.JackServer(period=1024) as doomed:
+        with jackbench.Patchbay(doomed, "poly", a2=0.5):
+            proc = _power(doomed, folder, "--step-db", "0.5")
+            _wait_until_running(proc, folder, seconds=4.0)
+            doomed.stop()  # the server goes away under the running stream
+            _, err = proc.communicate(timeout=30)
+    assert proc.returncode == 1 and "Traceback" not in err
+    d = json.loads((folder / "capture.power.json").read_text())
+    assert d["device_lost"] and len(d["steps"]) >= 3
