@@ -108,17 +108,27 @@ def kernel_at_bins(j: np.ndarray, delta: float, n: int) -> np.ndarray:
         out[near] = _integer_bin_kernel(n)[j[near] + 3]
         return out
     s_delta = np.sin(np.pi * min(delta, 1.0 - delta))  # sin(pi delta), without rounding loss near 1
-    sign = 1.0 - 2.0 * (j & 1)  # (-1)^j
     ang = np.pi * (j - delta) / n
-    sa, ca = np.sin(ang), np.cos(ang)
+    ca = np.cos(ang)
     weights = [WINDOW_COEFFS[0] if k == 0 else (-1) ** abs(k) * WINDOW_COEFFS[abs(k)] / 2.0 for k in range(-3, 4)]
+    contiguous = j.ndim == 1 and j.size > 1 and int(j[-1] - j[0]) == j.size - 1 and bool(np.all(np.diff(j) == 1))
+    if contiguous:
+        # sin(pi (j - k - delta) / n) for k = -3..3 are shifts of one array
+        ext = np.sin(np.pi * (np.arange(j[0] - 3, j[-1] + 4) - delta) / n)
+        recip = 1.0 / ext
+        sa = ext[3:3 + j.size]
+    else:
+        sa = np.sin(ang)
     tr = np.zeros(j.shape)
     ti = np.zeros(j.shape)
     for k, c in zip(range(-3, 4), weights):
         # D(mu - k) carries (-1)^(j-k) sin(pi mu); (-1)^k c is the window's
-        # weight without its alternating sign
+        # weight without its alternating sign; 1 / sin(pi (j - k - delta) / n)
         g = (-1) ** k * c * np.exp(1j * np.pi * k * (n - 1) / n)
-        inv = 1.0 / (sa * math.cos(math.pi * k / n) - ca * math.sin(math.pi * k / n))
+        if contiguous:
+            inv = recip[3 - k: 3 - k + j.size]
+        else:
+            inv = 1.0 / (sa * math.cos(math.pi * k / n) - ca * math.sin(math.pi * k / n))
         tr += g.real * inv
         ti += g.imag * inv
     # (-1)^j e^{j pi delta} e^{j ang} (-(-1)^j sin(pi delta)) (tr + j ti); (-1)^j squared is 1
