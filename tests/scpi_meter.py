@@ -1,7 +1,10 @@
 """A small SCPI multimeter emulator for the tests: serves on 127.0.0.1
 (raw socket, newline-terminated, as LAN meters do on port 5025) and
-answers *IDN?, CONF:VOLT:DC, READ? and MEAS:VOLT:DC? with a DC value
-drifting along a known exponential plus Gaussian noise. It can close its
+answers *IDN?, CONF:VOLT:DC (or CONF:CURR:DC), READ? and MEAS:VOLT:DC?
+with a DC value drifting along a known exponential - the first-order step
+response of circuit theory, v = v_f + (v_0 - v_f) exp(-t/tau) - plus
+Gaussian noise. The commands are the common SCPI ones (IEEE 488.2 *IDN?;
+CONF/READ/MEAS from the SCPI standard), from memory. It can close its
 socket after a while (a meter switched off mid-log).
 """
 
