@@ -708,13 +708,15 @@ def power(
 
             amps_meter = ScpiMeter(supply_meter, quantity="amps")
             _err(f"supply current: {amps_meter.name}")
-        result = power_run(backend, folder, frequency, first, top, load, in_channel, ref_channel, opts["metric"],
-                           opts["limits_pct"], opts["onset_db"], opts["supply_v"], opts["supply_a"], budget, profile,
-                           None if calibration is None else str(calibration), step_db=step_db, fine_db=fine_db,
-                           warnings=plan.warnings, input_margin_db=live["margin"], rated_w=rated_power,
-                           conditions=conditions, supply_meter=amps_meter)
-        if amps_meter is not None:
-            amps_meter.close()
+        try:
+            result = power_run(backend, folder, frequency, first, top, load, in_channel, ref_channel, opts["metric"],
+                               opts["limits_pct"], opts["onset_db"], opts["supply_v"], opts["supply_a"], budget,
+                               profile, None if calibration is None else str(calibration), step_db=step_db,
+                               fine_db=fine_db, warnings=plan.warnings, input_margin_db=live["margin"],
+                               rated_w=rated_power, conditions=conditions, supply_meter=amps_meter)
+        finally:
+            if amps_meter is not None:
+                amps_meter.close()
         info = result.info or {}
         _err(summary.power_summary(result, f"{frequency:g} Hz into {load:g} ohm: {info.get('steps_played')} steps, "
                                            f"{info.get('stimulus_s', 0):.1f} s; stopped: {info.get('stop_reason')}"))

@@ -408,7 +408,7 @@ def power_run(
     its completed steps, with ``info["interrupted"]`` set. A
     ``supply_meter`` (reading amps) is read half way through every step."""
     from benchkit import capture
-    from benchkit.runs import _capture_sidecar, analyze_steps, apply_calibration
+    from benchkit.runs import analyze_steps, apply_calibration, capture_sidecar
     from benchkit.recordings import write_capture
 
     planner = LevelPlanner(start_dbfs, max_dbfs, limits_pct, step_db, fine_db)
@@ -429,7 +429,7 @@ def power_run(
     end = cap.samples.shape[0] if cap.stopped_at is None else cap.stopped_at
     done = [(i, s) for i, s in enumerate(stim.segments) if s.end <= end and not cap.spoiled(s.settled, s.end)]
     dropped = len(stim.segments) - len(done)
-    side = _capture_sidecar(cap, stim, channel, backend, note)
+    side = capture_sidecar(cap, stim, channel, backend, note)
     side["stimulus"]["segments"] = [{**s.to_dict(), **({"supply_a": stim.supply_a[i]} if i in stim.supply_a else {})}
                                     for i, s in done]
     done = [s for _i, s in done]

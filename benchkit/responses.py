@@ -303,7 +303,7 @@ def response_run(
     The raw recording streams to ``NAME.partial.wav``; an input that clips
     stops the run (the partial capture is kept) with a clear error.
     """
-    from benchkit.runs import _capture_sidecar, apply_calibration
+    from benchkit.runs import apply_calibration, capture_sidecar
 
     rate = backend.sample_rate_hz
     out_ch = getattr(backend, "drive_output", 1)
@@ -316,7 +316,7 @@ def response_run(
                               backend.n_outputs, lead)
     partial = folder / f"{name}.partial.wav"
     cap = capture.run(backend, stim, partial)
-    side = _capture_sidecar(cap, stim, channel, backend, note)
+    side = capture_sidecar(cap, stim, channel, backend, note)
     side["reference_channel"] = ref_channel
     side["output_vpk_per_fs"] = backend.output_vpk_per_fs
     if calibration is not None:

@@ -134,7 +134,10 @@ MAX_RETRIES = 2
 CLOCK_WARN_PPM = 20.0
 
 
-def _capture_sidecar(cap, stim, channel: int, backend, note: str) -> dict:
+def capture_sidecar(cap, stim, channel: int, backend, note: str) -> dict:
+    """The sidecar every run writes beside its capture: when, what device,
+    the inputs and their scales, the stimulus with its segments, the
+    latency found, stream events, the note, and the bench's own account."""
     side = {
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
         "sample_rate_hz": cap.sample_rate_hz,
@@ -306,7 +309,7 @@ def tone_run(
                              out_channel=out_ch, n_out=backend.n_outputs, lead_s=lead)
         partial = folder / f"{stem}.partial.wav"
         cap = capture.run(backend, stim, partial)
-        side = _capture_sidecar(cap, stim, channel, backend, note)
+        side = capture_sidecar(cap, stim, channel, backend, note)
         if calibration is not None:
             apply_calibration(side, calibration, calibration_file, channel)
         ppm = clock_offset_ppm(cap, stim)
