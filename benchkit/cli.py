@@ -10,7 +10,6 @@ from __future__ import annotations
 import contextlib
 import functools
 import inspect
-import math
 import os
 import sys
 from pathlib import Path
@@ -49,6 +48,13 @@ def _progress(items: list, what: str):
     from rich.progress import track
 
     return track(items, description=what, console=Console(stderr=True), transient=True)
+
+
+def _files():
+    """The report writers (imported when needed: matplotlib is slow to load)."""
+    from benchkit.report import files
+
+    return files
 
 
 def _version(value: bool) -> None:
@@ -142,6 +148,16 @@ _JUDGE = {
 }
 _judge_options = _option_group("judge", _JUDGE)
 
+# where a measuring command files its run, and how it is labelled
+_BENCH = {
+    "bench": (Optional[Path], lambda: typer.Option(None, "--bench", help="Bench folder: the run goes to its runs/ and logbook (default: BENCHKIT_BENCH, else the current folder).")),
+    "tags": (List[str], lambda: typer.Option([], "--tag", help="Label the run key=value (repeatable), e.g. --tag bias=1.2A --tag rail=24V.")),
+    "note": (str, lambda: typer.Option("", "--note", help="A note kept with the run.")),
+    "stage": (Optional[Path], lambda: typer.Option(None, "--stage", help="The stage under test: a JSON object or 'key: value' lines; the bench folder remembers it for later runs.")),
+    "stage_info": (List[str], lambda: typer.Option([], "--stage-info", help="Set one field of the remembered stage description, key=value (repeatable).")),
+}
+_bench_options = _option_group("filing", _BENCH)
+
 
 @app.command()
 @_figure_options
@@ -233,7 +249,7 @@ def _analyze_drift_file(path: Path, time_col, value_col, out, dc_limit, nominal,
     result = analyze_drift_csv(path, time_col, value_col, dc_limit, settle_band, window, nominal_v=nominal)
     _err(summary.drift_summary(result, f"{path}: drift"))
     if out is not None:
-        for written in _write_drift_reports(result, path, out):
+        for written in _files().drift_reports(result, path, out):
             _err(f"  wrote        {written}")
     return result.to_dict()
 
@@ -273,7 +289,7 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
         result = responses.analyze_response(rec, ref_channel, spec, ref_freq, load, band)
         _err(summary.response_summary(result, f"{path} channel {channel}: {result.method} response"))
         if out is not None:
-            for written in _write_response_reports(result, Path(path), channel, out, smooth):
+            for written in _files().response_reports(result, Path(path), channel, out, smooth):
                 _err(f"  wrote        {written}")
         return result.to_dict()
     if power_opts is not None and not runs.is_stepped(rec):
@@ -287,12 +303,12 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
             result = power_from_steps(steps, polarity_inverts=inverts, **power_opts)
             _err(summary.power_summary(result, f"{path} channel {channel}: power into {load:g} ohm"))
             if out is not None:
-                for written in _write_power_reports(result, Path(path), channel, out):
+                for written in _files().power_reports(result, Path(path), channel, out):
                     _err(f"  wrote        {written}")
             return result.to_dict()
         _err(summary.steps_summary(steps, f"{path} channel {channel} ({len(steps.steps)} steps)"))
         if out is not None:
-            for written in _write_steps_reports(steps, Path(path), channel, out):
+            for written in _files().steps_reports(steps, Path(path), channel, out):
                 _err(f"  wrote        {written}")
         return steps.to_dict()
     result = analyze_tone(
@@ -317,65 +333,9 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
         doc["calibration"] = cal
     _err(summary.tone_summary(result, str(path), channel))
     if out is not None:
-        for written in _write_reports(result, doc, Path(path), channel, out):
+        for written in _files().tone_reports(result, doc, Path(path), channel, out):
             _err(f"  wrote        {written}")
     return doc
-
-
-def _report_folder(out: Path) -> Path:
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise BenchkitError(f"cannot create report folder {out}: {exc.strerror}") from exc
-    return out
-
-
-def _write_reports(result, doc, path: Path, channel: int, out: Path) -> list[Path]:
-    from benchkit.report import plots, tables
-
-    _report_folder(out)
-    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
-    title = f"{path.name}, channel {channel}"
-    return [
-        tables.write_json(doc, out / f"{stem}.result.json"),
-        tables.write_harmonics_csv(result, out / f"{stem}.harmonics.csv"),
-        tables.write_spectrum_csv(result, out / f"{stem}.spectrum.csv"),
-        plots.spectrum_png(result, out / f"{stem}.spectrum.png", title),
-        plots.residual_png(result, out / f"{stem}.residual.png", title),
-    ]
-
-
-def _write_power_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
-    from benchkit.report import plots, tables
-
-    _report_folder(out)
-    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
-    return [
-        tables.write_json(result.to_dict(), out / f"{stem}.power.json"),
-        tables.write_power_csv(result, out / f"{stem}.power.csv"),
-        plots.power_png(result, out / f"{stem}.power.png", path.name),
-    ]
-
-
-def _write_steps_reports(steps, path: Path, channel: int, out: Path) -> list[Path]:
-    from benchkit.report import plots, tables
-
-    _report_folder(out)
-    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
-    written = [
-        tables.write_json(steps.to_dict(), out / f"{stem}.result.json"),
-        tables.write_steps_csv(steps, out / f"{stem}.steps.csv"),
-        plots.steps_png([(path.name, steps)], out / f"{stem}.thdn.png", f"{path.name}: THD+N"),
-    ]
-    for s in steps.steps:
-        tag = f"{stem}-drive{s.drive_dbfs:+.0f}dBFS"
-        title = f"{path.name}, drive {s.drive_dbfs:g} dBFS"
-        written += [
-            plots.spectrum_png(s.result, out / f"{tag}.spectrum.png", title),
-            plots.residual_png(s.result, out / f"{tag}.residual.png", title),
-            tables.write_harmonics_csv(s.result, out / f"{tag}.harmonics.csv"),
-        ]
-    return written
 
 
 # --- live measurements ---------------------------------------------------------
@@ -483,46 +443,82 @@ def _live_run():
         raise typer.Exit(EXIT_BAD_INPUT)
 
 
-def _finish_run(written: list[Path], folder: Path, doc: dict, as_json: bool) -> None:
+@contextlib.contextmanager
+def _logbook(bench: dict):
+    """The bench's logbook, opened (and checked writable) before anything
+    plays, with the run's labels: tags, note and the stage description
+    (a --stage file or --stage-info fields update the remembered one)."""
+    from benchkit import logbook
+
+    tags = logbook.parse_tags(bench["tags"])
+    fields = logbook.parse_tags(bench["stage_info"])
+    with logbook.Logbook(logbook.resolve_bench(bench["bench"])) as book:
+        stage = book.settings().get("stage") or {}
+        if bench["stage"] is not None:
+            stage = logbook.read_stage(bench["stage"])
+        if bench["stage"] is not None or fields:
+            stage = {**stage, **fields}
+            book.remember_stage(stage)
+        yield book, dict(tags=tags, note=bench["note"], stage=stage)
+
+
+def _start_run(book, labels: dict, command: str, backend, profile, calibration: Optional[Path], params: dict):
+    """File the run in the logbook as running; its folder is where it writes.
+    ``backend`` is the capture backend, or the name of a drift log's source."""
+    cal = None if profile is None else {"file": str(calibration), "hash": profile.digest()}
+    if isinstance(backend, str):
+        device = backend
+    else:
+        device, params = backend.name, {**params, "sample_rate_hz": backend.sample_rate_hz}
+    run = book.start(command, device=device, calibration=cal, params=params, **labels)
+    _err(f"run {run.id} (logbook {book.root / 'logbook.sqlite'})")
+    return run
+
+
+def _finish_run(written: list[Path], run, doc: dict, as_json: bool, status: str = "complete") -> None:
+    """Complete the run in the logbook (its files are on disk), say where
+    it is, and print the result with the run's id and folder."""
+    run.complete(doc, written, written[0] if written else None, status=status)
     for path in written:
         _err(f"  wrote        {path}")
-    _err(f"run folder: {folder}")
+    _err(f"run folder: {run.folder}")
     if as_json:
         from benchkit.report.tables import dumps
 
-        print(dumps(doc))
+        print(dumps({**doc, "run": {"id": run.id, "folder": str(run.folder), "status": status}}))
 
 
 @app.command()
 @_live_options
+@_bench_options
 def tone(
     frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz (997 Hz keeps harmonics off sub-multiples of the rate)."),
     levels: List[str] = typer.Option(["-20 dBFS"], "--level", help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms (repeat for steps)."),
     load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: adds power in W."),
     bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
-    out: Optional[Path] = typer.Option(None, "--out", help="Run folder for the capture and reports (default: tone-<time>)."),
     ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices)."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
+    filing: dict = None,
 ) -> None:
     """Play stepped tones into the stage, capture through the pad, analyse each step.
 
     The whole run is one stream; the raw recording goes to disk as it
     arrives and the aligned capture is written before it is analysed.
 
-    Example: benchkit tone --level -30dBFS --level -20dBFS --level -14dBFS --load 8 --sim-param bias=1.2
+    The run is filed in the bench folder's logbook (runs/<time>-<name>/).
+
+    Example: benchkit tone --level -30dBFS --level -20dBFS --level -14dBFS --load 8 --sim-param bias=1.2 --tag bias=1.2A
 
     Safety: on a real bench, start low, measure through a pad into a dummy
     load, and keep speakers off the output. Ctrl-C fades the output to
     silence and keeps the partial capture.
     """
-    from datetime import datetime
-
     from benchkit import runs
     from benchkit.report import summary
     from benchkit.signals import check_level
 
-    with _live_run():
+    with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
         backend, profile = _live_setup(live, ref_channel)
         in_channel, calibration = live["in_channel"], live["calibration"]
@@ -536,17 +532,20 @@ def tone(
         plan = runs.plan_run(backend, profile, drive, frequency, channel, load_ohms=load, say=_err, **preflight)
         for w in plan.warnings:
             _err(f"warning: {w}")
-        folder = _report_folder(out or Path(f"tone-{datetime.now():%Y%m%d-%H%M%S}"))
-        steps = runs.tone_run(backend, folder, frequency, drive, load_ohms=load, bandwidth_hz=band, channel=channel,
-                              traces=True, calibration=profile, calibration_file=None if calibration is None else str(calibration),
-                              warnings=plan.warnings)
-        _err(summary.steps_summary(steps, f"{frequency:g} Hz, {len(drive)} steps, latency {steps.latency_samples} samples"))
-        written = _write_steps_reports(steps, folder / "capture.wav", channel, folder)
-    _finish_run(written, folder, steps.to_dict(), as_json)
+        params = dict(channel=channel, frequency_hz=frequency, levels_dbfs=drive, load_ohms=load, bandwidth_hz=band)
+        with _start_run(book, labels, "tone", backend, profile, calibration, params) as run:
+            steps = runs.tone_run(backend, run.folder, frequency, drive, load_ohms=load, bandwidth_hz=band,
+                                  channel=channel, traces=True, calibration=profile,
+                                  calibration_file=None if calibration is None else str(calibration),
+                                  warnings=plan.warnings, note=labels["note"])
+            _err(summary.steps_summary(steps, f"{frequency:g} Hz, {len(drive)} steps, latency {steps.latency_samples} samples"))
+            written = _files().steps_reports(steps, run.folder / "capture.wav", channel, run.folder)
+            _finish_run(written, run, steps.to_dict(), as_json)
 
 
 @app.command()
 @_live_options
+@_bench_options
 def sweep(
     span: str = typer.Option("10:22000", "--span", help="Frequencies F1:F2 in Hz (the response is reported past the fades)."),
     length: float = typer.Option(5.0, "--length", help="Sweep length, seconds (rounded so its harmonics line up)."),
@@ -559,9 +558,9 @@ def sweep(
     load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: estimates the coupling capacitor."),
     bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Band for ripple and harmonics LO:HI in Hz, or 'full'."),
     smooth: Optional[int] = typer.Option(None, "--smooth", help="Smooth the plotted magnitude over 1/N octave (CSV and JSON stay raw)."),
-    out: Optional[Path] = typer.Option(None, "--out", help="Run folder for the capture and reports (default: sweep-<time>)."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
+    filing: dict = None,
 ) -> None:
     """Measure frequency response and distortion against frequency: a synchronized sweep, or stepped sines.
 
@@ -570,20 +569,18 @@ def sweep(
     when the low corner is first order (with --load), and THD, H2 and H3
     against frequency. The capture is on disk before it is analysed.
 
-    Example: benchkit sweep --span 2:22000 --length 10 --load 8 --out b2-response
+    Example: benchkit sweep --span 2:22000 --length 10 --load 8 --tag bias=1.2A
 
     Safety: a sweep puts full level at every frequency, the highest too:
     measure into a dummy load, never a speaker (tweeters burn first), and
     keep the level low until the stage's gain is known. Ctrl-C fades the
     output to silence and keeps the partial capture.
     """
-    from datetime import datetime
-
     from benchkit import responses, runs
     from benchkit.report import summary
     from benchkit.signals import check_level
 
-    with _live_run():
+    with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
         f1, f2 = units.parse_band(span) or (0.0, 0.0)
         backend, profile = _live_setup(live, ref_channel)
@@ -599,32 +596,22 @@ def sweep(
         plan = runs.plan_run(backend, profile, [drive], ref_freq, in_channel, load_ohms=load, say=_err, **preflight)
         for w in plan.warnings:
             _err(f"warning: {w}")
-        folder = _report_folder(out or Path(f"sweep-{datetime.now():%Y%m%d-%H%M%S}"))
-        result = responses.response_run(
-            backend, folder, drive, (f1, f2), length, stepped, per_octave, [float(f) for f in freqs] or None,
-            in_channel, ref_channel, load, band, ref_freq, profile, None if calibration is None else str(calibration),
-            warnings=plan.warnings)
-        _err(summary.response_summary(result, f"{result.method} response, {f1:g} to {f2:g} Hz at {drive:g} dBFS"))
-        written = _write_response_reports(result, folder / "capture.wav", in_channel, folder, smooth)
-    _finish_run(written, folder, result.to_dict(), as_json)
-
-
-def _write_response_reports(result, path: Path, channel: int, out: Path, smooth: int | None = None) -> list[Path]:
-    from benchkit.report import plots, tables
-
-    _report_folder(out)
-    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
-    return [
-        tables.write_json(result.to_dict(), out / f"{stem}.response.json"),
-        tables.write_response_csv(result, out / f"{stem}.response.csv"),
-        plots.response_png(result, out / f"{stem}.response.png", path.name, smooth),
-        plots.distortion_png(result, out / f"{stem}.distortion.png", path.name),
-    ]
+        params = dict(channel=in_channel, ref_channel=ref_channel, ref_freq_hz=ref_freq, load_ohms=load,
+                      bandwidth_hz=band, smooth=smooth, span_hz=[f1, f2], level_dbfs=drive, stepped=stepped)
+        with _start_run(book, labels, "sweep", backend, profile, calibration, params) as run:
+            result = responses.response_run(
+                backend, run.folder, drive, (f1, f2), length, stepped, per_octave, [float(f) for f in freqs] or None,
+                in_channel, ref_channel, load, band, ref_freq, profile, None if calibration is None else str(calibration),
+                note=labels["note"], warnings=plan.warnings)
+            _err(summary.response_summary(result, f"{result.method} response, {f1:g} to {f2:g} Hz at {drive:g} dBFS"))
+            written = _files().response_reports(result, run.folder / "capture.wav", in_channel, run.folder, smooth)
+            _finish_run(written, run, result.to_dict(), as_json)
 
 
 @app.command()
 @_live_options
 @_figure_options
+@_bench_options
 def power(
     load: float = typer.Option(..., "--load", help="Load resistance, ohms (a dummy load of the right rating)."),
     frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz."),
@@ -637,10 +624,10 @@ def power(
     precondition_s: Optional[float] = typer.Option(None, "--precondition-s", help="Shorten (or lengthen) the preconditioning, seconds: the report says so."),
     channels: int = typer.Option(1, "--channels", help="How many channels the amplifier has (benchkit drives one; the report says so)."),
     ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices)."),
-    out: Optional[Path] = typer.Option(None, "--out", help="Run folder (default: power-<time>)."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
     figures: dict = None,
+    filing: dict = None,
 ) -> None:
     """Measure the power at set distortion limits: one stream of rising steps, each next level chosen from the last.
 
@@ -657,13 +644,11 @@ def power(
     load's temperature, and keep the pad rated for the highest output.
     Ctrl-C fades the output to silence and reports the completed steps.
     """
-    from datetime import datetime
-
     from benchkit import runs
     from benchkit.power_runs import power_run
     from benchkit.report import summary
 
-    with _live_run():
+    with _live_run(), _logbook(filing) as (book, labels):
         opts = _power_options(True, load, live["rail"], **figures)
         if step_db <= 0 or fine_db <= 0:
             raise BenchkitError("--step-db and --fine-db must be positive")
@@ -692,36 +677,41 @@ def power(
         if budget is not None and scale:
             expected = min(top, units.db_from_ratio(budget.peak_vpk / scale))
         first = start if start is not None else expected - 40.0
-        conditions = None
-        if precondition_run:
-            from benchkit.power_runs import PRECONDITION_S, precondition
+        params = dict(channel=in_channel, ref_channel=ref_channel, frequency_hz=frequency, load_ohms=load,
+                      metric=opts["metric"], limits_pct=list(opts["limits_pct"]), onset_db=opts["onset_db"],
+                      supply_v=opts["supply_v"], supply_a=opts["supply_a"], rail_v=live["rail"],
+                      bias_a=figures["bias"], vsat_v=figures["vsat"], rated_w=rated_power)
+        with _start_run(book, labels, "power", backend, profile, calibration, params) as run:
+            conditions = None
+            if precondition_run:
+                from benchkit.power_runs import PRECONDITION_S, precondition
 
-            if not scale:
-                raise BenchkitError("--precondition needs volts at the stage: give --calibration or --volts-per-fs")
-            conditions = precondition(backend, frequency, rated_power, load, scale, precondition_s or PRECONDITION_S,
-                                      channels, say=_err)
-        _err(f"steps from {first:.1f} dBFS, at most {top:.1f} dBFS (the input's margin or the drive cap)")
-        folder = _report_folder(out or Path(f"power-{datetime.now():%Y%m%d-%H%M%S}"))
-        amps_meter = None
-        if supply_meter:
-            from benchkit.meters import ScpiMeter
+                if not scale:
+                    raise BenchkitError("--precondition needs volts at the stage: give --calibration or --volts-per-fs")
+                conditions = precondition(backend, frequency, rated_power, load, scale,
+                                          precondition_s or PRECONDITION_S, channels, say=_err)
+            _err(f"steps from {first:.1f} dBFS, at most {top:.1f} dBFS (the input's margin or the drive cap)")
+            amps_meter = None
+            if supply_meter:
+                from benchkit.meters import ScpiMeter
 
-            amps_meter = ScpiMeter(supply_meter, quantity="amps")
-            _err(f"supply current: {amps_meter.name}")
-        try:
-            result = power_run(backend, folder, frequency, first, top, load, in_channel, ref_channel, opts["metric"],
-                               opts["limits_pct"], opts["onset_db"], opts["supply_v"], opts["supply_a"], budget,
-                               profile, None if calibration is None else str(calibration), step_db=step_db,
-                               fine_db=fine_db, warnings=plan.warnings, input_margin_db=live["margin"],
-                               rated_w=rated_power, conditions=conditions, supply_meter=amps_meter)
-        finally:
-            if amps_meter is not None:
-                amps_meter.close()
-        info = result.info or {}
-        _err(summary.power_summary(result, f"{frequency:g} Hz into {load:g} ohm: {info.get('steps_played')} steps, "
-                                           f"{info.get('stimulus_s', 0):.1f} s; stopped: {info.get('stop_reason')}"))
-        written = _write_power_reports(result, folder / "capture.wav", in_channel, folder)
-    _finish_run(written, folder, result.to_dict(), as_json)
+                amps_meter = ScpiMeter(supply_meter, quantity="amps")
+                _err(f"supply current: {amps_meter.name}")
+            try:
+                result = power_run(backend, run.folder, frequency, first, top, load, in_channel, ref_channel,
+                                   opts["metric"], opts["limits_pct"], opts["onset_db"], opts["supply_v"],
+                                   opts["supply_a"], budget, profile, None if calibration is None else str(calibration),
+                                   step_db=step_db, fine_db=fine_db, warnings=plan.warnings, note=labels["note"],
+                                   input_margin_db=live["margin"], rated_w=rated_power, conditions=conditions,
+                                   supply_meter=amps_meter)
+            finally:
+                if amps_meter is not None:
+                    amps_meter.close()
+            info = result.info or {}
+            _err(summary.power_summary(result, f"{frequency:g} Hz into {load:g} ohm: {info.get('steps_played')} steps, "
+                                               f"{info.get('stimulus_s', 0):.1f} s; stopped: {info.get('stop_reason')}"))
+            written = _files().power_reports(result, run.folder / "capture.wav", in_channel, run.folder)
+            _finish_run(written, run, result.to_dict(), as_json, "interrupted" if info.get("interrupted") else "complete")
     if info.get("device_lost"):
         # everything is on disk; PortAudio can hang for good shutting down a dead server's client
         sys.stdout.flush()
@@ -733,6 +723,7 @@ def power(
 
 @app.command()
 @_judge_options
+@_bench_options
 def drift(
     source: str = typer.Option("virtual", "--source", help="virtual (the se-class-a midpoint, accelerated), meter (SCPI over pyvisa) or interface (a DC-coupled input)."),
     resource: Optional[str] = typer.Option(None, "--resource", help="The meter's VISA resource, e.g. TCPIP::192.168.1.50::5025::SOCKET or ASRL/dev/ttyUSB0::INSTR."),
@@ -741,7 +732,6 @@ def drift(
     duration: Optional[float] = typer.Option(None, "--duration", help="Log this long, seconds."),
     until_settled: bool = typer.Option(False, "--until-settled", help="Stop once settled within --settle-band."),
     accelerate: float = typer.Option(60.0, "--accelerate", help="Virtual source: model seconds per second of interval."),
-    out: Optional[Path] = typer.Option(None, "--out", help="Run folder (default: drift-<time>)."),
     device: Optional[str] = _LIVE["device"][1](),
     in_channel: int = _LIVE["in_channel"][1](),
     calibration: Optional[Path] = _LIVE["calibration"][1](),
@@ -749,6 +739,7 @@ def drift(
     seed: int = _LIVE["seed"][1](),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     judge: dict = None,
+    filing: dict = None,
 ) -> None:
     """Log the DC operating point as the stage warms: offset, drift rate, settling fit, verdict.
 
@@ -763,13 +754,12 @@ def drift(
     and mind the supply's stored charge; follow local codes for anything
     mains-powered.
     """
-    from datetime import datetime
-
     from benchkit import meters
     from benchkit.drift_runs import analyze_drift_csv, log_drift
     from benchkit.report import summary
 
-    try:
+    with _live_run(), _logbook(filing) as (book, labels):
+        profile = load_profile(calibration) if calibration is not None else None
         if source == "virtual":
             from benchkit.capture.stages import make_stage, parse_params
 
@@ -779,49 +769,38 @@ def drift(
                 raise BenchkitError("--source meter needs --resource (the meter's VISA address)")
             reader = meters.ScpiMeter(resource)
         elif source == "interface":
-            profile = load_profile(calibration) if calibration is not None else None
             backend = _open_backend(device, "ideal", [], "demo", seed, dict(in_channel=in_channel))
             reader = meters.InterfaceDc(backend, profile, in_channel)
         else:
             raise BenchkitError(f"--source is virtual, meter or interface, got {source!r}")
         dc_limit, nominal, window = judge["dc_limit"], judge["nominal"], judge["window"]
         band = judge["settle_band"] if judge["settle_band"] is not None else (dc_limit / 10 if dc_limit else 1e-3)
-        folder = _report_folder(out or Path(f"drift-{datetime.now():%Y%m%d-%H%M%S}"))
-        log = folder / "log.csv"
-        amps = meters.ScpiMeter(current_resource, quantity="amps") if current_resource else None
-        _err(f"source: {reader.name}; logging to {log}" + (f"; supply current: {amps.name}" if amps else ""))
-        try:
-            end = log_drift(reader, log, interval, duration, until_settled, band, window, say=_err, current=amps)
-        finally:
-            reader.close()
-            if amps is not None:
-                amps.close()
-        notes = () if end.how in ("duration", "settled") else (f"the log stopped early: {end.message}",)
-        if end.how == "lost":
-            _err(f"benchkit: {end.message}: the log stopped; every reading so far is in {log}")
-        result = analyze_drift_csv(log, limit_v=dc_limit, band_v=band, window_s=window,
-                                   info={"source": reader.name, "ended": end.how,
-                                         "accelerated": getattr(reader, "accelerated", 0.0) or None},
-                                   warnings=notes, nominal_v=nominal)
-        _err(summary.drift_summary(result, f"{reader.name}: {end.how}"))
-        written = _write_drift_reports(result, log, folder)
-    except BenchkitError as exc:
-        _err(f"benchkit: error: {exc}")
-        raise typer.Exit(EXIT_BAD_INPUT)
-    _finish_run(written, folder, result.to_dict(), as_json)
+        params = dict(source=source, limit_v=dc_limit, band_v=band, window_s=window, nominal_v=nominal,
+                      interval_s=interval, accelerated=getattr(reader, "accelerated", 0.0) or None)
+        with _start_run(book, labels, "drift", reader.name, profile if source == "interface" else None, calibration,
+                        params) as run:
+            log = run.folder / "log.csv"
+            amps = meters.ScpiMeter(current_resource, quantity="amps") if current_resource else None
+            _err(f"source: {reader.name}; logging to {log}" + (f"; supply current: {amps.name}" if amps else ""))
+            try:
+                end = log_drift(reader, log, interval, duration, until_settled, band, window, say=_err, current=amps)
+            finally:
+                reader.close()
+                if amps is not None:
+                    amps.close()
+            notes = () if end.how in ("duration", "settled") else (f"the log stopped early: {end.message}",)
+            if end.how == "lost":
+                _err(f"benchkit: {end.message}: the log stopped; every reading so far is in {log}")
+            result = analyze_drift_csv(log, limit_v=dc_limit, band_v=band, window_s=window,
+                                       info={"source": reader.name, "ended": end.how,
+                                             "accelerated": params["accelerated"]},
+                                       warnings=notes, nominal_v=nominal)
+            _err(summary.drift_summary(result, f"{reader.name}: {end.how}"))
+            written = _files().drift_reports(result, log, run.folder)
+            _finish_run(written, run, result.to_dict(), as_json,
+                        "complete" if end.how in ("duration", "settled") else "interrupted")
     if end.how != "duration" and end.how != "settled":
         raise typer.Exit(130 if end.how == "interrupted" else EXIT_BAD_INPUT)
-
-
-def _write_drift_reports(result, log: Path, out: Path) -> list[Path]:
-    from benchkit.report import plots, tables
-
-    _report_folder(out)
-    return [
-        tables.write_json(result.to_dict(), out / f"{log.stem}.drift.json"),
-        tables.write_drift_csv(result, out / f"{log.stem}.drift.csv"),
-        plots.drift_png(result, out / f"{log.stem}.drift.png", log.name),
-    ]
 
 
 @app.command()
@@ -1027,7 +1006,7 @@ def budget(
 
 @app.command()
 def demo(
-    out: Path = typer.Option(Path("benchkit-demo"), "--out", help="Report folder."),
+    out: Path = typer.Option(Path("benchkit-demo"), "--out", help="The demo's bench folder: its runs, logbook, comparisons and summary."),
     seed: int = typer.Option(1, "--seed", help="Seed of the virtual bench."),
 ) -> None:
     """Run the demo on the virtual bench: Test stage B-2 at 0.8 A and 1.2 A bias, compared.
@@ -1040,7 +1019,7 @@ def demo(
     from benchkit.demo import run_demo
 
     try:
-        _report_folder(out)
+        _files().report_folder(out)
         report = run_demo(out, seed=seed, say=_err)
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
@@ -1058,6 +1037,355 @@ def models() -> None:
     from benchkit.capture.stages import models_help
 
     print(models_help())
+
+
+# --- the logbook --------------------------------------------------------------------
+
+log_app = typer.Typer(no_args_is_help=True, help="The bench logbook: list, show, label, export, rebuild, analyse again and remove runs.")
+app.add_typer(log_app, name="log")
+
+
+def _bench_option():
+    return typer.Option(None, "--bench", help="Bench folder (default: BENCHKIT_BENCH, else the current folder).")
+
+
+def _run_argument():
+    return typer.Argument(..., help="Run id, a unique start of it, 'last' or 'last-N'.")
+
+
+@contextlib.contextmanager
+def _book(bench: Optional[Path], write: bool = False):
+    """The bench's logbook for a log command: one line and exit 1 when it
+    cannot be opened; a bench that cannot be written is read as it stands
+    unless ``write``."""
+    from benchkit import logbook
+
+    root = logbook.resolve_bench(bench)
+    try:
+        if not (root / logbook.CATALOG).exists() and not write:
+            raise BenchkitError(f"{root} holds no logbook ({logbook.CATALOG}): run a measurement there, or give --bench")
+        try:
+            book = logbook.Logbook(root)
+        except BenchkitError as exc:
+            if write or not str(exc).startswith("cannot write"):
+                raise
+            book = logbook.Logbook(root, readonly=True)
+        with book:
+            yield book
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        raise typer.Exit(EXIT_BAD_INPUT)
+
+
+_SHORT = {"thdn_db": ("THD+N", "{:.1f} dB"), "noise_vrms": ("noise", None), "noise_dbfs": ("noise", "{:.1f} dBFS"),
+          "power_w": ("P", None), "clipping_onset_w": ("onset", None), "low_3db_hz": ("-3dB lo", None),
+          "high_3db_hz": ("-3dB hi", None), "settled_v": ("settled", None)}
+_UNITS = {"noise_vrms": "Vrms", "power_w": "W", "clipping_onset_w": "W", "low_3db_hz": "Hz", "high_3db_hz": "Hz",
+          "settled_v": "V"}
+
+
+def _headline_text(entry) -> str:
+    from benchkit.report.summary import format_si
+
+    parts = []
+    for f in entry.figures:
+        if f["value"] is None or f["name"] not in _SHORT:
+            continue
+        label, fmt = _SHORT[f["name"]]
+        value = fmt.format(f["value"]) if fmt else format_si(f["value"], _UNITS[f["name"]], 3)
+        parts.append(f"{label} {value}")
+    return "; ".join(parts)
+
+
+@log_app.command("list")
+def log_list(
+    tags: List[str] = typer.Option([], "--tag", help="Only runs with this tag, key=value (repeatable: all must match)."),
+    command: Optional[str] = typer.Option(None, "--command", help="Only runs of this command: tone, sweep, power, drift."),
+    since: Optional[str] = typer.Option(None, "--since", help="Only runs started on or after this date (YYYY-MM-DD) or time."),
+    until: Optional[str] = typer.Option(None, "--until", help="Only runs started on or before this date or time."),
+    status: Optional[str] = typer.Option(None, "--status", help="Only runs in this state: complete, interrupted, failed, incomplete, running."),
+    limit: Optional[int] = typer.Option(None, "--limit", help="At most this many (the newest)."),
+    bench: Optional[Path] = _bench_option(),
+    as_json: bool = typer.Option(False, "--json", help="Print the runs as JSON on stdout."),
+) -> None:
+    """List the logged runs, newest first, with their headline figures.
+
+    Example: benchkit log list --tag bias=1.2A --command power
+    """
+    from benchkit import logbook
+
+    with _book(bench) as book:
+        try:
+            entries = book.entries(logbook.parse_tags(tags), command, status, since, until, limit)
+        except BenchkitError as exc:
+            _err(f"benchkit: error: {exc}")
+            raise typer.Exit(EXIT_BAD_INPUT)
+    if as_json:
+        from benchkit.report.tables import dumps
+
+        print(dumps({"kind": "runs", "schema_version": 1, "bench": str(book.root),
+                     "runs": [e.to_dict() for e in entries]}))
+        return
+    if not entries:
+        _err(f"no runs in {book.root} match")
+        return
+    width = max(len(e.id) for e in entries)
+    _err(f"  {'run':<{width}}  {'status':<11} {'command':<8} tags / headline figures / note")
+    for e in entries:
+        tags_text = " ".join(f"{k}={v}" for k, v in e.tags.items())
+        valid = "" if e.valid is not False else " INVALID"
+        _err(f"  {e.id:<{width}}  {e.status + valid:<11} {e.command:<8} {tags_text}")
+        line = "; ".join(x for x in (_headline_text(e), e.note.splitlines()[0] if e.note else "") if x)
+        if line:
+            _err(f"  {'':<{width}}  {'':<11} {'':<8} {line}")
+
+
+@log_app.command("show")
+def log_show(
+    run: str = _run_argument(),
+    bench: Optional[Path] = _bench_option(),
+    as_json: bool = typer.Option(False, "--json", help="Print the run's record as JSON on stdout."),
+) -> None:
+    """Show one run: when, what, with which device and calibration, its tags, note, figures, warnings and files.
+
+    Example: benchkit log show last
+    """
+    with _book(bench) as book:
+        try:
+            entry = book.entry(run)
+            record = book.read_record(entry.id)
+        except BenchkitError as exc:
+            _err(f"benchkit: error: {exc}")
+            raise typer.Exit(EXIT_BAD_INPUT)
+    if as_json:
+        from benchkit.report.tables import dumps
+
+        print(dumps({**record, "status": entry.status, "folder": str(entry.folder)}))
+        return
+    cal = record.get("calibration") or {}
+    _err(f"run {entry.id}: {entry.command}, {entry.status}" + ("" if entry.valid is not False else " (INVALID)"))
+    _err(f"  started      {record['started']}" + (f", ended {record['finished']}" if record.get("finished") else ""))
+    _err(f"  device       {record.get('device')}")
+    _err(f"  calibration  {cal.get('file')} (hash {cal.get('hash')})" if cal else "  calibration  none")
+    for key, value in (record.get("stage") or {}).items():
+        _err(f"  stage        {key}: {value}")
+    if entry.tags:
+        _err("  tags         " + " ".join(f"{k}={v}" for k, v in entry.tags.items()))
+    if entry.note:
+        _err("  note         " + entry.note.replace("\n", "\n               "))
+    _err("  options      " + ", ".join(f"{k}={v}" for k, v in (record.get("params") or {}).items()))
+    for f in record.get("figures") or []:
+        _err(f"  figure       {f['name']} = {f['value']:.6g} {f['unit']}" + (f" ({f['at']})" if f.get("at") else "")
+             if f["value"] is not None else f"  figure       {f['name']}: not measured")
+    for w in record.get("warnings") or []:
+        _err(f"  warning      {w}")
+    if record.get("error"):
+        _err(f"  ended with   {record['error']}")
+    _err(f"  folder       {entry.folder} ({len(record.get('files') or [])} files)")
+
+
+@log_app.command("note")
+def log_note(
+    run: str = _run_argument(),
+    text: str = typer.Argument(..., help="The note."),
+    append: bool = typer.Option(False, "--append", help="Add a line to the note instead of replacing it."),
+    bench: Optional[Path] = _bench_option(),
+) -> None:
+    """Set (or add to) a run's note.
+
+    Example: benchkit log note last "swapped the 2200 uF output capacitor"
+    """
+    with _book(bench, write=True) as book:
+        try:
+            record = book.set_note(book.entry(run).id, text, append)
+        except BenchkitError as exc:
+            _err(f"benchkit: error: {exc}")
+            raise typer.Exit(EXIT_BAD_INPUT)
+    _err(f"run {record['id']}: note: {record['note']}")
+
+
+@log_app.command("tag")
+def log_tag(
+    run: str = _run_argument(),
+    tags: List[str] = typer.Argument(None, help="Tags key=value to set."),
+    remove: List[str] = typer.Option([], "--remove", help="Take this tag off (repeatable)."),
+    bench: Optional[Path] = _bench_option(),
+) -> None:
+    """Set or remove a run's tags.
+
+    Example: benchkit log tag last bias=1.2A rail=24V
+    """
+    from benchkit import logbook
+
+    with _book(bench, write=True) as book:
+        try:
+            if not tags and not remove:
+                raise BenchkitError("give tags key=value to set, or --remove KEY")
+            record = book.set_tags(book.entry(run).id, logbook.parse_tags(tags or []), remove)
+        except BenchkitError as exc:
+            _err(f"benchkit: error: {exc}")
+            raise typer.Exit(EXIT_BAD_INPUT)
+    _err(f"run {record['id']}: tags: " + (" ".join(f"{k}={v}" for k, v in record["tags"].items()) or "none"))
+
+
+@log_app.command("export")
+def log_export(
+    out: Optional[Path] = typer.Option(None, "--out", help="Write the CSV here (default: stdout)."),
+    bench: Optional[Path] = _bench_option(),
+) -> None:
+    """Export the catalog as CSV: a row a run, its tags and headline figures in columns.
+
+    Example: benchkit log export --out logbook.csv
+    """
+    from benchkit.report.tables import write_catalog_csv
+
+    with _book(bench) as book:
+        entries = book.entries()
+        try:
+            if out is None:
+                write_catalog_csv(entries, sys.stdout)
+            else:
+                with out.open("w", newline="", encoding="utf-8") as fh:
+                    write_catalog_csv(entries, fh)
+                _err(f"{len(entries)} runs: {out}")
+        except OSError as exc:
+            _err(f"benchkit: error: cannot write {out}: {exc.strerror or exc}")
+            raise typer.Exit(EXIT_BAD_INPUT)
+
+
+@log_app.command("rebuild")
+def log_rebuild(bench: Optional[Path] = _bench_option()) -> None:
+    """Index every run folder afresh, when the catalog is lost or damaged (a damaged one is moved aside first).
+
+    Example: benchkit log rebuild --bench ~/bench/b2
+    """
+    from datetime import datetime
+
+    from benchkit import logbook
+
+    root = logbook.resolve_bench(bench)
+    catalog = root / logbook.CATALOG
+    try:
+        try:
+            book = logbook.Logbook(root)
+        except BenchkitError as exc:
+            if "not a benchkit catalog" not in str(exc) and "cannot open the catalog" not in str(exc):
+                raise
+            aside = catalog.with_name(f"{catalog.name}.damaged-{datetime.now():%Y%m%d-%H%M%S}")
+            catalog.rename(aside)
+            for extra in ("-wal", "-shm"):
+                catalog.with_name(catalog.name + extra).unlink(missing_ok=True)
+            _err(f"the catalog was damaged: moved aside to {aside.name}")
+            book = logbook.Logbook(root)
+        with book:
+            count, skipped = book.rebuild()
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        raise typer.Exit(EXIT_BAD_INPUT)
+    for why in skipped:
+        _err(f"  skipped: {why}")
+    _err(f"indexed {count} runs from {root / logbook.RUNS}")
+
+
+@log_app.command("reanalyse")
+def log_reanalyse(
+    run: str = _run_argument(),
+    bench: Optional[Path] = _bench_option(),
+    as_json: bool = typer.Option(False, "--json", help="Print the new result as JSON on stdout."),
+) -> None:
+    """Analyse a run again from its stored captures with the current analysis, and write its reports anew.
+
+    A tone or sweep run that was killed while it played is recovered from
+    its partial recording first (the steps recorded whole).
+
+    Example: benchkit log reanalyse 20261202-101500-tone-bias-1.2A
+    """
+    from benchkit import logbook
+    from benchkit.reanalysis import reanalyse
+
+    with _book(bench, write=True) as book:
+        try:
+            entry = book.entry(run)
+            with book.resume(entry.id) as taken:
+                doc, written = reanalyse(taken.folder, taken.record, say=_err)
+                taken.record["reanalysed"] = logbook.now_iso()
+                _finish_run(written, taken, doc, as_json)
+        except BenchkitError as exc:
+            _err(f"benchkit: error: {exc}")
+            raise typer.Exit(EXIT_BAD_INPUT)
+        done = book.entry(entry.id)
+    _err(f"run {done.id}: {done.status}; {_headline_text(done)}")
+
+
+@log_app.command("remove")
+def log_remove(
+    runs: List[str] = typer.Argument(..., help="Runs to move to the trash folder."),
+    bench: Optional[Path] = _bench_option(),
+) -> None:
+    """Move runs to the bench's trash/ folder and out of the catalog (nothing is deleted).
+
+    Example: benchkit log remove 20261202-101500-tone
+    """
+    with _book(bench, write=True) as book:
+        try:
+            for ref in runs:
+                dest = book.remove(book.entry(ref).id)
+                _err(f"moved {ref} to {dest}")
+        except BenchkitError as exc:
+            _err(f"benchkit: error: {exc}")
+            raise typer.Exit(EXIT_BAD_INPUT)
+
+
+@app.command()
+def compare(
+    runs: List[str] = typer.Argument(None, help="Runs to compare (ids, unique starts, 'last', 'last-N'); the first is the baseline."),
+    last: Optional[int] = typer.Option(None, "--last", help="Compare the newest N complete runs (of --command, else of the newest run's command), oldest first."),
+    command: Optional[str] = typer.Option(None, "--command", help="With --last: of this command."),
+    anyway: bool = typer.Option(False, "--anyway", help="Compare runs whose conditions differ (load, frequency, band, calibration, sample rate), with a loud warning."),
+    out: Optional[Path] = typer.Option(None, "--out", help="Comparison folder (default: comparisons/<time>-<runs> in the bench folder)."),
+    bench: Optional[Path] = _bench_option(),
+    as_json: bool = typer.Option(False, "--json", help="Print the comparison as JSON on stdout."),
+) -> None:
+    """Compare logged runs of one kind: overlay plots, a delta table with units and direction, a summary.
+
+    Tone runs pair their steps by drive level and overlay THD+N against
+    power and the spectra; power runs compare the power at each limit;
+    sweeps the response; drift logs the settled value and rate. Runs
+    measured under different conditions are refused unless --anyway.
+
+    Example: benchkit compare --last 2 --command power
+    """
+    from benchkit.compare_runs import compare_runs
+
+    with _book(bench, write=True) as book:
+        try:
+            refs = list(runs or [])
+            if last is not None:
+                if refs:
+                    raise BenchkitError("give runs or --last N, not both")
+                if last < 2:
+                    raise BenchkitError("--last wants at least 2")
+                if command is None:
+                    newest = book.entries(status="complete", limit=1)
+                    command = newest[0].command if newest else None
+                chosen = book.entries(command=command, status="complete", limit=last)
+                if len(chosen) < last:
+                    raise BenchkitError(f"the logbook has {len(chosen)} complete {command or ''} run(s), not {last}")
+                refs = [e.id for e in reversed(chosen)]
+            if len(refs) < 2:
+                raise BenchkitError("name two or more runs to compare, or --last 2")
+            report = compare_runs(book, refs, anyway=anyway, out=out)
+        except BenchkitError as exc:
+            _err(f"benchkit: error: {exc}")
+            raise typer.Exit(EXIT_BAD_INPUT)
+    _err(report.text)
+    for path in report.files:
+        _err(f"  wrote        {path}")
+    if as_json:
+        from benchkit.report.tables import dumps
+
+        print(dumps({**report.comparison.to_dict(), "run_ids": [e.id for e in report.entries],
+                     "folder": str(report.folder)}))
 
 
 def main() -> None:

@@ -4,14 +4,16 @@ change (the invented scenario of the design notes).
 A 24 V single-ended class-A stage with a constant-current pull-up,
 capacitor-coupled into an 8 ohm dummy load, measured through a 10:1 pad into
 a line input of 2.0 V peak full scale, at 0.8 A and then 1.2 A of bias,
-ambient 23 degC. Each bias gets a 997 Hz tone at several levels; the report
-folder holds every capture, its analysis and a before/after comparison.
-At 1.2 A a synchronized sweep from 2 Hz gives the response (the output
-capacitor's corner into the load, the capacitor estimated from it) and
-distortion against frequency; at each bias a power run finds the power at
-1 %, 0.1 % and 10 % THD+N beside the class-A budget's ceiling. After the
-bias change the midpoint is logged as the stage warms (the virtual thermal
-model in accelerated time: 25 minutes of it in no time).
+ambient 23 degC. The report folder is a bench folder: every run is filed in
+its logbook (runs/ and logbook.sqlite), as the measuring commands file
+theirs. Each bias gets a 997 Hz tone at several levels and a power run
+(the power at 1 %, 0.1 % and 10 % THD+N beside the class-A budget's
+ceiling); at 1.2 A a synchronized sweep from 2 Hz gives the response (the
+output capacitor's corner into the load, the capacitor estimated from it)
+and distortion against frequency, and the midpoint is logged as the stage
+warms (the virtual thermal model in accelerated time: 25 minutes of it in
+no time). The before/after comparisons are made by benchkit.compare_runs,
+as 'benchkit compare' makes them, into comparisons/.
 """
 
 from __future__ import annotations
@@ -20,13 +22,16 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
-from benchkit.budget import ClassABudget
 from benchkit import units
+from benchkit.budget import ClassABudget
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
+from benchkit.compare_runs import compare_runs
+from benchkit.logbook import Logbook
 from benchkit.power_runs import power_run
-from benchkit.report import plots, summary, tables
+from benchkit.report import files as reports
+from benchkit.report import summary
 from benchkit.responses import response_run
-from benchkit.runs import StepsResult, compare_steps, tone_run
+from benchkit.runs import StepsResult, tone_run
 
 BIASES_A = (0.8, 1.2)
 FREQUENCY_HZ = 997.0
@@ -48,6 +53,10 @@ RAIL_V, VSAT_V = 24.0, 1.0
 
 #: The drift log: 25 minutes of model time, a reading every 10 s of it.
 DRIFT_S, DRIFT_STEP_S = 1500.0, 10.0
+#: What the logbook remembers of the stage.
+STAGE = {"name": "Test stage B-2 (invented)", "topology": "single-ended class A, constant-current pull-up",
+         "rail_v": RAIL_V, "load_ohms": LOAD_OHMS, "pad": "1.8k:200 (10:1)", "ambient_c": AMBIENT_C}
+NOTE = "demo: Test stage B-2 (invented)"
 
 
 def _demo_drift(folder: Path, seed: int):
@@ -56,15 +65,12 @@ def _demo_drift(folder: Path, seed: int):
     from benchkit.drift_runs import analyze_drift_csv, log_drift
     from benchkit.meters import VirtualMidpoint
 
-    folder.mkdir(exist_ok=True)
     stage = make_stage("se-class-a", {"bias": BIASES_A[-1], "ambient_c": AMBIENT_C}, seed=seed)
     log = folder / "log.csv"
     log_drift(VirtualMidpoint(stage, accelerated=DRIFT_STEP_S, seed=seed), log, 1.0, DRIFT_S)
     result = analyze_drift_csv(log, limit_v=0.5, band_v=0.01, nominal_v=RAIL_V / 2,
                                info={"source": "virtual se-class-a midpoint", "accelerated": DRIFT_STEP_S})
-    files = [log, tables.write_json(result.to_dict(), folder / "log.drift.json"),
-             plots.drift_png(result, folder / "log.drift.png", "Test stage B-2, bias 1.2 A: midpoint")]
-    return result, files
+    return result, reports.drift_reports(result, log, folder)
 
 
 @dataclass(frozen=True)
@@ -76,69 +82,95 @@ class DemoReport:
     text: str
 
 
+def _logged(book: Logbook, command: str, bias: float, params: dict, measure) -> tuple[object, list[Path]]:
+    """One run filed in the logbook: ``measure(folder)`` makes the result
+    and its report files there."""
+    with book.start(command, tags={"bias": f"{bias:g}A"}, note=NOTE, stage=STAGE, device="virtual",
+                    params=params, argv=["demo"]) as run:
+        result, written = measure(run.folder)
+        run.complete(result.to_dict(), written, written[0])
+    return result, written
+
+
 def run_demo(out: Path, seed: int = 1, say: Callable[[str], None] = lambda _m: None) -> DemoReport:
-    """Run the demo scenario and write its report folder."""
+    """Run the demo scenario into the bench folder ``out``."""
     out.mkdir(parents=True, exist_ok=True)
-    runs, powers, files, texts = [], [], [], []
+    with Logbook(out) as book:
+        book.remember_stage(STAGE)
+        return _demo(book, out, seed, say)
+
+
+def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
+    band = (20.0, 20000.0)
+    tones, powers, files, texts = [], [], [], []
     for i, bias in enumerate(BIASES_A):
         label = f"bias {bias:g} A"
+        stage = {"bias": bias, "ambient_c": AMBIENT_C}
         say(f"virtual bench: stage B-2 at {label}, {FREQUENCY_HZ:g} Hz at {len(DRIVE_DBFS)} levels")
-        bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + i)
-        folder = out / f"b2-bias{bias:g}A"
-        folder.mkdir(exist_ok=True)
-        steps = tone_run(
-            bench, folder, FREQUENCY_HZ, list(DRIVE_DBFS), name="tones", load_ohms=LOAD_OHMS,
-            note=f"demo: Test stage B-2 (invented), {label}", traces=True,
-        )
-        runs.append((label, steps))
-        files += [folder / "tones.wav", folder / "tones.json"]
-        files.append(tables.write_json(steps.to_dict(), folder / "tones.result.json"))
-        files.append(tables.write_steps_csv(steps, folder / "tones.steps.csv"))
-        for s in steps.steps:
-            stem = f"drive{s.drive_dbfs:+.0f}dBFS"
-            title = f"Test stage B-2, {label}, drive {s.drive_dbfs:g} dBFS"
-            files.append(plots.spectrum_png(s.result, folder / f"{stem}.spectrum.png", title))
-            files.append(plots.residual_png(s.result, folder / f"{stem}.residual.png", title))
-            files.append(tables.write_harmonics_csv(s.result, folder / f"{stem}.harmonics.csv"))
-        files.append(plots.steps_png([(label, steps)], folder / "tones.thdn.png", f"Test stage B-2, {label}: THD+N"))
+        bench = virtual_bench("se-class-a", stage, pad=DEMO_PAD, seed=seed + i)
+
+        def tones_in(folder, bench=bench):
+            steps = tone_run(bench, folder, FREQUENCY_HZ, list(DRIVE_DBFS), load_ohms=LOAD_OHMS, note=NOTE,
+                             traces=True)
+            return steps, reports.steps_reports(steps, folder / "capture.wav", 1, folder)
+
+        steps, written = _logged(book, "tone", bias, dict(channel=1, frequency_hz=FREQUENCY_HZ, levels_dbfs=list(DRIVE_DBFS),
+                                                          load_ohms=LOAD_OHMS, bandwidth_hz=band,
+                                                          sample_rate_hz=bench.sample_rate_hz), tones_in)
+        tones.append((label, steps))
+        files += written
         texts.append(summary.steps_summary(steps, f"Test stage B-2, {label}"))
         say(f"virtual bench: stage B-2 at {label}, power run to 10 % THD+N")
         budget = ClassABudget(RAIL_V, bias, LOAD_OHMS, VSAT_V)
         first = units.db_from_ratio(budget.peak_vpk / 20.0) - 40.0
-        pw_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 11 + i)
-        pw = power_run(pw_bench, folder, FREQUENCY_HZ, first, -3.0, LOAD_OHMS, ref_channel=pw_bench.reference_input(),
-                       supply_v=RAIL_V, supply_a=bias, budget=budget, name="power",
-                       note=f"demo: Test stage B-2 (invented), {label}")
+        pw_bench = virtual_bench("se-class-a", stage, pad=DEMO_PAD, seed=seed + 11 + i)
+
+        def power_in(folder, pw_bench=pw_bench, budget=budget, first=first, bias=bias):
+            pw = power_run(pw_bench, folder, FREQUENCY_HZ, first, -3.0, LOAD_OHMS, ref_channel=pw_bench.reference_input(),
+                           supply_v=RAIL_V, supply_a=bias, budget=budget, note=NOTE)
+            return pw, reports.power_reports(pw, folder / "capture.wav", 1, folder)
+
+        params = dict(channel=1, ref_channel=pw_bench.reference_input(), frequency_hz=FREQUENCY_HZ, load_ohms=LOAD_OHMS,
+                      supply_v=RAIL_V, supply_a=bias, rail_v=RAIL_V, bias_a=bias, vsat_v=VSAT_V,
+                      sample_rate_hz=pw_bench.sample_rate_hz)
+        pw, written = _logged(book, "power", bias, params, power_in)
         powers.append((label, pw))
-        files += [folder / "power.wav", folder / "power.json",
-                  tables.write_json(pw.to_dict(), folder / "power.result.json"),
-                  tables.write_power_csv(pw, folder / "power.csv"),
-                  plots.power_png(pw, folder / "power.png", f"Test stage B-2, {label}")]
+        files += written
         texts.append(summary.power_summary(pw, f"Test stage B-2, {label}: power into {LOAD_OHMS:g} ohm"))
-    label = f"bias {BIASES_A[-1]:g} A"
+    bias = BIASES_A[-1]
+    label = f"bias {bias:g} A"
     say(f"virtual bench: stage B-2 at {label}, sweep {SWEEP_SPAN_HZ[0]:g} Hz to {SWEEP_SPAN_HZ[1]:g} Hz")
-    bench = virtual_bench("se-class-a", {"bias": BIASES_A[-1], "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 7)
-    folder = out / f"b2-bias{BIASES_A[-1]:g}A"
-    response = response_run(bench, folder, SWEEP_DBFS, SWEEP_SPAN_HZ, SWEEP_S, ref_channel=bench.reference_input(),
-                            load_ohms=LOAD_OHMS, name="sweep", note=f"demo: Test stage B-2 (invented), {label}")
-    title = f"Test stage B-2, {label}"
-    files += [folder / "sweep.wav", folder / "sweep.json",
-              tables.write_json(response.to_dict(), folder / "sweep.response.json"),
-              tables.write_response_csv(response, folder / "sweep.response.csv"),
-              plots.response_png(response, folder / "sweep.response.png", title, smooth_fraction=None),
-              plots.distortion_png(response, folder / "sweep.distortion.png", title)]
+    bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 7)
+
+    def sweep_in(folder):
+        r = response_run(bench, folder, SWEEP_DBFS, SWEEP_SPAN_HZ, SWEEP_S, ref_channel=bench.reference_input(),
+                         load_ohms=LOAD_OHMS, note=NOTE)
+        return r, reports.response_reports(r, folder / "capture.wav", 1, folder)
+
+    response, written = _logged(book, "sweep", bias, dict(channel=1, ref_channel=bench.reference_input(),
+                                                          load_ohms=LOAD_OHMS, bandwidth_hz=band,
+                                                          span_hz=list(SWEEP_SPAN_HZ), level_dbfs=SWEEP_DBFS,
+                                                          sample_rate_hz=bench.sample_rate_hz), sweep_in)
+    files += written
     say(f"virtual bench: stage B-2 at {label}, midpoint drift while it warms (accelerated time)")
-    drift = _demo_drift(out / "b2-drift", seed)
-    files += drift[1]
-    (la, a), (lb, b) = runs
-    deltas = compare_steps(a, b)
-    files.append(tables.write_comparison_csv(deltas, ("0.8A", "1.2A"), out / "comparison.csv"))
-    files.append(plots.steps_png(runs, out / "comparison.png", "Test stage B-2: THD+N before and after the bias change"))
-    texts.append(f"Before/after ({la} -> {lb}):\n" + summary.comparison_summary(deltas, (la, lb)))
+    drift, written = _logged(book, "drift", bias, dict(source="virtual", limit_v=0.5, band_v=0.01, window_s=60.0,
+                                                       nominal_v=RAIL_V / 2, accelerated=DRIFT_STEP_S),
+                             lambda folder: _demo_drift(folder, seed))
+    files += written
+    comparisons = []
+    for command in ("tone", "power"):
+        got = book.entries(command=command, status="complete", limit=2)
+        report = compare_runs(book, [e.id for e in reversed(got)],
+                              title=f"Test stage B-2, {command} runs before and after the bias change")
+        comparisons.append(report)
+        files += report.files
+    (la, _a), (lb, _b) = tones
+    texts.append(f"Before/after ({la} -> {lb}), 'benchkit compare':\n" + "\n\n".join(r.text for r in comparisons))
     texts.append(summary.response_summary(response, f"Test stage B-2, {label}: response"))
-    texts.append(summary.drift_summary(drift[0], f"Test stage B-2, {label}: midpoint after power-on "
-                                                 "(virtual thermal model, accelerated 10x)"))
+    texts.append(summary.drift_summary(drift, f"Test stage B-2, {label}: midpoint after power-on "
+                                              "(virtual thermal model, accelerated 10x)"))
     text = "\n\n".join(texts)
-    (out / "summary.txt").write_text(text + "\n", encoding="utf-8")
-    files.append(out / "summary.txt")
-    return DemoReport(out, tuple(runs), response, tuple(files), text)
+    from benchkit.recordings import write_text_atomic
+
+    files.append(write_text_atomic(out / "summary.txt", text + "\n"))
+    return DemoReport(out, tuple(tones), response, tuple(files), text)

@@ -149,12 +149,27 @@ def write_capture(
     return p
 
 
+def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
+    """Write a file whole under a temporary name, flush it to the disk and
+    rename it into place: a reader, or a crash, sees the old file or the
+    new one, never half of one."""
+    p = Path(path)
+    tmp = p.with_name(f".{p.name}.{os.getpid()}.tmp")
+    try:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, p)
+    finally:
+        tmp.unlink(missing_ok=True)
+    return p
+
+
 def write_capture_sidecar(audio_path: str | os.PathLike, sidecar: dict) -> Path:
     """Write (or rewrite) the sidecar JSON of a capture."""
     doc = {"kind": SIDECAR_KIND, "schema_version": SIDECAR_SCHEMA_VERSION, **sidecar}
-    side = sidecar_path(audio_path)
-    side.write_text(json.dumps(doc, indent=2, default=_json_default) + "\n", encoding="utf-8")
-    return side
+    return write_text_atomic(sidecar_path(audio_path), json.dumps(doc, indent=2, default=_json_default) + "\n")
 
 
 def _json_default(obj):

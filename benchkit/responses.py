@@ -303,7 +303,7 @@ def response_run(
     The raw recording streams to ``NAME.partial.wav``; an input that clips
     stops the run (the partial capture is kept) with a clear error.
     """
-    from benchkit.runs import apply_calibration, capture_sidecar
+    from benchkit.runs import apply_calibration, capture_sidecar, planned_sidecar, write_planned
 
     rate = backend.sample_rate_hz
     out_ch = getattr(backend, "drive_output", 1)
@@ -315,15 +315,19 @@ def response_run(
         stim = sweep_stimulus(sw.SyncSweep.design(span_hz[0], span_hz[1], seconds, rate), level_dbfs, out_ch,
                               backend.n_outputs, lead)
     partial = folder / f"{name}.partial.wav"
+    extra = {"reference_channel": ref_channel, "output_vpk_per_fs": backend.output_vpk_per_fs}
+    plan = {**planned_sidecar(stim, channel, backend, note), **extra}
+    if calibration is not None:
+        apply_calibration(plan, calibration, calibration_file, channel)
+    planned = write_planned(folder, name, plan)
     cap = capture.run(backend, stim, partial)
-    side = capture_sidecar(cap, stim, channel, backend, note)
-    side["reference_channel"] = ref_channel
-    side["output_vpk_per_fs"] = backend.output_vpk_per_fs
+    side = {**capture_sidecar(cap, stim, channel, backend, note), **extra}
     if calibration is not None:
         apply_calibration(side, calibration, calibration_file, channel)
     side["warnings"] = list(warnings)
     path = write_capture(folder / f"{name}.wav", cap.samples, cap.sample_rate_hz, side)
     partial.unlink(missing_ok=True)
+    planned.unlink(missing_ok=True)
     if cap.stopped_at is not None:
         at = cap.stopped_at / rate
         raise BenchkitError(f"the input clipped at {at:.2f} s into the run: lower the level or use a larger pad "

@@ -134,25 +134,93 @@ MAX_RETRIES = 2
 CLOCK_WARN_PPM = 20.0
 
 
-def capture_sidecar(cap, stim, channel: int, backend, note: str) -> dict:
-    """The sidecar every run writes beside its capture: when, what device,
-    the inputs and their scales, the stimulus with its segments, the
-    latency found, stream events, the note, and the bench's own account."""
+def planned_sidecar(stim, channel: int, backend, note: str) -> dict:
+    """The sidecar of a capture about to be made: when, what device, the
+    inputs and their scales, the stimulus with its segments, the note,
+    and the bench's own account. Written beside the partial recording
+    before anything plays (``NAME.partial.json``), it lets
+    :func:`recover_capture` align what a killed run left."""
     side = {
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
-        "sample_rate_hz": cap.sample_rate_hz,
-        "device": cap.device,
-        "scale_source": cap.input(channel).scale_source,
-        "channels": [ch.to_dict() for ch in cap.inputs],
+        "sample_rate_hz": stim.sample_rate_hz,
+        "device": backend.name,
+        "scale_source": backend.inputs()[channel - 1].scale_source,
+        "channels": [ch.to_dict() for ch in backend.inputs()],
         "stimulus": {**stim.description, "segments": [s.to_dict() for s in stim.segments]},
-        "latency_samples": cap.latency_samples,
-        "events": list(cap.events),
+        "marker_start": stim.marker_start,
+        "n_samples": stim.n_samples,
+        "aligned_on": backend.reference_input() or 1,
         "note": note,
     }
     describe = getattr(backend, "describe", None)
     if describe is not None:
         side["bench"] = describe()
     return side
+
+
+def capture_sidecar(cap, stim, channel: int, backend, note: str) -> dict:
+    """The sidecar every run writes beside its capture: the planned one
+    with the latency found and the stream's events."""
+    side = planned_sidecar(stim, channel, backend, note)
+    side.update(device=cap.device, scale_source=cap.input(channel).scale_source,
+                channels=[ch.to_dict() for ch in cap.inputs], latency_samples=cap.latency_samples,
+                events=list(cap.events))
+    return side
+
+
+def write_planned(folder: Path, stem: str, side: dict) -> Path:
+    """The planned sidecar beside the partial recording, before it plays."""
+    folder.mkdir(parents=True, exist_ok=True)
+    return write_capture_sidecar(folder / f"{stem}.partial.wav", side)
+
+
+def recover_capture(folder: Path, stem: str = "capture") -> Path:
+    """Turn what a killed run left (``STEM.partial.wav``, streamed raw,
+    and its planned sidecar) into an aligned capture ``STEM.wav`` with its
+    sidecar, keeping the steps recorded whole. The partial recording stays.
+
+    Raises
+    ------
+    BenchkitError
+        When there is nothing to recover, or the marker is not in it.
+    """
+    import json
+
+    import soundfile as sf
+
+    from benchkit.capture.align import find_marker
+    from benchkit.recordings import repair_wav
+    from benchkit.signals import marker
+
+    partial, planned = folder / f"{stem}.partial.wav", folder / f"{stem}.partial.json"
+    if not partial.exists() or not planned.exists():
+        raise BenchkitError(f"{folder}: no partial capture to recover ({partial.name} with {planned.name})")
+    try:
+        side = json.loads(planned.read_text(encoding="utf-8"))
+        rate, start, n = float(side["sample_rate_hz"]), int(side["marker_start"]), int(side["n_samples"])
+        segments = list(side["stimulus"]["segments"])
+        on = int(side.get("aligned_on") or 1)
+    except (OSError, ValueError, KeyError, TypeError) as exc:
+        raise BenchkitError(f"{planned}: the planned sidecar is damaged ({exc})") from None
+    frames = repair_wav(partial)
+    raw, _rate = sf.read(str(partial), always_2d=True, dtype="float64")
+    mk = marker(rate)
+    first = int(segments[0]["start"]) if segments else n
+    if frames < first + mk.size:
+        raise BenchkitError(f"{partial}: the run was killed before its first step ({frames} frames): nothing to recover")
+    latency = find_marker(raw[: first + mk.size, on - 1], mk) - start
+    if latency < 0:
+        raise BenchkitError(f"{partial}: the capture could not be aligned (marker {latency} samples early)")
+    aligned = raw[latency : latency + n]
+    kept = [seg for seg in segments if int(seg["end"]) <= aligned.shape[0]]
+    if not kept:
+        raise BenchkitError(f"{partial}: the run was killed during its first step: nothing to analyse")
+    side["stimulus"]["segments"] = kept
+    side["latency_samples"] = int(latency)
+    side["events"] = ["recovered"]
+    side.setdefault("warnings", []).append(
+        f"recovered from a run that was cut off: {len(kept)} of {len(segments)} steps were recorded whole")
+    return write_capture(folder / f"{stem}.wav", aligned, rate, side)
 
 
 def apply_calibration(side: dict, profile, path: str | None, channel: int) -> None:
@@ -308,6 +376,10 @@ def tone_run(
         stim = stepped_tones(frequency_hz, levels, backend.sample_rate_hz, step_s=step_s, settle_s=settle_s,
                              out_channel=out_ch, n_out=backend.n_outputs, lead_s=lead)
         partial = folder / f"{stem}.partial.wav"
+        plan = planned_sidecar(stim, channel, backend, note)
+        if calibration is not None:
+            apply_calibration(plan, calibration, calibration_file, channel)
+        planned = write_planned(folder, stem, plan)
         cap = capture.run(backend, stim, partial)
         side = capture_sidecar(cap, stim, channel, backend, note)
         if calibration is not None:
@@ -316,6 +388,7 @@ def tone_run(
         side["clock_offset_ppm"] = ppm
         path = write_capture(folder / f"{stem}.wav", cap.samples, cap.sample_rate_hz, side)
         partial.unlink(missing_ok=True)
+        planned.unlink(missing_ok=True)
         return stim, cap, side, path
 
     stim, cap, side, path = play(levels_dbfs, name)
@@ -356,44 +429,3 @@ def tone_run(
     side["warnings"] = warnings
     write_capture_sidecar(path, side)
     return analyze_steps(read_capture(path, channel), bandwidth_hz, load_ohms, traces=traces)
-
-
-@dataclass(frozen=True)
-class StepDelta:
-    """One drive level measured in two runs."""
-
-    drive_dbfs: float
-    before: ToneResult
-    after: ToneResult
-
-    @property
-    def thdn_change_db(self) -> float:
-        """Negative is better (less distortion and noise)."""
-        return self.after.thdn_db - self.before.thdn_db
-
-
-def compare_steps(before: StepsResult, after: StepsResult) -> tuple[StepDelta, ...]:
-    """Pair the steps of two stepped-tone runs by drive level.
-
-    Raises
-    ------
-    BenchkitError
-        When the runs share no drive level, or were made at different
-        frequencies or bandwidths (not comparable).
-    """
-    if abs(before.frequency_hz - after.frequency_hz) > 1e-6:
-        raise BenchkitError(
-            f"the runs are not comparable: {before.frequency_hz:g} Hz against {after.frequency_hz:g} Hz"
-        )
-    by_drive = {round(s.drive_dbfs, 3): s for s in after.steps}
-    pairs = []
-    for s in before.steps:
-        other = by_drive.get(round(s.drive_dbfs, 3))
-        if other is None:
-            continue
-        if s.result.bandwidth_hz != other.result.bandwidth_hz:
-            raise BenchkitError("the runs are not comparable: they were analysed over different bands")
-        pairs.append(StepDelta(s.drive_dbfs, s.result, other.result))
-    if not pairs:
-        raise BenchkitError("the runs share no drive level to compare")
-    return tuple(pairs)

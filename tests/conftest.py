@@ -6,6 +6,7 @@ import os
 import shutil
 import subprocess
 import sys
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -32,3 +33,23 @@ def sox_path() -> str:
             pytest.fail("sox is not installed; CI must install it (apt-get install sox)")
         pytest.skip("sox is not installed (apt-get install sox)")
     return path
+
+
+@pytest.fixture(autouse=True)
+def _bench_of_its_own(tmp_path, monkeypatch):
+    """Every test's measurements are filed in a bench folder of its own,
+    never in the repository (subprocesses inherit the variable)."""
+    monkeypatch.setenv("BENCHKIT_BENCH", str(tmp_path / "bench"))
+
+
+def run_folders(bench) -> list:
+    """The run folders of a bench folder, oldest first."""
+    runs = Path(bench) / "runs"
+    return sorted(p for p in runs.iterdir() if p.is_dir()) if runs.exists() else []
+
+
+def the_run(bench):
+    """The one run folder of a bench folder."""
+    folders = run_folders(bench)
+    assert len(folders) == 1, folders
+    return folders[0]

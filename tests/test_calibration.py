@@ -20,7 +20,7 @@ from benchkit.calibration import load_profile, save_profile
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
 from benchkit.errors import BenchkitError
 
-from conftest import run_cli
+from conftest import run_cli, run_folders
 
 # IEC 60063 (from memory of its tables)
 E12_IEC = [1.0, 1.2, 1.5, 1.8, 2.2, 2.7, 3.3, 3.9, 4.7, 5.6, 6.8, 8.2]
@@ -106,7 +106,7 @@ def test_calibration_round_trip_reports_the_true_stage_voltage(tmp_path):
     res = run_cli("calibrate", "--reading", "0.14142V", "--pad", "1.8k:200", "--out", str(cal))
     assert res.returncode == 0, res.stderr
     out = run_cli("tone", "--calibration", str(cal), "--sim", "ideal", "--level", "-20dBFS", "--gain", "10",
-                  "--load", "8", "--out", str(tmp_path / "run"), "--json")
+                  "--load", "8", "--bench", str(tmp_path / "run"), "--json")
     assert out.returncode == 0, out.stderr
     doc = json.loads(out.stdout)
     step = doc["steps"][0]
@@ -131,15 +131,15 @@ def test_bad_profiles_are_refused_clearly(tmp_path, content, needle):
     bad.write_text(content)
     with pytest.raises(BenchkitError, match=needle):
         load_profile(bad)
-    res = run_cli("tone", "--calibration", str(bad), "--out", str(tmp_path / "run"))
+    res = run_cli("tone", "--calibration", str(bad), "--bench", str(tmp_path / "run"))
     assert res.returncode != 0 and "Traceback" not in res.stderr and needle in res.stderr
-    assert not (tmp_path / "run").exists()
+    assert not run_folders(tmp_path / "run")
 
 
 def test_the_interface_floor_is_marked(tmp_path, profile_path):
     # an ideal stage of gain 1 and no pad: what is measured is the interface
     res = run_cli("tone", "--calibration", str(profile_path), "--sim", "ideal", "--sim-param", "gain=1",
-                  "--sim-pad", "none", "--level", "-20dBFS", "--out", str(tmp_path / "run"), "--json")
+                  "--sim-pad", "none", "--level", "-20dBFS", "--bench", str(tmp_path / "run"), "--json")
     assert res.returncode == 0, res.stderr
     step = json.loads(res.stdout)["steps"][0]
     assert any("limited by the interface" in w for w in step["warnings"])
@@ -148,21 +148,21 @@ def test_the_interface_floor_is_marked(tmp_path, profile_path):
 # --- pre-flight ------------------------------------------------------------------------
 
 
-def _nothing_played(folder):
-    return not folder.exists() or not any(folder.glob("capture*"))
+def _nothing_played(bench):
+    return not run_folders(bench)
 
 
 def test_preflight_refuses_a_drive_that_would_clip_the_input(tmp_path):
     # gain 10, no pad: -6 dBFS out would be +14 dBFS in
     res = run_cli("tone", "--sim-pad", "none", "--gain", "10", "--level", "-6dBFS", "--load", "8",
-                  "--out", str(tmp_path / "run"))
+                  "--bench", str(tmp_path / "run"))
     assert res.returncode != 0 and "top step would reach" in res.stderr and "lower the drive" in res.stderr
     assert _nothing_played(tmp_path / "run")
 
 
 def test_preflight_refuses_a_pad_too_small_for_the_rail(tmp_path):
     res = run_cli("tone", "--rail", "50", "--gain", "10", "--level", "-30dBFS", "--load", "8",
-                  "--out", str(tmp_path / "run"))
+                  "--bench", str(tmp_path / "run"))
     assert res.returncode != 0 and "50 V rail" in res.stderr and "benchkit pad" in res.stderr
     assert _nothing_played(tmp_path / "run")
 
@@ -170,13 +170,13 @@ def test_preflight_refuses_a_pad_too_small_for_the_rail(tmp_path):
 def test_preflight_refuses_an_overloaded_pad_resistor(tmp_path):
     # 7 V peak at the stage: R1 of 1.8 k takes (5 V - 0.5 V)^2 / 1.8 k = 11 mW (circuit theory)
     res = run_cli("tone", "--gain", "10", "--level", "-9dBFS", "--pad-rating", "0.005", "--load", "8",
-                  "--out", str(tmp_path / "run"))
+                  "--bench", str(tmp_path / "run"))
     assert res.returncode != 0 and "R1 would dissipate" in res.stderr
     assert _nothing_played(tmp_path / "run")
 
 
 def test_preflight_warnings_reach_the_results(tmp_path):
-    res = run_cli("tone", "--level", "-20dBFS", "--btl", "--out", str(tmp_path / "run"), "--json")
+    res = run_cli("tone", "--level", "-20dBFS", "--btl", "--bench", str(tmp_path / "run"), "--json")
     assert res.returncode == 0, res.stderr
     warnings = json.loads(res.stdout)["warnings"]
     assert any("no load given" in w for w in warnings) and any("BTL" in w for w in warnings)

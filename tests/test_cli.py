@@ -10,7 +10,6 @@ from __future__ import annotations
 import csv
 import json
 import math
-import shutil
 from pathlib import Path
 
 import numpy as np

@@ -15,7 +15,7 @@ import sys
 
 import pytest
 
-from conftest import run_cli
+from conftest import run_cli, run_folders, the_run
 
 
 def test_demo_runs_and_its_outputs_parse(tmp_path):
@@ -24,19 +24,27 @@ def test_demo_runs_and_its_outputs_parse(tmp_path):
     assert res.returncode == 0, res.stderr
     assert "report:" in res.stderr and str(out.resolve()) in res.stderr
     assert "virtual bench" in res.stderr
-    for sub in ("b2-bias0.8A", "b2-bias1.2A"):
-        side = json.loads((out / sub / "tones.json").read_text())
+    # the demo's folder is a bench folder: every run filed in its logbook
+    names = [f.name.split("-", 2)[2] for f in run_folders(out)]
+    assert names == ["tone-bias-0.8A", "power-bias-0.8A", "tone-bias-1.2A", "power-bias-1.2A", "sweep-bias-1.2A",
+                     "drift-bias-1.2A"]
+    listed = json.loads(run_cli("log", "list", "--bench", str(out), "--json").stdout)
+    assert [r["status"] for r in listed["runs"]] == ["complete"] * 6
+    for folder in run_folders(out)[:4:2]:
+        side = json.loads((folder / "capture.json").read_text())
         assert side["kind"] == "capture" and side["scale_source"] == "simulation"
-        doc = json.loads((out / sub / "tones.result.json").read_text())
+        doc = json.loads((folder / "capture.result.json").read_text())
         assert doc["kind"] == "tone-steps" and len(doc["steps"]) == 4
-        assert (out / sub / "tones.wav").stat().st_size > 100_000
-        for png in (out / sub).glob("*.png"):
+        assert (folder / "capture.wav").stat().st_size > 100_000
+        for png in folder.glob("*.png"):
             assert png.read_bytes()[:4] == b"\x89PNG"
-    with (out / "comparison.csv").open() as fh:
-        rows = list(csv.DictReader(fh))
-    assert len(rows) == 4
+    (tones,) = (out / "comparisons").glob("*-tone-*")
+    with (tones / "comparison.csv").open() as fh:
+        rows = {r["figure"]: r for r in csv.DictReader(fh)}
     # textbook class A: more bias current, less distortion at the top level
-    assert float(rows[-1]["thdn_change_db"]) < -3.0
+    assert float(rows["thdn_db@-11dBFS"]["change [1]-[0]"]) < -3.0
+    assert rows["thdn_db@-11dBFS"]["verdict [1]"] == "better"
+    assert (tones / "spectra.png").exists() and (tones / "overlay.png").exists()
     assert (out / "summary.txt").read_text().count("bias") >= 4
 
 
@@ -45,30 +53,31 @@ def test_tone_on_the_poly_model(tmp_path):
     g, a2, drive = 10.0, 0.1, -20.0
     amp = 2.0 * 10 ** (drive / 20)
     res = run_cli("tone", "--sim", "poly", "--sim-param", f"gain={g}", "--sim-param", f"a2={a2}",
-                  "--level", f"{drive}dBFS", "--out", str(tmp_path / "run"), "--json")
+                  "--level", f"{drive}dBFS", "--bench", str(tmp_path / "run"), "--json")
     assert res.returncode == 0, res.stderr
     doc = json.loads(res.stdout)
     step = doc["steps"][0]
     assert step["harmonics"][0]["level_dbc"] == pytest.approx(20 * math.log10(a2 * amp / (2 * g)), abs=0.05)
-    assert (tmp_path / "run" / "capture.wav").is_file() and (tmp_path / "run" / "capture.json").is_file()
+    run = the_run(tmp_path / "run")
+    assert (run / "capture.wav").is_file() and (run / "capture.json").is_file()
     assert "device: virtual bench" in res.stderr
 
 
 def test_capture_is_on_disk_even_when_analysis_refuses(tmp_path):
     # a silent stage (its gain given, so no pre-flight probe): the analysis
     # finds no tone, but the capture is kept
-    res = run_cli("tone", "--sim", "ideal", "--sim-param", "gain=0", "--gain", "0", "--out", str(tmp_path / "run"))
+    res = run_cli("tone", "--sim", "ideal", "--sim-param", "gain=0", "--gain", "0", "--bench", str(tmp_path / "run"))
     assert res.returncode != 0 and "Traceback" not in res.stderr
-    assert (tmp_path / "run" / "capture.wav").is_file()
+    assert (the_run(tmp_path / "run") / "capture.wav").is_file()
 
 
 def test_real_device_names_are_refused_clearly(tmp_path):
     env = {**os.environ, "BENCHKIT_DEVICE": "Studio Interface 2"}
-    res = subprocess.run([sys.executable, "-m", "benchkit", "tone", "--out", str(tmp_path / "r")],
+    res = subprocess.run([sys.executable, "-m", "benchkit", "tone", "--bench", str(tmp_path / "r")],
                          capture_output=True, text=True, env=env, timeout=120)
     assert res.returncode != 0 and "Traceback" not in res.stderr
     assert "Studio Interface 2" in res.stderr and "benchkit devices" in res.stderr
-    ok = subprocess.run([sys.executable, "-m", "benchkit", "tone", "--device", "virtual", "--out", str(tmp_path / "v")],
+    ok = subprocess.run([sys.executable, "-m", "benchkit", "tone", "--device", "virtual", "--bench", str(tmp_path / "v")],
                         capture_output=True, text=True, env=env, timeout=120)
     assert ok.returncode == 0, ok.stderr
 
@@ -83,7 +92,7 @@ def test_real_device_names_are_refused_clearly(tmp_path):
     (["--level", "2 Vrms"], "above"),  # 2 Vrms is 2.83 V peak: over a 2 V-peak output
 ])
 def test_tone_bad_options(tmp_path, args, needle):
-    res = run_cli("tone", "--out", str(tmp_path / "r"), *args)
+    res = run_cli("tone", "--bench", str(tmp_path / "r"), *args)
     assert res.returncode != 0 and "Traceback" not in res.stderr
     assert needle in res.stderr
 

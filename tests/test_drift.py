@@ -19,7 +19,7 @@ from benchkit.capture.stages import make_stage
 from benchkit.drift_runs import analyze_drift_csv, log_drift
 from benchkit.errors import BenchkitError
 from benchkit.meters import ScpiMeter, VirtualMidpoint, read_drift_csv
-from conftest import run_cli
+from conftest import run_cli, the_run
 from scpi_meter import EmulatedMeter
 
 pytest.importorskip("pyvisa_py")
@@ -71,7 +71,7 @@ def test_a_second_meter_logs_the_supply_current(tmp_path):
     out = tmp_path / "run"
     try:
         res = run_cli("drift", "--source", "meter", "--resource", volts.resource, "--current-resource", amps.resource,
-                      "--interval", "0.05", "--duration", "2", "--out", str(out), "--json")
+                      "--interval", "0.05", "--duration", "2", "--bench", str(out), "--json")
     finally:
         volts.close()
         amps.close()
@@ -79,7 +79,7 @@ def test_a_second_meter_logs_the_supply_current(tmp_path):
     doc = json.loads(res.stdout)
     assert amps.function == "CONF:CURR:DC" and volts.function == "CONF:VOLT:DC"
     assert 1.19 < doc["supply_current_a"]["last"] < 1.23 and doc["supply_current_a"]["max"] <= 1.26
-    assert (out / "log.drift.csv").exists()
+    assert (the_run(out) / "log.drift.csv").exists()
 
 
 def test_meter_going_away_stops_cleanly_and_keeps_the_log(tmp_path):
@@ -87,15 +87,15 @@ def test_meter_going_away_stops_cleanly_and_keeps_the_log(tmp_path):
     out = tmp_path / "run"
     try:
         res = run_cli("drift", "--source", "meter", "--resource", meter.resource, "--interval", "0.05",
-                      "--duration", "30", "--out", str(out), "--json")
+                      "--duration", "30", "--bench", str(out), "--json")
     finally:
         meter.close()
     assert res.returncode == 1 and "Traceback" not in res.stderr
     assert "stopped answering" in res.stderr
     doc = json.loads(res.stdout)
     assert doc["ended"] == "lost" and doc["samples"] >= 10
-    t, v, _ = read_drift_csv(out / "log.csv")
-    assert t.size == doc["samples"] and (out / "log.drift.png").exists()
+    t, v, _ = read_drift_csv(the_run(out) / "log.csv")
+    assert t.size == doc["samples"] and (the_run(out) / "log.drift.png").exists()
 
 
 def test_logger_csv_edge_cases(tmp_path):
@@ -138,5 +138,5 @@ def test_drift_on_an_ac_coupled_input_is_refused(tmp_path):
     prof = calibrate(bench, bench.output_vrms(-20.0), pad=DEMO_PAD, input_ohms=10e3,
                      wire=lambda step: setattr(bench, "wiring", step))
     path = save_profile(prof, tmp_path / "cal.json")
-    res = run_cli("drift", "--source", "interface", "--calibration", str(path), "--duration", "5", "--out", str(tmp_path / "d"))
+    res = run_cli("drift", "--source", "interface", "--calibration", str(path), "--duration", "5", "--bench", str(tmp_path / "d"))
     assert res.returncode == 1 and "AC coupled" in res.stderr

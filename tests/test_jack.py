@@ -19,6 +19,7 @@ import soundfile as sf
 from benchkit import analyze_tone
 
 import jackbench
+from conftest import run_cli, run_folders, the_run
 
 pytestmark = pytest.mark.timeout(120)
 
@@ -35,7 +36,7 @@ def server():
 
 
 def _tone(server, out, *levels, extra=(), patch=None, timeout=60):
-    args = ["tone", "--device", "system", "--ref-channel", "2", "--out", str(out), "--json", *extra]
+    args = ["tone", "--device", "system", "--ref-channel", "2", "--bench", str(out), "--json", *extra]
     for lvl in levels:
         args += ["--level", f"{lvl}dBFS"]
     proc = jackbench.benchkit(server, *args)
@@ -88,13 +89,13 @@ def test_latency_repeatable_and_found_after_a_period_change(server, tmp_path):
             rc, out, err = _tone(server, tmp_path / f"r{k}", -20.0)
         assert rc == 0, err
         found.append(json.loads(out)["latency_samples"])
-        assert _aligned_exactly(tmp_path / f"r{k}")
+        assert _aligned_exactly(the_run(tmp_path / f"r{k}"))
     assert len(set(found)) == 1
     with jackbench.JackServer(period=512) as other:
         with jackbench.Patchbay(other, "loopback"):
             rc, out, err = _tone(other, tmp_path / "p512", -20.0, extra=("--blocksize", "512"))
         assert rc == 0, err
-        assert _aligned_exactly(tmp_path / "p512")
+        assert _aligned_exactly(the_run(tmp_path / "p512"))
 
 
 def test_an_xrun_spoils_its_step_and_the_step_is_retried(server, tmp_path):
@@ -106,7 +107,7 @@ def test_an_xrun_spoils_its_step_and_the_step_is_retried(server, tmp_path):
         rc, out, err = _tone(server, tmp_path / "run", -20.0, -14.0)
     assert rc == 0, err
     assert bay.stalled
-    side = json.loads((tmp_path / "run" / "capture.json").read_text())
+    side = json.loads((the_run(tmp_path / "run") / "capture.json").read_text())
     assert side["events"], "the stream faults were not recorded"
     retried = [s for s in side["stimulus"]["segments"] if s.get("file")]
     assert retried and retried[0]["file"].startswith("capture.retry")
@@ -114,12 +115,13 @@ def test_an_xrun_spoils_its_step_and_the_step_is_retried(server, tmp_path):
     assert all(s["valid"] for s in doc["steps"])
 
 
-def _wait_until_running(proc, folder, seconds=1.5):
-    partial = folder / "capture.partial.wav"
+def _wait_until_running(proc, bench, seconds=1.5):
+    """The partial recording of the run in ``bench`` once it holds ``seconds``."""
     deadline = time.monotonic() + 20
     while time.monotonic() < deadline:
-        if partial.exists() and partial.stat().st_size > 44 + 4 * 2 * int(48000 * seconds):
-            return partial
+        for partial in bench.glob("runs/*/capture.partial.wav"):
+            if partial.stat().st_size > 44 + 4 * 2 * int(48000 * seconds):
+                return partial
         time.sleep(0.05)
     raise AssertionError("the run never got going")
 
@@ -127,7 +129,7 @@ def _wait_until_running(proc, folder, seconds=1.5):
 def test_sigint_fades_out_and_keeps_the_partial_capture(server, tmp_path):
     folder = tmp_path / "run"
     with jackbench.Patchbay(server, "loopback"):
-        proc = jackbench.benchkit(server, "tone", "--device", "system", "--ref-channel", "2", "--out", str(folder),
+        proc = jackbench.benchkit(server, "tone", "--device", "system", "--ref-channel", "2", "--bench", str(folder),
                                   *sum((["--level", "-20dBFS"] for _ in range(6)), []))
         partial = _wait_until_running(proc, folder, seconds=2.0)
         proc.send_signal(signal.SIGINT)
@@ -149,7 +151,7 @@ def test_killing_the_server_mid_run_exits_cleanly(server, tmp_path):
     folder = tmp_path / "run"
     with jackbench.JackServer(period=1024) as doomed:
         with jackbench.Patchbay(doomed, "loopback"):
-            proc = jackbench.benchkit(doomed, "tone", "--device", "system", "--ref-channel", "2", "--out", str(folder),
+            proc = jackbench.benchkit(doomed, "tone", "--device", "system", "--ref-channel", "2", "--bench", str(folder),
                                       *sum((["--level", "-20dBFS"] for _ in range(6)), []))
             partial = _wait_until_running(proc, folder)
             doomed.stop()  # the server goes away under the running stream
@@ -165,7 +167,7 @@ def test_sigkill_leaves_a_readable_partial_capture(server, tmp_path):
     # leaves a WAV that reads up to about the last second
     folder = tmp_path / "run"
     with jackbench.Patchbay(server, "loopback"):
-        proc = jackbench.benchkit(server, "tone", "--device", "system", "--ref-channel", "2", "--out", str(folder),
+        proc = jackbench.benchkit(server, "tone", "--device", "system", "--ref-channel", "2", "--bench", str(folder),
                                   *sum((["--level", "-20dBFS"] for _ in range(6)), []))
         partial = _wait_until_running(proc, folder, seconds=3.0)
         start = time.monotonic()
@@ -176,18 +178,46 @@ def test_sigkill_leaves_a_readable_partial_capture(server, tmp_path):
     assert time.monotonic() - start < 10
 
 
+def test_a_killed_run_is_incomplete_and_reanalyse_completes_it(server, tmp_path):
+    # SIGKILL mid-capture: no handler runs. The catalog still opens, the run
+    # reads as incomplete (its lock died with it), its partial recording is
+    # there, and 'log reanalyse' aligns it and analyses the steps recorded whole
+    bench = tmp_path / "bench"
+    levels = [-30.0, -24.0, -18.0, -12.0, -12.0, -12.0]
+    with jackbench.Patchbay(server, "loopback"):
+        proc = jackbench.benchkit(server, "tone", "--device", "system", "--ref-channel", "2", "--bench", str(bench),
+                                  "--tag", "bias=1.2A", *sum((["--level", f"{x}dBFS"] for x in levels), []))
+        partial = _wait_until_running(proc, bench, seconds=3.5)
+        proc.kill()
+        proc.communicate(timeout=10)
+    listed = json.loads(run_cli("log", "list", "--bench", str(bench), "--json").stdout)["runs"]
+    assert [r["status"] for r in listed] == ["incomplete"] and listed[0]["tags"] == {"bias": "1.2A"}
+    assert partial.exists() and not (partial.parent / "capture.wav").exists()
+    res = run_cli("log", "reanalyse", listed[0]["id"], "--bench", str(bench), "--json")
+    assert res.returncode == 0, res.stderr
+    doc = json.loads(res.stdout)
+    # each step 1.3 s from 0.3 s after the marker: 3.5 s or more holds at least two whole steps
+    got = [s["drive_dbfs"] for s in doc["steps"]]
+    assert 2 <= len(got) < len(levels) and got == levels[: len(got)]
+    for s in doc["steps"]:  # a loopback: what was played comes back (the output's level in dBFS)
+        assert s["fundamental_dbfs"] == pytest.approx(s["drive_dbfs"], abs=0.01)
+    assert any("recovered" in w for w in doc["warnings"])
+    shown = json.loads(run_cli("log", "show", listed[0]["id"], "--bench", str(bench), "--json").stdout)
+    assert shown["status"] == "complete" and shown["reanalysed"]
+
+
 def test_the_drive_cap_holds_on_a_real_device(server, tmp_path):
     # the default cap is -12 dBFS; a hotter level is refused before anything plays
     rc, _out, err = _tone(server, tmp_path / "run", -6.0)
     assert rc != 0 and "cap" in err and "Traceback" not in err
-    assert not (tmp_path / "run" / "capture.partial.wav").exists()
+    assert not list((tmp_path / "run").glob("runs/*/capture.partial.wav"))
 
 
 def test_a_missing_profile_is_refused_before_anything_plays(server, tmp_path):
     # watts need volts at the stage: a real interface needs its calibration
     rc, _out, err = _tone(server, tmp_path / "run", -30.0, extra=("--load", "8"))
     assert rc != 0 and "--calibration" in err and "Traceback" not in err
-    assert not (tmp_path / "run").exists()
+    assert not run_folders(tmp_path / "run")
 
 
 def test_the_run_stops_stepping_up_when_the_input_clips(server, tmp_path):
@@ -226,7 +256,7 @@ def test_sweep_through_jack_separates_the_poly_harmonics(server, tmp_path):
     amp = 10 ** (level / 20)
     with jackbench.Patchbay(server, "poly", a2=a2, a3=a3):
         proc = jackbench.benchkit(server, "sweep", "--device", "system", "--ref-channel", "2", "--span", "20:22000",
-                                  "--length", "3", "--level", f"{level}dBFS", "--out", str(tmp_path / "run"), "--json")
+                                  "--length", "3", "--level", f"{level}dBFS", "--bench", str(tmp_path / "run"), "--json")
         out, err = proc.communicate(timeout=60)
     assert proc.returncode == 0, err
     d = json.loads(out)
@@ -247,7 +277,7 @@ def test_sweep_through_jack_separates_the_poly_harmonics(server, tmp_path):
 def _power(server, out, *extra):
     return jackbench.benchkit(server, "power", "--device", "system", "--ref-channel", "2", "--load", "8",
                               "--volts-per-fs", "1", "--metric", "thd", "--limit", "1", "--limit", "3",
-                              "--start", "-40", "--step-db", "2", "--out", str(out), *extra)
+                              "--start", "-40", "--step-db", "2", "--bench", str(out), *extra)
 
 
 def test_power_run_through_jack_finds_the_identity_level(server, tmp_path):
@@ -276,6 +306,7 @@ def test_an_interrupted_power_run_reports_its_completed_steps(server, tmp_path):
         _, err = proc.communicate(timeout=30)
     assert proc.returncode == 130, err
     assert "Traceback" not in err
+    folder = the_run(folder)
     d = json.loads((folder / "capture.power.json").read_text())
     assert len(d["steps"]) >= 3 and d["interrupted"]
     assert any("interrupted" in w for w in d["warnings"])
@@ -329,5 +360,6 @@ def test_losing_the_server_mid_power_run_reports_the_completed_steps(server, tmp
             doomed.stop()  # the server goes away under the running stream
             _, err = proc.communicate(timeout=30)
     assert proc.returncode == 1 and "Traceback" not in err
+    folder = the_run(folder)
     d = json.loads((folder / "capture.power.json").read_text())
     assert d["device_lost"] and len(d["steps"]) >= 3

@@ -39,6 +39,12 @@ def test_layers_do_not_reach_up(folder, forbidden):
         assert not bad, f"{path.name} imports {bad}"
 
 
+def test_the_logbook_is_storage_only():
+    # the catalog and the run folders: no capture, no reports, no CLI
+    bad = {m for m in _imports(PKG / "logbook.py") if m.startswith(("benchkit.capture", "benchkit.report", "benchkit.cli"))}
+    assert not bad
+
+
 def test_sounddevice_only_lazily():
     for path in PKG.rglob("*.py"):
         if path.name != "portaudio.py":
@@ -55,9 +61,11 @@ def test_pyvisa_is_an_optional_extra():
     assert not any(isinstance(n, ast.Import) and any(a.name.startswith("pyvisa") for a in n.names) for n in top.body)
 
 
-@pytest.mark.parametrize("command", ["analyze", "tone", "sweep", "power", "budget", "demo", "models"])
+@pytest.mark.parametrize("command", ["analyze", "tone", "sweep", "power", "budget", "drift", "calibrate", "pad",
+                                     "demo", "models", "compare", "log list", "log show", "log note", "log tag",
+                                     "log export", "log rebuild", "log reanalyse", "log remove"])
 def test_every_command_has_help_with_an_example(command):
-    res = run_cli(command, "--help")
+    res = run_cli(*command.split(), "--help")
     assert res.returncode == 0 and "Example: benchkit" in res.stdout
 
 

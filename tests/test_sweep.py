@@ -12,6 +12,7 @@ f = 1 / (2 pi R C) (circuit theory; 2200 uF into 8 ohm = 9.04 Hz).
 from __future__ import annotations
 
 import json
+from pathlib import Path
 import math
 from fractions import Fraction
 
@@ -25,7 +26,7 @@ from benchkit.analysis.sweep import SyncSweep, deconvolve, measure, separate, st
 from benchkit.analysis.tone import analyze_tone
 from benchkit.capture.virtual import virtual_bench
 from benchkit.responses import response_run
-from conftest import run_cli
+from conftest import run_cli, the_run
 
 RATE = 96000
 CORNER_HZ = 1 / (2 * math.pi * 8 * 2200e-6)  # 9.04 Hz
@@ -263,10 +264,11 @@ def test_truncated_sweep_is_a_clear_error(tmp_path):
 
 
 def test_sweep_command_writes_reports_and_reanalyses(tmp_path):
-    out = tmp_path / "run"
-    res = run_cli("sweep", "--span", "5:22000", "--length", "3", "--load", "8", "--smooth", "6", "--out", str(out), "--json")
+    res = run_cli("sweep", "--span", "5:22000", "--length", "3", "--load", "8", "--smooth", "6", "--bench", str(tmp_path), "--json")
     assert res.returncode == 0, res.stderr
     live = json.loads(res.stdout)
+    assert the_run(tmp_path) == Path(live["run"]["folder"])
+    out = the_run(tmp_path)
     for name in ("capture.wav", "capture.json", "capture.response.csv", "capture.response.png", "capture.distortion.png"):
         assert (out / name).exists(), name
     again = run_cli("analyze", str(out / "capture.wav"), "--load", "8", "--json")

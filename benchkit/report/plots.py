@@ -106,40 +106,6 @@ def residual_png(result: ToneResult, path: Path, title: str) -> Path:
     return _save(fig, path)
 
 
-def steps_png(runs: list[tuple[str, object]], path: Path, title: str) -> Path:
-    """THD+N against output power (log-log) for one or more stepped-tone
-    runs; against the fundamental's dBFS when a run has no power."""
-    fig = Figure(figsize=(9, 5.6))
-    ax = fig.add_subplot(1, 1, 1)
-    colours = (_TRACE, _MARK, "#4b8a3e", "#7a4b8a")
-    have_power = all(s.result.power_w is not None for _, run in runs for s in run.steps)
-    for i, (label, run) in enumerate(runs):
-        xs = [s.result.power_w if have_power else s.result.fundamental_dbfs for s in run.steps]
-        ys = [s.result.thdn_pct for s in run.steps]
-        ax.plot(xs, ys, "-o", ms=4, lw=1.2, color=colours[i % len(colours)], label=label)
-        for x, s in zip(xs, run.steps):
-            if not s.result.valid:
-                ax.plot([x], [s.result.thdn_pct], "x", ms=9, color="#b00020")
-    plain = FuncFormatter(lambda v, _pos: f"{v:g}")
-    if have_power:
-        ax.set_xscale("log")
-        ax.xaxis.set_major_formatter(plain)
-        ax.set_xlabel("output power (W)")
-    else:
-        ax.set_xlabel("fundamental (dBFS)")
-    ax.set_yscale("log")
-    ax.yaxis.set_major_formatter(plain)
-    ax.yaxis.set_minor_formatter(plain)
-    ax.set_ylabel("THD+N (%)")
-    ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
-    ax.legend(loc="upper left", fontsize=8, frameon=False)
-    ax.set_title(title, loc="left", fontsize=10)
-    first = runs[0][1].steps[0].result
-    fig.text(0.01, 0.01, conditions_line(first), fontsize=7.5, color="#333333", ha="left", va="bottom", wrap=True)
-    fig.subplots_adjust(left=0.1, right=0.97, top=0.92, bottom=0.16)
-    return _save(fig, path)
-
-
 def _log_hz_axis(ax) -> None:
     ax.set_xscale("log")
     ax.xaxis.set_major_formatter(FuncFormatter(_hz))

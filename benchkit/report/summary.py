@@ -94,16 +94,36 @@ def steps_summary(steps, title: str = "") -> str:
     return "\n".join(lines)
 
 
-def comparison_summary(deltas, labels: tuple[str, str]) -> str:
-    """Before/after, step by step: THD+N and its change (lower is better)."""
-    a, b = labels
-    lines = [f"  drive dBFS   THD+N {a:>10}   THD+N {b:>10}   change"]
-    for d in deltas:
-        better = "better" if d.thdn_change_db < -0.1 else "worse" if d.thdn_change_db > 0.1 else "same"
-        lines.append(
-            f"  {d.drive_dbfs:9.2f}   {d.before.thdn_db:13.2f} dB   {d.after.thdn_db:13.2f} dB   "
-            f"{d.thdn_change_db:+6.2f} dB ({better})"
-        )
+def _figure_value(v, unit: str) -> str:
+    if v is None:
+        return "-"
+    return f"{v:.2f} {unit}" if unit in ("dB", "dBc", "dBFS", "%") else f"{format_si(v, unit)}"
+
+
+def comparison_text(c) -> str:
+    """A comparison, figure by figure: each run's value, the change from
+    the first and whether it is better or worse; the headline first."""
+    lines = [f"!! {w}" for w in c.warnings]
+    width = max(len(lab) for lab in c.labels)
+    lines.append("runs: " + "; ".join(f"[{k}] {lab}" for k, lab in enumerate(c.labels)) + " (changes are from [0])")
+    ordered = list(c.headline()) + [d for d in c.deltas if not d.headline]
+    shown = ordered if len(ordered) <= 30 else list(c.headline()) + [d for d in ordered if d.better][:30]
+    name_w = max(len(f"{d.label} ({d.at})" if d.at and d.at not in d.label else d.label) for d in shown)
+    for d in shown:
+        name = f"{d.label} ({d.at})" if d.at and d.at not in d.label else d.label
+        cells = [f"{_figure_value(v, d.unit):>{max(12, width)}}" for v in d.values]
+        changes = []
+        for k, ch in enumerate(d.changes, start=1):
+            if ch is None:
+                changes.append("-")
+                continue
+            verdict = d.verdict(k)
+            unit = d.unit if d.unit in ("dB", "dBc", "dBFS", "%") else ""
+            text = f"{ch:+.2f} {unit}" if unit else ("+" if ch >= 0 else "-") + format_si(abs(ch), d.unit, 3)
+            changes.append(text + (f" {verdict}" if verdict else ""))
+        lines.append(f"  {name:<{name_w}}  " + "  ".join(cells) + "   " + "; ".join(changes))
+    if len(shown) < len(ordered):
+        lines.append(f"  ... {len(ordered) - len(shown)} more figures in the CSV")
     return "\n".join(lines)
 
 

@@ -35,8 +35,10 @@ def dumps(doc) -> str:
 
 
 def write_json(doc, path: Path) -> Path:
-    path.write_text(dumps(doc) + "\n", encoding="utf-8")
-    return path
+    """A result document, written whole and renamed into place."""
+    from benchkit.recordings import write_text_atomic
+
+    return write_text_atomic(path, dumps(doc) + "\n")
 
 
 def write_harmonics_csv(result: ToneResult, path: Path) -> Path:
@@ -107,21 +109,20 @@ def write_steps_csv(steps, path: Path) -> Path:
     return path
 
 
-def write_comparison_csv(deltas, labels: tuple[str, str], path: Path) -> Path:
-    """Two runs side by side, step by step, with the change in THD+N."""
-    a, b = labels
+def write_deltas_csv(c, path: Path) -> Path:
+    """A comparison, one row a figure: its value in each run, the change
+    from the first run and the verdict (better, worse, same)."""
+    labels = list(c.labels)
     with path.open("w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
-        w.writerow(["drive_dbfs", f"power_w_{a}", f"power_w_{b}", f"thdn_db_{a}", f"thdn_db_{b}",
-                    "thdn_change_db", f"h2_dbc_{a}", f"h2_dbc_{b}", "valid"])
-        for d in deltas:
-            h2a = {h.order: h.level_dbc for h in d.before.harmonics}.get(2, float("nan"))
-            h2b = {h.order: h.level_dbc for h in d.after.harmonics}.get(2, float("nan"))
-            pa = "" if d.before.power_w is None else f"{d.before.power_w:.5g}"
-            pb = "" if d.after.power_w is None else f"{d.after.power_w:.5g}"
-            w.writerow([f"{d.drive_dbfs:.2f}", pa, pb, f"{d.before.thdn_db:.3f}", f"{d.after.thdn_db:.3f}",
-                        f"{d.thdn_change_db:+.3f}", f"{h2a:.2f}", f"{h2b:.2f}",
-                        str(d.before.valid and d.after.valid).lower()])
+        w.writerow(["figure", "at", "unit", "better_when", *(f"value [{k}] {lab}" for k, lab in enumerate(labels)),
+                    *(f"change [{k}]-[0]" for k in range(1, len(labels))),
+                    *(f"verdict [{k}]" for k in range(1, len(labels)))])
+        for d in c.deltas:
+            w.writerow([d.name, d.at, d.unit, d.better or "",
+                        *("" if v is None else f"{v:.6g}" for v in d.values),
+                        *("" if ch is None else f"{ch:+.6g}" for ch in d.changes),
+                        *(d.verdict(k) or "" for k in range(1, len(labels)))])
     return path
 
 
@@ -178,3 +179,26 @@ def write_drift_csv(result, path: Path) -> Path:
             else:
                 w.writerow([f"{t:.3f}", f"{v:.9g}", "", ""])
     return path
+
+
+#: The headline figures the catalog export gives a column each (units in the names).
+CATALOG_FIGURES = ("thdn_db", "noise_vrms", "noise_dbfs", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
+                   "settled_v")
+
+
+def write_catalog_csv(entries, fh) -> None:
+    """The logbook as CSV, a row a run: what and when, its state, device,
+    calibration, stage, note, a column for each tag key ("tag KEY") and
+    for each headline figure."""
+    keys = sorted({k for e in entries for k in e.tags})
+    w = csv.writer(fh)
+    w.writerow(["id", "started", "finished", "command", "status", "valid", "device", "calibration_file",
+                "calibration_hash", "stage", "note", *(f"tag {k}" for k in keys), *CATALOG_FIGURES, "warnings"])
+    for e in entries:
+        figures = {f["name"]: f["value"] for f in e.figures}
+        w.writerow([e.id, e.started, e.finished or "", e.command, e.status, "" if e.valid is None else str(e.valid).lower(),
+                    e.device or "", e.calibration_file or "", e.calibration_hash or "",
+                    json.dumps(e.stage, ensure_ascii=False) if e.stage else "", e.note,
+                    *(e.tags.get(k, "") for k in keys),
+                    *("" if figures.get(n) is None else f"{figures[n]:.6g}" for n in CATALOG_FIGURES),
+                    " | ".join(e.warnings)])

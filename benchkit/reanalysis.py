@@ -1,0 +1,85 @@
+"""Analysing a logged run again from what its folder holds.
+
+The current analysis runs on the stored raw captures (or a drift run's
+log.csv) with the options the run was made with (its record's
+``params``), and writes the reports again. A tone or sweep run that was
+killed while it played is first recovered from its partial recording
+(:func:`benchkit.runs.recover_capture`).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from benchkit.errors import BenchkitError
+from benchkit.recordings import read_capture
+
+CAPTURE = "capture"
+
+
+def _band(params: dict):
+    band = params.get("bandwidth_hz", (20.0, 20000.0))
+    return None if band is None else tuple(band)
+
+
+def _capture(folder: Path, command: str, channel: int, say):
+    from benchkit.runs import recover_capture
+
+    path = folder / f"{CAPTURE}.wav"
+    if not path.exists():
+        if command == "power" and (folder / f"{CAPTURE}.partial.wav").exists():
+            raise BenchkitError(f"{folder}: the power run was cut off while it played; it chooses its levels as it "
+                                f"goes, so its steps cannot be recovered (the raw recording is kept: "
+                                f"{CAPTURE}.partial.wav)")
+        path = recover_capture(folder, CAPTURE)
+        say(f"recovered {path.name} from the partial recording")
+    return read_capture(path, channel)
+
+
+def reanalyse(folder: Path, record: dict, say=lambda _m: None) -> tuple[dict, list[Path]]:
+    """The result document and the report files of a run, made again from
+    its folder. The first file is the result JSON."""
+    from benchkit.report import files
+
+    command, p = record.get("command"), record.get("params") or {}
+    channel = int(p.get("channel") or 1)
+    if command == "tone":
+        from benchkit.runs import analyze_steps
+
+        steps = analyze_steps(_capture(folder, command, channel, say), _band(p), p.get("load_ohms"), traces=True)
+        return steps.to_dict(), files.steps_reports(steps, folder / f"{CAPTURE}.wav", channel, folder)
+    if command == "sweep":
+        from benchkit.analysis.response import REFERENCE_HZ
+        from benchkit.responses import analyze_response
+
+        result = analyze_response(_capture(folder, command, channel, say), p.get("ref_channel"),
+                                  reference_hz=p.get("ref_freq_hz") or REFERENCE_HZ, load_ohms=p.get("load_ohms"),
+                                  bandwidth_hz=_band(p))
+        return result.to_dict(), files.response_reports(result, folder / f"{CAPTURE}.wav", channel, folder,
+                                                        p.get("smooth"))
+    if command == "power":
+        from benchkit.budget import ClassABudget
+        from benchkit.power_runs import power_from_steps
+        from benchkit.runs import analyze_steps
+
+        rec = _capture(folder, command, channel, say)
+        load = float(p["load_ohms"])
+        budget = (ClassABudget(p["rail_v"], p["bias_a"], load, p.get("vsat_v") or 1.0)
+                  if p.get("rail_v") is not None and p.get("bias_a") is not None else None)
+        inverts = bool((rec.sidecar.get("calibration") or {}).get("polarity_inverts"))
+        result = power_from_steps(analyze_steps(rec, load_ohms=load), load, p.get("metric", "thdn"),
+                                  tuple(p.get("limits_pct") or (1.0, 0.1, 10.0)), p.get("onset_db", 6.0),
+                                  p.get("supply_v"), p.get("supply_a"), budget, polarity_inverts=inverts)
+        return result.to_dict(), files.power_reports(result, folder / f"{CAPTURE}.wav", channel, folder)
+    if command == "drift":
+        from benchkit.drift_runs import analyze_drift_csv
+
+        log = folder / "log.csv"
+        if not log.exists():
+            raise BenchkitError(f"{folder}: the drift run has no log.csv: it stopped before its first reading")
+        result = analyze_drift_csv(log, limit_v=p.get("limit_v"), band_v=p.get("band_v") or 1e-3,
+                                   window_s=p.get("window_s") or 60.0, nominal_v=p.get("nominal_v") or 0.0,
+                                   info={"source": record.get("device"), "ended": "reanalysed",
+                                         "accelerated": p.get("accelerated")})
+        return result.to_dict(), files.drift_reports(result, log, folder)
+    raise BenchkitError(f"runs of command {command!r} cannot be analysed again")

@@ -1,0 +1,81 @@
+"""Report files of each kind of result, written into a folder: JSON,
+CSV and PNG under the capture's stem (docs/file-formats.md)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from benchkit.errors import BenchkitError
+from benchkit.report import overlays, plots, tables
+from benchkit.report.summary import conditions_line
+
+
+def report_folder(out: Path) -> Path:
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise BenchkitError(f"cannot create report folder {out}: {exc.strerror}") from exc
+    return out
+
+
+def tone_reports(result, doc, path: Path, channel: int, out: Path) -> list[Path]:
+    report_folder(out)
+    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    title = f"{path.name}, channel {channel}"
+    return [
+        tables.write_json(doc, out / f"{stem}.result.json"),
+        tables.write_harmonics_csv(result, out / f"{stem}.harmonics.csv"),
+        tables.write_spectrum_csv(result, out / f"{stem}.spectrum.csv"),
+        plots.spectrum_png(result, out / f"{stem}.spectrum.png", title),
+        plots.residual_png(result, out / f"{stem}.residual.png", title),
+    ]
+
+
+def power_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
+    report_folder(out)
+    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    return [
+        tables.write_json(result.to_dict(), out / f"{stem}.power.json"),
+        tables.write_power_csv(result, out / f"{stem}.power.csv"),
+        plots.power_png(result, out / f"{stem}.power.png", path.name),
+    ]
+
+
+def steps_reports(steps, path: Path, channel: int, out: Path) -> list[Path]:
+    report_folder(out)
+    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    written = [
+        tables.write_json(steps.to_dict(), out / f"{stem}.result.json"),
+        tables.write_steps_csv(steps, out / f"{stem}.steps.csv"),
+        overlays.distortion_png([steps.to_dict()], [path.name], out / f"{stem}.thdn.png", f"{path.name}: THD+N",
+                                caption=conditions_line(steps.steps[0].result)),
+    ]
+    for s in steps.steps:
+        tag = f"{stem}-drive{s.drive_dbfs:+.0f}dBFS"
+        title = f"{path.name}, drive {s.drive_dbfs:g} dBFS"
+        written += [
+            plots.spectrum_png(s.result, out / f"{tag}.spectrum.png", title),
+            plots.residual_png(s.result, out / f"{tag}.residual.png", title),
+            tables.write_harmonics_csv(s.result, out / f"{tag}.harmonics.csv"),
+        ]
+    return written
+
+
+def response_reports(result, path: Path, channel: int, out: Path, smooth: int | None = None) -> list[Path]:
+    report_folder(out)
+    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    return [
+        tables.write_json(result.to_dict(), out / f"{stem}.response.json"),
+        tables.write_response_csv(result, out / f"{stem}.response.csv"),
+        plots.response_png(result, out / f"{stem}.response.png", path.name, smooth),
+        plots.distortion_png(result, out / f"{stem}.distortion.png", path.name),
+    ]
+
+
+def drift_reports(result, log: Path, out: Path) -> list[Path]:
+    report_folder(out)
+    return [
+        tables.write_json(result.to_dict(), out / f"{log.stem}.drift.json"),
+        tables.write_drift_csv(result, out / f"{log.stem}.drift.csv"),
+        plots.drift_png(result, out / f"{log.stem}.drift.png", log.name),
+    ]
