@@ -22,6 +22,7 @@ from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB
 from benchkit.analysis.tone import SCHEMA_VERSION, analyze_tone
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
+from benchkit.logbook import CATALOG
 from benchkit.recordings import read_capture
 
 app = typer.Typer(
@@ -451,7 +452,7 @@ def _logbook(bench: dict):
     from benchkit import logbook
 
     tags = logbook.parse_tags(bench["tags"])
-    fields = logbook.parse_tags(bench["stage_info"])
+    fields = logbook.parse_tags(bench["stage_info"], "--stage-info is key=value, e.g. rail=24V")
     with logbook.Logbook(logbook.resolve_bench(bench["bench"])) as book:
         stage = book.settings().get("stage") or {}
         if bench["stage"] is not None:
@@ -471,7 +472,7 @@ def _start_run(book, labels: dict, command: str, backend, profile, calibration: 
     else:
         device, params = backend.name, {**params, "sample_rate_hz": backend.sample_rate_hz}
     run = book.start(command, device=device, calibration=cal, params=params, **labels)
-    _err(f"run {run.id} (logbook {book.root / 'logbook.sqlite'})")
+    _err(f"run {run.id} (logbook {book.root / CATALOG})")
     return run
 
 

@@ -78,14 +78,14 @@ def slug(text: str, limit: int = 48) -> str:
     return s[:limit].rstrip("-._") or "run"
 
 
-def parse_tags(items: list[str]) -> dict[str, str]:
+def parse_tags(items: list[str], what: str = "a tag is key=value, e.g. bias=1.2A") -> dict[str, str]:
     """``key=value`` strings to a dict; a repeated key keeps the last value."""
     tags = {}
     for item in items:
         key, sep, value = item.partition("=")
         key, value = key.strip(), value.strip()
         if not sep or not key:
-            raise BenchkitError(f"a tag is key=value, e.g. bias=1.2A; got {item!r}")
+            raise BenchkitError(f"{what}; got {item!r}")
         tags[key] = value
     return tags
 

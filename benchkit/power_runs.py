@@ -163,7 +163,7 @@ class AdaptiveSteps:
     def __init__(self, planner: LevelPlanner, frequency_hz: float, rate: float, metric: str = "thdn",
                  in_channel: int = 1, ref_channel: int | None = None, out_channel: int = 1, n_out: int = 2,
                  lead_s: float = 0.05, step_s: float = 0.5, settle_s: float = 0.2, gap_s: float = 0.05,
-                 input_margin_db: float = 3.0, max_s: float = 300.0, supply_meter=None):
+                 input_margin_db: float = 3.0, max_s: float = 300.0, supply_meter=None, on_schedule=None):
         from benchkit import signals
 
         self._signals = signals
@@ -193,6 +193,9 @@ class AdaptiveSteps:
         self.description = {"kind": "stepped-tones", "purpose": "power", "frequency_hz": self.frequency_hz,
                             "levels_dbfs": [], "step_s": step_s, "settle_s": settle_s, "out_channel": out_channel,
                             "adaptive": True}
+        #: called with this stimulus after each step is scheduled (power_run
+        #: keeps the planned sidecar on disk up to date with it)
+        self.on_schedule = on_schedule
         self._schedule(planner.first())
 
     # --- what a backend plays ----------------------------------------------
@@ -320,6 +323,8 @@ class AdaptiveSteps:
                                            self.frequency_hz, float(level), self.out_col + 1))
             self.description["levels_dbfs"].append(float(level))
             self._queue += [x, np.zeros(int(self.gap_s * rate))]
+        if self.on_schedule is not None:
+            self.on_schedule(self)
 
 
 #: Rated-power conditions in the manner of 16 CFR Part 432 (432.2, 432.3):
@@ -408,14 +413,23 @@ def power_run(
     its completed steps, with ``info["interrupted"]`` set. A
     ``supply_meter`` (reading amps) is read half way through every step."""
     from benchkit import capture
-    from benchkit.runs import analyze_steps, apply_calibration, capture_sidecar
+    from benchkit.runs import analyze_steps, apply_calibration, capture_sidecar, planned_sidecar, write_planned
     from benchkit.recordings import write_capture
+
+    def journal(stim):
+        # the steps so far, on disk before they play: a run killed outright
+        # can be recovered from its partial recording (runs.recover_capture)
+        plan = planned_sidecar(stim, channel, backend, note)
+        if calibration is not None:
+            apply_calibration(plan, calibration, calibration_file, channel)
+        write_planned(folder, name, plan)
 
     planner = LevelPlanner(start_dbfs, max_dbfs, limits_pct, step_db, fine_db)
     stim = AdaptiveSteps(planner, frequency_hz, backend.sample_rate_hz, metric, in_channel=channel,
                          ref_channel=ref_channel or backend.reference_input(), out_channel=getattr(backend, "drive_output", 1),
                          n_out=backend.n_outputs, lead_s=getattr(backend, "lead_s", 0.05), step_s=step_s,
-                         settle_s=settle_s, input_margin_db=input_margin_db, supply_meter=supply_meter)
+                         settle_s=settle_s, input_margin_db=input_margin_db, supply_meter=supply_meter,
+                         on_schedule=journal)
     partial = folder / f"{name}.partial.wav"
     interrupted = None
     try:
@@ -445,6 +459,7 @@ def power_run(
     side["warnings"] = notes
     path = write_capture(folder / f"{name}.wav", cap.samples, cap.sample_rate_hz, side)
     partial.unlink(missing_ok=True)
+    (folder / f"{name}.partial.json").unlink(missing_ok=True)
     if len(done) < 2:
         raise BenchkitError(f"the run ended after {len(done)} step(s) ({stim.stop_reason or interrupted}): "
                             f"nothing to report (capture kept: {path})")

@@ -2,8 +2,8 @@
 
 The current analysis runs on the stored raw captures (or a drift run's
 log.csv) with the options the run was made with (its record's
-``params``), and writes the reports again. A tone or sweep run that was
-killed while it played is first recovered from its partial recording
+``params``), and writes the reports again. A tone, sweep or power run
+that was killed while it played is first recovered from its partial recording
 (:func:`benchkit.runs.recover_capture`).
 """
 
@@ -22,15 +22,11 @@ def _band(params: dict):
     return None if band is None else tuple(band)
 
 
-def _capture(folder: Path, command: str, channel: int, say):
+def _capture(folder: Path, channel: int, say):
     from benchkit.runs import recover_capture
 
     path = folder / f"{CAPTURE}.wav"
     if not path.exists():
-        if command == "power" and (folder / f"{CAPTURE}.partial.wav").exists():
-            raise BenchkitError(f"{folder}: the power run was cut off while it played; it chooses its levels as it "
-                                f"goes, so its steps cannot be recovered (the raw recording is kept: "
-                                f"{CAPTURE}.partial.wav)")
         path = recover_capture(folder, CAPTURE)
         say(f"recovered {path.name} from the partial recording")
     return read_capture(path, channel)
@@ -46,13 +42,13 @@ def reanalyse(folder: Path, record: dict, say=lambda _m: None) -> tuple[dict, li
     if command == "tone":
         from benchkit.runs import analyze_steps
 
-        steps = analyze_steps(_capture(folder, command, channel, say), _band(p), p.get("load_ohms"), traces=True)
+        steps = analyze_steps(_capture(folder, channel, say), _band(p), p.get("load_ohms"), traces=True)
         return steps.to_dict(), files.steps_reports(steps, folder / f"{CAPTURE}.wav", channel, folder)
     if command == "sweep":
         from benchkit.analysis.response import REFERENCE_HZ
         from benchkit.responses import analyze_response
 
-        result = analyze_response(_capture(folder, command, channel, say), p.get("ref_channel"),
+        result = analyze_response(_capture(folder, channel, say), p.get("ref_channel"),
                                   reference_hz=p.get("ref_freq_hz") or REFERENCE_HZ, load_ohms=p.get("load_ohms"),
                                   bandwidth_hz=_band(p))
         return result.to_dict(), files.response_reports(result, folder / f"{CAPTURE}.wav", channel, folder,
@@ -62,7 +58,7 @@ def reanalyse(folder: Path, record: dict, say=lambda _m: None) -> tuple[dict, li
         from benchkit.power_runs import power_from_steps
         from benchkit.runs import analyze_steps
 
-        rec = _capture(folder, command, channel, say)
+        rec = _capture(folder, channel, say)
         load = float(p["load_ohms"])
         budget = (ClassABudget(p["rail_v"], p["bias_a"], load, p.get("vsat_v") or 1.0)
                   if p.get("rail_v") is not None and p.get("bias_a") is not None else None)

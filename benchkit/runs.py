@@ -214,7 +214,8 @@ def recover_capture(folder: Path, stem: str = "capture") -> Path:
     aligned = raw[latency : latency + n]
     kept = [seg for seg in segments if int(seg["end"]) <= aligned.shape[0]]
     if not kept:
-        raise BenchkitError(f"{partial}: the run was killed during its first step: nothing to analyse")
+        raise BenchkitError(f"{partial}: the run was cut off before its first step (or its sweep) was recorded "
+                            "whole: nothing to analyse")
     side["stimulus"]["segments"] = kept
     side["latency_samples"] = int(latency)
     side["events"] = ["recovered"]

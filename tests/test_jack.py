@@ -313,6 +313,26 @@ def test_an_interrupted_power_run_reports_its_completed_steps(server, tmp_path):
     assert (folder / "capture.wav").exists() and (folder / "capture.power.png").exists()
 
 
+def test_a_killed_power_run_is_recovered_from_its_journal(server, tmp_path):
+    # the levels of a power run are chosen as it plays: each is written to
+    # the planned sidecar before it plays, so a SIGKILL loses none of them
+    bench = tmp_path / "bench"
+    with jackbench.Patchbay(server, "poly", a2=0.5):
+        proc = _power(server, bench, "--step-db", "0.5")
+        partial = _wait_until_running(proc, bench, seconds=4.0)
+        proc.kill()
+        proc.communicate(timeout=10)
+    planned = json.loads((partial.parent / "capture.partial.json").read_text())
+    played = [s["level_dbfs"] for s in planned["stimulus"]["segments"]]
+    res = run_cli("log", "reanalyse", "last", "--bench", str(bench), "--json")
+    assert res.returncode == 0, res.stderr
+    d = json.loads(res.stdout)
+    assert d["kind"] == "power" and len(d["steps"]) >= 3
+    # the steps recovered are the ones planned, recorded whole, in rising drive
+    got = [s["drive_dbfs"] for s in d["steps"]]
+    assert got == sorted(played[: len(got)])
+
+
 def test_preconditioning_holds_a_tone_then_rates(server, tmp_path):
     # 16 CFR 432 manner: 1/8 of the rated power first (shortened to 2 s
     # here, on purpose), then the run; the report says what was done

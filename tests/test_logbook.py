@@ -292,3 +292,27 @@ def test_deltas_and_verdicts_follow_the_direction_of_each_figure():
     assert d["noise_dbfs@-20dBFS"].verdict(1) == "same" and d["level_vrms@-20dBFS"].verdict(1) is None
     drift = [{"kind": "drift", "nominal_v": 12.0, "fit": {"final_v": v}} for v in (12.3, 11.9)]
     assert {x.name: x for x in compare(drift, ["a", "b"]).deltas}["settled_v"].verdict(1) == "better"
+
+
+def test_sweeps_compare_and_the_corner_moves_as_the_capacitor_says(tmp_path):
+    # circuit theory: a coupling capacitor C into R puts the first-order
+    # corner at 1 / (2 pi R C); 1000 uF -> 2200 uF into 8 ohm moves it 2.2x lower
+    bench = tmp_path / "bench"
+    for c_uf in (1000, 2200):
+        _json(run_cli("sweep", "--span", "2:22000", "--length", "3", "--load", "8", "--sim-param", f"coupling_uf={c_uf}",
+                      "--tag", f"C={c_uf}uF", "--bench", str(bench), "--json"))
+    comp = _json(run_cli("compare", "--last", "2", "--bench", str(bench), "--json"))
+    low = {d["name"]: d for d in comp["deltas"]}["low_3db_hz"]
+    assert low["values"][0] / low["values"][1] == pytest.approx(2.2, rel=0.03)
+    assert low["verdicts"] == ["better"]  # a lower low corner reaches deeper
+    assert (Path(comp["folder"]) / "overlay.png").exists()
+
+
+def test_drift_logs_compare_on_their_settled_value(tmp_path):
+    bench = tmp_path / "bench"
+    for bias in ("0.8", "1.2"):
+        _json(_drift(bench, "--sim-param", f"bias={bias}", "--nominal", "12", "--tag", f"bias={bias}A"))
+    comp = _json(run_cli("compare", "last-1", "last", "--bench", str(bench), "--json"))
+    settled = {d["name"]: d for d in comp["deltas"]}["settled_v"]
+    assert comp["of"] == "drift" and settled["better"] == "nearer" and len(settled["values"]) == 2
+    assert (Path(comp["folder"]) / "overlay.png").read_bytes()[:4] == b"\x89PNG"
