@@ -547,6 +547,267 @@ def tone(
 @app.command()
 @_live_options
 @_bench_options
+def watch(
+    frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz."),
+    level: str = typer.Option("-20 dBFS", "--level", help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms."),
+    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: adds power in W."),
+    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
+    duration: Optional[float] = typer.Option(None, "--duration", help="Stop after this many seconds (default: until q or Ctrl-C)."),
+    plain: bool = typer.Option(False, "--plain", help="One plain line a reading on stdout (also when stdout is not a terminal)."),
+    json_lines: bool = typer.Option(False, "--json-lines", help="One JSON object a reading on stdout."),
+    record: bool = typer.Option(False, "--record", help="Keep the readings as a run in the bench's logbook (readings.csv)."),
+    record_audio: bool = typer.Option(False, "--record-audio", help="With --record: keep the raw audio too (audio.wav)."),
+    dc_source: Optional[str] = typer.Option(None, "--dc-source", help="Also show DC: meter (SCPI, --dc-resource), input (the measuring input, DC coupled per --calibration) or virtual (the se-class-a midpoint)."),
+    dc_resource: Optional[str] = typer.Option(None, "--dc-resource", help="The DC meter's VISA resource."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices)."),
+    live: dict = None,
+    filing: dict = None,
+) -> None:
+    """Play a steady tone and show its figures live while you adjust the stage.
+
+    Five times a second: level (V and W with a scale and --load), THD+N,
+    THD, H2, H3, noise and, with --dc-source, DC; each with its minimum,
+    maximum and trend since the start. Keys: h holds the display, r resets
+    min/max, q stops. Marks a clipped input or a lost tone.
+
+    Example: benchkit watch --level -20dBFS --load 8 --sim-param bias=1.2 --record --tag trim=R7
+
+    Safety: the tone ramps in from silence and fades out on q, Ctrl-C or
+    any error; the drive cap holds; the watch stops if the input clips.
+    Adjust a live stage with insulated tools, one hand, and mind hot parts
+    and the supply's stored charge.
+    """
+    from benchkit import runs
+    from benchkit.signals import check_level
+    from benchkit.watch import SteadyTone
+
+    code = 0
+    with _live_run(), (_logbook(filing) if record else contextlib.nullcontext((None, None))) as (book, labels):
+        if record_audio and not record:
+            raise BenchkitError("--record-audio goes with --record")
+        band = units.parse_band(bandwidth)
+        backend, profile = _live_setup(live, ref_channel)
+        in_channel, calibration = live["in_channel"], live["calibration"]
+        drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
+        check_level(drive)
+        if backend.name != "virtual" and drive > backend.drive_cap_dbfs + 1e-9:
+            raise BenchkitError(f"--level {drive:.1f} dBFS is above the drive cap of {backend.drive_cap_dbfs:g} dBFS; "
+                                "lower it, or raise the cap knowingly (--drive-cap)")
+        plan = runs.plan_run(backend, profile, [drive], frequency, in_channel, live["gain"], live["margin"],
+                             live["rail"], live["pad_rating"], load, live["btl"], say=_err)
+        for w in plan.warnings:
+            _err(f"warning: {w}")
+        scale = profile.stage_volts_per_fs if profile is not None else backend.inputs()[in_channel - 1].volts_per_fs
+        dc, dc_scale, meter = _watch_dc(dc_source, dc_resource, backend, profile)
+        tone = SteadyTone(frequency, drive, backend.sample_rate_hz, None, in_channel, getattr(backend, "drive_output", 1),
+                          backend.n_outputs, scale, load, band, dc=dc, dc_scale=dc_scale)
+        params = dict(channel=in_channel, frequency_hz=frequency, level_dbfs=drive, load_ohms=load, bandwidth_hz=band)
+        run = _start_run(book, labels, "watch", backend, profile, calibration, params) if record else None
+        try:
+            with run if run is not None else contextlib.nullcontext():
+                code = _watch_loop(backend, tone, run, record_audio, duration, plain, json_lines)
+        finally:
+            if meter is not None:
+                meter.close()
+    if code:
+        raise typer.Exit(code)
+
+
+def _watch_dc(source, resource, backend, profile):
+    """The DC a watch shows: a meter read in its own thread (the latest
+    value), the measuring input's own DC, or the virtual stage's midpoint."""
+    import threading
+    import time
+
+    from benchkit import meters
+
+    if source is None:
+        return None, None, None
+    if source == "input":
+        if profile is None or not profile.dc_coupled or not profile.dc_volts_per_fs:
+            raise BenchkitError("--dc-source input needs a --calibration that says the input is DC coupled")
+        return None, profile.dc_volts_per_fs, None
+    if source == "virtual":
+        if backend.name != "virtual":
+            raise BenchkitError("--dc-source virtual reads the virtual stage: use it with --device virtual")
+        meter = meters.VirtualMidpoint(backend.stage, accelerated=1.0)  # the stage warms in real time
+    elif source == "meter":
+        if not resource:
+            raise BenchkitError("--dc-source meter needs --dc-resource (the meter's VISA address)")
+        meter = meters.ScpiMeter(resource)
+    else:
+        raise BenchkitError(f"--dc-source is meter, input or virtual, got {source!r}")
+    latest = {"v": None}
+    stop = threading.Event()
+
+    def poll():
+        last = time.monotonic()
+        while not stop.is_set():
+            try:
+                latest["v"] = meter.read()
+            except BenchkitError:
+                latest["v"] = None
+                return
+            stop.wait(0.25)
+            if hasattr(meter, "advance"):  # a model's clock follows the wall's
+                now = time.monotonic()
+                meter.advance(now - last)
+                last = now
+
+    threading.Thread(target=poll, name="benchkit-dc", daemon=True).start()
+
+    class _Closing:
+        def close(self):
+            stop.set()
+            meter.close()
+
+    return (lambda: latest["v"]), None, _Closing()
+
+
+def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, json_lines: bool) -> int:
+    """Show the readings until q, Ctrl-C, --duration or the stream's end;
+    the tone fades out on every path. Returns the exit code."""
+    import time
+
+    from benchkit.report import live as show
+    from benchkit.report.tables import dumps_line
+    from benchkit.watch import ReadingsLog, Tracker, Watch, summarise
+
+    mode = "json" if json_lines else "plain" if plain or not sys.stdout.isatty() else "live"
+    log = ReadingsLog(run.folder / "readings.csv") if run is not None else None
+    partial = run.folder / "audio.partial.wav" if run is not None and record_audio else None
+    tracker = Tracker()
+    watch = Watch(backend, tone, partial).start()
+    keys = _Keys() if mode == "live" and sys.stdin.isatty() else None
+    display = None
+    if mode == "live":
+        from rich.console import Console
+        from rich.live import Live
+
+        display = Live(show.table(tracker, "benchkit watch"), console=Console(), refresh_per_second=8, transient=False)
+        display.start()
+    started, ended_by, code = time.monotonic(), None, 0
+    title = f"{tone.frequency_hz:g} Hz at {tone.level_dbfs:g} dBFS on {backend.name}"
+    try:
+        for reading in watch.readings():
+            try:
+                if reading is not None:
+                    tracker.add(reading)
+                    if log is not None:
+                        log.add(reading)
+                    if mode == "json":
+                        print(dumps_line(reading.to_dict()), flush=True)
+                    elif mode == "plain":
+                        print(show.plain_line(reading), flush=True)
+                key = keys.read() if keys is not None else None
+                if key == "h":
+                    tracker.toggle_hold()
+                elif key == "r":
+                    tracker.reset()
+                elif key == "q" and ended_by is None:
+                    ended_by = "stopped (q)"
+                    watch.stop(ended_by)
+                if display is not None:
+                    display.update(show.table(tracker, title))
+                if duration is not None and ended_by is None and time.monotonic() - started >= duration:
+                    ended_by = "the duration ran out"
+                    watch.stop(ended_by)
+            except KeyboardInterrupt:
+                if ended_by is None:
+                    ended_by, code = "interrupted (Ctrl-C)", 130
+                    watch.stop(ended_by)
+            except BrokenPipeError:  # whoever read stdout has gone (| head)
+                if ended_by is None:
+                    ended_by = "stdout was closed"
+                    watch.stop(ended_by)
+                mode = "quiet"
+    except KeyboardInterrupt:
+        ended_by, code = "interrupted (Ctrl-C)", 130
+        watch.stop(ended_by)
+    finally:
+        watch.stop(ended_by or "ended")
+        watch.join()
+        if display is not None:
+            display.stop()
+        if keys is not None:
+            keys.close()
+        if log is not None:
+            log.close()
+    if watch.error is not None:
+        raise watch.error
+    stopped = tone.stop_reason if ended_by is None else ended_by
+    clipped = "clipped" in (tone.stop_reason or "") or (watch.raw is not None and watch.raw.stopped_at is not None)
+    if clipped:
+        _err("benchkit: stopped: the input clipped (the tone faded out): lower the level or use a larger pad")
+        code = EXIT_BAD_INPUT
+    _err(f"watch ended: {stopped}; {tracker.count} readings; the output faded to silence")
+    for line in _watch_summary(tracker):
+        _err(line)
+    if run is not None:
+        written = [log.path]
+        if partial is not None and partial.exists():
+            from benchkit.recordings import write_capture_sidecar
+
+            audio = partial.with_name("audio.wav")  # its sidecar: audio.json
+            partial.rename(audio)
+            write_capture_sidecar(audio, {"sample_rate_hz": backend.sample_rate_hz, "device": backend.name,
+                                          "stimulus": tone.description, "channels": [c.to_dict() for c in backend.inputs()],
+                                          "note": "raw, unaligned recording of a watch"})
+            written.append(audio)
+        doc = summarise(log.path, {"frequency_hz": tone.frequency_hz, "level_dbfs": tone.level_dbfs,
+                                   "ended": stopped, "device": backend.name})
+        from benchkit.report import tables
+
+        written.insert(0, tables.write_json(doc, run.folder / "watch.json"))
+        run.complete(doc, written, written[0])
+        _err(f"run {run.id}: {run.folder}")
+    return code
+
+
+def _watch_summary(tracker) -> list[str]:
+    from benchkit.report.live import value_text
+    from benchkit.watch import FIGURES
+
+    return [f"  {label:<6} {unit:<5} min {value_text(tracker.min[key], unit).strip():>14}   "
+            f"max {value_text(tracker.max[key], unit).strip():>14}"
+            for key, label, unit in FIGURES if key in tracker.min]
+
+
+class _Keys:
+    """Single key presses from a terminal without Enter (cbreak mode),
+    restored on close; nothing on a system without termios."""
+
+    def __init__(self):
+        self._old = None
+        try:
+            import termios
+            import tty
+
+            self._fd = sys.stdin.fileno()
+            self._old = termios.tcgetattr(self._fd)
+            tty.setcbreak(self._fd)
+        except Exception:  # noqa: BLE001 - not a terminal we can put in cbreak mode
+            self._old = None
+
+    def read(self) -> str | None:
+        if self._old is None:
+            return None
+        import select
+
+        ready, _, _ = select.select([sys.stdin], [], [], 0)
+        return sys.stdin.read(1).lower() if ready else None
+
+    def close(self) -> None:
+        if self._old is not None:
+            import termios
+
+            termios.tcsetattr(self._fd, termios.TCSADRAIN, self._old)
+            self._old = None
+
+
+@app.command()
+@_live_options
+@_bench_options
 def sweep(
     span: str = typer.Option("10:22000", "--span", help="Frequencies F1:F2 in Hz (the response is reported past the fades)."),
     length: float = typer.Option(5.0, "--length", help="Sweep length, seconds (rounded so its harmonics line up)."),

@@ -78,4 +78,17 @@ def reanalyse(folder: Path, record: dict, say=lambda _m: None) -> tuple[dict, li
                                    info={"source": record.get("device"), "ended": "reanalysed",
                                          "accelerated": p.get("accelerated")})
         return result.to_dict(), files.drift_reports(result, log, folder)
+    if command == "noise":
+        from benchkit.noise_runs import analyze_noise_capture
+
+        result = analyze_noise_capture(_capture(folder, channel, say), _band(p), None, p.get("reference_vrms"),
+                                       p.get("reference"), traces=True)
+        return result.to_dict(), files.noise_reports(result, folder / f"{CAPTURE}.wav", channel, folder)
+    if command == "watch":
+        from benchkit.report.tables import write_json
+        from benchkit.watch import summarise
+
+        doc = summarise(folder / "readings.csv", {"frequency_hz": p.get("frequency_hz"), "level_dbfs": p.get("level_dbfs"),
+                                                  "ended": "reanalysed", "device": record.get("device")})
+        return doc, [write_json(doc, folder / "watch.json"), folder / "readings.csv"]
     raise BenchkitError(f"runs of command {command!r} cannot be analysed again")

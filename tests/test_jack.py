@@ -206,6 +206,31 @@ def test_a_killed_run_is_incomplete_and_reanalyse_completes_it(server, tmp_path)
     assert shown["status"] == "complete" and shown["reanalysed"]
 
 
+def test_watch_through_jack_reads_the_poly_h2_and_fades_out(server, tmp_path):
+    # y = x + a2 x^2 in FS with x = A cos: H2/H1 = a2 A / 2 (identities);
+    # Ctrl-C fades the tone out and keeps a valid run
+    bench = tmp_path / "bench"
+    level, a2 = -20.0, 0.2
+    with jackbench.Patchbay(server, "poly", a2=a2):
+        proc = jackbench.benchkit(server, "watch", "--device", "system", "--ref-channel", "2", "--level",
+                                  f"{level}dBFS", "--json-lines", "--record", "--record-audio", "--bench", str(bench))
+        docs = [json.loads(proc.stdout.readline()) for _ in range(6)]
+        proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=30)
+    assert proc.returncode == 130, err
+    want = 20 * math.log10(a2 * 10 ** (level / 20) / 2)
+    assert all(d["h2_dbc"] == pytest.approx(want, abs=0.5) for d in docs[1:])
+    gaps = np.diff([d["t_s"] for d in docs])
+    assert np.all(gaps > 0.1) and np.all(gaps < 0.45)  # several a second
+    run = the_run(bench)
+    assert json.loads((run / "run.json").read_text())["status"] == "complete"
+    data, _ = sf.read(run / "audio.wav", always_2d=True)
+    ref = np.abs(data[:, 1])  # the output looped back
+    loud = np.flatnonzero(ref > 0.5 * 10 ** (level / 20))
+    silent = np.flatnonzero(ref > 1e-6)[-1] + 1
+    assert silent - loud[-1] < int(0.05 * 48000) and data.shape[0] > silent
+
+
 def test_the_drive_cap_holds_on_a_real_device(server, tmp_path):
     # the default cap is -12 dBFS; a hotter level is refused before anything plays
     rc, _out, err = _tone(server, tmp_path / "run", -6.0)

@@ -139,7 +139,28 @@ def _drift_figures(doc: dict) -> list[Figure]:
     ]
 
 
-_FIGURES = {"tone-steps": _step_figures, "power": _power_figures, "response": _response_figures,
+def _watch_figures(doc: dict) -> list[Figure]:
+    """A watch: the last reading of each figure (where the adjustment ended)."""
+    better = {"thdn_db": "lower", "thd_db": "lower", "h2_dbc": "lower", "h3_dbc": "lower", "noise_dbfs": "lower"}
+    return [Figure(key, f"{f['label']}, last reading", _num(f.get("last")), f["unit"], better.get(key),
+                   headline=key == "thdn_db")
+            for key, f in (doc.get("figures") or {}).items()]
+
+
+def _noise_figures(doc: dict) -> list[Figure]:
+    scaled = _num(doc.get("noise_vrms")) is not None
+    out = [Figure("noise_a_vrms", "noise, A-weighted", _num(doc.get("noise_a_vrms")), "Vrms", "lower", headline=True),
+           Figure("noise_vrms", "noise, unweighted", _num(doc.get("noise_vrms")), "Vrms", "lower")] if scaled else [
+           Figure("noise_a_dbfs", "noise, A-weighted", _num(doc.get("noise_a_dbfs")), "dBFS", "lower", headline=True),
+           Figure("noise_dbfs", "noise, unweighted", _num(doc.get("noise_dbfs")), "dBFS", "lower")]
+    ref = (doc.get("snr_reference") or {}).get("what", "")
+    out += [Figure("snr_db", "SNR", _num(doc.get("snr_db")), "dB", "higher", at=ref),
+            Figure("snr_a_db", "SNR, A-weighted", _num(doc.get("snr_a_db")), "dB", "higher", at=ref),
+            Figure("hum_dbfs", "hum, all lines", _num(doc.get("hum_dbfs")), "dBFS", "lower")]
+    return out
+
+
+_FIGURES = {"noise": _noise_figures, "watch": _watch_figures, "tone-steps": _step_figures, "power": _power_figures, "response": _response_figures,
             "drift": _drift_figures}
 
 
@@ -178,6 +199,7 @@ def conditions_of(doc: dict, record: dict | None = None) -> dict:
         "metric": doc.get("limit_metric"),
         "mag_units": doc.get("mag_units"),
         "nominal_v": _num(doc.get("nominal_v")),
+        "snr_reference_vrms": _num((doc.get("snr_reference") or {}).get("vrms")),
     }
 
 
@@ -191,6 +213,7 @@ _WHAT = {
     "metric": "the distortion metric the limits apply to",
     "mag_units": "what the magnitude is referred to",
     "nominal_v": "the nominal value the drift is judged against",
+    "snr_reference_vrms": "the output the SNR is referred to",
 }
 
 
@@ -201,7 +224,7 @@ def mismatches(conditions: list[dict], labels: list[str]) -> list[str]:
         values = [c.get(key) for c in conditions]
         if all(v is None for v in values):
             continue
-        if key in ("frequency_hz", "load_ohms", "sample_rate_hz", "nominal_v"):
+        if key in ("frequency_hz", "load_ohms", "sample_rate_hz", "nominal_v", "snr_reference_vrms"):
             known = [v for v in values if v is not None]
             same = len(known) == len(values) and max(known) - min(known) <= 1e-6 * max(1.0, abs(max(known)))
         else:

@@ -285,7 +285,9 @@ class PortAudioBackend:
         tail = int(0.3 * rate) + 4 * self.blocksize  # room for the round trip
         total = n_play + tail
         cols = min(known.shape[1], self.n_outputs)
-        rec = np.zeros((total + self.blocksize, self.n_inputs), dtype=np.float32)
+        # a stream that may run for hours keeps only its last keep_s in a ring
+        keep = getattr(stimulus, "keep_s", None)
+        ring = _Ring(int(keep * rate) + self.blocksize if keep else total + self.blocksize, self.n_inputs, bool(keep))
         fade_n = max(1, int(ABORT_FADE_S * rate))
         after_abort = int(0.25 * rate)
         ramp = np.linspace(1.0, 0.0, fade_n, dtype=np.float32)
@@ -337,8 +339,7 @@ class PortAudioBackend:
             # the cap holds whatever the stimulus renders (last line of defence)
             np.clip(outdata, -cap_fs, cap_fs, out=outdata)
             # input, into the buffer allocated up front
-            m = max(0, min(frames, rec.shape[0] - pos))
-            rec[pos : pos + m] = indata[:m]
+            m = ring.put(pos, indata)
             # the measuring input at full scale: stop stepping up, fade out
             if state["clipped_at"] < 0 and m and np.max(np.abs(indata[:m, in_col])) >= CLIP_STOP_FS:
                 state["clipped_at"] = pos
@@ -363,13 +364,13 @@ class PortAudioBackend:
                 upto = min(state["pos"], total)
                 if writer is not None and upto > written["frames"] and "writer_error" not in state:
                     try:
-                        writer.write(rec[written["frames"] : upto])
+                        writer.write(ring.get(written["frames"], upto))
                         written["frames"] = upto
                     except OSError as exc:  # disk full, folder gone: the run goes on in memory
                         state["writer_error"] = f"{exc.strerror or exc}"
                 if listening and upto > written["heard"]:
                     try:
-                        stimulus.listen(rec[written["heard"] : upto].astype(np.float64), written["heard"])
+                        stimulus.listen(ring.get(written["heard"], upto).astype(np.float64), written["heard"])
                     except Exception as exc:  # noqa: BLE001 - the run must still fade out and end
                         state["error"] = exc
                         self._abort.set()
@@ -437,8 +438,40 @@ class PortAudioBackend:
             events += (f"frame {clipped_at}: the input clipped; the run stopped",)
         if state.get("writer_error"):
             events += (f"the raw recording could not be streamed to {partial}: {state['writer_error']}",)
-        return RawRecording(samples=rec[:got].astype(np.float64), events=events, fault_frames=tuple(state["faults"]),
+        return RawRecording(samples=ring.get(max(0, got - ring.n) if ring.wraps else 0, got).astype(np.float64),
+                            events=events, fault_frames=tuple(state["faults"]),
                             fault_block=self.blocksize, stopped_at=clipped_at)
+
+
+class _Ring:
+    """The recording buffer, allocated up front: a plain one (frame k at
+    row k), or with ``wraps`` a ring holding the last ``n`` frames."""
+
+    def __init__(self, n: int, channels: int, wraps: bool):
+        self.n, self.wraps = n, wraps
+        self.buf = np.zeros((n, channels), dtype=np.float32)
+
+    def put(self, pos: int, data: np.ndarray) -> int:
+        """Frames from ``pos`` on; returns how many found room."""
+        if not self.wraps:
+            m = max(0, min(data.shape[0], self.n - pos))
+            self.buf[pos : pos + m] = data[:m]
+            return m
+        k = pos % self.n
+        first = min(data.shape[0], self.n - k)
+        self.buf[k : k + first] = data[:first]
+        self.buf[: data.shape[0] - first] = data[first:]
+        return data.shape[0]
+
+    def get(self, a: int, b: int) -> np.ndarray:
+        """Frames a to b (in a ring, the last n at most)."""
+        if not self.wraps:
+            return self.buf[a:b]
+        a = max(a, b - self.n)
+        i, j = a % self.n, b % self.n
+        if b - a == 0:
+            return self.buf[:0]
+        return self.buf[i:j] if i < j else np.concatenate([self.buf[i:], self.buf[:j]])
 
 
 def _close(stream, timeout: float) -> None:

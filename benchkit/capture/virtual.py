@@ -19,6 +19,7 @@ ADC. It computes; it does not wait.
 from __future__ import annotations
 
 import math
+import time
 from dataclasses import dataclass, replace
 from fractions import Fraction
 from functools import lru_cache
@@ -249,8 +250,15 @@ class VirtualBench:
         got, pos, stopped, events = [], 0, None, ()
         tail = LATENCY_RANGE[1] + int(0.05 * rate)
         writer = WavStreamWriter(partial, rate, s.n_inputs) if partial is not None else None
+        # a stream that may run for hours keeps only its last keep_s in memory;
+        # one that is watched live runs at the pace of the clock
+        keep = getattr(stimulus, "keep_s", None)
+        keep_n = int(keep * rate) if keep else None
+        started = time.monotonic() if getattr(stimulus, "realtime", False) else None
         try:
             while True:
+                if started is not None:
+                    time.sleep(max(0.0, started + pos / rate - time.monotonic()))
                 out = stimulus.render(pos, block)
                 if out.shape[0] == 0:
                     if tail <= 0:
@@ -261,6 +269,8 @@ class VirtualBench:
                 pending = np.concatenate([pending, rec])
                 back, pending = pending[: out.shape[0]], pending[out.shape[0]:]
                 got.append(back)
+                if keep_n is not None and sum(g.shape[0] for g in got) > keep_n + block:
+                    got = [np.concatenate(got)[-keep_n:]]
                 if writer is not None:
                     writer.write(back)
                 hot = np.flatnonzero(np.abs(back[:, 0]) >= CLIP_STOP_FS) if self.stop_on_clip else ()

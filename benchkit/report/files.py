@@ -31,14 +31,19 @@ def tone_reports(result, doc, path: Path, channel: int, out: Path) -> list[Path]
     ]
 
 
-def power_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
+def _result_csv_png(result, path: Path, channel: int, out: Path, what: str, write_csv, plot) -> list[Path]:
+    """STEM.WHAT.json, .csv and .png: the result, its table and its plot."""
     report_folder(out)
     stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
     return [
-        tables.write_json(result.to_dict(), out / f"{stem}.power.json"),
-        tables.write_power_csv(result, out / f"{stem}.power.csv"),
-        plots.power_png(result, out / f"{stem}.power.png", path.name),
+        tables.write_json(result.to_dict(), out / f"{stem}.{what}.json"),
+        write_csv(result, out / f"{stem}.{what}.csv"),
+        plot(result, out / f"{stem}.{what}.png", path.name),
     ]
+
+
+def power_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
+    return _result_csv_png(result, path, channel, out, "power", tables.write_power_csv, plots.power_png)
 
 
 def steps_reports(steps, path: Path, channel: int, out: Path) -> list[Path]:
@@ -79,3 +84,7 @@ def drift_reports(result, log: Path, out: Path) -> list[Path]:
         tables.write_drift_csv(result, out / f"{log.stem}.drift.csv"),
         plots.drift_png(result, out / f"{log.stem}.drift.png", log.name),
     ]
+
+
+def noise_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
+    return _result_csv_png(result, path, channel, out, "noise", tables.write_noise_csv, plots.noise_png)

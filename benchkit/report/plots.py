@@ -249,3 +249,36 @@ def drift_png(result, path: Path, title: str) -> Path:
     ax.set_title(f"{title}: DC drift{verdict}", loc="left", fontsize=10)
     fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.11)
     return _save(fig, path)
+
+
+def noise_png(result, path: Path, title: str) -> Path:
+    """The noise spectrum (density, log frequency), the A-weighted density
+    beside it, the band shaded and the hum lines marked with their levels."""
+    from benchkit.analysis.weighting import a_weighting_power
+
+    f, p = result.freq_hz[1:], result.psd_fs2_per_hz[1:]
+    scale = result.volts_per_fs
+    unit = "dB re 1 V/sqrt(Hz)" if scale else "dB re 1 FS/sqrt(Hz)"
+    to_db = (lambda q: 10 * np.log10(np.maximum(q, 1e-300)) + (20 * np.log10(scale) if scale else 0.0))
+    fig = Figure(figsize=(10, 5.6))
+    ax = fig.add_subplot(1, 1, 1)
+    lo, hi = result.bandwidth_hz
+    ax.axvspan(max(lo, f[0]), hi, color=_BAND, zorder=0, label="measurement band")
+    ax.plot(f, to_db(p), color=_TRACE, lw=0.8, label="noise density")
+    ax.plot(f, to_db(p * a_weighting_power(f)), color=_FAINT, lw=0.8, label="A-weighted")
+    for h in result.hum:
+        k = int(np.argmin(np.abs(f - h.freq_hz)))
+        ax.plot([f[k]], [to_db(p[k])], "v", ms=5, color=_MARK)
+        ax.annotate(f"{h.freq_hz:g} Hz\n{h.level_dbfs:.1f} dBFS", (f[k], to_db(p[k])), textcoords="offset points",
+                    xytext=(0, 6), ha="center", fontsize=7, color=_MARK)
+    _log_hz_axis(ax)
+    ax.set_xlim(max(f[0], 5.0), f[-1])
+    ax.set_xlabel("frequency (Hz)")
+    ax.set_ylabel(unit)
+    ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
+    ax.legend(loc="upper right", fontsize=8, frameon=False)
+    d = result.to_dict()
+    ax.set_title(f"{title}: noise {d['noise_dbfs']:.1f} dBFS, A-weighted {d['noise_a_dbfs']:.1f} dBFS", loc="left",
+                 fontsize=10)
+    fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.11)
+    return _save(fig, path)

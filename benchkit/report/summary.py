@@ -246,3 +246,30 @@ def drift_summary(r, title: str = "") -> str:
         lines.append(f"  verdict      {r.verdict} (limit +-{r.limit_v * 1e3:g} mV{about})")
     lines += [f"  warning      {w}" for w in r.warnings]
     return "\n".join(lines)
+
+
+def noise_summary(d: dict, title: str = "") -> str:
+    """A noise result (its document), one screen."""
+    lines = [title] if title else []
+    lo, hi = d["bandwidth_hz"]
+    band = f"{lo:g} Hz to {hi:g} Hz"
+
+    def level(v, db, dbfs):
+        return f"{format_si(v, 'Vrms')} ({db:.1f} dBV, {dbfs:.1f} dBFS)" if v is not None else f"{dbfs:.1f} dBFS"
+
+    lines.append(f"  unweighted   {level(d['noise_vrms'], d['noise_dbv'] or 0, d['noise_dbfs'])} over {band}")
+    lines.append(f"  A-weighted   {level(d['noise_a_vrms'], d['noise_a_dbv'] or 0, d['noise_a_dbfs'])}")
+    ref = d.get("snr_reference")
+    if ref and d.get("snr_db") is not None:
+        lines.append(f"  SNR          {d['snr_db']:.1f} dB, {d['snr_a_db']:.1f} dB A-weighted, re {ref['what']} "
+                     f"({format_si(ref['vrms'], 'Vrms')})")
+    if d.get("hum"):
+        parts = [f"{h['freq_hz']:g} Hz {h['level_dbfs']:.1f} dBFS" + (f" ({format_si(h['level_vrms'], 'Vrms')})"
+                                                                       if h.get("level_vrms") else "")
+                 for h in d["hum"]]
+        lines.append(f"  hum          {d['mains_hz']:g} Hz mains: " + "; ".join(parts))
+    else:
+        lines.append("  hum          no mains lines above the noise")
+    for w in d.get("warnings") or []:
+        lines.append(f"  warning      {w}")
+    return "\n".join(lines)

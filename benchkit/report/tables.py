@@ -34,6 +34,11 @@ def dumps(doc) -> str:
     return json.dumps(_clean(doc), indent=2, allow_nan=False)
 
 
+def dumps_line(doc) -> str:
+    """One JSON document on one line (a stream of them: JSON lines)."""
+    return json.dumps(_clean(doc), separators=(",", ":"), allow_nan=False)
+
+
 def write_json(doc, path: Path) -> Path:
     """A result document, written whole and renamed into place."""
     from benchkit.recordings import write_text_atomic
@@ -182,7 +187,7 @@ def write_drift_csv(result, path: Path) -> Path:
 
 
 #: The headline figures the catalog export gives a column each (units in the names).
-CATALOG_FIGURES = ("thdn_db", "noise_vrms", "noise_dbfs", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
+CATALOG_FIGURES = ("thdn_db", "noise_vrms", "noise_dbfs", "noise_a_vrms", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
                    "settled_v")
 
 
@@ -202,3 +207,22 @@ def write_catalog_csv(entries, fh) -> None:
                     *(e.tags.get(k, "") for k in keys),
                     *("" if figures.get(n) is None else f"{figures[n]:.6g}" for n in CATALOG_FIGURES),
                     " | ".join(e.warnings)])
+
+
+def write_noise_csv(result, path: Path) -> Path:
+    """The noise spectrum, a row a frequency: the density in FS^2/Hz and,
+    with a scale, in V/sqrt(Hz); A-weighted beside it."""
+    from benchkit.analysis.weighting import a_weighting_power
+
+    f, p = result.freq_hz, result.psd_fs2_per_hz
+    scale = result.volts_per_fs
+    a = a_weighting_power(f)
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["freq_hz", "psd_fs2_per_hz", "psd_a_fs2_per_hz"] + (["v_per_sqrt_hz"] if scale else []))
+        for k in range(1, f.size):
+            row = [f"{f[k]:.4f}", f"{p[k]:.6e}", f"{p[k] * a[k]:.6e}"]
+            if scale:
+                row.append(f"{math.sqrt(p[k]) * scale:.6e}")
+            w.writerow(row)
+    return path

@@ -1,0 +1,193 @@
+"""Output noise with the input terminated: unweighted and A-weighted, SNR,
+and the hum lines in it.
+
+The capture's power spectral density (Welch: Hann segments, half
+overlapped, averaged) is integrated over the band, as it stands and
+weighted by |A(f)|^2 (IEC 61672-1). Hum lines (50 or 60 Hz and their
+harmonics) are read from the same spectrum: a line's power is the excess
+of its bins over the local floor.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from benchkit import units
+from benchkit.analysis.tone import DEFAULT_BAND_HZ
+from benchkit.analysis.weighting import a_weighting_power
+from benchkit.errors import BenchkitError
+
+SCHEMA_VERSION = 1
+#: Welch segments of about this long: 2 Hz resolution keeps hum lines apart.
+SEGMENT_S = 0.5
+#: Hum: the mains fundamental and harmonics up to this order are looked at.
+HUM_ORDERS = 10
+#: A line counts as hum when it stands this far over the local floor.
+HUM_OVER_FLOOR_DB = 10.0
+
+
+@dataclass(frozen=True)
+class HumLine:
+    freq_hz: float
+    order: int
+    level_dbfs: float
+    level_vrms: float | None
+
+    def to_dict(self) -> dict:
+        return {"freq_hz": self.freq_hz, "order": self.order, "level_dbfs": self.level_dbfs,
+                "level_vrms": self.level_vrms}
+
+
+@dataclass(frozen=True)
+class NoiseResult:
+    """Noise in the band, unweighted and A-weighted (FS, dBFS, and with a
+    scale Vrms and dBV), SNR against a stated output, hum lines."""
+
+    sample_rate_hz: float
+    duration_s: float
+    bandwidth_hz: tuple[float, float]
+    rms_fs: float
+    a_rms_fs: float
+    volts_per_fs: float | None
+    scale_source: str
+    mains_hz: float | None
+    hum: tuple[HumLine, ...]
+    hum_rms_fs: float
+    reference_vrms: float | None = None
+    reference: str | None = None
+    freq_hz: np.ndarray | None = None
+    psd_fs2_per_hz: np.ndarray | None = None
+    warnings: tuple[str, ...] = ()
+
+    def _volts(self, fs: float) -> float | None:
+        # FS is a peak scale: an RMS in FS times volts peak per FS is Vrms
+        return None if self.volts_per_fs is None else fs * self.volts_per_fs
+
+    @property
+    def vrms(self) -> float | None:
+        return self._volts(self.rms_fs)
+
+    @property
+    def a_vrms(self) -> float | None:
+        return self._volts(self.a_rms_fs)
+
+    def snr_db(self, weighted: bool) -> float | None:
+        v = self.a_vrms if weighted else self.vrms
+        if self.reference_vrms is None or not v:
+            return None
+        return float(units.db_from_ratio(self.reference_vrms / v))
+
+    def to_dict(self) -> dict:
+        dbv = (lambda v: None if v is None else float(units.dbv_from_vrms(v)))
+        return {
+            "kind": "noise", "schema_version": SCHEMA_VERSION,
+            "sample_rate_hz": self.sample_rate_hz, "duration_s": self.duration_s,
+            "bandwidth_hz": list(self.bandwidth_hz),
+            "noise_fs_rms": self.rms_fs, "noise_dbfs": float(units.dbfs_from_rms(self.rms_fs)),
+            "noise_a_fs_rms": self.a_rms_fs, "noise_a_dbfs": float(units.dbfs_from_rms(self.a_rms_fs)),
+            "noise_vrms": self.vrms, "noise_dbv": dbv(self.vrms),
+            "noise_a_vrms": self.a_vrms, "noise_a_dbv": dbv(self.a_vrms),
+            "snr_db": self.snr_db(False), "snr_a_db": self.snr_db(True),
+            "snr_reference": None if self.reference_vrms is None else {"vrms": self.reference_vrms, "what": self.reference},
+            "mains_hz": self.mains_hz, "hum": [h.to_dict() for h in self.hum],
+            "hum_dbfs": float(units.dbfs_from_rms(self.hum_rms_fs)) if self.hum_rms_fs > 0 else None,
+            "scale_source": self.scale_source, "volts_per_fs": self.volts_per_fs,
+            "conditions": {"method": "Welch PSD (Hann, 50 % overlap) integrated over the band",
+                           "segment_s": SEGMENT_S, "weighting": "A, IEC 61672-1"},
+            "warnings": list(self.warnings),
+        }
+
+
+def psd(x: np.ndarray, rate: float) -> tuple[np.ndarray, np.ndarray]:
+    """One-sided power spectral density, FS^2 per Hz (its integral is the mean square)."""
+    import scipy.signal
+
+    n = min(x.size, int(2 ** math.ceil(math.log2(SEGMENT_S * rate))))
+    return scipy.signal.welch(x, fs=rate, window="hann", nperseg=n, noverlap=n // 2, detrend="constant",
+                              scaling="density")
+
+
+def _band_power(f, p, band, weight=None) -> float:
+    sel = (f >= band[0]) & (f <= band[1])
+    df = f[1] - f[0]
+    w = 1.0 if weight is None else weight[sel]
+    return float(np.sum(p[sel] * w) * df)
+
+
+def hum_lines(f: np.ndarray, p: np.ndarray, volts_per_fs: float | None = None,
+              band=DEFAULT_BAND_HZ) -> tuple[float | None, tuple[HumLine, ...], float]:
+    """The mains frequency (50 or 60 Hz, whichever family holds more line
+    power), its lines standing HUM_OVER_FLOOR_DB over the local floor, and
+    their total power (FS^2)."""
+    df = f[1] - f[0]
+    half = 3  # a Hann window's line spreads over about +-2 bins
+
+    def line(fc):
+        k = int(round(fc / df))
+        if k - 20 < 1 or k + 20 >= f.size:
+            return 0.0
+        floor = float(np.median(np.r_[p[k - 20 : k - half], p[k + half + 1 : k + 21]]))
+        if float(np.max(p[k - 1 : k + 2])) <= floor * 10 ** (HUM_OVER_FLOOR_DB / 10):
+            return 0.0
+        return (float(np.sum(p[k - half : k + half + 1])) - floor * (2 * half + 1)) * df
+
+    best = (None, (), 0.0)
+    for mains in (50.0, 60.0):
+        lines = []
+        for order in range(1, HUM_ORDERS + 1):
+            fc = mains * order
+            if not band[0] <= fc <= band[1]:
+                continue
+            power = line(fc)
+            if power > 0:
+                rms = math.sqrt(power)
+                lines.append(HumLine(fc, order, float(units.dbfs_from_rms(rms)),
+                                     None if volts_per_fs is None else rms * volts_per_fs))
+        total = sum(units.rms_from_dbfs(h.level_dbfs) ** 2 for h in lines)
+        if total > best[2]:
+            best = (mains, tuple(lines), total)
+    return best
+
+
+def analyze_noise(x: np.ndarray, rate: float, bandwidth_hz=DEFAULT_BAND_HZ, volts_per_fs: float | None = None,
+                  scale_source: str = "none", reference_vrms: float | None = None, reference: str | None = None,
+                  traces: bool = False) -> NoiseResult:
+    """The noise of a capture made with the stage's input terminated.
+
+    Parameters
+    ----------
+    x : samples in FS (one channel)
+    rate : sample rate, Hz
+    bandwidth_hz : the band integrated (default 20 Hz to 20 kHz)
+    volts_per_fs : volts peak at the measured point per FS, for Vrms and dBV
+    reference_vrms, reference : the output SNR is referred to (e.g. 1 W into 8 ohm) and what it is
+
+    References
+    ----------
+    IEC 61672-1 (A-weighting); Welch, IEEE Trans. Audio Electroacoust. 15
+    (1967) (the averaged periodogram).
+    """
+    x = np.asarray(x, dtype=float)
+    if x.ndim != 1 or x.size < int(0.5 * rate):
+        raise BenchkitError("a noise measurement needs at least half a second of one channel")
+    band = tuple(bandwidth_hz) if bandwidth_hz is not None else (0.0, rate / 2)
+    if band[1] > rate / 2:
+        band = (band[0], rate / 2)
+    f, p = psd(x - np.mean(x), rate)
+    ms = _band_power(f, p, band)
+    a_ms = _band_power(f, p, band, a_weighting_power(f))
+    mains, hum, hum_power = hum_lines(f, p, volts_per_fs, band)
+    warnings = []
+    peak = float(np.max(np.abs(x)))
+    if peak >= 0.999:
+        warnings.append("the capture reaches full scale: not the noise of a terminated input")
+    elif math.sqrt(ms) > 0 and peak / math.sqrt(ms) > 20:
+        warnings.append(f"crest factor {peak / math.sqrt(ms):.0f}: clicks or bursts, not steady noise")
+    if hum_power > 0.5 * ms:
+        warnings.append("hum makes up more than half of the noise: look at grounding before the noise itself")
+    return NoiseResult(rate, x.size / rate, band, math.sqrt(ms), math.sqrt(a_ms), volts_per_fs, scale_source, mains,
+                       hum, hum_power, reference_vrms, reference, f if traces else None, p if traces else None,
+                       tuple(warnings))

@@ -1,0 +1,85 @@
+"""What a watch shows: plain figures with their minimum, maximum and a
+short trend, marks for a clipped input or a lost tone. A rich table on a
+terminal; one plain line a reading otherwise."""
+
+from __future__ import annotations
+
+import math
+
+from benchkit.report.summary import format_si
+from benchkit.watch import FIGURES, Reading, Tracker, fmt_time
+
+_BARS = "▁▂▃▄▅▆▇█"
+
+
+def sparkline(values, width: int = 32) -> str:
+    """A trend in block characters, the lowest value at the bottom."""
+    vals = [v for v in list(values)[-width:] if v is not None and math.isfinite(v)]
+    if not vals:
+        return ""
+    lo, hi = min(vals), max(vals)
+    if hi - lo < 1e-12 * max(1.0, abs(hi)):
+        return _BARS[3] * len(vals)
+    return "".join(_BARS[min(7, int((v - lo) / (hi - lo) * 8))] for v in vals)
+
+
+def value_text(v: float | None, unit: str) -> str:
+    if v is None:
+        return "-"
+    if unit in ("dB", "dBc", "dBFS"):
+        return f"{v:7.2f} {unit}"
+    if unit == "V":  # DC: a midpoint near 12 V moves by millivolts
+        return f"{v:+.4f} V"
+    return format_si(v, unit, 4)
+
+
+def _shown(r: Reading, key: str) -> bool:
+    return getattr(r, key) is not None
+
+
+def marks(r: Reading | None, held: bool) -> list[str]:
+    out = []
+    if r is not None and r.clipped:
+        out.append("CLIPPED: the input reached full scale")
+    if r is not None and r.tone_lost:
+        out.append("TONE LOST: no steady tone at the input (wiring? stage off?)")
+    if held:
+        out.append("HELD (h releases)")
+    return out
+
+
+def plain_line(r: Reading) -> str:
+    """One reading on one line (for logs and pipes)."""
+    parts = [f"t {r.t_s:8.2f} s"]
+    for key, label, unit in FIGURES:
+        v = getattr(r, key)
+        if v is not None:
+            parts.append(f"{label} {value_text(v, unit).strip()}")
+    parts += marks(r, False)
+    return "  ".join(parts)
+
+
+def table(tracker: Tracker, title: str):
+    """The live table: figure, now, minimum, maximum, trend."""
+    from rich.table import Table
+    from rich.text import Text
+
+    r = tracker.shown
+    t = Table(title=title, title_justify="left", box=None, pad_edge=False, header_style="bold")
+    for name, justify in (("figure", "left"), ("now", "right"), ("min", "right"), ("max", "right"), ("trend", "left")):
+        t.add_column(name, justify=justify, no_wrap=True)
+    if r is not None:
+        for key, label, unit in FIGURES:
+            if not _shown(r, key) and key not in tracker.min:
+                continue
+            t.add_row(f"{label} ({unit})", value_text(getattr(r, key), unit), value_text(tracker.min.get(key), unit),
+                      value_text(tracker.max.get(key), unit), sparkline(tracker.history[key]))
+    notes = marks(r, tracker.held is not None)
+    caption = Text()
+    for m in notes:
+        caption.append(m + "\n", style="bold red" if not m.startswith("HELD") else "bold")
+    when = f"{fmt_time(r.t_s)}, {tracker.count} readings" if r is not None else "waiting for the first reading"
+    caption.append(f"{when}.  keys: h hold, r reset min/max, q stop (Ctrl-C stops too)")
+    t.caption = caption
+    t.caption_justify = "left"
+    return t

@@ -1,0 +1,194 @@
+"""`benchkit watch`: the live readout follows the stage as it is adjusted.
+
+References: a stage y = g x + a2 x^2 driven with x = A cos gives
+H2/H1 = a2 A / (2 g) (the power-reduction identity cos^2 = (1 + cos 2)/2);
+the se-class-a model's own steady-tone figure (a tone run through the same
+model) for its bias change. The rest is plumbing: outputs parse, every
+exit leaves silence, the readings are kept.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import signal
+import subprocess
+import sys
+import time
+
+import numpy as np
+import pytest
+import soundfile as sf
+
+from benchkit.capture.virtual import virtual_bench
+from benchkit.report.live import sparkline
+from benchkit.runs import tone_run
+from benchkit.watch import SteadyTone, Tracker, Watch
+
+from conftest import run_cli, the_run
+
+DRIVE = -20.0
+A = 2.0 * 10 ** (DRIVE / 20)  # volts peak into the stage: the virtual output is 2 V peak per FS
+
+
+def _watch(bench, seconds, change=None, at=6):
+    """Watch on the virtual bench for ``seconds``; ``change()`` runs from
+    this (the test's) thread once ``at`` readings have come."""
+    scale = bench.inputs()[0].volts_per_fs
+    tone = SteadyTone(997.0, DRIVE, bench.sample_rate_hz, None, volts_per_fs=scale)
+    w = Watch(bench, tone).start()
+    got, start, changed = [], time.monotonic(), None
+    for r in w.readings():
+        if time.monotonic() - start > seconds:
+            w.stop("done")
+        if r is None:
+            continue
+        got.append(r)
+        if change is not None and len(got) == at:
+            change()
+            changed = len(got)
+    w.join()
+    assert w.error is None
+    return got, changed
+
+
+def test_h2_follows_a_changed_square_term_within_two_updates():
+    bench = virtual_bench("poly", {"gain": 10.0, "a2": 0.1}, seed=4)
+    got, k = _watch(bench, 3.0, lambda: bench.stage.params.update(a2=0.3))
+    want = [20 * math.log10(a2 * A / (2 * 10.0)) for a2 in (0.1, 0.3)]  # identity, above
+    assert all(r.h2_dbc == pytest.approx(want[0], abs=0.2) for r in got[:k])
+    # the second reading after the change analyses only the new stage
+    assert all(r.h2_dbc == pytest.approx(want[1], abs=0.2) for r in got[k + 1:])
+    assert len(got) > k + 3
+    # five updates a second, at the pace of the clock
+    gaps = np.diff([r.t_s for r in got])
+    assert np.allclose(gaps, 0.2, atol=0.01)
+
+
+def test_readings_follow_a_bias_change_as_the_model_predicts(tmp_path):
+    bench = virtual_bench("se-class-a", {"bias": 0.8}, seed=5)
+    got, k = _watch(bench, 3.0, lambda: bench.stage.params.update(bias=1.2))
+    # the model's own steady-tone figures at each bias, from a tone run
+    ref = {b: tone_run(virtual_bench("se-class-a", {"bias": b}, seed=6), tmp_path / f"b{b}", 997.0, [DRIVE])
+           .steps[0].result for b in (0.8, 1.2)}
+    h2 = {b: next(h.level_dbc for h in r.harmonics if h.order == 2) for b, r in ref.items()}
+    assert h2[1.2] < h2[0.8] - 3  # more bias current, less second harmonic
+    assert got[k - 1].h2_dbc == pytest.approx(h2[0.8], abs=0.5)
+    assert all(r.h2_dbc == pytest.approx(h2[1.2], abs=0.5) for r in got[k + 1:])
+    assert all(r.thdn_db == pytest.approx(ref[1.2].thdn_db, abs=0.5) for r in got[k + 1:])
+
+
+def test_a_lost_tone_is_marked():
+    bench = virtual_bench("poly", {"gain": 10.0}, seed=7)
+    got, k = _watch(bench, 2.5, lambda: bench.stage.params.update(gain=1e-4), at=3)
+    assert not any(r.tone_lost for r in got[:k])
+    assert all(r.tone_lost for r in got[k + 1:]) and len(got) > k + 2
+
+
+def test_tracker_keeps_min_max_trend_and_resets():
+    from benchkit.watch import Reading
+
+    def reading(t, thdn):
+        return Reading(t, -20.0, 1.0, None, thdn, thdn, thdn, None, -90.0, None, False, False)
+
+    tr = Tracker(trend=5)
+    for k, v in enumerate([-60.0, -62.0, -58.0, -61.0, -59.0, -63.0]):
+        tr.add(reading(0.2 * k, v))
+    assert tr.min["thdn_db"] == -63.0 and tr.max["thdn_db"] == -58.0
+    assert list(tr.history["thdn_db"]) == [-62.0, -58.0, -61.0, -59.0, -63.0]  # the last five
+    tr.toggle_hold()
+    tr.add(reading(2.0, -50.0))
+    assert tr.shown.thdn_db == -63.0 and tr.last.thdn_db == -50.0
+    tr.reset()
+    assert tr.min == {} and tr.count == 0
+    assert sparkline([1, 2, 3, 4, 5, 6, 7, 8]) == "▁▂▃▄▅▆▇█"
+
+
+def test_plain_and_json_lines_parse():
+    plain = run_cli("watch", "--duration", "1.5", "--plain", "--load", "8")
+    assert plain.returncode == 0, plain.stderr
+    lines = plain.stdout.strip().splitlines()
+    assert len(lines) >= 3 and all("THD+N" in line and "H2" in line for line in lines)
+    js = run_cli("watch", "--duration", "1.5", "--json-lines", "--load", "8")
+    assert js.returncode == 0, js.stderr
+    docs = [json.loads(line) for line in js.stdout.strip().splitlines()]
+    assert len(docs) >= 3 and all(d["kind"] == "reading" and d["power_w"] > 0 for d in docs)
+    assert "faded to silence" in js.stderr
+
+
+def test_ctrl_c_leaves_silence_and_a_valid_run(tmp_path):
+    bench = tmp_path / "bench"
+    proc = subprocess.Popen([sys.executable, "-m", "benchkit", "watch", "--json-lines", "--record", "--record-audio",
+                             "--tag", "trim=R7", "--bench", str(bench)], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            text=True)
+    seen = [proc.stdout.readline() for _ in range(4)]
+    proc.send_signal(signal.SIGINT)
+    rest, err = proc.communicate(timeout=30)
+    assert proc.returncode == 130, err
+    assert "Traceback" not in err and "faded to silence" in err
+    run = the_run(bench)
+    record = json.loads((run / "run.json").read_text())
+    assert record["status"] == "complete" and record["tags"] == {"trim": "R7"}
+    rows = (run / "readings.csv").read_text().strip().splitlines()
+    assert len(rows) - 1 == len(seen) + len(rest.strip().splitlines())
+    summary = json.loads((run / "watch.json").read_text())
+    assert summary["kind"] == "watch" and summary["readings"] == len(rows) - 1
+    # the recording's input 2 is the output looped back: full level, then
+    # a 20 ms fade to silence (40 dB down: the interface's 3 Hz coupling
+    # leaves a tail of about 3/997 of the tone decaying with 53 ms), then
+    # silence to the end
+    data, rate = sf.read(run / "audio.wav", always_2d=True)
+    ref = np.abs(data[:, 1])
+    loud = np.flatnonzero(ref > 0.5 * 10 ** (DRIVE / 20))
+    silent = np.flatnonzero(ref > 10 ** ((DRIVE - 40) / 20))[-1] + 1
+    assert silent - loud[-1] < int(0.05 * rate) and data.shape[0] - silent > int(0.02 * rate)
+    listed = json.loads(run_cli("log", "list", "--bench", str(bench), "--json").stdout)["runs"]
+    assert listed[0]["command"] == "watch" and listed[0]["figures"][0]["name"] == "thdn_db"
+    again = run_cli("log", "reanalyse", "last", "--bench", str(bench), "--json")
+    assert again.returncode == 0 and json.loads(again.stdout)["figures"] == summary["figures"]
+
+
+def test_a_clipping_input_stops_the_watch(tmp_path):
+    # the gain claimed (1) passes the pre-flight; the stage's real gain of 200
+    # (40 V peak, 4 V after the 10:1 pad, twice the input's full scale)
+    # clips the input: the watch fades out and says so
+    res = run_cli("watch", "--sim", "ideal", "--sim-param", "gain=200", "--gain", "1", "--level", "-20dBFS",
+                  "--plain", "--duration", "5", "--bench", str(tmp_path))
+    assert res.returncode == 1 and "clipped" in res.stderr and "Traceback" not in res.stderr
+
+
+def test_keys_on_a_terminal_hold_reset_and_stop(tmp_path):
+    # a pseudo-terminal stands in for the bench's: the live table, and keys without Enter
+    import os
+    import pty
+    import select
+
+    master, slave = pty.openpty()
+    proc = subprocess.Popen([sys.executable, "-m", "benchkit", "watch", "--duration", "30"], stdin=slave, stdout=slave,
+                            stderr=subprocess.PIPE, text=True, close_fds=True)
+    os.close(slave)
+
+    def read_for(seconds):
+        got, end = b"", time.monotonic() + seconds
+        while time.monotonic() < end:
+            if select.select([master], [], [], 0.05)[0]:
+                try:
+                    got += os.read(master, 65536)
+                except OSError:  # the watch has ended and closed the terminal
+                    break
+        return got
+
+    shown = b""
+    deadline = time.monotonic() + 30
+    while b"readings." not in shown and time.monotonic() < deadline:
+        shown += read_for(0.2)
+    os.write(master, b"h")
+    held = read_for(0.8)
+    os.write(master, b"r")
+    read_for(0.5)
+    os.write(master, b"q")
+    _, err = proc.communicate(timeout=30)
+    os.close(master)
+    assert proc.returncode == 0, err
+    assert b"THD+N" in shown and b"HELD" in held
+    assert "stopped (q)" in err and "faded to silence" in err
