@@ -184,6 +184,7 @@ def analyze(
     time_col: str = typer.Option("1", "--time-col", help="Drift CSVs: the time column, by name or number from 1 (units in the header are applied)."),
     value_col: str = typer.Option("2", "--value-col", help="Drift CSVs: the value column, by name or number."),
     power: bool = typer.Option(False, "--power", help="Stepped captures: power at the distortion limits, clipping onset and half (needs --load and volts)."),
+    noise: bool = typer.Option(False, "--noise", help="The capture holds the stage's noise (input terminated): unweighted, A-weighted, hum (benchkit noise captures are recognised)."),
     rail: Optional[float] = typer.Option(None, "--rail", help="Describe the stage (se-class-a): its rail, V, for the expected ceiling."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     figures: dict = None,
@@ -211,7 +212,7 @@ def analyze(
                 docs.append(_analyze_drift_file(Path(path), time_col, value_col, out, **judge))
                 continue
             docs.append(_analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile, calibration,
-                                     (sweep_spec, ref_channel, ref_freq, smooth), power_opts))
+                                     (sweep_spec, ref_channel, ref_freq, smooth), power_opts, noise))
         except BenchkitError as exc:
             failed += 1
             _err(f"benchkit: error: {exc}")
@@ -265,7 +266,7 @@ def _parse_sweep(text: str) -> tuple[float, float, float]:
 
 
 def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile=None, profile_path=None,
-                 response_opts=(None, None, 1000.0, None), power_opts=None) -> dict:
+                 response_opts=(None, None, 1000.0, None), power_opts=None, noise=False) -> dict:
     from dataclasses import replace
 
     from benchkit import responses, runs
@@ -283,6 +284,17 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
     if load is not None and scale is None:
         raise BenchkitError(f"{path}: --load needs a voltage scale (--volts-per-fs, or a sidecar that gives one)")
     sweep_spec, ref_channel, ref_freq, smooth = response_opts
+    from benchkit.noise_runs import analyze_noise_capture, is_noise
+
+    if noise or is_noise(rec):
+        ref = (units.vrms_from_watts(1.0, load), f"1 W into {load:g} ohm") if load is not None else (None, None)
+        result = analyze_noise_capture(rec, band, volts_per_fs, *ref, traces=out is not None)
+        doc = {**result.to_dict(), "file": str(path), "channel": channel}
+        _err(summary.noise_summary(doc, f"{path} channel {channel}: noise"))
+        if out is not None:
+            for written in _files().noise_reports(result, Path(path), channel, out):
+                _err(f"  wrote        {written}")
+        return doc
     if sweep_spec is not None or responses.is_response(rec):
         spec = None if sweep_spec is None else SyncSweep.design(*sweep_spec, rec.sample_rate_hz, faded=False)
         if ref_channel is None and sweep_spec is None:
@@ -803,6 +815,59 @@ class _Keys:
 
             termios.tcsetattr(self._fd, termios.TCSADRAIN, self._old)
             self._old = None
+
+
+@app.command()
+@_live_options
+@_bench_options
+def noise(
+    length: float = typer.Option(5.0, "--length", help="Seconds of noise to record (after half a second of settling)."),
+    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: the SNR is referred to --ref-power into it."),
+    ref_power: float = typer.Option(1.0, "--ref-power", help="With --load: the output power the SNR is referred to, W (1 W is common for small amplifiers; give the rated power to quote that)."),
+    ref_vrms: Optional[float] = typer.Option(None, "--ref-vrms", help="Or refer the SNR to this output, Vrms."),
+    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Band integrated, LO:HI in Hz."),
+    yes: bool = typer.Option(False, "--yes", help="Do not ask: the stage's input is already terminated (scripted use)."),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
+    live: dict = None,
+    filing: dict = None,
+) -> None:
+    """Measure the stage's output noise with its input terminated: unweighted and A-weighted, SNR, hum lines.
+
+    Nothing is played. Short the stage's input, or terminate it in the
+    source impedance it is specified with, before the run; the noise is
+    integrated over the band as it stands and A-weighted (IEC 61672-1),
+    in uV and dBV with a scale, and the SNR referred to --ref-power into
+    --load (or --ref-vrms). Hum at 50 or 60 Hz and its harmonics is
+    listed with its levels.
+
+    Example: benchkit noise --length 10 --load 8 --ref-power 1 --tag bias=1.2A
+
+    Safety: terminate the input with the stage switched off; mind the hot
+    parts of a class-A stage while you do.
+    """
+    from benchkit.noise_runs import noise_run
+    from benchkit.report import summary
+
+    with _live_run(), _logbook(filing) as (book, labels):
+        band = units.parse_band(bandwidth) or (20.0, 20000.0)
+        backend, profile = _live_setup(live, None)
+        in_channel, calibration = live["in_channel"], live["calibration"]
+        reference_vrms, reference = None, None
+        if ref_vrms is not None:
+            reference_vrms, reference = ref_vrms, f"{ref_vrms:g} Vrms"
+        elif load is not None:
+            reference_vrms, reference = units.vrms_from_watts(ref_power, load), f"{ref_power:g} W into {load:g} ohm"
+        if backend.name != "virtual" and not yes:
+            typer.prompt("short or terminate the stage's input, then press Enter", default="", show_default=False, err=True)
+        params = dict(channel=in_channel, bandwidth_hz=band, reference_vrms=reference_vrms, reference=reference,
+                      length_s=length)
+        with _start_run(book, labels, "noise", backend, profile, calibration, params) as run:
+            result = noise_run(backend, run.folder, length, in_channel, band, reference_vrms, reference,
+                               labels["note"], profile, None if calibration is None else str(calibration))
+            doc = result.to_dict()
+            _err(summary.noise_summary(doc, f"noise of {backend.name} input {in_channel}, {length:g} s"))
+            written = _files().noise_reports(result, run.folder / "capture.wav", in_channel, run.folder)
+            _finish_run(written, run, doc, as_json)
 
 
 @app.command()

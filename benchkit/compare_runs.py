@@ -8,6 +8,7 @@ overlay plots (PNG) and a short text summary.
 
 from __future__ import annotations
 
+import csv
 import json
 from dataclasses import dataclass
 from datetime import datetime
@@ -74,6 +75,22 @@ def _spectra(entries, docs, labels, folder: Path, title: str, warnings) -> list[
     return [overlays.spectra_png(results, labels, path, f"{title}: spectra at drive {drive:g} dBFS", warnings)]
 
 
+def _columns(folder: Path, kind: str):
+    """The curve a noise or watch run left in its CSV: density in dB
+    against frequency, or THD+N against time."""
+    import numpy as np
+
+    name, xs, ys = ("capture.noise.csv", "freq_hz", "psd_fs2_per_hz") if kind == "noise" else ("readings.csv", "t_s", "thdn_db")
+    try:
+        with (folder / name).open(encoding="utf-8", newline="") as fh:
+            rows = [r for r in csv.DictReader(fh) if r.get(ys)]
+    except OSError as exc:
+        raise BenchkitError(f"{folder}: cannot read {name} for the overlay ({exc.strerror or exc})") from None
+    x = np.array([float(r[xs]) for r in rows])
+    y = np.array([float(r[ys]) for r in rows])
+    return (x, 10 * np.log10(np.maximum(y, 1e-300))) if kind == "noise" else (x, y)
+
+
 def compare_runs(book: Logbook, refs: list[str], anyway: bool = False, out: Path | None = None,
                  title: str | None = None) -> ComparisonReport:
     """Compare logged runs (ids, unique prefixes, 'last', 'last-N'), the
@@ -104,6 +121,8 @@ def compare_runs(book: Logbook, refs: list[str], anyway: bool = False, out: Path
         from benchkit.meters import read_drift_csv
 
         series = [read_drift_csv(e.folder / "log.csv")[:2] for e in entries]
+    elif comparison.kind in ("noise", "watch"):
+        series = [_columns(e.folder, comparison.kind) for e in entries]
     written = [tables.write_json(doc, out / "comparison.json"),
                tables.write_deltas_csv(comparison, out / "comparison.csv"),
                overlays.curves_png(comparison, docs, out / "overlay.png", title, series)]

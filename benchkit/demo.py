@@ -10,8 +10,9 @@ theirs. Each bias gets a 997 Hz tone at several levels and a power run
 (the power at 1 %, 0.1 % and 10 % THD+N beside the class-A budget's
 ceiling); at 1.2 A a synchronized sweep from 2 Hz gives the response (the
 output capacitor's corner into the load, the capacitor estimated from it)
-and distortion against frequency, and the midpoint is logged as the stage
-warms (the virtual thermal model in accelerated time: 25 minutes of it in
+and distortion against frequency, the output noise is measured with the
+input terminated (unweighted, A-weighted, SNR re 1 W, the supply's hum),
+and the midpoint is logged as the stage warms (the virtual thermal model in accelerated time: 25 minutes of it in
 no time). The before/after comparisons are made by benchkit.compare_runs,
 as 'benchkit compare' makes them, into comparisons/.
 """
@@ -51,6 +52,8 @@ SWEEP_DBFS = -20.0
 RAIL_V, VSAT_V = 24.0, 1.0
 
 
+#: The noise run: seconds recorded with nothing played.
+NOISE_S = 3.0
 #: The drift log: 25 minutes of model time, a reading every 10 s of it.
 DRIFT_S, DRIFT_STEP_S = 1500.0, 10.0
 #: What the logbook remembers of the stage.
@@ -152,6 +155,21 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                                                           span_hz=list(SWEEP_SPAN_HZ), level_dbfs=SWEEP_DBFS,
                                                           sample_rate_hz=bench.sample_rate_hz), sweep_in)
     files += written
+    say(f"virtual bench: stage B-2 at {label}, output noise with the input terminated")
+    from benchkit.noise_runs import noise_run
+
+    nz_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 9)
+    one_watt = units.vrms_from_watts(1.0, LOAD_OHMS)
+
+    def noise_in(folder):
+        r = noise_run(nz_bench, folder, NOISE_S, reference_vrms=one_watt, reference=f"1 W into {LOAD_OHMS:g} ohm",
+                      note=NOTE)
+        return r, reports.noise_reports(r, folder / "capture.wav", 1, folder)
+
+    noise, written = _logged(book, "noise", bias, dict(channel=1, bandwidth_hz=band, reference_vrms=one_watt,
+                                                       reference=f"1 W into {LOAD_OHMS:g} ohm", length_s=NOISE_S,
+                                                       sample_rate_hz=nz_bench.sample_rate_hz), noise_in)
+    files += written
     say(f"virtual bench: stage B-2 at {label}, midpoint drift while it warms (accelerated time)")
     drift, written = _logged(book, "drift", bias, dict(source="virtual", limit_v=0.5, band_v=0.01, window_s=60.0,
                                                        nominal_v=RAIL_V / 2, accelerated=DRIFT_STEP_S),
@@ -167,6 +185,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     (la, _a), (lb, _b) = tones
     texts.append(f"Before/after ({la} -> {lb}), 'benchkit compare':\n" + "\n\n".join(r.text for r in comparisons))
     texts.append(summary.response_summary(response, f"Test stage B-2, {label}: response"))
+    texts.append(summary.noise_summary(noise.to_dict(), f"Test stage B-2, {label}: output noise, input terminated"))
     texts.append(summary.drift_summary(drift, f"Test stage B-2, {label}: midpoint after power-on "
                                               "(virtual thermal model, accelerated 10x)"))
     text = "\n\n".join(texts)

@@ -76,3 +76,32 @@ def test_snr_is_referred_to_the_stated_output():
     assert r.snr_db(True) > r.snr_db(False)
     d = r.to_dict()
     assert d["noise_dbv"] == pytest.approx(20 * math.log10(r.vrms), abs=1e-9)
+
+
+def test_noise_command_files_a_run_and_compares(tmp_path):
+    import json
+
+    from conftest import run_cli, run_folders
+
+    bench = tmp_path / "bench"
+    docs = []
+    for bias in ("0.8", "1.2"):
+        res = run_cli("noise", "--length", "2", "--load", "8", "--sim-param", f"bias={bias}", "--tag", f"bias={bias}A",
+                      "--bench", str(bench), "--json")
+        assert res.returncode == 0, res.stderr
+        docs.append(json.loads(res.stdout))
+    d = docs[-1]
+    assert d["kind"] == "noise" and d["noise_a_vrms"] < d["noise_vrms"]
+    # SNR re 1 W into 8 ohm: 2.828 Vrms over the noise (circuit theory: V = sqrt(P R))
+    assert d["snr_db"] == pytest.approx(20 * math.log10(math.sqrt(8.0) / d["noise_vrms"]), abs=1e-6)
+    # the virtual stage's supply ripple: full-wave, so 100 and 200 Hz, of 50 Hz mains
+    assert d["mains_hz"] == 50.0 and {h["freq_hz"] for h in d["hum"]} >= {100.0}
+    folder = run_folders(bench)[-1]
+    assert (folder / "capture.noise.png").exists() and (folder / "capture.noise.csv").exists()
+    off = run_cli("analyze", str(folder / "capture.wav"), "--load", "8", "--json")
+    assert off.returncode == 0, off.stderr
+    assert json.loads(off.stdout)["noise_vrms"] == pytest.approx(d["noise_vrms"], rel=1e-9)
+    comp = run_cli("compare", "--last", "2", "--bench", str(bench), "--json")
+    assert comp.returncode == 0, comp.stderr
+    names = {x["name"] for x in json.loads(comp.stdout)["deltas"]}
+    assert {"noise_a_vrms", "snr_db", "snr_a_db"} <= names

@@ -93,10 +93,23 @@ def _drifts(series, labels, path: Path, title: str, warnings) -> Path:
     return _finish(fig, ax, path, title, warnings, "", "best", 0.09)
 
 
+def _lines(series, labels, path: Path, title: str, warnings, xlabel: str, ylabel: str, log_x: bool) -> Path:
+    fig = Figure(figsize=(10, 5.2))
+    ax = fig.add_subplot(1, 1, 1)
+    for i, (label, (x, y)) in enumerate(zip(labels, series)):
+        ax.plot(x, y, lw=0.8, color=_colour(i), label=label)
+    if log_x:
+        _log_hz_axis(ax)
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(ylabel)
+    return _finish(fig, ax, path, title, warnings, "", "best", 0.09)
+
+
 def curves_png(comparison, docs: list[dict], path: Path, title: str, series=None) -> Path:
     """The overlay of a comparison's kind: THD+N against power (tone and
-    power runs), magnitude and phase (responses), volts against time
-    (drift, from ``series``: (t, v) arrays a run)."""
+    power runs), magnitude and phase (responses); from ``series`` (x, y
+    arrays a run): volts against time (drift), noise density against
+    frequency (noise), THD+N against time (watch)."""
     kind, labels, warnings = comparison.kind, comparison.labels, comparison.warnings
     if kind == "tone-steps":
         return distortion_png(docs, labels, path, f"{title}: THD+N", warnings)
@@ -109,6 +122,11 @@ def curves_png(comparison, docs: list[dict], path: Path, title: str, series=None
         return _responses(docs, labels, path, title, warnings)
     if kind == "drift":
         return _drifts(series or [], labels, path, f"{title}: DC drift", warnings)
+    if kind == "noise":
+        return _lines(series, labels, path, f"{title}: noise density", warnings, "frequency (Hz)",
+                      "dB re 1 FS^2/Hz", True)
+    if kind == "watch":
+        return _lines(series, labels, path, f"{title}: THD+N while watched", warnings, "time (s)", "THD+N (dB)", False)
     raise ValueError(f"no overlay for results of kind {kind!r}")
 
 

@@ -273,6 +273,8 @@ def noise_png(result, path: Path, title: str) -> Path:
                     xytext=(0, 6), ha="center", fontsize=7, color=_MARK)
     _log_hz_axis(ax)
     ax.set_xlim(max(f[0], 5.0), f[-1])
+    in_band = to_db(p[(f >= lo) & (f <= hi)])
+    ax.set_ylim(float(np.min(in_band)) - 30.0, float(np.max(in_band)) + 12.0)
     ax.set_xlabel("frequency (Hz)")
     ax.set_ylabel(unit)
     ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
