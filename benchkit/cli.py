@@ -184,6 +184,7 @@ def analyze(
     time_col: str = typer.Option("1", "--time-col", help="Drift CSVs: the time column, by name or number from 1 (units in the header are applied)."),
     value_col: str = typer.Option("2", "--value-col", help="Drift CSVs: the value column, by name or number."),
     power: bool = typer.Option(False, "--power", help="Stepped captures: power at the distortion limits, clipping onset and half (needs --load and volts)."),
+    voltage_gain: bool = typer.Option(False, "--gain", help="A tone capture benchkit wrote: the stage's voltage gain, over --ref-channel (default: the sidecar's reference input) or the calibrated drive."),
     noise: bool = typer.Option(False, "--noise", help="The capture holds the stage's noise (input terminated): unweighted, A-weighted, hum (benchkit noise captures are recognised)."),
     rail: Optional[float] = typer.Option(None, "--rail", help="Describe the stage (se-class-a): its rail, V, for the expected ceiling."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
@@ -212,7 +213,7 @@ def analyze(
                 docs.append(_analyze_drift_file(Path(path), time_col, value_col, out, **judge))
                 continue
             docs.append(_analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile, calibration,
-                                     (sweep_spec, ref_channel, ref_freq, smooth), power_opts, noise))
+                                     (sweep_spec, ref_channel, ref_freq, smooth), power_opts, noise, voltage_gain))
         except BenchkitError as exc:
             failed += 1
             _err(f"benchkit: error: {exc}")
@@ -266,7 +267,7 @@ def _parse_sweep(text: str) -> tuple[float, float, float]:
 
 
 def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile=None, profile_path=None,
-                 response_opts=(None, None, 1000.0, None), power_opts=None, noise=False) -> dict:
+                 response_opts=(None, None, 1000.0, None), power_opts=None, noise=False, voltage_gain=False) -> dict:
     from dataclasses import replace
 
     from benchkit import responses, runs
@@ -285,6 +286,13 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
         raise BenchkitError(f"{path}: --load needs a voltage scale (--volts-per-fs, or a sidecar that gives one)")
     sweep_spec, ref_channel, ref_freq, smooth = response_opts
     from benchkit.noise_runs import analyze_noise_capture, is_noise
+
+    if voltage_gain:
+        from benchkit.gain_runs import analyze_gain
+
+        doc = {**analyze_gain(Path(path), channel, ref_channel, band, load).to_dict(), "file": str(path)}
+        _err(f"{path} channel {channel}: gain\n" + _gain_text(doc))
+        return doc
 
     if noise or is_noise(rec):
         ref = (units.vrms_from_watts(1.0, load), f"1 W into {load:g} ohm") if load is not None else (None, None)
@@ -868,6 +876,66 @@ def noise(
             _err(summary.noise_summary(doc, f"noise of {backend.name} input {in_channel}, {length:g} s"))
             written = _files().noise_reports(result, run.folder / "capture.wav", in_channel, run.folder)
             _finish_run(written, run, doc, as_json)
+
+
+@app.command()
+@_live_options
+@_bench_options
+def gain(
+    frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz."),
+    level: str = typer.Option("-30 dBFS", "--level", help="Drive level at the interface output, e.g. -30dBFS or 0.05Vrms."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired to the stage's input (the virtual bench's is 2); without one, the drive at the calibrated output scale."),
+    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms (recorded with the gain: it depends on it)."),
+    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
+    live: dict = None,
+    filing: dict = None,
+) -> None:
+    """Measure the stage's voltage gain at a frequency and level, in V/V and dB, with its phase.
+
+    The input is measured on --ref-channel (wired to the stage's input)
+    or taken from the drive at the calibrated output scale; the output
+    through the pad at its calibrated scale.
+
+    Example: benchkit gain --freq 1000 --level -30dBFS --load 8 --tag bias=1.2A
+
+    Safety: a gain run is one short tone; start low on an unknown stage,
+    into a dummy load through a pad.
+    """
+    from benchkit import runs
+    from benchkit.gain_runs import analyze_gain
+    from benchkit.report.tables import write_json
+    from benchkit.signals import check_level
+
+    with _live_run(), _logbook(filing) as (book, labels):
+        band = units.parse_band(bandwidth)
+        backend, profile = _live_setup(live, ref_channel)
+        in_channel, calibration = live["in_channel"], live["calibration"]
+        if ref_channel is None:
+            ref_channel = backend.reference_input() if backend.name == "virtual" else None
+        drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
+        check_level(drive)
+        plan = runs.plan_run(backend, profile, [drive], frequency, in_channel, live["gain"], live["margin"],
+                             live["rail"], live["pad_rating"], load, live["btl"], say=_err)
+        for w in plan.warnings:
+            _err(f"warning: {w}")
+        params = dict(channel=in_channel, ref_channel=ref_channel, frequency_hz=frequency, level_dbfs=drive,
+                      load_ohms=load, bandwidth_hz=band)
+        with _start_run(book, labels, "gain", backend, profile, calibration, params) as run:
+            runs.tone_run(backend, run.folder, frequency, [drive], channel=in_channel, load_ohms=load,
+                          bandwidth_hz=band, calibration=profile, note=labels["note"], warnings=plan.warnings,
+                          calibration_file=None if calibration is None else str(calibration))
+            result = analyze_gain(run.folder / "capture.wav", in_channel, ref_channel, band, load)
+            doc = result.to_dict()
+            _err(_gain_text(doc))
+            _finish_run([write_json(doc, run.folder / "capture.gain.json")], run, doc, as_json)
+
+
+def _gain_text(d: dict) -> str:
+    phase = "" if d["phase_deg"] is None else f", phase {d['phase_deg']:+.1f} deg" + (" (inverting)" if d["inverting"] else "")
+    return (f"  gain         {d['gain_vv']:.4g} V/V ({d['gain_db']:+.2f} dB) at {d['frequency_hz']:.4g} Hz{phase}\n"
+            f"  levels       {d['vin_vrms']:.4g} Vrms in ({d['input_source']}), {d['vout_vrms']:.4g} Vrms out"
+            + (f" into {d['load_ohms']:g} ohm" if d["load_ohms"] else ""))
 
 
 @app.command()

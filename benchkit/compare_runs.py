@@ -124,8 +124,9 @@ def compare_runs(book: Logbook, refs: list[str], anyway: bool = False, out: Path
     elif comparison.kind in ("noise", "watch"):
         series = [_columns(e.folder, comparison.kind) for e in entries]
     written = [tables.write_json(doc, out / "comparison.json"),
-               tables.write_deltas_csv(comparison, out / "comparison.csv"),
-               overlays.curves_png(comparison, docs, out / "overlay.png", title, series)]
+               tables.write_deltas_csv(comparison, out / "comparison.csv")]
+    overlay = overlays.curves_png(comparison, docs, out / "overlay.png", title, series)
+    written += [overlay] if overlay is not None else []
     if comparison.kind == "tone-steps":
         written += _spectra(entries, docs, labels, out, title, comparison.warnings)
     text = f"{title}\n" + summary.comparison_text(comparison)

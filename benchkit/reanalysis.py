@@ -78,6 +78,13 @@ def reanalyse(folder: Path, record: dict, say=lambda _m: None) -> tuple[dict, li
                                    info={"source": record.get("device"), "ended": "reanalysed",
                                          "accelerated": p.get("accelerated")})
         return result.to_dict(), files.drift_reports(result, log, folder)
+    if command == "gain":
+        from benchkit.gain_runs import analyze_gain
+        from benchkit.report.tables import write_json
+
+        path = _capture(folder, channel, say).path
+        result = analyze_gain(path, channel, p.get("ref_channel"), _band(p), p.get("load_ohms"))
+        return result.to_dict(), [write_json(result.to_dict(), folder / f"{CAPTURE}.gain.json")]
     if command == "noise":
         from benchkit.noise_runs import analyze_noise_capture
 

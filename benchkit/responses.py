@@ -315,7 +315,7 @@ def response_run(
         stim = sweep_stimulus(sw.SyncSweep.design(span_hz[0], span_hz[1], seconds, rate), level_dbfs, out_ch,
                               backend.n_outputs, lead)
     partial = folder / f"{name}.partial.wav"
-    extra = {"reference_channel": ref_channel, "output_vpk_per_fs": backend.output_vpk_per_fs}
+    extra = {"reference_channel": ref_channel}
     plan = {**planned_sidecar(stim, channel, backend, note), **extra}
     if calibration is not None:
         apply_calibration(plan, calibration, calibration_file, channel)

@@ -150,6 +150,7 @@ def planned_sidecar(stim, channel: int, backend, note: str) -> dict:
         "marker_start": stim.marker_start,
         "n_samples": stim.n_samples,
         "aligned_on": backend.reference_input() or 1,
+        "output_vpk_per_fs": backend.output_vpk_per_fs,
         "note": note,
     }
     describe = getattr(backend, "describe", None)
@@ -239,6 +240,7 @@ def apply_calibration(side: dict, profile, path: str | None, channel: int) -> No
         "uncertainty_db": profile.uncertainty.get("total_db"),
         "dc_coupled": profile.dc_coupled,
         "output_vpk_per_fs": profile.output_vpk_per_fs,
+        "input_vpk_per_fs": profile.input_vpk_per_fs,
         "loopback_response": profile.loopback_response,
         "ac_corner_hz": profile.ac_corner_hz,
     }

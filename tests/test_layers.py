@@ -61,7 +61,7 @@ def test_pyvisa_is_an_optional_extra():
     assert not any(isinstance(n, ast.Import) and any(a.name.startswith("pyvisa") for a in n.names) for n in top.body)
 
 
-@pytest.mark.parametrize("command", ["analyze", "tone", "sweep", "power", "watch", "noise", "budget", "drift", "calibrate", "pad",
+@pytest.mark.parametrize("command", ["analyze", "tone", "sweep", "power", "watch", "noise", "gain", "budget", "drift", "calibrate", "pad",
                                      "demo", "models", "compare", "log list", "log show", "log note", "log tag",
                                      "log export", "log rebuild", "log reanalyse", "log remove"])
 def test_every_command_has_help_with_an_example(command):

@@ -160,7 +160,13 @@ def _noise_figures(doc: dict) -> list[Figure]:
     return out
 
 
-_FIGURES = {"noise": _noise_figures, "watch": _watch_figures, "tone-steps": _step_figures, "power": _power_figures, "response": _response_figures,
+def _gain_figures(doc: dict) -> list[Figure]:
+    at = f"{doc.get('frequency_hz', 0):.4g} Hz, drive {doc.get('drive_dbfs', 0):g} dBFS"
+    return [Figure("gain_db", "gain", _num(doc.get("gain_db")), "dB", None, at=at, headline=True),
+            Figure("phase_deg", "phase", _num(doc.get("phase_deg")), "deg", None, at=at)]
+
+
+_FIGURES = {"gain": _gain_figures, "noise": _noise_figures, "watch": _watch_figures, "tone-steps": _step_figures, "power": _power_figures, "response": _response_figures,
             "drift": _drift_figures}
 
 

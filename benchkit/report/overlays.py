@@ -105,7 +105,7 @@ def _lines(series, labels, path: Path, title: str, warnings, xlabel: str, ylabel
     return _finish(fig, ax, path, title, warnings, "", "best", 0.09)
 
 
-def curves_png(comparison, docs: list[dict], path: Path, title: str, series=None) -> Path:
+def curves_png(comparison, docs: list[dict], path: Path, title: str, series=None) -> Path | None:
     """The overlay of a comparison's kind: THD+N against power (tone and
     power runs), magnitude and phase (responses); from ``series`` (x, y
     arrays a run): volts against time (drift), noise density against
@@ -127,7 +127,7 @@ def curves_png(comparison, docs: list[dict], path: Path, title: str, series=None
                       "dB re 1 FS^2/Hz", True)
     if kind == "watch":
         return _lines(series, labels, path, f"{title}: THD+N while watched", warnings, "time (s)", "THD+N (dB)", False)
-    raise ValueError(f"no overlay for results of kind {kind!r}")
+    return None  # a single figure (gain): the delta table says it all
 
 
 def spectra_png(results, labels, path: Path, title: str, warnings=()) -> Path:

@@ -187,7 +187,7 @@ def write_drift_csv(result, path: Path) -> Path:
 
 
 #: The headline figures the catalog export gives a column each (units in the names).
-CATALOG_FIGURES = ("thdn_db", "noise_vrms", "noise_dbfs", "noise_a_vrms", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
+CATALOG_FIGURES = ("gain_db", "thdn_db", "noise_vrms", "noise_dbfs", "noise_a_vrms", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
                    "settled_v")
 
 

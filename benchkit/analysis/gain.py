@@ -1,0 +1,76 @@
+"""Voltage gain of a stage: the output's fundamental over the input's.
+
+The input is the stage's input as measured on a second interface input
+(wired straight from the driving output), or the drive as the calibrated
+output scale says it is. Both are fitted tones (:func:`analyze_tone`), so
+the ratio is of fundamentals, not of broadband levels.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from benchkit import units
+from benchkit.analysis.tone import ToneResult
+
+SCHEMA_VERSION = 1
+
+
+@dataclass(frozen=True)
+class GainResult:
+    frequency_hz: float
+    drive_dbfs: float
+    vin_vrms: float
+    vout_vrms: float
+    input_source: str  # "reference-channel" or "calibrated-drive"
+    phase_deg: float | None  # output against input, in (-180, 180]; None from the drive
+    output: ToneResult
+    load_ohms: float | None = None
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def gain_vv(self) -> float:
+        return self.vout_vrms / self.vin_vrms
+
+    @property
+    def gain_db(self) -> float:
+        return float(units.db_from_ratio(self.gain_vv))
+
+    @property
+    def inverting(self) -> bool | None:
+        return None if self.phase_deg is None else abs(self.phase_deg) > 90.0
+
+    def to_dict(self) -> dict:
+        return {
+            "kind": "gain", "schema_version": SCHEMA_VERSION,
+            "frequency_hz": self.frequency_hz, "drive_dbfs": self.drive_dbfs,
+            "gain_vv": self.gain_vv, "gain_db": self.gain_db, "vin_vrms": self.vin_vrms, "vout_vrms": self.vout_vrms,
+            "phase_deg": self.phase_deg, "inverting": self.inverting, "input_source": self.input_source,
+            "load_ohms": self.load_ohms, "output_thdn_db": self.output.thdn_db, "valid": self.output.valid,
+            "bandwidth_hz": list(self.output.bandwidth_hz) if self.output.bandwidth_hz else None,
+            "sample_rate_hz": self.output.sample_rate_hz,
+            "warnings": list(self.warnings) + list(self.output.warnings),
+        }
+
+
+def gain_of(output: ToneResult, drive_dbfs: float, reference: ToneResult | None = None,
+            output_vpk_per_fs: float | None = None, load_ohms: float | None = None) -> GainResult:
+    """The gain from the output's analysis and the input's: a reference
+    input's analysis (in volts), else the drive at ``output_vpk_per_fs``.
+
+    References
+    ----------
+    Voltage gain A = Vout / Vin, in dB 20 log10 A (circuit theory);
+    sine RMS = peak / sqrt(2).
+    """
+    if output.fundamental_vrms is None:
+        raise ValueError("the output needs a voltage scale")
+    if reference is not None:
+        if reference.fundamental_vrms is None:
+            raise ValueError("the reference input needs a voltage scale")
+        phase = (output.fundamental_phase_deg - reference.fundamental_phase_deg + 180.0) % 360.0 - 180.0
+        return GainResult(output.fundamental_hz, drive_dbfs, reference.fundamental_vrms, output.fundamental_vrms,
+                          "reference-channel", float(phase), output, load_ohms, tuple(reference.warnings))
+    vin = float(units.vrms_from_vpk(output_vpk_per_fs * units.ratio_from_db(drive_dbfs)))
+    return GainResult(output.fundamental_hz, drive_dbfs, vin, output.fundamental_vrms, "calibrated-drive", None, output,
+                      load_ohms)

@@ -1,0 +1,48 @@
+"""Gain runs: one tone step, the stage's output and its input measured in
+the same capture (or the input taken from the calibrated drive), stored,
+then analysed from disk."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from benchkit.analysis.gain import GainResult, gain_of
+from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
+from benchkit.errors import BenchkitError
+from benchkit.recordings import read_capture
+
+
+def analyze_gain(path: Path, channel: int = 1, ref_channel: int | None = None, bandwidth_hz=DEFAULT_BAND_HZ,
+                 load_ohms: float | None = None) -> GainResult:
+    """The gain of a one-step tone capture written by benchkit: the
+    measuring channel over ``ref_channel`` (the sidecar's reference input
+    by default), else over the drive at the calibrated output scale."""
+    from benchkit.runs import analyze_steps, is_stepped
+
+    rec = read_capture(path, channel)
+    if not is_stepped(rec):
+        raise BenchkitError(f"{path}: gain needs a tone capture that benchkit wrote (its sidecar lists the step)")
+    steps = analyze_steps(rec, bandwidth_hz, load_ohms)
+    step = steps.steps[-1]
+    if step.result.fundamental_vrms is None:
+        raise BenchkitError(f"{path}: the output has no voltage scale: give --calibration (or --volts-per-fs)")
+    side = rec.sidecar
+    cal = side.get("calibration") or {}
+    if ref_channel is None:
+        ref_channel = next((c["number"] for c in side.get("channels") or []
+                            if str(c.get("role", "")).startswith("reference")), None)
+    if ref_channel is not None:
+        ref = read_capture(path, ref_channel)
+        scale, _source = ref.channel_scale()
+        scale = scale or cal.get("input_vpk_per_fs")
+        if not scale:
+            raise BenchkitError(f"{path}: the reference input {ref_channel} has no voltage scale: calibrate the interface")
+        seg = side["stimulus"]["segments"][-1]
+        r = analyze_tone(ref.samples[int(seg["settled"]) : int(seg["end"])], rec.sample_rate_hz,
+                         fundamental_hz=float(seg["frequency_hz"]), bandwidth_hz=bandwidth_hz, volts_per_fs=scale)
+        return gain_of(step.result, step.drive_dbfs, reference=r, load_ohms=load_ohms)
+    out_scale = cal.get("output_vpk_per_fs") or side.get("output_vpk_per_fs")
+    if not out_scale:
+        raise BenchkitError(f"{path}: no reference input and no calibrated output scale: wire a reference input "
+                            "(--ref-channel) or give --calibration")
+    return gain_of(step.result, step.drive_dbfs, output_vpk_per_fs=float(out_scale), load_ohms=load_ohms)
