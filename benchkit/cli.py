@@ -1690,7 +1690,7 @@ def log_reanalyse(
 ) -> None:
     """Analyse a run again from its stored captures with the current analysis, and write its reports anew.
 
-    A tone or sweep run that was killed while it played is recovered from
+    A tone, sweep or power run killed while it played is recovered from
     its partial recording first (the steps recorded whole).
 
     Example: benchkit log reanalyse 20261202-101500-tone-bias-1.2A
