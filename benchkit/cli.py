@@ -619,11 +619,13 @@ def watch(
             _err(f"warning: {w}")
         scale = profile.stage_volts_per_fs if profile is not None else backend.inputs()[in_channel - 1].volts_per_fs
         dc, dc_scale, meter = _watch_dc(dc_source, dc_resource, backend, profile)
-        tone = SteadyTone(frequency, drive, backend.sample_rate_hz, None, in_channel, getattr(backend, "drive_output", 1),
-                          backend.n_outputs, scale, load, band, dc=dc, dc_scale=dc_scale)
-        params = dict(channel=in_channel, frequency_hz=frequency, level_dbfs=drive, load_ohms=load, bandwidth_hz=band)
-        run = _start_run(book, labels, "watch", backend, profile, calibration, params) if record else None
         try:
+            tone = SteadyTone(frequency, drive, backend.sample_rate_hz, None, in_channel,
+                              getattr(backend, "drive_output", 1), backend.n_outputs, scale, load, band, dc=dc,
+                              dc_scale=dc_scale)
+            params = dict(channel=in_channel, frequency_hz=frequency, level_dbfs=drive, load_ohms=load,
+                          bandwidth_hz=band)
+            run = _start_run(book, labels, "watch", backend, profile, calibration, params) if record else None
             with run if run is not None else contextlib.nullcontext():
                 code = _watch_loop(backend, tone, run, record_audio, duration, plain, json_lines)
         finally:
@@ -775,7 +777,7 @@ def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, j
                                           "note": "raw, unaligned recording of a watch"})
             written.append(audio)
         doc = summarise(log.path, {"frequency_hz": tone.frequency_hz, "level_dbfs": tone.level_dbfs,
-                                   "ended": stopped, "device": backend.name})
+                                   "ended": stopped, "device": backend.name, "conditions": tone.conditions()})
         from benchkit.report import tables
 
         written.insert(0, tables.write_json(doc, run.folder / "watch.json"))

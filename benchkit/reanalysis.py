@@ -9,6 +9,7 @@ that was killed while it played is first recovered from its partial recording
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 from benchkit.errors import BenchkitError
@@ -95,7 +96,13 @@ def reanalyse(folder: Path, record: dict, say=lambda _m: None) -> tuple[dict, li
         from benchkit.report.tables import write_json
         from benchkit.watch import summarise
 
+        old = {}
+        try:
+            old = json.loads((folder / "watch.json").read_text(encoding="utf-8")).get("conditions") or {}
+        except (OSError, ValueError):
+            pass  # a watch killed before it wrote its summary
         doc = summarise(folder / "readings.csv", {"frequency_hz": p.get("frequency_hz"), "level_dbfs": p.get("level_dbfs"),
-                                                  "ended": "reanalysed", "device": record.get("device")})
+                                                  "ended": "reanalysed", "device": record.get("device"),
+                                                  "conditions": old or {"bandwidth_hz": p.get("bandwidth_hz")}})
         return doc, [write_json(doc, folder / "watch.json"), folder / "readings.csv"]
     raise BenchkitError(f"runs of command {command!r} cannot be analysed again")

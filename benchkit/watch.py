@@ -123,6 +123,11 @@ class SteadyTone:
                             "ramp_s": RAMP_S, "block_s": self.block_n / rate, "update_s": self.update_n / rate,
                             "out_channel": out_channel}
 
+    def conditions(self) -> dict:
+        """What every reading was measured under."""
+        return {**self.description, "sample_rate_hz": self.sample_rate_hz, "bandwidth_hz": self.bandwidth_hz,
+                "volts_per_fs": self.volts_per_fs, "load_ohms": self.load_ohms, "method": "analyze_tone on the latest block"}
+
     # --- what a backend plays ----------------------------------------------
     @property
     def n_samples(self) -> int:
