@@ -1453,8 +1453,8 @@ def _run_argument():
 @contextlib.contextmanager
 def _book(bench: Optional[Path], write: bool = False):
     """The bench's logbook for a log command: one line and exit 1 when it
-    cannot be opened; a bench that cannot be written is read as it stands
-    unless ``write``."""
+    cannot be opened, or on a BenchkitError inside the block; a bench that
+    cannot be written is read as it stands unless ``write``."""
     from benchkit import logbook
 
     root = logbook.resolve_bench(bench)
@@ -1512,11 +1512,7 @@ def log_list(
     from benchkit import logbook
 
     with _book(bench) as book:
-        try:
-            entries = book.entries(logbook.parse_tags(tags), command, status, since, until, limit)
-        except BenchkitError as exc:
-            _err(f"benchkit: error: {exc}")
-            raise typer.Exit(EXIT_BAD_INPUT)
+        entries = book.entries(logbook.parse_tags(tags), command, status, since, until, limit)
     if as_json:
         from benchkit.report.tables import dumps
 
@@ -1548,12 +1544,8 @@ def log_show(
     Example: benchkit log show last
     """
     with _book(bench) as book:
-        try:
-            entry = book.entry(run)
-            record = book.read_record(entry.id)
-        except BenchkitError as exc:
-            _err(f"benchkit: error: {exc}")
-            raise typer.Exit(EXIT_BAD_INPUT)
+        entry = book.entry(run)
+        record = book.read_record(entry.id)
     if as_json:
         from benchkit.report.tables import dumps
 
@@ -1593,11 +1585,7 @@ def log_note(
     Example: benchkit log note last "swapped the 2200 uF output capacitor"
     """
     with _book(bench, write=True) as book:
-        try:
-            record = book.set_note(book.entry(run).id, text, append)
-        except BenchkitError as exc:
-            _err(f"benchkit: error: {exc}")
-            raise typer.Exit(EXIT_BAD_INPUT)
+        record = book.set_note(book.entry(run).id, text, append)
     _err(f"run {record['id']}: note: {record['note']}")
 
 
@@ -1615,13 +1603,9 @@ def log_tag(
     from benchkit import logbook
 
     with _book(bench, write=True) as book:
-        try:
-            if not tags and not remove:
-                raise BenchkitError("give tags key=value to set, or --remove KEY")
-            record = book.set_tags(book.entry(run).id, logbook.parse_tags(tags or []), remove)
-        except BenchkitError as exc:
-            _err(f"benchkit: error: {exc}")
-            raise typer.Exit(EXIT_BAD_INPUT)
+        if not tags and not remove:
+            raise BenchkitError("give tags key=value to set, or --remove KEY")
+        record = book.set_tags(book.entry(run).id, logbook.parse_tags(tags or []), remove)
     _err(f"run {record['id']}: tags: " + (" ".join(f"{k}={v}" for k, v in record["tags"].items()) or "none"))
 
 
@@ -1701,15 +1685,11 @@ def log_reanalyse(
     from benchkit.reanalysis import reanalyse
 
     with _book(bench, write=True) as book:
-        try:
-            entry = book.entry(run)
-            with book.resume(entry.id) as taken:
-                doc, written = reanalyse(taken.folder, taken.record, say=_err)
-                taken.record["reanalysed"] = logbook.now_iso()
-                _finish_run(written, taken, doc, as_json)
-        except BenchkitError as exc:
-            _err(f"benchkit: error: {exc}")
-            raise typer.Exit(EXIT_BAD_INPUT)
+        entry = book.entry(run)
+        with book.resume(entry.id) as taken:
+            doc, written = reanalyse(taken.folder, taken.record, say=_err)
+            taken.record["reanalysed"] = logbook.now_iso()
+            _finish_run(written, taken, doc, as_json)
         done = book.entry(entry.id)
     _err(f"run {done.id}: {done.status}; {_headline_text(done)}")
 
@@ -1724,13 +1704,9 @@ def log_remove(
     Example: benchkit log remove 20261202-101500-tone
     """
     with _book(bench, write=True) as book:
-        try:
-            for ref in runs:
-                dest = book.remove(book.entry(ref).id)
-                _err(f"moved {ref} to {dest}")
-        except BenchkitError as exc:
-            _err(f"benchkit: error: {exc}")
-            raise typer.Exit(EXIT_BAD_INPUT)
+        for ref in runs:
+            dest = book.remove(book.entry(ref).id)
+            _err(f"moved {ref} to {dest}")
 
 
 @app.command()
@@ -1755,26 +1731,22 @@ def compare(
     from benchkit.compare_runs import compare_runs
 
     with _book(bench, write=True) as book:
-        try:
-            refs = list(runs or [])
-            if last is not None:
-                if refs:
-                    raise BenchkitError("give runs or --last N, not both")
-                if last < 2:
-                    raise BenchkitError("--last wants at least 2")
-                if command is None:
-                    newest = book.entries(status="complete", limit=1)
-                    command = newest[0].command if newest else None
-                chosen = book.entries(command=command, status="complete", limit=last)
-                if len(chosen) < last:
-                    raise BenchkitError(f"the logbook has {len(chosen)} complete {command or ''} run(s), not {last}")
-                refs = [e.id for e in reversed(chosen)]
-            if len(refs) < 2:
-                raise BenchkitError("name two or more runs to compare, or --last 2")
-            report = compare_runs(book, refs, anyway=anyway, out=out)
-        except BenchkitError as exc:
-            _err(f"benchkit: error: {exc}")
-            raise typer.Exit(EXIT_BAD_INPUT)
+        refs = list(runs or [])
+        if last is not None:
+            if refs:
+                raise BenchkitError("give runs or --last N, not both")
+            if last < 2:
+                raise BenchkitError("--last wants at least 2")
+            if command is None:
+                newest = book.entries(status="complete", limit=1)
+                command = newest[0].command if newest else None
+            chosen = book.entries(command=command, status="complete", limit=last)
+            if len(chosen) < last:
+                raise BenchkitError(f"the logbook has {len(chosen)} complete {command or ''} run(s), not {last}")
+            refs = [e.id for e in reversed(chosen)]
+        if len(refs) < 2:
+            raise BenchkitError("name two or more runs to compare, or --last 2")
+        report = compare_runs(book, refs, anyway=anyway, out=out)
     _err(report.text)
     for path in report.files:
         _err(f"  wrote        {path}")
