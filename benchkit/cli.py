@@ -85,7 +85,7 @@ _LIVE = {
     "in_device": (Optional[str], lambda: typer.Option(None, "--in-device", help="A separate input interface (its clock offset is measured on the reference).")),
     "in_channel": (int, lambda: typer.Option(1, "--in-channel", help="Input carrying the stage output (through the pad), from 1.")),
     "out_channel": (int, lambda: typer.Option(1, "--out-channel", help="Output driving the stage, from 1 (real devices).")),
-    "rate": (float, lambda: typer.Option(48000.0, "--rate", help="Sample rate, Hz (real devices).")),
+    "rate": (float, lambda: typer.Option(48000.0, "--rate", help="Sample rate, Hz.")),
     "blocksize": (int, lambda: typer.Option(1024, "--blocksize", help="Frames per audio callback (real devices).")),
     "latency": (str, lambda: typer.Option("high", "--latency", help="Stream latency: low, high, or seconds (real devices).")),
     "drive_cap": (float, lambda: typer.Option(-12.0, "--drive-cap", help="Highest drive a real device may get, dBFS peak.")),
@@ -186,6 +186,7 @@ def analyze(
     power: bool = typer.Option(False, "--power", help="Stepped captures: power at the distortion limits, clipping onset and half (needs --load and volts)."),
     voltage_gain: bool = typer.Option(False, "--gain", help="A tone capture benchkit wrote: the stage's voltage gain, over --ref-channel (default: the sidecar's reference input) or the calibrated drive."),
     noise: bool = typer.Option(False, "--noise", help="The capture holds the stage's noise (input terminated): unweighted, A-weighted, hum (benchkit noise captures are recognised)."),
+    imd_method: Optional[str] = typer.Option(None, "--imd", help="The capture holds a two-tone test made elsewhere: modulation or difference, optionally with its tones, e.g. modulation:50:7000 (benchkit imd captures are recognised)."),
     rail: Optional[float] = typer.Option(None, "--rail", help="Describe the stage (se-class-a): its rail, V, for the expected ceiling."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     figures: dict = None,
@@ -213,7 +214,7 @@ def analyze(
                 docs.append(_analyze_drift_file(Path(path), time_col, value_col, out, **judge))
                 continue
             docs.append(_analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile, calibration,
-                                     (sweep_spec, ref_channel, ref_freq, smooth), power_opts, noise, voltage_gain))
+                                     (sweep_spec, ref_channel, ref_freq, smooth), power_opts, noise, voltage_gain, imd_method))
         except BenchkitError as exc:
             failed += 1
             _err(f"benchkit: error: {exc}")
@@ -257,6 +258,18 @@ def _analyze_drift_file(path: Path, time_col, value_col, out, dc_limit, nominal,
     return result.to_dict()
 
 
+def _parse_tones(text: str) -> tuple[float, float]:
+    """"60:7000" -> (60.0, 7000.0): the two tones of an IMD test."""
+    parts = text.split(":")
+    try:
+        f1, f2 = (float(units.parse_frequency(p)) for p in parts)
+    except (ValueError, BenchkitError):
+        raise BenchkitError(f"the tones are F1:F2 in Hz, e.g. 60:7000, got {text!r}") from None
+    if not 0 < f1 < f2:
+        raise BenchkitError(f"the tones {text!r}: F1 must be positive and below F2")
+    return f1, f2
+
+
 def _parse_sweep(text: str) -> tuple[float, float, float]:
     parts = text.split(":")
     try:
@@ -267,7 +280,8 @@ def _parse_sweep(text: str) -> tuple[float, float, float]:
 
 
 def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile=None, profile_path=None,
-                 response_opts=(None, None, 1000.0, None), power_opts=None, noise=False, voltage_gain=False) -> dict:
+                 response_opts=(None, None, 1000.0, None), power_opts=None, noise=False, voltage_gain=False,
+                 imd_method=None) -> dict:
     from dataclasses import replace
 
     from benchkit import responses, runs
@@ -294,6 +308,10 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
         _err(f"{path} channel {channel}: gain\n" + _gain_text(doc))
         return doc
 
+    from benchkit.imd_runs import is_imd
+
+    if imd_method is not None or is_imd(rec):
+        return _analyze_imd(rec, imd_method, volts_per_fs, load, out)
     if noise or is_noise(rec):
         ref = (units.vrms_from_watts(1.0, load), f"1 W into {load:g} ohm") if load is not None else (None, None)
         result = analyze_noise_capture(rec, band, volts_per_fs, *ref, traces=out is not None)
@@ -359,6 +377,30 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
     return doc
 
 
+def _analyze_imd(rec, imd_method: str | None, volts_per_fs, load, out) -> dict:
+    """A two-tone capture: benchkit's own (its sidecar lists the steps), or
+    one made elsewhere, analysed whole with the method and tones given."""
+    from benchkit.analysis.imd import analyze_imd
+    from benchkit.imd_runs import ImdStep, ImdSteps, analyze_imd_steps, is_imd, twin_tone
+    from benchkit.report import summary
+
+    if is_imd(rec) and imd_method is None:
+        result = analyze_imd_steps(rec, volts_per_fs, load, spectrum=out is not None)
+    else:
+        method, _sep, tones = imd_method.partition(":")
+        twin = twin_tone(method, *(_parse_tones(tones) if tones else (None, None)))
+        scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
+        r = analyze_imd(rec.samples, rec.sample_rate_hz, twin.method, twin.f1_hz, twin.f2_hz, scale, source, load,
+                        spectrum=out is not None)
+        result = ImdSteps(str(rec.path), rec.channel, twin, (ImdStep(None, r),), rec.warnings)
+    doc = result.to_dict()
+    _err(summary.imd_summary(doc, f"{rec.path} channel {rec.channel}: intermodulation"))
+    if out is not None:
+        for written in _files().imd_reports(result, Path(rec.path), rec.channel, out):
+            _err(f"  wrote        {written}")
+    return doc
+
+
 # --- live measurements ---------------------------------------------------------
 
 
@@ -380,7 +422,8 @@ def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pa
              f"input {backend.in_channel} measures it" + (f", input {backend.ref_channel} is the reference" if backend.ref_channel else ""))
         return backend
     pad = DEMO_PAD if sim_pad == "demo" else pads.parse_pad(sim_pad)
-    bench = virtual_bench(sim, parse_params(sim_params), pad=pad, seed=seed)
+    rate = (real or {}).get("sample_rate", 48000.0)
+    bench = virtual_bench(sim, parse_params(sim_params), pad=pad, seed=seed, sample_rate_hz=rate)
     pad_text = "no pad" if pad is None else f"pad {pad.r1_ohms:g}:{pad.r2_ohms:g} ohm ({1 / bench.pad_ratio():.2f}:1)"
     _err(f"device: virtual bench (simulated interface, stage {sim}, {pad_text}); nothing is played")
     return bench
@@ -924,13 +967,70 @@ def gain(
         params = dict(channel=in_channel, ref_channel=ref_channel, frequency_hz=frequency, level_dbfs=drive,
                       load_ohms=load, bandwidth_hz=band)
         with _start_run(book, labels, "gain", backend, profile, calibration, params) as run:
-            runs.tone_run(backend, run.folder, frequency, [drive], channel=in_channel, load_ohms=load,
-                          bandwidth_hz=band, calibration=profile, note=labels["note"], warnings=plan.warnings,
-                          calibration_file=None if calibration is None else str(calibration))
-            result = analyze_gain(run.folder / "capture.wav", in_channel, ref_channel, band, load)
+            path = runs.record_steps(backend, run.folder, frequency, [drive], channel=in_channel, calibration=profile,
+                                     note=labels["note"], warnings=plan.warnings,
+                                     calibration_file=None if calibration is None else str(calibration))
+            result = analyze_gain(path, in_channel, ref_channel, band, load)
             doc = result.to_dict()
             _err(_gain_text(doc))
             _finish_run([write_json(doc, run.folder / "capture.gain.json")], run, doc, as_json)
+
+
+@app.command()
+@_live_options
+@_bench_options
+def imd(
+    method: str = typer.Option("modulation", "--method", help="modulation: 60 Hz + 7 kHz at 4:1, sidebands of f2 (SMPTE RP120, IEC 60268-3); difference: 19 kHz + 20 kHz at 1:1, products at f2-f1 and 2f1-f2, 2f2-f1 (IEC 60268-3)."),
+    tones: Optional[str] = typer.Option(None, "--tones", help="The pair F1:F2 in Hz instead of the method's, e.g. 50:7000 or 13000:14000."),
+    ratio: Optional[float] = typer.Option(None, "--ratio", help="Amplitude of F1 over F2 instead of the method's (4 or 1)."),
+    levels: List[str] = typer.Option(["-20 dBFS"], "--level", help="Drive, the composite's peak at the interface output, e.g. -20dBFS (repeat for IMD against level)."),
+    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: levels also as the equivalent sine power."),
+    step: float = typer.Option(1.0, "--step", help="Seconds analysed at each level."),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
+    live: dict = None,
+    filing: dict = None,
+) -> None:
+    """Measure intermodulation distortion with a pair of tones, at one level or stepped.
+
+    Each level plays the pair with the composite's peak at that level
+    (the same peak as one tone at the level). The products m f1 + n f2
+    up to order 5 are listed with their levels; the method's figure is
+    the root sum of its orders (modulation: the sideband pairs over f2;
+    difference: d2 and d3 over the sum of the tones). The difference
+    method wants a 96 kHz rate (--rate 96000): at 48 kHz its tones sit at
+    the converters' band edge.
+
+    Example: benchkit imd --method modulation --level -30dBFS --level -20dBFS --level -14dBFS --load 8 --tag bias=1.2A
+
+    Safety: two tones at a composite peak load the stage like one tone of
+    that peak, but 19 and 20 kHz at high level heat a tweeter and a
+    stage's compensation quickly: into a dummy load only, start low.
+    """
+    from benchkit import runs
+    from benchkit.imd_runs import imd_run, twin_tone
+    from benchkit.report import summary
+    from benchkit.signals import check_level
+
+    with _live_run(), _logbook(filing) as (book, labels):
+        twin = twin_tone(method, *(_parse_tones(tones) if tones else (None, None)), ratio)
+        backend, profile = _live_setup(live, None)
+        in_channel, calibration = live["in_channel"], live["calibration"]
+        drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]
+        for d in drive:
+            check_level(d)
+        # the pre-flight probes at the stronger tone (f1 at 4:1; either at 1:1)
+        plan = runs.plan_run(backend, profile, drive, twin.f1_hz, in_channel, live["gain"], live["margin"], live["rail"],
+                             live["pad_rating"], load, live["btl"], say=_err)
+        for w in plan.warnings:
+            _err(f"warning: {w}")
+        params = dict(channel=in_channel, twin=twin.to_dict(), levels_dbfs=drive, load_ohms=load, step_s=step)
+        with _start_run(book, labels, "imd", backend, profile, calibration, params) as run:
+            result = imd_run(backend, run.folder, twin, drive, in_channel, load, labels["note"], profile,
+                             None if calibration is None else str(calibration), plan.warnings, step, spectrum=True)
+            doc = result.to_dict()
+            _err(summary.imd_summary(doc, f"intermodulation, {len(drive)} level(s)"))
+            written = _files().imd_reports(result, run.folder / "capture.wav", in_channel, run.folder)
+            _finish_run(written, run, doc, as_json)
 
 
 def _gain_text(d: dict) -> str:
@@ -1476,8 +1576,9 @@ def _book(bench: Optional[Path], write: bool = False):
 
 _SHORT = {"thdn_db": ("THD+N", "{:.1f} dB"), "noise_vrms": ("noise", None), "noise_dbfs": ("noise", "{:.1f} dBFS"),
           "power_w": ("P", None), "clipping_onset_w": ("onset", None), "low_3db_hz": ("-3dB lo", None),
-          "high_3db_hz": ("-3dB hi", None), "settled_v": ("settled", None)}
-_UNITS = {"noise_vrms": "Vrms", "power_w": "W", "clipping_onset_w": "W", "low_3db_hz": "Hz", "high_3db_hz": "Hz",
+          "high_3db_hz": ("-3dB hi", None), "settled_v": ("settled", None), "imd_db": ("IMD", "{:.1f} dB"),
+          "gain_db": ("gain", "{:+.2f} dB"), "noise_a_vrms": ("noise(A)", None)}
+_UNITS = {"noise_vrms": "Vrms", "noise_a_vrms": "Vrms", "power_w": "W", "clipping_onset_w": "W", "low_3db_hz": "Hz", "high_3db_hz": "Hz",
           "settled_v": "V"}
 
 
@@ -1497,7 +1598,7 @@ def _headline_text(entry) -> str:
 @log_app.command("list")
 def log_list(
     tags: List[str] = typer.Option([], "--tag", help="Only runs with this tag, key=value (repeatable: all must match)."),
-    command: Optional[str] = typer.Option(None, "--command", help="Only runs of this command: tone, sweep, power, drift."),
+    command: Optional[str] = typer.Option(None, "--command", help="Only runs of this command: tone, imd, sweep, power, gain, noise, drift, watch."),
     since: Optional[str] = typer.Option(None, "--since", help="Only runs started on or after this date (YYYY-MM-DD) or time."),
     until: Optional[str] = typer.Option(None, "--until", help="Only runs started on or before this date or time."),
     status: Optional[str] = typer.Option(None, "--status", help="Only runs in this state: complete, interrupted, failed, incomplete, running."),

@@ -6,7 +6,8 @@ capacitor-coupled into an 8 ohm dummy load, measured through a 10:1 pad into
 a line input of 2.0 V peak full scale, at 0.8 A and then 1.2 A of bias,
 ambient 23 degC. The report folder is a bench folder: every run is filed in
 its logbook (runs/ and logbook.sqlite), as the measuring commands file
-theirs. Each bias gets a 997 Hz tone at several levels and a power run
+theirs. Each bias gets a 997 Hz tone at several levels, an intermodulation
+run (60 Hz + 7 kHz at 4:1, stepped) and a power run
 (the power at 1 %, 0.1 % and 10 % THD+N beside the class-A budget's
 ceiling); at 1.2 A a synchronized sweep from 2 Hz gives the response (the
 output capacitor's corner into the load, the capacitor estimated from it)
@@ -27,6 +28,7 @@ from benchkit import units
 from benchkit.budget import ClassABudget
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
 from benchkit.compare_runs import compare_runs
+from benchkit.imd_runs import imd_run, twin_tone
 from benchkit.logbook import Logbook
 from benchkit.power_runs import power_run
 from benchkit.report import files as reports
@@ -39,6 +41,8 @@ FREQUENCY_HZ = 997.0
 #: Drive at the interface output; with the stage's gain of 10 and a 2 V
 #: peak output these give about 0.45, 1.4, 2.8 and 4 Vrms at the load.
 DRIVE_DBFS = (-30.0, -20.0, -14.0, -11.0)
+#: The intermodulation steps (modulation method), composite peak.
+IMD_DBFS = (-30.0, -20.0, -14.0)
 LOAD_OHMS = 8.0
 AMBIENT_C = 23.0
 #: The sweep: from 2 Hz (two octaves below the expected 9 Hz corner) to
@@ -123,6 +127,19 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
         tones.append((label, steps))
         files += written
         texts.append(summary.steps_summary(steps, f"Test stage B-2, {label}"))
+        say(f"virtual bench: stage B-2 at {label}, intermodulation (60 Hz + 7 kHz, 4:1) at {len(IMD_DBFS)} levels")
+        im_bench = virtual_bench("se-class-a", stage, pad=DEMO_PAD, seed=seed + 21 + i)
+
+        def imd_in(folder, im_bench=im_bench):
+            r = imd_run(im_bench, folder, twin_tone("modulation"), list(IMD_DBFS), load_ohms=LOAD_OHMS, note=NOTE,
+                        spectrum=True)
+            return r, reports.imd_reports(r, folder / "capture.wav", 1, folder)
+
+        im, written = _logged(book, "imd", bias, dict(channel=1, twin=twin_tone("modulation").to_dict(),
+                                                      levels_dbfs=list(IMD_DBFS), load_ohms=LOAD_OHMS,
+                                                      sample_rate_hz=im_bench.sample_rate_hz), imd_in)
+        files += written
+        texts.append(summary.imd_summary(im.to_dict(), f"Test stage B-2, {label}: intermodulation"))
         say(f"virtual bench: stage B-2 at {label}, power run to 10 % THD+N")
         budget = ClassABudget(RAIL_V, bias, LOAD_OHMS, VSAT_V)
         first = units.db_from_ratio(budget.peak_vpk / 20.0) - 40.0
@@ -176,7 +193,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                              lambda folder: _demo_drift(folder, seed))
     files += written
     comparisons = []
-    for command in ("tone", "power"):
+    for command in ("tone", "imd", "power"):
         got = book.entries(command=command, status="complete", limit=2)
         report = compare_runs(book, [e.id for e in reversed(got)],
                               title=f"Test stage B-2, {command} runs before and after the bias change")

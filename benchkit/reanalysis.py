@@ -2,7 +2,7 @@
 
 The current analysis runs on the stored raw captures (or a drift run's
 log.csv) with the options the run was made with (its record's
-``params``), and writes the reports again. A tone, sweep or power run
+``params``), and writes the reports again. A tone, IMD, sweep or power run
 that was killed while it played is first recovered from its partial recording
 (:func:`benchkit.runs.recover_capture`).
 """
@@ -86,6 +86,11 @@ def reanalyse(folder: Path, record: dict, say=lambda _m: None) -> tuple[dict, li
         path = _capture(folder, channel, say).path
         result = analyze_gain(path, channel, p.get("ref_channel"), _band(p), p.get("load_ohms"))
         return result.to_dict(), [write_json(result.to_dict(), folder / f"{CAPTURE}.gain.json")]
+    if command == "imd":
+        from benchkit.imd_runs import analyze_imd_steps
+
+        result = analyze_imd_steps(_capture(folder, channel, say), load_ohms=p.get("load_ohms"), spectrum=True)
+        return result.to_dict(), files.imd_reports(result, folder / f"{CAPTURE}.wav", channel, folder)
     if command == "noise":
         from benchkit.noise_runs import analyze_noise_capture
 

@@ -350,20 +350,37 @@ def tone_run(
     folder: Path,
     frequency_hz: float,
     levels_dbfs: list[float],
-    name: str = "capture",
-    channel: int = 1,
     load_ohms: float | None = None,
     bandwidth_hz: tuple[float, float] | None = DEFAULT_BAND_HZ,
-    note: str = "",
     traces: bool = False,
+    **record,
+) -> StepsResult:
+    """Play stepped tones, store the capture (:func:`record_steps`, which
+    takes ``record``: name, channel, note, calibration, step lengths ...),
+    then analyse every step of the stored capture."""
+    path = record_steps(backend, folder, frequency_hz, levels_dbfs, **record)
+    return analyze_steps(read_capture(path, record.get("channel", 1)), bandwidth_hz, load_ohms, traces=traces)
+
+
+def record_steps(
+    backend: capture.Backend,
+    folder: Path,
+    frequency_hz: float,
+    levels_dbfs: list[float],
+    name: str = "capture",
+    channel: int = 1,
+    note: str = "",
     calibration=None,
     calibration_file: str | None = None,
     warnings: tuple[str, ...] = (),
     step_s: float = 1.0,
     settle_s: float = 0.3,
-) -> StepsResult:
-    """Play stepped tones, store the capture, analyse every step
-    (``step_s`` analysed after ``settle_s`` of settling, each).
+    twin=None,
+) -> Path:
+    """Play stepped tones (or, with ``twin``, a
+    :class:`benchkit.signals.TwinTone` pair at each level) and store the
+    capture with its sidecar; returns its path (``step_s`` is analysed
+    after ``settle_s`` of settling, each step).
 
     The raw recording streams to ``NAME.partial.wav`` while it plays (kept
     if the run breaks off); the aligned capture and its sidecar go to
@@ -377,7 +394,7 @@ def tone_run(
 
     def play(levels, stem):
         stim = stepped_tones(frequency_hz, levels, backend.sample_rate_hz, step_s=step_s, settle_s=settle_s,
-                             out_channel=out_ch, n_out=backend.n_outputs, lead_s=lead)
+                             out_channel=out_ch, n_out=backend.n_outputs, lead_s=lead, twin=twin)
         partial = folder / f"{stem}.partial.wav"
         plan = planned_sidecar(stim, channel, backend, note)
         if calibration is not None:
@@ -387,8 +404,8 @@ def tone_run(
         side = capture_sidecar(cap, stim, channel, backend, note)
         if calibration is not None:
             apply_calibration(side, calibration, calibration_file, channel)
-        ppm = clock_offset_ppm(cap, stim)
-        side["clock_offset_ppm"] = ppm
+        # (a pair of tones is no single tone to time the clocks by)
+        side["clock_offset_ppm"] = clock_offset_ppm(cap, stim) if twin is None else None
         path = write_capture(folder / f"{stem}.wav", cap.samples, cap.sample_rate_hz, side)
         partial.unlink(missing_ok=True)
         planned.unlink(missing_ok=True)
@@ -431,4 +448,4 @@ def tone_run(
         warnings.append(f"the input clock runs {side['clock_offset_ppm']:+.1f} ppm against the output: separate clocks?")
     side["warnings"] = warnings
     write_capture_sidecar(path, side)
-    return analyze_steps(read_capture(path, channel), bandwidth_hz, load_ohms, traces=traces)
+    return path

@@ -106,6 +106,41 @@ def tone(frequency_hz: float, level_dbfs: float, seconds: float, rate: float, ph
     return units.ratio_from_db(level_dbfs) * np.sin(2 * np.pi * frequency_hz * t + phase) * fade(n, rate)
 
 
+@dataclass(frozen=True)
+class TwinTone:
+    """Two tones played together for an intermodulation test
+    (:mod:`benchkit.analysis.imd`): f1 and f2 in Hz, with f1's amplitude
+    ``ratio`` times f2's. A step's level is the composite's peak: the two
+    amplitudes sum to 10^(dBFS/20), so the converter, the stage and the
+    pre-flight see the peak of a single tone at that level (common
+    practice for two-tone levels)."""
+
+    method: str
+    f1_hz: float
+    f2_hz: float
+    ratio: float
+
+    def __post_init__(self):
+        if not (0 < self.f1_hz < self.f2_hz) or not self.ratio > 0:
+            raise BenchkitError(f"two tones need 0 < f1 < f2 and a positive ratio, got {self.f1_hz:g} Hz, "
+                                f"{self.f2_hz:g} Hz, {self.ratio:g}:1")
+
+    def amplitudes(self, level_dbfs: float) -> tuple[float, float]:
+        """Peak amplitudes of f1 and f2 (FS) at a composite level."""
+        total = float(units.ratio_from_db(level_dbfs))
+        return total * self.ratio / (1.0 + self.ratio), total / (1.0 + self.ratio)
+
+    def waveform(self, level_dbfs: float, seconds: float, rate: float) -> np.ndarray:
+        """The faded pair, sine phase each, composite peak at the level."""
+        n = int(round(seconds * rate))
+        t = np.arange(n) / rate
+        a1, a2 = self.amplitudes(level_dbfs)
+        return (a1 * np.sin(2 * np.pi * self.f1_hz * t) + a2 * np.sin(2 * np.pi * self.f2_hz * t)) * fade(n, rate)
+
+    def to_dict(self) -> dict:
+        return {"method": self.method, "f1_hz": self.f1_hz, "f2_hz": self.f2_hz, "ratio": self.ratio}
+
+
 def marker(rate: float) -> np.ndarray:
     """The alignment marker: a Hann-windowed logarithmic chirp."""
     n = int(round(MARKER_S * rate))
@@ -139,8 +174,10 @@ def stepped_tones(
     out_channel: int = 1,
     n_out: int = 2,
     lead_s: float = LEAD_S,
+    twin: TwinTone | None = None,
 ) -> Stimulus:
-    """Tones of one frequency at several levels, one after another.
+    """Tones of one frequency at several levels, one after another (or,
+    with ``twin``, the pair of an intermodulation test at each level).
 
     Parameters
     ----------
@@ -162,7 +199,13 @@ def stepped_tones(
         The output the tone plays on (from 1) and how many outputs there are.
     lead_s : float
         Silence before the marker (a real stream wants time to settle).
+    twin : TwinTone, optional
+        Play this pair at each level instead (``frequency_hz`` is then
+        f2, the segments' frequency; the stimulus kind is
+        "stepped-twin-tones").
     """
+    if twin is not None:
+        frequency_hz = twin.f2_hz
     if not levels_dbfs:
         raise BenchkitError("at least one level is needed")
     freqs = [float(f) for f in frequency_hz] if isinstance(frequency_hz, (list, tuple)) else [float(frequency_hz)] * len(levels_dbfs)
@@ -184,7 +227,8 @@ def stepped_tones(
     fade_n = int(round(FADE_S * rate))
     segments = []
     for f, lvl, step, settle in zip(freqs, levels_dbfs, steps, settles):
-        x = tone(f, lvl, settle + step + 2 * FADE_S, rate)
+        x = (twin.waveform(lvl, settle + step + 2 * FADE_S, rate) if twin is not None
+             else tone(f, lvl, settle + step + 2 * FADE_S, rate))
         settled = pos + fade_n + int(round(settle * rate))
         segments.append(Segment(pos, pos + x.size, settled, pos + x.size - fade_n, f, float(lvl), out_channel))
         pieces += [x, np.zeros(int(gap_s * rate))]
@@ -193,6 +237,7 @@ def stepped_tones(
     mono = np.concatenate(pieces)
     out = np.zeros((mono.size, n_out))
     out[:, out_channel - 1] = mono
+    extra = {} if twin is None else {"twin": twin.to_dict()}
     return Stimulus(
         samples=out,
         sample_rate_hz=float(rate),
@@ -200,7 +245,8 @@ def stepped_tones(
         marker=mk,
         marker_start=marker_start,
         description={
-            "kind": "stepped-tones",
+            "kind": "stepped-tones" if twin is None else "stepped-twin-tones",
+            **extra,
             "frequency_hz": freqs[0] if len(set(freqs)) == 1 else freqs,
             "levels_dbfs": [float(v) for v in levels_dbfs],
             "step_s": steps[0] if len(set(steps)) == 1 else steps,

@@ -26,11 +26,11 @@ def test_demo_runs_and_its_outputs_parse(tmp_path):
     assert "virtual bench" in res.stderr
     # the demo's folder is a bench folder: every run filed in its logbook
     names = [f.name.split("-", 2)[2] for f in run_folders(out)]
-    assert names == ["tone-bias-0.8A", "power-bias-0.8A", "tone-bias-1.2A", "power-bias-1.2A", "sweep-bias-1.2A",
-                     "noise-bias-1.2A", "drift-bias-1.2A"]
+    assert names == ["tone-bias-0.8A", "imd-bias-0.8A", "power-bias-0.8A", "tone-bias-1.2A", "imd-bias-1.2A",
+                     "power-bias-1.2A", "sweep-bias-1.2A", "noise-bias-1.2A", "drift-bias-1.2A"]
     listed = json.loads(run_cli("log", "list", "--bench", str(out), "--json").stdout)
-    assert [r["status"] for r in listed["runs"]] == ["complete"] * 7
-    for folder in run_folders(out)[:4:2]:
+    assert [r["status"] for r in listed["runs"]] == ["complete"] * 9
+    for folder in run_folders(out)[:6:3]:
         side = json.loads((folder / "capture.json").read_text())
         assert side["kind"] == "capture" and side["scale_source"] == "simulation"
         doc = json.loads((folder / "capture.result.json").read_text())
@@ -46,6 +46,11 @@ def test_demo_runs_and_its_outputs_parse(tmp_path):
     assert rows["thdn_db@-11dBFS"]["verdict [1]"] == "better"
     assert (tones / "spectra.png").exists() and (tones / "overlay.png").exists()
     assert (out / "summary.txt").read_text().count("bias") >= 4
+    # and less intermodulation at every level (the same curvature, less of it)
+    (imd,) = (out / "comparisons").glob("*-imd-*")
+    with (imd / "comparison.csv").open() as fh:
+        rows = {r["figure"]: r for r in csv.DictReader(fh)}
+    assert all(rows[f"imd_db@{d:+g}dBFS"]["verdict [1]"] == "better" for d in (-30, -20, -14))
 
 
 def test_tone_on_the_poly_model(tmp_path):

@@ -63,3 +63,17 @@ def test_sox_square_wave_thd_through_the_cli(sox_path, tmp_path):
     partial = math.sqrt(sum(ratio(k) ** 2 for k in range(3, 20, 2)))
     assert doc["thd_pct"] == pytest.approx(100 * partial, abs=0.01)
     assert doc["harmonic_profile"] == "high-order-tail"
+
+
+def test_sox_two_tones_have_their_ratio_and_no_products(sox_path, tmp_path):
+    # sox synth makes the pair (60 Hz and 7 kHz, one channel each) and remix
+    # mixes them at 0.4 and 0.1: the 4:1 pair of the modulation method
+    # (SMPTE RP120, from memory). Nothing in the pair is nonlinear, so the
+    # analysis must find the ratio and no products of its own making.
+    wav = _sox(sox_path, tmp_path / "pair.wav", "sine", "60", "sine", "7000", "remix", "1v0.4,2v0.1", bits=24, seconds=2.0)
+    res = run_cli("analyze", str(wav), "--imd", "modulation", "--json")
+    assert res.returncode == 0, res.stderr
+    step = json.loads(res.stdout)["steps"][0]
+    assert step["tone_ratio"] == pytest.approx(4.0, rel=1e-4)
+    assert step["f1_hz"] == pytest.approx(60.0, abs=1e-3) and step["f2_hz"] == pytest.approx(7000.0, abs=1e-3)
+    assert step["imd_db"] < -120.0

@@ -166,7 +166,23 @@ def _gain_figures(doc: dict) -> list[Figure]:
             Figure("phase_deg", "phase", _num(doc.get("phase_deg")), "deg", None, at=at)]
 
 
-_FIGURES = {"gain": _gain_figures, "noise": _noise_figures, "watch": _watch_figures, "tone-steps": _step_figures, "power": _power_figures, "response": _response_figures,
+def _imd_figures(doc: dict) -> list[Figure]:
+    steps = [s for s in doc.get("steps") or [] if isinstance(s, dict) and _num(s.get("drive_dbfs")) is not None]
+    out = []
+    for s in steps:
+        at, key = f"drive {s['drive_dbfs']:g} dBFS", f"@{s['drive_dbfs']:+g}dBFS"
+        out.append(Figure(f"imd_db{key}", "IMD", _num(s.get("imd_db")), "dB", "lower", at=at))
+        for order, o in sorted((s.get("orders") or {}).items()):
+            out.append(Figure(f"imd{order}_db{key}", f"IMD order {order}", _num((o or {}).get("db")), "dB", "lower", at=at))
+    valid = [s for s in steps if s.get("valid", True) and _num(s.get("imd_db")) is not None]
+    if valid:
+        top = max(valid, key=lambda s: s["drive_dbfs"])
+        out.append(Figure("imd_db", "IMD at the top valid step", _num(top["imd_db"]), "dB", "lower",
+                          at=f"drive {top['drive_dbfs']:g} dBFS", headline=True))
+    return out
+
+
+_FIGURES = {"imd": _imd_figures, "gain": _gain_figures, "noise": _noise_figures, "watch": _watch_figures, "tone-steps": _step_figures, "power": _power_figures, "response": _response_figures,
             "drift": _drift_figures}
 
 
@@ -206,6 +222,8 @@ def conditions_of(doc: dict, record: dict | None = None) -> dict:
         "mag_units": doc.get("mag_units"),
         "nominal_v": _num(doc.get("nominal_v")),
         "snr_reference_vrms": _num((doc.get("snr_reference") or {}).get("vrms")),
+        "imd_method": doc.get("method") if doc.get("kind") == "imd" else None,
+        "tones_hz": list(doc["tones_hz"]) if isinstance(doc.get("tones_hz"), list) else None,
     }
 
 
@@ -220,6 +238,8 @@ _WHAT = {
     "mag_units": "what the magnitude is referred to",
     "nominal_v": "the nominal value the drift is judged against",
     "snr_reference_vrms": "the output the SNR is referred to",
+    "imd_method": "the intermodulation method",
+    "tones_hz": "the pair of tones",
 }
 
 

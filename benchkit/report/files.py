@@ -88,3 +88,20 @@ def drift_reports(result, log: Path, out: Path) -> list[Path]:
 
 def noise_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
     return _result_csv_png(result, path, channel, out, "noise", tables.write_noise_csv, plots.noise_png)
+
+
+def imd_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
+    """STEM.imd.json, .csv and .png: the IMD against level, and the top
+    valid step's spectrum with its products when the analysis kept it."""
+    report_folder(out)
+    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    doc = result.to_dict()
+    top = result.top() or result.steps[-1]
+    spectrum = None
+    if top.result.spectrum is not None:
+        spectrum = (*top.result.spectrum, doc["steps"][result.steps.index(top)])
+    return [
+        tables.write_json(doc, out / f"{stem}.imd.json"),
+        tables.write_imd_csv(result, out / f"{stem}.imd.csv"),
+        overlays.imd_png([doc], [path.name], out / f"{stem}.imd.png", path.name, spectrum=spectrum),
+    ]

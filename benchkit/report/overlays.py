@@ -9,6 +9,7 @@ import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
+from benchkit import units
 from benchkit.report.plots import _hz, _log_hz_axis, _save
 
 #: one colour a run, in run order (the first is the baseline)
@@ -34,6 +35,19 @@ def _finish(fig, ax, path: Path, title: str, warnings, caption: str, legend: str
     return _save(fig, path)
 
 
+def _percent_axes(ax, log_x: bool, x_log_label: str, x_label: str, ylabel: str) -> None:
+    """A distortion figure in % on a log axis against power (log) or a level in dB."""
+    if log_x:
+        ax.set_xscale("log")
+        ax.xaxis.set_major_formatter(_PLAIN)
+        ax.xaxis.set_minor_formatter(_PLAIN)
+    ax.set_xlabel(x_log_label if log_x else x_label)
+    ax.set_yscale("log")
+    ax.yaxis.set_major_formatter(_PLAIN)
+    ax.yaxis.set_minor_formatter(_PLAIN)
+    ax.set_ylabel(ylabel)
+
+
 def distortion_png(docs, labels, path: Path, title: str, warnings=(), key: str = "thdn_pct",
                    ylabel: str = "THD+N (%)", caption: str = "") -> Path:
     """THD+N (or ``key``) against output power, log-log, for the steps of
@@ -50,16 +64,7 @@ def distortion_png(docs, labels, path: Path, title: str, warnings=(), key: str =
         bad = [(x, y) for x, y, s in zip(xs, ys, run) if s.get("valid") is False]
         if bad:
             ax.plot(*zip(*bad), "x", ms=8, color="#b00020")
-    if have_power:
-        ax.set_xscale("log")
-        ax.xaxis.set_major_formatter(_PLAIN)
-        ax.set_xlabel("output power (W)")
-    else:
-        ax.set_xlabel("fundamental (dBFS)")
-    ax.set_yscale("log")
-    ax.yaxis.set_major_formatter(_PLAIN)
-    ax.yaxis.set_minor_formatter(_PLAIN)
-    ax.set_ylabel(ylabel)
+    _percent_axes(ax, have_power, "output power (W)", "fundamental (dBFS)", ylabel)
     return _finish(fig, ax, path, title, warnings, caption, "upper left", 0.1)
 
 
@@ -105,6 +110,63 @@ def _lines(series, labels, path: Path, title: str, warnings, xlabel: str, ylabel
     return _finish(fig, ax, path, title, warnings, "", "best", 0.09)
 
 
+def _drive(step: dict) -> float:
+    """A two-tone step's drive, or for a capture made elsewhere the
+    composite's peak as recorded, dBFS."""
+    if step.get("drive_dbfs") is not None:
+        return step["drive_dbfs"]
+    return float(units.dbfs_from_peak(units.ratio_from_db(step["f1_dbfs"]) + units.ratio_from_db(step["f2_dbfs"])))
+
+
+def imd_png(docs, labels, path: Path, title: str, warnings=(), spectrum=None) -> Path:
+    """IMD (the total, and order 2 and 3 of the first run) against the
+    composite's equivalent sine power, or against the drive when a step has
+    no power, for one or more two-tone results; invalid steps crossed.
+    ``spectrum`` (freq_hz, level_dbfs, step document) adds a panel below
+    with that step's spectrum and its products marked."""
+    fig = Figure(figsize=(10, 7.4 if spectrum is not None else 5.6))
+    ax = fig.add_subplot(2, 1, 1) if spectrum is not None else fig.add_subplot(1, 1, 1)
+    runs = [[s for s in d.get("steps") or [] if s.get("imd_pct")] for d in docs]
+    have_power = all(s.get("equivalent_power_w") for run in runs for s in run)
+    for i, (label, run) in enumerate(zip(labels, runs)):
+        xs = [s["equivalent_power_w"] if have_power else _drive(s) for s in run]
+        ax.plot(xs, [s["imd_pct"] for s in run], "-o", ms=3.5, lw=1.2, color=_colour(i), label=f"{label}: total")
+        if i == 0 and len(docs) == 1:
+            for order, style in (("2", "--"), ("3", ":")):
+                ys = [((s.get("orders") or {}).get(order) or {}).get("pct") for s in run]
+                if any(ys):
+                    ax.plot(xs, ys, style, lw=1.0, color=_colour(i), label=f"order {order}")
+        bad = [(x, s["imd_pct"]) for x, s in zip(xs, run) if s.get("valid") is False]
+        if bad:
+            ax.plot(*zip(*bad), "x", ms=8, color="#b00020")
+    _percent_axes(ax, have_power, "equivalent sine power of the composite peak (W)", "drive, composite peak (dBFS)",
+                  f"IMD, {docs[0].get('method', '')} method (%)")
+    if spectrum is not None:
+        f, level, step = spectrum
+        axs = fig.add_subplot(2, 1, 2)
+        f1, f2 = step["f1_hz"], step["f2_hz"]
+        # linear, around what the method looks at: f2's sidebands, or the
+        # band from the difference product up past the upper third-order one
+        lo, hi = (f2 - 5.5 * f1, f2 + 5.5 * f1) if step.get("method", docs[0].get("method")) == "modulation" else (
+            0.0, min(f[-1], 2 * f2 - f1 + 2 * (f2 - f1)))
+        sel = (f >= max(lo, 10.0)) & (f <= hi)
+        axs.plot(f[sel], level[sel], lw=0.7, color=_colour(0))
+        shown = [p for p in step.get("products") or [] if not p.get("at_floor") and lo <= p["frequency_hz"] <= hi]
+        db = [units.dbfs_from_peak(max(p["amplitude_fs"], 1e-15)) for p in shown]
+        axs.plot([p["frequency_hz"] for p in shown], db, "v", ms=5, color="#c2571a")
+        for k, (p, y) in enumerate(sorted(zip(shown, db), key=lambda q: -q[1])[:8]):
+            axs.annotate(f"{p['label']}\n{p['level_db']:.1f} dB", (p["frequency_hz"], y), textcoords="offset points",
+                         xytext=(0, 8 + 14 * (k % 2)), ha="center", fontsize=7, color="#c2571a")
+        axs.set_xlim(max(lo, 0.0), hi)
+        axs.set_ylim(max(float(np.median(level[sel])) - 30.0, -220.0), 5.0)
+        axs.xaxis.set_major_formatter(FuncFormatter(_hz))
+        axs.set_xlabel("frequency (Hz)")
+        axs.set_ylabel("dBFS" if step["drive_dbfs"] is None else f"dBFS, drive {step['drive_dbfs']:g} dBFS")
+        axs.grid(True, which="both", color="#e6e6e6", lw=0.5)
+        fig.subplots_adjust(hspace=0.32)
+    return _finish(fig, ax, path, f"{title}: intermodulation", warnings, "", "upper left", 0.09)
+
+
 def curves_png(comparison, docs: list[dict], path: Path, title: str, series=None) -> Path | None:
     """The overlay of a comparison's kind: THD+N against power (tone and
     power runs), magnitude and phase (responses); from ``series`` (x, y
@@ -118,6 +180,8 @@ def curves_png(comparison, docs: list[dict], path: Path, title: str, series=None
         name = "THD+N" if metric == "thdn" else "THD"
         return distortion_png(docs, labels, path, f"{title}: {name} against power", warnings, f"{metric}_pct",
                               f"{name} (%)")
+    if kind == "imd":
+        return imd_png(docs, labels, path, title, warnings)
     if kind == "response":
         return _responses(docs, labels, path, title, warnings)
     if kind == "drift":

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from benchkit import units
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import ToneResult
 
@@ -272,4 +273,36 @@ def noise_summary(d: dict, title: str = "") -> str:
         lines.append("  hum          no mains lines above the noise")
     for w in d.get("warnings") or []:
         lines.append(f"  warning      {w}")
+    return "\n".join(lines)
+
+
+def imd_summary(d: dict, title: str = "") -> str:
+    """An intermodulation result (its document): a line a step, then the
+    strongest products of the top valid step."""
+    lines = [title] if title else []
+    f1, f2 = d["tones_hz"]
+    ref = "re f2" if d["method"] == "modulation" else "re f1 + f2"
+    lines.append(f"  method       {d['method']}: {f1:g} Hz + {f2:g} Hz at {d['tone_ratio']:g}:1; products {ref}")
+    lines.append("  drive dBFS    peak at stage   IMD %      IMD dB   order 2 dB  order 3 dB")
+    for s in d["steps"]:
+        peak = (format_si(s["peak_v"], "V") if s.get("peak_v") is not None
+                else f"{units.dbfs_from_peak(max(s['peak_fs'], 1e-12)):.2f} dBFS")
+        o = s.get("orders") or {}
+        mark = "" if s["valid"] else "   NOT VALID (clipped capture)"
+        drive = "-" if s["drive_dbfs"] is None else f"{s['drive_dbfs']:.2f}"
+        lines.append(f"  {drive:>9}   {peak:>13}  {s['imd_pct']:9.4g}  {s['imd_db']:8.2f}  "
+                     f"{(o.get('2') or {}).get('db', float('nan')):10.1f}  {(o.get('3') or {}).get('db', float('nan')):10.1f}{mark}")
+    valid = [s for s in d["steps"] if s["valid"]]
+    if valid:
+        top = max(valid, key=lambda s: s["drive_dbfs"] or 0.0)
+        shown = sorted((p for p in top["products"] if not p["at_floor"]), key=lambda p: -p["level_db"])[:6]
+        if shown:
+            at = "" if top["drive_dbfs"] is None else f"at {top['drive_dbfs']:g} dBFS: "
+            lines.append(f"  products     {at}"
+                         + "; ".join(f"{p['label']} ({p['frequency_hz']:.0f} Hz) {p['level_db']:.1f} dB" for p in shown))
+    seen = set()
+    for w in list(d.get("warnings") or []) + [w for s in d["steps"] for w in s.get("warnings") or []]:
+        if w not in seen:
+            seen.add(w)
+            lines.append(f"  warning      {w}")
     return "\n".join(lines)

@@ -10,6 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
+from benchkit import units
 from benchkit.analysis.tone import ToneResult
 
 
@@ -187,7 +188,7 @@ def write_drift_csv(result, path: Path) -> Path:
 
 
 #: The headline figures the catalog export gives a column each (units in the names).
-CATALOG_FIGURES = ("gain_db", "thdn_db", "noise_vrms", "noise_dbfs", "noise_a_vrms", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
+CATALOG_FIGURES = ("gain_db", "thdn_db", "imd_db", "noise_vrms", "noise_dbfs", "noise_a_vrms", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
                    "settled_v")
 
 
@@ -225,4 +226,29 @@ def write_noise_csv(result, path: Path) -> Path:
             if scale:
                 row.append(f"{math.sqrt(p[k]) * scale:.6e}")
             w.writerow(row)
+    return path
+
+
+def write_imd_csv(result, path: Path) -> Path:
+    """A row per product of each step of a two-tone run (the tones first,
+    as orders 1), with the step's figures on its tones' rows."""
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["drive_dbfs", "label", "order", "freq_hz", "amplitude_fs", "vrms", "level_db", "at_floor",
+                    "imd_pct", "order2_pct", "order3_pct", "valid"])
+        for s in result.steps:
+            r = s.result
+            vpf = r.volts_per_fs
+
+            def vrms(a):
+                return "" if vpf is None else f"{a * vpf / math.sqrt(2):.6g}"
+
+            drive = "" if s.drive_dbfs is None else f"{s.drive_dbfs:.3f}"
+            figures = [f"{r.imd_pct:.5g}"] + ["" if r.orders.get(k) is None else f"{100 * r.orders[k]:.5g}" for k in (2, 3)]
+            for label, f, a in (("f1", r.f1_hz, r.a1_fs), ("f2", r.f2_hz, r.a2_fs)):
+                w.writerow([drive, label, 1, f"{f:.4f}", f"{a:.6e}", vrms(a),
+                            f"{units.db_from_ratio(a / r.reference_fs):.2f}", "false", *figures, r.valid])
+            for p in r.products:
+                w.writerow([drive, p.label, p.order, f"{p.frequency_hz:.4f}", f"{p.amplitude_fs:.6e}",
+                            vrms(p.amplitude_fs), f"{p.level_db:.2f}", str(p.at_floor).lower(), *figures, r.valid])
     return path
