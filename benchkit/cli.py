@@ -23,6 +23,7 @@ from benchkit.analysis.tone import SCHEMA_VERSION, analyze_tone
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
 from benchkit.logbook import CATALOG
+from benchkit.zout_runs import DEFAULT_FREQS_HZ as DEFAULT_ZOUT_FREQS
 from benchkit.recordings import read_capture
 
 app = typer.Typer(
@@ -101,6 +102,7 @@ _LIVE = {
     "sim_param": (List[str], lambda: typer.Option([], "--sim-param", help="Stage parameter key=value (repeatable), e.g. bias=1.2.")),
     "sim_pad": (str, lambda: typer.Option("demo", "--sim-pad", help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200).")),
     "seed": (int, lambda: typer.Option(1, "--seed", help="Seed of the virtual bench (latency, noise).")),
+    "sim_load": (Optional[str], lambda: typer.Option(None, "--sim-load", help="The virtual stage's dummy load: ohms, or 'off' (the pad alone loads it); default the model's own (8 ohm).")),
 }
 
 
@@ -475,6 +477,12 @@ def _live_setup(live: dict, ref_channel: int | None):
     if profile is not None:
         real["volts_per_fs"] = profile.stage_volts_per_fs
     backend = _open_backend(live["device"], live["sim"], live["sim_param"], live["sim_pad"], live["seed"], real)
+    if live["sim_load"] is not None and backend.name == "virtual":
+        text = live["sim_load"].strip().lower()
+        try:
+            backend.connect_load(None if text == "off" else float(text))
+        except ValueError:
+            raise BenchkitError(f"--sim-load is ohms or 'off', got {live['sim_load']!r}") from None
     if profile is not None:
         if backend.name != "virtual":  # the virtual bench knows its own output
             backend.output_vpk_per_fs = profile.output_vpk_per_fs
@@ -950,20 +958,11 @@ def gain(
     from benchkit import runs
     from benchkit.gain_runs import analyze_gain
     from benchkit.report.tables import write_json
-    from benchkit.signals import check_level
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
-        backend, profile = _live_setup(live, ref_channel)
+        backend, profile, ref_channel, drive, plan = _one_level(live, ref_channel, level, frequency, load)
         in_channel, calibration = live["in_channel"], live["calibration"]
-        if ref_channel is None:
-            ref_channel = backend.reference_input() if backend.name == "virtual" else None
-        drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
-        check_level(drive)
-        plan = runs.plan_run(backend, profile, [drive], frequency, in_channel, live["gain"], live["margin"],
-                             live["rail"], live["pad_rating"], load, live["btl"], say=_err)
-        for w in plan.warnings:
-            _err(f"warning: {w}")
         params = dict(channel=in_channel, ref_channel=ref_channel, frequency_hz=frequency, level_dbfs=drive,
                       load_ohms=load, bandwidth_hz=band)
         with _start_run(book, labels, "gain", backend, profile, calibration, params) as run:
@@ -1031,6 +1030,109 @@ def imd(
             _err(summary.imd_summary(doc, f"intermodulation, {len(drive)} level(s)"))
             written = _files().imd_reports(result, run.folder / "capture.wav", in_channel, run.folder)
             _finish_run(written, run, doc, as_json)
+
+
+@app.command()
+@_live_options
+@_bench_options
+def zout(
+    load: float = typer.Option(..., "--load", help="The dummy load switched on for the loaded reading, ohms (the damping factor is quoted against it).", show_default=False),
+    freqs: List[float] = typer.Option(list(DEFAULT_ZOUT_FREQS), "--freq", help="Frequencies read, Hz (repeatable)."),
+    level: str = typer.Option("-20 dBFS", "--level", help="Drive level at the interface output, e.g. -20dBFS (the same for both readings)."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired to the stage's input (the virtual bench's is 2): the readings become complex gains, so a reactive Zout (a coupling capacitor) is read right."),
+    open_load: Optional[float] = typer.Option(None, "--open-load", help="What the pad and input present to the stage while unloaded, ohms (default: from the calibration's pad, or the virtual bench's; else taken as open)."),
+    from_runs: List[str] = typer.Option([], "--from", help="Two logged runs instead of measuring: the unloaded one, then the loaded one (tone, gain or sweep runs)."),
+    yes: bool = typer.Option(False, "--yes", help="Do not ask before switching the load (scripted use on a real interface)."),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
+    live: dict = None,
+    filing: dict = None,
+) -> None:
+    """Measure the stage's output impedance and damping factor: the output unloaded, then loaded.
+
+    The same tones (one a --freq) play twice at one level: with the load
+    disconnected, then connected; Zout = R (V_open / V_loaded - 1), with
+    the pad's own loading of the "open" output taken into account when it
+    is known, and the damping factor R / |Zout|. With a reference input
+    the readings are complex, so a capacitor's reactance at low
+    frequencies shows as such. --from takes two logged runs instead (two
+    sweeps give Zout across frequency).
+
+    Example: benchkit zout --load 8 --tag bias=1.2A
+
+    Safety: switch the load only while no tone plays (benchkit waits for
+    you between the two readings). A stage with an output transformer
+    (valve amplifiers) must not run unloaded: do not use this on one.
+    """
+    from benchkit.report import summary
+    from benchkit.zout_runs import zout_run
+
+    with _live_run(), _logbook(filing) as (book, labels):
+        if from_runs:
+            _zout_from_runs(book, labels, from_runs, load, open_load, as_json)
+            return
+        backend, profile, ref_channel, drive, plan = _one_level(live, ref_channel, level, 1000.0, load)
+        in_channel, calibration = live["in_channel"], live["calibration"]
+        if open_load is None:
+            if backend.name == "virtual":
+                open_load = backend.pad_input_ohms()
+            elif profile is not None and profile.pad is not None and profile.pad.pad() is not None:
+                open_load = profile.pad.pad().input_impedance(profile.pad.input_ohms or float("inf"))
+
+        def switch(ohms):
+            if backend.name == "virtual":
+                backend.connect_load(ohms)
+            elif not yes:
+                what = "disconnect the load" if ohms is None else f"connect the {ohms:g} ohm load"
+                typer.prompt(f"{what} (no tone is playing), then press Enter", default="", show_default=False, err=True)
+
+        params = dict(channel=in_channel, ref_channel=ref_channel, load_ohms=load, open_load_ohms=open_load,
+                      frequencies_hz=list(freqs), level_dbfs=drive)
+        with _start_run(book, labels, "zout", backend, profile, calibration, params) as run:
+            result = zout_run(backend, run.folder, load, freqs, drive, switch, open_load, in_channel, ref_channel,
+                              labels["note"], profile, None if calibration is None else str(calibration), plan.warnings)
+            doc = result.to_dict()
+            _err(summary.zout_summary(doc, "output impedance"))
+            _finish_run(_files().zout_reports(result, run.folder, run.folder), run, doc, as_json)
+
+
+def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optional[float], as_json: bool) -> None:
+    """The output impedance from two logged runs' stored results, filed as
+    a run of its own (with copies of the two results, for reanalysis)."""
+    from benchkit.analysis.zout import output_impedance
+    from benchkit.compare_runs import stored_result
+    from benchkit.report import summary
+    from benchkit.report.tables import write_json
+    from benchkit.zout_runs import readings_of_result
+
+    if len(refs) != 2:
+        raise BenchkitError("--from takes two runs: the unloaded one, then the loaded one")
+    entries = [book.entry(r) for r in refs]
+    docs = [stored_result(book, e)[1] for e in entries]
+    result = output_impedance(*(readings_of_result(d) for d in docs), load, open_load)
+    params = {"from": [e.id for e in entries], "load_ohms": load, "open_load_ohms": open_load}
+    with _start_run(book, labels, "zout", "logbook", None, None, params) as run:
+        copies = [write_json(d, run.folder / f"{state}.result.json") for d, state in zip(docs, ("open", "loaded"))]
+        doc = result.to_dict()
+        _err(summary.zout_summary(doc, f"output impedance from {entries[0].id} (open) and {entries[1].id} (loaded)"))
+        _finish_run(_files().zout_reports(result, run.folder, run.folder) + copies, run, doc, as_json)
+
+
+def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: float, load: Optional[float]):
+    """The backend, profile, reference input (the virtual bench's own by
+    default), drive and pre-flight of a command that plays one level."""
+    from benchkit import runs
+    from benchkit.signals import check_level
+
+    backend, profile = _live_setup(live, ref_channel)
+    if ref_channel is None:
+        ref_channel = backend.reference_input() if backend.name == "virtual" else None
+    drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
+    check_level(drive)
+    plan = runs.plan_run(backend, profile, [drive], frequency, live["in_channel"], live["gain"], live["margin"],
+                         live["rail"], live["pad_rating"], load, live["btl"], say=_err)
+    for w in plan.warnings:
+        _err(f"warning: {w}")
+    return backend, profile, ref_channel, drive, plan
 
 
 def _gain_text(d: dict) -> str:

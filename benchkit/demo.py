@@ -13,7 +13,9 @@ ceiling); at 1.2 A a synchronized sweep from 2 Hz gives the response (the
 output capacitor's corner into the load, the capacitor estimated from it)
 and distortion against frequency, the output noise is measured with the
 input terminated (unweighted, A-weighted, SNR re 1 W, the supply's hum),
-and the midpoint is logged as the stage warms (the virtual thermal model in accelerated time: 25 minutes of it in
+the output impedance is read with the load off and then on (the loop's
+output resistance, and the coupling capacitor's reactance at low
+frequencies), and the midpoint is logged as the stage warms (the virtual thermal model in accelerated time: 25 minutes of it in
 no time). The before/after comparisons are made by benchkit.compare_runs,
 as 'benchkit compare' makes them, into comparisons/.
 """
@@ -187,6 +189,21 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                                                        reference=f"1 W into {LOAD_OHMS:g} ohm", length_s=NOISE_S,
                                                        sample_rate_hz=nz_bench.sample_rate_hz), noise_in)
     files += written
+    say(f"virtual bench: stage B-2 at {label}, output impedance (the load off, then on)")
+    from benchkit.zout_runs import DEFAULT_FREQS_HZ, zout_run
+
+    z_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 13)
+
+    def zout_in(folder):
+        r = zout_run(z_bench, folder, LOAD_OHMS, DEFAULT_FREQS_HZ, SWEEP_DBFS, z_bench.connect_load,
+                     z_bench.pad_input_ohms(), ref_channel=z_bench.reference_input(), note=NOTE)
+        return r, reports.zout_reports(r, folder, folder)
+
+    zout, written = _logged(book, "zout", bias, dict(channel=1, ref_channel=z_bench.reference_input(), load_ohms=LOAD_OHMS,
+                                                     open_load_ohms=z_bench.pad_input_ohms(),
+                                                     frequencies_hz=list(DEFAULT_FREQS_HZ), level_dbfs=SWEEP_DBFS,
+                                                     sample_rate_hz=z_bench.sample_rate_hz), zout_in)
+    files += written
     say(f"virtual bench: stage B-2 at {label}, midpoint drift while it warms (accelerated time)")
     drift, written = _logged(book, "drift", bias, dict(source="virtual", limit_v=0.5, band_v=0.01, window_s=60.0,
                                                        nominal_v=RAIL_V / 2, accelerated=DRIFT_STEP_S),
@@ -203,6 +220,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     texts.append(f"Before/after ({la} -> {lb}), 'benchkit compare':\n" + "\n\n".join(r.text for r in comparisons))
     texts.append(summary.response_summary(response, f"Test stage B-2, {label}: response"))
     texts.append(summary.noise_summary(noise.to_dict(), f"Test stage B-2, {label}: output noise, input terminated"))
+    texts.append(summary.zout_summary(zout.to_dict(), f"Test stage B-2, {label}: output impedance into {LOAD_OHMS:g} ohm"))
     texts.append(summary.drift_summary(drift, f"Test stage B-2, {label}: midpoint after power-on "
                                               "(virtual thermal model, accelerated 10x)"))
     text = "\n\n".join(texts)

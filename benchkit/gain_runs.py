@@ -17,14 +17,20 @@ def analyze_gain(path: Path, channel: int = 1, ref_channel: int | None = None, b
     """The gain of a one-step tone capture written by benchkit: the
     measuring channel over ``ref_channel`` (the sidecar's reference input
     by default), else over the drive at the calibrated output scale."""
+    return step_gains(path, channel, ref_channel, bandwidth_hz, load_ohms)[-1]
+
+
+def step_gains(path: Path, channel: int = 1, ref_channel: int | None = None, bandwidth_hz=DEFAULT_BAND_HZ,
+               load_ohms: float | None = None) -> list[GainResult]:
+    """The gain at every step of a stepped-tone capture written by benchkit
+    (each at its own frequency and level), as :func:`analyze_gain`."""
     from benchkit.runs import analyze_steps, is_stepped
 
     rec = read_capture(path, channel)
     if not is_stepped(rec):
         raise BenchkitError(f"{path}: gain needs a tone capture that benchkit wrote (its sidecar lists the step)")
     steps = analyze_steps(rec, bandwidth_hz, load_ohms)
-    step = steps.steps[-1]
-    if step.result.fundamental_vrms is None:
+    if steps.steps[0].result.fundamental_vrms is None:
         raise BenchkitError(f"{path}: the output has no voltage scale: give --calibration (or --volts-per-fs)")
     side = rec.sidecar
     cal = side.get("calibration") or {}
@@ -37,12 +43,16 @@ def analyze_gain(path: Path, channel: int = 1, ref_channel: int | None = None, b
         scale = scale or cal.get("input_vpk_per_fs")
         if not scale:
             raise BenchkitError(f"{path}: the reference input {ref_channel} has no voltage scale: calibrate the interface")
-        seg = side["stimulus"]["segments"][-1]
-        r = analyze_tone(ref.samples[int(seg["settled"]) : int(seg["end"])], rec.sample_rate_hz,
-                         fundamental_hz=float(seg["frequency_hz"]), bandwidth_hz=bandwidth_hz, volts_per_fs=scale)
-        return gain_of(step.result, step.drive_dbfs, reference=r, load_ohms=load_ohms)
+        out = []
+        for seg, step in zip(side["stimulus"]["segments"], steps.steps):
+            src = ref if not seg.get("file") else read_capture(path.parent / Path(str(seg["file"])).name, ref_channel)
+            r = analyze_tone(src.samples[int(seg["settled"]) : int(seg["end"])], rec.sample_rate_hz,
+                             fundamental_hz=float(seg["frequency_hz"]), bandwidth_hz=bandwidth_hz, volts_per_fs=scale)
+            out.append(gain_of(step.result, step.drive_dbfs, reference=r, load_ohms=load_ohms))
+        return out
     out_scale = cal.get("output_vpk_per_fs") or side.get("output_vpk_per_fs")
     if not out_scale:
         raise BenchkitError(f"{path}: no reference input and no calibrated output scale: wire a reference input "
                             "(--ref-channel) or give --calibration")
-    return gain_of(step.result, step.drive_dbfs, output_vpk_per_fs=float(out_scale), load_ohms=load_ohms)
+    return [gain_of(step.result, step.drive_dbfs, output_vpk_per_fs=float(out_scale), load_ohms=load_ohms)
+            for step in steps.steps]

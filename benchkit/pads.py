@@ -42,6 +42,10 @@ class Pad:
         shunt = parallel(self.r2_ohms, input_ohms)
         return shunt / (self.r1_ohms + shunt)
 
+    def input_impedance(self, input_ohms: float = math.inf) -> float:
+        """What the pad presents to the stage: R1 + R2 || Rin."""
+        return self.r1_ohms + parallel(self.r2_ohms, input_ohms)
+
     def resistor_watts(self, vrms_in: float, input_ohms: float = math.inf) -> tuple[float, float]:
         """Average power in R1 and in R2 for a stage output of ``vrms_in``."""
         vout = vrms_in * self.ratio(input_ohms)

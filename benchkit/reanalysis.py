@@ -91,6 +91,18 @@ def reanalyse(folder: Path, record: dict, say=lambda _m: None) -> tuple[dict, li
 
         result = analyze_imd_steps(_capture(folder, channel, say), load_ohms=p.get("load_ohms"), spectrum=True)
         return result.to_dict(), files.imd_reports(result, folder / f"{CAPTURE}.wav", channel, folder)
+    if command == "zout":
+        from benchkit.zout_runs import readings_of_result, zout_of_captures
+
+        load, open_load = float(p["load_ohms"]), p.get("open_load_ohms")
+        if p.get("from"):
+            from benchkit.analysis.zout import output_impedance
+
+            docs = [json.loads((folder / f"{state}.result.json").read_text(encoding="utf-8")) for state in ("open", "loaded")]
+            result = output_impedance(*(readings_of_result(d) for d in docs), load, open_load)
+        else:
+            result = zout_of_captures(folder, load, open_load, channel, p.get("ref_channel"))
+        return result.to_dict(), files.zout_reports(result, folder, folder)
     if command == "noise":
         from benchkit.noise_runs import analyze_noise_capture
 

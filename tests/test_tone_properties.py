@@ -11,11 +11,14 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from benchkit import analyze_tone
 from benchkit.recordings import read_capture, write_capture
+
+from conftest import cosine
 
 RATE = 48000
 SETTINGS = dict(deadline=None, max_examples=25)
@@ -98,3 +101,29 @@ def test_dc_offset_is_measured_and_leaves_the_ac_figures(offset, f, phase, h2, h
     assert math.isclose(b.dc_fs - a.dc_fs, offset, abs_tol=1e-9)
     assert math.isclose(a.thd_db, b.thd_db, abs_tol=1e-6)
     assert math.isclose(a.fundamental_fs, b.fundamental_fs, rel_tol=1e-9)
+
+
+@pytest.mark.parametrize("f0", [20.0, 50.0, 100.0, 997.0])
+def test_a_clean_tone_has_no_dropouts(f0):
+    # whatever the number of periods in a chunk of the check, a steady sine
+    # in a little noise is not a broken capture
+    rate = 48000.0
+    x = cosine(f0, rate, 1.0, 0.3) + 1e-6 * np.random.default_rng(2).standard_normal(48000)
+    r = analyze_tone(x, rate, fundamental_hz=f0, check_dropouts=True)
+    assert r.valid and not any("dropout" in w for w in r.warnings)
+
+
+@pytest.mark.parametrize("f0", [50.0, 997.0])
+@pytest.mark.parametrize("fault", ["gap", "skip"])
+def test_a_gap_or_a_skipped_block_is_found(f0, fault):
+    # a 5 ms gap (the stream delivered zeros), or 256 samples lost (a block
+    # skipped: the phase jumps)
+    rate = 48000.0
+    x = cosine(f0, rate, 1.2, 0.3)
+    if fault == "gap":
+        x[24000:24240] = 0.0
+    else:
+        x = np.concatenate([x[:24000], x[24256:]])
+    r = analyze_tone(x[:48000], rate, fundamental_hz=f0, check_dropouts=True)
+    assert not r.valid
+    assert any("dropouts" in w for w in r.warnings)

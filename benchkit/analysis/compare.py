@@ -182,7 +182,20 @@ def _imd_figures(doc: dict) -> list[Figure]:
     return out
 
 
-_FIGURES = {"imd": _imd_figures, "gain": _gain_figures, "noise": _noise_figures, "watch": _watch_figures, "tone-steps": _step_figures, "power": _power_figures, "response": _response_figures,
+def _zout_figures(doc: dict) -> list[Figure]:
+    at = f"{doc['reference_hz']:g} Hz" if _num(doc.get("reference_hz")) is not None else ""
+    out = [Figure("zout_ohms", "output impedance", _num(doc.get("zout_ohms")), "ohm", "lower", at=at, headline=True),
+           Figure("damping_factor", "damping factor", _num(doc.get("damping_factor")), "", "higher", at=at,
+                  headline=True)]
+    for p in doc.get("points") or []:
+        f = _num(p.get("frequency_hz"))
+        if f is not None:
+            out.append(Figure(f"zout_ohms@{f:.4g}Hz", "output impedance", _num(p.get("zout_ohms")), "ohm", "lower",
+                              at=f"{f:.4g} Hz"))
+    return out
+
+
+_FIGURES = {"output-impedance": _zout_figures, "imd": _imd_figures, "gain": _gain_figures, "noise": _noise_figures, "watch": _watch_figures, "tone-steps": _step_figures, "power": _power_figures, "response": _response_figures,
             "drift": _drift_figures}
 
 

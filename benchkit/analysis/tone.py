@@ -431,7 +431,11 @@ def find_dropouts(x: np.ndarray, residual: np.ndarray, sample_rate: float, f0: f
         found.update(float(i * size / sample_rate) for i in np.flatnonzero(rms > limit))
     chunks = min(16, int(x.size * f0 / sample_rate // 8))
     if chunks >= 4:
-        step = x.size // chunks
+        # whole periods a chunk, so the projection's image at -f0 cancels
+        # (with a fraction of a period left over it moves each chunk's
+        # phasor by up to 1/(4 pi periods): 1 % at 8 periods, a false alarm)
+        step = int(round(math.floor(x.size / chunks * f0 / sample_rate) * sample_rate / f0))
+        chunks = min(chunks, x.size // step)
         n = np.arange(chunks * step)
         ph = np.exp(-2j * np.pi * np.mod(f0 / sample_rate * n, 1.0))
         z = (x[: n.size] * ph).reshape(chunks, step).sum(axis=1) * (2.0 / step)

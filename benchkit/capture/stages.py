@@ -54,11 +54,27 @@ class StageModel:
             if not math.isfinite(value):
                 raise BenchkitError(f"stage parameter {name} must be a finite number")
         self.seed = seed
+        if self.params.get("rout", 0.0) < 0:
+            raise BenchkitError("stage parameter rout must not be negative")
         self.validate()
         self.reset()
 
     def validate(self) -> None:
         """Refuse parameter values the model cannot represent."""
+
+    #: what process() returns: the open-circuit (Thevenin) voltage, or
+    #: (False) the voltage across the load the model was given
+    OPEN_CIRCUIT = True
+
+    def reloaded(self, now_ohms: float, wired_ohms: float) -> tuple[list[float], list[float]]:
+        """The analog transfer (numerator, denominator in s) from what
+        :meth:`process` returns to the voltage across ``now_ohms``, when
+        the model's output was across ``wired_ohms``: a Thevenin source of
+        the ``rout`` parameter, R / (R + rout)."""
+        r = self.params.get("rout", 0.0)
+        if self.OPEN_CIRCUIT:
+            return [now_ohms], [now_ohms + r]
+        return [now_ohms * (wired_ohms + r)], [wired_ohms * (now_ohms + r)]
 
     def reset(self) -> None:
         """Back to power-on: cold, discharged, time zero."""
@@ -94,7 +110,8 @@ class StageModel:
 class Ideal(StageModel):
     NAME = "ideal"
     SUMMARY = "gain only: v_out = gain x v_in"
-    PARAMS = (Param("gain", 10.0, "V/V", "voltage gain"),)
+    PARAMS = (Param("gain", 10.0, "V/V", "voltage gain"),
+              Param("rout", 0.0, "ohm", "output resistance (a Thevenin source: the load divides it)"))
 
     def _transfer(self, v_in, rate):
         return self.params["gain"] * v_in
@@ -109,6 +126,7 @@ class Poly(StageModel):
         Param("a3", 0.0, "1/V^2", "third-order coefficient"),
         Param("a4", 0.0, "1/V^3", "fourth-order coefficient"),
         Param("a5", 0.0, "1/V^4", "fifth-order coefficient"),
+        Param("rout", 0.0, "ohm", "output resistance (a Thevenin source: the load divides it)"),
     )
 
     def _transfer(self, v_in, rate):
@@ -122,6 +140,7 @@ class HardClip(StageModel):
     PARAMS = (
         Param("gain", 10.0, "V/V", "voltage gain"),
         Param("vclip", 9.5, "V", "clipping level, either polarity"),
+        Param("rout", 0.0, "ohm", "output resistance (a Thevenin source: the load divides it)"),
     )
 
     def validate(self):
@@ -173,7 +192,9 @@ class SingleEndedClassA(StageModel):
         Param("rth", 1.5, "degC/W", "junction-to-ambient thermal resistance"),
         Param("tau_s", 240.0, "s", "thermal time constant"),
         Param("mid_tc_mv", -10.0, "mV/degC", "midpoint drift per degree of junction temperature"),
+        Param("rout", 0.2, "ohm", "output resistance of the loop, before the coupling capacitor"),
     )
+    OPEN_CIRCUIT = False
 
     def validate(self):
         self._positive("rail", "bias", "load", "coupling_uf", "gain", "loop_gain", "knee", "tau_s")
@@ -273,6 +294,14 @@ class SingleEndedClassA(StageModel):
         load_v = load_v + ripple * (np.sin(2 * np.pi * f_r * t) + 0.5 * np.sin(4 * np.pi * f_r * t + 0.7))
         sigma = p["noise_uv"] * 1e-6 * math.sqrt((rate / 2.0) / _NOISE_BAND_HZ)
         return load_v + sigma * self._rng.standard_normal(v_in.size)
+
+    def reloaded(self, now_ohms: float, wired_ohms: float) -> tuple[list[float], list[float]]:
+        """The output is the loop's node through rout and the coupling
+        capacitor C into the load: across R it is R / (R + rout + 1/sC) of
+        the node. From across ``wired_ohms`` to across ``now_ohms``:
+        R_now (s C (R_w + rout) + 1) / (R_w (s C (R_now + rout) + 1))."""
+        r, c = self.params["rout"], self.params["coupling_uf"] * 1e-6
+        return [now_ohms * c * (wired_ohms + r), now_ohms], [wired_ohms * c * (now_ohms + r), wired_ohms]
 
     def _couple(self, node: np.ndarray, rate: float) -> np.ndarray:
         p = self.params

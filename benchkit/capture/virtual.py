@@ -135,6 +135,50 @@ class VirtualBench:
         self.stop_on_clip = True
         self.last_latency_samples: int | None = None
         self.effective_clock_ppm = 0.0
+        #: the dummy load on the stage's output, ohms (None: disconnected,
+        #: the pad alone loads it); by default the load the model was given
+        self.load_ohms: float | None = self.wired_load_ohms
+
+    @property
+    def wired_load_ohms(self) -> float:
+        """The load the stage model's output is across (its ``load``
+        parameter, else 8 ohm)."""
+        return float(self.stage.params.get("load", 8.0))
+
+    def connect_load(self, ohms: float | None) -> None:
+        """Switch the dummy load on the stage's output (None: off)."""
+        if ohms is not None and not ohms > 0:
+            raise BenchkitError(f"a load must be positive, got {ohms:g} ohm")
+        self.load_ohms = ohms
+
+    def pad_input_ohms(self) -> float:
+        """What the pad and input present to the stage's output."""
+        return self.spec.input_ohms if self.pad is None else self.pad.input_impedance(self.spec.input_ohms)
+
+    def _reload(self, v: np.ndarray, rate: float, state: dict) -> np.ndarray:
+        """The stage's output as its load now takes it: the model's output
+        is across its wired load (in parallel with the pad); the stage's
+        output impedance (StageModel.reloaded) meets the load switched
+        now. ``state`` carries the filter from block to block."""
+        from benchkit.pads import parallel
+
+        pad_in = self.pad_input_ohms()
+        wired = parallel(self.wired_load_ohms, pad_in)
+        now = pad_in if self.load_ohms is None else parallel(self.load_ohms, pad_in)
+        if self.stage.params.get("rout", 0.0) == 0.0 and self.stage.OPEN_CIRCUIT:
+            return v
+        if not self.stage.OPEN_CIRCUIT and now == wired:
+            return v  # the stage as the model was given it
+        b, a = self.stage.reloaded(now, wired)
+        if len(a) == 1:
+            return v * (b[0] / a[0])
+        bz, az = scipy.signal.bilinear(b, a, fs=rate)
+        zi = state.get("zi")
+        if zi is None or state.get("ba") != (tuple(bz), tuple(az)):
+            zi = scipy.signal.lfilter_zi(bz, az) * v[0] if v.size else np.zeros(1)
+        out, state["zi"] = scipy.signal.lfilter(bz, az, v, zi=zi)
+        state["ba"] = (tuple(bz), tuple(az))
+        return out
 
     # --- the protocol -----------------------------------------------------
     @property
@@ -178,6 +222,7 @@ class VirtualBench:
             "interface": {k: getattr(s, k) for k in s.__dataclass_fields__},
             "pad": None if self.pad is None else self.pad.to_dict(s.input_ohms),
             "stage": self.stage.describe(),
+            "load_ohms": self.load_ohms,
         }
 
     def play_record(self, stimulus: Stimulus, partial: Path | None = None) -> RawRecording:
@@ -203,7 +248,7 @@ class VirtualBench:
         elif self.wiring == "pad":
             first = analog * self.pad_ratio()
         else:
-            first = self.stage.process(analog, rate * OVERSAMPLE) * self.pad_ratio()
+            first = self._reload(self.stage.process(analog, rate * OVERSAMPLE), rate * OVERSAMPLE, {}) * self.pad_ratio()
         at_input = [first, analog]
         channels = [self._adc(scipy.signal.resample_poly(v, 1, OVERSAMPLE, window=h)) for v in at_input]
         channels += [self._adc(np.zeros(total)) for _ in range(2, s.n_inputs)]
@@ -329,6 +374,7 @@ class _StreamChain:
         self.hist_in = np.zeros(int(math.ceil(self.h.size / OVERSAMPLE)))
         self.hist_up = [np.zeros(self.h.size - 1) for _ in range(2)]
         self.adc_state = [{}, {}]
+        self.load_state: dict = {}
         self.n = 0
 
     def process(self, drive: np.ndarray) -> np.ndarray:
@@ -345,7 +391,8 @@ class _StreamChain:
         elif b.wiring == "pad":
             first = analog * b.pad_ratio()
         else:
-            first = b.stage.process(analog, self.rate * OVERSAMPLE) * b.pad_ratio()
+            first = b._reload(b.stage.process(analog, self.rate * OVERSAMPLE), self.rate * OVERSAMPLE,
+                              self.load_state) * b.pad_ratio()
         chans = []
         for i, v in enumerate((first, analog)):
             ext_up = np.concatenate([self.hist_up[i], v])

@@ -105,3 +105,13 @@ def imd_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
         tables.write_imd_csv(result, out / f"{stem}.imd.csv"),
         overlays.imd_png([doc], [path.name], out / f"{stem}.imd.png", path.name, spectrum=spectrum),
     ]
+
+
+def zout_reports(result, folder: Path, out: Path, name: str = "zout") -> list[Path]:
+    """NAME.json, .csv and .png of an output impedance result."""
+    report_folder(out)
+    return [
+        tables.write_json(result.to_dict(), out / f"{name}.json"),
+        tables.write_zout_csv(result, out / f"{name}.csv"),
+        plots.zout_png(result, out / f"{name}.png", folder.name),
+    ]

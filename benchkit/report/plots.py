@@ -284,3 +284,38 @@ def noise_png(result, path: Path, title: str) -> Path:
                  fontsize=10)
     fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.11)
     return _save(fig, path)
+
+
+def zout_png(result, path: Path, title: str) -> Path:
+    """|Zout| against frequency (log-log), its resistance beside it, and
+    the damping factor on the right-hand axis."""
+    pts = [p for p in result.points if p.zout_ohms > 0]
+    fig = Figure(figsize=(10, 5.6))
+    ax = fig.add_subplot(1, 1, 1)
+    f = np.array([p.frequency_hz for p in pts])
+    ax.plot(f, [p.zout_ohms for p in pts], "-o", ms=4, color=_TRACE, lw=1.2, label="|Zout|")
+    if result.method == "gain-ratio":
+        ax.plot(f, [max(p.zout.real, 1e-6) for p in pts], "--", color=_FAINT, lw=1.0, label="resistance")
+    bad = [p for p in pts if not p.valid]
+    if bad:
+        ax.plot([p.frequency_hz for p in bad], [p.zout_ohms for p in bad], "x", ms=8, color="#b00020")
+    _log_hz_axis(ax)
+    ax.set_yscale("log")
+    ax.set_xlabel("frequency (Hz)")
+    ax.set_ylabel("output impedance (ohm)")
+    right = ax.twinx()
+    right.set_yscale("log")
+    lo, hi = ax.get_ylim()
+    right.set_ylim(result.load_ohms / lo, result.load_ohms / hi)  # DF = R / |Z|: the same curve, read on the right
+    right.set_ylabel(f"damping factor re {result.load_ohms:g} ohm")
+    plain = FuncFormatter(lambda v, _pos: f"{v:g}")
+    for a in (ax, right):
+        a.yaxis.set_major_formatter(plain)
+        a.yaxis.set_minor_formatter(plain)
+    ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
+    ax.legend(loc="upper right", fontsize=8, frameon=False)
+    ref = result.at()
+    head = "" if ref is None else f": {ref.zout_ohms:.3g} ohm, damping factor {ref.damping_factor:.3g} at {ref.frequency_hz:g} Hz"
+    ax.set_title(f"{title}: output impedance{head}", loc="left", fontsize=10)
+    fig.subplots_adjust(left=0.09, right=0.9, top=0.92, bottom=0.11)
+    return _save(fig, path)

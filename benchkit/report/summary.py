@@ -82,7 +82,7 @@ def steps_summary(steps, title: str = "") -> str:
         by_order = {h.order: h.level_dbc for h in r.harmonics}
         level = format_si(r.fundamental_vrms, "Vrms") if r.fundamental_vrms is not None else f"{r.fundamental_dbfs:.2f} dBFS"
         power = format_si(r.power_w, "W") if r.power_w is not None else "-"
-        mark = "" if r.valid else "   NOT VALID (clipped capture)"
+        mark = "" if r.valid else ("   NOT VALID (clipped capture)" if r.clipped else "   NOT VALID (see the warnings)")
         lines.append(
             f"  {s.drive_dbfs:9.2f}   {level:>11}  {power:>10}  {r.thdn_pct:9.4g}  {r.thdn_db:9.2f}  "
             f"{by_order.get(2, float('nan')):7.1f}  {by_order.get(3, float('nan')):7.1f}{mark}"
@@ -288,7 +288,7 @@ def imd_summary(d: dict, title: str = "") -> str:
         peak = (format_si(s["peak_v"], "V") if s.get("peak_v") is not None
                 else f"{units.dbfs_from_peak(max(s['peak_fs'], 1e-12)):.2f} dBFS")
         o = s.get("orders") or {}
-        mark = "" if s["valid"] else "   NOT VALID (clipped capture)"
+        mark = "" if s["valid"] else ("   NOT VALID (clipped capture)" if s["clipped"] else "   NOT VALID (see the warnings)")
         drive = "-" if s["drive_dbfs"] is None else f"{s['drive_dbfs']:.2f}"
         lines.append(f"  {drive:>9}   {peak:>13}  {s['imd_pct']:9.4g}  {s['imd_db']:8.2f}  "
                      f"{(o.get('2') or {}).get('db', float('nan')):10.1f}  {(o.get('3') or {}).get('db', float('nan')):10.1f}{mark}")
@@ -305,4 +305,23 @@ def imd_summary(d: dict, title: str = "") -> str:
         if w not in seen:
             seen.add(w)
             lines.append(f"  warning      {w}")
+    return "\n".join(lines)
+
+
+def zout_summary(d: dict, title: str = "") -> str:
+    """An output impedance result (its document): a line a frequency."""
+    lines = [title] if title else []
+    open_load = "open" if d["open_load_ohms"] is None else f"{d['open_load_ohms']:.4g} ohm (pad and input)"
+    lines.append(f"  loads        {d['load_ohms']:g} ohm against {open_load}; {d['method']}")
+    lines.append("  freq Hz      |Zout| ohm    R ohm       X ohm      damping")
+    for p in d["points"]:
+        df = "-" if p["damping_factor"] is None else f"{p['damping_factor']:.3g}"
+        mark = "" if p["valid"] else "   NOT VALID"
+        lines.append(f"  {p['frequency_hz']:>9.5g}   {p['zout_ohms']:10.4g}  {p['resistance_ohms']:10.4g}  "
+                     f"{p['reactance_ohms']:10.4g}  {df:>8}{mark}")
+    if d.get("zout_ohms") is not None:
+        lines.append(f"  at {d['reference_hz']:g} Hz  Zout {d['zout_ohms']:.4g} ohm, damping factor "
+                     f"{d['damping_factor']:.3g} re {d['load_ohms']:g} ohm")
+    for w in d.get("warnings") or []:
+        lines.append(f"  warning      {w}")
     return "\n".join(lines)

@@ -188,7 +188,7 @@ def write_drift_csv(result, path: Path) -> Path:
 
 
 #: The headline figures the catalog export gives a column each (units in the names).
-CATALOG_FIGURES = ("gain_db", "thdn_db", "imd_db", "noise_vrms", "noise_dbfs", "noise_a_vrms", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
+CATALOG_FIGURES = ("gain_db", "thdn_db", "imd_db", "zout_ohms", "damping_factor", "noise_vrms", "noise_dbfs", "noise_a_vrms", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
                    "settled_v")
 
 
@@ -251,4 +251,19 @@ def write_imd_csv(result, path: Path) -> Path:
             for p in r.products:
                 w.writerow([drive, p.label, p.order, f"{p.frequency_hz:.4f}", f"{p.amplitude_fs:.6e}",
                             vrms(p.amplitude_fs), f"{p.level_db:.2f}", str(p.at_floor).lower(), *figures, r.valid])
+    return path
+
+
+def write_zout_csv(result, path: Path) -> Path:
+    """A row a frequency: the open-over-loaded ratio, the output impedance
+    (magnitude, resistance, reactance) and the damping factor."""
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["freq_hz", "ratio", "ratio_phase_deg", "zout_ohms", "resistance_ohms", "reactance_ohms",
+                    "damping_factor", "valid"])
+        for p in result.points:
+            d = p.to_dict()
+            w.writerow([f"{p.frequency_hz:.4f}", f"{d['ratio']:.7f}", f"{d['ratio_phase_deg']:.4f}",
+                        f"{p.zout_ohms:.6g}", f"{p.zout.real:.6g}", f"{p.zout.imag:.6g}",
+                        "" if p.damping_factor is None else f"{p.damping_factor:.4g}", p.valid])
     return path
