@@ -23,6 +23,7 @@ from benchkit.analysis.tone import SCHEMA_VERSION, analyze_tone
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
 from benchkit.logbook import CATALOG
+from benchkit.crosstalk_runs import DEFAULT_FREQS_HZ as DEFAULT_CROSSTALK_FREQS
 from benchkit.zout_runs import DEFAULT_FREQS_HZ as DEFAULT_ZOUT_FREQS
 from benchkit.recordings import read_capture
 
@@ -102,6 +103,7 @@ _LIVE = {
     "sim_param": (List[str], lambda: typer.Option([], "--sim-param", help="Stage parameter key=value (repeatable), e.g. bias=1.2.")),
     "sim_pad": (str, lambda: typer.Option("demo", "--sim-pad", help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200).")),
     "seed": (int, lambda: typer.Option(1, "--seed", help="Seed of the virtual bench (latency, noise).")),
+    "sim_stereo": (bool, lambda: typer.Option(False, "--sim-stereo", help="The virtual stage is stereo: output 2 drives channel B, read on input 3 (input 4 its reference); --sim-param crosstalk_1k_db, crosstalk_flat_db, balance_db set what couples them.")),
     "sim_load": (Optional[str], lambda: typer.Option(None, "--sim-load", help="The virtual stage's dummy load: ohms, or 'off' (the pad alone loads it); default the model's own (8 ohm).")),
 }
 
@@ -314,6 +316,16 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
 
     if imd_method is not None or is_imd(rec):
         return _analyze_imd(rec, imd_method, volts_per_fs, load, out)
+    if rec.sidecar.get("crosstalk"):
+        from benchkit.crosstalk_runs import analyze_crosstalk_capture
+
+        xt = analyze_crosstalk_capture(Path(path), band)
+        doc = {**xt.to_dict(), "file": str(path)}
+        _err(summary.crosstalk_summary(doc, f"{path}: crosstalk"))
+        if out is not None:
+            for written in _files().crosstalk_reports(xt, Path(path), out):
+                _err(f"  wrote        {written}")
+        return doc
     if noise or is_noise(rec):
         ref = (units.vrms_from_watts(1.0, load), f"1 W into {load:g} ohm") if load is not None else (None, None)
         result = analyze_noise_capture(rec, band, volts_per_fs, *ref, traces=out is not None)
@@ -407,7 +419,8 @@ def _analyze_imd(rec, imd_method: str | None, volts_per_fs, load, out) -> dict:
 
 
 
-def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pad: str, seed: int, real: dict | None = None):
+def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pad: str, seed: int, real: dict | None = None,
+                  stereo: bool = False):
     """The capture backend a command asked for; says on stderr which."""
     from benchkit import pads
     from benchkit.capture import resolve_device
@@ -425,9 +438,10 @@ def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pa
         return backend
     pad = DEMO_PAD if sim_pad == "demo" else pads.parse_pad(sim_pad)
     rate = (real or {}).get("sample_rate", 48000.0)
-    bench = virtual_bench(sim, parse_params(sim_params), pad=pad, seed=seed, sample_rate_hz=rate)
+    bench = virtual_bench(sim, parse_params(sim_params), pad=pad, seed=seed, stereo=stereo, sample_rate_hz=rate)
     pad_text = "no pad" if pad is None else f"pad {pad.r1_ohms:g}:{pad.r2_ohms:g} ohm ({1 / bench.pad_ratio():.2f}:1)"
-    _err(f"device: virtual bench (simulated interface, stage {sim}, {pad_text}); nothing is played")
+    _err(f"device: virtual bench (simulated interface, {'stereo ' if stereo else ''}stage {sim}, {pad_text}); "
+         "nothing is played")
     return bench
 
 
@@ -461,9 +475,11 @@ def devices(as_json: bool = typer.Option(False, "--json", help="Print the list a
 
 
 
-def _live_setup(live: dict, ref_channel: int | None):
+def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more: dict | None = None):
     """Open the backend a live command asked for, with its profile: says
-    on stderr what it uses and warns of an overridden drive cap."""
+    on stderr what it uses and warns of an overridden drive cap. ``stereo``
+    makes the virtual stage stereo whatever --sim-stereo says; ``more``
+    goes to a real interface (further inputs and outputs)."""
     latency, override_drive_cap, calibration = live["latency"], live["override_drive_cap"], live["calibration"]
     lat: str | float = latency if latency in ("low", "high") else float(units.parse_frequency(latency))
     if override_drive_cap:
@@ -472,11 +488,12 @@ def _live_setup(live: dict, ref_channel: int | None):
     real = dict(sample_rate=live["rate"], in_channel=live["in_channel"], out_channel=live["out_channel"],
                 ref_channel=ref_channel, blocksize=live["blocksize"], latency=lat,
                 drive_cap_dbfs=-0.5 if override_drive_cap else live["drive_cap"],
-                volts_per_fs=live["volts_per_fs"], in_device=live["in_device"])
+                volts_per_fs=live["volts_per_fs"], in_device=live["in_device"], **(more or {}))
     profile = load_profile(calibration) if calibration is not None else None
     if profile is not None:
         real["volts_per_fs"] = profile.stage_volts_per_fs
-    backend = _open_backend(live["device"], live["sim"], live["sim_param"], live["sim_pad"], live["seed"], real)
+    backend = _open_backend(live["device"], live["sim"], live["sim_param"], live["sim_pad"], live["seed"], real,
+                            stereo or live["sim_stereo"])
     if live["sim_load"] is not None and backend.name == "virtual":
         text = live["sim_load"].strip().lower()
         try:
@@ -1117,13 +1134,71 @@ def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optio
         _finish_run(_files().zout_reports(result, run.folder, run.folder) + copies, run, doc, as_json)
 
 
-def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: float, load: Optional[float]):
+@app.command()
+@_live_options
+@_bench_options
+def crosstalk(
+    freqs: List[float] = typer.Option(list(DEFAULT_CROSSTALK_FREQS), "--freq", help="Frequencies read, Hz (repeatable)."),
+    level: str = typer.Option("-20 dBFS", "--level", help="Drive level of the driven channel at the interface output."),
+    in_channel_b: Optional[int] = typer.Option(None, "--in-channel-b", help="Input carrying channel B's output through its pad (default 2; the virtual bench's is 3)."),
+    out_channel_b: int = typer.Option(2, "--out-channel-b", help="Output driving channel B."),
+    load: Optional[float] = typer.Option(None, "--load", help="The load on each channel, ohms (recorded with the result)."),
+    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Band of the driven channel's analysis, LO:HI in Hz."),
+    as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
+    live: dict = None,
+    filing: dict = None,
+) -> None:
+    """Measure a stereo stage's crosstalk both ways, and its channel balance, against frequency.
+
+    A tone a --freq plays into channel A with channel B's input silent
+    (terminate it) and its output loaded, then the same into B. The leak
+    is read at the driven tone's exact frequency, so it is measured below
+    the broadband noise (marked '<' where it does not stand clear of it:
+    an upper bound). The balance is B's output over A's, each driven
+    alike. Both inputs need the same pad (the ratio of their scales is
+    what the figures assume).
+
+    Example: benchkit crosstalk --load 8 --tag bias=1.2A
+
+    Safety: both channels loaded with dummy loads, both pads sized for
+    the stage's full output.
+    """
+    from benchkit.crosstalk_runs import crosstalk_run
+    from benchkit.report import summary
+
+    with _live_run(), _logbook(filing) as (book, labels):
+        band = units.parse_band(bandwidth)
+        in_a, out_a = live["in_channel"], live["out_channel"]
+        real_b = in_channel_b or 2
+        backend, profile, _ref, drive, plan = _one_level(live, None, level, 1000.0, load, stereo=True,
+                                                         more=dict(more_inputs=(real_b,), more_outputs=(out_channel_b,)))
+        calibration = live["calibration"]
+        if backend.name == "virtual":
+            inputs, outputs = (1, in_channel_b or 3), (1, 2)
+        else:
+            inputs, outputs = (in_a, real_b), (out_a, out_channel_b)
+        if len(set(inputs)) < 2 or len(set(outputs)) < 2:
+            raise BenchkitError("channels A and B need inputs and outputs of their own")
+        params = dict(channel=inputs[0], inputs=list(inputs), outputs=list(outputs), frequencies_hz=list(freqs),
+                      level_dbfs=drive, load_ohms=load, bandwidth_hz=band)
+        with _start_run(book, labels, "crosstalk", backend, profile, calibration, params) as run:
+            result = crosstalk_run(backend, run.folder, freqs, drive, outputs, inputs, labels["note"], profile,
+                                   None if calibration is None else str(calibration), plan.warnings)
+            doc = {**result.to_dict(), "load_ohms": load}
+            _err(summary.crosstalk_summary(doc, "crosstalk and balance"))
+            written = _files().crosstalk_reports(result, run.folder / "capture.wav", run.folder)
+            _finish_run(written, run, doc, as_json)
+
+
+def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: float, load: Optional[float],
+               **setup):
     """The backend, profile, reference input (the virtual bench's own by
-    default), drive and pre-flight of a command that plays one level."""
+    default), drive and pre-flight of a command that plays one level
+    (``setup`` goes to :func:`_live_setup`)."""
     from benchkit import runs
     from benchkit.signals import check_level
 
-    backend, profile = _live_setup(live, ref_channel)
+    backend, profile = _live_setup(live, ref_channel, **setup)
     if ref_channel is None:
         ref_channel = backend.reference_input() if backend.name == "virtual" else None
     drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)

@@ -15,7 +15,8 @@ and distortion against frequency, the output noise is measured with the
 input terminated (unweighted, A-weighted, SNR re 1 W, the supply's hum),
 the output impedance is read with the load off and then on (the loop's
 output resistance, and the coupling capacitor's reactance at low
-frequencies), and the midpoint is logged as the stage warms (the virtual thermal model in accelerated time: 25 minutes of it in
+frequencies), a stereo pair of the stage gives its crosstalk both ways
+and its channel balance, and the midpoint is logged as the stage warms (the virtual thermal model in accelerated time: 25 minutes of it in
 no time). The before/after comparisons are made by benchkit.compare_runs,
 as 'benchkit compare' makes them, into comparisons/.
 """
@@ -204,6 +205,22 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                                                      frequencies_hz=list(DEFAULT_FREQS_HZ), level_dbfs=SWEEP_DBFS,
                                                      sample_rate_hz=z_bench.sample_rate_hz), zout_in)
     files += written
+    say(f"virtual bench: a stereo pair of B-2 at {label}, crosstalk both ways and the channels' balance")
+    from benchkit.crosstalk_runs import DEFAULT_FREQS_HZ as XTALK_FREQS
+    from benchkit.crosstalk_runs import crosstalk_run
+
+    x_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 17,
+                            stereo=True)
+
+    def crosstalk_in(folder):
+        r = crosstalk_run(x_bench, folder, XTALK_FREQS, SWEEP_DBFS, note=NOTE)
+        return r, reports.crosstalk_reports(r, folder / "capture.wav", folder)
+
+    xtalk, written = _logged(book, "crosstalk", bias, dict(channel=1, inputs=[1, 3], outputs=[1, 2],
+                                                           frequencies_hz=list(XTALK_FREQS), level_dbfs=SWEEP_DBFS,
+                                                           load_ohms=LOAD_OHMS, bandwidth_hz=band,
+                                                           sample_rate_hz=x_bench.sample_rate_hz), crosstalk_in)
+    files += written
     say(f"virtual bench: stage B-2 at {label}, midpoint drift while it warms (accelerated time)")
     drift, written = _logged(book, "drift", bias, dict(source="virtual", limit_v=0.5, band_v=0.01, window_s=60.0,
                                                        nominal_v=RAIL_V / 2, accelerated=DRIFT_STEP_S),
@@ -221,6 +238,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     texts.append(summary.response_summary(response, f"Test stage B-2, {label}: response"))
     texts.append(summary.noise_summary(noise.to_dict(), f"Test stage B-2, {label}: output noise, input terminated"))
     texts.append(summary.zout_summary(zout.to_dict(), f"Test stage B-2, {label}: output impedance into {LOAD_OHMS:g} ohm"))
+    texts.append(summary.crosstalk_summary(xtalk.to_dict(), f"Test stage B-2 as a stereo pair, {label}: crosstalk"))
     texts.append(summary.drift_summary(drift, f"Test stage B-2, {label}: midpoint after power-on "
                                               "(virtual thermal model, accelerated 10x)"))
     text = "\n\n".join(texts)

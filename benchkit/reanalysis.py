@@ -103,6 +103,12 @@ def reanalyse(folder: Path, record: dict, say=lambda _m: None) -> tuple[dict, li
         else:
             result = zout_of_captures(folder, load, open_load, channel, p.get("ref_channel"))
         return result.to_dict(), files.zout_reports(result, folder, folder)
+    if command == "crosstalk":
+        from benchkit.crosstalk_runs import analyze_crosstalk_capture
+
+        path = _capture(folder, channel, say).path
+        result = analyze_crosstalk_capture(path, _band(p))
+        return result.to_dict(), files.crosstalk_reports(result, path, folder)
     if command == "noise":
         from benchkit.noise_runs import analyze_noise_capture
 

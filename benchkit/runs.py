@@ -376,11 +376,16 @@ def record_steps(
     step_s: float = 1.0,
     settle_s: float = 0.3,
     twin=None,
+    out_channels: list[int] | None = None,
+    extra: dict | None = None,
 ) -> Path:
     """Play stepped tones (or, with ``twin``, a
     :class:`benchkit.signals.TwinTone` pair at each level) and store the
     capture with its sidecar; returns its path (``step_s`` is analysed
-    after ``settle_s`` of settling, each step).
+    after ``settle_s`` of settling, each step). ``frequency_hz`` is one
+    frequency or one a step; ``out_channels`` the output of each step
+    (default: the backend's drive output); ``extra`` joins the sidecar
+    (the planned one too, so a recovered capture keeps it).
 
     The raw recording streams to ``NAME.partial.wav`` while it plays (kept
     if the run breaks off); the aligned capture and its sidecar go to
@@ -389,19 +394,22 @@ def record_steps(
     ``MAX_RETRIES`` times, into ``NAME.retryK.wav``; the sidecar points each
     step at the capture that holds its good take.
     """
-    out_ch = getattr(backend, "drive_output", 1)
     lead = getattr(backend, "lead_s", 0.05)
+    n = len(levels_dbfs)
+    freqs = list(frequency_hz) if isinstance(frequency_hz, (list, tuple)) else [frequency_hz] * n
+    outs = list(out_channels) if out_channels is not None else [getattr(backend, "drive_output", 1)] * n
 
-    def play(levels, stem):
-        stim = stepped_tones(frequency_hz, levels, backend.sample_rate_hz, step_s=step_s, settle_s=settle_s,
-                             out_channel=out_ch, n_out=backend.n_outputs, lead_s=lead, twin=twin)
+    def play(which, stem):
+        stim = stepped_tones([freqs[i] for i in which], [levels_dbfs[i] for i in which], backend.sample_rate_hz,
+                             step_s=step_s, settle_s=settle_s, out_channel=[outs[i] for i in which],
+                             n_out=backend.n_outputs, lead_s=lead, twin=twin)
         partial = folder / f"{stem}.partial.wav"
-        plan = planned_sidecar(stim, channel, backend, note)
+        plan = {**planned_sidecar(stim, channel, backend, note), **(extra or {})}
         if calibration is not None:
             apply_calibration(plan, calibration, calibration_file, channel)
         planned = write_planned(folder, stem, plan)
         cap = capture.run(backend, stim, partial)
-        side = capture_sidecar(cap, stim, channel, backend, note)
+        side = {**capture_sidecar(cap, stim, channel, backend, note), **(extra or {})}
         if calibration is not None:
             apply_calibration(side, calibration, calibration_file, channel)
         # (a pair of tones is no single tone to time the clocks by)
@@ -411,7 +419,7 @@ def record_steps(
         planned.unlink(missing_ok=True)
         return stim, cap, side, path
 
-    stim, cap, side, path = play(levels_dbfs, name)
+    stim, cap, side, path = play(range(n), name)
     segments = side["stimulus"]["segments"]
     stop_note = None
     if cap.stopped_at is not None:
@@ -431,7 +439,7 @@ def record_steps(
     for attempt in range(1, MAX_RETRIES + 1):
         if not pending:
             break
-        r_stim, r_cap, _side, r_path = play([levels_dbfs[i] for i in pending], f"{name}.retry{attempt}")
+        r_stim, r_cap, _side, r_path = play(pending, f"{name}.retry{attempt}")
         still = []
         for i, seg in zip(pending, r_stim.segments):
             if r_cap.spoiled(seg.settled, seg.end):

@@ -171,7 +171,7 @@ def stepped_tones(
     step_s: float | list[float] = 1.0,
     settle_s: float | list[float] = 0.3,
     gap_s: float = 0.05,
-    out_channel: int = 1,
+    out_channel: int | list[int] = 1,
     n_out: int = 2,
     lead_s: float = LEAD_S,
     twin: TwinTone | None = None,
@@ -195,8 +195,11 @@ def stepped_tones(
         and the stage settle).
     gap_s : float
         Silence between steps.
-    out_channel, n_out : int
-        The output the tone plays on (from 1) and how many outputs there are.
+    out_channel : int or list of int
+        The output the tones play on (from 1), or one per step (the marker
+        plays on the first step's).
+    n_out : int
+        How many outputs there are.
     lead_s : float
         Silence before the marker (a real stream wants time to settle).
     twin : TwinTone, optional
@@ -216,27 +219,32 @@ def stepped_tones(
     for f in freqs:
         if not (0 < f < rate / 2):
             raise BenchkitError(f"tone frequency {f:g} Hz must lie between 0 and half the sample rate")
-    if not 1 <= out_channel <= n_out:
-        raise BenchkitError(f"output channel {out_channel} does not exist (1 to {n_out})")
+    chans = [int(c) for c in (out_channel if isinstance(out_channel, (list, tuple)) else [out_channel] * len(freqs))]
+    if len(chans) != len(freqs):
+        raise BenchkitError("give one output channel, or one per step")
+    for c in chans:
+        if not 1 <= c <= n_out:
+            raise BenchkitError(f"output channel {c} does not exist (1 to {n_out})")
     for lvl in levels_dbfs:
         check_level(lvl)
     mk = marker(rate)
-    pieces = [np.zeros(int(lead_s * rate)), mk, np.zeros(int(AFTER_MARKER_S * rate))]
-    pos = sum(p.size for p in pieces)
-    marker_start = pieces[0].size
+    lead = int(lead_s * rate)
+    pos = lead + mk.size + int(AFTER_MARKER_S * rate)
     fade_n = int(round(FADE_S * rate))
-    segments = []
-    for f, lvl, step, settle in zip(freqs, levels_dbfs, steps, settles):
+    segments, tones = [], []
+    for f, lvl, step, settle, c in zip(freqs, levels_dbfs, steps, settles, chans):
         x = (twin.waveform(lvl, settle + step + 2 * FADE_S, rate) if twin is not None
              else tone(f, lvl, settle + step + 2 * FADE_S, rate))
         settled = pos + fade_n + int(round(settle * rate))
-        segments.append(Segment(pos, pos + x.size, settled, pos + x.size - fade_n, f, float(lvl), out_channel))
-        pieces += [x, np.zeros(int(gap_s * rate))]
-        pos += x.size + pieces[-1].size
-    pieces.append(np.zeros(int(TAIL_S * rate)))
-    mono = np.concatenate(pieces)
-    out = np.zeros((mono.size, n_out))
-    out[:, out_channel - 1] = mono
+        segments.append(Segment(pos, pos + x.size, settled, pos + x.size - fade_n, f, float(lvl), c))
+        tones.append(x)
+        pos += x.size + int(gap_s * rate)
+    out = np.zeros((pos + int(TAIL_S * rate), n_out))
+    # the marker on the first step's output (its loopback is the reference)
+    out[lead : lead + mk.size, chans[0] - 1] = mk
+    for seg, x in zip(segments, tones):
+        out[seg.start : seg.stop, seg.channel - 1] = x
+    marker_start = lead
     extra = {} if twin is None else {"twin": twin.to_dict()}
     return Stimulus(
         samples=out,
@@ -251,7 +259,7 @@ def stepped_tones(
             "levels_dbfs": [float(v) for v in levels_dbfs],
             "step_s": steps[0] if len(set(steps)) == 1 else steps,
             "settle_s": settles[0] if len(set(settles)) == 1 else settles,
-            "out_channel": out_channel,
+            "out_channel": chans[0] if len(set(chans)) == 1 else chans,
         },
     )
 

@@ -195,7 +195,21 @@ def _zout_figures(doc: dict) -> list[Figure]:
     return out
 
 
-_FIGURES = {"output-impedance": _zout_figures, "imd": _imd_figures, "gain": _gain_figures, "noise": _noise_figures, "watch": _watch_figures, "tone-steps": _step_figures, "power": _power_figures, "response": _response_figures,
+def _crosstalk_figures(doc: dict) -> list[Figure]:
+    at = f"{doc['reference_hz']:.4g} Hz" if _num(doc.get("reference_hz")) is not None else ""
+    out = [Figure("crosstalk_db", "crosstalk, the worse direction", _num(doc.get("crosstalk_db")), "dB", "lower", at=at,
+                  headline=True),
+           Figure("balance_db", "channel balance", _num(doc.get("balance_db")), "dB", "nearer", at=at, headline=True)]
+    for key, name in (("a_to_b", "A into B"), ("b_to_a", "B into A")):
+        for x in doc.get(key) or []:
+            f = _num(x.get("frequency_hz"))
+            if f is not None:
+                out.append(Figure(f"crosstalk_{key}_db@{f:.4g}Hz", f"crosstalk {name}", _num(x.get("crosstalk_db")),
+                                  "dB", "lower", at=f"{f:.4g} Hz"))
+    return out
+
+
+_FIGURES = {"crosstalk": _crosstalk_figures, "output-impedance": _zout_figures, "imd": _imd_figures, "gain": _gain_figures, "noise": _noise_figures, "watch": _watch_figures, "tone-steps": _step_figures, "power": _power_figures, "response": _response_figures,
             "drift": _drift_figures}
 
 

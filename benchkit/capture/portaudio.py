@@ -132,6 +132,9 @@ class PortAudioBackend:
     in_device : str, optional
         A separate input device (index or name); its clock is then not the
         output's, and the offset between them is measured on the reference.
+    more_inputs, more_outputs : tuple of int
+        Further inputs recorded and outputs played (a stereo stage's
+        second channel); a further input takes ``volts_per_fs`` too.
     """
 
     def __init__(
@@ -147,6 +150,8 @@ class PortAudioBackend:
         volts_per_fs: float | None = None,
         watchdog_s: float = WATCHDOG_S,
         in_device: str | None = None,
+        more_inputs: tuple[int, ...] = (),
+        more_outputs: tuple[int, ...] = (),
     ):
         self.sd = _sd()
         self.info = find_device(device)
@@ -156,17 +161,19 @@ class PortAudioBackend:
             self.name = f"{self.in_info['name']} in, {self.name} out"
         self.sample_rate_hz = float(sample_rate)
         self.in_channel, self.out_channel, self.ref_channel = in_channel, out_channel, ref_channel
-        wanted_in = max(in_channel, ref_channel or 0)
-        if in_channel < 1 or (ref_channel is not None and ref_channel < 1) or out_channel < 1:
+        self.more_inputs, self.more_outputs = tuple(more_inputs), tuple(more_outputs)
+        wanted_in = max(in_channel, ref_channel or 0, *self.more_inputs)
+        if min(in_channel, out_channel, ref_channel or 1, *self.more_inputs, *self.more_outputs) < 1:
             raise BenchkitError("channels are numbered from 1")
         if wanted_in > self.in_info["max_input_channels"]:
             raise BenchkitError(f"{self.in_info['name']} has {self.in_info['max_input_channels']} inputs; input {wanted_in} does not exist")
-        if out_channel > self.info["max_output_channels"]:
-            raise BenchkitError(f"{self.name} has {self.info['max_output_channels']} outputs; output {out_channel} does not exist")
+        wanted_out = max(out_channel, *self.more_outputs)
+        if wanted_out > self.info["max_output_channels"]:
+            raise BenchkitError(f"{self.name} has {self.info['max_output_channels']} outputs; output {wanted_out} does not exist")
         if ref_channel is not None and ref_channel == in_channel:
             raise BenchkitError("the reference input must differ from the stage's input")
         self.n_inputs = wanted_in
-        self.n_outputs = out_channel
+        self.n_outputs = wanted_out
         self.drive_output = out_channel
         self.blocksize = int(blocksize)
         self.latency = latency
@@ -186,6 +193,10 @@ class PortAudioBackend:
                 chans.append(InputChannel(k, "stage output", self.volts_per_fs, source))
             elif k == self.ref_channel:
                 chans.append(InputChannel(k, f"reference: output {self.out_channel} looped back"))
+            elif k in self.more_inputs:
+                # a second channel's output through its own pad, like the first
+                source = "given" if self.volts_per_fs is not None else "none"
+                chans.append(InputChannel(k, "second stage output", self.volts_per_fs, source))
             else:
                 chans.append(InputChannel(k, "unused"))
         return tuple(chans)

@@ -314,6 +314,52 @@ class SingleEndedClassA(StageModel):
         return out
 
 
+@dataclass(frozen=True)
+class StereoCoupling:
+    """What couples the two channels of a stereo stage, output to output:
+    a capacitive part (stray capacitance into the other channel's input,
+    rising 6 dB an octave: ``crosstalk_1k_db`` at 1 kHz) and a resistive
+    part (a shared ground return, flat: ``crosstalk_flat_db``); channel
+    B's gain stands ``balance_db`` over channel A's. The capacitive part
+    is a first-order high-pass far above the band (CORNER_HZ), whose slope
+    is 6 dB an octave through the audio band."""
+
+    crosstalk_1k_db: float = -70.0
+    crosstalk_flat_db: float = -100.0
+    balance_db: float = 0.2
+
+    CORNER_HZ = 100e3
+    PARAMS = ("crosstalk_1k_db", "crosstalk_flat_db", "balance_db")
+
+    def __post_init__(self):
+        for name in self.PARAMS:
+            if not math.isfinite(getattr(self, name)):
+                raise BenchkitError(f"stage parameter {name} must be a finite number")
+        if self.crosstalk_1k_db > -20 or self.crosstalk_flat_db > -20:
+            raise BenchkitError("crosstalk parameters are dB below the driven channel: -20 or lower")
+
+    def analog(self) -> tuple[list[float], list[float]]:
+        """The coupling's transfer in s: f + k s / (s + wc), with k set so
+        the capacitive part reads ``crosstalk_1k_db`` at 1 kHz."""
+        wc = 2 * math.pi * self.CORNER_HZ
+        w1 = 2 * math.pi * 1000.0
+        k = 10 ** (self.crosstalk_1k_db / 20) / (w1 / math.hypot(w1, wc))
+        flat = 10 ** (self.crosstalk_flat_db / 20)
+        return [flat + k, flat * wc], [1.0, wc]
+
+    def response(self, frequency_hz) -> np.ndarray:
+        """The coupling's complex response at ``frequency_hz``."""
+        b, a = self.analog()
+        s = 2j * np.pi * np.asarray(frequency_hz, dtype=float)
+        return (b[0] * s + b[1]) / (a[0] * s + a[1])
+
+
+def split_stereo(params: dict[str, float]) -> tuple[dict[str, float], dict[str, float]]:
+    """A stage's parameters, and those of its stereo coupling."""
+    model = {k: v for k, v in params.items() if k not in StereoCoupling.PARAMS}
+    return model, {k: v for k, v in params.items() if k in StereoCoupling.PARAMS}
+
+
 MODELS: dict[str, type[StageModel]] = {m.NAME: m for m in (Ideal, Poly, HardClip, SingleEndedClassA)}
 
 

@@ -29,7 +29,7 @@ import numpy as np
 import scipy.signal
 
 from benchkit.capture import CLIP_STOP_FS, InputChannel, RawRecording
-from benchkit.capture.stages import StageModel, make_stage
+from benchkit.capture.stages import StageModel, StereoCoupling, make_stage, split_stereo
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
 from benchkit.recordings import WavStreamWriter
@@ -122,9 +122,17 @@ class VirtualBench:
         pad: Pad | None = DEMO_PAD,
         spec: InterfaceSpec | None = None,
         seed: int = 1,
+        stereo: StereoCoupling | None = None,
     ):
         self.spec = spec or InterfaceSpec()
         self.stage = stage if stage is not None else make_stage("se-class-a", seed=seed)
+        #: a stereo stage: channel B (output 2 -> stage B -> pad -> input 3,
+        #: output 2 looped back to input 4) and what couples the channels
+        self.stereo = stereo
+        if stereo is not None:
+            if self.spec.n_inputs < 4:
+                self.spec = replace(self.spec, n_inputs=4)
+            self.stage_b = type(self.stage)(seed=self.stage.seed + 101, **self.stage.params)
         self.pad = pad
         self._rng = np.random.default_rng(seed)
         #: "stage": output 1 -> stage -> pad -> input 1 (the bench set up to
@@ -154,6 +162,18 @@ class VirtualBench:
     def pad_input_ohms(self) -> float:
         """What the pad and input present to the stage's output."""
         return self.spec.input_ohms if self.pad is None else self.pad.input_impedance(self.spec.input_ohms)
+
+    def _stereo(self, analog_a: np.ndarray, analog_b: np.ndarray, rate: float) -> list[np.ndarray]:
+        """The two channels of a stereo stage at its pads' outputs: each
+        stage's output as its load takes it, channel B's gain off by the
+        balance, and each coupled into the other (StereoCoupling)."""
+        c = self.stereo
+        va = self._reload(self.stage.process(analog_a, rate), rate, {})
+        vb = self._reload(self.stage_b.process(analog_b, rate), rate, {}) * 10 ** (c.balance_db / 20)
+        bz, az = scipy.signal.bilinear(*c.analog(), fs=rate)
+        xa = va + scipy.signal.lfilter(bz, az, vb)
+        xb = vb + scipy.signal.lfilter(bz, az, va)
+        return [xa * self.pad_ratio(), xb * self.pad_ratio()]
 
     def _reload(self, v: np.ndarray, rate: float, state: dict) -> np.ndarray:
         """The stage's output as its load now takes it: the model's output
@@ -202,14 +222,20 @@ class VirtualBench:
 
     def inputs(self) -> tuple[InputChannel, ...]:
         """Input 1: the stage's load through the pad; input 2: output 1 looped
-        back. The bench knows its true scales."""
+        back (a stereo stage: inputs 3 and 4 the same for channel B and
+        output 2). The bench knows its true scales."""
         stage_scale = self.spec.input_vpk_per_fs / self.pad_ratio()
         pad = "" if self.pad is None else f" through a {1 / self.pad_ratio():.2f}:1 pad"
+        side = " A" if self.stereo is not None else ""
         chans = [
-            InputChannel(1, f"stage output{pad}", stage_scale, "simulation"),
+            InputChannel(1, f"stage{side} output{pad}", stage_scale, "simulation"),
             InputChannel(2, "reference: output 1 looped back", self.spec.input_vpk_per_fs, "simulation"),
         ]
-        chans += [InputChannel(k, "unused", self.spec.input_vpk_per_fs, "simulation") for k in range(3, self.spec.n_inputs + 1)]
+        if self.stereo is not None:
+            chans += [InputChannel(3, f"stage B output{pad}", stage_scale, "simulation"),
+                      InputChannel(4, "reference: output 2 looped back", self.spec.input_vpk_per_fs, "simulation")]
+        chans += [InputChannel(k, "unused", self.spec.input_vpk_per_fs, "simulation")
+                  for k in range(len(chans) + 1, self.spec.n_inputs + 1)]
         return tuple(chans)
 
     def reference_input(self) -> int | None:
@@ -223,6 +249,7 @@ class VirtualBench:
             "pad": None if self.pad is None else self.pad.to_dict(s.input_ohms),
             "stage": self.stage.describe(),
             "load_ohms": self.load_ohms,
+            "stereo": None if self.stereo is None else {k: getattr(self.stereo, k) for k in self.stereo.PARAMS},
         }
 
     def play_record(self, stimulus: Stimulus, partial: Path | None = None) -> RawRecording:
@@ -236,22 +263,31 @@ class VirtualBench:
         latency = int(self._rng.integers(*LATENCY_RANGE))
         self.last_latency_samples = latency
         total = n + LATENCY_RANGE[1] + int(0.05 * rate)
-        drive = np.zeros(total)
-        drive[:n] = stimulus.samples[:, 0]
-        # DAC: curvature, noise, reconstruction filter, volts at the jack
-        dac = _residual(drive, s.residual_h2_dbc, s.residual_h3_dbc) + _white(self._rng, total, s.dac_noise_dbfs, rate)
         h = _lowpass(s.antialias_fraction)
-        analog = scipy.signal.resample_poly(dac, OVERSAMPLE, 1, window=h) * s.output_vpk_per_fs
+
+        def jack(column: int) -> np.ndarray:
+            """DAC: curvature, noise, reconstruction filter, volts at the jack."""
+            drive = np.zeros(total)
+            if column < stimulus.samples.shape[1]:
+                drive[:n] = stimulus.samples[:, column]
+            dac = _residual(drive, s.residual_h2_dbc, s.residual_h3_dbc) + _white(self._rng, total, s.dac_noise_dbfs, rate)
+            return scipy.signal.resample_poly(dac, OVERSAMPLE, 1, window=h) * s.output_vpk_per_fs
+
+        analog = jack(0)
         # the stage at 8x, then the pad into input 1; input 2 is the loopback
-        if self.wiring == "loopback":
-            first = analog
+        if self.stereo is not None:
+            analog_b = jack(1)
+            at_input = self._stereo(analog, analog_b, rate * OVERSAMPLE) + [analog_b]
+            at_input.insert(1, analog)
+        elif self.wiring == "loopback":
+            at_input = [analog, analog]
         elif self.wiring == "pad":
-            first = analog * self.pad_ratio()
+            at_input = [analog * self.pad_ratio(), analog]
         else:
-            first = self._reload(self.stage.process(analog, rate * OVERSAMPLE), rate * OVERSAMPLE, {}) * self.pad_ratio()
-        at_input = [first, analog]
+            at_input = [self._reload(self.stage.process(analog, rate * OVERSAMPLE), rate * OVERSAMPLE, {})
+                        * self.pad_ratio(), analog]
         channels = [self._adc(scipy.signal.resample_poly(v, 1, OVERSAMPLE, window=h)) for v in at_input]
-        channels += [self._adc(np.zeros(total)) for _ in range(2, s.n_inputs)]
+        channels += [self._adc(np.zeros(total)) for _ in range(len(at_input), s.n_inputs)]
         rec = np.stack(channels, axis=1)
         # the round trip: a delay nobody reports correctly, and clock offset
         rec = np.concatenate([np.zeros((latency, s.n_inputs)), rec[: total - latency]])
@@ -284,8 +320,9 @@ class VirtualBench:
         came back) runs block by block through the same chain, with
         state carried from block to block, as a stream would."""
         s = self.spec
-        if s.clock_ppm:
-            raise BenchkitError("the virtual bench simulates a clock offset only for stimuli known in advance")
+        if s.clock_ppm or self.stereo is not None:
+            raise BenchkitError("the virtual bench simulates a clock offset and a stereo stage only for stimuli "
+                                "known in advance (not for power runs or a watch)")
         rate = s.sample_rate_hz
         latency = int(self._rng.integers(*LATENCY_RANGE))
         self.last_latency_samples = latency
@@ -410,8 +447,14 @@ def virtual_bench(
     params: dict[str, float] | None = None,
     pad: Pad | None = DEMO_PAD,
     seed: int = 1,
+    stereo: bool = False,
     **spec: float,
 ) -> VirtualBench:
-    """A virtual bench with the named stage model."""
+    """A virtual bench with the named stage model; ``stereo``: two channels
+    of it, coupled (the StereoCoupling parameters among ``params``)."""
     base = InterfaceSpec()
-    return VirtualBench(make_stage(model, params, seed=seed), pad, replace(base, **spec) if spec else base, seed)
+    params, coupling = split_stereo(params or {})
+    if coupling and not stereo:
+        raise BenchkitError(f"stage parameter {next(iter(coupling))} is for a stereo stage (--sim-stereo)")
+    return VirtualBench(make_stage(model, params, seed=seed), pad, replace(base, **spec) if spec else base, seed,
+                        StereoCoupling(**coupling) if stereo else None)

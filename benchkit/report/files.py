@@ -115,3 +115,13 @@ def zout_reports(result, folder: Path, out: Path, name: str = "zout") -> list[Pa
         tables.write_zout_csv(result, out / f"{name}.csv"),
         plots.zout_png(result, out / f"{name}.png", folder.name),
     ]
+
+
+def crosstalk_reports(result, path: Path, out: Path) -> list[Path]:
+    """STEM.crosstalk.json, .csv and .png."""
+    report_folder(out)
+    return [
+        tables.write_json(result.to_dict(), out / f"{path.stem}.crosstalk.json"),
+        tables.write_crosstalk_csv(result, out / f"{path.stem}.crosstalk.csv"),
+        plots.crosstalk_png(result, out / f"{path.stem}.crosstalk.png", path.parent.name),
+    ]

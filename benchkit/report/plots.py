@@ -319,3 +319,39 @@ def zout_png(result, path: Path, title: str) -> Path:
     ax.set_title(f"{title}: output impedance{head}", loc="left", fontsize=10)
     fig.subplots_adjust(left=0.09, right=0.9, top=0.92, bottom=0.11)
     return _save(fig, path)
+
+
+def crosstalk_png(result, path: Path, title: str) -> Path:
+    """Crosstalk of each direction against frequency (dB, log frequency;
+    a hollow mark where the leak did not stand over its noise), and the
+    balance below."""
+    fig = Figure(figsize=(10, 6.6))
+    ax = fig.add_subplot(2, 1, 1)
+    for side, colour, name in (("A", _TRACE, "A driven, into B"), ("B", _MARK, "B driven, into A")):
+        leaks = result.direction(side)
+        f = [x.frequency_hz for x in leaks]
+        ax.plot(f, [x.crosstalk_db for x in leaks], "-", color=colour, lw=1.1, label=name)
+        for x in leaks:
+            ax.plot([x.frequency_hz], [x.crosstalk_db], "o", ms=5, color=colour,
+                    mfc="none" if x.below_floor else colour)
+    _log_hz_axis(ax)
+    ax.set_ylabel("crosstalk (dB re the driven channel)")
+    ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
+    ax.legend(loc="upper left", fontsize=8, frameon=False)
+    d = result.to_dict()
+    head = "" if d["crosstalk_db"] is None else f": {d['crosstalk_db']:.1f} dB at {d['reference_hz']:.4g} Hz"
+    ax.set_title(f"{title}: crosstalk{head}", loc="left", fontsize=10)
+    axb = fig.add_subplot(2, 1, 2)
+    bal = result.balance()
+    if bal:
+        ys = [b for _f, b in bal]
+        axb.plot([f for f, _b in bal], ys, "-o", ms=4, color=_TRACE, lw=1.0)
+        mid, half = (max(ys) + min(ys)) / 2, max(0.25, (max(ys) - min(ys)) * 0.6)
+        axb.set_ylim(mid - half, mid + half)  # a tenth of a dB must not fill the panel
+    axb.ticklabel_format(axis="y", useOffset=False)
+    _log_hz_axis(axb)
+    axb.set_ylabel("balance, B over A (dB)")
+    axb.set_xlabel("frequency (Hz)")
+    axb.grid(True, which="both", color="#e6e6e6", lw=0.5)
+    fig.subplots_adjust(left=0.09, right=0.97, top=0.93, bottom=0.09, hspace=0.3)
+    return _save(fig, path)

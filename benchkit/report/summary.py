@@ -325,3 +325,24 @@ def zout_summary(d: dict, title: str = "") -> str:
     for w in d.get("warnings") or []:
         lines.append(f"  warning      {w}")
     return "\n".join(lines)
+
+
+def crosstalk_summary(d: dict, title: str = "") -> str:
+    """A crosstalk result (its document): a line a frequency."""
+    lines = [title] if title else []
+    lines.append("  freq Hz      A into B dB   B into A dB   balance B-A dB")
+    balance = {round(b["frequency_hz"], 3): b["balance_db"] for b in d["balance"]}
+    for a, b in zip(d["a_to_b"], d["b_to_a"]):
+        def cell(x):
+            return f"{'<' if x['below_floor'] else ' '}{x['crosstalk_db']:.1f}"
+
+        bal = balance.get(round(a["frequency_hz"], 3))
+        lines.append(f"  {a['frequency_hz']:>9.5g}   {cell(a):>11}   {cell(b):>11}   "
+                     f"{'-' if bal is None else f'{bal:+.3f}':>14}")
+    if d.get("crosstalk_db") is not None:
+        lines.append(f"  at {d['reference_hz']:.4g} Hz  crosstalk {d['crosstalk_db']:.1f} dB (the worse direction), "
+                     f"separation {-d['crosstalk_db']:.1f} dB"
+                     + ("" if d.get("balance_db") is None else f"; balance {d['balance_db']:+.3f} dB"))
+    for w in d.get("warnings") or []:
+        lines.append(f"  warning      {w}")
+    return "\n".join(lines)

@@ -188,7 +188,7 @@ def write_drift_csv(result, path: Path) -> Path:
 
 
 #: The headline figures the catalog export gives a column each (units in the names).
-CATALOG_FIGURES = ("gain_db", "thdn_db", "imd_db", "zout_ohms", "damping_factor", "noise_vrms", "noise_dbfs", "noise_a_vrms", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
+CATALOG_FIGURES = ("gain_db", "thdn_db", "imd_db", "zout_ohms", "damping_factor", "crosstalk_db", "balance_db", "noise_vrms", "noise_dbfs", "noise_a_vrms", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
                    "settled_v")
 
 
@@ -266,4 +266,22 @@ def write_zout_csv(result, path: Path) -> Path:
             w.writerow([f"{p.frequency_hz:.4f}", f"{d['ratio']:.7f}", f"{d['ratio_phase_deg']:.4f}",
                         f"{p.zout_ohms:.6g}", f"{p.zout.real:.6g}", f"{p.zout.imag:.6g}",
                         "" if p.damping_factor is None else f"{p.damping_factor:.4g}", p.valid])
+    return path
+
+
+def write_crosstalk_csv(result, path: Path) -> Path:
+    """A row a driven tone: which channel, its frequency, the crosstalk
+    and separation, the levels, whether the leak stood over its noise; the
+    balance at that frequency on the rows of channel A."""
+    balance = dict(result.balance())
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["driven", "freq_hz", "crosstalk_db", "separation_db", "driven_dbfs", "leaked_dbfs", "floor_dbfs",
+                    "below_floor", "balance_db", "valid"])
+        for x in result.leaks:
+            d = x.to_dict()
+            b = balance.get(x.frequency_hz) if x.driven == "A" else None
+            w.writerow([x.driven, f"{x.frequency_hz:.4f}", f"{x.crosstalk_db:.2f}", f"{-x.crosstalk_db:.2f}",
+                        f"{d['driven_dbfs']:.2f}", f"{d['leaked_dbfs']:.2f}", f"{d['floor_dbfs']:.2f}",
+                        str(x.below_floor).lower(), "" if b is None else f"{b:.3f}", x.valid])
     return path

@@ -1,0 +1,135 @@
+"""Crosstalk and channel balance of a stereo stage.
+
+One channel is driven with a tone, the other has no signal but its load;
+what reaches the undriven channel's output at the tone's frequency, over
+the driven channel's output, is the crosstalk (in dB, negative: the
+lower, the better separated; its inverse is the separation; common
+practice, as IEC 60268-3 describes crosstalk: from memory). The leak is
+read at the exact frequency the driven channel's fit found, off the
+windowed spectrum (:func:`benchkit.analysis.spectrum.read_components`),
+so it is measured below the broadband noise; where it does not stand
+FLOOR_MARGIN_DB over the noise of its bins it is marked as an upper
+bound. Channel balance is the difference of the two channels' outputs
+when each is driven alike.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from benchkit import units
+from benchkit.analysis import spectrum as sp
+from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
+
+SCHEMA_VERSION = 1
+
+#: A leak under this over its bins' noise is an upper bound (noise alone
+#: passes it in one bin of 20000: an exponential's tail, e^-10).
+FLOOR_MARGIN_DB = 10.0
+#: Bins either side of the tone over which the leak's noise is taken.
+FLOOR_SPAN_BINS = 200
+
+
+@dataclass(frozen=True)
+class Leak:
+    """What one driven tone put into the other channel."""
+
+    frequency_hz: float
+    driven: str  # "A" or "B"
+    driven_fs: float
+    leaked_fs: float
+    floor_fs: float
+    ratio: float  # leaked over driven, in volts where both scales are known
+    valid: bool
+    driven_vrms: float | None = None
+
+    @property
+    def crosstalk_db(self) -> float:
+        return float(units.db_from_ratio(max(self.ratio, 1e-15)))
+
+    @property
+    def below_floor(self) -> bool:
+        return self.leaked_fs < self.floor_fs * units.ratio_from_db(FLOOR_MARGIN_DB)
+
+    def to_dict(self) -> dict:
+        return {"frequency_hz": self.frequency_hz, "driven": self.driven, "crosstalk_db": self.crosstalk_db,
+                "separation_db": -self.crosstalk_db, "driven_dbfs": units.dbfs_from_peak(self.driven_fs),
+                "leaked_dbfs": units.dbfs_from_peak(max(self.leaked_fs, 1e-15)),
+                "floor_dbfs": units.dbfs_from_peak(max(self.floor_fs, 1e-15)), "below_floor": self.below_floor,
+                "driven_vrms": self.driven_vrms, "valid": self.valid}
+
+
+def leak(driven, other, sample_rate: float, frequency_hz: float, driven_scale: float | None = None,
+         other_scale: float | None = None, bandwidth_hz=DEFAULT_BAND_HZ, driven_name: str = "A") -> Leak:
+    """The tone near ``frequency_hz`` in ``driven`` and what of it is in
+    ``other`` (two channels of one record), with the noise floor of the
+    bins around it. The ratio is in volts when both scales are given (in
+    volts peak per FS), else in FS."""
+    r = analyze_tone(np.asarray(driven, float), sample_rate, fundamental_hz=frequency_hz, bandwidth_hz=bandwidth_hz,
+                     volts_per_fs=driven_scale)
+    y = np.asarray(other, float)
+    y = y - float(np.mean(y))
+    n = y.size
+    spec = sp.windowed_rfft(y)
+    nu = r.fundamental_hz * n / sample_rate
+    amp = float(abs(sp.read_components(spec, n, np.array([nu]))[0]))
+    k = int(round(nu))
+    lo, hi = max(1, k - FLOOR_SPAN_BINS), min(spec.size - 1, k + FLOOR_SPAN_BINS)
+    around = sp.power(spec[lo:hi])
+    guard = sp.MAIN_LOBE_BINS + 2
+    around = np.concatenate([around[: max(0, k - guard - lo)], around[k + guard + 1 - lo:]])
+    floor = math.sqrt(float(np.median(around)) / math.log(2.0)) * sp.sine_amplitude_scale(n) if around.size else 0.0
+    scale = (other_scale / driven_scale) if driven_scale and other_scale else 1.0
+    return Leak(r.fundamental_hz, driven_name, r.fundamental_fs, amp, floor, amp * scale / r.fundamental_fs, r.valid,
+                r.fundamental_vrms)
+
+
+@dataclass(frozen=True)
+class CrosstalkResult:
+    """Both directions of a stereo stage's crosstalk, and its balance."""
+
+    leaks: tuple[Leak, ...]
+    scaled: bool  # ratios in volts (both inputs' scales known) or in FS
+    warnings: tuple[str, ...] = ()
+
+    def direction(self, driven: str) -> list[Leak]:
+        return [x for x in self.leaks if x.driven == driven]
+
+    def balance(self) -> list[tuple[float, float]]:
+        """(frequency, B over A in dB) where both were driven: their
+        outputs, each at its own input's scale."""
+        out = []
+        for a in self.direction("A"):
+            b = next((x for x in self.direction("B") if abs(x.frequency_hz / a.frequency_hz - 1) < 0.005), None)
+            if b is not None and a.valid and b.valid:
+                va, vb = (a.driven_vrms, b.driven_vrms) if self.scaled else (a.driven_fs, b.driven_fs)
+                out.append((a.frequency_hz, float(units.db_from_ratio(vb / va))))
+        return out
+
+    def near(self, frequency_hz: float = 1000.0) -> list[Leak]:
+        """Each direction's valid leak nearest ``frequency_hz``."""
+        out = []
+        for side in ("A", "B"):
+            got = [x for x in self.direction(side) if x.valid]
+            if got:
+                out.append(min(got, key=lambda x: abs(math.log(x.frequency_hz / frequency_hz))))
+        return out
+
+    def to_dict(self) -> dict:
+        near = self.near()
+        worst = max(near, key=lambda x: x.crosstalk_db) if near else None
+        balance = self.balance()
+        at1k = min(balance, key=lambda fb: abs(math.log(fb[0] / 1000.0))) if balance else None
+        return {
+            "kind": "crosstalk", "schema_version": SCHEMA_VERSION, "scaled": self.scaled,
+            "reference_hz": None if worst is None else worst.frequency_hz,
+            "crosstalk_db": None if worst is None else worst.crosstalk_db,
+            "balance_db": None if at1k is None else at1k[1],
+            "a_to_b": [x.to_dict() for x in self.direction("A")],
+            "b_to_a": [x.to_dict() for x in self.direction("B")],
+            "balance": [{"frequency_hz": f, "balance_db": b} for f, b in balance],
+            "warnings": list(self.warnings),
+        }
