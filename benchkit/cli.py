@@ -190,16 +190,20 @@ def analyze(
     power: bool = typer.Option(False, "--power", help="Stepped captures: power at the distortion limits, clipping onset and half (needs --load and volts)."),
     voltage_gain: bool = typer.Option(False, "--gain", help="A tone capture benchkit wrote: the stage's voltage gain, over --ref-channel (default: the sidecar's reference input) or the calibrated drive."),
     noise: bool = typer.Option(False, "--noise", help="The capture holds the stage's noise (input terminated): unweighted, A-weighted, hum (benchkit noise captures are recognised)."),
+    zout_load: Optional[float] = typer.Option(None, "--zout", help="Two captures, the stage unloaded then loaded with this many ohms: its output impedance and damping factor (with --open-load, what loaded the 'open' output)."),
+    open_load: Optional[float] = typer.Option(None, "--open-load", help="With --zout: what the pad and input present to the unloaded stage, ohms."),
     imd_method: Optional[str] = typer.Option(None, "--imd", help="The capture holds a two-tone test made elsewhere: modulation or difference, optionally with its tones, e.g. modulation:50:7000 (benchkit imd captures are recognised)."),
     rail: Optional[float] = typer.Option(None, "--rail", help="Describe the stage (se-class-a): its rail, V, for the expected ceiling."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     figures: dict = None,
     judge: dict = None,
 ) -> None:
-    """Analyse recorded captures offline: tones (THD, THD+N, harmonics, noise) or responses (sweeps, stepped sines).
+    """Analyse recorded captures offline: tones, responses, IMD, noise, gain, output impedance, crosstalk.
 
-    A sweep or stepped-sine capture that benchkit wrote is recognised from
-    its sidecar; --sweep analyses one made elsewhere.
+    A capture that benchkit wrote (stepped tones, a sweep or stepped
+    sines, a two-tone, noise or crosstalk run) is recognised from its
+    sidecar; --sweep, --imd, --noise and --zout analyse ones made
+    elsewhere.
 
     Example: benchkit analyze sample_captures/b2-bias0.8A-997Hz-steps.wav --load 8 --out report/
     """
@@ -211,6 +215,10 @@ def analyze(
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
+    if zout_load is not None:
+        with _one_line():
+            _analyze_zout(files, channel, ref_channel, band, zout_load, open_load, out, as_json)
+        return
     docs, failed = [], 0
     for path in _progress(files, "analysing"):
         try:
@@ -229,6 +237,47 @@ def analyze(
         print(dumps(docs[0] if len(docs) == 1 else docs))
     if failed:
         raise typer.Exit(EXIT_BAD_INPUT)
+
+
+@contextlib.contextmanager
+def _one_line():
+    """Bad input as one line and exit 1."""
+    try:
+        yield
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        raise typer.Exit(EXIT_BAD_INPUT)
+
+
+def _analyze_zout(files, channel, ref_channel, band, load, open_load, out, as_json) -> None:
+    """Output impedance from two captures: benchkit's stepped ones (each
+    step a reading: a gain with its phase over the reference input), or
+    single tones made elsewhere (their levels)."""
+    from benchkit import runs
+    from benchkit.analysis.zout import Reading, output_impedance
+    from benchkit.report import summary
+    from benchkit.zout_runs import readings_of_capture
+
+    if len(files) != 2:
+        raise BenchkitError("--zout takes two captures: the stage unloaded, then loaded")
+    got = []
+    for path in files:
+        rec = read_capture(path, channel)
+        if runs.is_stepped(rec):
+            got.append(readings_of_capture(Path(path), channel, ref_channel, band))
+        else:
+            r = analyze_tone(rec.samples, rec.sample_rate_hz, bandwidth_hz=band)
+            got.append([Reading(r.fundamental_hz, complex(r.fundamental_fs), None, r.valid)])
+    result = output_impedance(got[0], got[1], load, open_load)
+    doc = {**result.to_dict(), "files": [str(p) for p in files]}
+    _err(summary.zout_summary(doc, f"output impedance: {files[0]} (open), {files[1]} (loaded)"))
+    if out is not None:
+        for written in _files().zout_reports(result, Path(files[1]).parent, out):
+            _err(f"  wrote        {written}")
+    if as_json:
+        from benchkit.report.tables import dumps
+
+        print(dumps(doc))
 
 
 def _power_options(power, load, rail, limits, metric, onset_db, supply_volts, supply_amps, bias, vsat) -> dict:
@@ -1002,6 +1051,7 @@ def imd(
     levels: List[str] = typer.Option(["-20 dBFS"], "--level", help="Drive, the composite's peak at the interface output, e.g. -20dBFS (repeat for IMD against level)."),
     load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: levels also as the equivalent sine power."),
     step: float = typer.Option(1.0, "--step", help="Seconds analysed at each level."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices): the capture is aligned on it."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
     filing: dict = None,
@@ -1029,7 +1079,7 @@ def imd(
 
     with _live_run(), _logbook(filing) as (book, labels):
         twin = twin_tone(method, *(_parse_tones(tones) if tones else (None, None)), ratio)
-        backend, profile = _live_setup(live, None)
+        backend, profile = _live_setup(live, ref_channel)
         in_channel, calibration = live["in_channel"], live["calibration"]
         drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]
         for d in drive:
@@ -1087,7 +1137,7 @@ def zout(
         if from_runs:
             _zout_from_runs(book, labels, from_runs, load, open_load, as_json)
             return
-        backend, profile, ref_channel, drive, plan = _one_level(live, ref_channel, level, 1000.0, load)
+        backend, profile, ref_channel, drive, plan = _one_level(live, ref_channel, level, 1000.0, load, volts=False)
         in_channel, calibration = live["in_channel"], live["calibration"]
         if open_load is None:
             if backend.name == "virtual":
@@ -1170,7 +1220,7 @@ def crosstalk(
         band = units.parse_band(bandwidth)
         in_a, out_a = live["in_channel"], live["out_channel"]
         real_b = in_channel_b or 2
-        backend, profile, _ref, drive, plan = _one_level(live, None, level, 1000.0, load, stereo=True,
+        backend, profile, _ref, drive, plan = _one_level(live, None, level, 1000.0, load, volts=False, stereo=True,
                                                          more=dict(more_inputs=(real_b,), more_outputs=(out_channel_b,)))
         calibration = live["calibration"]
         if backend.name == "virtual":
@@ -1191,10 +1241,12 @@ def crosstalk(
 
 
 def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: float, load: Optional[float],
-               **setup):
+               volts: bool = True, **setup):
     """The backend, profile, reference input (the virtual bench's own by
     default), drive and pre-flight of a command that plays one level
-    (``setup`` goes to :func:`_live_setup`)."""
+    (``setup`` goes to :func:`_live_setup`). ``volts=False``: the command
+    compares ratios and needs no scale, so its load is not checked against
+    one."""
     from benchkit import runs
     from benchkit.signals import check_level
 
@@ -1203,10 +1255,13 @@ def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: fl
         ref_channel = backend.reference_input() if backend.name == "virtual" else None
     drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
     check_level(drive)
+    scaled = backend.name == "virtual" or profile is not None or live["volts_per_fs"] is not None
+    checked = load if volts or scaled else None  # without a scale the load cannot be checked, and need not be
     plan = runs.plan_run(backend, profile, [drive], frequency, live["in_channel"], live["gain"], live["margin"],
-                         live["rail"], live["pad_rating"], load, live["btl"], say=_err)
+                         live["rail"], live["pad_rating"], checked, live["btl"], say=_err)
     for w in plan.warnings:
-        _err(f"warning: {w}")
+        if checked is not None or load is None or not w.startswith("no load given"):
+            _err(f"warning: {w}")
     return backend, profile, ref_channel, drive, plan
 
 

@@ -29,20 +29,30 @@ STATES = ("open", "loaded")
 
 def readings_of_capture(path: Path, channel: int = 1, ref_channel: int | None = None,
                         bandwidth_hz=DEFAULT_BAND_HZ) -> list[Reading]:
-    """Each step of a stepped capture as a reading: the gain against the
-    reference input (with its phase), or against the calibrated drive,
-    else the level in FS (ratios need no scale)."""
-    from benchkit.gain_runs import step_gains
+    """Each step of a stepped capture as a reading: the output over the
+    reference input with its phase (the sidecar's reference by default),
+    else the output's level. In FS: the readings are compared as ratios,
+    so the scales (the same in both) cancel."""
+    from benchkit.analysis.tone import analyze_tone
     from benchkit.runs import analyze_steps
 
-    try:
-        gains = step_gains(path, channel, ref_channel, bandwidth_hz)
-    except BenchkitError:
-        steps = analyze_steps(read_capture(path, channel), bandwidth_hz)
+    rec = read_capture(path, channel)
+    steps = analyze_steps(rec, bandwidth_hz)
+    if ref_channel is None:
+        ref_channel = next((c["number"] for c in rec.sidecar.get("channels") or []
+                            if str(c.get("role", "")).startswith("reference")), None)
+    if ref_channel is None:
         return [Reading(s.result.fundamental_hz, complex(s.result.fundamental_fs), s.drive_dbfs, s.result.valid)
                 for s in steps.steps]
-    return [Reading(g.frequency_hz, _phasor(g.gain_vv, g.phase_deg), g.drive_dbfs, g.output.valid,
-                    g.phase_deg is not None) for g in gains]
+    out = []
+    for seg, s in zip(rec.sidecar["stimulus"]["segments"], steps.steps):
+        ref = read_capture(path.parent / Path(str(seg.get("file") or path.name)).name, ref_channel)
+        r = analyze_tone(ref.samples[int(seg["settled"]) : int(seg["end"])], rec.sample_rate_hz,
+                         fundamental_hz=s.result.fundamental_hz, bandwidth_hz=bandwidth_hz)
+        phase = s.result.fundamental_phase_deg - r.fundamental_phase_deg
+        out.append(Reading(s.result.fundamental_hz, _phasor(s.result.fundamental_fs / r.fundamental_fs, phase),
+                           s.drive_dbfs, s.result.valid and r.valid, True))
+    return out
 
 
 def _phasor(magnitude: float, phase_deg: float | None) -> complex:
@@ -76,8 +86,16 @@ def readings_of_result(doc: dict) -> list[Reading]:
 
 def zout_of_captures(folder: Path, load_ohms: float, open_load_ohms: float | None, channel: int = 1,
                      ref_channel: int | None = None, bandwidth_hz=DEFAULT_BAND_HZ) -> ZoutResult:
-    """The output impedance from a run folder's open.wav and loaded.wav."""
-    got = [readings_of_capture(folder / f"{state}.wav", channel, ref_channel, bandwidth_hz) for state in STATES]
+    """The output impedance from a run folder's open.wav and loaded.wav
+    (recovered from their partial recordings when the run was killed)."""
+    from benchkit.runs import recover_capture
+
+    got = []
+    for state in STATES:
+        path = folder / f"{state}.wav"
+        if not path.exists():
+            path = recover_capture(folder, state)
+        got.append(readings_of_capture(path, channel, ref_channel, bandwidth_hz))
     return output_impedance(got[0], got[1], load_ohms, open_load_ohms)
 
 

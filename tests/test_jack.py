@@ -408,3 +408,35 @@ def test_losing_the_server_mid_power_run_reports_the_completed_steps(server, tmp
     folder = the_run(folder)
     d = json.loads((folder / "capture.power.json").read_text())
     assert d["device_lost"] and len(d["steps"]) >= 3
+
+
+def test_imd_through_jack_follows_the_two_tone_identities(server, tmp_path):
+    # y = x + a2 x^2 + a3 x^3 with x = A1 cos w1 t + A2 cos w2 t: a2 A1 A2 at
+    # f2 +- f1, (3/4) a3 A1^2 A2 at f2 +- 2 f1 (trigonometric identities);
+    # the modulation method's 4:1 pair, the composite peak at the level
+    a2, a3, level = 0.02, 0.05, -14.0
+    a1, a2_amp = (0.8 * 10 ** (level / 20), 0.2 * 10 ** (level / 20))
+    with jackbench.Patchbay(server, "poly", a2=a2, a3=a3):
+        proc = jackbench.benchkit(server, "imd", "--device", "system", "--ref-channel", "2", "--level", f"{level}dBFS",
+                                  "--bench", str(tmp_path / "bench"), "--json")
+        out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 0, err
+    step = json.loads(out)["steps"][0]
+    got = {(p["m"], p["n"]): p["amplitude_fs"] for p in step["products"]}
+    for key, want in (((-1, 1), a2 * a1 * a2_amp), ((1, 1), a2 * a1 * a2_amp),
+                      ((-2, 1), 0.75 * a3 * a1 * a1 * a2_amp), ((2, 1), 0.75 * a3 * a1 * a1 * a2_amp)):
+        assert 20 * math.log10(got[key] / want) == pytest.approx(0.0, abs=0.1), key
+
+
+def test_zout_through_jack_asks_nothing_with_yes_and_resolves_a_wire(server, tmp_path):
+    # a loopback is a wire: no load changes it, so Zout is below what two
+    # readings resolve, and the run says so
+    with jackbench.Patchbay(server, "loopback"):
+        proc = jackbench.benchkit(server, "zout", "--device", "system", "--ref-channel", "2", "--load", "8", "--yes",
+                                  "--freq", "997", "--bench", str(tmp_path / "bench"), "--json")
+        out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 0, err
+    d = json.loads(out)
+    assert d["method"] == "gain-ratio" and d["zout_ohms"] < 0.01
+    assert any("below what this resolves" in w for w in d["warnings"])
+    assert {"open.wav", "loaded.wav", "zout.json"} <= {p.name for p in the_run(tmp_path / "bench").iterdir()}

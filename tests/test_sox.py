@@ -77,3 +77,17 @@ def test_sox_two_tones_have_their_ratio_and_no_products(sox_path, tmp_path):
     assert step["tone_ratio"] == pytest.approx(4.0, rel=1e-4)
     assert step["f1_hz"] == pytest.approx(60.0, abs=1e-3) and step["f2_hz"] == pytest.approx(7000.0, abs=1e-3)
     assert step["imd_db"] < -120.0
+
+
+def test_sox_tones_give_the_divider_impedance(sox_path, tmp_path):
+    # two sox tones whose amplitudes stand as 8.5 : 8, as a Thevenin source
+    # behind 0.5 ohm reads open and across 8 ohm: Z = R (V_open / V_loaded - 1)
+    # = 0.5 ohm (circuit theory; sox's 'vol' scales the amplitude linearly,
+    # from memory of its documentation)
+    open_ = _sox(sox_path, tmp_path / "open.wav", "sine", "997", "vol", "0.5", bits=24)
+    loaded = _sox(sox_path, tmp_path / "loaded.wav", "sine", "997", "vol", str(0.5 * 8 / 8.5), bits=24)
+    res = run_cli("analyze", str(open_), str(loaded), "--zout", "8", "--json")
+    assert res.returncode == 0, res.stderr
+    d = json.loads(res.stdout)
+    assert d["method"] == "levels" and d["zout_ohms"] == pytest.approx(0.5, rel=0.002)
+    assert d["damping_factor"] == pytest.approx(16.0, rel=0.002)

@@ -162,12 +162,12 @@ class PortAudioBackend:
         self.sample_rate_hz = float(sample_rate)
         self.in_channel, self.out_channel, self.ref_channel = in_channel, out_channel, ref_channel
         self.more_inputs, self.more_outputs = tuple(more_inputs), tuple(more_outputs)
-        wanted_in = max(in_channel, ref_channel or 0, *self.more_inputs)
+        wanted_in = max((in_channel, ref_channel or 0, *self.more_inputs))
         if min(in_channel, out_channel, ref_channel or 1, *self.more_inputs, *self.more_outputs) < 1:
             raise BenchkitError("channels are numbered from 1")
         if wanted_in > self.in_info["max_input_channels"]:
             raise BenchkitError(f"{self.in_info['name']} has {self.in_info['max_input_channels']} inputs; input {wanted_in} does not exist")
-        wanted_out = max(out_channel, *self.more_outputs)
+        wanted_out = max((out_channel, *self.more_outputs))
         if wanted_out > self.info["max_output_channels"]:
             raise BenchkitError(f"{self.name} has {self.info['max_output_channels']} outputs; output {wanted_out} does not exist")
         if ref_channel is not None and ref_channel == in_channel:

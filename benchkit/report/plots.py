@@ -289,7 +289,7 @@ def noise_png(result, path: Path, title: str) -> Path:
 def zout_png(result, path: Path, title: str) -> Path:
     """|Zout| against frequency (log-log), its resistance beside it, and
     the damping factor on the right-hand axis."""
-    pts = [p for p in result.points if p.zout_ohms > 0]
+    pts = [p for p in result.points if p.zout_ohms > 0] or list(result.points)
     fig = Figure(figsize=(10, 5.6))
     ax = fig.add_subplot(1, 1, 1)
     f = np.array([p.frequency_hz for p in pts])
@@ -315,7 +315,8 @@ def zout_png(result, path: Path, title: str) -> Path:
     ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
     ax.legend(loc="upper right", fontsize=8, frameon=False)
     ref = result.at()
-    head = "" if ref is None else f": {ref.zout_ohms:.3g} ohm, damping factor {ref.damping_factor:.3g} at {ref.frequency_hz:g} Hz"
+    head = "" if ref is None or ref.damping_factor is None else (
+        f": {ref.zout_ohms:.3g} ohm, damping factor {ref.damping_factor:.3g} at {ref.frequency_hz:g} Hz")
     ax.set_title(f"{title}: output impedance{head}", loc="left", fontsize=10)
     fig.subplots_adjust(left=0.09, right=0.9, top=0.92, bottom=0.11)
     return _save(fig, path)

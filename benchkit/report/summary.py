@@ -320,8 +320,9 @@ def zout_summary(d: dict, title: str = "") -> str:
         lines.append(f"  {p['frequency_hz']:>9.5g}   {p['zout_ohms']:10.4g}  {p['resistance_ohms']:10.4g}  "
                      f"{p['reactance_ohms']:10.4g}  {df:>8}{mark}")
     if d.get("zout_ohms") is not None:
-        lines.append(f"  at {d['reference_hz']:g} Hz  Zout {d['zout_ohms']:.4g} ohm, damping factor "
-                     f"{d['damping_factor']:.3g} re {d['load_ohms']:g} ohm")
+        df = "-" if d["damping_factor"] is None else f"{d['damping_factor']:.3g}"
+        lines.append(f"  at {d['reference_hz']:g} Hz  Zout {d['zout_ohms']:.4g} ohm, damping factor {df} re "
+                     f"{d['load_ohms']:g} ohm")
     for w in d.get("warnings") or []:
         lines.append(f"  warning      {w}")
     return "\n".join(lines)
