@@ -86,7 +86,9 @@ class Patchbay:
 
     mode "loopback": out_0 -> in_0 and in_1. mode "poly": out_0 -> a client
     applying y = x + a2 x^2 + a3 x^3 -> in_0 (its harmonics follow the
-    power-reduction identities), and out_0 -> in_1 (reference).
+    power-reduction identities), and out_0 -> in_1 (reference). mode
+    "stereo": a two-channel stage, out_0 -> in_0 and out_1 -> in_1, each
+    channel taking ``a2`` (a ratio) of the other: flat crosstalk.
     ``stall_after`` seconds after wiring stream number ``stall_stream``
     (benchkit opens one per run: a pre-flight probe, the run, retries), the
     stage client sleeps 0.2 s in its process callback once: an xrun for
@@ -148,6 +150,11 @@ class _PatchClient:
         self.client = jack.Client(f"patch-{uuid.uuid4().hex[:6]}", servername=server, no_start_server=True)
         self.inp = self.client.inports.register("in")
         self.out = self.client.outports.register("out")
+        self.ports = [self.out]
+        if mode == "stereo":
+            self.inp2 = self.client.inports.register("in2")
+            self.out2 = self.client.outports.register("out2")
+            self.ports.append(self.out2)
         self.client.set_process_callback(self._process)
         self.client.activate()
 
@@ -156,6 +163,12 @@ class _PatchClient:
         y = self.out.get_array()
         if self.mode == "poly":
             y[:] = x + self.a2 * x * x + self.a3 * x * x * x
+        elif self.mode == "stereo":
+            x2 = self.inp2.get_array()
+            y2 = self.out2.get_array()
+            a, b = x.copy(), x2.copy()
+            y[:] = a + self.a2 * b
+            y2[:] = b + self.a2 * a
         else:
             y[:] = x
         if self.stall_after is not None and not self.stalled and self.wired_at is not None:
@@ -190,6 +203,11 @@ class _PatchClient:
 
         outs = sorted(c.get_ports("PortAudio:out_", is_output=True), key=number)
         ins = sorted(c.get_ports("PortAudio:in_", is_input=True), key=number)
+        if self.mode == "stereo":
+            if len(outs) < 2 or len(ins) < 2:
+                return None
+            return [(outs[0].name, self.inp.name), (outs[1].name, self.inp2.name), (self.out.name, ins[0].name),
+                    (self.out2.name, ins[1].name)]
         if len(outs) < 1 or len(ins) < 2:
             return None
         out0, in0, in1 = outs[0].name, ins[0].name, ins[1].name
@@ -199,7 +217,7 @@ class _PatchClient:
 
     def _wired(self, c, plan) -> bool:
         have = set()
-        for p in c.get_ports("PortAudio:", is_output=True) + [self.out]:
+        for p in c.get_ports("PortAudio:", is_output=True) + self.ports:
             have.update((p.name, q.name) for q in c.get_all_connections(p))
         return set(plan) <= have and not any(b.startswith("system:") for _a, b in have)
 

@@ -440,3 +440,18 @@ def test_zout_through_jack_asks_nothing_with_yes_and_resolves_a_wire(server, tmp
     assert d["method"] == "gain-ratio" and d["zout_ohms"] < 0.01
     assert any("below what this resolves" in w for w in d["warnings"])
     assert {"open.wav", "loaded.wav", "zout.json"} <= {p.name for p in the_run(tmp_path / "bench").iterdir()}
+
+
+def test_crosstalk_through_jack_drives_both_outputs(server, tmp_path):
+    # a two-channel patch, each channel taking 10^(-60/20) of the other: the
+    # crosstalk reads -60 dB both ways at every frequency, the balance 0 dB
+    with jackbench.Patchbay(server, "stereo", a2=10 ** (-60 / 20)):
+        proc = jackbench.benchkit(server, "crosstalk", "--device", "system", "--freq", "997", "--freq", "5000",
+                                  "--bench", str(tmp_path / "bench"), "--json")
+        out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 0, err
+    d = json.loads(out)
+    for leak in d["a_to_b"] + d["b_to_a"]:
+        assert leak["crosstalk_db"] == pytest.approx(-60.0, abs=0.05), leak
+    for b in d["balance"]:
+        assert b["balance_db"] == pytest.approx(0.0, abs=0.01)
