@@ -358,7 +358,7 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
         from benchkit.gain_runs import analyze_gain
 
         doc = {**analyze_gain(Path(path), channel, ref_channel, band, load).to_dict(), "file": str(path)}
-        _err(f"{path} channel {channel}: gain\n" + _gain_text(doc))
+        _err(summary.gain_summary(doc, f"{path} channel {channel}: gain"))
         return doc
 
     from benchkit.imd_runs import is_imd
@@ -1023,6 +1023,7 @@ def gain(
     """
     from benchkit import runs
     from benchkit.gain_runs import analyze_gain
+    from benchkit.report import summary
     from benchkit.report.tables import write_json
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -1037,7 +1038,7 @@ def gain(
                                      calibration_file=None if calibration is None else str(calibration))
             result = analyze_gain(path, in_channel, ref_channel, band, load)
             doc = result.to_dict()
-            _err(_gain_text(doc))
+            _err(summary.gain_summary(doc))
             _finish_run([write_json(doc, run.folder / "capture.gain.json")], run, doc, as_json)
 
 
@@ -1263,13 +1264,6 @@ def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: fl
         if checked is not None or load is None or not w.startswith("no load given"):
             _err(f"warning: {w}")
     return backend, profile, ref_channel, drive, plan
-
-
-def _gain_text(d: dict) -> str:
-    phase = "" if d["phase_deg"] is None else f", phase {d['phase_deg']:+.1f} deg" + (" (inverting)" if d["inverting"] else "")
-    return (f"  gain         {d['gain_vv']:.4g} V/V ({d['gain_db']:+.2f} dB) at {d['frequency_hz']:.4g} Hz{phase}\n"
-            f"  levels       {d['vin_vrms']:.4g} Vrms in ({d['input_source']}), {d['vout_vrms']:.4g} Vrms out"
-            + (f" into {d['load_ohms']:g} ohm" if d["load_ohms"] else ""))
 
 
 @app.command()

@@ -11,7 +11,8 @@ run (60 Hz + 7 kHz at 4:1, stepped) and a power run
 (the power at 1 %, 0.1 % and 10 % THD+N beside the class-A budget's
 ceiling); at 1.2 A a synchronized sweep from 2 Hz gives the response (the
 output capacitor's corner into the load, the capacitor estimated from it)
-and distortion against frequency, the output noise is measured with the
+and distortion against frequency, the voltage gain is read at 1 kHz, the
+output noise is measured with the
 input terminated (unweighted, A-weighted, SNR re 1 W, the supply's hum),
 the output impedance is read with the load off and then on (the loop's
 output resistance, and the coupling capacitor's reactance at low
@@ -59,6 +60,8 @@ SWEEP_DBFS = -20.0
 RAIL_V, VSAT_V = 24.0, 1.0
 
 
+#: The gain run's drive at 1 kHz (about 1.4 Vrms at the load).
+GAIN_DBFS = -20.0
 #: The noise run: seconds recorded with nothing played.
 NOISE_S = 3.0
 #: The drift log: 25 minutes of model time, a reading every 10 s of it.
@@ -175,6 +178,22 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                                                           span_hz=list(SWEEP_SPAN_HZ), level_dbfs=SWEEP_DBFS,
                                                           sample_rate_hz=bench.sample_rate_hz), sweep_in)
     files += written
+    say(f"virtual bench: stage B-2 at {label}, voltage gain at 1 kHz")
+    from benchkit.gain_runs import analyze_gain
+    from benchkit.report.tables import write_json
+    from benchkit.runs import record_steps
+
+    g_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 19)
+
+    def gain_in(folder):
+        path = record_steps(g_bench, folder, 1000.0, [GAIN_DBFS], note=NOTE)
+        r = analyze_gain(path, 1, g_bench.reference_input(), band, LOAD_OHMS)
+        return r, [write_json(r.to_dict(), folder / "capture.gain.json")]
+
+    gain, written = _logged(book, "gain", bias, dict(channel=1, ref_channel=g_bench.reference_input(), frequency_hz=1000.0,
+                                                     level_dbfs=GAIN_DBFS, load_ohms=LOAD_OHMS, bandwidth_hz=band,
+                                                     sample_rate_hz=g_bench.sample_rate_hz), gain_in)
+    files += written
     say(f"virtual bench: stage B-2 at {label}, output noise with the input terminated")
     from benchkit.noise_runs import noise_run
 
@@ -236,6 +255,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     (la, _a), (lb, _b) = tones
     texts.append(f"Before/after ({la} -> {lb}), 'benchkit compare':\n" + "\n\n".join(r.text for r in comparisons))
     texts.append(summary.response_summary(response, f"Test stage B-2, {label}: response"))
+    texts.append(summary.gain_summary(gain.to_dict(), f"Test stage B-2, {label}: voltage gain"))
     texts.append(summary.noise_summary(noise.to_dict(), f"Test stage B-2, {label}: output noise, input terminated"))
     texts.append(summary.zout_summary(zout.to_dict(), f"Test stage B-2, {label}: output impedance into {LOAD_OHMS:g} ohm"))
     texts.append(summary.crosstalk_summary(xtalk.to_dict(), f"Test stage B-2 as a stereo pair, {label}: crosstalk"))

@@ -79,7 +79,8 @@ def readings_of_result(doc: dict) -> list[Reading]:
         grid = lo * 2.0 ** (np.arange(0, math.log2(hi / lo) + 1e-9, 1.0 / 6.0))
         gm = np.interp(grid, f, mag)
         gp = np.interp(grid, f, np.degrees(np.unwrap(np.radians(ph))))
-        return [Reading(float(x), _phasor(float(units.ratio_from_db(m)), float(p)), None, True, True)
+        drive = (doc.get("sweep") or {}).get("level_dbfs")
+        return [Reading(float(x), _phasor(float(units.ratio_from_db(m)), float(p)), drive, True, True)
                 for x, m, p in zip(grid, gm, gp)]
     raise BenchkitError(f"a {kind} result holds no output levels to compare: use tone, gain or sweep runs")
 

@@ -27,9 +27,9 @@ def test_demo_runs_and_its_outputs_parse(tmp_path):
     # the demo's folder is a bench folder: every run filed in its logbook
     names = [f.name.split("-", 2)[2] for f in run_folders(out)]
     assert names == ["tone-bias-0.8A", "imd-bias-0.8A", "power-bias-0.8A", "tone-bias-1.2A", "imd-bias-1.2A",
-                     "power-bias-1.2A", "sweep-bias-1.2A", "noise-bias-1.2A", "zout-bias-1.2A", "crosstalk-bias-1.2A", "drift-bias-1.2A"]
+                     "power-bias-1.2A", "sweep-bias-1.2A", "gain-bias-1.2A", "noise-bias-1.2A", "zout-bias-1.2A", "crosstalk-bias-1.2A", "drift-bias-1.2A"]
     listed = json.loads(run_cli("log", "list", "--bench", str(out), "--json").stdout)
-    assert [r["status"] for r in listed["runs"]] == ["complete"] * 11
+    assert [r["status"] for r in listed["runs"]] == ["complete"] * 12
     for folder in run_folders(out)[:6:3]:
         side = json.loads((folder / "capture.json").read_text())
         assert side["kind"] == "capture" and side["scale_source"] == "simulation"

@@ -95,6 +95,14 @@ def test_two_sweeps_give_zout_across_frequency(tmp_path):
         assert p["zout_ohms"] == pytest.approx(want, rel=0.03), p
     bad = run_cli("zout", "--from", "last", "--load", "8")
     assert bad.returncode == 1 and "two runs" in bad.stderr
+    # a loaded sweep at another level: compared as gains, with a warning
+    assert run_cli("sweep", "--sim-param", "bias=1.2", "--load", "8", "--level", "-26dBFS").returncode == 0
+    # (the runs now: the sweep unloaded, loaded, the zout run, the new sweep)
+    res = run_cli("zout", "--from", "last-3", "--from", "last", "--load", "8", "--json")
+    assert res.returncode == 0, res.stderr
+    d = json.loads(res.stdout)
+    assert any("not at the same drive" in w for w in d["warnings"])
+    assert d["zout_ohms"] == pytest.approx(abs(0.2 + 1 / (2j * math.pi * d["reference_hz"] * 2200e-6)), rel=0.03)
 
 
 def test_zout_runs_compare():

@@ -347,3 +347,13 @@ def crosstalk_summary(d: dict, title: str = "") -> str:
     for w in d.get("warnings") or []:
         lines.append(f"  warning      {w}")
     return "\n".join(lines)
+
+
+def gain_summary(d: dict, title: str = "") -> str:
+    """A gain result (its document): the gain with its phase, the levels."""
+    lines = [title] if title else []
+    phase = "" if d["phase_deg"] is None else f", phase {d['phase_deg']:+.1f} deg" + (" (inverting)" if d["inverting"] else "")
+    lines.append(f"  gain         {d['gain_vv']:.4g} V/V ({d['gain_db']:+.2f} dB) at {d['frequency_hz']:.4g} Hz{phase}")
+    lines.append(f"  levels       {d['vin_vrms']:.4g} Vrms in ({d['input_source']}), {d['vout_vrms']:.4g} Vrms out"
+                 + (f" into {d['load_ohms']:g} ohm" if d["load_ohms"] else ""))
+    return "\n".join(lines)
