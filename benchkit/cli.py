@@ -1803,7 +1803,8 @@ def _book(bench: Optional[Path], write: bool = False):
 _SHORT = {"thdn_db": ("THD+N", "{:.1f} dB"), "noise_vrms": ("noise", None), "noise_dbfs": ("noise", "{:.1f} dBFS"),
           "power_w": ("P", None), "clipping_onset_w": ("onset", None), "low_3db_hz": ("-3dB lo", None),
           "high_3db_hz": ("-3dB hi", None), "settled_v": ("settled", None), "imd_db": ("IMD", "{:.1f} dB"),
-          "gain_db": ("gain", "{:+.2f} dB"), "noise_a_vrms": ("noise(A)", None)}
+          "gain_db": ("gain", "{:+.2f} dB"), "noise_a_vrms": ("noise(A)", None), "zout_ohms": ("Zout", "{:.3g} ohm"),
+          "damping_factor": ("DF", "{:.3g}"), "crosstalk_db": ("crosstalk", "{:.1f} dB")}
 _UNITS = {"noise_vrms": "Vrms", "noise_a_vrms": "Vrms", "power_w": "W", "clipping_onset_w": "W", "low_3db_hz": "Hz", "high_3db_hz": "Hz",
           "settled_v": "V"}
 
@@ -1824,7 +1825,7 @@ def _headline_text(entry) -> str:
 @log_app.command("list")
 def log_list(
     tags: List[str] = typer.Option([], "--tag", help="Only runs with this tag, key=value (repeatable: all must match)."),
-    command: Optional[str] = typer.Option(None, "--command", help="Only runs of this command: tone, imd, sweep, power, gain, noise, drift, watch."),
+    command: Optional[str] = typer.Option(None, "--command", help="Only runs of this command: tone, imd, sweep, power, gain, noise, zout, crosstalk, drift, watch."),
     since: Optional[str] = typer.Option(None, "--since", help="Only runs started on or after this date (YYYY-MM-DD) or time."),
     until: Optional[str] = typer.Option(None, "--until", help="Only runs started on or before this date or time."),
     status: Optional[str] = typer.Option(None, "--status", help="Only runs in this state: complete, interrupted, failed, incomplete, running."),
@@ -1850,14 +1851,15 @@ def log_list(
         _err(f"no runs in {book.root} match")
         return
     width = max(len(e.id) for e in entries)
-    _err(f"  {'run':<{width}}  {'status':<11} {'command':<8} tags / headline figures / note")
+    cw = max(8, *(len(e.command) for e in entries))
+    _err(f"  {'run':<{width}}  {'status':<11} {'command':<{cw}} tags / headline figures / note")
     for e in entries:
         tags_text = " ".join(f"{k}={v}" for k, v in e.tags.items())
         valid = "" if e.valid is not False else " INVALID"
-        _err(f"  {e.id:<{width}}  {e.status + valid:<11} {e.command:<8} {tags_text}")
+        _err(f"  {e.id:<{width}}  {e.status + valid:<11} {e.command:<{cw}} {tags_text}")
         line = "; ".join(x for x in (_headline_text(e), e.note.splitlines()[0] if e.note else "") if x)
         if line:
-            _err(f"  {'':<{width}}  {'':<11} {'':<8} {line}")
+            _err(f"  {'':<{width}}  {'':<11} {'':<{cw}} {line}")
 
 
 @log_app.command("show")

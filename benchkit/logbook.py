@@ -32,6 +32,7 @@ import shutil
 import socket
 import sqlite3
 import sys
+import time
 import unicodedata
 from dataclasses import dataclass
 from datetime import datetime, timezone
@@ -319,7 +320,7 @@ class Logbook:
             else:
                 db = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT_S, isolation_level=None)
                 db.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
-                mode = db.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+                mode = self._wal(db)
                 if mode.lower() != "wal":
                     raise BenchkitError(f"{path}: the catalog cannot use WAL mode here ({mode})")
             db.execute("PRAGMA foreign_keys = ON")
@@ -327,6 +328,20 @@ class Logbook:
             return db
         except sqlite3.DatabaseError as exc:
             raise BenchkitError(f"{path}: cannot open the catalog: {exc}") from None
+
+    @staticmethod
+    def _wal(db: sqlite3.Connection) -> str:
+        """Switch a catalog to WAL. A new catalog opened by several
+        processes at once can answer "locked" without waiting on the busy
+        handler (the switch needs the file to itself): try again a while."""
+        deadline = time.monotonic() + BUSY_TIMEOUT_S
+        while True:
+            try:
+                return db.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+            except sqlite3.OperationalError:
+                if time.monotonic() > deadline:
+                    raise
+                time.sleep(0.05)
 
     def close(self) -> None:
         self.db.close()
