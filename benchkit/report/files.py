@@ -118,10 +118,4 @@ def zout_reports(result, folder: Path, out: Path, name: str = "zout") -> list[Pa
 
 
 def crosstalk_reports(result, path: Path, out: Path) -> list[Path]:
-    """STEM.crosstalk.json, .csv and .png."""
-    report_folder(out)
-    return [
-        tables.write_json(result.to_dict(), out / f"{path.stem}.crosstalk.json"),
-        tables.write_crosstalk_csv(result, out / f"{path.stem}.crosstalk.csv"),
-        plots.crosstalk_png(result, out / f"{path.stem}.crosstalk.png", path.parent.name),
-    ]
+    return _result_csv_png(result, path, 1, out, "crosstalk", tables.write_crosstalk_csv, plots.crosstalk_png)
