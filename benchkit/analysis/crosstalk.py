@@ -94,6 +94,8 @@ class CrosstalkResult:
     leaks: tuple[Leak, ...]
     scaled: bool  # ratios in volts (both inputs' scales known) or in FS
     warnings: tuple[str, ...] = ()
+    sample_rate_hz: float | None = None
+    bandwidth_hz: tuple[float, float] | None = None
 
     def direction(self, driven: str) -> list[Leak]:
         return [x for x in self.leaks if x.driven == driven]
@@ -125,6 +127,10 @@ class CrosstalkResult:
         at1k = min(balance, key=lambda fb: abs(math.log(fb[0] / 1000.0))) if balance else None
         return {
             "kind": "crosstalk", "schema_version": SCHEMA_VERSION, "scaled": self.scaled,
+            "sample_rate_hz": self.sample_rate_hz,
+            "bandwidth_hz": list(self.bandwidth_hz) if self.bandwidth_hz else None,
+            "conditions": {"window": sp.WINDOW_NAME, "floor_margin_db": FLOOR_MARGIN_DB,
+                           "method": "the driven tone fitted; the leak read at its frequency by least squares"},
             "reference_hz": None if worst is None else worst.frequency_hz,
             "crosstalk_db": None if worst is None else worst.crosstalk_db,
             "balance_db": None if at1k is None else at1k[1],

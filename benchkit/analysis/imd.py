@@ -162,6 +162,9 @@ class ImdResult:
             "floor_db": self.floor_db, "peak_fs": self.peak_fs, "clipped": self.clipped, "valid": self.valid,
             "warnings": list(self.warnings), "scale_source": self.scale_source, "volts_per_fs": vpf,
             "load_ohms": self.load_ohms,
+            "conditions": {"window": sp.WINDOW_NAME, "max_order": MAX_ORDER, "floor_margin_db": FLOOR_MARGIN_DB,
+                           "method": "each component read at its frequency by least squares over the window's "
+                                     "exact kernel; f1 and f2 found in the record"},
             "products": [p.to_dict(vpf) for p in self.products],
         }
         if vpf is not None:

@@ -62,6 +62,7 @@ class ZoutPoint:
     zout: complex  # ohms; real when the phases are not known
     load_ohms: float
     valid: bool
+    drive_dbfs: float | None = None  # the unloaded reading's
 
     @property
     def zout_ohms(self) -> float:
@@ -76,7 +77,7 @@ class ZoutPoint:
                 "ratio_db": units.db_from_ratio(abs(self.ratio)),
                 "ratio_phase_deg": math.degrees(cmath.phase(self.ratio)), "zout_ohms": self.zout_ohms,
                 "resistance_ohms": self.zout.real, "reactance_ohms": self.zout.imag,
-                "damping_factor": self.damping_factor, "valid": self.valid}
+                "damping_factor": self.damping_factor, "drive_dbfs": self.drive_dbfs, "valid": self.valid}
 
 
 @dataclass(frozen=True)
@@ -137,7 +138,7 @@ def output_impedance(open_: list[Reading], loaded: list[Reading], load_ohms: flo
             z = open_load_ohms * r_eff * (k - 1.0) / (open_load_ohms - k * r_eff)
         if abs(k - 1.0) < RESOLUTION:
             unresolved.append(a.frequency_hz)
-        points.append(ZoutPoint(a.frequency_hz, complex(k), complex(z), load_ohms, a.valid and b.valid))
+        points.append(ZoutPoint(a.frequency_hz, complex(k), complex(z), load_ohms, a.valid and b.valid, a.drive_dbfs))
     if not points:
         raise BenchkitError("the unloaded and loaded readings share no frequency")
     if drifted:
