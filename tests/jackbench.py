@@ -36,7 +36,7 @@ class JackServer:
                 stdout=subprocess.DEVNULL,
                 stderr=subprocess.DEVNULL,
             )
-            deadline = time.monotonic() + 10
+            deadline = time.monotonic() + 60  # only a hang guard: a busy machine is slow to start it
             while time.monotonic() < deadline and self.proc.poll() is None:
                 ok = subprocess.run(["jack_lsp", "-s", self.name], capture_output=True, timeout=5)
                 if ok.returncode == 0 and b"system:playback_1" in ok.stdout:
@@ -58,10 +58,11 @@ class JackServer:
         return {**os.environ, "JACK_DEFAULT_SERVER": self.name, "JACK_NO_START_SERVER": "1"}
 
     def stop(self) -> None:
-        # SIGTERM and patience: a jackd killed outright leaves its entry in
-        # the shared registry of (at most 8) servers
+        # SIGINT (jackd shuts down at once; SIGTERM takes it seconds) and
+        # patience: a jackd killed outright leaves its entry in the shared
+        # registry of (at most 8) servers
         if self.proc and self.proc.poll() is None:
-            self.proc.send_signal(signal.SIGTERM)
+            self.proc.send_signal(signal.SIGINT)
             try:
                 self.proc.wait(30)
             except subprocess.TimeoutExpired:
@@ -89,7 +90,7 @@ class Patchbay:
     power-reduction identities), and out_0 -> in_1 (reference). mode
     "stereo": a two-channel stage, out_0 -> in_0 and out_1 -> in_1, each
     channel taking ``a2`` (a ratio) of the other: flat crosstalk.
-    ``stall_after`` seconds after wiring stream number ``stall_stream``
+    ``stall_after`` seconds of stream after wiring stream number ``stall_stream``
     (benchkit opens one per run: a pre-flight probe, the run, retries), the
     stage client sleeps 0.2 s in its process callback once: an xrun for
     everyone.
@@ -104,7 +105,7 @@ class Patchbay:
         )
         self._reader = threading.Thread(target=self._read, daemon=True)
         self._reader.start()
-        deadline = time.monotonic() + 10
+        deadline = time.monotonic() + 60  # only a hang guard
         while "ready" not in self.lines:
             if time.monotonic() > deadline or self.proc.poll() is not None:
                 raise RuntimeError("the JACK patch bay did not start")
@@ -145,7 +146,8 @@ class _PatchClient:
         self.jack = jack
         self.mode, self.a2, self.a3 = mode, a2, a3
         self.stall_after = stall_after
-        self.wired_at: float | None = None
+        self.wired = False  # the stream to stall is wired: count its frames
+        self.frames_wired = 0
         self.stalled = False
         self.client = jack.Client(f"patch-{uuid.uuid4().hex[:6]}", servername=server, no_start_server=True)
         self.inp = self.client.inports.register("in")
@@ -171,8 +173,10 @@ class _PatchClient:
             y2[:] = b + self.a2 * a
         else:
             y[:] = x
-        if self.stall_after is not None and not self.stalled and self.wired_at is not None:
-            if time.monotonic() - self.wired_at > self.stall_after:
+        if self.stall_after is not None and not self.stalled and self.wired:
+            # stream time, not the clock: on a busy machine both drift apart
+            self.frames_wired += frames
+            if self.frames_wired > self.stall_after * self.client.samplerate:
                 self.stalled = True
                 time.sleep(0.2)
                 print("stalled", flush=True)
@@ -190,8 +194,8 @@ class _PatchClient:
                     # PortAudio numbers each new stream's ports on: out_0 is
                     # the first stream's, out_1 the second's...
                     stream = int(plan[0][0].rsplit("_", 1)[1]) + 1
-                    if stream == self.stall_stream and self.wired_at is None:
-                        self.wired_at = time.monotonic()
+                    if stream == self.stall_stream:
+                        self.wired = True
                     print("wired", flush=True)
             except self.jack.JackError:
                 pass
