@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 import scipy.signal
@@ -25,6 +26,13 @@ from benchkit.errors import BenchkitError
 THERMAL_VOLTAGE = 0.02585
 #: The audio band the noise figures refer to.
 _NOISE_BAND_HZ = 19980.0
+
+
+@lru_cache(maxsize=64)
+def first_order_highpass(corner_hz: float, rate: float) -> tuple[np.ndarray, np.ndarray]:
+    """(b, a) of a first-order Butterworth high-pass, designed once per
+    corner and rate (streams ask for it at every block; do not modify)."""
+    return scipy.signal.butter(1, corner_hz, btype="highpass", fs=rate)
 
 
 @dataclass(frozen=True)
@@ -265,17 +273,21 @@ class SingleEndedClassA(StageModel):
         vi = self.current_limit_v
         top = vi * (1.0 - 1e-12)
         v = np.minimum(target, 0.999 * vi)
+        # Newton on the samples still moving: near the limit a sample takes
+        # tens of steps, at rest two or three
+        active = np.arange(v.size)
         for _ in range(60):
-            g, dg = self._shape(v)
-            h = v + (g - v) / t_loop - target
-            step = h / (1.0 + (dg - 1.0) / t_loop)
-            v_new = v - step
+            va = v[active]
+            g, dg = self._shape(va)
+            h = va + (g - va) / t_loop - target[active]
+            v_new = va - h / (1.0 + (dg - 1.0) / t_loop)
             # stay on the physical side of the cut-off
-            v_new = np.where(v_new >= top, 0.5 * (v + top), v_new)
-            done = np.max(np.abs(v_new - v)) < 1e-13 * vi
-            v = v_new
-            if done:
+            v_new = np.where(v_new >= top, 0.5 * (va + top), v_new)
+            v[active] = v_new
+            moving = np.abs(v_new - va) >= 1e-13 * vi
+            if not moving.any():
                 break
+            active = active[moving]
         return v
 
     def _transfer(self, v_in, rate):
@@ -287,11 +299,14 @@ class SingleEndedClassA(StageModel):
         # rail-limited half (the node cannot fall below the saturation
         # voltage; the capacitor holds the midpoint), with a softened knee
         floor = self.midpoint_v() - p["vsat"]
-        load_v = -floor + p["knee"] * np.logaddexp(0.0, (load_v + floor) / p["knee"])
-        t = self.time_s + np.arange(v_in.size) / rate
-        ripple = p["ripple_mv"] * 1e-3 * math.sqrt(2)
-        f_r = 2.0 * p["mains_hz"]
-        load_v = load_v + ripple * (np.sin(2 * np.pi * f_r * t) + 0.5 * np.sin(4 * np.pi * f_r * t + 0.7))
+        z = (load_v + floor) / p["knee"]
+        near = z < 40.0  # beyond, the knee's term is below 1e-17 of a volt
+        load_v[near] = -floor + p["knee"] * np.logaddexp(0.0, z[near])
+        if p["ripple_mv"]:
+            t = self.time_s + np.arange(v_in.size) / rate
+            ripple = p["ripple_mv"] * 1e-3 * math.sqrt(2)
+            f_r = 2.0 * p["mains_hz"]
+            load_v += ripple * (np.sin(2 * np.pi * f_r * t) + 0.5 * np.sin(4 * np.pi * f_r * t + 0.7))
         sigma = p["noise_uv"] * 1e-6 * math.sqrt((rate / 2.0) / _NOISE_BAND_HZ)
         return load_v + sigma * self._rng.standard_normal(v_in.size)
 
@@ -306,7 +321,7 @@ class SingleEndedClassA(StageModel):
     def _couple(self, node: np.ndarray, rate: float) -> np.ndarray:
         p = self.params
         fc = 1.0 / (2 * math.pi * p["load"] * p["coupling_uf"] * 1e-6)
-        b, a = scipy.signal.butter(1, fc, btype="highpass", fs=rate)
+        b, a = first_order_highpass(fc, rate)
         if self._hp_state is None or self._hp_rate != rate:
             self._hp_state = np.zeros(1)
             self._hp_rate = rate

@@ -29,7 +29,7 @@ import numpy as np
 import scipy.signal
 
 from benchkit.capture import CLIP_STOP_FS, InputChannel, RawRecording
-from benchkit.capture.stages import StageModel, StereoCoupling, make_stage, split_stereo
+from benchkit.capture.stages import StageModel, StereoCoupling, first_order_highpass, make_stage, split_stereo
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
 from benchkit.recordings import WavStreamWriter
@@ -379,7 +379,7 @@ class VirtualBench:
             amp = 10 ** (s.hum_dbfs / 20)
             x = x + amp * (np.sin(2 * np.pi * s.hum_hz * t) + 0.3 * np.sin(6 * np.pi * s.hum_hz * t + 1.0))
         if s.ac_coupling_hz:
-            b, a = scipy.signal.butter(1, s.ac_coupling_hz, btype="highpass", fs=rate)
+            b, a = first_order_highpass(s.ac_coupling_hz, rate)
             if state is None:
                 x = scipy.signal.lfilter(b, a, x)
             else:
