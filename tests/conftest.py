@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import atexit
 import os
 import shutil
 import subprocess
@@ -11,14 +12,32 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+import forkcli
+
 
 def cosine(freq_hz: float, rate: float, seconds: float = 1.0, amp: float = 0.5, phase: float = 0.0) -> np.ndarray:
     n = np.arange(int(round(rate * seconds)))
     return amp * np.cos(2 * np.pi * freq_hz * n / rate + phase)
 
 
+_FORK = forkcli.ForkServer() if os.environ.get("BENCHKIT_TEST_FORK", "1") != "0" and hasattr(os, "fork") else None
+if _FORK is not None:
+    atexit.register(_FORK.close)
+
+
+def pytest_collection_modifyitems(items):
+    """The real-stream tests first: they take the longest in wall time and
+    run one after another on one worker, while the other worker takes the
+    rest (with --dist loadfile --no-loadscope-reorder, see pyproject.toml)."""
+    items.sort(key=lambda item: item.path.name != "test_jack.py")
+
+
 def run_cli(*args: str, cwd=None) -> subprocess.CompletedProcess:
-    """Run the real console entry point in a subprocess."""
+    """Run the real console entry point in a process of its own: forked
+    from a server that has done the imports (tests/forkcli.py), or a fresh
+    interpreter with BENCHKIT_TEST_FORK=0."""
+    if _FORK is not None:
+        return _FORK.run(args, cwd, None, timeout=120)
     return subprocess.run(
         [sys.executable, "-m", "benchkit", *args], capture_output=True, text=True, cwd=cwd, timeout=120
     )

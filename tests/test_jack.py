@@ -21,6 +21,9 @@ from benchkit import analyze_tone
 import jackbench
 from conftest import run_cli, run_folders, the_run
 
+# these run one after another on one xdist worker (--dist loadfile: two
+# streams at once on two cores would starve each other); the timeout only
+# guards against a hang
 pytestmark = pytest.mark.timeout(120)
 
 
@@ -116,8 +119,9 @@ def test_an_xrun_spoils_its_step_and_the_step_is_retried(server, tmp_path):
 
 
 def _wait_until_running(proc, bench, seconds=1.5):
-    """The partial recording of the run in ``bench`` once it holds ``seconds``."""
-    deadline = time.monotonic() + 20
+    """The partial recording of the run in ``bench`` once it holds
+    ``seconds`` of stream (the deadline only catches a hang)."""
+    deadline = time.monotonic() + 90
     while time.monotonic() < deadline:
         for partial in bench.glob("runs/*/capture.partial.wav"):
             if partial.stat().st_size > 44 + 4 * 2 * int(48000 * seconds):
@@ -170,12 +174,10 @@ def test_sigkill_leaves_a_readable_partial_capture(server, tmp_path):
         proc = jackbench.benchkit(server, "tone", "--device", "system", "--ref-channel", "2", "--bench", str(folder),
                                   *sum((["--level", "-20dBFS"] for _ in range(6)), []))
         partial = _wait_until_running(proc, folder, seconds=3.0)
-        start = time.monotonic()
         proc.kill()
-        proc.communicate(timeout=10)
+        proc.communicate(timeout=10)  # gone at once: no handler runs
     data, rate = sf.read(partial, always_2d=True)
     assert rate == 48000 and data.shape[0] >= 2 * 48000
-    assert time.monotonic() - start < 10
 
 
 def test_a_killed_run_is_incomplete_and_reanalyse_completes_it(server, tmp_path):
