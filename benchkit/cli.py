@@ -879,7 +879,8 @@ def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, j
     if clipped:
         _err("benchkit: stopped: the input clipped (the tone faded out): lower the level or use a larger pad")
         code = EXIT_BAD_INPUT
-    _err(f"watch ended: {stopped}; {tracker.count} readings; the output faded to silence")
+    dropped = f", {tracker.disturbed} across a dropout of the stream (left out)" if tracker.disturbed else ""
+    _err(f"watch ended: {stopped}; {tracker.count} readings{dropped}; the output faded to silence")
     for line in _watch_summary(tracker):
         _err(line)
     if run is not None:

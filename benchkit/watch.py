@@ -70,6 +70,9 @@ class Reading:
     dc_v: float | None
     clipped: bool
     tone_lost: bool
+    #: the stream reported a dropout (over- or underflow) inside the block:
+    #: its figures are shown marked and left out of minimum, maximum and trend
+    disturbed: bool = False
 
     def to_dict(self) -> dict:
         return {"kind": "reading", "schema_version": READING_VERSION, **asdict(self)}
@@ -115,6 +118,7 @@ class SteadyTone:
         self._rendered = 0
         self._fade_from: int | None = None
         self._fade_n = int(0.02 * rate)
+        self._faults: list[tuple[int, int]] = []
         self._loudest = -math.inf
         self.finished = False
         self.stop_reason = ""
@@ -168,6 +172,12 @@ class SteadyTone:
             self.stop_reason = reason
 
     # --- what a listening backend feeds --------------------------------------
+    def fault(self, pos: int, frames: int) -> None:
+        """The stream reported an over- or underflow in the callback for
+        frames [pos, pos + frames): the samples lost lie next to them.
+        Called on the audio thread (a list append, nothing more)."""
+        self._faults.append((pos - frames, pos + frames))
+
     def listen(self, block: np.ndarray, pos: int) -> None:
         """Recorded frames ``block`` from raw frame ``pos``: a reading once
         a block is full, every ``update_n`` frames, after the ramp."""
@@ -182,23 +192,25 @@ class SteadyTone:
         ready = self._filled == self.block_n and self._heard > self.ramp_n + self.block_n
         if ready and self._since >= self.update_n and self._fade_from is None:
             self._since = self._since - self.update_n if self._since < 2 * self.update_n else 0
-            self.on_reading(self.analyse(self._buf, self._heard / self.sample_rate_hz))
+            start = self._heard - self.block_n
+            disturbed = any(a < self._heard and b > start for a, b in self._faults)
+            self.on_reading(self.analyse(self._buf, self._heard / self.sample_rate_hz, disturbed))
 
-    def analyse(self, x: np.ndarray, t_s: float) -> Reading:
+    def analyse(self, x: np.ndarray, t_s: float, disturbed: bool = False) -> Reading:
         dc = self.dc() if self.dc is not None else None
         clipped = bool(np.max(np.abs(x)) >= 0.999)
         try:
             r = analyze_tone(x, self.sample_rate_hz, fundamental_hz=self.frequency_hz, bandwidth_hz=self.bandwidth_hz,
                              volts_per_fs=self.volts_per_fs, load_ohms=self.load_ohms)
         except BenchkitError:
-            return Reading(t_s, None, None, None, None, None, None, None, None, dc, clipped, True)
+            return Reading(t_s, None, None, None, None, None, None, None, None, dc, clipped, True, disturbed)
         if dc is None and self.dc_scale is not None:
             dc = r.dc_fs * self.dc_scale
         self._loudest = max(self._loudest, r.fundamental_dbfs)
         lost = r.fundamental_dbfs < self._loudest - LOST_DB or abs(r.fundamental_hz / self.frequency_hz - 1) > 0.01
         h = {k.order: k.level_dbc for k in r.harmonics}
         return Reading(t_s, r.fundamental_dbfs, r.fundamental_vrms, r.power_w, r.thdn_db, r.thd_db, h.get(2), h.get(3),
-                       r.noise_dbfs, dc, clipped or r.clipped, lost)
+                       r.noise_dbfs, dc, clipped or r.clipped, lost, disturbed)
 
 
 class Watch:
@@ -260,6 +272,7 @@ class Tracker:
 
     def reset(self) -> None:
         self.count = 0
+        self.disturbed = 0
         self.min: dict[str, float] = {}
         self.max: dict[str, float] = {}
         self.history: dict[str, deque] = {key: deque(maxlen=self.trend) for key, _l, _u in FIGURES}
@@ -267,10 +280,11 @@ class Tracker:
 
     def add(self, r: Reading) -> None:
         self.count += 1
+        self.disturbed += r.disturbed
         self.last = r
         for key, _label, _unit in FIGURES:
             v = getattr(r, key)
-            if v is None or (r.tone_lost and key != "dc_v"):
+            if v is None or r.disturbed or (r.tone_lost and key != "dc_v"):
                 continue
             self.min[key] = min(self.min.get(key, v), v)
             self.max[key] = max(self.max.get(key, v), v)
@@ -286,7 +300,7 @@ class Tracker:
 
 # --- the readings on disk -------------------------------------------------------
 
-COLUMNS = ("t_s",) + tuple(key for key, _l, _u in FIGURES) + ("clipped", "tone_lost")
+COLUMNS = ("t_s",) + tuple(key for key, _l, _u in FIGURES) + ("clipped", "tone_lost", "disturbed")
 
 
 class ReadingsLog:
@@ -313,7 +327,8 @@ class ReadingsLog:
 def summarise(path: Path, info: dict | None = None) -> dict:
     """The result of a recorded watch, from its readings.csv: for each
     figure the first, last, minimum and maximum; how many readings, how
-    long, and how many were clipped or had lost the tone."""
+    long, and how many were clipped, had lost the tone or spanned a
+    dropout of the stream (those are left out of the figures)."""
     try:
         with path.open(encoding="utf-8", newline="") as fh:
             rows = list(csv.DictReader(fh))
@@ -322,8 +337,9 @@ def summarise(path: Path, info: dict | None = None) -> dict:
     if not rows:
         raise BenchkitError(f"{path}: no readings")
     figures = {}
+    disturbed = sum(r.get("disturbed") == "true" for r in rows)
     for key, label, unit in FIGURES:
-        vals = [float(r[key]) for r in rows if r.get(key) not in (None, "")]
+        vals = [float(r[key]) for r in rows if r.get(key) not in (None, "") and r.get("disturbed") != "true"]
         if vals:
             figures[key] = {"label": label, "unit": unit, "first": vals[0], "last": vals[-1], "min": min(vals),
                             "max": max(vals)}
@@ -335,6 +351,9 @@ def summarise(path: Path, info: dict | None = None) -> dict:
         warnings.append(f"{clipped} reading(s) clipped the input")
     if lost:
         warnings.append(f"{lost} reading(s) had lost the tone")
+    if disturbed:
+        warnings.append(f"{disturbed} reading(s) spanned a dropout of the audio stream and were left out of the "
+                        "figures (a busy computer? a larger --blocksize helps)")
     return {"kind": "watch", "schema_version": 1, **(info or {}), "readings": len(rows), "first_s": t[0],
             "last_s": t[-1], "rate_per_s": (len(rows) - 1) / (t[-1] - t[0]) if t[-1] > t[0] else None,
             "figures": figures, "valid": not clipped, "warnings": warnings, "file": str(path)}

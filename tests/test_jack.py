@@ -216,12 +216,17 @@ def test_watch_through_jack_reads_the_poly_h2_and_fades_out(server, tmp_path):
     with jackbench.Patchbay(server, "poly", a2=a2):
         proc = jackbench.benchkit(server, "watch", "--device", "system", "--ref-channel", "2", "--level",
                                   f"{level}dBFS", "--json-lines", "--record", "--record-audio", "--bench", str(bench))
-        docs = [json.loads(proc.stdout.readline()) for _ in range(6)]
+        # a reading across a dropout of the stream (a busy machine) comes
+        # marked: read on until five clean ones, past the first
+        docs = [json.loads(proc.stdout.readline())]
+        while sum(not d["disturbed"] for d in docs[1:]) < 5 and len(docs) < 40:
+            docs.append(json.loads(proc.stdout.readline()))
         proc.send_signal(signal.SIGINT)
         _, err = proc.communicate(timeout=30)
     assert proc.returncode == 130, err
     want = 20 * math.log10(a2 * 10 ** (level / 20) / 2)
-    assert all(d["h2_dbc"] == pytest.approx(want, abs=0.5) for d in docs[1:])
+    clean = [d for d in docs[1:] if not d["disturbed"]]
+    assert len(clean) == 5 and all(d["h2_dbc"] == pytest.approx(want, abs=0.5) for d in clean)
     gaps = np.diff([d["t_s"] for d in docs])
     assert np.all(gaps > 0.1) and np.all(gaps < 0.45)  # several a second
     run = the_run(bench)

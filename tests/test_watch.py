@@ -86,6 +86,41 @@ def test_a_lost_tone_is_marked():
     assert all(r.tone_lost for r in got[k + 1:]) and len(got) > k + 2
 
 
+def test_a_reading_across_a_stream_dropout_is_marked_and_left_out(tmp_path):
+    # a clean tone y = x + a2 x^2 (H2/H1 = a2 A / 2, power-reduction
+    # identity) fed block by block as a backend would, with 10 ms of it lost
+    # at one point and the callback there flagged: the readings whose block
+    # spans it are marked, every other one reads the identity
+    from benchkit.watch import ReadingsLog, summarise
+
+    rate, f, a2, amp = 48000.0, 997.0, 0.2, 0.1
+    got = []
+    tone = SteadyTone(f, 20 * math.log10(amp), rate, got.append)
+    n = np.arange(int(3.0 * rate))
+    x = amp * np.sin(2 * np.pi * f * n / rate)
+    y = x + a2 * x * x
+    cut, gap, blk = int(1.5 * rate), int(0.01 * rate), 1024
+    y = np.concatenate([y[:cut], y[cut + gap:]])  # the samples the dropout lost
+    for pos in range(0, y.size - blk, blk):
+        if pos <= cut < pos + blk:
+            tone.fault(pos, blk)
+        tone.listen(y[pos : pos + blk, None], pos)
+    want = 20 * math.log10(a2 * amp / 2)
+    marked = [r for r in got if r.disturbed]
+    assert marked and all(r.t_s * rate - tone.block_n - blk <= cut <= r.t_s * rate + blk for r in marked)
+    assert all(r.h2_dbc == pytest.approx(want, abs=0.1) for r in got if not r.disturbed)
+    assert any(abs(r.thdn_db - want) > 3 for r in marked)  # what the mark keeps out
+    tracker, log = Tracker(), ReadingsLog(tmp_path / "readings.csv")
+    for r in got:
+        tracker.add(r)
+        log.add(r)
+    log.close()
+    assert tracker.disturbed == len(marked) and tracker.max["thdn_db"] == pytest.approx(want, abs=0.1)
+    doc = summarise(tmp_path / "readings.csv")
+    assert doc["figures"]["thdn_db"]["max"] == pytest.approx(want, abs=0.1)
+    assert any("dropout" in w for w in doc["warnings"])
+
+
 def test_tracker_keeps_min_max_trend_and_resets():
     from benchkit.watch import Reading
 

@@ -284,6 +284,7 @@ class PortAudioBackend:
         # a stimulus that listens decides as it plays: its samples so far,
         # its length an upper bound; the cap below holds it all the same
         listening = hasattr(stimulus, "listen")
+        on_fault = getattr(stimulus, "fault", None)  # it marks what it hears across a dropout
         known = stimulus.samples
         peak = float(np.max(np.abs(known))) if known.size else 0.0
         if peak > 0 and units.db_from_ratio(peak) > self.drive_cap_dbfs + 1e-9:
@@ -326,6 +327,8 @@ class PortAudioBackend:
             if status:
                 state["faults"].append(pos)
                 state["statuses"].append(str(status))
+                if on_fault is not None:
+                    on_fault(pos, frames)
             # output: the stimulus, or the emergency fade, or silence
             if self._abort.is_set() and state["fade_at"] < 0:
                 state["fade_at"] = pos

@@ -43,6 +43,8 @@ def marks(r: Reading | None, held: bool) -> list[str]:
         out.append("CLIPPED: the input reached full scale")
     if r is not None and r.tone_lost:
         out.append("TONE LOST: no steady tone at the input (wiring? stage off?)")
+    if r is not None and r.disturbed:
+        out.append("DROPOUT: the stream lost samples in this block; left out of min, max and trend")
     if held:
         out.append("HELD (h releases)")
     return out
