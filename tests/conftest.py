@@ -37,7 +37,7 @@ def run_cli(*args: str, cwd=None) -> subprocess.CompletedProcess:
     from a server that has done the imports (tests/forkcli.py), or a fresh
     interpreter with BENCHKIT_TEST_FORK=0."""
     if _FORK is not None:
-        return _FORK.run(args, cwd, None, timeout=120)
+        return _FORK.run(args, cwd, timeout=120)
     return subprocess.run(
         [sys.executable, "-m", "benchkit", *args], capture_output=True, text=True, cwd=cwd, timeout=120
     )

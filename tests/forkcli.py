@@ -45,8 +45,7 @@ def _child(req: dict) -> None:
         for fd, target in ((devnull, 0), (out, 1), (err, 2)):
             os.dup2(fd, target)
             os.close(fd)
-        main = sys.modules["benchkit.__main__"].__file__ if "benchkit.__main__" in sys.modules else None
-        sys.argv = [main or "benchkit", *req["args"]]
+        sys.argv = ["benchkit", *req["args"]]  # run_module puts the module's path first, as -m does
         try:
             runpy.run_module("benchkit", run_name="__main__", alter_sys=True)
             code = 0
@@ -109,21 +108,17 @@ class ForkServer:
         if json.loads(self.proc.stdout.readline() or "{}").get("ready") is not True:
             raise RuntimeError("the benchkit fork server did not start")
 
-    def run(self, args, cwd, tmp_dir, timeout: float) -> subprocess.CompletedProcess:
+    def run(self, args, cwd, timeout: float) -> subprocess.CompletedProcess:
         with self.lock:
             if self.proc is None or self.proc.poll() is not None:
                 self._start()
-            fd_out, out = _mkstemp(tmp_dir, "stdout")
-            fd_err, err = _mkstemp(tmp_dir, "stderr")
-            os.close(fd_out)
-            os.close(fd_err)
+            out, err = _scratch("stdout"), _scratch("stderr")
             req = {"args": list(args), "env": dict(os.environ), "cwd": str(cwd or os.getcwd()), "out": out, "err": err}
             self.proc.stdin.write(json.dumps(req) + "\n")
             self.proc.stdin.flush()
-            pid = json.loads(self.proc.stdout.readline())["pid"]
-            status = self._wait(pid, timeout, args)
-            code = os.waitstatus_to_exitcode(status)
             try:
+                pid = json.loads(self.proc.stdout.readline())["pid"]
+                code = os.waitstatus_to_exitcode(self._wait(pid, timeout, args))
                 return subprocess.CompletedProcess([sys.executable, "-m", "benchkit", *args], code,
                                                    _read_text(out), _read_text(err))
             finally:
@@ -147,10 +142,12 @@ class ForkServer:
             self.proc.wait(10)
 
 
-def _mkstemp(folder, what):
+def _scratch(what: str) -> str:
     import tempfile
 
-    return tempfile.mkstemp(prefix=f"benchkit-{what}-", dir=folder)
+    fd, path = tempfile.mkstemp(prefix=f"benchkit-{what}-")
+    os.close(fd)
+    return path
 
 
 def _read_text(path: str) -> str:
