@@ -2,11 +2,9 @@
 
 from __future__ import annotations
 
-import atexit
 import os
 import shutil
 import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
@@ -20,11 +18,6 @@ def cosine(freq_hz: float, rate: float, seconds: float = 1.0, amp: float = 0.5, 
     return amp * np.cos(2 * np.pi * freq_hz * n / rate + phase)
 
 
-_FORK = forkcli.ForkServer() if os.environ.get("BENCHKIT_TEST_FORK", "1") != "0" and hasattr(os, "fork") else None
-if _FORK is not None:
-    atexit.register(_FORK.close)
-
-
 def pytest_collection_modifyitems(items):
     """The real-stream tests first: they take the longest in wall time and
     run one after another on one worker, while the other worker takes the
@@ -36,11 +29,7 @@ def run_cli(*args: str, cwd=None) -> subprocess.CompletedProcess:
     """Run the real console entry point in a process of its own: forked
     from a server that has done the imports (tests/forkcli.py), or a fresh
     interpreter with BENCHKIT_TEST_FORK=0."""
-    if _FORK is not None:
-        return _FORK.run(args, cwd, timeout=120)
-    return subprocess.run(
-        [sys.executable, "-m", "benchkit", *args], capture_output=True, text=True, cwd=cwd, timeout=120
-    )
+    return forkcli.run(*args, cwd=cwd, timeout=120)
 
 
 @pytest.fixture(scope="session")

@@ -2,49 +2,56 @@
 
 Every `benchkit` command the tests run is a process of its own, and most
 of its CPU time went on imports (scipy.signal, matplotlib, benchkit: about
-1.5 to 2 s of CPU each, over a hundred and fifty times per suite). This
+1.5 to 2 s of CPU each, over a hundred and eighty times per suite). This
 server imports them once; each command is a child forked from it that
-takes the test's environment, working folder and arguments, runs the
-module as ``python -m benchkit`` would (``runpy``, run name ``__main__``),
-writes its own stdout and stderr, and exits with the command's status.
+takes the test's environment, working folder, arguments and standard
+streams, runs the module as ``python -m benchkit`` would (``runpy``, run
+name ``__main__``) and exits with the command's status. The test holds a
+:class:`Forked`, which answers like a ``subprocess.Popen`` (pipes, signals,
+``communicate``, ``returncode``).
 
-The server never imports sounddevice (PortAudio does not survive a fork):
-commands on a real stream start a fresh interpreter (tests/jackbench.py).
-``BENCHKIT_TEST_FORK=0`` turns the server off (every command a fresh
-interpreter, as before).
+The server never imports sounddevice, so PortAudio starts afresh in each
+child that opens a stream (it would not survive a fork).
+``BENCHKIT_TEST_FORK=0`` turns the server off: every command a fresh
+interpreter. Tests that need a terminal or the interpreter's own start
+(the pty, the device variable read at start-up) use ``subprocess`` as
+they always did.
 
-Protocol, one JSON line each way per command: the test sends
-``{"args", "env", "cwd", "out", "err"}``; the server answers ``{"pid"}``
-once the child runs, then ``{"status"}`` (a wait status) when it has ended.
+Protocol: a Unix socket pair of packets. The test sends ``{"args", "env",
+"cwd"}`` with the command's stdin, stdout and stderr attached (SCM_RIGHTS);
+the server answers ``{"pid"}`` once the child runs, and ``{"pid",
+"status"}`` (a wait status) whenever a child has ended.
 """
 
 from __future__ import annotations
 
+import atexit
 import json
 import os
+import select
+import socket
 import subprocess
 import sys
 import threading
 
 # what the commands load besides benchkit's own modules; imported once, in the server
 PRELOAD = ("scipy.signal", "matplotlib.figure", "matplotlib.backends.backend_agg")
+_PACKET = 1 << 20
 
 
-def _child(req: dict) -> None:
+def _child(sock: socket.socket, req: dict, fds: list[int]) -> None:
     """In the forked child: become ``python -m benchkit <args>``."""
     import runpy
 
     code = 1
     try:
+        sock.close()
+        for fd, target in zip(fds, (0, 1, 2)):
+            os.dup2(fd, target)
+            os.close(fd)
         os.environ.clear()
         os.environ.update(req["env"])
         os.chdir(req["cwd"])
-        devnull = os.open(os.devnull, os.O_RDONLY)
-        out = os.open(req["out"], os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
-        err = os.open(req["err"], os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
-        for fd, target in ((devnull, 0), (out, 1), (err, 2)):
-            os.dup2(fd, target)
-            os.close(fd)
         sys.argv = ["benchkit", *req["args"]]  # run_module puts the module's path first, as -m does
         try:
             runpy.run_module("benchkit", run_name="__main__", alter_sys=True)
@@ -66,8 +73,8 @@ def _child(req: dict) -> None:
             os._exit(code)
 
 
-def serve() -> None:
-    """The server's loop (``python forkcli.py``)."""
+def serve(fd: int) -> None:
+    """The server's loop (``python forkcli.py FD``)."""
     import importlib
     import pkgutil
 
@@ -79,20 +86,27 @@ def serve() -> None:
         if mod.name != "benchkit.__main__":  # importing it runs a command
             importlib.import_module(mod.name)
     assert "sounddevice" not in sys.modules, "the fork server must not load PortAudio"
-    reply = sys.stdout
-    reply.write('{"ready": true}\n')
-    reply.flush()
-    for line in sys.stdin:
-        req = json.loads(line)
-        reply.flush()
-        pid = os.fork()
-        if pid == 0:
-            _child(req)
-        reply.write(json.dumps({"pid": pid}) + "\n")
-        reply.flush()
-        _, status = os.waitpid(pid, 0)
-        reply.write(json.dumps({"status": status}) + "\n")
-        reply.flush()
+    sock = socket.socket(fileno=fd)
+    sock.sendall(b'{"ready": true}')
+    children = 0
+    while True:
+        if select.select([sock], [], [], 0.02 if children else None)[0]:
+            msg, fds, _flags, _addr = socket.recv_fds(sock, _PACKET, 3)
+            if not msg:
+                return  # the test process has gone
+            pid = os.fork()
+            if pid == 0:
+                _child(sock, json.loads(msg), fds)
+            for fd_ in fds:
+                os.close(fd_)
+            children += 1
+            sock.sendall(json.dumps({"pid": pid}).encode())
+        while children:
+            pid, status = os.waitpid(-1, os.WNOHANG)
+            if pid == 0:
+                break
+            children -= 1
+            sock.sendall(json.dumps({"pid": pid, "status": status}).encode())
 
 
 class ForkServer:
@@ -100,61 +114,153 @@ class ForkServer:
 
     def __init__(self):
         self.proc: subprocess.Popen | None = None
-        self.lock = threading.Lock()
+        self.sock: socket.socket | None = None
+        self._spawn = threading.Lock()
+        self._ended = threading.Condition()
+        self._status: dict[int, int] = {}
+        self._pids: list[int] = []
 
     def _start(self) -> None:
-        self.proc = subprocess.Popen([sys.executable, __file__], stdin=subprocess.PIPE, stdout=subprocess.PIPE,
-                                     text=True, bufsize=1)
-        if json.loads(self.proc.stdout.readline() or "{}").get("ready") is not True:
+        ours, theirs = socket.socketpair(socket.AF_UNIX, socket.SOCK_SEQPACKET)
+        self.proc = subprocess.Popen([sys.executable, __file__, str(theirs.fileno())], pass_fds=[theirs.fileno()])
+        theirs.close()
+        if json.loads(ours.recv(_PACKET) or b"{}").get("ready") is not True:
             raise RuntimeError("the benchkit fork server did not start")
+        self.sock = ours
+        threading.Thread(target=self._listen, name="forkcli", daemon=True).start()
 
-    def run(self, args, cwd, timeout: float) -> subprocess.CompletedProcess:
-        with self.lock:
+    def _listen(self) -> None:
+        while True:
+            msg = self.sock.recv(_PACKET)
+            if not msg:
+                return
+            doc = json.loads(msg)
+            with self._ended:
+                if "status" in doc:
+                    self._status[doc["pid"]] = doc["status"]
+                else:
+                    self._pids.append(doc["pid"])
+                self._ended.notify_all()
+
+    def spawn(self, args, env=None, cwd=None, stdin=None) -> "Forked":
+        """``python -m benchkit *args`` as a child of the server, its stdout
+        and stderr pipes to this process (text), stdin ``stdin`` (a file
+        descriptor) or /dev/null."""
+        with self._spawn:
             if self.proc is None or self.proc.poll() is not None:
                 self._start()
-            out, err = _scratch("stdout"), _scratch("stderr")
-            req = {"args": list(args), "env": dict(os.environ), "cwd": str(cwd or os.getcwd()), "out": out, "err": err}
-            self.proc.stdin.write(json.dumps(req) + "\n")
-            self.proc.stdin.flush()
+            out_r, out_w = os.pipe()
+            err_r, err_w = os.pipe()
+            in_fd = os.open(os.devnull, os.O_RDONLY) if stdin is None else os.dup(stdin)
+            req = {"args": [str(a) for a in args], "env": dict(os.environ if env is None else env),
+                   "cwd": str(cwd or os.getcwd())}
             try:
-                pid = json.loads(self.proc.stdout.readline())["pid"]
-                code = os.waitstatus_to_exitcode(self._wait(pid, timeout, args))
-                return subprocess.CompletedProcess([sys.executable, "-m", "benchkit", *args], code,
-                                                   _read_text(out), _read_text(err))
+                socket.send_fds(self.sock, [json.dumps(req).encode()], [in_fd, out_w, err_w])
             finally:
-                os.unlink(out)
-                os.unlink(err)
+                for fd in (in_fd, out_w, err_w):
+                    os.close(fd)
+            with self._ended:
+                self._ended.wait_for(lambda: self._pids, timeout=60)
+                if not self._pids:
+                    raise RuntimeError("the benchkit fork server did not start the command")
+                pid = self._pids.pop(0)
+        return Forked(self, pid, [sys.executable, "-m", "benchkit", *args], out_r, err_r)
 
-    def _wait(self, pid: int, timeout: float, args) -> int:
-        got: list[str] = []
-        reader = threading.Thread(target=lambda: got.append(self.proc.stdout.readline()), daemon=True)
-        reader.start()
-        reader.join(timeout)
-        if not got:
-            os.kill(pid, 9)
-            reader.join(10)
-            raise subprocess.TimeoutExpired([sys.executable, "-m", "benchkit", *args], timeout)
-        return json.loads(got[0])["status"]
+    def wait(self, pid: int, timeout: float | None) -> int | None:
+        """The child's wait status, or None if it is still running after ``timeout``."""
+        with self._ended:
+            self._ended.wait_for(lambda: pid in self._status, timeout=timeout)
+            return self._status.get(pid)
 
     def close(self) -> None:
         if self.proc is not None and self.proc.poll() is None:
-            self.proc.stdin.close()
-            self.proc.wait(10)
+            self.sock.shutdown(socket.SHUT_RDWR)  # the server sees the end and leaves
+            try:
+                self.proc.wait(10)
+            except subprocess.TimeoutExpired:
+                self.proc.kill()
 
 
-def _scratch(what: str) -> str:
-    import tempfile
+class Forked:
+    """A command running as a child of the fork server, with the parts of
+    ``subprocess.Popen`` the tests use."""
 
-    fd, path = tempfile.mkstemp(prefix=f"benchkit-{what}-")
-    os.close(fd)
-    return path
+    def __init__(self, server: ForkServer, pid: int, args: list, out_fd: int, err_fd: int):
+        self.server, self.pid, self.args = server, pid, args
+        # as Popen(text=True) decodes: the locale's encoding, universal newlines
+        self.stdout = open(out_fd, encoding=None, newline=None)
+        self.stderr = open(err_fd, encoding=None, newline=None)
+        self.returncode: int | None = None
+        self._readers: list[threading.Thread] = []
+        self._read: dict[str, list[str]] = {"out": [], "err": []}
+
+    def poll(self) -> int | None:
+        if self.returncode is None:
+            status = self.server.wait(self.pid, 0)
+            if status is not None:
+                self.returncode = os.waitstatus_to_exitcode(status)
+        return self.returncode
+
+    def wait(self, timeout: float | None = None) -> int:
+        status = self.server.wait(self.pid, timeout)
+        if status is None:
+            raise subprocess.TimeoutExpired(self.args, timeout)
+        self.returncode = os.waitstatus_to_exitcode(status)
+        return self.returncode
+
+    def communicate(self, input=None, timeout: float | None = None) -> tuple[str, str]:  # noqa: A002 - Popen's name
+        if not self._readers:
+            for key, fh in (("out", self.stdout), ("err", self.stderr)):
+                t = threading.Thread(target=lambda fh=fh, key=key: self._read[key].append(fh.read()), daemon=True)
+                t.start()
+                self._readers.append(t)
+        for t in self._readers:
+            t.join(timeout)
+            if t.is_alive():
+                raise subprocess.TimeoutExpired(self.args, timeout)
+        self.wait(timeout)
+        self.stdout.close()
+        self.stderr.close()
+        return "".join(self._read["out"]), "".join(self._read["err"])
+
+    def send_signal(self, sig: int) -> None:
+        if self.poll() is None:
+            os.kill(self.pid, sig)
+
+    def terminate(self) -> None:
+        self.send_signal(15)
+
+    def kill(self) -> None:
+        self.send_signal(9)
 
 
-def _read_text(path: str) -> str:
-    # as subprocess.run(text=True) decodes: the locale's encoding, universal newlines
-    with open(path, encoding=None, newline=None) as fh:
-        return fh.read()
+_SERVER: list = []
+
+
+def benchkit(*args, env=None, cwd=None):
+    """``python -m benchkit *args`` with stdout and stderr piped (text): a
+    :class:`Forked` child of this process's fork server, or with
+    BENCHKIT_TEST_FORK=0 a ``subprocess.Popen``."""
+    if os.environ.get("BENCHKIT_TEST_FORK", "1") == "0" or not hasattr(os, "fork"):
+        return subprocess.Popen([sys.executable, "-m", "benchkit", *args], stdout=subprocess.PIPE,
+                                stderr=subprocess.PIPE, text=True, env=env, cwd=cwd)
+    if not _SERVER:
+        _SERVER.append(ForkServer())
+        atexit.register(_SERVER[0].close)
+    return _SERVER[0].spawn(args, env=env, cwd=cwd)
+
+
+def run(*args, cwd=None, timeout: float = 120) -> subprocess.CompletedProcess:
+    """As ``subprocess.run([python, -m, benchkit, *args], capture_output=True, text=True)``."""
+    proc = benchkit(*args, cwd=cwd)
+    try:
+        out, err = proc.communicate(timeout=timeout)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+        proc.communicate()
+        raise
+    return subprocess.CompletedProcess(proc.args, proc.returncode, out, err)
 
 
 if __name__ == "__main__":
-    serve()
+    serve(int(sys.argv[1]))

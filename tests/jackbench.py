@@ -20,6 +20,8 @@ import uuid
 
 import numpy as np
 
+import forkcli
+
 
 class JackServer:
     """jackd --no-realtime -d dummy with a name unique to this run."""
@@ -240,15 +242,10 @@ class _PatchClient:
                 pass  # already connected
 
 
-def benchkit(server: JackServer, *args: str, timeout: float = 60) -> subprocess.Popen:
-    """Start the benchkit console entry point against the server."""
-    return subprocess.Popen(
-        [sys.executable, "-m", "benchkit", *args],
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        text=True,
-        env=server.env(),
-    )
+def benchkit(server: JackServer, *args: str):
+    """Start the benchkit console entry point against the server (a child
+    of the tests' fork server, see forkcli.py; Popen-like)."""
+    return forkcli.benchkit(*args, env=server.env())
 
 
 def played_segment(levels, index: int, rate: int = 48000) -> np.ndarray:
