@@ -42,7 +42,7 @@ def _run(backend, freqs, levels, step_s=0.5, settle_s=0.3, in_channel=1, band=(2
     stim = stepped_tones(freqs, levels, backend.sample_rate_hz, step_s=step_s, settle_s=settle_s,
                          out_channel=getattr(backend, "drive_output", 1), n_out=backend.n_outputs,
                          lead_s=getattr(backend, "lead_s", 0.05))
-    cap = capture.run(backend, stim)
+    cap = capture.run_clean(backend, stim)  # a dropout must not end up in the profile
     results = []
     for seg in stim.segments:
         x = cap.channel(in_channel)[seg.settled : seg.end]

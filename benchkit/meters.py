@@ -101,7 +101,7 @@ class InterfaceDc:
         # a silent step: the marker aligns it, the settled span is averaged
         stim = stepped_tones(1000.0, [-200.0], self.backend.sample_rate_hz, step_s=self.seconds, settle_s=0.05,
                              out_channel=getattr(self.backend, "drive_output", 1), n_out=self.backend.n_outputs)
-        cap = capture.run(self.backend, stim)
+        cap = capture.run_clean(self.backend, stim)
         seg = stim.segments[0]
         return float(np.mean(cap.channel(self.channel)[seg.settled: seg.end])) * self.scale
 

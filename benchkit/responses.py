@@ -21,7 +21,7 @@ from benchkit.analysis import response as resp
 from benchkit.analysis import sweep as sw
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
 from benchkit.errors import BenchkitError
-from benchkit.recordings import Recording, read_capture, write_capture, write_capture_sidecar
+from benchkit.recordings import Recording, read_capture, write_capture
 from benchkit.signals import stepped_tones, sweep_stimulus
 
 #: A stepped-sine step: at least this long, and this many periods.
@@ -320,21 +320,25 @@ def response_run(
     if calibration is not None:
         apply_calibration(plan, calibration, calibration_file, channel)
     planned = write_planned(folder, name, plan)
-    cap = capture.run(backend, stim, partial)
-    side = {**capture_sidecar(cap, stim, channel, backend, note), **extra}
-    if calibration is not None:
-        apply_calibration(side, calibration, calibration_file, channel)
-    side["warnings"] = list(warnings)
-    path = write_capture(folder / f"{name}.wav", cap.samples, cap.sample_rate_hz, side)
+
+    def sidecar(cap, notes):
+        side = {**capture_sidecar(cap, stim, channel, backend, note), **extra}
+        if calibration is not None:
+            apply_calibration(side, calibration, calibration_file, channel)
+        side["warnings"] = list(notes)
+        return side
+
+    def keep_spoiled(cap, take):  # kept, not analysed: a stream fault touched it
+        write_capture(folder / f"{name}.spoiled{take}.wav", cap.samples, cap.sample_rate_hz,
+                      sidecar(cap, ["a stream fault (overflow or underflow) touched this take: it was played again"]))
+
+    cap = capture.run_clean(backend, stim, partial, keep_spoiled)
+    path = write_capture(folder / f"{name}.wav", cap.samples, cap.sample_rate_hz, sidecar(cap, warnings))
     partial.unlink(missing_ok=True)
     planned.unlink(missing_ok=True)
     if cap.stopped_at is not None:
         at = cap.stopped_at / rate
         raise BenchkitError(f"the input clipped at {at:.2f} s into the run: lower the level or use a larger pad "
                             f"(capture kept: {path})")
-    spoiled = [s for s in stim.segments if cap.spoiled(s.settled, s.end)]
-    if spoiled:
-        side["warnings"].append("a stream fault (overflow or underflow) touched the measurement: run it again")
-        write_capture_sidecar(path, side)
     return analyze_response(read_capture(path, channel), ref_channel, reference_hz=reference_hz,
                             load_ohms=load_ohms, bandwidth_hz=bandwidth_hz)

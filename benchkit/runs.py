@@ -129,7 +129,7 @@ def analyze_steps(
 
 
 #: How many times a step spoiled by a stream fault is played again.
-MAX_RETRIES = 2
+MAX_RETRIES = capture.MAX_RETRIES
 #: Clock offset between output and input worth a warning, ppm.
 CLOCK_WARN_PPM = 20.0
 
@@ -306,7 +306,7 @@ def probe_gain(backend, frequency_hz: float, level_dbfs: float, channel: int = 1
     stim = stepped_tones(frequency_hz, [level_dbfs], backend.sample_rate_hz, step_s=0.3, settle_s=0.3,
                          out_channel=getattr(backend, "drive_output", 1), n_out=backend.n_outputs,
                          lead_s=getattr(backend, "lead_s", 0.05))
-    cap = capture.run(backend, stim)
+    cap = capture.run_clean(backend, stim)
     seg = stim.segments[0]
     r = analyze_tone(cap.channel(channel)[seg.settled : seg.end], cap.sample_rate_hz, fundamental_hz=frequency_hz)
     if not r.valid:

@@ -126,6 +126,26 @@ def resolve_device(device: str | None) -> str:
     return os.environ.get(DEVICE_ENV, "").strip() or DEFAULT_DEVICE
 
 
+#: Takes of a stimulus that a stream fault spoiled: played again this many times.
+MAX_RETRIES = 2
+
+
+def run_clean(backend: Backend, stimulus: Stimulus, partial: Path | None = None, on_spoiled=None) -> Capture:
+    """:func:`run`, played again while a stream fault (an overflow or
+    underflow: a busy computer) touches the analysed span of a segment, up
+    to ``MAX_RETRIES`` more times. ``on_spoiled(capture, take)`` sees each
+    spoiled take (to keep it on disk). A run the input's clipping stopped
+    is returned as it is; faults in every take are an error."""
+    for take in range(1, MAX_RETRIES + 2):
+        cap = run(backend, stimulus, partial)
+        if cap.stopped_at is not None or not any(cap.spoiled(s.settled, s.end) for s in stimulus.segments):
+            return cap
+        if on_spoiled is not None:
+            on_spoiled(cap, take)
+    raise BenchkitError(f"stream faults (overflows or underflows) spoiled all {MAX_RETRIES + 1} takes: close other "
+                        "programs, or use a larger --blocksize")
+
+
 def run(backend: Backend, stimulus: Stimulus, partial: Path | None = None) -> Capture:
     """Play ``stimulus`` through ``backend`` and return the aligned capture;
     the raw recording goes to ``partial`` as it arrives."""
