@@ -87,13 +87,14 @@ class Patchbay:
     of its own (libjack stays out of the test process, which a dying
     server could otherwise take down).
 
-    mode "loopback": out_0 -> in_0 and in_1. mode "poly": out_0 -> a client
+    mode "loopback": out_0 -> in_0 and in_1 (and to the client, which only
+    listens). mode "poly": out_0 -> a client
     applying y = x + a2 x^2 + a3 x^3 -> in_0 (its harmonics follow the
     power-reduction identities), and out_0 -> in_1 (reference). mode
     "stereo": a two-channel stage, out_0 -> in_0 and out_1 -> in_1, each
     channel taking ``a2`` (a ratio) of the other: flat crosstalk.
-    ``stall_after`` seconds of stream after wiring stream number ``stall_stream``
-    (benchkit opens one per run: a pre-flight probe, the run, retries), the
+    ``stall_after`` seconds into the tones that stream number ``stall_stream``
+    plays (benchkit opens one per run: a pre-flight probe, the run, retries), the
     stage client sleeps 0.2 s in its process callback once: an xrun for
     everyone.
     """
@@ -148,8 +149,8 @@ class _PatchClient:
         self.jack = jack
         self.mode, self.a2, self.a3 = mode, a2, a3
         self.stall_after = stall_after
-        self.wired = False  # the stream to stall is wired: count its frames
-        self.frames_wired = 0
+        self.wired = False  # the stream to stall is wired: count its tones' frames
+        self.frames_loud = 0
         self.stalled = False
         self.client = jack.Client(f"patch-{uuid.uuid4().hex[:6]}", servername=server, no_start_server=True)
         self.inp = self.client.inports.register("in")
@@ -176,9 +177,12 @@ class _PatchClient:
         else:
             y[:] = x
         if self.stall_after is not None and not self.stalled and self.wired:
-            # stream time, not the clock: on a busy machine both drift apart
-            self.frames_wired += frames
-            if self.frames_wired > self.stall_after * self.client.samplerate:
+            # the stream's own time, counted from what it plays (blocks
+            # above -23 dBFS: the tones, not the -26 dBFS marker), so that
+            # neither the clock nor a late wiring moves the stall
+            if np.max(np.abs(x)) > 10 ** (-23 / 20):
+                self.frames_loud += frames
+            if self.frames_loud > self.stall_after * self.client.samplerate:
                 self.stalled = True
                 time.sleep(0.2)
                 print("stalled", flush=True)
@@ -219,7 +223,7 @@ class _PatchClient:
         out0, in0, in1 = outs[0].name, ins[0].name, ins[1].name
         if self.mode == "poly":
             return [(out0, self.inp.name), (self.out.name, in0), (out0, in1)]
-        return [(out0, in0), (out0, in1)]
+        return [(out0, in0), (out0, in1), (out0, self.inp.name)]  # the last: to hear the tones (the stall)
 
     def _wired(self, c, plan) -> bool:
         have = set()

@@ -104,9 +104,10 @@ def test_latency_repeatable_and_found_after_a_period_change(server, tmp_path):
 def test_an_xrun_spoils_its_step_and_the_step_is_retried(server, tmp_path):
     # a client that sleeps 0.2 s in its process callback makes the stream
     # see an overflow and underflow (DESIGN.md, measured on CI's machines);
-    # it stalls once, 1.6 s into the run (the second stream, after the
-    # pre-flight probe): inside the first step's analysed span
-    with jackbench.Patchbay(server, "loopback", stall_after=1.6, stall_stream=2) as bay:
+    # it stalls once, 0.5 s into the first step's tone on the second stream
+    # (after the pre-flight probe): inside that step's analysed span (it
+    # settles for 0.3 s and lasts 1 s)
+    with jackbench.Patchbay(server, "loopback", stall_after=0.5, stall_stream=2) as bay:
         rc, out, err = _tone(server, tmp_path / "run", -20.0, -14.0)
     assert rc == 0, err
     assert bay.stalled
