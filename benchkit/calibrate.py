@@ -39,18 +39,35 @@ DC_TEST_HZ = 2.0
 
 
 def _run(backend, freqs, levels, step_s=0.5, settle_s=0.3, in_channel=1, band=(20.0, 20000.0)):
-    stim = stepped_tones(freqs, levels, backend.sample_rate_hz, step_s=step_s, settle_s=settle_s,
-                         out_channel=getattr(backend, "drive_output", 1), n_out=backend.n_outputs,
-                         lead_s=getattr(backend, "lead_s", 0.05))
-    cap = capture.run_clean(backend, stim)  # a dropout must not end up in the profile
-    results = []
-    for seg in stim.segments:
-        x = cap.channel(in_channel)[seg.settled : seg.end]
-        r = analyze_tone(x, cap.sample_rate_hz, fundamental_hz=seg.frequency_hz, bandwidth_hz=band)
-        if not r.valid:
-            raise BenchkitError(f"the calibration tone at {seg.frequency_hz:g} Hz clipped the input: lower --level")
-        results.append((seg, r))
-    return cap, results
+    """Each step's capture and analysis; a step a stream fault (a dropout)
+    touched is played again, up to MAX_RETRIES times: a dropout must not
+    end up in the profile. Returns the first take's capture (its latency)
+    and (segment, result) per step, each segment of the take it was
+    measured in."""
+    results: list = [None] * len(freqs)
+    pending = list(range(len(freqs)))
+    first = None
+    for _take in range(capture.MAX_RETRIES + 1):
+        stim = stepped_tones([freqs[i] for i in pending], [levels[i] for i in pending], backend.sample_rate_hz,
+                             step_s=step_s, settle_s=settle_s, out_channel=getattr(backend, "drive_output", 1),
+                             n_out=backend.n_outputs, lead_s=getattr(backend, "lead_s", 0.05))
+        cap = capture.run(backend, stim)
+        first = first or cap
+        still = []
+        for i, seg in zip(pending, stim.segments):
+            if cap.spoiled(seg.settled, seg.end):
+                still.append(i)
+                continue
+            x = cap.channel(in_channel)[seg.settled : seg.end]
+            r = analyze_tone(x, cap.sample_rate_hz, fundamental_hz=seg.frequency_hz, bandwidth_hz=band)
+            if not r.valid:
+                raise BenchkitError(f"the calibration tone at {seg.frequency_hz:g} Hz clipped the input: lower --level")
+            results[i] = (seg, r)
+        pending = still
+        if not pending:
+            return first, results
+    raise BenchkitError(f"stream faults (overflows or underflows) spoiled the {freqs[pending[0]]:g} Hz calibration "
+                        f"step in all {capture.MAX_RETRIES + 1} takes: close other programs, or use a larger --blocksize")
 
 
 def calibrate(

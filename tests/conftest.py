@@ -61,3 +61,29 @@ def the_run(bench):
     folders = run_folders(bench)
     assert len(folders) == 1, folders
     return folders[0]
+
+
+class GlitchingBench:
+    """The virtual bench whose stream drops 10 ms in the middle of the first
+    segment's analysed span on the takes named (counted from 1), and says
+    so, as a real interface reports an overflow. A duplex stream skips the
+    block in and out together: a gap in the recording, no shift after it."""
+
+    def __init__(self, bench, glitched):
+        self.bench, self.glitched, self.takes = bench, set(glitched), 0
+
+    def __getattr__(self, name):
+        return getattr(self.bench, name)
+
+    def play_record(self, stimulus, partial=None):
+        from dataclasses import replace
+
+        raw = self.bench.play_record(stimulus, partial)
+        self.takes += 1
+        if self.takes not in self.glitched:
+            return raw
+        seg = stimulus.segments[0]
+        x, mid, gap = raw.samples, (seg.settled + seg.end) // 2, int(0.01 * self.bench.sample_rate_hz)
+        lost = x.copy()
+        lost[mid : mid + gap] = 0.0
+        return replace(raw, samples=lost, fault_frames=(mid,), fault_block=1024, events=(f"frame {mid}: input overflow",))

@@ -20,7 +20,7 @@ from benchkit.calibration import load_profile, save_profile
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
 from benchkit.errors import BenchkitError
 
-from conftest import run_cli, run_folders
+from conftest import GlitchingBench, run_cli, run_folders
 
 # IEC 60063 (from memory of its tables)
 E12_IEC = [1.0, 1.2, 1.5, 1.8, 2.2, 2.7, 3.3, 3.9, 4.7, 5.6, 6.8, 8.2]
@@ -82,6 +82,23 @@ def profile_path(tmp_path):
     prof = calibrate(bench, bench.output_vrms(-20.0), pad=DEMO_PAD, input_ohms=10e3,
                      wire=lambda step: setattr(bench, "wiring", step))
     return save_profile(prof, tmp_path / "cal.json")
+
+
+def test_a_dropout_in_a_calibration_step_is_played_again():
+    # the same virtual interface (the same seed) with 10 ms lost mid-way in
+    # the first take of the first step group: only a clean take reaches the
+    # profile, which reads as the clean calibration does (same scale within
+    # its repeatability); a dropout in every take is refused
+    clean = virtual_bench("ideal", seed=5)
+    want = calibrate(clean, clean.output_vrms(-20.0))
+    flaky = GlitchingBench(virtual_bench("ideal", seed=5), glitched={1})
+    got = calibrate(flaky, flaky.output_vrms(-20.0))
+    assert flaky.takes == 4  # three step groups (scale, response, DC) and one retake
+    assert got.input_vpk_per_fs == pytest.approx(want.input_vpk_per_fs, rel=1e-4)
+    assert got.uncertainty["repeatability_db"] < 0.01
+    hopeless = GlitchingBench(virtual_bench("ideal", seed=5), glitched={1, 2, 3})
+    with pytest.raises(BenchkitError, match="in all 3 takes"):
+        calibrate(hopeless, hopeless.output_vrms(-20.0))
 
 
 def test_calibration_finds_the_virtual_interface(profile_path):

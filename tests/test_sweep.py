@@ -27,7 +27,7 @@ from benchkit.analysis.tone import analyze_tone
 from benchkit.capture.virtual import virtual_bench
 from benchkit.errors import BenchkitError
 from benchkit.responses import response_run
-from conftest import run_cli, the_run
+from conftest import GlitchingBench, run_cli, the_run
 
 RATE = 96000
 CORNER_HZ = 1 / (2 * math.pi * 8 * 2200e-6)  # 9.04 Hz
@@ -281,40 +281,18 @@ def test_sweep_command_writes_reports_and_reanalyses(tmp_path):
     assert np.allclose(rows[:, 1], live["response"]["mag_db"], atol=1e-4)
 
 
-class _Glitching:
-    """The virtual bench whose stream loses 10 ms mid-take on the takes
-    named, and says so, as a real interface reports an overflow."""
-
-    def __init__(self, bench, glitched):
-        self.bench, self.glitched, self.takes = bench, set(glitched), 0
-
-    def __getattr__(self, name):
-        return getattr(self.bench, name)
-
-    def play_record(self, stimulus, partial=None):
-        from dataclasses import replace
-
-        raw = self.bench.play_record(stimulus, partial)
-        self.takes += 1
-        if self.takes not in self.glitched:
-            return raw
-        x, mid, gap = raw.samples, raw.samples.shape[0] // 2, int(0.01 * self.bench.sample_rate_hz)
-        lost = np.concatenate([x[:mid], x[mid + gap:], np.zeros((gap, x.shape[1]))])
-        return replace(raw, samples=lost, fault_frames=(mid,), fault_block=1024, events=(f"frame {mid}: input overflow",))
-
-
 def test_a_sweep_a_dropout_spoiled_is_played_again(tmp_path):
     # the ideal stage: a flat response (identity, 0 dB re the reference
     # input). A dropout in the first take must not reach the result: the
     # sweep plays again, the spoiled take stays on disk beside it
     common = dict(ref_channel=2, seconds=2.0)
-    flaky = _Glitching(virtual_bench("ideal", {"gain": 1.0}), glitched={1})
+    flaky = GlitchingBench(virtual_bench("ideal", {"gain": 1.0}), glitched={1})
     r = response_run(flaky, tmp_path / "a", -20.0, (20.0, 20000.0), **common)
     assert flaky.takes == 2 and (tmp_path / "a" / "capture.spoiled1.wav").is_file()
     band = (r.freq_hz >= 50) & (r.freq_hz <= 15000)
     assert np.max(np.abs(r.mag_db[band] - r.mag_db[band][0])) < 0.05
     # faults in every take: a clear refusal, and every take kept
-    hopeless = _Glitching(virtual_bench("ideal", {"gain": 1.0}), glitched={1, 2, 3})
+    hopeless = GlitchingBench(virtual_bench("ideal", {"gain": 1.0}), glitched={1, 2, 3})
     with pytest.raises(BenchkitError, match="spoiled all 3 takes"):
         response_run(hopeless, tmp_path / "b", -20.0, (20.0, 20000.0), **common)
     assert sorted(p.name for p in (tmp_path / "b").glob("*.spoiled*.wav")) == [f"capture.spoiled{k}.wav" for k in (1, 2, 3)]
