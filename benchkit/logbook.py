@@ -462,7 +462,8 @@ class Logbook:
         lock = _hold_lock(folder / LOCK)
         record = {
             "kind": RECORD_KIND, "schema_version": RECORD_VERSION, "id": folder.name, "command": command,
-            "started": started.isoformat(timespec="seconds"), "finished": None, "status": "running",
+            # to the millisecond: runs started within one second keep their order
+            "started": started.isoformat(timespec="milliseconds"), "finished": None, "status": "running",
             "pid": os.getpid(), "host": socket.gethostname(), "argv": list(argv if argv is not None else sys.argv[1:]),
             "device": device, "calibration": calibration, "stage": stage or {}, "tags": tags, "note": note,
             "params": params or {}, "result_kind": None, "result_file": None, "files": [], "valid": None,

@@ -166,6 +166,23 @@ def test_runs_started_in_the_same_second_get_their_own_folders(tmp_path):
     assert len(set(names)) == 3 and names[1] == names[0] + "-2" and names[2] == names[0] + "-3"
 
 
+def test_runs_started_in_one_second_keep_their_order(tmp_path):
+    # newest first by when they started, whatever their names say (here
+    # the later run's name sorts first); two quick commands do this
+    for attempt in range(5):  # a pair that straddles a second is tried again
+        with logbook.Logbook(tmp_path / str(attempt)) as book:
+            first = book.start("imd", tags={"a2": "0.1"})
+            first.fail("test")
+            second = book.start("imd", tags={"a2": "0.05"})
+            second.fail("test")
+            if first.id[:15] == second.id[:15]:
+                break
+    assert first.id[:15] == second.id[:15]  # one second
+    with logbook.Logbook(tmp_path / str(attempt)) as book:
+        assert [e.id for e in book.entries()] == [second.id, first.id]
+        assert book.entry("last").id == second.id
+
+
 def test_remove_moves_a_run_to_the_trash(tmp_path):
     bench = tmp_path / "bench"
     doc = _json(_drift(bench))
