@@ -67,7 +67,7 @@ def _run(backend, freqs, levels, step_s=0.5, settle_s=0.3, in_channel=1, band=(2
         if not pending:
             return first, results
     raise BenchkitError(f"stream faults (overflows or underflows) spoiled the {freqs[pending[0]]:g} Hz calibration "
-                        f"step in all {capture.MAX_RETRIES + 1} takes: close other programs, or use a larger --blocksize")
+                        f"step in all {capture.MAX_RETRIES + 1} takes: {capture.FAULT_ADVICE}")
 
 
 def calibrate(

@@ -128,8 +128,6 @@ def analyze_steps(
     )
 
 
-#: How many times a step spoiled by a stream fault is played again.
-MAX_RETRIES = capture.MAX_RETRIES
 #: Clock offset between output and input worth a warning, ppm.
 CLOCK_WARN_PPM = 20.0
 
@@ -391,7 +389,7 @@ def record_steps(
     if the run breaks off); the aligned capture and its sidecar go to
     ``NAME.wav`` and ``NAME.json`` before any analysis. A step that a
     stream fault (overflow, underflow) touched is played again, up to
-    ``MAX_RETRIES`` times, into ``NAME.retryK.wav``; the sidecar points each
+    ``capture.MAX_RETRIES`` times, into ``NAME.retryK.wav``; the sidecar points each
     step at the capture that holds its good take.
     """
     lead = getattr(backend, "lead_s", 0.05)
@@ -436,7 +434,7 @@ def record_steps(
         stop_note = (f"the input clipped at {at:.2f} s{where}: the run stopped stepping up; "
                      f"{len(stim.segments) - len(kept)} step(s) were not measured")
     pending = [i for i, seg in enumerate(stim.segments[: len(segments)]) if cap.spoiled(seg.settled, seg.end)]
-    for attempt in range(1, MAX_RETRIES + 1):
+    for attempt in range(1, capture.MAX_RETRIES + 1):
         if not pending:
             break
         r_stim, r_cap, _side, r_path = play(pending, f"{name}.retry{attempt}")

@@ -27,6 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
+from benchkit.capture import FAULT_ADVICE
 from benchkit.errors import BenchkitError
 
 #: A reading this often (5 a second).
@@ -353,7 +354,7 @@ def summarise(path: Path, info: dict | None = None) -> dict:
         warnings.append(f"{lost} reading(s) had lost the tone")
     if disturbed:
         warnings.append(f"{disturbed} reading(s) spanned a dropout of the audio stream and were left out of the "
-                        "figures (a busy computer? a larger --blocksize helps)")
+                        f"figures ({FAULT_ADVICE})")
     return {"kind": "watch", "schema_version": 1, **(info or {}), "readings": len(rows), "first_s": t[0],
             "last_s": t[-1], "rate_per_s": (len(rows) - 1) / (t[-1] - t[0]) if t[-1] > t[0] else None,
             "figures": figures, "valid": not clipped, "warnings": warnings, "file": str(path)}

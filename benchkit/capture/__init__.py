@@ -128,6 +128,8 @@ def resolve_device(device: str | None) -> str:
 
 #: Takes of a stimulus that a stream fault spoiled: played again this many times.
 MAX_RETRIES = 2
+#: What to do about stream faults, for the messages that report them.
+FAULT_ADVICE = "close other programs, or use a larger --blocksize"
 
 
 def run_clean(backend: Backend, stimulus: Stimulus, partial: Path | None = None, on_spoiled=None) -> Capture:
@@ -142,8 +144,7 @@ def run_clean(backend: Backend, stimulus: Stimulus, partial: Path | None = None,
             return cap
         if on_spoiled is not None:
             on_spoiled(cap, take)
-    raise BenchkitError(f"stream faults (overflows or underflows) spoiled all {MAX_RETRIES + 1} takes: close other "
-                        "programs, or use a larger --blocksize")
+    raise BenchkitError(f"stream faults (overflows or underflows) spoiled all {MAX_RETRIES + 1} takes: {FAULT_ADVICE}")
 
 
 def run(backend: Backend, stimulus: Stimulus, partial: Path | None = None) -> Capture:
