@@ -31,6 +31,7 @@ from benchkit.analysis.tone import analyze_tone
 from benchkit.calibration import PadSpec, Profile
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
+from benchkit.runs import step_fault
 from benchkit.signals import stepped_tones
 
 CAL_FREQ_HZ = 997.0
@@ -39,8 +40,8 @@ DC_TEST_HZ = 2.0
 
 
 def _run(backend, freqs, levels, step_s=0.5, settle_s=0.3, in_channel=1, band=(20.0, 20000.0)):
-    """Each step's capture and analysis; a step a stream fault (a dropout)
-    touched is played again, up to MAX_RETRIES times: a dropout must not
+    """Each step's capture and analysis; a step a stream fault (a dropout,
+    reported or heard: :func:`benchkit.runs.step_fault`) touched is played again, up to MAX_RETRIES times: a dropout must not
     end up in the profile. Returns the first take's capture (its latency)
     and (segment, result) per step, each segment of the take it was
     measured in."""
@@ -55,7 +56,7 @@ def _run(backend, freqs, levels, step_s=0.5, settle_s=0.3, in_channel=1, band=(2
         first = first or cap
         still = []
         for i, seg in zip(pending, stim.segments):
-            if cap.spoiled(seg.settled, seg.end):
+            if step_fault(cap, seg, in_channel):
                 still.append(i)
                 continue
             x = cap.channel(in_channel)[seg.settled : seg.end]
@@ -66,7 +67,7 @@ def _run(backend, freqs, levels, step_s=0.5, settle_s=0.3, in_channel=1, band=(2
         pending = still
         if not pending:
             return first, results
-    raise BenchkitError(f"stream faults (overflows or underflows) spoiled the {freqs[pending[0]]:g} Hz calibration "
+    raise BenchkitError(f"stream faults (overflows, underflows or gaps) spoiled the {freqs[pending[0]]:g} Hz calibration "
                         f"step in all {capture.MAX_RETRIES + 1} takes: {capture.FAULT_ADVICE}")
 
 

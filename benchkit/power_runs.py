@@ -23,6 +23,7 @@ import numpy as np
 
 from benchkit.analysis.power import DEFAULT_LIMITS_PCT, JUMP_SLOPE, ONSET_DB, PowerResult, analyze_power
 from benchkit.budget import ClassABudget
+from benchkit.capture import FAULT_ADVICE, MAX_RETRIES as MAX_RETAKES
 from benchkit.errors import BenchkitError
 from benchkit.recordings import read_capture
 from benchkit.runs import StepsResult
@@ -189,6 +190,10 @@ class AdaptiveSteps:
         self.supply_a: dict[int, float] = {}
         self.finished = False
         self.stop_reason = ""
+        #: steps (by index) a dropout spoiled, reported or heard: each is
+        #: played again at its level, up to capture.MAX_RETRIES times
+        self.spoiled: set[int] = set()
+        self._faults: list[tuple[int, int]] = []
         self._lock = threading.Lock()
         self.description = {"kind": "stepped-tones", "purpose": "power", "frequency_hz": self.frequency_hz,
                             "levels_dbfs": [], "step_s": step_s, "settle_s": settle_s, "out_channel": out_channel,
@@ -240,6 +245,12 @@ class AdaptiveSteps:
         return out
 
     # --- what a listening backend feeds --------------------------------------
+    def fault(self, pos: int, frames: int) -> None:
+        """The stream reported an over- or underflow in the callback for
+        raw frames [pos, pos + frames): the samples lost lie next to them
+        (called on the audio thread: a list append, nothing more)."""
+        self._faults.append((pos - frames, pos + frames))
+
     def listen(self, block: np.ndarray, pos: int) -> None:
         """Recorded frames ``block`` starting at raw frame ``pos``."""
         if self.finished:
@@ -295,8 +306,20 @@ class AdaptiveSteps:
         from benchkit.analysis.tone import analyze_tone
 
         lat = self.latency
-        x = self._input[seg.settled + lat: seg.end + lat]
-        r = analyze_tone(x, self.sample_rate_hz, fundamental_hz=self.frequency_hz)
+        lo, hi = seg.settled + lat, seg.end + lat
+        x = self._input[lo:hi]
+        r = analyze_tone(x, self.sample_rate_hz, fundamental_hz=self.frequency_hz, check_dropouts=True)
+        if r.dropouts_s or any(a < hi and lo < b for a, b in list(self._faults)):
+            # a dropout, reported by the stream or heard in the tone: the
+            # figures are not the stage's, so this level is played again
+            k = len(self.segments) - 1
+            self.spoiled.add(k)
+            takes = sum(1 for i in self.spoiled if self.segments[i].level_dbfs == seg.level_dbfs)
+            if takes > MAX_RETAKES:
+                self.stop(f"dropouts spoiled the {seg.level_dbfs:.2f} dBFS step in all {takes} takes: {FAULT_ADVICE}")
+            else:
+                self._schedule(seg.level_dbfs)
+            return
         value = r.thdn_pct if self.metric == "thdn" else r.thd_pct
         nxt = self.planner.next(seg.level_dbfs, value)
         if nxt is None:
@@ -441,8 +464,9 @@ def power_run(
         stim.stop(str(exc))
         cap = _salvage(partial, stim, backend)
     end = cap.samples.shape[0] if cap.stopped_at is None else cap.stopped_at
-    done = [(i, s) for i, s in enumerate(stim.segments) if s.end <= end and not cap.spoiled(s.settled, s.end)]
-    dropped = len(stim.segments) - len(done)
+    done = [(i, s) for i, s in enumerate(stim.segments)
+            if s.end <= end and i not in stim.spoiled and not cap.spoiled(s.settled, s.end)]
+    dropped = len(stim.segments) - len(stim.spoiled) - len(done)
     side = capture_sidecar(cap, stim, channel, backend, note)
     side["stimulus"]["segments"] = [{**s.to_dict(), **({"supply_a": stim.supply_a[i]} if i in stim.supply_a else {})}
                                     for i, s in done]
@@ -456,6 +480,8 @@ def power_run(
         notes.append(f"interrupted ({interrupted}): the {len(done)} completed steps are reported")
     elif dropped:
         notes.append(f"{dropped} step(s) were cut short ({stim.stop_reason}) and are left out")
+    if stim.spoiled:
+        notes.append(f"dropouts spoiled {len(stim.spoiled)} step(s); each was played again and only clean takes are reported")
     side["warnings"] = notes
     path = write_capture(folder / f"{name}.wav", cap.samples, cap.sample_rate_hz, side)
     partial.unlink(missing_ok=True)

@@ -360,6 +360,24 @@ def tone_run(
     return analyze_steps(read_capture(path, record.get("channel", 1)), bandwidth_hz, load_ohms, traces=traces)
 
 
+def step_fault(cap: capture.Capture, seg, channel: int, tone: bool = True) -> str | None:
+    """Why a step of a capture cannot be measured as played, or None:
+    "reported" when the stream reported a fault (overflow, underflow)
+    inside its analysed span, "heard" when its tone (``tone``: one sine)
+    on input ``channel`` shows a gap or click the stream did not report
+    (an audio server's late client drops blocks without a word)."""
+    if cap.spoiled(seg.settled, seg.end):
+        return "reported"
+    if not tone or cap.stopped_at is not None and seg.end > cap.stopped_at:
+        return None
+    try:
+        heard = analyze_tone(cap.channel(channel)[seg.settled : seg.end], cap.sample_rate_hz,
+                             fundamental_hz=seg.frequency_hz, check_dropouts=True).dropouts_s
+    except BenchkitError:
+        return None  # nothing to judge by (no tone): the analysis will say so
+    return "heard" if heard else None
+
+
 def record_steps(
     backend: capture.Backend,
     folder: Path,
@@ -388,9 +406,10 @@ def record_steps(
     The raw recording streams to ``NAME.partial.wav`` while it plays (kept
     if the run breaks off); the aligned capture and its sidecar go to
     ``NAME.wav`` and ``NAME.json`` before any analysis. A step that a
-    stream fault (overflow, underflow) touched is played again, up to
-    ``capture.MAX_RETRIES`` times, into ``NAME.retryK.wav``; the sidecar points each
-    step at the capture that holds its good take.
+    stream fault (overflow, underflow) touched, or whose tone shows a gap
+    (:func:`step_fault`), is played again, up to ``capture.MAX_RETRIES``
+    times, into ``NAME.retryK.wav``; the sidecar points each step at the
+    capture that holds its good take.
     """
     lead = getattr(backend, "lead_s", 0.05)
     n = len(levels_dbfs)
@@ -433,23 +452,32 @@ def record_steps(
         segments[:] = [segments[i] for i in kept]
         stop_note = (f"the input clipped at {at:.2f} s{where}: the run stopped stepping up; "
                      f"{len(stim.segments) - len(kept)} step(s) were not measured")
-    pending = [i for i, seg in enumerate(stim.segments[: len(segments)]) if cap.spoiled(seg.settled, seg.end)]
+    tones = twin is None
+    verdicts = {i: step_fault(cap, seg, channel, tones) for i, seg in enumerate(stim.segments[: len(segments)])}
+    pending = [i for i, v in verdicts.items() if v]
     for attempt in range(1, capture.MAX_RETRIES + 1):
         if not pending:
             break
         r_stim, r_cap, _side, r_path = play(pending, f"{name}.retry{attempt}")
         still = []
         for i, seg in zip(pending, r_stim.segments):
-            if r_cap.spoiled(seg.settled, seg.end):
+            verdicts[i] = step_fault(r_cap, seg, channel, tones)
+            if verdicts[i]:
                 still.append(i)
             else:
                 segments[i] = {**seg.to_dict(), "file": r_path.name}
         pending = still
     warnings = list(warnings) + ([stop_note] if stop_note else [])
-    if pending:
-        warnings.append(f"steps {', '.join(str(i + 1) for i in pending)} were spoiled by stream faults in every take")
-        for i in pending:
+    reported = [i for i in pending if verdicts[i] == "reported"]
+    heard = [i for i in pending if verdicts[i] == "heard"]
+    if reported:
+        warnings.append(f"steps {', '.join(str(i + 1) for i in reported)} were spoiled by stream faults in every take")
+        for i in reported:
             segments[i] = {**segments[i], "spoiled": True}
+    if heard:
+        # the same gap in every take is more likely the stage's than the stream's
+        warnings.append(f"steps {', '.join(str(i + 1) for i in heard)} showed gaps or clicks in every take: "
+                        "is the stage bursting into oscillation?")
     if side["clock_offset_ppm"] is not None and abs(side["clock_offset_ppm"]) > CLOCK_WARN_PPM:
         warnings.append(f"the input clock runs {side['clock_offset_ppm']:+.1f} ppm against the output: separate clocks?")
     side["warnings"] = warnings

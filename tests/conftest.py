@@ -66,11 +66,12 @@ def the_run(bench):
 class GlitchingBench:
     """The virtual bench whose stream drops 10 ms in the middle of the first
     segment's analysed span on the takes named (counted from 1), and says
-    so, as a real interface reports an overflow. A duplex stream skips the
+    so, as a real interface reports an overflow (or, with ``reported``
+    false, does not). A duplex stream skips the
     block in and out together: a gap in the recording, no shift after it."""
 
-    def __init__(self, bench, glitched):
-        self.bench, self.glitched, self.takes = bench, set(glitched), 0
+    def __init__(self, bench, glitched, reported: bool = True):
+        self.bench, self.glitched, self.takes, self.reported = bench, set(glitched), 0, reported
 
     def __getattr__(self, name):
         return getattr(self.bench, name)
@@ -86,4 +87,6 @@ class GlitchingBench:
         x, mid, gap = raw.samples, (seg.settled + seg.end) // 2, int(0.01 * self.bench.sample_rate_hz)
         lost = x.copy()
         lost[mid : mid + gap] = 0.0
+        if not self.reported:  # as an audio server's late client drops a block: without a word
+            return replace(raw, samples=lost)
         return replace(raw, samples=lost, fault_frames=(mid,), fault_block=1024, events=(f"frame {mid}: input overflow",))

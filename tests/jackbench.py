@@ -197,49 +197,64 @@ class _PatchClient:
                 plan = self._plan(c)
                 if plan and not self._wired(c, plan):
                     self._wire(c, plan)
-                    # PortAudio numbers each new stream's ports on: out_0 is
-                    # the first stream's, out_1 the second's...
-                    stream = int(plan[0][0].rsplit("_", 1)[1]) + 1
-                    if stream == self.stall_stream:
+                    if plan[0][2] == self.stall_stream:
                         self.wired = True
                     print("wired", flush=True)
             except self.jack.JackError:
                 pass
             time.sleep(0.002)
 
-    def _plan(self, c):
-        def number(p):
-            return int(p.name.rsplit("_", 1)[1])
+    def _newest(self, ports, per_stream: int):
+        """The names of the newest stream's ports, or None while that
+        stream has not registered all of them. PortAudio numbers ports on
+        from stream to stream (a stream with two inputs has in_0 and in_1,
+        the next in_2 and in_3), and a closed stream's ports can linger
+        for a moment beside the next one's: wire the highest-numbered
+        group, never a mix."""
+        numbers = {int(p.name.rsplit("_", 1)[1]): p.name for p in ports}
+        if not numbers:
+            return None, 0
+        base = max(numbers) - max(numbers) % per_stream
+        group = [numbers.get(base + i) for i in range(per_stream)]
+        return (None if None in group else group), base // per_stream + 1
 
-        outs = sorted(c.get_ports("PortAudio:out_", is_output=True), key=number)
-        ins = sorted(c.get_ports("PortAudio:in_", is_input=True), key=number)
-        if self.mode == "stereo":
-            if len(outs) < 2 or len(ins) < 2:
-                return None
-            return [(outs[0].name, self.inp.name), (outs[1].name, self.inp2.name), (self.out.name, ins[0].name),
-                    (self.out2.name, ins[1].name)]
-        if len(outs) < 1 or len(ins) < 2:
+    def _plan(self, c):
+        """(source, destination, stream number) for the newest stream."""
+        outs, stream = self._newest(c.get_ports("PortAudio:out_", is_output=True), len(self.ports))
+        ins, _ = self._newest(c.get_ports("PortAudio:in_", is_input=True), 2)
+        if outs is None or ins is None:
             return None
-        out0, in0, in1 = outs[0].name, ins[0].name, ins[1].name
-        if self.mode == "poly":
-            return [(out0, self.inp.name), (self.out.name, in0), (out0, in1)]
-        return [(out0, in0), (out0, in1), (out0, self.inp.name)]  # the last: to hear the tones (the stall)
+        if self.mode == "stereo":
+            pairs = [(outs[0], self.inp.name), (outs[1], self.inp2.name), (self.out.name, ins[0]),
+                     (self.out2.name, ins[1])]
+        elif self.mode == "poly":
+            pairs = [(outs[0], self.inp.name), (self.out.name, ins[0]), (outs[0], ins[1])]
+        else:
+            pairs = [(outs[0], ins[0]), (outs[0], ins[1]), (outs[0], self.inp.name)]  # the last: to hear the tones
+        return [(a, b, stream) for a, b in pairs]
 
     def _wired(self, c, plan) -> bool:
+        want = {(a, b) for a, b, _ in plan}
         have = set()
         for p in c.get_ports("PortAudio:", is_output=True) + self.ports:
             have.update((p.name, q.name) for q in c.get_all_connections(p))
-        return set(plan) <= have and not any(b.startswith("system:") for _a, b in have)
+        return want == {(a, b) for a, b in have if b in {d for _s, d in want}} and want <= have \
+            and not any(b.startswith("system:") for _a, b in have)
 
     def _wire(self, c, plan):
-        for p in c.get_ports("PortAudio:"):
+        want = {(a, b) for a, b, _ in plan}
+        targets = {b for _a, b in want}
+        for p in c.get_ports("PortAudio:") + self.ports + [self.inp] + ([self.inp2] if self.mode == "stereo" else []):
             for q in c.get_all_connections(p):
-                if q.name.startswith("system:"):
+                src, dst = (p, q) if p.is_output else (q, p)
+                stray = dst.name.startswith("system:") or src.name.startswith("system:") \
+                    or (dst.name in targets and (src.name, dst.name) not in want)
+                if stray:
                     try:
-                        c.disconnect(p, q) if p.is_output else c.disconnect(q, p)
+                        c.disconnect(src, dst)
                     except self.jack.JackError:
                         pass
-        for a, b in plan:
+        for a, b in want:
             try:
                 c.connect(a, b)
             except self.jack.JackError:

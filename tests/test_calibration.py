@@ -84,19 +84,21 @@ def profile_path(tmp_path):
     return save_profile(prof, tmp_path / "cal.json")
 
 
-def test_a_dropout_in_a_calibration_step_is_played_again():
+@pytest.mark.parametrize("reported", [True, False], ids=["reported", "unreported"])
+def test_a_dropout_in_a_calibration_step_is_played_again(reported):
     # the same virtual interface (the same seed) with 10 ms lost mid-way in
-    # the first take of the first step group: only a clean take reaches the
-    # profile, which reads as the clean calibration does (same scale within
-    # its repeatability); a dropout in every take is refused
+    # the first take of the first step group, reported by the stream or
+    # only heard in the tone: only a clean take reaches the profile, which
+    # reads as the clean calibration does (same scale within its
+    # repeatability); a dropout in every take is refused
     clean = virtual_bench("ideal", seed=5)
     want = calibrate(clean, clean.output_vrms(-20.0))
-    flaky = GlitchingBench(virtual_bench("ideal", seed=5), glitched={1})
+    flaky = GlitchingBench(virtual_bench("ideal", seed=5), glitched={1}, reported=reported)
     got = calibrate(flaky, flaky.output_vrms(-20.0))
     assert flaky.takes == 4  # three step groups (scale, response, DC) and one retake
     assert got.input_vpk_per_fs == pytest.approx(want.input_vpk_per_fs, rel=1e-4)
     assert got.uncertainty["repeatability_db"] < 0.01
-    hopeless = GlitchingBench(virtual_bench("ideal", seed=5), glitched={1, 2, 3})
+    hopeless = GlitchingBench(virtual_bench("ideal", seed=5), glitched={1, 2, 3}, reported=reported)
     with pytest.raises(BenchkitError, match="in all 3 takes"):
         calibrate(hopeless, hopeless.output_vrms(-20.0))
 

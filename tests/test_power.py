@@ -260,6 +260,44 @@ def test_hard_clip_model_power_run_matches_the_fourier_series(tmp_path):
     assert r.half == "symmetric"
 
 
+@pytest.mark.parametrize("reported", [True, False], ids=["reported", "unreported"])
+def test_a_dropout_in_an_adaptive_step_is_played_again(tmp_path, monkeypatch, reported):
+    # the run above, with 10 ms lost mid-way through its third step (said by
+    # the stream, or only heard: a late client on an audio server): that
+    # step is played again at its level, and the power at 1 % THD is the
+    # Fourier series' as before
+    from benchkit.capture.virtual import virtual_bench
+    from benchkit.power_runs import AdaptiveSteps, power_run
+
+    heard = AdaptiveSteps.listen
+    lost = []
+
+    def listen(self, block, pos):
+        if self.latency is not None and len(self.segments) == 3 and not lost:
+            seg = self.segments[2]
+            mid = (seg.settled + seg.end) // 2 + self.latency
+            if pos <= mid < pos + block.shape[0]:
+                # in place: the recording keeps the gap too
+                block[mid - pos : mid - pos + int(0.01 * self.sample_rate_hz)] = 0.0
+                lost.append(mid)
+                if reported:
+                    self.fault(mid, 256)
+        heard(self, block, pos)
+
+    monkeypatch.setattr(AdaptiveSteps, "listen", listen)
+    amp = scipy.optimize.brentq(lambda a: math.sqrt(np.sum(_clipped_harmonics(a, 20)[1:] ** 2))
+                                / _clipped_harmonics(a, 20)[0] - 0.01, 1.0001, 2.0, xtol=1e-10)
+    want_w = (9.5 * _clipped_harmonics(amp, 1)[0]) ** 2 / 2 / 8.0
+    bench = virtual_bench("hard-clip", {"gain": 10.0, "vclip": 9.5}, seed=4)
+    r = power_run(bench, tmp_path, F0, 20 * math.log10(9.5 / 20) - 25.0, -3.0, 8.0, ref_channel=2, metric="thd",
+                  limits_pct=(1.0,))
+    assert lost, "the gap was not made"
+    assert r.rated.power_w == pytest.approx(want_w, rel=0.01)
+    # the spoiled take is left out: every reported step is a clean one
+    assert all(s.valid for s in r.steps)
+    assert any("played again" in w for w in r.warnings)
+
+
 def test_a_run_that_would_clip_the_input_stops_before_it_does(tmp_path):
     # no pad: the stage's 11 V peak would reach 5.5x the input's 2 V full
     # scale; the check before each step ends the run with every step clean

@@ -7,6 +7,7 @@ capacitor and the pad, textbook class-A analysis for the se-class-a stage.
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -20,6 +21,7 @@ from benchkit.errors import BenchkitError
 from benchkit.pads import Pad, parse_pad
 from benchkit.runs import tone_run
 from benchkit.signals import stepped_tones
+from conftest import GlitchingBench
 
 RATE = 48000
 HI = RATE * OVERSAMPLE
@@ -71,6 +73,28 @@ def test_hard_clip_through_the_virtual_interface_matches_fourier(tmp_path):
     # a symmetric clipper makes no even harmonics (Fourier series: half-wave symmetry)
     assert r.harmonics[0].order == 2 and r.harmonics[0].level_dbc < -90.0
     assert r.harmonic_profile in ("odd-order", "high-order-tail")
+
+
+def test_a_gap_the_stream_did_not_report_is_heard_and_the_step_played_again(tmp_path):
+    # 10 ms lost mid-step with no word from the stream (a late client on an
+    # audio server): the tone shows the gap, the step is played again, and
+    # the retake's H2 is the identity's (x + a2 x^2 at peak A: H2 = a2 A / 2,
+    # power-reduction identity); a gap in every take is reported, not hidden
+    a2, drive = 0.05, -10.0
+    stage = dict(gain=1.0, a2=a2)
+    flaky = GlitchingBench(virtual_bench("poly", stage, seed=2), glitched={1}, reported=False)
+    want_dbc = 20 * math.log10(a2 * flaky.output_vrms(drive) * math.sqrt(2) / 2)
+    got = tone_run(flaky, tmp_path / "flaky", 997.0, [drive])
+    side = json.loads((tmp_path / "flaky" / "capture.json").read_text())
+    assert side["stimulus"]["segments"][0]["file"] == "capture.retry1.wav"
+    r = got.steps[0].result
+    assert r.valid and not r.dropouts_s
+    assert r.harmonics[0].level_dbc == pytest.approx(want_dbc, abs=0.01)
+    hopeless = GlitchingBench(virtual_bench("poly", stage, seed=2), glitched={1, 2, 3}, reported=False)
+    bad = tone_run(hopeless, tmp_path / "hopeless", 997.0, [drive])
+    assert hopeless.takes == 3
+    assert not bad.steps[0].result.valid and bad.steps[0].result.dropouts_s
+    assert any("gaps or clicks in every take" in w for w in bad.warnings)
 
 
 def test_coupling_capacitor_corner():

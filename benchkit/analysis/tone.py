@@ -138,6 +138,8 @@ class ToneResult:
     volts_per_fs: float | None = None
     load_ohms: float | None = None
     traces: ToneTraces | None = field(default=None, compare=False, repr=False)
+    #: where (s) ``check_dropouts`` found gaps or clicks
+    dropouts_s: tuple[float, ...] = ()
 
     # --- derived figures -------------------------------------------------
     @property
@@ -707,6 +709,7 @@ def analyze_tone(
         volts_per_fs=volts_per_fs,
         load_ohms=load_ohms,
         traces=result_traces,
+        dropouts_s=tuple(gaps),
     )
 
 
