@@ -5,12 +5,13 @@ capture, stored, then analysed from disk (:mod:`benchkit.analysis.crosstalk`).
 
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 
 from benchkit.analysis.crosstalk import CrosstalkResult, leak
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.recordings import read_capture
+from benchkit.recordings import Takes, read_capture
 
 #: The frequencies a run reads by default, Hz: clear of the mains and its
 #: harmonics, where hum and ripple would read as crosstalk.
@@ -34,6 +35,7 @@ def analyze_crosstalk_capture(path: Path, bandwidth_hz=DEFAULT_BAND_HZ) -> Cross
     except (KeyError, TypeError, ValueError) as exc:
         raise BenchkitError(f"{path}: not a crosstalk capture (its sidecar names no channel wiring)") from exc
     recs = [read_capture(path, ch) for ch in inputs]
+    takes = Takes(recs[0])
     scales = [r.channel_scale()[0] for r in recs]
     warnings = list(side.get("warnings") or [])
     if None in scales:
@@ -43,10 +45,10 @@ def analyze_crosstalk_capture(path: Path, bandwidth_hz=DEFAULT_BAND_HZ) -> Cross
     leaks = []
     for seg in segments:
         a = outputs.index(int(seg["channel"]))
-        lo, hi = int(seg["settled"]), int(seg["end"])
-        drv, oth = recs[a], recs[1 - a]
-        x = leak(drv.samples[lo:hi], oth.samples[lo:hi], drv.sample_rate_hz, float(seg["frequency_hz"]),
-                 scales[a], scales[1 - a], bandwidth_hz, "AB"[a])
+        x = leak(takes.step(seg, inputs[a]), takes.step(seg, inputs[1 - a]), recs[a].sample_rate_hz,
+                 float(seg["frequency_hz"]), scales[a], scales[1 - a], bandwidth_hz, "AB"[a])
+        if seg.get("spoiled"):
+            x = replace(x, valid=False)
         leaks.append(x)
     hummed = sorted({round(x.frequency_hz) for x in leaks if on_mains(x.frequency_hz)})
     if hummed:
@@ -71,5 +73,6 @@ def crosstalk_run(backend, folder: Path, frequencies_hz, level_dbfs: float, outp
     path = record_steps(backend, folder, freqs * 2, [level_dbfs] * (2 * n), channel=inputs[0], note=note,
                         calibration=calibration, calibration_file=calibration_file, warnings=warnings,
                         step_s=max(0.5, 20.0 / min(freqs)), out_channels=[outputs[0]] * n + [outputs[1]] * n,
+                        listen=[inputs[0]] * n + [inputs[1]] * n,
                         extra={"crosstalk": {"outputs": list(outputs), "inputs": list(inputs)}})
     return analyze_crosstalk_capture(path)

@@ -9,7 +9,7 @@ from pathlib import Path
 from benchkit.analysis.gain import GainResult, gain_of
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
 from benchkit.errors import BenchkitError
-from benchkit.recordings import read_capture
+from benchkit.recordings import Takes, read_capture
 
 
 def analyze_gain(path: Path, channel: int = 1, ref_channel: int | None = None, bandwidth_hz=DEFAULT_BAND_HZ,
@@ -44,9 +44,9 @@ def step_gains(path: Path, channel: int = 1, ref_channel: int | None = None, ban
         if not scale:
             raise BenchkitError(f"{path}: the reference input {ref_channel} has no voltage scale: calibrate the interface")
         out = []
+        takes = Takes(ref)
         for seg, step in zip(side["stimulus"]["segments"], steps.steps):
-            src = ref if not seg.get("file") else read_capture(path.parent / Path(str(seg["file"])).name, ref_channel)
-            r = analyze_tone(src.samples[int(seg["settled"]) : int(seg["end"])], rec.sample_rate_hz,
+            r = analyze_tone(takes.step(seg), rec.sample_rate_hz,
                              fundamental_hz=float(seg["frequency_hz"]), bandwidth_hz=bandwidth_hz, volts_per_fs=scale)
             out.append(gain_of(step.result, step.drive_dbfs, reference=r, load_ohms=load_ohms))
         return out

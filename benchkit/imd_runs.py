@@ -10,7 +10,7 @@ from pathlib import Path
 
 from benchkit.analysis.imd import SCHEMA_VERSION, ImdResult, analyze_imd, method_tones
 from benchkit.errors import BenchkitError
-from benchkit.recordings import Recording, read_capture
+from benchkit.recordings import Recording, Takes, read_capture
 from benchkit.signals import TwinTone
 
 #: Below this rate the difference method's tones sit at the converters'
@@ -76,20 +76,14 @@ def analyze_imd_steps(rec: Recording, volts_per_fs: float | None = None, load_oh
     try:
         t = stim["twin"]
         twin = TwinTone(str(t["method"]), float(t["f1_hz"]), float(t["f2_hz"]), float(t["ratio"]))
-        segments = [(int(s["settled"]), int(s["end"]), float(s["level_dbfs"]), bool(s.get("spoiled")), s.get("file"))
-                    for s in stim["segments"]]
+        segments = [(s, float(s["level_dbfs"]), bool(s.get("spoiled"))) for s in stim["segments"]]
     except (KeyError, TypeError, ValueError) as exc:
         raise BenchkitError(f"{rec.path}: the sidecar's two-tone steps are damaged") from exc
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
-    takes = {None: rec}
+    takes = Takes(rec)
     steps = []
-    for lo, hi, drive, spoiled, take in segments:
-        if take not in takes:
-            takes[take] = read_capture(rec.path.parent / Path(str(take)).name, rec.channel)
-        src = takes[take]
-        if not 0 <= lo < hi <= src.samples.size:
-            raise BenchkitError(f"{src.path}: a step lies outside the capture (samples {lo} to {hi})")
-        r = analyze_imd(src.samples[lo:hi], rec.sample_rate_hz, twin.method, twin.f1_hz, twin.f2_hz, scale, source,
+    for seg, drive, spoiled in segments:
+        r = analyze_imd(takes.step(seg), rec.sample_rate_hz, twin.method, twin.f1_hz, twin.f2_hz, scale, source,
                         load_ohms, spectrum=spectrum)
         if spoiled:
             r = replace(r, valid=False, warnings=r.warnings + ("a stream fault spoiled this step",))

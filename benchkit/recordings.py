@@ -61,6 +61,33 @@ def sidecar_path(audio_path: str | os.PathLike) -> Path:
     return Path(audio_path).with_suffix(".json")
 
 
+class Takes:
+    """A capture and the retakes its sidecar points steps at (``file``:
+    a step a stream fault spoiled, played again into ``NAME.retryK.wav``
+    beside it), each file and channel read once."""
+
+    def __init__(self, rec: Recording):
+        self.rec = rec
+        self._read = {(None, rec.channel): rec}
+
+    def step(self, seg: dict, channel: int | None = None) -> np.ndarray:
+        """The samples of step ``seg`` (a sidecar segment) on ``channel``
+        (default: the capture's), from the take that holds its good one."""
+        try:
+            take, lo, hi = seg.get("file"), int(seg["settled"]), int(seg["end"])
+        except (KeyError, TypeError, ValueError, AttributeError) as exc:
+            raise BenchkitError(f"{self.rec.path}: the sidecar's step list is damaged") from exc
+        ch = self.rec.channel if channel is None else channel
+        key = (None if take in (None, self.rec.path.name) else str(take), ch)
+        if key not in self._read:
+            name = self.rec.path.name if key[0] is None else Path(key[0]).name
+            self._read[key] = read_capture(self.rec.path.parent / name, ch)
+        src = self._read[key]
+        if not 0 <= lo < hi <= src.samples.size:
+            raise BenchkitError(f"{src.path}: a step lies outside the capture (samples {lo} to {hi})")
+        return src.samples[lo:hi]
+
+
 def read_capture(path: str | os.PathLike, channel: int = 1) -> Recording:
     """Read one channel of a capture file and its sidecar.
 

@@ -16,7 +16,7 @@ from pathlib import Path
 from benchkit import capture, units
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION, ToneResult, analyze_tone
 from benchkit.errors import BenchkitError
-from benchkit.recordings import Recording, read_capture, write_capture, write_capture_sidecar
+from benchkit.recordings import Recording, Takes, read_capture, write_capture, write_capture_sidecar
 from benchkit.signals import stepped_tones
 
 
@@ -85,22 +85,16 @@ def analyze_steps(
     frequency each step played, unless ``fundamental_hz`` says otherwise)."""
     stim = rec.sidecar["stimulus"]
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
-    takes = {None: rec}
+    takes = Takes(rec)
     steps = []
     for seg in stim["segments"]:
+        x = takes.step(seg)
         try:
-            lo, hi = int(seg["settled"]), int(seg["end"])
             drive = float(seg["level_dbfs"])
-            take = seg.get("file")
-        except (KeyError, TypeError, ValueError, AttributeError) as exc:
+        except (KeyError, TypeError, ValueError) as exc:
             raise BenchkitError(f"{rec.path}: the sidecar's step list is damaged") from exc
-        if take not in takes:
-            takes[take] = read_capture(rec.path.parent / Path(str(take)).name, rec.channel)
-        src = takes[take]
-        if not 0 <= lo < hi <= src.samples.size:
-            raise BenchkitError(f"{src.path}: a step lies outside the capture (samples {lo} to {hi})")
         result = analyze_tone(
-            src.samples[lo:hi],
+            x,
             rec.sample_rate_hz,
             fundamental_hz=fundamental_hz if fundamental_hz is not None else float(seg["frequency_hz"]),
             bandwidth_hz=bandwidth_hz,
@@ -394,13 +388,15 @@ def record_steps(
     twin=None,
     out_channels: list[int] | None = None,
     extra: dict | None = None,
+    listen: list[int] | None = None,
 ) -> Path:
     """Play stepped tones (or, with ``twin``, a
     :class:`benchkit.signals.TwinTone` pair at each level) and store the
     capture with its sidecar; returns its path (``step_s`` is analysed
     after ``settle_s`` of settling, each step). ``frequency_hz`` is one
     frequency or one a step; ``out_channels`` the output of each step
-    (default: the backend's drive output); ``extra`` joins the sidecar
+    (default: the backend's drive output), ``listen`` the input its tone
+    comes back on (default: ``channel``); ``extra`` joins the sidecar
     (the planned one too, so a recovered capture keeps it).
 
     The raw recording streams to ``NAME.partial.wav`` while it plays (kept
@@ -415,11 +411,12 @@ def record_steps(
     n = len(levels_dbfs)
     freqs = list(frequency_hz) if isinstance(frequency_hz, (list, tuple)) else [frequency_hz] * n
     outs = list(out_channels) if out_channels is not None else [getattr(backend, "drive_output", 1)] * n
+    ears = list(listen) if listen is not None else [channel] * n
 
     def play(which, stem):
         stim = stepped_tones([freqs[i] for i in which], [levels_dbfs[i] for i in which], backend.sample_rate_hz,
                              step_s=step_s, settle_s=settle_s, out_channel=[outs[i] for i in which],
-                             n_out=backend.n_outputs, lead_s=lead, twin=twin)
+                             n_out=backend.n_outputs, lead_s=lead, twin=twin, marker_out=outs[0])
         partial = folder / f"{stem}.partial.wav"
         plan = {**planned_sidecar(stim, channel, backend, note), **(extra or {})}
         if calibration is not None:
@@ -453,7 +450,7 @@ def record_steps(
         stop_note = (f"the input clipped at {at:.2f} s{where}: the run stopped stepping up; "
                      f"{len(stim.segments) - len(kept)} step(s) were not measured")
     tones = twin is None
-    verdicts = {i: step_fault(cap, seg, channel, tones) for i, seg in enumerate(stim.segments[: len(segments)])}
+    verdicts = {i: step_fault(cap, seg, ears[i], tones) for i, seg in enumerate(stim.segments[: len(segments)])}
     pending = [i for i, v in verdicts.items() if v]
     for attempt in range(1, capture.MAX_RETRIES + 1):
         if not pending:
@@ -461,7 +458,7 @@ def record_steps(
         r_stim, r_cap, _side, r_path = play(pending, f"{name}.retry{attempt}")
         still = []
         for i, seg in zip(pending, r_stim.segments):
-            verdicts[i] = step_fault(r_cap, seg, channel, tones)
+            verdicts[i] = step_fault(r_cap, seg, ears[i], tones)
             if verdicts[i]:
                 still.append(i)
             else:

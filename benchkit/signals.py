@@ -175,6 +175,7 @@ def stepped_tones(
     n_out: int = 2,
     lead_s: float = LEAD_S,
     twin: TwinTone | None = None,
+    marker_out: int | None = None,
 ) -> Stimulus:
     """Tones of one frequency at several levels, one after another (or,
     with ``twin``, the pair of an intermodulation test at each level).
@@ -196,8 +197,10 @@ def stepped_tones(
     gap_s : float
         Silence between steps.
     out_channel : int or list of int
-        The output the tones play on (from 1), or one per step (the marker
-        plays on the first step's).
+        The output the tones play on (from 1), or one per step.
+    marker_out : int, optional
+        The output the alignment marker plays on (default: the first
+        step's); a retake of some steps keeps the run's.
     n_out : int
         How many outputs there are.
     lead_s : float
@@ -222,7 +225,7 @@ def stepped_tones(
     chans = [int(c) for c in (out_channel if isinstance(out_channel, (list, tuple)) else [out_channel] * len(freqs))]
     if len(chans) != len(freqs):
         raise BenchkitError("give one output channel, or one per step")
-    for c in chans:
+    for c in chans + ([marker_out] if marker_out is not None else []):
         if not 1 <= c <= n_out:
             raise BenchkitError(f"output channel {c} does not exist (1 to {n_out})")
     for lvl in levels_dbfs:
@@ -241,7 +244,7 @@ def stepped_tones(
         pos += x.size + int(gap_s * rate)
     out = np.zeros((pos + int(TAIL_S * rate), n_out))
     # the marker on the first step's output (its loopback is the reference)
-    out[lead : lead + mk.size, chans[0] - 1] = mk
+    out[lead : lead + mk.size, (marker_out or chans[0]) - 1] = mk
     for seg, x in zip(segments, tones):
         out[seg.start : seg.stop, seg.channel - 1] = x
     marker_start = lead

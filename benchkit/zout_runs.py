@@ -17,7 +17,7 @@ from benchkit import units
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.analysis.zout import Reading, ZoutResult, output_impedance
 from benchkit.errors import BenchkitError
-from benchkit.recordings import read_capture
+from benchkit.recordings import Takes, read_capture
 
 #: The frequencies a run reads by default, Hz: the low end, where a
 #: coupling capacitor's reactance shows, the middle and the top; clear of
@@ -45,9 +45,9 @@ def readings_of_capture(path: Path, channel: int = 1, ref_channel: int | None = 
         return [Reading(s.result.fundamental_hz, complex(s.result.fundamental_fs), s.drive_dbfs, s.result.valid)
                 for s in steps.steps]
     out = []
+    takes = Takes(rec)
     for seg, s in zip(rec.sidecar["stimulus"]["segments"], steps.steps):
-        ref = read_capture(path.parent / Path(str(seg.get("file") or path.name)).name, ref_channel)
-        r = analyze_tone(ref.samples[int(seg["settled"]) : int(seg["end"])], rec.sample_rate_hz,
+        r = analyze_tone(takes.step(seg, ref_channel), rec.sample_rate_hz,
                          fundamental_hz=s.result.fundamental_hz, bandwidth_hz=bandwidth_hz)
         phase = s.result.fundamental_phase_deg - r.fundamental_phase_deg
         out.append(Reading(s.result.fundamental_hz, _phasor(s.result.fundamental_fs / r.fundamental_fs, phase),

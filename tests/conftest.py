@@ -64,14 +64,16 @@ def the_run(bench):
 
 
 class GlitchingBench:
-    """The virtual bench whose stream drops 10 ms in the middle of the first
-    segment's analysed span on the takes named (counted from 1), and says
-    so, as a real interface reports an overflow (or, with ``reported``
-    false, does not). A duplex stream skips the
+    """The virtual bench whose stream drops 10 ms in the middle of a
+    segment's analysed span (the first, or ``segment``) on the takes named
+    (counted from 1), and says so, as a real interface reports an overflow
+    (or, with ``reported`` false, does not, and input ``channel`` alone
+    shows the gap). A duplex stream skips the
     block in and out together: a gap in the recording, no shift after it."""
 
-    def __init__(self, bench, glitched, reported: bool = True):
+    def __init__(self, bench, glitched, reported: bool = True, segment: int = 0, channel: int = 1):
         self.bench, self.glitched, self.takes, self.reported = bench, set(glitched), 0, reported
+        self.segment, self.column = segment, channel - 1
 
     def __getattr__(self, name):
         return getattr(self.bench, name)
@@ -83,10 +85,10 @@ class GlitchingBench:
         self.takes += 1
         if self.takes not in self.glitched:
             return raw
-        seg = stimulus.segments[0]
+        seg = stimulus.segments[self.segment]
         x, mid, gap = raw.samples, (seg.settled + seg.end) // 2, int(0.01 * self.bench.sample_rate_hz)
         lost = x.copy()
-        lost[mid : mid + gap] = 0.0
+        lost[mid : mid + gap, self.column if not self.reported else slice(None)] = 0.0
         if not self.reported:  # as an audio server's late client drops a block: without a word
             return replace(raw, samples=lost)
         return replace(raw, samples=lost, fault_frames=(mid,), fault_block=1024, events=(f"frame {mid}: input overflow",))

@@ -21,7 +21,7 @@ from benchkit.capture.stages import StereoCoupling
 from benchkit.capture.virtual import virtual_bench
 from benchkit.crosstalk_runs import crosstalk_run
 
-from conftest import run_cli
+from conftest import GlitchingBench, run_cli
 
 FREQS = [20.0, 100.0, 997.0, 10000.0, 20000.0]
 
@@ -49,6 +49,21 @@ def test_crosstalk_against_frequency_and_balance(tmp_path):
         assert b == pytest.approx(0.2, abs=0.01)
     d = result.to_dict()
     assert d["crosstalk_db"] == pytest.approx(-70.0, abs=0.3) and d["balance_db"] == pytest.approx(0.2, abs=0.01)
+
+
+@pytest.mark.parametrize("reported", [True, False], ids=["reported", "unreported"])
+def test_a_dropout_while_channel_b_is_driven_is_played_again(tmp_path, reported):
+    # 10 ms lost in the first step that drives output B (heard on input 3,
+    # B's output): that step alone is played again, with the marker still
+    # on output A, and the crosstalk reads as the coupling's definition says
+    bench = GlitchingBench(virtual_bench("poly", {"crosstalk_1k_db": -60.0, "crosstalk_flat_db": -160.0},
+                                         stereo=True, seed=4), glitched={1}, reported=reported, segment=1, channel=3)
+    result = crosstalk_run(bench, tmp_path, [997.0], -20.0)
+    assert bench.takes == 2
+    side = json.loads((tmp_path / "capture.json").read_text())
+    assert [s.get("file") for s in side["stimulus"]["segments"]] == [None, "capture.retry1.wav"]
+    for x in result.leaks:
+        assert x.crosstalk_db == pytest.approx(_expected_db(997.0, -60.0, -160.0), abs=0.1), x
 
 
 def test_capacitive_crosstalk_rises_six_db_an_octave(tmp_path):
