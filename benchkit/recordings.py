@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
+from benchkit.analysis import refuse_non_finite
 from benchkit.errors import BenchkitError
 
 SIDECAR_KIND = "capture"
@@ -123,10 +124,12 @@ def read_capture(path: str | os.PathLike, channel: int = 1) -> Recording:
         raise BenchkitError(f"{p}: has {n_channels} channel(s); channel {channel} does not exist (numbered from 1)")
     if data.shape[0] == 0:
         raise BenchkitError(f"{p}: holds no samples")
+    samples = np.ascontiguousarray(data[:, channel - 1])
+    refuse_non_finite(samples, f"{p}: channel {channel}")
     sidecar, warnings = _read_sidecar(p)
     return Recording(
         path=p,
-        samples=np.ascontiguousarray(data[:, channel - 1]),
+        samples=samples,
         sample_rate_hz=float(rate),
         channel=channel,
         n_channels=n_channels,

@@ -68,6 +68,55 @@ def test_hum_lines_are_called_out_with_their_levels():
     assert r60.mains_hz == 60.0 and r60.hum[0].order == 1
 
 
+@pytest.mark.parametrize("mains, lines", [(50.0, {1: 1e-4, 3: 3e-5}), (60.0, {2: 2e-5, 4: 7e-6, 5: 1e-5})])
+def test_the_hum_total_is_the_power_sum_of_its_lines(mains, lines):
+    # lines of peak a have RMS a / sqrt(2); uncorrelated lines add in power
+    # (Parseval), so the total is sqrt(sum a^2 / 2)
+    t = np.arange(int(RATE * 10)) / RATE
+    x = _white(1e-6, 10.0) + sum(a * np.sin(2 * np.pi * mains * k * t + k) for k, a in lines.items())
+    r = analyze_noise(x, RATE)
+    want = math.sqrt(sum(a * a / 2 for a in lines.values()))
+    # dBFS of an RMS: re the RMS of a full-scale sine, 1 / sqrt(2) (AES17)
+    assert r.to_dict()["hum_dbfs"] == pytest.approx(20 * math.log10(want * math.sqrt(2)), abs=0.1)
+    assert r.hum_rms_fs == pytest.approx(want, rel=0.02)
+
+
+@pytest.mark.parametrize("orders, cause", [((2, 4), "rectifier ripple"), ((1, 3), "grounding")])
+def test_hum_advice_tells_ripple_from_pickup(orders, cause):
+    # common practice: a full-wave rectifier's ripple lies at twice the
+    # mains frequency and its multiples; pickup at the mains and its odd multiples
+    t = np.arange(int(RATE * 4)) / RATE
+    x = _white(1e-6, 4.0) + sum(3e-4 / k * np.sin(2 * np.pi * 50 * k * t) for k in orders)
+    r = analyze_noise(x, RATE)
+    assert any(cause in w for w in r.warnings), r.warnings
+
+
+def test_an_offset_or_ultrasonic_content_is_not_a_burst():
+    # Gaussian noise's peak over RMS stays near 5 over 4 s (its tail: the
+    # chance of 5.5 sigma per sample is about 4e-8); a 0.002 FS offset, or
+    # a 30 kHz tone out of the band, leaves the band's noise as steady as it was
+    x = _white(1e-5, 4.0)
+    for extra in (0.002, 1e-3 * np.sin(2 * np.pi * 30000 * np.arange(x.size) / 96000)):
+        r = analyze_noise(x + extra, RATE if np.isscalar(extra) else 96000)
+        assert not any("crest" in w for w in r.warnings), r.warnings
+    clicks = x.copy()
+    clicks[:: int(RATE)] += 0.01  # a click a second: 1000 times the RMS
+    assert any("crest" in w for w in analyze_noise(clicks, RATE).warnings)
+
+
+def test_nan_samples_are_refused_by_every_analysis():
+    from benchkit.analysis.imd import analyze_imd
+    from benchkit.analysis.tone import analyze_tone
+    from benchkit.errors import BenchkitError
+
+    x = _white(1e-3, 1.0)
+    x[100] = np.nan
+    for analysis in (lambda: analyze_noise(x, RATE), lambda: analyze_tone(x, RATE),
+                     lambda: analyze_imd(x, RATE, "modulation")):
+        with pytest.raises(BenchkitError, match="1 NaN or infinite"):
+            analysis()
+
+
 def test_snr_is_referred_to_the_stated_output():
     # 1 W into 8 ohm is 2.828 Vrms (circuit theory: V = sqrt(P R))
     sigma = 1e-4

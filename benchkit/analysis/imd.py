@@ -36,6 +36,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from benchkit import units
+from benchkit.analysis import refuse_non_finite
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import detect_clipping
 from benchkit.errors import BenchkitError
@@ -212,6 +213,7 @@ def analyze_imd(samples, sample_rate: float, method: str, f1_hz: float | None = 
     if not 0 < f1_hz < f2_hz < sample_rate / 2:
         raise BenchkitError(f"two-tone test: need 0 < f1 < f2 < half the sample rate, got {f1_hz:g} and {f2_hz:g} Hz")
     x = np.asarray(samples, dtype=float)
+    refuse_non_finite(x)
     if x.ndim != 1:
         raise BenchkitError("analyse one channel at a time")
     n = x.size

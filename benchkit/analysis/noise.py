@@ -16,7 +16,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from benchkit import units
-from benchkit.analysis.tone import DEFAULT_BAND_HZ
+from benchkit.analysis import refuse_non_finite
+from benchkit.analysis.tone import DEFAULT_BAND_HZ, band_limited
 from benchkit.analysis.weighting import a_weighting_power
 from benchkit.errors import BenchkitError
 
@@ -27,6 +28,9 @@ SEGMENT_S = 0.5
 HUM_ORDERS = 10
 #: A line counts as hum when it stands this far over the local floor.
 HUM_OVER_FLOOR_DB = 10.0
+#: Peak over RMS of the band's content above which noise is not steady
+#: (Gaussian noise reaches about 5 in a few minutes: common practice).
+CREST_LIMIT = 20.0
 
 
 @dataclass(frozen=True)
@@ -121,7 +125,7 @@ def hum_lines(f: np.ndarray, p: np.ndarray, volts_per_fs: float | None = None,
               band=DEFAULT_BAND_HZ) -> tuple[float | None, tuple[HumLine, ...], float]:
     """The mains frequency (50 or 60 Hz, whichever family holds more line
     power), its lines standing HUM_OVER_FLOOR_DB over the local floor, and
-    their total power (FS^2)."""
+    their total power (FS^2: the power sum of the lines)."""
     df = f[1] - f[0]
     half = 3  # a Hann window's line spreads over about +-2 bins
 
@@ -173,6 +177,7 @@ def analyze_noise(x: np.ndarray, rate: float, bandwidth_hz=DEFAULT_BAND_HZ, volt
     x = np.asarray(x, dtype=float)
     if x.ndim != 1 or x.size < int(0.5 * rate):
         raise BenchkitError("a noise measurement needs at least half a second of one channel")
+    refuse_non_finite(x)
     band = tuple(bandwidth_hz) if bandwidth_hz is not None else (0.0, rate / 2)
     if band[1] > rate / 2:
         band = (band[0], rate / 2)
@@ -181,13 +186,31 @@ def analyze_noise(x: np.ndarray, rate: float, bandwidth_hz=DEFAULT_BAND_HZ, volt
     a_ms = _band_power(f, p, band, a_weighting_power(f))
     mains, hum, hum_power = hum_lines(f, p, volts_per_fs, band)
     warnings = []
-    peak = float(np.max(np.abs(x)))
-    if peak >= 0.999:
+    if float(np.max(np.abs(x))) >= 0.999:
         warnings.append("the capture reaches full scale: not the noise of a terminated input")
-    elif math.sqrt(ms) > 0 and peak / math.sqrt(ms) > 20:
-        warnings.append(f"crest factor {peak / math.sqrt(ms):.0f}: clicks or bursts, not steady noise")
+    elif ms > 0:
+        # the crest factor of what was measured: the band's content, its
+        # peak against its own RMS (an offset or ultrasonic content, left
+        # out of the figures, has no say)
+        crest = float(np.max(np.abs(band_limited(x, rate, band)))) / math.sqrt(ms)
+        if crest > CREST_LIMIT:
+            warnings.append(f"crest factor {crest:.0f}: clicks or bursts, not steady noise")
     if hum_power > 0.5 * ms:
-        warnings.append("hum makes up more than half of the noise: look at grounding before the noise itself")
+        warnings.append(f"hum makes up more than half of the noise: {hum_advice(hum)}, before the noise itself")
     return NoiseResult(rate, x.size / rate, band, math.sqrt(ms), math.sqrt(a_ms), volts_per_fs, scale_source, mains,
-                       hum, hum_power, reference_vrms, reference, f if traces else None, p if traces else None,
-                       tuple(warnings))
+                       hum, math.sqrt(hum_power), reference_vrms, reference, f if traces else None,
+                       p if traces else None, tuple(warnings))
+
+
+def hum_advice(lines: tuple[HumLine, ...]) -> str:
+    """Where to look first for these hum lines (common practice): lines at
+    twice the mains frequency and its multiples are a full-wave
+    rectifier's ripple (supply filtering and regulation); the mains
+    frequency and its odd multiples are pickup (ground loops, wiring near
+    the transformer)."""
+    ripple = sum(units.rms_from_dbfs(h.level_dbfs) ** 2 for h in lines if h.order % 2 == 0)
+    total = sum(units.rms_from_dbfs(h.level_dbfs) ** 2 for h in lines)
+    if total > 0 and ripple > 0.5 * total:
+        return ("the lines at twice the mains frequency and its multiples lead: rectifier ripple, so look at the "
+                "supply's filtering and regulation first")
+    return "the mains frequency and its odd multiples lead: look at grounding and wiring near the transformer first"

@@ -31,6 +31,7 @@ import numpy as np
 import scipy.fft
 import scipy.signal
 
+from benchkit.analysis import refuse_non_finite
 from benchkit.errors import BenchkitError
 
 #: Raised-cosine fade-in over the first third of an octave and fade-out
@@ -258,6 +259,9 @@ def measure(output: np.ndarray, sweep: SyncSweep, reference: np.ndarray | None =
     (so the result is in output FS per played FS, processing artefacts
     removed).
     """
+    refuse_non_finite(output)
+    if reference is not None:
+        refuse_non_finite(reference, "the reference")
     ref = reference if reference is not None else sweep.samples(amplitude)
     n = deconvolution_length(sweep, max(output.size, ref.size))
     got = separate(deconvolve(output, sweep, n), sweep, orders, freqs, band_hz)

@@ -27,6 +27,7 @@ import numpy as np
 import scipy.fft
 
 from benchkit import units
+from benchkit.analysis import refuse_non_finite
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.sinefit import RecordLayout, fit_tone
 from benchkit.errors import BenchkitError
@@ -392,7 +393,7 @@ def _analyse_block(
             block.dropouts_s = find_dropouts(x, residual, sample_rate, f0, float(amp_fit[0]))
         if keep:
             block.spec_power = spec_power
-            block.residual = _band_limit(residual, sample_rate, band)
+            block.residual = band_limited(residual, sample_rate, band)
             block.fund_wave = fund
     return block
 
@@ -449,7 +450,8 @@ def find_dropouts(x: np.ndarray, residual: np.ndarray, sample_rate: float, f0: f
     return sorted(found)
 
 
-def _band_limit(x: np.ndarray, sample_rate: float, band: tuple[float, float]) -> np.ndarray:
+def band_limited(x: np.ndarray, sample_rate: float, band: tuple[float, float]) -> np.ndarray:
+    """``x`` with everything outside ``band`` (Hz) removed (its FFT, cut)."""
     spec = scipy.fft.rfft(x)
     keep = sp.band_bins(x.size, sample_rate, *band)
     spec[: keep.start] = 0.0
@@ -604,9 +606,7 @@ def analyze_tone(
         raise BenchkitError(f"analyze_tone takes one channel (a 1-D array), got shape {x.shape}")
     if x.size == 0:
         raise BenchkitError("the capture holds no samples")
-    if not math.isfinite(float(np.sum(x))):
-        bad = int(np.count_nonzero(~np.isfinite(x)))
-        raise BenchkitError(f"the capture holds {bad} NaN or infinite samples")
+    refuse_non_finite(x)
     if not (sample_rate > 0 and math.isfinite(sample_rate)):
         raise BenchkitError(f"sample rate must be a positive number of Hz, got {sample_rate}")
     xmax, xmin = float(np.max(x)), float(np.min(x))
