@@ -235,6 +235,7 @@ def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
     rate = rec.sample_rate_hz
     segs = rec.sidecar["stimulus"].get("segments") or []
     freqs, h, thd, thdn, warnings = [], [], [], [], list(rec.warnings) + list(rec.sidecar.get("warnings") or ())
+    buried = 0
     levels = {k: [] for k in HARMONIC_ORDERS}
     for seg in segs:
         try:
@@ -261,14 +262,20 @@ def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
         # distortion against frequency: fundamentals in the band, harmonics in it
         lo, top = band if band else (0.0, 0.45 * rate)
         in_band = lo <= f0 and 2 * f0 <= top
-        thd.append(r.thd_db if in_band else np.nan)
+        # a THD that is only a bound (no harmonic over the noise), and
+        # harmonics that cannot be told from the noise, are left blank
+        buried += bool(in_band and r.thd_upper_bound)
+        thd.append(r.thd_db if in_band and not r.thd_upper_bound else np.nan)
         thdn.append(r.thdn_db if lo <= f0 <= top else np.nan)
-        by_order = {x.order: x for x in r.harmonics}
+        by_order = {x.order: x for x in r.harmonics if x.above_noise}
         for k in HARMONIC_ORDERS:
             x = by_order.get(k)
             levels[k].append(x.level_dbc if x is not None and lo <= f0 and k * f0 <= top else np.nan)
     if len(freqs) < 2:
         raise BenchkitError(f"{rec.path}: a response needs at least two steps")
+    if buried:
+        warnings.append(f"at {buried} frequenc{'y' if buried == 1 else 'ies'} no harmonic stands over the noise: "
+                        "THD is left blank there")
     f = np.array(freqs)
     order = np.argsort(f)
     curves = [resp.HarmonicCurve(k, f[order], np.array(v)[order]) for k, v in levels.items()]

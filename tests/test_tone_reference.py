@@ -249,3 +249,51 @@ def test_tone_above_the_band_is_an_error():
     # the band is the AES17 20 Hz-20 kHz audio band by default
     with pytest.raises(BenchkitError, match="outside the measurement band"):
         analyze_tone(cosine(22000.0, 96000, 1.0), 96000)
+
+
+# --- harmonics and the noise floor -----------------------------------------------
+
+
+def _noisy(f0, sigma, rate, seconds, seed, harmonics=()):
+    t = np.arange(int(rate * seconds)) / rate
+    x = 0.5 * np.cos(2 * np.pi * f0 * t) + np.random.default_rng(seed).normal(0.0, sigma, t.size)
+    for k, rel in harmonics:
+        x += 0.5 * rel * np.cos(2 * np.pi * k * f0 * t + 0.3 * k)
+    return x
+
+
+@pytest.mark.parametrize("f0, sigma, rate, seconds", [(25.0, 1e-4, 48000, 2.0), (20.0, 1e-5, 48000, 3.0),
+                                                      (31.7, 3e-5, 96000, 1.5), (997.0, 1e-4, 44100, 1.0)])
+def test_a_clean_tone_in_white_noise_has_no_harmonics_and_its_noise(f0, sigma, rate, seconds):
+    # numpy's Gaussian generator as the noise: no harmonic is there, so THD
+    # is only a bound and the profile says the residual is noise; the noise
+    # of variance s^2 over the band is s^2 (f_hi - f_lo) / (fs / 2) (Parseval),
+    # in AES17 dBFS (re the RMS of a full-scale sine, 1 / sqrt(2))
+    r = analyze_tone(_noisy(f0, sigma, rate, seconds, seed=int(f0)), rate)
+    assert r.thd_upper_bound and r.harmonic_profile == "below-noise"
+    assert sum(h.above_noise for h in r.harmonics) <= 1  # a false mark has odds of e^-10 a harmonic
+    want = 20 * math.log10(sigma * math.sqrt((20000.0 - 20.0) / (rate / 2)) * math.sqrt(2))
+    assert r.noise_dbfs == pytest.approx(want, abs=0.3)
+    # the bound lies over what the harmonics could be (each under its noise)
+    assert r.thd_db > max(h.level_dbc for h in r.harmonics if h.order <= 10) - 3.0
+
+
+@pytest.mark.parametrize("f0, rate, harmonics", [(20.0, 48000, ((2, 1e-3), (3, 3e-4))),
+                                                 (27.5, 96000, ((3, 2e-4), (5, 3e-5))),
+                                                 (45.0, 44100, ((2, 5e-4), (7, 2e-4)))])
+def test_low_frequency_thd_sums_the_harmonics_not_the_noise(f0, rate, harmonics):
+    # harmonics of known relative amplitude (THD = sqrt(sum rel^2), its
+    # definition) in white noise of s = 1e-5 FS: THD is theirs, to 0.05 dB,
+    # although hundreds of harmonic positions below 20 kHz hold only noise
+    r = analyze_tone(_noisy(f0, 1e-5, rate, 2.0, seed=3, harmonics=harmonics), rate)
+    want = 20 * math.log10(math.sqrt(sum(rel**2 for _k, rel in harmonics)))
+    assert not r.thd_upper_bound
+    assert r.thd_db == pytest.approx(want, abs=0.05)
+    heard = {h.order for h in r.harmonics if h.above_noise}
+    assert {k for k, _rel in harmonics} <= heard and len(heard) <= len(harmonics) + 1
+    # the profile reads the harmonics there are, none of the noise's
+    # (orders 5 and up over 5 % of the power would read as a tail)
+    tail = sum(rel**2 for k, rel in harmonics if k >= 5) > 0.05 * sum(rel**2 for _k, rel in harmonics)
+    even = sum(rel**2 for k, rel in harmonics if k % 2 == 0)
+    odd = sum(rel**2 for k, rel in harmonics if k % 2)
+    assert r.harmonic_profile == ("high-order-tail" if tail else "even-order" if even > 2 * odd else "odd-order")

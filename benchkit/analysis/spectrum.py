@@ -251,14 +251,8 @@ def read_components(spec: np.ndarray, n: int, bins: np.ndarray, half_width: int 
     nu = np.asarray(bins, dtype=float)
     if nu.size == 0:
         return np.zeros(0, dtype=complex)
-    offs = np.arange(-half_width, half_width + 1)
-    m = np.clip(np.rint(nu)[:, None] + offs[None, :], 0, spec.size - 1).astype(int)
-    w1 = kernel(m - nu[:, None], n)
-    w2 = kernel(m + nu[:, None], n)
+    m, g1, g2 = _read_basis(n, nu, spec.size, half_width)
     x = spec[m]
-    # X = p (w1 + w2) + q j (w1 - w2), alpha = p + j q, real least squares
-    g1 = w1 + w2
-    g2 = 1j * (w1 - w2)
 
     def rdot(u, v):
         return np.sum(u.real * v.real + u.imag * v.imag, axis=1)
@@ -269,6 +263,43 @@ def read_components(spec: np.ndarray, n: int, bins: np.ndarray, half_width: int 
     p = (a22 * b1 - a12 * b2) / det
     q = (a11 * b2 - a12 * b1) / det
     return 2.0 * (p + 1j * q)
+
+
+def _read_basis(n: int, nu: np.ndarray, size: int, half_width: int):
+    """The bins a read at ``nu`` uses and its two real basis vectors:
+    X = p (w1 + w2) + q j (w1 - w2), alpha = p + j q (real least squares)."""
+    offs = np.arange(-half_width, half_width + 1)
+    m = np.clip(np.rint(nu)[:, None] + offs[None, :], 0, size - 1).astype(int)
+    w1 = kernel(m - nu[:, None], n)
+    w2 = kernel(m + nu[:, None], n)
+    return m, w1 + w2, 1j * (w1 - w2)
+
+
+def read_noise_gain(n: int, bins: np.ndarray, size: int, half_width: int = 3) -> np.ndarray:
+    """For white noise: the mean of ``|read_components(...)|^2`` at each
+    fractional bin over the mean power of one bin of the windowed
+    spectrum, so that a floor taken from bin powers converts to what a
+    read there gives from noise alone.
+
+    The windowed DFT of white noise of variance s^2 has covariance
+    E X[m] X[m']* = s^2 n (h * h)[m - m'], h the window's exponential
+    coefficients; the read is real-linear in X (b = Re(G^H X), alpha =
+    M^-1 b), so E|2 alpha|^2 = 4 tr(M^-1 B M^-1) with B = Re(G^H C G) / 2
+    (circular noise: away from DC and fs/2)."""
+    nu = np.asarray(bins, dtype=float)
+    if nu.size == 0:
+        return np.zeros(0)
+    m, g1, g2 = _read_basis(n, nu, size, half_width)
+    a = np.asarray(WINDOW_COEFFS)
+    h = np.concatenate([(-1.0) ** np.arange(3, 0, -1) * a[3:0:-1] / 2, [a[0]], (-1.0) ** np.arange(1, 4) * a[1:] / 2])
+    hh = np.convolve(h, h)  # offsets -6..6
+    d = m[:, :, None] - m[:, None, :]
+    c = np.where(np.abs(d) <= 6, hh[np.clip(d + 6, 0, 12)], 0.0)
+    g = np.stack([g1, g2], axis=2)  # (K, bins, 2)
+    mm = np.einsum("kbi,kbj->kij", g.conj(), g).real
+    bb = 0.5 * np.einsum("kbi,kbc,kcj->kij", g.conj(), c, g).real
+    inv = np.linalg.inv(mm)
+    return 4.0 * np.einsum("kij,kjl,kli->k", inv, bb, inv) / hh[6]
 
 
 def band_bins(n: int, sample_rate: float, lo_hz: float, hi_hz: float) -> slice:

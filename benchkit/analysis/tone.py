@@ -47,6 +47,22 @@ CLIP_LEVEL_FS = 0.99
 CLIP_RUN = 3
 #: Harmonic power below this fraction of the noise power reads "below noise".
 _BURIED_RATIO = 1e-2
+#: A harmonic counts (in THD, in the profile) when its power stands at least
+#: this far over the local noise floor: pure noise reads that high once in
+#: e^10, about 22000 reads (the power of complex Gaussian noise in one read is
+#: exponential). With many harmonics the threshold rises to ln(K / odds)
+#: times the floor, so that noise alone passes any of K with these odds (the
+#: floor is itself an estimate, so the odds met are somewhat worse).
+HARMONIC_OVER_FLOOR_DB = 10.0
+FALSE_MARK_ODDS = 1e-3
+#: The noise floor near a harmonic is the median of this many noise bins.
+FLOOR_BINS = 64
+#: Below this ratio to the fundamental (-240 dBc) a harmonic is the
+#: arithmetic's round-off, not a reading.
+ROUNDOFF_DBC_RATIO = 1e-12
+#: With no harmonic over the noise, THD is given as a bound: the root-sum
+#: of the threshold over orders 2 to this.
+BOUND_ORDERS = 10
 
 SCALE_SOURCES = ("none", "profile", "simulation", "given")
 METHOD = (
@@ -73,6 +89,9 @@ class Harmonic:
     level_dbfs: float
     phase_deg: float
     method: str
+    #: stands HARMONIC_OVER_FLOOR_DB over the local noise floor (else it
+    #: cannot be told from noise, and THD and the profile leave it out)
+    above_noise: bool = True
 
     def to_dict(self, volts_per_fs: float | None = None) -> dict:
         d = {
@@ -82,6 +101,7 @@ class Harmonic:
             "level_dbfs": self.level_dbfs,
             "phase_deg": self.phase_deg,
             "method": self.method,
+            "above_noise": self.above_noise,
         }
         if volts_per_fs is not None:
             d["level_vrms"] = units.vrms_from_vpk(self.amplitude_fs * volts_per_fs)
@@ -141,6 +161,8 @@ class ToneResult:
     traces: ToneTraces | None = field(default=None, compare=False, repr=False)
     #: where (s) ``check_dropouts`` found gaps or clicks
     dropouts_s: tuple[float, ...] = ()
+    #: no harmonic stands over the noise: ``thd_ratio`` is a bound, not a reading
+    thd_upper_bound: bool = False
 
     # --- derived figures -------------------------------------------------
     @property
@@ -205,6 +227,7 @@ class ToneResult:
             "fundamental_phase_deg": self.fundamental_phase_deg,
             "thd_pct": self.thd_pct,
             "thd_db": self.thd_db,
+            "thd_upper_bound": self.thd_upper_bound,
             "thdn_pct": self.thdn_pct,
             "thdn_db": self.thdn_db,
             "sinad_db": self.sinad_db,
@@ -247,6 +270,7 @@ class _Block:
     offset: float
     orders: np.ndarray  # harmonic orders 2..K in the band
     amps: np.ndarray  # their peak amplitudes
+    floor2: np.ndarray  # the mean square amplitude noise alone reads at each (nan: unknown)
     phases: np.ndarray  # their phases phi_k (rad)
     methods: list[str]
     res_power: float  # residual mean square in the band
@@ -368,9 +392,11 @@ def _analyse_block(
         phases[~from_fit] = np.angle(z)
     methods = ["fit" if f else "spectrum" for f in from_fit]
 
-    noise_power = _noise_power(rpow, in_band, fit.cycles * n, orders, pscale)
+    floor2 = noise_floor_amp2(rspec, n, fit.cycles * n, orders)
+    heard = above_noise(amps, floor2)
+    noise_power = _noise_power(rpow, in_band, fit.cycles * n, orders[heard], pscale)
     if noise_power is None:
-        noise_power = max(res_power - 0.5 * float(np.sum(amps**2)), 0.0)
+        noise_power = max(res_power - 0.5 * float(np.sum(amps[heard] ** 2)), 0.0)
 
     block = _Block(
         freq_hz=f0,
@@ -379,6 +405,7 @@ def _analyse_block(
         offset=fit.offset,
         orders=orders,
         amps=amps,
+        floor2=floor2,
         phases=phases,
         methods=methods,
         res_power=res_power,
@@ -396,6 +423,50 @@ def _analyse_block(
             block.residual = band_limited(residual, sample_rate, band)
             block.fund_wave = fund
     return block
+
+
+def noise_floor_amp2(rspec: np.ndarray, n: int, nu1: float, orders: np.ndarray) -> np.ndarray:
+    """The mean square amplitude that noise alone gives the read of each
+    harmonic (:func:`benchkit.analysis.spectrum.read_components`): the
+    median power of the FLOOR_BINS noise bins nearest the harmonic (bins
+    clear of the main lobes of the fundamental and every harmonic), over
+    ln 2 (the median of an exponential variable, the power of complex
+    Gaussian noise in one bin; the median resists a stray line), times what
+    the read makes of white noise against one bin
+    (:func:`benchkit.analysis.spectrum.read_noise_gain`). NaN where the
+    harmonics lie too close together to leave noise bins between them."""
+    out = np.full(orders.size, np.nan)
+    lobe = sp.MAIN_LOBE_BINS + 1
+    if orders.size == 0 or nu1 < 2 * lobe + 2:
+        return out
+    size = rspec.size
+    noise = np.ones(size, dtype=bool)
+    noise[: lobe + 1] = False  # DC and the offset's lobe
+    centres = np.rint(np.arange(1, int(orders[-1]) + 2) * nu1).astype(int)
+    noise[np.clip(np.add.outer(centres, np.arange(-lobe, lobe + 1)), 0, size - 1)] = False
+    idx = np.flatnonzero(noise)
+    if idx.size < 5:
+        return out
+    width = min(FLOOR_BINS, idx.size)
+    power = sp.power(rspec[idx])
+    at = orders * nu1
+    first = np.clip(np.searchsorted(idx, at) - width // 2, 0, idx.size - width)
+    pools = power[first[:, None] + np.arange(width)[None, :]]
+    # the read's gain varies by under 0.1 % with the fraction of a bin: one will do
+    return np.median(pools, axis=1) / math.log(2.0) * float(sp.read_noise_gain(n, at[:1], size)[0])
+
+
+def over_floor_ratio(k: int) -> float:
+    """The power ratio over its noise floor a harmonic must reach, of ``k``
+    harmonics tested (see HARMONIC_OVER_FLOOR_DB)."""
+    return max(10 ** (HARMONIC_OVER_FLOOR_DB / 10), math.log(max(k, 1) / FALSE_MARK_ODDS))
+
+
+def above_noise(amps: np.ndarray, floor2: np.ndarray) -> np.ndarray:
+    """Which harmonics stand over their local noise floor by
+    :func:`over_floor_ratio` (all of them where the floor is unknown)."""
+    known = np.isfinite(floor2)
+    return ~known | (np.asarray(amps) ** 2 > np.where(known, floor2, 0.0) * over_floor_ratio(len(floor2)))
 
 
 def _noise_power(rpow: np.ndarray, in_band: slice, nu1: float, orders: np.ndarray, pscale: float) -> float | None:
@@ -650,6 +721,8 @@ def analyze_tone(
     amp1 = math.sqrt(p1)
     pk = np.mean([b.amps[:nh] ** 2 for b in blocks], axis=0) if nh else np.zeros(0)
     amps = np.sqrt(pk)
+    floor2 = np.mean([b.floor2[:nh] for b in blocks], axis=0) if nh else np.zeros(0)
+    heard = above_noise(amps, floor2) & (amps > ROUNDOFF_DBC_RATIO * amp1)
     rel = np.array([b.phases[:nh] - orders * b.phase1 for b in blocks])
     weights = np.array([b.amps[:nh] for b in blocks]) + 1e-300
     rel_phase = np.angle(np.sum(weights * np.exp(1j * rel), axis=0)) if nh else np.zeros(0)
@@ -668,11 +741,24 @@ def analyze_tone(
             level_dbfs=float(level_dbfs[i]),
             phase_deg=float(phase_deg[i]),
             method=first.methods[i],
+            above_noise=bool(heard[i]),
         )
         for i in range(nh)
     )
+    thd_bound = False
     if not harmonics:
         warnings.append(f"no harmonic of {f0:.6g} Hz lies in the band; THD is not defined and reads as zero")
+        thd = 0.0
+    elif heard.any():
+        thd = math.sqrt(float(np.sum(pk[heard])) / p1)
+    else:
+        # nothing stands over the noise: THD is below what the first orders
+        # could hide under it
+        first_orders = (orders <= BOUND_ORDERS) & np.isfinite(floor2)
+        thd = math.sqrt(float(np.sum(floor2[first_orders])) * over_floor_ratio(nh) / p1)
+        thd_bound = True
+        warnings.append(f"no harmonic stands clear of the noise: THD is an upper bound "
+                        f"(orders 2 to {min(BOUND_ORDERS, int(orders[-1]))})")
 
     gaps = [i * nblk / sample_rate + t for i, b in enumerate(blocks) for t in b.dropouts_s]
     if gaps:
@@ -690,7 +776,8 @@ def analyze_tone(
         fundamental_fs=amp1,
         fundamental_phase_deg=float(_wrap_deg(first.phase1)),
         harmonics=harmonics,
-        thd_ratio=math.sqrt(float(np.sum(pk)) / p1),
+        thd_ratio=thd,
+        thd_upper_bound=thd_bound,
         thdn_ratio=math.sqrt(res_power / (p1 / 2.0)),
         noise_rms_fs=math.sqrt(noise_power),
         dc_fs=dc,
@@ -701,7 +788,7 @@ def analyze_tone(
         clipped=clipped,
         valid=not clipped and not gaps,
         warnings=tuple(warnings),
-        harmonic_profile=classify_harmonics(orders, amps, noise_power),
+        harmonic_profile=classify_harmonics(orders, np.where(heard, amps, 0.0), noise_power),
         averages=int(averages),
         fit_iterations=max(b.iterations for b in blocks),
         fitted_orders=first.fitted_orders,

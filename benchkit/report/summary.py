@@ -55,8 +55,15 @@ def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> s
     if r.power_w is not None:
         fund += f"   {format_si(r.power_w, 'W')} into {r.load_ohms:g} ohm"
     lines.append(fund)
-    orders = f"H2..H{r.harmonics[-1].order}" if r.harmonics else "no harmonics in band"
-    lines.append(f"  THD          {r.thd_pct:.4g} %   {r.thd_db:.2f} dB   ({orders})")
+    heard = sum(h.above_noise for h in r.harmonics)
+    if not r.harmonics:
+        lines.append(f"  THD          {r.thd_pct:.4g} %   {r.thd_db:.2f} dB   (no harmonics in band)")
+    elif r.thd_upper_bound:
+        lines.append(f"  THD          < {r.thd_pct:.4g} %   < {r.thd_db:.2f} dB   (H2..H{r.harmonics[-1].order}: "
+                     "none over the noise)")
+    else:
+        lines.append(f"  THD          {r.thd_pct:.4g} %   {r.thd_db:.2f} dB   (H2..H{r.harmonics[-1].order}: "
+                     f"{heard} over the noise)")
     lines.append(f"  THD+N        {r.thdn_pct:.4g} %   {r.thdn_db:.2f} dB   SINAD {r.sinad_db:.2f} dB")
     noise = f"  noise        {r.noise_dbfs:.1f} dBFS"
     if r.noise_vrms is not None:
@@ -64,8 +71,11 @@ def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> s
     lines.append(noise)
     lines.append(f"  DC {r.dc_fs:+.3g} FS   peak {r.peak_fs:.4g} FS   crest factor {r.crest_factor:.3f}")
     if r.harmonics:
-        hs = "  ".join(f"H{h.order} {h.level_dbc:.1f}" for h in r.harmonics[:9])
+        hs = "  ".join(f"H{h.order} {h.level_dbc:.1f}" if h.above_noise else f"H{h.order} ({h.level_dbc:.1f})"
+                       for h in r.harmonics[:9])
         lines.append(f"  dBc          {hs}")
+        if not all(h.above_noise for h in r.harmonics[:9]):
+            lines.append("               (in brackets: not over the noise, left out of THD)")
     lines.append(f"  conditions   {conditions_line(r)}")
     for w in r.warnings:
         lines.append(f"  warning      {w}")
