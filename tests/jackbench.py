@@ -32,7 +32,8 @@ class JackServer:
         self.proc: subprocess.Popen | None = None
 
     def start(self) -> "JackServer":
-        for attempt in range(2):
+        for _attempt in range(2):
+            _forget_dead_servers()
             self.proc = subprocess.Popen(
                 ["jackd", "--no-realtime", "-n", self.name, "-d", "dummy", "-r", str(self.rate), "-p", str(self.period)],
                 stdout=subprocess.DEVNULL,
@@ -45,15 +46,6 @@ class JackServer:
                     return self
                 time.sleep(0.1)
             self.stop()
-            # jackd keeps at most 8 servers in its shared registry, and a
-            # server that died hard leaves its entry behind; with no jackd
-            # running, the registry can only hold stale entries
-            if attempt == 0 and subprocess.run(["pgrep", "-x", "jackd"], capture_output=True).returncode != 0:
-                for stale in glob.glob("/dev/shm/jack*"):
-                    try:
-                        os.unlink(stale)
-                    except OSError:
-                        pass
         raise RuntimeError("jackd did not come up")
 
     def env(self) -> dict:
@@ -76,6 +68,20 @@ class JackServer:
 
     def __exit__(self, *exc):
         self.stop()
+
+
+def _forget_dead_servers() -> None:
+    """jackd keeps at most 8 servers in its shared registry ("Too many
+    servers already active"), and a server that died hard (the tests kill
+    some on purpose) leaves its entry behind, run after run. With no jackd
+    running the registry can only hold stale entries: clear it."""
+    if subprocess.run(["pgrep", "-x", "jackd"], capture_output=True).returncode == 0:
+        return
+    for stale in glob.glob("/dev/shm/jack*"):
+        try:
+            os.unlink(stale)
+        except OSError:
+            pass  # jack_db-0 is a folder, and not a server's entry
 
 
 def have_jack() -> bool:
