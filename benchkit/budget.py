@@ -4,10 +4,13 @@ Single-ended class A with a constant-current pull-up and a
 capacitor-coupled load (textbook class-A analysis, REFERENCES.md), the
 output node resting at mid-supply:
 
-- the positive swing is current-limited: the pull-up's I_bias all goes into
-  the load when the device cuts off, so V+ = I_bias x R_load;
+- the positive swing ends where the pull-up's I_bias all goes into the
+  load (the device cuts off), I_bias x R_load, or where the node meets the
+  rail less the pull-up's own saturation voltage, V_rail / 2 - V_sat,
+  whichever comes first;
 - the negative swing is rail-limited: the node falls to the saturation
-  voltage above ground, so V- = V_rail / 2 - V_sat;
+  voltage above ground, so V- = V_rail / 2 - V_sat (the device sinks the
+  load's current as well as the bias);
 - the largest clean sine has the smaller of the two as its peak, and
   P = Vpk^2 / (2 R) (circuit theory);
 - the supply draws V_rail x I_bias all the time: at idle all of it is heat,
@@ -53,16 +56,26 @@ class ClassABudget:
         return self.rail_v / 2 - self.vsat_v
 
     @property
+    def positive_vpk(self) -> float:
+        """The positive swing: the current limit or the rail, whichever is lower."""
+        return min(self.current_limited_vpk, self.rail_limited_vpk)
+
+    @property
+    def negative_vpk(self) -> float:
+        """The negative swing: the rail."""
+        return self.rail_limited_vpk
+
+    @property
     def limiting_half(self) -> str:
-        """Which half of the swing clips first: "positive" (current), "negative" (rail) or "symmetric"."""
-        a, b = self.current_limited_vpk, self.rail_limited_vpk
-        if math.isclose(a, b, rel_tol=0.01):
-            return "symmetric"
-        return "positive" if a < b else "negative"
+        """Which half of the swing clips first: "positive" (the current
+        limit comes before the rail) or "symmetric" (both halves reach the
+        rails)."""
+        a, b = self.positive_vpk, self.negative_vpk
+        return "symmetric" if math.isclose(a, b, rel_tol=0.01) else "positive"
 
     @property
     def peak_vpk(self) -> float:
-        return min(self.current_limited_vpk, self.rail_limited_vpk)
+        return min(self.positive_vpk, self.negative_vpk)
 
     @property
     def max_sine_w(self) -> float:
@@ -104,6 +117,8 @@ class ClassABudget:
             "vsat_v": self.vsat_v,
             "current_limited_vpk": self.current_limited_vpk,
             "rail_limited_vpk": self.rail_limited_vpk,
+            "positive_swing_vpk": self.positive_vpk,
+            "negative_swing_vpk": self.negative_vpk,
             "limiting_half": self.limiting_half,
             "max_sine_w": self.max_sine_w,
             "supply_w": self.supply_w,

@@ -22,6 +22,7 @@ from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB
 from benchkit.analysis.tone import SCHEMA_VERSION, analyze_tone
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
+from benchkit.units import quantity
 from benchkit.logbook import CATALOG
 from benchkit.crosstalk_runs import DEFAULT_FREQS_HZ as DEFAULT_CROSSTALK_FREQS
 from benchkit.zout_runs import DEFAULT_FREQS_HZ as DEFAULT_ZOUT_FREQS
@@ -408,7 +409,7 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
                 for written in _files().power_reports(result, Path(path), channel, out):
                     _err(f"  wrote        {written}")
             return result.to_dict()
-        _err(summary.steps_summary(steps, f"{path} channel {channel} ({len(steps.steps)} steps)"))
+        _err(summary.steps_summary(steps, f"{path} channel {channel} ({units.count(len(steps.steps), 'step')})"))
         if out is not None:
             for written in _files().steps_reports(steps, Path(path), channel, out):
                 _err(f"  wrote        {written}")
@@ -552,7 +553,7 @@ def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more:
     if profile is not None:
         if backend.name != "virtual":  # the virtual bench knows its own output
             backend.output_vpk_per_fs = profile.output_vpk_per_fs
-        _err(f"calibration: {calibration} ({profile.interface}, {profile.stage_volts_per_fs:.4g} V peak per FS at the stage)")
+        _err(f"calibration: {calibration} ({profile.interface}, {quantity(profile.stage_volts_per_fs, 'V', 4)} peak per FS at the stage)")
     elif backend.name != "virtual":
         _err("no calibration profile: figures stay in dBFS (benchkit calibrate makes one)")
     return backend, profile
@@ -676,7 +677,7 @@ def tone(
                                   channel=channel, traces=True, calibration=profile,
                                   calibration_file=None if calibration is None else str(calibration),
                                   warnings=plan.warnings, note=labels["note"])
-            _err(summary.steps_summary(steps, f"{frequency:g} Hz, {len(drive)} steps, latency {steps.latency_samples} samples"))
+            _err(summary.steps_summary(steps, f"{frequency:g} Hz, {units.count(len(drive), 'step')}, latency {steps.latency_samples} samples"))
             written = _files().steps_reports(steps, run.folder / "capture.wav", channel, run.folder)
             _finish_run(written, run, steps.to_dict(), as_json)
 
@@ -880,7 +881,7 @@ def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, j
         _err("benchkit: stopped: the input clipped (the tone faded out): lower the level or use a larger pad")
         code = EXIT_BAD_INPUT
     dropped = f", {tracker.disturbed} across a dropout of the stream (left out)" if tracker.disturbed else ""
-    _err(f"watch ended: {stopped}; {tracker.count} readings{dropped}; the output faded to silence")
+    _err(f"watch ended: {stopped}; {units.count(tracker.count, 'reading')}{dropped}; the output faded to silence")
     for line in _watch_summary(tracker):
         _err(line)
     if run is not None:
@@ -1432,7 +1433,7 @@ def power(
                 if amps_meter is not None:
                     amps_meter.close()
             info = result.info or {}
-            _err(summary.power_summary(result, f"{frequency:g} Hz into {load:g} ohm: {info.get('steps_played')} steps, "
+            _err(summary.power_summary(result, f"{frequency:g} Hz into {load:g} ohm: {units.count(info.get('steps_played') or 0, 'step')}, "
                                                f"{info.get('stimulus_s', 0):.1f} s; stopped: {info.get('stop_reason')}"))
             written = _files().power_reports(result, run.folder / "capture.wav", in_channel, run.folder)
             _finish_run(written, run, result.to_dict(), as_json, "interrupted" if info.get("interrupted") else "complete")
@@ -1569,7 +1570,7 @@ def calibrate(
             volts = units.parse_level(reading).to_vrms()
         elif virtual:
             volts = backend.output_vrms(lvl)
-            _err(f"virtual bench: the voltmeter reads {volts:.5g} Vrms at the output")
+            _err(f"virtual bench: the voltmeter reads {quantity(volts, 'Vrms', 5)} at the output")
         else:
             volts = _ask_reading(backend, lvl)
         resistors = pads.parse_pad(pad) if pad else None
@@ -1589,8 +1590,8 @@ def calibrate(
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
     u = profile.uncertainty
-    _err(f"output {profile.output_vpk_per_fs:.5g} V peak per FS, input {profile.input_vpk_per_fs:.5g} V peak per FS, "
-         f"pad ratio {profile.pad_ratio:.5g}: {profile.stage_volts_per_fs:.5g} V peak per FS at the stage")
+    _err(f"output {quantity(profile.output_vpk_per_fs, 'V', 5)} peak per FS, input {quantity(profile.input_vpk_per_fs, 'V', 5)} peak per FS, "
+         f"pad ratio {profile.pad_ratio:.5g}: {quantity(profile.stage_volts_per_fs, 'V', 5)} peak per FS at the stage")
     _err(f"loopback floor THD+N {profile.loopback_floor['thdn_db']:.1f} dB at {profile.loopback_floor['level_dbfs']:.1f} dBFS; "
          f"{'inverting' if profile.polarity_inverts else 'non-inverting'}; "
          f"{'DC coupled' if profile.dc_coupled else f'AC coupled ({profile.ac_corner_hz:.2g} Hz)'}; latency {profile.latency_samples} samples")
@@ -1811,14 +1812,12 @@ _UNITS = {"noise_vrms": "Vrms", "noise_a_vrms": "Vrms", "power_w": "W", "clippin
 
 
 def _headline_text(entry) -> str:
-    from benchkit.report.summary import format_si
-
     parts = []
     for f in entry.figures:
         if f["value"] is None or f["name"] not in _SHORT:
             continue
         label, fmt = _SHORT[f["name"]]
-        value = fmt.format(f["value"]) if fmt else format_si(f["value"], _UNITS[f["name"]], 3)
+        value = fmt.format(f["value"]) if fmt else quantity(f["value"], _UNITS[f["name"]], 3)
         parts.append(f"{label} {value}")
     return "; ".join(parts)
 
@@ -1958,7 +1957,7 @@ def log_export(
             else:
                 with out.open("w", newline="", encoding="utf-8") as fh:
                     write_catalog_csv(entries, fh)
-                _err(f"{len(entries)} runs: {out}")
+                _err(f"{units.count(len(entries), 'run')}: {out}")
         except OSError as exc:
             _err(f"benchkit: error: cannot write {out}: {exc.strerror or exc}")
             raise typer.Exit(EXIT_BAD_INPUT)
@@ -1995,7 +1994,7 @@ def log_rebuild(bench: Optional[Path] = _bench_option()) -> None:
         raise typer.Exit(EXIT_BAD_INPUT)
     for why in skipped:
         _err(f"  skipped: {why}")
-    _err(f"indexed {count} runs from {root / logbook.RUNS}")
+    _err(f"indexed {units.count(count, 'run')} from {root / logbook.RUNS}")
 
 
 @log_app.command("reanalyse")

@@ -21,6 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
+from benchkit.units import quantity
 from benchkit.analysis.power import DEFAULT_LIMITS_PCT, JUMP_SLOPE, ONSET_DB, PowerResult, analyze_power
 from benchkit.budget import ClassABudget
 from benchkit.capture import FAULT_ADVICE, MAX_RETRIES as MAX_RETAKES
@@ -62,7 +63,7 @@ def power_from_steps(steps: StepsResult, load_ohms: float, metric: str = "thdn",
 
     top = ordered[-1].result
     if max(s.result.thdn_pct for s in ordered) < max(limits_pct):
-        warnings.append(f"the steps stop at {top.thdn_pct:.3g} % THD+N ({top.power_w:.3g} W), short of the "
+        warnings.append(f"the steps stop at {top.thdn_pct:.3g} % THD+N ({quantity(top.power_w, 'W', 3)}), short of the "
                         f"{max(limits_pct):g} % limit")
     expected = budget.to_dict() if budget is not None else None
     info = {"file": steps.file, "channel": steps.channel, "device": steps.device,
@@ -372,7 +373,7 @@ def precondition(backend, frequency_hz: float, rated_w: float, load_ohms: float,
     power_w = rated_w * PRECONDITION_FRACTION
     level = 20 * math.log10(math.sqrt(2 * power_w * load_ohms) / volts_per_drive_fs)
     check_level(level)
-    say(f"preconditioning: {power_w:.3g} W (1/8 of {rated_w:g} W) at {level:.1f} dBFS for {seconds:g} s")
+    say(f"preconditioning: {quantity(power_w, 'W', 3)} (1/8 of {rated_w:g} W) at {level:.1f} dBFS for {seconds:g} s")
     got = hold(frequency_hz, level, seconds)
     return {
         "manner_of": "16 CFR Part 432",

@@ -16,6 +16,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+from benchkit.units import quantity
 from benchkit import units
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
@@ -86,7 +87,7 @@ def check(
         if at_input > input_vpk_per_fs * limit:
             need = rail_v / (input_vpk_per_fs * limit)
             raise BenchkitError(
-                f"the pad (1:{1 / ratio:.4g}) would let the {rail_v:g} V rail put {at_input:.3g} V on an input "
+                f"the pad (1:{1 / ratio:.4g}) would let the {rail_v:g} V rail put {quantity(at_input, 'V', 3)} on an input "
                 f"whose full scale is {input_vpk_per_fs:g} V peak: use a pad of at least 1:{need:.3g} "
                 f"(benchkit pad --rail {rail_v:g})"
             )
@@ -96,7 +97,7 @@ def check(
         for name, p in (("R1", p1), ("R2", p2)):
             if p > pad_rating_w:
                 raise BenchkitError(
-                    f"pad resistor {name} would dissipate {p:.3g} W at the top step, over its {pad_rating_w:g} W "
+                    f"pad resistor {name} would dissipate {quantity(p, 'W', 3)} at the top step, over its {pad_rating_w:g} W "
                     "rating: use a higher rating or lower the drive"
                 )
     warnings = []

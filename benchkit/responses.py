@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
+from benchkit.units import quantity
 from benchkit import capture, units
 from benchkit.analysis import response as resp
 from benchkit.analysis import sweep as sw
@@ -131,7 +132,7 @@ def _finish(method, freqs, h_fs, curves, thd, thdn, rec: Recording, ref: _Refere
         ref_level = resp.level_at(freqs, mag, reference_hz)
         if ref_level is None:
             raise BenchkitError(f"the reference frequency {reference_hz:g} Hz lies outside the measured range "
-                                f"{freqs[0]:.3g}-{freqs[-1]:.5g} Hz: give --ref-freq")
+                                f"{freqs[0]:.3g}-{quantity(freqs[-1], 'Hz', 5)}: give --ref-freq")
         mag = mag - ref_level
         mag_units = f"dB re the level at {reference_hz:g} Hz"
     return resp.ResponseResult(method, freqs, np.asarray(mag, float), phase, tuple(curves), thd, thdn, source,
@@ -249,7 +250,7 @@ def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
         b = None if band is None else (min(band[0], f0 / 2), max(band[1], min(0.49 * rate, 1.05 * f0)))
         r = analyze_tone(rec.samples[lo:hi], rate, fundamental_hz=f0, bandwidth_hz=b)
         if not r.valid:
-            warnings.append(f"the {f0:.4g} Hz step is not valid ({'clipped' if r.clipped else 'see its warnings'})")
+            warnings.append(f"the {quantity(f0, 'Hz', 4)} step is not valid ({'clipped' if r.clipped else 'see its warnings'})")
         if ref.samples is not None:
             q = analyze_tone(ref.samples[lo:hi], rate, fundamental_hz=f0, bandwidth_hz=b)
             den = q.fundamental_fs * np.exp(1j * np.radians(q.fundamental_phase_deg))

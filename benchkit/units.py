@@ -263,3 +263,64 @@ def parse_band(text: str) -> tuple[float, float] | None:
     if not lo < hi:
         raise BenchkitError(f"band {text!r}: the low edge must be below the high edge")
     return lo, hi
+
+
+# --- printing quantities -------------------------------------------------------
+
+#: SI prefixes a printed quantity may take (``u`` for micro: plain ASCII).
+_SI = ((1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"), (1e-12, "p"))
+#: Units that take a prefix; anything after a "/" (per minute ...) stays as it is.
+_PREFIXABLE = ("Vrms", "Vpk", "V", "A", "W", "Hz", "s", "ohm", "F")
+#: Units a prefix never goes on (a ratio, a level, a temperature ...).
+_BARE = ("dB", "dBc", "dBFS", "dBV", "dBu", "%", "ppm", "degC", "deg", "FS", "V/V", "samples")
+
+
+def _split_unit(unit: str) -> tuple[float, str, str]:
+    """``"mV/min"`` -> (1e-3, "V", "/min"): a unit given with a prefix is
+    read back to its base, so that a value in mV/min prints as mV/min."""
+    head, sep, tail = unit.partition("/")
+    if unit in _BARE:
+        return 1.0, unit, ""
+    for base in _PREFIXABLE:
+        if head == base:
+            return 1.0, base, sep + tail
+        if len(head) == len(base) + 1 and head.endswith(base):
+            scale = dict((p, s) for s, p in _SI if p).get(head[0])
+            if scale is not None:
+                return scale, base, sep + tail
+    return 1.0, unit, ""
+
+
+def quantity(value: float | None, unit: str, digits: int = 4) -> str:
+    """A quantity as a person reads it: ``quantity(0.0123, "V")`` is
+    "12.3 mV", ``quantity(29960, "Hz")`` "29.96 kHz", ``quantity(3.279,
+    "mV/min")`` "3.279 mV/min"; ``digits`` significant digits, no
+    exponent; a unit that takes no prefix (dB, %, ppm ...) prints the
+    value as it is. None prints as "-"."""
+    if value is None:
+        return "-"
+    if not math.isfinite(value):
+        return f"{value} {unit}".strip()
+    scale, base, tail = _split_unit(unit)
+    if base not in _PREFIXABLE:
+        return f"{_digits(value, digits)} {unit}".strip()
+    v = value * scale
+    mag = abs(v)
+    for size, prefix in _SI:
+        if mag >= size * (1 - 0.5 * 10 ** (1 - digits)):
+            return f"{_digits(v / size, digits)} {prefix}{base}{tail}"
+    return f"{_digits(v, digits)} {base}{tail}" if v == 0 else f"{_digits(v / 1e-12, digits)} p{base}{tail}"
+
+
+def _digits(v: float, digits: int) -> str:
+    """``digits`` significant digits, never an exponent, no trailing zeros."""
+    if v == 0:
+        return "0"
+    places = max(0, digits - 1 - int(math.floor(math.log10(abs(v)))))
+    text = f"{v:.{places}f}"
+    return text.rstrip("0").rstrip(".") if "." in text else text
+
+
+def count(n: int, noun: str, plural: str | None = None) -> str:
+    """``count(1, "step")`` is "1 step", ``count(3, "step")`` "3 steps"."""
+    return f"{n} {noun if n == 1 else (plural or noun + 's')}"

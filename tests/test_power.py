@@ -35,8 +35,14 @@ def test_budget_of_the_demo_stage_by_hand():
     assert b.max_efficiency_pct == pytest.approx(100 * 2.56 / 19.2)
     # 4 W into 8 ohm needs Vpk = sqrt(2 x 4 x 8) = 8 V: 1.0 A, and a rail of 2 (8 + 1) = 18 V
     assert b.bias_for(4.0) == pytest.approx(1.0) and b.rail_for(4.0) == pytest.approx(18.0)
-    # at 1.6 A the current limit (12.8 V) passes the rail limit: the negative half clips first
-    assert ClassABudget(24.0, 1.6, 8.0, 1.0).limiting_half == "negative"
+    # at 1.6 A the current limit (12.8 V) passes the rail limit: each half
+    # ends at a rail, 24/2 - 1 = 11 V both ways, and they clip together
+    b16 = ClassABudget(24.0, 1.6, 8.0, 1.0)
+    assert b16.limiting_half == "symmetric"
+    assert b16.positive_vpk == pytest.approx(11.0) and b16.negative_vpk == pytest.approx(11.0)
+    # at 2 A (16 V by the current) the rail still holds the positive swing to 11 V
+    b2 = ClassABudget(24.0, 2.0, 8.0, 1.0)
+    assert b2.positive_vpk == pytest.approx(11.0) and b2.max_sine_w == pytest.approx(11.0**2 / 16)
 
 
 def test_class_a_efficiency_is_at_most_a_quarter():
@@ -118,10 +124,10 @@ def test_hard_clip_power_at_one_percent_matches_the_fourier_series():
     assert d["kind"] == "power" and d["limit_metric"] == "thd" and set(d["power_at_limit_w"]) == {"1", "0.1", "10"}
 
 
-@pytest.mark.parametrize("bias, half", [(0.8, "positive"), (1.6, "negative")])
+@pytest.mark.parametrize("bias, half", [(0.8, "positive"), (1.6, "symmetric"), (2.0, "symmetric")])
 def test_se_class_a_clips_the_half_the_budget_says(bias, half):
     # the model's transfer past its limits: the current-limited half when
-    # I R is below the rail limit, the rail-limited half when above
+    # I R is below the rail limit, both halves at the rails when above
     stage = make_stage("se-class-a", {"bias": bias, "noise_uv": 0.0, "ripple_mv": 0.0})
     rate = 8 * RATE
     t = np.arange(int(0.4 * rate)) / rate

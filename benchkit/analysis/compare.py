@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+from benchkit.units import quantity
 from benchkit.errors import BenchkitError
 
 SCHEMA_VERSION = 1
@@ -161,7 +162,7 @@ def _noise_figures(doc: dict) -> list[Figure]:
 
 
 def _gain_figures(doc: dict) -> list[Figure]:
-    at = f"{doc.get('frequency_hz', 0):.4g} Hz, drive {doc.get('drive_dbfs', 0):g} dBFS"
+    at = f"{quantity(doc.get('frequency_hz', 0), 'Hz', 4)}, drive {doc.get('drive_dbfs', 0):g} dBFS"
     return [Figure("gain_db", "gain", _num(doc.get("gain_db")), "dB", None, at=at, headline=True),
             Figure("phase_deg", "phase", _num(doc.get("phase_deg")), "deg", None, at=at)]
 
@@ -191,12 +192,12 @@ def _zout_figures(doc: dict) -> list[Figure]:
         f = _num(p.get("frequency_hz"))
         if f is not None:
             out.append(Figure(f"zout_ohms@{f:.4g}Hz", "output impedance", _num(p.get("zout_ohms")), "ohm", "lower",
-                              at=f"{f:.4g} Hz"))
+                              at=f"{quantity(f, 'Hz', 4)}"))
     return out
 
 
 def _crosstalk_figures(doc: dict) -> list[Figure]:
-    at = f"{doc['reference_hz']:.4g} Hz" if _num(doc.get("reference_hz")) is not None else ""
+    at = f"{quantity(doc['reference_hz'], 'Hz', 4)}" if _num(doc.get("reference_hz")) is not None else ""
     out = [Figure("crosstalk_db", "crosstalk, the worse direction", _num(doc.get("crosstalk_db")), "dB", "lower", at=at,
                   headline=True),
            Figure("balance_db", "channel balance", _num(doc.get("balance_db")), "dB", "nearer", at=at, headline=True)]
@@ -205,7 +206,7 @@ def _crosstalk_figures(doc: dict) -> list[Figure]:
             f = _num(x.get("frequency_hz"))
             if f is not None:
                 out.append(Figure(f"crosstalk_{key}_db@{f:.4g}Hz", f"crosstalk {name}", _num(x.get("crosstalk_db")),
-                                  "dB", "lower", at=f"{f:.4g} Hz"))
+                                  "dB", "lower", at=f"{quantity(f, 'Hz', 4)}"))
     return out
 
 

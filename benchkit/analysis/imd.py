@@ -35,6 +35,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from benchkit.units import quantity
 from benchkit import units
 from benchkit.analysis import refuse_non_finite
 from benchkit.analysis import spectrum as sp
@@ -218,7 +219,7 @@ def analyze_imd(samples, sample_rate: float, method: str, f1_hz: float | None = 
         raise BenchkitError("analyse one channel at a time")
     n = x.size
     if n < 16 * sample_rate / (f2_hz - f1_hz if method == "difference" else f1_hz):
-        raise BenchkitError(f"the record ({n / sample_rate:.3g} s) is too short to separate the products: "
+        raise BenchkitError(f"the record ({quantity(n / sample_rate, 's', 3)}) is too short to separate the products: "
                             "it needs 16 periods of the spacing between them")
     x = x - float(np.mean(x))
     peak = float(np.max(np.abs(x))) if n else 0.0

@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.fft
 
+from benchkit.units import quantity
 from benchkit import units
 from benchkit.analysis import refuse_non_finite
 from benchkit.analysis import spectrum as sp
@@ -318,8 +319,8 @@ def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tupl
         if np.max(np.abs(low) ** 2) > power[peak]:
             raise BenchkitError(
                 f"the record is too short for its tone: the strongest line lies below "
-                f"{kmin * sample_rate / n:.4g} Hz, with fewer than {MIN_PERIODS} periods in "
-                f"the {n / sample_rate:.4g} s record"
+                f"{quantity(kmin * sample_rate / n, 'Hz', 4)}, with fewer than {MIN_PERIODS} periods in "
+                f"the {quantity(n / sample_rate, 's', 4)} record"
             )
     # median level from ~2000 bins spread over the spectrum: as good a floor
     floor = float(np.median(power[kmin:kmax:max(1, (kmax - kmin) // 2048)]))
@@ -365,7 +366,7 @@ def _analyse_block(
     f0 = fit.cycles * sample_rate
     if f0 * n / sample_rate < MIN_PERIODS:
         raise BenchkitError(
-            f"the record holds only {f0 * n / sample_rate:.1f} periods of {f0:.4g} Hz; "
+            f"the record holds only {f0 * n / sample_rate:.1f} periods of {quantity(f0, 'Hz', 4)}; "
             f"at least {MIN_PERIODS} are needed"
         )
     orders = _harmonic_orders(f0, sample_rate, n, band[1])
@@ -711,7 +712,7 @@ def analyze_tone(
     tol = 0.005 * f0
     if f0 > band[1] + tol or f0 < band[0] - tol:
         raise BenchkitError(
-            f"the fundamental ({f0:.6g} Hz) lies outside the measurement band "
+            f"the fundamental ({quantity(f0, 'Hz', 6)}) lies outside the measurement band "
             f"({band[0]:g} to {band[1]:g} Hz); widen it with --bandwidth"
         )
     first = blocks[0]
@@ -747,7 +748,8 @@ def analyze_tone(
     )
     thd_bound = False
     if not harmonics:
-        warnings.append(f"no harmonic of {f0:.6g} Hz lies in the band; THD is not defined and reads as zero")
+        warnings.append(f"every harmonic of {quantity(f0, 'Hz', 6)} lies above the band (up to {band[1]:g} Hz): THD is not "
+                        "defined and reads as zero")
         thd = 0.0
     elif heard.any():
         thd = math.sqrt(float(np.sum(pk[heard])) / p1)

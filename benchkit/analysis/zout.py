@@ -27,6 +27,7 @@ import cmath
 import math
 from dataclasses import dataclass
 
+from benchkit.units import quantity
 from benchkit import units
 from benchkit.errors import BenchkitError
 
@@ -147,7 +148,7 @@ def output_impedance(open_: list[Reading], loaded: list[Reading], load_ohms: flo
                         "taken as linear there)")
     if unresolved:
         warnings.append(f"at {_hz_list(unresolved)} the load changed the output by under {100 * RESOLUTION:g} %: the "
-                        f"output impedance is below what this resolves (about {RESOLUTION * load_ohms:.2g} ohm)")
+                        f"output impedance is below what this resolves (about {quantity(RESOLUTION * load_ohms, 'ohm', 2)})")
     if open_load_ohms is None:
         warnings.append("the unloaded output's load (pad and input) is not known: taken as open")
     return ZoutResult(load_ohms, open_load_ohms, "gain-ratio" if complex_ else "levels", tuple(points), tuple(warnings))

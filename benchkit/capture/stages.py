@@ -167,7 +167,9 @@ class SingleEndedClassA(StageModel):
       carries I_bias - v/R_L: the positive swing at the load ends where the
       device cuts off, at I_bias x R_L (current-limited half); the negative
       swing ends at the midpoint less the saturation voltage (rail-limited
-      half).
+      half). Nor can the node rise past the rail less the pull-up's
+      saturation voltage (the same V_sat): with I_bias x R_L above that, both
+      halves end at the rails.
     - The device's V_BE follows the exponential law, V_T ln(i/I_s), plus
       its emitter resistor; the ratio of that curve to its slope at rest is
       the open-loop shape of the stage, whose curvature gives H2 growing
@@ -191,8 +193,8 @@ class SingleEndedClassA(StageModel):
         Param("gain", 10.0, "V/V", "closed-loop voltage gain"),
         Param("loop_gain", 30.0, "V/V", "feedback loop gain that divides the distortion"),
         Param("re", 0.22, "ohm", "emitter resistor of the output device"),
-        Param("vsat", 1.0, "V", "saturation voltage at the negative swing"),
-        Param("knee", 0.2, "V", "softness of the negative-swing limit"),
+        Param("vsat", 1.0, "V", "saturation voltage of the device and of the pull-up"),
+        Param("knee", 0.2, "V", "softness of the rail limits"),
         Param("noise_uv", 60.0, "uVrms", "output noise over 20 Hz to 20 kHz"),
         Param("ripple_mv", 0.3, "mVrms", "supply ripple at the output, at twice the mains frequency"),
         Param("mains_hz", 50.0, "Hz", "mains frequency"),
@@ -302,6 +304,12 @@ class SingleEndedClassA(StageModel):
         z = (load_v + floor) / p["knee"]
         near = z < 40.0  # beyond, the knee's term is below 1e-17 of a volt
         load_v[near] = -floor + p["knee"] * np.logaddexp(0.0, z[near])
+        # nor can it rise past the rail less the pull-up's saturation
+        # voltage (a high bias reaches it before its current runs out)
+        ceiling = p["rail"] - self.midpoint_v() - p["vsat"]
+        z = (ceiling - load_v) / p["knee"]
+        near = z < 40.0
+        load_v[near] = ceiling - p["knee"] * np.logaddexp(0.0, z[near])
         if p["ripple_mv"]:
             t = self.time_s + np.arange(v_in.size) / rate
             ripple = p["ripple_mv"] * 1e-3 * math.sqrt(2)

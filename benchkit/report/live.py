@@ -6,7 +6,8 @@ from __future__ import annotations
 
 import math
 
-from benchkit.report.summary import format_si
+from benchkit import units
+from benchkit.units import quantity
 from benchkit.watch import FIGURES, Reading, Tracker, fmt_time
 
 _BARS = "▁▂▃▄▅▆▇█"
@@ -30,7 +31,7 @@ def value_text(v: float | None, unit: str) -> str:
         return f"{v:7.2f} {unit}"
     if unit == "V":  # DC: a midpoint near 12 V moves by millivolts
         return f"{v:+.4f} V"
-    return format_si(v, unit, 4)
+    return quantity(v, unit, 4)
 
 
 def _shown(r: Reading, key: str) -> bool:
@@ -80,7 +81,7 @@ def table(tracker: Tracker, title: str):
     caption = Text()
     for m in notes:
         caption.append(m + "\n", style="bold red" if not m.startswith("HELD") else "bold")
-    when = f"{fmt_time(r.t_s)}, {tracker.count} readings" if r is not None else "waiting for the first reading"
+    when = f"{fmt_time(r.t_s)}, {units.count(tracker.count, 'reading')}" if r is not None else "waiting for the first reading"
     caption.append(f"{when}.  keys: h hold, r reset min/max, q stop (Ctrl-C stops too)")
     t.caption = caption
     t.caption_justify = "left"

@@ -13,6 +13,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
+from benchkit.units import quantity
 from benchkit.analysis.tone import ToneResult
 from benchkit.report.summary import conditions_line
 
@@ -114,7 +115,7 @@ def _log_hz_axis(ax) -> None:
 
 def _response_caption(r) -> str:
     sweep = r.info.get("sweep")
-    how = (f"synchronized sweep {sweep['f1_hz']:g} to {sweep['f2_hz']:g} Hz, {sweep['duration_s']:.3g} s, "
+    how = (f"synchronized sweep {sweep['f1_hz']:g} to {sweep['f2_hz']:g} Hz, {quantity(sweep['duration_s'], 's', 3)}, "
            f"{sweep['level_dbfs']:.1f} dBFS" if sweep else f"stepped sines, {r.freq_hz.size} frequencies")
     return f"{how}; referred by {r.scale_source}; magnitude in {r.mag_units}"
 
@@ -198,15 +199,15 @@ def power_png(result, path: Path, title: str) -> Path:
         ax.axhline(lim, color=_FAINT, lw=0.6, ls=":")
         if pt is not None:
             ax.plot([pt.power_w], [lim], "s", ms=6, mfc="none", mec=_MARK)
-            ax.annotate(f"{pt.power_w:.3g} W at {lim:g} %", (pt.power_w, lim), textcoords="offset points",
+            ax.annotate(f"{quantity(pt.power_w, 'W', 3)} at {lim:g} %", (pt.power_w, lim), textcoords="offset points",
                         xytext=(-8, 6), ha="right", fontsize=8, color=_MARK)
     if result.onset is not None:
         ax.axvline(result.onset.power_w, color=_MARK, lw=0.8, ls="--")
-        ax.annotate(f"onset {result.onset.power_w:.3g} W", (result.onset.power_w, min(thdn)), textcoords="offset points",
+        ax.annotate(f"onset {quantity(result.onset.power_w, 'W', 3)}", (result.onset.power_w, min(thdn)), textcoords="offset points",
                     xytext=(4, 4), fontsize=8, color=_MARK)
     if result.expected:
         ax.axvline(result.expected["max_sine_w"], color="#4b8a3e", lw=0.8, ls="-.")
-        ax.annotate(f"expected ceiling {result.expected['max_sine_w']:.3g} W", (result.expected["max_sine_w"], max(thdn)),
+        ax.annotate(f"expected ceiling {quantity(result.expected['max_sine_w'], 'W', 3)}", (result.expected["max_sine_w"], max(thdn)),
                     textcoords="offset points", xytext=(-4, -12), ha="right", fontsize=8, color="#4b8a3e")
     ax.legend(loc="upper left", fontsize=8, frameon=False)
     ax.set_title(f"{title}: distortion against power", loc="left", fontsize=10)
@@ -231,7 +232,7 @@ def drift_png(result, path: Path, title: str) -> Path:
         f = result.fit
         tt = np.linspace(f.start_s, t[-1], 400)
         ax.plot(tt / scale, f.value_at(tt) * 1e3, color=_MARK, lw=1.2,
-                label=f"first-order fit: {f.final_v * 1e3:.2f} mV, tau {f.tau_s:.3g} s")
+                label=f"first-order fit: {f.final_v * 1e3:.2f} mV, tau {quantity(f.tau_s, 's', 3)}")
         if f.settle_s is not None and f.settle_s <= t[-1]:
             ax.axvline(f.settle_s / scale, color=_MARK, lw=0.7, ls="--")
     if result.limit_v is not None:
@@ -316,7 +317,7 @@ def zout_png(result, path: Path, title: str) -> Path:
     ax.legend(loc="upper right", fontsize=8, frameon=False)
     ref = result.at()
     head = "" if ref is None or ref.damping_factor is None else (
-        f": {ref.zout_ohms:.3g} ohm, damping factor {ref.damping_factor:.3g} at {ref.frequency_hz:g} Hz")
+        f": {quantity(ref.zout_ohms, 'ohm', 3)}, damping factor {ref.damping_factor:.3g} at {ref.frequency_hz:g} Hz")
     ax.set_title(f"{title}: output impedance{head}", loc="left", fontsize=10)
     fig.subplots_adjust(left=0.09, right=0.9, top=0.92, bottom=0.11)
     return _save(fig, path)
@@ -340,7 +341,7 @@ def crosstalk_png(result, path: Path, title: str) -> Path:
     ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
     ax.legend(loc="upper left", fontsize=8, frameon=False)
     d = result.to_dict()
-    head = "" if d["crosstalk_db"] is None else f": {d['crosstalk_db']:.1f} dB at {d['reference_hz']:.4g} Hz"
+    head = "" if d["crosstalk_db"] is None else f": {d['crosstalk_db']:.1f} dB at {quantity(d['reference_hz'], 'Hz', 4)}"
     ax.set_title(f"{title}: crosstalk{head}", loc="left", fontsize=10)
     axb = fig.add_subplot(2, 1, 2)
     bal = result.balance()

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from benchkit import units
+from benchkit.units import quantity
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import ToneResult
 
@@ -17,16 +18,6 @@ PROFILE_TEXT = {
     "below-noise": "no harmonic stands clear of the noise: the residual is noise, not distortion",
 }
 
-_PREFIXES = ((1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"))
-
-
-def format_si(value: float, unit: str, digits: int = 4) -> str:
-    """``0.0123, "V"`` -> ``"12.30 mV"``."""
-    mag = abs(value)
-    for scale, prefix in _PREFIXES:
-        if mag >= scale or scale == 1e-9:
-            return f"{value / scale:.{digits}g} {prefix}{unit}"
-    return f"{value:g} {unit}"  # pragma: no cover
 
 
 def conditions_line(r: ToneResult) -> str:
@@ -34,7 +25,7 @@ def conditions_line(r: ToneResult) -> str:
     lo, hi = r.bandwidth_hz
     scale = "no voltage scale" if r.volts_per_fs is None else f"{r.volts_per_fs:g} V peak per FS ({r.scale_source})"
     return (
-        f"{r.sample_rate_hz:g} Hz, {r.n_samples} samples ({r.duration_s:.3g} s), band {lo:g} to {hi:g} Hz, "
+        f"{r.sample_rate_hz:g} Hz, {r.n_samples} samples ({quantity(r.duration_s, 's', 3)}), band {lo:g} to {hi:g} Hz, "
         f"{sp.WINDOW_NAME.split(',')[0]} window, averages {r.averages}, "
         f"fit to H{r.fitted_orders}, {scale}"
     )
@@ -51,13 +42,14 @@ def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> s
         lines.append("  NOT VALID: " + "; ".join(w for w in r.warnings if "clipped" in w))
     fund = f"  fundamental  {r.fundamental_hz:.4f} Hz   {r.fundamental_dbfs:.2f} dBFS"
     if r.fundamental_vrms is not None:
-        fund += f"   {format_si(r.fundamental_vrms, 'Vrms')}"
+        fund += f"   {quantity(r.fundamental_vrms, 'Vrms')}"
     if r.power_w is not None:
-        fund += f"   {format_si(r.power_w, 'W')} into {r.load_ohms:g} ohm"
+        fund += f"   {quantity(r.power_w, 'W')} into {r.load_ohms:g} ohm"
     lines.append(fund)
     heard = sum(h.above_noise for h in r.harmonics)
     if not r.harmonics:
-        lines.append(f"  THD          {r.thd_pct:.4g} %   {r.thd_db:.2f} dB   (no harmonics in band)")
+        lines.append(f"  THD          not defined: every harmonic lies above the band "
+                     f"(up to {r.bandwidth_hz[1]:g} Hz)")
     elif r.thd_upper_bound:
         lines.append(f"  THD          < {r.thd_pct:.4g} %   < {r.thd_db:.2f} dB   (H2..H{r.harmonics[-1].order}: "
                      "none over the noise)")
@@ -67,7 +59,7 @@ def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> s
     lines.append(f"  THD+N        {r.thdn_pct:.4g} %   {r.thdn_db:.2f} dB   SINAD {r.sinad_db:.2f} dB")
     noise = f"  noise        {r.noise_dbfs:.1f} dBFS"
     if r.noise_vrms is not None:
-        noise += f"   {format_si(r.noise_vrms, 'Vrms')}"
+        noise += f"   {quantity(r.noise_vrms, 'Vrms')}"
     lines.append(noise)
     lines.append(f"  DC {r.dc_fs:+.3g} FS   peak {r.peak_fs:.4g} FS   crest factor {r.crest_factor:.3f}")
     if r.harmonics:
@@ -83,19 +75,27 @@ def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> s
     return "\n".join(lines)
 
 
+def _harmonic_cell(h) -> str:
+    """A harmonic's level, bracketed when it cannot be told from the noise,
+    "above band" when the band leaves it out."""
+    if h is None:
+        return "above band"
+    return f"{h.level_dbc:.1f}" if h.above_noise else f"({h.level_dbc:.1f})"
+
+
 def steps_summary(steps, title: str = "") -> str:
     """A stepped-tone run as a table: one line per step."""
     lines = [title] if title else []
-    lines.append("  drive dBFS    level        power      THD+N %    THD+N dB   H2 dBc   H3 dBc")
+    lines.append("  drive dBFS    level        power      THD+N %    THD+N dB      H2 dBc      H3 dBc")
     for s in steps.steps:
         r = s.result
-        by_order = {h.order: h.level_dbc for h in r.harmonics}
-        level = format_si(r.fundamental_vrms, "Vrms") if r.fundamental_vrms is not None else f"{r.fundamental_dbfs:.2f} dBFS"
-        power = format_si(r.power_w, "W") if r.power_w is not None else "-"
+        by_order = {h.order: h for h in r.harmonics}
+        level = quantity(r.fundamental_vrms, "Vrms") if r.fundamental_vrms is not None else f"{r.fundamental_dbfs:.2f} dBFS"
+        power = quantity(r.power_w, "W") if r.power_w is not None else "-"
         mark = "" if r.valid else ("   NOT VALID (clipped capture)" if r.clipped else "   NOT VALID (see the warnings)")
         lines.append(
             f"  {s.drive_dbfs:9.2f}   {level:>11}  {power:>10}  {r.thdn_pct:9.4g}  {r.thdn_db:9.2f}  "
-            f"{by_order.get(2, float('nan')):7.1f}  {by_order.get(3, float('nan')):7.1f}{mark}"
+            f"{_harmonic_cell(by_order.get(2)):>10}  {_harmonic_cell(by_order.get(3)):>10}{mark}"
         )
     seen = set()
     for w in list(steps.warnings) + [w for s in steps.steps for w in s.result.warnings]:
@@ -108,7 +108,7 @@ def steps_summary(steps, title: str = "") -> str:
 def _figure_value(v, unit: str) -> str:
     if v is None:
         return "-"
-    return f"{v:.2f} {unit}" if unit in ("dB", "dBc", "dBFS", "%") else f"{format_si(v, unit)}"
+    return f"{v:.2f} {unit}" if unit in ("dB", "dBc", "dBFS", "%") else f"{quantity(v, unit)}"
 
 
 def comparison_text(c) -> str:
@@ -130,7 +130,7 @@ def comparison_text(c) -> str:
                 continue
             verdict = d.verdict(k)
             unit = d.unit if d.unit in ("dB", "dBc", "dBFS", "%") else ""
-            text = f"{ch:+.2f} {unit}" if unit else ("+" if ch >= 0 else "-") + format_si(abs(ch), d.unit, 3)
+            text = f"{ch:+.2f} {unit}" if unit else ("+" if ch >= 0 else "-") + quantity(abs(ch), d.unit, 3)
             changes.append(text + (f" {verdict}" if verdict else ""))
         lines.append(f"  {name:<{name_w}}  " + "  ".join(cells) + "   " + "; ".join(changes))
     if len(shown) < len(ordered):
@@ -143,7 +143,7 @@ def response_summary(r, title: str = "") -> str:
     d = r.to_dict()
 
     def hz(v):
-        return "beyond the measured range" if v is None else f"{v:.4g} Hz"
+        return "beyond the measured range" if v is None else f"{quantity(v, 'Hz', 4)}"
 
     def db(v):
         return "not measured" if v is None else f"{v:+.2f} dB"
@@ -160,7 +160,7 @@ def response_summary(r, title: str = "") -> str:
     fit = r.corner_fit
     if fit is not None:
         verdict = "fits" if fit.fits else "does not fit"
-        lines.append(f"  low corner   {verdict} a first-order high-pass at {fit.corner_hz:.4g} Hz (RMS error {fit.rms_error_db:.2f} dB)")
+        lines.append(f"  low corner   {verdict} a first-order high-pass at {quantity(fit.corner_hz, 'Hz', 4)} (RMS error {fit.rms_error_db:.2f} dB)")
         if r.coupling_capacitor_f is not None:
             lines.append(f"  coupling C   {r.coupling_capacitor_f * 1e6:.4g} uF into {r.load_ohms:g} ohm (C = 1/(2 pi R f))")
     thd = [v for v in r.thd_db if v == v]
@@ -180,31 +180,31 @@ def power_summary(r, title: str = "") -> str:
             lines.append(f"  at {lim:g} % {metric}".ljust(22) + "not reached")
         else:
             s0, s1 = r.steps[pt.below], r.steps[pt.above]
-            lines.append(f"  at {lim:g} % {metric}".ljust(22) + f"{format_si(pt.power_w, 'W')} ({pt.vrms:.4g} Vrms), "
+            lines.append(f"  at {lim:g} % {metric}".ljust(22) + f"{quantity(pt.power_w, 'W')} ({quantity(pt.vrms, 'Vrms', 4)}), "
                          f"between the {s0.drive_dbfs:.2f} and {s1.drive_dbfs:.2f} dBFS steps")
     if r.onset is not None:
-        lines.append(f"  clipping onset       {format_si(r.onset.power_w, 'W')} ({r.onset.vrms:.4g} Vrms, "
+        lines.append(f"  clipping onset       {quantity(r.onset.power_w, 'W')} ({quantity(r.onset.vrms, 'Vrms', 4)}, "
                      f"THD+N {r.onset.departure_db:g} dB over its low-level trend)")
     if r.half:
         lines.append(f"  clipping half        {r.half}")
     eff = r.efficiency_pct
     at = "" if eff is None else f", efficiency {eff:.1f} % at {r.limits[0][0]:g} %"
     if r.supply_w:
-        lines.append(f"  supply               {r.supply_w:.3g} W ({r.supply_v:g} V x {r.supply_a:g} A; all heat at idle){at}")
+        lines.append(f"  supply               {quantity(r.supply_w, 'W', 3)} ({r.supply_v:g} V x {r.supply_a:g} A; all heat at idle){at}")
     elif r.supply_v and any(s.supply_a is not None for s in r.steps):
         metered = [s.supply_a for s in r.steps if s.supply_a is not None]
-        lines.append(f"  supply               {r.supply_v:g} V, {min(metered):.4g} to {max(metered):.4g} A metered{at}")
+        lines.append(f"  supply               {r.supply_v:g} V, {min(metered):.4g} to {quantity(max(metered), 'A', 4)} metered{at}")
     if r.expected:
         e = r.expected
         got = r.onset.power_w if r.onset is not None else None
-        lines.append(f"  expected ceiling     {format_si(e['max_sine_w'], 'W')} ({e['limiting_half']} half first: "
-                     f"+{e['current_limited_vpk']:.3g} V / -{e['rail_limited_vpk']:.3g} V peak)"
+        lines.append(f"  expected ceiling     {quantity(e['max_sine_w'], 'W')} ({_first_half(e['limiting_half'])} first: "
+                     f"+{quantity(e['positive_swing_vpk'], 'V', 3)} / -{quantity(e['negative_swing_vpk'], 'V', 3)} peak)"
                      + ("" if got is None else f"; measured onset {100 * got / e['max_sine_w']:.0f} % of it"))
     rating = (r.info or {}).get("rating")
     if rating:
         pre = rating.get("preconditioning")
         if pre:
-            lines.append(f"  preconditioned       {pre['power_w']:.3g} W for {pre['seconds']:g} s ({rating['manner_of']} manner)")
+            lines.append(f"  preconditioned       {quantity(pre['power_w'], 'W', 3)} for {pre['seconds']:g} s ({rating['manner_of']} manner)")
         verdict = {True: "reaches", False: "falls short of", None: "cannot be judged against"}[rating["meets"]]
         lines.append(f"  rating               {verdict} {rating['rated_power_w']:g} W at {rating['limit_pct']:g} %: "
                      + "; ".join(rating["notes"]))
@@ -212,24 +212,30 @@ def power_summary(r, title: str = "") -> str:
     return "\n".join(lines)
 
 
+def _first_half(half: str) -> str:
+    return "both halves together" if half == "symmetric" else f"the {half} half"
+
+
 def budget_summary(d: dict) -> str:
     """A class-A budget (``ClassABudget.to_dict``) on one screen."""
     lines = [
         f"se-class-a: {d['rail_v']:g} V rail, {d['bias_a']:g} A bias, {d['load_ohms']:g} ohm load, {d['vsat_v']:g} V saturation",
-        f"  positive swing      +{d['current_limited_vpk']:.3g} V peak (current-limited: I x R)",
-        f"  negative swing      -{d['rail_limited_vpk']:.3g} V peak (rail-limited: rail/2 - Vsat)",
-        f"  clips first         {d['limiting_half']} half",
-        f"  largest clean sine  {format_si(d['max_sine_w'], 'W')} (Vpk^2 / 2R)",
-        f"  supply draw         {d['supply_w']:.3g} W at idle and at full power; idle dissipation {d['idle_dissipation_w']:.3g} W",
+        f"  positive swing      +{quantity(d['positive_swing_vpk'], 'V', 3)} peak "
+        + ("(current-limited: I x R)" if d["current_limited_vpk"] < d["rail_limited_vpk"]
+           else f"(rail-limited: rail/2 - Vsat; the current would allow +{quantity(d['current_limited_vpk'], 'V', 3)})"),
+        f"  negative swing      -{quantity(d['negative_swing_vpk'], 'V', 3)} peak (rail-limited: rail/2 - Vsat)",
+        f"  clips first         {_first_half(d['limiting_half'])}",
+        f"  largest clean sine  {quantity(d['max_sine_w'], 'W')} (Vpk^2 / 2R)",
+        f"  supply draw         {quantity(d['supply_w'], 'W', 3)} at idle and at full power; idle dissipation {quantity(d['idle_dissipation_w'], 'W', 3)}",
         f"  efficiency          {d['max_efficiency_pct']:.1f} % at the largest clean sine (class A: at most 25 %)",
     ]
     if "target" in d:
         t = d["target"]
-        lines.append(f"  for {t['power_w']:g} W         bias {t['bias_a']:.3g} A and a rail of at least {t['rail_v']:.3g} V")
+        lines.append(f"  for {t['power_w']:g} W         bias {quantity(t['bias_a'], 'A', 3)} and a rail of at least {quantity(t['rail_v'], 'V', 3)}")
     if "current_limiter" in d:
         c = d["current_limiter"]
-        lines.append(f"  limiter at {c['limit_a']:g} A     sense resistor {c['sense_ohms']:.3g} ohm ({c['vbe_v']:g} V / I), "
-                     f"{c['sense_w']:.3g} W in it: rate it at least {2 * c['sense_w']:.2g} W")
+        lines.append(f"  limiter at {c['limit_a']:g} A     sense resistor {quantity(c['sense_ohms'], 'ohm', 3)} ({c['vbe_v']:g} V / I), "
+                     f"{quantity(c['sense_w'], 'W', 3)} in it: rate it at least {quantity(2 * c['sense_w'], 'W', 2)}")
     return "\n".join(lines)
 
 
@@ -247,9 +253,9 @@ def drift_summary(r, title: str = "") -> str:
     f = r.fit
     if f is not None:
         settle = "" if f.settle_s is None else (
-            f"; within {f.band_v * 1e3:g} mV from {f.settle_s:.0f} s (+-{f.settle_sd_s:.0f} s)")
-        lines.append(f"  settling     towards {f.final_v * 1e3:.3f} mV (+-{f.final_sd_v * 1e3:.3f}), "
-                     f"tau {f.tau_s:.3g} s (+-{f.tau_sd_s:.2g}){settle}")
+            f"; within {quantity(f.band_v, 'V')} from {quantity(f.settle_s, 's', 3)} (+-{quantity(f.settle_sd_s, 's', 2)})")
+        lines.append(f"  settling     towards {quantity(f.final_v, 'V', 5)} (+-{quantity(f.final_sd_v, 'V', 2)}), "
+                     f"tau {quantity(f.tau_s, 's', 3)} (+-{quantity(f.tau_sd_s, 's', 2)}){settle}")
     for e in r.events:
         lines.append(f"  step         at {e['time_s']:.1f} s: {e['step_v'] * 1e3:+.3f} mV")
     if r.verdict:
@@ -266,16 +272,16 @@ def noise_summary(d: dict, title: str = "") -> str:
     band = f"{lo:g} Hz to {hi:g} Hz"
 
     def level(v, db, dbfs):
-        return f"{format_si(v, 'Vrms')} ({db:.1f} dBV, {dbfs:.1f} dBFS)" if v is not None else f"{dbfs:.1f} dBFS"
+        return f"{quantity(v, 'Vrms')} ({db:.1f} dBV, {dbfs:.1f} dBFS)" if v is not None else f"{dbfs:.1f} dBFS"
 
     lines.append(f"  unweighted   {level(d['noise_vrms'], d['noise_dbv'] or 0, d['noise_dbfs'])} over {band}")
     lines.append(f"  A-weighted   {level(d['noise_a_vrms'], d['noise_a_dbv'] or 0, d['noise_a_dbfs'])}")
     ref = d.get("snr_reference")
     if ref and d.get("snr_db") is not None:
         lines.append(f"  SNR          {d['snr_db']:.1f} dB, {d['snr_a_db']:.1f} dB A-weighted, re {ref['what']} "
-                     f"({format_si(ref['vrms'], 'Vrms')})")
+                     f"({quantity(ref['vrms'], 'Vrms')})")
     if d.get("hum"):
-        parts = [f"{h['freq_hz']:g} Hz {h['level_dbfs']:.1f} dBFS" + (f" ({format_si(h['level_vrms'], 'Vrms')})"
+        parts = [f"{h['freq_hz']:g} Hz {h['level_dbfs']:.1f} dBFS" + (f" ({quantity(h['level_vrms'], 'Vrms')})"
                                                                        if h.get("level_vrms") else "")
                  for h in d["hum"]]
         lines.append(f"  hum          {d['mains_hz']:g} Hz mains: " + "; ".join(parts))
@@ -295,7 +301,7 @@ def imd_summary(d: dict, title: str = "") -> str:
     lines.append(f"  method       {d['method']}: {f1:g} Hz + {f2:g} Hz at {d['tone_ratio']:g}:1; products {ref}")
     lines.append("  drive dBFS    peak at stage   IMD %      IMD dB   order 2 dB  order 3 dB")
     for s in d["steps"]:
-        peak = (format_si(s["peak_v"], "V") if s.get("peak_v") is not None
+        peak = (quantity(s["peak_v"], "V") if s.get("peak_v") is not None
                 else f"{units.dbfs_from_peak(max(s['peak_fs'], 1e-12)):.2f} dBFS")
         o = s.get("orders") or {}
         mark = "" if s["valid"] else ("   NOT VALID (clipped capture)" if s["clipped"] else "   NOT VALID (see the warnings)")
@@ -321,7 +327,7 @@ def imd_summary(d: dict, title: str = "") -> str:
 def zout_summary(d: dict, title: str = "") -> str:
     """An output impedance result (its document): a line a frequency."""
     lines = [title] if title else []
-    open_load = "open" if d["open_load_ohms"] is None else f"{d['open_load_ohms']:.4g} ohm (pad and input)"
+    open_load = "open" if d["open_load_ohms"] is None else f"{quantity(d['open_load_ohms'], 'ohm', 4)} (pad and input)"
     lines.append(f"  loads        {d['load_ohms']:g} ohm against {open_load}; {d['method']}")
     lines.append("  freq Hz      |Zout| ohm    R ohm       X ohm      damping")
     for p in d["points"]:
@@ -331,7 +337,7 @@ def zout_summary(d: dict, title: str = "") -> str:
                      f"{p['reactance_ohms']:10.4g}  {df:>8}{mark}")
     if d.get("zout_ohms") is not None:
         df = "-" if d["damping_factor"] is None else f"{d['damping_factor']:.3g}"
-        lines.append(f"  at {d['reference_hz']:g} Hz  Zout {d['zout_ohms']:.4g} ohm, damping factor {df} re "
+        lines.append(f"  at {d['reference_hz']:g} Hz  Zout {quantity(d['zout_ohms'], 'ohm', 4)}, damping factor {df} re "
                      f"{d['load_ohms']:g} ohm")
     for w in d.get("warnings") or []:
         lines.append(f"  warning      {w}")
@@ -351,7 +357,7 @@ def crosstalk_summary(d: dict, title: str = "") -> str:
         lines.append(f"  {a['frequency_hz']:>9.5g}   {cell(a):>11}   {cell(b):>11}   "
                      f"{'-' if bal is None else f'{bal:+.3f}':>14}")
     if d.get("crosstalk_db") is not None:
-        lines.append(f"  at {d['reference_hz']:.4g} Hz  crosstalk {d['crosstalk_db']:.1f} dB (the worse direction), "
+        lines.append(f"  at {quantity(d['reference_hz'], 'Hz', 4)}  crosstalk {d['crosstalk_db']:.1f} dB (the worse direction), "
                      f"separation {-d['crosstalk_db']:.1f} dB"
                      + ("" if d.get("balance_db") is None else f"; balance {d['balance_db']:+.3f} dB"))
     for w in d.get("warnings") or []:
@@ -363,7 +369,7 @@ def gain_summary(d: dict, title: str = "") -> str:
     """A gain result (its document): the gain with its phase, the levels."""
     lines = [title] if title else []
     phase = "" if d["phase_deg"] is None else f", phase {d['phase_deg']:+.1f} deg" + (" (inverting)" if d["inverting"] else "")
-    lines.append(f"  gain         {d['gain_vv']:.4g} V/V ({d['gain_db']:+.2f} dB) at {d['frequency_hz']:.4g} Hz{phase}")
-    lines.append(f"  levels       {d['vin_vrms']:.4g} Vrms in ({d['input_source']}), {d['vout_vrms']:.4g} Vrms out"
+    lines.append(f"  gain         {quantity(d['gain_vv'], 'V', 4)}/V ({d['gain_db']:+.2f} dB) at {quantity(d['frequency_hz'], 'Hz', 4)}{phase}")
+    lines.append(f"  levels       {quantity(d['vin_vrms'], 'Vrms', 4)} in ({d['input_source']}), {quantity(d['vout_vrms'], 'Vrms', 4)} out"
                  + (f" into {d['load_ohms']:g} ohm" if d["load_ohms"] else ""))
     return "\n".join(lines)
