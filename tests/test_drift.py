@@ -49,6 +49,25 @@ def test_a_sudden_step_is_an_event_not_drift():
     assert any("step" in w for w in r.warnings)
 
 
+@pytest.mark.parametrize("resolution, sigma", [(1e-4, 2e-5), (1e-4, 0.0), (1e-3, 1e-4), (1e-5, 3e-6)])
+def test_readings_rounded_to_a_meters_resolution_settle_without_false_steps(resolution, sigma):
+    # a midpoint settling by 20 counts with tau 240 s, read once a second
+    # for 30 min, with less noise than a third of a count, rounded to the
+    # meter's last digit: one-count changes are the rounding, not steps;
+    # the first-order fit (the step response, circuit theory) finds tau;
+    # a 40-count jump at 20 min is the one step there is
+    t = np.arange(0, 1800, 1.0)
+    v = 12.0 + 20 * resolution * (1 - np.exp(-t / 240.0)) + sigma * np.random.default_rng(7).standard_normal(t.size)
+    rounded = np.round(v / resolution) * resolution
+    r = analyze_drift(t, rounded, band_v=5 * resolution)
+    assert not r.events, r.events[:3]
+    assert r.fit is not None and r.fit.tau_s == pytest.approx(240.0, rel=0.1)
+    bumped = rounded.copy()
+    bumped[1200:] += 40 * resolution
+    events = find_steps(t, bumped)
+    assert [e["time_s"] for e in events] == [1200.0]
+
+
 def test_meter_over_pyvisa_settles_as_its_exponential(tmp_path):
     # a few seconds' time constant, logged for more than five of them
     meter = EmulatedMeter(final_v=0.0425, start_v=0.0180, tau_s=1.5, noise_v=30e-6)
@@ -140,3 +159,22 @@ def test_drift_on_an_ac_coupled_input_is_refused(tmp_path):
     path = save_profile(prof, tmp_path / "cal.json")
     res = run_cli("drift", "--source", "interface", "--calibration", str(path), "--duration", "5", "--bench", str(tmp_path / "d"))
     assert res.returncode == 1 and "AC coupled" in res.stderr
+
+
+@pytest.mark.parametrize("nominal, limit, rise", [(12.0, 0.5, 0.04), (0.0, 0.05, 0.003), (11.9, 0.2, -0.08)])
+def test_the_drift_plot_bands_the_limit_about_the_nominal_and_scales_to_the_data(tmp_path, nominal, limit, rise):
+    # the verdict holds the value within the limit of the nominal: the band
+    # drawn is nominal +- limit; the view spans the readings (a warm-up of a
+    # few tens of mV stays visible beside a +-0.5 V band)
+    from benchkit.report.plots import drift_png, drift_view
+
+    t = np.arange(0, 900, 3.0)
+    v = nominal + rise * (1 - np.exp(-t / 120.0))
+    r = analyze_drift(t, v, limit_v=limit, nominal_v=nominal)
+    view = drift_view(r)
+    k = view["scale"]
+    assert view["band"] == pytest.approx(((nominal - limit) * k, (nominal + limit) * k))
+    lo, hi = view["ylim"]
+    span = abs(rise) * k
+    assert lo <= min(v) * k and max(v) * k <= hi and hi - lo <= 1.5 * span
+    assert drift_png(r, tmp_path / "d.png", "B-2").stat().st_size > 10_000

@@ -60,6 +60,43 @@ def test_products_of_a_cubic_follow_the_identities(method, rate):
     assert r.ratio == pytest.approx(math.sqrt(sum(v * v for v in r.orders.values())), rel=1e-12)
 
 
+@pytest.mark.parametrize("rate, f1, f2", [(44100.0, 18000.0, 19000.0), (44100.0, 19000.0, 20000.0),
+                                          (48000.0, 20000.0, 21000.0)])
+def test_a_product_above_the_limit_is_named_and_its_order_partial(rate, f1, f2):
+    # difference tones high in a 44.1 (48) kHz record: 2 f2 - f1 lies above
+    # 0.45 fs and cannot be read; d3 then holds 2 f1 - f2 alone, by the
+    # identities (3/4) a3 A1^2 A2 over the sum of the tones, and says it is
+    # partial; d2 (f2 - f1: a2 A1 A2) stays whole
+    t = np.arange(int(rate)) / rate
+    a1 = a2 = 0.25
+    x = a1 * np.cos(2 * np.pi * f1 * t) + a2 * np.cos(2 * np.pi * f2 * t + 0.5)
+    k2, k3 = 0.02, 0.05
+    r = analyze_imd(x + k2 * x * x + k3 * x ** 3, rate, "difference", f1, f2)
+    want, (t1, t2) = _expected(a1, a2, 1.0, k2, k3)
+    assert r.orders[2] == pytest.approx(want[(-1, 1)] / (t1 + t2), rel=1e-4)
+    assert r.orders[3] == pytest.approx(want[(2, -1)] / (t1 + t2), rel=1e-4)
+    assert r.partial_orders == (3,)
+    assert any("2f2-f1" in u for u in r.unmeasured)
+    d = r.to_dict()
+    assert d["partial"] and d["orders"]["3"]["partial"] and not d["orders"]["2"]["partial"]
+
+
+def test_analyze_difference_on_a_44k_capture_is_no_internal_error(tmp_path):
+    # the case: f2 = 20 kHz lies above 0.45 x 44.1 kHz; the tone is
+    # still read (with a warning), not looked up after being dropped
+    import soundfile as sf
+
+    rate = 44100
+    t = np.arange(rate) / rate
+    x = 0.25 * np.cos(2 * np.pi * 19000 * t) + 0.25 * np.cos(2 * np.pi * 20000 * t)
+    sf.write(tmp_path / "hi.wav", x + 0.02 * x * x, rate, subtype="FLOAT")
+    res = run_cli("analyze", str(tmp_path / "hi.wav"), "--imd", "difference", "--json")
+    assert res.returncode == 0, res.stderr
+    d = json.loads(res.stdout)
+    step = d["steps"][0] if "steps" in d else d
+    assert step["partial"] and "Traceback" not in res.stderr
+
+
 def test_a_straight_line_makes_no_products():
     rate = 48000.0
     tw = twin_tone("modulation")

@@ -91,3 +91,19 @@ def test_sox_tones_give_the_divider_impedance(sox_path, tmp_path):
     d = json.loads(res.stdout)
     assert d["method"] == "levels" and d["zout_ohms"] == pytest.approx(0.5, rel=0.002)
     assert d["damping_factor"] == pytest.approx(16.0, rel=0.002)
+
+
+@pytest.mark.parametrize("rate", [48000, 96000])
+@pytest.mark.parametrize("gain_db", [-0.07, -0.05, -0.035])
+def test_a_slow_16_bit_sine_near_full_scale_is_not_called_clipped(sox_path, tmp_path, rate, gain_db):
+    # sox's 20 Hz sine at 0.992-0.996 FS, 16 bits without dither: its peaks
+    # rest on one code for several samples (the sine moves less than an LSB
+    # there), which is rounding, not clipping; the same sine driven 0.5 dB
+    # over full scale (sox clips it and says so) is clipped
+    wav = _sox(sox_path, tmp_path / "slow.wav", "sine", "20", "gain", str(gain_db), rate=rate, seconds=2.0)
+    rec = read_capture(wav)
+    r = analyze_tone(rec.samples, rec.sample_rate_hz)
+    assert not r.clipped and r.valid, r.warnings
+    hot = _sox(sox_path, tmp_path / "hot.wav", "sine", "20", "gain", "0.5", rate=rate, seconds=2.0)
+    rec = read_capture(hot)
+    assert analyze_tone(rec.samples, rec.sample_rate_hz).clipped

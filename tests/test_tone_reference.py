@@ -297,3 +297,26 @@ def test_low_frequency_thd_sums_the_harmonics_not_the_noise(f0, rate, harmonics)
     even = sum(rel**2 for k, rel in harmonics if k % 2 == 0)
     odd = sum(rel**2 for k, rel in harmonics if k % 2)
     assert r.harmonic_profile == ("high-order-tail" if tail else "even-order" if even > 2 * odd else "odd-order")
+
+
+@pytest.mark.parametrize("seconds", [1.0, 0.1, 0.02])
+@pytest.mark.parametrize("f0, band", [(5000.0, (20.0, 20000.0)), (1000.0, (20.0, 20000.0)),
+                                      (20000.0 / 3, (20.0, 20000.0)), (2500.0, (20.0, 10000.0))])
+def test_one_band_rule_for_thd_and_thd_n(f0, band, seconds):
+    # harmonics of relative amplitude 1e-3 at every order, one of them on
+    # the band's upper edge: a harmonic counts in both figures when
+    # lo <= k f0 <= hi and in neither otherwise, so with no noise THD+N
+    # equals THD, and both equal the root-sum of the orders in the band
+    # (THD's definition)
+    rate = 48000
+    t = np.arange(int(rate * seconds)) / rate
+    top = int(rate * 0.45 // f0)
+    x = 0.5 * np.cos(2 * np.pi * f0 * t)
+    for k in range(2, top + 1):
+        x += 0.5e-3 * np.cos(2 * np.pi * k * f0 * t + k)
+    r = analyze_tone(x, rate, bandwidth_hz=band)
+    counted = [k for k in range(2, top + 1) if band[0] <= k * f0 <= band[1]]
+    want = 20 * math.log10(1e-3 * math.sqrt(len(counted)))
+    assert r.thd_db == pytest.approx(want, abs=0.01)
+    assert r.thdn_db >= r.thd_db
+    assert r.thdn_db == pytest.approx(want, abs=0.05)

@@ -21,6 +21,8 @@ import scipy.optimize
 #: A jump between two readings this many times the readings' own noise
 #: (robust: from the median absolute difference) is a step, not drift.
 STEP_SIGMAS = 12.0
+#: Nor is a jump of fewer counts than this of the readings' resolution.
+STEP_COUNTS = 4
 #: Readings needed for a fit.
 MIN_FIT_POINTS = 8
 
@@ -86,11 +88,29 @@ def fit_settling(t_s, v, band_v: float | None = None) -> SettlingFit | None:
                        float(np.sqrt(np.mean(resid**2))))
 
 
-def find_steps(t_s, v, sigmas: float = STEP_SIGMAS) -> list[dict]:
+def reading_resolution(v) -> float | None:
+    """The step the readings are rounded to (a meter's or logger's last
+    digit), when they are: the smallest difference between distinct
+    readings, if (nearly) every difference is a whole number of it."""
+    y = np.unique(np.asarray(v, float))
+    if y.size < 3:
+        return None
+    gaps = np.diff(y)
+    q = float(np.min(gaps))
+    if q <= 1e-12 * max(1.0, float(np.max(np.abs(y)))):
+        return None
+    counts = gaps / q
+    return q if float(np.median(np.abs(counts - np.round(counts)))) < 0.05 else None
+
+
+def find_steps(t_s, v, sigmas: float = STEP_SIGMAS, resolution_v: float | None = None) -> list[dict]:
     """Sudden jumps between consecutive readings: a difference that stands
     out from its neighbours' (their median, so smooth drift of any speed
     is not a step) by more than ``sigmas`` times the robust spread of such
-    departures, and by more than a microvolt."""
+    departures, by more than STEP_COUNTS of the readings' resolution
+    (``resolution_v``, else :func:`reading_resolution`: rounded readings
+    with less noise than a count show a spread of 0, and every one-count
+    change would be a step), and by more than a microvolt."""
     y = np.asarray(v, float)
     if y.size < 6:
         return []
@@ -99,7 +119,8 @@ def find_steps(t_s, v, sigmas: float = STEP_SIGMAS) -> list[dict]:
     neighbours = np.median(np.stack([pad[0:-4], pad[1:-3], pad[3:-1], pad[4:]]), axis=0)
     r = d - neighbours
     noise = 1.4826 * float(np.median(np.abs(r - np.median(r))))
-    limit = max(sigmas * noise, 1e-6)
+    q = resolution_v if resolution_v is not None else reading_resolution(y)
+    limit = max(sigmas * noise, STEP_COUNTS * (q or 0.0), 1e-6)
     t = np.asarray(t_s, float)
     return [{"time_s": float(t[i + 1]), "step_v": float(d[i]), "from_v": float(y[i]), "to_v": float(y[i + 1])}
             for i in np.flatnonzero(np.abs(r) > limit)]
@@ -168,15 +189,17 @@ class DriftResult:
 
 
 def analyze_drift(t_s, v, limit_v: float | None = None, band_v: float | None = None, window_s: float = 60.0,
-                  info: dict | None = None, warnings: tuple[str, ...] = (), nominal_v: float = 0.0) -> DriftResult:
+                  info: dict | None = None, warnings: tuple[str, ...] = (), nominal_v: float = 0.0,
+                  resolution_v: float | None = None) -> DriftResult:
     """Figures of a drift log: ``band_v`` (default a tenth of the limit,
     else 1 mV) decides when it has settled; the verdict holds the value
     within ``limit_v`` of ``nominal_v`` (0 for an output offset; the
-    design midpoint for a capacitor-coupled stage)."""
+    design midpoint for a capacitor-coupled stage); ``resolution_v`` is
+    the readings' resolution when known (else read from the data)."""
     t, y = np.asarray(t_s, float), np.asarray(v, float)
     if t.size == 0:
         raise ValueError("an empty drift log")
-    events = find_steps(t, y)
+    events = find_steps(t, y, resolution_v=resolution_v)
     start = 0
     if events:
         start = int(np.searchsorted(t, events[-1]["time_s"]))

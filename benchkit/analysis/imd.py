@@ -126,6 +126,10 @@ class ImdResult:
     scale_source: str = "none"
     load_ohms: float | None = None
     spectrum: tuple[np.ndarray, np.ndarray] | None = field(default=None, compare=False, repr=False)
+    #: orders whose figure lacks a product that could not be read
+    partial_orders: tuple[int, ...] = ()
+    #: the products the method needs that could not be read, with why
+    unmeasured: tuple[str, ...] = ()
 
     @property
     def reference_fs(self) -> float:
@@ -160,7 +164,9 @@ class ImdResult:
             "f1_hz": self.f1_hz, "f2_hz": self.f2_hz, "f1_dbfs": units.dbfs_from_peak(self.a1_fs),
             "f2_dbfs": units.dbfs_from_peak(self.a2_fs), "tone_ratio": self.a1_fs / self.a2_fs,
             "imd_pct": self.imd_pct, "imd_db": self.imd_db,
-            "orders": {str(k): {"pct": units.pct_from_ratio(v), "db": units.db_from_ratio(v)} for k, v in self.orders.items()},
+            "orders": {str(k): {"pct": units.pct_from_ratio(v), "db": units.db_from_ratio(v), "partial": k in self.partial_orders}
+                       for k, v in self.orders.items()},
+            "partial": bool(self.partial_orders), "unmeasured_products": list(self.unmeasured),
             "floor_db": self.floor_db, "peak_fs": self.peak_fs, "clipped": self.clipped, "valid": self.valid,
             "warnings": list(self.warnings), "scale_source": self.scale_source, "volts_per_fs": vpf,
             "load_ohms": self.load_ohms,
@@ -234,7 +240,13 @@ def analyze_imd(samples, sample_rate: float, method: str, f1_hz: float | None = 
     terms += [(m, k) for k in range(-max_order, max_order + 1) for m in range(-max_order, max_order + 1)
               if m and k and 2 <= abs(m) + abs(k) <= max_order and (m * f1 + k * f2) > 0]
     freqs = {t: t[0] * f1 + t[1] * f2 for t in terms}
-    kept = [t for t in terms if LOWEST_HZ <= freqs[t] <= top]
+    # the tones are read wherever they lie (a tone near the band's top sits
+    # on the converters' filter slope: said); the rest only inside the limits
+    kept = [t for t in terms if t in ((1, 0), (0, 1)) or LOWEST_HZ <= freqs[t] <= top]
+    for name, f in (("f1", f1), ("f2", f2)):
+        if f > top:
+            warnings.append(f"{name} ({quantity(f, 'Hz', 5)}) lies above {TOP_FRACTION:g} of the sample rate "
+                            f"({quantity(top, 'Hz', 5)}), where the converters' filters roll off: its level may read low")
     guard = (2 * sp.MAIN_LOBE_BINS + 3) * sample_rate / n
     clear = []
     for t in kept:
@@ -266,9 +278,19 @@ def analyze_imd(samples, sample_rate: float, method: str, f1_hz: float | None = 
         Product(t[0], t[1], freqs[t], float(amp[t]), float(units.db_from_ratio(max(amp[t], 1e-300) / ref)),
                 bool(amp[t] < floor_amp * 10 ** (FLOOR_MARGIN_DB / 20)))
         for t in sorted((t for t in clear if t[0] and t[1]), key=lambda t: (abs(t[0]) + abs(t[1]), freqs[t])))
-    orders = _figures(method, amp, ref, max_order)
+    orders, partial, missing = _figures(method, amp, ref, max_order)
+    unmeasured = []
+    for t in missing:
+        f = freqs.get(t, t[0] * f1 + t[1] * f2)
+        why = ("too close to another component" if t in kept
+               else f"above {TOP_FRACTION:g} of the sample rate" if f > top else f"below {LOWEST_HZ:g} Hz")
+        unmeasured.append(f"{_label(*t)} at {quantity(f, 'Hz', 5)} ({why})")
+    if unmeasured:
+        warnings.append("cannot be measured: " + "; ".join(unmeasured) + (
+            f"; so {', '.join(_order_name(method, k) for k in partial)} {'is' if len(partial) == 1 else 'are'} "
+            "partial (the products there are, only)" if partial else ""))
     if not orders:
-        raise BenchkitError(f"none of the method's products lies inside the record's band (below {top:g} Hz)")
+        raise BenchkitError(f"none of the method's products lies inside the record's band (below {quantity(top, 'Hz', 5)})")
     total = math.sqrt(sum(v * v for v in orders.values()))
     valid = not clipped
     if floor_amp and total * ref < floor_amp * 10 ** (FLOOR_MARGIN_DB / 20):
@@ -280,21 +302,30 @@ def analyze_imd(samples, sample_rate: float, method: str, f1_hz: float | None = 
         trace = (f, units.db_from_power_ratio(np.maximum(pw, 1e-30)))
     return ImdResult(method, float(sample_rate), n, f1, f2, a1, a2, products, orders, total,
                      float(units.db_from_ratio(max(floor_amp, 1e-300) / ref)), peak, clipped, valid, tuple(warnings),
-                     volts_per_fs, scale_source, load_ohms, trace)
+                     volts_per_fs, scale_source, load_ohms, trace, tuple(partial), tuple(unmeasured))
 
 
-def _figures(method: str, amp: dict, ref: float, max_order: int) -> dict:
-    """The method's distortion of each order (ratios)."""
-    out = {}
+def _needs(method: str, max_order: int) -> dict:
+    """The products (m, n) each order of the method's figure is made of."""
     if method == "modulation":
-        for k in range(1, max_order):
-            pair = [amp.get((s * k, 1)) for s in (-1, 1)]
-            if all(a is not None for a in pair):
-                out[k + 1] = float(sum(pair)) / ref
-        return out
-    if (-1, 1) in amp:
-        out[2] = float(amp[(-1, 1)]) / ref
-    pair = [amp.get(t) for t in ((2, -1), (-1, 2))]
-    if any(a is not None for a in pair):
-        out[3] = float(sum(a for a in pair if a is not None)) / ref
-    return out
+        return {k + 1: [(-k, 1), (k, 1)] for k in range(1, max_order)}
+    return {2: [(-1, 1)], 3: [(2, -1), (-1, 2)]}
+
+
+def _order_name(method: str, k: int) -> str:
+    return f"d{k}" if method == "difference" else f"the order-{k} sidebands"
+
+
+def _figures(method: str, amp: dict, ref: float, max_order: int) -> tuple[dict, list[int], list[tuple[int, int]]]:
+    """The method's distortion of each order (ratios: the products of the
+    order summed), the orders with a product that could not be read
+    (partial), and the products missing."""
+    out, partial, missing = {}, [], []
+    for k, terms in _needs(method, max_order).items():
+        got = [amp[t] for t in terms if t in amp]
+        missing += [t for t in terms if t not in amp]
+        if got:
+            out[k] = float(sum(got)) / ref
+            if len(got) < len(terms):
+                partial.append(k)
+    return out, partial, missing

@@ -44,8 +44,12 @@ MIN_PERIODS = 5
 MIN_TONE_PROMINENCE_DB = 30.0
 #: Samples at or above this fraction of full scale may be clipped ones.
 CLIP_LEVEL_FS = 0.99
-#: Consecutive equal samples at the clip level that mark clipping.
+#: Consecutive equal samples at the clip level that mark clipping ...
 CLIP_RUN = 3
+#: ... unless the waveform falls off beside them by no more than this many
+#: quantisation steps over the run's length (a slow sine's rounded peak:
+#: a parabola falls 9 times its plateau's depth over one plateau more).
+PLATEAU_DROP_CODES = 12.0
 #: Harmonic power below this fraction of the noise power reads "below noise".
 _BURIED_RATIO = 1e-2
 #: A harmonic counts (in THD, in the profile) when its power stands at least
@@ -370,6 +374,7 @@ def _analyse_block(
             f"at least {MIN_PERIODS} are needed"
         )
     orders = _harmonic_orders(f0, sample_rate, n, band[1])
+    orders = orders[orders * f0 >= band[0]]  # one band rule: THD and THD+N count the same harmonics
 
     # the residual's windowed spectrum: the record's, less the fitted offset
     # and fundamental (exact kernel), which spares a second FFT
@@ -380,6 +385,12 @@ def _analyse_block(
     rpow[in_band] = sp.power(rspec[in_band])
     pscale = sp.power_scale(n)
     res_power = pscale * float(np.sum(rpow[in_band]))
+    # a harmonic whose main lobe straddles a band edge would count in part:
+    # its lobe's bins inside the band are taken out, and its whole power put
+    # back below (when it counts, lo <= k f0 <= hi)
+    straddling, cut = _straddling(fit.cycles * n, in_band, rspec.size)
+    if straddling.size:
+        res_power -= pscale * float(sum(np.sum(rpow[a:b]) for a, b in cut))
 
     amp_fit, ph_fit = fit.amplitude(), fit.phase_rad()
     amps = np.empty(orders.size)
@@ -393,6 +404,7 @@ def _analyse_block(
         phases[~from_fit] = np.angle(z)
     methods = ["fit" if f else "spectrum" for f in from_fit]
 
+    res_power += 0.5 * float(np.sum(amps[np.isin(orders, straddling)] ** 2))
     floor2 = noise_floor_amp2(rspec, n, fit.cycles * n, orders)
     heard = above_noise(amps, floor2)
     noise_power = _noise_power(rpow, in_band, fit.cycles * n, orders[heard], pscale)
@@ -424,6 +436,17 @@ def _analyse_block(
             block.residual = band_limited(residual, sample_rate, band)
             block.fund_wave = fund
     return block
+
+
+def _straddling(nu1: float, in_band: slice, size: int) -> tuple[np.ndarray, list[tuple[int, int]]]:
+    """The harmonic orders whose main lobe (centre +- MAIN_LOBE_BINS + 1)
+    crosses an edge of the band's bins, and each one's bins inside it."""
+    lobe = sp.MAIN_LOBE_BINS + 1
+    k = np.arange(2, int((size - 1 + lobe) // nu1) + 1)
+    lo, hi = np.ceil(k * nu1 - lobe).astype(int), np.floor(k * nu1 + lobe).astype(int) + 1  # [lo, hi)
+    start, stop = in_band.start, in_band.stop
+    cross = ((lo < start) & (hi > start)) | ((lo < stop) & (hi > stop))
+    return k[cross], [(max(a, start), min(b, stop)) for a, b in zip(lo[cross], hi[cross])]
 
 
 def noise_floor_amp2(rspec: np.ndarray, n: int, nu1: float, orders: np.ndarray) -> np.ndarray:
@@ -536,8 +559,11 @@ def detect_clipping(x: np.ndarray, full_scale: float = 1.0, peak: float | None =
 
     Clipping shows as samples beyond full scale, or as runs of at least
     ``CLIP_RUN`` equal samples at or above ``CLIP_LEVEL_FS`` of it (a flat
-    top). Common practice; a stage that clips below the converter's full
-    scale is distortion to be measured, not a clipped capture.
+    top; common practice) beside which the waveform falls off faster than
+    a rounded smooth peak does (``PLATEAU_DROP_CODES``: a slow sine
+    quantised to 16 bits rests on its top code for several samples). A
+    stage that clips below the converter's full scale is distortion to be
+    measured, not a clipped capture.
 
     Parameters
     ----------
@@ -562,11 +588,25 @@ def detect_clipping(x: np.ndarray, full_scale: float = 1.0, peak: float | None =
         return True, f"{over} samples exceed full scale (peak {peak:.4f} FS): the capture is clipped"
     top = a >= peak - 1e-9 * full_scale
     flat = top[:-1] & top[1:] & (x[:-1] == x[1:])
-    # runs of CLIP_RUN equal samples = CLIP_RUN-1 consecutive equal pairs
-    run = np.convolve(flat.astype(np.int8), np.ones(CLIP_RUN - 1, dtype=np.int8), "valid")
-    runs = int(np.count_nonzero(np.diff(np.concatenate([[0], (run == CLIP_RUN - 1).astype(np.int8)])) == 1))
-    if runs:
-        return True, f"{runs} flat tops at {peak:.4f} FS: the capture is clipped"
+    # runs of equal samples at the peak: where consecutive equal pairs start and stop
+    edges = np.diff(np.concatenate([[0], flat.astype(np.int8), [0]]))
+    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) + 1  # samples [start, stop)
+    long = stops - starts >= CLIP_RUN
+    if not long.any():
+        return False, None
+    # a slow sine's peak, quantised, rests on its top code for a few samples
+    # too; beyond such a plateau it falls off as a parabola, by at most about
+    # 9.5 codes over the plateau's own length (clipping: far more)
+    near = np.unique(a[a >= CLIP_LEVEL_FS * peak])
+    step = float(np.min(np.diff(near))) if near.size > 1 else 0.0
+    flat_tops = 0
+    for i, j in zip(starts[long], stops[long]):
+        n = j - i
+        beside = np.concatenate([a[max(0, i - n) : i], a[j : j + n]])
+        drop = peak - float(np.min(beside)) if beside.size else math.inf
+        flat_tops += not (step > 0 and drop <= PLATEAU_DROP_CODES * step)
+    if flat_tops:
+        return True, f"{flat_tops} flat tops at {peak:.4f} FS: the capture is clipped"
     return False, None
 
 
@@ -780,7 +820,9 @@ def analyze_tone(
         harmonics=harmonics,
         thd_ratio=thd,
         thd_upper_bound=thd_bound,
-        thdn_ratio=math.sqrt(res_power / (p1 / 2.0)),
+        # THD+N holds THD by definition: the residual in the band includes
+        # every harmonic THD counts (a rounding of the reads apart)
+        thdn_ratio=max(math.sqrt(res_power / (p1 / 2.0)), 0.0 if thd_bound else thd),
         noise_rms_fs=math.sqrt(noise_power),
         dc_fs=dc,
         peak_fs=max(xmax, -xmin),

@@ -219,31 +219,56 @@ def power_png(result, path: Path, title: str) -> Path:
     return _save(fig, path)
 
 
+def drift_view(result) -> dict:
+    """What the drift plot shows: the unit (V for a midpoint of volts, mV
+    for an offset), the limit band about the nominal value (not about 0),
+    and the vertical range, scaled to the readings and the fit so that the
+    warm-up shows, whatever the band."""
+    v = np.asarray(result.v, float)
+    shown = [v]
+    if result.fit is not None:
+        shown.append(result.fit.value_at(np.linspace(result.fit.start_s, result.t_s[-1], 50)))
+    allv = np.concatenate(shown)
+    volts = max(float(np.max(np.abs(allv))), abs(result.nominal_v)) >= 1.0
+    unit, scale = ("V", 1.0) if volts else ("mV", 1e3)
+    lo, hi = float(np.min(allv)), float(np.max(allv))
+    pad = max(0.08 * (hi - lo), 1e-6 * max(abs(lo), abs(hi)), 1e-9)
+    band = None
+    if result.limit_v is not None:
+        band = ((result.nominal_v - result.limit_v) * scale, (result.nominal_v + result.limit_v) * scale)
+    return {"unit": unit, "scale": scale, "band": band, "ylim": ((lo - pad) * scale, (hi + pad) * scale)}
+
+
 def drift_png(result, path: Path, title: str) -> Path:
-    """Volts (mV) against time, the settling fit over it, the limit band
-    and the sudden steps marked."""
+    """Volts against time, the settling fit over it, the limit band about
+    the nominal value and the sudden steps marked (:func:`drift_view`)."""
+    view = drift_view(result)
+    k, unit = view["scale"], view["unit"]
     fig = Figure(figsize=(10, 5.2))
     ax = fig.add_subplot(1, 1, 1)
-    t, v = result.t_s, result.v * 1e3
+    t, v = result.t_s, result.v * k
     minutes = t[-1] - t[0] > 600
     scale = 60.0 if minutes else 1.0
     ax.plot(t / scale, v, ".", ms=2.5, color=_TRACE, label="readings")
     if result.fit is not None:
         f = result.fit
         tt = np.linspace(f.start_s, t[-1], 400)
-        ax.plot(tt / scale, f.value_at(tt) * 1e3, color=_MARK, lw=1.2,
-                label=f"first-order fit: {f.final_v * 1e3:.2f} mV, tau {quantity(f.tau_s, 's', 3)}")
+        ax.plot(tt / scale, f.value_at(tt) * k, color=_MARK, lw=1.2,
+                label=f"first-order fit: {quantity(f.final_v, 'V', 5)}, tau {quantity(f.tau_s, 's', 3)}")
         if f.settle_s is not None and f.settle_s <= t[-1]:
             ax.axvline(f.settle_s / scale, color=_MARK, lw=0.7, ls="--")
-    if result.limit_v is not None:
-        lim = result.limit_v * 1e3
-        lo, hi = ax.get_ylim()
-        if -lim > lo or lim < hi:
-            ax.axhspan(-lim, lim, color=_BAND, zorder=0, label=f"limit +-{lim:g} mV")
+    ax.set_ylim(*view["ylim"])
+    if view["band"] is not None:
+        b_lo, b_hi = view["band"]
+        inside = b_lo <= view["ylim"][0] and view["ylim"][1] <= b_hi
+        ax.axhspan(b_lo, b_hi, color=_BAND, zorder=0,
+                   label=f"limit {quantity(result.nominal_v, 'V', 5)} +- {quantity(result.limit_v, 'V')}"
+                   + (" (the whole view lies inside it)" if inside else ""))
     for e in result.events:
         ax.axvline(e["time_s"] / scale, color="#b00020", lw=0.8, ls=":")
     ax.set_xlabel("time (min)" if minutes else "time (s)")
-    ax.set_ylabel("DC (mV)")
+    ax.set_ylabel(f"DC ({unit})")
+    ax.ticklabel_format(axis="y", useOffset=False)
     ax.grid(True, color="#eeeeee", lw=0.5)
     ax.legend(loc="best", fontsize=8, frameon=False)
     verdict = f"; verdict: {result.verdict}" if result.verdict else ""

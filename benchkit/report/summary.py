@@ -292,6 +292,13 @@ def noise_summary(d: dict, title: str = "") -> str:
     return "\n".join(lines)
 
 
+def _order_cell(order: dict | None) -> str:
+    """An order's level; "partial" marks one missing a product, "-" one not measured."""
+    if not order:
+        return "-"
+    return f"{order['db']:.1f}" + (" partial" if order.get("partial") else "")
+
+
 def imd_summary(d: dict, title: str = "") -> str:
     """An intermodulation result (its document): a line a step, then the
     strongest products of the top valid step."""
@@ -307,7 +314,7 @@ def imd_summary(d: dict, title: str = "") -> str:
         mark = "" if s["valid"] else ("   NOT VALID (clipped capture)" if s["clipped"] else "   NOT VALID (see the warnings)")
         drive = "-" if s["drive_dbfs"] is None else f"{s['drive_dbfs']:.2f}"
         lines.append(f"  {drive:>9}   {peak:>13}  {s['imd_pct']:9.4g}  {s['imd_db']:8.2f}  "
-                     f"{(o.get('2') or {}).get('db', float('nan')):10.1f}  {(o.get('3') or {}).get('db', float('nan')):10.1f}{mark}")
+                     f"{_order_cell(o.get('2')):>10}  {_order_cell(o.get('3')):>10}{mark}")
     valid = [s for s in d["steps"] if s["valid"]]
     if valid:
         top = max(valid, key=lambda s: s["drive_dbfs"] or 0.0)
