@@ -197,21 +197,29 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
     freqs = sw.log_grid(*sweep.band_hz)
     got = sw.measure(out, sweep, None if ref.samples is None else ref.samples[start:], freqs=freqs,
                      band_hz=band or (sweep.band_hz[0], 0.45 * rate), amplitude=amplitude)
-    h = got.linear * np.exp(2j * np.pi * freqs * frac / rate)  # the fraction of a sample the start lies late
-    if elsewhere and ref.samples is None:
-        # most likely played and recorded on two clocks
-        mag = np.abs(h)
-        ref_db = resp.level_at(freqs, units.db_from_ratio(mag), reference_hz)
-        low, high = resp.corners(freqs, units.db_from_ratio(mag), ref_db if ref_db is not None else 0.0, 3.0,
-                                 reference_hz)
-        est = sw.clock_offset(freqs, np.angle(h), sweep, max(200.0, 8 * (low or 0.0)),
-                              min(20000.0, 0.5 * (high or math.inf)))
-        if est is not None:
-            info["clock_offset_ppm"], bend = est
-            h = h * np.exp(-1j * bend)
-            if abs(est[0]) > CLOCK_NOTE_PPM:
-                warnings.append(f"the recorder's clock ran {est[0]:+.1f} ppm against the player's: its delay and "
-                                "phase are taken out of the phase (the magnitude is not affected)")
+    late = np.exp(2j * np.pi * freqs * frac / rate)  # the fraction of a sample the start lies late
+    h = got.linear * (late if ref.samples is None else 1.0)  # (referred to an input, it cancels)
+    if elsewhere:
+        # most likely played and recorded on two clocks. A stage's own phase
+        # (a peaking filter, a low-pass) bends just as a clock offset does,
+        # so the offset is read only where no stage can fake it: the
+        # reference input's loopback against the sweep played (the output
+        # is then referred to the reference, which the offset leaves alone)
+        if ref.samples is None:
+            info["clock_offset_ppm"] = None
+            warnings.append("no reference input: a clock offset between the player and the recorder cannot be told "
+                            "from the stage's own phase, so none is estimated and the phase is as measured (two "
+                            "clocks add a delay and a bend to it; wire the loopback to a second input and give "
+                            "--ref-channel to measure the offset)")
+        else:
+            loop = sw.measure(ref.samples[start:], sweep, None, freqs=freqs, band_hz=(sweep.band_hz[0], 0.45 * rate),
+                              amplitude=amplitude).linear * late
+            est = sw.clock_offset(freqs, np.angle(loop), sweep, max(100.0, sweep.band_hz[0] * 4),
+                                  min(20000.0, 0.4 * rate))
+            info["clock_offset_ppm"] = None if est is None else est[0]
+            if est is not None and abs(est[0]) > CLOCK_NOTE_PPM:
+                warnings.append(f"the recorder's clock ran {est[0]:+.1f} ppm against the player's (read from the "
+                                "reference input's loopback); the response, referred to that input, is not affected")
     # steady tones in the quiet before the sweep would pass for harmonics
     quiet = rec.samples[max(0, start - int(QUIET_S * rate)): max(0, start - int(0.02 * rate))]
     lines = sw.steady_lines(quiet, rate)

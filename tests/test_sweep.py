@@ -210,17 +210,22 @@ def test_steady_ripple_is_not_taken_for_distortion():
 # --- offline: a sweep made elsewhere ----------------------------------------------------
 
 
-def _elsewhere(tmp_path, silence: int, ppm: float = 0.0, cut_s: float = 0.0):
+def _elsewhere(tmp_path, silence: int, ppm: float = 0.0, cut_s: float = 0.0, sos=None, loopback: bool = False):
     """The formula's sweep (unit amplitude, no fades) at 48 kHz through a
-    known filter, after ``silence`` samples, written as a bare WAV."""
+    known filter (default a first-order 30 Hz high-pass), after ``silence``
+    samples, written as a bare WAV; with ``loopback``, the sweep itself as
+    a second channel (the reference input), on the same recorder's clock."""
     rate = 48000
     sw = SyncSweep.design(10.0, 22000.0, 6.0, rate, faded=False)
-    sos = ss.butter(1, 30.0, "highpass", fs=rate, output="sos")
-    y = 0.5 * ss.sosfilt(sos, np.concatenate([np.zeros(silence), sw.samples(), np.zeros(rate)]))
+    sos = ss.butter(1, 30.0, "highpass", fs=rate, output="sos") if sos is None else sos
+    played = np.concatenate([np.zeros(silence), sw.samples(), np.zeros(rate)])
+    y = 0.5 * ss.sosfilt(sos, played)
     y += 1e-6 * np.random.default_rng(3).standard_normal(y.size)
+    if loopback:
+        y = np.stack([y, 0.5 * played + 1e-6 * np.random.default_rng(4).standard_normal(y.size)], axis=1)
     if ppm:
         q = Fraction(1 + ppm * 1e-6).limit_denominator(20000)
-        y = ss.resample_poly(y, q.numerator, q.denominator)
+        y = ss.resample_poly(y, q.numerator, q.denominator, axis=0)
     if cut_s:
         y = y[: silence + int((sw.duration_s - cut_s) * rate)]
     path = tmp_path / "elsewhere.wav"
@@ -228,12 +233,14 @@ def _elsewhere(tmp_path, silence: int, ppm: float = 0.0, cut_s: float = 0.0):
     return path, sos, rate
 
 
-@pytest.mark.parametrize("silence, ppm", [(23457, 0.0), (23457, 40.0), (23457, -30.0), (0, 40.0)])
-def test_offline_sweep_after_unknown_silence(tmp_path, silence, ppm):
-    path, sos, rate = _elsewhere(tmp_path, silence=silence, ppm=ppm)
+@pytest.mark.parametrize("silence, ppm, loopback", [(23457, 0.0, False), (23457, 40.0, True), (23457, -30.0, True),
+                                                    (0, 40.0, True), (23457, 0.0, True)])
+def test_offline_sweep_after_unknown_silence(tmp_path, silence, ppm, loopback):
+    path, sos, rate = _elsewhere(tmp_path, silence=silence, ppm=ppm, loopback=loopback)
     # the recorder's clock as resampled: the nearest p/q to 1 + ppm 1e-6
     true_ppm = (float(Fraction(1 + ppm * 1e-6).limit_denominator(20000)) - 1) * 1e6
-    res = run_cli("analyze", str(path), "--sweep", "10:22000:6", "--json", "--out", str(tmp_path / "rep"))
+    res = run_cli("analyze", str(path), "--sweep", "10:22000:6", "--json", "--out", str(tmp_path / "rep"),
+                  *(["--ref-channel", "2"] if loopback else []))
     assert res.returncode == 0, res.stderr
     d = json.loads(res.stdout)
     assert d["kind"] == "response" and d["method"] == "sweep"
@@ -248,11 +255,50 @@ def test_offline_sweep_after_unknown_silence(tmp_path, silence, ppm):
     assert np.max(np.abs(np.array(d["response"]["mag_db"])[sel] - want)) < (0.05 if not ppm else 0.1)
     # circuit theory: the first-order 30 Hz corner, within 1 %
     assert d["low_3db_hz"] == pytest.approx(30.0, rel=0.01) and d["low_corner_fit"]["fits"]
-    # the clock offset is found, and its delay and stretch taken out of the phase
-    assert d["clock_offset_ppm"] == pytest.approx(true_ppm, abs=0.5)
+    # the clock offset is read from the reference's loopback (none without
+    # one), and the response referred to the reference carries none of it
+    if loopback:
+        assert d["clock_offset_ppm"] == pytest.approx(true_ppm, abs=0.5)
+    else:
+        assert d["clock_offset_ppm"] is None and any("no reference input" in w for w in d["warnings"])
     assert np.max(np.abs(np.angle(np.exp(1j * np.radians(np.array(d["response"]["phase_deg"])[sel]))
                                   / (h / np.abs(h)), deg=True))) < 1.0
     assert (tmp_path / "rep" / "elsewhere.response.csv").exists()
+
+
+def _peaking(f0, gain_db, q, rate):
+    """A peaking equaliser biquad (the audio-EQ cookbook's, common practice)."""
+    a = 10 ** (gain_db / 40)
+    w = 2 * math.pi * f0 / rate
+    alpha = math.sin(w) / (2 * q)
+    b = [1 + alpha * a, -2 * math.cos(w), 1 - alpha * a]
+    den = [1 + alpha / a, -2 * math.cos(w), 1 - alpha / a]
+    return ss.tf2sos(b, den)
+
+
+@pytest.mark.parametrize("which", ["peaking", "lowpass"])
+def test_a_stages_own_phase_is_not_taken_for_a_clock_offset(tmp_path, which):
+    # equal clocks, no reference input, a stage whose phase bends (a +6 dB
+    # peak at 3 kHz, Q 2; a second-order 5 kHz low-pass): no offset is made
+    # up, and the phase is the filter's as scipy.signal.sosfreqz gives it,
+    # up to a pure delay (a sweep found after unknown silence fixes the time
+    # only as well as the stage's own delay lets it); a made-up offset's
+    # bend, 2 pi f e L ln(f / f1), is no delay and would show
+    rate = 48000
+    sos = _peaking(3000.0, 6.0, 2.0, rate) if which == "peaking" else ss.butter(2, 5000.0, fs=rate, output="sos")
+    path, sos, rate = _elsewhere(tmp_path, silence=12000, sos=sos)
+    res = run_cli("analyze", str(path), "--sweep", "10:22000:6", "--json", "--ref-freq", "100")
+    assert res.returncode == 0, res.stderr
+    d = json.loads(res.stdout)
+    assert d["clock_offset_ppm"] is None
+    f = np.array(d["response"]["freq_hz"])
+    sel = (f >= 20) & (f <= 19500)
+    _, h = ss.sosfreqz(sos, worN=f[sel], fs=rate)
+    got = np.exp(1j * np.radians(np.array(d["response"]["phase_deg"])[sel]))
+    err = np.unwrap(np.angle(got / (h / np.abs(h))))
+    delay = np.polyfit(2 * np.pi * f[sel], err, 1)[0]
+    assert abs(delay) * rate < 3.0  # samples
+    assert np.max(np.abs(np.degrees(err - 2 * np.pi * f[sel] * delay - np.mean(err - 2 * np.pi * f[sel] * delay)))) < 1.0
 
 
 def test_truncated_sweep_is_a_clear_error(tmp_path):
