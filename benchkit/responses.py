@@ -220,6 +220,19 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
             if est is not None and abs(est[0]) > CLOCK_NOTE_PPM:
                 warnings.append(f"the recorder's clock ran {est[0]:+.1f} ppm against the player's (read from the "
                                 "reference input's loopback); the response, referred to that input, is not affected")
+    # each harmonic's curve starts where the sweep's pace lets it be read;
+    # the response itself is flagged where its start is too close
+    info["harmonic_lowest_hz"] = {str(k): v for k, v in got.lowest_hz.items()}
+    info["response_lowest_hz"] = flat = sw.lowest_flat_hz(sweep)
+    if flat > sweep.band_hz[0] * 1.01:
+        warnings.append(f"below {quantity(flat, 'Hz', 3)}, this close to the sweep's start, the response may read a "
+                        "few tenths of a dB off where it changes fast (a low corner): start the sweep lower or make it "
+                        "longer")
+    first = got.lowest_hz.get(2)
+    if first is not None and first > sweep.band_hz[0] * 1.01:
+        warnings.append("the sweep is too fast to read harmonics at its lowest frequencies: the curves start at "
+                        + ", ".join(f"H{k} {quantity(v, 'Hz', 3)}" for k, v in sorted(got.lowest_hz.items()))
+                        + " (a longer sweep reaches lower)")
     # steady tones in the quiet before the sweep would pass for harmonics
     quiet = rec.samples[max(0, start - int(QUIET_S * rate)): max(0, start - int(0.02 * rate))]
     lines = sw.steady_lines(quiet, rate)

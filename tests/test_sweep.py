@@ -342,3 +342,48 @@ def test_a_sweep_a_dropout_spoiled_is_played_again(tmp_path):
     with pytest.raises(BenchkitError, match="spoiled all 3 takes"):
         response_run(hopeless, tmp_path / "b", -20.0, (20.0, 20000.0), **common)
     assert sorted(p.name for p in (tmp_path / "b").glob("*.spoiled*.wav")) == [f"capture.spoiled{k}.wav" for k in (1, 2, 3)]
+
+
+@pytest.mark.parametrize("f1, f2, seconds", [(10.0, 22000.0, 2.0), (20.0, 20000.0, 2.0), (5.0, 22000.0, 5.0),
+                                             (2.0, 22000.0, 10.0), (15.0, 20000.0, 1.0)])
+def test_sweep_harmonics_in_the_lowest_octaves_are_right_or_absent(f1, f2, seconds):
+    # y = x + a2 x^2 + a3 x^3 on benchkit's own sweep of peak A: H2/H1 =
+    # (a2 A / 2) / (1 + 3 a3 A^2 / 4), H3/H1 = (a3 A^2 / 4) / (1 + 3 a3 A^2 / 4)
+    # (power-reduction identities) at every frequency. A short sweep cannot
+    # read them near its start: those points are blank, from a stated
+    # lowest frequency per order, and every point given is right to 0.5 dB
+    # (up to 7 kHz: above, the cubic's own products alias at 48 kHz)
+    rate, amp, a2, a3 = 48000, 0.5, 0.02, 0.02
+    sw = SyncSweep.design(f1, f2, seconds, rate, faded=True)
+    x = np.concatenate([sw.samples(amp), np.zeros(rate)])
+    got = measure(x + a2 * x * x + a3 * x**3, sw, None, amplitude=amp)
+    gain = 1 + 0.75 * a3 * amp * amp
+    want = {2: 20 * math.log10(a2 * amp / 2 / gain), 3: 20 * math.log10(a3 * amp * amp / 4 / gain)}
+    for k in (2, 3):
+        level = 20 * np.log10(np.abs(got.harmonics[k]))
+        shown = np.isfinite(level)
+        assert np.all(~shown[got.freq_hz < got.lowest_hz[k]])
+        assert shown[(got.freq_hz >= got.lowest_hz[k]) & (k * got.freq_hz <= 0.45 * rate)].all()
+        check = shown & (got.freq_hz <= 7000.0)
+        assert np.max(np.abs(level[check] - want[k])) < 0.5, (k, got.lowest_hz[k])
+    # a longer sweep reaches lower
+    longer = SyncSweep.design(f1, f2, 2 * seconds, rate, faded=True)
+    from benchkit.analysis.sweep import lowest_valid_hz
+    assert lowest_valid_hz(longer, 2) < lowest_valid_hz(sw, 2)
+
+
+def test_the_response_near_the_sweeps_start_is_flagged_where_it_may_be_off():
+    # a first-order 9 Hz high-pass (scipy.signal.butter, evaluated by
+    # sosfreqz) on a 10 s sweep from 2 Hz: above the flagged frequency the
+    # magnitude is the filter's within 0.1 dB
+    from benchkit.analysis.sweep import lowest_flat_hz
+
+    rate = 48000
+    sw = SyncSweep.design(2.0, 22000.0, 10.0, rate, faded=True)
+    sos = ss.butter(1, 9.0, "highpass", fs=rate, output="sos")
+    got = measure(ss.sosfilt(sos, np.concatenate([sw.samples(0.5), np.zeros(2 * rate)])), sw, None, amplitude=0.5)
+    f = got.freq_hz
+    err = 20 * np.log10(np.abs(got.linear) / np.abs(ss.sosfreqz(sos, worN=f, fs=rate)[1]))
+    flat = lowest_flat_hz(sw)
+    assert sw.band_hz[0] < flat < 12.0
+    assert np.max(np.abs(err[(f >= flat) & (f <= 20000)])) < 0.1

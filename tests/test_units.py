@@ -103,3 +103,24 @@ def test_parse_band():
     for bad in ("20", "20000:20", "a:b"):
         with pytest.raises(BenchkitError):
             units.parse_band(bad)
+
+
+@pytest.mark.parametrize("value, unit, text", [
+    (0.0123, "V", "12.3 mV"), (29960.0, "Hz", "29.96 kHz"), (3.279, "mV/min", "3.279 mV/min"),
+    (-0.0032, "V/min", "-3.2 mV/min"), (240.0, "s", "240 s"), (0.015, "s", "15 ms"), (1e-7, "Vrms", "100 nVrms"),
+    (2.5e6, "ohm", "2.5 Mohm"), (-60.0, "dB", "-60 dB"), (12.5, "%", "12.5 %"), (0.0, "W", "0 W"), (None, "V", "-"),
+])
+def test_quantities_print_with_si_prefixes_and_no_exponent(value, unit, text):
+    # the SI prefixes (k = 1e3, m = 1e-3, u = 1e-6, n = 1e-9, M = 1e6; the
+    # SI brochure), four significant digits; a unit given with a prefix
+    # (mV/min) is read back to its base first, so no "mmV" can appear
+    from benchkit.units import quantity
+
+    assert quantity(value, unit) == text
+
+
+def test_counts_agree_with_their_number():
+    from benchkit.units import count
+
+    assert [count(n, "step") for n in (0, 1, 2)] == ["0 steps", "1 step", "2 steps"]
+    assert count(3, "frequency", "frequencies") == "3 frequencies"
