@@ -307,9 +307,9 @@ class SingleEndedClassA(StageModel):
         # nor can it rise past the rail less the pull-up's saturation
         # voltage (a high bias reaches it before its current runs out)
         ceiling = p["rail"] - self.midpoint_v() - p["vsat"]
-        z = (ceiling - load_v) / p["knee"]
-        near = z < 40.0
-        load_v[near] = ceiling - p["knee"] * np.logaddexp(0.0, z[near])
+        near = load_v > ceiling - 20.0 * p["knee"]  # beyond, the knee's term is below 1e-9 of a volt
+        if near.any():
+            load_v[near] = ceiling - p["knee"] * np.logaddexp(0.0, (ceiling - load_v[near]) / p["knee"])
         if p["ripple_mv"]:
             t = self.time_s + np.arange(v_in.size) / rate
             ripple = p["ripple_mv"] * 1e-3 * math.sqrt(2)
