@@ -75,7 +75,8 @@ class ClassABudget:
 
     @property
     def peak_vpk(self) -> float:
-        return min(self.positive_vpk, self.negative_vpk)
+        """The largest clean sine's peak: the positive swing, never above the negative."""
+        return self.positive_vpk
 
     @property
     def max_sine_w(self) -> float:

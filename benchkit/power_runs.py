@@ -23,6 +23,7 @@ import numpy as np
 
 from benchkit.units import quantity
 from benchkit.analysis.power import DEFAULT_LIMITS_PCT, JUMP_SLOPE, ONSET_DB, PowerResult, analyze_power
+from benchkit import units
 from benchkit.budget import ClassABudget
 from benchkit.capture import FAULT_ADVICE, MAX_RETRIES as MAX_RETAKES
 from benchkit.errors import BenchkitError
@@ -194,6 +195,7 @@ class AdaptiveSteps:
         #: steps (by index) a dropout spoiled, reported or heard: each is
         #: played again at its level, up to capture.MAX_RETRIES times
         self.spoiled: set[int] = set()
+        self.spoiled_out = False  # a level spoiled in every take ended the run
         self._faults: list[tuple[int, int]] = []
         self._lock = threading.Lock()
         self.description = {"kind": "stepped-tones", "purpose": "power", "frequency_hz": self.frequency_hz,
@@ -317,6 +319,7 @@ class AdaptiveSteps:
             self.spoiled.add(k)
             takes = sum(1 for i in self.spoiled if self.segments[i].level_dbfs == seg.level_dbfs)
             if takes > MAX_RETAKES:
+                self.spoiled_out = True
                 self.stop(f"dropouts spoiled the {seg.level_dbfs:.2f} dBFS step in all {takes} takes: {FAULT_ADVICE}")
             else:
                 self._schedule(seg.level_dbfs)
@@ -482,7 +485,9 @@ def power_run(
     elif dropped:
         notes.append(f"{dropped} step(s) were cut short ({stim.stop_reason}) and are left out")
     if stim.spoiled:
-        notes.append(f"dropouts spoiled {len(stim.spoiled)} step(s); each was played again and only clean takes are reported")
+        notes.append(f"dropouts spoiled {units.count(len(stim.spoiled), 'take')}, left out"
+                     + ("; the run stopped when one level was spoiled in every take" if stim.spoiled_out
+                        else "; each level was played again and only clean takes are reported"))
     side["warnings"] = notes
     path = write_capture(folder / f"{name}.wav", cap.samples, cap.sample_rate_hz, side)
     partial.unlink(missing_ok=True)

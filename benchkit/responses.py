@@ -228,11 +228,12 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
         warnings.append(f"below {quantity(flat, 'Hz', 3)}, this close to the sweep's start, the response may read a "
                         "few tenths of a dB off where it changes fast (a low corner): start the sweep lower or make it "
                         "longer")
-    first = got.lowest_hz.get(2)
-    if first is not None and first > sweep.band_hz[0] * 1.01:
-        warnings.append("the sweep is too fast to read harmonics at its lowest frequencies: the curves start at "
-                        + ", ".join(f"H{k} {quantity(v, 'Hz', 3)}" for k, v in sorted(got.lowest_hz.items()))
-                        + " (a longer sweep reaches lower)")
+    own = {k: sw.lowest_valid_hz(sweep, k) for k in got.lowest_hz}
+    if own and own[2] > max(sweep.band_hz[0], (band or (0.0,))[0]) * 1.01:
+        longer = sw.paced_by_length(sweep, 2)
+        warnings.append("this close to the sweep's start the harmonics cannot be read: the curves start at "
+                        + ", ".join(f"H{k} {quantity(v, 'Hz', 3)}" for k, v in sorted(own.items()))
+                        + (" (a longer sweep reaches lower)" if longer else " (a lower start frequency reaches lower)"))
     # steady tones in the quiet before the sweep would pass for harmonics
     quiet = rec.samples[max(0, start - int(QUIET_S * rate)): max(0, start - int(0.02 * rate))]
     lines = sw.steady_lines(quiet, rate)
@@ -296,7 +297,7 @@ def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
     if len(freqs) < 2:
         raise BenchkitError(f"{rec.path}: a response needs at least two steps")
     if buried:
-        warnings.append(f"at {buried} frequenc{'y' if buried == 1 else 'ies'} no harmonic stands over the noise: "
+        warnings.append(f"at {units.count(buried, 'frequency', 'frequencies')} no harmonic stands over the noise: "
                         "THD is left blank there")
     f = np.array(freqs)
     order = np.argsort(f)

@@ -366,7 +366,7 @@ def step_fault(cap: capture.Capture, seg, channel: int, tone: bool = True) -> st
         return None
     try:
         heard = analyze_tone(cap.channel(channel)[seg.settled : seg.end], cap.sample_rate_hz,
-                             fundamental_hz=seg.frequency_hz, check_dropouts=True).dropouts_s
+                             fundamental_hz=seg.frequency_hz, bandwidth_hz=None, check_dropouts=True).dropouts_s
     except BenchkitError:
         return None  # nothing to judge by (no tone): the analysis will say so
     return "heard" if heard else None

@@ -64,11 +64,11 @@ def the_run(bench):
 
 
 class GlitchingBench:
-    """The virtual bench whose stream drops 10 ms in the middle of a
-    segment's analysed span (the first, or ``segment``) on the takes named
-    (counted from 1), and says so, as a real interface reports an overflow
-    (or, with ``reported`` false, does not, and input ``channel`` alone
-    shows the gap). A duplex stream skips the
+    """The virtual bench whose stream reports an overflow in the middle of
+    a segment's analysed span (the first, or ``segment``) on the takes
+    named (counted from 1), the samples left whole so that only the report
+    can spoil the take; or, with ``reported`` false, drops 10 ms there on
+    input ``channel`` without a word (an audio server's late client). A duplex stream skips the
     block in and out together: a gap in the recording, no shift after it."""
 
     def __init__(self, bench, glitched, reported: bool = True, segment: int = 0, channel: int = 1):
@@ -87,8 +87,10 @@ class GlitchingBench:
             return raw
         seg = stimulus.segments[self.segment]
         x, mid, gap = raw.samples, (seg.settled + seg.end) // 2, int(0.01 * self.bench.sample_rate_hz)
-        lost = x.copy()
-        lost[mid : mid + gap, self.column if not self.reported else slice(None)] = 0.0
         if not self.reported:  # as an audio server's late client drops a block: without a word
+            lost = x.copy()
+            lost[mid : mid + gap, self.column] = 0.0
             return replace(raw, samples=lost)
-        return replace(raw, samples=lost, fault_frames=(mid,), fault_block=1024, events=(f"frame {mid}: input overflow",))
+        # reported: the stream's word alone must spoil the take (the samples
+        # are left whole, so that nothing else can catch it)
+        return replace(raw, fault_frames=(mid,), fault_block=1024, events=(f"frame {mid}: input overflow",))

@@ -283,11 +283,11 @@ def test_a_dropout_in_an_adaptive_step_is_played_again(tmp_path, monkeypatch, re
             seg = self.segments[2]
             mid = (seg.settled + seg.end) // 2 + self.latency
             if pos <= mid < pos + block.shape[0]:
-                # in place: the recording keeps the gap too
-                block[mid - pos : mid - pos + int(0.01 * self.sample_rate_hz)] = 0.0
                 lost.append(mid)
-                if reported:
+                if reported:  # the stream's word alone (the samples stay whole)
                     self.fault(mid, 256)
+                else:  # in place: the recording keeps the gap too
+                    block[mid - pos : mid - pos + int(0.01 * self.sample_rate_hz)] = 0.0
         heard(self, block, pos)
 
     monkeypatch.setattr(AdaptiveSteps, "listen", listen)

@@ -302,6 +302,15 @@ def read_noise_gain(n: int, bins: np.ndarray, size: int, half_width: int = 3) ->
     return 4.0 * np.einsum("kij,kjl,kli->k", inv, bb, inv) / hh[6]
 
 
+def fit_noise_gain(n: int) -> float:
+    """For white noise: the mean of a least-squares fitted sinusoid's
+    ``|amplitude|^2`` (4 s^2 / n: each quadrature coefficient has variance
+    2 s^2 / n) over the mean power of one bin of the windowed spectrum
+    (s^2 sum w^2 = s^2 n (a0^2 + sum a_m^2 / 2))."""
+    a = np.asarray(WINDOW_COEFFS)
+    return 4.0 / (n * n * (a[0] ** 2 + 0.5 * float(np.sum(a[1:] ** 2))))
+
+
 def band_bins(n: int, sample_rate: float, lo_hz: float, hi_hz: float) -> slice:
     """The rfft bins whose centre frequency lies in [lo_hz, hi_hz]."""
     lo = max(0, int(np.ceil(lo_hz * n / sample_rate - 1e-9)))

@@ -237,10 +237,19 @@ def lowest_valid_hz(sweep: SyncSweep, order: int) -> float:
     be read from this sweep: the harmonic's response has an edge at k f1
     (where the sweep starts), whose ringing the window round it cuts off;
     its frequency k f must stand WINDOW_CYCLES periods of the shorter side
-    of that window above the edge. A faster sweep (a smaller L) has
-    shorter windows and reaches less low."""
+    of that window above the edge. The window is the shorter for a faster
+    sweep (a smaller L), up to 3 / (k f1) before the response: past that,
+    only a lower start reaches lower."""
     before, after = sweep.windows(order)[order - 1]
     return sweep.f1_hz + WINDOW_CYCLES / (order * min(before, after))
+
+
+def paced_by_length(sweep: SyncSweep, order: int) -> bool:
+    """Whether the sweep's pace (not its start: the window before the
+    linear response is capped at 3 / (k f1)) sets the order's window, so
+    that a longer sweep would read it lower."""
+    before, after = sweep.windows(order)[order - 1]
+    return min(before, after) < 3.0 / (order * sweep.f1_hz)
 
 
 def lowest_flat_hz(sweep: SyncSweep) -> float:

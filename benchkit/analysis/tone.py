@@ -390,7 +390,7 @@ def _analyse_block(
     # back below (when it counts, lo <= k f0 <= hi)
     straddling, cut = _straddling(fit.cycles * n, in_band, rspec.size)
     if straddling.size:
-        res_power -= pscale * float(sum(np.sum(rpow[a:b]) for a, b in cut))
+        res_power = max(res_power - pscale * float(np.sum(rpow[cut])), 0.0)
 
     amp_fit, ph_fit = fit.amplitude(), fit.phase_rad()
     amps = np.empty(orders.size)
@@ -405,7 +405,7 @@ def _analyse_block(
     methods = ["fit" if f else "spectrum" for f in from_fit]
 
     res_power += 0.5 * float(np.sum(amps[np.isin(orders, straddling)] ** 2))
-    floor2 = noise_floor_amp2(rspec, n, fit.cycles * n, orders)
+    floor2 = noise_floor_amp2(rspec, n, fit.cycles * n, orders, from_fit)
     heard = above_noise(amps, floor2)
     noise_power = _noise_power(rpow, in_band, fit.cycles * n, orders[heard], pscale)
     if noise_power is None:
@@ -438,18 +438,23 @@ def _analyse_block(
     return block
 
 
-def _straddling(nu1: float, in_band: slice, size: int) -> tuple[np.ndarray, list[tuple[int, int]]]:
+def _straddling(nu1: float, in_band: slice, size: int) -> tuple[np.ndarray, np.ndarray]:
     """The harmonic orders whose main lobe (centre +- MAIN_LOBE_BINS + 1)
-    crosses an edge of the band's bins, and each one's bins inside it."""
+    crosses an edge of the band's bins, and a mask of their bins inside it
+    (each bin once, where close lobes overlap)."""
     lobe = sp.MAIN_LOBE_BINS + 1
     k = np.arange(2, int((size - 1 + lobe) // nu1) + 1)
     lo, hi = np.ceil(k * nu1 - lobe).astype(int), np.floor(k * nu1 + lobe).astype(int) + 1  # [lo, hi)
     start, stop = in_band.start, in_band.stop
     cross = ((lo < start) & (hi > start)) | ((lo < stop) & (hi > stop))
-    return k[cross], [(max(a, start), min(b, stop)) for a, b in zip(lo[cross], hi[cross])]
+    mask = np.zeros(size, dtype=bool)
+    for a, b in zip(lo[cross], hi[cross]):
+        mask[max(a, start) : min(b, stop)] = True
+    return k[cross], mask
 
 
-def noise_floor_amp2(rspec: np.ndarray, n: int, nu1: float, orders: np.ndarray) -> np.ndarray:
+def noise_floor_amp2(rspec: np.ndarray, n: int, nu1: float, orders: np.ndarray,
+                     fitted: np.ndarray | None = None) -> np.ndarray:
     """The mean square amplitude that noise alone gives the read of each
     harmonic (:func:`benchkit.analysis.spectrum.read_components`): the
     median power of the FLOOR_BINS noise bins nearest the harmonic (bins
@@ -457,8 +462,11 @@ def noise_floor_amp2(rspec: np.ndarray, n: int, nu1: float, orders: np.ndarray) 
     ln 2 (the median of an exponential variable, the power of complex
     Gaussian noise in one bin; the median resists a stray line), times what
     the read makes of white noise against one bin
-    (:func:`benchkit.analysis.spectrum.read_noise_gain`). NaN where the
-    harmonics lie too close together to leave noise bins between them."""
+    (:func:`benchkit.analysis.spectrum.read_noise_gain`; for the orders
+    ``fitted`` jointly with the fundamental, what the least-squares fit
+    makes of it, :func:`benchkit.analysis.spectrum.fit_noise_gain`). NaN
+    where the harmonics lie too close together to leave noise bins
+    between them."""
     out = np.full(orders.size, np.nan)
     lobe = sp.MAIN_LOBE_BINS + 1
     if orders.size == 0 or nu1 < 2 * lobe + 2:
@@ -477,7 +485,10 @@ def noise_floor_amp2(rspec: np.ndarray, n: int, nu1: float, orders: np.ndarray) 
     first = np.clip(np.searchsorted(idx, at) - width // 2, 0, idx.size - width)
     pools = power[first[:, None] + np.arange(width)[None, :]]
     # the read's gain varies by under 0.1 % with the fraction of a bin: one will do
-    return np.median(pools, axis=1) / math.log(2.0) * float(sp.read_noise_gain(n, at[:1], size)[0])
+    gain = np.full(orders.size, float(sp.read_noise_gain(n, at[:1], size)[0]))
+    if fitted is not None:
+        gain[fitted] = sp.fit_noise_gain(n)
+    return np.median(pools, axis=1) / math.log(2.0) * gain
 
 
 def over_floor_ratio(k: int) -> float:
@@ -787,11 +798,15 @@ def analyze_tone(
         for i in range(nh)
     )
     thd_bound = False
+    if harmonics and not np.isfinite(floor2).all():
+        warnings.append("the harmonics lie too close together to judge them against the noise between them (a short "
+                        "record for the tone): THD may hold noise")
     if not harmonics:
         warnings.append(f"every harmonic of {quantity(f0, 'Hz', 6)} lies above the band (up to {band[1]:g} Hz): THD is not "
                         "defined and reads as zero")
         thd = 0.0
-    elif heard.any():
+    elif heard.any() or not np.isfinite(floor2[orders <= BOUND_ORDERS]).any():
+        # (with no floor to judge by, every harmonic counts, as it reads)
         thd = math.sqrt(float(np.sum(pk[heard])) / p1)
     else:
         # nothing stands over the noise: THD is below what the first orders

@@ -193,7 +193,7 @@ def power_summary(r, title: str = "") -> str:
         lines.append(f"  supply               {quantity(r.supply_w, 'W', 3)} ({r.supply_v:g} V x {r.supply_a:g} A; all heat at idle){at}")
     elif r.supply_v and any(s.supply_a is not None for s in r.steps):
         metered = [s.supply_a for s in r.steps if s.supply_a is not None]
-        lines.append(f"  supply               {r.supply_v:g} V, {min(metered):.4g} to {quantity(max(metered), 'A', 4)} metered{at}")
+        lines.append(f"  supply               {r.supply_v:g} V, {quantity(min(metered), 'A', 4)} to {quantity(max(metered), 'A', 4)} metered{at}")
     if r.expected:
         e = r.expected
         got = r.onset.power_w if r.onset is not None else None
@@ -221,7 +221,7 @@ def budget_summary(d: dict) -> str:
     lines = [
         f"se-class-a: {d['rail_v']:g} V rail, {d['bias_a']:g} A bias, {d['load_ohms']:g} ohm load, {d['vsat_v']:g} V saturation",
         f"  positive swing      +{quantity(d['positive_swing_vpk'], 'V', 3)} peak "
-        + ("(current-limited: I x R)" if d["current_limited_vpk"] < d["rail_limited_vpk"]
+        + ("(current-limited: I x R)" if d["limiting_half"] == "positive"
            else f"(rail-limited: rail/2 - Vsat; the current would allow +{quantity(d['current_limited_vpk'], 'V', 3)})"),
         f"  negative swing      -{quantity(d['negative_swing_vpk'], 'V', 3)} peak (rail-limited: rail/2 - Vsat)",
         f"  clips first         {_first_half(d['limiting_half'])}",
@@ -376,7 +376,7 @@ def gain_summary(d: dict, title: str = "") -> str:
     """A gain result (its document): the gain with its phase, the levels."""
     lines = [title] if title else []
     phase = "" if d["phase_deg"] is None else f", phase {d['phase_deg']:+.1f} deg" + (" (inverting)" if d["inverting"] else "")
-    lines.append(f"  gain         {quantity(d['gain_vv'], 'V', 4)}/V ({d['gain_db']:+.2f} dB) at {quantity(d['frequency_hz'], 'Hz', 4)}{phase}")
+    lines.append(f"  gain         {quantity(d['gain_vv'], 'V/V', 4)} ({d['gain_db']:+.2f} dB) at {quantity(d['frequency_hz'], 'Hz', 4)}{phase}")
     lines.append(f"  levels       {quantity(d['vin_vrms'], 'Vrms', 4)} in ({d['input_source']}), {quantity(d['vout_vrms'], 'Vrms', 4)} out"
                  + (f" into {d['load_ohms']:g} ohm" if d["load_ohms"] else ""))
     return "\n".join(lines)
