@@ -10,6 +10,7 @@ from __future__ import annotations
 import contextlib
 import functools
 import inspect
+import math
 import os
 import sys
 from pathlib import Path
@@ -525,11 +526,32 @@ def devices(as_json: bool = typer.Option(False, "--json", help="Print the list a
 
 
 
+def _check_live(live: dict) -> None:
+    """The live options' numbers, refused before anything opens or plays:
+    a given gain above all, which sets what the pre-flight expects."""
+    g = live["gain"]
+    if g is not None and not (math.isfinite(g) and g > 0):
+        raise BenchkitError(f"--gain is the stage's voltage gain as a magnitude in V/V, finite and above zero (an "
+                            f"inverting stage by its magnitude; a gain in dB converts as 10^(dB/20): 20 dB is 10), "
+                            f"got {g:g}")
+    for key, flag, low in (("margin", "--margin", 0.0), ("rail", "--rail", None), ("pad_rating", "--pad-rating", None),
+                           ("rate", "--rate", None), ("volts_per_fs", "--volts-per-fs", None)):
+        v = live[key]
+        if v is not None and not (math.isfinite(v) and (v >= low if low is not None else v > 0)):
+            raise BenchkitError(f"{flag} must be a finite number {'of at least ' + format(low, 'g') if low is not None else 'above zero'}, got {v:g}")
+    if not math.isfinite(live["drive_cap"]):
+        raise BenchkitError(f"--drive-cap must be a finite level in dBFS, got {live['drive_cap']:g}")
+    for key, flag in (("in_channel", "--in-channel"), ("out_channel", "--out-channel"), ("blocksize", "--blocksize")):
+        if live[key] < 1:
+            raise BenchkitError(f"{flag} must be 1 or more, got {live[key]}")
+
+
 def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more: dict | None = None):
     """Open the backend a live command asked for, with its profile: says
     on stderr what it uses and warns of an overridden drive cap. ``stereo``
     makes the virtual stage stereo whatever --sim-stereo says; ``more``
     goes to a real interface (further inputs and outputs)."""
+    _check_live(live)
     latency, override_drive_cap, calibration = live["latency"], live["override_drive_cap"], live["calibration"]
     lat: str | float = latency if latency in ("low", "high") else float(units.parse_frequency(latency))
     if override_drive_cap:

@@ -69,9 +69,9 @@ def test_tone_on_the_poly_model(tmp_path):
 
 
 def test_capture_is_on_disk_even_when_analysis_refuses(tmp_path):
-    # a silent stage (its gain given, so no pre-flight probe): the analysis
+    # a silent stage (a gain given, so no pre-flight probe): the analysis
     # finds no tone, but the capture is kept
-    res = run_cli("tone", "--sim", "ideal", "--sim-param", "gain=0", "--gain", "0", "--bench", str(tmp_path / "run"))
+    res = run_cli("tone", "--sim", "ideal", "--sim-param", "gain=0", "--gain", "1", "--bench", str(tmp_path / "run"))
     assert res.returncode != 0 and "Traceback" not in res.stderr
     assert (the_run(tmp_path / "run") / "capture.wav").is_file()
 
@@ -100,6 +100,19 @@ def test_tone_bad_options(tmp_path, args, needle):
     res = run_cli("tone", "--bench", str(tmp_path / "r"), *args)
     assert res.returncode != 0 and "Traceback" not in res.stderr
     assert needle in res.stderr
+
+
+@pytest.mark.parametrize("gain", ["0", "-20", "nan", "inf", "-0.5"])
+def test_a_given_gain_cannot_switch_the_preflight_off(tmp_path, gain):
+    # no pad and -20 dBFS into a gain-10 stage: the pre-flight refuses it
+    # (the top step would reach the input's full scale); a gain of zero, a
+    # negative or a non-number must not make it play: one line, nothing filed
+    base = ["tone", "--sim-pad", "none", "--level", "-20dBFS", "--load", "8", "--bench", str(tmp_path / "r")]
+    assert run_cli(*base).returncode != 0
+    res = run_cli(*base, "--gain", gain)
+    assert res.returncode != 0 and "Traceback" not in res.stderr
+    assert "--gain" in res.stderr and len(res.stderr.strip().splitlines()) == 1, res.stderr
+    assert not list((tmp_path / "r").glob("runs/*/capture.wav"))
 
 
 def test_models_lists_parameters_with_units():
