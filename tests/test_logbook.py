@@ -289,7 +289,7 @@ def test_an_older_catalog_is_migrated_and_a_newer_one_refused(tmp_path):
 
 def test_a_failed_run_keeps_its_capture_and_says_why(tmp_path):
     bench = tmp_path / "bench"
-    res = run_cli("tone", "--sim", "ideal", "--sim-param", "gain=0", "--gain", "0", "--bench", str(bench))
+    res = run_cli("tone", "--sim", "ideal", "--sim-param", "gain=0", "--gain", "1", "--bench", str(bench))
     assert res.returncode == 1
     (run,) = _runs(bench)
     assert run["status"] == "failed" and run["error"] and "capture.wav" in os.listdir(run["folder"])
