@@ -35,7 +35,7 @@ def analyze_crosstalk_capture(path: Path, bandwidth_hz=DEFAULT_BAND_HZ) -> Cross
     except (KeyError, TypeError, ValueError) as exc:
         raise BenchkitError(f"{path}: not a crosstalk capture (its sidecar names no channel wiring)") from exc
     recs = [read_capture(path, ch) for ch in inputs]
-    takes = Takes(recs[0])
+    takes = Takes(*recs)
     scales = [r.channel_scale()[0] for r in recs]
     warnings = list(side.get("warnings") or [])
     if None in scales:

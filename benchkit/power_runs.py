@@ -25,7 +25,7 @@ from benchkit.units import quantity
 from benchkit.analysis.power import DEFAULT_LIMITS_PCT, JUMP_SLOPE, ONSET_DB, PowerResult, analyze_power
 from benchkit import units
 from benchkit.budget import ClassABudget
-from benchkit.capture import FAULT_ADVICE, MAX_RETRIES as MAX_RETAKES
+from benchkit.capture import FAULT_ADVICE, HearsFaults, MAX_RETRIES as MAX_RETAKES
 from benchkit.errors import BenchkitError
 from benchkit.recordings import read_capture
 from benchkit.runs import StepsResult
@@ -151,7 +151,7 @@ class _Growing:
         return self._buf[: self.size][span]
 
 
-class AdaptiveSteps:
+class AdaptiveSteps(HearsFaults):
     """A stepped-level stimulus that listens: each next level is chosen
     by a :class:`LevelPlanner` from the analysis of the step just
     recorded, while the stream runs (silence fills the wait).
@@ -248,12 +248,6 @@ class AdaptiveSteps:
         return out
 
     # --- what a listening backend feeds --------------------------------------
-    def fault(self, pos: int, frames: int) -> None:
-        """The stream reported an over- or underflow in the callback for
-        raw frames [pos, pos + frames): the samples lost lie next to them
-        (called on the audio thread: a list append, nothing more)."""
-        self._faults.append((pos - frames, pos + frames))
-
     def listen(self, block: np.ndarray, pos: int) -> None:
         """Recorded frames ``block`` starting at raw frame ``pos``."""
         if self.finished:

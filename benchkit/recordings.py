@@ -67,9 +67,10 @@ class Takes:
     a step a stream fault spoiled, played again into ``NAME.retryK.wav``
     beside it), each file and channel read once."""
 
-    def __init__(self, rec: Recording):
+    def __init__(self, rec: Recording, *others: Recording):
+        """``others``: more channels of the same capture, already read."""
         self.rec = rec
-        self._read = {(None, rec.channel): rec}
+        self._read = {(None, r.channel): r for r in (rec, *others)}
 
     def step(self, seg: dict, channel: int | None = None) -> np.ndarray:
         """The samples of step ``seg`` (a sidecar segment) on ``channel``

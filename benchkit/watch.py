@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
-from benchkit.capture import FAULT_ADVICE
+from benchkit.capture import FAULT_ADVICE, HearsFaults
 from benchkit.errors import BenchkitError
 
 #: A reading this often (5 a second).
@@ -84,7 +84,7 @@ def block_seconds(frequency_hz: float) -> float:
     return max(MIN_BLOCK_S, PERIODS / frequency_hz)
 
 
-class SteadyTone:
+class SteadyTone(HearsFaults):
     """A tone that ramps in and holds until stopped, analysed as it plays.
 
     ``on_reading(reading)`` is called from the backend's listening thread.
@@ -173,12 +173,6 @@ class SteadyTone:
             self.stop_reason = reason
 
     # --- what a listening backend feeds --------------------------------------
-    def fault(self, pos: int, frames: int) -> None:
-        """The stream reported an over- or underflow in the callback for
-        frames [pos, pos + frames): the samples lost lie next to them.
-        Called on the audio thread (a list append, nothing more)."""
-        self._faults.append((pos - frames, pos + frames))
-
     def listen(self, block: np.ndarray, pos: int) -> None:
         """Recorded frames ``block`` from raw frame ``pos``: a reading once
         a block is full, every ``update_n`` frames, after the ramp."""

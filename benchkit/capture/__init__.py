@@ -126,6 +126,20 @@ def resolve_device(device: str | None) -> str:
     return os.environ.get(DEVICE_ENV, "").strip() or DEFAULT_DEVICE
 
 
+class HearsFaults:
+    """For a stimulus that listens while it plays: the stream's reported
+    faults, as spans of raw frames in ``_faults`` (the stimulus starts
+    that list), to mark what they touched."""
+
+    _faults: list[tuple[int, int]]
+
+    def fault(self, pos: int, frames: int) -> None:
+        """The stream reported an over- or underflow in the callback for
+        raw frames [pos, pos + frames): the samples lost lie next to them.
+        Called on the audio thread (a list append, nothing more)."""
+        self._faults.append((pos - frames, pos + frames))
+
+
 #: Takes of a stimulus that a stream fault spoiled: played again this many times.
 MAX_RETRIES = 2
 #: What to do about stream faults, for the messages that report them.
