@@ -21,6 +21,7 @@ from pathlib import Path
 
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
+from benchkit.jsonfile import load_json, typed
 
 PROFILE_KIND = "calibration-profile"
 PROFILE_VERSION = 1
@@ -105,11 +106,11 @@ def load_profile(path: str | os.PathLike) -> Profile:
     if not p.is_file():
         raise BenchkitError(f"calibration profile {p}: no such file")
     try:
-        doc = json.loads(p.read_text(encoding="utf-8"))
+        doc = load_json(p)
     except (OSError, UnicodeDecodeError) as exc:
         raise BenchkitError(f"calibration profile {p}: cannot read it ({exc.__class__.__name__})") from exc
-    except json.JSONDecodeError as exc:
-        raise BenchkitError(f"calibration profile {p}: not valid JSON (corrupt or cut short at line {exc.lineno})") from exc
+    except ValueError as exc:
+        raise BenchkitError(f"calibration profile {p}: not valid JSON ({exc})") from exc
     if not isinstance(doc, dict) or doc.get("kind") != PROFILE_KIND:
         raise BenchkitError(f"calibration profile {p}: not a benchkit calibration profile")
     version = doc.get("schema_version")
@@ -123,12 +124,9 @@ def load_profile(path: str | os.PathLike) -> Profile:
     missing = [k for k in _REQUIRED if k not in doc]
     if missing:
         raise BenchkitError(f"calibration profile {p}: missing {', '.join(missing)}")
-    fields = {k: doc[k] for k in Profile.__dataclass_fields__ if k in doc}
     try:
-        if fields.get("pad") is not None:
-            fields["pad"] = PadSpec(**fields["pad"])
-        prof = Profile(**fields)
-    except TypeError as exc:
+        prof = typed(Profile, doc)
+    except (TypeError, ValueError) as exc:
         raise BenchkitError(f"calibration profile {p}: damaged ({exc})") from exc
     for name in ("output_vpk_per_fs", "input_vpk_per_fs", "sample_rate_hz"):
         v = getattr(prof, name)

@@ -10,7 +10,6 @@ from __future__ import annotations
 import contextlib
 import functools
 import inspect
-import math
 import os
 import sys
 from pathlib import Path
@@ -19,12 +18,13 @@ from typing import List, Optional
 import typer
 
 from benchkit import __version__, units
+from benchkit import cli_values as V
 from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB
 from benchkit.analysis.tone import SCHEMA_VERSION, analyze_tone
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
 from benchkit.units import quantity
-from benchkit.logbook import CATALOG
+from benchkit.logbook import CATALOG, RUN_COMMANDS, STATUSES
 from benchkit.crosstalk_runs import DEFAULT_FREQS_HZ as DEFAULT_CROSSTALK_FREQS
 from benchkit.zout_runs import DEFAULT_FREQS_HZ as DEFAULT_ZOUT_FREQS
 from benchkit.recordings import read_capture
@@ -37,6 +37,7 @@ app = typer.Typer(
 )
 
 EXIT_BAD_INPUT = 1
+EXIT_USAGE = 2
 EXIT_INTERNAL = 3
 
 
@@ -87,26 +88,26 @@ _SIM_HELP = "Simulated stage for --device virtual: ideal, poly, hard-clip, se-cl
 _LIVE = {
     "device": (Optional[str], lambda: typer.Option(None, "--device", help="'virtual', or a real interface by index or part of its name; default 'virtual' unless BENCHKIT_DEVICE names one.")),
     "in_device": (Optional[str], lambda: typer.Option(None, "--in-device", help="A separate input interface (its clock offset is measured on the reference).")),
-    "in_channel": (int, lambda: typer.Option(1, "--in-channel", help="Input carrying the stage output (through the pad), from 1.")),
-    "out_channel": (int, lambda: typer.Option(1, "--out-channel", help="Output driving the stage, from 1 (real devices).")),
-    "rate": (float, lambda: typer.Option(48000.0, "--rate", help="Sample rate, Hz.")),
-    "blocksize": (int, lambda: typer.Option(1024, "--blocksize", help="Frames per audio callback (real devices).")),
-    "latency": (str, lambda: typer.Option("high", "--latency", help="Stream latency: low, high, or seconds (real devices).")),
-    "drive_cap": (float, lambda: typer.Option(-12.0, "--drive-cap", help="Highest drive a real device may get, dBFS peak.")),
+    "in_channel": (int, lambda: typer.Option(1, "--in-channel", parser=V.CHANNEL, help="Input carrying the stage output (through the pad), from 1.")),
+    "out_channel": (int, lambda: typer.Option(1, "--out-channel", parser=V.CHANNEL, help="Output driving the stage, from 1 (real devices).")),
+    "rate": (float, lambda: typer.Option(48000.0, "--rate", parser=V.RATE, help="Sample rate, Hz.")),
+    "blocksize": (int, lambda: typer.Option(1024, "--blocksize", parser=V.number(16, 16384, integer=True), help="Frames per audio callback (real devices).")),
+    "latency": (str, lambda: typer.Option("high", "--latency", parser=V.LATENCY, help="Stream latency: low, high, or seconds (real devices).")),
+    "drive_cap": (float, lambda: typer.Option(-12.0, "--drive-cap", parser=V.number(-120.0, -0.5, unit="dBFS", hint="more drive needs --override-drive-cap"), help="Highest drive a real device may get, dBFS peak.")),
     "override_drive_cap": (bool, lambda: typer.Option(False, "--override-drive-cap", help="Allow up to -0.5 dBFS on a real device: can overload a stage, a pad or a speaker.")),
-    "volts_per_fs": (Optional[float], lambda: typer.Option(None, "--volts-per-fs", help="Volts peak at the stage per full scale of the input (real devices).")),
+    "volts_per_fs": (Optional[float], lambda: typer.Option(None, "--volts-per-fs", parser=V.VOLTS, help="Volts peak at the stage per full scale of the input (real devices).")),
     "calibration": (Optional[Path], lambda: typer.Option(None, "--calibration", help="Calibration profile (from 'benchkit calibrate'): results in volts at the stage.")),
-    "gain": (Optional[float], lambda: typer.Option(None, "--gain", help="Expected voltage gain of the stage (V/V); without it a low-level step measures it first.")),
-    "margin": (float, lambda: typer.Option(3.0, "--margin", help="Headroom the top step must keep below the input's full scale, dB.")),
-    "rail": (Optional[float], lambda: typer.Option(None, "--rail", help="The stage's supply, V: refuse a pad that lets it overload the input.")),
-    "pad_rating": (Optional[float], lambda: typer.Option(None, "--pad-rating", help="Power rating of the pad resistors, W.")),
+    "gain": (Optional[float], lambda: typer.Option(None, "--gain", parser=V.number(0.0, above=True, unit="V/V", hint="the gain as a magnitude (an inverting stage by its magnitude); a gain in dB converts as 10^(dB/20): 20 dB is 10"), help="Expected voltage gain of the stage (V/V); without it a low-level step measures it first.")),
+    "margin": (float, lambda: typer.Option(3.0, "--margin", parser=V.number(0.0, 40.0, unit="dB"), help="Headroom the top step must keep below the input's full scale, dB.")),
+    "rail": (Optional[float], lambda: typer.Option(None, "--rail", parser=V.VOLTS, help="The stage's supply, V: refuse a pad that lets it overload the input.")),
+    "pad_rating": (Optional[float], lambda: typer.Option(None, "--pad-rating", parser=V.WATTS, help="Power rating of the pad resistors, W.")),
     "btl": (bool, lambda: typer.Option(False, "--btl", help="The stage has a bridged (BTL) output.")),
     "sim": (str, lambda: typer.Option("se-class-a", "--sim", help=_SIM_HELP)),
     "sim_param": (List[str], lambda: typer.Option([], "--sim-param", help="Stage parameter key=value (repeatable), e.g. bias=1.2.")),
-    "sim_pad": (str, lambda: typer.Option("demo", "--sim-pad", help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200).")),
-    "seed": (int, lambda: typer.Option(1, "--seed", help="Seed of the virtual bench (latency, noise).")),
+    "sim_pad": (str, lambda: typer.Option("demo", "--sim-pad", parser=V.SIM_PAD, help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200).")),
+    "seed": (int, lambda: typer.Option(1, "--seed", parser=V.SEED, help="Seed of the virtual bench (latency, noise).")),
     "sim_stereo": (bool, lambda: typer.Option(False, "--sim-stereo", help="The virtual stage is stereo: output 2 drives channel B, read on input 3 (input 4 its reference); --sim-param crosstalk_1k_db, crosstalk_flat_db, balance_db set what couples them.")),
-    "sim_load": (Optional[str], lambda: typer.Option(None, "--sim-load", help="The virtual stage's dummy load: ohms, or 'off' (the pad alone loads it); default the model's own (8 ohm).")),
+    "sim_load": (Optional[str], lambda: typer.Option(None, "--sim-load", parser=V.SIM_LOAD, help="The virtual stage's dummy load: ohms, or 'off' (the pad alone loads it); default the model's own (8 ohm).")),
 }
 
 
@@ -135,23 +136,28 @@ def _option_group(name: str, spec: dict):
 _live_options = _option_group("live", _LIVE)
 
 # how power figures are read from stepped levels (analyze --power, power)
+#: the default measurement band (the analysis narrows it to half a low rate itself)
+_BAND = "20:20000"
+#: the default sweep (past 20 Hz to 20 kHz by its fades)
+_SPAN = "10:22000"
+
 _FIGURES = {
-    "limits": (List[float], lambda: typer.Option(list(DEFAULT_LIMITS_PCT), "--limit", help="Distortion limits, percent (repeatable; the first is the rated point; a power run stops past the highest).")),
-    "metric": (str, lambda: typer.Option("thdn", "--metric", help="What the limits apply to: thdn or thd.")),
-    "onset_db": (float, lambda: typer.Option(ONSET_DB, "--onset-db", help="Clipping onset: THD+N this far over its low-level trend, dB.")),
-    "supply_volts": (Optional[float], lambda: typer.Option(None, "--supply-volts", help="The stage's supply voltage: efficiency and dissipation.")),
-    "supply_amps": (Optional[float], lambda: typer.Option(None, "--supply-amps", help="Its supply current (class A: about the bias).")),
-    "bias": (Optional[float], lambda: typer.Option(None, "--bias", help="Describe the stage (se-class-a, with --rail): its bias, A; shows the expected ceiling.")),
-    "vsat": (float, lambda: typer.Option(1.0, "--vsat", help="Describe the stage: its saturation voltage, V.")),
+    "limits": (List[float], lambda: typer.Option(list(DEFAULT_LIMITS_PCT), "--limit", parser=V.PERCENT, help="Distortion limits, percent (repeatable; the first is the rated point; a power run stops past the highest).")),
+    "metric": (str, lambda: typer.Option("thdn", "--metric", parser=V.one_of("thdn", "thd"), help="What the limits apply to: thdn or thd.")),
+    "onset_db": (float, lambda: typer.Option(ONSET_DB, "--onset-db", parser=V.number(0.0, 40.0, above=True, unit="dB"), help="Clipping onset: THD+N this far over its low-level trend, dB.")),
+    "supply_volts": (Optional[float], lambda: typer.Option(None, "--supply-volts", parser=V.VOLTS, help="The stage's supply voltage: efficiency and dissipation.")),
+    "supply_amps": (Optional[float], lambda: typer.Option(None, "--supply-amps", parser=V.AMPS, help="Its supply current (class A: about the bias).")),
+    "bias": (Optional[float], lambda: typer.Option(None, "--bias", parser=V.AMPS, help="Describe the stage (se-class-a, with --rail): its bias, A; shows the expected ceiling.")),
+    "vsat": (float, lambda: typer.Option(1.0, "--vsat", parser=V.number(0.0, unit="V"), help="Describe the stage: its saturation voltage, V.")),
 }
 _figure_options = _option_group("figures", _FIGURES)
 
 # how a drift log is judged (analyze of a CSV, drift)
 _JUDGE = {
-    "dc_limit": (Optional[float], lambda: typer.Option(None, "--dc-limit", help="Drift: verdict, within this of --nominal, V (e.g. 0.05 for a speaker output's offset, common practice).")),
-    "nominal": (float, lambda: typer.Option(0.0, "--nominal", help="Drift: the value the limit is about, V: 0 for an output offset, the design midpoint (about half the rail) for a capacitor-coupled stage.")),
-    "settle_band": (Optional[float], lambda: typer.Option(None, "--settle-band", help="Drift: settled within this of the final value, V (default: a tenth of --dc-limit, else 1 mV).")),
-    "window": (float, lambda: typer.Option(60.0, "--window", help="Drift: the rate over the last this many seconds.")),
+    "dc_limit": (Optional[float], lambda: typer.Option(None, "--dc-limit", parser=V.VOLTS, help="Drift: verdict, within this of --nominal, V (e.g. 0.05 for a speaker output's offset, common practice).")),
+    "nominal": (float, lambda: typer.Option(0.0, "--nominal", parser=V.number(unit="V"), help="Drift: the value the limit is about, V: 0 for an output offset, the design midpoint (about half the rail) for a capacitor-coupled stage.")),
+    "settle_band": (Optional[float], lambda: typer.Option(None, "--settle-band", parser=V.VOLTS, help="Drift: settled within this of the final value, V (default: a tenth of --dc-limit, else 1 mV).")),
+    "window": (float, lambda: typer.Option(60.0, "--window", parser=V.SESSION_S, help="Drift: the rate over the last this many seconds.")),
 }
 _judge_options = _option_group("judge", _JUDGE)
 
@@ -171,31 +177,31 @@ _bench_options = _option_group("filing", _BENCH)
 @_judge_options
 def analyze(
     files: List[Path] = typer.Argument(..., help="WAV or FLAC captures.", show_default=False),
-    channel: int = typer.Option(1, "--channel", "-c", help="Channel to analyse, numbered from 1."),
+    channel: int = typer.Option(1, "--channel", "-c", parser=V.CHANNEL, help="Channel to analyse, numbered from 1."),
     fundamental: Optional[float] = typer.Option(
-        None, "--fundamental", help="Look for the fundamental near this frequency (Hz); default: the sidecar's, else the strongest line."
+        None, "--fundamental", parser=V.hertz, help="Look for the fundamental near this frequency (Hz); default: the sidecar's, else the strongest line."
     ),
-    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
-    averages: int = typer.Option(1, "--averages", help="Split each capture into N blocks and average."),
+    bandwidth: str = typer.Option(_BAND, "--bandwidth", parser=V.checked(units.parse_band), help="Measurement band LO:HI in Hz, or 'full'."),
+    averages: int = typer.Option(1, "--averages", parser=V.number(1, 1000, integer=True), help="Split each capture into N blocks and average."),
     volts_per_fs: Optional[float] = typer.Option(
-        None, "--volts-per-fs", help="Volts peak at the measured point per full scale (overrides the sidecar)."
+        None, "--volts-per-fs", parser=V.VOLTS, help="Volts peak at the measured point per full scale (overrides the sidecar)."
     ),
-    load: Optional[float] = typer.Option(None, "--load", help="Load resistance in ohms: adds power in W."),
+    load: Optional[float] = typer.Option(None, "--load", parser=V.ohms, help="Load resistance in ohms: adds power in W."),
     calibration: Optional[Path] = typer.Option(None, "--calibration", help="Calibration profile: volts at the stage from its scale and pad."),
-    out: Optional[Path] = typer.Option(None, "--out", help="Write spectrum/residual PNG, CSV and JSON here."),
-    sweep: Optional[str] = typer.Option(None, "--sweep", help="The capture holds a synchronized sweep F1:F2:SECONDS of unit amplitude made elsewhere, after unknown silence."),
-    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Response captures: the reference input (default: the sidecar's)."),
-    ref_freq: float = typer.Option(1000.0, "--ref-freq", help="Response captures: the frequency the level is referred to, Hz."),
-    smooth: Optional[int] = typer.Option(None, "--smooth", help="Response captures: smooth the plotted magnitude over 1/N octave."),
+    out: Optional[Path] = typer.Option(None, "--out", parser=V.out_folder, help="Write spectrum/residual PNG, CSV and JSON here."),
+    sweep: Optional[str] = typer.Option(None, "--sweep", parser=V.checked(units.parse_sweep_spec), help="The capture holds a synchronized sweep F1:F2:SECONDS of unit amplitude made elsewhere, after unknown silence."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Response captures: the reference input (default: the sidecar's)."),
+    ref_freq: float = typer.Option(1000.0, "--ref-freq", parser=V.hertz, help="Response captures: the frequency the level is referred to, Hz."),
+    smooth: Optional[int] = typer.Option(None, "--smooth", parser=V.number(1, 96, integer=True), help="Response captures: smooth the plotted magnitude over 1/N octave."),
     time_col: str = typer.Option("1", "--time-col", help="Drift CSVs: the time column, by name or number from 1 (units in the header are applied)."),
     value_col: str = typer.Option("2", "--value-col", help="Drift CSVs: the value column, by name or number."),
     power: bool = typer.Option(False, "--power", help="Stepped captures: power at the distortion limits, clipping onset and half (needs --load and volts)."),
     voltage_gain: bool = typer.Option(False, "--gain", help="A tone capture benchkit wrote: the stage's voltage gain, over --ref-channel (default: the sidecar's reference input) or the calibrated drive."),
     noise: bool = typer.Option(False, "--noise", help="The capture holds the stage's noise (input terminated): unweighted, A-weighted, hum (benchkit noise captures are recognised)."),
-    zout_load: Optional[float] = typer.Option(None, "--zout", help="Two captures, the stage unloaded then loaded with this many ohms: its output impedance and damping factor (with --open-load, what loaded the 'open' output)."),
-    open_load: Optional[float] = typer.Option(None, "--open-load", help="With --zout: what the pad and input present to the unloaded stage, ohms."),
+    zout_load: Optional[float] = typer.Option(None, "--zout", parser=V.ohms, help="Two captures, the stage unloaded then loaded with this many ohms: its output impedance and damping factor (with --open-load, what loaded the 'open' output)."),
+    open_load: Optional[float] = typer.Option(None, "--open-load", parser=V.ohms, help="With --zout: what the pad and input present to the unloaded stage, ohms."),
     imd_method: Optional[str] = typer.Option(None, "--imd", help="The capture holds a two-tone test made elsewhere: modulation or difference, optionally with its tones, e.g. modulation:50:7000 (benchkit imd captures are recognised)."),
-    rail: Optional[float] = typer.Option(None, "--rail", help="Describe the stage (se-class-a): its rail, V, for the expected ceiling."),
+    rail: Optional[float] = typer.Option(None, "--rail", parser=V.VOLTS, help="Describe the stage (se-class-a): its rail, V, for the expected ceiling."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     figures: dict = None,
     judge: dict = None,
@@ -211,7 +217,7 @@ def analyze(
     """
     try:
         band = units.parse_band(bandwidth)
-        sweep_spec = _parse_sweep(sweep) if sweep else None
+        sweep_spec = units.parse_sweep_spec(sweep) if sweep else None
         profile = load_profile(calibration) if calibration is not None else None
         power_opts = _power_options(power, load, rail, **figures) if power else None
     except BenchkitError as exc:
@@ -313,27 +319,6 @@ def _analyze_drift_file(path: Path, time_col, value_col, out, dc_limit, nominal,
     return result.to_dict()
 
 
-def _parse_tones(text: str) -> tuple[float, float]:
-    """"60:7000" -> (60.0, 7000.0): the two tones of an IMD test."""
-    parts = text.split(":")
-    try:
-        f1, f2 = (float(units.parse_frequency(p)) for p in parts)
-    except (ValueError, BenchkitError):
-        raise BenchkitError(f"the tones are F1:F2 in Hz, e.g. 60:7000, got {text!r}") from None
-    if not 0 < f1 < f2:
-        raise BenchkitError(f"the tones {text!r}: F1 must be positive and below F2")
-    return f1, f2
-
-
-def _parse_sweep(text: str) -> tuple[float, float, float]:
-    parts = text.split(":")
-    try:
-        f1, f2, seconds = (float(units.parse_frequency(p)) for p in parts)
-    except (ValueError, BenchkitError):
-        raise BenchkitError(f"--sweep wants F1:F2:SECONDS, e.g. 20:20000:5, got {text!r}") from None
-    return f1, f2, seconds
-
-
 def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile=None, profile_path=None,
                  response_opts=(None, None, 1000.0, None), power_opts=None, noise=False, voltage_gain=False,
                  imd_method=None) -> dict:
@@ -344,6 +329,8 @@ def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load,
     from benchkit.report import summary
 
     rec = read_capture(path, channel)
+    for w in rec.warnings:  # (an ignored sidecar: the text says so, as the JSON does)
+        _err(f"warning: {path}: {w}")
     if profile is not None and volts_per_fs is None:
         side = dict(rec.sidecar)
         side.setdefault("channels", [])
@@ -453,7 +440,7 @@ def _analyze_imd(rec, imd_method: str | None, volts_per_fs, load, out) -> dict:
         result = analyze_imd_steps(rec, volts_per_fs, load, spectrum=out is not None)
     else:
         method, _sep, tones = imd_method.partition(":")
-        twin = twin_tone(method, *(_parse_tones(tones) if tones else (None, None)))
+        twin = twin_tone(method, *(units.parse_tones(tones) if tones else (None, None)))
         scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
         r = analyze_imd(rec.samples, rec.sample_rate_hz, twin.method, twin.f1_hz, twin.f2_hz, scale, source, load,
                         spectrum=out is not None)
@@ -526,32 +513,30 @@ def devices(as_json: bool = typer.Option(False, "--json", help="Print the list a
 
 
 
-def _check_live(live: dict) -> None:
-    """The live options' numbers, refused before anything opens or plays:
-    a given gain above all, which sets what the pre-flight expects."""
-    g = live["gain"]
-    if g is not None and not (math.isfinite(g) and g > 0):
-        raise BenchkitError(f"--gain is the stage's voltage gain as a magnitude in V/V, finite and above zero (an "
-                            f"inverting stage by its magnitude; a gain in dB converts as 10^(dB/20): 20 dB is 10), "
-                            f"got {g:g}")
-    for key, flag, low in (("margin", "--margin", 0.0), ("rail", "--rail", None), ("pad_rating", "--pad-rating", None),
-                           ("rate", "--rate", None), ("volts_per_fs", "--volts-per-fs", None)):
-        v = live[key]
-        if v is not None and not (math.isfinite(v) and (v >= low if low is not None else v > 0)):
-            raise BenchkitError(f"{flag} must be a finite number {'of at least ' + format(low, 'g') if low is not None else 'above zero'}, got {v:g}")
-    if not math.isfinite(live["drive_cap"]):
-        raise BenchkitError(f"--drive-cap must be a finite level in dBFS, got {live['drive_cap']:g}")
-    for key, flag in (("in_channel", "--in-channel"), ("out_channel", "--out-channel"), ("blocksize", "--blocksize")):
-        if live[key] < 1:
-            raise BenchkitError(f"{flag} must be 1 or more, got {live[key]}")
+def _given_band(text: str, default: str = _BAND) -> tuple[float, ...]:
+    """The band (or span) a command was given, for :func:`_live_setup`'s
+    check: none when it is the default (20 Hz to 20 kHz, or to half the
+    rate below 40 kHz: the analysis narrows it itself)."""
+    band = units.parse_band(text)
+    return () if text == default or band is None else band
 
 
-def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more: dict | None = None):
+def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more: dict | None = None,
+                within: tuple = ()):
     """Open the backend a live command asked for, with its profile: says
     on stderr what it uses and warns of an overridden drive cap. ``stereo``
     makes the virtual stage stereo whatever --sim-stereo says; ``more``
-    goes to a real interface (further inputs and outputs)."""
-    _check_live(live)
+    goes to a real interface (further inputs and outputs). ``within``
+    holds (flag, frequencies) the command plays or analyses: each must lie
+    below half the sample rate. Everything is checked before anything
+    plays: the frequencies, the profile's rate, the channel numbers
+    against the device."""
+    half = live["rate"] / 2
+    for flag, freqs in within:
+        for f in freqs:
+            if f >= half:
+                raise BenchkitError(f"{flag} reaches {f:g} Hz, at or above half the sample rate ({half:g} Hz at "
+                                    f"{live['rate']:g} Hz): lower it, or raise --rate")
     latency, override_drive_cap, calibration = live["latency"], live["override_drive_cap"], live["calibration"]
     lat: str | float = latency if latency in ("low", "high") else float(units.parse_frequency(latency))
     if override_drive_cap:
@@ -563,9 +548,21 @@ def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more:
                 volts_per_fs=live["volts_per_fs"], in_device=live["in_device"], **(more or {}))
     profile = load_profile(calibration) if calibration is not None else None
     if profile is not None:
+        if abs(profile.sample_rate_hz - live["rate"]) > 0.5:
+            raise BenchkitError(f"calibration profile {calibration} was made at {profile.sample_rate_hz:g} Hz, this run "
+                                f"asks for {live['rate']:g} Hz: an interface's scale can differ between rates; "
+                                f"calibrate at {live['rate']:g} Hz, or give --rate {profile.sample_rate_hz:g}")
         real["volts_per_fs"] = profile.stage_volts_per_fs
     backend = _open_backend(live["device"], live["sim"], live["sim_param"], live["sim_pad"], live["seed"], real,
                             stereo or live["sim_stereo"])
+    n_in, n_out = len(backend.inputs()), backend.n_outputs
+    wanted = [("--in-channel", live["in_channel"], n_in, "input"), ("--ref-channel", ref_channel, n_in, "input"),
+              ("--out-channel", live["out_channel"], n_out, "output")]
+    wanted += [("an input", n, n_in, "input") for n in (more or {}).get("more_inputs", ())]
+    wanted += [("an output", n, n_out, "output") for n in (more or {}).get("more_outputs", ())]
+    for flag, number, count, what in wanted:
+        if number is not None and number > count:
+            raise BenchkitError(f"{flag} {number}: {backend.name} has {count} {what}s (numbered from 1)")
     if live["sim_load"] is not None and backend.name == "virtual":
         text = live["sim_load"].strip().lower()
         try:
@@ -653,11 +650,11 @@ def _finish_run(written: list[Path], run, doc: dict, as_json: bool, status: str 
 @_live_options
 @_bench_options
 def tone(
-    frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz (997 Hz keeps harmonics off sub-multiples of the rate)."),
-    levels: List[str] = typer.Option(["-20 dBFS"], "--level", help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms (repeat for steps)."),
-    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: adds power in W."),
-    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
-    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices)."),
+    frequency: float = typer.Option(997.0, "--freq", parser=V.hertz, help="Tone frequency, Hz (997 Hz keeps harmonics off sub-multiples of the rate)."),
+    levels: List[str] = typer.Option(["-20 dBFS"], "--level", parser=V.checked(units.parse_level), help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms (repeat for steps)."),
+    load: Optional[float] = typer.Option(None, "--load", parser=V.ohms, help="Load resistance, ohms: adds power in W."),
+    bandwidth: str = typer.Option(_BAND, "--bandwidth", parser=V.checked(units.parse_band), help="Measurement band LO:HI in Hz, or 'full'."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Input wired straight from the driven output (real devices)."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
     filing: dict = None,
@@ -681,7 +678,7 @@ def tone(
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
-        backend, profile = _live_setup(live, ref_channel)
+        backend, profile = _live_setup(live, ref_channel, within=(("--freq", [frequency]), ("--bandwidth", _given_band(bandwidth))))
         in_channel, calibration = live["in_channel"], live["calibration"]
         preflight = dict(gain=live["gain"], margin_db=live["margin"], rail_v=live["rail"],
                          pad_rating_w=live["pad_rating"], bridged=live["btl"])
@@ -708,18 +705,18 @@ def tone(
 @_live_options
 @_bench_options
 def watch(
-    frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz."),
-    level: str = typer.Option("-20 dBFS", "--level", help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms."),
-    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: adds power in W."),
-    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
-    duration: Optional[float] = typer.Option(None, "--duration", help="Stop after this many seconds (default: until q or Ctrl-C)."),
+    frequency: float = typer.Option(997.0, "--freq", parser=V.hertz, help="Tone frequency, Hz."),
+    level: str = typer.Option("-20 dBFS", "--level", parser=V.checked(units.parse_level), help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms."),
+    load: Optional[float] = typer.Option(None, "--load", parser=V.ohms, help="Load resistance, ohms: adds power in W."),
+    bandwidth: str = typer.Option(_BAND, "--bandwidth", parser=V.checked(units.parse_band), help="Measurement band LO:HI in Hz, or 'full'."),
+    duration: Optional[float] = typer.Option(None, "--duration", parser=V.SESSION_S, help="Stop after this many seconds (default: until q or Ctrl-C)."),
     plain: bool = typer.Option(False, "--plain", help="One plain line a reading on stdout (also when stdout is not a terminal)."),
     json_lines: bool = typer.Option(False, "--json-lines", help="One JSON object a reading on stdout."),
     record: bool = typer.Option(False, "--record", help="Keep the readings as a run in the bench's logbook (readings.csv)."),
     record_audio: bool = typer.Option(False, "--record-audio", help="With --record: keep the raw audio too (audio.wav)."),
     dc_source: Optional[str] = typer.Option(None, "--dc-source", help="Also show DC: meter (SCPI, --dc-resource), input (the measuring input, DC coupled per --calibration) or virtual (the se-class-a midpoint)."),
     dc_resource: Optional[str] = typer.Option(None, "--dc-resource", help="The DC meter's VISA resource."),
-    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices)."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Input wired straight from the driven output (real devices)."),
     live: dict = None,
     filing: dict = None,
 ) -> None:
@@ -746,7 +743,7 @@ def watch(
         if record_audio and not record:
             raise BenchkitError("--record-audio goes with --record")
         band = units.parse_band(bandwidth)
-        backend, profile = _live_setup(live, ref_channel)
+        backend, profile = _live_setup(live, ref_channel, within=(("--freq", [frequency]), ("--bandwidth", _given_band(bandwidth))))
         in_channel, calibration = live["in_channel"], live["calibration"]
         drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
         check_level(drive)
@@ -972,11 +969,11 @@ class _Keys:
 @_live_options
 @_bench_options
 def noise(
-    length: float = typer.Option(5.0, "--length", help="Seconds of noise to record (after half a second of settling)."),
-    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: the SNR is referred to --ref-power into it."),
-    ref_power: float = typer.Option(1.0, "--ref-power", help="With --load: the output power the SNR is referred to, W (1 W is common for small amplifiers; give the rated power to quote that)."),
-    ref_vrms: Optional[float] = typer.Option(None, "--ref-vrms", help="Or refer the SNR to this output, Vrms."),
-    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Band integrated, LO:HI in Hz."),
+    length: float = typer.Option(5.0, "--length", parser=V.seconds(600.0), help="Seconds of noise to record (after half a second of settling)."),
+    load: Optional[float] = typer.Option(None, "--load", parser=V.ohms, help="Load resistance, ohms: the SNR is referred to --ref-power into it."),
+    ref_power: float = typer.Option(1.0, "--ref-power", parser=V.WATTS, help="With --load: the output power the SNR is referred to, W (1 W is common for small amplifiers; give the rated power to quote that)."),
+    ref_vrms: Optional[float] = typer.Option(None, "--ref-vrms", parser=V.VOLTS, help="Or refer the SNR to this output, Vrms."),
+    bandwidth: str = typer.Option(_BAND, "--bandwidth", parser=V.checked(units.parse_band), help="Band integrated, LO:HI in Hz."),
     yes: bool = typer.Option(False, "--yes", help="Do not ask: the stage's input is already terminated (scripted use)."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
@@ -1001,7 +998,7 @@ def noise(
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth) or (20.0, 20000.0)
-        backend, profile = _live_setup(live, None)
+        backend, profile = _live_setup(live, None, within=(("--bandwidth", _given_band(bandwidth)),))
         in_channel, calibration = live["in_channel"], live["calibration"]
         reference_vrms, reference = None, None
         if ref_vrms is not None:
@@ -1025,11 +1022,11 @@ def noise(
 @_live_options
 @_bench_options
 def gain(
-    frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz."),
-    level: str = typer.Option("-30 dBFS", "--level", help="Drive level at the interface output, e.g. -30dBFS or 0.05Vrms."),
-    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired to the stage's input (the virtual bench's is 2); without one, the drive at the calibrated output scale."),
-    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms (recorded with the gain: it depends on it)."),
-    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Measurement band LO:HI in Hz, or 'full'."),
+    frequency: float = typer.Option(997.0, "--freq", parser=V.hertz, help="Tone frequency, Hz."),
+    level: str = typer.Option("-30 dBFS", "--level", parser=V.checked(units.parse_level), help="Drive level at the interface output, e.g. -30dBFS or 0.05Vrms."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Input wired to the stage's input (the virtual bench's is 2); without one, the drive at the calibrated output scale."),
+    load: Optional[float] = typer.Option(None, "--load", parser=V.ohms, help="Load resistance, ohms (recorded with the gain: it depends on it)."),
+    bandwidth: str = typer.Option(_BAND, "--bandwidth", parser=V.checked(units.parse_band), help="Measurement band LO:HI in Hz, or 'full'."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
     filing: dict = None,
@@ -1052,7 +1049,8 @@ def gain(
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
-        backend, profile, ref_channel, drive, plan = _one_level(live, ref_channel, level, frequency, load)
+        backend, profile, ref_channel, drive, plan = _one_level(live, ref_channel, level, frequency, load,
+            within=(("--freq", [frequency]), ("--bandwidth", _given_band(bandwidth))))
         in_channel, calibration = live["in_channel"], live["calibration"]
         params = dict(channel=in_channel, ref_channel=ref_channel, frequency_hz=frequency, level_dbfs=drive,
                       load_ohms=load, bandwidth_hz=band)
@@ -1070,13 +1068,13 @@ def gain(
 @_live_options
 @_bench_options
 def imd(
-    method: str = typer.Option("modulation", "--method", help="modulation: 60 Hz + 7 kHz at 4:1, sidebands of f2 (SMPTE RP120, IEC 60268-3); difference: 19 kHz + 20 kHz at 1:1, products at f2-f1 and 2f1-f2, 2f2-f1 (IEC 60268-3)."),
-    tones: Optional[str] = typer.Option(None, "--tones", help="The pair F1:F2 in Hz instead of the method's, e.g. 50:7000 or 13000:14000."),
-    ratio: Optional[float] = typer.Option(None, "--ratio", help="Amplitude of F1 over F2 instead of the method's (4 or 1)."),
-    levels: List[str] = typer.Option(["-20 dBFS"], "--level", help="Drive, the composite's peak at the interface output, e.g. -20dBFS (repeat for IMD against level)."),
-    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: levels also as the equivalent sine power."),
-    step: float = typer.Option(1.0, "--step", help="Seconds analysed at each level."),
-    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices): the capture is aligned on it."),
+    method: str = typer.Option("modulation", "--method", parser=V.one_of("modulation", "difference"), help="modulation: 60 Hz + 7 kHz at 4:1, sidebands of f2 (SMPTE RP120, IEC 60268-3); difference: 19 kHz + 20 kHz at 1:1, products at f2-f1 and 2f1-f2, 2f2-f1 (IEC 60268-3)."),
+    tones: Optional[str] = typer.Option(None, "--tones", parser=V.checked(units.parse_tones), help="The pair F1:F2 in Hz instead of the method's, e.g. 50:7000 or 13000:14000."),
+    ratio: Optional[float] = typer.Option(None, "--ratio", parser=V.number(0.0, 100.0, above=True), help="Amplitude of F1 over F2 instead of the method's (4 or 1)."),
+    levels: List[str] = typer.Option(["-20 dBFS"], "--level", parser=V.checked(units.parse_level), help="Drive, the composite's peak at the interface output, e.g. -20dBFS (repeat for IMD against level)."),
+    load: Optional[float] = typer.Option(None, "--load", parser=V.ohms, help="Load resistance, ohms: levels also as the equivalent sine power."),
+    step: float = typer.Option(1.0, "--step", parser=V.seconds(60.0), help="Seconds analysed at each level."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Input wired straight from the driven output (real devices): the capture is aligned on it."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
     filing: dict = None,
@@ -1103,8 +1101,8 @@ def imd(
     from benchkit.signals import check_level
 
     with _live_run(), _logbook(filing) as (book, labels):
-        twin = twin_tone(method, *(_parse_tones(tones) if tones else (None, None)), ratio)
-        backend, profile = _live_setup(live, ref_channel)
+        twin = twin_tone(method, *(units.parse_tones(tones) if tones else (None, None)), ratio)
+        backend, profile = _live_setup(live, ref_channel, within=(("--tones", (twin.f1_hz, twin.f2_hz) if tones else ()),))
         in_channel, calibration = live["in_channel"], live["calibration"]
         drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]
         for d in drive:
@@ -1128,11 +1126,11 @@ def imd(
 @_live_options
 @_bench_options
 def zout(
-    load: float = typer.Option(..., "--load", help="The dummy load switched on for the loaded reading, ohms (the damping factor is quoted against it).", show_default=False),
-    freqs: List[float] = typer.Option(list(DEFAULT_ZOUT_FREQS), "--freq", help="Frequencies read, Hz (repeatable)."),
-    level: str = typer.Option("-20 dBFS", "--level", help="Drive level at the interface output, e.g. -20dBFS (the same for both readings)."),
-    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired to the stage's input (the virtual bench's is 2): the readings become complex gains, so a reactive Zout (a coupling capacitor) is read right."),
-    open_load: Optional[float] = typer.Option(None, "--open-load", help="What the pad and input present to the stage while unloaded, ohms (default: from the calibration's pad, or the virtual bench's; else taken as open)."),
+    load: float = typer.Option(..., "--load", parser=V.ohms, help="The dummy load switched on for the loaded reading, ohms (the damping factor is quoted against it).", show_default=False),
+    freqs: List[float] = typer.Option(list(DEFAULT_ZOUT_FREQS), "--freq", parser=V.hertz, help="Frequencies read, Hz (repeatable)."),
+    level: str = typer.Option("-20 dBFS", "--level", parser=V.checked(units.parse_level), help="Drive level at the interface output, e.g. -20dBFS (the same for both readings)."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Input wired to the stage's input (the virtual bench's is 2): the readings become complex gains, so a reactive Zout (a coupling capacitor) is read right."),
+    open_load: Optional[float] = typer.Option(None, "--open-load", parser=V.ohms, help="What the pad and input present to the stage while unloaded, ohms (default: from the calibration's pad, or the virtual bench's; else taken as open)."),
     from_runs: List[str] = typer.Option([], "--from", help="Two logged runs instead of measuring: the unloaded one, then the loaded one (tone, gain or sweep runs)."),
     yes: bool = typer.Option(False, "--yes", help="Do not ask before switching the load (scripted use on a real interface)."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
@@ -1162,7 +1160,8 @@ def zout(
         if from_runs:
             _zout_from_runs(book, labels, from_runs, load, open_load, as_json)
             return
-        backend, profile, ref_channel, drive, plan = _one_level(live, ref_channel, level, 1000.0, load, volts=False)
+        backend, profile, ref_channel, drive, plan = _one_level(live, ref_channel, level, 1000.0, load, volts=False,
+            within=(("--freq", freqs),))
         in_channel, calibration = live["in_channel"], live["calibration"]
         if open_load is None:
             if backend.name == "virtual":
@@ -1213,12 +1212,12 @@ def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optio
 @_live_options
 @_bench_options
 def crosstalk(
-    freqs: List[float] = typer.Option(list(DEFAULT_CROSSTALK_FREQS), "--freq", help="Frequencies read, Hz (repeatable)."),
-    level: str = typer.Option("-20 dBFS", "--level", help="Drive level of the driven channel at the interface output."),
-    in_channel_b: Optional[int] = typer.Option(None, "--in-channel-b", help="Input carrying channel B's output through its pad (default 2; the virtual bench's is 3)."),
-    out_channel_b: int = typer.Option(2, "--out-channel-b", help="Output driving channel B."),
-    load: Optional[float] = typer.Option(None, "--load", help="The load on each channel, ohms (recorded with the result)."),
-    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Band of the driven channel's analysis, LO:HI in Hz."),
+    freqs: List[float] = typer.Option(list(DEFAULT_CROSSTALK_FREQS), "--freq", parser=V.hertz, help="Frequencies read, Hz (repeatable)."),
+    level: str = typer.Option("-20 dBFS", "--level", parser=V.checked(units.parse_level), help="Drive level of the driven channel at the interface output."),
+    in_channel_b: Optional[int] = typer.Option(None, "--in-channel-b", parser=V.CHANNEL, help="Input carrying channel B's output through its pad (default 2; the virtual bench's is 3)."),
+    out_channel_b: int = typer.Option(2, "--out-channel-b", parser=V.CHANNEL, help="Output driving channel B."),
+    load: Optional[float] = typer.Option(None, "--load", parser=V.ohms, help="The load on each channel, ohms (recorded with the result)."),
+    bandwidth: str = typer.Option(_BAND, "--bandwidth", parser=V.checked(units.parse_band), help="Band of the driven channel's analysis, LO:HI in Hz."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
     filing: dict = None,
@@ -1246,7 +1245,8 @@ def crosstalk(
         in_a, out_a = live["in_channel"], live["out_channel"]
         real_b = in_channel_b or 2
         backend, profile, _ref, drive, plan = _one_level(live, None, level, 1000.0, load, volts=False, stereo=True,
-                                                         more=dict(more_inputs=(real_b,), more_outputs=(out_channel_b,)))
+                                                         more=dict(more_inputs=(real_b,), more_outputs=(out_channel_b,)),
+                                                         within=(("--freq", freqs), ("--bandwidth", _given_band(bandwidth))))
         calibration = live["calibration"]
         if backend.name == "virtual":
             inputs, outputs = (1, in_channel_b or 3), (1, 2)
@@ -1294,17 +1294,17 @@ def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: fl
 @_live_options
 @_bench_options
 def sweep(
-    span: str = typer.Option("10:22000", "--span", help="Frequencies F1:F2 in Hz (the response is reported past the fades)."),
-    length: float = typer.Option(5.0, "--length", help="Sweep length, seconds (rounded so its harmonics line up)."),
-    level: str = typer.Option("-20 dBFS", "--level", help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms."),
+    span: str = typer.Option(_SPAN, "--span", parser=V.checked(units.parse_band), help="Frequencies F1:F2 in Hz (the response is reported past the fades)."),
+    length: float = typer.Option(5.0, "--length", parser=V.seconds(120.0), help="Sweep length, seconds (rounded so its harmonics line up)."),
+    level: str = typer.Option("-20 dBFS", "--level", parser=V.checked(units.parse_level), help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms."),
     stepped: bool = typer.Option(False, "--stepped", help="Stepped sines instead of a sweep: slower, the reference method, with THD+N."),
-    per_octave: int = typer.Option(3, "--per-octave", help="Stepped sines: frequencies per octave over the span."),
-    freqs: List[float] = typer.Option([], "--at", help="Stepped sines at these frequencies, Hz (repeatable) instead."),
-    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output: response = output / reference (the virtual bench's is 2)."),
-    ref_freq: float = typer.Option(1000.0, "--ref-freq", help="Frequency whose level the response is referred to without volts, Hz."),
-    load: Optional[float] = typer.Option(None, "--load", help="Load resistance, ohms: estimates the coupling capacitor."),
-    bandwidth: str = typer.Option("20:20000", "--bandwidth", help="Band for ripple and harmonics LO:HI in Hz, or 'full'."),
-    smooth: Optional[int] = typer.Option(None, "--smooth", help="Smooth the plotted magnitude over 1/N octave (CSV and JSON stay raw)."),
+    per_octave: int = typer.Option(3, "--per-octave", parser=V.number(1, 48, integer=True), help="Stepped sines: frequencies per octave over the span."),
+    freqs: List[float] = typer.Option([], "--at", parser=V.hertz, help="Stepped sines at these frequencies, Hz (repeatable) instead."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Input wired straight from the driven output: response = output / reference (the virtual bench's is 2)."),
+    ref_freq: float = typer.Option(1000.0, "--ref-freq", parser=V.hertz, help="Frequency whose level the response is referred to without volts, Hz."),
+    load: Optional[float] = typer.Option(None, "--load", parser=V.ohms, help="Load resistance, ohms: estimates the coupling capacitor."),
+    bandwidth: str = typer.Option(_BAND, "--bandwidth", parser=V.checked(units.parse_band), help="Band for ripple and harmonics LO:HI in Hz, or 'full'."),
+    smooth: Optional[int] = typer.Option(None, "--smooth", parser=V.number(1, 96, integer=True), help="Smooth the plotted magnitude over 1/N octave (CSV and JSON stay raw)."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
     filing: dict = None,
@@ -1330,7 +1330,8 @@ def sweep(
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
         f1, f2 = units.parse_band(span) or (0.0, 0.0)
-        backend, profile = _live_setup(live, ref_channel)
+        backend, profile = _live_setup(live, ref_channel,
+            within=(("--span", _given_band(span, _SPAN)), ("--at", freqs), ("--bandwidth", _given_band(bandwidth))))
         in_channel, calibration = live["in_channel"], live["calibration"]
         preflight = dict(gain=live["gain"], margin_db=live["margin"], rail_v=live["rail"],
                          pad_rating_w=live["pad_rating"], bridged=live["btl"])
@@ -1360,17 +1361,17 @@ def sweep(
 @_figure_options
 @_bench_options
 def power(
-    load: float = typer.Option(..., "--load", help="Load resistance, ohms (a dummy load of the right rating)."),
-    frequency: float = typer.Option(997.0, "--freq", help="Tone frequency, Hz."),
-    start: Optional[float] = typer.Option(None, "--start", help="First drive level, dBFS (default: 40 dB below the expected maximum)."),
-    step_db: float = typer.Option(1.0, "--step-db", help="Step while THD+N rises slowly, dB (a quarter of it once it rises fast)."),
-    fine_db: float = typer.Option(0.1, "--fine-db", help="Bisect until each limit lies between steps this close, dB."),
+    load: float = typer.Option(..., "--load", parser=V.ohms, help="Load resistance, ohms (a dummy load of the right rating)."),
+    frequency: float = typer.Option(997.0, "--freq", parser=V.hertz, help="Tone frequency, Hz."),
+    start: Optional[float] = typer.Option(None, "--start", parser=V.number(-120.0, 0.0, unit="dBFS"), help="First drive level, dBFS (default: 40 dB below the expected maximum)."),
+    step_db: float = typer.Option(1.0, "--step-db", parser=V.number(0.0, 6.0, above=True, unit="dB"), help="Step while THD+N rises slowly, dB (a quarter of it once it rises fast)."),
+    fine_db: float = typer.Option(0.1, "--fine-db", parser=V.number(0.0, 6.0, above=True, unit="dB"), help="Bisect until each limit lies between steps this close, dB."),
     supply_meter: Optional[str] = typer.Option(None, "--supply-meter", help="A meter reading the supply's DC current (VISA resource), read during every step; needs --supply-volts."),
-    rated_power: Optional[float] = typer.Option(None, "--rated-power", help="The claimed power, W: say whether the power at the first limit reaches it."),
+    rated_power: Optional[float] = typer.Option(None, "--rated-power", parser=V.WATTS, help="The claimed power, W: say whether the power at the first limit reaches it."),
     precondition_run: bool = typer.Option(False, "--precondition", help="First hold 1/8 of --rated-power for an hour (16 CFR 432 manner)."),
-    precondition_s: Optional[float] = typer.Option(None, "--precondition-s", help="Shorten (or lengthen) the preconditioning, seconds: the report says so."),
-    channels: int = typer.Option(1, "--channels", help="How many channels the amplifier has (benchkit drives one; the report says so)."),
-    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Input wired straight from the driven output (real devices)."),
+    precondition_s: Optional[float] = typer.Option(None, "--precondition-s", parser=V.number(0.0, 7200.0, unit="s"), help="Shorten (or lengthen) the preconditioning, seconds: the report says so."),
+    channels: int = typer.Option(1, "--channels", parser=V.number(1, 64, integer=True), help="How many channels the amplifier has (benchkit drives one; the report says so)."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Input wired straight from the driven output (real devices)."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
     figures: dict = None,
@@ -1397,15 +1398,13 @@ def power(
 
     with _live_run(), _logbook(filing) as (book, labels):
         opts = _power_options(True, load, live["rail"], **figures)
-        if step_db <= 0 or fine_db <= 0:
-            raise BenchkitError("--step-db and --fine-db must be positive")
         if supply_meter and figures["supply_volts"] is None:
             raise BenchkitError("--supply-meter needs --supply-volts (efficiency is P / (V I))")
         if precondition_run and rated_power is None:
             raise BenchkitError("--precondition needs --rated-power (it holds 1/8 of it)")
         if precondition_s is not None and not precondition_run:
             raise BenchkitError("--precondition-s goes with --precondition")
-        backend, profile = _live_setup(live, ref_channel)
+        backend, profile = _live_setup(live, ref_channel, within=(("--freq", [frequency]),))
         in_channel, calibration = live["in_channel"], live["calibration"]
         if ref_channel is None and backend.name == "virtual":
             ref_channel = backend.reference_input()
@@ -1475,10 +1474,10 @@ def drift(
     source: str = typer.Option("virtual", "--source", help="virtual (the se-class-a midpoint, accelerated), meter (SCPI over pyvisa) or interface (a DC-coupled input)."),
     resource: Optional[str] = typer.Option(None, "--resource", help="The meter's VISA resource, e.g. TCPIP::192.168.1.50::5025::SOCKET or ASRL/dev/ttyUSB0::INSTR."),
     current_resource: Optional[str] = typer.Option(None, "--current-resource", help="A second meter reading the supply's DC current, logged beside the volts."),
-    interval: float = typer.Option(1.0, "--interval", help="Seconds between readings."),
-    duration: Optional[float] = typer.Option(None, "--duration", help="Log this long, seconds."),
+    interval: float = typer.Option(1.0, "--interval", parser=V.seconds(3600.0), help="Seconds between readings."),
+    duration: Optional[float] = typer.Option(None, "--duration", parser=V.SESSION_S, help="Log this long, seconds."),
     until_settled: bool = typer.Option(False, "--until-settled", help="Stop once settled within --settle-band."),
-    accelerate: float = typer.Option(60.0, "--accelerate", help="Virtual source: model seconds per second of interval."),
+    accelerate: float = typer.Option(60.0, "--accelerate", parser=V.number(0.0, 1e6, above=True), help="Virtual source: model seconds per second of interval."),
     device: Optional[str] = _LIVE["device"][1](),
     in_channel: int = _LIVE["in_channel"][1](),
     calibration: Optional[Path] = _LIVE["calibration"][1](),
@@ -1552,21 +1551,21 @@ def drift(
 
 @app.command()
 def calibrate(
-    out: Path = typer.Option(..., "--out", help="Where to write the profile (JSON)."),
-    reading: Optional[str] = typer.Option(None, "--reading", help="Voltmeter reading at the output jack while the calibration tone plays, e.g. 0.1414V (Vrms)."),
-    level: str = typer.Option("-20 dBFS", "--level", help="Level of the calibration tone, dBFS."),
-    voltmeter_pct: float = typer.Option(1.0, "--voltmeter-pct", help="Voltmeter accuracy at the tone's frequency, +-%."),
-    pad: Optional[str] = typer.Option(None, "--pad", help="The pad's resistors R1:R2 in ohms (e.g. 1.8k:200)."),
-    input_ohms: float = typer.Option(10e3, "--input-ohms", help="The interface input's impedance, ohms (loads the pad)."),
+    out: Path = typer.Option(..., "--out", parser=V.out_file, help="Where to write the profile (JSON)."),
+    reading: Optional[str] = typer.Option(None, "--reading", parser=V.checked(units.parse_level), help="Voltmeter reading at the output jack while the calibration tone plays, e.g. 0.1414V (Vrms)."),
+    level: str = typer.Option("-20 dBFS", "--level", parser=V.checked(units.parse_level), help="Level of the calibration tone, dBFS."),
+    voltmeter_pct: float = typer.Option(1.0, "--voltmeter-pct", parser=V.number(0.0, 50.0, unit="%"), help="Voltmeter accuracy at the tone's frequency, +-%."),
+    pad: Optional[str] = typer.Option(None, "--pad", parser=V.PAD, help="The pad's resistors R1:R2 in ohms (e.g. 1.8k:200)."),
+    input_ohms: float = typer.Option(10e3, "--input-ohms", parser=V.ohms, help="The interface input's impedance, ohms (loads the pad)."),
     measure_pad: bool = typer.Option(False, "--measure-pad", help="Measure the pad's ratio with the pad in place instead."),
     note: str = typer.Option("", "--note", help="Free note kept in the profile."),
     yes: bool = typer.Option(False, "--yes", help="Do not ask for the wiring: the output is already looped to the input (scripted use)."),
     device: Optional[str] = typer.Option(None, "--device", help="'virtual', or a real interface by index or part of its name."),
-    in_channel: int = typer.Option(1, "--in-channel", help="Input to calibrate, from 1."),
-    out_channel: int = typer.Option(1, "--out-channel", help="Output to calibrate, from 1."),
-    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", help="Loopback reference input, if wired."),
-    rate: float = typer.Option(48000.0, "--rate", help="Sample rate, Hz."),
-    seed: int = typer.Option(1, "--seed", help="Seed of the virtual bench."),
+    in_channel: int = typer.Option(1, "--in-channel", parser=V.CHANNEL, help="Input to calibrate, from 1."),
+    out_channel: int = typer.Option(1, "--out-channel", parser=V.CHANNEL, help="Output to calibrate, from 1."),
+    ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Loopback reference input, if wired."),
+    rate: float = typer.Option(48000.0, "--rate", parser=V.RATE, help="Sample rate, Hz."),
+    seed: int = typer.Option(1, "--seed", parser=V.SEED, help="Seed of the virtual bench."),
 ) -> None:
     """Calibrate an interface: output and input scale, pad, floor, response, polarity, DC coupling.
 
@@ -1650,14 +1649,14 @@ def _ask_reading(backend, level_dbfs: float) -> float:
 
 @app.command()
 def pad(
-    stage_vpk: Optional[float] = typer.Option(None, "--stage-vpk", help="Highest voltage the stage can produce at its output, volts peak."),
-    rail: Optional[float] = typer.Option(None, "--rail", help="Or its supply rail, volts: the worst case taken as the whole rail (a failed stage can put it there)."),
-    input_fs_vpk: float = typer.Option(2.0, "--input-fs", help="The interface input's full scale, volts peak."),
-    input_ohms: float = typer.Option(10e3, "--input-ohms", help="The interface input's impedance, ohms."),
-    headroom_db: float = typer.Option(6.0, "--headroom", help="How far below full scale the worst case must land, dB."),
-    series: str = typer.Option("E24", "--series", help="Preferred values: E12, E24 or E96 (IEC 60063)."),
-    input_noise_dbfs: float = typer.Option(-110.0, "--input-noise", help="The input's own noise floor, dBFS, to refer to the stage."),
-    check: Optional[List[str]] = typer.Option(None, "--check", help="Judge a pad you have: --check R1 --check R2 (ohms, k/M allowed)."),
+    stage_vpk: Optional[float] = typer.Option(None, "--stage-vpk", parser=V.VOLTS, help="Highest voltage the stage can produce at its output, volts peak."),
+    rail: Optional[float] = typer.Option(None, "--rail", parser=V.VOLTS, help="Or its supply rail, volts: the worst case taken as the whole rail (a failed stage can put it there)."),
+    input_fs_vpk: float = typer.Option(2.0, "--input-fs", parser=V.VOLTS, help="The interface input's full scale, volts peak."),
+    input_ohms: float = typer.Option(10e3, "--input-ohms", parser=V.ohms, help="The interface input's impedance, ohms."),
+    headroom_db: float = typer.Option(6.0, "--headroom", parser=V.number(0.0, 60.0, unit="dB"), help="How far below full scale the worst case must land, dB."),
+    series: str = typer.Option("E24", "--series", parser=V.one_of("e12", "e24", "e96"), help="Preferred values: E12, E24 or E96 (IEC 60063)."),
+    input_noise_dbfs: float = typer.Option(-110.0, "--input-noise", parser=V.number(-200.0, 0.0, unit="dBFS"), help="The input's own noise floor, dBFS, to refer to the stage."),
+    check: Optional[List[str]] = typer.Option(None, "--check", parser=V.ohms, help="Judge a pad you have: --check R1 --check R2 (ohms, k/M allowed)."),
     as_json: bool = typer.Option(False, "--json", help="Print the pads as JSON on stdout."),
 ) -> None:
     """Design an attenuator pad for the stage's output, or check one you have.
@@ -1714,13 +1713,13 @@ def pad(
 
 @app.command()
 def budget(
-    rail: float = typer.Option(..., "--rail", help="Supply rail, V."),
-    bias: float = typer.Option(..., "--bias", help="Bias current of the constant-current pull-up, A."),
-    vsat: float = typer.Option(1.0, "--vsat", help="Saturation voltage at the negative swing, V."),
-    load: float = typer.Option(8.0, "--load", help="Load resistance, ohms."),
-    target_power: Optional[float] = typer.Option(None, "--target-power", help="Power wanted into the load, W: the bias and rail it needs."),
-    limit_current: Optional[float] = typer.Option(None, "--limit-current", help="Current a base-emitter limiter should hold, A: its sense resistor."),
-    vbe: float = typer.Option(0.65, "--vbe", help="The limiter transistor's V_BE, V (about 0.6-0.7 V, falling about 2 mV per degC)."),
+    rail: float = typer.Option(..., "--rail", parser=V.VOLTS, help="Supply rail, V."),
+    bias: float = typer.Option(..., "--bias", parser=V.AMPS, help="Bias current of the constant-current pull-up, A."),
+    vsat: float = typer.Option(1.0, "--vsat", parser=V.number(0.0, unit="V"), help="Saturation voltage at the negative swing, V."),
+    load: float = typer.Option(8.0, "--load", parser=V.ohms, help="Load resistance, ohms."),
+    target_power: Optional[float] = typer.Option(None, "--target-power", parser=V.WATTS, help="Power wanted into the load, W: the bias and rail it needs."),
+    limit_current: Optional[float] = typer.Option(None, "--limit-current", parser=V.AMPS, help="Current a base-emitter limiter should hold, A: its sense resistor."),
+    vbe: float = typer.Option(0.65, "--vbe", parser=V.number(0.0, 2.0, above=True, unit="V"), help="The limiter transistor's V_BE, V (about 0.6-0.7 V, falling about 2 mV per degC)."),
     as_json: bool = typer.Option(False, "--json", help="Print the budget as JSON on stdout."),
 ) -> None:
     """Expected ceilings of a single-ended class-A stage from its design numbers.
@@ -1753,8 +1752,8 @@ def budget(
 
 @app.command()
 def demo(
-    out: Path = typer.Option(Path("benchkit-demo"), "--out", help="The demo's bench folder: its runs, logbook, comparisons and summary."),
-    seed: int = typer.Option(1, "--seed", help="Seed of the virtual bench."),
+    out: Path = typer.Option(Path("benchkit-demo"), "--out", parser=V.out_folder, help="The demo's bench folder: its runs, logbook, comparisons and summary."),
+    seed: int = typer.Option(1, "--seed", parser=V.SEED, help="Seed of the virtual bench."),
 ) -> None:
     """Run the demo on the virtual bench: Test stage B-2 at 0.8 A and 1.2 A bias, compared.
 
@@ -1847,11 +1846,11 @@ def _headline_text(entry) -> str:
 @log_app.command("list")
 def log_list(
     tags: List[str] = typer.Option([], "--tag", help="Only runs with this tag, key=value (repeatable: all must match)."),
-    command: Optional[str] = typer.Option(None, "--command", help="Only runs of this command: tone, imd, sweep, power, gain, noise, zout, crosstalk, drift, watch."),
-    since: Optional[str] = typer.Option(None, "--since", help="Only runs started on or after this date (YYYY-MM-DD) or time."),
-    until: Optional[str] = typer.Option(None, "--until", help="Only runs started on or before this date or time."),
-    status: Optional[str] = typer.Option(None, "--status", help="Only runs in this state: complete, interrupted, failed, incomplete, running."),
-    limit: Optional[int] = typer.Option(None, "--limit", help="At most this many (the newest)."),
+    command: Optional[str] = typer.Option(None, "--command", parser=V.one_of(*RUN_COMMANDS), help="Only runs of this command: tone, imd, sweep, power, gain, noise, zout, crosstalk, drift, watch."),
+    since: Optional[str] = typer.Option(None, "--since", parser=V.when, help="Only runs started on or after this date (YYYY-MM-DD) or time."),
+    until: Optional[str] = typer.Option(None, "--until", parser=V.when, help="Only runs started on or before this date or time."),
+    status: Optional[str] = typer.Option(None, "--status", parser=V.one_of(*STATUSES), help="Only runs in this state: complete, interrupted, failed, incomplete, running."),
+    limit: Optional[int] = typer.Option(None, "--limit", parser=V.COUNT, help="At most this many (the newest)."),
     bench: Optional[Path] = _bench_option(),
     as_json: bool = typer.Option(False, "--json", help="Print the runs as JSON on stdout."),
 ) -> None:
@@ -1962,7 +1961,7 @@ def log_tag(
 
 @log_app.command("export")
 def log_export(
-    out: Optional[Path] = typer.Option(None, "--out", help="Write the CSV here (default: stdout)."),
+    out: Optional[Path] = typer.Option(None, "--out", parser=V.out_file, help="Write the CSV here (default: stdout)."),
     bench: Optional[Path] = _bench_option(),
 ) -> None:
     """Export the catalog as CSV: a row a run, its tags and headline figures in columns.
@@ -2063,10 +2062,10 @@ def log_remove(
 @app.command()
 def compare(
     runs: List[str] = typer.Argument(None, help="Runs to compare (ids, unique starts, 'last', 'last-N'); the first is the baseline."),
-    last: Optional[int] = typer.Option(None, "--last", help="Compare the newest N complete runs (of --command, else of the newest run's command), oldest first."),
-    command: Optional[str] = typer.Option(None, "--command", help="With --last: of this command."),
+    last: Optional[int] = typer.Option(None, "--last", parser=V.number(2, 10000, integer=True), help="Compare the newest N complete runs (of --command, else of the newest run's command), oldest first."),
+    command: Optional[str] = typer.Option(None, "--command", parser=V.one_of(*RUN_COMMANDS), help="With --last: of this command."),
     anyway: bool = typer.Option(False, "--anyway", help="Compare runs whose conditions differ (load, frequency, band, calibration, sample rate), with a loud warning."),
-    out: Optional[Path] = typer.Option(None, "--out", help="Comparison folder (default: comparisons/<time>-<runs> in the bench folder)."),
+    out: Optional[Path] = typer.Option(None, "--out", parser=V.out_folder, help="Comparison folder (default: comparisons/<time>-<runs> in the bench folder)."),
     bench: Optional[Path] = _bench_option(),
     as_json: bool = typer.Option(False, "--json", help="Print the comparison as JSON on stdout."),
 ) -> None:
@@ -2108,12 +2107,28 @@ def compare(
                      "folder": str(report.folder)}))
 
 
+#: click's error for a command line it cannot read (typer keeps its own copy of click)
+_USAGE_ERROR = typer.BadParameter.__mro__[1]
+
+
 def main() -> None:
     """Console entry point: the typer app with a last guard against
-    tracebacks."""
+    tracebacks. Bad input (a value out of its range, a file that cannot be
+    used) is one line and exit 1; a command line of unknown words (an
+    unknown option, a missing argument) one line and exit 2; a bug one line
+    and exit 3."""
     try:
-        app()
-    except KeyboardInterrupt:
+        code = app(standalone_mode=False)
+    except _USAGE_ERROR as exc:
+        text, ctx = " ".join(exc.format_message().split()), getattr(exc, "ctx", None)
+        if text:  # (none when a group was given no command: its help is the answer)
+            _err(f"benchkit: error: {text}" + (f" (see '{ctx.command_path} --help')" if ctx is not None else ""))
+        # a value out of its range is bad input like any other; a command line of unknown words is a usage error
+        sys.exit(EXIT_BAD_INPUT if isinstance(exc, typer.BadParameter) else EXIT_USAGE)
+    except BenchkitError as exc:
+        _err(f"benchkit: error: {exc}")
+        sys.exit(EXIT_BAD_INPUT)
+    except (KeyboardInterrupt, typer.Abort):
         _err("benchkit: interrupted")
         sys.exit(130)
     except Exception as exc:  # noqa: BLE001 - the one place that turns bugs into one line
@@ -2121,6 +2136,7 @@ def main() -> None:
             raise
         _err(f"benchkit: internal error: {type(exc).__name__}: {exc} (set BENCHKIT_DEBUG=1 for details)")
         sys.exit(EXIT_INTERNAL)
+    sys.exit(code or 0)
 
 
 if __name__ == "__main__":

@@ -9,7 +9,6 @@ overlay plots (PNG) and a short text summary.
 from __future__ import annotations
 
 import csv
-import json
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -17,6 +16,7 @@ from pathlib import Path
 from benchkit.analysis.compare import Comparison, compare
 from benchkit.errors import BenchkitError
 from benchkit.logbook import Logbook, RunEntry, slug
+from benchkit.jsonfile import load_json
 
 COMPARISONS = "comparisons"
 
@@ -39,7 +39,7 @@ def stored_result(book: Logbook, entry: RunEntry) -> tuple[dict, dict]:
                             f"'benchkit log reanalyse {entry.id}' analyses what it captured")
     path = entry.folder / name
     try:
-        doc = json.loads(path.read_text(encoding="utf-8"))
+        doc = load_json(path)
     except (OSError, ValueError) as exc:
         raise BenchkitError(f"run {entry.id}: its result {path} is unreadable ({exc}); "
                             f"'benchkit log reanalyse {entry.id}' writes it again") from None

@@ -41,6 +41,7 @@ from typing import Callable, Iterator
 
 from benchkit.errors import BenchkitError
 from benchkit.recordings import write_text_atomic
+from benchkit.jsonfile import load_json, loads
 
 BENCH_ENV = "BENCHKIT_BENCH"
 CATALOG = "logbook.sqlite"
@@ -52,6 +53,8 @@ RECORD_KIND, RECORD_VERSION = "run", 1
 BUSY_TIMEOUT_S = 30.0
 #: What a run can be. "incomplete": its process went away while it ran.
 STATUSES = ("running", "complete", "interrupted", "failed", "incomplete")
+#: The commands that file runs.
+RUN_COMMANDS = ("tone", "watch", "noise", "gain", "imd", "zout", "crosstalk", "sweep", "power", "drift")
 
 
 def resolve_bench(option: str | os.PathLike | None) -> Path:
@@ -101,7 +104,7 @@ def read_stage(path: str | os.PathLike) -> dict:
         raise BenchkitError(f"cannot read the stage description {p}: {getattr(exc, 'strerror', None) or exc}") from None
     if text.lstrip().startswith("{"):
         try:
-            doc = json.loads(text)
+            doc = loads(text)
         except ValueError as exc:
             raise BenchkitError(f"{p}: not valid JSON ({exc})") from None
         if not isinstance(doc, dict):
@@ -405,7 +408,7 @@ class Logbook:
     def read_record(self, run_id: str, missing_ok: bool = False) -> dict | None:
         path = self.folder(run_id) / RECORD
         try:
-            doc = json.loads(path.read_text(encoding="utf-8"))
+            doc = load_json(path)
         except FileNotFoundError:
             if missing_ok:
                 return None
@@ -539,6 +542,10 @@ class Logbook:
                 since: str | None = None, until: str | None = None, limit: int | None = None) -> list[RunEntry]:
         """Runs newest first, filtered by tags (all must match), command,
         status and start time (ISO dates or times, compared as text)."""
+        if status is not None and status not in STATUSES:
+            raise BenchkitError(f"no run can be {status!r}: the states are {', '.join(STATUSES)}")
+        if limit is not None and limit < 1:
+            raise BenchkitError(f"the limit is a count of runs, 1 or more, got {limit}")
         incomplete = set(self.reap())
         sql, args = "SELECT * FROM runs WHERE 1 = 1", []
         for key, value in (tags or {}).items():
@@ -558,7 +565,7 @@ class Logbook:
         out = [self._entry(r, incomplete) for r in rows]
         if status:
             out = [e for e in out if e.status == status]
-        return out[:limit] if limit else out
+        return out if limit is None else out[:limit]
 
     def entry(self, ref: str) -> RunEntry:
         """One run by its id, a unique prefix of it, or 'last' / 'last-N'
@@ -644,7 +651,7 @@ class Logbook:
     def settings(self) -> dict:
         path = self.root / SETTINGS
         try:
-            doc = json.loads(path.read_text(encoding="utf-8"))
+            doc = load_json(path)
         except FileNotFoundError:
             return {}
         except (OSError, ValueError) as exc:

@@ -64,19 +64,7 @@ def parse_pad(text: str) -> Pad | None:
     parts = text.split(":")
     if len(parts) != 2:
         raise BenchkitError(f"cannot read pad {text!r}: expected R1:R2 in ohms (e.g. 1.8k:200) or 'none'")
-    return Pad(_ohms(parts[0]), _ohms(parts[1]))
-
-
-def _ohms(text: str) -> float:
-    t = text.strip().lower().removesuffix("ohms").removesuffix("ohm").strip()
-    scale = 1.0
-    if t and t[-1] in "km":
-        scale = 1e3 if t[-1] == "k" else 1e6
-        t = t[:-1]
-    try:
-        return float(t) * scale
-    except ValueError:
-        raise BenchkitError(f"cannot read resistance {text!r}") from None
+    return Pad(units.parse_resistance(parts[0]), units.parse_resistance(parts[1]))
 
 
 # --- preferred values (IEC 60063) --------------------------------------------

@@ -9,11 +9,11 @@ that was killed while it played is first recovered from its partial recording
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 from benchkit.errors import BenchkitError
 from benchkit.recordings import read_capture
+from benchkit.jsonfile import load_json
 
 CAPTURE = "capture"
 
@@ -98,7 +98,7 @@ def reanalyse(folder: Path, record: dict, say=lambda _m: None) -> tuple[dict, li
         if p.get("from"):
             from benchkit.analysis.zout import output_impedance
 
-            docs = [json.loads((folder / f"{state}.result.json").read_text(encoding="utf-8")) for state in ("open", "loaded")]
+            docs = [load_json(folder / f"{state}.result.json") for state in ("open", "loaded")]
             result = output_impedance(*(readings_of_result(d) for d in docs), load, open_load)
         else:
             result = zout_of_captures(folder, load, open_load, channel, p.get("ref_channel"))
@@ -121,7 +121,7 @@ def reanalyse(folder: Path, record: dict, say=lambda _m: None) -> tuple[dict, li
 
         old = {}
         try:
-            old = json.loads((folder / "watch.json").read_text(encoding="utf-8")).get("conditions") or {}
+            old = load_json(folder / "watch.json").get("conditions") or {}
         except (OSError, ValueError):
             pass  # a watch killed before it wrote its summary
         doc = summarise(folder / "readings.csv", {"frequency_hz": p.get("frequency_hz"), "level_dbfs": p.get("level_dbfs"),

@@ -18,6 +18,7 @@ import numpy as np
 
 from benchkit.analysis import refuse_non_finite
 from benchkit.errors import BenchkitError
+from benchkit.jsonfile import load_json
 
 SIDECAR_KIND = "capture"
 SIDECAR_SCHEMA_VERSION = 1
@@ -144,15 +145,70 @@ def _read_sidecar(audio: Path) -> tuple[dict, list[str]]:
     if not side.is_file():
         return {}, []
     try:
-        doc = json.loads(side.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        doc = load_json(side)
+    except (OSError, ValueError) as exc:
         return {}, [f"sidecar {side.name} is unreadable ({exc.__class__.__name__}); ignored"]
     if not isinstance(doc, dict) or doc.get("kind") != SIDECAR_KIND:
         return {}, [f"sidecar {side.name} is not a benchkit capture description; ignored"]
     version = doc.get("schema_version")
     if not isinstance(version, int) or version > SIDECAR_SCHEMA_VERSION:
         return {}, [f"sidecar {side.name} has layout version {version!r}, newer than this benchkit reads; ignored"]
+    problem = _sidecar_problem(doc)
+    if problem:
+        return {}, [f"sidecar {side.name} is damaged ({problem}); ignored"]
     return doc, []
+
+
+_NUMBER, _INT, _TEXT = (int, float), (int,), (str,)
+#: what each field of a sidecar holds (None: may be null), and of its channels and segments
+_SIDECAR_FIELDS = {
+    "sample_rate_hz": _NUMBER, "device": _TEXT, "scale_source": _TEXT, "channels": (list,), "stimulus": (dict,),
+    "marker_start": _INT, "n_samples": _INT, "aligned_on": _INT + (None,), "output_vpk_per_fs": _NUMBER + (None,),
+    "note": _TEXT, "bench": (dict, None), "latency_samples": _INT + (None,), "events": (list,),
+    "clock_offset_ppm": _NUMBER + (None,), "warnings": (list,), "calibration": (dict, None),
+    "reference_channel": _INT + (None,), "stop_reason": _TEXT + (None,), "crosstalk": (dict, None),
+}
+_CHANNEL_FIELDS = {"number": _INT, "role": _TEXT, "volts_per_fs": _NUMBER + (None,)}
+_CALIBRATION_FIELDS = {"file": _TEXT + (None,), "hash": _TEXT, "interface": _TEXT, "created": _TEXT,
+                       "loopback_floor": (dict, None), "uncertainty_db": _NUMBER + (None,), "dc_coupled": (bool,),
+                       "polarity_inverts": (bool,), "output_vpk_per_fs": _NUMBER, "input_vpk_per_fs": _NUMBER,
+                       "loopback_response": (list,), "ac_corner_hz": _NUMBER + (None,)}
+_SEGMENT_FIELDS = {"start": _INT, "stop": _INT, "settled": _INT, "end": _INT, "frequency_hz": _NUMBER + (list,),
+                   "level_dbfs": _NUMBER + (None,), "file": _TEXT + (None,), "channel": _INT}
+
+
+def _wrong_field(doc: dict, fields: dict, where: str) -> str | None:
+    for key, kinds in fields.items():
+        if key not in doc:
+            continue
+        v = doc[key]
+        if v is None:
+            ok = None in kinds
+        else:
+            ok = isinstance(v, tuple(k for k in kinds if k is not None)) and (bool in kinds or not isinstance(v, bool))
+        if not ok:
+            return f"{where}{key} is {v!r:.30}"
+    return None
+
+
+def _sidecar_problem(doc: dict) -> str | None:
+    """What makes a sidecar unusable: the first field of the wrong type
+    (a number given as text, a list where an object belongs ...)."""
+    problem = _wrong_field(doc, _SIDECAR_FIELDS, "") or _wrong_field(doc.get("calibration") or {}, _CALIBRATION_FIELDS,
+                                                                      "calibration.")
+    if problem:
+        return problem
+    for i, ch in enumerate(doc.get("channels") or []):
+        problem = problem or (f"channels[{i}] is not an object" if not isinstance(ch, dict)
+                              else _wrong_field(ch, _CHANNEL_FIELDS, f"channels[{i}]."))
+    stim = doc.get("stimulus") or {}
+    segments = stim.get("segments", [])
+    if not isinstance(segments, list):
+        return problem or "stimulus.segments is not a list"
+    for i, seg in enumerate(segments):
+        problem = problem or (f"stimulus.segments[{i}] is not an object" if not isinstance(seg, dict)
+                              else _wrong_field(seg, _SEGMENT_FIELDS, f"stimulus.segments[{i}]."))
+    return problem
 
 
 def write_capture(

@@ -18,6 +18,7 @@ from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION, ToneResult, 
 from benchkit.errors import BenchkitError
 from benchkit.recordings import Recording, Takes, read_capture, write_capture, write_capture_sidecar
 from benchkit.signals import stepped_tones
+from benchkit.jsonfile import load_json
 
 
 @dataclass(frozen=True)
@@ -177,8 +178,7 @@ def recover_capture(folder: Path, stem: str = "capture") -> Path:
     BenchkitError
         When there is nothing to recover, or the marker is not in it.
     """
-    import json
-
+    
     import soundfile as sf
 
     from benchkit.capture.align import find_marker
@@ -189,7 +189,7 @@ def recover_capture(folder: Path, stem: str = "capture") -> Path:
     if not partial.exists() or not planned.exists():
         raise BenchkitError(f"{folder}: no partial capture to recover ({partial.name} with {planned.name})")
     try:
-        side = json.loads(planned.read_text(encoding="utf-8"))
+        side = load_json(planned)
         rate, start, n = float(side["sample_rate_hz"]), int(side["marker_start"]), int(side["n_samples"])
         segments = list(side["stimulus"]["segments"])
         on = int(side.get("aligned_on") or 1)

@@ -251,6 +251,20 @@ def parse_frequency(text: str) -> float:
     return float(m.group("v")) * (1000.0 if m.group("k") else 1.0)
 
 
+def parse_resistance(text: str) -> float:
+    """A resistance in ohms, the one reading of it everywhere: "8", "200",
+    "1.8k", "10k", "4.7M", "2k2" (the digit standing for the point, as
+    printed on parts), "8 ohm", "8R"; the prefix is k or M (an "m" is read
+    as M: nobody means milliohms at the bench)."""
+    m = re.match(r"^\s*(?P<v>[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?)\s*(?P<p>[kKmM]|R)?(?P<d>\d+)?\s*(ohms?|Ω)?\s*$", text)
+    if not m or (m.group("d") and (m.group("p") is None or "." in m.group("v") or "e" in m.group("v").lower())):
+        raise BenchkitError(f"cannot read resistance {text!r}: expected ohms, e.g. '8', '200', '1.8k', '10k' or '4.7M'")
+    prefix = (m.group("p") or "").lower()
+    scale = {"k": 1e3, "m": 1e6, "r": 1.0, "": 1.0}[prefix]
+    value = float(m.group("v") + ("." + m.group("d") if m.group("d") else ""))
+    return value * scale
+
+
 def parse_band(text: str) -> tuple[float, float] | None:
     """A measurement band "LO:HI" in Hz ("20:20k", "22:22000"), or "full"
     (returned as None: 0 Hz to half the sample rate)."""
@@ -263,6 +277,30 @@ def parse_band(text: str) -> tuple[float, float] | None:
     if not lo < hi:
         raise BenchkitError(f"band {text!r}: the low edge must be below the high edge")
     return lo, hi
+
+
+def parse_tones(text: str) -> tuple[float, float]:
+    """"60:7000" -> (60.0, 7000.0): the two tones of an IMD test."""
+    parts = text.split(":")
+    try:
+        f1, f2 = (float(parse_frequency(p)) for p in parts)
+    except (ValueError, BenchkitError):
+        raise BenchkitError(f"the tones are F1:F2 in Hz, e.g. 60:7000, got {text!r}") from None
+    if not 0 < f1 < f2:
+        raise BenchkitError(f"the tones {text!r}: F1 must be positive and below F2")
+    return f1, f2
+
+
+def parse_sweep_spec(text: str) -> tuple[float, float, float]:
+    """"20:20000:5" -> (20.0, 20000.0, 5.0): a sweep's span and length."""
+    parts = text.split(":")
+    try:
+        f1, f2, seconds = (float(parse_frequency(p)) for p in parts)
+    except (ValueError, BenchkitError):
+        raise BenchkitError(f"--sweep wants F1:F2:SECONDS, e.g. 20:20000:5, got {text!r}") from None
+    if not (0 < f1 < f2 and 0 < seconds <= 3600):
+        raise BenchkitError(f"--sweep {text!r}: F1 must be above 0 and below F2, the length above 0 and at most 3600 s")
+    return f1, f2, seconds
 
 
 # --- printing quantities -------------------------------------------------------

@@ -5,6 +5,7 @@ dBu/dBV: common definitions (0 dBu = 0.7746 Vrms, 0 dBV = 1 Vrms).
 Power into a resistor: circuit theory, P = Vrms^2 / R = Vpk^2 / (2 R).
 """
 
+import json
 import math
 
 import numpy as np
@@ -124,3 +125,29 @@ def test_counts_agree_with_their_number():
 
     assert [count(n, "step") for n in (0, 1, 2)] == ["0 steps", "1 step", "2 steps"]
     assert count(3, "frequency", "frequencies") == "3 frequencies"
+
+
+@pytest.mark.parametrize("text, ohms", [
+    ("8", 8.0), ("200", 200.0), ("1.8k", 1800.0), ("10k", 10e3), ("10K", 10e3), ("4.7M", 4.7e6), ("8 ohm", 8.0),
+    ("10 kohm", 10e3),
+    # the letter standing for the decimal point, as marked on parts (IEC 60062's code, from memory)
+    ("4k7", 4700.0), ("4R7", 4.7), ("2M2", 2.2e6), ("1k8", 1800.0),
+])
+def test_one_reading_of_a_resistance(text, ohms):
+    assert units.parse_resistance(text) == pytest.approx(ohms, rel=1e-12)
+
+
+@pytest.mark.parametrize("bad", ["", "k", "abc", "nan", "1.5k2", "1e3k5", "10 kHz", "8 V"])
+def test_a_resistance_that_cannot_be_read(bad):
+    with pytest.raises(BenchkitError, match="resistance"):
+        units.parse_resistance(bad)
+
+
+def test_every_resistance_option_reads_the_same_text(tmp_path):
+    # the pad command's input impedance and the pad it checks read "10k" as the logbook's --load reads "8"
+    from conftest import run_cli
+
+    plain = run_cli("pad", "--rail", "24", "--input-ohms", "10000", "--check", "1800", "--check", "200", "--json")
+    short = run_cli("pad", "--rail", "24", "--input-ohms", "10k", "--check", "1.8k", "--check", "200R", "--json")
+    assert plain.returncode == 0 and short.returncode == 0, short.stderr
+    assert json.loads(plain.stdout)["pads"] == json.loads(short.stdout)["pads"]

@@ -25,6 +25,18 @@ CLIP_STOP_FS = 0.999
 #: The device every command uses unless told otherwise.
 DEFAULT_DEVICE = "virtual"
 DEVICE_ENV = "BENCHKIT_DEVICE"
+#: A file that gets a line each time a backend starts to play (tests read
+#: it as evidence that a refused command played nothing).
+STREAM_LOG_ENV = "BENCHKIT_STREAM_LOG"
+
+
+def count_stream(device: str, what: str) -> None:
+    """Note that ``device`` starts to play ``what``, in the file named by
+    BENCHKIT_STREAM_LOG (if set): one line a stream, appended."""
+    path = os.environ.get(STREAM_LOG_ENV)
+    if path:
+        with open(path, "a", encoding="utf-8") as f:
+            f.write(f"{os.getpid()} {device} {what}\n")
 
 
 @dataclass(frozen=True)

@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from benchkit import units
-from benchkit.capture import CLIP_STOP_FS, InputChannel, RawRecording
+from benchkit.capture import CLIP_STOP_FS, InputChannel, RawRecording, count_stream
 from benchkit.errors import BenchkitError
 from benchkit.recordings import WavStreamWriter
 from benchkit.signals import Stimulus
@@ -253,6 +253,7 @@ class PortAudioBackend:
                 done.set()
                 raise sd.CallbackStop
 
+        count_stream(self.name, "hold_tone")
         try:
             stream = sd.OutputStream(samplerate=rate, blocksize=self.blocksize, device=self.info["index"],
                                      channels=self.n_outputs, dtype="float32", latency=self.latency,
@@ -396,6 +397,7 @@ class PortAudioBackend:
                   if writer or listening else None)
         reason = None
         lost = False
+        count_stream(self.name, "play_record")
         try:
             stream = sd.Stream(
                 samplerate=rate,

@@ -28,7 +28,7 @@ from pathlib import Path
 import numpy as np
 import scipy.signal
 
-from benchkit.capture import CLIP_STOP_FS, InputChannel, RawRecording
+from benchkit.capture import CLIP_STOP_FS, InputChannel, RawRecording, count_stream
 from benchkit.capture.stages import StageModel, StereoCoupling, first_order_highpass, make_stage, split_stereo
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
@@ -253,6 +253,7 @@ class VirtualBench:
         }
 
     def play_record(self, stimulus: Stimulus, partial: Path | None = None) -> RawRecording:
+        count_stream(self.name, "play_record")
         if hasattr(stimulus, "listen"):
             return self._play_interactive(stimulus, partial)
         s = self.spec
@@ -311,6 +312,7 @@ class VirtualBench:
         state follows time and bias alone (class A draws the same supply
         power at any level), so the stage's clock moves on by ``seconds``
         without simulating an hour of samples."""
+        count_stream(self.name, "hold_tone")
         self.stage.advance(seconds)
         return {"seconds": float(seconds), "level_dbfs": level_dbfs, "frequency_hz": frequency_hz,
                 "simulated": "the stage's clock advanced"}

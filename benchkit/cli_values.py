@@ -1,0 +1,200 @@
+"""What each command-line value may be: one parser per kind of quantity.
+
+Every number a command takes declares its kind here (a resistance, a
+frequency, a duration, a count ...), so that a value that cannot be right
+(NaN, infinity, a zero or negative load, a length the machine cannot hold,
+a level above full scale) is refused while the command line is read:
+before a logbook opens, a device starts or a run is filed. The refusal is
+click's "Invalid value for '--load': ..." turned into one line by
+:func:`benchkit.cli.main`.
+
+Text options (levels, bands, pads) are checked by their own parsers in
+:mod:`benchkit.units` and :mod:`benchkit.pads` through :func:`checked`,
+and keep their text: the command reads them again where it uses them.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+from typing import Callable
+
+import typer
+
+from benchkit import units
+from benchkit.errors import BenchkitError
+
+
+def _read(value, integer: bool):
+    """A number from the command line (or an option's default)."""
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        number = value
+    else:
+        text = str(value).strip()
+        try:
+            number = int(text) if integer else float(text)
+        except ValueError:
+            raise typer.BadParameter(f"{text!r} is not {'a whole number' if integer else 'a number'}") from None
+    if integer and number != int(number):
+        raise typer.BadParameter(f"{value!r} is not a whole number")
+    return int(number) if integer else float(number)
+
+
+def number(low: float | None = None, high: float | None = None, *, above: bool = False, unit: str = "",
+           integer: bool = False, hint: str = "") -> Callable:
+    """A parser for a finite number within [low, high] (``above``: strictly
+    above ``low``), in ``unit``; ``hint`` follows a refusal."""
+
+    def parse(value):
+        x = _read(value, integer)
+        ok = math.isfinite(x) and (low is None or (x > low if above else x >= low)) and (high is None or x <= high)
+        if not ok:
+            parts = []
+            if low is not None:
+                parts.append(f"{'above' if above else 'at least'} {low:g}")
+            if high is not None:
+                parts.append(f"at most {high:g}")
+            span = " and ".join(parts) if parts else "finite"
+            raise typer.BadParameter(f"must be {'a whole number' if integer else 'a finite number'}"
+                                     f"{' ' + span if parts else ''}{' ' + unit if unit else ''}, got {value}"
+                                     f"{'; ' + hint if hint else ''}")
+        return x
+
+    return parse
+
+
+def checked(parse: Callable) -> Callable:
+    """A parser that checks text with ``parse`` (which raises
+    BenchkitError) and keeps the text as it was given."""
+
+    def check(value):
+        if value is None:
+            return value
+        try:
+            parse(str(value))
+        except BenchkitError as exc:
+            raise typer.BadParameter(str(exc)) from None
+        return value
+
+    return check
+
+
+def one_of(*choices: str) -> Callable:
+    """A parser for one word of ``choices`` (any case)."""
+
+    def parse(value):
+        word = str(value).strip().lower()
+        if word not in choices:
+            listed = " or ".join(choices) if len(choices) < 3 else f"one of {', '.join(choices[:-1])} or {choices[-1]}"
+            raise typer.BadParameter(f"must be {listed}, got {value!r}")
+        return word
+
+    return parse
+
+
+def when(value):
+    """A date (YYYY-MM-DD) or a date and time (ISO 8601), kept as text."""
+    from datetime import datetime
+
+    try:
+        datetime.fromisoformat(str(value).strip())
+    except ValueError:
+        raise typer.BadParameter(f"must be a date YYYY-MM-DD or a time YYYY-MM-DDTHH:MM, got {value!r}") from None
+    return str(value).strip()
+
+
+def out_file(value) -> Path:
+    """A file to write: not an existing folder, in a folder that exists or
+    can be made."""
+    path = Path(value)
+    if path.is_dir():
+        raise typer.BadParameter(f"{path} is a folder: give the file to write, e.g. {path / 'profile.json'}")
+    parent = next((q for q in path.absolute().parents if q.exists()), None)
+    if parent is not None and not parent.is_dir():
+        raise typer.BadParameter(f"{path}: {parent} is a file, not a folder")
+    return path
+
+
+def out_folder(value) -> Path:
+    """A folder to write into: not an existing file."""
+    path = Path(value)
+    if path.exists() and not path.is_dir():
+        raise typer.BadParameter(f"{path} is a file: give a folder to write the reports into")
+    return path
+
+
+def _above_zero(parse: Callable, what: str) -> Callable:
+    """A parser for a quantity above zero read from text by ``parse``
+    (which raises BenchkitError)."""
+
+    def parser(value) -> float:
+        if isinstance(value, (int, float)) and not isinstance(value, bool):
+            x = float(value)
+        else:
+            try:
+                x = parse(str(value))
+            except BenchkitError as exc:
+                raise typer.BadParameter(str(exc)) from None
+        if not (math.isfinite(x) and x > 0):
+            raise typer.BadParameter(f"must be {what} above zero, got {value}")
+        return x
+
+    return parser
+
+
+#: a resistance: "8", "4.7k", "10k", "4k7", "1M", "8 ohm" (units.parse_resistance, the one reading of it)
+ohms = _above_zero(units.parse_resistance, "a resistance in ohms (e.g. 8, 4.7k)")
+#: a frequency: "997", "20k", "1.5 kHz"
+hertz = _above_zero(units.parse_frequency, "a frequency in Hz (e.g. 997, 20k)")
+
+
+def seconds(high: float) -> Callable:
+    """A duration above zero and at most ``high`` seconds."""
+    return number(0.0, high, above=True, unit="s")
+
+
+#: the kinds most options are
+POSITIVE = number(0.0, above=True)
+NON_NEGATIVE = number(0.0)
+FINITE = number()
+VOLTS = number(0.0, above=True, unit="V")
+AMPS = number(0.0, above=True, unit="A")
+WATTS = number(0.0, above=True, unit="W")
+PERCENT = number(0.0, 100.0, above=True, unit="%")
+COUNT = number(1, 1_000_000, integer=True)
+CHANNEL = number(1, 256, integer=True, hint="channels are numbered from 1")
+SEED = number(0, 2**32 - 1, integer=True)
+RATE = number(8000.0, 768000.0, unit="Hz")
+#: the longest a single capture may be: an hour of audio is about 1.4 GB at 96 kHz in float32 stereo
+CAPTURE_S = seconds(3600.0)
+#: a live readout or a drift log may run a day
+SESSION_S = seconds(86400.0)
+
+
+def _pad(text: str):
+    from benchkit import pads
+
+    return pads.parse_pad(text)
+
+
+def _sim_pad(text: str):
+    return None if text.strip().lower() == "demo" else _pad(text)
+
+
+def _sim_load(value):
+    if str(value).strip().lower() != "off":
+        ohms(value)
+    return value
+
+
+def _latency(value):
+    if str(value).strip().lower() not in ("low", "high"):
+        number(0.0, 2.0, above=True, unit="s")(value)
+    return value
+
+
+#: a pad R1:R2 (or 'none', or the virtual bench's 'demo'), a simulated load (or 'off'), a stream latency
+PAD = checked(_pad)
+SIM_PAD = checked(_sim_pad)
+SIM_LOAD = _sim_load
+LATENCY = _latency
