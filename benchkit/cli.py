@@ -2014,7 +2014,7 @@ def log_rebuild(bench: Optional[Path] = _bench_option()) -> None:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
     for why in skipped:
-        _err(f"  skipped: {why}")
+        _err(f"warning: skipped: {why}")
     _err(f"indexed {units.count(count, 'run')} from {root / logbook.RUNS}")
 
 

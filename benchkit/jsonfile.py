@@ -72,3 +72,25 @@ def typed(cls, doc: dict):
                 raise ValueError(f"field {f.name!r} should be {_WORDS.get(base, base.__name__)}, got {value!r:.40}")
             values[f.name] = float(value) if base is float else value
     return cls(**values)
+
+
+#: field kinds for :func:`wrong_field` (add None where a field may be null)
+NUMBER, INT, TEXT = (int, float), (int,), (str,)
+
+
+def wrong_field(doc: dict, fields: dict, where: str = "") -> str | None:
+    """The first field of ``doc`` whose value is not of its kinds in
+    ``fields`` (a tuple of types, with None where null is allowed; a bool
+    is a number only where bool is listed), said as "<where>key is <value>";
+    None when all fit. Fields ``doc`` lacks are not judged."""
+    for key, kinds in fields.items():
+        if key not in doc:
+            continue
+        v = doc[key]
+        if v is None:
+            ok = None in kinds
+        else:
+            ok = isinstance(v, tuple(k for k in kinds if k is not None)) and (bool in kinds or not isinstance(v, bool))
+        if not ok:
+            return f"{where}{key} is {v!r:.30}"
+    return None

@@ -41,7 +41,7 @@ from typing import Callable, Iterator
 
 from benchkit.errors import BenchkitError
 from benchkit.recordings import write_text_atomic
-from benchkit.jsonfile import load_json, loads
+from benchkit.jsonfile import INT, NUMBER, TEXT, load_json, loads, wrong_field
 
 BENCH_ENV = "BENCHKIT_BENCH"
 CATALOG = "logbook.sqlite"
@@ -55,6 +55,19 @@ BUSY_TIMEOUT_S = 30.0
 STATUSES = ("running", "complete", "interrupted", "failed", "incomplete")
 #: The commands that file runs.
 RUN_COMMANDS = ("tone", "watch", "noise", "gain", "imd", "zout", "crosstalk", "sweep", "power", "drift")
+
+
+#: what a run record must hold, and what each field holds (None: may be null)
+_RECORD_NEEDS = ("id", "started", "command", "status")
+_RECORD_FIELDS = {
+    "id": TEXT, "started": TEXT, "finished": TEXT + (None,), "command": TEXT, "status": TEXT,
+    "result_kind": TEXT + (None,), "result_file": TEXT + (None,), "pid": INT + (None,), "host": TEXT + (None,),
+    "device": TEXT + (None,), "calibration": (dict, None), "stage": (dict, None), "tags": (dict, None),
+    "note": TEXT + (None,), "params": (dict, None), "files": (list, None), "valid": (bool, None),
+    "warnings": (list, None), "figures": (list, None), "error": TEXT + (None,), "argv": (list, None),
+    "retry_error": TEXT + (None,),
+}
+_FIGURE_FIELDS = {"name": TEXT, "value": NUMBER + (None,), "unit": TEXT, "at": TEXT + NUMBER + (None,)}
 
 
 def resolve_bench(option: str | os.PathLike | None) -> Path:
@@ -222,6 +235,8 @@ def _lock_is_held(path: Path, pid: int | None) -> bool:
         except OSError:
             return False
         return True
+    if not path.exists():  # taken before the run's record says running, dropped after it ends
+        return False
     try:
         with open(path, "a+") as fh:
             try:
@@ -417,6 +432,15 @@ class Logbook:
             raise BenchkitError(f"run {run_id}: its record {path} is unreadable ({exc})") from None
         if not isinstance(doc, dict) or doc.get("kind") != RECORD_KIND:
             raise BenchkitError(f"run {run_id}: {path} is not a benchkit run record")
+        problem = ("missing " + ", ".join(k for k in _RECORD_NEEDS if k not in doc)) if any(
+            k not in doc for k in _RECORD_NEEDS) else wrong_field(doc, _RECORD_FIELDS)
+        for i, fig in enumerate(doc.get("figures") or []):
+            problem = problem or (f"figures[{i}] is not an object" if not isinstance(fig, dict)
+                                  else wrong_field(fig, _FIGURE_FIELDS, f"figures[{i}]."))
+        if problem is None and doc["status"] not in STATUSES:
+            problem = f"status is {doc['status']!r}"
+        if problem:
+            raise BenchkitError(f"run {run_id}: its record {path} is damaged ({problem})")
         return doc
 
     def _save_record(self, record: dict) -> None:
@@ -493,12 +517,13 @@ class Logbook:
             raise BenchkitError(f"cannot take up run {run_id} in {folder}: {exc.strerror or exc}") from None
         try:
             record = self.read_record(run_id)
+            before = dict(record)
             record.update(status="running", pid=os.getpid(), host=socket.gethostname())
             self.update(record)
         except BaseException:
             lock.close()
             raise
-        return Run(self, record, folder, lock)
+        return Run(self, record, folder, lock, before)
 
     def update(self, record: dict) -> None:
         """Write a changed record, then its row, in that order."""
@@ -522,6 +547,9 @@ class Logbook:
             record["status"] = "incomplete"
             record["error"] = record.get("error") or "its process went away while it ran (killed or crashed)"
             self.update(record)
+            for leftover in self.folder(run_id).glob(".*.tmp"):  # a file it was writing when it went
+                leftover.unlink(missing_ok=True)
+            (self.folder(run_id) / LOCK).unlink(missing_ok=True)
         return gone
 
     # --- reading the catalog ---
@@ -669,8 +697,10 @@ class Run:
     as a context manager an exception ends it as failed (or interrupted)
     and goes on."""
 
-    def __init__(self, book: Logbook, record: dict, folder: Path, lock):
+    def __init__(self, book: Logbook, record: dict, folder: Path, lock, before: dict | None = None):
         self.book, self.record, self.folder, self._lock = book, record, folder, lock
+        #: a run taken up again: its record as it was, kept if the new attempt fails
+        self._before = before
 
     @property
     def id(self) -> str:
@@ -682,6 +712,7 @@ class Run:
         try:
             self.book.update(self.record)
         finally:
+            (self.folder / LOCK).unlink(missing_ok=True)  # held until here: no empty lock file stays behind
             self._lock.close()
             self._lock = None
 
@@ -696,9 +727,19 @@ class Run:
                                                           if p.is_file() and not p.name.startswith(".")}),
             valid=_valid(doc), warnings=_warnings(doc), figures=headline_figures(doc),
             error=None)
+        self.record.pop("retry_error", None)
         self._end(status)
 
     def fail(self, message: str, status: str = "failed") -> None:
+        if self._before is not None:  # a failed second look keeps what the run was, and why
+            self.record = {**self._before, "retry_error": message}
+            try:
+                self.book.update(self.record)
+            finally:
+                (self.folder / LOCK).unlink(missing_ok=True)
+                self._lock.close()
+                self._lock = None
+            return
         self.record["error"] = message
         self.record["files"] = sorted(p.name for p in self.folder.iterdir() if p.is_file() and not p.name.startswith("."))
         self._end(status)

@@ -18,7 +18,7 @@ import numpy as np
 
 from benchkit.analysis import refuse_non_finite
 from benchkit.errors import BenchkitError
-from benchkit.jsonfile import load_json
+from benchkit.jsonfile import INT as _INT, NUMBER as _NUMBER, TEXT as _TEXT, load_json, wrong_field
 
 SIDECAR_KIND = "capture"
 SIDECAR_SCHEMA_VERSION = 1
@@ -159,7 +159,6 @@ def _read_sidecar(audio: Path) -> tuple[dict, list[str]]:
     return doc, []
 
 
-_NUMBER, _INT, _TEXT = (int, float), (int,), (str,)
 #: what each field of a sidecar holds (None: may be null), and of its channels and segments
 _SIDECAR_FIELDS = {
     "sample_rate_hz": _NUMBER, "device": _TEXT, "scale_source": _TEXT, "channels": (list,), "stimulus": (dict,),
@@ -177,37 +176,23 @@ _SEGMENT_FIELDS = {"start": _INT, "stop": _INT, "settled": _INT, "end": _INT, "f
                    "level_dbfs": _NUMBER + (None,), "file": _TEXT + (None,), "channel": _INT}
 
 
-def _wrong_field(doc: dict, fields: dict, where: str) -> str | None:
-    for key, kinds in fields.items():
-        if key not in doc:
-            continue
-        v = doc[key]
-        if v is None:
-            ok = None in kinds
-        else:
-            ok = isinstance(v, tuple(k for k in kinds if k is not None)) and (bool in kinds or not isinstance(v, bool))
-        if not ok:
-            return f"{where}{key} is {v!r:.30}"
-    return None
-
-
 def _sidecar_problem(doc: dict) -> str | None:
     """What makes a sidecar unusable: the first field of the wrong type
     (a number given as text, a list where an object belongs ...)."""
-    problem = _wrong_field(doc, _SIDECAR_FIELDS, "") or _wrong_field(doc.get("calibration") or {}, _CALIBRATION_FIELDS,
+    problem = wrong_field(doc, _SIDECAR_FIELDS, "") or wrong_field(doc.get("calibration") or {}, _CALIBRATION_FIELDS,
                                                                       "calibration.")
     if problem:
         return problem
     for i, ch in enumerate(doc.get("channels") or []):
         problem = problem or (f"channels[{i}] is not an object" if not isinstance(ch, dict)
-                              else _wrong_field(ch, _CHANNEL_FIELDS, f"channels[{i}]."))
+                              else wrong_field(ch, _CHANNEL_FIELDS, f"channels[{i}]."))
     stim = doc.get("stimulus") or {}
     segments = stim.get("segments", [])
     if not isinstance(segments, list):
         return problem or "stimulus.segments is not a list"
     for i, seg in enumerate(segments):
         problem = problem or (f"stimulus.segments[{i}] is not an object" if not isinstance(seg, dict)
-                              else _wrong_field(seg, _SEGMENT_FIELDS, f"stimulus.segments[{i}]."))
+                              else wrong_field(seg, _SEGMENT_FIELDS, f"stimulus.segments[{i}]."))
     return problem
 
 

@@ -95,6 +95,33 @@ FILES = {
 }
 
 
+def _damaged_run(d: Path, text: str) -> Path:
+    """The row's bench with one more run folder, whose record is ``text``."""
+    bench = d.parent / "bench"
+    folder = bench / "runs" / "20990101-000000-tone"
+    folder.mkdir(parents=True)
+    (folder / "run.json").write_text(text)
+    return bench
+
+
+def _record(**change) -> str:
+    doc = {"kind": "run", "schema_version": 1, "id": "20990101-000000-tone", "command": "tone",
+           "started": "2099-01-01T00:00:00+00:00", "status": "complete", "tags": {}, "figures": []}
+    doc.update(change)
+    return json.dumps(doc)
+
+
+FILES.update({
+    "bench_deep_record": lambda d: _damaged_run(d, '{"kind": "run", "x": ' + _deep() + "}"),
+    "bench_record_not_json": lambda d: _damaged_run(d, '{"kind": "run", '),
+    "bench_record_tags_text": lambda d: _damaged_run(d, _record(tags="bias=1")),
+    "bench_record_status_number": lambda d: _damaged_run(d, _record(status=5)),
+    "bench_record_no_command": lambda d: _damaged_run(d, _record(command=None)),
+    "bench_record_figures_text": lambda d: _damaged_run(d, _record(figures=["thdn"])),
+    "bench_record_bad_status": lambda d: _damaged_run(d, _record(status="finished")),
+})
+
+
 class _Files(dict):
     """Placeholders of a row, made on first use in the row's folder."""
 
@@ -182,6 +209,13 @@ TOLERATED = [
     ("analyze {sidecar_scale_text}", "sidecar"),
     ("analyze {sidecar_segment_text}", "sidecar"),
     ("analyze {csv_nan}", "skipped"),
+    ("log rebuild --bench {bench_deep_record}", "skipped"),
+    ("log rebuild --bench {bench_record_not_json}", "skipped"),
+    ("log rebuild --bench {bench_record_tags_text}", "skipped"),
+    ("log rebuild --bench {bench_record_status_number}", "skipped"),
+    ("log rebuild --bench {bench_record_no_command}", "skipped"),
+    ("log rebuild --bench {bench_record_figures_text}", "skipped"),
+    ("log rebuild --bench {bench_record_bad_status}", "skipped"),
 ]
 
 
@@ -246,3 +280,5 @@ def test_tolerated_with_a_warning(row, what, bench, tmp_path):
     text = res.stdout + res.stderr
     assert res.returncode == 0 and "Traceback" not in text, text
     assert any("warning" in line.lower() and what in line for line in res.stderr.splitlines()), res.stderr
+    if row.startswith("log rebuild"):  # the good run is indexed all the same
+        assert "indexed 1 run " in res.stderr, res.stderr

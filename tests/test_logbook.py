@@ -106,13 +106,24 @@ def test_a_killed_drift_log_is_incomplete_until_reanalysed(tmp_path):
     assert [r["status"] for r in _runs(bench)] == ["running"]  # its process still holds the lock
     proc.send_signal(signal.SIGKILL)
     proc.communicate(timeout=10)
+    half_written = log.parent / f".run.json.{proc.pid}.tmp"  # as a kill during an atomic write leaves it
+    half_written.write_text('{"kind": "ru')
     (run,) = _runs(bench)
     assert run["status"] == "incomplete" and "went away" in run["error"]
+    assert not half_written.exists() and not (log.parent / logbook.LOCK).exists()
+    # a second look that fails keeps what the run was, and why
+    log.rename(log.with_name("aside.csv"))
+    failed = run_cli("log", "reanalyse", run["id"], "--bench", str(bench))
+    assert failed.returncode == 1
+    (still,) = _runs(bench)
+    assert still["status"] == "incomplete" and still["error"] == run["error"]
+    log.with_name("aside.csv").rename(log)
     res = run_cli("log", "reanalyse", run["id"], "--bench", str(bench), "--json")
     doc = _json(res)
     assert doc["kind"] == "drift" and doc["samples"] >= 12
     (done,) = _runs(bench)
     assert done["status"] == "complete" and any(f["name"] == "settled_v" for f in done["figures"])
+    assert not (log.parent / logbook.LOCK).exists()
     with sqlite3.connect(bench / logbook.CATALOG) as db:
         assert db.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
 
