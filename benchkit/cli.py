@@ -36,9 +36,13 @@ app = typer.Typer(
     help="benchkit: a calibrated bench analyzer for audio amplifier stages.",
 )
 
+#: exit codes (listed in the README): bad input or a failed check; a command line of unknown words;
+#: a bug; a run that stopped before its last step (what it measured is filed); interrupted (Ctrl-C)
 EXIT_BAD_INPUT = 1
 EXIT_USAGE = 2
 EXIT_INTERNAL = 3
+EXIT_STOPPED_EARLY = 4
+EXIT_INTERRUPTED = 130
 
 
 def _err(text: str) -> None:
@@ -595,7 +599,7 @@ def _live_run():
             sys.stdout.flush()
             sys.stderr.flush()
             os._exit(EXIT_BAD_INPUT)
-        raise typer.Exit(130 if str(exc).startswith("interrupted") else EXIT_BAD_INPUT)
+        raise typer.Exit(EXIT_INTERRUPTED if str(exc).startswith("interrupted") else EXIT_BAD_INPUT)
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
@@ -635,7 +639,11 @@ def _start_run(book, labels: dict, command: str, backend, profile, calibration: 
 
 def _finish_run(written: list[Path], run, doc: dict, as_json: bool, status: str = "complete") -> None:
     """Complete the run in the logbook (its files are on disk), say where
-    it is, and print the result with the run's id and folder."""
+    it is, and print the result with the run's id and folder. A run whose
+    capture stopped before its last step (the input clipped) ends with
+    EXIT_STOPPED_EARLY: what it measured is filed, but not all it was asked."""
+    from benchkit.recordings import stopped_early
+
     run.complete(doc, written, written[0] if written else None, status=status)
     for path in written:
         _err(f"  wrote        {path}")
@@ -644,6 +652,10 @@ def _finish_run(written: list[Path], run, doc: dict, as_json: bool, status: str 
         from benchkit.report.tables import dumps
 
         print(dumps({**doc, "run": {"id": run.id, "folder": str(run.folder), "status": status}}))
+    early = stopped_early(run.folder)
+    if early:
+        _err(f"benchkit: stopped early: {early[0]}")
+        raise typer.Exit(EXIT_STOPPED_EARLY)
 
 
 @app.command()
@@ -873,7 +885,7 @@ def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, j
                     watch.stop(ended_by)
             except KeyboardInterrupt:
                 if ended_by is None:
-                    ended_by, code = "interrupted (Ctrl-C)", 130
+                    ended_by, code = "interrupted (Ctrl-C)", EXIT_INTERRUPTED
                     watch.stop(ended_by)
             except BrokenPipeError:  # whoever read stdout has gone (| head)
                 if ended_by is None:
@@ -881,7 +893,7 @@ def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, j
                     watch.stop(ended_by)
                 mode = "quiet"
     except KeyboardInterrupt:
-        ended_by, code = "interrupted (Ctrl-C)", 130
+        ended_by, code = "interrupted (Ctrl-C)", EXIT_INTERRUPTED
         watch.stop(ended_by)
     finally:
         watch.stop(ended_by or "ended")
@@ -897,8 +909,8 @@ def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, j
     stopped = tone.stop_reason if ended_by is None else ended_by
     clipped = "clipped" in (tone.stop_reason or "") or (watch.raw is not None and watch.raw.stopped_at is not None)
     if clipped:
-        _err("benchkit: stopped: the input clipped (the tone faded out): lower the level or use a larger pad")
-        code = EXIT_BAD_INPUT
+        _err("benchkit: stopped early: the input clipped (the tone faded out): lower the level or use a larger pad")
+        code = EXIT_STOPPED_EARLY
     dropped = f", {tracker.disturbed} across a dropout of the stream (left out)" if tracker.disturbed else ""
     _err(f"watch ended: {stopped}; {units.count(tracker.count, 'reading')}{dropped}; the output faded to silence")
     for line in _watch_summary(tracker):
@@ -1464,7 +1476,7 @@ def power(
         sys.stderr.flush()
         os._exit(EXIT_BAD_INPUT)
     if info.get("interrupted"):
-        raise typer.Exit(130)
+        raise typer.Exit(EXIT_INTERRUPTED)
 
 
 @app.command()
@@ -1546,7 +1558,7 @@ def drift(
             _finish_run(written, run, result.to_dict(), as_json,
                         "complete" if end.how in ("duration", "settled") else "interrupted")
     if end.how != "duration" and end.how != "settled":
-        raise typer.Exit(130 if end.how == "interrupted" else EXIT_BAD_INPUT)
+        raise typer.Exit(EXIT_INTERRUPTED if end.how == "interrupted" else EXIT_BAD_INPUT)
 
 
 @app.command()
@@ -2130,7 +2142,7 @@ def main() -> None:
         sys.exit(EXIT_BAD_INPUT)
     except (KeyboardInterrupt, typer.Abort):
         _err("benchkit: interrupted")
-        sys.exit(130)
+        sys.exit(EXIT_INTERRUPTED)
     except Exception as exc:  # noqa: BLE001 - the one place that turns bugs into one line
         if os.environ.get("BENCHKIT_DEBUG"):
             raise

@@ -12,3 +12,8 @@ class BenchkitError(ValueError):
 
     The message is a complete sentence for the user, without a traceback.
     """
+
+
+class NoToneError(BenchkitError):
+    """No tone stands out of the capture where one was looked for (a silent
+    stage, an open wire): a probe may take that as "nothing came back"."""

@@ -166,6 +166,7 @@ _SIDECAR_FIELDS = {
     "note": _TEXT, "bench": (dict, None), "latency_samples": _INT + (None,), "events": (list,),
     "clock_offset_ppm": _NUMBER + (None,), "warnings": (list,), "calibration": (dict, None),
     "reference_channel": _INT + (None,), "stop_reason": _TEXT + (None,), "crosstalk": (dict, None),
+    "stopped_early": _TEXT + (None,),
 }
 _CHANNEL_FIELDS = {"number": _INT, "role": _TEXT, "volts_per_fs": _NUMBER + (None,)}
 _CALIBRATION_FIELDS = {"file": _TEXT + (None,), "hash": _TEXT, "interface": _TEXT, "created": _TEXT,
@@ -335,3 +336,11 @@ def repair_wav(path: str | os.PathLike) -> int:
         fh.write(nbytes.to_bytes(4, "little"))
         fh.truncate(44 + nbytes)
     return frames
+
+
+def stopped_early(folder: Path) -> list[str]:
+    """Why the captures in a run folder stopped before their last step
+    (the input clipped ...), as their sidecars say: empty when every
+    capture ran to its end."""
+    docs = (_read_sidecar(audio)[0] for audio in sorted(folder.glob("*.wav")))
+    return [doc["stopped_early"] for doc in docs if doc.get("stopped_early")]

@@ -15,7 +15,7 @@ from pathlib import Path
 
 from benchkit import capture, units
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION, ToneResult, analyze_tone
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchkitError, NoToneError
 from benchkit.recordings import Recording, Takes, read_capture, write_capture, write_capture_sidecar
 from benchkit.signals import stepped_tones
 from benchkit.jsonfile import load_json
@@ -255,6 +255,11 @@ def floor_warning(result: ToneResult, floor: dict | None) -> str | None:
     return None
 
 
+#: How far the stage's measured gain may exceed a given --gain, dB, before
+#: the pre-flight takes the measured one (a probe step's own scatter is far smaller).
+GIVEN_GAIN_TOLERANCE_DB = 1.0
+
+
 def plan_run(backend, profile, drive, frequency_hz, channel, gain, margin_db, rail_v, pad_rating_w, load_ohms,
              bridged, say=lambda _m: None, gain_fs: float | None = None):
     """Pre-flight for a stepped-tone run: gather the scales (calibration, or
@@ -278,18 +283,39 @@ def plan_run(backend, profile, drive, frequency_hz, channel, gain, margin_db, ra
         input_ohms = (pad_spec.input_ohms if pad_spec is not None else None) or math.inf
     if not virtual and stage_vpf is None and (load_ohms is not None or pad_rating_w is not None):
         raise BenchkitError("--load and --pad-rating need volts at the stage: give --calibration (or --volts-per-fs)")
+    def judge(g: float):
+        return preflight.check(drive, g, stage_vpf, in_vpk, pad, ratio, input_ohms, pad_rating_w, rail_v,
+                               load_ohms, bridged, margin_db)
+
     if gain_fs is not None:
-        pass  # measured already
-    elif gain is not None:
-        if out_vpk is None or stage_vpf is None:
-            raise BenchkitError("--gain needs the output and input scales: give --calibration")
-        gain_fs = gain * out_vpk / stage_vpf
-    else:
-        probe = min(min(drive) - 10.0, -40.0)
+        return judge(gain_fs)  # measured already
+    probe = min(min(drive) - 10.0, -40.0)
+    if gain is None:
         gain_fs = probe_gain(backend, frequency_hz, probe, channel)
         say(f"pre-flight: a {probe:g} dBFS step measured {units.db_from_ratio(gain_fs):+.1f} dB from output to input")
-    return preflight.check(drive, gain_fs, stage_vpf, in_vpk, pad, ratio, input_ohms, pad_rating_w, rail_v,
-                           load_ohms, bridged, margin_db)
+        return judge(gain_fs)
+    if out_vpk is None or stage_vpf is None:
+        raise BenchkitError("--gain needs the output and input scales: give --calibration")
+    given_fs = gain * out_vpk / stage_vpf
+    plan = judge(given_fs)  # refused here, the given gain already too high, before anything plays
+    # a given gain is checked against the stage all the same: one low step (a wrong --gain must not
+    # turn the pre-flight off); the plan rests on the higher of the two
+    try:
+        measured_fs = probe_gain(backend, frequency_hz, probe, channel)
+    except NoToneError:
+        return plan  # nothing came back over the noise: less than the given gain, whatever the stage is
+    over_db = units.db_from_ratio(measured_fs / given_fs)
+    if over_db <= GIVEN_GAIN_TOLERANCE_DB:
+        return plan
+    measured = measured_fs * stage_vpf / out_vpk
+    try:
+        plan = judge(measured_fs)
+    except BenchkitError as exc:
+        raise BenchkitError(f"the stage's gain measured {measured:.3g} V/V at a {probe:g} dBFS step, "
+                            f"{over_db:.1f} dB over the {gain:g} V/V given: {exc}") from None
+    note = (f"the stage's gain measured {measured:.3g} V/V at a {probe:g} dBFS step, {over_db:.1f} dB over the "
+            f"{gain:g} V/V given: the pre-flight took the measured gain")
+    return replace(plan, warnings=(*plan.warnings, note))
 
 
 def probe_gain(backend, frequency_hz: float, level_dbfs: float, channel: int = 1) -> float:
@@ -465,6 +491,7 @@ def record_steps(
                 segments[i] = {**seg.to_dict(), "file": r_path.name}
         pending = still
     warnings = list(warnings) + ([stop_note] if stop_note else [])
+    side["stopped_early"] = stop_note
     reported = [i for i in pending if verdicts[i] == "reported"]
     heard = [i for i in pending if verdicts[i] == "heard"]
     if reported:

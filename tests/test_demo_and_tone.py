@@ -69,8 +69,9 @@ def test_tone_on_the_poly_model(tmp_path):
 
 
 def test_capture_is_on_disk_even_when_analysis_refuses(tmp_path):
-    # a silent stage (a gain given, so no pre-flight probe): the analysis
-    # finds no tone, but the capture is kept
+    # a silent stage (a gain given: the probe step hears nothing back, less
+    # than the gain given, so the run goes on): the analysis finds no tone,
+    # but the capture is kept
     res = run_cli("tone", "--sim", "ideal", "--sim-param", "gain=0", "--gain", "1", "--bench", str(tmp_path / "run"))
     assert res.returncode != 0 and "Traceback" not in res.stderr
     assert (the_run(tmp_path / "run") / "capture.wav").is_file()
@@ -120,3 +121,18 @@ def test_models_lists_parameters_with_units():
     assert res.returncode == 0
     for name in ("ideal", "poly", "hard-clip", "se-class-a", "bias [A] = 0.8", "coupling_uf [uF]"):
         assert name in res.stdout
+
+
+def test_a_run_that_stops_early_files_its_steps_and_says_so_in_its_exit_code(tmp_path):
+    # y = x + 5000 x^3 (x in volts): 2 V peak per FS out, so -40 and -30 dBFS
+    # (0.02 and 0.063 V) stay clear while -20 dBFS (0.2 V) makes 40 V peak,
+    # 4 V after the 10:1 pad, twice the input's full scale: the input clips
+    # in the last step, which is not measured; exit 4 (the README's exit codes)
+    res = run_cli("tone", "--sim", "poly", "--sim-param", "gain=1", "--sim-param", "a3=5000", "--level", "-40dBFS",
+                  "--level", "-30dBFS", "--level", "-20dBFS", "--bench", str(tmp_path), "--json")
+    assert res.returncode == 4, res.stderr
+    assert res.stderr.strip().splitlines()[-1].startswith("benchkit: stopped early: the input clipped")
+    doc = json.loads(res.stdout)
+    assert [s["drive_dbfs"] for s in doc["steps"]] == [-40.0, -30.0]
+    listed = json.loads(run_cli("log", "list", "--bench", str(tmp_path), "--json").stdout)["runs"]
+    assert [r["status"] for r in listed] == ["complete"]

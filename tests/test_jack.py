@@ -259,7 +259,7 @@ def test_the_run_stops_stepping_up_when_the_input_clips(server, tmp_path):
     # input clips and the run stops there, the steps before it measured
     with jackbench.Patchbay(server, "poly", a2=12.0):
         rc, out, err = _tone(server, tmp_path / "run", -40.0, -30.0, -12.0, -13.0)
-    assert rc == 0, err
+    assert rc == 4 and "benchkit: stopped early: the input clipped" in err, err  # the README's exit codes
     doc = json.loads(out)
     assert [s["drive_dbfs"] for s in doc["steps"]] == [-40.0, -30.0]
     assert any("stopped stepping up" in w for w in doc["warnings"])

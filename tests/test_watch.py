@@ -185,12 +185,27 @@ def test_ctrl_c_leaves_silence_and_a_valid_run(tmp_path):
 
 
 def test_a_clipping_input_stops_the_watch(tmp_path):
-    # the gain claimed (1) passes the pre-flight; the stage's real gain of 200
-    # (40 V peak, 4 V after the 10:1 pad, twice the input's full scale)
-    # clips the input: the watch fades out and says so
+    # a stage whose gain grows with level passes the pre-flight's low probe
+    # step: y = x + 5000 x^3 makes 0.05 V of 0.02 V at -40 dBFS, but 40 V
+    # peak of 0.2 V at -20 dBFS (4 V after the 10:1 pad, twice the input's
+    # full scale): the input clips, the watch fades out and says it stopped early
+    res = run_cli("watch", "--sim", "poly", "--sim-param", "gain=1", "--sim-param", "a3=5000", "--level", "-20dBFS",
+                  "--plain", "--duration", "5", "--bench", str(tmp_path))
+    assert res.returncode == 4 and "stopped early" in res.stderr and "clipped" in res.stderr, res.stderr
+    assert "Traceback" not in res.stderr
+
+
+def test_a_given_gain_is_checked_against_the_stage(tmp_path):
+    # a --gain of 1 for a stage of gain 200 (46 dB more): the probe step
+    # finds it out, and the pre-flight refuses the level on the measured gain
     res = run_cli("watch", "--sim", "ideal", "--sim-param", "gain=200", "--gain", "1", "--level", "-20dBFS",
                   "--plain", "--duration", "5", "--bench", str(tmp_path))
-    assert res.returncode == 1 and "clipped" in res.stderr and "Traceback" not in res.stderr
+    assert res.returncode == 1 and "Traceback" not in res.stderr
+    assert "measured 200 V/V" in res.stderr and "46.0 dB over the 1 V/V given" in res.stderr
+    # a given gain within a decibel of the stage's is taken as given
+    ok = run_cli("tone", "--sim", "ideal", "--sim-param", "gain=10", "--gain", "10", "--level", "-30dBFS",
+                 "--bench", str(tmp_path), "--json")
+    assert ok.returncode == 0 and "over the" not in ok.stderr, ok.stderr
 
 
 def test_keys_on_a_terminal_hold_reset_and_stop(tmp_path):

@@ -31,7 +31,7 @@ from benchkit import units
 from benchkit.analysis import refuse_non_finite
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.sinefit import RecordLayout, fit_tone
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchkitError, NoToneError
 
 SCHEMA_VERSION = 1
 DEFAULT_BAND_HZ = (20.0, 20000.0)
@@ -330,7 +330,7 @@ def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tupl
     floor = float(np.median(power[kmin:kmax:max(1, (kmax - kmin) // 2048)]))
     if floor > 0 and power[peak] < floor * 10 ** (MIN_TONE_PROMINENCE_DB / 10):
         where = f" near {hint_hz:g} Hz" if hint_hz is not None else ""
-        raise BenchkitError(
+        raise NoToneError(
             f"no tone found{where}: the strongest line stands only "
             f"{units.db_from_power_ratio(power[peak] / floor):.1f} dB above the median spectrum level "
             f"(needs {MIN_TONE_PROMINENCE_DB:g} dB)"
