@@ -103,7 +103,8 @@ _LIVE = {
     "calibration": (Optional[Path], lambda: typer.Option(None, "--calibration", help="Calibration profile (from 'benchkit calibrate'): results in volts at the stage.")),
     "gain": (Optional[float], lambda: typer.Option(None, "--gain", parser=V.number(0.0, above=True, unit="V/V", hint="the gain as a magnitude (an inverting stage by its magnitude); a gain in dB converts as 10^(dB/20): 20 dB is 10"), help="Expected voltage gain of the stage (V/V); without it a low-level step measures it first.")),
     "margin": (float, lambda: typer.Option(3.0, "--margin", parser=V.number(0.0, 40.0, unit="dB"), help="Headroom the top step must keep below the input's full scale, dB.")),
-    "rail": (Optional[float], lambda: typer.Option(None, "--rail", parser=V.VOLTS, help="The stage's supply, V: refuse a pad that lets it overload the input.")),
+    "rail": (Optional[float], lambda: typer.Option(None, "--rail", parser=V.VOLTS, help="The stage's supply, rail to rail, V: its normal swing (half of it) through the pad must stay --margin below full scale; a fault's whole rail is checked against the input's maximum (docs/safety.md).")),
+    "input_max": (Optional[float], lambda: typer.Option(None, "--input-max", parser=V.VOLTS, help="The most the interface's input takes without damage, V peak, as its manual states it: checked against a full-rail fault through the pad (with --rail).")),
     "pad_rating": (Optional[float], lambda: typer.Option(None, "--pad-rating", parser=V.WATTS, help="Power rating of the pad resistors, W.")),
     "btl": (bool, lambda: typer.Option(False, "--btl", help="The stage has a bridged (BTL) output.")),
     "sim": (str, lambda: typer.Option("se-class-a", "--sim", help=_SIM_HELP)),
@@ -549,7 +550,8 @@ def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more:
     real = dict(sample_rate=live["rate"], in_channel=live["in_channel"], out_channel=live["out_channel"],
                 ref_channel=ref_channel, blocksize=live["blocksize"], latency=lat,
                 drive_cap_dbfs=-0.5 if override_drive_cap else live["drive_cap"],
-                volts_per_fs=live["volts_per_fs"], in_device=live["in_device"], **(more or {}))
+                volts_per_fs=live["volts_per_fs"], in_device=live["in_device"], input_max_vpk=live["input_max"],
+                **(more or {}))
     profile = load_profile(calibration) if calibration is not None else None
     if profile is not None:
         if abs(profile.sample_rate_hz - live["rate"]) > 0.5:
@@ -1425,7 +1427,7 @@ def power(
         # the highest drive: the cap, or where the input would come within the margin of full scale
         top = min(cap, -live["margin"] - units.db_from_ratio(gain_fs))
         _err(f"pre-flight: a -40 dBFS step measured {units.db_from_ratio(gain_fs):+.1f} dB from output to input")
-        plan = runs.plan_run(backend, profile, [top], frequency, in_channel, None, live["margin"], None,
+        plan = runs.plan_run(backend, profile, [top], frequency, in_channel, None, live["margin"], live["rail"],
                              live["pad_rating"], load, live["btl"], say=_err, gain_fs=gain_fs)
         for w in plan.warnings:
             _err(f"warning: {w}")
@@ -1661,11 +1663,12 @@ def _ask_reading(backend, level_dbfs: float) -> float:
 
 @app.command()
 def pad(
-    stage_vpk: Optional[float] = typer.Option(None, "--stage-vpk", parser=V.VOLTS, help="Highest voltage the stage can produce at its output, volts peak."),
-    rail: Optional[float] = typer.Option(None, "--rail", parser=V.VOLTS, help="Or its supply rail, volts: the worst case taken as the whole rail (a failed stage can put it there)."),
+    stage_vpk: Optional[float] = typer.Option(None, "--stage-vpk", parser=V.VOLTS, help="The stage's highest output in normal work, volts peak."),
+    rail: Optional[float] = typer.Option(None, "--rail", parser=V.VOLTS, help="Or its supply, rail to rail, volts: its normal swing is taken as half of it, and a fault as the whole rail."),
     input_fs_vpk: float = typer.Option(2.0, "--input-fs", parser=V.VOLTS, help="The interface input's full scale, volts peak."),
+    input_max_vpk: Optional[float] = typer.Option(None, "--input-max", parser=V.VOLTS, help="The most the input takes without damage, volts peak (its manual's rating): a rail fault is checked against it."),
     input_ohms: float = typer.Option(10e3, "--input-ohms", parser=V.ohms, help="The interface input's impedance, ohms."),
-    headroom_db: float = typer.Option(6.0, "--headroom", parser=V.number(0.0, 60.0, unit="dB"), help="How far below full scale the worst case must land, dB."),
+    headroom_db: float = typer.Option(6.0, "--headroom", parser=V.number(0.0, 60.0, unit="dB"), help="How far below full scale the normal swing must land, dB."),
     series: str = typer.Option("E24", "--series", parser=V.one_of("e12", "e24", "e96"), help="Preferred values: E12, E24 or E96 (IEC 60063)."),
     input_noise_dbfs: float = typer.Option(-110.0, "--input-noise", parser=V.number(-200.0, 0.0, unit="dBFS"), help="The input's own noise floor, dBFS, to refer to the stage."),
     check: Optional[List[str]] = typer.Option(None, "--check", parser=V.ohms, help="Judge a pad you have: --check R1 --check R2 (ohms, k/M allowed)."),
@@ -1674,10 +1677,12 @@ def pad(
     """Design an attenuator pad for the stage's output, or check one you have.
 
     Proposes divider pairs from a preferred series whose ratio, with the
-    input's impedance loading it, puts the worst case the headroom below
-    full scale; shows each resistor's power at the worst case with a
-    rating of at least twice it, and the highest stage voltage the pad is
-    safe for.
+    input's impedance loading it, puts the stage's normal swing (--stage-vpk,
+    or half of --rail) the headroom below full scale; says where a fault
+    putting the whole rail on the output lands, against --input-max; shows
+    each resistor's power held at the worst of the two with a rating of at
+    least twice it, and the highest stage voltage the pad is safe for. The
+    rule is the pre-flight's (docs/safety.md).
 
     Example: benchkit pad --rail 24 --input-fs 2.0 --input-ohms 10k
 
@@ -1687,40 +1692,45 @@ def pad(
     pad on both legs. Never connect a speaker output straight to a line input.
     """
     from benchkit import pads as padlib
+    from benchkit.preflight import normal_swing_vpk
 
     try:
-        if check:
-            if len(check) != 2:
-                raise BenchkitError("--check takes two resistances: --check R1 --check R2")
-            if stage_vpk is None and rail is None:
-                raise BenchkitError("give --stage-vpk or --rail to check the pad against")
-        elif stage_vpk is None and rail is None:
+        if check and len(check) != 2:
+            raise BenchkitError("--check takes two resistances: --check R1 --check R2")
+        if stage_vpk is None and rail is None:
             raise BenchkitError("give --stage-vpk (the stage's highest output, V peak) or --rail (its supply, V)")
-        worst = stage_vpk if stage_vpk is not None else rail
+        normal = stage_vpk if stage_vpk is not None else normal_swing_vpk(rail)
         if check:
-            reports = [padlib.judge(padlib.parse_pad(f"{check[0]}:{check[1]}"), worst, input_fs_vpk, input_ohms)]
+            reports = [padlib.judge(padlib.Pad(*check), normal, input_fs_vpk, input_ohms, rail)]
         else:
-            reports = padlib.design(worst, input_fs_vpk, input_ohms, headroom_db, series)
+            reports = padlib.design(normal, input_fs_vpk, input_ohms, headroom_db, series, fault_v=rail)
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
-    basis = f"{worst:g} V {'peak from the stage' if stage_vpk is not None else 'rail (worst case)'}"
-    _err(f"worst case {basis}; input full scale {input_fs_vpk:g} V peak, {input_ohms:g} ohm; headroom {headroom_db:g} dB")
-    _err("    R1 ohm    R2 ohm    ratio      worst at input   safe to (V pk)   P(R1) -> rating   P(R2) -> rating   noise floor at the stage")
+    basis = f"{normal:g} V peak normal swing" + (f" ({rail:g} V rail; a fault: the whole rail)" if rail is not None and stage_vpk is None
+                                                 else f", a fault: the whole {rail:g} V rail" if rail is not None else "")
+    _err(f"{basis}; input full scale {input_fs_vpk:g} V peak, {input_ohms:g} ohm; headroom {headroom_db:g} dB")
+    _err("    R1 ohm    R2 ohm    ratio      normal at input  fault at input   safe to (V pk)   P(R1) -> rating   P(R2) -> rating   noise floor at the stage")
     for r in reports:
         floor_uv = units.rms_from_dbfs(input_noise_dbfs) * input_fs_vpk / r.ratio * 1e6
+        fault = "-" if r.fault_peak_fs is None else f"{units.db_from_ratio(r.fault_peak_fs):+.1f} dBFS"
         _err(f"  {r.pad.r1_ohms:8g}  {r.pad.r2_ohms:8g}  1:{1 / r.ratio:<8.4g}  {units.db_from_ratio(r.input_peak_fs):7.1f} dBFS     "
-             f"{r.max_safe_stage_vpk:10.4g}       {r.r1_watts:7.3g} W -> {r.r1_rating_w:g} W   {r.r2_watts:7.3g} W -> {r.r2_rating_w:g} W   "
-             f"+{r.noise_penalty_db:.1f} dB ({floor_uv:.3g} uVrms)")
+             f"{fault:>10}       {r.max_safe_stage_vpk:10.4g}       {r.r1_watts:7.3g} W -> {r.r1_rating_w:g} W   "
+             f"{r.r2_watts:7.3g} W -> {r.r2_rating_w:g} W   +{r.noise_penalty_db:.1f} dB ({floor_uv:.3g} uVrms)")
         if r.input_peak_fs > 10 ** (-headroom_db / 20) * (1 + 1e-9):
-            _err(f"  warning: the worst case lands at {units.db_from_ratio(r.input_peak_fs):.1f} dBFS: less than {headroom_db:g} dB of headroom")
-    _err("  ratings are at least twice the worst-case power; balanced inputs need the pad on both legs;"
+            _err(f"  warning: the normal swing lands at {units.db_from_ratio(r.input_peak_fs):.1f} dBFS: less than "
+                 f"{headroom_db:g} dB of headroom (the pre-flight refuses a run past its --margin, 3 dB by default)")
+        if r.fault_v is not None and input_max_vpk is not None and r.fault_v * r.ratio > input_max_vpk:
+            _err(f"  warning: a rail fault would put {r.fault_v * r.ratio:.3g} V peak on the input, over its stated "
+                 f"maximum of {input_max_vpk:g} V peak: the pre-flight refuses this pad with --rail {rail:g}")
+    _err("  ratings are at least twice the power held at the worst case; balanced inputs need the pad on both legs;"
          " keep the interface's ground and a bridged output apart")
     if as_json:
         from benchkit.report.tables import dumps
 
-        print(dumps({"kind": "pads", "schema_version": 1, "worst_stage_v": worst, "input_fs_vpk": input_fs_vpk,
-                     "input_ohms": input_ohms, "headroom_db": headroom_db, "pads": [r.to_dict() for r in reports]}))
+        print(dumps({"kind": "pads", "schema_version": 2, "normal_stage_vpk": normal, "rail_v": rail,
+                     "input_fs_vpk": input_fs_vpk, "input_max_vpk": input_max_vpk, "input_ohms": input_ohms,
+                     "headroom_db": headroom_db, "pads": [r.to_dict() for r in reports]}))
 
 
 @app.command()

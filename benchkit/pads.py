@@ -126,6 +126,8 @@ class PadReport:
     r1_rating_w: float
     r2_rating_w: float
     noise_penalty_db: float  # the interface's floor, referred to the stage, rises by this
+    fault_v: float | None = None  # a fault's whole rail on the stage's output, V (powers held at it)
+    fault_peak_fs: float | None = None  # where that fault lands at the input, FS
 
     def to_dict(self) -> dict:
         return {
@@ -134,23 +136,28 @@ class PadReport:
             "max_safe_stage_vpk": self.max_safe_stage_vpk,
             "r1_watts": self.r1_watts, "r2_watts": self.r2_watts,
             "r1_rating_w": self.r1_rating_w, "r2_rating_w": self.r2_rating_w,
-            "noise_penalty_db": self.noise_penalty_db,
+            "noise_penalty_db": self.noise_penalty_db, "fault_v": self.fault_v, "fault_peak_fs": self.fault_peak_fs,
         }
 
 
-def judge(pad: Pad, worst_stage_v: float, input_fs_vpk: float, input_ohms: float) -> PadReport:
-    """Evaluate a pad: ratio loaded by the input, where the worst case lands,
-    resistor powers with the worst case held as DC (a failed stage can put
-    its rail there: V^2/R, circuit theory) and ratings of at least 2x."""
+def judge(pad: Pad, worst_stage_v: float, input_fs_vpk: float, input_ohms: float,
+          fault_v: float | None = None) -> PadReport:
+    """Evaluate a pad: ratio loaded by the input, where the stage's highest
+    normal swing ``worst_stage_v`` lands, where a fault's ``fault_v`` (its
+    whole rail) lands, resistor powers with the larger of the two held as
+    DC (a failed stage can put its rail there: V^2/R, circuit theory) and
+    ratings of at least 2x."""
     ratio = pad.ratio(input_ohms)
-    v_out = worst_stage_v * ratio
-    p1 = (worst_stage_v - v_out) ** 2 / pad.r1_ohms if pad.r1_ohms > 0 else 0.0
+    held = max(worst_stage_v, fault_v or 0.0)
+    v_out = held * ratio
+    p1 = (held - v_out) ** 2 / pad.r1_ohms if pad.r1_ohms > 0 else 0.0
     p2 = v_out**2 / pad.r2_ohms
     return PadReport(
-        pad=pad, ratio=ratio, worst_stage_v=worst_stage_v, input_peak_fs=v_out / input_fs_vpk,
+        pad=pad, ratio=ratio, worst_stage_v=worst_stage_v, input_peak_fs=worst_stage_v * ratio / input_fs_vpk,
         max_safe_stage_vpk=input_fs_vpk / ratio, r1_watts=p1, r2_watts=p2,
         r1_rating_w=suggested_rating(p1), r2_rating_w=suggested_rating(p2),
-        noise_penalty_db=-units.db_from_ratio(ratio),
+        noise_penalty_db=-units.db_from_ratio(ratio), fault_v=fault_v,
+        fault_peak_fs=None if fault_v is None else fault_v * ratio / input_fs_vpk,
     )
 
 
@@ -162,10 +169,12 @@ def design(
     series: str = "E24",
     shunt_range: tuple[float, float] = (100.0, 2200.0),
     count: int = 5,
+    fault_v: float | None = None,
 ) -> list[PadReport]:
-    """Pads from a preferred series whose loaded ratio puts the worst case
-    ``headroom_db`` below the input's full scale (or a little lower), the
-    closest first.
+    """Pads from a preferred series whose loaded ratio puts the stage's
+    highest normal swing ``worst_stage_v`` ``headroom_db`` below the
+    input's full scale (or a little lower), the closest first; each judged
+    with ``fault_v`` too (:func:`judge`).
 
     R2 is kept low (100 ohm to 2.2 k by default) so that the input's own
     impedance and its spread barely move the ratio, and the pad adds little
@@ -175,7 +184,7 @@ def design(
         raise BenchkitError("the stage voltage, the input full scale and its impedance must be positive")
     target = input_fs_vpk * 10 ** (-headroom_db / 20) / worst_stage_v
     if target >= 1.0:
-        return [judge(Pad(0.0, math.inf), worst_stage_v, input_fs_vpk, input_ohms)]
+        return [judge(Pad(0.0, math.inf), worst_stage_v, input_fs_vpk, input_ohms, fault_v)]
     found = []
     r1s = values(series, 10.0, 10e6)
     for r2 in values(series, *shunt_range):
@@ -185,6 +194,6 @@ def design(
         r1 = next((v for v in r1s if v >= exact_r1 * (1 - 1e-9)), None)
         if r1 is None:
             continue
-        found.append(judge(Pad(r1, r2), worst_stage_v, input_fs_vpk, input_ohms))
+        found.append(judge(Pad(r1, r2), worst_stage_v, input_fs_vpk, input_ohms, fault_v))
     found.sort(key=lambda rep: (abs(units.db_from_ratio(rep.ratio / target)), rep.pad.r2_ohms))
     return found[:count]

@@ -22,6 +22,48 @@ from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
 
 DEFAULT_MARGIN_DB = 3.0
+
+
+def normal_swing_vpk(rail_v: float, bridged: bool = False) -> float:
+    """The largest swing a stage on a supply of ``rail_v`` (rail to rail)
+    makes in normal work, volts peak: half the supply either way about
+    the output's resting point (circuit theory: an output cannot go past
+    its rails), the whole supply across a bridged (BTL) pair."""
+    return rail_v if bridged else rail_v / 2
+
+
+def rail_rule(rail_v: float, ratio: float, input_fs_vpk: float, margin_db: float = DEFAULT_MARGIN_DB,
+              input_max_vpk: float | None = None, bridged: bool = False) -> tuple[str, ...]:
+    """The one rule for a stated rail, alike in every command (docs/safety.md):
+
+    1. the stage's normal swing (:func:`normal_swing_vpk`) through the pad
+       must stay ``margin_db`` below the input's full scale: refused otherwise;
+    2. a fault that puts the whole rail on the output, through the pad, is
+       compared with the input's stated maximum: refused above it (it would
+       damage the input); above full scale with the maximum unknown, or
+       under a stated maximum, a warning.
+
+    Returns the warnings; raises BenchkitError on a refusal."""
+    normal = normal_swing_vpk(rail_v, bridged) * ratio
+    limit = input_fs_vpk * units.ratio_from_db(-margin_db)
+    if normal > limit:
+        need = normal_swing_vpk(rail_v, bridged) / limit
+        raise BenchkitError(
+            f"the pad (1:{1 / ratio:.4g}) would let the stage's normal swing on a {rail_v:g} V rail "
+            f"({normal_swing_vpk(rail_v, bridged):g} V peak) reach {units.db_from_ratio(normal / input_fs_vpk):+.1f} dBFS at "
+            f"the input, over the {-margin_db:g} dBFS limit: use a pad of at least 1:{need:.3g} (benchkit pad --rail {rail_v:g})")
+    fault = rail_v * ratio
+    fault_dbfs = units.db_from_ratio(fault / input_fs_vpk)
+    if input_max_vpk is not None and fault > input_max_vpk:
+        raise BenchkitError(
+            f"a fault putting the whole {rail_v:g} V rail on the output would reach {quantity(fault, 'V', 3)} peak at the "
+            f"input, over its stated maximum of {input_max_vpk:g} V peak: use a pad of at least 1:{rail_v / input_max_vpk:.3g}")
+    if fault > input_fs_vpk:
+        within = (f"under the input's stated maximum of {input_max_vpk:g} V peak" if input_max_vpk is not None
+                  else "check the interface's maximum input rating (--input-max)")
+        return (f"a fault putting the whole {rail_v:g} V rail on the output would reach {fault_dbfs:+.1f} dBFS at the "
+                f"input ({quantity(fault, 'V', 3)} peak): over full scale, {within}",)
+    return ()
 #: The lowest step landing below this at the input is close to a typical
 #: interface's floor (common practice: keep 30 dB or more above it).
 NEAR_FLOOR_DBFS = -80.0
@@ -50,6 +92,7 @@ def check(
     load_ohms: float | None = None,
     bridged: bool = False,
     margin_db: float = DEFAULT_MARGIN_DB,
+    input_max_vpk: float | None = None,
 ) -> Plan:
     """Predict a run and refuse it if it would overload anything.
 
@@ -66,7 +109,9 @@ def check(
     pad_rating_w : float, optional
         Power rating of the pad resistors.
     rail_v : float, optional
-        The stage's supply: its worst case must not overload the input.
+        The stage's supply, judged by :func:`rail_rule`.
+    input_max_vpk : float, optional
+        The most the input takes without damage, volts peak (its manual's rating).
     load_ohms, bridged
         For the warnings.
     """
@@ -82,15 +127,9 @@ def check(
         )
     stage = tuple(p * stage_volts_per_fs if stage_volts_per_fs else None for p in peaks)
     ratio = pad.ratio(input_ohms) if pad is not None else pad_ratio
+    rail_notes = ()
     if rail_v is not None and input_vpk_per_fs and ratio is not None:
-        at_input = rail_v * ratio
-        if at_input > input_vpk_per_fs * limit:
-            need = rail_v / (input_vpk_per_fs * limit)
-            raise BenchkitError(
-                f"the pad (1:{1 / ratio:.4g}) would let the {rail_v:g} V rail put {quantity(at_input, 'V', 3)} on an input "
-                f"whose full scale is {input_vpk_per_fs:g} V peak: use a pad of at least 1:{need:.3g} "
-                f"(benchkit pad --rail {rail_v:g})"
-            )
+        rail_notes = rail_rule(rail_v, ratio, input_vpk_per_fs, margin_db, input_max_vpk, bridged)
     if pad is not None and pad_rating_w is not None and stage[0] is not None:
         worst = max(v for v in stage if v is not None)
         p1, p2 = pad.resistor_watts(units.vrms_from_vpk(worst), input_ohms)
@@ -100,7 +139,7 @@ def check(
                     f"pad resistor {name} would dissipate {quantity(p, 'W', 3)} at the top step, over its {pad_rating_w:g} W "
                     "rating: use a higher rating or lower the drive"
                 )
-    warnings = []
+    warnings = list(rail_notes)
     if (ratio is None or ratio >= 1.0) and load_ohms is not None:
         warnings.append("no pad between a power stage and the input: one fault and the input takes the stage's full swing")
     low = units.db_from_ratio(min(peaks))

@@ -285,7 +285,7 @@ def plan_run(backend, profile, drive, frequency_hz, channel, gain, margin_db, ra
         raise BenchkitError("--load and --pad-rating need volts at the stage: give --calibration (or --volts-per-fs)")
     def judge(g: float):
         return preflight.check(drive, g, stage_vpf, in_vpk, pad, ratio, input_ohms, pad_rating_w, rail_v,
-                               load_ohms, bridged, margin_db)
+                               load_ohms, bridged, margin_db, getattr(backend, "input_max_vpk", None))
 
     if gain_fs is not None:
         return judge(gain_fs)  # measured already

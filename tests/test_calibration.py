@@ -218,3 +218,50 @@ def test_dc_at_a_dc_coupled_stage_output_is_warned_about(tmp_path):
     r = steps.steps[0].result
     assert r.dc_fs * r.volts_per_fs == pytest.approx(0.5 * (2.0 * 10 ** (-6 / 20)) ** 2 / 2, rel=0.02)
     assert any("of DC at the stage's output" in w for w in r.warnings)
+
+
+# --- the rail rule (docs/safety.md) ----------------------------------------------------
+
+
+def _loaded_ratio(r1: float, r2: float, rin: float = 10e3) -> float:
+    shunt = r2 * rin / (r2 + rin)  # circuit theory: the input's impedance across R2
+    return shunt / (r1 + shunt)
+
+
+def test_the_rail_rule_by_hand():
+    from benchkit.preflight import rail_rule
+
+    ratio = _loaded_ratio(1800.0, 200.0)
+    # 24 V rail: a normal swing of 12 V peak lands at 20 log10(12 r / 2) dBFS, accepted;
+    # the whole rail at 20 log10(24 r / 2), over full scale: a warning naming it
+    (note,) = rail_rule(24.0, ratio, 2.0, 3.0, input_max_vpk=10.0)
+    assert f"{20 * math.log10(24 * ratio / 2):+.1f} dBFS" in note and "under the input's stated maximum" in note
+    # a bridged pair swings the whole rail: 24 r / 2 is over -3 dBFS: refused
+    with pytest.raises(BenchkitError, match="normal swing"):
+        rail_rule(24.0, ratio, 2.0, 3.0, bridged=True)
+    # a stated maximum of 2.2 V peak: the fault's 24 r = 2.36 V would damage the input: refused
+    with pytest.raises(BenchkitError, match="stated maximum of 2.2 V"):
+        rail_rule(24.0, ratio, 2.0, 3.0, input_max_vpk=2.2)
+    assert rail_rule(12.0, ratio, 2.0, 3.0) == ()  # 12 r = 1.18 V: under full scale, nothing to say
+
+
+@pytest.mark.parametrize("pad, accepted", [("1.8k:200", True), ("1k:200", False)])
+def test_one_rail_rule_in_every_command(tmp_path, pad, accepted):
+    # the demo's 10:1 pad passes a 24 V rail's normal swing (-4.6 dBFS), a
+    # 6:1 pad does not (12 V x 0.164 = 1.97 V peak, -0.1 dBFS): tone, power
+    # and pad --check say the same (the power run itself is beside the
+    # point: a limit of 0.5 % lies in the noise of its first step and ends it there)
+    ratio = _loaded_ratio(*(pads.parse_pad(pad).r1_ohms, pads.parse_pad(pad).r2_ohms))
+    for command in (("tone", "--level", "-30dBFS"), ("power", "--load", "8", "--bias", "0.8", "--limit", "0.5")):
+        res = run_cli(*command, "--rail", "24", "--sim-pad", pad, "--bench", str(tmp_path / command[0]))
+        assert _nothing_played(tmp_path / command[0]) != accepted, res.stderr  # past the pre-flight, a run is filed
+        if not accepted:
+            assert "normal swing on a 24 V rail" in res.stderr and _nothing_played(tmp_path / command[0])
+        else:
+            assert f"would reach {20 * math.log10(24 * ratio / 2):+.1f} dBFS" in res.stderr
+    r1, r2 = pad.split(":")
+    chk = run_cli("pad", "--rail", "24", "--check", r1, "--check", r2, "--json")
+    one = json.loads(chk.stdout)["pads"][0]
+    assert one["input_peak_fs"] == pytest.approx(12 * ratio / 2.0, rel=1e-9)
+    assert one["fault_peak_fs"] == pytest.approx(24 * ratio / 2.0, rel=1e-9)
+    assert (one["input_peak_fs"] <= 10 ** (-3 / 20)) == accepted

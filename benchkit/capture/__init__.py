@@ -105,6 +105,8 @@ class Backend(Protocol):
     n_outputs: int
     #: volts peak at the driven output per FS, when known
     output_vpk_per_fs: float | None
+    #: the most an input takes without damage, volts peak, when stated
+    input_max_vpk: float | None
 
     def inputs(self) -> tuple[InputChannel, ...]:
         """The inputs, with their roles and known scales."""

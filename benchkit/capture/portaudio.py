@@ -135,6 +135,9 @@ class PortAudioBackend:
     more_inputs, more_outputs : tuple of int
         Further inputs recorded and outputs played (a stereo stage's
         second channel); a further input takes ``volts_per_fs`` too.
+    input_max_vpk : float, optional
+        The most the inputs take without damage, volts peak, as the
+        interface's manual states it (the pre-flight's fault check).
     """
 
     def __init__(
@@ -152,6 +155,7 @@ class PortAudioBackend:
         in_device: str | None = None,
         more_inputs: tuple[int, ...] = (),
         more_outputs: tuple[int, ...] = (),
+        input_max_vpk: float | None = None,
     ):
         self.sd = _sd()
         self.info = find_device(device)
@@ -181,6 +185,7 @@ class PortAudioBackend:
         self.volts_per_fs = volts_per_fs
         self.watchdog_s = watchdog_s
         self.output_vpk_per_fs = None  # known only from a calibration
+        self.input_max_vpk = input_max_vpk  # as its manual states it (--input-max), else unknown
         self.lead_s = LEAD_S
         self._abort = threading.Event()
 

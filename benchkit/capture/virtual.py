@@ -50,6 +50,8 @@ class InterfaceSpec:
     n_outputs: int = 2
     output_vpk_per_fs: float = 2.0
     input_vpk_per_fs: float = 2.0
+    #: the most the input takes without damage, volts peak (invented, as a manual would state it)
+    input_max_vpk: float = 10.0
     input_ohms: float = 10e3
     dac_noise_dbfs: float = -110.0  # over 20 Hz to 20 kHz
     adc_noise_dbfs: float = -110.0
@@ -212,6 +214,10 @@ class VirtualBench:
     @property
     def output_vpk_per_fs(self) -> float:
         return self.spec.output_vpk_per_fs
+
+    @property
+    def input_max_vpk(self) -> float:
+        return self.spec.input_max_vpk
 
     def pad_ratio(self) -> float:
         return 1.0 if self.pad is None else self.pad.ratio(self.spec.input_ohms)
