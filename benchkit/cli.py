@@ -112,7 +112,7 @@ _LIVE = {
     "sim_pad": (str, lambda: typer.Option("demo", "--sim-pad", parser=V.SIM_PAD, help="Simulated pad R1:R2 in ohms, 'none', or 'demo' (1.8k:200).")),
     "seed": (int, lambda: typer.Option(1, "--seed", parser=V.SEED, help="Seed of the virtual bench (latency, noise).")),
     "sim_stereo": (bool, lambda: typer.Option(False, "--sim-stereo", help="The virtual stage is stereo: output 2 drives channel B, read on input 3 (input 4 its reference); --sim-param crosstalk_1k_db, crosstalk_flat_db, balance_db set what couples them.")),
-    "sim_load": (Optional[str], lambda: typer.Option(None, "--sim-load", parser=V.SIM_LOAD, help="The virtual stage's dummy load: ohms, or 'off' (the pad alone loads it); default the model's own (8 ohm).")),
+    "sim_load": (Optional[str], lambda: typer.Option(None, "--sim-load", parser=V.SIM_LOAD, help="The virtual stage's dummy load: ohms, or 'off' (the pad alone loads it); default the command's --load, else the model's own (8 ohm).")),
 }
 
 
@@ -463,11 +463,13 @@ def _analyze_imd(rec, imd_method: str | None, volts_per_fs, load, out) -> dict:
 
 
 def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pad: str, seed: int, real: dict | None = None,
-                  stereo: bool = False):
-    """The capture backend a command asked for; says on stderr which."""
+                  stereo: bool = False, load: float | None = None):
+    """The capture backend a command asked for; says on stderr which.
+    ``load``: the load the virtual stage drives (ohms), where the model
+    takes one and --sim-param does not set it."""
     from benchkit import pads
     from benchkit.capture import resolve_device
-    from benchkit.capture.stages import parse_params
+    from benchkit.capture.stages import model_params, parse_params
     from benchkit.capture.virtual import DEMO_PAD, virtual_bench
 
     name = resolve_device(device)
@@ -481,7 +483,10 @@ def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pa
         return backend
     pad = DEMO_PAD if sim_pad == "demo" else pads.parse_pad(sim_pad)
     rate = (real or {}).get("sample_rate", 48000.0)
-    bench = virtual_bench(sim, parse_params(sim_params), pad=pad, seed=seed, stereo=stereo, sample_rate_hz=rate)
+    params = parse_params(sim_params)
+    if load is not None and "load" not in params and any(p.name == "load" for p in model_params(sim)):
+        params["load"] = load
+    bench = virtual_bench(sim, params, pad=pad, seed=seed, stereo=stereo, sample_rate_hz=rate)
     pad_text = "no pad" if pad is None else f"pad {pad.r1_ohms:g}:{pad.r2_ohms:g} ohm ({1 / bench.pad_ratio():.2f}:1)"
     _err(f"device: virtual bench (simulated interface, {'stereo ' if stereo else ''}stage {sim}, {pad_text}); "
          "nothing is played")
@@ -527,7 +532,7 @@ def _given_band(text: str, default: str = _BAND) -> tuple[float, ...]:
 
 
 def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more: dict | None = None,
-                within: tuple = ()):
+                within: tuple = (), load: float | None = None):
     """Open the backend a live command asked for, with its profile: says
     on stderr what it uses and warns of an overridden drive cap. ``stereo``
     makes the virtual stage stereo whatever --sim-stereo says; ``more``
@@ -535,7 +540,9 @@ def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more:
     holds (flag, frequencies) the command plays or analyses: each must lie
     below half the sample rate. Everything is checked before anything
     plays: the frequencies, the profile's rate, the channel numbers
-    against the device."""
+    against the device. On the virtual bench the stage drives ``load`` (the
+    command's --load) unless --sim-load or --sim-param load=... says
+    otherwise: one load, the one the figures are worked out for."""
     half = live["rate"] / 2
     for flag, freqs in within:
         for f in freqs:
@@ -559,22 +566,24 @@ def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more:
                                 f"asks for {live['rate']:g} Hz: an interface's scale can differ between rates; "
                                 f"calibrate at {live['rate']:g} Hz, or give --rate {profile.sample_rate_hz:g}")
         real["volts_per_fs"] = profile.stage_volts_per_fs
+    sim_load = live["sim_load"]
+    told = any(item.partition("=")[0].strip() == "load" for item in live["sim_param"])
+    if sim_load is not None:
+        wanted, switch = (None if sim_load.strip().lower() == "off" else V.ohms(sim_load)), True
+    else:
+        wanted, switch = (None if told else load), load is not None and not told
     backend = _open_backend(live["device"], live["sim"], live["sim_param"], live["sim_pad"], live["seed"], real,
-                            stereo or live["sim_stereo"])
+                            stereo or live["sim_stereo"], wanted)
     n_in, n_out = len(backend.inputs()), backend.n_outputs
-    wanted = [("--in-channel", live["in_channel"], n_in, "input"), ("--ref-channel", ref_channel, n_in, "input"),
+    asked = [("--in-channel", live["in_channel"], n_in, "input"), ("--ref-channel", ref_channel, n_in, "input"),
               ("--out-channel", live["out_channel"], n_out, "output")]
-    wanted += [("an input", n, n_in, "input") for n in (more or {}).get("more_inputs", ())]
-    wanted += [("an output", n, n_out, "output") for n in (more or {}).get("more_outputs", ())]
-    for flag, number, count, what in wanted:
+    asked += [("an input", n, n_in, "input") for n in (more or {}).get("more_inputs", ())]
+    asked += [("an output", n, n_out, "output") for n in (more or {}).get("more_outputs", ())]
+    for flag, number, count, what in asked:
         if number is not None and number > count:
             raise BenchkitError(f"{flag} {number}: {backend.name} has {count} {what}s (numbered from 1)")
-    if live["sim_load"] is not None and backend.name == "virtual":
-        text = live["sim_load"].strip().lower()
-        try:
-            backend.connect_load(None if text == "off" else float(text))
-        except ValueError:
-            raise BenchkitError(f"--sim-load is ohms or 'off', got {live['sim_load']!r}") from None
+    if backend.name == "virtual" and switch:
+        backend.connect_load(wanted)  # a model without a load of its own: its output resistance meets this one
     if profile is not None:
         if backend.name != "virtual":  # the virtual bench knows its own output
             backend.output_vpk_per_fs = profile.output_vpk_per_fs
@@ -692,7 +701,8 @@ def tone(
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
-        backend, profile = _live_setup(live, ref_channel, within=(("--freq", [frequency]), ("--bandwidth", _given_band(bandwidth))))
+        backend, profile = _live_setup(live, ref_channel, load=load,
+                                       within=(("--freq", [frequency]), ("--bandwidth", _given_band(bandwidth))))
         in_channel, calibration = live["in_channel"], live["calibration"]
         preflight = dict(gain=live["gain"], margin_db=live["margin"], rail_v=live["rail"],
                          pad_rating_w=live["pad_rating"], bridged=live["btl"])
@@ -757,7 +767,8 @@ def watch(
         if record_audio and not record:
             raise BenchkitError("--record-audio goes with --record")
         band = units.parse_band(bandwidth)
-        backend, profile = _live_setup(live, ref_channel, within=(("--freq", [frequency]), ("--bandwidth", _given_band(bandwidth))))
+        backend, profile = _live_setup(live, ref_channel, load=load,
+                                       within=(("--freq", [frequency]), ("--bandwidth", _given_band(bandwidth))))
         in_channel, calibration = live["in_channel"], live["calibration"]
         drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
         check_level(drive)
@@ -1012,7 +1023,7 @@ def noise(
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth) or (20.0, 20000.0)
-        backend, profile = _live_setup(live, None, within=(("--bandwidth", _given_band(bandwidth)),))
+        backend, profile = _live_setup(live, None, load=load, within=(("--bandwidth", _given_band(bandwidth)),))
         in_channel, calibration = live["in_channel"], live["calibration"]
         reference_vrms, reference = None, None
         if ref_vrms is not None:
@@ -1116,7 +1127,8 @@ def imd(
 
     with _live_run(), _logbook(filing) as (book, labels):
         twin = twin_tone(method, *(units.parse_tones(tones) if tones else (None, None)), ratio)
-        backend, profile = _live_setup(live, ref_channel, within=(("--tones", (twin.f1_hz, twin.f2_hz) if tones else ()),))
+        backend, profile = _live_setup(live, ref_channel, load=load,
+                                       within=(("--tones", (twin.f1_hz, twin.f2_hz) if tones else ()),))
         in_channel, calibration = live["in_channel"], live["calibration"]
         drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]
         for d in drive:
@@ -1289,7 +1301,7 @@ def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: fl
     from benchkit import runs
     from benchkit.signals import check_level
 
-    backend, profile = _live_setup(live, ref_channel, **setup)
+    backend, profile = _live_setup(live, ref_channel, load=load, **setup)
     if ref_channel is None:
         ref_channel = backend.reference_input() if backend.name == "virtual" else None
     drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
@@ -1344,7 +1356,7 @@ def sweep(
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
         f1, f2 = units.parse_band(span) or (0.0, 0.0)
-        backend, profile = _live_setup(live, ref_channel,
+        backend, profile = _live_setup(live, ref_channel, load=load,
             within=(("--span", _given_band(span, _SPAN)), ("--at", freqs), ("--bandwidth", _given_band(bandwidth))))
         in_channel, calibration = live["in_channel"], live["calibration"]
         preflight = dict(gain=live["gain"], margin_db=live["margin"], rail_v=live["rail"],
@@ -1418,7 +1430,7 @@ def power(
             raise BenchkitError("--precondition needs --rated-power (it holds 1/8 of it)")
         if precondition_s is not None and not precondition_run:
             raise BenchkitError("--precondition-s goes with --precondition")
-        backend, profile = _live_setup(live, ref_channel, within=(("--freq", [frequency]),))
+        backend, profile = _live_setup(live, ref_channel, load=load, within=(("--freq", [frequency]),))
         in_channel, calibration = live["in_channel"], live["calibration"]
         if ref_channel is None and backend.name == "virtual":
             ref_channel = backend.reference_input()

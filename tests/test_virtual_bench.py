@@ -21,7 +21,7 @@ from benchkit.errors import BenchkitError
 from benchkit.pads import Pad, parse_pad
 from benchkit.runs import tone_run
 from benchkit.signals import stepped_tones
-from conftest import GlitchingBench
+from conftest import GlitchingBench, run_cli
 
 RATE = 48000
 HI = RATE * OVERSAMPLE
@@ -299,3 +299,19 @@ def test_a_run_stops_stepping_up_once_the_input_clips(tmp_path):
     assert [s.drive_dbfs for s in steps.steps] == [-40.0, -30.0]
     assert all(s.result.valid for s in steps.steps)
     assert any("stopped stepping up" in w and "-17 dBFS step" in w and "3 step(s)" in w for w in steps.warnings)
+
+
+@pytest.mark.parametrize("args, clips", [
+    (("--load", "4"), True),  # the stage drives the load stated: its swing ends at I R = 0.8 A x 4 ohm = 3.2 V
+    (("--load", "8"), False),  # I R = 6.4 V: 4.5 V peak is clear of it
+    (("--load", "4", "--sim-param", "load=8"), False),  # told otherwise: the model keeps its 8 ohm
+    (("--load", "8", "--sim-load", "4"), True),  # --sim-load is the simulated load itself
+])
+def test_the_virtual_stage_drives_the_load_the_command_states(tmp_path, args, clips):
+    # se-class-a at 0.8 A bias (circuit theory: a constant-current pull-up
+    # lifts the load no higher than I_bias x R_L): -13 dBFS is 0.448 V peak
+    # in, 4.48 V peak out at gain 10; into 4 ohm the positive half clips
+    res = run_cli("tone", "--level", "-13dBFS", *args, "--bench", str(tmp_path), "--json")
+    assert res.returncode == 0, res.stderr
+    thdn = json.loads(res.stdout)["steps"][0]["thdn_pct"]
+    assert (thdn > 3.0) if clips else (thdn < 1.0), thdn

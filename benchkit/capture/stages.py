@@ -386,6 +386,12 @@ def split_stereo(params: dict[str, float]) -> tuple[dict[str, float], dict[str, 
 MODELS: dict[str, type[StageModel]] = {m.NAME: m for m in (Ideal, Poly, HardClip, SingleEndedClassA)}
 
 
+def model_params(name: str) -> tuple[Param, ...]:
+    """The parameters the named model takes (none for an unknown name:
+    :func:`make_stage` refuses it)."""
+    return MODELS[name].PARAMS if name in MODELS else ()
+
+
 def make_stage(name: str, params: dict[str, float] | None = None, seed: int = 0) -> StageModel:
     """A stage model by name with parameters overridden."""
     if name not in MODELS:
