@@ -95,7 +95,7 @@ _LIVE = {
     "in_channel": (int, lambda: typer.Option(1, "--in-channel", parser=V.CHANNEL, help="Input carrying the stage output (through the pad), from 1.")),
     "out_channel": (int, lambda: typer.Option(1, "--out-channel", parser=V.CHANNEL, help="Output driving the stage, from 1 (real devices).")),
     "rate": (float, lambda: typer.Option(48000.0, "--rate", parser=V.RATE, help="Sample rate, Hz.")),
-    "blocksize": (int, lambda: typer.Option(1024, "--blocksize", parser=V.number(16, 16384, integer=True), help="Frames per audio callback (real devices).")),
+    "blocksize": (int, lambda: typer.Option(1024, "--blocksize", parser=V.number(16, 16384, integer=True), help="Frames per audio callback (real devices; on a JACK server its period rules).")),
     "latency": (str, lambda: typer.Option("high", "--latency", parser=V.LATENCY, help="Stream latency: low, high, or seconds (real devices).")),
     "drive_cap": (float, lambda: typer.Option(-12.0, "--drive-cap", parser=V.number(-120.0, -0.5, unit="dBFS", hint="more drive needs --override-drive-cap"), help="Highest drive a real device may get, dBFS peak.")),
     "override_drive_cap": (bool, lambda: typer.Option(False, "--override-drive-cap", help="Allow up to -0.5 dBFS on a real device: can overload a stage, a pad or a speaker.")),

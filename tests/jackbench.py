@@ -128,6 +128,28 @@ class Patchbay:
     def stalled(self) -> bool:
         return "stalled" in self.lines
 
+    def interrupt(self, proc) -> None:
+        """Send benchkit (``proc``) SIGINT, the patch bay noting the JACK
+        frame it was sent at (it hears the output: loopback mode)."""
+        self.proc.send_signal(signal.SIGUSR1)  # its handler reads the server's frame clock
+        deadline = time.monotonic() + 10
+        while not any(line.startswith("marked") for line in self.lines) and time.monotonic() < deadline:
+            time.sleep(0.0005)
+        proc.send_signal(signal.SIGINT)
+
+    def frames_to_silence(self) -> int:
+        """Frames from the SIGINT of :meth:`interrupt` to the output's
+        last sample above 1e-6 FS (plus one): when it went silent, as the
+        server's frame clock counts."""
+        self.proc.send_signal(signal.SIGUSR2)
+        deadline = time.monotonic() + 10
+        while time.monotonic() < deadline:
+            got = [line for line in self.lines if line.startswith("silence")]
+            if got:
+                return int(got[-1].split()[1])
+            time.sleep(0.01)
+        raise RuntimeError("the patch bay did not report")
+
     def close(self):
         if self.proc.poll() is None:
             self.proc.terminate()
@@ -167,7 +189,18 @@ class _PatchClient:
             self.out2 = self.client.outports.register("out2")
             self.ports.append(self.out2)
         self.client.set_process_callback(self._process)
+        self.mark, self.last_sound = None, None  # frames: the SIGINT sent, the output's last sound
+        signal.signal(signal.SIGUSR1, self._mark)
+        signal.signal(signal.SIGUSR2, self._report)
         self.client.activate()
+
+    def _mark(self, *_):
+        # the frame counting at the server now (jack_frame_time: the last cycle's start plus the time since)
+        self.mark = self.client.frame_time
+        print(f"marked {self.mark}", flush=True)
+
+    def _report(self, *_):
+        print(f"silence {self.last_sound - self.mark}", flush=True)
 
     def _process(self, frames):
         x = self.inp.get_array()
@@ -182,6 +215,9 @@ class _PatchClient:
             y2[:] = b + self.a2 * a
         else:
             y[:] = x
+            loud = np.flatnonzero(np.abs(x) > 1e-6)
+            if loud.size:  # the frame after the output's last sound, so far
+                self.last_sound = self.client.last_frame_time + int(loud[-1]) + 1
         if self.stall_after is not None and not self.stalled and self.wired:
             # the stream's own time, counted from what it plays (blocks
             # above -23 dBFS: the tones, not the -26 dBFS marker), so that

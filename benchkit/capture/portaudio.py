@@ -20,6 +20,8 @@ everything else runs where PortAudio is absent.
 
 from __future__ import annotations
 
+import contextlib
+import signal
 import threading
 import time
 from pathlib import Path
@@ -54,10 +56,26 @@ class CaptureInterrupted(BenchkitError):
         self.device_lost = device_lost
 
 
+@contextlib.contextmanager
+def _signals_to_this_thread():
+    """Keep Ctrl-C (SIGINT) and SIGTERM away from the threads PortAudio and
+    its audio server's client library start in here: they inherit this
+    thread's blocked signals. A signal the kernel hands to an audio thread
+    reaches Python only when the main thread next wakes by itself (up to
+    one poll, 20 ms, later): the fade would start a period late."""
+    masked = {signal.SIGINT, signal.SIGTERM}
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, masked)
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+
+
 def _sd():
     """sounddevice, or a one-line reason why not."""
     try:
-        import sounddevice
+        with _signals_to_this_thread():  # importing it starts PortAudio (and, on JACK, a client)
+            import sounddevice
     except OSError as exc:  # the PortAudio library itself is missing
         raise BenchkitError(
             "PortAudio is not installed, so real interfaces are unavailable: install the system package "
@@ -122,7 +140,9 @@ class PortAudioBackend:
     ref_channel : int, optional
         Input wired straight from the driven output (a loopback reference).
     blocksize : int
-        Frames per callback.
+        Frames per callback. On a JACK server the server's period rules:
+        the stream takes it as it comes (asking PortAudio for another size
+        puts an adapting buffer, as much latency again, between the two).
     latency : str or float
         PortAudio's suggested latency: "low", "high" or seconds.
     drive_cap_dbfs : float
@@ -180,6 +200,8 @@ class PortAudioBackend:
         self.n_outputs = wanted_out
         self.drive_output = out_channel
         self.blocksize = int(blocksize)
+        #: what the stream asks PortAudio for: 0 (the host's own size) where the host's period rules
+        self.stream_blocksize = 0 if "jack" in self.info["host_api"].lower() else self.blocksize
         self.latency = latency
         self.drive_cap_dbfs = drive_cap_dbfs
         self.volts_per_fs = volts_per_fs
@@ -260,14 +282,16 @@ class PortAudioBackend:
 
         count_stream(self.name, "hold_tone")
         try:
-            stream = sd.OutputStream(samplerate=rate, blocksize=self.blocksize, device=self.info["index"],
-                                     channels=self.n_outputs, dtype="float32", latency=self.latency,
-                                     callback=callback, finished_callback=done.set)
+            with _signals_to_this_thread():
+                stream = sd.OutputStream(samplerate=rate, blocksize=self.stream_blocksize, device=self.info["index"],
+                                         channels=self.n_outputs, dtype="float32", latency=self.latency,
+                                         callback=callback, finished_callback=done.set)
         except Exception as exc:
             raise BenchkitError(f"cannot open {self.name}: {exc}") from exc
         reason, lost = None, False
         try:
-            stream.start()
+            with _signals_to_this_thread():
+                stream.start()
             while not done.wait(0.05):
                 if time.monotonic() - state["last"] > self.watchdog_s:
                     reason, lost = "the audio stream stopped calling back (device lost?)", True
@@ -311,7 +335,7 @@ class PortAudioBackend:
         ramp = np.linspace(1.0, 0.0, fade_n, dtype=np.float32)
         cap_fs = np.float32(units.ratio_from_db(self.drive_cap_dbfs))
         state = {"pos": 0, "fade_at": -1, "last": time.monotonic(), "faults": [], "statuses": [], "clipped_at": -1,
-                 "end": total}
+                 "end": total, "block": self.blocksize}
         in_col = self.in_channel - 1
         done = threading.Event()
         self._abort.clear()
@@ -330,6 +354,7 @@ class PortAudioBackend:
         def fill(indata, outdata, frames, status):
             pos = state["pos"]
             state["last"] = time.monotonic()
+            state["block"] = max(state["block"], frames)
             if status:
                 state["faults"].append(pos)
                 state["statuses"].append(str(status))
@@ -404,24 +429,26 @@ class PortAudioBackend:
         lost = False
         count_stream(self.name, "play_record")
         try:
-            stream = sd.Stream(
-                samplerate=rate,
-                blocksize=self.blocksize,
-                device=(self.in_info["index"], self.info["index"]),
-                channels=(self.n_inputs, self.n_outputs),
-                dtype="float32",
-                latency=self.latency,
-                callback=callback,
-                finished_callback=done.set,
-            )
+            with _signals_to_this_thread():
+                stream = sd.Stream(
+                    samplerate=rate,
+                    blocksize=self.stream_blocksize,
+                    device=(self.in_info["index"], self.info["index"]),
+                    channels=(self.n_inputs, self.n_outputs),
+                    dtype="float32",
+                    latency=self.latency,
+                    callback=callback,
+                    finished_callback=done.set,
+                )
         except Exception as exc:  # PortAudio's reasons are in the message
             if writer:
                 writer.close()
             raise BenchkitError(f"cannot open {self.name}: {exc}") from exc
-        if thread:
-            thread.start()
         try:
-            stream.start()
+            with _signals_to_this_thread():  # the server's process thread starts with the stream
+                if thread:
+                    thread.start()
+                stream.start()
             while not done.wait(0.02):
                 if time.monotonic() - state["last"] > self.watchdog_s:
                     reason = f"the audio stream stopped calling back for {self.watchdog_s:g} s (device lost?)"
@@ -461,7 +488,7 @@ class PortAudioBackend:
             events += (f"the raw recording could not be streamed to {partial}: {state['writer_error']}",)
         return RawRecording(samples=ring.get(max(0, got - ring.n) if ring.wraps else 0, got).astype(np.float64),
                             events=events, fault_frames=tuple(state["faults"]),
-                            fault_block=self.blocksize, stopped_at=clipped_at)
+                            fault_block=state["block"], stopped_at=clipped_at)
 
 
 class _Ring:
