@@ -20,7 +20,7 @@ import typer
 from benchkit import __version__, units
 from benchkit import cli_values as V
 from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB
-from benchkit.analysis.tone import SCHEMA_VERSION, analyze_tone
+from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION, analyze_tone
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
 from benchkit.units import quantity
@@ -143,6 +143,8 @@ _live_options = _option_group("live", _LIVE)
 # how power figures are read from stepped levels (analyze --power, power)
 #: the default measurement band (the analysis narrows it to half a low rate itself)
 _BAND = "20:20000"
+#: the lowest tone a step can analyse with the band 'full' (five periods in the pre-flight's probe)
+LOWEST_TONE_HZ = 20.0
 #: the default sweep (past 20 Hz to 20 kHz by its fades)
 _SPAN = "10:22000"
 
@@ -538,17 +540,24 @@ def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more:
     makes the virtual stage stereo whatever --sim-stereo says; ``more``
     goes to a real interface (further inputs and outputs). ``within``
     holds (flag, frequencies) the command plays or analyses: each must lie
-    below half the sample rate. Everything is checked before anything
+    below half the sample rate; (flag, frequencies, band) for tones, which
+    must also lie inside the band they are analysed in (band None: 'full',
+    from LOWEST_TONE_HZ). Everything is checked before anything
     plays: the frequencies, the profile's rate, the channel numbers
     against the device. On the virtual bench the stage drives ``load`` (the
     command's --load) unless --sim-load or --sim-param load=... says
     otherwise: one load, the one the figures are worked out for."""
     half = live["rate"] / 2
-    for flag, freqs in within:
+    for flag, freqs, *band in within:
         for f in freqs:
             if f >= half:
                 raise BenchkitError(f"{flag} reaches {f:g} Hz, at or above half the sample rate ({half:g} Hz at "
                                     f"{live['rate']:g} Hz): lower it, or raise --rate")
+            lo, hi = (band[0] or (LOWEST_TONE_HZ, half)) if band else (0.0, half)
+            if band and not lo <= f <= hi:
+                raise BenchkitError(f"{flag} {f:g} Hz lies outside the band its tone is analysed in ({lo:g} to "
+                                    f"{hi:g} Hz; --bandwidth sets it where a command takes one)" if band[0] else
+                                    f"{flag} {f:g} Hz is below {LOWEST_TONE_HZ:g} Hz, too low to analyse in a step")
     latency, override_drive_cap, calibration = live["latency"], live["override_drive_cap"], live["calibration"]
     lat: str | float = latency if latency in ("low", "high") else float(units.parse_frequency(latency))
     if override_drive_cap:
@@ -702,7 +711,7 @@ def tone(
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
         backend, profile = _live_setup(live, ref_channel, load=load,
-                                       within=(("--freq", [frequency]), ("--bandwidth", _given_band(bandwidth))))
+                                       within=(("--freq", [frequency], band), ("--bandwidth", _given_band(bandwidth))))
         in_channel, calibration = live["in_channel"], live["calibration"]
         preflight = dict(gain=live["gain"], margin_db=live["margin"], rail_v=live["rail"],
                          pad_rating_w=live["pad_rating"], bridged=live["btl"])
@@ -768,7 +777,7 @@ def watch(
             raise BenchkitError("--record-audio goes with --record")
         band = units.parse_band(bandwidth)
         backend, profile = _live_setup(live, ref_channel, load=load,
-                                       within=(("--freq", [frequency]), ("--bandwidth", _given_band(bandwidth))))
+                                       within=(("--freq", [frequency], band), ("--bandwidth", _given_band(bandwidth))))
         in_channel, calibration = live["in_channel"], live["calibration"]
         drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
         check_level(drive)
@@ -1075,7 +1084,7 @@ def gain(
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
         backend, profile, ref_channel, drive, plan = _one_level(live, ref_channel, level, frequency, load,
-            within=(("--freq", [frequency]), ("--bandwidth", _given_band(bandwidth))))
+            within=(("--freq", [frequency], band), ("--bandwidth", _given_band(bandwidth))))
         in_channel, calibration = live["in_channel"], live["calibration"]
         params = dict(channel=in_channel, ref_channel=ref_channel, frequency_hz=frequency, level_dbfs=drive,
                       load_ohms=load, bandwidth_hz=band)
@@ -1121,14 +1130,19 @@ def imd(
     stage's compensation quickly: into a dummy load only, start low.
     """
     from benchkit import runs
+    from benchkit.analysis.imd import shortest_record_s
     from benchkit.imd_runs import imd_run, twin_tone
     from benchkit.report import summary
     from benchkit.signals import check_level
 
     with _live_run(), _logbook(filing) as (book, labels):
         twin = twin_tone(method, *(units.parse_tones(tones) if tones else (None, None)), ratio)
+        if step < shortest_record_s(twin.method, twin.f1_hz, twin.f2_hz):
+            raise BenchkitError(f"--step {step:g} s is too short to separate the products of {twin.f1_hz:g} and "
+                                f"{twin.f2_hz:g} Hz: it needs {shortest_record_s(twin.method, twin.f1_hz, twin.f2_hz):.3g} s "
+                                "(16 periods of their spacing)")
         backend, profile = _live_setup(live, ref_channel, load=load,
-                                       within=(("--tones", (twin.f1_hz, twin.f2_hz) if tones else ()),))
+                                       within=(("--tones", (twin.f1_hz, twin.f2_hz), None),))
         in_channel, calibration = live["in_channel"], live["calibration"]
         drive = [units.parse_level(text).to_dbfs(backend.output_vpk_per_fs) for text in levels]
         for d in drive:
@@ -1187,7 +1201,7 @@ def zout(
             _zout_from_runs(book, labels, from_runs, load, open_load, as_json)
             return
         backend, profile, ref_channel, drive, plan = _one_level(live, ref_channel, level, 1000.0, load, volts=False,
-            within=(("--freq", freqs),))
+            within=(("--freq", freqs, DEFAULT_BAND_HZ),))
         in_channel, calibration = live["in_channel"], live["calibration"]
         if open_load is None:
             if backend.name == "virtual":
@@ -1272,7 +1286,7 @@ def crosstalk(
         real_b = in_channel_b or 2
         backend, profile, _ref, drive, plan = _one_level(live, None, level, 1000.0, load, volts=False, stereo=True,
                                                          more=dict(more_inputs=(real_b,), more_outputs=(out_channel_b,)),
-                                                         within=(("--freq", freqs), ("--bandwidth", _given_band(bandwidth))))
+                                                         within=(("--freq", freqs, band), ("--bandwidth", _given_band(bandwidth))))
         calibration = live["calibration"]
         if backend.name == "virtual":
             inputs, outputs = (1, in_channel_b or 3), (1, 2)
@@ -1350,12 +1364,15 @@ def sweep(
     output to silence and keeps the partial capture.
     """
     from benchkit import responses, runs
+    from benchkit.analysis.sweep import SyncSweep
     from benchkit.report import summary
     from benchkit.signals import check_level
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
         f1, f2 = units.parse_band(span) or (0.0, 0.0)
+        if not stepped and f1 > 0:  # the sweep it will play, designed before anything plays (too short for F1 ...)
+            SyncSweep.design(f1, min(f2, live["rate"] / 2), length, live["rate"])
         backend, profile = _live_setup(live, ref_channel, load=load,
             within=(("--span", _given_band(span, _SPAN)), ("--at", freqs), ("--bandwidth", _given_band(bandwidth))))
         in_channel, calibration = live["in_channel"], live["calibration"]
@@ -1430,7 +1447,7 @@ def power(
             raise BenchkitError("--precondition needs --rated-power (it holds 1/8 of it)")
         if precondition_s is not None and not precondition_run:
             raise BenchkitError("--precondition-s goes with --precondition")
-        backend, profile = _live_setup(live, ref_channel, load=load, within=(("--freq", [frequency]),))
+        backend, profile = _live_setup(live, ref_channel, load=load, within=(("--freq", [frequency], DEFAULT_BAND_HZ),))
         in_channel, calibration = live["in_channel"], live["calibration"]
         if ref_channel is None and backend.name == "virtual":
             ref_channel = backend.reference_input()

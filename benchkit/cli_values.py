@@ -142,10 +142,27 @@ def _above_zero(parse: Callable, what: str) -> Callable:
     return parser
 
 
-#: a resistance: "8", "4.7k", "10k", "4k7", "1M", "8 ohm" (units.parse_resistance, the one reading of it)
-ohms = _above_zero(units.parse_resistance, "a resistance in ohms (e.g. 8, 4.7k)")
-#: a frequency: "997", "20k", "1.5 kHz"
-hertz = _above_zero(units.parse_frequency, "a frequency in Hz (e.g. 997, 20k)")
+_ohms = _above_zero(units.parse_resistance, "a resistance in ohms (e.g. 8, 4.7k)")
+
+
+def ohms(value) -> float:
+    """A resistance: "8", "4.7k", "10k", "4k7", "1M", "8 ohm" (units.parse_resistance,
+    the one reading of it), from 10 milliohm (a shunt) to 100 Mohm."""
+    r = _ohms(value)
+    if not 0.01 <= r <= 1e8:
+        raise typer.BadParameter(f"must be a resistance from 0.01 ohm to 100 Mohm, got {value}")
+    return r
+_hertz = _above_zero(units.parse_frequency, "a frequency in Hz (e.g. 997, 20k)")
+
+
+def hertz(value) -> float:
+    """A frequency: "997", "20k", "1.5 kHz"; 1 Hz or more (slower than
+    that is a DC drift's business: benchkit drift)."""
+    f = _hertz(value)
+    if f < 1.0:
+        raise typer.BadParameter(f"must be a frequency of 1 Hz or more, got {value} (a slower change is DC drift: "
+                                 "benchkit drift)")
+    return f
 
 
 def seconds(high: float) -> Callable:

@@ -174,6 +174,11 @@ REFUSED = [
     "sweep --at 30000", "power --load 8 --freq 40000", "imd --tones 60:30000", "gain --freq 25000",
     "zout --load 8 --freq 30000", "crosstalk --freq 30000", "crosstalk --in-channel-b 99",
     "watch --freq 30000 --duration 1", "tone --calibration {profile_96k}",
+    # values too small to measure: refused before the first tone, not after it
+    "tone --freq 0.5", "tone --freq 15", "watch --freq 2 --duration 1", "power --load 8 --freq 1", "imd --tones 1:2",
+    "imd --step 0.001", "zout --load 8 --freq 0.1", "sweep --at 0.01", "sweep --length 0.01", "tone --load 1e-300",
+    "tone --load 1e12", "tone --sim-param coupling_uf=1e-9", "tone --sim-param mains_hz=1e9",
+    "tone --sim-param gain=nan", "tone --sim-param bias=-1", "tone --sim nosuch", "tone --sim-param nosuch=1",
     # calibration profiles that are damaged or of the wrong shape
     "tone --calibration {missing}", "tone --calibration {folder}", "tone --calibration {profile_ratio_text}",
     "tone --calibration {profile_uncertainty_list}", "tone --calibration {profile_scale_text}",

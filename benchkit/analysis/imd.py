@@ -203,6 +203,13 @@ def _find(spec: np.ndarray, n: int, rate: float, f_hz: float, what: str) -> floa
     return sp.refine_peak(spec, peak, n) * rate / n
 
 
+def shortest_record_s(method: str, f1_hz: float, f2_hz: float) -> float:
+    """The shortest record that separates a two-tone test's products:
+    16 periods of the spacing between them (f2 - f1 for the difference
+    method, f1 for the modulation method's sidebands)."""
+    return 16.0 / (f2_hz - f1_hz if method == "difference" else f1_hz)
+
+
 def analyze_imd(samples, sample_rate: float, method: str, f1_hz: float | None = None, f2_hz: float | None = None,
                 volts_per_fs: float | None = None, scale_source: str = "none", load_ohms: float | None = None,
                 max_order: int = MAX_ORDER, spectrum: bool = False) -> ImdResult:
@@ -224,7 +231,7 @@ def analyze_imd(samples, sample_rate: float, method: str, f1_hz: float | None = 
     if x.ndim != 1:
         raise BenchkitError("analyse one channel at a time")
     n = x.size
-    if n < 16 * sample_rate / (f2_hz - f1_hz if method == "difference" else f1_hz):
+    if n < shortest_record_s(method, f1_hz, f2_hz) * sample_rate:
         raise BenchkitError(f"the record ({quantity(n / sample_rate, 's', 3)}) is too short to separate the products: "
                             "it needs 16 periods of the spacing between them")
     x = x - float(np.mean(x))

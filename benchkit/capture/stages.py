@@ -213,6 +213,13 @@ class SingleEndedClassA(StageModel):
             raise BenchkitError("stage parameter vsat must be below half the rail")
         if p["re"] < 0 or p["rth"] < 0 or p["noise_uv"] < 0 or p["ripple_mv"] < 0:
             raise BenchkitError("stage parameters re, rth, noise_uv and ripple_mv must not be negative")
+        corner = 1.0 / (2 * math.pi * p["load"] * p["coupling_uf"] * 1e-6)  # circuit theory: f = 1/(2 pi R C)
+        if corner > 20000.0:
+            raise BenchkitError(f"the coupling capacitor ({p['coupling_uf']:g} uF) into {p['load']:g} ohm cuts off at "
+                                f"{corner:.3g} Hz, above the audio band: give coupling_uf of at least "
+                                f"{1e6 / (2 * math.pi * p['load'] * 20000.0):.3g}")
+        if not 0 < p["mains_hz"] < 1000:
+            raise BenchkitError(f"stage parameter mains_hz is a mains frequency (50 or 60), got {p['mains_hz']:g}")
 
     def reset(self):
         super().reset()
