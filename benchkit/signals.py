@@ -151,10 +151,18 @@ def marker(rate: float) -> np.ndarray:
     return units.ratio_from_db(MARKER_DBFS) * chirp * np.hanning(n)
 
 
+#: Below this no converter resolves a tone (24 bits end near -144 dBFS).
+MIN_DBFS = -140.0
+
+
 def check_level(level_dbfs: float) -> None:
-    """Refuse a drive level the output cannot take."""
-    if not math.isfinite(level_dbfs) or level_dbfs > MAX_DBFS:
+    """Refuse a drive level the output cannot take, or cannot make."""
+    if not math.isfinite(level_dbfs):
+        raise BenchkitError(f"drive level {level_dbfs:g} dBFS is not a level")
+    if level_dbfs > MAX_DBFS:
         raise BenchkitError(f"drive level {level_dbfs:g} dBFS is above the {MAX_DBFS:g} dBFS the output allows")
+    if level_dbfs < MIN_DBFS:
+        raise BenchkitError(f"drive level {level_dbfs:g} dBFS is below the {MIN_DBFS:g} dBFS any output resolves")
 
 
 def _per_step(value, n: int, what: str) -> list[float]:

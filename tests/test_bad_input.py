@@ -179,6 +179,7 @@ REFUSED = [
     "imd --step 0.001", "zout --load 8 --freq 0.1", "sweep --at 0.01", "sweep --length 0.01", "tone --load 1e-300",
     "tone --load 1e12", "tone --sim-param coupling_uf=1e-9", "tone --sim-param mains_hz=1e9",
     "tone --sim-param gain=nan", "tone --sim-param bias=-1", "tone --sim nosuch", "tone --sim-param nosuch=1",
+    "tone --level -500dBFS", "tone --level 100Vrms", "watch --level 0.5dBFS --duration 1", "power --load 8 --start -500",
     # calibration profiles that are damaged or of the wrong shape
     "tone --calibration {missing}", "tone --calibration {folder}", "tone --calibration {profile_ratio_text}",
     "tone --calibration {profile_uncertainty_list}", "tone --calibration {profile_scale_text}",
@@ -188,7 +189,8 @@ REFUSED = [
     # files to analyse
     "analyze {missing}", "analyze {folder}", "analyze {garbage_wav}", "analyze {empty_wav}", "analyze {nan_wav}",
     "analyze {wav} --fundamental nan", "analyze {wav} --fundamental 30000", "analyze {wav} --averages 100000",
-    "analyze {wav} --averages 0", "analyze {wav} --channel 3", "analyze {stereo_wav} --channel 0",
+    "analyze {wav} --averages 0", "analyze {wav} --averages 1000", "analyze {wav} --channel 3",
+    "analyze {stereo_wav} --channel 0",
     "analyze {wav} --bandwidth 30000:40000", "analyze {wav} --load -8", "analyze {wav} --sweep 20:10:5",
     "analyze {wav} --volts-per-fs 0", "analyze {wav} --imd bogus", "analyze {wav} --ref-freq 0",
     "analyze {csv_garbage}", "analyze {csv_empty}", "analyze {csv_one_row}", "analyze {csv_good} --window 0",
