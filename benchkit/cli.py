@@ -145,8 +145,6 @@ _live_options = _option_group("live", _LIVE)
 _BAND = "20:20000"
 #: the lowest tone a step can analyse with the band 'full' (five periods in the pre-flight's probe)
 LOWEST_TONE_HZ = 20.0
-#: the default sweep (past 20 Hz to 20 kHz by its fades)
-_SPAN = "10:22000"
 
 _FIGURES = {
     "limits": (List[float], lambda: typer.Option(list(DEFAULT_LIMITS_PCT), "--limit", parser=V.PERCENT, help="Distortion limits, percent (repeatable; the first is the rated point; a power run stops past the highest).")),
@@ -301,15 +299,12 @@ def _power_options(power, load, rail, limits, metric, onset_db, supply_volts, su
 
     if load is None:
         raise BenchkitError("--power needs --load (ohms)")
-    if metric not in ("thdn", "thd"):
-        raise BenchkitError(f"--metric is thdn or thd, got {metric!r}")
-    if not limits or any(not (0 < x < 100) for x in limits):
-        raise BenchkitError("--limit takes percentages between 0 and 100")
     if supply_amps is not None and supply_volts is None:
         raise BenchkitError("--supply-amps needs --supply-volts")
-    if (rail is None) != (bias is None):
-        raise BenchkitError("describe the stage with both --rail and --bias")
-    budget = ClassABudget(rail, bias, load, vsat) if rail is not None else None
+    if bias is not None and rail is None:
+        raise BenchkitError("--bias describes the stage with --rail: give both for the expected ceiling")
+    # --rail alone is the pre-flight's; with --bias it describes the stage for the budget too
+    budget = ClassABudget(rail, bias, load, vsat) if bias is not None else None
     return dict(load_ohms=load, metric=metric, limits_pct=tuple(limits), onset_db=onset_db,
                 supply_v=supply_volts, supply_a=supply_amps, budget=budget)
 
@@ -486,7 +481,7 @@ def _open_backend(device: Optional[str], sim: str, sim_params: List[str], sim_pa
     pad = DEMO_PAD if sim_pad == "demo" else pads.parse_pad(sim_pad)
     rate = (real or {}).get("sample_rate", 48000.0)
     params = parse_params(sim_params)
-    if load is not None and "load" not in params and any(p.name == "load" for p in model_params(sim)):
+    if load is not None and any(p.name == "load" for p in model_params(sim)):
         params["load"] = load
     bench = virtual_bench(sim, params, pad=pad, seed=seed, stereo=stereo, sample_rate_hz=rate)
     pad_text = "no pad" if pad is None else f"pad {pad.r1_ohms:g}:{pad.r2_ohms:g} ohm ({1 / bench.pad_ratio():.2f}:1)"
@@ -525,12 +520,12 @@ def devices(as_json: bool = typer.Option(False, "--json", help="Print the list a
 
 
 
-def _given_band(text: str, default: str = _BAND) -> tuple[float, ...]:
-    """The band (or span) a command was given, for :func:`_live_setup`'s
-    check: none when it is the default (20 Hz to 20 kHz, or to half the
-    rate below 40 kHz: the analysis narrows it itself)."""
+def _given_band(text: str) -> tuple[float, ...]:
+    """The band a command was given, for :func:`_live_setup`'s check: none
+    when it is the default (20 Hz to 20 kHz, or to half the rate below
+    40 kHz: the analysis narrows it itself)."""
     band = units.parse_band(text)
-    return () if text == default or band is None else band
+    return () if text == _BAND or band is None else band
 
 
 def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more: dict | None = None,
@@ -551,15 +546,15 @@ def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more:
     for flag, freqs, *band in within:
         for f in freqs:
             if f >= half:
-                raise BenchkitError(f"{flag} reaches {f:g} Hz, at or above half the sample rate ({half:g} Hz at "
-                                    f"{live['rate']:g} Hz): lower it, or raise --rate")
+                raise BenchkitError(f"{flag} (as given, or its default) reaches {f:g} Hz, at or above half the sample "
+                                    f"rate ({half:g} Hz at {live['rate']:g} Hz): lower it, or raise --rate")
             lo, hi = (band[0] or (LOWEST_TONE_HZ, half)) if band else (0.0, half)
             if band and not lo <= f <= hi:
                 raise BenchkitError(f"{flag} {f:g} Hz lies outside the band its tone is analysed in ({lo:g} to "
                                     f"{hi:g} Hz; --bandwidth sets it where a command takes one)" if band[0] else
                                     f"{flag} {f:g} Hz is below {LOWEST_TONE_HZ:g} Hz, too low to analyse in a step")
     latency, override_drive_cap, calibration = live["latency"], live["override_drive_cap"], live["calibration"]
-    lat: str | float = latency if latency in ("low", "high") else float(units.parse_frequency(latency))
+    lat = latency  # "low", "high" or seconds (cli_values.LATENCY)
     if override_drive_cap:
         _err("WARNING: the drive cap is overridden: full-scale drive can overload the stage, the pad, the "
              "interface input and any speaker. Keep a dummy load on the output.")
@@ -575,10 +570,10 @@ def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more:
                                 f"asks for {live['rate']:g} Hz: an interface's scale can differ between rates; "
                                 f"calibrate at {live['rate']:g} Hz, or give --rate {profile.sample_rate_hz:g}")
         real["volts_per_fs"] = profile.stage_volts_per_fs
-    sim_load = live["sim_load"]
+    sim_load = live["sim_load"]  # ohms, "off" or None (cli_values.SIM_LOAD)
     told = any(item.partition("=")[0].strip() == "load" for item in live["sim_param"])
     if sim_load is not None:
-        wanted, switch = (None if sim_load.strip().lower() == "off" else V.ohms(sim_load)), True
+        wanted, switch = (None if sim_load == "off" else sim_load), True
     else:
         wanted, switch = (None if told else load), load is not None and not told
     backend = _open_backend(live["device"], live["sim"], live["sim_param"], live["sim_pad"], live["seed"], real,
@@ -586,13 +581,17 @@ def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more:
     n_in, n_out = len(backend.inputs()), backend.n_outputs
     asked = [("--in-channel", live["in_channel"], n_in, "input"), ("--ref-channel", ref_channel, n_in, "input"),
               ("--out-channel", live["out_channel"], n_out, "output")]
-    asked += [("an input", n, n_in, "input") for n in (more or {}).get("more_inputs", ())]
-    asked += [("an output", n, n_out, "output") for n in (more or {}).get("more_outputs", ())]
+    asked += [("--in-channel-b", n, n_in, "input") for n in (more or {}).get("more_inputs", ())]
+    asked += [("--out-channel-b", n, n_out, "output") for n in (more or {}).get("more_outputs", ())]
     for flag, number, count, what in asked:
         if number is not None and number > count:
             raise BenchkitError(f"{flag} {number}: {backend.name} has {count} {what}s (numbered from 1)")
     if backend.name == "virtual" and switch:
-        backend.connect_load(wanted)  # a model without a load of its own: its output resistance meets this one
+        backend.connect_load(wanted)
+    if backend.name == "virtual" and live["input_max"] is not None:  # the simulated input as the user states it
+        from dataclasses import replace
+
+        backend.spec = replace(backend.spec, input_max_vpk=live["input_max"])  # a model without a load of its own: its output resistance meets this one
     if profile is not None:
         if backend.name != "virtual":  # the virtual bench knows its own output
             backend.output_vpk_per_fs = profile.output_vpk_per_fs
@@ -638,16 +637,20 @@ def _logbook(bench: dict):
         stage = book.settings().get("stage") or {}
         if bench["stage"] is not None:
             stage = logbook.read_stage(bench["stage"])
-        if bench["stage"] is not None or fields:
+        changed = bench["stage"] is not None or bool(fields)
+        if changed:
             stage = {**stage, **fields}
-            book.remember_stage(stage)
-        yield book, dict(tags=tags, note=bench["note"], stage=stage)
+        # the bench remembers a changed stage once a run is filed with it (_start_run), not on a refusal
+        yield book, dict(tags=tags, note=bench["note"], stage=stage, remember=changed)
 
 
 def _start_run(book, labels: dict, command: str, backend, profile, calibration: Optional[Path], params: dict):
     """File the run in the logbook as running; its folder is where it writes.
     ``backend`` is the capture backend, or the name of a drift log's source."""
     cal = None if profile is None else {"file": str(calibration), "hash": profile.digest()}
+    labels = dict(labels)
+    if labels.pop("remember", False):
+        book.remember_stage(labels["stage"])
     if isinstance(backend, str):
         device = backend
     else:
@@ -657,11 +660,12 @@ def _start_run(book, labels: dict, command: str, backend, profile, calibration: 
     return run
 
 
-def _finish_run(written: list[Path], run, doc: dict, as_json: bool, status: str = "complete") -> None:
+def _finish_run(written: list[Path], run, doc: dict, as_json: bool, status: str = "complete", played: bool = True) -> None:
     """Complete the run in the logbook (its files are on disk), say where
-    it is, and print the result with the run's id and folder. A run whose
-    capture stopped before its last step (the input clipped) ends with
-    EXIT_STOPPED_EARLY: what it measured is filed, but not all it was asked."""
+    it is, and print the result with the run's id and folder. A run that
+    ``played`` and whose capture stopped before its last step (the input
+    clipped) ends with EXIT_STOPPED_EARLY: what it measured is filed, but
+    not all it was asked."""
     from benchkit.recordings import stopped_early
 
     run.complete(doc, written, written[0] if written else None, status=status)
@@ -672,7 +676,7 @@ def _finish_run(written: list[Path], run, doc: dict, as_json: bool, status: str 
         from benchkit.report.tables import dumps
 
         print(dumps({**doc, "run": {"id": run.id, "folder": str(run.folder), "status": status}}))
-    early = stopped_early(run.folder)
+    early = stopped_early(run.folder) if played else []
     if early:
         _err(f"benchkit: stopped early: {early[0]}")
         raise typer.Exit(EXIT_STOPPED_EARLY)
@@ -747,7 +751,7 @@ def watch(
     json_lines: bool = typer.Option(False, "--json-lines", help="One JSON object a reading on stdout."),
     record: bool = typer.Option(False, "--record", help="Keep the readings as a run in the bench's logbook (readings.csv)."),
     record_audio: bool = typer.Option(False, "--record-audio", help="With --record: keep the raw audio too (audio.wav)."),
-    dc_source: Optional[str] = typer.Option(None, "--dc-source", help="Also show DC: meter (SCPI, --dc-resource), input (the measuring input, DC coupled per --calibration) or virtual (the se-class-a midpoint)."),
+    dc_source: Optional[str] = typer.Option(None, "--dc-source", parser=V.one_of("meter", "input", "virtual"), help="Also show DC: meter (SCPI, --dc-resource), input (the measuring input, DC coupled per --calibration) or virtual (the se-class-a midpoint)."),
     dc_resource: Optional[str] = typer.Option(None, "--dc-resource", help="The DC meter's VISA resource."),
     ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Input wired straight from the driven output (real devices)."),
     live: dict = None,
@@ -784,6 +788,7 @@ def watch(
         if backend.name != "virtual" and drive > backend.drive_cap_dbfs + 1e-9:
             raise BenchkitError(f"--level {drive:.1f} dBFS is above the drive cap of {backend.drive_cap_dbfs:g} dBFS; "
                                 "lower it, or raise the cap knowingly (--drive-cap)")
+        _check_dc(dc_source, dc_resource, backend, profile)
         plan = runs.plan_run(backend, profile, [drive], frequency, in_channel, live["gain"], live["margin"],
                              live["rail"], live["pad_rating"], load, live["btl"], say=_err)
         for w in plan.warnings:
@@ -806,6 +811,16 @@ def watch(
         raise typer.Exit(code)
 
 
+def _check_dc(source, resource, backend, profile) -> None:
+    """What a watch's DC source needs, refused before anything plays."""
+    if source == "input" and (profile is None or not profile.dc_coupled or not profile.dc_volts_per_fs):
+        raise BenchkitError("--dc-source input needs a --calibration that says the input is DC coupled")
+    if source == "virtual" and backend.name != "virtual":
+        raise BenchkitError("--dc-source virtual reads the virtual stage: use it with --device virtual")
+    if source == "meter" and not resource:
+        raise BenchkitError("--dc-source meter needs --dc-resource (the meter's VISA address)")
+
+
 def _watch_dc(source, resource, backend, profile):
     """The DC a watch shows: a meter read in its own thread (the latest
     value), the measuring input's own DC, or the virtual stage's midpoint."""
@@ -817,19 +832,11 @@ def _watch_dc(source, resource, backend, profile):
     if source is None:
         return None, None, None
     if source == "input":
-        if profile is None or not profile.dc_coupled or not profile.dc_volts_per_fs:
-            raise BenchkitError("--dc-source input needs a --calibration that says the input is DC coupled")
         return None, profile.dc_volts_per_fs, None
     if source == "virtual":
-        if backend.name != "virtual":
-            raise BenchkitError("--dc-source virtual reads the virtual stage: use it with --device virtual")
         meter = meters.VirtualMidpoint(backend.stage, accelerated=1.0)  # the stage warms in real time
-    elif source == "meter":
-        if not resource:
-            raise BenchkitError("--dc-source meter needs --dc-resource (the meter's VISA address)")
-        meter = meters.ScpiMeter(resource)
     else:
-        raise BenchkitError(f"--dc-source is meter, input or virtual, got {source!r}")
+        meter = meters.ScpiMeter(resource)
     latest = {"v": None}
     stop = threading.Event()
 
@@ -1334,7 +1341,7 @@ def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: fl
 @_live_options
 @_bench_options
 def sweep(
-    span: str = typer.Option(_SPAN, "--span", parser=V.checked(units.parse_band), help="Frequencies F1:F2 in Hz (the response is reported past the fades)."),
+    span: str = typer.Option("10:22000", "--span", parser=V.checked(units.parse_span), help="Frequencies F1:F2 in Hz (the response is reported past the fades)."),
     length: float = typer.Option(5.0, "--length", parser=V.seconds(120.0), help="Sweep length, seconds (rounded so its harmonics line up)."),
     level: str = typer.Option("-20 dBFS", "--level", parser=V.checked(units.parse_level), help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms."),
     stepped: bool = typer.Option(False, "--stepped", help="Stepped sines instead of a sweep: slower, the reference method, with THD+N."),
@@ -1370,11 +1377,11 @@ def sweep(
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
-        f1, f2 = units.parse_band(span) or (0.0, 0.0)
-        if not stepped and f1 > 0:  # the sweep it will play, designed before anything plays (too short for F1 ...)
-            SyncSweep.design(f1, min(f2, live["rate"] / 2), length, live["rate"])
+        f1, f2 = units.parse_band(span)
         backend, profile = _live_setup(live, ref_channel, load=load,
-            within=(("--span", _given_band(span, _SPAN)), ("--at", freqs), ("--bandwidth", _given_band(bandwidth))))
+            within=(("--span", (f1, f2)), ("--at", freqs), ("--bandwidth", _given_band(bandwidth))))
+        if not stepped:  # the sweep it will play, designed before anything plays (too short for F1 ...)
+            SyncSweep.design(f1, f2, length, live["rate"])
         in_channel, calibration = live["in_channel"], live["calibration"]
         preflight = dict(gain=live["gain"], margin_db=live["margin"], rail_v=live["rail"],
                          pad_rating_w=live["pad_rating"], bridged=live["btl"])
@@ -1382,8 +1389,6 @@ def sweep(
             ref_channel = backend.reference_input() if backend.name == "virtual" else (profile.ref_channel if profile else None)
         drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
         check_level(drive)
-        if smooth is not None and smooth < 1:
-            raise BenchkitError("--smooth takes N >= 1 (1/N octave)")
         plan = runs.plan_run(backend, profile, [drive], ref_freq, in_channel, load_ohms=load, say=_err, **preflight)
         for w in plan.warnings:
             _err(f"warning: {w}")
@@ -1701,6 +1706,7 @@ def pad(
     series: str = typer.Option("E24", "--series", parser=V.one_of("e12", "e24", "e96"), help="Preferred values: E12, E24 or E96 (IEC 60063)."),
     input_noise_dbfs: float = typer.Option(-110.0, "--input-noise", parser=V.number(-200.0, 0.0, unit="dBFS"), help="The input's own noise floor, dBFS, to refer to the stage."),
     check: Optional[List[str]] = typer.Option(None, "--check", parser=V.ohms, help="Judge a pad you have: --check R1 --check R2 (ohms, k/M allowed)."),
+    btl: bool = typer.Option(False, "--btl", help="The stage has a bridged (BTL) output: its normal swing is the whole rail."),
     as_json: bool = typer.Option(False, "--json", help="Print the pads as JSON on stdout."),
 ) -> None:
     """Design an attenuator pad for the stage's output, or check one you have.
@@ -1728,7 +1734,8 @@ def pad(
             raise BenchkitError("--check takes two resistances: --check R1 --check R2")
         if stage_vpk is None and rail is None:
             raise BenchkitError("give --stage-vpk (the stage's highest output, V peak) or --rail (its supply, V)")
-        normal = stage_vpk if stage_vpk is not None else normal_swing_vpk(rail)
+        # the pre-flight's rule (docs/safety.md): the larger of the swing given and the rail's
+        normal = max(v for v in (stage_vpk, None if rail is None else normal_swing_vpk(rail, btl)) if v is not None)
         if check:
             reports = [padlib.judge(padlib.Pad(*check), normal, input_fs_vpk, input_ohms, rail)]
         else:
@@ -1736,8 +1743,7 @@ def pad(
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
-    basis = f"{normal:g} V peak normal swing" + (f" ({rail:g} V rail; a fault: the whole rail)" if rail is not None and stage_vpk is None
-                                                 else f", a fault: the whole {rail:g} V rail" if rail is not None else "")
+    basis = f"{normal:g} V peak normal swing" + (f"; a fault: the whole {rail:g} V rail" if rail is not None else "")
     _err(f"{basis}; input full scale {input_fs_vpk:g} V peak, {input_ohms:g} ohm; headroom {headroom_db:g} dB")
     _err("    R1 ohm    R2 ohm    ratio      normal at input  fault at input   safe to (V pk)   P(R1) -> rating   P(R2) -> rating   noise floor at the stage")
     for r in reports:
@@ -2090,7 +2096,7 @@ def log_reanalyse(
         with book.resume(entry.id) as taken:
             doc, written = reanalyse(taken.folder, taken.record, say=_err)
             taken.record["reanalysed"] = logbook.now_iso()
-            _finish_run(written, taken, doc, as_json)
+            _finish_run(written, taken, doc, as_json, played=False)
         done = book.entry(entry.id)
     _err(f"run {done.id}: {done.status}; {_headline_text(done)}")
 
@@ -2136,8 +2142,6 @@ def compare(
         if last is not None:
             if refs:
                 raise BenchkitError("give runs or --last N, not both")
-            if last < 2:
-                raise BenchkitError("--last wants at least 2")
             if command is None:
                 newest = book.entries(status="complete", limit=1)
                 command = newest[0].command if newest else None
@@ -2158,8 +2162,8 @@ def compare(
                      "folder": str(report.folder)}))
 
 
-#: click's error for a command line it cannot read (typer keeps its own copy of click)
-_USAGE_ERROR = typer.BadParameter.__mro__[1]
+#: click's errors for a command line it cannot read (typer keeps its own copy of click: found where BadParameter lives)
+_CLICK = sys.modules[typer.BadParameter.__module__]
 
 
 def main() -> None:
@@ -2170,18 +2174,22 @@ def main() -> None:
     and exit 3."""
     try:
         code = app(standalone_mode=False)
-    except _USAGE_ERROR as exc:
+    except _CLICK.UsageError as exc:
         text, ctx = " ".join(exc.format_message().split()), getattr(exc, "ctx", None)
         if text:  # (none when a group was given no command: its help is the answer)
             _err(f"benchkit: error: {text}" + (f" (see '{ctx.command_path} --help')" if ctx is not None else ""))
         # a value out of its range is bad input like any other; a command line of unknown words is a usage error
-        sys.exit(EXIT_BAD_INPUT if isinstance(exc, typer.BadParameter) else EXIT_USAGE)
+        bad_value = isinstance(exc, typer.BadParameter) and not isinstance(exc, _CLICK.MissingParameter)
+        sys.exit(EXIT_BAD_INPUT if bad_value else EXIT_USAGE)
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         sys.exit(EXIT_BAD_INPUT)
-    except (KeyboardInterrupt, typer.Abort):
+    except KeyboardInterrupt:
         _err("benchkit: interrupted")
         sys.exit(EXIT_INTERRUPTED)
+    except typer.Abort:  # a prompt that got no answer: stdin closed, or Ctrl-C at the prompt
+        _err("benchkit: error: no answer at the prompt (for scripted use, wire first and give --yes)")
+        sys.exit(EXIT_BAD_INPUT)
     except Exception as exc:  # noqa: BLE001 - the one place that turns bugs into one line
         if os.environ.get("BENCHKIT_DEBUG"):
             raise

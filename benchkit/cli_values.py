@@ -25,7 +25,7 @@ from benchkit import units
 from benchkit.errors import BenchkitError
 
 
-def _read(value, integer: bool):
+def _read(value, integer: bool, hint: str = ""):
     """A number from the command line (or an option's default)."""
     if isinstance(value, (int, float)) and not isinstance(value, bool):
         number = value
@@ -34,26 +34,29 @@ def _read(value, integer: bool):
         try:
             number = int(text) if integer else float(text)
         except ValueError:
-            raise typer.BadParameter(f"{text!r} is not {'a whole number' if integer else 'a number'}") from None
+            raise typer.BadParameter(f"{text!r} is not {'a whole number' if integer else 'a number'}"
+                                     f"{'; ' + hint if hint else ''}") from None
     if integer and number != int(number):
         raise typer.BadParameter(f"{value!r} is not a whole number")
     return int(number) if integer else float(number)
 
 
-def number(low: float | None = None, high: float | None = None, *, above: bool = False, unit: str = "",
-           integer: bool = False, hint: str = "") -> Callable:
-    """A parser for a finite number within [low, high] (``above``: strictly
-    above ``low``), in ``unit``; ``hint`` follows a refusal."""
+def number(low: float | None = None, high: float | None = None, *, above: bool = False, below: bool = False,
+           unit: str = "", integer: bool = False, hint: str = "") -> Callable:
+    """A parser for a finite number within [low, high] (``above``,
+    ``below``: strictly), in ``unit``; ``hint`` follows a refusal."""
 
     def parse(value):
-        x = _read(value, integer)
-        ok = math.isfinite(x) and (low is None or (x > low if above else x >= low)) and (high is None or x <= high)
+        x = _read(value, integer, hint)
+        ok = (math.isfinite(x) and (low is None or (x > low if above else x >= low))
+              and (high is None or (x < high if below else x <= high)))
         if not ok:
+            shown = (lambda v: str(int(v))) if integer else (lambda v: f"{v:g}")
             parts = []
             if low is not None:
-                parts.append(f"{'above' if above else 'at least'} {low:g}")
+                parts.append(f"{'above' if above else 'at least'} {shown(low)}")
             if high is not None:
-                parts.append(f"at most {high:g}")
+                parts.append(f"{'below' if below else 'at most'} {shown(high)}")
             span = " and ".join(parts) if parts else "finite"
             raise typer.BadParameter(f"must be {'a whole number' if integer else 'a finite number'}"
                                      f"{' ' + span if parts else ''}{' ' + unit if unit else ''}, got {value}"
@@ -92,24 +95,32 @@ def one_of(*choices: str) -> Callable:
     return parse
 
 
-def when(value):
-    """A date (YYYY-MM-DD) or a date and time (ISO 8601), kept as text."""
+def when(value) -> str:
+    """A date (YYYY-MM-DD) or a date and time (ISO 8601), as the logbook
+    writes them: a date stays a date (a whole day), a time is written
+    YYYY-MM-DDTHH:MM:SS (so that text compares as time)."""
     from datetime import datetime
 
+    text = str(value).strip()
     try:
-        datetime.fromisoformat(str(value).strip())
+        when = datetime.fromisoformat(text)
     except ValueError:
         raise typer.BadParameter(f"must be a date YYYY-MM-DD or a time YYYY-MM-DDTHH:MM, got {value!r}") from None
-    return str(value).strip()
+    if when.time() == datetime.min.time() and when.tzinfo is None and len(text) <= 10:
+        return when.date().isoformat()
+    return when.isoformat()
 
 
 def out_file(value) -> Path:
     """A file to write: not an existing folder, in a folder that exists or
     can be made."""
     path = Path(value)
-    if path.is_dir():
-        raise typer.BadParameter(f"{path} is a folder: give the file to write, e.g. {path / 'profile.json'}")
-    parent = next((q for q in path.absolute().parents if q.exists()), None)
+    try:
+        if path.is_dir():
+            raise typer.BadParameter(f"{path} is a folder: give the file to write, e.g. {path / 'profile.json'}")
+        parent = next((q for q in path.absolute().parents if q.exists()), None)
+    except OSError as exc:  # a name too long, a folder that cannot be read
+        raise typer.BadParameter(f"{path}: {exc.strerror or exc}") from None
     if parent is not None and not parent.is_dir():
         raise typer.BadParameter(f"{path}: {parent} is a file, not a folder")
     return path
@@ -118,7 +129,11 @@ def out_file(value) -> Path:
 def out_folder(value) -> Path:
     """A folder to write into: not an existing file."""
     path = Path(value)
-    if path.exists() and not path.is_dir():
+    try:
+        is_file = path.exists() and not path.is_dir()
+    except OSError as exc:
+        raise typer.BadParameter(f"{path}: {exc.strerror or exc}") from None
+    if is_file:
         raise typer.BadParameter(f"{path} is a file: give a folder to write the reports into")
     return path
 
@@ -171,19 +186,14 @@ def seconds(high: float) -> Callable:
 
 
 #: the kinds most options are
-POSITIVE = number(0.0, above=True)
-NON_NEGATIVE = number(0.0)
-FINITE = number()
 VOLTS = number(0.0, above=True, unit="V")
 AMPS = number(0.0, above=True, unit="A")
 WATTS = number(0.0, above=True, unit="W")
-PERCENT = number(0.0, 100.0, above=True, unit="%")
+PERCENT = number(0.0, 100.0, above=True, below=True, unit="%")
 COUNT = number(1, 1_000_000, integer=True)
 CHANNEL = number(1, 256, integer=True, hint="channels are numbered from 1")
 SEED = number(0, 2**32 - 1, integer=True)
 RATE = number(8000.0, 768000.0, unit="Hz")
-#: the longest a single capture may be: an hour of audio is about 1.4 GB at 96 kHz in float32 stereo
-CAPTURE_S = seconds(3600.0)
 #: a live readout or a drift log may run a day
 SESSION_S = seconds(86400.0)
 
@@ -198,16 +208,15 @@ def _sim_pad(text: str):
     return None if text.strip().lower() == "demo" else _pad(text)
 
 
-def _sim_load(value):
-    if str(value).strip().lower() != "off":
-        ohms(value)
-    return value
+def _sim_load(value) -> float | str:
+    """Ohms, or "off"."""
+    return "off" if str(value).strip().lower() == "off" else ohms(value)
 
 
-def _latency(value):
-    if str(value).strip().lower() not in ("low", "high"):
-        number(0.0, 2.0, above=True, unit="s")(value)
-    return value
+def _latency(value) -> float | str:
+    """"low", "high", or seconds."""
+    word = str(value).strip().lower()
+    return word if word in ("low", "high") else number(0.0, 2.0, above=True, unit="s")(value)
 
 
 #: a pad R1:R2 (or 'none', or the virtual bench's 'demo'), a simulated load (or 'off'), a stream latency

@@ -218,9 +218,14 @@ except ImportError:  # pragma: no cover - not POSIX
 
 
 def _hold_lock(path: Path):
+    """The run's lock, taken (BlockingIOError: another process holds it)."""
     fh = open(path, "a+")
     if fcntl is not None:
-        fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        try:
+            fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            fh.close()
+            raise
     return fh
 
 
@@ -235,26 +240,29 @@ def _lock_is_held(path: Path, pid: int | None) -> bool:
         except OSError:
             return False
         return True
-    if not path.exists():  # taken before the run's record says running, dropped after it ends
+    try:
+        fd = os.open(path, os.O_RDWR)  # never made here: taken before the record says running, dropped after it ends
+    except FileNotFoundError:
+        return False
+    except OSError:  # a read-only bench: fall back on the process id
+        fd = None
+    if fd is not None:
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            return True
+        finally:
+            os.close(fd)  # (closing drops a lock taken here)
+        return False
+    if not pid:
         return False
     try:
-        with open(path, "a+") as fh:
-            try:
-                fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-            except OSError:
-                return True
-            fcntl.flock(fh.fileno(), fcntl.LOCK_UN)
-            return False
-    except OSError:  # a read-only bench: fall back on the process id
-        if not pid:
-            return False
-        try:
-            os.kill(pid, 0)
-        except ProcessLookupError:
-            return False
-        except PermissionError:
-            return True
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
         return True
+    return True
 
 
 # --- the logbook -------------------------------------------------------------------
@@ -541,16 +549,33 @@ class Logbook:
         if self.readonly:
             return gone
         for run_id in gone:
-            record = self.read_record(run_id, missing_ok=True)
+            try:
+                record = self.read_record(run_id, missing_ok=True)
+            except BenchkitError:  # a damaged record: listed as it is, 'log rebuild' says why
+                continue
             if record is None or record.get("status") != "running":
                 continue
             record["status"] = "incomplete"
             record["error"] = record.get("error") or "its process went away while it ran (killed or crashed)"
             self.update(record)
-            for leftover in self.folder(run_id).glob(".*.tmp"):  # a file it was writing when it went
-                leftover.unlink(missing_ok=True)
-            (self.folder(run_id) / LOCK).unlink(missing_ok=True)
+            self._clear_leftovers(run_id)
         return gone
+
+    def _clear_leftovers(self, run_id: str) -> None:
+        """What a run whose process went away left behind: the files it was
+        writing (``.*.tmp``) and its lock, taken first (a run being taken
+        up again holds it: then nothing is touched)."""
+        folder = self.folder(run_id)
+        try:
+            lock = _hold_lock(folder / LOCK)
+        except OSError:  # held: taken up again meanwhile
+            return
+        try:
+            for leftover in folder.glob(".*.tmp"):
+                leftover.unlink(missing_ok=True)
+            (folder / LOCK).unlink(missing_ok=True)
+        finally:
+            lock.close()
 
     # --- reading the catalog ---
 

@@ -5,10 +5,10 @@ From the drive levels, the output scale, the stage's gain (given, or
 measured first at a low level), the pad and the input's full scale, the
 peak at the stage and at the input follow (a linear stage: gain is a
 ratio). A run is refused when the top step would come within ``margin_db``
-of the input's full scale, when a rail's worst case would overload the
-input through the pad, or when a pad resistor would see more than its
-rating; each refusal names the number to change. Warnings cover what
-cannot be checked by numbers alone.
+of the input's full scale, or when a pad resistor would see more than its
+rating; a stated rail is judged by :func:`rail_rule`, which needs no gain
+(so before any probe plays). Each refusal names the number to change.
+Warnings cover what cannot be checked by numbers alone.
 """
 
 from __future__ import annotations
@@ -51,7 +51,8 @@ def rail_rule(rail_v: float, ratio: float, input_fs_vpk: float, margin_db: float
         raise BenchkitError(
             f"the pad (1:{1 / ratio:.4g}) would let the stage's normal swing on a {rail_v:g} V rail "
             f"({normal_swing_vpk(rail_v, bridged):g} V peak) reach {units.db_from_ratio(normal / input_fs_vpk):+.1f} dBFS at "
-            f"the input, over the {-margin_db:g} dBFS limit: use a pad of at least 1:{need:.3g} (benchkit pad --rail {rail_v:g})")
+            f"the input, over the {-margin_db:g} dBFS limit: use a pad of at least 1:{need:.3g} "
+            f"(benchkit pad --rail {rail_v:g}{' --btl' if bridged else ''})")
     fault = rail_v * ratio
     fault_dbfs = units.db_from_ratio(fault / input_fs_vpk)
     if input_max_vpk is not None and fault > input_max_vpk:
@@ -88,11 +89,9 @@ def check(
     pad_ratio: float | None = None,
     input_ohms: float = math.inf,
     pad_rating_w: float | None = None,
-    rail_v: float | None = None,
     load_ohms: float | None = None,
     bridged: bool = False,
     margin_db: float = DEFAULT_MARGIN_DB,
-    input_max_vpk: float | None = None,
 ) -> Plan:
     """Predict a run and refuse it if it would overload anything.
 
@@ -108,10 +107,6 @@ def check(
         The input's full scale in volts and what is in front of it.
     pad_rating_w : float, optional
         Power rating of the pad resistors.
-    rail_v : float, optional
-        The stage's supply, judged by :func:`rail_rule`.
-    input_max_vpk : float, optional
-        The most the input takes without damage, volts peak (its manual's rating).
     load_ohms, bridged
         For the warnings.
     """
@@ -127,9 +122,6 @@ def check(
         )
     stage = tuple(p * stage_volts_per_fs if stage_volts_per_fs else None for p in peaks)
     ratio = pad.ratio(input_ohms) if pad is not None else pad_ratio
-    rail_notes = ()
-    if rail_v is not None and input_vpk_per_fs and ratio is not None:
-        rail_notes = rail_rule(rail_v, ratio, input_vpk_per_fs, margin_db, input_max_vpk, bridged)
     if pad is not None and pad_rating_w is not None and stage[0] is not None:
         worst = max(v for v in stage if v is not None)
         p1, p2 = pad.resistor_watts(units.vrms_from_vpk(worst), input_ohms)
@@ -139,7 +131,7 @@ def check(
                     f"pad resistor {name} would dissipate {quantity(p, 'W', 3)} at the top step, over its {pad_rating_w:g} W "
                     "rating: use a higher rating or lower the drive"
                 )
-    warnings = list(rail_notes)
+    warnings = []
     if (ratio is None or ratio >= 1.0) and load_ohms is not None:
         warnings.append("no pad between a power stage and the input: one fault and the input takes the stage's full swing")
     low = units.db_from_ratio(min(peaks))

@@ -178,7 +178,6 @@ def recover_capture(folder: Path, stem: str = "capture") -> Path:
     BenchkitError
         When there is nothing to recover, or the marker is not in it.
     """
-    
     import soundfile as sf
 
     from benchkit.capture.align import find_marker
@@ -283,9 +282,15 @@ def plan_run(backend, profile, drive, frequency_hz, channel, gain, margin_db, ra
         input_ohms = (pad_spec.input_ohms if pad_spec is not None else None) or math.inf
     if not virtual and stage_vpf is None and (load_ohms is not None or pad_rating_w is not None):
         raise BenchkitError("--load and --pad-rating need volts at the stage: give --calibration (or --volts-per-fs)")
+    # the rail rule needs no gain: judged before any probe plays
+    loaded = pad.ratio(input_ohms) if pad is not None else ratio
+    rail_notes = () if rail_v is None or not in_vpk or loaded is None else preflight.rail_rule(
+        rail_v, loaded, in_vpk, margin_db, getattr(backend, "input_max_vpk", None), bridged)
+
     def judge(g: float):
-        return preflight.check(drive, g, stage_vpf, in_vpk, pad, ratio, input_ohms, pad_rating_w, rail_v,
-                               load_ohms, bridged, margin_db, getattr(backend, "input_max_vpk", None))
+        plan = preflight.check(drive, g, stage_vpf, in_vpk, pad, ratio, input_ohms, pad_rating_w, load_ohms, bridged,
+                               margin_db)
+        return replace(plan, warnings=(*rail_notes, *plan.warnings))
 
     if gain_fs is not None:
         return judge(gain_fs)  # measured already

@@ -254,11 +254,14 @@ def parse_frequency(text: str) -> float:
 def parse_resistance(text: str) -> float:
     """A resistance in ohms, the one reading of it everywhere: "8", "200",
     "1.8k", "10k", "4.7M", "2k2" (the digit standing for the point, as
-    printed on parts), "8 ohm", "8R"; the prefix is k or M (an "m" is read
-    as M: nobody means milliohms at the bench)."""
+    printed on parts), "8 ohm", "8R"; the prefix is k or M. A lowercase
+    "m" is refused: milli to SI, mega to many a parts list."""
     m = re.match(r"^\s*(?P<v>[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?)\s*(?P<p>[kKmM]|R)?(?P<d>\d+)?\s*(ohms?|Ω)?\s*$", text)
     if not m or (m.group("d") and (m.group("p") is None or "." in m.group("v") or "e" in m.group("v").lower())):
         raise BenchkitError(f"cannot read resistance {text!r}: expected ohms, e.g. '8', '200', '1.8k', '10k' or '4.7M'")
+    if m.group("p") == "m":
+        raise BenchkitError(f"resistance {text!r}: write M for megohms (a lowercase m could be milli); "
+                            "milliohms as a decimal, e.g. 0.05")
     prefix = (m.group("p") or "").lower()
     scale = {"k": 1e3, "m": 1e6, "r": 1.0, "": 1.0}[prefix]
     value = float(m.group("v") + ("." + m.group("d") if m.group("d") else ""))
@@ -301,6 +304,14 @@ def parse_sweep_spec(text: str) -> tuple[float, float, float]:
     if not (0 < f1 < f2 and 0 < seconds <= 3600):
         raise BenchkitError(f"--sweep {text!r}: F1 must be above 0 and below F2, the length above 0 and at most 3600 s")
     return f1, f2, seconds
+
+
+def parse_span(text: str) -> tuple[float, float]:
+    """A span of frequencies "F1:F2" in Hz (a sweep's): a band, never 'full'."""
+    band = parse_band(text)
+    if band is None or band[0] <= 0:
+        raise BenchkitError(f"cannot read span {text!r}: expected F1:F2 in Hz above 0, e.g. 10:22000")
+    return band
 
 
 # --- printing quantities -------------------------------------------------------

@@ -64,6 +64,7 @@ FILES = {
     "nan_wav": lambda d: sf.write(str(d / "nan.wav"), np.full(4800, np.nan), 48000, subtype="FLOAT") or d / "nan.wav",
     "folder": lambda d: (d / "a-folder").mkdir(exist_ok=True) or d / "a-folder",
     "missing": lambda d: d / "no-such-file.wav",
+    "long_name": lambda d: d / ("a" * 300),
     "profile_ratio_text": lambda d: _profile(d / "p1.json", pad={"ratio": "0.1"}),
     "profile_uncertainty_list": lambda d: _profile(d / "p2.json", uncertainty=[1, 2]),
     "profile_96k": lambda d: _profile(d / "p3.json", sample_rate_hz=96000.0),
@@ -180,6 +181,11 @@ REFUSED = [
     "tone --load 1e12", "tone --sim-param coupling_uf=1e-9", "tone --sim-param mains_hz=1e9",
     "tone --sim-param gain=nan", "tone --sim-param bias=-1", "tone --sim nosuch", "tone --sim-param nosuch=1",
     "tone --level -500dBFS", "tone --level 100Vrms", "watch --level 0.5dBFS --duration 1", "power --load 8 --start -500",
+    # more found by review: each refused before the probe step plays
+    "budget", "sweep --rate 32000", "sweep --span full", "power --load 8 --limit 100", "tone --load 50m",
+    "watch --dc-source bogus --duration 1", "watch --dc-source meter --duration 1", "watch --dc-source input --duration 1",
+    "tone --rail 24 --input-max 2.2", "tone --btl --rail 24", "log list --since 2026-13-01",
+    "power --load 8 --bias 0.8", "log export --out {long_name}", "analyze {wav} --out {long_name}",
     # calibration profiles that are damaged or of the wrong shape
     "tone --calibration {missing}", "tone --calibration {folder}", "tone --calibration {profile_ratio_text}",
     "tone --calibration {profile_uncertainty_list}", "tone --calibration {profile_scale_text}",

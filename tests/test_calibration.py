@@ -265,3 +265,15 @@ def test_one_rail_rule_in_every_command(tmp_path, pad, accepted):
     assert one["input_peak_fs"] == pytest.approx(12 * ratio / 2.0, rel=1e-9)
     assert one["fault_peak_fs"] == pytest.approx(24 * ratio / 2.0, rel=1e-9)
     assert (one["input_peak_fs"] <= 10 ** (-3 / 20)) == accepted
+
+
+def test_a_profile_reads_back_as_written(tmp_path):
+    # its digest (recorded by every run that used it) is of what it holds:
+    # reading must not turn 48000 into 48000.0, or older runs would compare
+    # as made with another calibration
+    from benchkit.calibration import Profile
+
+    fields = dict(interface="virtual", sample_rate_hz=48000, out_channel=1, in_channel=1, output_vpk_per_fs=2,
+                  input_vpk_per_fs=2)
+    path = save_profile(Profile(**fields), tmp_path / "p.json")
+    assert load_profile(path).digest() == Profile(**fields).digest()

@@ -137,7 +137,7 @@ def test_one_reading_of_a_resistance(text, ohms):
     assert units.parse_resistance(text) == pytest.approx(ohms, rel=1e-12)
 
 
-@pytest.mark.parametrize("bad", ["", "k", "abc", "nan", "1.5k2", "1e3k5", "10 kHz", "8 V"])
+@pytest.mark.parametrize("bad", ["", "k", "abc", "nan", "1.5k2", "1e3k5", "10 kHz", "8 V", "50m", "4m7"])
 def test_a_resistance_that_cannot_be_read(bad):
     with pytest.raises(BenchkitError, match="resistance"):
         units.parse_resistance(bad)

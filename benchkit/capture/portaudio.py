@@ -63,8 +63,10 @@ def _signals_to_this_thread():
     thread's blocked signals. A signal the kernel hands to an audio thread
     reaches Python only when the main thread next wakes by itself (up to
     one poll, 20 ms, later): the fade would start a period late."""
-    masked = {signal.SIGINT, signal.SIGTERM}
-    old = signal.pthread_sigmask(signal.SIG_BLOCK, masked)
+    if not hasattr(signal, "pthread_sigmask"):  # not POSIX: nothing to hold back
+        yield
+        return
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
     try:
         yield
     finally:
@@ -335,7 +337,7 @@ class PortAudioBackend:
         ramp = np.linspace(1.0, 0.0, fade_n, dtype=np.float32)
         cap_fs = np.float32(units.ratio_from_db(self.drive_cap_dbfs))
         state = {"pos": 0, "fade_at": -1, "last": time.monotonic(), "faults": [], "statuses": [], "clipped_at": -1,
-                 "end": total, "block": self.blocksize}
+                 "end": total, "block": 0}
         in_col = self.in_channel - 1
         done = threading.Event()
         self._abort.clear()
@@ -488,7 +490,7 @@ class PortAudioBackend:
             events += (f"the raw recording could not be streamed to {partial}: {state['writer_error']}",)
         return RawRecording(samples=ring.get(max(0, got - ring.n) if ring.wraps else 0, got).astype(np.float64),
                             events=events, fault_frames=tuple(state["faults"]),
-                            fault_block=state["block"], stopped_at=clipped_at)
+                            fault_block=state["block"] or self.blocksize, stopped_at=clipped_at)
 
 
 class _Ring:
