@@ -624,17 +624,41 @@ def _live_run():
         raise typer.Exit(EXIT_BAD_INPUT)
 
 
+class _BenchLater:
+    """A bench's logbook that opens on first use: a bench folder used for
+    the first time is made only when a run is filed in it, not by a
+    command refused before that."""
+
+    def __init__(self, root: Path, stack: contextlib.ExitStack):
+        self.root, self._stack, self._book = root, stack, None
+
+    def __getattr__(self, name):
+        from benchkit import logbook
+
+        if self._book is None:
+            self._book = self._stack.enter_context(logbook.Logbook(self.root))
+        return getattr(self._book, name)
+
+
 @contextlib.contextmanager
 def _logbook(bench: dict):
     """The bench's logbook, opened (and checked writable) before anything
     plays, with the run's labels: tags, note and the stage description
-    (a --stage file or --stage-info fields update the remembered one)."""
+    (a --stage file or --stage-info fields update the remembered one). A
+    bench without a catalog yet is checked writable and opened when a run
+    is filed in it."""
     from benchkit import logbook
 
     tags = logbook.parse_tags(bench["tags"])
     fields = logbook.parse_tags(bench["stage_info"], "--stage-info is key=value, e.g. rail=24V")
-    with logbook.Logbook(logbook.resolve_bench(bench["bench"])) as book:
-        stage = book.settings().get("stage") or {}
+    root = logbook.resolve_bench(bench["bench"])
+    with contextlib.ExitStack() as stack:
+        if (root / CATALOG).exists():
+            book = stack.enter_context(logbook.Logbook(root))
+        else:
+            logbook.check_writable(root)
+            book = _BenchLater(root, stack)
+        stage = logbook.read_settings(root).get("stage") or {}
         if bench["stage"] is not None:
             stage = logbook.read_stage(bench["stage"])
         changed = bench["stage"] is not None or bool(fields)

@@ -70,6 +70,38 @@ _RECORD_FIELDS = {
 _FIGURE_FIELDS = {"name": TEXT, "value": NUMBER + (None,), "unit": TEXT, "at": TEXT + NUMBER + (None,)}
 
 
+def _unwritable(root: Path, exc: OSError) -> BenchkitError:
+    return BenchkitError(f"cannot write to the bench folder {root}: {exc.strerror or exc}; "
+                         f"choose a writable one with --bench or {BENCH_ENV}")
+
+
+def check_writable(root: Path) -> None:
+    """Refuse a bench folder benchkit could not write to, leaving nothing
+    behind: a file made and removed in it, or in the nearest folder above
+    it that exists (a bench not made yet)."""
+    here = next((q for q in (root, *root.absolute().parents) if q.exists()), None)
+    try:
+        if here is None or not here.is_dir():
+            raise NotADirectoryError(f"{here} is not a folder")
+        probe = here / f".write-check.{os.getpid()}"
+        probe.touch()
+        probe.unlink()
+    except OSError as exc:
+        raise _unwritable(root, exc) from None
+
+
+def read_settings(root: Path) -> dict:
+    """The bench folder's remembered settings (bench.json): {} when none."""
+    path = Path(root) / SETTINGS
+    try:
+        doc = load_json(path)
+    except FileNotFoundError:
+        return {}
+    except (OSError, ValueError) as exc:
+        raise BenchkitError(f"{path}: unreadable bench settings ({exc})") from None
+    return doc if isinstance(doc, dict) else {}
+
+
 def resolve_bench(option: str | os.PathLike | None) -> Path:
     """The bench folder: the option, else BENCHKIT_BENCH, else the current directory."""
     if option:
@@ -321,12 +353,9 @@ class Logbook:
         else:
             try:
                 self.runs_dir.mkdir(parents=True, exist_ok=True)
-                probe = self.root / f".write-check.{os.getpid()}"
-                probe.touch()
-                probe.unlink()
             except OSError as exc:
-                raise BenchkitError(f"cannot write to the bench folder {self.root}: {exc.strerror or exc}; "
-                                    f"choose a writable one with --bench or {BENCH_ENV}") from None
+                raise _unwritable(self.root, exc) from None
+            check_writable(self.root)
         self.db = self._connect(path)
         try:
             self._migrate()
@@ -702,14 +731,7 @@ class Logbook:
     # --- the remembered stage ---
 
     def settings(self) -> dict:
-        path = self.root / SETTINGS
-        try:
-            doc = load_json(path)
-        except FileNotFoundError:
-            return {}
-        except (OSError, ValueError) as exc:
-            raise BenchkitError(f"{path}: unreadable bench settings ({exc})") from None
-        return doc if isinstance(doc, dict) else {}
+        return read_settings(self.root)
 
     def remember_stage(self, stage: dict) -> None:
         doc = {"kind": "bench-settings", "schema_version": 1, **self.settings(), "stage": stage}

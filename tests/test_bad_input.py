@@ -295,3 +295,13 @@ def test_tolerated_with_a_warning(row, what, bench, tmp_path):
     assert any("warning" in line.lower() and what in line for line in res.stderr.splitlines()), res.stderr
     if row.startswith("log rebuild"):  # the good run is indexed all the same
         assert "indexed 1 run " in res.stderr, res.stderr
+
+
+@pytest.mark.parametrize("row", ["tone --in-channel 5", "tone --freq 30000", "sweep --rate 32000",
+                                 "tone --rail 24 --input-max 2.2", "watch --dc-source input --duration 1"])
+def test_a_refusal_makes_no_bench_folder(row, tmp_path, monkeypatch):
+    # a bench folder used for the first time is made when a run is filed in it, not by a refused command
+    monkeypatch.setenv("BENCHKIT_BENCH", str(tmp_path / "new" / "bench"))
+    res = run_cli(*shlex.split(row))
+    assert res.returncode == 1 and "benchkit: error:" in res.stderr, res.stderr
+    assert not (tmp_path / "new").exists()
