@@ -20,6 +20,7 @@ import typer
 from benchkit import __version__, units
 from benchkit import cli_values as V
 from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB
+from benchkit.analysis.compare import headline_figures
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION, analyze_tone
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
@@ -692,7 +693,7 @@ def _finish_run(written: list[Path], run, doc: dict, as_json: bool, status: str 
     not all it was asked."""
     from benchkit.recordings import stopped_early
 
-    run.complete(doc, written, written[0] if written else None, status=status)
+    run.complete(doc, written, written[0] if written else None, status=status, figures=headline_figures(doc))
     for path in written:
         _err(f"  wrote        {path}")
     _err(f"run folder: {run.folder}")
@@ -895,7 +896,8 @@ def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, j
 
     from benchkit.report import live as show
     from benchkit.report.tables import dumps_line
-    from benchkit.watch import ReadingsLog, Tracker, Watch, summarise
+    from benchkit.analysis.readings import Tracker
+    from benchkit.watch import ReadingsLog, Watch, summarise
 
     mode = "json" if json_lines else "plain" if plain or not sys.stdout.isatty() else "live"
     log = ReadingsLog(run.folder / "readings.csv") if run is not None else None
@@ -984,14 +986,14 @@ def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, j
         from benchkit.report import tables
 
         written.insert(0, tables.write_json(doc, run.folder / "watch.json"))
-        run.complete(doc, written, written[0])
+        run.complete(doc, written, written[0], figures=headline_figures(doc))
         _err(f"run {run.id}: {run.folder}")
     return code
 
 
 def _watch_summary(tracker) -> list[str]:
     from benchkit.report.live import value_text
-    from benchkit.watch import FIGURES
+    from benchkit.analysis.readings import FIGURES
 
     return [f"  {label:<6} {unit:<5} min {value_text(tracker.min[key], unit).strip():>14}   "
             f"max {value_text(tracker.max[key], unit).strip():>14}"

@@ -29,6 +29,7 @@ from pathlib import Path
 from typing import Callable
 
 from benchkit import units
+from benchkit.analysis.compare import headline_figures
 from benchkit.budget import ClassABudget
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
 from benchkit.compare_runs import compare_runs
@@ -101,7 +102,8 @@ def _logged(book: Logbook, command: str, bias: float, params: dict, measure) -> 
     with book.start(command, tags={"bias": f"{bias:g}A"}, note=NOTE, stage=STAGE, device="virtual",
                     params=params, argv=["demo"]) as run:
         result, written = measure(run.folder)
-        run.complete(result.to_dict(), written, written[0])
+        doc = result.to_dict()
+        run.complete(doc, written, written[0], figures=headline_figures(doc))
     return result, written
 
 

@@ -763,16 +763,17 @@ class Run:
             self._lock.close()
             self._lock = None
 
-    def complete(self, doc: dict, files: list[Path], result_file: Path | None = None, status: str = "complete") -> None:
-        """Record the result (already written to disk) and end the run."""
-        from benchkit.analysis.compare import headline_figures
-
+    def complete(self, doc: dict, files: list[Path], result_file: Path | None = None, status: str = "complete", *,
+                 figures: list[dict]) -> None:
+        """Record the result (already written to disk) with its headline
+        ``figures`` (benchkit.analysis.compare.headline_figures: the logbook
+        stores them, it does not work them out) and end the run."""
         self.record.update(
             result_kind=doc.get("kind"),
             result_file=None if result_file is None else Path(result_file).name,
             files=sorted({Path(f).name for f in files} | {p.name for p in self.folder.iterdir()
                                                           if p.is_file() and not p.name.startswith(".")}),
-            valid=_valid(doc), warnings=_warnings(doc), figures=headline_figures(doc),
+            valid=_valid(doc), warnings=_warnings(doc), figures=figures,
             error=None)
         self.record.pop("retry_error", None)
         self._end(status)

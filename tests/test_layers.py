@@ -30,7 +30,7 @@ def _imports(path: Path) -> set[str]:
     [
         ("analysis", ("benchkit.capture", "benchkit.report", "benchkit.cli", "benchkit.recordings", "benchkit.runs")),
         ("capture", ("benchkit.report", "benchkit.cli")),
-        ("report", ("benchkit.capture", "benchkit.cli")),
+        ("report", ("benchkit.capture", "benchkit.cli", "benchkit.watch", "benchkit.runs", "benchkit.logbook")),
     ],
 )
 def test_layers_do_not_reach_up(folder, forbidden):
@@ -40,8 +40,9 @@ def test_layers_do_not_reach_up(folder, forbidden):
 
 
 def test_the_logbook_is_storage_only():
-    # the catalog and the run folders: no capture, no reports, no CLI
-    bad = {m for m in _imports(PKG / "logbook.py") if m.startswith(("benchkit.capture", "benchkit.report", "benchkit.cli"))}
+    # the catalog and the run folders: no capture, no analysis, no reports, no CLI
+    bad = {m for m in _imports(PKG / "logbook.py")
+           if m.startswith(("benchkit.capture", "benchkit.analysis", "benchkit.report", "benchkit.cli"))}
     assert not bad
 
 

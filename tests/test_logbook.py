@@ -23,7 +23,7 @@ from pathlib import Path
 import pytest
 
 from benchkit import logbook
-from benchkit.analysis.compare import compare
+from benchkit.analysis.compare import compare, headline_figures
 from benchkit.errors import BenchkitError
 
 from conftest import run_cli, run_folders
@@ -250,7 +250,7 @@ book = Logbook(sys.argv[1])
 for k in range(int(sys.argv[3])):
     run = book.start("tone", tags={"writer": sys.argv[2], "k": str(k)})
     (run.folder / "capture.result.json").write_text("{}")
-    run.complete({"kind": "tone-steps", "steps": []}, [run.folder / "capture.result.json"])
+    run.complete({"kind": "tone-steps", "steps": []}, [run.folder / "capture.result.json"], figures=[])
     book.set_tags(run.id, {"checked": "yes"})
 """
 
@@ -282,7 +282,8 @@ def test_an_older_catalog_is_migrated_and_a_newer_one_refused(tmp_path):
     with logbook.Logbook(tmp_path) as book:
         run = book.start("drift")
         run.record["figures"] = [{"name": "settled_v", "value": 12.0, "unit": "V", "at": ""}]
-        run.complete({"kind": "drift", "fit": {"final_v": 11.78}, "nominal_v": 12.0}, [])
+        doc = {"kind": "drift", "fit": {"final_v": 11.78}, "nominal_v": 12.0}
+        run.complete(doc, [], figures=headline_figures(doc))
     with sqlite3.connect(tmp_path / logbook.CATALOG) as db:
         db.execute("DROP TABLE figures")
         db.execute("UPDATE meta SET value = '1' WHERE key = 'schema_version'")

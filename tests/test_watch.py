@@ -23,7 +23,8 @@ import soundfile as sf
 from benchkit.capture.virtual import virtual_bench
 from benchkit.report.live import sparkline
 from benchkit.runs import tone_run
-from benchkit.watch import SteadyTone, Tracker, Watch
+from benchkit.analysis.readings import Tracker
+from benchkit.watch import SteadyTone, Watch
 
 from conftest import run_cli, the_run
 
@@ -122,7 +123,7 @@ def test_a_reading_across_a_stream_dropout_is_marked_and_left_out(tmp_path):
 
 
 def test_tracker_keeps_min_max_trend_and_resets():
-    from benchkit.watch import Reading
+    from benchkit.analysis.readings import Reading
 
     def reading(t, thdn):
         return Reading(t, -20.0, 1.0, None, thdn, thdn, thdn, None, -90.0, None, False, False)

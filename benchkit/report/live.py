@@ -5,10 +5,11 @@ terminal; one plain line a reading otherwise."""
 from __future__ import annotations
 
 import math
+import time
 
 from benchkit import units
 from benchkit.units import quantity
-from benchkit.watch import FIGURES, Reading, Tracker, fmt_time
+from benchkit.analysis.readings import FIGURES, Reading, Tracker
 
 _BARS = "▁▂▃▄▅▆▇█"
 
@@ -86,3 +87,8 @@ def table(tracker: Tracker, title: str):
     t.caption = caption
     t.caption_justify = "left"
     return t
+
+
+def fmt_time(seconds: float) -> str:
+    """Seconds into a watch as shown: 12.3 s, or hh:mm:ss from a minute."""
+    return time.strftime("%H:%M:%S", time.gmtime(seconds)) if seconds >= 60 else f"{seconds:5.1f} s"

@@ -1,0 +1,87 @@
+"""The readings of a live readout: what one update holds, and each
+figure's latest value, minimum, maximum and trend since the start.
+
+Pure data (no stream, no screen): benchkit.watch makes the readings as a
+tone plays, benchkit.report.live shows them.
+"""
+
+from __future__ import annotations
+
+from collections import deque
+from dataclasses import asdict, dataclass
+
+#: The figures a reading has, in display order: (key, label, unit).
+FIGURES = (
+    ("level_vrms", "level", "Vrms"),
+    ("power_w", "power", "W"),
+    ("level_dbfs", "level", "dBFS"),
+    ("thdn_db", "THD+N", "dB"),
+    ("thd_db", "THD", "dB"),
+    ("h2_dbc", "H2", "dBc"),
+    ("h3_dbc", "H3", "dBc"),
+    ("noise_dbfs", "noise", "dBFS"),
+    ("dc_v", "DC", "V"),
+)
+READING_VERSION = 1
+
+
+@dataclass(frozen=True)
+class Reading:
+    """One update: the figures of the latest block, at ``t_s`` seconds
+    into the tone (the block's end, as recorded)."""
+
+    t_s: float
+    level_dbfs: float | None
+    level_vrms: float | None
+    power_w: float | None
+    thdn_db: float | None
+    thd_db: float | None
+    h2_dbc: float | None
+    h3_dbc: float | None
+    noise_dbfs: float | None
+    dc_v: float | None
+    clipped: bool
+    tone_lost: bool
+    #: the stream reported a dropout (over- or underflow) inside the block:
+    #: its figures are shown marked and left out of minimum, maximum and trend
+    disturbed: bool = False
+
+    def to_dict(self) -> dict:
+        return {"kind": "reading", "schema_version": READING_VERSION, **asdict(self)}
+
+
+class Tracker:
+    """Each figure's latest value, minimum, maximum and recent trend since
+    the start (or the last reset); ``hold`` freezes what is shown."""
+
+    def __init__(self, trend: int = 40):
+        self.trend = trend
+        self.reset()
+        self.held: Reading | None = None
+
+    def reset(self) -> None:
+        self.count = 0
+        self.disturbed = 0
+        self.min: dict[str, float] = {}
+        self.max: dict[str, float] = {}
+        self.history: dict[str, deque] = {key: deque(maxlen=self.trend) for key, _l, _u in FIGURES}
+        self.last: Reading | None = None
+
+    def add(self, r: Reading) -> None:
+        self.count += 1
+        self.disturbed += r.disturbed
+        self.last = r
+        for key, _label, _unit in FIGURES:
+            v = getattr(r, key)
+            if v is None or r.disturbed or (r.tone_lost and key != "dc_v"):
+                continue
+            self.min[key] = min(self.min.get(key, v), v)
+            self.max[key] = max(self.max.get(key, v), v)
+            self.history[key].append(v)
+
+    def toggle_hold(self) -> None:
+        self.held = None if self.held is not None else self.last
+
+    @property
+    def shown(self) -> Reading | None:
+        return self.held if self.held is not None else self.last
