@@ -103,3 +103,15 @@ def test_stereo_parameters_need_a_stereo_stage():
     assert res.returncode == 1 and "--sim-stereo" in res.stderr and "Traceback" not in res.stderr
     res = run_cli("power", "--sim-stereo", "--load", "8")
     assert res.returncode == 1 and "stereo" in res.stderr and "Traceback" not in res.stderr
+
+
+def test_crosstalk_at_another_load_does_not_compare_as_like_for_like():
+    # a crosstalk result does not carry its load: the runs' own parameters do,
+    # and 8 ohm against 4 ohm is no like-for-like comparison (common practice:
+    # channel separation depends on the load through the shared supply and ground)
+    from benchkit.analysis.compare import conditions_of, mismatches
+
+    doc = {"kind": "crosstalk", "crosstalk_db": -70.0}
+    conds = [conditions_of(doc, {"params": {"load_ohms": r}}) for r in (8.0, 4.0)]
+    assert [c["load_ohms"] for c in conds] == [8.0, 4.0]
+    assert any("the load differs" in m for m in mismatches(conds, ["a", "b"]))

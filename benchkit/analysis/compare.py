@@ -238,6 +238,8 @@ def conditions_of(doc: dict, record: dict | None = None) -> dict:
     load = doc.get("load_ohm", doc.get("load_ohms"))
     if load is None:
         load = (first.get("conditions") or {}).get("load_ohms")
+    if load is None:  # a result that does not carry its load (crosstalk, reanalysed): the run's own parameters
+        load = params.get("load_ohms")
     band = doc.get("bandwidth_hz", first.get("bandwidth_hz"))
     return {
         "frequency_hz": _num(doc.get("frequency_hz")),
