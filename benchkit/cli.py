@@ -587,6 +587,9 @@ def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more:
     for flag, number, count, what in asked:
         if number is not None and number > count:
             raise BenchkitError(f"{flag} {number}: {backend.name} has {count} {what}s (numbered from 1)")
+    if ref_channel is not None and ref_channel == live["in_channel"]:
+        raise BenchkitError(f"--ref-channel {ref_channel} is the stage's own input (--in-channel): the reference "
+                            "is the input wired straight from the driven output")
     if backend.name == "virtual" and switch:
         backend.connect_load(wanted)
     if backend.name == "virtual" and live["input_max"] is not None:  # the simulated input as the user states it
@@ -1545,10 +1548,10 @@ def power(
 @_judge_options
 @_bench_options
 def drift(
-    source: str = typer.Option("virtual", "--source", help="virtual (the se-class-a midpoint, accelerated), meter (SCPI over pyvisa) or interface (a DC-coupled input)."),
+    source: str = typer.Option("virtual", "--source", parser=V.one_of("virtual", "meter", "interface"), help="virtual (the se-class-a midpoint, accelerated), meter (SCPI over pyvisa) or interface (a DC-coupled input)."),
     resource: Optional[str] = typer.Option(None, "--resource", help="The meter's VISA resource, e.g. TCPIP::192.168.1.50::5025::SOCKET or ASRL/dev/ttyUSB0::INSTR."),
     current_resource: Optional[str] = typer.Option(None, "--current-resource", help="A second meter reading the supply's DC current, logged beside the volts."),
-    interval: float = typer.Option(1.0, "--interval", parser=V.seconds(3600.0), help="Seconds between readings."),
+    interval: float = typer.Option(1.0, "--interval", parser=V.number(0.01, 3600.0, unit="s", hint="a reading at most every 10 ms"), help="Seconds between readings."),
     duration: Optional[float] = typer.Option(None, "--duration", parser=V.SESSION_S, help="Log this long, seconds."),
     until_settled: bool = typer.Option(False, "--until-settled", help="Stop once settled within --settle-band."),
     accelerate: float = typer.Option(60.0, "--accelerate", parser=V.number(0.0, 1e6, above=True), help="Virtual source: model seconds per second of interval."),
@@ -1579,6 +1582,11 @@ def drift(
     from benchkit.report import summary
 
     with _live_run(), _logbook(filing) as (book, labels):
+        step = interval * (accelerate if source == "virtual" else 1.0)  # the source's own seconds between readings
+        if duration is not None and duration < 2 * step:
+            raise BenchkitError(f"--duration {duration:g} s holds fewer than two readings {step:g} s apart"
+                                + (f" (--interval {interval:g} s x --accelerate {accelerate:g} on the virtual source)"
+                                   if source == "virtual" else "") + ": lengthen it or shorten --interval")
         profile = load_profile(calibration) if calibration is not None else None
         if source == "virtual":
             from benchkit.capture.stages import make_stage, parse_params

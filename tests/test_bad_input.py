@@ -186,6 +186,8 @@ REFUSED = [
     "watch --dc-source bogus --duration 1", "watch --dc-source meter --duration 1", "watch --dc-source input --duration 1",
     "tone --rail 24 --input-max 2.2", "tone --btl --rail 24", "log list --since 2026-13-01",
     "power --load 8 --bias 0.8", "log export --out {long_name}", "analyze {wav} --out {long_name}",
+    "drift --interval 1e-9 --duration 1", "gain --ref-channel 1", "tone --ref-channel 1", "drift --duration 2",
+    "drift --source meter --interval 1 --duration 1.5", "drift --source bogus --duration 10",
     # calibration profiles that are damaged or of the wrong shape
     "tone --calibration {missing}", "tone --calibration {folder}", "tone --calibration {profile_ratio_text}",
     "tone --calibration {profile_uncertainty_list}", "tone --calibration {profile_scale_text}",
