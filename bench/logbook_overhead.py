@@ -14,6 +14,7 @@ import tempfile
 import time
 from pathlib import Path
 
+from benchkit.analysis.compare import headline_figures
 from benchkit.logbook import Logbook
 
 RUNS = 300
@@ -33,7 +34,7 @@ def main() -> None:
                 run = book.start("tone", tags={"bias": f"{0.8 + k * 1e-3:.3f}A"}, params={"channel": 1})
                 result = run.folder / "capture.result.json"
                 result.write_text(json.dumps(DOC))
-                run.complete(DOC, [result], result)
+                run.complete(DOC, [result], result, figures=headline_figures(DOC))
             per_run = (time.perf_counter() - t0) / RUNS
             t0 = time.perf_counter()
             entries = book.entries()
