@@ -7,9 +7,12 @@ traceback, no stream started (the backends note every stream they start
 in BENCHKIT_STREAM_LOG), and the bench folder unchanged (so no run filed).
 Tolerated: exit 0 and a warning line that names what was set aside.
 
-No outside source is needed: these are the project's rules for bad input
-(the issue tracker's "refuse bad input before anything plays"), not
-measurements. The table is data: a renamed option is a table edit.
+These are the project's rules for bad input, not measurements; the few
+outside facts the rows lean on are common practice: a sampled signal
+holds nothing at or above half its sample rate (the sampling theorem),
+no converter resolves a tone below about -144 dBFS (24 bits), and a
+resistance written "4k7" is 4.7 kohm (IEC 60062's code, from memory).
+The table is data: a renamed option is a table edit.
 """
 
 from __future__ import annotations
