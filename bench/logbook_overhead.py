@@ -14,7 +14,7 @@ import tempfile
 import time
 from pathlib import Path
 
-from benchkit.analysis.compare import headline_figures
+from benchkit.kinds import headline_figures
 from benchkit.logbook import Logbook
 
 RUNS = 300

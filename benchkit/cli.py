@@ -20,7 +20,7 @@ import typer
 from benchkit import __version__, units
 from benchkit import cli_values as V
 from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB
-from benchkit.analysis.compare import headline_figures
+from benchkit.kinds import headline_figures
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION, analyze_tone
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
@@ -233,18 +233,26 @@ def analyze(
         with _one_line():
             _analyze_zout(files, channel, ref_channel, band, zout_load, open_load, out, as_json)
         return
+    from benchkit import kinds
+
+    options = kinds.Offline(channel=channel, fundamental_hz=fundamental, bandwidth_hz=band, averages=averages,
+                            volts_per_fs=volts_per_fs, load_ohms=load, out=out, sweep=sweep_spec, ref_channel=ref_channel,
+                            ref_freq_hz=ref_freq, smooth=smooth, power=power_opts, imd_method=imd_method, noise=noise,
+                            gain=voltage_gain, time_col=time_col, value_col=value_col, judge=judge, profile=profile,
+                            profile_path=calibration)
     docs, failed = [], 0
     for path in _progress(files, "analysing"):
         try:
-            if Path(path).suffix.lower() == ".csv":
-                docs.append(_analyze_drift_file(Path(path), time_col, value_col, out, **judge))
-                continue
-            docs.append(_analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile, calibration,
-                                     (sweep_spec, ref_channel, ref_freq, smooth), power_opts, noise, voltage_gain, imd_method))
+            got = kinds.analyse_file(Path(path), options, say=_err)
         except BenchkitError as exc:
             failed += 1
             _err(f"benchkit: error: {exc}")
             docs.append({"kind": "error", "schema_version": SCHEMA_VERSION, "file": str(path), "error": str(exc)})
+            continue
+        _err(got.text)
+        for written in got.files:
+            _err(f"  wrote        {written}")
+        docs.append(got.doc)
     if as_json:
         from benchkit.report.tables import dumps
 
@@ -308,152 +316,6 @@ def _power_options(power, load, rail, limits, metric, onset_db, supply_volts, su
     budget = ClassABudget(rail, bias, load, vsat) if bias is not None else None
     return dict(load_ohms=load, metric=metric, limits_pct=tuple(limits), onset_db=onset_db,
                 supply_v=supply_volts, supply_a=supply_amps, budget=budget)
-
-
-def _analyze_drift_file(path: Path, time_col, value_col, out, dc_limit, nominal, settle_band, window) -> dict:
-    from benchkit.drift_runs import analyze_drift_csv
-    from benchkit.report import summary
-
-    result = analyze_drift_csv(path, time_col, value_col, dc_limit, settle_band, window, nominal_v=nominal)
-    _err(summary.drift_summary(result, f"{path}: drift"))
-    if out is not None:
-        for written in _files().drift_reports(result, path, out):
-            _err(f"  wrote        {written}")
-    return result.to_dict()
-
-
-def _analyze_one(path, channel, fundamental, band, averages, volts_per_fs, load, out, profile=None, profile_path=None,
-                 response_opts=(None, None, 1000.0, None), power_opts=None, noise=False, voltage_gain=False,
-                 imd_method=None) -> dict:
-    from dataclasses import replace
-
-    from benchkit import responses, runs
-    from benchkit.analysis.sweep import SyncSweep
-    from benchkit.report import summary
-
-    rec = read_capture(path, channel)
-    for w in rec.warnings:  # (an ignored sidecar: the text says so, as the JSON does)
-        _err(f"warning: {path}: {w}")
-    if profile is not None and volts_per_fs is None:
-        side = dict(rec.sidecar)
-        side.setdefault("channels", [])
-        side["channels"] = [c for c in side["channels"] if c.get("number") != channel] + [{"number": channel}]
-        runs.apply_calibration(side, profile, str(profile_path), channel)
-        rec = replace(rec, sidecar=side)
-    scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
-    if load is not None and scale is None:
-        raise BenchkitError(f"{path}: --load needs a voltage scale (--volts-per-fs, or a sidecar that gives one)")
-    sweep_spec, ref_channel, ref_freq, smooth = response_opts
-    from benchkit.noise_runs import analyze_noise_capture, is_noise
-
-    if voltage_gain:
-        from benchkit.gain_runs import analyze_gain
-
-        doc = {**analyze_gain(Path(path), channel, ref_channel, band, load).to_dict(), "file": str(path)}
-        _err(summary.gain_summary(doc, f"{path} channel {channel}: gain"))
-        return doc
-
-    from benchkit.imd_runs import is_imd
-
-    if imd_method is not None or is_imd(rec):
-        return _analyze_imd(rec, imd_method, volts_per_fs, load, out)
-    if rec.sidecar.get("crosstalk"):
-        from benchkit.crosstalk_runs import analyze_crosstalk_capture
-
-        xt = analyze_crosstalk_capture(Path(path), band)
-        doc = {**xt.to_dict(), "file": str(path)}
-        _err(summary.crosstalk_summary(doc, f"{path}: crosstalk"))
-        if out is not None:
-            for written in _files().crosstalk_reports(xt, Path(path), out):
-                _err(f"  wrote        {written}")
-        return doc
-    if noise or is_noise(rec):
-        ref = (units.vrms_from_watts(1.0, load), f"1 W into {load:g} ohm") if load is not None else (None, None)
-        result = analyze_noise_capture(rec, band, volts_per_fs, *ref, traces=out is not None)
-        doc = {**result.to_dict(), "file": str(path), "channel": channel}
-        _err(summary.noise_summary(doc, f"{path} channel {channel}: noise"))
-        if out is not None:
-            for written in _files().noise_reports(result, Path(path), channel, out):
-                _err(f"  wrote        {written}")
-        return doc
-    if sweep_spec is not None or responses.is_response(rec):
-        spec = None if sweep_spec is None else SyncSweep.design(*sweep_spec, rec.sample_rate_hz, faded=False)
-        if ref_channel is None and sweep_spec is None:
-            ref_channel = rec.sidecar.get("reference_channel")
-        result = responses.analyze_response(rec, ref_channel, spec, ref_freq, load, band)
-        _err(summary.response_summary(result, f"{path} channel {channel}: {result.method} response"))
-        if out is not None:
-            for written in _files().response_reports(result, Path(path), channel, out, smooth):
-                _err(f"  wrote        {written}")
-        return result.to_dict()
-    if power_opts is not None and not runs.is_stepped(rec):
-        raise BenchkitError(f"{path}: --power needs a stepped capture that benchkit wrote (its sidecar lists the steps)")
-    if runs.is_stepped(rec):
-        steps = runs.analyze_steps(rec, band, load, volts_per_fs, out is not None, fundamental, averages)
-        if power_opts is not None:
-            from benchkit.power_runs import power_from_steps
-
-            inverts = bool((rec.sidecar.get("calibration") or {}).get("polarity_inverts"))
-            result = power_from_steps(steps, polarity_inverts=inverts, **power_opts)
-            _err(summary.power_summary(result, f"{path} channel {channel}: power into {load:g} ohm"))
-            if out is not None:
-                for written in _files().power_reports(result, Path(path), channel, out):
-                    _err(f"  wrote        {written}")
-            return result.to_dict()
-        _err(summary.steps_summary(steps, f"{path} channel {channel} ({units.count(len(steps.steps), 'step')})"))
-        if out is not None:
-            for written in _files().steps_reports(steps, Path(path), channel, out):
-                _err(f"  wrote        {written}")
-        return steps.to_dict()
-    result = analyze_tone(
-        rec.samples,
-        rec.sample_rate_hz,
-        fundamental_hz=fundamental if fundamental is not None else rec.stimulus_frequency_hz,
-        bandwidth_hz=band,
-        averages=averages,
-        volts_per_fs=scale,
-        scale_source=source,
-        load_ohms=load,
-        traces=out is not None,
-    )
-    cal = rec.sidecar.get("calibration")
-    note = runs.floor_warning(result, (cal or {}).get("loopback_floor"))
-    if note:
-        result = replace(result, warnings=result.warnings + (note,))
-    d = result.to_dict()
-    doc = {"kind": d.pop("kind"), "schema_version": d.pop("schema_version"), "file": str(path), "channel": channel, **d}
-    doc["warnings"] = list(rec.warnings) + doc["warnings"]
-    if cal:
-        doc["calibration"] = cal
-    _err(summary.tone_summary(result, str(path), channel))
-    if out is not None:
-        for written in _files().tone_reports(result, doc, Path(path), channel, out):
-            _err(f"  wrote        {written}")
-    return doc
-
-
-def _analyze_imd(rec, imd_method: str | None, volts_per_fs, load, out) -> dict:
-    """A two-tone capture: benchkit's own (its sidecar lists the steps), or
-    one made elsewhere, analysed whole with the method and tones given."""
-    from benchkit.analysis.imd import analyze_imd
-    from benchkit.imd_runs import ImdStep, ImdSteps, analyze_imd_steps, is_imd, twin_tone
-    from benchkit.report import summary
-
-    if is_imd(rec) and imd_method is None:
-        result = analyze_imd_steps(rec, volts_per_fs, load, spectrum=out is not None)
-    else:
-        method, _sep, tones = imd_method.partition(":")
-        twin = twin_tone(method, *(units.parse_tones(tones) if tones else (None, None)))
-        scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
-        r = analyze_imd(rec.samples, rec.sample_rate_hz, twin.method, twin.f1_hz, twin.f2_hz, scale, source, load,
-                        spectrum=out is not None)
-        result = ImdSteps(str(rec.path), rec.channel, twin, (ImdStep(None, r),), rec.warnings)
-    doc = result.to_dict()
-    _err(summary.imd_summary(doc, f"{rec.path} channel {rec.channel}: intermodulation"))
-    if out is not None:
-        for written in _files().imd_reports(result, Path(rec.path), rec.channel, out):
-            _err(f"  wrote        {written}")
-    return doc
 
 
 # --- live measurements ---------------------------------------------------------
@@ -2123,7 +1985,7 @@ def log_reanalyse(
     Example: benchkit log reanalyse 20261202-101500-tone-bias-1.2A
     """
     from benchkit import logbook
-    from benchkit.reanalysis import reanalyse
+    from benchkit.kinds import reanalyse
 
     with _book(bench, write=True) as book:
         entry = book.entry(run)

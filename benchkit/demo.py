@@ -29,7 +29,7 @@ from pathlib import Path
 from typing import Callable
 
 from benchkit import units
-from benchkit.analysis.compare import headline_figures
+from benchkit.kinds import headline_figures
 from benchkit.budget import ClassABudget
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
 from benchkit.compare_runs import compare_runs

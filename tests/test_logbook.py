@@ -23,7 +23,8 @@ from pathlib import Path
 import pytest
 
 from benchkit import logbook
-from benchkit.analysis.compare import compare, headline_figures
+from benchkit.analysis.compare import compare
+from benchkit.kinds import get as kind_of, headline_figures
 from benchkit.errors import BenchkitError
 
 from conftest import run_cli, run_folders
@@ -315,12 +316,12 @@ def test_deltas_and_verdicts_follow_the_direction_of_each_figure():
                 "steps": [{"drive_dbfs": -20.0, "thdn_db": thdn, "thd_db": thdn - 1, "noise_dbfs": -90.0,
                            "fundamental_vrms": vrms, "valid": True, "harmonics": []}]}
 
-    c = compare([doc(-60.0, 1.0), doc(-66.0, 1.001)], ["a", "b"])
+    c = compare([doc(-60.0, 1.0), doc(-66.0, 1.001)], ["a", "b"], kind_of("tone").figures)
     d = {x.name: x for x in c.deltas}
     assert d["thdn_db"].changes == (pytest.approx(-6.0),) and d["thdn_db"].verdict(1) == "better"
     assert d["noise_dbfs@-20dBFS"].verdict(1) == "same" and d["level_vrms@-20dBFS"].verdict(1) is None
     drift = [{"kind": "drift", "nominal_v": 12.0, "fit": {"final_v": v}} for v in (12.3, 11.9)]
-    assert {x.name: x for x in compare(drift, ["a", "b"]).deltas}["settled_v"].verdict(1) == "better"
+    assert {x.name: x for x in compare(drift, ["a", "b"], kind_of("drift").figures).deltas}["settled_v"].verdict(1) == "better"
 
 
 def test_sweeps_compare_and_the_corner_moves_as_the_capacitor_says(tmp_path):

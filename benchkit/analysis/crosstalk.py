@@ -23,6 +23,8 @@ import numpy as np
 from benchkit import units
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
+from benchkit.analysis.compare import Figure, finite
+from benchkit.units import quantity
 
 SCHEMA_VERSION = 1
 
@@ -139,3 +141,17 @@ class CrosstalkResult:
             "balance": [{"frequency_hz": f, "balance_db": b} for f, b in balance],
             "warnings": list(self.warnings),
         }
+
+
+def crosstalk_figures(doc: dict) -> list[Figure]:
+    at = f"{quantity(doc['reference_hz'], 'Hz', 4)}" if finite(doc.get("reference_hz")) is not None else ""
+    out = [Figure("crosstalk_db", "crosstalk, the worse direction", finite(doc.get("crosstalk_db")), "dB", "lower", at=at,
+                  headline=True),
+           Figure("balance_db", "channel balance", finite(doc.get("balance_db")), "dB", "nearer", at=at, headline=True)]
+    for key, name in (("a_to_b", "A into B"), ("b_to_a", "B into A")):
+        for x in doc.get(key) or []:
+            f = finite(x.get("frequency_hz"))
+            if f is not None:
+                out.append(Figure(f"crosstalk_{key}_db@{f:.4g}Hz", f"crosstalk {name}", finite(x.get("crosstalk_db")),
+                                  "dB", "lower", at=f"{quantity(f, 'Hz', 4)}"))
+    return out

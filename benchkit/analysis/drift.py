@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.optimize
+from benchkit.analysis.compare import Figure, finite
 
 #: A jump between two readings this many times the readings' own noise
 #: (robust: from the median absolute difference) is a step, not drift.
@@ -212,3 +213,18 @@ def analyze_drift(t_s, v, limit_v: float | None = None, band_v: float | None = N
         notes.append("no first-order settling could be fitted (not settling, or too noisy)")
     return DriftResult(t, y, fit, tuple(events), drift_rate_v_per_s(t, y, window_s), window_s, limit_v,
                        nominal_v, tuple(notes), dict(info or {}))
+
+
+def drift_figures(doc: dict) -> list[Figure]:
+    fit = doc.get("fit") or {}
+    nominal = finite(doc.get("nominal_v")) or 0.0
+    settled = finite(fit.get("final_v"))
+    return [
+        Figure("settled_v", "settled value" if settled is not None else "last value",
+               settled if settled is not None else finite(doc.get("last_v")), "V", "nearer", target=nominal,
+               at="settling fit" if settled is not None else "last reading", headline=True),
+        Figure("pp_v", "peak to peak", finite(doc.get("pp_v")), "V", "lower"),
+        Figure("rate_mv_per_min", "drift rate at the end", finite(doc.get("rate_mv_per_min")), "mV/min", "nearer"),
+        Figure("tau_s", "settling time constant", finite(fit.get("tau_s")), "s", "lower"),
+        Figure("settle_s", "time to settle", finite(fit.get("settle_s")), "s", "lower"),
+    ]

@@ -12,6 +12,8 @@ from dataclasses import dataclass
 
 from benchkit import units
 from benchkit.analysis.tone import ToneResult
+from benchkit.analysis.compare import Figure, finite
+from benchkit.units import quantity
 
 SCHEMA_VERSION = 1
 
@@ -74,3 +76,9 @@ def gain_of(output: ToneResult, drive_dbfs: float, reference: ToneResult | None 
     vin = float(units.vrms_from_vpk(output_vpk_per_fs * units.ratio_from_db(drive_dbfs)))
     return GainResult(output.fundamental_hz, drive_dbfs, vin, output.fundamental_vrms, "calibrated-drive", None, output,
                       load_ohms)
+
+
+def gain_figures(doc: dict) -> list[Figure]:
+    at = f"{quantity(doc.get('frequency_hz', 0), 'Hz', 4)}, drive {doc.get('drive_dbfs', 0):g} dBFS"
+    return [Figure("gain_db", "gain", finite(doc.get("gain_db")), "dB", None, at=at, headline=True),
+            Figure("phase_deg", "phase", finite(doc.get("phase_deg")), "deg", None, at=at)]

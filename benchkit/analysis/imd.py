@@ -41,6 +41,7 @@ from benchkit.analysis import refuse_non_finite
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import detect_clipping
 from benchkit.errors import BenchkitError
+from benchkit.analysis.compare import Figure, finite
 
 SCHEMA_VERSION = 1
 
@@ -336,3 +337,19 @@ def _figures(method: str, amp: dict, ref: float, max_order: int) -> tuple[dict, 
             if len(got) < len(terms):
                 partial.append(k)
     return out, partial, missing
+
+
+def imd_figures(doc: dict) -> list[Figure]:
+    steps = [s for s in doc.get("steps") or [] if isinstance(s, dict) and finite(s.get("drive_dbfs")) is not None]
+    out = []
+    for s in steps:
+        at, key = f"drive {s['drive_dbfs']:g} dBFS", f"@{s['drive_dbfs']:+g}dBFS"
+        out.append(Figure(f"imd_db{key}", "IMD", finite(s.get("imd_db")), "dB", "lower", at=at))
+        for order, o in sorted((s.get("orders") or {}).items()):
+            out.append(Figure(f"imd{order}_db{key}", f"IMD order {order}", finite((o or {}).get("db")), "dB", "lower", at=at))
+    valid = [s for s in steps if s.get("valid", True) and finite(s.get("imd_db")) is not None]
+    if valid:
+        top = max(valid, key=lambda s: s["drive_dbfs"])
+        out.append(Figure("imd_db", "IMD at the top valid step", finite(top["imd_db"]), "dB", "lower",
+                          at=f"drive {top['drive_dbfs']:g} dBFS", headline=True))
+    return out

@@ -20,6 +20,7 @@ from benchkit.analysis import refuse_non_finite
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, band_limited
 from benchkit.analysis.weighting import a_weighting_power
 from benchkit.errors import BenchkitError
+from benchkit.analysis.compare import Figure, finite
 
 SCHEMA_VERSION = 1
 #: Welch segments of about this long: 2 Hz resolution keeps hum lines apart.
@@ -214,3 +215,16 @@ def hum_advice(lines: tuple[HumLine, ...]) -> str:
         return ("the lines at twice the mains frequency and its multiples lead: rectifier ripple, so look at the "
                 "supply's filtering and regulation first")
     return "the mains frequency and its odd multiples lead: look at grounding and wiring near the transformer first"
+
+
+def noise_figures(doc: dict) -> list[Figure]:
+    scaled = finite(doc.get("noise_vrms")) is not None
+    out = [Figure("noise_a_vrms", "noise, A-weighted", finite(doc.get("noise_a_vrms")), "Vrms", "lower", headline=True),
+           Figure("noise_vrms", "noise, unweighted", finite(doc.get("noise_vrms")), "Vrms", "lower")] if scaled else [
+           Figure("noise_a_dbfs", "noise, A-weighted", finite(doc.get("noise_a_dbfs")), "dBFS", "lower", headline=True),
+           Figure("noise_dbfs", "noise, unweighted", finite(doc.get("noise_dbfs")), "dBFS", "lower")]
+    ref = (doc.get("snr_reference") or {}).get("what", "")
+    out += [Figure("snr_db", "SNR", finite(doc.get("snr_db")), "dB", "higher", at=ref),
+            Figure("snr_a_db", "SNR, A-weighted", finite(doc.get("snr_a_db")), "dB", "higher", at=ref),
+            Figure("hum_dbfs", "hum, all lines", finite(doc.get("hum_dbfs")), "dBFS", "lower")]
+    return out

@@ -11,6 +11,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from benchkit.analysis.compare import Figure, finite
 
 #: Limits reported by default, percent: the first is the headline figure.
 DEFAULT_LIMITS_PCT = (1.0, 0.1, 10.0)
@@ -266,3 +267,25 @@ def analyze_power(steps, load_ohms: float, metric: str = "thdn", limits_pct=DEFA
     freq = float(steps[0][1].fundamental_hz) if steps else 0.0
     return PowerResult(freq, load_ohms, metric, tuple(rows), points, onset, half, supply_v, supply_a, expected,
                        tuple(warnings), info)
+
+
+def power_figures(doc: dict) -> list[Figure]:
+    out = []
+    metric = "THD+N" if doc.get("limit_metric", "thdn") == "thdn" else "THD"
+    for i, lim in enumerate(doc.get("limits") or []):
+        pct = finite(lim.get("limit_pct"))
+        if pct is None:
+            continue
+        # the first limit is the rated point: the headline, under a fixed name
+        out.append(Figure("power_w" if i == 0 else f"power_w@{pct:g}%", f"power at {pct:g} % {metric}",
+                          finite(lim.get("power_w")), "W", "higher", at=f"{pct:g} % {metric}", headline=i == 0))
+    out.append(Figure("clipping_onset_w", "clipping onset", finite(doc.get("clipping_onset_w")), "W", "higher",
+                      headline=True))
+    if finite(doc.get("efficiency_pct")) is not None:
+        out.append(Figure("efficiency_pct", "efficiency at the first limit", finite(doc["efficiency_pct"]), "%", "higher"))
+    if finite(doc.get("idle_dissipation_w")) is not None:
+        out.append(Figure("idle_dissipation_w", "idle dissipation", finite(doc["idle_dissipation_w"]), "W", None))
+    expected = doc.get("expected") or {}
+    if finite(expected.get("max_sine_w")) is not None:
+        out.append(Figure("expected_w", "budget's ceiling", finite(expected["max_sine_w"]), "W", None))
+    return out

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from collections import deque
 from dataclasses import asdict, dataclass
+from benchkit.analysis.compare import Figure, finite
 
 #: The figures a reading has, in display order: (key, label, unit).
 FIGURES = (
@@ -85,3 +86,11 @@ class Tracker:
     @property
     def shown(self) -> Reading | None:
         return self.held if self.held is not None else self.last
+
+
+def watch_figures(doc: dict) -> list[Figure]:
+    """A watch: the last reading of each figure (where the adjustment ended)."""
+    better = {"thdn_db": "lower", "thd_db": "lower", "h2_dbc": "lower", "h3_dbc": "lower", "noise_dbfs": "lower"}
+    return [Figure(key, f"{f['label']}, last reading", finite(f.get("last")), f["unit"], better.get(key),
+                   headline=key == "thdn_db")
+            for key, f in (doc.get("figures") or {}).items()]

@@ -15,6 +15,7 @@ import scipy.optimize
 
 from benchkit import units
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION
+from benchkit.analysis.compare import Figure, finite
 
 #: The level the corners are referred to is read here unless told otherwise.
 REFERENCE_HZ = 1000.0
@@ -248,3 +249,21 @@ def thd_db_from_harmonics(curves: tuple[HarmonicCurve, ...], n: int) -> np.ndarr
     out = np.full(n, np.nan)
     out[seen] = units.db_from_power_ratio(power[seen])
     return out
+
+
+def response_figures(doc: dict) -> list[Figure]:
+    fit = doc.get("low_corner_fit") or {}
+    return [
+        Figure("low_3db_hz", "-3 dB, low", finite(doc.get("low_3db_hz")), "Hz", "lower", headline=True),
+        Figure("high_3db_hz", "-3 dB, high", finite(doc.get("high_3db_hz")), "Hz", "higher", headline=True),
+        Figure("low_1db_hz", "-1 dB, low", finite(doc.get("low_1db_hz")), "Hz", "lower"),
+        Figure("high_1db_hz", "-1 dB, high", finite(doc.get("high_1db_hz")), "Hz", "higher"),
+        Figure("ripple_db", "ripple between the -1 dB points", finite(doc.get("ripple_db")), "dB", "lower"),
+        Figure("level_20hz_db", "level at 20 Hz", finite(doc.get("level_20hz_db")), "dB", "nearer",
+               target=finite(doc.get("reference_level_db")) or 0.0),
+        Figure("level_20khz_db", "level at 20 kHz", finite(doc.get("level_20khz_db")), "dB", "nearer",
+               target=finite(doc.get("reference_level_db")) or 0.0),
+        Figure("corner_fit_hz", "first-order corner fit", finite(fit.get("corner_hz")) if fit.get("fits") else None,
+               "Hz", "lower"),
+        Figure("coupling_capacitor_uf", "coupling capacitor", finite(doc.get("coupling_capacitor_uf")), "uF", None),
+    ]

@@ -32,6 +32,7 @@ from benchkit.analysis import refuse_non_finite
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.sinefit import RecordLayout, fit_tone
 from benchkit.errors import BenchkitError, NoToneError
+from benchkit.analysis.compare import Figure, finite
 
 SCHEMA_VERSION = 1
 DEFAULT_BAND_HZ = (20.0, 20000.0)
@@ -882,3 +883,39 @@ def _traces(blocks: list[_Block], sample_rate: float, n: int) -> ToneTraces:
         residual_fs=first.residual[idx],
         fundamental_fs=first.fund_wave[idx],
     )
+
+
+def step_figures(doc: dict) -> list[Figure]:
+    steps = [s for s in doc.get("steps") or [] if isinstance(s, dict)]
+    out = []
+    for s in steps:
+        drive = finite(s.get("drive_dbfs"))
+        if drive is None:
+            continue
+        at = f"drive {drive:g} dBFS"
+        key = f"@{drive:+g}dBFS"
+        out += [
+            Figure(f"thdn_db{key}", "THD+N", finite(s.get("thdn_db")), "dB", "lower", at=at),
+            Figure(f"thd_db{key}", "THD", finite(s.get("thd_db")), "dB", "lower", at=at),
+        ]
+        for h in (s.get("harmonics") or [])[:2]:
+            out.append(Figure(f"h{h['order']}_dbc{key}", f"H{h['order']}", finite(h.get("level_dbc")), "dBc", "lower", at=at))
+        out.append(Figure(f"noise_dbfs{key}", "noise", finite(s.get("noise_dbfs")), "dBFS", "lower", at=at))
+        if finite(s.get("fundamental_vrms")) is not None:
+            out.append(Figure(f"level_vrms{key}", "level", finite(s.get("fundamental_vrms")), "Vrms", None, at=at))
+        if finite(s.get("power_w")) is not None:
+            out.append(Figure(f"power_w{key}", "power", finite(s.get("power_w")), "W", None, at=at))
+    valid = [s for s in steps if s.get("valid", True) and finite(s.get("thdn_db")) is not None]
+    if valid:
+        top = max(valid, key=lambda s: s["drive_dbfs"])
+        out.append(Figure("thdn_db", "THD+N at the top valid step", finite(top["thdn_db"]), "dB", "lower",
+                          at=f"drive {top['drive_dbfs']:g} dBFS",
+                          headline=True))
+        low = min(valid, key=lambda s: s["drive_dbfs"])
+        if finite(low.get("noise_vrms")) is not None:
+            out.append(Figure("noise_vrms", "noise at the lowest step", finite(low["noise_vrms"]), "Vrms", "lower",
+                              at=f"drive {low['drive_dbfs']:g} dBFS", headline=True))
+        else:
+            out.append(Figure("noise_dbfs", "noise at the lowest step", finite(low.get("noise_dbfs")), "dBFS", "lower",
+                              at=f"drive {low['drive_dbfs']:g} dBFS", headline=True))
+    return out

@@ -30,6 +30,7 @@ from dataclasses import dataclass
 from benchkit.units import quantity
 from benchkit import units
 from benchkit.errors import BenchkitError
+from benchkit.analysis.compare import Figure, finite
 
 SCHEMA_VERSION = 1
 
@@ -156,3 +157,16 @@ def output_impedance(open_: list[Reading], loaded: list[Reading], load_ohms: flo
 
 def _hz_list(freqs: list[float]) -> str:
     return ", ".join(f"{f:g} Hz" for f in freqs[:4]) + (" ..." if len(freqs) > 4 else "")
+
+
+def zout_figures(doc: dict) -> list[Figure]:
+    at = f"{doc['reference_hz']:g} Hz" if finite(doc.get("reference_hz")) is not None else ""
+    out = [Figure("zout_ohms", "output impedance", finite(doc.get("zout_ohms")), "ohm", "lower", at=at, headline=True),
+           Figure("damping_factor", "damping factor", finite(doc.get("damping_factor")), "", "higher", at=at,
+                  headline=True)]
+    for p in doc.get("points") or []:
+        f = finite(p.get("frequency_hz"))
+        if f is not None:
+            out.append(Figure(f"zout_ohms@{f:.4g}Hz", "output impedance", finite(p.get("zout_ohms")), "ohm", "lower",
+                              at=f"{quantity(f, 'Hz', 4)}"))
+    return out

@@ -68,7 +68,7 @@ def distortion_png(docs, labels, path: Path, title: str, warnings=(), key: str =
     return _finish(fig, ax, path, title, warnings, caption, "upper left", 0.1)
 
 
-def _responses(docs, labels, path: Path, title: str, warnings) -> Path:
+def responses_png(docs, labels, path: Path, title: str, warnings) -> Path:
     fig = Figure(figsize=(10, 6.4))
     ax, axp = fig.add_subplot(2, 1, 1), fig.add_subplot(2, 1, 2)
     for i, (label, d) in enumerate(zip(labels, docs)):
@@ -86,7 +86,7 @@ def _responses(docs, labels, path: Path, title: str, warnings) -> Path:
     return _finish(fig, ax, path, f"{title}: magnitude and phase", warnings, "", "lower center", 0.09)
 
 
-def _drifts(series, labels, path: Path, title: str, warnings) -> Path:
+def drifts_png(series, labels, path: Path, title: str, warnings) -> Path:
     fig = Figure(figsize=(10, 5.2))
     ax = fig.add_subplot(1, 1, 1)
     longest = max((t[-1] - t[0] for t, _v in series if len(t)), default=0.0)
@@ -98,7 +98,7 @@ def _drifts(series, labels, path: Path, title: str, warnings) -> Path:
     return _finish(fig, ax, path, title, warnings, "", "best", 0.09)
 
 
-def _lines(series, labels, path: Path, title: str, warnings, xlabel: str, ylabel: str, log_x: bool) -> Path:
+def lines_png(series, labels, path: Path, title: str, warnings, xlabel: str, ylabel: str, log_x: bool) -> Path:
     fig = Figure(figsize=(10, 5.2))
     ax = fig.add_subplot(1, 1, 1)
     for i, (label, (x, y)) in enumerate(zip(labels, series)):
@@ -165,33 +165,6 @@ def imd_png(docs, labels, path: Path, title: str, warnings=(), spectrum=None) ->
         axs.grid(True, which="both", color="#e6e6e6", lw=0.5)
         fig.subplots_adjust(hspace=0.32)
     return _finish(fig, ax, path, f"{title}: intermodulation", warnings, "", "upper left", 0.09)
-
-
-def curves_png(comparison, docs: list[dict], path: Path, title: str, series=None) -> Path | None:
-    """The overlay of a comparison's kind: THD+N against power (tone and
-    power runs), magnitude and phase (responses); from ``series`` (x, y
-    arrays a run): volts against time (drift), noise density against
-    frequency (noise), THD+N against time (watch)."""
-    kind, labels, warnings = comparison.kind, comparison.labels, comparison.warnings
-    if kind == "tone-steps":
-        return distortion_png(docs, labels, path, f"{title}: THD+N", warnings)
-    if kind == "power":
-        metric = docs[0].get("limit_metric", "thdn")
-        name = "THD+N" if metric == "thdn" else "THD"
-        return distortion_png(docs, labels, path, f"{title}: {name} against power", warnings, f"{metric}_pct",
-                              f"{name} (%)")
-    if kind == "imd":
-        return imd_png(docs, labels, path, title, warnings)
-    if kind == "response":
-        return _responses(docs, labels, path, title, warnings)
-    if kind == "drift":
-        return _drifts(series or [], labels, path, f"{title}: DC drift", warnings)
-    if kind == "noise":
-        return _lines(series, labels, path, f"{title}: noise density", warnings, "frequency (Hz)",
-                      "dB re 1 FS^2/Hz", True)
-    if kind == "watch":
-        return _lines(series, labels, path, f"{title}: THD+N while watched", warnings, "time (s)", "THD+N (dB)", False)
-    return None  # a single figure (gain): the delta table says it all
 
 
 def spectra_png(results, labels, path: Path, title: str, warnings=()) -> Path:

@@ -1,0 +1,247 @@
+"""Kinds of measurement: each one unit, every one reached through this registry.
+
+A kind (tone, sweep, power, imd, noise, gain, zout, crosstalk, drift,
+watch) lives in ``benchkit/kinds/NAME.py`` as one :class:`Kind`: its name
+(the command, the run record's ``command`` and the result's ``kind``
+alike), the result kinds older runs stored under, how it analyses a run
+from its folder (``log reanalyse`` and a killed run's recovery), how it is
+recognised in a capture's sidecar and analysed offline (``analyze``), its
+comparable figures (the logbook's headline ones among them) and its
+comparison overlay. Modules in this package are found, not listed: adding
+a kind edits no dispatcher.
+
+The numerics stay in :mod:`benchkit.analysis`, the plots and tables in
+:mod:`benchkit.report`; a kind module imports them where it uses them, so
+importing the registry loads neither matplotlib nor typer.
+"""
+
+from __future__ import annotations
+
+import importlib
+import pkgutil
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+from benchkit.errors import BenchkitError
+
+
+@dataclass(frozen=True)
+class Offline:
+    """What ``analyze`` was asked for, the same for every capture it reads."""
+
+    channel: int = 1
+    fundamental_hz: float | None = None
+    bandwidth_hz: tuple[float, float] | None = (20.0, 20000.0)
+    averages: int = 1
+    volts_per_fs: float | None = None
+    load_ohms: float | None = None
+    out: Path | None = None
+    sweep: tuple[float, float, float] | None = None
+    ref_channel: int | None = None
+    ref_freq_hz: float = 1000.0
+    smooth: int | None = None
+    power: dict | None = None
+    imd_method: str | None = None
+    noise: bool = False
+    gain: bool = False
+    time_col: str = "1"
+    value_col: str = "2"
+    judge: dict | None = None
+    profile: Any = None
+    profile_path: Path | None = None
+
+    def scale(self, rec) -> tuple[float | None, str]:
+        """The capture's volts per full scale and where it came from."""
+        return (self.volts_per_fs, "given") if self.volts_per_fs is not None else rec.channel_scale()
+
+    def reports(self, write: Callable[[Path], list[Path]]) -> tuple[Path, ...]:
+        """The report files ``write(out)`` makes, with ``--out``; none without."""
+        return () if self.out is None else tuple(write(self.out))
+
+
+@dataclass(frozen=True)
+class Analysed:
+    """A capture analysed offline: the result document, its text summary
+    and the report files written (none without ``--out``)."""
+
+    doc: dict
+    text: str
+    files: tuple[Path, ...] = ()
+
+
+@dataclass(frozen=True)
+class Kind:
+    """One kind of measurement.
+
+    Parameters
+    ----------
+    name
+        The command, the run record's ``command`` and the result's ``kind``.
+    reanalyse
+        ``(folder, record, say) -> (result document, report files)``: the
+        run analysed again from what its folder holds (the first file is
+        the result JSON).
+    figures
+        ``(result document) -> [analysis.compare.Figure]``: what compares;
+        None for a kind whose runs do not compare.
+    overlay
+        ``(comparison, docs, entries, out, title) -> [files]``: the plots a
+        comparison of its runs draws.
+    recognises
+        ``(recording) -> bool``: a capture of this kind, by its sidecar.
+    chosen
+        ``(Offline) -> bool``: ``analyze``'s options ask for this kind.
+    analyse
+        ``(recording, Offline) -> Analysed``: one capture, offline (a
+        path, for a kind that ``reads`` "csv").
+    rank
+        Where it stands when a capture is recognised: lower first (a
+        two-tone capture is also a stepped one).
+    result_kinds
+        Other names its results were stored under (read, never written).
+    """
+
+    name: str
+    reanalyse: Callable[[Path, dict, Callable[[str], None]], tuple[dict, list[Path]]]
+    figures: Callable[[dict], list] | None = None
+    overlay: Callable[..., list[Path]] | None = None
+    recognises: Callable[[Any], bool] | None = None
+    chosen: Callable[[Offline], bool] | None = None
+    analyse: Callable[[Any, Offline], Analysed] | None = None
+    rank: int = 50
+    reads: str = "capture"
+    result_kinds: tuple[str, ...] = field(default=())
+
+
+_KINDS: dict[str, Kind] = {}
+
+
+def _load() -> dict[str, Kind]:
+    if not _KINDS:
+        for info in pkgutil.iter_modules(__path__):
+            kind = importlib.import_module(f"{__name__}.{info.name}").KIND
+            _KINDS[kind.name] = kind
+    return _KINDS
+
+
+def all_kinds() -> list[Kind]:
+    """Every kind, in the order captures are recognised."""
+    return sorted(_load().values(), key=lambda k: (k.rank, k.name))
+
+
+def get(name: str) -> Kind:
+    """The kind of this name (a command, or a result kind old or new)."""
+    kinds = _load()
+    if name in kinds:
+        return kinds[name]
+    for kind in kinds.values():
+        if name in kind.result_kinds:
+            return kind
+    raise BenchkitError(f"no kind of measurement is called {name!r}")
+
+
+def of_result(doc: dict) -> Kind | None:
+    """The kind a result document belongs to, or None."""
+    try:
+        return get(str(doc.get("kind")))
+    except BenchkitError:
+        return None
+
+
+def figures_of(doc: dict) -> list:
+    """Every comparable figure of a result document (none for a kind
+    without figures)."""
+    kind = of_result(doc)
+    return [] if kind is None or kind.figures is None else kind.figures(doc)
+
+
+def headline_figures(doc: dict) -> list[dict]:
+    """The figures the logbook indexes: THD+N at the top valid step, noise,
+    power at the first limit, the -3 dB points, the settled value ..."""
+    return [f.to_dict() for f in figures_of(doc) if f.headline]
+
+
+def reanalyse(folder: Path, record: dict, say: Callable[[str], None] = lambda _m: None) -> tuple[dict, list[Path]]:
+    """The result document and the report files of a logged run, made
+    again from its folder by its kind. The first file is the result JSON."""
+    command = record.get("command")
+    try:
+        kind = get(str(command))
+    except BenchkitError:
+        raise BenchkitError(f"runs of command {command!r} cannot be analysed again") from None
+    return kind.reanalyse(folder, record, say)
+
+
+def analyse_file(path: Path, options: Offline, say: Callable[[str], None] = lambda _m: None) -> Analysed:
+    """One file analysed offline by its kind: a table of readings (CSV) by
+    the kind that reads tables; a capture by the first kind, in rank order,
+    that ``analyze``'s options ask for or that its sidecar shows (a plain
+    tone when none does), with the calibration profile given applied to
+    the capture's scale in this one place."""
+    from dataclasses import replace
+
+    from benchkit.recordings import read_capture
+
+    path = Path(path)
+    kinds = [k for k in all_kinds() if k.analyse is not None]
+    if path.suffix.lower() == ".csv":
+        return next(k for k in kinds if k.reads == "csv").analyse(path, options)
+    rec = read_capture(path, options.channel)
+    for w in rec.warnings:  # (an ignored sidecar: the text says so, as the JSON does)
+        say(f"warning: {path}: {w}")
+    if options.profile is not None and options.volts_per_fs is None:
+        from benchkit.runs import apply_calibration
+
+        side = dict(rec.sidecar)
+        side["channels"] = [c for c in side.get("channels", []) if c.get("number") != options.channel] + [
+            {"number": options.channel}]
+        apply_calibration(side, options.profile, str(options.profile_path), options.channel)
+        rec = replace(rec, sidecar=side)
+    if options.load_ohms is not None and options.volts_per_fs is None and rec.channel_scale()[0] is None:
+        raise BenchkitError(f"{path}: --load needs a voltage scale (--volts-per-fs, or a sidecar that gives one)")
+    for kind in kinds:
+        if kind.reads == "capture" and ((kind.chosen is not None and kind.chosen(options))
+                                        or (kind.recognises is not None and kind.recognises(rec))):
+            return kind.analyse(rec, options)
+    return get("tone").analyse(rec, options)
+
+
+# --- what every kind module uses ----------------------------------------------------
+
+#: The capture a run stores under its folder (``capture.wav`` and its sidecar).
+CAPTURE = "capture"
+
+
+def run_band(params: dict) -> tuple[float, float] | None:
+    """The band a run was analysed in, from its record's ``params``."""
+    band = params.get("bandwidth_hz", (20.0, 20000.0))
+    return None if band is None else tuple(band)
+
+
+def run_capture(folder: Path, channel: int, say: Callable[[str], None], stem: str = CAPTURE):
+    """A run's stored capture, recovered first from its partial recording
+    when the run was killed while it played."""
+    from benchkit.recordings import read_capture
+    from benchkit.runs import recover_capture
+
+    path = folder / f"{stem}.wav"
+    if not path.exists():
+        path = recover_capture(folder, stem)
+        say(f"recovered {path.name} from the partial recording")
+    return read_capture(path, channel)
+
+
+def series_from_csv(folder: Path, name: str, xs: str, ys: str):
+    """Two columns of a CSV a run left in its folder, as arrays (an
+    overlay's curve)."""
+    import csv
+
+    import numpy as np
+
+    try:
+        with (folder / name).open(encoding="utf-8", newline="") as fh:
+            rows = [r for r in csv.DictReader(fh) if r.get(ys)]
+    except OSError as exc:
+        raise BenchkitError(f"{folder}: cannot read {name} for the overlay ({exc.strerror or exc})") from None
+    return np.array([float(r[xs]) for r in rows]), np.array([float(r[ys]) for r in rows])
