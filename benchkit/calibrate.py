@@ -31,7 +31,7 @@ from benchkit.analysis.tone import analyze_tone
 from benchkit.calibration import PadSpec, Profile
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
-from benchkit.runs import step_fault
+from benchkit.record import step_fault
 from benchkit.signals import stepped_tones
 
 CAL_FREQ_HZ = 997.0
@@ -41,7 +41,7 @@ DC_TEST_HZ = 2.0
 
 def _run(backend, freqs, levels, step_s=0.5, settle_s=0.3, in_channel=1, band=(20.0, 20000.0)):
     """Each step's capture and analysis; a step a stream fault (a dropout,
-    reported or heard: :func:`benchkit.runs.step_fault`) touched is played again, up to MAX_RETRIES times: a dropout must not
+    reported or heard: :func:`benchkit.record.step_fault`) touched is played again, up to MAX_RETRIES times: a dropout must not
     end up in the profile. Returns the first take's capture (its latency)
     and (segment, result) per step, each segment of the take it was
     measured in."""

@@ -974,8 +974,8 @@ def gain(
     Safety: a gain run is one short tone; start low on an unknown stage,
     into a dummy load through a pad.
     """
-    from benchkit import runs
     from benchkit.gain_runs import analyze_gain
+    from benchkit.record import record_steps
     from benchkit.report import summary
     from benchkit.report.tables import write_json
 
@@ -987,9 +987,9 @@ def gain(
         params = dict(channel=in_channel, ref_channel=ref_channel, frequency_hz=frequency, level_dbfs=drive,
                       load_ohms=load, bandwidth_hz=band)
         with _start_run(book, labels, "gain", backend, profile, calibration, params) as run:
-            path = runs.record_steps(backend, run.folder, frequency, [drive], channel=in_channel, calibration=profile,
-                                     note=labels["note"], warnings=plan.warnings,
-                                     calibration_file=None if calibration is None else str(calibration))
+            path = record_steps(backend, run.folder, frequency, [drive], channel=in_channel, calibration=profile,
+                                note=labels["note"], warnings=plan.warnings,
+                                calibration_file=None if calibration is None else str(calibration))
             result = analyze_gain(path, in_channel, ref_channel, band, load)
             doc = result.to_dict()
             _err(summary.gain_summary(doc))

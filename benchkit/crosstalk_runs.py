@@ -66,7 +66,7 @@ def crosstalk_run(backend, folder: Path, frequencies_hz, level_dbfs: float, outp
     """Drive output A with a tone a frequency, then output B, recording
     both channels' outputs (inputs A and B); store the capture with the
     wiring in its sidecar, then analyse it from disk."""
-    from benchkit.runs import record_steps
+    from benchkit.record import record_steps
 
     freqs = [float(f) for f in frequencies_hz]
     n = len(freqs)

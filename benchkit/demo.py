@@ -183,7 +183,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     say(f"virtual bench: stage B-2 at {label}, voltage gain at 1 kHz")
     from benchkit.gain_runs import analyze_gain
     from benchkit.report.tables import write_json
-    from benchkit.runs import record_steps
+    from benchkit.record import record_steps
 
     g_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 19)
 

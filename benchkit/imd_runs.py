@@ -100,7 +100,7 @@ def imd_run(backend, folder: Path, twin: TwinTone, levels_dbfs: list[float], cha
             load_ohms: float | None = None, note: str = "", calibration=None, calibration_file: str | None = None,
             warnings: tuple[str, ...] = (), step_s: float = 1.0, spectrum: bool = False) -> ImdSteps:
     """Play the pair at each level, store the capture, analyse each step."""
-    from benchkit.runs import record_steps
+    from benchkit.record import record_steps
 
     path = record_steps(backend, folder, twin.f2_hz, levels_dbfs, channel=channel, note=note, calibration=calibration,
                         calibration_file=calibration_file, warnings=warnings, step_s=step_s, twin=twin)

@@ -15,7 +15,7 @@ import numpy as np
 from benchkit.analysis.noise import NoiseResult, analyze_noise
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.recordings import Recording, read_capture, write_capture
+from benchkit.recordings import Recording, read_capture
 from benchkit.signals import Segment, Stimulus
 
 #: Left out at the start of a noise capture, seconds.
@@ -52,15 +52,12 @@ def noise_run(backend, folder: Path, seconds: float, channel: int = 1, bandwidth
               calibration=None, calibration_file: str | None = None) -> NoiseResult:
     """Record ``seconds`` of the stage's output with nothing played, store
     the capture and its sidecar, then analyse the stored capture."""
-    from benchkit.runs import apply_calibration, planned_sidecar
+    from benchkit.record import Recorder
 
     stim = silence(backend.sample_rate_hz, seconds, backend.n_outputs, getattr(backend, "drive_output", 1))
-    partial = folder / "capture.partial.wav"
-    raw = backend.play_record(stim, partial)
-    side = planned_sidecar(stim, channel, backend, note)
-    if calibration is not None:
-        apply_calibration(side, calibration, calibration_file, channel)
-    side["events"] = list(raw.events)
-    path = write_capture(folder / "capture.wav", raw.samples[: stim.n_samples], backend.sample_rate_hz, side)
-    partial.unlink(missing_ok=True)
+    recorder = Recorder(backend, folder, channel, note, calibration, calibration_file)
+    raw = backend.play_record(stim, recorder.partial("capture"))
+    # no marker in silence: the recording is kept as it came, its planned sidecar with the stream's events
+    side = {**recorder.plan(stim), "events": list(raw.events)}
+    path = recorder.store("capture", raw.samples[: stim.n_samples], side)
     return analyze_noise_capture(read_capture(path, channel), bandwidth_hz, None, reference_vrms, reference, traces=True)

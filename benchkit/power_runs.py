@@ -434,16 +434,15 @@ def power_run(
     its completed steps, with ``info["interrupted"]`` set. A
     ``supply_meter`` (reading amps) is read half way through every step."""
     from benchkit import capture
-    from benchkit.runs import analyze_steps, apply_calibration, capture_sidecar, planned_sidecar, write_planned
-    from benchkit.recordings import write_capture
+    from benchkit.record import Recorder
+    from benchkit.runs import analyze_steps
+
+    recorder = Recorder(backend, folder, channel, note, calibration, calibration_file)
 
     def journal(stim):
         # the steps so far, on disk before they play: a run killed outright
-        # can be recovered from its partial recording (runs.recover_capture)
-        plan = planned_sidecar(stim, channel, backend, note)
-        if calibration is not None:
-            apply_calibration(plan, calibration, calibration_file, channel)
-        write_planned(folder, name, plan)
+        # can be recovered from its partial recording (record.recover_capture)
+        recorder.journal(stim, name)
 
     planner = LevelPlanner(start_dbfs, max_dbfs, limits_pct, step_db, fine_db)
     stim = AdaptiveSteps(planner, frequency_hz, backend.sample_rate_hz, metric, in_channel=channel,
@@ -451,7 +450,7 @@ def power_run(
                          n_out=backend.n_outputs, lead_s=getattr(backend, "lead_s", 0.05), step_s=step_s,
                          settle_s=settle_s, input_margin_db=input_margin_db, supply_meter=supply_meter,
                          on_schedule=journal)
-    partial = folder / f"{name}.partial.wav"
+    partial = recorder.partial(name)
     interrupted = None
     try:
         cap = capture.run(backend, stim, partial)
@@ -465,14 +464,12 @@ def power_run(
     done = [(i, s) for i, s in enumerate(stim.segments)
             if s.end <= end and i not in stim.spoiled and not cap.spoiled(s.settled, s.end)]
     dropped = len(stim.segments) - len(stim.spoiled) - len(done)
-    side = capture_sidecar(cap, stim, channel, backend, note)
+    side = recorder.sidecar(cap, stim)
     side["stimulus"]["segments"] = [{**s.to_dict(), **({"supply_a": stim.supply_a[i]} if i in stim.supply_a else {})}
                                     for i, s in done]
     done = [s for _i, s in done]
     side["stimulus"]["levels_dbfs"] = [s.level_dbfs for s in done]
     side["stop_reason"] = stim.stop_reason
-    if calibration is not None:
-        apply_calibration(side, calibration, calibration_file, channel)
     notes = list(warnings)
     if interrupted is not None:
         notes.append(f"interrupted ({interrupted}): the {len(done)} completed steps are reported")
@@ -483,9 +480,7 @@ def power_run(
                      + ("; the run stopped when one level was spoiled in every take" if stim.spoiled_out
                         else "; each level was played again and only clean takes are reported"))
     side["warnings"] = notes
-    path = write_capture(folder / f"{name}.wav", cap.samples, cap.sample_rate_hz, side)
-    partial.unlink(missing_ok=True)
-    (folder / f"{name}.partial.json").unlink(missing_ok=True)
+    path = recorder.store(name, cap.samples, side)
     if len(done) < 2:
         raise BenchkitError(f"the run ended after {len(done)} step(s) ({stim.stop_reason or interrupted}): "
                             f"nothing to report (capture kept: {path})")

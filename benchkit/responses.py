@@ -333,7 +333,7 @@ def response_run(
     The raw recording streams to ``NAME.partial.wav``; an input that clips
     stops the run (the partial capture is kept) with a clear error.
     """
-    from benchkit.runs import apply_calibration, capture_sidecar, planned_sidecar, write_planned
+    from benchkit.record import Recorder
 
     rate = backend.sample_rate_hz
     out_ch = getattr(backend, "drive_output", 1)
@@ -344,28 +344,18 @@ def response_run(
     else:
         stim = sweep_stimulus(sw.SyncSweep.design(span_hz[0], span_hz[1], seconds, rate), level_dbfs, out_ch,
                               backend.n_outputs, lead)
-    partial = folder / f"{name}.partial.wav"
-    extra = {"reference_channel": ref_channel}
-    plan = {**planned_sidecar(stim, channel, backend, note), **extra}
-    if calibration is not None:
-        apply_calibration(plan, calibration, calibration_file, channel)
-    planned = write_planned(folder, name, plan)
+    recorder = Recorder(backend, folder, channel, note, calibration, calibration_file, {"reference_channel": ref_channel})
+    recorder.journal(stim, name)
 
     def sidecar(cap, notes):
-        side = {**capture_sidecar(cap, stim, channel, backend, note), **extra}
-        if calibration is not None:
-            apply_calibration(side, calibration, calibration_file, channel)
-        side["warnings"] = list(notes)
-        return side
+        return {**recorder.sidecar(cap, stim), "warnings": list(notes)}
 
     def keep_spoiled(cap, take):  # kept, not analysed: a stream fault touched it
         write_capture(folder / f"{name}.spoiled{take}.wav", cap.samples, cap.sample_rate_hz,
                       sidecar(cap, ["a stream fault (overflow or underflow) touched this take: it was played again"]))
 
-    cap = capture.run_clean(backend, stim, partial, keep_spoiled)
-    path = write_capture(folder / f"{name}.wav", cap.samples, cap.sample_rate_hz, sidecar(cap, warnings))
-    partial.unlink(missing_ok=True)
-    planned.unlink(missing_ok=True)
+    cap = capture.run_clean(backend, stim, recorder.partial(name), keep_spoiled)
+    path = recorder.store(name, cap.samples, sidecar(cap, warnings))
     if cap.stopped_at is not None:
         at = cap.stopped_at / rate
         raise BenchkitError(f"the input clipped at {at:.2f} s into the run: lower the level or use a larger pad "

@@ -10,15 +10,14 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
-from datetime import datetime, timezone
 from pathlib import Path
 
 from benchkit import capture, units
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION, ToneResult, analyze_tone
 from benchkit.errors import BenchkitError, NoToneError
-from benchkit.recordings import Recording, Takes, read_capture, write_capture, write_capture_sidecar
+from benchkit.record import record_steps
+from benchkit.recordings import Recording, Takes, read_capture
 from benchkit.signals import stepped_tones
-from benchkit.jsonfile import load_json
 
 
 @dataclass(frozen=True)
@@ -121,120 +120,6 @@ def analyze_steps(
         clock_offset_ppm=side.get("clock_offset_ppm"),
         calibration=side.get("calibration"),
     )
-
-
-#: Clock offset between output and input worth a warning, ppm.
-CLOCK_WARN_PPM = 20.0
-
-
-def planned_sidecar(stim, channel: int, backend, note: str) -> dict:
-    """The sidecar of a capture about to be made: when, what device, the
-    inputs and their scales, the stimulus with its segments, the note,
-    and the bench's own account. Written beside the partial recording
-    before anything plays (``NAME.partial.json``), it lets
-    :func:`recover_capture` align what a killed run left."""
-    side = {
-        "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
-        "sample_rate_hz": stim.sample_rate_hz,
-        "device": backend.name,
-        "scale_source": backend.inputs()[channel - 1].scale_source,
-        "channels": [ch.to_dict() for ch in backend.inputs()],
-        "stimulus": {**stim.description, "segments": [s.to_dict() for s in stim.segments]},
-        "marker_start": stim.marker_start,
-        "n_samples": stim.n_samples,
-        "aligned_on": backend.reference_input() or 1,
-        "output_vpk_per_fs": backend.output_vpk_per_fs,
-        "note": note,
-    }
-    describe = getattr(backend, "describe", None)
-    if describe is not None:
-        side["bench"] = describe()
-    return side
-
-
-def capture_sidecar(cap, stim, channel: int, backend, note: str) -> dict:
-    """The sidecar every run writes beside its capture: the planned one
-    with the latency found and the stream's events."""
-    side = planned_sidecar(stim, channel, backend, note)
-    side.update(device=cap.device, scale_source=cap.input(channel).scale_source,
-                channels=[ch.to_dict() for ch in cap.inputs], latency_samples=cap.latency_samples,
-                events=list(cap.events))
-    return side
-
-
-def write_planned(folder: Path, stem: str, side: dict) -> Path:
-    """The planned sidecar beside the partial recording, before it plays."""
-    folder.mkdir(parents=True, exist_ok=True)
-    return write_capture_sidecar(folder / f"{stem}.partial.wav", side)
-
-
-def recover_capture(folder: Path, stem: str = "capture") -> Path:
-    """Turn what a killed run left (``STEM.partial.wav``, streamed raw,
-    and its planned sidecar) into an aligned capture ``STEM.wav`` with its
-    sidecar, keeping the steps recorded whole. The partial recording stays.
-
-    Raises
-    ------
-    BenchkitError
-        When there is nothing to recover, or the marker is not in it.
-    """
-    import soundfile as sf
-
-    from benchkit.capture.align import find_marker
-    from benchkit.recordings import repair_wav
-    from benchkit.signals import marker
-
-    partial, planned = folder / f"{stem}.partial.wav", folder / f"{stem}.partial.json"
-    if not partial.exists() or not planned.exists():
-        raise BenchkitError(f"{folder}: no partial capture to recover ({partial.name} with {planned.name})")
-    try:
-        side = load_json(planned)
-        rate, start, n = float(side["sample_rate_hz"]), int(side["marker_start"]), int(side["n_samples"])
-        segments = list(side["stimulus"]["segments"])
-        on = int(side.get("aligned_on") or 1)
-    except (OSError, ValueError, KeyError, TypeError) as exc:
-        raise BenchkitError(f"{planned}: the planned sidecar is damaged ({exc})") from None
-    frames = repair_wav(partial)
-    raw, _rate = sf.read(str(partial), always_2d=True, dtype="float64")
-    mk = marker(rate)
-    first = int(segments[0]["start"]) if segments else n
-    if frames < first + mk.size:
-        raise BenchkitError(f"{partial}: the run was killed before its first step ({frames} frames): nothing to recover")
-    latency = find_marker(raw[: first + mk.size, on - 1], mk) - start
-    if latency < 0:
-        raise BenchkitError(f"{partial}: the capture could not be aligned (marker {latency} samples early)")
-    aligned = raw[latency : latency + n]
-    kept = [seg for seg in segments if int(seg["end"]) <= aligned.shape[0]]
-    if not kept:
-        raise BenchkitError(f"{partial}: the run was cut off before its first step (or its sweep) was recorded "
-                            "whole: nothing to analyse")
-    side["stimulus"]["segments"] = kept
-    side["latency_samples"] = int(latency)
-    side["events"] = ["recovered"]
-    side.setdefault("warnings", []).append(
-        f"recovered from a run that was cut off: {len(kept)} of {len(segments)} steps were recorded whole")
-    return write_capture(folder / f"{stem}.wav", aligned, rate, side)
-
-
-def apply_calibration(side: dict, profile, path: str | None, channel: int) -> None:
-    """Record the profile a run used, and take its scale for the stage."""
-    side["scale_source"] = "profile"
-    for ch in side["channels"]:
-        if ch["number"] == channel:
-            ch["volts_per_fs"] = profile.stage_volts_per_fs
-    side["calibration"] = {
-        "file": path,
-        "hash": profile.digest(),
-        "interface": profile.interface,
-        "created": profile.created,
-        "loopback_floor": profile.loopback_floor,
-        "uncertainty_db": profile.uncertainty.get("total_db"),
-        "dc_coupled": profile.dc_coupled,
-        "output_vpk_per_fs": profile.output_vpk_per_fs,
-        "input_vpk_per_fs": profile.input_vpk_per_fs,
-        "loopback_response": profile.loopback_response,
-        "ac_corner_hz": profile.ac_corner_hz,
-    }
 
 
 #: A step this close to the interface's own floor is limited by it.
@@ -352,22 +237,6 @@ def dc_warning(result: ToneResult, dc_coupled: bool | None) -> str | None:
     return None
 
 
-def clock_offset_ppm(cap, stim) -> float | None:
-    """How fast the input clock runs against the output's, ppm, from the
-    reference input: the first step's tone as recorded there against the
-    frequency played."""
-    ref = next((ch.number for ch in cap.inputs if ch.role.startswith("reference")), None)
-    if ref is None or not stim.segments:
-        return None
-    seg = stim.segments[0]
-    try:
-        got = analyze_tone(cap.channel(ref)[seg.settled : seg.end], cap.sample_rate_hz, fundamental_hz=seg.frequency_hz)
-    except BenchkitError:
-        return None
-    # an input clock running fast sees the tone low
-    return (seg.frequency_hz / got.fundamental_hz - 1.0) * 1e6
-
-
 def tone_run(
     backend: capture.Backend,
     folder: Path,
@@ -385,130 +254,3 @@ def tone_run(
     return analyze_steps(read_capture(path, record.get("channel", 1)), bandwidth_hz, load_ohms, traces=traces)
 
 
-def step_fault(cap: capture.Capture, seg, channel: int, tone: bool = True) -> str | None:
-    """Why a step of a capture cannot be measured as played, or None:
-    "reported" when the stream reported a fault (overflow, underflow)
-    inside its analysed span, "heard" when its tone (``tone``: one sine)
-    on input ``channel`` shows a gap or click the stream did not report
-    (an audio server's late client drops blocks without a word)."""
-    if cap.spoiled(seg.settled, seg.end):
-        return "reported"
-    if not tone or cap.stopped_at is not None and seg.end > cap.stopped_at:
-        return None
-    try:
-        heard = analyze_tone(cap.channel(channel)[seg.settled : seg.end], cap.sample_rate_hz,
-                             fundamental_hz=seg.frequency_hz, bandwidth_hz=None, check_dropouts=True).dropouts_s
-    except BenchkitError:
-        return None  # nothing to judge by (no tone): the analysis will say so
-    return "heard" if heard else None
-
-
-def record_steps(
-    backend: capture.Backend,
-    folder: Path,
-    frequency_hz: float,
-    levels_dbfs: list[float],
-    name: str = "capture",
-    channel: int = 1,
-    note: str = "",
-    calibration=None,
-    calibration_file: str | None = None,
-    warnings: tuple[str, ...] = (),
-    step_s: float = 1.0,
-    settle_s: float = 0.3,
-    twin=None,
-    out_channels: list[int] | None = None,
-    extra: dict | None = None,
-    listen: list[int] | None = None,
-) -> Path:
-    """Play stepped tones (or, with ``twin``, a
-    :class:`benchkit.signals.TwinTone` pair at each level) and store the
-    capture with its sidecar; returns its path (``step_s`` is analysed
-    after ``settle_s`` of settling, each step). ``frequency_hz`` is one
-    frequency or one a step; ``out_channels`` the output of each step
-    (default: the backend's drive output), ``listen`` the input its tone
-    comes back on (default: ``channel``); ``extra`` joins the sidecar
-    (the planned one too, so a recovered capture keeps it).
-
-    The raw recording streams to ``NAME.partial.wav`` while it plays (kept
-    if the run breaks off); the aligned capture and its sidecar go to
-    ``NAME.wav`` and ``NAME.json`` before any analysis. A step that a
-    stream fault (overflow, underflow) touched, or whose tone shows a gap
-    (:func:`step_fault`), is played again, up to ``capture.MAX_RETRIES``
-    times, into ``NAME.retryK.wav``; the sidecar points each step at the
-    capture that holds its good take.
-    """
-    lead = getattr(backend, "lead_s", 0.05)
-    n = len(levels_dbfs)
-    freqs = list(frequency_hz) if isinstance(frequency_hz, (list, tuple)) else [frequency_hz] * n
-    outs = list(out_channels) if out_channels is not None else [getattr(backend, "drive_output", 1)] * n
-    ears = list(listen) if listen is not None else [channel] * n
-
-    def play(which, stem):
-        stim = stepped_tones([freqs[i] for i in which], [levels_dbfs[i] for i in which], backend.sample_rate_hz,
-                             step_s=step_s, settle_s=settle_s, out_channel=[outs[i] for i in which],
-                             n_out=backend.n_outputs, lead_s=lead, twin=twin, marker_out=outs[0])
-        partial = folder / f"{stem}.partial.wav"
-        plan = {**planned_sidecar(stim, channel, backend, note), **(extra or {})}
-        if calibration is not None:
-            apply_calibration(plan, calibration, calibration_file, channel)
-        planned = write_planned(folder, stem, plan)
-        cap = capture.run(backend, stim, partial)
-        side = {**capture_sidecar(cap, stim, channel, backend, note), **(extra or {})}
-        if calibration is not None:
-            apply_calibration(side, calibration, calibration_file, channel)
-        # (a pair of tones is no single tone to time the clocks by)
-        side["clock_offset_ppm"] = clock_offset_ppm(cap, stim) if twin is None else None
-        path = write_capture(folder / f"{stem}.wav", cap.samples, cap.sample_rate_hz, side)
-        partial.unlink(missing_ok=True)
-        planned.unlink(missing_ok=True)
-        return stim, cap, side, path
-
-    stim, cap, side, path = play(range(n), name)
-    segments = side["stimulus"]["segments"]
-    stop_note = None
-    if cap.stopped_at is not None:
-        # the steps finished before the input clipped are measured; the one
-        # it clipped in and those after it are not
-        kept = [i for i, seg in enumerate(stim.segments) if seg.end <= cap.stopped_at]
-        at = cap.stopped_at / cap.sample_rate_hz
-        clipping = next((seg for seg in stim.segments if seg.end > cap.stopped_at), None)
-        where = f" during the {clipping.level_dbfs:g} dBFS step" if clipping is not None else ""
-        if not kept:
-            raise BenchkitError(f"the input clipped at {at:.2f} s{where}, before any step was measured: "
-                                "lower the drive or use a larger pad")
-        segments[:] = [segments[i] for i in kept]
-        stop_note = (f"the input clipped at {at:.2f} s{where}: the run stopped stepping up; "
-                     f"{len(stim.segments) - len(kept)} step(s) were not measured")
-    tones = twin is None
-    verdicts = {i: step_fault(cap, seg, ears[i], tones) for i, seg in enumerate(stim.segments[: len(segments)])}
-    pending = [i for i, v in verdicts.items() if v]
-    for attempt in range(1, capture.MAX_RETRIES + 1):
-        if not pending:
-            break
-        r_stim, r_cap, _side, r_path = play(pending, f"{name}.retry{attempt}")
-        still = []
-        for i, seg in zip(pending, r_stim.segments):
-            verdicts[i] = step_fault(r_cap, seg, ears[i], tones)
-            if verdicts[i]:
-                still.append(i)
-            else:
-                segments[i] = {**seg.to_dict(), "file": r_path.name}
-        pending = still
-    warnings = list(warnings) + ([stop_note] if stop_note else [])
-    side["stopped_early"] = stop_note
-    reported = [i for i in pending if verdicts[i] == "reported"]
-    heard = [i for i in pending if verdicts[i] == "heard"]
-    if reported:
-        warnings.append(f"steps {', '.join(str(i + 1) for i in reported)} were spoiled by stream faults in every take")
-        for i in reported:
-            segments[i] = {**segments[i], "spoiled": True}
-    if heard:
-        # the same gap in every take is more likely the stage's than the stream's
-        warnings.append(f"steps {', '.join(str(i + 1) for i in heard)} showed gaps or clicks in every take: "
-                        "is the stage bursting into oscillation?")
-    if side["clock_offset_ppm"] is not None and abs(side["clock_offset_ppm"]) > CLOCK_WARN_PPM:
-        warnings.append(f"the input clock runs {side['clock_offset_ppm']:+.1f} ppm against the output: separate clocks?")
-    side["warnings"] = warnings
-    write_capture_sidecar(path, side)
-    return path

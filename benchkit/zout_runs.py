@@ -89,7 +89,7 @@ def zout_of_captures(folder: Path, load_ohms: float, open_load_ohms: float | Non
                      ref_channel: int | None = None, bandwidth_hz=DEFAULT_BAND_HZ) -> ZoutResult:
     """The output impedance from a run folder's open.wav and loaded.wav
     (recovered from their partial recordings when the run was killed)."""
-    from benchkit.runs import recover_capture
+    from benchkit.record import recover_capture
 
     got = []
     for state in STATES:
@@ -107,7 +107,7 @@ def zout_run(backend, folder: Path, load_ohms: float, frequencies_hz, level_dbfs
     """Play one tone a frequency with the load off (``switch(None)``), then
     with it on (``switch(load_ohms)``); store both captures, then analyse
     them from disk."""
-    from benchkit.runs import record_steps
+    from benchkit.record import record_steps
 
     freqs = [float(f) for f in frequencies_hz]
     for state, load in zip(STATES, (None, load_ohms)):

@@ -191,7 +191,7 @@ def analyse_file(path: Path, options: Offline, say: Callable[[str], None] = lamb
     for w in rec.warnings:  # (an ignored sidecar: the text says so, as the JSON does)
         say(f"warning: {path}: {w}")
     if options.profile is not None and options.volts_per_fs is None:
-        from benchkit.runs import apply_calibration
+        from benchkit.record import apply_calibration
 
         side = dict(rec.sidecar)
         side["channels"] = [c for c in side.get("channels", []) if c.get("number") != options.channel] + [
@@ -223,7 +223,7 @@ def run_capture(folder: Path, channel: int, say: Callable[[str], None], stem: st
     """A run's stored capture, recovered first from its partial recording
     when the run was killed while it played."""
     from benchkit.recordings import read_capture
-    from benchkit.runs import recover_capture
+    from benchkit.record import recover_capture
 
     path = folder / f"{stem}.wav"
     if not path.exists():
