@@ -13,7 +13,7 @@ import numpy as np
 
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.imd import analyze_imd
-from benchkit.imd_runs import twin_tone
+from benchkit.kinds.imd import twin_tone
 
 from _timing import best_of
 

@@ -16,7 +16,7 @@ from pathlib import Path
 
 from benchkit.budget import ClassABudget
 from benchkit.capture.virtual import virtual_bench
-from benchkit.power_runs import power_run
+from benchkit.kinds.power import power_run
 
 
 def main() -> None:

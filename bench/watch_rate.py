@@ -14,7 +14,7 @@ import time
 import numpy as np
 
 from benchkit.capture.virtual import virtual_bench
-from benchkit.watch import SteadyTone, Watch
+from benchkit.kinds.watch import SteadyTone, Watch
 
 SECONDS = 8.0
 

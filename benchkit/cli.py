@@ -20,14 +20,15 @@ import typer
 from benchkit import __version__, units
 from benchkit import cli_values as V
 from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB
+from benchkit import kinds
 from benchkit.kinds import headline_figures
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION, analyze_tone
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
 from benchkit.units import quantity
-from benchkit.logbook import CATALOG, RUN_COMMANDS, STATUSES
-from benchkit.crosstalk_runs import DEFAULT_FREQS_HZ as DEFAULT_CROSSTALK_FREQS
-from benchkit.zout_runs import DEFAULT_FREQS_HZ as DEFAULT_ZOUT_FREQS
+from benchkit.logbook import CATALOG, STATUSES
+from benchkit.kinds.crosstalk import DEFAULT_FREQS_HZ as DEFAULT_CROSSTALK_FREQS
+from benchkit.kinds.zout import DEFAULT_FREQS_HZ as DEFAULT_ZOUT_FREQS
 from benchkit.recordings import read_capture
 
 app = typer.Typer(
@@ -275,17 +276,17 @@ def _analyze_zout(files, channel, ref_channel, band, load, open_load, out, as_js
     """Output impedance from two captures: benchkit's stepped ones (each
     step a reading: a gain with its phase over the reference input), or
     single tones made elsewhere (their levels)."""
-    from benchkit import runs
+    from benchkit.kinds.tone import is_stepped
     from benchkit.analysis.zout import Reading, output_impedance
     from benchkit.report import summary
-    from benchkit.zout_runs import readings_of_capture
+    from benchkit.kinds.zout import readings_of_capture
 
     if len(files) != 2:
         raise BenchkitError("--zout takes two captures: the stage unloaded, then loaded")
     got = []
     for path in files:
         rec = read_capture(path, channel)
-        if runs.is_stepped(rec):
+        if is_stepped(rec):
             got.append(readings_of_capture(Path(path), channel, ref_channel, band))
         else:
             r = analyze_tone(rec.samples, rec.sample_rate_hz, bandwidth_hz=band)
@@ -598,7 +599,8 @@ def tone(
     load, and keep speakers off the output. Ctrl-C fades the output to
     silence and keeps the partial capture.
     """
-    from benchkit import runs
+    from benchkit import record
+    from benchkit.kinds.tone import tone_run
     from benchkit.report import summary
     from benchkit.signals import check_level
 
@@ -614,12 +616,12 @@ def tone(
         for d in drive:
             check_level(d)
         channel = in_channel
-        plan = runs.plan_run(backend, profile, drive, frequency, channel, load_ohms=load, say=_err, **preflight)
+        plan = record.plan_run(backend, profile, drive, frequency, channel, load_ohms=load, say=_err, **preflight)
         for w in plan.warnings:
             _err(f"warning: {w}")
         params = dict(channel=channel, frequency_hz=frequency, levels_dbfs=drive, load_ohms=load, bandwidth_hz=band)
         with _start_run(book, labels, "tone", backend, profile, calibration, params) as run:
-            steps = runs.tone_run(backend, run.folder, frequency, drive, load_ohms=load, bandwidth_hz=band,
+            steps = tone_run(backend, run.folder, frequency, drive, load_ohms=load, bandwidth_hz=band,
                                   channel=channel, traces=True, calibration=profile,
                                   calibration_file=None if calibration is None else str(calibration),
                                   warnings=plan.warnings, note=labels["note"])
@@ -661,9 +663,9 @@ def watch(
     Adjust a live stage with insulated tools, one hand, and mind hot parts
     and the supply's stored charge.
     """
-    from benchkit import runs
+    from benchkit import record
     from benchkit.signals import check_level
-    from benchkit.watch import SteadyTone
+    from benchkit.kinds.watch import SteadyTone
 
     code = 0
     with _live_run(), (_logbook(filing) if record else contextlib.nullcontext((None, None))) as (book, labels):
@@ -679,7 +681,7 @@ def watch(
             raise BenchkitError(f"--level {drive:.1f} dBFS is above the drive cap of {backend.drive_cap_dbfs:g} dBFS; "
                                 "lower it, or raise the cap knowingly (--drive-cap)")
         _check_dc(dc_source, dc_resource, backend, profile)
-        plan = runs.plan_run(backend, profile, [drive], frequency, in_channel, live["gain"], live["margin"],
+        plan = record.plan_run(backend, profile, [drive], frequency, in_channel, live["gain"], live["margin"],
                              live["rail"], live["pad_rating"], load, live["btl"], say=_err)
         for w in plan.warnings:
             _err(f"warning: {w}")
@@ -762,7 +764,7 @@ def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, j
     from benchkit.report import live as show
     from benchkit.report.tables import dumps_line
     from benchkit.analysis.readings import Tracker
-    from benchkit.watch import ReadingsLog, Watch, summarise
+    from benchkit.kinds.watch import ReadingsLog, Watch, summarise
 
     mode = "json" if json_lines else "plain" if plain or not sys.stdout.isatty() else "live"
     log = ReadingsLog(run.folder / "readings.csv") if run is not None else None
@@ -835,6 +837,11 @@ def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, j
     _err(f"watch ended: {stopped}; {units.count(tracker.count, 'reading')}{dropped}; the output faded to silence")
     for line in _watch_summary(tracker):
         _err(line)
+    if run is not None and not tracker.count:
+        # nothing to summarise (the input clipped as the tone came in, or the watch was stopped at once)
+        run.fail(f"the watch ended before its first reading: {stopped}")
+        _err(f"run {run.id}: no reading to keep (filed as failed): {run.folder}")
+        return code
     if run is not None:
         written = [log.path]
         if partial is not None and partial.exists():
@@ -925,7 +932,7 @@ def noise(
     Safety: terminate the input with the stage switched off; mind the hot
     parts of a class-A stage while you do.
     """
-    from benchkit.noise_runs import noise_run
+    from benchkit.kinds.noise import noise_run
     from benchkit.report import summary
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -974,7 +981,7 @@ def gain(
     Safety: a gain run is one short tone; start low on an unknown stage,
     into a dummy load through a pad.
     """
-    from benchkit.gain_runs import analyze_gain
+    from benchkit.kinds.gain import analyze_gain
     from benchkit.record import record_steps
     from benchkit.report import summary
     from benchkit.report.tables import write_json
@@ -1027,9 +1034,9 @@ def imd(
     that peak, but 19 and 20 kHz at high level heat a tweeter and a
     stage's compensation quickly: into a dummy load only, start low.
     """
-    from benchkit import runs
+    from benchkit import record
     from benchkit.analysis.imd import shortest_record_s
-    from benchkit.imd_runs import imd_run, twin_tone
+    from benchkit.kinds.imd import imd_run, twin_tone
     from benchkit.report import summary
     from benchkit.signals import check_level
 
@@ -1046,7 +1053,7 @@ def imd(
         for d in drive:
             check_level(d)
         # the pre-flight probes at the stronger tone (f1 at 4:1; either at 1:1)
-        plan = runs.plan_run(backend, profile, drive, twin.f1_hz, in_channel, live["gain"], live["margin"], live["rail"],
+        plan = record.plan_run(backend, profile, drive, twin.f1_hz, in_channel, live["gain"], live["margin"], live["rail"],
                              live["pad_rating"], load, live["btl"], say=_err)
         for w in plan.warnings:
             _err(f"warning: {w}")
@@ -1092,7 +1099,7 @@ def zout(
     (valve amplifiers) must not run unloaded: do not use this on one.
     """
     from benchkit.report import summary
-    from benchkit.zout_runs import zout_run
+    from benchkit.kinds.zout import zout_run
 
     with _live_run(), _logbook(filing) as (book, labels):
         if from_runs:
@@ -1131,7 +1138,7 @@ def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optio
     from benchkit.compare_runs import stored_result
     from benchkit.report import summary
     from benchkit.report.tables import write_json
-    from benchkit.zout_runs import readings_of_result
+    from benchkit.kinds.zout import readings_of_result
 
     if len(refs) != 2:
         raise BenchkitError("--from takes two runs: the unloaded one, then the loaded one")
@@ -1175,7 +1182,7 @@ def crosstalk(
     Safety: both channels loaded with dummy loads, both pads sized for
     the stage's full output.
     """
-    from benchkit.crosstalk_runs import crosstalk_run
+    from benchkit.kinds.crosstalk import crosstalk_run
     from benchkit.report import summary
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -1210,7 +1217,7 @@ def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: fl
     (``setup`` goes to :func:`_live_setup`). ``volts=False``: the command
     compares ratios and needs no scale, so its load is not checked against
     one."""
-    from benchkit import runs
+    from benchkit import record
     from benchkit.signals import check_level
 
     backend, profile = _live_setup(live, ref_channel, load=load, **setup)
@@ -1220,7 +1227,7 @@ def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: fl
     check_level(drive)
     scaled = backend.name == "virtual" or profile is not None or live["volts_per_fs"] is not None
     checked = load if volts or scaled else None  # without a scale the load cannot be checked, and need not be
-    plan = runs.plan_run(backend, profile, [drive], frequency, live["in_channel"], live["gain"], live["margin"],
+    plan = record.plan_run(backend, profile, [drive], frequency, live["in_channel"], live["gain"], live["margin"],
                          live["rail"], live["pad_rating"], checked, live["btl"], say=_err)
     for w in plan.warnings:
         if checked is not None or load is None or not w.startswith("no load given"):
@@ -1261,7 +1268,8 @@ def sweep(
     keep the level low until the stage's gain is known. Ctrl-C fades the
     output to silence and keeps the partial capture.
     """
-    from benchkit import responses, runs
+    from benchkit import record
+    from benchkit.kinds.sweep import response_run
     from benchkit.analysis.sweep import SyncSweep
     from benchkit.report import summary
     from benchkit.signals import check_level
@@ -1280,13 +1288,13 @@ def sweep(
             ref_channel = backend.reference_input() if backend.name == "virtual" else (profile.ref_channel if profile else None)
         drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
         check_level(drive)
-        plan = runs.plan_run(backend, profile, [drive], ref_freq, in_channel, load_ohms=load, say=_err, **preflight)
+        plan = record.plan_run(backend, profile, [drive], ref_freq, in_channel, load_ohms=load, say=_err, **preflight)
         for w in plan.warnings:
             _err(f"warning: {w}")
         params = dict(channel=in_channel, ref_channel=ref_channel, ref_freq_hz=ref_freq, load_ohms=load,
                       bandwidth_hz=band, smooth=smooth, span_hz=[f1, f2], level_dbfs=drive, stepped=stepped)
         with _start_run(book, labels, "sweep", backend, profile, calibration, params) as run:
-            result = responses.response_run(
+            result = response_run(
                 backend, run.folder, drive, (f1, f2), length, stepped, per_octave, [float(f) for f in freqs] or None,
                 in_channel, ref_channel, load, band, ref_freq, profile, None if calibration is None else str(calibration),
                 note=labels["note"], warnings=plan.warnings)
@@ -1331,8 +1339,8 @@ def power(
     load's temperature, and keep the pad rated for the highest output.
     Ctrl-C fades the output to silence and reports the completed steps.
     """
-    from benchkit import runs
-    from benchkit.power_runs import power_run
+    from benchkit import record
+    from benchkit.kinds.power import power_run
     from benchkit.report import summary
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -1348,11 +1356,11 @@ def power(
         if ref_channel is None and backend.name == "virtual":
             ref_channel = backend.reference_input()
         cap = -0.5 if backend.name == "virtual" else backend.drive_cap_dbfs
-        gain_fs = runs.probe_gain(backend, frequency, -40.0, in_channel)
+        gain_fs = record.probe_gain(backend, frequency, -40.0, in_channel)
         # the highest drive: the cap, or where the input would come within the margin of full scale
         top = min(cap, -live["margin"] - units.db_from_ratio(gain_fs))
         _err(f"pre-flight: a -40 dBFS step measured {units.db_from_ratio(gain_fs):+.1f} dB from output to input")
-        plan = runs.plan_run(backend, profile, [top], frequency, in_channel, None, live["margin"], live["rail"],
+        plan = record.plan_run(backend, profile, [top], frequency, in_channel, None, live["margin"], live["rail"],
                              live["pad_rating"], load, live["btl"], say=_err, gain_fs=gain_fs)
         for w in plan.warnings:
             _err(f"warning: {w}")
@@ -1369,7 +1377,7 @@ def power(
         with _start_run(book, labels, "power", backend, profile, calibration, params) as run:
             conditions = None
             if precondition_run:
-                from benchkit.power_runs import PRECONDITION_S, precondition
+                from benchkit.kinds.power import PRECONDITION_S, precondition
 
                 if not scale:
                     raise BenchkitError("--precondition needs volts at the stage: give --calibration or --volts-per-fs")
@@ -1440,7 +1448,7 @@ def drift(
     mains-powered.
     """
     from benchkit import meters
-    from benchkit.drift_runs import analyze_drift_csv, log_drift
+    from benchkit.kinds.drift import analyze_drift_csv, log_drift
     from benchkit.report import summary
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -1799,7 +1807,7 @@ def _headline_text(entry) -> str:
 @log_app.command("list")
 def log_list(
     tags: List[str] = typer.Option([], "--tag", help="Only runs with this tag, key=value (repeatable: all must match)."),
-    command: Optional[str] = typer.Option(None, "--command", parser=V.one_of(*RUN_COMMANDS), help="Only runs of this command: tone, imd, sweep, power, gain, noise, zout, crosstalk, drift, watch."),
+    command: Optional[str] = typer.Option(None, "--command", parser=V.one_of(*kinds.names()), help=f"Only runs of this command: {', '.join(kinds.names())}."),
     since: Optional[str] = typer.Option(None, "--since", parser=V.when, help="Only runs started on or after this date (YYYY-MM-DD) or time."),
     until: Optional[str] = typer.Option(None, "--until", parser=V.when, help="Only runs started on or before this date or time."),
     status: Optional[str] = typer.Option(None, "--status", parser=V.one_of(*STATUSES), help="Only runs in this state: complete, interrupted, failed, incomplete, running."),
@@ -2016,7 +2024,7 @@ def log_remove(
 def compare(
     runs: List[str] = typer.Argument(None, help="Runs to compare (ids, unique starts, 'last', 'last-N'); the first is the baseline."),
     last: Optional[int] = typer.Option(None, "--last", parser=V.number(2, 10000, integer=True), help="Compare the newest N complete runs (of --command, else of the newest run's command), oldest first."),
-    command: Optional[str] = typer.Option(None, "--command", parser=V.one_of(*RUN_COMMANDS), help="With --last: of this command."),
+    command: Optional[str] = typer.Option(None, "--command", parser=V.one_of(*kinds.names()), help="With --last: of this command."),
     anyway: bool = typer.Option(False, "--anyway", help="Compare runs whose conditions differ (load, frequency, band, calibration, sample rate), with a loud warning."),
     out: Optional[Path] = typer.Option(None, "--out", parser=V.out_folder, help="Comparison folder (default: comparisons/<time>-<runs> in the bench folder)."),
     bench: Optional[Path] = _bench_option(),

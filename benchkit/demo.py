@@ -33,13 +33,13 @@ from benchkit.kinds import headline_figures
 from benchkit.budget import ClassABudget
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
 from benchkit.compare_runs import compare_runs
-from benchkit.imd_runs import imd_run, twin_tone
+from benchkit.kinds.imd import imd_run, twin_tone
 from benchkit.logbook import Logbook
-from benchkit.power_runs import power_run
+from benchkit.kinds.power import power_run
 from benchkit.report import files as reports
 from benchkit.report import summary
-from benchkit.responses import response_run
-from benchkit.runs import StepsResult, tone_run
+from benchkit.kinds.sweep import response_run
+from benchkit.kinds.tone import StepsResult, tone_run
 
 BIASES_A = (0.8, 1.2)
 FREQUENCY_HZ = 997.0
@@ -76,7 +76,7 @@ NOTE = "demo: Test stage B-2 (invented)"
 def _demo_drift(folder: Path, seed: int):
     """The midpoint of B-2 at 1.2 A from cold, against +-0.5 V of half the rail."""
     from benchkit.capture.stages import make_stage
-    from benchkit.drift_runs import analyze_drift_csv, log_drift
+    from benchkit.kinds.drift import analyze_drift_csv, log_drift
     from benchkit.meters import VirtualMidpoint
 
     stage = make_stage("se-class-a", {"bias": BIASES_A[-1], "ambient_c": AMBIENT_C}, seed=seed)
@@ -181,7 +181,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                                                           sample_rate_hz=bench.sample_rate_hz), sweep_in)
     files += written
     say(f"virtual bench: stage B-2 at {label}, voltage gain at 1 kHz")
-    from benchkit.gain_runs import analyze_gain
+    from benchkit.kinds.gain import analyze_gain
     from benchkit.report.tables import write_json
     from benchkit.record import record_steps
 
@@ -197,7 +197,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                                                      sample_rate_hz=g_bench.sample_rate_hz), gain_in)
     files += written
     say(f"virtual bench: stage B-2 at {label}, output noise with the input terminated")
-    from benchkit.noise_runs import noise_run
+    from benchkit.kinds.noise import noise_run
 
     nz_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 9)
     one_watt = units.vrms_from_watts(1.0, LOAD_OHMS)
@@ -212,7 +212,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                                                        sample_rate_hz=nz_bench.sample_rate_hz), noise_in)
     files += written
     say(f"virtual bench: stage B-2 at {label}, output impedance (the load off, then on)")
-    from benchkit.zout_runs import DEFAULT_FREQS_HZ, zout_run
+    from benchkit.kinds.zout import DEFAULT_FREQS_HZ, zout_run
 
     z_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 13)
 
@@ -227,8 +227,8 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                                                      sample_rate_hz=z_bench.sample_rate_hz), zout_in)
     files += written
     say(f"virtual bench: a stereo pair of B-2 at {label}, crosstalk both ways and the channels' balance")
-    from benchkit.crosstalk_runs import DEFAULT_FREQS_HZ as XTALK_FREQS
-    from benchkit.crosstalk_runs import crosstalk_run
+    from benchkit.kinds.crosstalk import DEFAULT_FREQS_HZ as XTALK_FREQS
+    from benchkit.kinds.crosstalk import crosstalk_run
 
     x_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 17,
                             stereo=True)

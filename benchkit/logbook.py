@@ -53,8 +53,6 @@ RECORD_KIND, RECORD_VERSION = "run", 1
 BUSY_TIMEOUT_S = 30.0
 #: What a run can be. "incomplete": its process went away while it ran.
 STATUSES = ("running", "complete", "interrupted", "failed", "incomplete")
-#: The commands that file runs.
-RUN_COMMANDS = ("tone", "watch", "noise", "gain", "imd", "zout", "crosstalk", "sweep", "power", "drift")
 
 
 #: what a run record must hold, and what each field holds (None: may be null)

@@ -8,19 +8,23 @@ A :class:`Recorder` is one run's way of recording: its backend and folder,
 the input it measures, its note, its calibration profile and the fields
 its kind adds to every sidecar. :func:`record_steps` is stepped tones (or
 pairs of tones) through it, with retries; the sweep, power and noise
-kinds call the recorder's steps around their own capture.
+kinds call the recorder's steps around their own capture. Before a run
+plays, :func:`plan_run` is its pre-flight: the stage's gain taken as given
+or probed with one low step, and the run refused if it would overload the
+interface's input or the pad.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+import math
+from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from benchkit import capture
+from benchkit import capture, units
 from benchkit.analysis.tone import analyze_tone
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchkitError, NoToneError
 from benchkit.jsonfile import load_json
 from benchkit.recordings import write_capture, write_capture_sidecar
 from benchkit.signals import stepped_tones
@@ -321,3 +325,86 @@ def record_steps(
     side["warnings"] = warnings
     write_capture_sidecar(path, side)
     return path
+
+
+#: How far the stage's measured gain may exceed a given --gain, dB, before
+#: the pre-flight takes the measured one (a probe step's own scatter is far smaller).
+GIVEN_GAIN_TOLERANCE_DB = 1.0
+
+
+def plan_run(backend, profile, drive, frequency_hz, channel, gain, margin_db, rail_v, pad_rating_w, load_ohms,
+             bridged, say=lambda _m: None, gain_fs: float | None = None):
+    """Pre-flight for a stepped-tone run: gather the scales (calibration, or
+    the virtual bench's own), take the stage's gain as given (V/V, or
+    ``gain_fs`` input FS per output FS) or measure it with a low-level
+    probe step, and let :func:`benchkit.preflight.check`
+    refuse the run before it plays if it would overload the input or the pad."""
+    from benchkit import preflight
+
+    virtual = backend.name == "virtual"
+    pad_spec = profile.pad if profile is not None else None
+    stage_vpf = profile.stage_volts_per_fs if profile is not None else backend.inputs()[channel - 1].volts_per_fs
+    out_vpk = backend.output_vpk_per_fs
+    if virtual:
+        pad, ratio = backend.pad, backend.pad_ratio()
+        in_vpk, input_ohms = backend.spec.input_vpk_per_fs, backend.spec.input_ohms
+    else:
+        pad = pad_spec.pad() if pad_spec is not None else None
+        ratio = profile.pad_ratio if profile is not None else None
+        in_vpk = profile.input_vpk_per_fs if profile is not None else None
+        input_ohms = (pad_spec.input_ohms if pad_spec is not None else None) or math.inf
+    if not virtual and stage_vpf is None and (load_ohms is not None or pad_rating_w is not None):
+        raise BenchkitError("--load and --pad-rating need volts at the stage: give --calibration (or --volts-per-fs)")
+    # the rail rule needs no gain: judged before any probe plays
+    loaded = pad.ratio(input_ohms) if pad is not None else ratio
+    rail_notes = () if rail_v is None or not in_vpk or loaded is None else preflight.rail_rule(
+        rail_v, loaded, in_vpk, margin_db, getattr(backend, "input_max_vpk", None), bridged)
+
+    def judge(g: float):
+        plan = preflight.check(drive, g, stage_vpf, in_vpk, pad, ratio, input_ohms, pad_rating_w, load_ohms, bridged,
+                               margin_db)
+        return replace(plan, warnings=(*rail_notes, *plan.warnings))
+
+    if gain_fs is not None:
+        return judge(gain_fs)  # measured already
+    probe = min(min(drive) - 10.0, -40.0)
+    if gain is None:
+        gain_fs = probe_gain(backend, frequency_hz, probe, channel)
+        say(f"pre-flight: a {probe:g} dBFS step measured {units.db_from_ratio(gain_fs):+.1f} dB from output to input")
+        return judge(gain_fs)
+    if out_vpk is None or stage_vpf is None:
+        raise BenchkitError("--gain needs the output and input scales: give --calibration")
+    given_fs = gain * out_vpk / stage_vpf
+    plan = judge(given_fs)  # refused here, the given gain already too high, before anything plays
+    # a given gain is checked against the stage all the same: one low step (a wrong --gain must not
+    # turn the pre-flight off); the plan rests on the higher of the two
+    try:
+        measured_fs = probe_gain(backend, frequency_hz, probe, channel)
+    except NoToneError:
+        return plan  # nothing came back over the noise: less than the given gain, whatever the stage is
+    over_db = units.db_from_ratio(measured_fs / given_fs)
+    if over_db <= GIVEN_GAIN_TOLERANCE_DB:
+        return plan
+    measured = measured_fs * stage_vpf / out_vpk
+    try:
+        plan = judge(measured_fs)
+    except BenchkitError as exc:
+        raise BenchkitError(f"the stage's gain measured {measured:.3g} V/V at a {probe:g} dBFS step, "
+                            f"{over_db:.1f} dB over the {gain:g} V/V given: {exc}") from None
+    note = (f"the stage's gain measured {measured:.3g} V/V at a {probe:g} dBFS step, {over_db:.1f} dB over the "
+            f"{gain:g} V/V given: the pre-flight took the measured gain")
+    return replace(plan, warnings=(*plan.warnings, note))
+
+
+def probe_gain(backend, frequency_hz: float, level_dbfs: float, channel: int = 1) -> float:
+    """Input FS per output FS through the stage, from one low-level step
+    (nothing kept on disk: it plays before the run, as a check)."""
+    stim = stepped_tones(frequency_hz, [level_dbfs], backend.sample_rate_hz, step_s=0.3, settle_s=0.3,
+                         out_channel=getattr(backend, "drive_output", 1), n_out=backend.n_outputs,
+                         lead_s=getattr(backend, "lead_s", 0.05))
+    cap = capture.run_clean(backend, stim)
+    seg = stim.segments[0]
+    r = analyze_tone(cap.channel(channel)[seg.settled : seg.end], cap.sample_rate_hz, fundamental_hz=frequency_hz)
+    if not r.valid:
+        raise BenchkitError(f"even the {level_dbfs:g} dBFS probe step clipped the input: check the pad and the wiring")
+    return r.fundamental_fs / 10 ** (level_dbfs / 20)

@@ -16,8 +16,8 @@ from pathlib import Path
 
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
 from benchkit.recordings import read_capture, write_capture
-from benchkit.responses import response_run
-from benchkit.runs import tone_run
+from benchkit.kinds.sweep import response_run
+from benchkit.kinds.tone import tone_run
 
 HERE = Path(__file__).resolve().parent
 

@@ -208,7 +208,7 @@ def test_dc_at_a_dc_coupled_stage_output_is_warned_about(tmp_path):
     # over the ~50 mV kept at a speaker output (common practice)
     from benchkit.capture.virtual import InterfaceSpec, VirtualBench
     from benchkit.capture.stages import make_stage
-    from benchkit.runs import tone_run
+    from benchkit.kinds.tone import tone_run
 
     bench = VirtualBench(make_stage("poly", dict(gain=1.0, a2=0.5)), DEMO_PAD, InterfaceSpec(ac_coupling_hz=None), seed=3)
     prof = calibrate(bench, bench.output_vrms(-20.0), pad=DEMO_PAD, input_ohms=10e3,

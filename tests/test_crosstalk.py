@@ -19,7 +19,7 @@ import scipy.signal
 
 from benchkit.capture.stages import StereoCoupling
 from benchkit.capture.virtual import virtual_bench
-from benchkit.crosstalk_runs import crosstalk_run
+from benchkit.kinds.crosstalk import crosstalk_run
 
 from conftest import GlitchingBench, run_cli
 

@@ -16,7 +16,7 @@ import pytest
 
 from benchkit.analysis.drift import analyze_drift, find_steps, fit_settling
 from benchkit.capture.stages import make_stage
-from benchkit.drift_runs import analyze_drift_csv, log_drift
+from benchkit.kinds.drift import analyze_drift_csv, log_drift
 from benchkit.errors import BenchkitError
 from benchkit.meters import ScpiMeter, VirtualMidpoint, read_drift_csv
 from conftest import run_cli, the_run

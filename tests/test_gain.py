@@ -15,7 +15,7 @@ import pytest
 
 from benchkit.analysis.gain import gain_of
 from benchkit.capture.virtual import virtual_bench
-from benchkit.runs import tone_run
+from benchkit.kinds.tone import tone_run
 
 from conftest import run_cli
 
@@ -38,7 +38,7 @@ def test_gain_of_a_linear_stage(g, tmp_path):
 def test_the_calibrated_drive_gives_the_same_gain_as_the_reference_input(tmp_path):
     bench = virtual_bench("poly", {"gain": 10.0, "a2": 0.05}, seed=3)
     steps = tone_run(bench, tmp_path, 997.0, [-25.0])
-    from benchkit.gain_runs import analyze_gain
+    from benchkit.kinds.gain import analyze_gain
 
     by_ref = analyze_gain(tmp_path / "capture.wav", 1, 2)
     by_drive = gain_of(steps.steps[0].result, -25.0, output_vpk_per_fs=bench.output_vpk_per_fs)

@@ -20,7 +20,7 @@ import pytest
 
 from benchkit.analysis.imd import analyze_imd
 from benchkit.capture.virtual import virtual_bench
-from benchkit.imd_runs import imd_run, twin_tone
+from benchkit.kinds.imd import imd_run, twin_tone
 
 from conftest import run_cli, the_run
 

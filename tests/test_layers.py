@@ -28,21 +28,23 @@ def _imports(path: Path) -> set[str]:
 @pytest.mark.parametrize(
     "folder, forbidden",
     [
-        ("analysis", ("benchkit.capture", "benchkit.report", "benchkit.cli", "benchkit.recordings", "benchkit.runs")),
-        ("capture", ("benchkit.report", "benchkit.cli")),
-        ("report", ("benchkit.capture", "benchkit.cli", "benchkit.watch", "benchkit.runs", "benchkit.logbook")),
+        ("analysis", ("benchkit.capture", "benchkit.report", "benchkit.cli", "benchkit.recordings", "benchkit.record",
+                      "benchkit.kinds")),
+        ("capture", ("benchkit.report", "benchkit.cli", "benchkit.kinds")),
+        ("report", ("benchkit.capture", "benchkit.cli", "benchkit.kinds", "benchkit.record", "benchkit.logbook")),
+        ("kinds", ("benchkit.cli",)),
     ],
 )
 def test_layers_do_not_reach_up(folder, forbidden):
     for path in (PKG / folder).glob("*.py"):
-        bad = {m for m in _imports(path) if m.startswith(forbidden)}
+        bad = {m for m in _imports(path) if any(m == f or m.startswith(f + ".") for f in forbidden)}
         assert not bad, f"{path.name} imports {bad}"
 
 
 def test_the_logbook_is_storage_only():
     # the catalog and the run folders: no capture, no analysis, no reports, no CLI
     bad = {m for m in _imports(PKG / "logbook.py")
-           if m.startswith(("benchkit.capture", "benchkit.analysis", "benchkit.report", "benchkit.cli"))}
+           if m.startswith(("benchkit.capture", "benchkit.analysis", "benchkit.report", "benchkit.cli", "benchkit.kinds"))}
     assert not bad
 
 
@@ -88,3 +90,27 @@ def test_missing_portaudio_is_one_clear_line(monkeypatch):
     monkeypatch.setattr(builtins, "__import__", fake)
     with pytest.raises(BenchkitError, match="libportaudio2"):
         portaudio.list_devices()
+
+
+def test_every_kind_is_one_module_named_as_it_is():
+    # a kind's module bears its name, and the registry finds it without being told
+    import re
+
+    from benchkit import kinds
+
+    found = {k.name for k in kinds.all_kinds()}
+    assert found == set(kinds.names()) == {p.stem for p in (PKG / "kinds").glob("*.py") if p.stem != "__init__"}
+    assert all(callable(k.reanalyse) for k in kinds.all_kinds())
+    # every command that files a run files it under a kind's name
+    filed = set(re.findall(r'_start_run\(book, labels, "(\w+)"', (PKG / "cli.py").read_text()))
+    assert filed and filed <= found
+
+
+def test_the_registry_loads_no_plotting_and_no_cli():
+    import subprocess
+    import sys
+
+    code = ("import sys; from benchkit import kinds; kinds.all_kinds(); "
+            "print(sorted(m for m in ('matplotlib', 'typer', 'sounddevice') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "[]"

@@ -145,7 +145,7 @@ def _stepped_power(tmp_path, bias: float, name: str):
     """An adaptive power run of B-2 at ``bias`` on the virtual bench, with
     the defaults (1 dB steps from 40 dB below the budget's ceiling), into 8 ohm."""
     from benchkit.capture.virtual import virtual_bench
-    from benchkit.power_runs import power_run
+    from benchkit.kinds.power import power_run
 
     budget = ClassABudget(24.0, bias, 8.0, 1.0)
     knee = 20 * math.log10(budget.peak_vpk / 20.0)  # gain 10, 2 V peak per FS at the output
@@ -200,7 +200,7 @@ def test_se_class_a_power_onset_half_and_efficiency(tmp_path):
 
 
 def test_the_planner_climbs_then_bisects_each_limit():
-    from benchkit.power_runs import LevelPlanner
+    from benchkit.kinds.power import LevelPlanner
 
     # a stage whose THD+N in % is 0.01 x 10^(level/20) x 100, clipping hard above -10 dBFS
     def thdn(level):
@@ -251,7 +251,7 @@ def test_hard_clip_model_power_run_matches_the_fourier_series(tmp_path):
     # the virtual bench's hard-clip stage (gain 10, clipping at 9.5 V) through
     # an adaptive run: THD crosses 1 % where the clipped sine's series says
     from benchkit.capture.virtual import virtual_bench
-    from benchkit.power_runs import power_run
+    from benchkit.kinds.power import power_run
 
     def thd(amp):
         b = _clipped_harmonics(amp, 20)
@@ -273,7 +273,7 @@ def test_a_dropout_in_an_adaptive_step_is_played_again(tmp_path, monkeypatch, re
     # step is played again at its level, and the power at 1 % THD is the
     # Fourier series' as before
     from benchkit.capture.virtual import virtual_bench
-    from benchkit.power_runs import AdaptiveSteps, power_run
+    from benchkit.kinds.power import AdaptiveSteps, power_run
 
     heard = AdaptiveSteps.listen
     lost = []
@@ -308,7 +308,7 @@ def test_a_run_that_would_clip_the_input_stops_before_it_does(tmp_path):
     # no pad: the stage's 11 V peak would reach 5.5x the input's 2 V full
     # scale; the check before each step ends the run with every step clean
     from benchkit.capture.virtual import virtual_bench
-    from benchkit.power_runs import power_run
+    from benchkit.kinds.power import power_run
 
     bench = virtual_bench("se-class-a", {"bias": 0.8}, pad=None, seed=5)
     r = power_run(bench, tmp_path, F0, -40.0, -0.5, 8.0, ref_channel=2)
@@ -321,7 +321,7 @@ def test_preconditioning_in_the_manner_of_16_cfr_432():
     # 2.5 W rated into 8 ohm: 0.3125 W, Vpk = sqrt(2 x 0.3125 x 8) = 2.236 V;
     # at 20 V peak per FS of drive (gain 10, 2 V per FS), 20 log10(2.236 / 20) dBFS
     from benchkit.capture.virtual import virtual_bench
-    from benchkit.power_runs import precondition
+    from benchkit.kinds.power import precondition
 
     bench = virtual_bench("se-class-a", {"bias": 0.8})
     got = precondition(bench, F0, 2.5, 8.0, 20.0)

@@ -10,8 +10,8 @@ from pathlib import Path
 import pytest
 
 from benchkit.recordings import read_capture
-from benchkit.responses import analyze_response, is_response
-from benchkit.runs import analyze_steps
+from benchkit.kinds.sweep import analyze_response, is_response
+from benchkit.kinds.tone import analyze_steps
 
 HERE = Path(__file__).resolve().parents[1] / "sample_captures"
 

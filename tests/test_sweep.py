@@ -26,7 +26,7 @@ from benchkit.analysis.sweep import SyncSweep, deconvolve, measure, separate, st
 from benchkit.analysis.tone import analyze_tone
 from benchkit.capture.virtual import virtual_bench
 from benchkit.errors import BenchkitError
-from benchkit.responses import response_run
+from benchkit.kinds.sweep import response_run
 from conftest import GlitchingBench, run_cli, the_run
 
 RATE = 96000

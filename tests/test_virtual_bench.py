@@ -19,7 +19,7 @@ from benchkit.capture.stages import make_stage, parse_params
 from benchkit.capture.virtual import OVERSAMPLE, InterfaceSpec, VirtualBench, virtual_bench
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad, parse_pad
-from benchkit.runs import tone_run
+from benchkit.kinds.tone import tone_run
 from benchkit.signals import stepped_tones
 from conftest import GlitchingBench, run_cli
 

@@ -22,9 +22,9 @@ import soundfile as sf
 
 from benchkit.capture.virtual import virtual_bench
 from benchkit.report.live import sparkline
-from benchkit.runs import tone_run
+from benchkit.kinds.tone import tone_run
 from benchkit.analysis.readings import Tracker
-from benchkit.watch import SteadyTone, Watch
+from benchkit.kinds.watch import SteadyTone, Watch
 
 from conftest import run_cli, the_run
 
@@ -92,7 +92,7 @@ def test_a_reading_across_a_stream_dropout_is_marked_and_left_out(tmp_path):
     # identity) fed block by block as a backend would, with 10 ms of it lost
     # at one point and the callback there flagged: the readings whose block
     # spans it are marked, every other one reads the identity
-    from benchkit.watch import ReadingsLog, summarise
+    from benchkit.kinds.watch import ReadingsLog, summarise
 
     rate, f, a2, amp = 48000.0, 997.0, 0.2, 0.1
     got = []
@@ -243,3 +243,13 @@ def test_keys_on_a_terminal_hold_reset_and_stop(tmp_path):
     assert proc.returncode == 0, err
     assert b"THD+N" in shown and b"HELD" in held
     assert "stopped (q)" in err and "faded to silence" in err
+
+
+def test_a_watch_that_ends_before_its_first_reading_is_filed_failed(tmp_path):
+    # a watch can end (its duration out, the input clipping as the tone comes
+    # in) before its first reading: no summary of nothing, no error of it; the
+    # run is filed as failed and says why
+    res = run_cli("watch", "--sim", "ideal", "--plain", "--duration", "0.01", "--bench", str(tmp_path))
+    assert res.returncode == 0 and "0 readings" in res.stderr and "Traceback" not in res.stderr, res.stderr
+    (run,) = json.loads(run_cli("log", "list", "--bench", str(tmp_path), "--json").stdout)["runs"]
+    assert run["status"] == "failed" and "before its first reading" in run["error"]

@@ -1,7 +1,7 @@
 """The readings of a live readout: what one update holds, and each
 figure's latest value, minimum, maximum and trend since the start.
 
-Pure data (no stream, no screen): benchkit.watch makes the readings as a
+Pure data (no stream, no screen): benchkit.kinds.watch makes the readings as a
 tone plays, benchkit.report.live shows them.
 """
 

@@ -126,7 +126,7 @@ class Backend(Protocol):
         silent on every exit path.
 
         A stimulus with a ``listen(block, frame)`` method decides as it
-        plays (benchkit.power_runs.AdaptiveSteps): the backend feeds it
+        plays (benchkit.kinds.power.AdaptiveSteps): the backend feeds it
         every recorded block, off the audio thread; its ``n_samples`` is an
         upper bound until ``render`` returns fewer frames than asked, which
         ends it; ``stop(reason)`` ends it from the backend's side."""

@@ -117,11 +117,19 @@ class Kind:
 _KINDS: dict[str, Kind] = {}
 
 
+def names() -> tuple[str, ...]:
+    """The name of every kind, from the modules in this package (none
+    imported: a kind's module bears its name)."""
+    return tuple(sorted(info.name for info in pkgutil.iter_modules(__path__) if not info.name.startswith("_")))
+
+
 def _load() -> dict[str, Kind]:
     if not _KINDS:
-        for info in pkgutil.iter_modules(__path__):
-            kind = importlib.import_module(f"{__name__}.{info.name}").KIND
-            _KINDS[kind.name] = kind
+        for name in names():
+            kind = importlib.import_module(f"{__name__}.{name}").KIND
+            if kind.name != name:
+                raise RuntimeError(f"benchkit/kinds/{name}.py declares a kind named {kind.name!r}")
+            _KINDS[name] = kind
     return _KINDS
 
 

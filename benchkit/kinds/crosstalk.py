@@ -1,16 +1,89 @@
 """Crosstalk: one channel of a stereo pair driven at a time, the leak into
-the other at each frequency, and the channels' balance."""
+the other at each frequency, and the channels' balance.
+
+A run: a tone a frequency on channel A's output with B's
+silent, then the same on B's, both channels' outputs recorded in one
+capture, stored, then analysed from disk (:mod:`benchkit.analysis.crosstalk`).
+"""
 
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 
-from benchkit.analysis.crosstalk import crosstalk_figures
+from benchkit.analysis.crosstalk import crosstalk_figures, CrosstalkResult, leak
+from benchkit.analysis.tone import DEFAULT_BAND_HZ
+from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture
+from benchkit.recordings import read_capture, Takes
+
+
+#: The frequencies a run reads by default, Hz: clear of the mains and its
+#: harmonics, where hum and ripple would read as crosstalk.
+DEFAULT_FREQS_HZ = (20.0, 70.0, 997.0, 10000.0, 20000.0)
+
+
+def on_mains(frequency_hz: float) -> bool:
+    """Whether a tone sits within 2 Hz of 50 or 60 Hz or a harmonic of
+    either up to the 10th (where a supply's hum and ripple lie)."""
+    return any(abs(frequency_hz - k * m) <= 2.0 for m in (50.0, 60.0) for k in range(1, 11))
+
+
+def analyze_crosstalk_capture(path: Path, bandwidth_hz=DEFAULT_BAND_HZ) -> CrosstalkResult:
+    """Each step of a crosstalk capture: the driven channel's tone and its
+    leak into the other, by the wiring its sidecar records."""
+    side = read_capture(path).sidecar
+    try:
+        wiring = side["crosstalk"]
+        outputs, inputs = [int(c) for c in wiring["outputs"]], [int(c) for c in wiring["inputs"]]
+        segments = side["stimulus"]["segments"]
+    except (KeyError, TypeError, ValueError) as exc:
+        raise BenchkitError(f"{path}: not a crosstalk capture (its sidecar names no channel wiring)") from exc
+    recs = [read_capture(path, ch) for ch in inputs]
+    takes = Takes(*recs)
+    scales = [r.channel_scale()[0] for r in recs]
+    warnings = list(side.get("warnings") or [])
+    if None in scales:
+        warnings.append("an input has no voltage scale: the channels are compared in FS, as if their pads and "
+                        "input gains were identical")
+        scales = [None, None]
+    leaks = []
+    for seg in segments:
+        a = outputs.index(int(seg["channel"]))
+        x = leak(takes.step(seg, inputs[a]), takes.step(seg, inputs[1 - a]), recs[a].sample_rate_hz,
+                 float(seg["frequency_hz"]), scales[a], scales[1 - a], bandwidth_hz, "AB"[a])
+        if seg.get("spoiled"):
+            x = replace(x, valid=False)
+        leaks.append(x)
+    hummed = sorted({round(x.frequency_hz) for x in leaks if on_mains(x.frequency_hz)})
+    if hummed:
+        warnings.append(f"{', '.join(f'{f} Hz' for f in hummed)} sit(s) on a mains harmonic: the supply's hum and "
+                        "ripple there read as crosstalk")
+    if any(x.below_floor for x in leaks):
+        warnings.append("some leaks lie under 10 dB over their noise: their crosstalk is an upper bound")
+    return CrosstalkResult(tuple(leaks), None not in scales, tuple(warnings), recs[0].sample_rate_hz,
+                           None if bandwidth_hz is None else tuple(bandwidth_hz))
+
+
+def crosstalk_run(backend, folder: Path, frequencies_hz, level_dbfs: float, outputs=(1, 2), inputs=(1, 3),
+                  note: str = "", calibration=None, calibration_file: str | None = None,
+                  warnings: tuple[str, ...] = ()) -> CrosstalkResult:
+    """Drive output A with a tone a frequency, then output B, recording
+    both channels' outputs (inputs A and B); store the capture with the
+    wiring in its sidecar, then analyse it from disk."""
+    from benchkit.record import record_steps
+
+    freqs = [float(f) for f in frequencies_hz]
+    n = len(freqs)
+    path = record_steps(backend, folder, freqs * 2, [level_dbfs] * (2 * n), channel=inputs[0], note=note,
+                        calibration=calibration, calibration_file=calibration_file, warnings=warnings,
+                        step_s=max(0.5, 20.0 / min(freqs)), out_channels=[outputs[0]] * n + [outputs[1]] * n,
+                        listen=[inputs[0]] * n + [inputs[1]] * n,
+                        extra={"crosstalk": {"outputs": list(outputs), "inputs": list(inputs)}})
+    return analyze_crosstalk_capture(path)
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    from benchkit.crosstalk_runs import analyze_crosstalk_capture
     from benchkit.report import files
 
     p = record.get("params") or {}
@@ -20,7 +93,6 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
 
 
 def analyse(rec, o: Offline) -> Analysed:
-    from benchkit.crosstalk_runs import analyze_crosstalk_capture
     from benchkit.report import files, summary
 
     path = Path(rec.path)

@@ -1,19 +1,161 @@
 """Drift: a DC voltage (the operating point) logged while the stage warms,
-how far and how fast it moves, and when it settles."""
+how far and how fast it moves, and when it settles.
+
+A run reads a DC source at an interval and streams every reading to a
+CSV on disk as it comes (flushed row by row, so Ctrl-C or a crash keeps
+all of it), with memory flat however long it runs; then analyses the CSV.
+"""
 
 from __future__ import annotations
 
+import time
+from dataclasses import dataclass
 from pathlib import Path
+from typing import Callable
 
-from benchkit.analysis.drift import drift_figures
+import numpy as np
+
+from benchkit.analysis.drift import analyze_drift, drift_figures, drift_rate_v_per_s, DriftResult, fit_settling
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, Offline
+from benchkit.meters import read_drift_csv, SourceLost
+
+
+#: Readings kept in memory for the live estimate (thinned by halves when full).
+LIVE_POINTS = 4096
+#: How often the live line refits the settling, readings.
+REFIT_EVERY = 10
+
+
+class _Reservoir:
+    """Every reading until full, then every second one, and so on: a
+    bounded picture of the whole log for the live estimate."""
+
+    def __init__(self, size: int = LIVE_POINTS):
+        self.size, self.keep_every, self.seen = size, 1, 0
+        self.t: list[float] = []
+        self.v: list[float] = []
+
+    def add(self, t: float, v: float) -> None:
+        if self.seen % self.keep_every == 0:
+            self.t.append(t)
+            self.v.append(v)
+            if len(self.t) >= self.size:
+                self.t, self.v = self.t[::2], self.v[::2]
+                self.keep_every *= 2
+        self.seen += 1
+
+
+@dataclass(frozen=True)
+class LogEnd:
+    """How a log ended: "duration", "settled", "interrupted" or "lost"."""
+
+    how: str
+    message: str = ""
+
+
+def log_drift(
+    source,
+    csv_path: Path,
+    interval_s: float,
+    duration_s: float | None = None,
+    until_settled: bool = False,
+    band_v: float = 1e-3,
+    window_s: float = 60.0,
+    say: Callable[[str], None] = lambda _m: None,
+    clock: Callable[[], float] = time.monotonic,
+    sleep: Callable[[float], None] = time.sleep,
+    current=None,
+) -> LogEnd:
+    """Read ``source`` every ``interval_s`` into ``csv_path`` until the
+    duration is up, it has settled within ``band_v`` (``until_settled``),
+    Ctrl-C, or the source goes away. A source with ``accelerated`` > 0 is
+    simulated: no waiting, ``accelerated`` x ``interval_s`` of its own
+    time per reading. ``current``, a second meter reading amps (the
+    supply's draw), adds an ``amps`` column."""
+    if interval_s <= 0:
+        raise BenchkitError("the interval must be positive")
+    if duration_s is None and not until_settled:
+        raise BenchkitError("give --duration, --until-settled, or both")
+    simulated = getattr(source, "accelerated", 0.0) > 0
+    step = interval_s * (source.accelerated if simulated else 1.0)
+    live = _Reservoir()
+    try:
+        fh = csv_path.open("w", newline="", encoding="utf-8")
+    except OSError as exc:
+        raise BenchkitError(f"cannot write {csv_path}: {exc.strerror or exc}") from None
+    end = LogEnd("duration")
+    with fh:
+        fh.write("time_s,volts,amps\n" if current is not None else "time_s,volts\n")
+        fh.flush()
+        t0 = clock()
+        k = 0
+        try:
+            while True:
+                t = k * step if simulated else clock() - t0
+                if duration_s is not None and t > duration_s + 1e-9:
+                    break
+                try:
+                    v = source.read()
+                    amps = "" if current is None else f",{current.read():.9g}"
+                except SourceLost as exc:
+                    end = LogEnd("lost", str(exc))
+                    break
+                fh.write(f"{t:.3f},{v:.9g}{amps}\n")
+                fh.flush()
+                live.add(t, v)
+                k += 1
+                if k % REFIT_EVERY == 0:
+                    settled = _live_line(live, band_v, window_s, say)
+                    if until_settled and settled:
+                        end = LogEnd("settled")
+                        break
+                if simulated:
+                    source.advance(step)
+                else:
+                    sleep(max(0.0, t0 + k * interval_s - clock()))
+        except KeyboardInterrupt:
+            end = LogEnd("interrupted", "interrupted")
+    return end
+
+
+def _live_line(live: _Reservoir, band_v: float, window_s: float, say) -> bool:
+    """Say the latest value, the rate and the time to settle; whether the
+    log has settled (the fit's settle time passed, the rate small)."""
+    t, v = np.array(live.t), np.array(live.v)
+    rate = drift_rate_v_per_s(t, v, window_s)
+    fit = fit_settling(t, v, band_v)
+    left = ""
+    settled = False
+    if fit is not None and fit.settle_s is not None:
+        remaining = fit.settle_s - t[-1]
+        settled = remaining <= 0 and abs(v[-1] - fit.final_v) <= band_v
+        left = "settled" if settled else f"settles in about {remaining:.0f} s (to {fit.final_v * 1e3:.2f} mV)"
+    rate_text = "" if rate is None else f", {rate * 60e3:+.3f} mV/min"
+    say(f"  t {t[-1]:8.1f} s  {v[-1] * 1e3:10.3f} mV{rate_text}  {left}")
+    return settled
+
+
+def analyze_drift_csv(path: Path, time_col: str = "1", value_col: str = "2", limit_v: float | None = None,
+                      band_v: float | None = None, window_s: float = 60.0, info: dict | None = None,
+                      warnings: tuple[str, ...] = (), nominal_v: float = 0.0) -> DriftResult:
+    """The drift figures of a CSV log on disk (benchkit's, or a logger's)."""
+    t, v, notes = read_drift_csv(path, time_col, value_col)
+    extra = {"file": str(path), **(info or {})}
+    try:
+        _t, amps, _n = read_drift_csv(path, time_col, "amps")
+    except BenchkitError:
+        amps = None  # no supply-current column
+    if amps is not None:
+        extra["supply_current_a"] = {"last": float(amps[-1]), "min": float(amps.min()), "max": float(amps.max()),
+                                     "mean": float(amps.mean())}
+    return analyze_drift(t, v, limit_v, band_v, window_s, extra, tuple(notes) + tuple(warnings), nominal_v)
+
 
 LOG = "log.csv"
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    from benchkit.drift_runs import analyze_drift_csv
     from benchkit.report import files
 
     p = record.get("params") or {}
@@ -39,7 +181,6 @@ def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> lis
 
 def analyse(path: Path, o: Offline) -> Analysed:
     """A CSV log (benchkit's, or a logger's), its columns by name or number."""
-    from benchkit.drift_runs import analyze_drift_csv
     from benchkit.report import files, summary
 
     j = o.judge or {}

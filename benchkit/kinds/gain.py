@@ -1,16 +1,69 @@
 """Gain: the stage's voltage gain and phase at one tone, over a reference
-input or the calibrated drive."""
+input or the calibrated drive.
+
+A run: one tone step, the stage's output and its input measured in
+the same capture (or the input taken from the calibrated drive), stored,
+then analysed from disk.
+"""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-from benchkit.analysis.gain import gain_figures
+from benchkit.analysis.gain import gain_figures, gain_of, GainResult
+from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
+from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture
+from benchkit.recordings import read_capture, Takes
+
+
+def analyze_gain(path: Path, channel: int = 1, ref_channel: int | None = None, bandwidth_hz=DEFAULT_BAND_HZ,
+                 load_ohms: float | None = None) -> GainResult:
+    """The gain of a one-step tone capture written by benchkit: the
+    measuring channel over ``ref_channel`` (the sidecar's reference input
+    by default), else over the drive at the calibrated output scale."""
+    return step_gains(path, channel, ref_channel, bandwidth_hz, load_ohms)[-1]
+
+
+def step_gains(path: Path, channel: int = 1, ref_channel: int | None = None, bandwidth_hz=DEFAULT_BAND_HZ,
+               load_ohms: float | None = None) -> list[GainResult]:
+    """The gain at every step of a stepped-tone capture written by benchkit
+    (each at its own frequency and level), as :func:`analyze_gain`."""
+    from benchkit.kinds.tone import analyze_steps, is_stepped
+
+    rec = read_capture(path, channel)
+    if not is_stepped(rec):
+        raise BenchkitError(f"{path}: gain needs a tone capture that benchkit wrote (its sidecar lists the step)")
+    steps = analyze_steps(rec, bandwidth_hz, load_ohms)
+    if steps.steps[0].result.fundamental_vrms is None:
+        raise BenchkitError(f"{path}: the output has no voltage scale: give --calibration (or --volts-per-fs)")
+    side = rec.sidecar
+    cal = side.get("calibration") or {}
+    if ref_channel is None:
+        ref_channel = next((c["number"] for c in side.get("channels") or []
+                            if str(c.get("role", "")).startswith("reference")), None)
+    if ref_channel is not None:
+        ref = read_capture(path, ref_channel)
+        scale, _source = ref.channel_scale()
+        scale = scale or cal.get("input_vpk_per_fs")
+        if not scale:
+            raise BenchkitError(f"{path}: the reference input {ref_channel} has no voltage scale: calibrate the interface")
+        out = []
+        takes = Takes(ref)
+        for seg, step in zip(side["stimulus"]["segments"], steps.steps):
+            r = analyze_tone(takes.step(seg), rec.sample_rate_hz,
+                             fundamental_hz=float(seg["frequency_hz"]), bandwidth_hz=bandwidth_hz, volts_per_fs=scale)
+            out.append(gain_of(step.result, step.drive_dbfs, reference=r, load_ohms=load_ohms))
+        return out
+    out_scale = cal.get("output_vpk_per_fs") or side.get("output_vpk_per_fs")
+    if not out_scale:
+        raise BenchkitError(f"{path}: no reference input and no calibrated output scale: wire a reference input "
+                            "(--ref-channel) or give --calibration")
+    return [gain_of(step.result, step.drive_dbfs, output_vpk_per_fs=float(out_scale), load_ohms=load_ohms)
+            for step in steps.steps]
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    from benchkit.gain_runs import analyze_gain
     from benchkit.report.tables import write_json
 
     p = record.get("params") or {}
@@ -22,7 +75,6 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
 
 def analyse(rec, o: Offline) -> Analysed:
     """A tone capture benchkit wrote (``--gain``)."""
-    from benchkit.gain_runs import analyze_gain
     from benchkit.report import summary
 
     path = Path(rec.path)

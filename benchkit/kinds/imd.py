@@ -1,16 +1,118 @@
 """IMD: a pair of tones at each level (the modulation or the difference
-method), the intermodulation products and their sum."""
+method), the intermodulation products and their sum.
+
+A run: a pair of tones at one or more levels (the
+stepped-level machinery of tone runs, retries and recovery included),
+stored, then each step analysed from disk (:mod:`benchkit.analysis.imd`).
+"""
 
 from __future__ import annotations
 
+from dataclasses import dataclass, replace
 from pathlib import Path
 
-from benchkit.analysis.imd import imd_figures
+from benchkit.analysis.imd import analyze_imd, imd_figures, ImdResult, method_tones, SCHEMA_VERSION
+from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, Offline, run_capture
+from benchkit.recordings import read_capture, Recording, Takes
+from benchkit.signals import TwinTone
+
+
+#: Below this rate the difference method's tones sit at the converters'
+#: band edge (a 48 kHz interface is flat to about 20 kHz).
+DIFFERENCE_MIN_RATE_HZ = 88200.0
+
+
+def twin_tone(method: str, f1_hz: float | None = None, f2_hz: float | None = None,
+              ratio: float | None = None) -> TwinTone:
+    """The pair a method plays, its standard tones and ratio unless given."""
+    d1, d2, dr = method_tones(method)
+    return TwinTone(method, float(f1_hz or d1), float(f2_hz or d2), float(ratio or dr))
+
+
+@dataclass(frozen=True)
+class ImdStep:
+    drive_dbfs: float | None  # None: a capture made elsewhere
+    result: ImdResult
+
+    def to_dict(self) -> dict:
+        d = self.result.to_dict()
+        d.pop("kind"), d.pop("schema_version")
+        return {"drive_dbfs": self.drive_dbfs, **d}
+
+
+@dataclass(frozen=True)
+class ImdSteps:
+    """Every step of a two-tone capture: IMD against level."""
+
+    file: str
+    channel: int
+    twin: TwinTone
+    steps: tuple[ImdStep, ...]
+    warnings: tuple[str, ...] = ()
+    device: str | None = None
+    calibration: dict | None = None
+
+    def top(self) -> ImdStep | None:
+        """The highest valid step."""
+        valid = [s for s in self.steps if s.result.valid]
+        return max(valid, key=lambda s: s.drive_dbfs or 0.0) if valid else None
+
+    def to_dict(self) -> dict:
+        first = self.steps[0].result
+        return {
+            "kind": "imd", "schema_version": SCHEMA_VERSION, "file": self.file, "channel": self.channel,
+            "method": self.twin.method, "tones_hz": [self.twin.f1_hz, self.twin.f2_hz], "tone_ratio": self.twin.ratio,
+            "frequency_hz": self.twin.f2_hz, "sample_rate_hz": first.sample_rate_hz,
+            "load_ohms": first.load_ohms, "scale_source": first.scale_source, "device": self.device,
+            "calibration": self.calibration, "warnings": list(self.warnings),
+            "steps": [s.to_dict() for s in self.steps],
+        }
+
+
+def is_imd(rec: Recording) -> bool:
+    return (rec.sidecar.get("stimulus") or {}).get("kind") == "stepped-twin-tones"
+
+
+def analyze_imd_steps(rec: Recording, volts_per_fs: float | None = None, load_ohms: float | None = None,
+                      spectrum: bool = False) -> ImdSteps:
+    """Analyse each settled step of a two-tone capture benchkit wrote."""
+    stim = rec.sidecar["stimulus"]
+    try:
+        t = stim["twin"]
+        twin = TwinTone(str(t["method"]), float(t["f1_hz"]), float(t["f2_hz"]), float(t["ratio"]))
+        segments = [(s, float(s["level_dbfs"]), bool(s.get("spoiled"))) for s in stim["segments"]]
+    except (KeyError, TypeError, ValueError) as exc:
+        raise BenchkitError(f"{rec.path}: the sidecar's two-tone steps are damaged") from exc
+    scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
+    takes = Takes(rec)
+    steps = []
+    for seg, drive, spoiled in segments:
+        r = analyze_imd(takes.step(seg), rec.sample_rate_hz, twin.method, twin.f1_hz, twin.f2_hz, scale, source,
+                        load_ohms, spectrum=spectrum)
+        if spoiled:
+            r = replace(r, valid=False, warnings=r.warnings + ("a stream fault spoiled this step",))
+        steps.append(ImdStep(drive, r))
+    warnings = list(rec.warnings) + list(rec.sidecar.get("warnings") or ())
+    if twin.method == "difference" and rec.sample_rate_hz < DIFFERENCE_MIN_RATE_HZ and twin.f2_hz > 15000:
+        warnings.append(f"at {rec.sample_rate_hz:g} Hz the tones at {twin.f1_hz:g} and {twin.f2_hz:g} Hz sit at the "
+                        "converters' band edge and 2f2-f1 beyond it: measure at 96 kHz (--rate 96000)")
+    return ImdSteps(str(rec.path), rec.channel, twin, tuple(steps), tuple(warnings), rec.sidecar.get("device"),
+                    rec.sidecar.get("calibration"))
+
+
+def imd_run(backend, folder: Path, twin: TwinTone, levels_dbfs: list[float], channel: int = 1,
+            load_ohms: float | None = None, note: str = "", calibration=None, calibration_file: str | None = None,
+            warnings: tuple[str, ...] = (), step_s: float = 1.0, spectrum: bool = False) -> ImdSteps:
+    """Play the pair at each level, store the capture, analyse each step."""
+    from benchkit.record import record_steps
+
+    path = record_steps(backend, folder, twin.f2_hz, levels_dbfs, channel=channel, note=note, calibration=calibration,
+                        calibration_file=calibration_file, warnings=warnings, step_s=step_s, twin=twin)
+    return analyze_imd_steps(read_capture(path, channel), load_ohms=load_ohms, spectrum=spectrum)
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    from benchkit.imd_runs import analyze_imd_steps
     from benchkit.report import files
 
     p = record.get("params") or {}
@@ -26,7 +128,6 @@ def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> lis
 
 
 def recognises(rec) -> bool:
-    from benchkit.imd_runs import is_imd
 
     return is_imd(rec)
 
@@ -36,7 +137,6 @@ def analyse(rec, o: Offline) -> Analysed:
     (``--imd METHOD[:F1:F2]``) one made elsewhere, analysed whole."""
     from benchkit import units
     from benchkit.analysis.imd import analyze_imd
-    from benchkit.imd_runs import ImdStep, ImdSteps, analyze_imd_steps, is_imd, twin_tone
     from benchkit.report import files, summary
 
     if is_imd(rec) and o.imd_method is None:

@@ -1,17 +1,178 @@
 """Tone: stepped tones at one frequency, THD, THD+N and the harmonics at
-each level (offline, a single tone too)."""
+each level (offline, a single tone too).
+
+A run records through :mod:`benchkit.record` (the capture and its sidecar
+on disk before anything is analysed), then analyses the stored capture.
+Analysing a stored stepped-tone capture again (offline, or
+after a crash) goes through the same :func:`analyze_steps`.
+"""
 
 from __future__ import annotations
 
+from dataclasses import dataclass, replace
 from pathlib import Path
 
-from benchkit.analysis.tone import step_figures
+from benchkit import capture
+from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ, SCHEMA_VERSION, step_figures, ToneResult
+from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture
+from benchkit.record import record_steps
+from benchkit.recordings import read_capture, Recording, Takes
+
+
+@dataclass(frozen=True)
+class StepResult:
+    """One step of a stepped-tone run: the drive and the analysis."""
+
+    drive_dbfs: float
+    result: ToneResult
+
+    def to_dict(self) -> dict:
+        return {"drive_dbfs": self.drive_dbfs, **self.result.to_dict()}
+
+
+@dataclass(frozen=True)
+class StepsResult:
+    """Every step of a stepped-tone capture."""
+
+    file: str
+    channel: int
+    frequency_hz: float
+    steps: tuple[StepResult, ...]
+    warnings: tuple[str, ...] = ()
+    device: str | None = None
+    latency_samples: int | None = None
+    clock_offset_ppm: float | None = None
+    calibration: dict | None = None
+
+    def to_dict(self) -> dict:
+        return {
+            "kind": "tone-steps",
+            "schema_version": SCHEMA_VERSION,
+            "file": self.file,
+            "channel": self.channel,
+            "frequency_hz": self.frequency_hz,
+            "device": self.device,
+            "latency_samples": self.latency_samples,
+            "clock_offset_ppm": self.clock_offset_ppm,
+            "calibration": self.calibration,
+            "warnings": list(self.warnings),
+            "steps": [s.to_dict() for s in self.steps],
+        }
+
+
+def _first_frequency(value) -> float:
+    if isinstance(value, (list, tuple)):
+        value = value[0] if value else 0.0
+    return float(value or 0.0)
+
+
+def is_stepped(rec: Recording) -> bool:
+    stim = rec.sidecar.get("stimulus") or {}
+    return isinstance(stim, dict) and stim.get("kind") == "stepped-tones" and bool(stim.get("segments"))
+
+
+def analyze_steps(
+    rec: Recording,
+    bandwidth_hz: tuple[float, float] | None = DEFAULT_BAND_HZ,
+    load_ohms: float | None = None,
+    volts_per_fs: float | None = None,
+    traces: bool = False,
+    fundamental_hz: float | None = None,
+    averages: int = 1,
+) -> StepsResult:
+    """Analyse each settled step of a stepped-tone capture on disk (at the
+    frequency each step played, unless ``fundamental_hz`` says otherwise)."""
+    stim = rec.sidecar["stimulus"]
+    scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
+    takes = Takes(rec)
+    steps = []
+    for seg in stim["segments"]:
+        x = takes.step(seg)
+        try:
+            drive = float(seg["level_dbfs"])
+        except (KeyError, TypeError, ValueError) as exc:
+            raise BenchkitError(f"{rec.path}: the sidecar's step list is damaged") from exc
+        result = analyze_tone(
+            x,
+            rec.sample_rate_hz,
+            fundamental_hz=fundamental_hz if fundamental_hz is not None else float(seg["frequency_hz"]),
+            bandwidth_hz=bandwidth_hz,
+            averages=averages,
+            volts_per_fs=scale,
+            scale_source=source,
+            load_ohms=load_ohms,
+            traces=traces,
+            check_dropouts=True,
+        )
+        if seg.get("spoiled"):
+            result = replace(result, valid=False, warnings=result.warnings + ("a stream fault spoiled this step",))
+        cal = rec.sidecar.get("calibration") or {}
+        notes = [floor_warning(result, cal.get("loopback_floor")), dc_warning(result, cal.get("dc_coupled"))]
+        if any(notes):
+            result = replace(result, warnings=result.warnings + tuple(n for n in notes if n))
+        steps.append(StepResult(drive, result))
+    side = rec.sidecar
+    return StepsResult(
+        str(rec.path), rec.channel, _first_frequency(stim.get("frequency_hz")), tuple(steps),
+        rec.warnings + tuple(side.get("warnings") or ()),
+        device=side.get("device"), latency_samples=side.get("latency_samples"),
+        clock_offset_ppm=side.get("clock_offset_ppm"),
+        calibration=side.get("calibration"),
+    )
+
+
+#: A step this close to the interface's own floor is limited by it.
+FLOOR_MARGIN_DB = 3.0
+
+
+def floor_warning(result: ToneResult, floor: dict | None) -> str | None:
+    """A warning when a THD+N lies within FLOOR_MARGIN_DB of the loopback
+    floor the calibration measured (the interface, not the stage)."""
+    if not floor or "thdn_db" not in floor or "level_dbfs" not in floor:
+        return None
+    # the interface's residual is about constant in dBFS: refer it to this level
+    limit = floor["thdn_db"] + floor["level_dbfs"] - result.fundamental_dbfs
+    if result.thdn_db < limit + FLOOR_MARGIN_DB:
+        return (f"THD+N {result.thdn_db:.1f} dB is within {FLOOR_MARGIN_DB:g} dB of the interface's own floor "
+                f"({limit:.1f} dB at this level): limited by the interface, not the stage")
+    return None
+
+
+#: DC at a stage's output worth a warning, volts (common practice: keep a
+#: speaker output within a few tens of mV; often quoted, under 50 mV).
+DC_WARN_V = 0.05
+
+
+def dc_warning(result: ToneResult, dc_coupled: bool | None) -> str | None:
+    """A warning when a DC-coupled input shows DC at the stage's output."""
+    if not dc_coupled or result.volts_per_fs is None:
+        return None
+    dc_v = result.dc_fs * result.volts_per_fs
+    if abs(dc_v) > DC_WARN_V:
+        return f"{dc_v * 1000:+.0f} mV of DC at the stage's output: check the offset before a speaker goes on it"
+    return None
+
+
+def tone_run(
+    backend: capture.Backend,
+    folder: Path,
+    frequency_hz: float,
+    levels_dbfs: list[float],
+    load_ohms: float | None = None,
+    bandwidth_hz: tuple[float, float] | None = DEFAULT_BAND_HZ,
+    traces: bool = False,
+    **record,
+) -> StepsResult:
+    """Play stepped tones, store the capture (:func:`record_steps`, which
+    takes ``record``: name, channel, note, calibration, step lengths ...),
+    then analyse every step of the stored capture."""
+    path = record_steps(backend, folder, frequency_hz, levels_dbfs, **record)
+    return analyze_steps(read_capture(path, record.get("channel", 1)), bandwidth_hz, load_ohms, traces=traces)
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     from benchkit.report import files
-    from benchkit.runs import analyze_steps
 
     p = record.get("params") or {}
     rec = run_capture(folder, int(p.get("channel") or 1), say)
@@ -32,7 +193,6 @@ def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> lis
 def _spectra(entries, docs, labels, folder: Path, title: str, warnings) -> list[Path]:
     from benchkit.recordings import read_capture
     from benchkit.report import overlays
-    from benchkit.runs import analyze_steps
 
     shared = set.intersection(*({s["drive_dbfs"] for s in d.get("steps") or []} for d in docs))
     if not shared:
@@ -53,7 +213,6 @@ def _spectra(entries, docs, labels, folder: Path, title: str, warnings) -> list[
 
 
 def recognises(rec) -> bool:
-    from benchkit.runs import is_stepped
 
     return is_stepped(rec)
 
@@ -63,13 +222,13 @@ def analyse(rec, o: Offline) -> Analysed:
     one tone."""
     from dataclasses import replace
 
-    from benchkit import runs, units
+    from benchkit import units
     from benchkit.analysis.tone import analyze_tone
     from benchkit.report import files, summary
 
     path, channel = Path(rec.path), rec.channel
-    if runs.is_stepped(rec):
-        steps = runs.analyze_steps(rec, o.bandwidth_hz, o.load_ohms, o.volts_per_fs, o.out is not None,
+    if is_stepped(rec):
+        steps = analyze_steps(rec, o.bandwidth_hz, o.load_ohms, o.volts_per_fs, o.out is not None,
                                    o.fundamental_hz, o.averages)
         text = summary.steps_summary(steps, f"{path} channel {channel} ({units.count(len(steps.steps), 'step')})")
         return Analysed(steps.to_dict(), text, o.reports(lambda out: files.steps_reports(steps, path, channel, out)))
@@ -79,7 +238,7 @@ def analyse(rec, o: Offline) -> Analysed:
                           bandwidth_hz=o.bandwidth_hz, averages=o.averages, volts_per_fs=scale, scale_source=source,
                           load_ohms=o.load_ohms, traces=o.out is not None)
     cal = rec.sidecar.get("calibration")
-    note = runs.floor_warning(result, (cal or {}).get("loopback_floor"))
+    note = floor_warning(result, (cal or {}).get("loopback_floor"))
     if note:
         result = replace(result, warnings=result.warnings + (note,))
     d = result.to_dict()

@@ -1,18 +1,287 @@
 """Watch: one steady tone analysed again and again while the stage is
-adjusted, its readings logged."""
+adjusted, its readings logged.
+
+:class:`SteadyTone` is a stimulus that listens (the protocol of
+:mod:`benchkit.capture`): it plays a tone that ramps in from silence and
+holds until stopped, and every ``update_s`` it analyses the latest
+``block_s`` of the measuring input with :func:`analyze_tone`, handing a
+:class:`Reading` to its listener. The backend keeps only the last few
+seconds of the recording in memory (``keep_s``), so a watch can run for
+hours; the virtual bench paces itself to the clock (``realtime``).
+
+:class:`Watch` runs the stream in a worker thread and hands the readings
+to the caller's thread, which shows them; :class:`Tracker` keeps each
+figure's minimum, maximum and recent trend.
+"""
 
 from __future__ import annotations
 
+import csv
+import math
+import queue
+import threading
+from dataclasses import asdict
 from pathlib import Path
 
-from benchkit.analysis.readings import watch_figures
+import numpy as np
+
+from benchkit.analysis.readings import FIGURES, Reading, watch_figures
+from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
+from benchkit.capture import FAULT_ADVICE, HearsFaults
+from benchkit.errors import BenchkitError
 from benchkit.kinds import Kind, series_from_csv
+
+
+#: A reading this often (5 a second).
+UPDATE_S = 0.2
+#: Each reading analyses the latest block: at least this long, and at
+#: least PERIODS periods of the tone (the harmonics stay resolved).
+MIN_BLOCK_S, PERIODS = 0.25, 20
+#: The tone ramps in from silence over this long (no step at switch-on).
+RAMP_S = 0.5
+#: A fundamental this far under the strongest seen since the ramp: the tone is lost.
+LOST_DB = 20.0
+def block_seconds(frequency_hz: float) -> float:
+    """The analysis block for a tone: MIN_BLOCK_S, or PERIODS periods if longer."""
+    return max(MIN_BLOCK_S, PERIODS / frequency_hz)
+
+
+class SteadyTone(HearsFaults):
+    """A tone that ramps in and holds until stopped, analysed as it plays.
+
+    ``on_reading(reading)`` is called from the backend's listening thread.
+    ``dc()`` (optional) gives the latest DC reading of a meter, volts;
+    ``dc_scale`` (a DC-coupled measuring input's volts per FS) reads the
+    DC from the analysed block itself.
+    """
+
+    realtime = True
+    keep_s = 5.0
+
+    def __init__(self, frequency_hz: float, level_dbfs: float, rate: float, on_reading, in_channel: int = 1,
+                 out_channel: int = 1, n_out: int = 2, volts_per_fs: float | None = None,
+                 load_ohms: float | None = None, bandwidth_hz=DEFAULT_BAND_HZ, max_s: float = 24 * 3600.0,
+                 update_s: float = UPDATE_S, dc=None, dc_scale: float | None = None):
+        from benchkit import signals
+
+        signals.check_level(level_dbfs)
+        self.frequency_hz, self.level_dbfs, self.sample_rate_hz = float(frequency_hz), float(level_dbfs), float(rate)
+        self.amplitude = 10 ** (level_dbfs / 20)
+        self.on_reading, self.dc, self.dc_scale = on_reading, dc, dc_scale
+        self.in_col, self.out_col, self.n_out = in_channel - 1, out_channel - 1, n_out
+        self.volts_per_fs, self.load_ohms, self.bandwidth_hz = volts_per_fs, load_ohms, bandwidth_hz
+        self.block_n = int(round(block_seconds(frequency_hz) * rate))
+        self.update_n = int(round(update_s * rate))
+        self.ramp_n = int(RAMP_S * rate)
+        self.max_samples = int(max_s * rate)
+        self._buf = np.zeros(self.block_n)
+        self._filled = 0
+        self._since = 0
+        self._heard = 0
+        self._rendered = 0
+        self._fade_from: int | None = None
+        self._fade_n = int(0.02 * rate)
+        self._faults: list[tuple[int, int]] = []
+        self._loudest = -math.inf
+        self.finished = False
+        self.stop_reason = ""
+        self._lock = threading.Lock()
+        self.description = {"kind": "steady-tone", "frequency_hz": self.frequency_hz, "level_dbfs": self.level_dbfs,
+                            "ramp_s": RAMP_S, "block_s": self.block_n / rate, "update_s": self.update_n / rate,
+                            "out_channel": out_channel}
+
+    def conditions(self) -> dict:
+        """What every reading was measured under."""
+        return {**self.description, "sample_rate_hz": self.sample_rate_hz, "bandwidth_hz": self.bandwidth_hz,
+                "volts_per_fs": self.volts_per_fs, "load_ohms": self.load_ohms, "method": "analyze_tone on the latest block"}
+
+    # --- what a backend plays ----------------------------------------------
+    @property
+    def n_samples(self) -> int:
+        return self._rendered if self.finished else self.max_samples
+
+    @property
+    def samples(self) -> np.ndarray:
+        return np.zeros((0, self.n_out))  # nothing is kept: it may play for hours
+
+    def render(self, start: int, frames: int) -> np.ndarray:
+        """The next ``frames``: the ramp, the tone; after a stop, a 20 ms fade and then nothing."""
+        with self._lock:
+            if self._fade_from is not None:
+                left = self._fade_from + self._fade_n - start
+                frames = max(0, min(frames, left))
+                if frames == 0:
+                    self.finished = True
+            n = np.arange(start, start + frames)
+            x = self.amplitude * np.sin(2 * np.pi * self.frequency_hz * n / self.sample_rate_hz)
+            x *= np.clip(n / self.ramp_n, 0.0, 1.0) ** 2  # the ramp in
+            if self._fade_from is not None:
+                x *= np.clip(1.0 - (n - self._fade_from) / self._fade_n, 0.0, 1.0)
+            self._rendered = start + frames
+            if self._rendered >= self.max_samples and self._fade_from is None:
+                self._stop("the longest allowed watch ended", start + frames)
+        out = np.zeros((frames, self.n_out))
+        out[:, self.out_col] = x
+        return out
+
+    def stop(self, reason: str) -> None:
+        """Fade out now and end (thread-safe)."""
+        with self._lock:
+            self._stop(reason, self._rendered)
+
+    def _stop(self, reason: str, at: int) -> None:
+        if self._fade_from is None:
+            self._fade_from = at
+            self.stop_reason = reason
+
+    # --- what a listening backend feeds --------------------------------------
+    def listen(self, block: np.ndarray, pos: int) -> None:
+        """Recorded frames ``block`` from raw frame ``pos``: a reading once
+        a block is full, every ``update_n`` frames, after the ramp."""
+        x = block[:, self.in_col]
+        self._heard = pos + x.size
+        if x.size >= self.block_n:
+            self._buf = x[-self.block_n:].copy()
+        else:
+            self._buf = np.concatenate([self._buf[x.size:], x])
+        self._filled = min(self.block_n, self._filled + x.size)
+        self._since += x.size
+        ready = self._filled == self.block_n and self._heard > self.ramp_n + self.block_n
+        if ready and self._since >= self.update_n and self._fade_from is None:
+            self._since = self._since - self.update_n if self._since < 2 * self.update_n else 0
+            start = self._heard - self.block_n
+            disturbed = any(a < self._heard and b > start for a, b in self._faults)
+            self.on_reading(self.analyse(self._buf, self._heard / self.sample_rate_hz, disturbed))
+
+    def analyse(self, x: np.ndarray, t_s: float, disturbed: bool = False) -> Reading:
+        dc = self.dc() if self.dc is not None else None
+        clipped = bool(np.max(np.abs(x)) >= 0.999)
+        try:
+            r = analyze_tone(x, self.sample_rate_hz, fundamental_hz=self.frequency_hz, bandwidth_hz=self.bandwidth_hz,
+                             volts_per_fs=self.volts_per_fs, load_ohms=self.load_ohms)
+        except BenchkitError:
+            return Reading(t_s, None, None, None, None, None, None, None, None, dc, clipped, True, disturbed)
+        if dc is None and self.dc_scale is not None:
+            dc = r.dc_fs * self.dc_scale
+        self._loudest = max(self._loudest, r.fundamental_dbfs)
+        lost = r.fundamental_dbfs < self._loudest - LOST_DB or abs(r.fundamental_hz / self.frequency_hz - 1) > 0.01
+        h = {k.order: k.level_dbc for k in r.harmonics}
+        return Reading(t_s, r.fundamental_dbfs, r.fundamental_vrms, r.power_w, r.thdn_db, r.thd_db, h.get(2), h.get(3),
+                       r.noise_dbfs, dc, clipped or r.clipped, lost, disturbed)
+
+
+class Watch:
+    """A watch in progress: the stream in a worker thread, the readings in a
+    queue for the caller's thread. ``readings()`` yields them until the
+    stream ends; :meth:`stop` fades the tone out and ends it."""
+
+    def __init__(self, backend, tone: SteadyTone, partial: Path | None = None):
+        self.backend, self.tone, self.partial = backend, tone, partial
+        self._q: queue.Queue = queue.Queue()
+        self.error: BaseException | None = None
+        self.raw = None
+        tone.on_reading = self._q.put
+        self._thread = threading.Thread(target=self._run, name="benchkit-watch", daemon=True)
+
+    def _run(self) -> None:
+        try:
+            self.raw = self.backend.play_record(self.tone, self.partial)
+        except BaseException as exc:  # noqa: BLE001 - handed to the caller's thread
+            self.error = exc
+        finally:
+            self._q.put(None)
+
+    def start(self) -> "Watch":
+        self._thread.start()
+        return self
+
+    def readings(self, poll_s: float = 0.05):
+        """Readings as they come; None now and then (every ``poll_s``) so the
+        caller can look at its keys and clock; ends with the stream."""
+        while True:
+            try:
+                item = self._q.get(timeout=poll_s)
+            except queue.Empty:
+                yield None
+                continue
+            if item is None:
+                return
+            yield item
+
+    def stop(self, reason: str) -> None:
+        self.tone.stop(reason)
+        abort = getattr(self.backend, "request_abort", None)
+        if reason.startswith("interrupted") and abort is not None:
+            abort()  # the emergency fade as well
+
+    def join(self, timeout: float = 10.0) -> None:
+        self._thread.join(timeout)
+
+
+# --- the readings on disk -------------------------------------------------------
+
+COLUMNS = ("t_s",) + tuple(key for key, _l, _u in FIGURES) + ("clipped", "tone_lost", "disturbed")
+
+
+class ReadingsLog:
+    """readings.csv, a row a reading, flushed as each comes (a killed
+    watch keeps every reading it showed)."""
+
+    def __init__(self, path: Path):
+        self.path = path
+        self._fh = open(path, "w", newline="", encoding="utf-8")
+        self._w = csv.writer(self._fh)
+        self._w.writerow(COLUMNS)
+        self._fh.flush()
+
+    def add(self, r: Reading) -> None:
+        d = asdict(r)
+        self._w.writerow(["" if d[c] is None else (str(d[c]).lower() if isinstance(d[c], bool) else f"{d[c]:.7g}")
+                          for c in COLUMNS])
+        self._fh.flush()
+
+    def close(self) -> None:
+        self._fh.close()
+
+
+def summarise(path: Path, info: dict | None = None) -> dict:
+    """The result of a recorded watch, from its readings.csv: for each
+    figure the first, last, minimum and maximum; how many readings, how
+    long, and how many were clipped, had lost the tone or spanned a
+    dropout of the stream (those are left out of the figures)."""
+    try:
+        with path.open(encoding="utf-8", newline="") as fh:
+            rows = list(csv.DictReader(fh))
+    except OSError as exc:
+        raise BenchkitError(f"cannot read {path}: {exc.strerror or exc}") from None
+    if not rows:
+        raise BenchkitError(f"{path}: no readings")
+    figures = {}
+    disturbed = sum(r.get("disturbed") == "true" for r in rows)
+    for key, label, unit in FIGURES:
+        vals = [float(r[key]) for r in rows if r.get(key) not in (None, "") and r.get("disturbed") != "true"]
+        if vals:
+            figures[key] = {"label": label, "unit": unit, "first": vals[0], "last": vals[-1], "min": min(vals),
+                            "max": max(vals)}
+    t = [float(r["t_s"]) for r in rows]
+    clipped = sum(r["clipped"] == "true" for r in rows)
+    lost = sum(r["tone_lost"] == "true" for r in rows)
+    warnings = []
+    if clipped:
+        warnings.append(f"{clipped} reading(s) clipped the input")
+    if lost:
+        warnings.append(f"{lost} reading(s) had lost the tone")
+    if disturbed:
+        warnings.append(f"{disturbed} reading(s) spanned a dropout of the audio stream and were left out of the "
+                        f"figures ({FAULT_ADVICE})")
+    return {"kind": "watch", "schema_version": 1, **(info or {}), "readings": len(rows), "first_s": t[0],
+            "last_s": t[-1], "rate_per_s": (len(rows) - 1) / (t[-1] - t[0]) if t[-1] > t[0] else None,
+            "figures": figures, "valid": not clipped, "warnings": warnings, "file": str(path)}
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     from benchkit.jsonfile import load_json
     from benchkit.report.tables import write_json
-    from benchkit.watch import summarise
 
     p = record.get("params") or {}
     old = {}

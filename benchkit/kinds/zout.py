@@ -1,17 +1,130 @@
 """Zout: the stage's output impedance and damping factor, from the same
-tones played with the load off and then on."""
+tones played with the load off and then on.
+
+A run: the same tones (one a frequency) played with the
+stage unloaded and then loaded, both captures stored, then analysed from
+disk (:mod:`benchkit.analysis.zout`); or two logged runs (tone, gain or
+sweep runs, one unloaded and one loaded) taken from their stored results.
+"""
 
 from __future__ import annotations
 
+import cmath
+import math
 from pathlib import Path
+from typing import Callable
 
-from benchkit.analysis.zout import zout_figures
+import numpy as np
+
+from benchkit import units
+from benchkit.analysis.tone import DEFAULT_BAND_HZ
+from benchkit.analysis.zout import output_impedance, Reading, zout_figures, ZoutResult
+from benchkit.errors import BenchkitError
 from benchkit.kinds import Kind
+from benchkit.recordings import read_capture, Takes
+
+
+#: The frequencies a run reads by default, Hz: the low end, where a
+#: coupling capacitor's reactance shows, the middle and the top; clear of
+#: the mains and its harmonics (50/60 Hz, the ripple at 100/120 Hz).
+DEFAULT_FREQS_HZ = (20.0, 40.0, 70.0, 997.0, 10000.0, 20000.0)
+#: What a capture of each state is called in the run folder.
+STATES = ("open", "loaded")
+
+
+def readings_of_capture(path: Path, channel: int = 1, ref_channel: int | None = None,
+                        bandwidth_hz=DEFAULT_BAND_HZ) -> list[Reading]:
+    """Each step of a stepped capture as a reading: the output over the
+    reference input with its phase (the sidecar's reference by default),
+    else the output's level. In FS: the readings are compared as ratios,
+    so the scales (the same in both) cancel."""
+    from benchkit.analysis.tone import analyze_tone
+    from benchkit.kinds.tone import analyze_steps
+
+    rec = read_capture(path, channel)
+    steps = analyze_steps(rec, bandwidth_hz)
+    if ref_channel is None:
+        ref_channel = next((c["number"] for c in rec.sidecar.get("channels") or []
+                            if str(c.get("role", "")).startswith("reference")), None)
+    if ref_channel is None:
+        return [Reading(s.result.fundamental_hz, complex(s.result.fundamental_fs), s.drive_dbfs, s.result.valid)
+                for s in steps.steps]
+    out = []
+    takes = Takes(rec)
+    for seg, s in zip(rec.sidecar["stimulus"]["segments"], steps.steps):
+        r = analyze_tone(takes.step(seg, ref_channel), rec.sample_rate_hz,
+                         fundamental_hz=s.result.fundamental_hz, bandwidth_hz=bandwidth_hz)
+        phase = s.result.fundamental_phase_deg - r.fundamental_phase_deg
+        out.append(Reading(s.result.fundamental_hz, _phasor(s.result.fundamental_fs / r.fundamental_fs, phase),
+                           s.drive_dbfs, s.result.valid and r.valid, True))
+    return out
+
+
+def _phasor(magnitude: float, phase_deg: float | None) -> complex:
+    return complex(magnitude) if phase_deg is None else cmath.rect(magnitude, math.radians(phase_deg))
+
+
+def readings_of_result(doc: dict) -> list[Reading]:
+    """The readings in a stored result: a gain run's gain, a tone run's
+    step levels, or a sweep's response in V/V (on a sixth-octave grid)."""
+    kind = doc.get("kind")
+    if kind == "gain":
+        return [Reading(float(doc["frequency_hz"]), _phasor(float(doc["gain_vv"]), doc.get("phase_deg")),
+                        doc.get("drive_dbfs"), bool(doc.get("valid", True)), doc.get("phase_deg") is not None)]
+    if kind == "tone-steps":
+        return [Reading(float(s["fundamental_hz"]), complex(units.ratio_from_db(float(s["fundamental_dbfs"]))),
+                        s.get("drive_dbfs"), bool(s.get("valid", True))) for s in doc.get("steps") or []]
+    if kind == "response":
+        if doc.get("mag_units") != "dB re 1 V/V":
+            raise BenchkitError("a sweep gives the output impedance only as a gain in V/V: sweep with a reference "
+                                "input and a calibrated (or virtual) scale")
+        r = doc["response"]
+        f, mag, ph = (np.asarray(r[k], float) for k in ("freq_hz", "mag_db", "phase_deg"))
+        lo, hi = max(float(f[0]), 20.0), min(float(f[-1]), 20000.0)
+        grid = lo * 2.0 ** (np.arange(0, math.log2(hi / lo) + 1e-9, 1.0 / 6.0))
+        gm = np.interp(grid, f, mag)
+        gp = np.interp(grid, f, np.degrees(np.unwrap(np.radians(ph))))
+        drive = (doc.get("sweep") or {}).get("level_dbfs")
+        return [Reading(float(x), _phasor(float(units.ratio_from_db(m)), float(p)), drive, True, True)
+                for x, m, p in zip(grid, gm, gp)]
+    raise BenchkitError(f"a {kind} result holds no output levels to compare: use tone, gain or sweep runs")
+
+
+def zout_of_captures(folder: Path, load_ohms: float, open_load_ohms: float | None, channel: int = 1,
+                     ref_channel: int | None = None, bandwidth_hz=DEFAULT_BAND_HZ) -> ZoutResult:
+    """The output impedance from a run folder's open.wav and loaded.wav
+    (recovered from their partial recordings when the run was killed)."""
+    from benchkit.record import recover_capture
+
+    got = []
+    for state in STATES:
+        path = folder / f"{state}.wav"
+        if not path.exists():
+            path = recover_capture(folder, state)
+        got.append(readings_of_capture(path, channel, ref_channel, bandwidth_hz))
+    return output_impedance(got[0], got[1], load_ohms, open_load_ohms)
+
+
+def zout_run(backend, folder: Path, load_ohms: float, frequencies_hz, level_dbfs: float,
+             switch: Callable[[float | None], None], open_load_ohms: float | None, channel: int = 1,
+             ref_channel: int | None = None, note: str = "", calibration=None, calibration_file: str | None = None,
+             warnings: tuple[str, ...] = ()) -> ZoutResult:
+    """Play one tone a frequency with the load off (``switch(None)``), then
+    with it on (``switch(load_ohms)``); store both captures, then analyse
+    them from disk."""
+    from benchkit.record import record_steps
+
+    freqs = [float(f) for f in frequencies_hz]
+    for state, load in zip(STATES, (None, load_ohms)):
+        switch(load)
+        record_steps(backend, folder, freqs, [level_dbfs] * len(freqs), name=state, channel=channel, note=note,
+                     calibration=calibration, calibration_file=calibration_file, warnings=warnings,
+                     step_s=max(0.5, 20.0 / min(freqs)), settle_s=max(0.3, 5.0 / min(freqs)))
+    return zout_of_captures(folder, load_ohms, open_load_ohms, channel, ref_channel)
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     from benchkit.report import files
-    from benchkit.zout_runs import readings_of_result, zout_of_captures
 
     p = record.get("params") or {}
     load, open_load = float(p["load_ohms"]), p.get("open_load_ohms")

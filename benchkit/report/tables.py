@@ -187,26 +187,23 @@ def write_drift_csv(result, path: Path) -> Path:
     return path
 
 
-#: The headline figures the catalog export gives a column each (units in the names).
-CATALOG_FIGURES = ("gain_db", "thdn_db", "imd_db", "zout_ohms", "damping_factor", "crosstalk_db", "balance_db", "noise_vrms", "noise_dbfs", "noise_a_vrms", "power_w", "clipping_onset_w", "low_3db_hz", "high_3db_hz",
-                   "settled_v")
-
-
 def write_catalog_csv(entries, fh) -> None:
     """The logbook as CSV, a row a run: what and when, its state, device,
     calibration, stage, note, a column for each tag key ("tag KEY") and
-    for each headline figure."""
+    for each headline figure the runs hold (units in the names), in the
+    order they first appear."""
     keys = sorted({k for e in entries for k in e.tags})
+    columns = list(dict.fromkeys(f["name"] for e in entries for f in e.figures))
     w = csv.writer(fh)
     w.writerow(["id", "started", "finished", "command", "status", "valid", "device", "calibration_file",
-                "calibration_hash", "stage", "note", *(f"tag {k}" for k in keys), *CATALOG_FIGURES, "warnings"])
+                "calibration_hash", "stage", "note", *(f"tag {k}" for k in keys), *columns, "warnings"])
     for e in entries:
         figures = {f["name"]: f["value"] for f in e.figures}
         w.writerow([e.id, e.started, e.finished or "", e.command, e.status, "" if e.valid is None else str(e.valid).lower(),
                     e.device or "", e.calibration_file or "", e.calibration_hash or "",
                     json.dumps(e.stage, ensure_ascii=False) if e.stage else "", e.note,
                     *(e.tags.get(k, "") for k in keys),
-                    *("" if figures.get(n) is None else f"{figures[n]:.6g}" for n in CATALOG_FIGURES),
+                    *("" if figures.get(n) is None else f"{figures[n]:.6g}" for n in columns),
                     " | ".join(e.warnings)])
 
 
