@@ -22,7 +22,8 @@ from benchkit import cli_values as V
 from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB
 from benchkit import kinds
 from benchkit.kinds import headline_figures
-from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION, analyze_tone
+from benchkit.analysis.documents import document
+from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
 from benchkit.units import quantity
@@ -248,7 +249,7 @@ def analyze(
         except BenchkitError as exc:
             failed += 1
             _err(f"benchkit: error: {exc}")
-            docs.append({"kind": "error", "schema_version": SCHEMA_VERSION, "file": str(path), "error": str(exc)})
+            docs.append(document("error", {"file": str(path), "error": str(exc)}))
             continue
         _err(got.text)
         for written in got.files:

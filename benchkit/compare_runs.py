@@ -14,6 +14,7 @@ from pathlib import Path
 
 from benchkit import kinds
 from benchkit.analysis.compare import Comparison, compare
+from benchkit.analysis.documents import upgrade
 from benchkit.errors import BenchkitError
 from benchkit.logbook import Logbook, RunEntry, slug
 from benchkit.jsonfile import load_json
@@ -31,7 +32,8 @@ class ComparisonReport:
 
 
 def stored_result(book: Logbook, entry: RunEntry) -> tuple[dict, dict]:
-    """A run's record and the result document it stored."""
+    """A run's record and the result document it stored (a version-1
+    document read as version 2)."""
     record = book.read_record(entry.id)
     name = record.get("result_file")
     if entry.status in ("running", "incomplete", "failed") or not name:
@@ -39,7 +41,7 @@ def stored_result(book: Logbook, entry: RunEntry) -> tuple[dict, dict]:
                             f"'benchkit log reanalyse {entry.id}' analyses what it captured")
     path = entry.folder / name
     try:
-        doc = load_json(path)
+        doc = upgrade(load_json(path))
     except (OSError, ValueError) as exc:
         raise BenchkitError(f"run {entry.id}: its result {path} is unreadable ({exc}); "
                             f"'benchkit log reanalyse {entry.id}' writes it again") from None

@@ -181,7 +181,7 @@ def test_stepped_capture_analyses_each_step(tmp_path):
                   "--out", str(tmp_path))
     assert res.returncode == 0, res.stderr
     doc = json.loads(res.stdout)
-    assert doc["kind"] == "tone-steps" and len(doc["steps"]) == 4
+    assert doc["kind"] == "tone" and len(doc["steps"]) == 4
     assert [s["drive_dbfs"] for s in doc["steps"]] == [-30.0, -20.0, -14.0, -9.0]
     assert all(s["kind"] == "tone" and s["scale_source"] == "simulation" for s in doc["steps"])
     # 6 dB more drive, 6 dB more output, while the stage is linear (gain is a ratio)

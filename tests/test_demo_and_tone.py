@@ -34,7 +34,7 @@ def test_demo_runs_and_its_outputs_parse(tmp_path):
         side = json.loads((folder / "capture.json").read_text())
         assert side["kind"] == "capture" and side["scale_source"] == "simulation"
         doc = json.loads((folder / "capture.result.json").read_text())
-        assert doc["kind"] == "tone-steps" and len(doc["steps"]) == 4
+        assert doc["kind"] == "tone" and len(doc["steps"]) == 4
         assert (folder / "capture.wav").stat().st_size > 100_000
         for png in folder.glob("*.png"):
             assert png.read_bytes()[:4] == b"\x89PNG"

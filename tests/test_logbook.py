@@ -73,6 +73,14 @@ def test_power_at_one_percent_rises_as_the_class_a_budget_predicts(tmp_path):
         rows = {r["figure"]: r for r in csv.DictReader(fh)}
     assert float(rows["power_w"]["change [1]-[0]"]) == pytest.approx(p["changes"][0], rel=1e-5)
     assert (folder / "overlay.png").read_bytes()[:4] == b"\x89PNG"
+    # a bench folder from before the result schema 2: the older run's result as
+    # version 1 wrote it (the load without its unit's s) compares as before
+    old = Path(doc["run"]["folder"]).parent / comp["run_ids"][0] / "capture.power.json"
+    v1 = json.loads(old.read_text())
+    v1.update(schema_version=1, load_ohm=v1.pop("load_ohms"))
+    old.write_text(json.dumps(v1))
+    again = _json(run_cli("compare", "--last", "2", "--bench", str(bench), "--json"))
+    assert again["comparable"] and again["deltas"] == comp["deltas"] and again["conditions"] == comp["conditions"]
     assert "better" in (folder / "summary.txt").read_text(encoding="utf-8")
 
 
@@ -251,7 +259,7 @@ book = Logbook(sys.argv[1])
 for k in range(int(sys.argv[3])):
     run = book.start("tone", tags={"writer": sys.argv[2], "k": str(k)})
     (run.folder / "capture.result.json").write_text("{}")
-    run.complete({"kind": "tone-steps", "steps": []}, [run.folder / "capture.result.json"], figures=[])
+    run.complete({"kind": "tone", "steps": []}, [run.folder / "capture.result.json"], figures=[])
     book.set_tags(run.id, {"checked": "yes"})
 """
 
@@ -308,11 +316,31 @@ def test_a_failed_run_keeps_its_capture_and_says_why(tmp_path):
     assert run["status"] == "failed" and run["error"] and "capture.wav" in os.listdir(run["folder"])
 
 
+def test_version_1_results_list_compare_and_reanalyse(tmp_path):
+    # version 1 named a stepped-tone result "tone-steps" (the command "tone"):
+    # read as version 2, it compares with a version-2 run and reanalyses into one
+    bench = tmp_path / "bench"
+    for seed in ("1", "2"):
+        _json(run_cli("tone", "--sim", "ideal", "--level", "-20dBFS", "--seed", seed, "--bench", str(bench), "--json"))
+    before = _json(run_cli("compare", "--last", "2", "--bench", str(bench), "--json"))
+    first = _runs(bench)[-1]
+    stored = Path(first["folder"]) / "capture.result.json"
+    v1 = json.loads(stored.read_text())
+    assert v1["kind"] == "tone" and v1["schema_version"] == 2
+    stored.write_text(json.dumps({**v1, "kind": "tone-steps", "schema_version": 1}))
+    assert [r["id"] for r in _runs(bench)][-1] == first["id"]
+    after = _json(run_cli("compare", "--last", "2", "--bench", str(bench), "--json"))
+    assert after["of"] == before["of"] == "tone" and after["deltas"] == before["deltas"]
+    again = _json(run_cli("log", "reanalyse", first["id"], "--bench", str(bench), "--json"))
+    assert again["kind"] == "tone" and again["schema_version"] == 2
+    assert json.loads(stored.read_text())["schema_version"] == 2
+
+
 def test_deltas_and_verdicts_follow_the_direction_of_each_figure():
     # plain arithmetic on two documents: lower THD+N is better, a drift's
     # settled value is better nearer its nominal, a level has no direction
     def doc(thdn, vrms):
-        return {"kind": "tone-steps", "frequency_hz": 997.0,
+        return {"kind": "tone", "frequency_hz": 997.0,
                 "steps": [{"drive_dbfs": -20.0, "thdn_db": thdn, "thd_db": thdn - 1, "noise_dbfs": -90.0,
                            "fundamental_vrms": vrms, "valid": True, "harmonics": []}]}
 

@@ -243,7 +243,7 @@ def test_offline_sweep_after_unknown_silence(tmp_path, silence, ppm, loopback):
                   *(["--ref-channel", "2"] if loopback else []))
     assert res.returncode == 0, res.stderr
     d = json.loads(res.stdout)
-    assert d["kind"] == "response" and d["method"] == "sweep"
+    assert d["kind"] == "sweep" and d["method"] == "sweep"
     # a clock offset smears the start over ppm x the sweep's length
     assert d["sweep_start_s"] == pytest.approx(silence / rate, abs=2e-4 + abs(ppm) * 1e-6 * 7)
     f = np.array(d["response"]["freq_hz"])

@@ -61,7 +61,7 @@ def test_virtual_stage_with_a_known_series_resistance(tmp_path):
     res = run_cli("zout", "--sim", "poly", "--sim-param", "rout=0.5", "--load", "8", "--json")
     assert res.returncode == 0, res.stderr
     d = json.loads(res.stdout)
-    assert d["kind"] == "output-impedance" and d["method"] == "gain-ratio"
+    assert d["kind"] == "zout" and d["method"] == "gain-ratio"
     for p in d["points"]:
         assert p["valid"], p
         assert p["zout_ohms"] == pytest.approx(0.5, rel=0.02), p

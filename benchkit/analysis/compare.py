@@ -17,9 +17,8 @@ import math
 from dataclasses import dataclass
 from typing import Callable
 
+from benchkit.analysis.documents import document
 from benchkit.errors import BenchkitError
-
-SCHEMA_VERSION = 1
 
 #: Below this a change is reported as the same: a tenth of a dB, or half a
 #: percent of the value (repeatability of a bench measurement, common practice).
@@ -60,7 +59,7 @@ def conditions_of(doc: dict, record: dict | None = None) -> dict:
     steps = doc.get("steps") or []
     first = steps[0] if steps and isinstance(steps[0], dict) else {}
     cal = doc.get("calibration") or record.get("calibration") or {}
-    load = doc.get("load_ohm", doc.get("load_ohms"))
+    load = doc.get("load_ohms")
     if load is None:
         load = (first.get("conditions") or {}).get("load_ohms")
     if load is None:  # a result that does not carry its load (crosstalk, reanalysed): the run's own parameters
@@ -170,9 +169,9 @@ class Comparison:
         return tuple(d for d in self.deltas if d.headline)
 
     def to_dict(self) -> dict:
-        return {"kind": "comparison", "schema_version": SCHEMA_VERSION, "of": self.kind, "runs": list(self.labels),
-                "comparable": self.comparable, "conditions": list(self.conditions),
-                "deltas": [d.to_dict() for d in self.deltas], "warnings": list(self.warnings)}
+        return document("comparison", {"of": self.kind, "runs": list(self.labels), "comparable": self.comparable,
+                                        "conditions": list(self.conditions),
+                                        "deltas": [d.to_dict() for d in self.deltas], "warnings": list(self.warnings)})
 
 
 def compare(docs: list[dict], labels: list[str], figures_of: Callable[[dict], list[Figure]] | None,

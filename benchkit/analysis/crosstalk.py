@@ -24,9 +24,9 @@ from benchkit import units
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
 from benchkit.analysis.compare import Figure, finite
+from benchkit.analysis.documents import document
 from benchkit.units import quantity
 
-SCHEMA_VERSION = 1
 
 #: A leak under this over its bins' noise is an upper bound (noise alone
 #: passes it in one bin of 20000: an exponential's tail, e^-10).
@@ -127,8 +127,8 @@ class CrosstalkResult:
         worst = max(near, key=lambda x: x.crosstalk_db) if near else None
         balance = self.balance()
         at1k = min(balance, key=lambda fb: abs(math.log(fb[0] / 1000.0))) if balance else None
-        return {
-            "kind": "crosstalk", "schema_version": SCHEMA_VERSION, "scaled": self.scaled,
+        return document("crosstalk", {
+            "scaled": self.scaled,
             "sample_rate_hz": self.sample_rate_hz,
             "bandwidth_hz": list(self.bandwidth_hz) if self.bandwidth_hz else None,
             "conditions": {"window": sp.WINDOW_NAME, "floor_margin_db": FLOOR_MARGIN_DB,
@@ -140,7 +140,7 @@ class CrosstalkResult:
             "b_to_a": [x.to_dict() for x in self.direction("B")],
             "balance": [{"frequency_hz": f, "balance_db": b} for f, b in balance],
             "warnings": list(self.warnings),
-        }
+        })
 
 
 def crosstalk_figures(doc: dict) -> list[Figure]:

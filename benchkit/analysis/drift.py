@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.optimize
 from benchkit.analysis.compare import Figure, finite
+from benchkit.analysis.documents import document
 
 #: A jump between two readings this many times the readings' own noise
 #: (robust: from the median absolute difference) is a step, not drift.
@@ -168,9 +169,7 @@ class DriftResult:
 
     def to_dict(self) -> dict:
         v = self.v
-        return {
-            "kind": "drift",
-            "schema_version": 1,
+        return document("drift", {
             **self.info,
             "samples": int(v.size),
             "duration_s": float(self.t_s[-1] - self.t_s[0]) if v.size else 0.0,
@@ -186,7 +185,7 @@ class DriftResult:
             "nominal_v": self.nominal_v,
             "verdict": self.verdict,
             "warnings": list(self.warnings),
-        }
+        })
 
 
 def analyze_drift(t_s, v, limit_v: float | None = None, band_v: float | None = None, window_s: float = 60.0,

@@ -13,9 +13,9 @@ from dataclasses import dataclass
 from benchkit import units
 from benchkit.analysis.tone import ToneResult
 from benchkit.analysis.compare import Figure, finite
+from benchkit.analysis.documents import document
 from benchkit.units import quantity
 
-SCHEMA_VERSION = 1
 
 
 @dataclass(frozen=True)
@@ -43,8 +43,7 @@ class GainResult:
         return None if self.phase_deg is None else abs(self.phase_deg) > 90.0
 
     def to_dict(self) -> dict:
-        return {
-            "kind": "gain", "schema_version": SCHEMA_VERSION,
+        return document("gain", {
             "frequency_hz": self.frequency_hz, "drive_dbfs": self.drive_dbfs,
             "gain_vv": self.gain_vv, "gain_db": self.gain_db, "vin_vrms": self.vin_vrms, "vout_vrms": self.vout_vrms,
             "phase_deg": self.phase_deg, "inverting": self.inverting, "input_source": self.input_source,
@@ -52,7 +51,7 @@ class GainResult:
             "bandwidth_hz": list(self.output.bandwidth_hz) if self.output.bandwidth_hz else None,
             "sample_rate_hz": self.output.sample_rate_hz,
             "warnings": list(self.warnings) + list(self.output.warnings),
-        }
+        })
 
 
 def gain_of(output: ToneResult, drive_dbfs: float, reference: ToneResult | None = None,
@@ -82,3 +81,12 @@ def gain_figures(doc: dict) -> list[Figure]:
     at = f"{quantity(doc.get('frequency_hz', 0), 'Hz', 4)}, drive {doc.get('drive_dbfs', 0):g} dBFS"
     return [Figure("gain_db", "gain", finite(doc.get("gain_db")), "dB", None, at=at, headline=True),
             Figure("phase_deg", "phase", finite(doc.get("phase_deg")), "deg", None, at=at)]
+
+
+def gain_readings(doc: dict) -> list:
+    """A gain result's gain with its phase, as an output reading for an
+    output impedance from two logged runs (:mod:`benchkit.analysis.zout`)."""
+    from benchkit.analysis.zout import Reading, phasor
+
+    return [Reading(float(doc["frequency_hz"]), phasor(float(doc["gain_vv"]), doc.get("phase_deg")),
+                    doc.get("drive_dbfs"), bool(doc.get("valid", True)), doc.get("phase_deg") is not None)]

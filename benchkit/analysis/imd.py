@@ -42,8 +42,8 @@ from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import detect_clipping
 from benchkit.errors import BenchkitError
 from benchkit.analysis.compare import Figure, finite
+from benchkit.analysis.documents import document
 
-SCHEMA_VERSION = 1
 
 #: The tones (Hz) and the amplitude ratio f1:f2 each method plays.
 METHODS = {"modulation": (60.0, 7000.0, 4.0), "difference": (19000.0, 20000.0, 1.0)}
@@ -160,7 +160,7 @@ class ImdResult:
     def to_dict(self) -> dict:
         vpf = self.volts_per_fs
         d = {
-            "kind": "imd-record", "schema_version": SCHEMA_VERSION, "method": self.method,
+            "method": self.method,
             "sample_rate_hz": self.sample_rate_hz, "n_samples": self.n_samples,
             "f1_hz": self.f1_hz, "f2_hz": self.f2_hz, "f1_dbfs": units.dbfs_from_peak(self.a1_fs),
             "f2_dbfs": units.dbfs_from_peak(self.a2_fs), "tone_ratio": self.a1_fs / self.a2_fs,
@@ -181,7 +181,7 @@ class ImdResult:
                      peak_v=self.peak_v)
         if self.equivalent_power_w is not None:
             d["equivalent_power_w"] = self.equivalent_power_w
-        return d
+        return document("imd-record", d)
 
 
 def method_tones(method: str) -> tuple[float, float, float]:

@@ -21,8 +21,8 @@ from benchkit.analysis.tone import DEFAULT_BAND_HZ, band_limited
 from benchkit.analysis.weighting import a_weighting_power
 from benchkit.errors import BenchkitError
 from benchkit.analysis.compare import Figure, finite
+from benchkit.analysis.documents import document
 
-SCHEMA_VERSION = 1
 #: Welch segments of about this long: 2 Hz resolution keeps hum lines apart.
 SEGMENT_S = 0.5
 #: Hum: the mains fundamental and harmonics up to this order are looked at.
@@ -87,8 +87,7 @@ class NoiseResult:
 
     def to_dict(self) -> dict:
         dbv = (lambda v: None if v is None else float(units.dbv_from_vrms(v)))
-        return {
-            "kind": "noise", "schema_version": SCHEMA_VERSION,
+        return document("noise", {
             "sample_rate_hz": self.sample_rate_hz, "duration_s": self.duration_s,
             "bandwidth_hz": list(self.bandwidth_hz),
             "noise_fs_rms": self.rms_fs, "noise_dbfs": float(units.dbfs_from_rms(self.rms_fs)),
@@ -103,7 +102,7 @@ class NoiseResult:
             "conditions": {"method": "Welch PSD (Hann, 50 % overlap) integrated over the band",
                            "segment_s": SEGMENT_S, "weighting": "A, IEC 61672-1"},
             "warnings": list(self.warnings),
-        }
+        })
 
 
 def psd(x: np.ndarray, rate: float) -> tuple[np.ndarray, np.ndarray]:

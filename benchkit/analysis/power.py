@@ -12,6 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from benchkit.analysis.compare import Figure, finite
+from benchkit.analysis.documents import document
 
 #: Limits reported by default, percent: the first is the headline figure.
 DEFAULT_LIMITS_PCT = (1.0, 0.1, 10.0)
@@ -211,10 +212,8 @@ class PowerResult:
     def to_dict(self) -> dict:
         sw = self.supply_w
         d = {
-            "kind": "power",
-            "schema_version": 1,
             **(self.info or {}),
-            "load_ohm": self.load_ohms,
+            "load_ohms": self.load_ohms,
             "frequency_hz": self.frequency_hz,
             "limit_metric": self.metric,
             "power_at_limit_w": {f"{lim:g}": None if pt is None else pt.power_w for lim, pt in self.limits},
@@ -229,7 +228,7 @@ class PowerResult:
             "steps": [s.to_dict(self.supply_v, self.supply_a) for s in self.steps],
             "warnings": list(self.warnings),
         }
-        return d
+        return document("power", d)
 
 
 def analyze_power(steps, load_ohms: float, metric: str = "thdn", limits_pct=DEFAULT_LIMITS_PCT,

@@ -14,7 +14,8 @@ import numpy as np
 import scipy.optimize
 
 from benchkit import units
-from benchkit.analysis.tone import DEFAULT_BAND_HZ, SCHEMA_VERSION
+from benchkit.analysis.documents import document
+from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.analysis.compare import Figure, finite
 
 #: The level the corners are referred to is read here unless told otherwise.
@@ -201,9 +202,7 @@ class ResponseResult:
         low1, high1 = self.corners_1db
         fit = self.corner_fit
         cap = self.coupling_capacitor_f
-        return {
-            "kind": "response",
-            "schema_version": SCHEMA_VERSION,
+        return document("sweep", {
             **self.info,
             "method": self.method,
             "scale_source": self.scale_source,
@@ -234,7 +233,7 @@ class ResponseResult:
             },
             "bandwidth_hz": None if self.band_hz is None else list(self.band_hz),
             "warnings": list(self.warnings),
-        }
+        })
 
 
 def thd_db_from_harmonics(curves: tuple[HarmonicCurve, ...], n: int) -> np.ndarray:
@@ -267,3 +266,23 @@ def response_figures(doc: dict) -> list[Figure]:
                "Hz", "lower"),
         Figure("coupling_capacitor_uf", "coupling capacitor", finite(doc.get("coupling_capacitor_uf")), "uF", None),
     ]
+
+
+def response_readings(doc: dict) -> list:
+    """A response in V/V as output readings on a sixth-octave grid, for an
+    output impedance from two logged runs (:mod:`benchkit.analysis.zout`)."""
+    from benchkit.analysis.zout import Reading, phasor
+    from benchkit.errors import BenchkitError
+
+    if doc.get("mag_units") != "dB re 1 V/V":
+        raise BenchkitError("a sweep gives the output impedance only as a gain in V/V: sweep with a reference "
+                            "input and a calibrated (or virtual) scale")
+    r = doc["response"]
+    f, mag, ph = (np.asarray(r[k], float) for k in ("freq_hz", "mag_db", "phase_deg"))
+    lo, hi = max(float(f[0]), 20.0), min(float(f[-1]), 20000.0)
+    grid = lo * 2.0 ** (np.arange(0, math.log2(hi / lo) + 1e-9, 1.0 / 6.0))
+    gm = np.interp(grid, f, mag)
+    gp = np.interp(grid, f, np.degrees(np.unwrap(np.radians(ph))))
+    drive = (doc.get("sweep") or {}).get("level_dbfs")
+    return [Reading(float(x), phasor(float(units.ratio_from_db(m)), float(p)), drive, True, True)
+            for x, m, p in zip(grid, gm, gp)]

@@ -33,8 +33,8 @@ from benchkit.analysis import spectrum as sp
 from benchkit.analysis.sinefit import RecordLayout, fit_tone
 from benchkit.errors import BenchkitError, NoToneError
 from benchkit.analysis.compare import Figure, finite
+from benchkit.analysis.documents import document
 
-SCHEMA_VERSION = 1
 DEFAULT_BAND_HZ = (20.0, 20000.0)
 #: Harmonic orders fitted jointly with the fundamental; higher ones are read
 #: from the residual spectrum.
@@ -223,8 +223,6 @@ class ToneResult:
     def to_dict(self) -> dict:
         """The JSON layout documented in docs/results-json.md (kind "tone")."""
         d = {
-            "kind": "tone",
-            "schema_version": SCHEMA_VERSION,
             "sample_rate_hz": self.sample_rate_hz,
             "n_samples": self.n_samples,
             "duration_s": self.duration_s,
@@ -262,7 +260,7 @@ class ToneResult:
             d["noise_vrms"] = self.noise_vrms
         if self.power_w is not None:
             d["power_w"] = self.power_w
-        return d
+        return document("tone", d)
 
 
 # --- internals ---------------------------------------------------------------
@@ -919,3 +917,12 @@ def step_figures(doc: dict) -> list[Figure]:
             out.append(Figure("noise_dbfs", "noise at the lowest step", finite(low.get("noise_dbfs")), "dBFS", "lower",
                               at=f"drive {low['drive_dbfs']:g} dBFS", headline=True))
     return out
+
+
+def step_readings(doc: dict) -> list:
+    """A stepped-tone result's step levels (FS), as output readings for an
+    output impedance from two logged runs (:mod:`benchkit.analysis.zout`)."""
+    from benchkit.analysis.zout import Reading
+
+    return [Reading(float(s["fundamental_hz"]), complex(units.ratio_from_db(float(s["fundamental_dbfs"]))),
+                    s.get("drive_dbfs"), bool(s.get("valid", True))) for s in doc.get("steps") or []]

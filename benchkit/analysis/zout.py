@@ -31,8 +31,8 @@ from benchkit.units import quantity
 from benchkit import units
 from benchkit.errors import BenchkitError
 from benchkit.analysis.compare import Figure, finite
+from benchkit.analysis.documents import document
 
-SCHEMA_VERSION = 1
 
 #: |k - 1| below this is under what two readings resolve (a tenth of a
 #: percent of the load: amplitude repeatability of a bench reading, about
@@ -55,6 +55,11 @@ class Reading:
     drive_dbfs: float | None = None
     valid: bool = True
     phase_known: bool = False
+
+
+def phasor(magnitude: float, phase_deg: float | None) -> complex:
+    """A gain with its phase (degrees; None: the magnitude alone, real)."""
+    return complex(magnitude) if phase_deg is None else cmath.rect(magnitude, math.radians(phase_deg))
 
 
 @dataclass(frozen=True)
@@ -97,14 +102,14 @@ class ZoutResult:
 
     def to_dict(self) -> dict:
         ref = self.at()
-        return {
-            "kind": "output-impedance", "schema_version": SCHEMA_VERSION, "load_ohms": self.load_ohms,
+        return document("zout", {
+            "load_ohms": self.load_ohms,
             "open_load_ohms": self.open_load_ohms, "method": self.method,
             "reference_hz": None if ref is None else ref.frequency_hz,
             "zout_ohms": None if ref is None else ref.zout_ohms,
             "damping_factor": None if ref is None else ref.damping_factor,
             "points": [p.to_dict() for p in self.points], "warnings": list(self.warnings),
-        }
+        })
 
 
 def output_impedance(open_: list[Reading], loaded: list[Reading], load_ohms: float,

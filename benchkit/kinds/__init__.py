@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import importlib
 import pkgutil
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
 
@@ -95,11 +95,12 @@ class Kind:
     analyse
         ``(recording, Offline) -> Analysed``: one capture, offline (a
         path, for a kind that ``reads`` "csv").
+    readings
+        ``(result document) -> [analysis.zout.Reading]``: the stage's output
+        levels its result holds (an output impedance from two logged runs).
     rank
         Where it stands when a capture is recognised: lower first (a
         two-tone capture is also a stepped one).
-    result_kinds
-        Other names its results were stored under (read, never written).
     """
 
     name: str
@@ -109,9 +110,9 @@ class Kind:
     recognises: Callable[[Any], bool] | None = None
     chosen: Callable[[Offline], bool] | None = None
     analyse: Callable[[Any, Offline], Analysed] | None = None
+    readings: Callable[[dict], list] | None = None
     rank: int = 50
     reads: str = "capture"
-    result_kinds: tuple[str, ...] = field(default=())
 
 
 _KINDS: dict[str, Kind] = {}
@@ -139,22 +140,18 @@ def all_kinds() -> list[Kind]:
 
 
 def get(name: str) -> Kind:
-    """The kind of this name (a command, or a result kind old or new)."""
+    """The kind of this name."""
     kinds = _load()
-    if name in kinds:
-        return kinds[name]
-    for kind in kinds.values():
-        if name in kind.result_kinds:
-            return kind
-    raise BenchkitError(f"no kind of measurement is called {name!r}")
+    if name not in kinds:
+        raise BenchkitError(f"no kind of measurement is called {name!r}")
+    return kinds[name]
 
 
 def of_result(doc: dict) -> Kind | None:
-    """The kind a result document belongs to, or None."""
-    try:
-        return get(str(doc.get("kind")))
-    except BenchkitError:
-        return None
+    """The kind a result document (of any schema version) belongs to, or None."""
+    from benchkit.analysis.documents import upgrade
+
+    return _load().get(str(upgrade(doc).get("kind")))
 
 
 def figures_of(doc: dict) -> list:

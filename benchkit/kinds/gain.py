@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from benchkit.analysis.gain import gain_figures, gain_of, GainResult
+from benchkit.analysis.gain import gain_figures, gain_of, gain_readings, GainResult
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture
@@ -82,4 +82,5 @@ def analyse(rec, o: Offline) -> Analysed:
     return Analysed(doc, summary.gain_summary(doc, f"{path} channel {rec.channel}: gain"))
 
 
-KIND = Kind("gain", reanalyse, figures=gain_figures, chosen=lambda o: o.gain, analyse=analyse, rank=10)
+KIND = Kind("gain", reanalyse, figures=gain_figures, chosen=lambda o: o.gain, analyse=analyse, readings=gain_readings,
+            rank=10)

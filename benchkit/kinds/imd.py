@@ -11,7 +11,8 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 from pathlib import Path
 
-from benchkit.analysis.imd import analyze_imd, imd_figures, ImdResult, method_tones, SCHEMA_VERSION
+from benchkit.analysis.documents import document
+from benchkit.analysis.imd import analyze_imd, imd_figures, ImdResult, method_tones
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, Offline, run_capture
 from benchkit.recordings import read_capture, Recording, Takes
@@ -60,14 +61,14 @@ class ImdSteps:
 
     def to_dict(self) -> dict:
         first = self.steps[0].result
-        return {
-            "kind": "imd", "schema_version": SCHEMA_VERSION, "file": self.file, "channel": self.channel,
+        return document("imd", {
+            "file": self.file, "channel": self.channel,
             "method": self.twin.method, "tones_hz": [self.twin.f1_hz, self.twin.f2_hz], "tone_ratio": self.twin.ratio,
             "frequency_hz": self.twin.f2_hz, "sample_rate_hz": first.sample_rate_hz,
             "load_ohms": first.load_ohms, "scale_source": first.scale_source, "device": self.device,
             "calibration": self.calibration, "warnings": list(self.warnings),
             "steps": [s.to_dict() for s in self.steps],
-        }
+        })
 
 
 def is_imd(rec: Recording) -> bool:

@@ -21,7 +21,7 @@ import numpy as np
 
 from benchkit import capture, units
 from benchkit.analysis import response as resp, sweep as sw
-from benchkit.analysis.response import response_figures
+from benchkit.analysis.response import response_figures, response_readings
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture
@@ -408,4 +408,4 @@ def analyse(rec, o: Offline) -> Analysed:
 
 
 KIND = Kind("sweep", reanalyse, figures=response_figures, overlay=overlay, recognises=recognises,
-            chosen=lambda o: o.sweep is not None, analyse=analyse, rank=50, result_kinds=("response",))
+            chosen=lambda o: o.sweep is not None, analyse=analyse, readings=response_readings, rank=50)

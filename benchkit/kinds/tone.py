@@ -13,7 +13,8 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 
 from benchkit import capture
-from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ, SCHEMA_VERSION, step_figures, ToneResult
+from benchkit.analysis.documents import document
+from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ, step_figures, step_readings, ToneResult
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture
 from benchkit.record import record_steps
@@ -46,9 +47,7 @@ class StepsResult:
     calibration: dict | None = None
 
     def to_dict(self) -> dict:
-        return {
-            "kind": "tone-steps",
-            "schema_version": SCHEMA_VERSION,
+        return document("tone", {
             "file": self.file,
             "channel": self.channel,
             "frequency_hz": self.frequency_hz,
@@ -58,7 +57,7 @@ class StepsResult:
             "calibration": self.calibration,
             "warnings": list(self.warnings),
             "steps": [s.to_dict() for s in self.steps],
-        }
+        })
 
 
 def _first_frequency(value) -> float:
@@ -251,4 +250,4 @@ def analyse(rec, o: Offline) -> Analysed:
 
 
 KIND = Kind("tone", reanalyse, figures=step_figures, overlay=overlay, recognises=recognises, analyse=analyse,
-            rank=90, result_kinds=("tone-steps",))
+            readings=step_readings, rank=90)

@@ -25,6 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
+from benchkit.analysis.documents import document
 from benchkit.analysis.readings import FIGURES, Reading, watch_figures
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.capture import FAULT_ADVICE, HearsFaults
@@ -274,9 +275,9 @@ def summarise(path: Path, info: dict | None = None) -> dict:
     if disturbed:
         warnings.append(f"{disturbed} reading(s) spanned a dropout of the audio stream and were left out of the "
                         f"figures ({FAULT_ADVICE})")
-    return {"kind": "watch", "schema_version": 1, **(info or {}), "readings": len(rows), "first_s": t[0],
-            "last_s": t[-1], "rate_per_s": (len(rows) - 1) / (t[-1] - t[0]) if t[-1] > t[0] else None,
-            "figures": figures, "valid": not clipped, "warnings": warnings, "file": str(path)}
+    return document("watch", {**(info or {}), "readings": len(rows), "first_s": t[0], "last_s": t[-1],
+                              "rate_per_s": (len(rows) - 1) / (t[-1] - t[0]) if t[-1] > t[0] else None,
+                              "figures": figures, "valid": not clipped, "warnings": warnings, "file": str(path)})
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:

@@ -9,16 +9,12 @@ sweep runs, one unloaded and one loaded) taken from their stored results.
 
 from __future__ import annotations
 
-import cmath
-import math
 from pathlib import Path
 from typing import Callable
 
-import numpy as np
 
-from benchkit import units
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
-from benchkit.analysis.zout import output_impedance, Reading, zout_figures, ZoutResult
+from benchkit.analysis.zout import phasor, output_impedance, Reading, zout_figures, ZoutResult
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Kind
 from benchkit.recordings import read_capture, Takes
@@ -55,39 +51,23 @@ def readings_of_capture(path: Path, channel: int = 1, ref_channel: int | None = 
         r = analyze_tone(takes.step(seg, ref_channel), rec.sample_rate_hz,
                          fundamental_hz=s.result.fundamental_hz, bandwidth_hz=bandwidth_hz)
         phase = s.result.fundamental_phase_deg - r.fundamental_phase_deg
-        out.append(Reading(s.result.fundamental_hz, _phasor(s.result.fundamental_fs / r.fundamental_fs, phase),
+        out.append(Reading(s.result.fundamental_hz, phasor(s.result.fundamental_fs / r.fundamental_fs, phase),
                            s.drive_dbfs, s.result.valid and r.valid, True))
     return out
 
 
-def _phasor(magnitude: float, phase_deg: float | None) -> complex:
-    return complex(magnitude) if phase_deg is None else cmath.rect(magnitude, math.radians(phase_deg))
-
-
 def readings_of_result(doc: dict) -> list[Reading]:
-    """The readings in a stored result: a gain run's gain, a tone run's
-    step levels, or a sweep's response in V/V (on a sixth-octave grid)."""
-    kind = doc.get("kind")
-    if kind == "gain":
-        return [Reading(float(doc["frequency_hz"]), _phasor(float(doc["gain_vv"]), doc.get("phase_deg")),
-                        doc.get("drive_dbfs"), bool(doc.get("valid", True)), doc.get("phase_deg") is not None)]
-    if kind == "tone-steps":
-        return [Reading(float(s["fundamental_hz"]), complex(units.ratio_from_db(float(s["fundamental_dbfs"]))),
-                        s.get("drive_dbfs"), bool(s.get("valid", True))) for s in doc.get("steps") or []]
-    if kind == "response":
-        if doc.get("mag_units") != "dB re 1 V/V":
-            raise BenchkitError("a sweep gives the output impedance only as a gain in V/V: sweep with a reference "
-                                "input and a calibrated (or virtual) scale")
-        r = doc["response"]
-        f, mag, ph = (np.asarray(r[k], float) for k in ("freq_hz", "mag_db", "phase_deg"))
-        lo, hi = max(float(f[0]), 20.0), min(float(f[-1]), 20000.0)
-        grid = lo * 2.0 ** (np.arange(0, math.log2(hi / lo) + 1e-9, 1.0 / 6.0))
-        gm = np.interp(grid, f, mag)
-        gp = np.interp(grid, f, np.degrees(np.unwrap(np.radians(ph))))
-        drive = (doc.get("sweep") or {}).get("level_dbfs")
-        return [Reading(float(x), _phasor(float(units.ratio_from_db(m)), float(p)), drive, True, True)
-                for x, m, p in zip(grid, gm, gp)]
-    raise BenchkitError(f"a {kind} result holds no output levels to compare: use tone, gain or sweep runs")
+    """The stage's output readings a stored result holds, by its kind: a
+    gain run's gain, a tone run's step levels, a sweep's response in V/V."""
+    from benchkit import kinds
+    from benchkit.analysis.documents import upgrade
+
+    doc = upgrade(doc)
+    kind = kinds.of_result(doc)
+    if kind is None or kind.readings is None:
+        raise BenchkitError(f"a {doc.get('kind')} result holds no output levels to compare: use tone, gain or sweep "
+                            "runs")
+    return kind.readings(doc)
 
 
 def zout_of_captures(folder: Path, load_ohms: float, open_load_ohms: float | None, channel: int = 1,
@@ -139,4 +119,4 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     return result.to_dict(), files.zout_reports(result, folder, folder)
 
 
-KIND = Kind("zout", reanalyse, figures=zout_figures, result_kinds=("output-impedance",))
+KIND = Kind("zout", reanalyse, figures=zout_figures)
