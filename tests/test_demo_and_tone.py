@@ -15,6 +15,8 @@ import sys
 
 import pytest
 
+from benchkit.analysis.documents import Conditions
+
 from conftest import run_cli, run_folders, the_run
 
 
@@ -51,6 +53,17 @@ def test_demo_runs_and_its_outputs_parse(tmp_path):
     with (imd / "comparison.csv").open() as fh:
         rows = {r["figure"]: r for r in csv.DictReader(fh)}
     assert all(rows[f"imd_db@{d:+g}dBFS"]["verdict [1]"] == "better" for d in (-30, -20, -14))
+    # every result, whatever its kind, named as its command and with the same conditions
+    keys = set(Conditions().to_dict())
+    for folder in run_folders(out):
+        record = json.loads((folder / "run.json").read_text())
+        doc = json.loads((folder / record["result_file"]).read_text())
+        under = doc["conditions"]
+        assert doc["kind"] == record["command"] and doc["schema_version"] == 2 and keys <= set(under), folder.name
+        if (folder / "capture.json").exists():  # the rate the capture was made at
+            assert under["sample_rate_hz"] == json.loads((folder / "capture.json").read_text())["sample_rate_hz"]
+        if record["command"] in ("tone", "imd", "power", "zout"):  # run into the demo's 8 ohm
+            assert under["load_ohms"] == 8.0, folder.name
 
 
 def test_tone_on_the_poly_model(tmp_path):

@@ -53,25 +53,31 @@ def finite(x) -> float | None:
 # --- conditions: what must match for runs to compare -------------------------------
 
 def conditions_of(doc: dict, record: dict | None = None) -> dict:
-    """The conditions a comparison checks, from a result and its run record."""
+    """The conditions a comparison checks, from a result and its run record:
+    the result's own ``conditions`` first; what it leaves out (a version-1
+    result's, a drift log's) from its figures, its first step, then the
+    run's record."""
     record = record or {}
     params = record.get("params") or {}
     steps = doc.get("steps") or []
     first = steps[0] if steps and isinstance(steps[0], dict) else {}
+    under = doc.get("conditions") if isinstance(doc.get("conditions"), dict) else {}
+
+    def known(*values):
+        return next((v for v in values if v is not None), None)
+
     cal = doc.get("calibration") or record.get("calibration") or {}
-    load = doc.get("load_ohms")
-    if load is None:
-        load = (first.get("conditions") or {}).get("load_ohms")
-    if load is None:  # a result that does not carry its load (crosstalk, reanalysed): the run's own parameters
-        load = params.get("load_ohms")
-    band = doc.get("bandwidth_hz", first.get("bandwidth_hz"))
+    load = known(under.get("load_ohms"), doc.get("load_ohms"), (first.get("conditions") or {}).get("load_ohms"),
+                 params.get("load_ohms"))
+    band = known(under.get("bandwidth_hz"), doc.get("bandwidth_hz", first.get("bandwidth_hz")))
     return {
         "frequency_hz": finite(doc.get("frequency_hz")),
         "load_ohms": finite(load),
         "bandwidth_hz": list(band) if isinstance(band, (list, tuple)) else None,
-        "sample_rate_hz": finite(first.get("sample_rate_hz")) or finite(params.get("sample_rate_hz")),
-        "calibration_hash": cal.get("hash"),
-        "scale": doc.get("scale_source", first.get("scale_source")),
+        "sample_rate_hz": known(finite(under.get("sample_rate_hz")), finite(first.get("sample_rate_hz")),
+                                finite(params.get("sample_rate_hz"))),
+        "calibration_hash": known(under.get("calibration_hash"), cal.get("hash")),
+        "scale": known(under.get("scale_source"), doc.get("scale_source", first.get("scale_source"))),
         "metric": doc.get("limit_metric"),
         "mag_units": doc.get("mag_units"),
         "nominal_v": finite(doc.get("nominal_v")),

@@ -24,7 +24,7 @@ from benchkit import units
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
 from benchkit.analysis.compare import Figure, finite
-from benchkit.analysis.documents import document
+from benchkit.analysis.documents import Conditions, document
 from benchkit.units import quantity
 
 
@@ -131,8 +131,6 @@ class CrosstalkResult:
             "scaled": self.scaled,
             "sample_rate_hz": self.sample_rate_hz,
             "bandwidth_hz": list(self.bandwidth_hz) if self.bandwidth_hz else None,
-            "conditions": {"window": sp.WINDOW_NAME, "floor_margin_db": FLOOR_MARGIN_DB,
-                           "method": "the driven tone fitted; the leak read at its frequency by least squares"},
             "reference_hz": None if worst is None else worst.frequency_hz,
             "crosstalk_db": None if worst is None else worst.crosstalk_db,
             "balance_db": None if at1k is None else at1k[1],
@@ -140,7 +138,9 @@ class CrosstalkResult:
             "b_to_a": [x.to_dict() for x in self.direction("B")],
             "balance": [{"frequency_hz": f, "balance_db": b} for f, b in balance],
             "warnings": list(self.warnings),
-        })
+        }, Conditions(self.sample_rate_hz, self.bandwidth_hz, sp.WINDOW_NAME,
+                      "the driven tone fitted; the leak read at its frequency by least squares", 1,
+                      "both inputs' scales" if self.scaled else "none", more={"floor_margin_db": FLOOR_MARGIN_DB}))
 
 
 def crosstalk_figures(doc: dict) -> list[Figure]:

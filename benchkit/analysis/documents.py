@@ -10,6 +10,8 @@ reanalyse and compare.
 
 from __future__ import annotations
 
+from dataclasses import dataclass, field
+
 #: The version of every result document.
 RESULT_VERSION = 2
 
@@ -19,10 +21,48 @@ V1_KINDS = {"tone-steps": "tone", "response": "sweep", "output-impedance": "zout
 V1_KEYS = {"load_ohm": "load_ohms"}
 
 
-def document(kind: str, fields: dict) -> dict:
+@dataclass(frozen=True)
+class Conditions:
+    """What a result's figures were measured under, the same keys in every
+    result: the sample rate, the band, the window and the method, the
+    averaging, the voltage scale and where it came from, the load, the
+    calibration profile and its hash; ``more`` holds what only one method
+    has (a fit's iterations, a PSD's segment length, a floor margin)."""
+
+    sample_rate_hz: float | None = None
+    bandwidth_hz: tuple[float, float] | None = None
+    window: str | None = None
+    method: str | None = None
+    averages: int | None = None
+    scale_source: str | None = None
+    volts_per_fs: float | None = None
+    load_ohms: float | None = None
+    calibration_file: str | None = None
+    calibration_hash: str | None = None
+    more: dict = field(default_factory=dict)
+
+    def calibrated(self, calibration: dict | None) -> "Conditions":
+        """These conditions with the calibration profile a sidecar names."""
+        from dataclasses import replace
+
+        cal = calibration or {}
+        return replace(self, calibration_file=cal.get("file"), calibration_hash=cal.get("hash"))
+
+    def to_dict(self) -> dict:
+        return {"sample_rate_hz": self.sample_rate_hz,
+                "bandwidth_hz": None if self.bandwidth_hz is None else list(self.bandwidth_hz),
+                "window": self.window, "method": self.method, "averages": self.averages,
+                "scale_source": self.scale_source, "volts_per_fs": self.volts_per_fs, "load_ohms": self.load_ohms,
+                "calibration_file": self.calibration_file, "calibration_hash": self.calibration_hash, **self.more}
+
+
+def document(kind: str, fields: dict, conditions: Conditions | None = None) -> dict:
     """The document of a result of ``kind``: its kind, the schema version,
-    then ``fields``."""
-    return {"kind": kind, "schema_version": RESULT_VERSION, **fields}
+    then ``fields``; a measurement's result its ``conditions`` too."""
+    doc = {"kind": kind, "schema_version": RESULT_VERSION, **fields}
+    if conditions is not None:
+        doc["conditions"] = conditions.to_dict()
+    return doc
 
 
 def upgrade(doc: dict) -> dict:

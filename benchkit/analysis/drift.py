@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.optimize
 from benchkit.analysis.compare import Figure, finite
-from benchkit.analysis.documents import document
+from benchkit.analysis.documents import Conditions, document
 
 #: A jump between two readings this many times the readings' own noise
 #: (robust: from the median absolute difference) is a step, not drift.
@@ -185,7 +185,8 @@ class DriftResult:
             "nominal_v": self.nominal_v,
             "verdict": self.verdict,
             "warnings": list(self.warnings),
-        })
+        }, Conditions(method="first-order settling fit by least squares; the rate a line over the last window",
+                      more={"window_s": self.window_s}))
 
 
 def analyze_drift(t_s, v, limit_v: float | None = None, band_v: float | None = None, window_s: float = 60.0,

@@ -8,7 +8,7 @@ the ratio is of fundamentals, not of broadband levels.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from benchkit import units
 from benchkit.analysis.tone import ToneResult
@@ -51,7 +51,8 @@ class GainResult:
             "bandwidth_hz": list(self.output.bandwidth_hz) if self.output.bandwidth_hz else None,
             "sample_rate_hz": self.output.sample_rate_hz,
             "warnings": list(self.warnings) + list(self.output.warnings),
-        })
+        }, replace(self.output.conditions(), method=f"output over input ({self.input_source}), each tone fitted",
+                   load_ohms=self.load_ohms))
 
 
 def gain_of(output: ToneResult, drive_dbfs: float, reference: ToneResult | None = None,

@@ -42,7 +42,7 @@ from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import detect_clipping
 from benchkit.errors import BenchkitError
 from benchkit.analysis.compare import Figure, finite
-from benchkit.analysis.documents import document
+from benchkit.analysis.documents import Conditions, document
 
 
 #: The tones (Hz) and the amplitude ratio f1:f2 each method plays.
@@ -171,9 +171,6 @@ class ImdResult:
             "floor_db": self.floor_db, "peak_fs": self.peak_fs, "clipped": self.clipped, "valid": self.valid,
             "warnings": list(self.warnings), "scale_source": self.scale_source, "volts_per_fs": vpf,
             "load_ohms": self.load_ohms,
-            "conditions": {"window": sp.WINDOW_NAME, "max_order": MAX_ORDER, "floor_margin_db": FLOOR_MARGIN_DB,
-                           "method": "each component read at its frequency by least squares over the window's "
-                                     "exact kernel; f1 and f2 found in the record"},
             "products": [p.to_dict(vpf) for p in self.products],
         }
         if vpf is not None:
@@ -181,7 +178,14 @@ class ImdResult:
                      peak_v=self.peak_v)
         if self.equivalent_power_w is not None:
             d["equivalent_power_w"] = self.equivalent_power_w
-        return document("imd-record", d)
+        return document("imd-record", d, self.conditions())
+
+    def conditions(self) -> Conditions:
+        """What this two-tone record was measured under."""
+        return Conditions(self.sample_rate_hz, None, sp.WINDOW_NAME,
+                          "each component read at its frequency by least squares over the window's exact kernel; "
+                          "f1 and f2 found in the record", 1, self.scale_source, self.volts_per_fs, self.load_ohms,
+                          more={"max_order": MAX_ORDER, "floor_margin_db": FLOOR_MARGIN_DB})
 
 
 def method_tones(method: str) -> tuple[float, float, float]:

@@ -21,7 +21,7 @@ from benchkit.analysis.tone import DEFAULT_BAND_HZ, band_limited
 from benchkit.analysis.weighting import a_weighting_power
 from benchkit.errors import BenchkitError
 from benchkit.analysis.compare import Figure, finite
-from benchkit.analysis.documents import document
+from benchkit.analysis.documents import Conditions, document
 
 #: Welch segments of about this long: 2 Hz resolution keeps hum lines apart.
 SEGMENT_S = 0.5
@@ -99,10 +99,10 @@ class NoiseResult:
             "mains_hz": self.mains_hz, "hum": [h.to_dict() for h in self.hum],
             "hum_dbfs": float(units.dbfs_from_rms(self.hum_rms_fs)) if self.hum_rms_fs > 0 else None,
             "scale_source": self.scale_source, "volts_per_fs": self.volts_per_fs,
-            "conditions": {"method": "Welch PSD (Hann, 50 % overlap) integrated over the band",
-                           "segment_s": SEGMENT_S, "weighting": "A, IEC 61672-1"},
             "warnings": list(self.warnings),
-        })
+        }, Conditions(self.sample_rate_hz, self.bandwidth_hz, "Hann", "Welch PSD (Hann, 50 % overlap) integrated over "
+                      "the band", None, self.scale_source, self.volts_per_fs,
+                      more={"segment_s": SEGMENT_S, "weighting": "A, IEC 61672-1"}))
 
 
 def psd(x: np.ndarray, rate: float) -> tuple[np.ndarray, np.ndarray]:

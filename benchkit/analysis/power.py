@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from benchkit.analysis.compare import Figure, finite
-from benchkit.analysis.documents import document
+from benchkit.analysis.documents import Conditions, document
 
 #: Limits reported by default, percent: the first is the headline figure.
 DEFAULT_LIMITS_PCT = (1.0, 0.1, 10.0)
@@ -189,6 +189,8 @@ class PowerResult:
     expected: dict | None = None
     warnings: tuple[str, ...] = ()
     info: dict | None = None
+    #: what the steps were measured under (the first step's)
+    measured_under: Conditions | None = None
 
     @property
     def supply_w(self) -> float | None:
@@ -228,7 +230,8 @@ class PowerResult:
             "steps": [s.to_dict(self.supply_v, self.supply_a) for s in self.steps],
             "warnings": list(self.warnings),
         }
-        return document("power", d)
+        under = self.measured_under or Conditions(load_ohms=self.load_ohms)
+        return document("power", d, under.calibrated((self.info or {}).get("calibration")))
 
 
 def analyze_power(steps, load_ohms: float, metric: str = "thdn", limits_pct=DEFAULT_LIMITS_PCT,
@@ -265,7 +268,7 @@ def analyze_power(steps, load_ohms: float, metric: str = "thdn", limits_pct=DEFA
             half = clipping_half(*got)
     freq = float(steps[0][1].fundamental_hz) if steps else 0.0
     return PowerResult(freq, load_ohms, metric, tuple(rows), points, onset, half, supply_v, supply_a, expected,
-                       tuple(warnings), info)
+                       tuple(warnings), info, steps[0][1].conditions() if steps else None)
 
 
 def power_figures(doc: dict) -> list[Figure]:

@@ -14,12 +14,16 @@ import numpy as np
 import scipy.optimize
 
 from benchkit import units
-from benchkit.analysis.documents import document
+from benchkit.analysis.documents import Conditions, document
+from benchkit.analysis.spectrum import WINDOW_NAME
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.analysis.compare import Figure, finite
 
 #: The level the corners are referred to is read here unless told otherwise.
 REFERENCE_HZ = 1000.0
+#: How each method reads the response.
+METHODS = {"sweep": "a synchronized log sweep deconvolved, its harmonics separated in time",
+           "stepped": "stepped sines, each fitted by least squares (the tone analysis)"}
 #: A low corner "fits a first-order high-pass" when the fit's RMS error
 #: over the octave and a half either side of it is below this.
 FIRST_ORDER_FIT_DB = 0.25
@@ -233,7 +237,9 @@ class ResponseResult:
             },
             "bandwidth_hz": None if self.band_hz is None else list(self.band_hz),
             "warnings": list(self.warnings),
-        })
+        }, Conditions(self.info.get("sample_rate_hz"), self.band_hz, WINDOW_NAME if self.method == "stepped" else None,
+                      METHODS.get(self.method, self.method), None, self.scale_source, None,
+                      self.load_ohms).calibrated(self.info.get("calibration")))
 
 
 def thd_db_from_harmonics(curves: tuple[HarmonicCurve, ...], n: int) -> np.ndarray:

@@ -33,7 +33,7 @@ from benchkit.analysis import spectrum as sp
 from benchkit.analysis.sinefit import RecordLayout, fit_tone
 from benchkit.errors import BenchkitError, NoToneError
 from benchkit.analysis.compare import Figure, finite
-from benchkit.analysis.documents import document
+from benchkit.analysis.documents import Conditions, document
 
 DEFAULT_BAND_HZ = (20.0, 20000.0)
 #: Harmonic orders fitted jointly with the fundamental; higher ones are read
@@ -246,21 +246,19 @@ class ToneResult:
             "valid": self.valid,
             "warnings": list(self.warnings),
             "scale_source": self.scale_source,
-            "conditions": {
-                "window": sp.WINDOW_NAME,
-                "method": METHOD.format(orders=self.fitted_orders),
-                "averages": self.averages,
-                "fit_iterations": self.fit_iterations,
-                "volts_per_fs": self.volts_per_fs,
-                "load_ohms": self.load_ohms,
-            },
         }
         if self.volts_per_fs is not None:
             d["fundamental_vrms"] = self.fundamental_vrms
             d["noise_vrms"] = self.noise_vrms
         if self.power_w is not None:
             d["power_w"] = self.power_w
-        return document("tone", d)
+        return document("tone", d, self.conditions())
+
+    def conditions(self) -> Conditions:
+        """What this tone was measured under."""
+        return Conditions(self.sample_rate_hz, tuple(self.bandwidth_hz), sp.WINDOW_NAME,
+                          METHOD.format(orders=self.fitted_orders), self.averages, self.scale_source, self.volts_per_fs,
+                          self.load_ohms, more={"fit_iterations": self.fit_iterations})
 
 
 # --- internals ---------------------------------------------------------------

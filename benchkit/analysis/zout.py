@@ -31,7 +31,7 @@ from benchkit.units import quantity
 from benchkit import units
 from benchkit.errors import BenchkitError
 from benchkit.analysis.compare import Figure, finite
-from benchkit.analysis.documents import document
+from benchkit.analysis.documents import Conditions, document
 
 
 #: |k - 1| below this is under what two readings resolve (a tenth of a
@@ -109,7 +109,7 @@ class ZoutResult:
             "zout_ohms": None if ref is None else ref.zout_ohms,
             "damping_factor": None if ref is None else ref.damping_factor,
             "points": [p.to_dict() for p in self.points], "warnings": list(self.warnings),
-        })
+        }, Conditions(method=self.method, load_ohms=self.load_ohms, more={"open_load_ohms": self.open_load_ohms}))
 
 
 def output_impedance(open_: list[Reading], loaded: list[Reading], load_ohms: float,

@@ -68,7 +68,7 @@ class ImdSteps:
             "load_ohms": first.load_ohms, "scale_source": first.scale_source, "device": self.device,
             "calibration": self.calibration, "warnings": list(self.warnings),
             "steps": [s.to_dict() for s in self.steps],
-        })
+        }, first.conditions().calibrated(self.calibration))
 
 
 def is_imd(rec: Recording) -> bool:

@@ -146,7 +146,7 @@ def _finish(method, freqs, h_fs, curves, thd, thdn, rec: Recording, ref: _Refere
 
 def _info(rec: Recording, ref: _Reference, ref_channel) -> dict:
     side = rec.sidecar
-    return {"file": str(rec.path), "channel": rec.channel,
+    return {"file": str(rec.path), "channel": rec.channel, "sample_rate_hz": rec.sample_rate_hz,
             "ref_channel": ref_channel if ref.samples is not None else None,
             "device": side.get("device"), "latency_samples": side.get("latency_samples"),
             "calibration": side.get("calibration")}

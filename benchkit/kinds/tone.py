@@ -13,7 +13,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 
 from benchkit import capture
-from benchkit.analysis.documents import document
+from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ, step_figures, step_readings, ToneResult
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture
@@ -57,7 +57,7 @@ class StepsResult:
             "calibration": self.calibration,
             "warnings": list(self.warnings),
             "steps": [s.to_dict() for s in self.steps],
-        })
+        }, (self.steps[0].result.conditions() if self.steps else Conditions()).calibrated(self.calibration))
 
 
 def _first_frequency(value) -> float:

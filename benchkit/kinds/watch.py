@@ -25,7 +25,8 @@ from pathlib import Path
 
 import numpy as np
 
-from benchkit.analysis.documents import document
+from benchkit.analysis.documents import Conditions, document
+from benchkit.analysis.spectrum import WINDOW_NAME
 from benchkit.analysis.readings import FIGURES, Reading, watch_figures
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.capture import FAULT_ADVICE, HearsFaults
@@ -93,8 +94,8 @@ class SteadyTone(HearsFaults):
 
     def conditions(self) -> dict:
         """What every reading was measured under."""
-        return {**self.description, "sample_rate_hz": self.sample_rate_hz, "bandwidth_hz": self.bandwidth_hz,
-                "volts_per_fs": self.volts_per_fs, "load_ohms": self.load_ohms, "method": "analyze_tone on the latest block"}
+        return Conditions(self.sample_rate_hz, self.bandwidth_hz, WINDOW_NAME, "the tone analysis of the latest block",
+                          1, None, self.volts_per_fs, self.load_ohms, more=dict(self.description)).to_dict()
 
     # --- what a backend plays ----------------------------------------------
     @property
@@ -292,7 +293,7 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
         pass  # a watch killed before it wrote its summary
     doc = summarise(folder / "readings.csv", {"frequency_hz": p.get("frequency_hz"), "level_dbfs": p.get("level_dbfs"),
                                               "ended": "reanalysed", "device": record.get("device"),
-                                              "conditions": old or {"bandwidth_hz": p.get("bandwidth_hz")}})
+                                              "conditions": old or Conditions(bandwidth_hz=p.get("bandwidth_hz")).to_dict()})
     return doc, [write_json(doc, folder / "watch.json"), folder / "readings.csv"]
 
 
