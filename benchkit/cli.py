@@ -279,7 +279,7 @@ def _analyze_zout(files, channel, ref_channel, band, load, open_load, out, as_js
     single tones made elsewhere (their levels)."""
     from benchkit.kinds.tone import is_stepped
     from benchkit.analysis.zout import Reading, output_impedance
-    from benchkit.report import summary
+    from benchkit.report import zout as zout_report
     from benchkit.kinds.zout import readings_of_capture
 
     if len(files) != 2:
@@ -294,9 +294,9 @@ def _analyze_zout(files, channel, ref_channel, band, load, open_load, out, as_js
             got.append([Reading(r.fundamental_hz, complex(r.fundamental_fs), None, r.valid)])
     result = output_impedance(got[0], got[1], load, open_load)
     doc = {**result.to_dict(), "files": [str(p) for p in files]}
-    _err(summary.zout_summary(doc, f"output impedance: {files[0]} (open), {files[1]} (loaded)"))
+    _err(zout_report.zout_summary(doc, f"output impedance: {files[0]} (open), {files[1]} (loaded)"))
     if out is not None:
-        for written in _files().zout_reports(result, Path(files[1]).parent, out):
+        for written in zout_report.zout_reports(result, Path(files[1]).parent, out):
             _err(f"  wrote        {written}")
     if as_json:
         from benchkit.report.tables import dumps
@@ -602,7 +602,7 @@ def tone(
     """
     from benchkit import record
     from benchkit.kinds.tone import tone_run
-    from benchkit.report import summary
+    from benchkit.report import tone as tone_report
     from benchkit.signals import check_level
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -626,8 +626,8 @@ def tone(
                                   channel=channel, traces=True, calibration=profile,
                                   calibration_file=None if calibration is None else str(calibration),
                                   warnings=plan.warnings, note=labels["note"])
-            _err(summary.steps_summary(steps, f"{frequency:g} Hz, {units.count(len(drive), 'step')}, latency {steps.latency_samples} samples"))
-            written = _files().steps_reports(steps, run.folder / "capture.wav", channel, run.folder)
+            _err(tone_report.steps_summary(steps, f"{frequency:g} Hz, {units.count(len(drive), 'step')}, latency {steps.latency_samples} samples"))
+            written = tone_report.steps_reports(steps, run.folder / "capture.wav", channel, run.folder)
             _finish_run(written, run, steps.to_dict(), as_json)
 
 
@@ -934,7 +934,7 @@ def noise(
     parts of a class-A stage while you do.
     """
     from benchkit.kinds.noise import noise_run
-    from benchkit.report import summary
+    from benchkit.report import noise as noise_report
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth) or (20.0, 20000.0)
@@ -953,8 +953,8 @@ def noise(
             result = noise_run(backend, run.folder, length, in_channel, band, reference_vrms, reference,
                                labels["note"], profile, None if calibration is None else str(calibration))
             doc = result.to_dict()
-            _err(summary.noise_summary(doc, f"noise of {backend.name} input {in_channel}, {length:g} s"))
-            written = _files().noise_reports(result, run.folder / "capture.wav", in_channel, run.folder)
+            _err(noise_report.noise_summary(doc, f"noise of {backend.name} input {in_channel}, {length:g} s"))
+            written = noise_report.noise_reports(result, run.folder / "capture.wav", in_channel, run.folder)
             _finish_run(written, run, doc, as_json)
 
 
@@ -984,8 +984,8 @@ def gain(
     """
     from benchkit.kinds.gain import analyze_gain
     from benchkit.record import record_steps
-    from benchkit.report import summary
     from benchkit.report.tables import write_json
+    from benchkit.report import gain as gain_report
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
@@ -1000,7 +1000,7 @@ def gain(
                                 calibration_file=None if calibration is None else str(calibration))
             result = analyze_gain(path, in_channel, ref_channel, band, load)
             doc = result.to_dict()
-            _err(summary.gain_summary(doc))
+            _err(gain_report.gain_summary(doc))
             _finish_run([write_json(doc, run.folder / "capture.gain.json")], run, doc, as_json)
 
 
@@ -1038,7 +1038,7 @@ def imd(
     from benchkit import record
     from benchkit.analysis.imd import shortest_record_s
     from benchkit.kinds.imd import imd_run, twin_tone
-    from benchkit.report import summary
+    from benchkit.report import imd as imd_report
     from benchkit.signals import check_level
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -1063,8 +1063,8 @@ def imd(
             result = imd_run(backend, run.folder, twin, drive, in_channel, load, labels["note"], profile,
                              None if calibration is None else str(calibration), plan.warnings, step, spectrum=True)
             doc = result.to_dict()
-            _err(summary.imd_summary(doc, f"intermodulation, {len(drive)} level(s)"))
-            written = _files().imd_reports(result, run.folder / "capture.wav", in_channel, run.folder)
+            _err(imd_report.imd_summary(doc, f"intermodulation, {len(drive)} level(s)"))
+            written = imd_report.imd_reports(result, run.folder / "capture.wav", in_channel, run.folder)
             _finish_run(written, run, doc, as_json)
 
 
@@ -1099,7 +1099,7 @@ def zout(
     you between the two readings). A stage with an output transformer
     (valve amplifiers) must not run unloaded: do not use this on one.
     """
-    from benchkit.report import summary
+    from benchkit.report import zout as zout_report
     from benchkit.kinds.zout import zout_run
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -1128,8 +1128,8 @@ def zout(
             result = zout_run(backend, run.folder, load, freqs, drive, switch, open_load, in_channel, ref_channel,
                               labels["note"], profile, None if calibration is None else str(calibration), plan.warnings)
             doc = result.to_dict()
-            _err(summary.zout_summary(doc, "output impedance"))
-            _finish_run(_files().zout_reports(result, run.folder, run.folder), run, doc, as_json)
+            _err(zout_report.zout_summary(doc, "output impedance"))
+            _finish_run(zout_report.zout_reports(result, run.folder, run.folder), run, doc, as_json)
 
 
 def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optional[float], as_json: bool) -> None:
@@ -1137,8 +1137,8 @@ def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optio
     a run of its own (with copies of the two results, for reanalysis)."""
     from benchkit.analysis.zout import output_impedance
     from benchkit.compare_runs import stored_result
-    from benchkit.report import summary
     from benchkit.report.tables import write_json
+    from benchkit.report import zout as zout_report
     from benchkit.kinds.zout import readings_of_result
 
     if len(refs) != 2:
@@ -1150,8 +1150,8 @@ def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optio
     with _start_run(book, labels, "zout", "logbook", None, None, params) as run:
         copies = [write_json(d, run.folder / f"{state}.result.json") for d, state in zip(docs, ("open", "loaded"))]
         doc = result.to_dict()
-        _err(summary.zout_summary(doc, f"output impedance from {entries[0].id} (open) and {entries[1].id} (loaded)"))
-        _finish_run(_files().zout_reports(result, run.folder, run.folder) + copies, run, doc, as_json)
+        _err(zout_report.zout_summary(doc, f"output impedance from {entries[0].id} (open) and {entries[1].id} (loaded)"))
+        _finish_run(zout_report.zout_reports(result, run.folder, run.folder) + copies, run, doc, as_json)
 
 
 @app.command()
@@ -1184,7 +1184,7 @@ def crosstalk(
     the stage's full output.
     """
     from benchkit.kinds.crosstalk import crosstalk_run
-    from benchkit.report import summary
+    from benchkit.report import crosstalk as crosstalk_report
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
@@ -1206,8 +1206,8 @@ def crosstalk(
             result = crosstalk_run(backend, run.folder, freqs, drive, outputs, inputs, labels["note"], profile,
                                    None if calibration is None else str(calibration), plan.warnings)
             doc = {**result.to_dict(), "load_ohms": load}
-            _err(summary.crosstalk_summary(doc, "crosstalk and balance"))
-            written = _files().crosstalk_reports(result, run.folder / "capture.wav", run.folder)
+            _err(crosstalk_report.crosstalk_summary(doc, "crosstalk and balance"))
+            written = crosstalk_report.crosstalk_reports(result, run.folder / "capture.wav", run.folder)
             _finish_run(written, run, doc, as_json)
 
 
@@ -1272,7 +1272,7 @@ def sweep(
     from benchkit import record
     from benchkit.kinds.sweep import response_run
     from benchkit.analysis.sweep import SyncSweep
-    from benchkit.report import summary
+    from benchkit.report import sweep as sweep_report
     from benchkit.signals import check_level
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -1299,8 +1299,8 @@ def sweep(
                 backend, run.folder, drive, (f1, f2), length, stepped, per_octave, [float(f) for f in freqs] or None,
                 in_channel, ref_channel, load, band, ref_freq, profile, None if calibration is None else str(calibration),
                 note=labels["note"], warnings=plan.warnings)
-            _err(summary.response_summary(result, f"{result.method} response, {f1:g} to {f2:g} Hz at {drive:g} dBFS"))
-            written = _files().response_reports(result, run.folder / "capture.wav", in_channel, run.folder, smooth)
+            _err(sweep_report.response_summary(result, f"{result.method} response, {f1:g} to {f2:g} Hz at {drive:g} dBFS"))
+            written = sweep_report.response_reports(result, run.folder / "capture.wav", in_channel, run.folder, smooth)
             _finish_run(written, run, result.to_dict(), as_json)
 
 
@@ -1342,7 +1342,7 @@ def power(
     """
     from benchkit import record
     from benchkit.kinds.power import power_run
-    from benchkit.report import summary
+    from benchkit.report import power as power_report
 
     with _live_run(), _logbook(filing) as (book, labels):
         opts = _power_options(True, load, live["rail"], **figures)
@@ -1402,9 +1402,9 @@ def power(
                 if amps_meter is not None:
                     amps_meter.close()
             info = result.info or {}
-            _err(summary.power_summary(result, f"{frequency:g} Hz into {load:g} ohm: {units.count(info.get('steps_played') or 0, 'step')}, "
+            _err(power_report.power_summary(result, f"{frequency:g} Hz into {load:g} ohm: {units.count(info.get('steps_played') or 0, 'step')}, "
                                                f"{info.get('stimulus_s', 0):.1f} s; stopped: {info.get('stop_reason')}"))
-            written = _files().power_reports(result, run.folder / "capture.wav", in_channel, run.folder)
+            written = power_report.power_reports(result, run.folder / "capture.wav", in_channel, run.folder)
             _finish_run(written, run, result.to_dict(), as_json, "interrupted" if info.get("interrupted") else "complete")
     if info.get("device_lost"):
         # everything is on disk; PortAudio can hang for good shutting down a dead server's client
@@ -1450,7 +1450,7 @@ def drift(
     """
     from benchkit import meters
     from benchkit.kinds.drift import analyze_drift_csv, log_drift
-    from benchkit.report import summary
+    from benchkit.report import drift as drift_report
 
     with _live_run(), _logbook(filing) as (book, labels):
         step = interval * (accelerate if source == "virtual" else 1.0)  # the source's own seconds between readings
@@ -1494,8 +1494,8 @@ def drift(
                                        info={"source": reader.name, "ended": end.how,
                                              "accelerated": params["accelerated"]},
                                        warnings=notes, nominal_v=nominal)
-            _err(summary.drift_summary(result, f"{reader.name}: {end.how}"))
-            written = _files().drift_reports(result, log, run.folder)
+            _err(drift_report.drift_summary(result, f"{reader.name}: {end.how}"))
+            written = drift_report.drift_reports(result, log, run.folder)
             _finish_run(written, run, result.to_dict(), as_json,
                         "complete" if end.how in ("duration", "settled") else "interrupted")
     if end.how != "duration" and end.how != "settled":

@@ -36,8 +36,15 @@ from benchkit.compare_runs import compare_runs
 from benchkit.kinds.imd import imd_run, twin_tone
 from benchkit.logbook import Logbook
 from benchkit.kinds.power import power_run
-from benchkit.report import files as reports
-from benchkit.report import summary
+from benchkit.report import crosstalk as crosstalk_report
+from benchkit.report import drift as drift_report
+from benchkit.report import gain as gain_report
+from benchkit.report import imd as imd_report
+from benchkit.report import noise as noise_report
+from benchkit.report import power as power_report
+from benchkit.report import sweep as sweep_report
+from benchkit.report import tone as tone_report
+from benchkit.report import zout as zout_report
 from benchkit.kinds.sweep import response_run
 from benchkit.kinds.tone import StepsResult, tone_run
 
@@ -84,7 +91,7 @@ def _demo_drift(folder: Path, seed: int):
     log_drift(VirtualMidpoint(stage, accelerated=DRIFT_STEP_S, seed=seed), log, 1.0, DRIFT_S)
     result = analyze_drift_csv(log, limit_v=0.5, band_v=0.01, nominal_v=RAIL_V / 2,
                                info={"source": "virtual se-class-a midpoint", "accelerated": DRIFT_STEP_S})
-    return result, reports.drift_reports(result, log, folder)
+    return result, drift_report.drift_reports(result, log, folder)
 
 
 @dataclass(frozen=True)
@@ -127,27 +134,27 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
         def tones_in(folder, bench=bench):
             steps = tone_run(bench, folder, FREQUENCY_HZ, list(DRIVE_DBFS), load_ohms=LOAD_OHMS, note=NOTE,
                              traces=True)
-            return steps, reports.steps_reports(steps, folder / "capture.wav", 1, folder)
+            return steps, tone_report.steps_reports(steps, folder / "capture.wav", 1, folder)
 
         steps, written = _logged(book, "tone", bias, dict(channel=1, frequency_hz=FREQUENCY_HZ, levels_dbfs=list(DRIVE_DBFS),
                                                           load_ohms=LOAD_OHMS, bandwidth_hz=band,
                                                           sample_rate_hz=bench.sample_rate_hz), tones_in)
         tones.append((label, steps))
         files += written
-        texts.append(summary.steps_summary(steps, f"Test stage B-2, {label}"))
+        texts.append(tone_report.steps_summary(steps, f"Test stage B-2, {label}"))
         say(f"virtual bench: stage B-2 at {label}, intermodulation (60 Hz + 7 kHz, 4:1) at {len(IMD_DBFS)} levels")
         im_bench = virtual_bench("se-class-a", stage, pad=DEMO_PAD, seed=seed + 21 + i)
 
         def imd_in(folder, im_bench=im_bench):
             r = imd_run(im_bench, folder, twin_tone("modulation"), list(IMD_DBFS), load_ohms=LOAD_OHMS, note=NOTE,
                         spectrum=True)
-            return r, reports.imd_reports(r, folder / "capture.wav", 1, folder)
+            return r, imd_report.imd_reports(r, folder / "capture.wav", 1, folder)
 
         im, written = _logged(book, "imd", bias, dict(channel=1, twin=twin_tone("modulation").to_dict(),
                                                       levels_dbfs=list(IMD_DBFS), load_ohms=LOAD_OHMS,
                                                       sample_rate_hz=im_bench.sample_rate_hz), imd_in)
         files += written
-        texts.append(summary.imd_summary(im.to_dict(), f"Test stage B-2, {label}: intermodulation"))
+        texts.append(imd_report.imd_summary(im.to_dict(), f"Test stage B-2, {label}: intermodulation"))
         say(f"virtual bench: stage B-2 at {label}, power run to 10 % THD+N")
         budget = ClassABudget(RAIL_V, bias, LOAD_OHMS, VSAT_V)
         first = units.db_from_ratio(budget.peak_vpk / 20.0) - 40.0
@@ -156,7 +163,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
         def power_in(folder, pw_bench=pw_bench, budget=budget, first=first, bias=bias):
             pw = power_run(pw_bench, folder, FREQUENCY_HZ, first, -3.0, LOAD_OHMS, ref_channel=pw_bench.reference_input(),
                            supply_v=RAIL_V, supply_a=bias, budget=budget, note=NOTE)
-            return pw, reports.power_reports(pw, folder / "capture.wav", 1, folder)
+            return pw, power_report.power_reports(pw, folder / "capture.wav", 1, folder)
 
         params = dict(channel=1, ref_channel=pw_bench.reference_input(), frequency_hz=FREQUENCY_HZ, load_ohms=LOAD_OHMS,
                       supply_v=RAIL_V, supply_a=bias, rail_v=RAIL_V, bias_a=bias, vsat_v=VSAT_V,
@@ -164,7 +171,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
         pw, written = _logged(book, "power", bias, params, power_in)
         powers.append((label, pw))
         files += written
-        texts.append(summary.power_summary(pw, f"Test stage B-2, {label}: power into {LOAD_OHMS:g} ohm"))
+        texts.append(power_report.power_summary(pw, f"Test stage B-2, {label}: power into {LOAD_OHMS:g} ohm"))
     bias = BIASES_A[-1]
     label = f"bias {bias:g} A"
     say(f"virtual bench: stage B-2 at {label}, sweep {SWEEP_SPAN_HZ[0]:g} Hz to {SWEEP_SPAN_HZ[1]:g} Hz")
@@ -173,7 +180,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     def sweep_in(folder):
         r = response_run(bench, folder, SWEEP_DBFS, SWEEP_SPAN_HZ, SWEEP_S, ref_channel=bench.reference_input(),
                          load_ohms=LOAD_OHMS, note=NOTE)
-        return r, reports.response_reports(r, folder / "capture.wav", 1, folder)
+        return r, sweep_report.response_reports(r, folder / "capture.wav", 1, folder)
 
     response, written = _logged(book, "sweep", bias, dict(channel=1, ref_channel=bench.reference_input(),
                                                           load_ohms=LOAD_OHMS, bandwidth_hz=band,
@@ -205,7 +212,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     def noise_in(folder):
         r = noise_run(nz_bench, folder, NOISE_S, reference_vrms=one_watt, reference=f"1 W into {LOAD_OHMS:g} ohm",
                       note=NOTE)
-        return r, reports.noise_reports(r, folder / "capture.wav", 1, folder)
+        return r, noise_report.noise_reports(r, folder / "capture.wav", 1, folder)
 
     noise, written = _logged(book, "noise", bias, dict(channel=1, bandwidth_hz=band, reference_vrms=one_watt,
                                                        reference=f"1 W into {LOAD_OHMS:g} ohm", length_s=NOISE_S,
@@ -219,7 +226,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     def zout_in(folder):
         r = zout_run(z_bench, folder, LOAD_OHMS, DEFAULT_FREQS_HZ, SWEEP_DBFS, z_bench.connect_load,
                      z_bench.pad_input_ohms(), ref_channel=z_bench.reference_input(), note=NOTE)
-        return r, reports.zout_reports(r, folder, folder)
+        return r, zout_report.zout_reports(r, folder, folder)
 
     zout, written = _logged(book, "zout", bias, dict(channel=1, ref_channel=z_bench.reference_input(), load_ohms=LOAD_OHMS,
                                                      open_load_ohms=z_bench.pad_input_ohms(),
@@ -235,7 +242,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
 
     def crosstalk_in(folder):
         r = crosstalk_run(x_bench, folder, XTALK_FREQS, SWEEP_DBFS, note=NOTE)
-        return r, reports.crosstalk_reports(r, folder / "capture.wav", folder)
+        return r, crosstalk_report.crosstalk_reports(r, folder / "capture.wav", folder)
 
     xtalk, written = _logged(book, "crosstalk", bias, dict(channel=1, inputs=[1, 3], outputs=[1, 2],
                                                            frequencies_hz=list(XTALK_FREQS), level_dbfs=SWEEP_DBFS,
@@ -256,12 +263,12 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
         files += report.files
     (la, _a), (lb, _b) = tones
     texts.append(f"Before/after ({la} -> {lb}), 'benchkit compare':\n" + "\n\n".join(r.text for r in comparisons))
-    texts.append(summary.response_summary(response, f"Test stage B-2, {label}: response"))
-    texts.append(summary.gain_summary(gain.to_dict(), f"Test stage B-2, {label}: voltage gain"))
-    texts.append(summary.noise_summary(noise.to_dict(), f"Test stage B-2, {label}: output noise, input terminated"))
-    texts.append(summary.zout_summary(zout.to_dict(), f"Test stage B-2, {label}: output impedance into {LOAD_OHMS:g} ohm"))
-    texts.append(summary.crosstalk_summary(xtalk.to_dict(), f"Test stage B-2 as a stereo pair, {label}: crosstalk"))
-    texts.append(summary.drift_summary(drift, f"Test stage B-2, {label}: midpoint after power-on "
+    texts.append(sweep_report.response_summary(response, f"Test stage B-2, {label}: response"))
+    texts.append(gain_report.gain_summary(gain.to_dict(), f"Test stage B-2, {label}: voltage gain"))
+    texts.append(noise_report.noise_summary(noise.to_dict(), f"Test stage B-2, {label}: output noise, input terminated"))
+    texts.append(zout_report.zout_summary(zout.to_dict(), f"Test stage B-2, {label}: output impedance into {LOAD_OHMS:g} ohm"))
+    texts.append(crosstalk_report.crosstalk_summary(xtalk.to_dict(), f"Test stage B-2 as a stereo pair, {label}: crosstalk"))
+    texts.append(drift_report.drift_summary(drift, f"Test stage B-2, {label}: midpoint after power-on "
                                               "(virtual thermal model, accelerated 10x)"))
     text = "\n\n".join(texts)
     from benchkit.recordings import write_text_atomic

@@ -166,7 +166,7 @@ def test_the_drift_plot_bands_the_limit_about_the_nominal_and_scales_to_the_data
     # the verdict holds the value within the limit of the nominal: the band
     # drawn is nominal +- limit; the view spans the readings (a warm-up of a
     # few tens of mV stays visible beside a +-0.5 V band)
-    from benchkit.report.plots import drift_png, drift_view
+    from benchkit.report.drift import drift_png, drift_view
 
     t = np.arange(0, 900, 3.0)
     v = nominal + rise * (1 - np.exp(-t / 120.0))

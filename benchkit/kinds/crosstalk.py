@@ -84,22 +84,22 @@ def crosstalk_run(backend, folder: Path, frequencies_hz, level_dbfs: float, outp
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    from benchkit.report import files
+    from benchkit.report import crosstalk as report
 
     p = record.get("params") or {}
     path = run_capture(folder, int(p.get("channel") or 1), say).path
     result = analyze_crosstalk_capture(path, run_band(p))
-    return result.to_dict(), files.crosstalk_reports(result, path, folder)
+    return result.to_dict(), report.crosstalk_reports(result, path, folder)
 
 
 def analyse(rec, o: Offline) -> Analysed:
-    from benchkit.report import files, summary
+    from benchkit.report import crosstalk as report
 
     path = Path(rec.path)
     result = analyze_crosstalk_capture(path, o.bandwidth_hz)
     doc = {**result.to_dict(), "file": str(path)}
-    return Analysed(doc, summary.crosstalk_summary(doc, f"{path}: crosstalk"),
-                    o.reports(lambda out: files.crosstalk_reports(result, path, out)))
+    return Analysed(doc, report.crosstalk_summary(doc, f"{path}: crosstalk"),
+                    o.reports(lambda out: report.crosstalk_reports(result, path, out)))
 
 
 KIND = Kind("crosstalk", reanalyse, figures=crosstalk_figures, recognises=lambda rec: bool(rec.sidecar.get("crosstalk")),

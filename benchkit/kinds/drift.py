@@ -156,7 +156,7 @@ LOG = "log.csv"
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    from benchkit.report import files
+    from benchkit.report import drift as report
 
     p = record.get("params") or {}
     log = folder / LOG
@@ -166,28 +166,28 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
                                window_s=p.get("window_s") or 60.0, nominal_v=p.get("nominal_v") or 0.0,
                                info={"source": record.get("device"), "ended": "reanalysed",
                                      "accelerated": p.get("accelerated")})
-    return result.to_dict(), files.drift_reports(result, log, folder)
+    return result.to_dict(), report.drift_reports(result, log, folder)
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
     """Each run's readings against time."""
     from benchkit.meters import read_drift_csv
-    from benchkit.report import overlays
+    from benchkit.report import drift as report
 
     series = [read_drift_csv(e.folder / LOG)[:2] for e in entries]
-    return [overlays.drifts_png(series, comparison.labels, out / "overlay.png", f"{title}: DC drift",
+    return [report.drifts_png(series, comparison.labels, out / "overlay.png", f"{title}: DC drift",
                                 comparison.warnings)]
 
 
 def analyse(path: Path, o: Offline) -> Analysed:
     """A CSV log (benchkit's, or a logger's), its columns by name or number."""
-    from benchkit.report import files, summary
+    from benchkit.report import drift as report
 
     j = o.judge or {}
     result = analyze_drift_csv(path, o.time_col, o.value_col, j.get("dc_limit"), j.get("settle_band"),
                                j.get("window", 60.0), nominal_v=j.get("nominal", 0.0))
-    return Analysed(result.to_dict(), summary.drift_summary(result, f"{path}: drift"),
-                    o.reports(lambda out: files.drift_reports(result, path, out)))
+    return Analysed(result.to_dict(), report.drift_summary(result, f"{path}: drift"),
+                    o.reports(lambda out: report.drift_reports(result, path, out)))
 
 
 KIND = Kind("drift", reanalyse, figures=drift_figures, overlay=overlay, analyse=analyse, reads="csv")

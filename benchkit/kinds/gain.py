@@ -75,11 +75,11 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
 
 def analyse(rec, o: Offline) -> Analysed:
     """A tone capture benchkit wrote (``--gain``)."""
-    from benchkit.report import summary
+    from benchkit.report import gain as report
 
     path = Path(rec.path)
     doc = {**analyze_gain(path, rec.channel, o.ref_channel, o.bandwidth_hz, o.load_ohms).to_dict(), "file": str(path)}
-    return Analysed(doc, summary.gain_summary(doc, f"{path} channel {rec.channel}: gain"))
+    return Analysed(doc, report.gain_summary(doc, f"{path} channel {rec.channel}: gain"))
 
 
 KIND = Kind("gain", reanalyse, figures=gain_figures, chosen=lambda o: o.gain, analyse=analyse, readings=gain_readings,

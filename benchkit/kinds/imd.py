@@ -114,18 +114,18 @@ def imd_run(backend, folder: Path, twin: TwinTone, levels_dbfs: list[float], cha
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    from benchkit.report import files
+    from benchkit.report import imd as report
 
     p = record.get("params") or {}
     rec = run_capture(folder, int(p.get("channel") or 1), say)
     result = analyze_imd_steps(rec, load_ohms=p.get("load_ohms"), spectrum=True)
-    return result.to_dict(), files.imd_reports(result, rec.path, rec.channel, folder)
+    return result.to_dict(), report.imd_reports(result, rec.path, rec.channel, folder)
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
-    from benchkit.report import overlays
+    from benchkit.report import imd as report
 
-    return [overlays.imd_png(docs, comparison.labels, out / "overlay.png", title, comparison.warnings)]
+    return [report.imd_png(docs, comparison.labels, out / "overlay.png", title, comparison.warnings)]
 
 
 def recognises(rec) -> bool:
@@ -138,7 +138,7 @@ def analyse(rec, o: Offline) -> Analysed:
     (``--imd METHOD[:F1:F2]``) one made elsewhere, analysed whole."""
     from benchkit import units
     from benchkit.analysis.imd import analyze_imd
-    from benchkit.report import files, summary
+    from benchkit.report import imd as report
 
     if is_imd(rec) and o.imd_method is None:
         result = analyze_imd_steps(rec, o.volts_per_fs, o.load_ohms, spectrum=o.out is not None)
@@ -150,8 +150,8 @@ def analyse(rec, o: Offline) -> Analysed:
                         o.load_ohms, spectrum=o.out is not None)
         result = ImdSteps(str(rec.path), rec.channel, twin, (ImdStep(None, r),), rec.warnings)
     doc = result.to_dict()
-    return Analysed(doc, summary.imd_summary(doc, f"{rec.path} channel {rec.channel}: intermodulation"),
-                    o.reports(lambda out: files.imd_reports(result, Path(rec.path), rec.channel, out)))
+    return Analysed(doc, report.imd_summary(doc, f"{rec.path} channel {rec.channel}: intermodulation"),
+                    o.reports(lambda out: report.imd_reports(result, Path(rec.path), rec.channel, out)))
 
 
 KIND = Kind("imd", reanalyse, figures=imd_figures, overlay=overlay, recognises=recognises,

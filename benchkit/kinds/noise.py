@@ -69,12 +69,12 @@ def noise_run(backend, folder: Path, seconds: float, channel: int = 1, bandwidth
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    from benchkit.report import files
+    from benchkit.report import noise as report
 
     p = record.get("params") or {}
     rec = run_capture(folder, int(p.get("channel") or 1), say)
     result = analyze_noise_capture(rec, run_band(p), None, p.get("reference_vrms"), p.get("reference"), traces=True)
-    return result.to_dict(), files.noise_reports(result, rec.path, rec.channel, folder)
+    return result.to_dict(), report.noise_reports(result, rec.path, rec.channel, folder)
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
@@ -100,14 +100,14 @@ def analyse(rec, o: Offline) -> Analysed:
     """A noise capture benchkit wrote, or (``--noise``) one made elsewhere;
     the SNR against 1 W into ``--load``."""
     from benchkit import units
-    from benchkit.report import files, summary
+    from benchkit.report import noise as report
 
     load = o.load_ohms
     ref = (units.vrms_from_watts(1.0, load), f"1 W into {load:g} ohm") if load is not None else (None, None)
     result = analyze_noise_capture(rec, o.bandwidth_hz, o.volts_per_fs, *ref, traces=o.out is not None)
     doc = {**result.to_dict(), "file": str(rec.path), "channel": rec.channel}
-    return Analysed(doc, summary.noise_summary(doc, f"{rec.path} channel {rec.channel}: noise"),
-                    o.reports(lambda out: files.noise_reports(result, Path(rec.path), rec.channel, out)))
+    return Analysed(doc, report.noise_summary(doc, f"{rec.path} channel {rec.channel}: noise"),
+                    o.reports(lambda out: report.noise_reports(result, Path(rec.path), rec.channel, out)))
 
 
 KIND = Kind("noise", reanalyse, figures=noise_figures, overlay=overlay, recognises=recognises,

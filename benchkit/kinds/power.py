@@ -517,7 +517,7 @@ def _inverts(rec) -> bool:
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     from benchkit.budget import ClassABudget
-    from benchkit.report import files
+    from benchkit.report import power as report
     from benchkit.kinds.tone import analyze_steps
 
     p = record.get("params") or {}
@@ -528,7 +528,7 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     result = power_from_steps(analyze_steps(rec, load_ohms=load), load, p.get("metric", "thdn"),
                               tuple(p.get("limits_pct") or (1.0, 0.1, 10.0)), p.get("onset_db", 6.0),
                               p.get("supply_v"), p.get("supply_a"), budget, polarity_inverts=_inverts(rec))
-    return result.to_dict(), files.power_reports(result, rec.path, rec.channel, folder)
+    return result.to_dict(), report.power_reports(result, rec.path, rec.channel, folder)
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
@@ -545,7 +545,7 @@ def analyse(rec, o: Offline) -> Analysed:
     """A stepped capture benchkit wrote, as a power run (``--power``)."""
     from benchkit.kinds.tone import analyze_steps, is_stepped
     from benchkit.errors import BenchkitError
-    from benchkit.report import files, summary
+    from benchkit.report import power as report
 
     if not is_stepped(rec):
         raise BenchkitError(f"{rec.path}: --power needs a stepped capture that benchkit wrote (its sidecar lists the "
@@ -553,9 +553,9 @@ def analyse(rec, o: Offline) -> Analysed:
     steps = analyze_steps(rec, o.bandwidth_hz, o.load_ohms, o.volts_per_fs, o.out is not None, o.fundamental_hz,
                                o.averages)
     result = power_from_steps(steps, polarity_inverts=_inverts(rec), **o.power)
-    text = summary.power_summary(result, f"{rec.path} channel {rec.channel}: power into {o.load_ohms:g} ohm")
+    text = report.power_summary(result, f"{rec.path} channel {rec.channel}: power into {o.load_ohms:g} ohm")
     return Analysed(result.to_dict(), text,
-                    o.reports(lambda out: files.power_reports(result, Path(rec.path), rec.channel, out)))
+                    o.reports(lambda out: report.power_reports(result, Path(rec.path), rec.channel, out)))
 
 
 KIND = Kind("power", reanalyse, figures=power_figures, overlay=overlay, chosen=lambda o: o.power is not None,

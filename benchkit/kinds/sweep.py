@@ -371,19 +371,19 @@ def response_run(
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     from benchkit.analysis.response import REFERENCE_HZ
-    from benchkit.report import files
+    from benchkit.report import sweep as report
 
     p = record.get("params") or {}
     rec = run_capture(folder, int(p.get("channel") or 1), say)
     result = analyze_response(rec, p.get("ref_channel"), reference_hz=p.get("ref_freq_hz") or REFERENCE_HZ,
                               load_ohms=p.get("load_ohms"), bandwidth_hz=run_band(p))
-    return result.to_dict(), files.response_reports(result, rec.path, rec.channel, folder, p.get("smooth"))
+    return result.to_dict(), report.response_reports(result, rec.path, rec.channel, folder, p.get("smooth"))
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
-    from benchkit.report import overlays
+    from benchkit.report import sweep as report
 
-    return [overlays.responses_png(docs, comparison.labels, out / "overlay.png", title, comparison.warnings)]
+    return [report.responses_png(docs, comparison.labels, out / "overlay.png", title, comparison.warnings)]
 
 
 def recognises(rec) -> bool:
@@ -395,16 +395,16 @@ def analyse(rec, o: Offline) -> Analysed:
     """A sweep or stepped sines benchkit played, or (``--sweep``) a
     synchronized sweep made elsewhere."""
     from benchkit.analysis.sweep import SyncSweep
-    from benchkit.report import files, summary
+    from benchkit.report import sweep as report
 
     spec = None if o.sweep is None else SyncSweep.design(*o.sweep, rec.sample_rate_hz, faded=False)
     ref_channel = o.ref_channel
     if ref_channel is None and o.sweep is None:
         ref_channel = rec.sidecar.get("reference_channel")
     result = analyze_response(rec, ref_channel, spec, o.ref_freq_hz, o.load_ohms, o.bandwidth_hz)
-    text = summary.response_summary(result, f"{rec.path} channel {rec.channel}: {result.method} response")
+    text = report.response_summary(result, f"{rec.path} channel {rec.channel}: {result.method} response")
     return Analysed(result.to_dict(), text,
-                    o.reports(lambda out: files.response_reports(result, Path(rec.path), rec.channel, out, o.smooth)))
+                    o.reports(lambda out: report.response_reports(result, Path(rec.path), rec.channel, out, o.smooth)))
 
 
 KIND = Kind("sweep", reanalyse, figures=response_figures, overlay=overlay, recognises=recognises,

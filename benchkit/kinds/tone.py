@@ -171,12 +171,12 @@ def tone_run(
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    from benchkit.report import files
+    from benchkit.report import tone as report
 
     p = record.get("params") or {}
     rec = run_capture(folder, int(p.get("channel") or 1), say)
     steps = analyze_steps(rec, run_band(p), p.get("load_ohms"), traces=True)
-    return steps.to_dict(), files.steps_reports(steps, rec.path, rec.channel, folder)
+    return steps.to_dict(), report.steps_reports(steps, rec.path, rec.channel, folder)
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
@@ -191,7 +191,7 @@ def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> lis
 
 def _spectra(entries, docs, labels, folder: Path, title: str, warnings) -> list[Path]:
     from benchkit.recordings import read_capture
-    from benchkit.report import overlays
+    from benchkit.report import tone as report
 
     shared = set.intersection(*({s["drive_dbfs"] for s in d.get("steps") or []} for d in docs))
     if not shared:
@@ -208,7 +208,7 @@ def _spectra(entries, docs, labels, folder: Path, title: str, warnings) -> list[
                               tuple(doc["steps"][0].get("bandwidth_hz") or (20.0, 20000.0)), traces=True)
         results.append(next(s.result for s in steps.steps if s.drive_dbfs == drive))
     path = folder / "spectra.png"
-    return [overlays.spectra_png(results, labels, path, f"{title}: spectra at drive {drive:g} dBFS", warnings)]
+    return [report.spectra_png(results, labels, path, f"{title}: spectra at drive {drive:g} dBFS", warnings)]
 
 
 def recognises(rec) -> bool:
@@ -223,14 +223,14 @@ def analyse(rec, o: Offline) -> Analysed:
 
     from benchkit import units
     from benchkit.analysis.tone import analyze_tone
-    from benchkit.report import files, summary
+    from benchkit.report import tone as report
 
     path, channel = Path(rec.path), rec.channel
     if is_stepped(rec):
         steps = analyze_steps(rec, o.bandwidth_hz, o.load_ohms, o.volts_per_fs, o.out is not None,
                                    o.fundamental_hz, o.averages)
-        text = summary.steps_summary(steps, f"{path} channel {channel} ({units.count(len(steps.steps), 'step')})")
-        return Analysed(steps.to_dict(), text, o.reports(lambda out: files.steps_reports(steps, path, channel, out)))
+        text = report.steps_summary(steps, f"{path} channel {channel} ({units.count(len(steps.steps), 'step')})")
+        return Analysed(steps.to_dict(), text, o.reports(lambda out: report.steps_reports(steps, path, channel, out)))
     scale, source = o.scale(rec)
     result = analyze_tone(rec.samples, rec.sample_rate_hz,
                           fundamental_hz=o.fundamental_hz if o.fundamental_hz is not None else rec.stimulus_frequency_hz,
@@ -245,8 +245,8 @@ def analyse(rec, o: Offline) -> Analysed:
     doc["warnings"] = list(rec.warnings) + doc["warnings"]
     if cal:
         doc["calibration"] = cal
-    return Analysed(doc, summary.tone_summary(result, str(path), channel),
-                    o.reports(lambda out: files.tone_reports(result, doc, path, channel, out)))
+    return Analysed(doc, report.tone_summary(result, str(path), channel),
+                    o.reports(lambda out: report.tone_reports(result, doc, path, channel, out)))
 
 
 KIND = Kind("tone", reanalyse, figures=step_figures, overlay=overlay, recognises=recognises, analyse=analyse,

@@ -104,7 +104,7 @@ def zout_run(backend, folder: Path, load_ohms: float, frequencies_hz, level_dbfs
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    from benchkit.report import files
+    from benchkit.report import zout as report
 
     p = record.get("params") or {}
     load, open_load = float(p["load_ohms"]), p.get("open_load_ohms")
@@ -116,7 +116,7 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
         result = output_impedance(*(readings_of_result(d) for d in docs), load, open_load)
     else:
         result = zout_of_captures(folder, load, open_load, int(p.get("channel") or 1), p.get("ref_channel"))
-    return result.to_dict(), files.zout_reports(result, folder, folder)
+    return result.to_dict(), report.zout_reports(result, folder, folder)
 
 
 KIND = Kind("zout", reanalyse, figures=zout_figures)

@@ -1,0 +1,100 @@
+"""What people read of noise: the text summary, the density table and plot,
+and the report files."""
+
+from __future__ import annotations
+
+import csv
+import math
+from pathlib import Path
+
+import numpy as np
+from matplotlib.figure import Figure
+
+from benchkit.report.files import result_csv_png
+from benchkit.report.plots import BAND, FAINT, log_hz_axis, MARK, save_png, TRACE
+from benchkit.units import quantity
+
+
+def noise_summary(d: dict, title: str = "") -> str:
+    """A noise result (its document), one screen."""
+    lines = [title] if title else []
+    lo, hi = d["bandwidth_hz"]
+    band = f"{lo:g} Hz to {hi:g} Hz"
+
+    def level(v, db, dbfs):
+        return f"{quantity(v, 'Vrms')} ({db:.1f} dBV, {dbfs:.1f} dBFS)" if v is not None else f"{dbfs:.1f} dBFS"
+
+    lines.append(f"  unweighted   {level(d['noise_vrms'], d['noise_dbv'] or 0, d['noise_dbfs'])} over {band}")
+    lines.append(f"  A-weighted   {level(d['noise_a_vrms'], d['noise_a_dbv'] or 0, d['noise_a_dbfs'])}")
+    ref = d.get("snr_reference")
+    if ref and d.get("snr_db") is not None:
+        lines.append(f"  SNR          {d['snr_db']:.1f} dB, {d['snr_a_db']:.1f} dB A-weighted, re {ref['what']} "
+                     f"({quantity(ref['vrms'], 'Vrms')})")
+    if d.get("hum"):
+        parts = [f"{h['freq_hz']:g} Hz {h['level_dbfs']:.1f} dBFS" + (f" ({quantity(h['level_vrms'], 'Vrms')})"
+                                                                       if h.get("level_vrms") else "")
+                 for h in d["hum"]]
+        lines.append(f"  hum          {d['mains_hz']:g} Hz mains: " + "; ".join(parts))
+    else:
+        lines.append("  hum          no mains lines above the noise")
+    for w in d.get("warnings") or []:
+        lines.append(f"  warning      {w}")
+    return "\n".join(lines)
+
+
+def write_noise_csv(result, path: Path) -> Path:
+    """The noise spectrum, a row a frequency: the density in FS^2/Hz and,
+    with a scale, in V/sqrt(Hz); A-weighted beside it."""
+    from benchkit.analysis.weighting import a_weighting_power
+
+    f, p = result.freq_hz, result.psd_fs2_per_hz
+    scale = result.volts_per_fs
+    a = a_weighting_power(f)
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["freq_hz", "psd_fs2_per_hz", "psd_a_fs2_per_hz"] + (["v_per_sqrt_hz"] if scale else []))
+        for k in range(1, f.size):
+            row = [f"{f[k]:.4f}", f"{p[k]:.6e}", f"{p[k] * a[k]:.6e}"]
+            if scale:
+                row.append(f"{math.sqrt(p[k]) * scale:.6e}")
+            w.writerow(row)
+    return path
+
+
+def noise_png(result, path: Path, title: str) -> Path:
+    """The noise spectrum (density, log frequency), the A-weighted density
+    beside it, the band shaded and the hum lines marked with their levels."""
+    from benchkit.analysis.weighting import a_weighting_power
+
+    f, p = result.freq_hz[1:], result.psd_fs2_per_hz[1:]
+    scale = result.volts_per_fs
+    unit = "dB re 1 V/sqrt(Hz)" if scale else "dB re 1 FS/sqrt(Hz)"
+    to_db = (lambda q: 10 * np.log10(np.maximum(q, 1e-300)) + (20 * np.log10(scale) if scale else 0.0))
+    fig = Figure(figsize=(10, 5.6))
+    ax = fig.add_subplot(1, 1, 1)
+    lo, hi = result.bandwidth_hz
+    ax.axvspan(max(lo, f[0]), hi, color=BAND, zorder=0, label="measurement band")
+    ax.plot(f, to_db(p), color=TRACE, lw=0.8, label="noise density")
+    ax.plot(f, to_db(p * a_weighting_power(f)), color=FAINT, lw=0.8, label="A-weighted")
+    for h in result.hum:
+        k = int(np.argmin(np.abs(f - h.freq_hz)))
+        ax.plot([f[k]], [to_db(p[k])], "v", ms=5, color=MARK)
+        ax.annotate(f"{h.freq_hz:g} Hz\n{h.level_dbfs:.1f} dBFS", (f[k], to_db(p[k])), textcoords="offset points",
+                    xytext=(0, 6), ha="center", fontsize=7, color=MARK)
+    log_hz_axis(ax)
+    ax.set_xlim(max(f[0], 5.0), f[-1])
+    in_band = to_db(p[(f >= lo) & (f <= hi)])
+    ax.set_ylim(float(np.min(in_band)) - 30.0, float(np.max(in_band)) + 12.0)
+    ax.set_xlabel("frequency (Hz)")
+    ax.set_ylabel(unit)
+    ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
+    ax.legend(loc="upper right", fontsize=8, frameon=False)
+    d = result.to_dict()
+    ax.set_title(f"{title}: noise {d['noise_dbfs']:.1f} dBFS, A-weighted {d['noise_a_dbfs']:.1f} dBFS", loc="left",
+                 fontsize=10)
+    fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.11)
+    return save_png(fig, path)
+
+
+def noise_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
+    return result_csv_png(result, path, channel, out, "noise", write_noise_csv, noise_png)
