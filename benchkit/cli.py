@@ -552,6 +552,15 @@ def _start_run(book, labels: dict, command: str, backend, profile, calibration: 
     return run
 
 
+def _report_run(run, kind: str, result, title: str, as_json: bool, channel: int = 1, status: str = "complete",
+                doc: dict | None = None, **options) -> None:
+    """A run's result on one screen and in its report files (its kind's),
+    and the run completed (:func:`_finish_run`)."""
+    measured = kinds.get(kind)
+    _err(measured.summary(result, title))
+    _finish_run(measured.reports(result, run.folder, channel, **options), run, doc or result.to_dict(), as_json, status)
+
+
 def _finish_run(written: list[Path], run, doc: dict, as_json: bool, status: str = "complete", played: bool = True) -> None:
     """Complete the run in the logbook (its files are on disk), say where
     it is, and print the result with the run's id and folder. A run that
@@ -602,7 +611,6 @@ def tone(
     """
     from benchkit import record
     from benchkit.kinds.tone import tone_run
-    from benchkit.report import tone as tone_report
     from benchkit.signals import check_level
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -626,9 +634,8 @@ def tone(
                                   channel=channel, traces=True, calibration=profile,
                                   calibration_file=None if calibration is None else str(calibration),
                                   warnings=plan.warnings, note=labels["note"])
-            _err(tone_report.steps_summary(steps, f"{frequency:g} Hz, {units.count(len(drive), 'step')}, latency {steps.latency_samples} samples"))
-            written = tone_report.steps_reports(steps, run.folder / "capture.wav", channel, run.folder)
-            _finish_run(written, run, steps.to_dict(), as_json)
+            _report_run(run, "tone", steps, f"{frequency:g} Hz, {units.count(len(drive), 'step')}, latency "
+                        f"{steps.latency_samples} samples", as_json, channel)
 
 
 @app.command()
@@ -934,7 +941,6 @@ def noise(
     parts of a class-A stage while you do.
     """
     from benchkit.kinds.noise import noise_run
-    from benchkit.report import noise as noise_report
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth) or (20.0, 20000.0)
@@ -952,10 +958,8 @@ def noise(
         with _start_run(book, labels, "noise", backend, profile, calibration, params) as run:
             result = noise_run(backend, run.folder, length, in_channel, band, reference_vrms, reference,
                                labels["note"], profile, None if calibration is None else str(calibration))
-            doc = result.to_dict()
-            _err(noise_report.noise_summary(doc, f"noise of {backend.name} input {in_channel}, {length:g} s"))
-            written = noise_report.noise_reports(result, run.folder / "capture.wav", in_channel, run.folder)
-            _finish_run(written, run, doc, as_json)
+            _report_run(run, "noise", result, f"noise of {backend.name} input {in_channel}, {length:g} s", as_json,
+                        in_channel)
 
 
 @app.command()
@@ -984,8 +988,6 @@ def gain(
     """
     from benchkit.kinds.gain import analyze_gain
     from benchkit.record import record_steps
-    from benchkit.report.tables import write_json
-    from benchkit.report import gain as gain_report
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
@@ -998,10 +1000,7 @@ def gain(
             path = record_steps(backend, run.folder, frequency, [drive], channel=in_channel, calibration=profile,
                                 note=labels["note"], warnings=plan.warnings,
                                 calibration_file=None if calibration is None else str(calibration))
-            result = analyze_gain(path, in_channel, ref_channel, band, load)
-            doc = result.to_dict()
-            _err(gain_report.gain_summary(doc))
-            _finish_run([write_json(doc, run.folder / "capture.gain.json")], run, doc, as_json)
+            _report_run(run, "gain", analyze_gain(path, in_channel, ref_channel, band, load), "", as_json, in_channel)
 
 
 @app.command()
@@ -1038,7 +1037,6 @@ def imd(
     from benchkit import record
     from benchkit.analysis.imd import shortest_record_s
     from benchkit.kinds.imd import imd_run, twin_tone
-    from benchkit.report import imd as imd_report
     from benchkit.signals import check_level
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -1062,10 +1060,7 @@ def imd(
         with _start_run(book, labels, "imd", backend, profile, calibration, params) as run:
             result = imd_run(backend, run.folder, twin, drive, in_channel, load, labels["note"], profile,
                              None if calibration is None else str(calibration), plan.warnings, step, spectrum=True)
-            doc = result.to_dict()
-            _err(imd_report.imd_summary(doc, f"intermodulation, {len(drive)} level(s)"))
-            written = imd_report.imd_reports(result, run.folder / "capture.wav", in_channel, run.folder)
-            _finish_run(written, run, doc, as_json)
+            _report_run(run, "imd", result, f"intermodulation, {len(drive)} level(s)", as_json, in_channel)
 
 
 @app.command()
@@ -1099,7 +1094,6 @@ def zout(
     you between the two readings). A stage with an output transformer
     (valve amplifiers) must not run unloaded: do not use this on one.
     """
-    from benchkit.report import zout as zout_report
     from benchkit.kinds.zout import zout_run
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -1127,9 +1121,7 @@ def zout(
         with _start_run(book, labels, "zout", backend, profile, calibration, params) as run:
             result = zout_run(backend, run.folder, load, freqs, drive, switch, open_load, in_channel, ref_channel,
                               labels["note"], profile, None if calibration is None else str(calibration), plan.warnings)
-            doc = result.to_dict()
-            _err(zout_report.zout_summary(doc, "output impedance"))
-            _finish_run(zout_report.zout_reports(result, run.folder, run.folder), run, doc, as_json)
+            _report_run(run, "zout", result, "output impedance", as_json, in_channel)
 
 
 def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optional[float], as_json: bool) -> None:
@@ -1138,7 +1130,6 @@ def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optio
     from benchkit.analysis.zout import output_impedance
     from benchkit.compare_runs import stored_result
     from benchkit.report.tables import write_json
-    from benchkit.report import zout as zout_report
     from benchkit.kinds.zout import readings_of_result
 
     if len(refs) != 2:
@@ -1149,9 +1140,9 @@ def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optio
     params = {"from": [e.id for e in entries], "load_ohms": load, "open_load_ohms": open_load}
     with _start_run(book, labels, "zout", "logbook", None, None, params) as run:
         copies = [write_json(d, run.folder / f"{state}.result.json") for d, state in zip(docs, ("open", "loaded"))]
-        doc = result.to_dict()
-        _err(zout_report.zout_summary(doc, f"output impedance from {entries[0].id} (open) and {entries[1].id} (loaded)"))
-        _finish_run(zout_report.zout_reports(result, run.folder, run.folder) + copies, run, doc, as_json)
+        measured = kinds.get("zout")
+        _err(measured.summary(result, f"output impedance from {entries[0].id} (open) and {entries[1].id} (loaded)"))
+        _finish_run(measured.reports(result, run.folder) + copies, run, result.to_dict(), as_json)
 
 
 @app.command()
@@ -1184,7 +1175,6 @@ def crosstalk(
     the stage's full output.
     """
     from benchkit.kinds.crosstalk import crosstalk_run
-    from benchkit.report import crosstalk as crosstalk_report
 
     with _live_run(), _logbook(filing) as (book, labels):
         band = units.parse_band(bandwidth)
@@ -1205,10 +1195,8 @@ def crosstalk(
         with _start_run(book, labels, "crosstalk", backend, profile, calibration, params) as run:
             result = crosstalk_run(backend, run.folder, freqs, drive, outputs, inputs, labels["note"], profile,
                                    None if calibration is None else str(calibration), plan.warnings)
-            doc = {**result.to_dict(), "load_ohms": load}
-            _err(crosstalk_report.crosstalk_summary(doc, "crosstalk and balance"))
-            written = crosstalk_report.crosstalk_reports(result, run.folder / "capture.wav", run.folder)
-            _finish_run(written, run, doc, as_json)
+            _report_run(run, "crosstalk", result, "crosstalk and balance", as_json,
+                        doc={**result.to_dict(), "load_ohms": load})
 
 
 def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: float, load: Optional[float],
@@ -1272,7 +1260,6 @@ def sweep(
     from benchkit import record
     from benchkit.kinds.sweep import response_run
     from benchkit.analysis.sweep import SyncSweep
-    from benchkit.report import sweep as sweep_report
     from benchkit.signals import check_level
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -1299,9 +1286,8 @@ def sweep(
                 backend, run.folder, drive, (f1, f2), length, stepped, per_octave, [float(f) for f in freqs] or None,
                 in_channel, ref_channel, load, band, ref_freq, profile, None if calibration is None else str(calibration),
                 note=labels["note"], warnings=plan.warnings)
-            _err(sweep_report.response_summary(result, f"{result.method} response, {f1:g} to {f2:g} Hz at {drive:g} dBFS"))
-            written = sweep_report.response_reports(result, run.folder / "capture.wav", in_channel, run.folder, smooth)
-            _finish_run(written, run, result.to_dict(), as_json)
+            _report_run(run, "sweep", result, f"{result.method} response, {f1:g} to {f2:g} Hz at {drive:g} dBFS", as_json,
+                        in_channel, smooth=smooth)
 
 
 @app.command()
@@ -1342,7 +1328,6 @@ def power(
     """
     from benchkit import record
     from benchkit.kinds.power import power_run
-    from benchkit.report import power as power_report
 
     with _live_run(), _logbook(filing) as (book, labels):
         opts = _power_options(True, load, live["rail"], **figures)
@@ -1402,10 +1387,10 @@ def power(
                 if amps_meter is not None:
                     amps_meter.close()
             info = result.info or {}
-            _err(power_report.power_summary(result, f"{frequency:g} Hz into {load:g} ohm: {units.count(info.get('steps_played') or 0, 'step')}, "
-                                               f"{info.get('stimulus_s', 0):.1f} s; stopped: {info.get('stop_reason')}"))
-            written = power_report.power_reports(result, run.folder / "capture.wav", in_channel, run.folder)
-            _finish_run(written, run, result.to_dict(), as_json, "interrupted" if info.get("interrupted") else "complete")
+            _report_run(run, "power", result, f"{frequency:g} Hz into {load:g} ohm: "
+                        f"{units.count(info.get('steps_played') or 0, 'step')}, {info.get('stimulus_s', 0):.1f} s; "
+                        f"stopped: {info.get('stop_reason')}", as_json, in_channel,
+                        "interrupted" if info.get("interrupted") else "complete")
     if info.get("device_lost"):
         # everything is on disk; PortAudio can hang for good shutting down a dead server's client
         sys.stdout.flush()
@@ -1450,7 +1435,6 @@ def drift(
     """
     from benchkit import meters
     from benchkit.kinds.drift import analyze_drift_csv, log_drift
-    from benchkit.report import drift as drift_report
 
     with _live_run(), _logbook(filing) as (book, labels):
         step = interval * (accelerate if source == "virtual" else 1.0)  # the source's own seconds between readings
@@ -1494,10 +1478,8 @@ def drift(
                                        info={"source": reader.name, "ended": end.how,
                                              "accelerated": params["accelerated"]},
                                        warnings=notes, nominal_v=nominal)
-            _err(drift_report.drift_summary(result, f"{reader.name}: {end.how}"))
-            written = drift_report.drift_reports(result, log, run.folder)
-            _finish_run(written, run, result.to_dict(), as_json,
-                        "complete" if end.how in ("duration", "settled") else "interrupted")
+            _report_run(run, "drift", result, f"{reader.name}: {end.how}", as_json,
+                        status="complete" if end.how in ("duration", "settled") else "interrupted")
     if end.how != "duration" and end.how != "settled":
         raise typer.Exit(EXIT_INTERRUPTED if end.how == "interrupted" else EXIT_BAD_INPUT)
 

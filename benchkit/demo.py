@@ -29,6 +29,7 @@ from pathlib import Path
 from typing import Callable
 
 from benchkit import units
+from benchkit import kinds
 from benchkit.kinds import headline_figures
 from benchkit.budget import ClassABudget
 from benchkit.capture.virtual import DEMO_PAD, virtual_bench
@@ -36,15 +37,6 @@ from benchkit.compare_runs import compare_runs
 from benchkit.kinds.imd import imd_run, twin_tone
 from benchkit.logbook import Logbook
 from benchkit.kinds.power import power_run
-from benchkit.report import crosstalk as crosstalk_report
-from benchkit.report import drift as drift_report
-from benchkit.report import gain as gain_report
-from benchkit.report import imd as imd_report
-from benchkit.report import noise as noise_report
-from benchkit.report import power as power_report
-from benchkit.report import sweep as sweep_report
-from benchkit.report import tone as tone_report
-from benchkit.report import zout as zout_report
 from benchkit.kinds.sweep import response_run
 from benchkit.kinds.tone import StepsResult, tone_run
 
@@ -91,7 +83,7 @@ def _demo_drift(folder: Path, seed: int):
     log_drift(VirtualMidpoint(stage, accelerated=DRIFT_STEP_S, seed=seed), log, 1.0, DRIFT_S)
     result = analyze_drift_csv(log, limit_v=0.5, band_v=0.01, nominal_v=RAIL_V / 2,
                                info={"source": "virtual se-class-a midpoint", "accelerated": DRIFT_STEP_S})
-    return result, drift_report.drift_reports(result, log, folder)
+    return result
 
 
 @dataclass(frozen=True)
@@ -105,10 +97,11 @@ class DemoReport:
 
 def _logged(book: Logbook, command: str, bias: float, params: dict, measure) -> tuple[object, list[Path]]:
     """One run filed in the logbook: ``measure(folder)`` makes the result
-    and its report files there."""
+    there, and its kind writes its report files beside it."""
     with book.start(command, tags={"bias": f"{bias:g}A"}, note=NOTE, stage=STAGE, device="virtual",
                     params=params, argv=["demo"]) as run:
-        result, written = measure(run.folder)
+        result = measure(run.folder)
+        written = kinds.get(command).reports(result, run.folder, 1)
         doc = result.to_dict()
         run.complete(doc, written, written[0], figures=headline_figures(doc))
     return result, written
@@ -132,38 +125,35 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
         bench = virtual_bench("se-class-a", stage, pad=DEMO_PAD, seed=seed + i)
 
         def tones_in(folder, bench=bench):
-            steps = tone_run(bench, folder, FREQUENCY_HZ, list(DRIVE_DBFS), load_ohms=LOAD_OHMS, note=NOTE,
-                             traces=True)
-            return steps, tone_report.steps_reports(steps, folder / "capture.wav", 1, folder)
+            return tone_run(bench, folder, FREQUENCY_HZ, list(DRIVE_DBFS), load_ohms=LOAD_OHMS, note=NOTE,
+                            traces=True)
 
         steps, written = _logged(book, "tone", bias, dict(channel=1, frequency_hz=FREQUENCY_HZ, levels_dbfs=list(DRIVE_DBFS),
                                                           load_ohms=LOAD_OHMS, bandwidth_hz=band,
                                                           sample_rate_hz=bench.sample_rate_hz), tones_in)
         tones.append((label, steps))
         files += written
-        texts.append(tone_report.steps_summary(steps, f"Test stage B-2, {label}"))
+        texts.append(kinds.get("tone").summary(steps, f"Test stage B-2, {label}"))
         say(f"virtual bench: stage B-2 at {label}, intermodulation (60 Hz + 7 kHz, 4:1) at {len(IMD_DBFS)} levels")
         im_bench = virtual_bench("se-class-a", stage, pad=DEMO_PAD, seed=seed + 21 + i)
 
         def imd_in(folder, im_bench=im_bench):
-            r = imd_run(im_bench, folder, twin_tone("modulation"), list(IMD_DBFS), load_ohms=LOAD_OHMS, note=NOTE,
-                        spectrum=True)
-            return r, imd_report.imd_reports(r, folder / "capture.wav", 1, folder)
+            return imd_run(im_bench, folder, twin_tone("modulation"), list(IMD_DBFS), load_ohms=LOAD_OHMS, note=NOTE,
+                           spectrum=True)
 
         im, written = _logged(book, "imd", bias, dict(channel=1, twin=twin_tone("modulation").to_dict(),
                                                       levels_dbfs=list(IMD_DBFS), load_ohms=LOAD_OHMS,
                                                       sample_rate_hz=im_bench.sample_rate_hz), imd_in)
         files += written
-        texts.append(imd_report.imd_summary(im.to_dict(), f"Test stage B-2, {label}: intermodulation"))
+        texts.append(kinds.get("imd").summary(im, f"Test stage B-2, {label}: intermodulation"))
         say(f"virtual bench: stage B-2 at {label}, power run to 10 % THD+N")
         budget = ClassABudget(RAIL_V, bias, LOAD_OHMS, VSAT_V)
         first = units.db_from_ratio(budget.peak_vpk / 20.0) - 40.0
         pw_bench = virtual_bench("se-class-a", stage, pad=DEMO_PAD, seed=seed + 11 + i)
 
         def power_in(folder, pw_bench=pw_bench, budget=budget, first=first, bias=bias):
-            pw = power_run(pw_bench, folder, FREQUENCY_HZ, first, -3.0, LOAD_OHMS, ref_channel=pw_bench.reference_input(),
-                           supply_v=RAIL_V, supply_a=bias, budget=budget, note=NOTE)
-            return pw, power_report.power_reports(pw, folder / "capture.wav", 1, folder)
+            return power_run(pw_bench, folder, FREQUENCY_HZ, first, -3.0, LOAD_OHMS, ref_channel=pw_bench.reference_input(),
+                             supply_v=RAIL_V, supply_a=bias, budget=budget, note=NOTE)
 
         params = dict(channel=1, ref_channel=pw_bench.reference_input(), frequency_hz=FREQUENCY_HZ, load_ohms=LOAD_OHMS,
                       supply_v=RAIL_V, supply_a=bias, rail_v=RAIL_V, bias_a=bias, vsat_v=VSAT_V,
@@ -171,16 +161,15 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
         pw, written = _logged(book, "power", bias, params, power_in)
         powers.append((label, pw))
         files += written
-        texts.append(power_report.power_summary(pw, f"Test stage B-2, {label}: power into {LOAD_OHMS:g} ohm"))
+        texts.append(kinds.get("power").summary(pw, f"Test stage B-2, {label}: power into {LOAD_OHMS:g} ohm"))
     bias = BIASES_A[-1]
     label = f"bias {bias:g} A"
     say(f"virtual bench: stage B-2 at {label}, sweep {SWEEP_SPAN_HZ[0]:g} Hz to {SWEEP_SPAN_HZ[1]:g} Hz")
     bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 7)
 
     def sweep_in(folder):
-        r = response_run(bench, folder, SWEEP_DBFS, SWEEP_SPAN_HZ, SWEEP_S, ref_channel=bench.reference_input(),
-                         load_ohms=LOAD_OHMS, note=NOTE)
-        return r, sweep_report.response_reports(r, folder / "capture.wav", 1, folder)
+        return response_run(bench, folder, SWEEP_DBFS, SWEEP_SPAN_HZ, SWEEP_S, ref_channel=bench.reference_input(),
+                            load_ohms=LOAD_OHMS, note=NOTE)
 
     response, written = _logged(book, "sweep", bias, dict(channel=1, ref_channel=bench.reference_input(),
                                                           load_ohms=LOAD_OHMS, bandwidth_hz=band,
@@ -189,7 +178,6 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     files += written
     say(f"virtual bench: stage B-2 at {label}, voltage gain at 1 kHz")
     from benchkit.kinds.gain import analyze_gain
-    from benchkit.report.tables import write_json
     from benchkit.record import record_steps
 
     g_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 19)
@@ -197,7 +185,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     def gain_in(folder):
         path = record_steps(g_bench, folder, 1000.0, [GAIN_DBFS], note=NOTE)
         r = analyze_gain(path, 1, g_bench.reference_input(), band, LOAD_OHMS)
-        return r, [write_json(r.to_dict(), folder / "capture.gain.json")]
+        return r
 
     gain, written = _logged(book, "gain", bias, dict(channel=1, ref_channel=g_bench.reference_input(), frequency_hz=1000.0,
                                                      level_dbfs=GAIN_DBFS, load_ohms=LOAD_OHMS, bandwidth_hz=band,
@@ -210,9 +198,8 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     one_watt = units.vrms_from_watts(1.0, LOAD_OHMS)
 
     def noise_in(folder):
-        r = noise_run(nz_bench, folder, NOISE_S, reference_vrms=one_watt, reference=f"1 W into {LOAD_OHMS:g} ohm",
-                      note=NOTE)
-        return r, noise_report.noise_reports(r, folder / "capture.wav", 1, folder)
+        return noise_run(nz_bench, folder, NOISE_S, reference_vrms=one_watt, reference=f"1 W into {LOAD_OHMS:g} ohm",
+                         note=NOTE)
 
     noise, written = _logged(book, "noise", bias, dict(channel=1, bandwidth_hz=band, reference_vrms=one_watt,
                                                        reference=f"1 W into {LOAD_OHMS:g} ohm", length_s=NOISE_S,
@@ -224,9 +211,8 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
     z_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 13)
 
     def zout_in(folder):
-        r = zout_run(z_bench, folder, LOAD_OHMS, DEFAULT_FREQS_HZ, SWEEP_DBFS, z_bench.connect_load,
-                     z_bench.pad_input_ohms(), ref_channel=z_bench.reference_input(), note=NOTE)
-        return r, zout_report.zout_reports(r, folder, folder)
+        return zout_run(z_bench, folder, LOAD_OHMS, DEFAULT_FREQS_HZ, SWEEP_DBFS, z_bench.connect_load,
+                        z_bench.pad_input_ohms(), ref_channel=z_bench.reference_input(), note=NOTE)
 
     zout, written = _logged(book, "zout", bias, dict(channel=1, ref_channel=z_bench.reference_input(), load_ohms=LOAD_OHMS,
                                                      open_load_ohms=z_bench.pad_input_ohms(),
@@ -241,8 +227,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                             stereo=True)
 
     def crosstalk_in(folder):
-        r = crosstalk_run(x_bench, folder, XTALK_FREQS, SWEEP_DBFS, note=NOTE)
-        return r, crosstalk_report.crosstalk_reports(r, folder / "capture.wav", folder)
+        return crosstalk_run(x_bench, folder, XTALK_FREQS, SWEEP_DBFS, note=NOTE)
 
     xtalk, written = _logged(book, "crosstalk", bias, dict(channel=1, inputs=[1, 3], outputs=[1, 2],
                                                            frequencies_hz=list(XTALK_FREQS), level_dbfs=SWEEP_DBFS,
@@ -263,12 +248,12 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
         files += report.files
     (la, _a), (lb, _b) = tones
     texts.append(f"Before/after ({la} -> {lb}), 'benchkit compare':\n" + "\n\n".join(r.text for r in comparisons))
-    texts.append(sweep_report.response_summary(response, f"Test stage B-2, {label}: response"))
-    texts.append(gain_report.gain_summary(gain.to_dict(), f"Test stage B-2, {label}: voltage gain"))
-    texts.append(noise_report.noise_summary(noise.to_dict(), f"Test stage B-2, {label}: output noise, input terminated"))
-    texts.append(zout_report.zout_summary(zout.to_dict(), f"Test stage B-2, {label}: output impedance into {LOAD_OHMS:g} ohm"))
-    texts.append(crosstalk_report.crosstalk_summary(xtalk.to_dict(), f"Test stage B-2 as a stereo pair, {label}: crosstalk"))
-    texts.append(drift_report.drift_summary(drift, f"Test stage B-2, {label}: midpoint after power-on "
+    texts.append(kinds.get("sweep").summary(response, f"Test stage B-2, {label}: response"))
+    texts.append(kinds.get("gain").summary(gain, f"Test stage B-2, {label}: voltage gain"))
+    texts.append(kinds.get("noise").summary(noise, f"Test stage B-2, {label}: output noise, input terminated"))
+    texts.append(kinds.get("zout").summary(zout, f"Test stage B-2, {label}: output impedance into {LOAD_OHMS:g} ohm"))
+    texts.append(kinds.get("crosstalk").summary(xtalk, f"Test stage B-2 as a stereo pair, {label}: crosstalk"))
+    texts.append(kinds.get("drift").summary(drift, f"Test stage B-2, {label}: midpoint after power-on "
                                               "(virtual thermal model, accelerated 10x)"))
     text = "\n\n".join(texts)
     from benchkit.recordings import write_text_atomic

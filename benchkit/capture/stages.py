@@ -43,6 +43,10 @@ class Param:
     help: str
 
 
+#: A stage's output resistance, none unless given (a Thevenin source: the load divides it).
+ROUT = Param("rout", 0.0, "ohm", "output resistance (a Thevenin source: the load divides it)")
+
+
 class StageModel:
     """Base of every simulated stage."""
 
@@ -119,7 +123,7 @@ class Ideal(StageModel):
     NAME = "ideal"
     SUMMARY = "gain only: v_out = gain x v_in"
     PARAMS = (Param("gain", 10.0, "V/V", "voltage gain"),
-              Param("rout", 0.0, "ohm", "output resistance (a Thevenin source: the load divides it)"))
+              ROUT)
 
     def _transfer(self, v_in, rate):
         return self.params["gain"] * v_in
@@ -130,11 +134,9 @@ class Poly(StageModel):
     SUMMARY = "polynomial: v_out = gain v + a2 v^2 + a3 v^3 + a4 v^4 + a5 v^5 (v = input volts)"
     PARAMS = (
         Param("gain", 10.0, "V/V", "linear gain"),
-        Param("a2", 0.0, "1/V", "second-order coefficient"),
-        Param("a3", 0.0, "1/V^2", "third-order coefficient"),
-        Param("a4", 0.0, "1/V^3", "fourth-order coefficient"),
-        Param("a5", 0.0, "1/V^4", "fifth-order coefficient"),
-        Param("rout", 0.0, "ohm", "output resistance (a Thevenin source: the load divides it)"),
+        *(Param(f"a{k}", 0.0, "1/V" if k == 2 else f"1/V^{k - 1}", f"{word}-order coefficient")
+          for k, word in zip(range(2, 6), ("second", "third", "fourth", "fifth"))),
+        ROUT,
     )
 
     def _transfer(self, v_in, rate):
@@ -148,7 +150,7 @@ class HardClip(StageModel):
     PARAMS = (
         Param("gain", 10.0, "V/V", "voltage gain"),
         Param("vclip", 9.5, "V", "clipping level, either polarity"),
-        Param("rout", 0.0, "ohm", "output resistance (a Thevenin source: the load divides it)"),
+        ROUT,
     )
 
     def validate(self):

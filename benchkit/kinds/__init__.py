@@ -82,6 +82,11 @@ class Kind:
         ``(folder, record, say) -> (result document, report files)``: the
         run analysed again from what its folder holds (the first file is
         the result JSON).
+    summary
+        ``(result, title) -> str``: a run's result on one screen.
+    reports
+        ``(result, folder, channel) -> [files]``: a run's report files, in
+        its folder beside its capture (the first the result JSON).
     figures
         ``(result document) -> [analysis.compare.Figure]``: what compares;
         None for a kind whose runs do not compare.
@@ -105,6 +110,8 @@ class Kind:
 
     name: str
     reanalyse: Callable[[Path, dict, Callable[[str], None]], tuple[dict, list[Path]]]
+    summary: Callable[[Any, str], str] | None = None
+    reports: Callable[[Any, Path, int], list[Path]] | None = None
     figures: Callable[[dict], list] | None = None
     overlay: Callable[..., list[Path]] | None = None
     recognises: Callable[[Any], bool] | None = None
@@ -216,6 +223,7 @@ def analyse_file(path: Path, options: Offline, say: Callable[[str], None] = lamb
 
 #: The capture a run stores under its folder (``capture.wav`` and its sidecar).
 CAPTURE = "capture"
+CAPTURE_WAV = f"{CAPTURE}.wav"
 
 
 def run_band(params: dict) -> tuple[float, float] | None:

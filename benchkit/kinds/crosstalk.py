@@ -14,7 +14,7 @@ from pathlib import Path
 from benchkit.analysis.crosstalk import crosstalk_figures, CrosstalkResult, leak
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_band, run_capture
 from benchkit.recordings import read_capture, Takes
 
 
@@ -83,13 +83,23 @@ def crosstalk_run(backend, folder: Path, frequencies_hz, level_dbfs: float, outp
     return analyze_crosstalk_capture(path)
 
 
-def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
+def summary(result, title: str) -> str:
     from benchkit.report import crosstalk as report
 
+    return report.crosstalk_summary(result.to_dict(), title)
+
+
+def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
+    from benchkit.report import crosstalk as report
+
+    return report.crosstalk_reports(result, folder / CAPTURE_WAV, folder)
+
+
+def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     p = record.get("params") or {}
     path = run_capture(folder, int(p.get("channel") or 1), say).path
     result = analyze_crosstalk_capture(path, run_band(p))
-    return result.to_dict(), report.crosstalk_reports(result, path, folder)
+    return result.to_dict(), reports(result, folder)
 
 
 def analyse(rec, o: Offline) -> Analysed:
@@ -102,5 +112,5 @@ def analyse(rec, o: Offline) -> Analysed:
                     o.reports(lambda out: report.crosstalk_reports(result, path, out)))
 
 
-KIND = Kind("crosstalk", reanalyse, figures=crosstalk_figures, recognises=lambda rec: bool(rec.sidecar.get("crosstalk")),
+KIND = Kind("crosstalk", reanalyse, summary, reports, figures=crosstalk_figures, recognises=lambda rec: bool(rec.sidecar.get("crosstalk")),
             analyse=analyse, rank=30)

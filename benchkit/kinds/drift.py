@@ -155,9 +155,19 @@ def analyze_drift_csv(path: Path, time_col: str = "1", value_col: str = "2", lim
 LOG = "log.csv"
 
 
-def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
+def summary(result, title: str) -> str:
     from benchkit.report import drift as report
 
+    return report.drift_summary(result, title)
+
+
+def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
+    from benchkit.report import drift as report
+
+    return report.drift_reports(result, folder / LOG, folder)
+
+
+def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     p = record.get("params") or {}
     log = folder / LOG
     if not log.exists():
@@ -166,7 +176,7 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
                                window_s=p.get("window_s") or 60.0, nominal_v=p.get("nominal_v") or 0.0,
                                info={"source": record.get("device"), "ended": "reanalysed",
                                      "accelerated": p.get("accelerated")})
-    return result.to_dict(), report.drift_reports(result, log, folder)
+    return result.to_dict(), reports(result, folder)
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
@@ -190,4 +200,4 @@ def analyse(path: Path, o: Offline) -> Analysed:
                     o.reports(lambda out: report.drift_reports(result, path, out)))
 
 
-KIND = Kind("drift", reanalyse, figures=drift_figures, overlay=overlay, analyse=analyse, reads="csv")
+KIND = Kind("drift", reanalyse, summary, reports, figures=drift_figures, overlay=overlay, analyse=analyse, reads="csv")

@@ -13,7 +13,7 @@ from pathlib import Path
 from benchkit.analysis.gain import gain_figures, gain_of, gain_readings, GainResult
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture
+from benchkit.kinds import Analysed, CAPTURE, Kind, Offline, run_band, run_capture
 from benchkit.recordings import read_capture, Takes
 
 
@@ -63,14 +63,25 @@ def step_gains(path: Path, channel: int = 1, ref_channel: int | None = None, ban
             for step in steps.steps]
 
 
-def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
+def summary(result: GainResult, title: str) -> str:
+    from benchkit.report import gain as report
+
+    return report.gain_summary(result.to_dict(), title)
+
+
+def reports(result: GainResult, folder: Path, channel: int = 1, **options) -> list[Path]:
+    """The result alone (``capture.gain.json``): one number needs no plot."""
     from benchkit.report.tables import write_json
 
+    return [write_json(result.to_dict(), folder / f"{CAPTURE}.gain.json")]
+
+
+def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     p = record.get("params") or {}
     channel = int(p.get("channel") or 1)
     path = run_capture(folder, channel, say).path
     result = analyze_gain(path, channel, p.get("ref_channel"), run_band(p), p.get("load_ohms"))
-    return result.to_dict(), [write_json(result.to_dict(), folder / f"{path.stem}.gain.json")]
+    return result.to_dict(), reports(result, folder, channel)
 
 
 def analyse(rec, o: Offline) -> Analysed:
@@ -82,5 +93,5 @@ def analyse(rec, o: Offline) -> Analysed:
     return Analysed(doc, report.gain_summary(doc, f"{path} channel {rec.channel}: gain"))
 
 
-KIND = Kind("gain", reanalyse, figures=gain_figures, chosen=lambda o: o.gain, analyse=analyse, readings=gain_readings,
+KIND = Kind("gain", reanalyse, summary, reports, figures=gain_figures, chosen=lambda o: o.gain, analyse=analyse, readings=gain_readings,
             rank=10)

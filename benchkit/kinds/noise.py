@@ -18,7 +18,7 @@ import numpy as np
 from benchkit.analysis.noise import analyze_noise, noise_figures, NoiseResult
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture, series_from_csv
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_band, run_capture, series_from_csv
 from benchkit.recordings import read_capture, Recording
 from benchkit.signals import Segment, Stimulus
 
@@ -68,13 +68,23 @@ def noise_run(backend, folder: Path, seconds: float, channel: int = 1, bandwidth
     return analyze_noise_capture(read_capture(path, channel), bandwidth_hz, None, reference_vrms, reference, traces=True)
 
 
-def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
+def summary(result: NoiseResult, title: str) -> str:
     from benchkit.report import noise as report
 
+    return report.noise_summary(result.to_dict(), title)
+
+
+def reports(result: NoiseResult, folder: Path, channel: int = 1) -> list[Path]:
+    from benchkit.report import noise as report
+
+    return report.noise_reports(result, folder / CAPTURE_WAV, channel, folder)
+
+
+def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     p = record.get("params") or {}
     rec = run_capture(folder, int(p.get("channel") or 1), say)
     result = analyze_noise_capture(rec, run_band(p), None, p.get("reference_vrms"), p.get("reference"), traces=True)
-    return result.to_dict(), report.noise_reports(result, rec.path, rec.channel, folder)
+    return result.to_dict(), reports(result, folder, rec.channel)
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
@@ -110,5 +120,5 @@ def analyse(rec, o: Offline) -> Analysed:
                     o.reports(lambda out: report.noise_reports(result, Path(rec.path), rec.channel, out)))
 
 
-KIND = Kind("noise", reanalyse, figures=noise_figures, overlay=overlay, recognises=recognises,
+KIND = Kind("noise", reanalyse, summary, reports, figures=noise_figures, overlay=overlay, recognises=recognises,
             chosen=lambda o: o.noise, analyse=analyse, rank=40)

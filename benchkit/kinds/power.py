@@ -29,7 +29,7 @@ from benchkit.analysis.power import analyze_power, DEFAULT_LIMITS_PCT, JUMP_SLOP
 from benchkit.budget import ClassABudget
 from benchkit.capture import FAULT_ADVICE, HearsFaults, MAX_RETRIES as MAX_RETAKES
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, Kind, Offline, run_capture
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture
 from benchkit.kinds.tone import StepsResult
 from benchkit.recordings import read_capture
 from benchkit.units import quantity
@@ -515,9 +515,20 @@ def _inverts(rec) -> bool:
     return bool((rec.sidecar.get("calibration") or {}).get("polarity_inverts"))
 
 
+def summary(result, title: str) -> str:
+    from benchkit.report import power as report
+
+    return report.power_summary(result, title)
+
+
+def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
+    from benchkit.report import power as report
+
+    return report.power_reports(result, folder / CAPTURE_WAV, channel, folder)
+
+
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     from benchkit.budget import ClassABudget
-    from benchkit.report import power as report
     from benchkit.kinds.tone import analyze_steps
 
     p = record.get("params") or {}
@@ -528,7 +539,7 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     result = power_from_steps(analyze_steps(rec, load_ohms=load), load, p.get("metric", "thdn"),
                               tuple(p.get("limits_pct") or (1.0, 0.1, 10.0)), p.get("onset_db", 6.0),
                               p.get("supply_v"), p.get("supply_a"), budget, polarity_inverts=_inverts(rec))
-    return result.to_dict(), report.power_reports(result, rec.path, rec.channel, folder)
+    return result.to_dict(), reports(result, folder, rec.channel)
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
@@ -558,5 +569,5 @@ def analyse(rec, o: Offline) -> Analysed:
                     o.reports(lambda out: report.power_reports(result, Path(rec.path), rec.channel, out)))
 
 
-KIND = Kind("power", reanalyse, figures=power_figures, overlay=overlay, chosen=lambda o: o.power is not None,
+KIND = Kind("power", reanalyse, summary, reports, figures=power_figures, overlay=overlay, chosen=lambda o: o.power is not None,
             analyse=analyse, rank=80)

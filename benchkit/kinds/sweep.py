@@ -24,7 +24,7 @@ from benchkit.analysis import response as resp, sweep as sw
 from benchkit.analysis.response import response_figures, response_readings
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_band, run_capture
 from benchkit.recordings import read_capture, Recording, write_capture
 from benchkit.signals import stepped_tones, sweep_stimulus
 from benchkit.units import quantity
@@ -369,15 +369,26 @@ def response_run(
                             load_ohms=load_ohms, bandwidth_hz=bandwidth_hz)
 
 
+def summary(result, title: str) -> str:
+    from benchkit.report import sweep as report
+
+    return report.response_summary(result, title)
+
+
+def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
+    from benchkit.report import sweep as report
+
+    return report.response_reports(result, folder / CAPTURE_WAV, channel, folder, options.get("smooth"))
+
+
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     from benchkit.analysis.response import REFERENCE_HZ
-    from benchkit.report import sweep as report
 
     p = record.get("params") or {}
     rec = run_capture(folder, int(p.get("channel") or 1), say)
     result = analyze_response(rec, p.get("ref_channel"), reference_hz=p.get("ref_freq_hz") or REFERENCE_HZ,
                               load_ohms=p.get("load_ohms"), bandwidth_hz=run_band(p))
-    return result.to_dict(), report.response_reports(result, rec.path, rec.channel, folder, p.get("smooth"))
+    return result.to_dict(), reports(result, folder, rec.channel, smooth=p.get("smooth"))
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
@@ -407,5 +418,5 @@ def analyse(rec, o: Offline) -> Analysed:
                     o.reports(lambda out: report.response_reports(result, Path(rec.path), rec.channel, out, o.smooth)))
 
 
-KIND = Kind("sweep", reanalyse, figures=response_figures, overlay=overlay, recognises=recognises,
+KIND = Kind("sweep", reanalyse, summary, reports, figures=response_figures, overlay=overlay, recognises=recognises,
             chosen=lambda o: o.sweep is not None, analyse=analyse, readings=response_readings, rank=50)

@@ -16,7 +16,7 @@ from benchkit import capture
 from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ, step_figures, step_readings, ToneResult
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, Kind, Offline, run_band, run_capture
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_band, run_capture
 from benchkit.record import record_steps
 from benchkit.recordings import read_capture, Recording, Takes
 
@@ -92,18 +92,10 @@ def analyze_steps(
             drive = float(seg["level_dbfs"])
         except (KeyError, TypeError, ValueError) as exc:
             raise BenchkitError(f"{rec.path}: the sidecar's step list is damaged") from exc
-        result = analyze_tone(
-            x,
-            rec.sample_rate_hz,
-            fundamental_hz=fundamental_hz if fundamental_hz is not None else float(seg["frequency_hz"]),
-            bandwidth_hz=bandwidth_hz,
-            averages=averages,
-            volts_per_fs=scale,
-            scale_source=source,
-            load_ohms=load_ohms,
-            traces=traces,
-            check_dropouts=True,
-        )
+        f0 = fundamental_hz if fundamental_hz is not None else float(seg["frequency_hz"])
+        result = analyze_tone(x, rec.sample_rate_hz, fundamental_hz=f0, bandwidth_hz=bandwidth_hz, averages=averages,
+                              volts_per_fs=scale, scale_source=source, load_ohms=load_ohms, traces=traces,
+                              check_dropouts=True)
         if seg.get("spoiled"):
             result = replace(result, valid=False, warnings=result.warnings + ("a stream fault spoiled this step",))
         cal = rec.sidecar.get("calibration") or {}
@@ -170,13 +162,23 @@ def tone_run(
     return analyze_steps(read_capture(path, record.get("channel", 1)), bandwidth_hz, load_ohms, traces=traces)
 
 
-def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
+def summary(steps: StepsResult, title: str) -> str:
     from benchkit.report import tone as report
 
+    return report.steps_summary(steps, title)
+
+
+def reports(steps: StepsResult, folder: Path, channel: int = 1) -> list[Path]:
+    from benchkit.report import tone as report
+
+    return report.steps_reports(steps, folder / CAPTURE_WAV, channel, folder)
+
+
+def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     p = record.get("params") or {}
     rec = run_capture(folder, int(p.get("channel") or 1), say)
     steps = analyze_steps(rec, run_band(p), p.get("load_ohms"), traces=True)
-    return steps.to_dict(), report.steps_reports(steps, rec.path, rec.channel, folder)
+    return steps.to_dict(), reports(steps, folder, rec.channel)
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
@@ -249,5 +251,5 @@ def analyse(rec, o: Offline) -> Analysed:
                     o.reports(lambda out: report.tone_reports(result, doc, path, channel, out)))
 
 
-KIND = Kind("tone", reanalyse, figures=step_figures, overlay=overlay, recognises=recognises, analyse=analyse,
+KIND = Kind("tone", reanalyse, summary, reports, figures=step_figures, overlay=overlay, recognises=recognises, analyse=analyse,
             readings=step_readings, rank=90)

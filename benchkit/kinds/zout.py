@@ -103,9 +103,19 @@ def zout_run(backend, folder: Path, load_ohms: float, frequencies_hz, level_dbfs
     return zout_of_captures(folder, load_ohms, open_load_ohms, channel, ref_channel)
 
 
-def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
+def summary(result, title: str) -> str:
     from benchkit.report import zout as report
 
+    return report.zout_summary(result.to_dict(), title)
+
+
+def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
+    from benchkit.report import zout as report
+
+    return report.zout_reports(result, folder, folder)
+
+
+def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     p = record.get("params") or {}
     load, open_load = float(p["load_ohms"]), p.get("open_load_ohms")
     if p.get("from"):  # made from two logged runs: the copies of their results it keeps
@@ -116,7 +126,7 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
         result = output_impedance(*(readings_of_result(d) for d in docs), load, open_load)
     else:
         result = zout_of_captures(folder, load, open_load, int(p.get("channel") or 1), p.get("ref_channel"))
-    return result.to_dict(), report.zout_reports(result, folder, folder)
+    return result.to_dict(), reports(result, folder)
 
 
-KIND = Kind("zout", reanalyse, figures=zout_figures)
+KIND = Kind("zout", reanalyse, summary, reports, figures=zout_figures)
