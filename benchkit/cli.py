@@ -537,7 +537,8 @@ def _logbook(bench: dict):
 
 
 def _start_run(book, labels: dict, command: str, backend, profile, calibration: Optional[Path], params: dict):
-    """File the run in the logbook as running; its folder is where it writes.
+    """File the run in the logbook as running; its folder is where it writes;
+    ``params`` as its kind's :class:`benchkit.kinds.RunParams` stores them.
     ``backend`` is the capture backend, or the name of a drift log's source."""
     cal = None if profile is None else {"file": str(calibration), "hash": profile.digest()}
     labels = dict(labels)
@@ -547,7 +548,8 @@ def _start_run(book, labels: dict, command: str, backend, profile, calibration: 
         device = backend
     else:
         device, params = backend.name, {**params, "sample_rate_hz": backend.sample_rate_hz}
-    run = book.start(command, device=device, calibration=cal, params=params, **labels)
+    stored = kinds.get(command).params.from_dict(params, strict=True).to_dict()
+    run = book.start(command, device=device, calibration=cal, params=stored, **labels)
     _err(f"run {run.id} (logbook {book.root / CATALOG})")
     return run
 

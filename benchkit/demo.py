@@ -98,8 +98,9 @@ class DemoReport:
 def _logged(book: Logbook, command: str, bias: float, params: dict, measure) -> tuple[object, list[Path]]:
     """One run filed in the logbook: ``measure(folder)`` makes the result
     there, and its kind writes its report files beside it."""
+    stored = kinds.get(command).params.from_dict(params, strict=True).to_dict()
     with book.start(command, tags={"bias": f"{bias:g}A"}, note=NOTE, stage=STAGE, device="virtual",
-                    params=params, argv=["demo"]) as run:
+                    params=stored, argv=["demo"]) as run:
         result = measure(run.folder)
         written = kinds.get(command).reports(result, run.folder, 1)
         doc = result.to_dict()

@@ -19,11 +19,42 @@ from __future__ import annotations
 
 import importlib
 import pkgutil
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any, Callable, ClassVar
 
 from benchkit.errors import BenchkitError
+
+
+@dataclass(frozen=True)
+class RunParams:
+    """What a run was asked for, as its record stores it (run.json's
+    ``params``) and its kind reads it back to analyse the run again. Each
+    kind's own (``NAMEParams``) adds its fields, units in their names."""
+
+    #: the rate the interface ran at (none for a drift log or a result made from runs)
+    sample_rate_hz: float | None = None
+    #: fields stored under another key (a word Python keeps for itself)
+    STORED_AS: ClassVar[dict[str, str]] = {}
+
+    def to_dict(self) -> dict:
+        return {self.STORED_AS.get(f.name, f.name): getattr(self, f.name) for f in fields(self)}
+
+    @classmethod
+    def from_dict(cls, params: dict | None, strict: bool = False):
+        """From a stored record's ``params``: the fields it holds, the
+        defaults for those an older record lacks, anything else left out
+        (``strict``: refused, a command asking for a field its kind has not)."""
+        names = {cls.STORED_AS.get(f.name, f.name): f.name for f in fields(cls)}
+        unknown = set(params or {}) - set(names)
+        if strict and unknown:
+            raise TypeError(f"{cls.__name__} has no field {', '.join(sorted(unknown))}")
+        return cls(**{names[k]: v for k, v in (params or {}).items() if k in names})
+
+    def band(self) -> tuple[float, float] | None:
+        """The measurement band (None: the full band)."""
+        band = getattr(self, "bandwidth_hz", None)
+        return None if band is None else tuple(band)
 
 
 @dataclass(frozen=True)
@@ -82,6 +113,8 @@ class Kind:
         ``(folder, record, say) -> (result document, report files)``: the
         run analysed again from what its folder holds (the first file is
         the result JSON).
+    params
+        Its :class:`RunParams`: what a run stores in its record.
     summary
         ``(result, title) -> str``: a run's result on one screen.
     reports
@@ -110,6 +143,7 @@ class Kind:
 
     name: str
     reanalyse: Callable[[Path, dict, Callable[[str], None]], tuple[dict, list[Path]]]
+    params: type = RunParams
     summary: Callable[[Any, str], str] | None = None
     reports: Callable[[Any, Path, int], list[Path]] | None = None
     figures: Callable[[dict], list] | None = None
@@ -224,12 +258,6 @@ def analyse_file(path: Path, options: Offline, say: Callable[[str], None] = lamb
 #: The capture a run stores under its folder (``capture.wav`` and its sidecar).
 CAPTURE = "capture"
 CAPTURE_WAV = f"{CAPTURE}.wav"
-
-
-def run_band(params: dict) -> tuple[float, float] | None:
-    """The band a run was analysed in, from its record's ``params``."""
-    band = params.get("bandwidth_hz", (20.0, 20000.0))
-    return None if band is None else tuple(band)
 
 
 def run_capture(folder: Path, channel: int, say: Callable[[str], None], stem: str = CAPTURE):

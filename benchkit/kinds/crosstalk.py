@@ -8,13 +8,13 @@ capture, stored, then analysed from disk (:mod:`benchkit.analysis.crosstalk`).
 
 from __future__ import annotations
 
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from benchkit.analysis.crosstalk import crosstalk_figures, CrosstalkResult, leak
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_band, run_capture
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.recordings import read_capture, Takes
 
 
@@ -83,6 +83,19 @@ def crosstalk_run(backend, folder: Path, frequencies_hz, level_dbfs: float, outp
     return analyze_crosstalk_capture(path)
 
 
+@dataclass(frozen=True)
+class CrosstalkParams(RunParams):
+    """What a crosstalk run plays on which channels (run.json's ``params``)."""
+
+    channel: int = 1
+    inputs: tuple[int, int] = (1, 3)
+    outputs: tuple[int, int] = (1, 2)
+    frequencies_hz: tuple[float, ...] = ()
+    level_dbfs: float | None = None
+    load_ohms: float | None = None
+    bandwidth_hz: tuple[float, float] | None = (20.0, 20000.0)
+
+
 def summary(result, title: str) -> str:
     from benchkit.report import crosstalk as report
 
@@ -96,9 +109,9 @@ def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    p = record.get("params") or {}
-    path = run_capture(folder, int(p.get("channel") or 1), say).path
-    result = analyze_crosstalk_capture(path, run_band(p))
+    p = CrosstalkParams.from_dict(record.get("params"))
+    path = run_capture(folder, int(p.channel or 1), say).path
+    result = analyze_crosstalk_capture(path, p.band())
     return result.to_dict(), reports(result, folder)
 
 
@@ -112,5 +125,5 @@ def analyse(rec, o: Offline) -> Analysed:
                     o.reports(lambda out: report.crosstalk_reports(result, path, out)))
 
 
-KIND = Kind("crosstalk", reanalyse, summary, reports, figures=crosstalk_figures, recognises=lambda rec: bool(rec.sidecar.get("crosstalk")),
+KIND = Kind("crosstalk", reanalyse, CrosstalkParams, summary, reports, figures=crosstalk_figures, recognises=lambda rec: bool(rec.sidecar.get("crosstalk")),
             analyse=analyse, rank=30)

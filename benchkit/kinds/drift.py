@@ -17,7 +17,7 @@ import numpy as np
 
 from benchkit.analysis.drift import analyze_drift, drift_figures, drift_rate_v_per_s, DriftResult, fit_settling
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, Kind, Offline
+from benchkit.kinds import Analysed, Kind, Offline, RunParams
 from benchkit.meters import read_drift_csv, SourceLost
 
 
@@ -167,15 +167,28 @@ def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
     return report.drift_reports(result, folder / LOG, folder)
 
 
+@dataclass(frozen=True)
+class DriftParams(RunParams):
+    """What a drift log reads, how often, and how it is judged (run.json's ``params``)."""
+
+    source: str | None = None
+    limit_v: float | None = None
+    band_v: float | None = None
+    window_s: float | None = None
+    nominal_v: float | None = None
+    interval_s: float | None = None
+    #: model seconds a reading interval stands for (the virtual source)
+    accelerated: float | None = None
+
+
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    p = record.get("params") or {}
+    p = DriftParams.from_dict(record.get("params"))
     log = folder / LOG
     if not log.exists():
         raise BenchkitError(f"{folder}: the drift run has no {LOG}: it stopped before its first reading")
-    result = analyze_drift_csv(log, limit_v=p.get("limit_v"), band_v=p.get("band_v") or 1e-3,
-                               window_s=p.get("window_s") or 60.0, nominal_v=p.get("nominal_v") or 0.0,
-                               info={"source": record.get("device"), "ended": "reanalysed",
-                                     "accelerated": p.get("accelerated")})
+    result = analyze_drift_csv(log, limit_v=p.limit_v, band_v=p.band_v or 1e-3, window_s=p.window_s or 60.0,
+                               nominal_v=p.nominal_v or 0.0,
+                               info={"source": record.get("device"), "ended": "reanalysed", "accelerated": p.accelerated})
     return result.to_dict(), reports(result, folder)
 
 
@@ -200,4 +213,4 @@ def analyse(path: Path, o: Offline) -> Analysed:
                     o.reports(lambda out: report.drift_reports(result, path, out)))
 
 
-KIND = Kind("drift", reanalyse, summary, reports, figures=drift_figures, overlay=overlay, analyse=analyse, reads="csv")
+KIND = Kind("drift", reanalyse, DriftParams, summary, reports, figures=drift_figures, overlay=overlay, analyse=analyse, reads="csv")

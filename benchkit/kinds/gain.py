@@ -8,12 +8,13 @@ then analysed from disk.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 
 from benchkit.analysis.gain import gain_figures, gain_of, gain_readings, GainResult
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, CAPTURE, Kind, Offline, run_band, run_capture
+from benchkit.kinds import Analysed, CAPTURE, Kind, Offline, run_capture, RunParams
 from benchkit.recordings import read_capture, Takes
 
 
@@ -63,6 +64,18 @@ def step_gains(path: Path, channel: int = 1, ref_channel: int | None = None, ban
             for step in steps.steps]
 
 
+@dataclass(frozen=True)
+class GainParams(RunParams):
+    """What a gain run plays and how it is analysed (run.json's ``params``)."""
+
+    channel: int = 1
+    ref_channel: int | None = None
+    frequency_hz: float | None = None
+    level_dbfs: float | None = None
+    load_ohms: float | None = None
+    bandwidth_hz: tuple[float, float] | None = (20.0, 20000.0)
+
+
 def summary(result: GainResult, title: str) -> str:
     from benchkit.report import gain as report
 
@@ -77,10 +90,10 @@ def reports(result: GainResult, folder: Path, channel: int = 1, **options) -> li
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    p = record.get("params") or {}
-    channel = int(p.get("channel") or 1)
+    p = GainParams.from_dict(record.get("params"))
+    channel = int(p.channel or 1)
     path = run_capture(folder, channel, say).path
-    result = analyze_gain(path, channel, p.get("ref_channel"), run_band(p), p.get("load_ohms"))
+    result = analyze_gain(path, channel, p.ref_channel, p.band(), p.load_ohms)
     return result.to_dict(), reports(result, folder, channel)
 
 
@@ -93,5 +106,5 @@ def analyse(rec, o: Offline) -> Analysed:
     return Analysed(doc, report.gain_summary(doc, f"{path} channel {rec.channel}: gain"))
 
 
-KIND = Kind("gain", reanalyse, summary, reports, figures=gain_figures, chosen=lambda o: o.gain, analyse=analyse, readings=gain_readings,
+KIND = Kind("gain", reanalyse, GainParams, summary, reports, figures=gain_figures, chosen=lambda o: o.gain, analyse=analyse, readings=gain_readings,
             rank=10)

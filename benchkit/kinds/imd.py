@@ -14,7 +14,7 @@ from pathlib import Path
 from benchkit.analysis.documents import document
 from benchkit.analysis.imd import analyze_imd, imd_figures, ImdResult, method_tones
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.recordings import read_capture, Recording, Takes
 from benchkit.signals import TwinTone
 
@@ -113,6 +113,17 @@ def imd_run(backend, folder: Path, twin: TwinTone, levels_dbfs: list[float], cha
     return analyze_imd_steps(read_capture(path, channel), load_ohms=load_ohms, spectrum=spectrum)
 
 
+@dataclass(frozen=True)
+class ImdParams(RunParams):
+    """What an IMD run plays (its pair of tones, as a dict) and into what (run.json's ``params``)."""
+
+    channel: int = 1
+    twin: dict | None = None
+    levels_dbfs: tuple[float, ...] = ()
+    load_ohms: float | None = None
+    step_s: float | None = None
+
+
 def summary(result, title: str) -> str:
     from benchkit.report import imd as report
 
@@ -126,9 +137,9 @@ def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    p = record.get("params") or {}
-    rec = run_capture(folder, int(p.get("channel") or 1), say)
-    result = analyze_imd_steps(rec, load_ohms=p.get("load_ohms"), spectrum=True)
+    p = ImdParams.from_dict(record.get("params"))
+    rec = run_capture(folder, int(p.channel or 1), say)
+    result = analyze_imd_steps(rec, load_ohms=p.load_ohms, spectrum=True)
     return result.to_dict(), reports(result, folder, rec.channel)
 
 
@@ -164,5 +175,5 @@ def analyse(rec, o: Offline) -> Analysed:
                     o.reports(lambda out: report.imd_reports(result, Path(rec.path), rec.channel, out)))
 
 
-KIND = Kind("imd", reanalyse, summary, reports, figures=imd_figures, overlay=overlay, recognises=recognises,
+KIND = Kind("imd", reanalyse, ImdParams, summary, reports, figures=imd_figures, overlay=overlay, recognises=recognises,
             chosen=lambda o: o.imd_method is not None, analyse=analyse, rank=20)

@@ -11,6 +11,7 @@ and the stage settling) is left out of the analysis.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -18,7 +19,7 @@ import numpy as np
 from benchkit.analysis.noise import analyze_noise, noise_figures, NoiseResult
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_band, run_capture, series_from_csv
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams, series_from_csv
 from benchkit.recordings import read_capture, Recording
 from benchkit.signals import Segment, Stimulus
 
@@ -68,6 +69,17 @@ def noise_run(backend, folder: Path, seconds: float, channel: int = 1, bandwidth
     return analyze_noise_capture(read_capture(path, channel), bandwidth_hz, None, reference_vrms, reference, traces=True)
 
 
+@dataclass(frozen=True)
+class NoiseParams(RunParams):
+    """What a noise run records and how it is analysed (run.json's ``params``)."""
+
+    channel: int = 1
+    bandwidth_hz: tuple[float, float] | None = (20.0, 20000.0)
+    reference_vrms: float | None = None
+    reference: str | None = None
+    length_s: float | None = None
+
+
 def summary(result: NoiseResult, title: str) -> str:
     from benchkit.report import noise as report
 
@@ -81,9 +93,9 @@ def reports(result: NoiseResult, folder: Path, channel: int = 1) -> list[Path]:
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    p = record.get("params") or {}
-    rec = run_capture(folder, int(p.get("channel") or 1), say)
-    result = analyze_noise_capture(rec, run_band(p), None, p.get("reference_vrms"), p.get("reference"), traces=True)
+    p = NoiseParams.from_dict(record.get("params"))
+    rec = run_capture(folder, int(p.channel or 1), say)
+    result = analyze_noise_capture(rec, p.band(), None, p.reference_vrms, p.reference, traces=True)
     return result.to_dict(), reports(result, folder, rec.channel)
 
 
@@ -120,5 +132,5 @@ def analyse(rec, o: Offline) -> Analysed:
                     o.reports(lambda out: report.noise_reports(result, Path(rec.path), rec.channel, out)))
 
 
-KIND = Kind("noise", reanalyse, summary, reports, figures=noise_figures, overlay=overlay, recognises=recognises,
+KIND = Kind("noise", reanalyse, NoiseParams, summary, reports, figures=noise_figures, overlay=overlay, recognises=recognises,
             chosen=lambda o: o.noise, analyse=analyse, rank=40)

@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import math
 import threading
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -29,7 +29,7 @@ from benchkit.analysis.power import analyze_power, DEFAULT_LIMITS_PCT, JUMP_SLOP
 from benchkit.budget import ClassABudget
 from benchkit.capture import FAULT_ADVICE, HearsFaults, MAX_RETRIES as MAX_RETAKES
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.kinds.tone import StepsResult
 from benchkit.recordings import read_capture
 from benchkit.units import quantity
@@ -515,6 +515,25 @@ def _inverts(rec) -> bool:
     return bool((rec.sidecar.get("calibration") or {}).get("polarity_inverts"))
 
 
+@dataclass(frozen=True)
+class PowerParams(RunParams):
+    """What a power run plays, into what, judged how, on what supply (run.json's ``params``)."""
+
+    channel: int = 1
+    ref_channel: int | None = None
+    frequency_hz: float | None = None
+    load_ohms: float | None = None
+    metric: str = "thdn"
+    limits_pct: tuple[float, ...] = DEFAULT_LIMITS_PCT
+    onset_db: float = ONSET_DB
+    supply_v: float | None = None
+    supply_a: float | None = None
+    rail_v: float | None = None
+    bias_a: float | None = None
+    vsat_v: float | None = None
+    rated_w: float | None = None
+
+
 def summary(result, title: str) -> str:
     from benchkit.report import power as report
 
@@ -531,14 +550,13 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     from benchkit.budget import ClassABudget
     from benchkit.kinds.tone import analyze_steps
 
-    p = record.get("params") or {}
-    rec = run_capture(folder, int(p.get("channel") or 1), say)
-    load = float(p["load_ohms"])
-    budget = (ClassABudget(p["rail_v"], p["bias_a"], load, p.get("vsat_v") or 1.0)
-              if p.get("rail_v") is not None and p.get("bias_a") is not None else None)
-    result = power_from_steps(analyze_steps(rec, load_ohms=load), load, p.get("metric", "thdn"),
-                              tuple(p.get("limits_pct") or (1.0, 0.1, 10.0)), p.get("onset_db", 6.0),
-                              p.get("supply_v"), p.get("supply_a"), budget, polarity_inverts=_inverts(rec))
+    p = PowerParams.from_dict(record.get("params"))
+    rec = run_capture(folder, int(p.channel or 1), say)
+    load = float(p.load_ohms)
+    budget = (ClassABudget(p.rail_v, p.bias_a, load, p.vsat_v or 1.0)
+              if p.rail_v is not None and p.bias_a is not None else None)
+    result = power_from_steps(analyze_steps(rec, load_ohms=load), load, p.metric, tuple(p.limits_pct or DEFAULT_LIMITS_PCT),
+                              p.onset_db, p.supply_v, p.supply_a, budget, polarity_inverts=_inverts(rec))
     return result.to_dict(), reports(result, folder, rec.channel)
 
 
@@ -569,5 +587,5 @@ def analyse(rec, o: Offline) -> Analysed:
                     o.reports(lambda out: report.power_reports(result, Path(rec.path), rec.channel, out)))
 
 
-KIND = Kind("power", reanalyse, summary, reports, figures=power_figures, overlay=overlay, chosen=lambda o: o.power is not None,
+KIND = Kind("power", reanalyse, PowerParams, summary, reports, figures=power_figures, overlay=overlay, chosen=lambda o: o.power is not None,
             analyse=analyse, rank=80)

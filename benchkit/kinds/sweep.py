@@ -24,7 +24,7 @@ from benchkit.analysis import response as resp, sweep as sw
 from benchkit.analysis.response import response_figures, response_readings
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_band, run_capture
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.recordings import read_capture, Recording, write_capture
 from benchkit.signals import stepped_tones, sweep_stimulus
 from benchkit.units import quantity
@@ -369,6 +369,21 @@ def response_run(
                             load_ohms=load_ohms, bandwidth_hz=bandwidth_hz)
 
 
+@dataclass(frozen=True)
+class SweepParams(RunParams):
+    """What a response run plays and how it is analysed (run.json's ``params``)."""
+
+    channel: int = 1
+    ref_channel: int | None = None
+    ref_freq_hz: float | None = None
+    load_ohms: float | None = None
+    bandwidth_hz: tuple[float, float] | None = (20.0, 20000.0)
+    smooth: int | None = None
+    span_hz: tuple[float, float] | None = None
+    level_dbfs: float | None = None
+    stepped: bool = False
+
+
 def summary(result, title: str) -> str:
     from benchkit.report import sweep as report
 
@@ -384,11 +399,11 @@ def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     from benchkit.analysis.response import REFERENCE_HZ
 
-    p = record.get("params") or {}
-    rec = run_capture(folder, int(p.get("channel") or 1), say)
-    result = analyze_response(rec, p.get("ref_channel"), reference_hz=p.get("ref_freq_hz") or REFERENCE_HZ,
-                              load_ohms=p.get("load_ohms"), bandwidth_hz=run_band(p))
-    return result.to_dict(), reports(result, folder, rec.channel, smooth=p.get("smooth"))
+    p = SweepParams.from_dict(record.get("params"))
+    rec = run_capture(folder, int(p.channel or 1), say)
+    result = analyze_response(rec, p.ref_channel, reference_hz=p.ref_freq_hz or REFERENCE_HZ, load_ohms=p.load_ohms,
+                              bandwidth_hz=p.band())
+    return result.to_dict(), reports(result, folder, rec.channel, smooth=p.smooth)
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
@@ -418,5 +433,5 @@ def analyse(rec, o: Offline) -> Analysed:
                     o.reports(lambda out: report.response_reports(result, Path(rec.path), rec.channel, out, o.smooth)))
 
 
-KIND = Kind("sweep", reanalyse, summary, reports, figures=response_figures, overlay=overlay, recognises=recognises,
+KIND = Kind("sweep", reanalyse, SweepParams, summary, reports, figures=response_figures, overlay=overlay, recognises=recognises,
             chosen=lambda o: o.sweep is not None, analyse=analyse, readings=response_readings, rank=50)

@@ -16,7 +16,7 @@ from benchkit import capture
 from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ, step_figures, step_readings, ToneResult
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_band, run_capture
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.record import record_steps
 from benchkit.recordings import read_capture, Recording, Takes
 
@@ -162,6 +162,17 @@ def tone_run(
     return analyze_steps(read_capture(path, record.get("channel", 1)), bandwidth_hz, load_ohms, traces=traces)
 
 
+@dataclass(frozen=True)
+class ToneParams(RunParams):
+    """What a tone run plays and how it is analysed (run.json's ``params``)."""
+
+    channel: int = 1
+    frequency_hz: float | None = None
+    levels_dbfs: tuple[float, ...] = ()
+    load_ohms: float | None = None
+    bandwidth_hz: tuple[float, float] | None = (20.0, 20000.0)
+
+
 def summary(steps: StepsResult, title: str) -> str:
     from benchkit.report import tone as report
 
@@ -175,9 +186,9 @@ def reports(steps: StepsResult, folder: Path, channel: int = 1) -> list[Path]:
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    p = record.get("params") or {}
-    rec = run_capture(folder, int(p.get("channel") or 1), say)
-    steps = analyze_steps(rec, run_band(p), p.get("load_ohms"), traces=True)
+    p = ToneParams.from_dict(record.get("params"))
+    rec = run_capture(folder, int(p.channel or 1), say)
+    steps = analyze_steps(rec, p.band(), p.load_ohms, traces=True)
     return steps.to_dict(), reports(steps, folder, rec.channel)
 
 
@@ -251,5 +262,5 @@ def analyse(rec, o: Offline) -> Analysed:
                     o.reports(lambda out: report.tone_reports(result, doc, path, channel, out)))
 
 
-KIND = Kind("tone", reanalyse, summary, reports, figures=step_figures, overlay=overlay, recognises=recognises, analyse=analyse,
+KIND = Kind("tone", reanalyse, ToneParams, summary, reports, figures=step_figures, overlay=overlay, recognises=recognises, analyse=analyse,
             readings=step_readings, rank=90)

@@ -20,7 +20,7 @@ import csv
 import math
 import queue
 import threading
-from dataclasses import asdict
+from dataclasses import asdict, dataclass
 from pathlib import Path
 
 import numpy as np
@@ -31,7 +31,7 @@ from benchkit.analysis.readings import FIGURES, Reading, watch_figures
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.capture import FAULT_ADVICE, HearsFaults
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Kind, series_from_csv
+from benchkit.kinds import Kind, RunParams, series_from_csv
 
 
 #: A reading this often (5 a second).
@@ -281,19 +281,30 @@ def summarise(path: Path, info: dict | None = None) -> dict:
                               "figures": figures, "valid": not clipped, "warnings": warnings, "file": str(path)})
 
 
+@dataclass(frozen=True)
+class WatchParams(RunParams):
+    """The tone a watch plays and how it is read (run.json's ``params``)."""
+
+    channel: int = 1
+    frequency_hz: float | None = None
+    level_dbfs: float | None = None
+    load_ohms: float | None = None
+    bandwidth_hz: tuple[float, float] | None = (20.0, 20000.0)
+
+
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     from benchkit.jsonfile import load_json
     from benchkit.report.tables import write_json
 
-    p = record.get("params") or {}
+    p = WatchParams.from_dict(record.get("params"))
     old = {}
     try:
         old = load_json(folder / "watch.json").get("conditions") or {}
     except (OSError, ValueError):
         pass  # a watch killed before it wrote its summary
-    doc = summarise(folder / "readings.csv", {"frequency_hz": p.get("frequency_hz"), "level_dbfs": p.get("level_dbfs"),
+    doc = summarise(folder / "readings.csv", {"frequency_hz": p.frequency_hz, "level_dbfs": p.level_dbfs,
                                               "ended": "reanalysed", "device": record.get("device"),
-                                              "conditions": old or Conditions(bandwidth_hz=p.get("bandwidth_hz")).to_dict()})
+                                              "conditions": old or Conditions(bandwidth_hz=p.band()).to_dict()})
     return doc, [write_json(doc, folder / "watch.json"), folder / "readings.csv"]
 
 
@@ -306,4 +317,4 @@ def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> lis
                                comparison.warnings, "time (s)", "THD+N (dB)", False)]
 
 
-KIND = Kind("watch", reanalyse, figures=watch_figures, overlay=overlay)
+KIND = Kind("watch", reanalyse, WatchParams, figures=watch_figures, overlay=overlay)

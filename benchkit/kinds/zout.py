@@ -9,14 +9,15 @@ sweep runs, one unloaded and one loaded) taken from their stored results.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable
+from typing import Callable, ClassVar
 
 
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.analysis.zout import phasor, output_impedance, Reading, zout_figures, ZoutResult
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Kind
+from benchkit.kinds import Kind, RunParams
 from benchkit.recordings import read_capture, Takes
 
 
@@ -115,18 +116,33 @@ def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
     return report.zout_reports(result, folder, folder)
 
 
+@dataclass(frozen=True)
+class ZoutParams(RunParams):
+    """The load switched in, what loads the open output, the tones; or the
+    two logged runs it was made from (run.json's ``params``)."""
+
+    channel: int = 1
+    ref_channel: int | None = None
+    load_ohms: float | None = None
+    open_load_ohms: float | None = None
+    frequencies_hz: tuple[float, ...] = ()
+    level_dbfs: float | None = None
+    from_runs: tuple[str, ...] | None = None
+    STORED_AS: ClassVar[dict[str, str]] = {"from_runs": "from"}
+
+
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    p = record.get("params") or {}
-    load, open_load = float(p["load_ohms"]), p.get("open_load_ohms")
-    if p.get("from"):  # made from two logged runs: the copies of their results it keeps
+    p = ZoutParams.from_dict(record.get("params"))
+    load, open_load = float(p.load_ohms), p.open_load_ohms
+    if p.from_runs:  # made from two logged runs: the copies of their results it keeps
         from benchkit.analysis.zout import output_impedance
         from benchkit.jsonfile import load_json
 
         docs = [load_json(folder / f"{state}.result.json") for state in ("open", "loaded")]
         result = output_impedance(*(readings_of_result(d) for d in docs), load, open_load)
     else:
-        result = zout_of_captures(folder, load, open_load, int(p.get("channel") or 1), p.get("ref_channel"))
+        result = zout_of_captures(folder, load, open_load, int(p.channel or 1), p.ref_channel)
     return result.to_dict(), reports(result, folder)
 
 
-KIND = Kind("zout", reanalyse, summary, reports, figures=zout_figures)
+KIND = Kind("zout", reanalyse, ZoutParams, summary, reports, figures=zout_figures)
