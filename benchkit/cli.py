@@ -23,14 +23,13 @@ from benchkit.analysis.power import DEFAULT_LIMITS_PCT, ONSET_DB
 from benchkit import kinds
 from benchkit.kinds import headline_figures
 from benchkit.analysis.documents import document
-from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
+from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
 from benchkit.units import quantity
 from benchkit.logbook import CATALOG, STATUSES
 from benchkit.kinds.crosstalk import DEFAULT_FREQS_HZ as DEFAULT_CROSSTALK_FREQS
 from benchkit.kinds.zout import DEFAULT_FREQS_HZ as DEFAULT_ZOUT_FREQS
-from benchkit.recordings import read_capture
 
 app = typer.Typer(
     add_completion=False,
@@ -64,7 +63,7 @@ def _progress(items: list, what: str):
 
 
 def _files():
-    """The report writers (imported when needed: matplotlib is slow to load)."""
+    """The shared report files module (imported when needed: matplotlib is slow to load)."""
     from benchkit.report import files
 
     return files
@@ -232,10 +231,19 @@ def analyze(
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
     if zout_load is not None:
+        from benchkit.kinds.zout import analyse_pair
+        from benchkit.report.tables import dumps
+
         with _one_line():
-            _analyze_zout(files, channel, ref_channel, band, zout_load, open_load, out, as_json)
+            if len(files) != 2:
+                raise BenchkitError("--zout takes two captures: the stage unloaded, then loaded")
+            got = analyse_pair(files[0], files[1], channel, ref_channel, band, zout_load, open_load)
+            _err(got.text)
+            for written in got.write(out) if out is not None else ():
+                _err(f"  wrote        {written}")
+        if as_json:
+            print(dumps(got.doc))
         return
-    from benchkit import kinds
 
     options = kinds.Offline(channel=channel, fundamental_hz=fundamental, bandwidth_hz=band, averages=averages,
                             volts_per_fs=volts_per_fs, load_ohms=load, out=out, sweep=sweep_spec, ref_channel=ref_channel,
@@ -246,14 +254,14 @@ def analyze(
     for path in _progress(files, "analysing"):
         try:
             got = kinds.analyse_file(Path(path), options, say=_err)
+            _err(got.text)
+            for written in got.write(out) if got.write is not None and out is not None else ():
+                _err(f"  wrote        {written}")
         except BenchkitError as exc:
             failed += 1
             _err(f"benchkit: error: {exc}")
             docs.append(document("error", {"file": str(path), "error": str(exc)}))
             continue
-        _err(got.text)
-        for written in got.files:
-            _err(f"  wrote        {written}")
         docs.append(got.doc)
     if as_json:
         from benchkit.report.tables import dumps
@@ -271,37 +279,6 @@ def _one_line():
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
-
-
-def _analyze_zout(files, channel, ref_channel, band, load, open_load, out, as_json) -> None:
-    """Output impedance from two captures: benchkit's stepped ones (each
-    step a reading: a gain with its phase over the reference input), or
-    single tones made elsewhere (their levels)."""
-    from benchkit.kinds.tone import is_stepped
-    from benchkit.analysis.zout import Reading, output_impedance
-    from benchkit.report import zout as zout_report
-    from benchkit.kinds.zout import readings_of_capture
-
-    if len(files) != 2:
-        raise BenchkitError("--zout takes two captures: the stage unloaded, then loaded")
-    got = []
-    for path in files:
-        rec = read_capture(path, channel)
-        if is_stepped(rec):
-            got.append(readings_of_capture(Path(path), channel, ref_channel, band))
-        else:
-            r = analyze_tone(rec.samples, rec.sample_rate_hz, bandwidth_hz=band)
-            got.append([Reading(r.fundamental_hz, complex(r.fundamental_fs), None, r.valid)])
-    result = output_impedance(got[0], got[1], load, open_load)
-    doc = {**result.to_dict(), "files": [str(p) for p in files]}
-    _err(zout_report.zout_summary(doc, f"output impedance: {files[0]} (open), {files[1]} (loaded)"))
-    if out is not None:
-        for written in zout_report.zout_reports(result, Path(files[1]).parent, out):
-            _err(f"  wrote        {written}")
-    if as_json:
-        from benchkit.report.tables import dumps
-
-        print(dumps(doc))
 
 
 def _power_options(power, load, rail, limits, metric, onset_db, supply_volts, supply_amps, bias, vsat) -> dict:
@@ -548,19 +525,18 @@ def _start_run(book, labels: dict, command: str, backend, profile, calibration: 
         device = backend
     else:
         device, params = backend.name, {**params, "sample_rate_hz": backend.sample_rate_hz}
-    stored = kinds.get(command).params.from_dict(params, strict=True).to_dict()
-    run = book.start(command, device=device, calibration=cal, params=stored, **labels)
+    run = book.start(command, device=device, calibration=cal, params=kinds.get(command).params.stored(params), **labels)
     _err(f"run {run.id} (logbook {book.root / CATALOG})")
     return run
 
 
 def _report_run(run, kind: str, result, title: str, as_json: bool, channel: int = 1, status: str = "complete",
-                doc: dict | None = None, **options) -> None:
+                **options) -> None:
     """A run's result on one screen and in its report files (its kind's),
     and the run completed (:func:`_finish_run`)."""
     measured = kinds.get(kind)
     _err(measured.summary(result, title))
-    _finish_run(measured.reports(result, run.folder, channel, **options), run, doc or result.to_dict(), as_json, status)
+    _finish_run(measured.reports(result, run.folder, channel, **options), run, result.to_dict(), as_json, status)
 
 
 def _finish_run(written: list[Path], run, doc: dict, as_json: bool, status: str = "complete", played: bool = True) -> None:
@@ -1196,9 +1172,8 @@ def crosstalk(
                       level_dbfs=drive, load_ohms=load, bandwidth_hz=band)
         with _start_run(book, labels, "crosstalk", backend, profile, calibration, params) as run:
             result = crosstalk_run(backend, run.folder, freqs, drive, outputs, inputs, labels["note"], profile,
-                                   None if calibration is None else str(calibration), plan.warnings)
-            _report_run(run, "crosstalk", result, "crosstalk and balance", as_json,
-                        doc={**result.to_dict(), "load_ohms": load})
+                                   None if calibration is None else str(calibration), plan.warnings, load)
+            _report_run(run, "crosstalk", result, "crosstalk and balance", as_json)
 
 
 def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: float, load: Optional[float],
@@ -1789,6 +1764,15 @@ def _headline_text(entry) -> str:
     return "; ".join(parts)
 
 
+def _entry_doc(entry) -> dict:
+    """A catalog entry as ``log list --json`` prints it: its result's kind
+    by the one name it has now (a version-1 run's catalog keeps the old)."""
+    from benchkit.analysis.documents import V1_KINDS
+
+    doc = entry.to_dict()
+    return {**doc, "kind": V1_KINDS.get(doc.get("kind"), doc.get("kind"))}
+
+
 @log_app.command("list")
 def log_list(
     tags: List[str] = typer.Option([], "--tag", help="Only runs with this tag, key=value (repeatable: all must match)."),
@@ -1812,7 +1796,7 @@ def log_list(
         from benchkit.report.tables import dumps
 
         print(dumps({"kind": "runs", "schema_version": 1, "bench": str(book.root),
-                     "runs": [e.to_dict() for e in entries]}))
+                     "runs": [_entry_doc(e) for e in entries]}))
         return
     if not entries:
         _err(f"no runs in {book.root} match")

@@ -98,9 +98,8 @@ class DemoReport:
 def _logged(book: Logbook, command: str, bias: float, params: dict, measure) -> tuple[object, list[Path]]:
     """One run filed in the logbook: ``measure(folder)`` makes the result
     there, and its kind writes its report files beside it."""
-    stored = kinds.get(command).params.from_dict(params, strict=True).to_dict()
     with book.start(command, tags={"bias": f"{bias:g}A"}, note=NOTE, stage=STAGE, device="virtual",
-                    params=stored, argv=["demo"]) as run:
+                    params=kinds.get(command).params.stored(params), argv=["demo"]) as run:
         result = measure(run.folder)
         written = kinds.get(command).reports(result, run.folder, 1)
         doc = result.to_dict()
@@ -228,7 +227,7 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                             stereo=True)
 
     def crosstalk_in(folder):
-        return crosstalk_run(x_bench, folder, XTALK_FREQS, SWEEP_DBFS, note=NOTE)
+        return crosstalk_run(x_bench, folder, XTALK_FREQS, SWEEP_DBFS, note=NOTE, load_ohms=LOAD_OHMS)
 
     xtalk, written = _logged(book, "crosstalk", bias, dict(channel=1, inputs=[1, 3], outputs=[1, 2],
                                                            frequencies_hz=list(XTALK_FREQS), level_dbfs=SWEEP_DBFS,

@@ -764,7 +764,7 @@ class Run:
     def complete(self, doc: dict, files: list[Path], result_file: Path | None = None, status: str = "complete", *,
                  figures: list[dict]) -> None:
         """Record the result (already written to disk) with its headline
-        ``figures`` (benchkit.analysis.compare.headline_figures: the logbook
+        ``figures`` (benchkit.kinds.headline_figures: the logbook
         stores them, it does not work them out) and end the run."""
         self.record.update(
             result_kind=doc.get("kind"),

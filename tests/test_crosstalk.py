@@ -90,7 +90,10 @@ def test_crosstalk_command_files_and_compares(tmp_path):
     assert d["kind"] == "crosstalk" and d["load_ohms"] == 8.0
     again = run_cli("log", "reanalyse", "last", "--json")
     assert again.returncode == 0, again.stderr
-    assert json.loads(again.stdout)["crosstalk_db"] == pytest.approx(d["crosstalk_db"], abs=1e-9)
+    redone = json.loads(again.stdout)
+    assert redone["crosstalk_db"] == pytest.approx(d["crosstalk_db"], abs=1e-9)
+    # the load rides in the capture's sidecar: analysed again, the result still carries it
+    assert redone["load_ohms"] == redone["conditions"]["load_ohms"] == 8.0
     comp = run_cli("compare", "--last", "2", "--json")
     assert comp.returncode == 0, comp.stderr
     deltas = {x["name"]: x for x in json.loads(comp.stdout)["deltas"]}
@@ -106,7 +109,7 @@ def test_stereo_parameters_need_a_stereo_stage():
 
 
 def test_crosstalk_at_another_load_does_not_compare_as_like_for_like():
-    # a crosstalk result does not carry its load: the runs' own parameters do,
+    # a version-1 crosstalk result did not carry its load: the runs' own parameters do,
     # and 8 ohm against 4 ohm is no like-for-like comparison (common practice:
     # channel separation depends on the load through the shared supply and ground)
     from benchkit.analysis.compare import conditions_of, mismatches

@@ -52,6 +52,10 @@ def finite(x) -> float | None:
 
 # --- conditions: what must match for runs to compare -------------------------------
 
+#: A condition a version-1 result did not record (it matches anything).
+NOT_RECORDED = "not recorded"
+
+
 def conditions_of(doc: dict, record: dict | None = None) -> dict:
     """The conditions a comparison checks, from a result and its run record:
     the result's own ``conditions`` first; what it leaves out (a version-1
@@ -66,18 +70,22 @@ def conditions_of(doc: dict, record: dict | None = None) -> dict:
     def known(*values):
         return next((v for v in values if v is not None), None)
 
+    def recorded(value):
+        # a version-1 result of some kinds kept no band or scale: unknown, which differs from nothing
+        return NOT_RECORDED if value is None and doc.get("upgraded_from") == 1 else value
+
     cal = doc.get("calibration") or record.get("calibration") or {}
     load = known(under.get("load_ohms"), doc.get("load_ohms"), (first.get("conditions") or {}).get("load_ohms"),
                  params.get("load_ohms"))
-    band = known(under.get("bandwidth_hz"), doc.get("bandwidth_hz", first.get("bandwidth_hz")))
+    band = recorded(known(under.get("bandwidth_hz"), doc.get("bandwidth_hz", first.get("bandwidth_hz"))))
     return {
         "frequency_hz": finite(doc.get("frequency_hz")),
         "load_ohms": finite(load),
-        "bandwidth_hz": list(band) if isinstance(band, (list, tuple)) else None,
+        "bandwidth_hz": list(band) if isinstance(band, (list, tuple)) else (band if band == NOT_RECORDED else None),
         "sample_rate_hz": known(finite(under.get("sample_rate_hz")), finite(first.get("sample_rate_hz")),
                                 finite(params.get("sample_rate_hz"))),
         "calibration_hash": known(under.get("calibration_hash"), cal.get("hash")),
-        "scale": known(under.get("scale_source"), doc.get("scale_source", first.get("scale_source"))),
+        "scale": recorded(known(under.get("scale_source"), doc.get("scale_source", first.get("scale_source")))),
         "metric": doc.get("limit_metric"),
         "mag_units": doc.get("mag_units"),
         "nominal_v": finite(doc.get("nominal_v")),
@@ -108,7 +116,7 @@ def mismatches(conditions: list[dict], labels: list[str]) -> list[str]:
     out = []
     for key, what in _WHAT.items():
         values = [c.get(key) for c in conditions]
-        if all(v is None for v in values):
+        if all(v is None for v in values) or NOT_RECORDED in values:
             continue
         if key in ("frequency_hz", "load_ohms", "sample_rate_hz", "nominal_v", "snr_reference_vrms"):
             known = [v for v in values if v is not None]

@@ -98,6 +98,8 @@ class CrosstalkResult:
     warnings: tuple[str, ...] = ()
     sample_rate_hz: float | None = None
     bandwidth_hz: tuple[float, float] | None = None
+    #: what each output drove, ohms (as the run was told)
+    load_ohms: float | None = None
 
     def direction(self, driven: str) -> list[Leak]:
         return [x for x in self.leaks if x.driven == driven]
@@ -137,10 +139,12 @@ class CrosstalkResult:
             "a_to_b": [x.to_dict() for x in self.direction("A")],
             "b_to_a": [x.to_dict() for x in self.direction("B")],
             "balance": [{"frequency_hz": f, "balance_db": b} for f, b in balance],
+            "load_ohms": self.load_ohms,
             "warnings": list(self.warnings),
         }, Conditions(self.sample_rate_hz, self.bandwidth_hz, sp.WINDOW_NAME,
                       "the driven tone fitted; the leak read at its frequency by least squares", 1,
-                      "both inputs' scales" if self.scaled else "none", more={"floor_margin_db": FLOOR_MARGIN_DB}))
+                      "both inputs' scales" if self.scaled else "none", None, self.load_ohms,
+                      more={"floor_margin_db": FLOOR_MARGIN_DB}))
 
 
 def crosstalk_figures(doc: dict) -> list[Figure]:

@@ -72,4 +72,5 @@ def upgrade(doc: dict) -> dict:
     out = {V1_KEYS.get(k, k): v for k, v in doc.items()}
     out["kind"] = V1_KINDS.get(doc.get("kind"), doc.get("kind"))
     out["schema_version"] = RESULT_VERSION
+    out["upgraded_from"] = 1  # (what version 1 did not record stays unknown, not different)
     return out

@@ -2,7 +2,7 @@
 
 Pure functions on a measured response (log-spaced frequencies, magnitude
 in dB, phase in degrees), whichever method measured it, and the
-:class:`ResponseResult` both methods hand back (JSON kind "response").
+:class:`ResponseResult` both methods hand back (JSON kind "sweep").
 """
 
 from __future__ import annotations

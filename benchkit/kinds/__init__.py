@@ -51,6 +51,13 @@ class RunParams:
             raise TypeError(f"{cls.__name__} has no field {', '.join(sorted(unknown))}")
         return cls(**{names[k]: v for k, v in (params or {}).items() if k in names})
 
+    @classmethod
+    def stored(cls, params: dict) -> dict:
+        """What a command files as a run's ``params``: the fields it gave,
+        each one its kind's (checked by :meth:`from_dict`)."""
+        given = cls.from_dict(params, strict=True).to_dict()
+        return {k: v for k, v in given.items() if k in params}
+
     def band(self) -> tuple[float, float] | None:
         """The measurement band (None: the full band)."""
         band = getattr(self, "bandwidth_hz", None)
@@ -86,19 +93,16 @@ class Offline:
         """The capture's volts per full scale and where it came from."""
         return (self.volts_per_fs, "given") if self.volts_per_fs is not None else rec.channel_scale()
 
-    def reports(self, write: Callable[[Path], list[Path]]) -> tuple[Path, ...]:
-        """The report files ``write(out)`` makes, with ``--out``; none without."""
-        return () if self.out is None else tuple(write(self.out))
 
 
 @dataclass(frozen=True)
 class Analysed:
     """A capture analysed offline: the result document, its text summary
-    and the report files written (none without ``--out``)."""
+    and what writes its report files into a folder (``--out``)."""
 
     doc: dict
     text: str
-    files: tuple[Path, ...] = ()
+    write: Callable[[Path], list[Path]] | None = None
 
 
 @dataclass(frozen=True)
@@ -139,6 +143,9 @@ class Kind:
     rank
         Where it stands when a capture is recognised: lower first (a
         two-tone capture is also a stepped one).
+    reads
+        What ``analyze`` hands it: "capture" (a WAV or FLAC with its
+        sidecar) or "csv" (a table of readings).
     """
 
     name: str
@@ -167,11 +174,13 @@ def names() -> tuple[str, ...]:
 
 def _load() -> dict[str, Kind]:
     if not _KINDS:
+        found = {}
         for name in names():
             kind = importlib.import_module(f"{__name__}.{name}").KIND
             if kind.name != name:
                 raise RuntimeError(f"benchkit/kinds/{name}.py declares a kind named {kind.name!r}")
-            _KINDS[name] = kind
+            found[name] = kind
+        _KINDS.update(found)  # all of them, or none: a module that fails to import says so every time
     return _KINDS
 
 

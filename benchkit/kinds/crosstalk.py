@@ -62,15 +62,16 @@ def analyze_crosstalk_capture(path: Path, bandwidth_hz=DEFAULT_BAND_HZ) -> Cross
     if any(x.below_floor for x in leaks):
         warnings.append("some leaks lie under 10 dB over their noise: their crosstalk is an upper bound")
     return CrosstalkResult(tuple(leaks), None not in scales, tuple(warnings), recs[0].sample_rate_hz,
-                           None if bandwidth_hz is None else tuple(bandwidth_hz))
+                           None if bandwidth_hz is None else tuple(bandwidth_hz), wiring.get("load_ohms"))
 
 
 def crosstalk_run(backend, folder: Path, frequencies_hz, level_dbfs: float, outputs=(1, 2), inputs=(1, 3),
                   note: str = "", calibration=None, calibration_file: str | None = None,
-                  warnings: tuple[str, ...] = ()) -> CrosstalkResult:
+                  warnings: tuple[str, ...] = (), load_ohms: float | None = None) -> CrosstalkResult:
     """Drive output A with a tone a frequency, then output B, recording
     both channels' outputs (inputs A and B); store the capture with the
-    wiring in its sidecar, then analyse it from disk."""
+    wiring (and the load each output drives) in its sidecar, then analyse
+    it from disk."""
     from benchkit.record import record_steps
 
     freqs = [float(f) for f in frequencies_hz]
@@ -79,7 +80,7 @@ def crosstalk_run(backend, folder: Path, frequencies_hz, level_dbfs: float, outp
                         calibration=calibration, calibration_file=calibration_file, warnings=warnings,
                         step_s=max(0.5, 20.0 / min(freqs)), out_channels=[outputs[0]] * n + [outputs[1]] * n,
                         listen=[inputs[0]] * n + [inputs[1]] * n,
-                        extra={"crosstalk": {"outputs": list(outputs), "inputs": list(inputs)}})
+                        extra={"crosstalk": {"outputs": list(outputs), "inputs": list(inputs), "load_ohms": load_ohms}})
     return analyze_crosstalk_capture(path)
 
 
@@ -122,7 +123,7 @@ def analyse(rec, o: Offline) -> Analysed:
     result = analyze_crosstalk_capture(path, o.bandwidth_hz)
     doc = {**result.to_dict(), "file": str(path)}
     return Analysed(doc, report.crosstalk_summary(doc, f"{path}: crosstalk"),
-                    o.reports(lambda out: report.crosstalk_reports(result, path, out)))
+                    lambda out: report.crosstalk_reports(result, path, out))
 
 
 KIND = Kind("crosstalk", reanalyse, CrosstalkParams, summary, reports, figures=crosstalk_figures, recognises=lambda rec: bool(rec.sidecar.get("crosstalk")),

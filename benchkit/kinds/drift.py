@@ -194,7 +194,6 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
     """Each run's readings against time."""
-    from benchkit.meters import read_drift_csv
     from benchkit.report import drift as report
 
     series = [read_drift_csv(e.folder / LOG)[:2] for e in entries]
@@ -210,7 +209,7 @@ def analyse(path: Path, o: Offline) -> Analysed:
     result = analyze_drift_csv(path, o.time_col, o.value_col, j.get("dc_limit"), j.get("settle_band"),
                                j.get("window", 60.0), nominal_v=j.get("nominal", 0.0))
     return Analysed(result.to_dict(), report.drift_summary(result, f"{path}: drift"),
-                    o.reports(lambda out: report.drift_reports(result, path, out)))
+                    lambda out: report.drift_reports(result, path, out))
 
 
 KIND = Kind("drift", reanalyse, DriftParams, summary, reports, figures=drift_figures, overlay=overlay, analyse=analyse, reads="csv")

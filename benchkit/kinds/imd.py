@@ -158,7 +158,6 @@ def analyse(rec, o: Offline) -> Analysed:
     """A two-tone capture: benchkit's own (its sidecar lists the steps), or
     (``--imd METHOD[:F1:F2]``) one made elsewhere, analysed whole."""
     from benchkit import units
-    from benchkit.analysis.imd import analyze_imd
     from benchkit.report import imd as report
 
     if is_imd(rec) and o.imd_method is None:
@@ -172,7 +171,7 @@ def analyse(rec, o: Offline) -> Analysed:
         result = ImdSteps(str(rec.path), rec.channel, twin, (ImdStep(None, r),), rec.warnings)
     doc = result.to_dict()
     return Analysed(doc, report.imd_summary(doc, f"{rec.path} channel {rec.channel}: intermodulation"),
-                    o.reports(lambda out: report.imd_reports(result, Path(rec.path), rec.channel, out)))
+                    lambda out: report.imd_reports(result, Path(rec.path), rec.channel, out))
 
 
 KIND = Kind("imd", reanalyse, ImdParams, summary, reports, figures=imd_figures, overlay=overlay, recognises=recognises,

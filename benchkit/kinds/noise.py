@@ -86,7 +86,7 @@ def summary(result: NoiseResult, title: str) -> str:
     return report.noise_summary(result.to_dict(), title)
 
 
-def reports(result: NoiseResult, folder: Path, channel: int = 1) -> list[Path]:
+def reports(result: NoiseResult, folder: Path, channel: int = 1, **options) -> list[Path]:
     from benchkit.report import noise as report
 
     return report.noise_reports(result, folder / CAPTURE_WAV, channel, folder)
@@ -129,7 +129,7 @@ def analyse(rec, o: Offline) -> Analysed:
     result = analyze_noise_capture(rec, o.bandwidth_hz, o.volts_per_fs, *ref, traces=o.out is not None)
     doc = {**result.to_dict(), "file": str(rec.path), "channel": rec.channel}
     return Analysed(doc, report.noise_summary(doc, f"{rec.path} channel {rec.channel}: noise"),
-                    o.reports(lambda out: report.noise_reports(result, Path(rec.path), rec.channel, out)))
+                    lambda out: report.noise_reports(result, Path(rec.path), rec.channel, out))
 
 
 KIND = Kind("noise", reanalyse, NoiseParams, summary, reports, figures=noise_figures, overlay=overlay, recognises=recognises,

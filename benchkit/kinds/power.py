@@ -30,7 +30,7 @@ from benchkit.budget import ClassABudget
 from benchkit.capture import FAULT_ADVICE, HearsFaults, MAX_RETRIES as MAX_RETAKES
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
-from benchkit.kinds.tone import StepsResult
+from benchkit.kinds.tone import analyze_steps, is_stepped, StepsResult
 from benchkit.recordings import read_capture
 from benchkit.units import quantity
 
@@ -439,7 +439,6 @@ def power_run(
     ``supply_meter`` (reading amps) is read half way through every step."""
     from benchkit import capture
     from benchkit.record import Recorder
-    from benchkit.kinds.tone import analyze_steps
 
     recorder = Recorder(backend, folder, channel, note, calibration, calibration_file)
 
@@ -547,8 +546,6 @@ def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
-    from benchkit.budget import ClassABudget
-    from benchkit.kinds.tone import analyze_steps
 
     p = PowerParams.from_dict(record.get("params"))
     rec = run_capture(folder, int(p.channel or 1), say)
@@ -572,8 +569,6 @@ def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> lis
 
 def analyse(rec, o: Offline) -> Analysed:
     """A stepped capture benchkit wrote, as a power run (``--power``)."""
-    from benchkit.kinds.tone import analyze_steps, is_stepped
-    from benchkit.errors import BenchkitError
     from benchkit.report import power as report
 
     if not is_stepped(rec):
@@ -584,7 +579,7 @@ def analyse(rec, o: Offline) -> Analysed:
     result = power_from_steps(steps, polarity_inverts=_inverts(rec), **o.power)
     text = report.power_summary(result, f"{rec.path} channel {rec.channel}: power into {o.load_ohms:g} ohm")
     return Analysed(result.to_dict(), text,
-                    o.reports(lambda out: report.power_reports(result, Path(rec.path), rec.channel, out)))
+                    lambda out: report.power_reports(result, Path(rec.path), rec.channel, out))
 
 
 KIND = Kind("power", reanalyse, PowerParams, summary, reports, figures=power_figures, overlay=overlay, chosen=lambda o: o.power is not None,

@@ -430,7 +430,7 @@ def analyse(rec, o: Offline) -> Analysed:
     result = analyze_response(rec, ref_channel, spec, o.ref_freq_hz, o.load_ohms, o.bandwidth_hz)
     text = report.response_summary(result, f"{rec.path} channel {rec.channel}: {result.method} response")
     return Analysed(result.to_dict(), text,
-                    o.reports(lambda out: report.response_reports(result, Path(rec.path), rec.channel, out, o.smooth)))
+                    lambda out: report.response_reports(result, Path(rec.path), rec.channel, out, o.smooth))
 
 
 KIND = Kind("sweep", reanalyse, SweepParams, summary, reports, figures=response_figures, overlay=overlay, recognises=recognises,

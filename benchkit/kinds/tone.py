@@ -179,7 +179,7 @@ def summary(steps: StepsResult, title: str) -> str:
     return report.steps_summary(steps, title)
 
 
-def reports(steps: StepsResult, folder: Path, channel: int = 1) -> list[Path]:
+def reports(steps: StepsResult, folder: Path, channel: int = 1, **options) -> list[Path]:
     from benchkit.report import tone as report
 
     return report.steps_reports(steps, folder / CAPTURE_WAV, channel, folder)
@@ -203,7 +203,6 @@ def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> lis
 
 
 def _spectra(entries, docs, labels, folder: Path, title: str, warnings) -> list[Path]:
-    from benchkit.recordings import read_capture
     from benchkit.report import tone as report
 
     shared = set.intersection(*({s["drive_dbfs"] for s in d.get("steps") or []} for d in docs))
@@ -232,18 +231,15 @@ def recognises(rec) -> bool:
 def analyse(rec, o: Offline) -> Analysed:
     """Each step of a stepped capture benchkit wrote; else the capture as
     one tone."""
-    from dataclasses import replace
-
     from benchkit import units
-    from benchkit.analysis.tone import analyze_tone
     from benchkit.report import tone as report
 
     path, channel = Path(rec.path), rec.channel
     if is_stepped(rec):
-        steps = analyze_steps(rec, o.bandwidth_hz, o.load_ohms, o.volts_per_fs, o.out is not None,
-                                   o.fundamental_hz, o.averages)
+        steps = analyze_steps(rec, o.bandwidth_hz, o.load_ohms, o.volts_per_fs, o.out is not None, o.fundamental_hz,
+                              o.averages)
         text = report.steps_summary(steps, f"{path} channel {channel} ({units.count(len(steps.steps), 'step')})")
-        return Analysed(steps.to_dict(), text, o.reports(lambda out: report.steps_reports(steps, path, channel, out)))
+        return Analysed(steps.to_dict(), text, lambda out: report.steps_reports(steps, path, channel, out))
     scale, source = o.scale(rec)
     result = analyze_tone(rec.samples, rec.sample_rate_hz,
                           fundamental_hz=o.fundamental_hz if o.fundamental_hz is not None else rec.stimulus_frequency_hz,
@@ -259,7 +255,7 @@ def analyse(rec, o: Offline) -> Analysed:
     if cal:
         doc["calibration"] = cal
     return Analysed(doc, report.tone_summary(result, str(path), channel),
-                    o.reports(lambda out: report.tone_reports(result, doc, path, channel, out)))
+                    lambda out: report.tone_reports(result, doc, path, channel, out))
 
 
 KIND = Kind("tone", reanalyse, ToneParams, summary, reports, figures=step_figures, overlay=overlay, recognises=recognises, analyse=analyse,

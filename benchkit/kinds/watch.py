@@ -289,7 +289,7 @@ class WatchParams(RunParams):
     frequency_hz: float | None = None
     level_dbfs: float | None = None
     load_ohms: float | None = None
-    bandwidth_hz: tuple[float, float] | None = (20.0, 20000.0)
+    bandwidth_hz: tuple[float, float] | None = None
 
 
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:

@@ -17,7 +17,7 @@ from typing import Callable, ClassVar
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.analysis.zout import phasor, output_impedance, Reading, zout_figures, ZoutResult
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Kind, RunParams
+from benchkit.kinds import Analysed, Kind, RunParams
 from benchkit.recordings import read_capture, Takes
 
 
@@ -116,6 +116,29 @@ def reports(result, folder: Path, channel: int = 1, **options) -> list[Path]:
     return report.zout_reports(result, folder, folder)
 
 
+def analyse_pair(open_path: Path, loaded_path: Path, channel: int, ref_channel: int | None, bandwidth_hz,
+                 load_ohms: float, open_load_ohms: float | None) -> Analysed:
+    """Output impedance from two captures (``analyze --zout``): benchkit's
+    stepped ones (each step a reading: a gain with its phase over the
+    reference input), or single tones made elsewhere (their levels)."""
+    from benchkit.analysis.tone import analyze_tone
+    from benchkit.kinds.tone import is_stepped
+    from benchkit.report import zout as report
+
+    got = []
+    for path in (open_path, loaded_path):
+        rec = read_capture(path, channel)
+        if is_stepped(rec):
+            got.append(readings_of_capture(Path(path), channel, ref_channel, bandwidth_hz))
+        else:
+            r = analyze_tone(rec.samples, rec.sample_rate_hz, bandwidth_hz=bandwidth_hz)
+            got.append([Reading(r.fundamental_hz, complex(r.fundamental_fs), None, r.valid)])
+    result = output_impedance(got[0], got[1], load_ohms, open_load_ohms)
+    doc = {**result.to_dict(), "files": [str(open_path), str(loaded_path)]}
+    return Analysed(doc, report.zout_summary(doc, f"output impedance: {open_path} (open), {loaded_path} (loaded)"),
+                    lambda out: report.zout_reports(result, Path(loaded_path).parent, out))
+
+
 @dataclass(frozen=True)
 class ZoutParams(RunParams):
     """The load switched in, what loads the open output, the tones; or the
@@ -135,7 +158,6 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     p = ZoutParams.from_dict(record.get("params"))
     load, open_load = float(p.load_ohms), p.open_load_ohms
     if p.from_runs:  # made from two logged runs: the copies of their results it keeps
-        from benchkit.analysis.zout import output_impedance
         from benchkit.jsonfile import load_json
 
         docs = [load_json(folder / f"{state}.result.json") for state in ("open", "loaded")]

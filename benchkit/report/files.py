@@ -18,10 +18,16 @@ def report_folder(out: Path) -> Path:
     return out
 
 
+def stem_of(path: Path, channel: int) -> str:
+    """What a capture's report files are named after: its stem, with the
+    channel when it is not the first."""
+    return path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+
+
 def result_csv_png(result, path: Path, channel: int, out: Path, what: str, write_csv, plot) -> list[Path]:
     """STEM.WHAT.json, .csv and .png: the result, its table and its plot."""
     report_folder(out)
-    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    stem = stem_of(path, channel)
     return [
         tables.write_json(result.to_dict(), out / f"{stem}.{what}.json"),
         write_csv(result, out / f"{stem}.{what}.csv"),

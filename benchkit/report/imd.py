@@ -13,7 +13,7 @@ from matplotlib.ticker import FuncFormatter
 
 from benchkit import units
 from benchkit.report import tables
-from benchkit.report.files import report_folder
+from benchkit.report.files import report_folder, stem_of
 from benchkit.report.overlays import percent_axes, colour, finish_overlay
 from benchkit.report.plots import hz_label
 from benchkit.units import quantity
@@ -87,7 +87,7 @@ def imd_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
     """STEM.imd.json, .csv and .png: the IMD against level, and the top
     valid step's spectrum with its products when the analysis kept it."""
     report_folder(out)
-    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    stem = stem_of(path, channel)
     doc = result.to_dict()
     top = result.top() or result.steps[-1]
     spectrum = None

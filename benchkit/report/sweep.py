@@ -12,7 +12,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from benchkit.report import tables
-from benchkit.report.files import report_folder
+from benchkit.report.files import report_folder, stem_of
 from benchkit.report.overlays import colour, finish_overlay
 from benchkit.report.plots import FAINT, hz_label, log_hz_axis, MARK, save_png, TRACE
 from benchkit.units import quantity
@@ -133,7 +133,7 @@ def distortion_png(result, path: Path, title: str) -> Path:
 
 def response_reports(result, path: Path, channel: int, out: Path, smooth: int | None = None) -> list[Path]:
     report_folder(out)
-    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    stem = stem_of(path, channel)
     return [
         tables.write_json(result.to_dict(), out / f"{stem}.response.json"),
         write_response_csv(result, out / f"{stem}.response.csv"),

@@ -14,7 +14,7 @@ from matplotlib.ticker import FuncFormatter
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import ToneResult
 from benchkit.report import overlays, tables
-from benchkit.report.files import report_folder
+from benchkit.report.files import report_folder, stem_of
 from benchkit.report.overlays import colour, finish_overlay
 from benchkit.report.plots import BAND, FAINT, hz_label, LABELLED_HARMONICS, MARK, save_png, TRACE
 from benchkit.units import quantity
@@ -260,7 +260,7 @@ def residual_png(result: ToneResult, path: Path, title: str) -> Path:
 
 def tone_reports(result, doc, path: Path, channel: int, out: Path) -> list[Path]:
     report_folder(out)
-    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    stem = stem_of(path, channel)
     title = f"{path.name}, channel {channel}"
     return [
         tables.write_json(doc, out / f"{stem}.result.json"),
@@ -273,7 +273,7 @@ def tone_reports(result, doc, path: Path, channel: int, out: Path) -> list[Path]
 
 def steps_reports(steps, path: Path, channel: int, out: Path) -> list[Path]:
     report_folder(out)
-    stem = path.stem if channel == 1 else f"{path.stem}-ch{channel}"
+    stem = stem_of(path, channel)
     written = [
         tables.write_json(steps.to_dict(), out / f"{stem}.result.json"),
         write_steps_csv(steps, out / f"{stem}.steps.csv"),
