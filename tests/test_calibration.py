@@ -132,7 +132,13 @@ def test_calibration_round_trip_reports_the_true_stage_voltage(tmp_path):
     true_vrms = 2.0 * 10 ** (-20 / 20) * 10.0 / math.sqrt(2)
     assert step["scale_source"] == "profile"
     assert 20 * math.log10(step["fundamental_vrms"] / true_vrms) == pytest.approx(0.0, abs=0.1)
-    assert doc["calibration"]["hash"] == load_profile(cal).digest()
+    assert doc["calibration"]["hash"] == doc["conditions"]["calibration_hash"] == load_profile(cal).digest()
+    # every kind's result names the profile its capture was scaled by, in the conditions all results share
+    for command, *extra in (("noise", "--length", "0.5"), ("gain", "--level", "-30dBFS")):
+        res = run_cli(command, "--calibration", str(cal), "--sim", "ideal", *extra, "--bench", str(tmp_path / "run"),
+                      "--json")
+        assert res.returncode == 0, res.stderr
+        assert json.loads(res.stdout)["conditions"]["calibration_hash"] == load_profile(cal).digest(), command
 
 
 @pytest.mark.parametrize(

@@ -100,6 +100,8 @@ class CrosstalkResult:
     bandwidth_hz: tuple[float, float] | None = None
     #: what each output drove, ohms (as the run was told)
     load_ohms: float | None = None
+    #: the calibration profile its capture's sidecar names (file, hash ...), none without one
+    calibration: dict | None = None
 
     def direction(self, driven: str) -> list[Leak]:
         return [x for x in self.leaks if x.driven == driven]
@@ -144,7 +146,7 @@ class CrosstalkResult:
         }, Conditions(self.sample_rate_hz, self.bandwidth_hz, sp.WINDOW_NAME,
                       "the driven tone fitted; the leak read at its frequency by least squares", 1,
                       "both inputs' scales" if self.scaled else "none", None, self.load_ohms,
-                      more={"floor_margin_db": FLOOR_MARGIN_DB}))
+                      more={"floor_margin_db": FLOOR_MARGIN_DB}).calibrated(self.calibration))
 
 
 def crosstalk_figures(doc: dict) -> list[Figure]:

@@ -29,6 +29,8 @@ class GainResult:
     output: ToneResult
     load_ohms: float | None = None
     warnings: tuple[str, ...] = ()
+    #: the calibration profile its capture's sidecar names (file, hash ...), none without one
+    calibration: dict | None = None
 
     @property
     def gain_vv(self) -> float:
@@ -52,7 +54,7 @@ class GainResult:
             "sample_rate_hz": self.output.sample_rate_hz,
             "warnings": list(self.warnings) + list(self.output.warnings),
         }, replace(self.output.conditions(), method=f"output over input ({self.input_source}), each tone fitted",
-                   load_ohms=self.load_ohms))
+                   load_ohms=self.load_ohms).calibrated(self.calibration))
 
 
 def gain_of(output: ToneResult, drive_dbfs: float, reference: ToneResult | None = None,

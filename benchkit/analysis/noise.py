@@ -66,6 +66,8 @@ class NoiseResult:
     freq_hz: np.ndarray | None = None
     psd_fs2_per_hz: np.ndarray | None = None
     warnings: tuple[str, ...] = ()
+    #: the calibration profile its capture's sidecar names (file, hash ...), none without one
+    calibration: dict | None = None
 
     def _volts(self, fs: float) -> float | None:
         # FS is a peak scale: an RMS in FS times volts peak per FS is Vrms
@@ -102,7 +104,7 @@ class NoiseResult:
             "warnings": list(self.warnings),
         }, Conditions(self.sample_rate_hz, self.bandwidth_hz, "Hann", "Welch PSD (Hann, 50 % overlap) integrated over "
                       "the band", None, self.scale_source, self.volts_per_fs,
-                      more={"segment_s": SEGMENT_S, "weighting": "A, IEC 61672-1"}))
+                      more={"segment_s": SEGMENT_S, "weighting": "A, IEC 61672-1"}).calibrated(self.calibration))
 
 
 def psd(x: np.ndarray, rate: float) -> tuple[np.ndarray, np.ndarray]:

@@ -94,6 +94,8 @@ class ZoutResult:
     method: str  # "gain-ratio" (complex) or "levels" (magnitudes)
     points: tuple[ZoutPoint, ...]
     warnings: tuple[str, ...] = ()
+    #: the calibration profile its readings were made with (file, hash ...), none without one
+    calibration: dict | None = None
 
     def at(self, frequency_hz: float = 1000.0) -> ZoutPoint | None:
         """The valid point nearest ``frequency_hz`` (on a log scale)."""
@@ -109,7 +111,8 @@ class ZoutResult:
             "zout_ohms": None if ref is None else ref.zout_ohms,
             "damping_factor": None if ref is None else ref.damping_factor,
             "points": [p.to_dict() for p in self.points], "warnings": list(self.warnings),
-        }, Conditions(method=self.method, load_ohms=self.load_ohms, more={"open_load_ohms": self.open_load_ohms}))
+        }, Conditions(method=self.method, load_ohms=self.load_ohms,
+                      more={"open_load_ohms": self.open_load_ohms}).calibrated(self.calibration))
 
 
 def output_impedance(open_: list[Reading], loaded: list[Reading], load_ohms: float,

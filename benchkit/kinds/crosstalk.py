@@ -62,7 +62,8 @@ def analyze_crosstalk_capture(path: Path, bandwidth_hz=DEFAULT_BAND_HZ) -> Cross
     if any(x.below_floor for x in leaks):
         warnings.append("some leaks lie under 10 dB over their noise: their crosstalk is an upper bound")
     return CrosstalkResult(tuple(leaks), None not in scales, tuple(warnings), recs[0].sample_rate_hz,
-                           None if bandwidth_hz is None else tuple(bandwidth_hz), wiring.get("load_ohms"))
+                           None if bandwidth_hz is None else tuple(bandwidth_hz), wiring.get("load_ohms"),
+                           side.get("calibration"))
 
 
 def crosstalk_run(backend, folder: Path, frequencies_hz, level_dbfs: float, outputs=(1, 2), inputs=(1, 3),

@@ -8,7 +8,7 @@ then analysed from disk.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from benchkit.analysis.gain import gain_figures, gain_of, gain_readings, GainResult
@@ -54,13 +54,15 @@ def step_gains(path: Path, channel: int = 1, ref_channel: int | None = None, ban
         for seg, step in zip(side["stimulus"]["segments"], steps.steps):
             r = analyze_tone(takes.step(seg), rec.sample_rate_hz,
                              fundamental_hz=float(seg["frequency_hz"]), bandwidth_hz=bandwidth_hz, volts_per_fs=scale)
-            out.append(gain_of(step.result, step.drive_dbfs, reference=r, load_ohms=load_ohms))
+            g = gain_of(step.result, step.drive_dbfs, reference=r, load_ohms=load_ohms)
+            out.append(replace(g, calibration=cal or None))
         return out
     out_scale = cal.get("output_vpk_per_fs") or side.get("output_vpk_per_fs")
     if not out_scale:
         raise BenchkitError(f"{path}: no reference input and no calibrated output scale: wire a reference input "
                             "(--ref-channel) or give --calibration")
-    return [gain_of(step.result, step.drive_dbfs, output_vpk_per_fs=float(out_scale), load_ohms=load_ohms)
+    return [replace(gain_of(step.result, step.drive_dbfs, output_vpk_per_fs=float(out_scale), load_ohms=load_ohms),
+                    calibration=cal or None)
             for step in steps.steps]
 
 

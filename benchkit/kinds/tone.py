@@ -254,6 +254,7 @@ def analyse(rec, o: Offline) -> Analysed:
     doc["warnings"] = list(rec.warnings) + doc["warnings"]
     if cal:
         doc["calibration"] = cal
+        doc["conditions"] = result.conditions().calibrated(cal).to_dict()
     return Analysed(doc, report.tone_summary(result, str(path), channel),
                     lambda out: report.tone_reports(result, doc, path, channel, out))
 

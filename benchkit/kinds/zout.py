@@ -9,7 +9,7 @@ sweep runs, one unloaded and one loaded) taken from their stored results.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Callable, ClassVar
 
@@ -83,7 +83,8 @@ def zout_of_captures(folder: Path, load_ohms: float, open_load_ohms: float | Non
         if not path.exists():
             path = recover_capture(folder, state)
         got.append(readings_of_capture(path, channel, ref_channel, bandwidth_hz))
-    return output_impedance(got[0], got[1], load_ohms, open_load_ohms)
+    cal = read_capture(folder / f"{STATES[0]}.wav").sidecar.get("calibration")
+    return replace(output_impedance(got[0], got[1], load_ohms, open_load_ohms), calibration=cal)
 
 
 def zout_run(backend, folder: Path, load_ohms: float, frequencies_hz, level_dbfs: float,
