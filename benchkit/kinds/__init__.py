@@ -3,8 +3,10 @@
 A kind (tone, sweep, power, imd, noise, gain, zout, crosstalk, drift,
 watch) lives in ``benchkit/kinds/NAME.py`` as one :class:`Kind`: its name
 (the command, the run record's ``command`` and the result's ``kind``
-alike), the result kinds older runs stored under, how it analyses a run
-from its folder (``log reanalyse`` and a killed run's recovery), how it is
+alike; older results are read through
+:func:`benchkit.analysis.documents.upgrade`), its parameters (what a run's
+record stores), how it reports a run, how it analyses a run again from its
+folder (``log reanalyse`` and a killed run's recovery), how it is
 recognised in a capture's sidecar and analysed offline (``analyze``), its
 comparable figures (the logbook's headline ones among them) and its
 comparison overlay. Modules in this package are found, not listed: adding
