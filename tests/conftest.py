@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 import shutil
+import signal
 import subprocess
 from pathlib import Path
 
@@ -16,6 +17,15 @@ import forkcli
 def cosine(freq_hz: float, rate: float, seconds: float = 1.0, amp: float = 0.5, phase: float = 0.0) -> np.ndarray:
     n = np.arange(int(round(rate * seconds)))
     return amp * np.cos(2 * np.pi * freq_hz * n / rate + phase)
+
+
+def pytest_configure(config):
+    """A suite started in the background (``pytest &`` in a script, nohup)
+    inherits SIGINT ignored, and so would every command it starts: the
+    Ctrl-C tests need it delivered. Python's own handler here becomes the
+    default again in each program started (an exec keeps only "ignored")."""
+    if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
+        signal.signal(signal.SIGINT, signal.default_int_handler)
 
 
 def pytest_collection_modifyitems(items):

@@ -39,6 +39,16 @@ PRELOAD = ("scipy.signal", "matplotlib.figure", "matplotlib.backends.backend_agg
 _PACKET = 1 << 20
 
 
+def raise_priority(steps: int) -> None:
+    """Lower this process's nice value by ``steps`` where this user may (root
+    may; anyone else keeps the priority it has): the threads it starts
+    after inherit it."""
+    try:
+        os.nice(-steps)
+    except OSError:
+        pass
+
+
 def _child(sock: socket.socket, req: dict, fds: list[int]) -> None:
     """In the forked child: become ``python -m benchkit <args>``."""
     import runpy
@@ -49,6 +59,8 @@ def _child(sock: socket.socket, req: dict, fds: list[int]) -> None:
         for fd, target in zip(fds, (0, 1, 2)):
             os.dup2(fd, target)
             os.close(fd)
+        if req.get("nice"):
+            raise_priority(req["nice"])
         os.environ.clear()
         os.environ.update(req["env"])
         os.chdir(req["cwd"])
@@ -142,10 +154,11 @@ class ForkServer:
                     self._pids.append(doc["pid"])
                 self._ended.notify_all()
 
-    def spawn(self, args, env=None, cwd=None, stdin=None) -> "Forked":
+    def spawn(self, args, env=None, cwd=None, stdin=None, priority: int = 0) -> "Forked":
         """``python -m benchkit *args`` as a child of the server, its stdout
         and stderr pipes to this process (text), stdin ``stdin`` (a file
-        descriptor) or /dev/null."""
+        descriptor) or /dev/null; ``priority`` steps of nice value higher
+        where allowed (:func:`raise_priority`)."""
         with self._spawn:
             if self.proc is None or self.proc.poll() is not None:
                 self._start()
@@ -153,7 +166,7 @@ class ForkServer:
             err_r, err_w = os.pipe()
             in_fd = os.open(os.devnull, os.O_RDONLY) if stdin is None else os.dup(stdin)
             req = {"args": [str(a) for a in args], "env": dict(os.environ if env is None else env),
-                   "cwd": str(cwd or os.getcwd())}
+                   "cwd": str(cwd or os.getcwd()), "nice": priority}
             try:
                 socket.send_fds(self.sock, [json.dumps(req).encode()], [in_fd, out_w, err_w])
             finally:
@@ -237,17 +250,19 @@ class Forked:
 _SERVER: list = []
 
 
-def benchkit(*args, env=None, cwd=None):
+def benchkit(*args, env=None, cwd=None, priority: int = 0):
     """``python -m benchkit *args`` with stdout and stderr piped (text): a
     :class:`Forked` child of this process's fork server, or with
-    BENCHKIT_TEST_FORK=0 a ``subprocess.Popen``."""
+    BENCHKIT_TEST_FORK=0 a ``subprocess.Popen``; ``priority`` as
+    :meth:`ForkServer.spawn` takes it."""
     if os.environ.get("BENCHKIT_TEST_FORK", "1") == "0" or not hasattr(os, "fork"):
         return subprocess.Popen([sys.executable, "-m", "benchkit", *args], stdout=subprocess.PIPE,
-                                stderr=subprocess.PIPE, text=True, env=env, cwd=cwd)
+                                stderr=subprocess.PIPE, text=True, env=env, cwd=cwd,
+                                preexec_fn=(lambda: raise_priority(priority)) if priority else None)
     if not _SERVER:
         _SERVER.append(ForkServer())
         atexit.register(_SERVER[0].close)
-    return _SERVER[0].spawn(args, env=env, cwd=cwd)
+    return _SERVER[0].spawn(args, env=env, cwd=cwd, priority=priority)
 
 
 def run(*args, cwd=None, timeout: float = 120) -> subprocess.CompletedProcess:
