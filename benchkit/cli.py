@@ -25,7 +25,7 @@ from benchkit.kinds import headline_figures
 from benchkit.analysis.documents import document
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.calibration import load_profile
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchkitError, BenchWarning, read_warnings
 from benchkit.units import quantity
 from benchkit.logbook import CATALOG, STATUSES
 from benchkit.kinds.crosstalk import DEFAULT_FREQS_HZ as DEFAULT_CROSSTALK_FREQS
@@ -1196,7 +1196,7 @@ def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: fl
     plan = record.plan_run(backend, profile, [drive], frequency, live["in_channel"], live["gain"], live["margin"],
                          live["rail"], live["pad_rating"], checked, live["btl"], say=_err)
     for w in plan.warnings:
-        if checked is not None or load is None or not w.startswith("no load given"):
+        if checked is not None or load is None or w.code != "no-load":
             _err(f"warning: {w}")
     return backend, profile, ref_channel, drive, plan
 
@@ -1448,7 +1448,7 @@ def drift(
                 reader.close()
                 if amps is not None:
                     amps.close()
-            notes = () if end.how in ("duration", "settled") else (f"the log stopped early: {end.message}",)
+            notes = () if end.how in ("duration", "settled") else (BenchWarning("interrupted", f"the log stopped early: {end.message}"),)
             if end.how == "lost":
                 _err(f"benchkit: {end.message}: the log stopped; every reading so far is in {log}")
             result = analyze_drift_csv(log, limit_v=dc_limit, band_v=band, window_s=window,
@@ -1846,8 +1846,8 @@ def log_show(
     for f in record.get("figures") or []:
         _err(f"  figure       {f['name']} = {f['value']:.6g} {f['unit']}" + (f" ({f['at']})" if f.get("at") else "")
              if f["value"] is not None else f"  figure       {f['name']}: not measured")
-    for w in record.get("warnings") or []:
-        _err(f"  warning      {w}")
+    for w in read_warnings(record.get("warnings")):
+        _err(f"  warning      {w} [{w.code}]")
     if record.get("error"):
         _err(f"  ended with   {record['error']}")
     _err(f"  folder       {entry.folder} ({len(record.get('files') or [])} files)")

@@ -39,7 +39,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Callable, Iterator
 
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchkitError, read_warnings, warning_docs
 from benchkit.recordings import write_text_atomic
 from benchkit.jsonfile import INT, NUMBER, TEXT, load_json, loads, wrong_field
 
@@ -327,7 +327,7 @@ class RunEntry:
             "id": self.id, "started": self.started, "finished": self.finished, "command": self.command,
             "kind": self.kind, "status": self.status, "device": self.device,
             "calibration": None if not self.calibration_hash else {"file": self.calibration_file, "hash": self.calibration_hash},
-            "stage": self.stage, "note": self.note, "valid": self.valid, "warnings": self.warnings,
+            "stage": self.stage, "note": self.note, "valid": self.valid, "warnings": warning_docs(self.warnings),
             "error": self.error, "tags": self.tags, "figures": self.figures, "folder": str(self.folder),
         }
 
@@ -493,7 +493,7 @@ class Logbook:
              record["status"], record.get("pid"), record.get("host"), record.get("device"), cal.get("file"),
              cal.get("hash"), json.dumps(record.get("stage") or {}, ensure_ascii=False), record.get("note") or "",
              None if record.get("valid") is None else int(bool(record["valid"])),
-             json.dumps(record.get("warnings") or [], ensure_ascii=False), record.get("error")))
+             json.dumps(warning_docs(record.get("warnings")), ensure_ascii=False), record.get("error")))
         db.executemany("INSERT INTO tags (run_id, key, value) VALUES (?, ?, ?)",
                        [(record["id"], k, str(v)) for k, v in (record.get("tags") or {}).items()])
         _put_figures(db, record["id"], record.get("figures") or [])
@@ -615,7 +615,7 @@ class Logbook:
             id=row["id"], started=row["started"], finished=row["finished"], command=row["command"], kind=row["kind"],
             status=status, device=row["device"], calibration_file=row["calibration_file"],
             calibration_hash=row["calibration_hash"], stage=json.loads(row["stage"] or "{}"), note=row["note"],
-            valid=None if row["valid"] is None else bool(row["valid"]), warnings=json.loads(row["warnings"] or "[]"),
+            valid=None if row["valid"] is None else bool(row["valid"]), warnings=list(read_warnings(json.loads(row["warnings"] or "[]"))),
             error=row["error"], tags=tags, figures=figures, folder=self.folder(row["id"]))
 
     def entries(self, tags: dict[str, str] | None = None, command: str | None = None, status: str | None = None,
@@ -813,10 +813,10 @@ def _valid(doc: dict) -> bool | None:
     return None
 
 
-def _warnings(doc: dict) -> list[str]:
-    out = list(doc.get("warnings") or [])
+def _warnings(doc: dict) -> list[dict]:
+    out = warning_docs(doc.get("warnings"))
     for s in doc.get("steps") or []:
-        for w in s.get("warnings") or []:
+        for w in warning_docs(s.get("warnings")):
             if w not in out:
                 out.append(w)
     return out

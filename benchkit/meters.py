@@ -24,7 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchWarning, BenchkitError
 
 
 class SourceLost(BenchkitError):
@@ -187,14 +187,14 @@ def read_drift_csv(path: str | Path, time_col: str = "1", value_col: str = "2") 
         v.append(b * v_scale)
     warnings = []
     if bad:
-        warnings.append(f"{bad} row(s) with a missing or unreadable value were skipped")
+        warnings.append(BenchWarning("skipped", f"{bad} row(s) with a missing or unreadable value were skipped"))
     if len(t) < 2:
         raise BenchkitError(f"{path}: fewer than two readable readings")
     ta, va = np.array(t), np.array(v)
     if np.any(np.diff(ta) < 0):
         order = np.argsort(ta, kind="stable")
         ta, va = ta[order], va[order]
-        warnings.append("the times were not in order: the readings were sorted by time")
+        warnings.append(BenchWarning("reordered", "the times were not in order: the readings were sorted by time"))
     if np.any(np.diff(ta) == 0):
-        warnings.append("some readings share a time stamp")
+        warnings.append(BenchWarning("reordered", "some readings share a time stamp"))
     return ta, va, warnings

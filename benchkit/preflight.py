@@ -18,7 +18,7 @@ from dataclasses import dataclass
 
 from benchkit.units import quantity
 from benchkit import units
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchWarning, BenchkitError
 from benchkit.pads import Pad
 
 DEFAULT_MARGIN_DB = 3.0
@@ -62,8 +62,8 @@ def rail_rule(rail_v: float, ratio: float, input_fs_vpk: float, margin_db: float
     if fault > input_fs_vpk:
         within = (f"under the input's stated maximum of {input_max_vpk:g} V peak" if input_max_vpk is not None
                   else "check the interface's maximum input rating (--input-max)")
-        return (f"a fault putting the whole {rail_v:g} V rail on the output would reach {fault_dbfs:+.1f} dBFS at the "
-                f"input ({quantity(fault, 'V', 3)} peak): over full scale, {within}",)
+        return (BenchWarning("safety", f"a fault putting the whole {rail_v:g} V rail on the output would reach "
+                             f"{fault_dbfs:+.1f} dBFS at the input ({quantity(fault, 'V', 3)} peak): over full scale, {within}"),)
     return ()
 #: The lowest step landing below this at the input is close to a typical
 #: interface's floor (common practice: keep 30 dB or more above it).
@@ -133,14 +133,14 @@ def check(
                 )
     warnings = []
     if (ratio is None or ratio >= 1.0) and load_ohms is not None:
-        warnings.append("no pad between a power stage and the input: one fault and the input takes the stage's full swing")
+        warnings.append(BenchWarning("safety", "no pad between a power stage and the input: one fault and the input takes the stage's full swing"))
     low = units.db_from_ratio(min(peaks))
     if low < NEAR_FLOOR_DBFS:
-        warnings.append(f"the lowest step lands at {low:.0f} dBFS at the input, close to the interface's floor: "
-                        "a smaller pad ratio or more drive would read it better")
+        warnings.append(BenchWarning("near-floor", f"the lowest step lands at {low:.0f} dBFS at the input, close to the interface's floor: "
+                        "a smaller pad ratio or more drive would read it better"))
     if load_ohms is None:
-        warnings.append("no load given: measure a power stage into a dummy load of the right rating")
+        warnings.append(BenchWarning("no-load", "no load given: measure a power stage into a dummy load of the right rating"))
     if bridged:
-        warnings.append("bridged (BTL) output: its minus terminal is not at ground and must not go to the interface's "
-                        "ground; use a balanced (differential) input")
+        warnings.append(BenchWarning("safety", "bridged (BTL) output: its minus terminal is not at ground and must not go to the interface's "
+                        "ground; use a balanced (differential) input"))
     return Plan(peaks, stage, gain_fs, tuple(warnings))

@@ -24,7 +24,7 @@ from typing import Any
 
 from benchkit import capture, units
 from benchkit.analysis.tone import analyze_tone
-from benchkit.errors import BenchkitError, NoToneError
+from benchkit.errors import BenchWarning, BenchkitError, NoToneError
 from benchkit.jsonfile import load_json
 from benchkit.recordings import write_capture, write_capture_sidecar
 from benchkit.signals import stepped_tones
@@ -164,7 +164,7 @@ def recover_capture(folder: Path, stem: str = "capture") -> Path:
     side["latency_samples"] = int(latency)
     side["events"] = ["recovered"]
     side.setdefault("warnings", []).append(
-        f"recovered from a run that was cut off: {len(kept)} of {len(segments)} steps were recorded whole")
+        BenchWarning("interrupted", f"recovered from a run that was cut off: {len(kept)} of {len(segments)} steps were recorded whole"))
     return write_capture(folder / f"{stem}.wav", aligned, rate, side)
 
 
@@ -203,6 +203,10 @@ def clock_offset_ppm(cap, stim) -> float | None:
         return None
     # an input clock running fast sees the tone low
     return (seg.frequency_hz / got.fundamental_hz - 1.0) * 1e6
+
+
+#: A step whose every take a stream fault spoiled.
+SPOILED = BenchWarning("dropout", "a stream fault spoiled this step")
 
 
 def step_fault(cap: capture.Capture, seg, channel: int, tone: bool = True) -> str | None:
@@ -291,8 +295,8 @@ def record_steps(
             raise BenchkitError(f"the input clipped at {at:.2f} s{where}, before any step was measured: "
                                 "lower the drive or use a larger pad")
         segments[:] = [segments[i] for i in kept]
-        stop_note = (f"the input clipped at {at:.2f} s{where}: the run stopped stepping up; "
-                     f"{len(stim.segments) - len(kept)} step(s) were not measured")
+        stop_note = BenchWarning("input-clipped", f"the input clipped at {at:.2f} s{where}: the run stopped stepping up; "
+                                 f"{len(stim.segments) - len(kept)} step(s) were not measured")
     tones = twin is None
     verdicts = {i: step_fault(cap, seg, ears[i], tones) for i, seg in enumerate(stim.segments[: len(segments)])}
     pending = [i for i, v in verdicts.items() if v]
@@ -313,15 +317,15 @@ def record_steps(
     reported = [i for i in pending if verdicts[i] == "reported"]
     heard = [i for i in pending if verdicts[i] == "heard"]
     if reported:
-        warnings.append(f"steps {', '.join(str(i + 1) for i in reported)} were spoiled by stream faults in every take")
+        warnings.append(BenchWarning("dropout", f"steps {', '.join(str(i + 1) for i in reported)} were spoiled by stream faults in every take"))
         for i in reported:
             segments[i] = {**segments[i], "spoiled": True}
     if heard:
         # the same gap in every take is more likely the stage's than the stream's
-        warnings.append(f"steps {', '.join(str(i + 1) for i in heard)} showed gaps or clicks in every take: "
-                        "is the stage bursting into oscillation?")
+        warnings.append(BenchWarning("dropout", f"steps {', '.join(str(i + 1) for i in heard)} showed gaps or clicks in every take: "
+                        "is the stage bursting into oscillation?"))
     if side["clock_offset_ppm"] is not None and abs(side["clock_offset_ppm"]) > CLOCK_WARN_PPM:
-        warnings.append(f"the input clock runs {side['clock_offset_ppm']:+.1f} ppm against the output: separate clocks?")
+        warnings.append(BenchWarning("clock-offset", f"the input clock runs {side['clock_offset_ppm']:+.1f} ppm against the output: separate clocks?"))
     side["warnings"] = warnings
     write_capture_sidecar(path, side)
     return path
@@ -391,8 +395,8 @@ def plan_run(backend, profile, drive, frequency_hz, channel, gain, margin_db, ra
     except BenchkitError as exc:
         raise BenchkitError(f"the stage's gain measured {measured:.3g} V/V at a {probe:g} dBFS step, "
                             f"{over_db:.1f} dB over the {gain:g} V/V given: {exc}") from None
-    note = (f"the stage's gain measured {measured:.3g} V/V at a {probe:g} dBFS step, {over_db:.1f} dB over the "
-            f"{gain:g} V/V given: the pre-flight took the measured gain")
+    note = BenchWarning("gain-over-given", f"the stage's gain measured {measured:.3g} V/V at a {probe:g} dBFS step, "
+                        f"{over_db:.1f} dB over the {gain:g} V/V given: the pre-flight took the measured gain")
     return replace(plan, warnings=(*plan.warnings, note))
 
 

@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from benchkit.analysis import refuse_non_finite
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchkitError, BenchWarning, warning_docs
 from benchkit.jsonfile import INT as _INT, NUMBER as _NUMBER, TEXT as _TEXT, load_json, wrong_field
 
 SIDECAR_KIND = "capture"
@@ -147,15 +147,15 @@ def _read_sidecar(audio: Path) -> tuple[dict, list[str]]:
     try:
         doc = load_json(side)
     except (OSError, ValueError) as exc:
-        return {}, [f"sidecar {side.name} is unreadable ({exc.__class__.__name__}); ignored"]
+        return {}, [BenchWarning("ignored", f"sidecar {side.name} is unreadable ({exc.__class__.__name__}); ignored")]
     if not isinstance(doc, dict) or doc.get("kind") != SIDECAR_KIND:
-        return {}, [f"sidecar {side.name} is not a benchkit capture description; ignored"]
+        return {}, [BenchWarning("ignored", f"sidecar {side.name} is not a benchkit capture description; ignored")]
     version = doc.get("schema_version")
     if not isinstance(version, int) or version > SIDECAR_SCHEMA_VERSION:
-        return {}, [f"sidecar {side.name} has layout version {version!r}, newer than this benchkit reads; ignored"]
+        return {}, [BenchWarning("ignored", f"sidecar {side.name} has layout version {version!r}, newer than this benchkit reads; ignored")]
     problem = _sidecar_problem(doc)
     if problem:
-        return {}, [f"sidecar {side.name} is damaged ({problem}); ignored"]
+        return {}, [BenchWarning("ignored", f"sidecar {side.name} is damaged ({problem}); ignored")]
     return doc, []
 
 
@@ -240,8 +240,11 @@ def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
 
 
 def write_capture_sidecar(audio_path: str | os.PathLike, sidecar: dict) -> Path:
-    """Write (or rewrite) the sidecar JSON of a capture."""
+    """Write (or rewrite) the sidecar JSON of a capture (its warnings as
+    every document stores them: :func:`benchkit.errors.warning_docs`)."""
     doc = {"kind": SIDECAR_KIND, "schema_version": SIDECAR_SCHEMA_VERSION, **sidecar}
+    if "warnings" in doc:
+        doc["warnings"] = warning_docs(doc["warnings"])
     return write_text_atomic(sidecar_path(audio_path), json.dumps(doc, indent=2, default=_json_default) + "\n")
 
 

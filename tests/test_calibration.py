@@ -167,7 +167,7 @@ def test_the_interface_floor_is_marked(tmp_path, profile_path):
                   "--sim-pad", "none", "--level", "-20dBFS", "--bench", str(tmp_path / "run"), "--json")
     assert res.returncode == 0, res.stderr
     step = json.loads(res.stdout)["steps"][0]
-    assert any("limited by the interface" in w for w in step["warnings"])
+    assert any(w["code"] == "interface-limited" and "limited by the interface" in w["text"] for w in step["warnings"])
 
 
 # --- pre-flight ------------------------------------------------------------------------
@@ -204,7 +204,8 @@ def test_preflight_warnings_reach_the_results(tmp_path):
     res = run_cli("tone", "--level", "-20dBFS", "--btl", "--bench", str(tmp_path / "run"), "--json")
     assert res.returncode == 0, res.stderr
     warnings = json.loads(res.stdout)["warnings"]
-    assert any("no load given" in w for w in warnings) and any("BTL" in w for w in warnings)
+    assert any(w["code"] == "no-load" and "no load given" in w["text"] for w in warnings)
+    assert any(w["code"] == "safety" and "BTL" in w["text"] for w in warnings)
     assert "pre-flight:" in res.stderr  # the gain was measured at a low level first
 
 

@@ -171,7 +171,7 @@ def test_clipped_capture_is_reported_invalid_not_refused(tmp_path):
     assert res.returncode == 0
     doc = json.loads(res.stdout)
     assert doc["clipped"] is True and doc["valid"] is False
-    assert any("clipped" in w for w in doc["warnings"])
+    assert any(w["code"] == "input-clipped" and "clipped" in w["text"] for w in doc["warnings"])
     assert "NOT VALID" in res.stderr
 
 

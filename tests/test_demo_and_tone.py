@@ -17,6 +17,7 @@ import pytest
 
 from benchkit import kinds
 from benchkit.analysis.documents import Conditions
+from benchkit.errors import WARNING_CODES
 
 from conftest import run_cli, run_folders, the_run
 
@@ -56,6 +57,7 @@ def test_demo_runs_and_its_outputs_parse(tmp_path):
     assert all(rows[f"imd_db@{d:+g}dBFS"]["verdict [1]"] == "better" for d in (-30, -20, -14))
     # every result, whatever its kind, named as its command and with the same conditions
     keys = set(Conditions().to_dict())
+    codes = set()
     for folder in run_folders(out):
         record = json.loads((folder / "run.json").read_text())
         doc = json.loads((folder / record["result_file"]).read_text())
@@ -68,6 +70,12 @@ def test_demo_runs_and_its_outputs_parse(tmp_path):
             assert under["sample_rate_hz"] == json.loads((folder / "capture.json").read_text())["sample_rate_hz"]
         if record["command"] in ("tone", "imd", "power", "zout"):  # run into the demo's 8 ohm
             assert under["load_ohms"] == 8.0, folder.name
+        # every warning, the result's and its steps', has its code (none only a text)
+        for part in (doc, *doc.get("steps", ())):
+            for w in part.get("warnings", ()):
+                assert w["code"] in WARNING_CODES and w["code"] != "unclassified" and w["text"], (folder.name, w)
+                codes.add(w["code"])
+    assert codes  # (the demo's runs do warn)
 
 
 def test_tone_on_the_poly_model(tmp_path):

@@ -210,7 +210,7 @@ def test_a_killed_run_is_incomplete_and_reanalyse_completes_it(server, tmp_path)
     assert 2 <= len(got) < len(levels) and got == levels[: len(got)]
     for s in doc["steps"]:  # a loopback: what was played comes back (the output's level in dBFS)
         assert s["fundamental_dbfs"] == pytest.approx(s["drive_dbfs"], abs=0.01)
-    assert any("recovered" in w for w in doc["warnings"])
+    assert any(w["code"] == "interrupted" and "recovered" in w["text"] for w in doc["warnings"])
     shown = json.loads(run_cli("log", "show", listed[0]["id"], "--bench", str(bench), "--json").stdout)
     assert shown["status"] == "complete" and shown["reanalysed"]
 
@@ -268,7 +268,7 @@ def test_the_run_stops_stepping_up_when_the_input_clips(server, tmp_path):
     assert rc == 4 and "benchkit: stopped early: the input clipped" in err, err  # the README's exit codes
     doc = json.loads(out)
     assert [s["drive_dbfs"] for s in doc["steps"]] == [-40.0, -30.0]
-    assert any("stopped stepping up" in w for w in doc["warnings"])
+    assert any(w["code"] == "input-clipped" and "stopped stepping up" in w["text"] for w in doc["warnings"])
 
 
 def test_calibrate_on_the_jack_loopback(server, tmp_path):
@@ -348,7 +348,7 @@ def test_an_interrupted_power_run_reports_its_completed_steps(server, tmp_path):
     folder = the_run(folder)
     d = json.loads((folder / "capture.power.json").read_text())
     assert len(d["steps"]) >= 3 and d["interrupted"]
-    assert any("interrupted" in w for w in d["warnings"])
+    assert any(w["code"] == "interrupted" and "interrupted" in w["text"] for w in d["warnings"])
     assert (folder / "capture.wav").exists() and (folder / "capture.power.png").exists()
 
 
@@ -452,7 +452,7 @@ def test_zout_through_jack_asks_nothing_with_yes_and_resolves_a_wire(server, tmp
     assert proc.returncode == 0, err
     d = json.loads(out)
     assert d["method"] == "gain-ratio" and d["zout_ohms"] < 0.01
-    assert any("below what this resolves" in w for w in d["warnings"])
+    assert any(w["code"] == "below-resolution" and "below what this resolves" in w["text"] for w in d["warnings"])
     assert {"open.wav", "loaded.wav", "zout.json"} <= {p.name for p in the_run(tmp_path / "bench").iterdir()}
 
 

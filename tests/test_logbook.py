@@ -95,7 +95,8 @@ def test_runs_that_do_not_compare_are_refused_or_flagged(tmp_path):
     assert refused.returncode == 1 and "not comparable" in refused.stderr and "frequency" in refused.stderr
     assert "Traceback" not in refused.stderr and len(refused.stderr.strip().splitlines()) == 1
     anyway = _json(run_cli("compare", "last-1", "last", "--anyway", "--bench", str(bench), "--json"))
-    assert not anyway["comparable"] and any("NOT LIKE FOR LIKE" in w and "frequency" in w for w in anyway["warnings"])
+    assert not anyway["comparable"] and any(w["code"] == "not-like-for-like" and "NOT LIKE FOR LIKE" in w["text"] and "frequency" in w["text"]
+                                                  for w in anyway["warnings"])
     _json(_drift(bench))
     mixed = run_cli("compare", "last-1", "last", "--bench", str(bench))
     assert mixed.returncode == 1 and "different kinds" in mixed.stderr

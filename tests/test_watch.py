@@ -119,7 +119,7 @@ def test_a_reading_across_a_stream_dropout_is_marked_and_left_out(tmp_path):
     assert tracker.disturbed == len(marked) and tracker.max["thdn_db"] == pytest.approx(want, abs=0.1)
     doc = summarise(tmp_path / "readings.csv")
     assert doc["figures"]["thdn_db"]["max"] == pytest.approx(want, abs=0.1)
-    assert any("dropout" in w for w in doc["warnings"])
+    assert any(w["code"] == "dropout" and "dropout" in w["text"] for w in doc["warnings"])
 
 
 def test_tracker_keeps_min_max_trend_and_resets():

@@ -101,7 +101,7 @@ def test_two_sweeps_give_zout_across_frequency(tmp_path):
     res = run_cli("zout", "--from", "last-3", "--from", "last", "--load", "8", "--json")
     assert res.returncode == 0, res.stderr
     d = json.loads(res.stdout)
-    assert any("not at the same drive" in w for w in d["warnings"])
+    assert any(w["code"] == "drive-changed" and "not at the same drive" in w["text"] for w in d["warnings"])
     assert d["zout_ohms"] == pytest.approx(abs(0.2 + 1 / (2j * math.pi * d["reference_hz"] * 2200e-6)), rel=0.03)
 
 

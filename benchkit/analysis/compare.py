@@ -18,7 +18,7 @@ from dataclasses import dataclass
 from typing import Callable
 
 from benchkit.analysis.documents import document
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchWarning, BenchkitError
 
 #: Below this a change is reported as the same: a tenth of a dB, or half a
 #: percent of the value (repeatability of a bench measurement, common practice).
@@ -228,5 +228,5 @@ def compare(docs: list[dict], labels: list[str], figures_of: Callable[[dict], li
         deltas.append(Delta(n, f0.label, f0.unit, at, values, f0.better, f0.target, f0.headline))
     if not deltas:
         raise BenchkitError("the runs share no figure to compare (a stepped run pairs steps by drive level)")
-    warnings = [f"NOT LIKE FOR LIKE: {p}" for p in problems]
+    warnings = [BenchWarning("not-like-for-like", f"NOT LIKE FOR LIKE: {p}") for p in problems]
     return Comparison(kind, tuple(labels), tuple(deltas), tuple(conditions), tuple(warnings), not problems)

@@ -2,7 +2,8 @@
 
 A result's document names its kind (the kind's one name: the command that
 makes it and its run record's ``command`` alike) and the schema version,
-then its figures, units in every key. Version 2 gave every kind its one
+then its figures, units in every key, and its warnings, each a code and a
+text (:class:`benchkit.errors.BenchWarning`). Version 2 gave every kind its one
 name and every load its unit; :func:`upgrade` reads a version-1 document
 (a bench folder from before) as version 2, so old runs still list,
 reanalyse and compare.
@@ -11,6 +12,8 @@ reanalyse and compare.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+
+from benchkit.errors import warning_docs
 
 #: The version of every result document.
 RESULT_VERSION = 2
@@ -60,6 +63,8 @@ def document(kind: str, fields: dict, conditions: Conditions | None = None) -> d
     """The document of a result of ``kind``: its kind, the schema version,
     then ``fields``; a measurement's result its ``conditions`` too."""
     doc = {"kind": kind, "schema_version": RESULT_VERSION, **fields}
+    if "warnings" in doc:
+        doc["warnings"] = warning_docs(doc["warnings"])
     if conditions is not None:
         doc["conditions"] = conditions.to_dict()
     return doc
@@ -73,4 +78,7 @@ def upgrade(doc: dict) -> dict:
     out["kind"] = V1_KINDS.get(doc.get("kind"), doc.get("kind"))
     out["schema_version"] = RESULT_VERSION
     out["upgraded_from"] = 1  # (what version 1 did not record stays unknown, not different)
+    for part in (out, *(s for s in out.get("steps") or () if isinstance(s, dict))):
+        if "warnings" in part:  # (texts then: "unclassified")
+            part["warnings"] = warning_docs(part["warnings"])
     return out

@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.optimize
+from benchkit.errors import BenchWarning
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
 
@@ -208,9 +209,9 @@ def analyze_drift(t_s, v, limit_v: float | None = None, band_v: float | None = N
     fit = fit_settling(t[start:], y[start:], band)
     notes = list(warnings)
     if events:
-        notes.append(f"{len(events)} sudden step(s) in the log: the fit uses the readings after the last one")
+        notes.append(BenchWarning("fit", f"{len(events)} sudden step(s) in the log: the fit uses the readings after the last one"))
     if fit is None and t.size >= MIN_FIT_POINTS:
-        notes.append("no first-order settling could be fitted (not settling, or too noisy)")
+        notes.append(BenchWarning("fit", "no first-order settling could be fitted (not settling, or too noisy)"))
     return DriftResult(t, y, fit, tuple(events), drift_rate_v_per_s(t, y, window_s), window_s, limit_v,
                        nominal_v, tuple(notes), dict(info or {}))
 

@@ -40,7 +40,7 @@ from benchkit import units
 from benchkit.analysis import refuse_non_finite
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import detect_clipping
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchWarning, BenchkitError
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
 
@@ -242,7 +242,7 @@ def analyze_imd(samples, sample_rate: float, method: str, f1_hz: float | None = 
     x = x - float(np.mean(x))
     peak = float(np.max(np.abs(x))) if n else 0.0
     clipped, why = detect_clipping(x, 1.0, peak)
-    warnings = [why] if why else []
+    warnings = [BenchWarning("input-clipped", why)] if why else []
     spec = sp.windowed_rfft(x)
     f1 = _find(spec, n, sample_rate, f1_hz, "f1")
     f2 = _find(spec, n, sample_rate, f2_hz, "f2")
@@ -257,8 +257,8 @@ def analyze_imd(samples, sample_rate: float, method: str, f1_hz: float | None = 
     kept = [t for t in terms if t in ((1, 0), (0, 1)) or LOWEST_HZ <= freqs[t] <= top]
     for name, f in (("f1", f1), ("f2", f2)):
         if f > top:
-            warnings.append(f"{name} ({quantity(f, 'Hz', 5)}) lies above {TOP_FRACTION:g} of the sample rate "
-                            f"({quantity(top, 'Hz', 5)}), where the converters' filters roll off: its level may read low")
+            warnings.append(BenchWarning("outside-band", f"{name} ({quantity(f, 'Hz', 5)}) lies above {TOP_FRACTION:g} of the sample rate "
+                            f"({quantity(top, 'Hz', 5)}), where the converters' filters roll off: its level may read low"))
     guard = (2 * sp.MAIN_LOBE_BINS + 3) * sample_rate / n
     clear = []
     for t in kept:
@@ -267,8 +267,8 @@ def analyze_imd(samples, sample_rate: float, method: str, f1_hz: float | None = 
             clear.append(t)
     crowded = [t for t in kept if t not in clear and t[0] and t[1]]
     if crowded:
-        warnings.append(f"{len(crowded)} product(s) lie too close to another component to be read apart "
-                        f"(e.g. {_label(*crowded[0])} at {freqs[crowded[0]]:.1f} Hz): left out")
+        warnings.append(BenchWarning("crowded", f"{len(crowded)} product(s) lie too close to another component to be read apart "
+                        f"(e.g. {_label(*crowded[0])} at {freqs[crowded[0]]:.1f} Hz): left out"))
     bins = np.array([freqs[t] * n / sample_rate for t in clear])
     amps = np.abs(sp.read_components(spec, n, bins))
     amp = dict(zip(clear, amps))
@@ -298,16 +298,16 @@ def analyze_imd(samples, sample_rate: float, method: str, f1_hz: float | None = 
                else f"above {TOP_FRACTION:g} of the sample rate" if f > top else f"below {LOWEST_HZ:g} Hz")
         unmeasured.append(f"{_label(*t)} at {quantity(f, 'Hz', 5)} ({why})")
     if unmeasured:
-        warnings.append("cannot be measured: " + "; ".join(unmeasured) + (
+        warnings.append(BenchWarning("outside-band", "cannot be measured: " + "; ".join(unmeasured) + (
             f"; so {', '.join(_order_name(method, k) for k in partial)} {'is' if len(partial) == 1 else 'are'} "
-            "partial (the products there are, only)" if partial else ""))
+            "partial (the products there are, only)" if partial else "")))
     if not orders:
         raise BenchkitError(f"none of the method's products lies inside the record's band (below {quantity(top, 'Hz', 5)})")
     total = math.sqrt(sum(v * v for v in orders.values()))
     valid = not clipped
     if floor_amp and total * ref < floor_amp * 10 ** (FLOOR_MARGIN_DB / 20):
-        warnings.append(f"every product lies within {FLOOR_MARGIN_DB:g} dB of the noise floor: the IMD is at most "
-                        "what is shown")
+        warnings.append(BenchWarning("below-noise", f"every product lies within {FLOOR_MARGIN_DB:g} dB of the noise floor: the IMD is at most "
+                        "what is shown"))
     trace = None
     if spectrum:
         f = np.arange(pw.size) * sample_rate / n

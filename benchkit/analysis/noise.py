@@ -19,7 +19,7 @@ from benchkit import units
 from benchkit.analysis import refuse_non_finite
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, band_limited
 from benchkit.analysis.weighting import a_weighting_power
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchWarning, BenchkitError
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
 
@@ -189,16 +189,16 @@ def analyze_noise(x: np.ndarray, rate: float, bandwidth_hz=DEFAULT_BAND_HZ, volt
     mains, hum, hum_power = hum_lines(f, p, volts_per_fs, band)
     warnings = []
     if float(np.max(np.abs(x))) >= 0.999:
-        warnings.append("the capture reaches full scale: not the noise of a terminated input")
+        warnings.append(BenchWarning("input-clipped", "the capture reaches full scale: not the noise of a terminated input"))
     elif ms > 0:
         # the crest factor of what was measured: the band's content, its
         # peak against its own RMS (an offset or ultrasonic content, left
         # out of the figures, has no say)
         crest = float(np.max(np.abs(band_limited(x, rate, band)))) / math.sqrt(ms)
         if crest > CREST_LIMIT:
-            warnings.append(f"crest factor {crest:.0f}: clicks or bursts, not steady noise")
+            warnings.append(BenchWarning("bursts", f"crest factor {crest:.0f}: clicks or bursts, not steady noise"))
     if hum_power > 0.5 * ms:
-        warnings.append(f"hum makes up more than half of the noise: {hum_advice(hum)}, before the noise itself")
+        warnings.append(BenchWarning("hum", f"hum makes up more than half of the noise: {hum_advice(hum)}, before the noise itself"))
     return NoiseResult(rate, x.size / rate, band, math.sqrt(ms), math.sqrt(a_ms), volts_per_fs, scale_source, mains,
                        hum, math.sqrt(hum_power), reference_vrms, reference, f if traces else None,
                        p if traces else None, tuple(warnings))

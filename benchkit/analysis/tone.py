@@ -31,7 +31,7 @@ from benchkit import units
 from benchkit.analysis import refuse_non_finite
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.sinefit import RecordLayout, fit_tone
-from benchkit.errors import BenchkitError, NoToneError
+from benchkit.errors import BenchWarning, BenchkitError, NoToneError
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
 
@@ -655,7 +655,7 @@ def _resolve_band(bandwidth_hz, sample_rate: float, warnings: list[str]) -> tupl
     if lo >= nyq:
         raise BenchkitError(f"bandwidth {lo:g}:{hi:g} Hz lies above half the sample rate ({nyq:g} Hz)")
     if hi > nyq:
-        warnings.append(f"band upper edge {hi:g} Hz is above half the sample rate; using {nyq:g} Hz")
+        warnings.append(BenchWarning("outside-band", f"band upper edge {hi:g} Hz is above half the sample rate; using {nyq:g} Hz"))
         hi = nyq
     return lo, hi
 
@@ -749,7 +749,7 @@ def analyze_tone(
     band = _resolve_band(bandwidth_hz, sample_rate, warnings)
     clipped, reason = detect_clipping(x, peak=max(xmax, -xmin))
     if clipped:
-        warnings.append(reason + "; its figures are not valid")
+        warnings.append(BenchWarning("input-clipped", reason + "; its figures are not valid"))
 
     nblk = x.size // int(averages)
     blocks = [
@@ -796,11 +796,11 @@ def analyze_tone(
     )
     thd_bound = False
     if harmonics and not np.isfinite(floor2).all():
-        warnings.append("the harmonics lie too close together to judge them against the noise between them (a short "
-                        "record for the tone): THD may hold noise")
+        warnings.append(BenchWarning("crowded", "the harmonics lie too close together to judge them against the noise between them (a short "
+                        "record for the tone): THD may hold noise"))
     if not harmonics:
-        warnings.append(f"every harmonic of {quantity(f0, 'Hz', 6)} lies above the band (up to {band[1]:g} Hz): THD is not "
-                        "defined and reads as zero")
+        warnings.append(BenchWarning("outside-band", f"every harmonic of {quantity(f0, 'Hz', 6)} lies above the band (up to {band[1]:g} Hz): THD is not "
+                        "defined and reads as zero"))
         thd = 0.0
     elif heard.any() or not np.isfinite(floor2[orders <= BOUND_ORDERS]).any():
         # (with no floor to judge by, every harmonic counts, as it reads)
@@ -811,13 +811,13 @@ def analyze_tone(
         first_orders = (orders <= BOUND_ORDERS) & np.isfinite(floor2)
         thd = math.sqrt(float(np.sum(floor2[first_orders])) * over_floor_ratio(nh) / p1)
         thd_bound = True
-        warnings.append(f"no harmonic stands clear of the noise: THD is an upper bound "
-                        f"(orders 2 to {min(BOUND_ORDERS, int(orders[-1]))})")
+        warnings.append(BenchWarning("below-noise", f"no harmonic stands clear of the noise: THD is an upper bound "
+                        f"(orders 2 to {min(BOUND_ORDERS, int(orders[-1]))})"))
 
     gaps = [i * nblk / sample_rate + t for i, b in enumerate(blocks) for t in b.dropouts_s]
     if gaps:
         where = ", ".join(f"{t:.3f} s" for t in gaps[:5]) + (" ..." if len(gaps) > 5 else "")
-        warnings.append(f"the capture has dropouts or clicks (at {where}); its figures are not valid")
+        warnings.append(BenchWarning("dropout", f"the capture has dropouts or clicks (at {where}); its figures are not valid"))
 
     dc = float(np.mean([b.offset for b in blocks]))
     mean_sq = float(x @ x) / x.size

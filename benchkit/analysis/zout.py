@@ -29,7 +29,7 @@ from dataclasses import dataclass
 
 from benchkit.units import quantity
 from benchkit import units
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchWarning, BenchkitError
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
 
@@ -127,7 +127,7 @@ def output_impedance(open_: list[Reading], loaded: list[Reading], load_ohms: flo
     warnings = []
     complex_ = all(r.phase_known for r in open_ + loaded)
     if not complex_:
-        warnings.append("levels only (no phase): |Zout| is right only where the output impedance is resistive")
+        warnings.append(BenchWarning("assumed", "levels only (no phase): |Zout| is right only where the output impedance is resistive"))
     r_eff = load_ohms if open_load_ohms is None else load_ohms * open_load_ohms / (load_ohms + open_load_ohms)
     points, drifted, unresolved = [], [], []
     for a in open_:
@@ -153,13 +153,13 @@ def output_impedance(open_: list[Reading], loaded: list[Reading], load_ohms: flo
         raise BenchkitError("the unloaded and loaded readings share no frequency")
     if drifted:
         what = "levels were scaled by the drive ratio" if not complex_ else "the gains were compared"
-        warnings.append(f"the two readings were not at the same drive at {_hz_list(drifted)}: {what} (the stage "
-                        "taken as linear there)")
+        warnings.append(BenchWarning("drive-changed", f"the two readings were not at the same drive at {_hz_list(drifted)}: {what} (the stage "
+                        "taken as linear there)"))
     if unresolved:
-        warnings.append(f"at {_hz_list(unresolved)} the load changed the output by under {100 * RESOLUTION:g} %: the "
-                        f"output impedance is below what this resolves (about {quantity(RESOLUTION * load_ohms, 'ohm', 2)})")
+        warnings.append(BenchWarning("below-resolution", f"at {_hz_list(unresolved)} the load changed the output by under {100 * RESOLUTION:g} %: the "
+                        f"output impedance is below what this resolves (about {quantity(RESOLUTION * load_ohms, 'ohm', 2)})"))
     if open_load_ohms is None:
-        warnings.append("the unloaded output's load (pad and input) is not known: taken as open")
+        warnings.append(BenchWarning("assumed", "the unloaded output's load (pad and input) is not known: taken as open"))
     return ZoutResult(load_ohms, open_load_ohms, "gain-ratio" if complex_ else "levels", tuple(points), tuple(warnings))
 
 

@@ -13,7 +13,7 @@ from pathlib import Path
 
 from benchkit.analysis.crosstalk import crosstalk_figures, CrosstalkResult, leak
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchkitError, BenchWarning, read_warnings
 from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.recordings import read_capture, Takes
 
@@ -42,10 +42,10 @@ def analyze_crosstalk_capture(path: Path, bandwidth_hz=DEFAULT_BAND_HZ) -> Cross
     recs = [read_capture(path, ch) for ch in inputs]
     takes = Takes(*recs)
     scales = [r.channel_scale()[0] for r in recs]
-    warnings = list(side.get("warnings") or [])
+    warnings = list(read_warnings(side.get("warnings")))
     if None in scales:
-        warnings.append("an input has no voltage scale: the channels are compared in FS, as if their pads and "
-                        "input gains were identical")
+        warnings.append(BenchWarning("no-scale", "an input has no voltage scale: the channels are compared in FS, as if their pads and "
+                        "input gains were identical"))
         scales = [None, None]
     leaks = []
     for seg in segments:
@@ -57,10 +57,10 @@ def analyze_crosstalk_capture(path: Path, bandwidth_hz=DEFAULT_BAND_HZ) -> Cross
         leaks.append(x)
     hummed = sorted({round(x.frequency_hz) for x in leaks if on_mains(x.frequency_hz)})
     if hummed:
-        warnings.append(f"{', '.join(f'{f} Hz' for f in hummed)} sit(s) on a mains harmonic: the supply's hum and "
-                        "ripple there read as crosstalk")
+        warnings.append(BenchWarning("hum", f"{', '.join(f'{f} Hz' for f in hummed)} sit(s) on a mains harmonic: the supply's hum and "
+                        "ripple there read as crosstalk"))
     if any(x.below_floor for x in leaks):
-        warnings.append("some leaks lie under 10 dB over their noise: their crosstalk is an upper bound")
+        warnings.append(BenchWarning("below-noise", "some leaks lie under 10 dB over their noise: their crosstalk is an upper bound"))
     return CrosstalkResult(tuple(leaks), None not in scales, tuple(warnings), recs[0].sample_rate_hz,
                            None if bandwidth_hz is None else tuple(bandwidth_hz), wiring.get("load_ohms"),
                            side.get("calibration"))

@@ -13,8 +13,9 @@ from pathlib import Path
 
 from benchkit.analysis.documents import document
 from benchkit.analysis.imd import analyze_imd, imd_figures, ImdResult, method_tones
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchkitError, BenchWarning, read_warnings
 from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
+from benchkit.record import SPOILED
 from benchkit.recordings import read_capture, Recording, Takes
 from benchkit.signals import TwinTone
 
@@ -92,12 +93,12 @@ def analyze_imd_steps(rec: Recording, volts_per_fs: float | None = None, load_oh
         r = analyze_imd(takes.step(seg), rec.sample_rate_hz, twin.method, twin.f1_hz, twin.f2_hz, scale, source,
                         load_ohms, spectrum=spectrum)
         if spoiled:
-            r = replace(r, valid=False, warnings=r.warnings + ("a stream fault spoiled this step",))
+            r = replace(r, valid=False, warnings=r.warnings + (SPOILED,))
         steps.append(ImdStep(drive, r))
-    warnings = list(rec.warnings) + list(rec.sidecar.get("warnings") or ())
+    warnings = [*rec.warnings, *read_warnings(rec.sidecar.get("warnings"))]
     if twin.method == "difference" and rec.sample_rate_hz < DIFFERENCE_MIN_RATE_HZ and twin.f2_hz > 15000:
-        warnings.append(f"at {rec.sample_rate_hz:g} Hz the tones at {twin.f1_hz:g} and {twin.f2_hz:g} Hz sit at the "
-                        "converters' band edge and 2f2-f1 beyond it: measure at 96 kHz (--rate 96000)")
+        warnings.append(BenchWarning("outside-band", f"at {rec.sample_rate_hz:g} Hz the tones at {twin.f1_hz:g} and {twin.f2_hz:g} Hz sit at the "
+                        "converters' band edge and 2f2-f1 beyond it: measure at 96 kHz (--rate 96000)"))
     return ImdSteps(str(rec.path), rec.channel, twin, tuple(steps), tuple(warnings), rec.sidecar.get("device"),
                     rec.sidecar.get("calibration"))
 

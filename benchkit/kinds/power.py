@@ -28,7 +28,7 @@ from benchkit import units
 from benchkit.analysis.power import analyze_power, DEFAULT_LIMITS_PCT, JUMP_SLOPE, ONSET_DB, power_figures, PowerResult
 from benchkit.budget import ClassABudget
 from benchkit.capture import FAULT_ADVICE, HearsFaults, MAX_RETRIES as MAX_RETAKES
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchWarning, BenchkitError
 from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.kinds.tone import analyze_steps, is_stepped, StepsResult
 from benchkit.recordings import read_capture
@@ -49,7 +49,7 @@ def power_from_steps(steps: StepsResult, load_ohms: float, metric: str = "thdn",
     side = read_capture(steps.file, steps.channel).sidecar
     adaptive = bool((side.get("stimulus") or {}).get("adaptive"))
     if not adaptive and [s.drive_dbfs for s in ordered] != [s.drive_dbfs for s in steps.steps]:
-        warnings.append("the steps did not rise in order: sorted by drive")
+        warnings.append(BenchWarning("reordered", "the steps did not rise in order: sorted by drive"))
     segs = sorted((side.get("stimulus") or {}).get("segments") or [], key=lambda s: float(s["level_dbfs"]))
     takes = {}
 
@@ -68,8 +68,8 @@ def power_from_steps(steps: StepsResult, load_ohms: float, metric: str = "thdn",
 
     top = ordered[-1].result
     if max(s.result.thdn_pct for s in ordered) < max(limits_pct):
-        warnings.append(f"the steps stop at {top.thdn_pct:.3g} % THD+N ({quantity(top.power_w, 'W', 3)}), short of the "
-                        f"{max(limits_pct):g} % limit")
+        warnings.append(BenchWarning("short-of-limit", f"the steps stop at {top.thdn_pct:.3g} % THD+N ({quantity(top.power_w, 'W', 3)}), short of the "
+                        f"{max(limits_pct):g} % limit"))
     expected = budget.to_dict() if budget is not None else None
     info = {"file": steps.file, "channel": steps.channel, "device": steps.device,
             "calibration": steps.calibration}
@@ -393,11 +393,11 @@ def rating_verdict(result: PowerResult, rated_w: float, conditions: dict | None)
     lim = result.limits[0][0]
     notes = [f"at {result.frequency_hz:g} Hz only: a rating holds over its whole stated band"]
     if conditions is None:
-        notes.append("not preconditioned")
+        notes.append(BenchWarning("not-preconditioned", "not preconditioned"))
     elif conditions["preconditioning"]["shortened"]:
-        notes.append(f"preconditioning shortened to {conditions['preconditioning']['seconds']:g} s")
+        notes.append(BenchWarning("not-preconditioned", f"preconditioning shortened to {conditions['preconditioning']['seconds']:g} s"))
     if conditions is not None and not conditions["all_channels_driven"]:
-        notes.append(f"{conditions['channels_driven']} channels driven: not an all-channels-driven rating")
+        notes.append(BenchWarning("not-preconditioned", f"{conditions['channels_driven']} channels driven: not an all-channels-driven rating"))
     return {**(conditions or {"rated_power_w": rated_w}), "limit_pct": lim,
             "measured_w": None if got is None else got.power_w,
             "meets": None if got is None else got.power_w >= rated_w, "notes": notes}
@@ -475,13 +475,13 @@ def power_run(
     side["stop_reason"] = stim.stop_reason
     notes = list(warnings)
     if interrupted is not None:
-        notes.append(f"interrupted ({interrupted}): the {len(done)} completed steps are reported")
+        notes.append(BenchWarning("interrupted", f"interrupted ({interrupted}): the {len(done)} completed steps are reported"))
     elif dropped:
-        notes.append(f"{dropped} step(s) were cut short ({stim.stop_reason}) and are left out")
+        notes.append(BenchWarning("interrupted", f"{dropped} step(s) were cut short ({stim.stop_reason}) and are left out"))
     if stim.spoiled:
-        notes.append(f"dropouts spoiled {units.count(len(stim.spoiled), 'take')}, left out"
+        notes.append(BenchWarning("dropout", f"dropouts spoiled {units.count(len(stim.spoiled), 'take')}, left out"
                      + ("; the run stopped when one level was spoiled in every take" if stim.spoiled_out
-                        else "; each level was played again and only clean takes are reported"))
+                        else "; each level was played again and only clean takes are reported")))
     side["warnings"] = notes
     path = recorder.store(name, cap.samples, side)
     if len(done) < 2:

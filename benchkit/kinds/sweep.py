@@ -23,7 +23,7 @@ from benchkit import capture, units
 from benchkit.analysis import response as resp, sweep as sw
 from benchkit.analysis.response import response_figures, response_readings
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchkitError, BenchWarning, read_warnings
 from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.recordings import read_capture, Recording, write_capture
 from benchkit.signals import stepped_tones, sweep_stimulus
@@ -123,11 +123,11 @@ def _finish(method, freqs, h_fs, curves, thd, thdn, rec: Recording, ref: _Refere
         if loop is not None:
             source = "profile"
             mag = mag - loop
-            warnings.append("no reference input: the profile's loopback magnitude is divided out; the phase "
-                            "includes the interface's own")
+            warnings.append(BenchWarning("no-reference", "no reference input: the profile's loopback magnitude is divided out; the phase "
+                            "includes the interface's own"))
             lo = min(p[0] for p in cal["loopback_response"])
             if freqs[0] < lo and not cal.get("ac_corner_hz"):
-                warnings.append(f"the profile's loopback response starts at {lo:g} Hz: below it, it is held constant")
+                warnings.append(BenchWarning("profile-range", f"the profile's loopback response starts at {lo:g} Hz: below it, it is held constant"))
             if out_vpf is not None and out_vpk:
                 mag = mag + units.db_from_ratio(out_vpf / out_vpk)
                 mag_units = "dB re 1 V/V"
@@ -186,7 +186,7 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
     if abs(sweep.rate - rate) > 1e-6:
         sweep = sw.SyncSweep.design(sweep.f1_hz, sweep.f2_hz, sweep.seconds, rate, sweep.faded)
     info = {**_info(rec, ref, ref_channel), "sweep": {**sweep.to_dict(), "level_dbfs": units.db_from_ratio(amplitude)}}
-    warnings = list(rec.warnings) + list(rec.sidecar.get("warnings") or ())
+    warnings = [*rec.warnings, *read_warnings(rec.sidecar.get("warnings"))]
     frac = 0.0
     elsewhere = start is None  # a sweep made elsewhere, after unknown silence
     if elsewhere:
@@ -198,7 +198,7 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
         raise BenchkitError(f"{rec.path}: the capture ends {short / rate:.2f} s before the sweep does: truncated")
     out = rec.samples[start:]
     if np.max(np.abs(out[: sweep.n_samples])) >= capture.CLIP_STOP_FS:
-        warnings.append("the input clipped during the sweep: the response and distortion are not valid")
+        warnings.append(BenchWarning("input-clipped", "the input clipped during the sweep: the response and distortion are not valid"))
     freqs = sw.log_grid(*sweep.band_hz)
     got = sw.measure(out, sweep, None if ref.samples is None else ref.samples[start:], freqs=freqs,
                      band_hz=band or (sweep.band_hz[0], 0.45 * rate), amplitude=amplitude)
@@ -212,10 +212,10 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
         # is then referred to the reference, which the offset leaves alone)
         if ref.samples is None:
             info["clock_offset_ppm"] = None
-            warnings.append("no reference input: a clock offset between the player and the recorder cannot be told "
+            warnings.append(BenchWarning("no-reference", "no reference input: a clock offset between the player and the recorder cannot be told "
                             "from the stage's own phase, so none is estimated and the phase is as measured (two "
                             "clocks add a delay and a bend to it; wire the loopback to a second input and give "
-                            "--ref-channel to measure the offset)")
+                            "--ref-channel to measure the offset)"))
         else:
             loop = sw.measure(ref.samples[start:], sweep, None, freqs=freqs, band_hz=(sweep.band_hz[0], 0.45 * rate),
                               amplitude=amplitude).linear * late
@@ -223,22 +223,22 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
                                   min(20000.0, 0.4 * rate))
             info["clock_offset_ppm"] = None if est is None else est[0]
             if est is not None and abs(est[0]) > CLOCK_NOTE_PPM:
-                warnings.append(f"the recorder's clock ran {est[0]:+.1f} ppm against the player's (read from the "
-                                "reference input's loopback); the response, referred to that input, is not affected")
+                warnings.append(BenchWarning("clock-offset", f"the recorder's clock ran {est[0]:+.1f} ppm against the player's (read from the "
+                                "reference input's loopback); the response, referred to that input, is not affected"))
     # each harmonic's curve starts where the sweep's pace lets it be read;
     # the response itself is flagged where its start is too close
     info["harmonic_lowest_hz"] = {str(k): v for k, v in got.lowest_hz.items()}
     info["response_lowest_hz"] = flat = sw.lowest_flat_hz(sweep)
     if flat > sweep.band_hz[0] * 1.01:
-        warnings.append(f"below {quantity(flat, 'Hz', 3)}, this close to the sweep's start, the response may read a "
+        warnings.append(BenchWarning("sweep-start", f"below {quantity(flat, 'Hz', 3)}, this close to the sweep's start, the response may read a "
                         "few tenths of a dB off where it changes fast (a low corner): start the sweep lower or make it "
-                        "longer")
+                        "longer"))
     own = {k: sw.lowest_valid_hz(sweep, k) for k in got.lowest_hz}
     if own and own[2] > max(sweep.band_hz[0], (band or (0.0,))[0]) * 1.01:
         longer = sw.paced_by_length(sweep, 2)
-        warnings.append("this close to the sweep's start the harmonics cannot be read: the curves start at "
+        warnings.append(BenchWarning("sweep-start", "this close to the sweep's start the harmonics cannot be read: the curves start at "
                         + ", ".join(f"H{k} {quantity(v, 'Hz', 3)}" for k, v in sorted(own.items()))
-                        + (" (a longer sweep reaches lower)" if longer else " (a lower start frequency reaches lower)"))
+                        + (" (a longer sweep reaches lower)" if longer else " (a lower start frequency reaches lower)")))
     # steady tones in the quiet before the sweep would pass for harmonics
     quiet = rec.samples[max(0, start - int(QUIET_S * rate)): max(0, start - int(0.02 * rate))]
     lines = sw.steady_lines(quiet, rate)
@@ -252,8 +252,8 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
         curves.append(resp.HarmonicCurve(k, freqs, level))
     if lines:
         shown = ", ".join(f"{x:.0f}" for x in lines[:6])
-        warnings.append(f"steady lines at {shown} Hz (hum or ripple) before the sweep: the harmonic curves are blanked "
-                        "where k f falls on them (a sweep cannot tell them from distortion; stepped sines can)")
+        warnings.append(BenchWarning("hum", f"steady lines at {shown} Hz (hum or ripple) before the sweep: the harmonic curves are blanked "
+                        "where k f falls on them (a sweep cannot tell them from distortion; stepped sines can)"))
     thd = resp.thd_db_from_harmonics(tuple(curves), freqs.size)
     thd[blanked] = np.nan  # a sum with an order missing
     return _finish("sweep", freqs, h, curves, thd, None, rec, ref, reference_hz, load_ohms, band, warnings, info)
@@ -262,7 +262,7 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
 def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
     rate = rec.sample_rate_hz
     segs = rec.sidecar["stimulus"].get("segments") or []
-    freqs, h, thd, thdn, warnings = [], [], [], [], list(rec.warnings) + list(rec.sidecar.get("warnings") or ())
+    freqs, h, thd, thdn, warnings = [], [], [], [], [*rec.warnings, *read_warnings(rec.sidecar.get("warnings"))]
     buried = 0
     levels = {k: [] for k in HARMONIC_ORDERS}
     for seg in segs:
@@ -277,7 +277,7 @@ def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
         b = None if band is None else (min(band[0], f0 / 2), max(band[1], min(0.49 * rate, 1.05 * f0)))
         r = analyze_tone(rec.samples[lo:hi], rate, fundamental_hz=f0, bandwidth_hz=b)
         if not r.valid:
-            warnings.append(f"the {quantity(f0, 'Hz', 4)} step is not valid ({'clipped' if r.clipped else 'see its warnings'})")
+            warnings.append(BenchWarning("not-valid", f"the {quantity(f0, 'Hz', 4)} step is not valid ({'clipped' if r.clipped else 'see its warnings'})"))
         if ref.samples is not None:
             q = analyze_tone(ref.samples[lo:hi], rate, fundamental_hz=f0, bandwidth_hz=b)
             den = q.fundamental_fs * np.exp(1j * np.radians(q.fundamental_phase_deg))
@@ -302,8 +302,8 @@ def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
     if len(freqs) < 2:
         raise BenchkitError(f"{rec.path}: a response needs at least two steps")
     if buried:
-        warnings.append(f"at {units.count(buried, 'frequency', 'frequencies')} no harmonic stands over the noise: "
-                        "THD is left blank there")
+        warnings.append(BenchWarning("below-noise", f"at {units.count(buried, 'frequency', 'frequencies')} no harmonic stands over the noise: "
+                        "THD is left blank there"))
     f = np.array(freqs)
     order = np.argsort(f)
     curves = [resp.HarmonicCurve(k, f[order], np.array(v)[order]) for k, v in levels.items()]

@@ -15,9 +15,9 @@ from pathlib import Path
 from benchkit import capture
 from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ, step_figures, step_readings, ToneResult
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchkitError, BenchWarning, read_warnings, warning_docs
 from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
-from benchkit.record import record_steps
+from benchkit.record import SPOILED, record_steps
 from benchkit.recordings import read_capture, Recording, Takes
 
 
@@ -97,7 +97,7 @@ def analyze_steps(
                               volts_per_fs=scale, scale_source=source, load_ohms=load_ohms, traces=traces,
                               check_dropouts=True)
         if seg.get("spoiled"):
-            result = replace(result, valid=False, warnings=result.warnings + ("a stream fault spoiled this step",))
+            result = replace(result, valid=False, warnings=result.warnings + (SPOILED,))
         cal = rec.sidecar.get("calibration") or {}
         notes = [floor_warning(result, cal.get("loopback_floor")), dc_warning(result, cal.get("dc_coupled"))]
         if any(notes):
@@ -106,7 +106,7 @@ def analyze_steps(
     side = rec.sidecar
     return StepsResult(
         str(rec.path), rec.channel, _first_frequency(stim.get("frequency_hz")), tuple(steps),
-        rec.warnings + tuple(side.get("warnings") or ()),
+        rec.warnings + read_warnings(side.get("warnings")),
         device=side.get("device"), latency_samples=side.get("latency_samples"),
         clock_offset_ppm=side.get("clock_offset_ppm"),
         calibration=side.get("calibration"),
@@ -125,8 +125,8 @@ def floor_warning(result: ToneResult, floor: dict | None) -> str | None:
     # the interface's residual is about constant in dBFS: refer it to this level
     limit = floor["thdn_db"] + floor["level_dbfs"] - result.fundamental_dbfs
     if result.thdn_db < limit + FLOOR_MARGIN_DB:
-        return (f"THD+N {result.thdn_db:.1f} dB is within {FLOOR_MARGIN_DB:g} dB of the interface's own floor "
-                f"({limit:.1f} dB at this level): limited by the interface, not the stage")
+        return BenchWarning("interface-limited", f"THD+N {result.thdn_db:.1f} dB is within {FLOOR_MARGIN_DB:g} dB of the "
+                            f"interface's own floor ({limit:.1f} dB at this level): limited by the interface, not the stage")
     return None
 
 
@@ -141,7 +141,8 @@ def dc_warning(result: ToneResult, dc_coupled: bool | None) -> str | None:
         return None
     dc_v = result.dc_fs * result.volts_per_fs
     if abs(dc_v) > DC_WARN_V:
-        return f"{dc_v * 1000:+.0f} mV of DC at the stage's output: check the offset before a speaker goes on it"
+        return BenchWarning("safety", f"{dc_v * 1000:+.0f} mV of DC at the stage's output: check the offset before a "
+                            "speaker goes on it")
     return None
 
 
@@ -251,7 +252,7 @@ def analyse(rec, o: Offline) -> Analysed:
         result = replace(result, warnings=result.warnings + (note,))
     d = result.to_dict()
     doc = {"kind": d.pop("kind"), "schema_version": d.pop("schema_version"), "file": str(path), "channel": channel, **d}
-    doc["warnings"] = list(rec.warnings) + doc["warnings"]
+    doc["warnings"] = warning_docs(rec.warnings) + doc["warnings"]
     if cal:
         doc["calibration"] = cal
         doc["conditions"] = result.conditions().calibrated(cal).to_dict()

@@ -30,7 +30,7 @@ from benchkit.analysis.spectrum import WINDOW_NAME
 from benchkit.analysis.readings import FIGURES, Reading, watch_figures
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.capture import FAULT_ADVICE, HearsFaults
-from benchkit.errors import BenchkitError
+from benchkit.errors import BenchWarning, BenchkitError
 from benchkit.kinds import Kind, RunParams, series_from_csv
 
 
@@ -270,12 +270,12 @@ def summarise(path: Path, info: dict | None = None) -> dict:
     lost = sum(r["tone_lost"] == "true" for r in rows)
     warnings = []
     if clipped:
-        warnings.append(f"{clipped} reading(s) clipped the input")
+        warnings.append(BenchWarning("input-clipped", f"{clipped} reading(s) clipped the input"))
     if lost:
-        warnings.append(f"{lost} reading(s) had lost the tone")
+        warnings.append(BenchWarning("not-valid", f"{lost} reading(s) had lost the tone"))
     if disturbed:
-        warnings.append(f"{disturbed} reading(s) spanned a dropout of the audio stream and were left out of the "
-                        f"figures ({FAULT_ADVICE})")
+        warnings.append(BenchWarning("dropout", f"{disturbed} reading(s) spanned a dropout of the audio stream and were left out of the "
+                        f"figures ({FAULT_ADVICE})"))
     return document("watch", {**(info or {}), "readings": len(rows), "first_s": t[0], "last_s": t[-1],
                               "rate_per_s": (len(rows) - 1) / (t[-1] - t[0]) if t[-1] > t[0] else None,
                               "figures": figures, "valid": not clipped, "warnings": warnings, "file": str(path)})

@@ -8,6 +8,7 @@ from pathlib import Path
 
 from matplotlib.figure import Figure
 
+from benchkit.errors import read_warnings
 from benchkit.report.files import result_csv_png
 from benchkit.report.plots import log_hz_axis, MARK, save_png, TRACE
 from benchkit.units import quantity
@@ -29,7 +30,7 @@ def crosstalk_summary(d: dict, title: str = "") -> str:
         lines.append(f"  at {quantity(d['reference_hz'], 'Hz', 4)}  crosstalk {d['crosstalk_db']:.1f} dB (the worse direction), "
                      f"separation {-d['crosstalk_db']:.1f} dB"
                      + ("" if d.get("balance_db") is None else f"; balance {d['balance_db']:+.3f} dB"))
-    for w in d.get("warnings") or []:
+    for w in read_warnings(d.get("warnings")):
         lines.append(f"  warning      {w}")
     return "\n".join(lines)
 

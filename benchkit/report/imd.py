@@ -12,6 +12,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
 from benchkit import units
+from benchkit.errors import read_warnings
 from benchkit.report import tables
 from benchkit.report.files import report_folder, stem_of
 from benchkit.report.overlays import percent_axes, colour, finish_overlay
@@ -51,7 +52,7 @@ def imd_summary(d: dict, title: str = "") -> str:
             lines.append(f"  products     {at}"
                          + "; ".join(f"{p['label']} ({p['frequency_hz']:.0f} Hz) {p['level_db']:.1f} dB" for p in shown))
     seen = set()
-    for w in list(d.get("warnings") or []) + [w for s in d["steps"] for w in s.get("warnings") or []]:
+    for w in read_warnings([*(d.get("warnings") or ()), *(w for s in d["steps"] for w in s.get("warnings") or ())]):
         if w not in seen:
             seen.add(w)
             lines.append(f"  warning      {w}")

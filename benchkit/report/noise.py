@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 from matplotlib.figure import Figure
 
+from benchkit.errors import read_warnings
 from benchkit.report.files import result_csv_png
 from benchkit.report.plots import BAND, FAINT, log_hz_axis, MARK, save_png, TRACE
 from benchkit.units import quantity
@@ -37,7 +38,7 @@ def noise_summary(d: dict, title: str = "") -> str:
         lines.append(f"  hum          {d['mains_hz']:g} Hz mains: " + "; ".join(parts))
     else:
         lines.append("  hum          no mains lines above the noise")
-    for w in d.get("warnings") or []:
+    for w in read_warnings(d.get("warnings")):
         lines.append(f"  warning      {w}")
     return "\n".join(lines)
 

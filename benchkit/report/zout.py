@@ -10,6 +10,7 @@ import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
+from benchkit.errors import read_warnings
 from benchkit.report import tables
 from benchkit.report.files import report_folder
 from benchkit.report.plots import FAINT, log_hz_axis, save_png, TRACE
@@ -31,7 +32,7 @@ def zout_summary(d: dict, title: str = "") -> str:
         df = "-" if d["damping_factor"] is None else f"{d['damping_factor']:.3g}"
         lines.append(f"  at {d['reference_hz']:g} Hz  Zout {quantity(d['zout_ohms'], 'ohm', 4)}, damping factor {df} re "
                      f"{d['load_ohms']:g} ohm")
-    for w in d.get("warnings") or []:
+    for w in read_warnings(d.get("warnings")):
         lines.append(f"  warning      {w}")
     return "\n".join(lines)
 
