@@ -26,10 +26,10 @@ def main() -> None:
         t = np.arange(rate) / rate
         x = a1 * np.sin(2 * np.pi * tw.f1_hz * t) + a2 * np.sin(2 * np.pi * tw.f2_hz * t)
         y = x + 0.02 * x * x + 0.05 * x ** 3 + 1e-6 * np.random.default_rng(1).standard_normal(x.size)
-        analyze_imd(y, rate, method)
+        analyze_imd(y, rate, method=method)
         t_fft = best_of(lambda: sp.windowed_rfft(y), 5)
-        took = best_of(lambda: analyze_imd(y, rate, method), 5)
-        n = len(analyze_imd(y, rate, method).products)
+        took = best_of(lambda: analyze_imd(y, rate, method=method), 5)
+        n = len(analyze_imd(y, rate, method=method).products)
         print(f"{method:>11} {rate:>7} {y.size / rate:5.1f}s {took * 1e3:7.1f}ms {took / (y.size / rate):8.4f} "
               f"{took / t_fft:7.1f} {n:>9}")
 

@@ -964,7 +964,7 @@ def gain(
     Safety: a gain run is one short tone; start low on an unknown stage,
     into a dummy load through a pad.
     """
-    from benchkit.kinds.gain import analyze_gain
+    from benchkit.kinds.gain import gain_of_capture
     from benchkit.record import record_steps
 
     with _live_run(), _logbook(filing) as (book, labels):
@@ -978,7 +978,7 @@ def gain(
             path = record_steps(backend, run.folder, frequency, [drive], channel=in_channel, calibration=profile,
                                 note=labels["note"], warnings=plan.warnings,
                                 calibration_file=None if calibration is None else str(calibration))
-            _report_run(run, "gain", analyze_gain(path, in_channel, ref_channel, band, load), "", as_json, in_channel)
+            _report_run(run, "gain", gain_of_capture(path, in_channel, ref_channel, band, load), "", as_json, in_channel)
 
 
 @app.command()
@@ -1105,7 +1105,7 @@ def zout(
 def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optional[float], as_json: bool) -> None:
     """The output impedance from two logged runs' stored results, filed as
     a run of its own (with copies of the two results, for reanalysis)."""
-    from benchkit.analysis.zout import output_impedance
+    from benchkit.analysis.zout import analyze_zout
     from benchkit.compare_runs import stored_result
     from benchkit.report.tables import write_json
     from benchkit.kinds.zout import readings_of_result
@@ -1114,7 +1114,7 @@ def _zout_from_runs(book, labels, refs: list[str], load: float, open_load: Optio
         raise BenchkitError("--from takes two runs: the unloaded one, then the loaded one")
     entries = [book.entry(r) for r in refs]
     docs = [stored_result(book, e)[1] for e in entries]
-    result = output_impedance(*(readings_of_result(d) for d in docs), load, open_load)
+    result = analyze_zout(*(readings_of_result(d) for d in docs), load_ohms=load, open_load_ohms=open_load)
     params = {"from": [e.id for e in entries], "load_ohms": load, "open_load_ohms": open_load}
     with _start_run(book, labels, "zout", "logbook", None, None, params) as run:
         copies = [write_json(d, run.folder / f"{state}.result.json") for d, state in zip(docs, ("open", "loaded"))]

@@ -177,14 +177,14 @@ def _demo(book: Logbook, out: Path, seed: int, say) -> DemoReport:
                                                           sample_rate_hz=bench.sample_rate_hz), sweep_in)
     files += written
     say(f"virtual bench: stage B-2 at {label}, voltage gain at 1 kHz")
-    from benchkit.kinds.gain import analyze_gain
+    from benchkit.kinds.gain import gain_of_capture
     from benchkit.record import record_steps
 
     g_bench = virtual_bench("se-class-a", {"bias": bias, "ambient_c": AMBIENT_C}, pad=DEMO_PAD, seed=seed + 19)
 
     def gain_in(folder):
         path = record_steps(g_bench, folder, 1000.0, [GAIN_DBFS], note=NOTE)
-        r = analyze_gain(path, 1, g_bench.reference_input(), band, LOAD_OHMS)
+        r = gain_of_capture(path, 1, g_bench.reference_input(), band, LOAD_OHMS)
         return r
 
     gain, written = _logged(book, "gain", bias, dict(channel=1, ref_channel=g_bench.reference_input(), frequency_hz=1000.0,

@@ -13,7 +13,7 @@ import math
 
 import pytest
 
-from benchkit.analysis.gain import gain_of
+from benchkit.analysis.gain import analyze_gain
 from benchkit.capture.virtual import virtual_bench
 from benchkit.kinds.tone import tone_run
 
@@ -38,10 +38,10 @@ def test_gain_of_a_linear_stage(g, tmp_path):
 def test_the_calibrated_drive_gives_the_same_gain_as_the_reference_input(tmp_path):
     bench = virtual_bench("poly", {"gain": 10.0, "a2": 0.05}, seed=3)
     steps = tone_run(bench, tmp_path, 997.0, [-25.0])
-    from benchkit.kinds.gain import analyze_gain
+    from benchkit.kinds.gain import gain_of_capture
 
-    by_ref = analyze_gain(tmp_path / "capture.wav", 1, 2)
-    by_drive = gain_of(steps.steps[0].result, -25.0, output_vpk_per_fs=bench.output_vpk_per_fs)
+    by_ref = gain_of_capture(tmp_path / "capture.wav", 1, 2)
+    by_drive = analyze_gain(steps.steps[0].result, drive_dbfs=-25.0, output_vpk_per_fs=bench.output_vpk_per_fs)
     assert by_drive.input_source == "calibrated-drive" and by_drive.phase_deg is None
     assert by_drive.gain_db == pytest.approx(by_ref.gain_db, abs=0.02)
     # the drive's RMS from its peak scale: 2 V per FS at -25 dBFS is 2 x 10^(-25/20) / sqrt(2) Vrms

@@ -40,7 +40,7 @@ def test_products_of_a_cubic_follow_the_identities(method, rate):
     x = a1 * np.cos(2 * np.pi * tw.f1_hz * t + 0.4) + a2 * np.cos(2 * np.pi * tw.f2_hz * t + 1.1)
     g, k2, k3 = 1.0, 0.03, 0.08
     y = g * x + k2 * x * x + k3 * x ** 3
-    r = analyze_imd(y, rate, method)
+    r = analyze_imd(y, rate, method=method)
     want, (t1, t2) = _expected(a1, a2, g, k2, k3)
     assert r.a1_fs == pytest.approx(t1, rel=1e-6) and r.a2_fs == pytest.approx(t2, rel=1e-6)
     got = {(p.m, p.n): p.amplitude_fs for p in r.products}
@@ -71,7 +71,7 @@ def test_a_product_above_the_limit_is_named_and_its_order_partial(rate, f1, f2):
     a1 = a2 = 0.25
     x = a1 * np.cos(2 * np.pi * f1 * t) + a2 * np.cos(2 * np.pi * f2 * t + 0.5)
     k2, k3 = 0.02, 0.05
-    r = analyze_imd(x + k2 * x * x + k3 * x ** 3, rate, "difference", f1, f2)
+    r = analyze_imd(x + k2 * x * x + k3 * x ** 3, rate, method="difference", f1_hz=f1, f2_hz=f2)
     want, (t1, t2) = _expected(a1, a2, 1.0, k2, k3)
     assert r.orders[2] == pytest.approx(want[(-1, 1)] / (t1 + t2), rel=1e-4)
     assert r.orders[3] == pytest.approx(want[(2, -1)] / (t1 + t2), rel=1e-4)
@@ -103,7 +103,7 @@ def test_a_straight_line_makes_no_products():
     a1, a2 = tw.amplitudes(-3.0)
     t = np.arange(int(rate)) / rate
     y = 0.7 * (a1 * np.sin(2 * np.pi * 60 * t) + a2 * np.sin(2 * np.pi * 7000 * t)) + 1e-7 * np.random.default_rng(5).standard_normal(t.size)
-    r = analyze_imd(y, rate, "modulation")
+    r = analyze_imd(y, rate, method="modulation")
     assert r.imd_db < -110.0
     assert all(p.at_floor for p in r.products)
 

@@ -112,7 +112,7 @@ def test_nan_samples_are_refused_by_every_analysis():
     x = _white(1e-3, 1.0)
     x[100] = np.nan
     for analysis in (lambda: analyze_noise(x, RATE), lambda: analyze_tone(x, RATE),
-                     lambda: analyze_imd(x, RATE, "modulation")):
+                     lambda: analyze_imd(x, RATE, method="modulation")):
         with pytest.raises(BenchkitError, match="1 NaN or infinite"):
             analysis()
 

@@ -116,7 +116,7 @@ def test_hard_clip_power_at_one_percent_matches_the_fourier_series():
         a = 10 ** (db / 20)
         x = np.clip(a * np.sin(2 * np.pi * F0 * t), -1, 1)
         steps.append((db, analyze_tone(x, RATE, fundamental_hz=F0, volts_per_fs=1.0, load_ohms=8.0)))
-    r = power.analyze_power(steps, 8.0, metric="thd",
+    r = power.analyze_power(steps, load_ohms=8.0, metric="thd",
                             samples_of=lambda i: (np.clip(10 ** (steps[i][0] / 20) * np.sin(2 * np.pi * F0 * t), -1, 1), 0.0))
     assert r.rated.power_w == pytest.approx(want_w, rel=0.01)
     assert r.half == "symmetric"

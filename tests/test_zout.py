@@ -16,7 +16,7 @@ import math
 
 import pytest
 
-from benchkit.analysis.zout import Reading, output_impedance
+from benchkit.analysis.zout import analyze_zout, Reading
 from benchkit.pads import parallel
 
 from conftest import run_cli
@@ -29,8 +29,8 @@ def _thevenin(z: complex, r: float) -> complex:
 @pytest.mark.parametrize("z", [0.5, 0.05, complex(0.2, -3.6)])
 def test_the_divider_formula_recovers_the_source_impedance(z):
     r = 8.0
-    got = output_impedance([Reading(1000.0, 1.0 + 0j, phase_known=True)],
-                           [Reading(1000.0, _thevenin(z, r), phase_known=True)], r)
+    got = analyze_zout([Reading(1000.0, 1.0 + 0j, phase_known=True)],
+                       [Reading(1000.0, _thevenin(z, r), phase_known=True)], load_ohms=r)
     assert got.points[0].zout == pytest.approx(z, abs=1e-12)
     assert got.points[0].damping_factor == pytest.approx(r / abs(z), rel=1e-12)
 
@@ -39,9 +39,9 @@ def test_the_pads_own_load_is_taken_into_account():
     # "open" is the pad's 2 k across the output; loaded, 8 ohm || 2 k
     z, r, rp = 0.25, 8.0, 2000.0
     open_, loaded = _thevenin(z, rp), _thevenin(z, parallel(r, rp))
-    exact = output_impedance([Reading(1e3, open_)], [Reading(1e3, loaded)], r, rp)
+    exact = analyze_zout([Reading(1e3, open_)], [Reading(1e3, loaded)], load_ohms=r, open_load_ohms=rp)
     assert exact.points[0].zout_ohms == pytest.approx(z, rel=1e-9)
-    naive = output_impedance([Reading(1e3, open_)], [Reading(1e3, loaded)], r)
+    naive = analyze_zout([Reading(1e3, open_)], [Reading(1e3, loaded)], load_ohms=r)
     # taken as open, the pad across both readings nearly cancels: off by
     # about Z / R_p, no more
     assert abs(naive.points[0].zout_ohms / z - 1.0) == pytest.approx(z / rp, rel=0.05)
@@ -51,7 +51,7 @@ def test_the_pads_own_load_is_taken_into_account():
 def test_levels_at_different_drives_are_scaled_and_warned():
     z, r = 0.5, 8.0
     loaded = abs(_thevenin(z, r)) * 10 ** (-1.0 / 20)  # a dB less drive
-    got = output_impedance([Reading(1e3, 1.0, -20.0)], [Reading(1e3, loaded, -21.0)], r)
+    got = analyze_zout([Reading(1e3, 1.0, -20.0)], [Reading(1e3, loaded, -21.0)], load_ohms=r)
     assert got.method == "levels" and got.points[0].zout_ohms == pytest.approx(z, rel=1e-9)
     assert any("not at the same drive" in w for w in got.warnings)
     assert any("resistive" in w for w in got.warnings)
@@ -120,6 +120,6 @@ def test_a_phase_from_two_readings_is_used():
     # a purely reactive change (same magnitude, shifted phase) is a reactance
     z = complex(0.0, 1.0)
     k = 1.0 / _thevenin(z, 8.0)
-    got = output_impedance([Reading(50.0, k, phase_known=True)], [Reading(50.0, 1.0, phase_known=True)], 8.0)
+    got = analyze_zout([Reading(50.0, k, phase_known=True)], [Reading(50.0, 1.0, phase_known=True)], load_ohms=8.0)
     assert got.points[0].zout.real == pytest.approx(0.0, abs=1e-12)
     assert cmath.phase(got.points[0].zout) == pytest.approx(math.pi / 2, abs=1e-12)

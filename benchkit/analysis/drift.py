@@ -190,14 +190,56 @@ class DriftResult:
                       more={"window_s": self.window_s}))
 
 
-def analyze_drift(t_s, v, limit_v: float | None = None, band_v: float | None = None, window_s: float = 60.0,
+def analyze_drift(t_s, v, *, limit_v: float | None = None, band_v: float | None = None, window_s: float = 60.0,
                   info: dict | None = None, warnings: tuple[str, ...] = (), nominal_v: float = 0.0,
                   resolution_v: float | None = None) -> DriftResult:
-    """Figures of a drift log: ``band_v`` (default a tenth of the limit,
-    else 1 mV) decides when it has settled; the verdict holds the value
-    within ``limit_v`` of ``nominal_v`` (0 for an output offset; the
-    design midpoint for a capacitor-coupled stage); ``resolution_v`` is
-    the readings' resolution when known (else read from the data)."""
+    """The figures of a drift log: how a DC value settles as the stage warms.
+
+    Parameters
+    ----------
+    t_s, v : array_like
+        The readings' times (s) and values (V), in time order.
+    limit_v : float, optional
+        The verdict holds the value within this of ``nominal_v``.
+    band_v : float, optional
+        Settled means staying within this of the final value (default a
+        tenth of the limit, else 1 mV).
+    window_s : float
+        The span over which the drift rate is read.
+    info : dict, optional
+        Kept with the result (where the readings came from).
+    warnings : tuple of BenchWarning
+        Warnings of the readings (skipped rows ...), kept with the result's.
+    nominal_v : float
+        0 for an output offset; the design midpoint for a
+        capacitor-coupled stage.
+    resolution_v : float, optional
+        The readings' resolution when known (else read from the data).
+
+    Returns
+    -------
+    DriftResult
+        The first-order fit (final value, time constant, when it settles,
+        each with its standard deviation), sudden steps, the drift rate.
+
+    References
+    ----------
+    First-order settling v(t) = final + (start - final) exp(-(t - t0) / tau)
+    (circuit theory), fitted by nonlinear least squares with
+    ``scipy.optimize.curve_fit``, its covariance giving the standard
+    deviations.
+
+    Examples
+    --------
+    50 mV settling with a 2 min time constant onto 10 mV enters a 5 mV band
+    at 120 ln 10 s:
+
+    >>> import numpy as np, benchkit
+    >>> t = np.arange(0.0, 900.0, 1.0)
+    >>> r = benchkit.analyze_drift(t, 0.010 + 0.050 * np.exp(-t / 120.0), limit_v=0.05)
+    >>> round(r.fit.final_v, 6), round(r.fit.tau_s, 3), round(r.fit.settle_s, 2)
+    (0.01, 120.0, 276.31)
+    """
     t, y = np.asarray(t_s, float), np.asarray(v, float)
     if t.size == 0:
         raise ValueError("an empty drift log")

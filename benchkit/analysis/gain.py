@@ -57,15 +57,49 @@ class GainResult:
                    load_ohms=self.load_ohms).calibrated(self.calibration))
 
 
-def gain_of(output: ToneResult, drive_dbfs: float, reference: ToneResult | None = None,
-            output_vpk_per_fs: float | None = None, load_ohms: float | None = None) -> GainResult:
-    """The gain from the output's analysis and the input's: a reference
-    input's analysis (in volts), else the drive at ``output_vpk_per_fs``.
+def analyze_gain(output: ToneResult, *, drive_dbfs: float, reference: ToneResult | None = None,
+                 output_vpk_per_fs: float | None = None, load_ohms: float | None = None) -> GainResult:
+    """The voltage gain of a stage from its output's analysis and its
+    input's.
+
+    Parameters
+    ----------
+    output : ToneResult
+        The stage's output, analysed with a voltage scale.
+    drive_dbfs : float
+        The level the interface played, dBFS.
+    reference : ToneResult, optional
+        The stage's input as a second input measured it (with its scale):
+        the gain and its phase come from the two.
+    output_vpk_per_fs : float, optional
+        Without a reference: the interface output's volts peak per FS, so
+        the input is the drive at that scale (no phase).
+    load_ohms : float, optional
+        The load, recorded with the result.
+
+    Returns
+    -------
+    GainResult
+        ``gain_vv``, ``gain_db``, ``phase_deg`` and ``inverting`` (with a
+        reference).
 
     References
     ----------
     Voltage gain A = Vout / Vin, in dB 20 log10 A (circuit theory);
     sine RMS = peak / sqrt(2).
+
+    Examples
+    --------
+    A stage that gives 2 Vrms out for 0.1 Vrms in gains 20 V/V, 26 dB:
+
+    >>> import numpy as np, benchkit
+    >>> t = np.arange(48000) / 48000
+    >>> vin = 0.1 * np.sqrt(2) * np.sin(2 * np.pi * 1000 * t)
+    >>> out = benchkit.analyze_tone(-0.5 * vin, 48000, volts_per_fs=40.0)
+    >>> ref = benchkit.analyze_tone(vin, 48000, volts_per_fs=1.0)
+    >>> g = benchkit.analyze_gain(out, drive_dbfs=-20.0, reference=ref)
+    >>> round(g.gain_vv, 6), round(g.gain_db, 2), g.inverting
+    (20.0, 26.02, True)
     """
     if output.fundamental_vrms is None:
         raise ValueError("the output needs a voltage scale")

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from benchkit import units
-from benchkit.analysis import refuse_non_finite
+from benchkit.analysis import one_channel, refuse_non_finite
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, band_limited
 from benchkit.analysis.weighting import a_weighting_power
 from benchkit.errors import BenchWarning, BenchkitError
@@ -158,26 +158,55 @@ def hum_lines(f: np.ndarray, p: np.ndarray, volts_per_fs: float | None = None,
     return best
 
 
-def analyze_noise(x: np.ndarray, rate: float, bandwidth_hz=DEFAULT_BAND_HZ, volts_per_fs: float | None = None,
+def analyze_noise(x, rate: float, *, bandwidth_hz=DEFAULT_BAND_HZ, volts_per_fs: float | None = None,
                   scale_source: str = "none", reference_vrms: float | None = None, reference: str | None = None,
-                  traces: bool = False) -> NoiseResult:
+                  traces: bool = False, channel: int | None = None) -> NoiseResult:
     """The noise of a capture made with the stage's input terminated.
 
     Parameters
     ----------
-    x : samples in FS (one channel)
-    rate : sample rate, Hz
-    bandwidth_hz : the band integrated (default 20 Hz to 20 kHz)
-    volts_per_fs : volts peak at the measured point per FS, for Vrms and dBV
-    reference_vrms, reference : the output SNR is referred to (e.g. 1 W into 8 ohm) and what it is
+    x : array_like
+        Samples in FS: one channel, or frames x channels (``channel`` picks
+        one); at least half a second.
+    rate : float
+        The sample rate, Hz.
+    bandwidth_hz : (lo, hi) or None
+        The band integrated (default 20 Hz to 20 kHz; None: 0 to fs/2).
+    volts_per_fs : float, optional
+        Volts peak at the measured point per FS, for Vrms and dBV.
+    scale_source : str
+        Where ``volts_per_fs`` came from.
+    reference_vrms, reference : float, str, optional
+        The output the SNR is referred to (e.g. 1 W into 8 ohm) and what it is.
+    traces : bool
+        Keep the PSD the report plots.
+    channel : int, optional
+        The channel of 2-D ``x``, from 1.
+
+    Returns
+    -------
+    NoiseResult
+        ``rms_fs`` and ``a_rms_fs`` (unweighted and A-weighted), the hum
+        lines, and volts and SNR with a scale and a reference.
 
     References
     ----------
     IEC 61672-1 (A-weighting); Welch, IEEE Trans. Audio Electroacoust. 15
     (1967) (the averaged periodogram).
+
+    Examples
+    --------
+    White noise of 1 mFS RMS over 0 to 24 kHz holds sqrt(19980 / 24000) of
+    it between 20 Hz and 20 kHz, 0.912 mFS (Parseval):
+
+    >>> import numpy as np, benchkit
+    >>> x = np.random.default_rng(1).normal(0.0, 0.001, 96000)
+    >>> r = benchkit.analyze_noise(x, 48000)
+    >>> round(1000 * r.rms_fs, 2)
+    0.91
     """
-    x = np.asarray(x, dtype=float)
-    if x.ndim != 1 or x.size < int(0.5 * rate):
+    x = one_channel(x, channel, "analyze_noise")
+    if x.size < int(0.5 * rate):
         raise BenchkitError("a noise measurement needs at least half a second of one channel")
     refuse_non_finite(x)
     band = tuple(bandwidth_hz) if bandwidth_hz is not None else (0.0, rate / 2)

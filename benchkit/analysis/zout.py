@@ -115,11 +115,45 @@ class ZoutResult:
                       more={"open_load_ohms": self.open_load_ohms}).calibrated(self.calibration))
 
 
-def output_impedance(open_: list[Reading], loaded: list[Reading], load_ohms: float,
-                     open_load_ohms: float | None = None) -> ZoutResult:
-    """Z at each frequency read both unloaded and across ``load_ohms``,
-    the unloaded output across ``open_load_ohms`` (the pad and input) when
-    known, else taken as open."""
+def analyze_zout(open_: list[Reading], loaded: list[Reading], *, load_ohms: float,
+                 open_load_ohms: float | None = None) -> ZoutResult:
+    """The output impedance at each frequency read both unloaded and
+    across a load.
+
+    Parameters
+    ----------
+    open_, loaded : list of Reading
+        The stage's output unloaded and across ``load_ohms``: gains against
+        its input (complex, ``phase_known``) or levels; readings are paired
+        by frequency (within 0.5 %).
+    load_ohms : float
+        The load of the loaded reading.
+    open_load_ohms : float, optional
+        What the unloaded output drove (the pad and the input); open when
+        not given (a warning says so).
+
+    Returns
+    -------
+    ZoutResult
+        Z (complex with phases, else its magnitude) at each frequency, and
+        the damping factor into the load.
+
+    References
+    ----------
+    The voltage divider of a Thevenin source: Z = R (V_open / V_loaded - 1)
+    (circuit theory); with the open reading across Rp the two loads'
+    parallel values take the place of R (the same divider twice).
+
+    Examples
+    --------
+    An output of 0.5 ohm into 8 ohm drops by 8 / 8.5:
+
+    >>> import benchkit
+    >>> r = benchkit.analyze_zout([benchkit.Reading(1000.0, 1.0, phase_known=True)],
+    ...                           [benchkit.Reading(1000.0, 8 / 8.5, phase_known=True)], load_ohms=8.0)
+    >>> round(r.points[0].zout_ohms, 6), round(r.points[0].damping_factor, 3)
+    (0.5, 16.0)
+    """
     if not load_ohms > 0:
         raise BenchkitError(f"the load must be a positive resistance, got {load_ohms:g} ohm")
     if open_load_ohms is not None and not open_load_ohms > load_ohms:

@@ -149,7 +149,8 @@ def analyze_drift_csv(path: Path, time_col: str = "1", value_col: str = "2", lim
     if amps is not None:
         extra["supply_current_a"] = {"last": float(amps[-1]), "min": float(amps.min()), "max": float(amps.max()),
                                      "mean": float(amps.mean())}
-    return analyze_drift(t, v, limit_v, band_v, window_s, extra, tuple(notes) + tuple(warnings), nominal_v)
+    return analyze_drift(t, v, limit_v=limit_v, band_v=band_v, window_s=window_s, info=extra,
+                         warnings=tuple(notes) + tuple(warnings), nominal_v=nominal_v)
 
 
 LOG = "log.csv"

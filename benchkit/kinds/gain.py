@@ -11,15 +11,15 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 from pathlib import Path
 
-from benchkit.analysis.gain import gain_figures, gain_of, gain_readings, GainResult
+from benchkit.analysis.gain import analyze_gain, gain_figures, gain_readings, GainResult
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, CAPTURE, Kind, Offline, run_capture, RunParams
 from benchkit.recordings import read_capture, Takes
 
 
-def analyze_gain(path: Path, channel: int = 1, ref_channel: int | None = None, bandwidth_hz=DEFAULT_BAND_HZ,
-                 load_ohms: float | None = None) -> GainResult:
+def gain_of_capture(path: Path, channel: int = 1, ref_channel: int | None = None, bandwidth_hz=DEFAULT_BAND_HZ,
+                    load_ohms: float | None = None) -> GainResult:
     """The gain of a one-step tone capture written by benchkit: the
     measuring channel over ``ref_channel`` (the sidecar's reference input
     by default), else over the drive at the calibrated output scale."""
@@ -29,7 +29,7 @@ def analyze_gain(path: Path, channel: int = 1, ref_channel: int | None = None, b
 def step_gains(path: Path, channel: int = 1, ref_channel: int | None = None, bandwidth_hz=DEFAULT_BAND_HZ,
                load_ohms: float | None = None) -> list[GainResult]:
     """The gain at every step of a stepped-tone capture written by benchkit
-    (each at its own frequency and level), as :func:`analyze_gain`."""
+    (each at its own frequency and level), as :func:`gain_of_capture`."""
     from benchkit.kinds.tone import analyze_steps, is_stepped
 
     rec = read_capture(path, channel)
@@ -54,14 +54,15 @@ def step_gains(path: Path, channel: int = 1, ref_channel: int | None = None, ban
         for seg, step in zip(side["stimulus"]["segments"], steps.steps):
             r = analyze_tone(takes.step(seg), rec.sample_rate_hz,
                              fundamental_hz=float(seg["frequency_hz"]), bandwidth_hz=bandwidth_hz, volts_per_fs=scale)
-            g = gain_of(step.result, step.drive_dbfs, reference=r, load_ohms=load_ohms)
+            g = analyze_gain(step.result, drive_dbfs=step.drive_dbfs, reference=r, load_ohms=load_ohms)
             out.append(replace(g, calibration=cal or None))
         return out
     out_scale = cal.get("output_vpk_per_fs") or side.get("output_vpk_per_fs")
     if not out_scale:
         raise BenchkitError(f"{path}: no reference input and no calibrated output scale: wire a reference input "
                             "(--ref-channel) or give --calibration")
-    return [replace(gain_of(step.result, step.drive_dbfs, output_vpk_per_fs=float(out_scale), load_ohms=load_ohms),
+    return [replace(analyze_gain(step.result, drive_dbfs=step.drive_dbfs, output_vpk_per_fs=float(out_scale),
+                                 load_ohms=load_ohms),
                     calibration=cal or None)
             for step in steps.steps]
 
@@ -95,7 +96,7 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     p = GainParams.from_dict(record.get("params"))
     channel = int(p.channel or 1)
     path = run_capture(folder, channel, say).path
-    result = analyze_gain(path, channel, p.ref_channel, p.band(), p.load_ohms)
+    result = gain_of_capture(path, channel, p.ref_channel, p.band(), p.load_ohms)
     return result.to_dict(), reports(result, folder, channel)
 
 
@@ -104,7 +105,7 @@ def analyse(rec, o: Offline) -> Analysed:
     from benchkit.report import gain as report
 
     path = Path(rec.path)
-    doc = {**analyze_gain(path, rec.channel, o.ref_channel, o.bandwidth_hz, o.load_ohms).to_dict(), "file": str(path)}
+    doc = {**gain_of_capture(path, rec.channel, o.ref_channel, o.bandwidth_hz, o.load_ohms).to_dict(), "file": str(path)}
     return Analysed(doc, report.gain_summary(doc, f"{path} channel {rec.channel}: gain"))
 
 

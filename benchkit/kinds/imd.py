@@ -90,8 +90,8 @@ def analyze_imd_steps(rec: Recording, volts_per_fs: float | None = None, load_oh
     takes = Takes(rec)
     steps = []
     for seg, drive, spoiled in segments:
-        r = analyze_imd(takes.step(seg), rec.sample_rate_hz, twin.method, twin.f1_hz, twin.f2_hz, scale, source,
-                        load_ohms, spectrum=spectrum)
+        r = analyze_imd(takes.step(seg), rec.sample_rate_hz, method=twin.method, f1_hz=twin.f1_hz, f2_hz=twin.f2_hz,
+                        volts_per_fs=scale, scale_source=source, load_ohms=load_ohms, spectrum=spectrum)
         if spoiled:
             r = replace(r, valid=False, warnings=r.warnings + (SPOILED,))
         steps.append(ImdStep(drive, r))
@@ -167,8 +167,8 @@ def analyse(rec, o: Offline) -> Analysed:
         method, _sep, tones = o.imd_method.partition(":")
         twin = twin_tone(method, *(units.parse_tones(tones) if tones else (None, None)))
         scale, source = o.scale(rec)
-        r = analyze_imd(rec.samples, rec.sample_rate_hz, twin.method, twin.f1_hz, twin.f2_hz, scale, source,
-                        o.load_ohms, spectrum=o.out is not None)
+        r = analyze_imd(rec.samples, rec.sample_rate_hz, method=twin.method, f1_hz=twin.f1_hz, f2_hz=twin.f2_hz,
+                        volts_per_fs=scale, scale_source=source, load_ohms=o.load_ohms, spectrum=o.out is not None)
         result = ImdSteps(str(rec.path), rec.channel, twin, (ImdStep(None, r),), rec.warnings)
     doc = result.to_dict()
     return Analysed(doc, report.imd_summary(doc, f"{rec.path} channel {rec.channel}: intermodulation"),

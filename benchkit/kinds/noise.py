@@ -50,7 +50,8 @@ def analyze_noise_capture(rec: Recording, bandwidth_hz=DEFAULT_BAND_HZ, volts_pe
     settle = float((rec.sidecar.get("stimulus") or {}).get("settle_s") or 0.0)
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
     x = rec.samples[int(settle * rec.sample_rate_hz):]
-    result = analyze_noise(x, rec.sample_rate_hz, bandwidth_hz, scale, source, reference_vrms, reference, traces)
+    result = analyze_noise(x, rec.sample_rate_hz, bandwidth_hz=bandwidth_hz, volts_per_fs=scale, scale_source=source,
+                           reference_vrms=reference_vrms, reference=reference, traces=traces)
     return replace(result, calibration=rec.sidecar.get("calibration"))
 
 

@@ -74,8 +74,10 @@ def power_from_steps(steps: StepsResult, load_ohms: float, metric: str = "thdn",
     info = {"file": steps.file, "channel": steps.channel, "device": steps.device,
             "calibration": steps.calibration}
     amps = [seg.get("supply_a") for seg in segs] if len(segs) == len(ordered) else None
-    return analyze_power([(s.drive_dbfs, s.result) for s in ordered], load_ohms, metric, limits_pct, onset_db,
-                         supply_v, supply_a, samples_of, expected, info, tuple(warnings), amps)
+    return analyze_power([(s.drive_dbfs, s.result) for s in ordered], load_ohms=load_ohms, metric=metric,
+                         limits_pct=limits_pct, onset_db=onset_db, supply_v=supply_v, supply_a=supply_a,
+                         samples_of=samples_of, expected=expected, info=info, warnings=tuple(warnings),
+                         step_amps=amps)
 
 
 #: Climbing: this step at first, a quarter of it once THD+N rises fast.

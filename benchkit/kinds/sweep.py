@@ -181,6 +181,87 @@ def analyze_response(
     raise BenchkitError(f"{rec.path}: not a response capture: give --sweep F1:F2:SECONDS for a sweep made elsewhere")
 
 
+def analyze_sweep(samples, sample_rate: float, *, start_hz: float, stop_hz: float, seconds: float,
+                  channel: int | None = None, reference_channel: int | None = None,
+                  volts_per_fs: float | None = None, reference_hz: float = resp.REFERENCE_HZ,
+                  load_ohms: float | None = None, bandwidth_hz: tuple[float, float] | None = DEFAULT_BAND_HZ,
+                  ) -> resp.ResponseResult:
+    """The response and the harmonic distortion of a stage from a
+    synchronized exponential sweep made elsewhere (played at unit
+    amplitude, exactly the formula, after unknown silence).
+
+    Parameters
+    ----------
+    samples : array_like
+        The recording in FS: one channel, or frames x channels.
+    sample_rate : float
+        In Hz.
+    start_hz, stop_hz, seconds : float
+        The sweep played: its band and its length (the length is rounded
+        so that its harmonics stay in phase, as the sweep played must be).
+    channel : int, optional
+        The stage's output, a channel of 2-D ``samples`` from 1.
+    reference_channel : int, optional
+        A channel that recorded the sweep as played (a loopback): the
+        response is referred to it (the interface's own response and a
+        clock offset cancel).
+    volts_per_fs : float, optional
+        Volts peak per FS of the measured channel: levels in dBV.
+    reference_hz : float
+        The frequency the response is referred to (0 dB).
+    load_ohms : float, optional
+        The load, recorded with the result.
+    bandwidth_hz : (lo, hi) or None
+        The band of the distortion figures.
+
+    Returns
+    -------
+    ResponseResult
+        ``freq_hz``, ``mag_db`` and ``phase_deg`` on a log grid, the
+        harmonic curves and THD, ``corners_3db`` and ``corners_1db``.
+
+    References
+    ----------
+    A. Farina, "Simultaneous measurement of impulse response and
+    distortion with a swept-sine technique", AES 108th Convention (2000),
+    preprint 5093; A. Novak et al., "Synchronized swept-sine: theory,
+    application and implementation", J. AES 63(10) (2015).
+
+    Examples
+    --------
+    A digital first-order low-pass: its upper -3 dB point re 1 kHz where
+    ``scipy.signal.freqz`` puts it:
+
+    >>> import numpy as np, scipy.signal, benchkit
+    >>> from benchkit.analysis.sweep import SyncSweep
+    >>> played = SyncSweep.design(10.0, 24000.0, 4.0, 48000.0, faded=False).samples()
+    >>> b, a = scipy.signal.bilinear([1.0], [1 / (2 * np.pi * 5000.0), 1.0], 48000.0)
+    >>> x = np.concatenate([np.zeros(4800), scipy.signal.lfilter(b, a, 0.5 * played), np.zeros(48000)])
+    >>> r = benchkit.analyze_sweep(x, 48000.0, start_hz=10.0, stop_hz=24000.0, seconds=4.0)
+    >>> f, h = scipy.signal.freqz(b, a, worN=np.linspace(1000.0, 10000.0, 90001), fs=48000.0)
+    >>> want = f[np.argmin(np.abs(20 * np.log10(np.abs(h / h[0])) + 3.0))]
+    >>> low, high = r.corners_3db
+    >>> low is None, round(float(high / want), 3)
+    (True, 1.0)
+    """
+    from benchkit.analysis import one_channel
+
+    n = np.asarray(samples).shape[1] if np.ndim(samples) == 2 else 1
+    if n > 1 and channel is None:
+        channel = 1 if reference_channel == 2 else None  # (one_channel asks which)
+    out = one_channel(samples, channel, "analyze_sweep")
+    side = {} if volts_per_fs is None else {"channels": [{"number": channel or 1, "volts_per_fs": volts_per_fs}],
+                                            "scale_source": "given"}
+    rec = Recording(Path("samples"), out, float(sample_rate), channel or 1, n, side)
+    ref = _Reference(None, None, "played")
+    if reference_channel is not None:
+        if reference_channel == (channel or 1):
+            raise BenchkitError("the reference channel cannot be the measured channel")
+        ref = _Reference(one_channel(samples, reference_channel, "analyze_sweep"), None, "reference-channel")
+    sweep = sw.SyncSweep.design(start_hz, stop_hz, seconds, float(sample_rate), faded=False)
+    return _sweep_response(rec, ref, reference_channel, sweep, None, 1.0, reference_hz, load_ohms, bandwidth_hz)
+
+
 def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz, load_ohms, band):
     rate = rec.sample_rate_hz
     if abs(sweep.rate - rate) > 1e-6:

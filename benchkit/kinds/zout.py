@@ -15,7 +15,7 @@ from typing import Callable, ClassVar
 
 
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
-from benchkit.analysis.zout import phasor, output_impedance, Reading, zout_figures, ZoutResult
+from benchkit.analysis.zout import analyze_zout, phasor, Reading, zout_figures, ZoutResult
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, RunParams
 from benchkit.recordings import read_capture, Takes
@@ -84,7 +84,7 @@ def zout_of_captures(folder: Path, load_ohms: float, open_load_ohms: float | Non
             path = recover_capture(folder, state)
         got.append(readings_of_capture(path, channel, ref_channel, bandwidth_hz))
     cal = read_capture(folder / f"{STATES[0]}.wav").sidecar.get("calibration")
-    return replace(output_impedance(got[0], got[1], load_ohms, open_load_ohms), calibration=cal)
+    return replace(analyze_zout(got[0], got[1], load_ohms=load_ohms, open_load_ohms=open_load_ohms), calibration=cal)
 
 
 def zout_run(backend, folder: Path, load_ohms: float, frequencies_hz, level_dbfs: float,
@@ -134,7 +134,7 @@ def analyse_pair(open_path: Path, loaded_path: Path, channel: int, ref_channel: 
         else:
             r = analyze_tone(rec.samples, rec.sample_rate_hz, bandwidth_hz=bandwidth_hz)
             got.append([Reading(r.fundamental_hz, complex(r.fundamental_fs), None, r.valid)])
-    result = output_impedance(got[0], got[1], load_ohms, open_load_ohms)
+    result = analyze_zout(got[0], got[1], load_ohms=load_ohms, open_load_ohms=open_load_ohms)
     doc = {**result.to_dict(), "files": [str(open_path), str(loaded_path)]}
     return Analysed(doc, report.zout_summary(doc, f"output impedance: {open_path} (open), {loaded_path} (loaded)"),
                     lambda out: report.zout_reports(result, Path(loaded_path).parent, out))
@@ -162,7 +162,7 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
         from benchkit.jsonfile import load_json
 
         docs = [load_json(folder / f"{state}.result.json") for state in ("open", "loaded")]
-        result = output_impedance(*(readings_of_result(d) for d in docs), load, open_load)
+        result = analyze_zout(*(readings_of_result(d) for d in docs), load_ohms=load, open_load_ohms=open_load)
     else:
         result = zout_of_captures(folder, load, open_load, int(p.channel or 1), p.ref_channel)
     return result.to_dict(), reports(result, folder)
