@@ -76,3 +76,36 @@ def test_a_stereo_file_read_by_soundfile_takes_a_channel(tmp_path):
 def test_an_unknown_name_is_an_attribute_error():
     with pytest.raises(AttributeError, match="no attribute 'analyse_tone'"):
         benchkit.analyse_tone  # noqa: B018 - the spelling people try
+
+
+def test_every_plot_is_a_figure_first_and_a_png_second():
+    # a notebook shows the figure; the report writes the same figure as PNG
+    import importlib
+    import pkgutil
+
+    import benchkit.report
+
+    writers = []
+    for mod in pkgutil.iter_modules(benchkit.report.__path__):
+        module = importlib.import_module(f"benchkit.report.{mod.name}")
+        writers += [(module, n[:-4]) for n, f in vars(module).items()
+                    if n.endswith("_png") and callable(f) and f.__module__ == module.__name__
+                    and n not in ("save_png", "result_csv_png")]
+    assert len(writers) >= 15
+    missing = [f"{m.__name__}.{n}_figure" for m, n in writers if not callable(getattr(m, f"{n}_figure", None))]
+    assert not missing
+
+
+def test_a_result_plots_in_a_notebook():
+    from matplotlib.figure import Figure
+
+    from benchkit.report.noise import noise_figure
+    from benchkit.report.tone import spectrum_figure
+
+    t = np.arange(48000) / 48000
+    tone = benchkit.analyze_tone(0.5 * np.sin(2 * np.pi * 1000 * t) + 0.005 * np.sin(2 * np.pi * 2000 * t), 48000,
+                                 traces=True)
+    noise = benchkit.analyze_noise(np.random.default_rng(2).normal(0.0, 1e-4, 48000), 48000, traces=True)
+    for fig, title in ((spectrum_figure(tone, "a 1 kHz tone"), "a 1 kHz tone"), (noise_figure(noise, "hiss"), "hiss")):
+        assert isinstance(fig, Figure) and fig.axes[0].lines
+        assert title in fig.axes[0].get_title(loc="left")

@@ -53,7 +53,7 @@ def write_crosstalk_csv(result, path: Path) -> Path:
     return path
 
 
-def crosstalk_png(result, path: Path, title: str) -> Path:
+def crosstalk_figure(result, title: str) -> Figure:
     """Crosstalk of each direction against frequency (dB, log frequency;
     a hollow mark where the leak did not stand over its noise), and the
     balance below."""
@@ -86,7 +86,12 @@ def crosstalk_png(result, path: Path, title: str) -> Path:
     axb.set_xlabel("frequency (Hz)")
     axb.grid(True, which="both", color="#e6e6e6", lw=0.5)
     fig.subplots_adjust(left=0.09, right=0.97, top=0.93, bottom=0.09, hspace=0.3)
-    return save_png(fig, path)
+    return fig
+
+
+def crosstalk_png(result, path: Path, title: str) -> Path:
+    """:func:`crosstalk_figure`, written to ``path``."""
+    return save_png(crosstalk_figure(result, title), path)
 
 
 def crosstalk_reports(result, path: Path, out: Path) -> list[Path]:

@@ -78,7 +78,7 @@ def drift_view(result) -> dict:
     return {"unit": unit, "scale": scale, "band": band, "ylim": ((lo - pad) * scale, (hi + pad) * scale)}
 
 
-def drift_png(result, path: Path, title: str) -> Path:
+def drift_figure(result, title: str) -> Figure:
     """Volts against time, the settling fit over it, the limit band about
     the nominal value and the sudden steps marked (:func:`drift_view`)."""
     view = drift_view(result)
@@ -113,7 +113,12 @@ def drift_png(result, path: Path, title: str) -> Path:
     verdict = f"; verdict: {result.verdict}" if result.verdict else ""
     ax.set_title(f"{title}: DC drift{verdict}", loc="left", fontsize=10)
     fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.11)
-    return save_png(fig, path)
+    return fig
+
+
+def drift_png(result, path: Path, title: str) -> Path:
+    """:func:`drift_figure`, written to ``path``."""
+    return save_png(drift_figure(result, title), path)
 
 
 def drift_reports(result, log: Path, out: Path) -> list[Path]:
@@ -125,7 +130,7 @@ def drift_reports(result, log: Path, out: Path) -> list[Path]:
     ]
 
 
-def drifts_png(series, labels, path: Path, title: str, warnings) -> Path:
+def drifts_figure(series, labels, title: str, warnings) -> Figure:
     fig = Figure(figsize=(10, 5.2))
     ax = fig.add_subplot(1, 1, 1)
     longest = max((t[-1] - t[0] for t, _v in series if len(t)), default=0.0)
@@ -134,4 +139,9 @@ def drifts_png(series, labels, path: Path, title: str, warnings) -> Path:
         ax.plot((np.asarray(t) - t[0]) / scale, np.asarray(v) * 1e3, ".-", ms=2, lw=0.6, color=colour(i), label=label)
     ax.set_xlabel("time from the first reading (min)" if scale > 1 else "time from the first reading (s)")
     ax.set_ylabel("DC (mV)")
-    return finish_overlay(fig, ax, path, title, warnings, "", "best", 0.09)
+    return finish_overlay(fig, ax, title, warnings, "", "best", 0.09)
+
+
+def drifts_png(series, labels, path: Path, title: str, warnings) -> Path:
+    """:func:`drifts_figure`, written to ``path``."""
+    return save_png(drifts_figure(series, labels, title, warnings), path)

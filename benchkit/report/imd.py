@@ -16,7 +16,7 @@ from benchkit.errors import read_warnings
 from benchkit.report import tables
 from benchkit.report.files import report_folder, stem_of
 from benchkit.report.overlays import percent_axes, colour, finish_overlay
-from benchkit.report.plots import hz_label
+from benchkit.report.plots import hz_label, save_png
 from benchkit.units import quantity
 
 
@@ -109,7 +109,7 @@ def _drive(step: dict) -> float:
     return float(units.dbfs_from_peak(units.ratio_from_db(step["f1_dbfs"]) + units.ratio_from_db(step["f2_dbfs"])))
 
 
-def imd_png(docs, labels, path: Path, title: str, warnings=(), spectrum=None) -> Path:
+def imd_figure(docs, labels, title: str, warnings=(), spectrum=None) -> Figure:
     """IMD (the total, and order 2 and 3 of the first run) against the
     composite's equivalent sine power, or against the drive when a step has
     no power, for one or more two-tone results; invalid steps crossed.
@@ -155,4 +155,9 @@ def imd_png(docs, labels, path: Path, title: str, warnings=(), spectrum=None) ->
         axs.set_ylabel("dBFS" if step["drive_dbfs"] is None else f"dBFS, drive {step['drive_dbfs']:g} dBFS")
         axs.grid(True, which="both", color="#e6e6e6", lw=0.5)
         fig.subplots_adjust(hspace=0.32)
-    return finish_overlay(fig, ax, path, f"{title}: intermodulation", warnings, "", "upper left", 0.09)
+    return finish_overlay(fig, ax, f"{title}: intermodulation", warnings, "", "upper left", 0.09)
+
+
+def imd_png(docs, labels, path: Path, title: str, warnings=(), spectrum=None) -> Path:
+    """:func:`imd_figure`, written to ``path``."""
+    return save_png(imd_figure(docs, labels, title, warnings=warnings, spectrum=spectrum), path)

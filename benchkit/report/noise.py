@@ -62,7 +62,7 @@ def write_noise_csv(result, path: Path) -> Path:
     return path
 
 
-def noise_png(result, path: Path, title: str) -> Path:
+def noise_figure(result, title: str) -> Figure:
     """The noise spectrum (density, log frequency), the A-weighted density
     beside it, the band shaded and the hum lines marked with their levels."""
     from benchkit.analysis.weighting import a_weighting_power
@@ -94,7 +94,12 @@ def noise_png(result, path: Path, title: str) -> Path:
     ax.set_title(f"{title}: noise {d['noise_dbfs']:.1f} dBFS, A-weighted {d['noise_a_dbfs']:.1f} dBFS", loc="left",
                  fontsize=10)
     fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.11)
-    return save_png(fig, path)
+    return fig
+
+
+def noise_png(result, path: Path, title: str) -> Path:
+    """:func:`noise_figure`, written to ``path``."""
+    return save_png(noise_figure(result, title), path)
 
 
 def noise_reports(result, path: Path, channel: int, out: Path) -> list[Path]:

@@ -20,9 +20,9 @@ def colour(i: int) -> str:
     return COLOURS[i % len(COLOURS)]
 
 
-def finish_overlay(fig, ax, path: Path, title: str, warnings, caption: str, legend: str, left: float) -> Path:
+def finish_overlay(fig, ax, title: str, warnings, caption: str, legend: str, left: float) -> Figure:
     """Grid, legend, title, a caption (the conditions, or in red the
-    warnings that the runs do not compare like for like), saved."""
+    warnings that the runs do not compare like for like)."""
     ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
     ax.legend(loc=legend, fontsize=8, frameon=False)
     ax.set_title(title, loc="left", fontsize=10)
@@ -31,7 +31,7 @@ def finish_overlay(fig, ax, path: Path, title: str, warnings, caption: str, lege
     elif caption:
         fig.text(0.01, 0.01, caption, fontsize=7.5, color="#333333", ha="left", va="bottom", wrap=True)
     fig.subplots_adjust(left=left, right=0.97, top=0.92, bottom=0.15)
-    return save_png(fig, path)
+    return fig
 
 
 def percent_axes(ax, log_x: bool, x_log_label: str, x_label: str, ylabel: str) -> None:
@@ -47,8 +47,8 @@ def percent_axes(ax, log_x: bool, x_log_label: str, x_label: str, ylabel: str) -
     ax.set_ylabel(ylabel)
 
 
-def distortion_png(docs, labels, path: Path, title: str, warnings=(), key: str = "thdn_pct",
-                   ylabel: str = "THD+N (%)", caption: str = "") -> Path:
+def distortion_figure(docs, labels, title: str, warnings=(), key: str = "thdn_pct",
+                   ylabel: str = "THD+N (%)", caption: str = "") -> Figure:
     """THD+N (or ``key``) against output power, log-log, for the steps of
     one or more stepped results; against the fundamental's dBFS when a
     step has no power. Invalid steps are crossed."""
@@ -64,10 +64,16 @@ def distortion_png(docs, labels, path: Path, title: str, warnings=(), key: str =
         if bad:
             ax.plot(*zip(*bad), "x", ms=8, color="#b00020")
     percent_axes(ax, have_power, "output power (W)", "fundamental (dBFS)", ylabel)
-    return finish_overlay(fig, ax, path, title, warnings, caption, "upper left", 0.1)
+    return finish_overlay(fig, ax, title, warnings, caption, "upper left", 0.1)
 
 
-def lines_png(series, labels, path: Path, title: str, warnings, xlabel: str, ylabel: str, log_x: bool) -> Path:
+def distortion_png(docs, labels, path: Path, title: str, warnings=(), key: str = "thdn_pct",
+                   ylabel: str = "THD+N (%)", caption: str = "") -> Path:
+    """:func:`distortion_figure`, written to ``path``."""
+    return save_png(distortion_figure(docs, labels, title, warnings=warnings, key=key, ylabel=ylabel, caption=caption), path)
+
+
+def lines_figure(series, labels, title: str, warnings, xlabel: str, ylabel: str, log_x: bool) -> Figure:
     fig = Figure(figsize=(10, 5.2))
     ax = fig.add_subplot(1, 1, 1)
     for i, (label, (x, y)) in enumerate(zip(labels, series)):
@@ -76,4 +82,9 @@ def lines_png(series, labels, path: Path, title: str, warnings, xlabel: str, yla
         log_hz_axis(ax)
     ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)
-    return finish_overlay(fig, ax, path, title, warnings, "", "best", 0.09)
+    return finish_overlay(fig, ax, title, warnings, "", "best", 0.09)
+
+
+def lines_png(series, labels, path: Path, title: str, warnings, xlabel: str, ylabel: str, log_x: bool) -> Path:
+    """:func:`lines_figure`, written to ``path``."""
+    return save_png(lines_figure(series, labels, title, warnings, xlabel, ylabel, log_x), path)

@@ -76,7 +76,7 @@ def write_power_csv(result, path: Path) -> Path:
     return path
 
 
-def power_png(result, path: Path, title: str) -> Path:
+def power_figure(result, title: str) -> Figure:
     """THD+N (and THD) against output power, log-log, the limits and their
     crossings marked, the clipping onset and the expected ceiling shown;
     beside it THD+N against the output level in Vrms."""
@@ -118,7 +118,12 @@ def power_png(result, path: Path, title: str) -> Path:
     fig.text(0.01, 0.01, f"{result.frequency_hz:g} Hz into {result.load_ohms:g} ohm; limits on "
              f"{'THD+N' if result.metric == 'thdn' else 'THD'}{half}", fontsize=7.5, color="#333333", ha="left", va="bottom")
     fig.subplots_adjust(left=0.07, right=0.98, top=0.92, bottom=0.14, wspace=0.22)
-    return save_png(fig, path)
+    return fig
+
+
+def power_png(result, path: Path, title: str) -> Path:
+    """:func:`power_figure`, written to ``path``."""
+    return save_png(power_figure(result, title), path)
 
 
 def power_reports(result, path: Path, channel: int, out: Path) -> list[Path]:

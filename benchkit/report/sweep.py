@@ -77,7 +77,7 @@ def _response_caption(r) -> str:
     return f"{how}; referred by {r.scale_source}; magnitude in {r.mag_units}"
 
 
-def response_png(result, path: Path, title: str, smooth_fraction: int | None = None) -> Path:
+def response_figure(result, title: str, smooth_fraction: int | None = None) -> Figure:
     """Magnitude over a phase panel, log frequency, the -3 dB corners
     marked; smoothing (1/N octave) changes the plot only."""
     from benchkit.analysis import response as resp
@@ -107,10 +107,15 @@ def response_png(result, path: Path, title: str, smooth_fraction: int | None = N
         log_hz_axis(a)
     fig.text(0.01, 0.01, _response_caption(result), fontsize=7.5, color="#333333", ha="left", va="bottom")
     fig.subplots_adjust(left=0.09, right=0.97, top=0.94, bottom=0.11, hspace=0.28)
-    return save_png(fig, path)
+    return fig
 
 
-def distortion_png(result, path: Path, title: str) -> Path:
+def response_png(result, path: Path, title: str, smooth_fraction: int | None = None) -> Path:
+    """:func:`response_figure`, written to ``path``."""
+    return save_png(response_figure(result, title, smooth_fraction=smooth_fraction), path)
+
+
+def distortion_figure(result, title: str) -> Figure:
     """THD (and THD+N for stepped sines), H2 and H3 against the
     fundamental's frequency, in dB re the fundamental."""
     fig = Figure(figsize=(10, 5.2))
@@ -128,7 +133,12 @@ def distortion_png(result, path: Path, title: str) -> Path:
     ax.set_title(f"{title}: distortion against frequency", loc="left", fontsize=10)
     fig.text(0.01, 0.01, _response_caption(result), fontsize=7.5, color="#333333", ha="left", va="bottom")
     fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.15)
-    return save_png(fig, path)
+    return fig
+
+
+def distortion_png(result, path: Path, title: str) -> Path:
+    """:func:`distortion_figure`, written to ``path``."""
+    return save_png(distortion_figure(result, title), path)
 
 
 def response_reports(result, path: Path, channel: int, out: Path, smooth: int | None = None) -> list[Path]:
@@ -142,7 +152,7 @@ def response_reports(result, path: Path, channel: int, out: Path, smooth: int | 
     ]
 
 
-def responses_png(docs, labels, path: Path, title: str, warnings) -> Path:
+def responses_figure(docs, labels, title: str, warnings) -> Figure:
     fig = Figure(figsize=(10, 6.4))
     ax, axp = fig.add_subplot(2, 1, 1), fig.add_subplot(2, 1, 2)
     for i, (label, d) in enumerate(zip(labels, docs)):
@@ -157,4 +167,9 @@ def responses_png(docs, labels, path: Path, title: str, warnings) -> Path:
         log_hz_axis(a)
         a.grid(True, which="both", color="#e6e6e6", lw=0.5)
     fig.subplots_adjust(hspace=0.28)
-    return finish_overlay(fig, ax, path, f"{title}: magnitude and phase", warnings, "", "lower center", 0.09)
+    return finish_overlay(fig, ax, f"{title}: magnitude and phase", warnings, "", "lower center", 0.09)
+
+
+def responses_png(docs, labels, path: Path, title: str, warnings) -> Path:
+    """:func:`responses_figure`, written to ``path``."""
+    return save_png(responses_figure(docs, labels, title, warnings), path)

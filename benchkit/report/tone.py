@@ -185,7 +185,7 @@ def write_steps_csv(steps, path: Path) -> Path:
     return path
 
 
-def spectrum_png(result: ToneResult, path: Path, title: str) -> Path:
+def spectrum_figure(result: ToneResult, title: str) -> Figure:
     """Spectrum on a log frequency axis, the band shaded, the harmonics
     marked with order and level, the conditions in a caption."""
     tr = result.traces
@@ -224,10 +224,15 @@ def spectrum_png(result: ToneResult, path: Path, title: str) -> Path:
     ax.set_title(title, loc="left", fontsize=10)
     fig.text(0.01, 0.01, conditions_line(result), fontsize=7.5, color="#333333", ha="left", va="bottom", wrap=True)
     fig.subplots_adjust(left=0.08, right=0.98, top=0.92, bottom=0.16)
-    return save_png(fig, path)
+    return fig
 
 
-def residual_png(result: ToneResult, path: Path, title: str) -> Path:
+def spectrum_png(result: ToneResult, path: Path, title: str) -> Path:
+    """:func:`spectrum_figure`, written to ``path``."""
+    return save_png(spectrum_figure(result, title), path)
+
+
+def residual_figure(result: ToneResult, title: str) -> Figure:
     """The notched residual over two periods, with the fundamental drawn
     faintly on its own axis for phase."""
     tr = result.traces
@@ -255,7 +260,12 @@ def residual_png(result: ToneResult, path: Path, title: str) -> Path:
     ax.set_title(f"{title}: residual without the fundamental ({lo:g} Hz to {hi:g} Hz)", loc="left", fontsize=10)
     fig.text(0.01, 0.01, conditions_line(result), fontsize=7.5, color="#333333", ha="left", va="bottom", wrap=True)
     fig.subplots_adjust(left=0.09, right=0.91, top=0.91, bottom=0.17)
-    return save_png(fig, path)
+    return fig
+
+
+def residual_png(result: ToneResult, path: Path, title: str) -> Path:
+    """:func:`residual_figure`, written to ``path``."""
+    return save_png(residual_figure(result, title), path)
 
 
 def tone_reports(result, doc, path: Path, channel: int, out: Path) -> list[Path]:
@@ -291,7 +301,7 @@ def steps_reports(steps, path: Path, channel: int, out: Path) -> list[Path]:
     return written
 
 
-def spectra_png(results, labels, path: Path, title: str, warnings=()) -> Path:
+def spectra_figure(results, labels, title: str, warnings=()) -> Figure:
     """The spectra of one step of each run (tone results with traces) on
     one log-frequency axis, the later runs drawn over the first."""
     fig = Figure(figsize=(10, 5.6))
@@ -314,4 +324,9 @@ def spectra_png(results, labels, path: Path, title: str, warnings=()) -> Path:
     ax.set_ylim(max(min(floors) - 25.0, -260.0), max(5.0, top + 10.0))
     ax.set_xlabel("frequency (Hz)")
     ax.set_ylabel("level of a sine (dBFS)")
-    return finish_overlay(fig, ax, path, title, warnings, "", "upper right", 0.08)
+    return finish_overlay(fig, ax, title, warnings, "", "upper right", 0.08)
+
+
+def spectra_png(results, labels, path: Path, title: str, warnings=()) -> Path:
+    """:func:`spectra_figure`, written to ``path``."""
+    return save_png(spectra_figure(results, labels, title, warnings=warnings), path)

@@ -52,7 +52,7 @@ def write_zout_csv(result, path: Path) -> Path:
     return path
 
 
-def zout_png(result, path: Path, title: str) -> Path:
+def zout_figure(result, title: str) -> Figure:
     """|Zout| against frequency (log-log), its resistance beside it, and
     the damping factor on the right-hand axis."""
     pts = [p for p in result.points if p.zout_ohms > 0] or list(result.points)
@@ -85,7 +85,12 @@ def zout_png(result, path: Path, title: str) -> Path:
         f": {quantity(ref.zout_ohms, 'ohm', 3)}, damping factor {ref.damping_factor:.3g} at {ref.frequency_hz:g} Hz")
     ax.set_title(f"{title}: output impedance{head}", loc="left", fontsize=10)
     fig.subplots_adjust(left=0.09, right=0.9, top=0.92, bottom=0.11)
-    return save_png(fig, path)
+    return fig
+
+
+def zout_png(result, path: Path, title: str) -> Path:
+    """:func:`zout_figure`, written to ``path``."""
+    return save_png(zout_figure(result, title), path)
 
 
 def zout_reports(result, folder: Path, out: Path, name: str = "zout") -> list[Path]:
