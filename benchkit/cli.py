@@ -142,7 +142,7 @@ def _option_group(name: str, spec: dict):
 
 _live_options = _option_group("live", _LIVE)
 
-# how power figures are read from stepped levels (analyze --power, power)
+# how power figures are read from stepped levels (analyze --as power, power)
 #: the default measurement band (the analysis narrows it to half a low rate itself)
 _BAND = "20:20000"
 #: the lowest tone a step can analyse with the band 'full' (five periods in the pre-flight's probe)
@@ -202,9 +202,7 @@ def analyze(
     smooth: Optional[int] = typer.Option(None, "--smooth", parser=V.number(1, 96, integer=True), help="Response captures: smooth the plotted magnitude over 1/N octave."),
     time_col: str = typer.Option("1", "--time-col", help="Drift CSVs: the time column, by name or number from 1 (units in the header are applied)."),
     value_col: str = typer.Option("2", "--value-col", help="Drift CSVs: the value column, by name or number."),
-    power: bool = typer.Option(False, "--power", help="Stepped captures: power at the distortion limits, clipping onset and half (needs --load and volts)."),
-    voltage_gain: bool = typer.Option(False, "--gain", help="A tone capture benchkit wrote: the stage's voltage gain, over --ref-channel (default: the sidecar's reference input) or the calibrated drive."),
-    noise: bool = typer.Option(False, "--noise", help="The capture holds the stage's noise (input terminated): unweighted, A-weighted, hum (benchkit noise captures are recognised)."),
+    as_kind: Optional[str] = typer.Option(None, "--as", parser=V.one_of("gain", "noise", "power"), help="Analyse as: gain (a tone capture benchkit wrote: the stage's voltage gain over --ref-channel, default the sidecar's reference input, or over the calibrated drive), noise (the stage's noise, input terminated: unweighted, A-weighted, hum; benchkit noise captures are recognised) or power (stepped captures: power at the distortion limits, clipping onset and half; needs --load and volts)."),
     zout_load: Optional[float] = typer.Option(None, "--zout", parser=V.ohms, help="Two captures, the stage unloaded then loaded with this many ohms: its output impedance and damping factor (with --open-load, what loaded the 'open' output)."),
     open_load: Optional[float] = typer.Option(None, "--open-load", parser=V.ohms, help="With --zout: what the pad and input present to the unloaded stage, ohms."),
     imd_method: Optional[str] = typer.Option(None, "--imd", help="The capture holds a two-tone test made elsewhere: modulation or difference, optionally with its tones, e.g. modulation:50:7000 (benchkit imd captures are recognised)."),
@@ -217,11 +215,12 @@ def analyze(
 
     A capture that benchkit wrote (stepped tones, a sweep or stepped
     sines, a two-tone, noise or crosstalk run) is recognised from its
-    sidecar; --sweep, --imd, --noise and --zout analyse ones made
+    sidecar; --sweep, --imd, --as noise and --zout analyse ones made
     elsewhere.
 
     Example: benchkit analyze sample_captures/b2-bias0.8A-997Hz-steps.wav --load 8 --out report/
     """
+    power, voltage_gain, noise = (as_kind == k for k in ("power", "gain", "noise"))
     try:
         band = units.parse_band(bandwidth)
         sweep_spec = units.parse_sweep_spec(sweep) if sweep else None
@@ -286,7 +285,7 @@ def _power_options(power, load, rail, limits, metric, onset_db, supply_volts, su
     from benchkit.budget import ClassABudget
 
     if load is None:
-        raise BenchkitError("--power needs --load (ohms)")
+        raise BenchkitError("--as power needs --load (ohms)")
     if supply_amps is not None and supply_volts is None:
         raise BenchkitError("--supply-amps needs --supply-volts")
     if bias is not None and rail is None:
@@ -629,8 +628,8 @@ def watch(
     json_lines: bool = typer.Option(False, "--json-lines", help="One JSON object a reading on stdout."),
     record: bool = typer.Option(False, "--record", help="Keep the readings as a run in the bench's logbook (readings.csv)."),
     record_audio: bool = typer.Option(False, "--record-audio", help="With --record: keep the raw audio too (audio.wav)."),
-    dc_source: Optional[str] = typer.Option(None, "--dc-source", parser=V.one_of("meter", "input", "virtual"), help="Also show DC: meter (SCPI, --dc-resource), input (the measuring input, DC coupled per --calibration) or virtual (the se-class-a midpoint)."),
-    dc_resource: Optional[str] = typer.Option(None, "--dc-resource", help="The DC meter's VISA resource."),
+    dc_source: Optional[str] = typer.Option(None, "--dc-source", parser=V.one_of("meter", "input", "virtual"), help="Also show DC: meter (SCPI, --meter), input (the measuring input, DC coupled per --calibration) or virtual (the se-class-a midpoint)."),
+    dc_resource: Optional[str] = typer.Option(None, "--meter", help="The DC meter's VISA resource, e.g. TCPIP::192.168.1.50::5025::SOCKET or ASRL/dev/ttyUSB0::INSTR."),
     ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Input wired straight from the driven output (real devices)."),
     live: dict = None,
     filing: dict = None,
@@ -696,7 +695,7 @@ def _check_dc(source, resource, backend, profile) -> None:
     if source == "virtual" and backend.name != "virtual":
         raise BenchkitError("--dc-source virtual reads the virtual stage: use it with --device virtual")
     if source == "meter" and not resource:
-        raise BenchkitError("--dc-source meter needs --dc-resource (the meter's VISA address)")
+        raise BenchkitError("--dc-source meter needs --meter (the meter's VISA address)")
 
 
 def _watch_dc(source, resource, backend, profile):
@@ -894,7 +893,7 @@ class _Keys:
 @_live_options
 @_bench_options
 def noise(
-    length: float = typer.Option(5.0, "--length", parser=V.seconds(600.0), help="Seconds of noise to record (after half a second of settling)."),
+    length: float = typer.Option(5.0, "--duration", parser=V.seconds(600.0), help="Seconds of noise to record (after half a second of settling)."),
     load: Optional[float] = typer.Option(None, "--load", parser=V.ohms, help="Load resistance, ohms: the SNR is referred to --ref-power into it."),
     ref_power: float = typer.Option(1.0, "--ref-power", parser=V.WATTS, help="With --load: the output power the SNR is referred to, W (1 W is common for small amplifiers; give the rated power to quote that)."),
     ref_vrms: Optional[float] = typer.Option(None, "--ref-vrms", parser=V.VOLTS, help="Or refer the SNR to this output, Vrms."),
@@ -913,7 +912,7 @@ def noise(
     --load (or --ref-vrms). Hum at 50 or 60 Hz and its harmonics is
     listed with its levels.
 
-    Example: benchkit noise --length 10 --load 8 --ref-power 1 --tag bias=1.2A
+    Example: benchkit noise --duration 10 --load 8 --ref-power 1 --tag bias=1.2A
 
     Safety: terminate the input with the stage switched off; mind the hot
     parts of a class-A stage while you do.
@@ -990,7 +989,7 @@ def imd(
     ratio: Optional[float] = typer.Option(None, "--ratio", parser=V.number(0.0, 100.0, above=True), help="Amplitude of F1 over F2 instead of the method's (4 or 1)."),
     levels: List[str] = typer.Option(["-20 dBFS"], "--level", parser=V.checked(units.parse_level), help="Drive, the composite's peak at the interface output, e.g. -20dBFS (repeat for IMD against level)."),
     load: Optional[float] = typer.Option(None, "--load", parser=V.ohms, help="Load resistance, ohms: levels also as the equivalent sine power."),
-    step: float = typer.Option(1.0, "--step", parser=V.seconds(60.0), help="Seconds analysed at each level."),
+    step: float = typer.Option(1.0, "--step-duration", parser=V.seconds(60.0), help="Seconds analysed at each level."),
     ref_channel: Optional[int] = typer.Option(None, "--ref-channel", parser=V.CHANNEL, help="Input wired straight from the driven output (real devices): the capture is aligned on it."),
     as_json: bool = typer.Option(False, "--json", help="Print the result as JSON on stdout."),
     live: dict = None,
@@ -1020,7 +1019,7 @@ def imd(
     with _live_run(), _logbook(filing) as (book, labels):
         twin = twin_tone(method, *(units.parse_tones(tones) if tones else (None, None)), ratio)
         if step < shortest_record_s(twin.method, twin.f1_hz, twin.f2_hz):
-            raise BenchkitError(f"--step {step:g} s is too short to separate the products of {twin.f1_hz:g} and "
+            raise BenchkitError(f"--step-duration {step:g} s is too short to separate the products of {twin.f1_hz:g} and "
                                 f"{twin.f2_hz:g} Hz: it needs {shortest_record_s(twin.method, twin.f1_hz, twin.f2_hz):.3g} s "
                                 "(16 periods of their spacing)")
         backend, profile = _live_setup(live, ref_channel, load=load,
@@ -1206,7 +1205,7 @@ def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: fl
 @_bench_options
 def sweep(
     span: str = typer.Option("10:22000", "--span", parser=V.checked(units.parse_span), help="Frequencies F1:F2 in Hz (the response is reported past the fades)."),
-    length: float = typer.Option(5.0, "--length", parser=V.seconds(120.0), help="Sweep length, seconds (rounded so its harmonics line up)."),
+    length: float = typer.Option(5.0, "--duration", parser=V.seconds(120.0), help="The sweep's duration, seconds (rounded so its harmonics line up)."),
     level: str = typer.Option("-20 dBFS", "--level", parser=V.checked(units.parse_level), help="Drive level at the interface output, e.g. -20dBFS or 0.1Vrms."),
     stepped: bool = typer.Option(False, "--stepped", help="Stepped sines instead of a sweep: slower, the reference method, with THD+N."),
     per_octave: int = typer.Option(3, "--per-octave", parser=V.number(1, 48, integer=True), help="Stepped sines: frequencies per octave over the span."),
@@ -1227,7 +1226,7 @@ def sweep(
     when the low corner is first order (with --load), and THD, H2 and H3
     against frequency. The capture is on disk before it is analysed.
 
-    Example: benchkit sweep --span 2:22000 --length 10 --load 8 --tag bias=1.2A
+    Example: benchkit sweep --span 2:22000 --duration 10 --load 8 --tag bias=1.2A
 
     Safety: a sweep puts full level at every frequency, the highest too:
     measure into a dummy load, never a speaker (tweeters burn first), and
@@ -1277,7 +1276,7 @@ def power(
     start: Optional[float] = typer.Option(None, "--start", parser=V.number(-120.0, 0.0, unit="dBFS"), help="First drive level, dBFS (default: 40 dB below the expected maximum)."),
     step_db: float = typer.Option(1.0, "--step-db", parser=V.number(0.0, 6.0, above=True, unit="dB"), help="Step while THD+N rises slowly, dB (a quarter of it once it rises fast)."),
     fine_db: float = typer.Option(0.1, "--fine-db", parser=V.number(0.0, 6.0, above=True, unit="dB"), help="Bisect until each limit lies between steps this close, dB."),
-    supply_meter: Optional[str] = typer.Option(None, "--supply-meter", help="A meter reading the supply's DC current (VISA resource), read during every step; needs --supply-volts."),
+    supply_meter: Optional[str] = typer.Option(None, "--current-meter", help="A meter reading the supply's DC current (its VISA resource), read during every step; needs --supply-volts."),
     rated_power: Optional[float] = typer.Option(None, "--rated-power", parser=V.WATTS, help="The claimed power, W: say whether the power at the first limit reaches it."),
     precondition_run: bool = typer.Option(False, "--precondition", help="First hold 1/8 of --rated-power for an hour (16 CFR 432 manner)."),
     precondition_s: Optional[float] = typer.Option(None, "--precondition-s", parser=V.number(0.0, 7200.0, unit="s"), help="Shorten (or lengthen) the preconditioning, seconds: the report says so."),
@@ -1309,7 +1308,7 @@ def power(
     with _live_run(), _logbook(filing) as (book, labels):
         opts = _power_options(True, load, live["rail"], **figures)
         if supply_meter and figures["supply_volts"] is None:
-            raise BenchkitError("--supply-meter needs --supply-volts (efficiency is P / (V I))")
+            raise BenchkitError("--current-meter needs --supply-volts (efficiency is P / (V I))")
         if precondition_run and rated_power is None:
             raise BenchkitError("--precondition needs --rated-power (it holds 1/8 of it)")
         if precondition_s is not None and not precondition_run:
@@ -1381,9 +1380,9 @@ def power(
 @_judge_options
 @_bench_options
 def drift(
-    source: str = typer.Option("virtual", "--source", parser=V.one_of("virtual", "meter", "interface"), help="virtual (the se-class-a midpoint, accelerated), meter (SCPI over pyvisa) or interface (a DC-coupled input)."),
-    resource: Optional[str] = typer.Option(None, "--resource", help="The meter's VISA resource, e.g. TCPIP::192.168.1.50::5025::SOCKET or ASRL/dev/ttyUSB0::INSTR."),
-    current_resource: Optional[str] = typer.Option(None, "--current-resource", help="A second meter reading the supply's DC current, logged beside the volts."),
+    source: str = typer.Option("virtual", "--dc-source", parser=V.one_of("virtual", "meter", "input"), help="Where the DC is read: virtual (the se-class-a midpoint, accelerated), meter (SCPI over pyvisa, --meter) or input (the measuring input, DC coupled per --calibration)."),
+    resource: Optional[str] = typer.Option(None, "--meter", help="The DC meter's VISA resource, e.g. TCPIP::192.168.1.50::5025::SOCKET or ASRL/dev/ttyUSB0::INSTR."),
+    current_resource: Optional[str] = typer.Option(None, "--current-meter", help="A meter reading the supply's DC current (its VISA resource), logged beside the volts."),
     interval: float = typer.Option(1.0, "--interval", parser=V.number(0.01, 3600.0, unit="s", hint="a reading at most every 10 ms"), help="Seconds between readings."),
     duration: Optional[float] = typer.Option(None, "--duration", parser=V.SESSION_S, help="Log this long, seconds."),
     until_settled: bool = typer.Option(False, "--until-settled", help="Stop once settled within --settle-band."),
@@ -1404,7 +1403,7 @@ def drift(
     time to settle. The virtual source is the se-class-a stage's midpoint,
     its thermal model in accelerated time.
 
-    Example: benchkit drift --source meter --resource TCPIP::192.168.1.50::5025::SOCKET --interval 2 --until-settled --dc-limit 0.05
+    Example: benchkit drift --dc-source meter --meter TCPIP::192.168.1.50::5025::SOCKET --interval 2 --until-settled --dc-limit 0.05
 
     Safety: probe a live, hot stage with one hand, with insulated probes,
     and mind the supply's stored charge; follow local codes for anything
@@ -1426,18 +1425,18 @@ def drift(
             reader = meters.VirtualMidpoint(make_stage("se-class-a", parse_params(sim_param), seed=seed), accelerate, seed)
         elif source == "meter":
             if not resource:
-                raise BenchkitError("--source meter needs --resource (the meter's VISA address)")
+                raise BenchkitError("--dc-source meter needs --meter (the meter's VISA address)")
             reader = meters.ScpiMeter(resource)
-        elif source == "interface":
+        elif source == "input":
             backend = _open_backend(device, "ideal", [], "demo", seed, dict(in_channel=in_channel))
             reader = meters.InterfaceDc(backend, profile, in_channel)
         else:
-            raise BenchkitError(f"--source is virtual, meter or interface, got {source!r}")
+            raise BenchkitError(f"--dc-source is virtual, meter or input, got {source!r}")
         dc_limit, nominal, window = judge["dc_limit"], judge["nominal"], judge["window"]
         band = judge["settle_band"] if judge["settle_band"] is not None else (dc_limit / 10 if dc_limit else 1e-3)
         params = dict(source=source, limit_v=dc_limit, band_v=band, window_s=window, nominal_v=nominal,
                       interval_s=interval, accelerated=getattr(reader, "accelerated", 0.0) or None)
-        with _start_run(book, labels, "drift", reader.name, profile if source == "interface" else None, calibration,
+        with _start_run(book, labels, "drift", reader.name, profile if source == "input" else None, calibration,
                         params) as run:
             log = run.folder / "log.csv"
             amps = meters.ScpiMeter(current_resource, quantity="amps") if current_resource else None
@@ -1463,7 +1462,7 @@ def drift(
 
 @app.command()
 def calibrate(
-    out: Path = typer.Option(..., "--out", parser=V.out_file, help="Where to write the profile (JSON)."),
+    out: Path = typer.Option(..., "--file", parser=V.out_file, help="Where to write the profile (JSON)."),
     reading: Optional[str] = typer.Option(None, "--reading", parser=V.checked(units.parse_level), help="Voltmeter reading at the output jack while the calibration tone plays, e.g. 0.1414V (Vrms)."),
     level: str = typer.Option("-20 dBFS", "--level", parser=V.checked(units.parse_level), help="Level of the calibration tone, dBFS."),
     voltmeter_pct: float = typer.Option(1.0, "--voltmeter-pct", parser=V.number(0.0, 50.0, unit="%"), help="Voltmeter accuracy at the tone's frequency, +-%."),
@@ -1486,7 +1485,7 @@ def calibrate(
     asks, and the virtual bench reads its own output. Writes the profile
     that --calibration takes.
 
-    Example: benchkit calibrate --reading 0.1414V --pad 1.8k:200 --out calibration/my-interface.json
+    Example: benchkit calibrate --reading 0.1414V --pad 1.8k:200 --file calibration/my-interface.json
 
     Safety: calibrate with the stage disconnected, into the interface only.
     """
@@ -1780,7 +1779,7 @@ def log_list(
     since: Optional[str] = typer.Option(None, "--since", parser=V.when, help="Only runs started on or after this date (YYYY-MM-DD) or time."),
     until: Optional[str] = typer.Option(None, "--until", parser=V.when, help="Only runs started on or before this date or time."),
     status: Optional[str] = typer.Option(None, "--status", parser=V.one_of(*STATUSES), help="Only runs in this state: complete, interrupted, failed, incomplete, running."),
-    limit: Optional[int] = typer.Option(None, "--limit", parser=V.COUNT, help="At most this many (the newest)."),
+    limit: Optional[int] = typer.Option(None, "--last", parser=V.COUNT, help="The newest this many runs."),
     bench: Optional[Path] = _bench_option(),
     as_json: bool = typer.Option(False, "--json", help="Print the runs as JSON on stdout."),
 ) -> None:
@@ -1891,12 +1890,12 @@ def log_tag(
 
 @log_app.command("export")
 def log_export(
-    out: Optional[Path] = typer.Option(None, "--out", parser=V.out_file, help="Write the CSV here (default: stdout)."),
+    out: Optional[Path] = typer.Option(None, "--file", parser=V.out_file, help="Write the CSV to this file (default: stdout)."),
     bench: Optional[Path] = _bench_option(),
 ) -> None:
     """Export the catalog as CSV: a row a run, its tags and headline figures in columns.
 
-    Example: benchkit log export --out logbook.csv
+    Example: benchkit log export --file logbook.csv
     """
     from benchkit.report.tables import write_catalog_csv
 
@@ -2044,7 +2043,11 @@ def main() -> None:
     tracebacks. Bad input (a value out of its range, a file that cannot be
     used) is one line and exit 1; a command line of unknown words (an
     unknown option, a missing argument) one line and exit 2; a bug one line
-    and exit 3."""
+    and exit 3. An option's old name (docs/options.md) is rewritten to
+    its new one first, with a notice."""
+    from benchkit.cli_vocabulary import modernise
+
+    sys.argv[1:] = modernise(sys.argv[1:], _err)
     try:
         code = app(standalone_mode=False)
     except _CLICK.UsageError as exc:

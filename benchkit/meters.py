@@ -89,7 +89,7 @@ class InterfaceDc:
             raise BenchkitError("a DC reading from the interface needs its calibration profile (--calibration)")
         if not profile.dc_coupled or not profile.dc_volts_per_fs:
             raise BenchkitError("the profile says this input is AC coupled: it cannot read DC; use a multimeter "
-                                "(--source meter) or a logger's CSV")
+                                "(--dc-source meter) or a logger's CSV")
         self.backend, self.channel, self.seconds = backend, channel, seconds
         self.scale = profile.dc_volts_per_fs
         self.name = f"{backend.name} input {channel} (DC coupled)"

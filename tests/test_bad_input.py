@@ -151,8 +151,8 @@ REFUSED = [
     "tone --rail -24", "tone --rail 0", "tone --pad-rating -1", "tone --drive-cap 6", "tone --drive-cap nan",
     "tone --seed -1", "tone --blocksize 0", "tone --latency -1", "tone --latency soon",
     "tone --volts-per-fs 0", "tone --in-channel 0", "tone --out-channel -1",
-    "noise --length 1e7", "noise --length 0", "noise --length -1", "noise --length nan", "noise --ref-power 0",
-    "noise --ref-vrms -1", "sweep --length 0", "sweep --length nan", "sweep --per-octave 0", "sweep --smooth 0",
+    "noise --duration 1e7", "noise --duration 0", "noise --duration -1", "noise --duration nan", "noise --ref-power 0",
+    "noise --ref-vrms -1", "sweep --duration 0", "sweep --duration nan", "sweep --per-octave 0", "sweep --smooth 0",
     "power --load -8", "power --load 0", "power --load 8 --limit 0", "power --load 8 --limit 150",
     "power --load 8 --step-db 0", "power --load 8 --fine-db -1", "power --load 8 --start 6",
     "power --load 8 --channels 0", "power --load 8 --rated-power -5", "power --load 8 --precondition-s -1",
@@ -180,7 +180,7 @@ REFUSED = [
     "watch --freq 30000 --duration 1", "tone --calibration {profile_96k}",
     # values too small to measure: refused before the first tone, not after it
     "tone --freq 0.5", "tone --freq 15", "watch --freq 2 --duration 1", "power --load 8 --freq 1", "imd --tones 1:2",
-    "imd --step 0.001", "zout --load 8 --freq 0.1", "sweep --at 0.01", "sweep --length 0.01", "tone --load 1e-300",
+    "imd --step-duration 0.001", "zout --load 8 --freq 0.1", "sweep --at 0.01", "sweep --duration 0.01", "tone --load 1e-300",
     "tone --load 1e12", "tone --sim-param coupling_uf=1e-9", "tone --sim-param mains_hz=1e9",
     "tone --sim-param gain=nan", "tone --sim-param bias=-1", "tone --sim nosuch", "tone --sim-param nosuch=1",
     "tone --level -500dBFS", "tone --level 100Vrms", "watch --level 0.5dBFS --duration 1", "power --load 8 --start -500",
@@ -188,9 +188,9 @@ REFUSED = [
     "budget", "sweep --rate 32000", "sweep --span full", "power --load 8 --limit 100", "tone --load 50m",
     "watch --dc-source bogus --duration 1", "watch --dc-source meter --duration 1", "watch --dc-source input --duration 1",
     "tone --rail 24 --input-max 2.2", "tone --btl --rail 24", "log list --since 2026-13-01",
-    "power --load 8 --bias 0.8", "log export --out {long_name}", "analyze {wav} --out {long_name}",
+    "power --load 8 --bias 0.8", "log export --file {long_name}", "analyze {wav} --out {long_name}",
     "drift --interval 1e-9 --duration 1", "gain --ref-channel 1", "tone --ref-channel 1", "drift --duration 2",
-    "drift --source meter --interval 1 --duration 1.5", "drift --source bogus --duration 10",
+    "drift --dc-source meter --interval 1 --duration 1.5", "drift --dc-source bogus --duration 10",
     # calibration profiles that are damaged or of the wrong shape
     "tone --calibration {missing}", "tone --calibration {folder}", "tone --calibration {profile_ratio_text}",
     "tone --calibration {profile_uncertainty_list}", "tone --calibration {profile_scale_text}",
@@ -207,9 +207,9 @@ REFUSED = [
     "analyze {csv_garbage}", "analyze {csv_empty}", "analyze {csv_one_row}", "analyze {csv_good} --window 0",
     "analyze {csv_good} --value-col 9", "analyze {wav} --out {wav}", "demo --out {wav}",
     # where results go
-    "calibrate --out {folder}", "log export --out {folder}",
+    "calibrate --file {folder}", "log export --file {folder}",
     # the logbook
-    "log list --limit -1", "log list --limit 0", "log list --status bogus", "log list --command bogus",
+    "log list --last -1", "log list --last 0", "log list --status bogus", "log list --command bogus",
     "log list --since yesterday", "log show nosuchrun", "log show last-99", "log reanalyse nosuchrun",
     "log tag last badtag", "log remove nosuchrun", "compare --last 1", "compare --last 2 --command bogus",
     "compare nosuchrun", "tone --stage {stage_deep}", "tone --stage {stage_list}", "tone --tag novalue",

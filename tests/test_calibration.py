@@ -122,7 +122,7 @@ def test_calibration_round_trip_reports_the_true_stage_voltage(tmp_path):
     # calibrate with a voltmeter reading, then measure the virtual stage with
     # the profile: within 0.1 dB of its true output (ideal stage, gain 10)
     cal = tmp_path / "cal.json"
-    res = run_cli("calibrate", "--reading", "0.14142V", "--pad", "1.8k:200", "--out", str(cal))
+    res = run_cli("calibrate", "--reading", "0.14142V", "--pad", "1.8k:200", "--file", str(cal))
     assert res.returncode == 0, res.stderr
     out = run_cli("tone", "--calibration", str(cal), "--sim", "ideal", "--level", "-20dBFS", "--gain", "10",
                   "--load", "8", "--bench", str(tmp_path / "run"), "--json")
@@ -134,7 +134,7 @@ def test_calibration_round_trip_reports_the_true_stage_voltage(tmp_path):
     assert 20 * math.log10(step["fundamental_vrms"] / true_vrms) == pytest.approx(0.0, abs=0.1)
     assert doc["calibration"]["hash"] == doc["conditions"]["calibration_hash"] == load_profile(cal).digest()
     # every kind's result names the profile its capture was scaled by, in the conditions all results share
-    for command, *extra in (("noise", "--length", "0.5"), ("gain", "--level", "-30dBFS")):
+    for command, *extra in (("noise", "--duration", "0.5"), ("gain", "--level", "-30dBFS")):
         res = run_cli(command, "--calibration", str(cal), "--sim", "ideal", *extra, "--bench", str(tmp_path / "run"),
                       "--json")
         assert res.returncode == 0, res.stderr

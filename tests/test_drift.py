@@ -89,7 +89,7 @@ def test_a_second_meter_logs_the_supply_current(tmp_path):
     amps = EmulatedMeter(final_v=1.20, start_v=1.25, tau_s=1.0, noise_v=1e-4)
     out = tmp_path / "run"
     try:
-        res = run_cli("drift", "--source", "meter", "--resource", volts.resource, "--current-resource", amps.resource,
+        res = run_cli("drift", "--dc-source", "meter", "--meter", volts.resource, "--current-meter", amps.resource,
                       "--interval", "0.05", "--duration", "2", "--bench", str(out), "--json")
     finally:
         volts.close()
@@ -105,7 +105,7 @@ def test_meter_going_away_stops_cleanly_and_keeps_the_log(tmp_path):
     meter = EmulatedMeter(final_v=0.01, start_v=0.02, tau_s=2.0, close_after_s=1.0)
     out = tmp_path / "run"
     try:
-        res = run_cli("drift", "--source", "meter", "--resource", meter.resource, "--interval", "0.05",
+        res = run_cli("drift", "--dc-source", "meter", "--meter", meter.resource, "--interval", "0.05",
                       "--duration", "30", "--bench", str(out), "--json")
     finally:
         meter.close()
@@ -157,7 +157,7 @@ def test_drift_on_an_ac_coupled_input_is_refused(tmp_path):
     prof = calibrate(bench, bench.output_vrms(-20.0), pad=DEMO_PAD, input_ohms=10e3,
                      wire=lambda step: setattr(bench, "wiring", step))
     path = save_profile(prof, tmp_path / "cal.json")
-    res = run_cli("drift", "--source", "interface", "--calibration", str(path), "--duration", "5", "--bench", str(tmp_path / "d"))
+    res = run_cli("drift", "--dc-source", "input", "--calibration", str(path), "--duration", "5", "--bench", str(tmp_path / "d"))
     assert res.returncode == 1 and "AC coupled" in res.stderr
 
 

@@ -277,7 +277,7 @@ def test_calibrate_on_the_jack_loopback(server, tmp_path):
     cal = tmp_path / "cal.json"
     with jackbench.Patchbay(server, "loopback"):
         proc = jackbench.benchkit(server, "calibrate", "--device", "system", "--ref-channel", "2", "--yes",
-                                  "--reading", "0.5V", "--out", str(cal))
+                                  "--reading", "0.5V", "--file", str(cal))
         _out, err = proc.communicate(timeout=90)
     assert proc.returncode == 0, err
     prof = json.loads(cal.read_text())
@@ -295,7 +295,7 @@ def test_sweep_through_jack_separates_the_poly_harmonics(server, tmp_path):
     amp = 10 ** (level / 20)
     with jackbench.Patchbay(server, "poly", a2=a2, a3=a3):
         proc = jackbench.benchkit(server, "sweep", "--device", "system", "--ref-channel", "2", "--span", "20:22000",
-                                  "--length", "3", "--level", f"{level}dBFS", "--bench", str(tmp_path / "run"), "--json")
+                                  "--duration", "3", "--level", f"{level}dBFS", "--bench", str(tmp_path / "run"), "--json")
         out, err = proc.communicate(timeout=60)
     assert proc.returncode == 0, err
     d = json.loads(out)
@@ -398,7 +398,7 @@ def test_power_run_reads_the_supply_current_at_every_step(server, tmp_path):
     amps = EmulatedMeter(final_v=0.5, start_v=0.5, tau_s=1.0, noise_v=0.0)
     try:
         with jackbench.Patchbay(server, "poly", a2=0.5):
-            proc = _power(server, tmp_path / "run", "--supply-meter", amps.resource, "--supply-volts", "24", "--json")
+            proc = _power(server, tmp_path / "run", "--current-meter", amps.resource, "--supply-volts", "24", "--json")
             out, err = proc.communicate(timeout=90)
     finally:
         amps.close()

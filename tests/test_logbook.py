@@ -362,7 +362,7 @@ def test_sweeps_compare_and_the_corner_moves_as_the_capacitor_says(tmp_path):
     # corner at 1 / (2 pi R C); 1000 uF -> 2200 uF into 8 ohm moves it 2.2x lower
     bench = tmp_path / "bench"
     for c_uf in (1000, 2200):
-        _json(run_cli("sweep", "--span", "2:22000", "--length", "3", "--load", "8", "--sim-param", f"coupling_uf={c_uf}",
+        _json(run_cli("sweep", "--span", "2:22000", "--duration", "3", "--load", "8", "--sim-param", f"coupling_uf={c_uf}",
                       "--tag", f"C={c_uf}uF", "--bench", str(bench), "--json"))
     comp = _json(run_cli("compare", "--last", "2", "--bench", str(bench), "--json"))
     low = {d["name"]: d for d in comp["deltas"]}["low_3db_hz"]

@@ -135,7 +135,7 @@ def test_noise_command_files_a_run_and_compares(tmp_path):
     bench = tmp_path / "bench"
     docs = []
     for bias in ("0.8", "1.2"):
-        res = run_cli("noise", "--length", "2", "--load", "8", "--sim-param", f"bias={bias}", "--tag", f"bias={bias}A",
+        res = run_cli("noise", "--duration", "2", "--load", "8", "--sim-param", f"bias={bias}", "--tag", f"bias={bias}A",
                       "--bench", str(bench), "--json")
         assert res.returncode == 0, res.stderr
         docs.append(json.loads(res.stdout))

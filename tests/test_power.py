@@ -237,13 +237,13 @@ def test_budget_and_power_commands(tmp_path):
     from pathlib import Path
 
     sample = str(Path(__file__).resolve().parents[1] / "sample_captures" / "b2-bias0.8A-997Hz-steps.wav")
-    off = run_cli("analyze", sample, "--power", "--load", "8", "--rail", "24", "--bias", "0.8", "--json",
+    off = run_cli("analyze", sample, "--as", "power", "--load", "8", "--rail", "24", "--bias", "0.8", "--json",
                   "--out", str(tmp_path / "rep"))
     assert off.returncode == 0, off.stderr
     p = json.loads(off.stdout)
     assert p["kind"] == "power" and len(p["steps"]) == 4 and p["expected"]["max_sine_w"] == pytest.approx(2.56)
     assert (tmp_path / "rep" / "b2-bias0.8A-997Hz-steps.power.png").exists()
-    bad = run_cli("analyze", sample, "--power")
+    bad = run_cli("analyze", sample, "--as", "power")
     assert bad.returncode == 1 and "--load" in bad.stderr
 
 

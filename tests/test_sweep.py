@@ -311,7 +311,7 @@ def test_truncated_sweep_is_a_clear_error(tmp_path):
 
 
 def test_sweep_command_writes_reports_and_reanalyses(tmp_path):
-    res = run_cli("sweep", "--span", "5:22000", "--length", "3", "--load", "8", "--smooth", "6", "--bench", str(tmp_path), "--json")
+    res = run_cli("sweep", "--span", "5:22000", "--duration", "3", "--load", "8", "--smooth", "6", "--bench", str(tmp_path), "--json")
     assert res.returncode == 0, res.stderr
     live = json.loads(res.stdout)
     assert the_run(tmp_path) == Path(live["run"]["folder"])

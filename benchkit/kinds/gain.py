@@ -101,7 +101,7 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
 
 
 def analyse(rec, o: Offline) -> Analysed:
-    """A tone capture benchkit wrote (``--gain``)."""
+    """A tone capture benchkit wrote (``--as gain``)."""
     from benchkit.report import gain as report
 
     path = Path(rec.path)

@@ -31,7 +31,7 @@ SETTLE_S = 0.5
 def silence(rate: float, seconds: float, n_out: int, out_channel: int = 1) -> Stimulus:
     """``seconds`` of silence on every output, after SETTLE_S more."""
     if seconds < 0.5:
-        raise BenchkitError("a noise measurement needs at least 0.5 s (--length)")
+        raise BenchkitError("a noise measurement needs at least 0.5 s (--duration)")
     n = int(round((seconds + SETTLE_S) * rate))
     seg = Segment(0, n, int(SETTLE_S * rate), n, 0.0, -400.0, out_channel)  # -400 dB: nothing (the floor of levels)
     return Stimulus(np.zeros((n, n_out)), rate, (seg,), np.zeros(0), 0,
@@ -121,7 +121,7 @@ def recognises(rec) -> bool:
 
 
 def analyse(rec, o: Offline) -> Analysed:
-    """A noise capture benchkit wrote, or (``--noise``) one made elsewhere;
+    """A noise capture benchkit wrote, or (``--as noise``) one made elsewhere;
     the SNR against 1 W into ``--load``."""
     from benchkit import units
     from benchkit.report import noise as report

@@ -570,11 +570,11 @@ def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> lis
 
 
 def analyse(rec, o: Offline) -> Analysed:
-    """A stepped capture benchkit wrote, as a power run (``--power``)."""
+    """A stepped capture benchkit wrote, as a power run (``--as power``)."""
     from benchkit.report import power as report
 
     if not is_stepped(rec):
-        raise BenchkitError(f"{rec.path}: --power needs a stepped capture that benchkit wrote (its sidecar lists the "
+        raise BenchkitError(f"{rec.path}: --as power needs a stepped capture that benchkit wrote (its sidecar lists the "
                             "steps)")
     steps = analyze_steps(rec, o.bandwidth_hz, o.load_ohms, o.volts_per_fs, o.out is not None, o.fundamental_hz,
                                o.averages)

@@ -1,0 +1,111 @@
+"""One option vocabulary: every option of every command is in
+docs/options.md once, with the commands that take it; old names work for
+one version with a notice."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import pytest
+from typer.main import get_command
+
+from benchkit.cli import app
+from benchkit.cli_vocabulary import command_of, modernise, RENAMED, RENAMED_VALUES
+
+from conftest import run_cli
+
+DOC = Path(__file__).resolve().parents[1] / "docs" / "options.md"
+
+
+def _options() -> dict[str, set[str]]:
+    """Every long option, and the commands that take it."""
+    found: dict[str, set[str]] = {}
+
+    def walk(c, path=""):
+        for name, sub in (getattr(c, "commands", None) or {}).items():
+            walk(sub, f"{path} {name}".strip())
+        if not getattr(c, "commands", None):
+            for p in c.params:
+                if getattr(p, "param_type_name", "") == "option":
+                    for o in p.opts:
+                        if o.startswith("--"):
+                            found.setdefault(o, set()).add(path)
+
+    walk(get_command(app))
+    return found
+
+
+def _table(title: str) -> list[list[str]]:
+    text = DOC.read_text().split(title, 1)[1].split("\n\n", 1)[0]
+    return [[c.strip() for c in line.strip("|").split("|")] for line in text.splitlines()[2:] if line.startswith("|")]
+
+
+def test_every_option_is_in_the_vocabulary_with_its_commands():
+    documented = {o.strip("`"): set(cmds.split(", ")) for o, _meaning, cmds in _table("| option | meaning | commands |")}
+    assert documented == _options()
+
+
+def test_an_option_is_one_thing():
+    # the names a review found meaning two things: each now means one
+    opts = _options()
+    assert "--gain" not in [o for o, c in opts.items() if "analyze" in c]  # analyze --as gain
+    for gone in ("--resource", "--dc-resource", "--current-resource", "--supply-meter", "--source", "--length", "--step"):
+        assert gone not in opts, gone
+    assert opts["--limit"] == {"analyze", "power"}  # percent of distortion, not a row count
+    assert opts["--out"] == {"analyze", "compare", "demo"}  # a folder; a file is --file
+
+
+def test_the_old_names_are_listed_and_lead_somewhere():
+    opts = _options()
+    rows = {(c, o.strip("`")): n.strip("`") for c, o, n in _table("| command | old | new |")}
+    assert {k: v for k, v in rows.items() if " " not in k[1]} == {k: " ".join(v) for k, v in RENAMED.items()}
+    assert {(c, *o.split()) : n.split()[1] for (c, o), n in rows.items() if " " in o} == RENAMED_VALUES
+    for (command, _old), new in RENAMED.items():
+        assert command in opts[new[0]], (command, new)
+
+
+def test_an_old_name_is_rewritten_once_with_a_notice():
+    said = []
+    assert command_of(["log", "list", "--last", "2"]) == "log list" and command_of(["analyze", "a.wav", "--gain"]) == "analyze"
+    got = modernise(["drift", "--source", "interface", "--resource=X", "--resource", "Y"], said.append)
+    assert got == ["drift", "--dc-source", "input", "--meter=X", "--meter", "Y"]
+    # --source, its old value, --resource (once for both)
+    assert len(said) == 3 and all(s.startswith("benchkit: note: drift --") for s in said)
+    assert modernise(["tone", "--gain", "2"], said.append) == ["tone", "--gain", "2"] and len(said) == 3
+
+
+def test_an_old_name_still_works_on_the_command_line(tmp_path):
+    assert run_cli("tone", "--level", "-30dBFS", "--bench", str(tmp_path)).returncode == 0
+    new = run_cli("log", "list", "--last", "1", "--bench", str(tmp_path))
+    old = run_cli("log", "list", "--limit", "1", "--bench", str(tmp_path))
+    assert new.returncode == old.returncode == 0, old.stderr
+    assert old.stdout == new.stdout
+    assert re.search(r"note: log list --limit is now --last", old.stderr) and "note:" not in new.stderr
+
+
+@pytest.mark.parametrize("args", [("analyze", "{wav}", "--noise"), ("analyze", "{wav}", "--as", "noise")])
+def test_analyze_as_a_kind(args, tmp_path):
+    import numpy as np
+    import soundfile
+
+    wav = tmp_path / "hiss.wav"
+    soundfile.write(wav, np.random.default_rng(3).normal(0.0, 1e-3, 48000), 48000, subtype="FLOAT")
+    res = run_cli(*(str(wav) if a == "{wav}" else a for a in args), "--json")
+    assert res.returncode == 0, res.stderr
+    assert '"kind": "noise"' in res.stdout
+    assert ("note: analyze --noise is now --as noise" in res.stderr) == ("--noise" in args)
+
+
+def test_every_help_example_uses_the_current_names():
+    def walk(c):
+        for sub in (getattr(c, "commands", None) or {}).values():
+            yield from walk(sub)
+        yield c
+
+    examples = [line.split("Example:", 1)[1].split()[1:] for c in walk(get_command(app))
+                for line in (c.help or "").splitlines() if "Example:" in line]
+    assert len(examples) >= 15
+    for words in examples:
+        said = []
+        assert modernise(words, said.append) == words and not said, words
