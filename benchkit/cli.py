@@ -430,17 +430,18 @@ def _live_setup(live: dict, ref_channel: int | None, stereo: bool = False, more:
     if ref_channel is not None and ref_channel == live["in_channel"]:
         raise BenchkitError(f"--ref-channel {ref_channel} is the stage's own input (--in-channel): the reference "
                             "is the input wired straight from the driven output")
-    if backend.name == "virtual" and switch:
+    can = backend.capabilities
+    if can.switchable_load and switch:
         backend.connect_load(wanted)
-    if backend.name == "virtual" and live["input_max"] is not None:  # the simulated input as the user states it
+    if can.simulated and live["input_max"] is not None:  # the simulated input as the user states it
         from dataclasses import replace
 
         backend.spec = replace(backend.spec, input_max_vpk=live["input_max"])  # a model without a load of its own: its output resistance meets this one
     if profile is not None:
-        if backend.name != "virtual":  # the virtual bench knows its own output
+        if not can.simulated:  # a simulated bench knows its own output
             backend.output_vpk_per_fs = profile.output_vpk_per_fs
         _err(f"calibration: {calibration} ({profile.interface}, {quantity(profile.stage_volts_per_fs, 'V', 4)} peak per FS at the stage)")
-    elif backend.name != "virtual":
+    elif not can.simulated:
         _err("no calibration profile: figures stay in dBFS (benchkit calibrate makes one)")
     return backend, profile
 
@@ -662,7 +663,7 @@ def watch(
         in_channel, calibration = live["in_channel"], live["calibration"]
         drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
         check_level(drive)
-        if backend.name != "virtual" and drive > backend.drive_cap_dbfs + 1e-9:
+        if drive > backend.drive_cap_dbfs + 1e-9:
             raise BenchkitError(f"--level {drive:.1f} dBFS is above the drive cap of {backend.drive_cap_dbfs:g} dBFS; "
                                 "lower it, or raise the cap knowingly (--drive-cap)")
         _check_dc(dc_source, dc_resource, backend, profile)
@@ -692,7 +693,7 @@ def _check_dc(source, resource, backend, profile) -> None:
     """What a watch's DC source needs, refused before anything plays."""
     if source == "input" and (profile is None or not profile.dc_coupled or not profile.dc_volts_per_fs):
         raise BenchkitError("--dc-source input needs a --calibration that says the input is DC coupled")
-    if source == "virtual" and backend.name != "virtual":
+    if source == "virtual" and not backend.capabilities.simulated:
         raise BenchkitError("--dc-source virtual reads the virtual stage: use it with --device virtual")
     if source == "meter" and not resource:
         raise BenchkitError("--dc-source meter needs --meter (the meter's VISA address)")
@@ -928,7 +929,7 @@ def noise(
             reference_vrms, reference = ref_vrms, f"{ref_vrms:g} Vrms"
         elif load is not None:
             reference_vrms, reference = units.vrms_from_watts(ref_power, load), f"{ref_power:g} W into {load:g} ohm"
-        if backend.name != "virtual" and not yes:
+        if not backend.capabilities.simulated and not yes:
             typer.prompt("short or terminate the stage's input, then press Enter", default="", show_default=False, err=True)
         params = dict(channel=in_channel, bandwidth_hz=band, reference_vrms=reference_vrms, reference=reference,
                       length_s=length)
@@ -1081,13 +1082,12 @@ def zout(
             within=(("--freq", freqs, DEFAULT_BAND_HZ),))
         in_channel, calibration = live["in_channel"], live["calibration"]
         if open_load is None:
-            if backend.name == "virtual":
-                open_load = backend.pad_input_ohms()
-            elif profile is not None and profile.pad is not None and profile.pad.pad() is not None:
+            open_load = backend.pad_input_ohms()
+            if open_load is None and profile is not None and profile.pad is not None and profile.pad.pad() is not None:
                 open_load = profile.pad.pad().input_impedance(profile.pad.input_ohms or float("inf"))
 
         def switch(ohms):
-            if backend.name == "virtual":
+            if backend.capabilities.switchable_load:
                 backend.connect_load(ohms)
             elif not yes:
                 what = "disconnect the load" if ohms is None else f"connect the {ohms:g} ohm load"
@@ -1161,8 +1161,9 @@ def crosstalk(
                                                          more=dict(more_inputs=(real_b,), more_outputs=(out_channel_b,)),
                                                          within=(("--freq", freqs, band), ("--bandwidth", _given_band(bandwidth))))
         calibration = live["calibration"]
-        if backend.name == "virtual":
-            inputs, outputs = (1, in_channel_b or 3), (1, 2)
+        fixed = backend.capabilities.stereo_channels
+        if fixed is not None:
+            inputs, outputs = (fixed[0][0], in_channel_b or fixed[0][1]), fixed[1]
         else:
             inputs, outputs = (in_a, real_b), (out_a, out_channel_b)
         if len(set(inputs)) < 2 or len(set(outputs)) < 2:
@@ -1187,10 +1188,10 @@ def _one_level(live: dict, ref_channel: Optional[int], level: str, frequency: fl
 
     backend, profile = _live_setup(live, ref_channel, load=load, **setup)
     if ref_channel is None:
-        ref_channel = backend.reference_input() if backend.name == "virtual" else None
+        ref_channel = backend.reference_input()
     drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
     check_level(drive)
-    scaled = backend.name == "virtual" or profile is not None or live["volts_per_fs"] is not None
+    scaled = backend.capabilities.simulated or profile is not None or live["volts_per_fs"] is not None
     checked = load if volts or scaled else None  # without a scale the load cannot be checked, and need not be
     plan = record.plan_run(backend, profile, [drive], frequency, live["in_channel"], live["gain"], live["margin"],
                          live["rail"], live["pad_rating"], checked, live["btl"], say=_err)
@@ -1249,7 +1250,7 @@ def sweep(
         preflight = dict(gain=live["gain"], margin_db=live["margin"], rail_v=live["rail"],
                          pad_rating_w=live["pad_rating"], bridged=live["btl"])
         if ref_channel is None:
-            ref_channel = backend.reference_input() if backend.name == "virtual" else (profile.ref_channel if profile else None)
+            ref_channel = backend.reference_input() or (profile.ref_channel if profile else None)
         drive = units.parse_level(level).to_dbfs(backend.output_vpk_per_fs)
         check_level(drive)
         plan = record.plan_run(backend, profile, [drive], ref_freq, in_channel, load_ohms=load, say=_err, **preflight)
@@ -1315,9 +1316,9 @@ def power(
             raise BenchkitError("--precondition-s goes with --precondition")
         backend, profile = _live_setup(live, ref_channel, load=load, within=(("--freq", [frequency], DEFAULT_BAND_HZ),))
         in_channel, calibration = live["in_channel"], live["calibration"]
-        if ref_channel is None and backend.name == "virtual":
+        if ref_channel is None:
             ref_channel = backend.reference_input()
-        cap = -0.5 if backend.name == "virtual" else backend.drive_cap_dbfs
+        cap = min(backend.drive_cap_dbfs, -0.5)  # (the most any device may get: a simulated one too)
         gain_fs = record.probe_gain(backend, frequency, -40.0, in_channel)
         # the highest drive: the cap, or where the input would come within the margin of full scale
         top = min(cap, -live["margin"] - units.db_from_ratio(gain_fs))
@@ -1497,7 +1498,7 @@ def calibrate(
         lvl = units.parse_level(level).to_dbfs()
         real = dict(sample_rate=rate, in_channel=in_channel, out_channel=out_channel, ref_channel=ref_channel)
         backend = _open_backend(device, "ideal", [], "demo", seed, real)
-        virtual = backend.name == "virtual"
+        virtual = backend.capabilities.simulated
         if reading is not None:
             volts = units.parse_level(reading).to_vrms()
         elif virtual:

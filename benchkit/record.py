@@ -345,7 +345,7 @@ def plan_run(backend, profile, drive, frequency_hz, channel, gain, margin_db, ra
     refuse the run before it plays if it would overload the input or the pad."""
     from benchkit import preflight
 
-    virtual = backend.name == "virtual"
+    virtual = backend.capabilities.simulated  # (it knows its pad and input)
     pad_spec = profile.pad if profile is not None else None
     stage_vpf = profile.stage_volts_per_fs if profile is not None else backend.inputs()[channel - 1].volts_per_fs
     out_vpk = backend.output_vpk_per_fs

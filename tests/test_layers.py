@@ -5,6 +5,7 @@ lists the sources the measurement tests use)."""
 from __future__ import annotations
 
 import ast
+import re
 from pathlib import Path
 
 import pytest
@@ -116,3 +117,10 @@ def test_the_registry_loads_no_plotting_and_no_cli():
             "print(sorted(m for m in ('matplotlib', 'typer', 'sounddevice') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "[]"
+
+
+def test_commands_ask_a_backend_what_it_can_do_not_its_name():
+    # capabilities (capture.Capabilities), never `backend.name == "virtual"`
+    for path in PKG.rglob("*.py"):
+        if path.parent.name != "capture":
+            assert not re.search(r"\.name\s*[!=]=\s*[\"']virtual", path.read_text()), path

@@ -97,10 +97,30 @@ class Capture:
         return self.inputs[number - 1]
 
 
+@dataclass(frozen=True)
+class Capabilities:
+    """What a backend can do besides playing and recording: commands ask
+    these, never a backend's name."""
+
+    #: its stage, pad and load are simulated: it knows the volts at its
+    #: output and inputs without a profile, and wires itself (nothing to
+    #: wire, short or switch by hand: no prompt)
+    simulated: bool = False
+    #: it connects and disconnects the stage's load itself (``connect_load``)
+    switchable_load: bool = False
+    #: a stereo stage's fixed wiring, ((input A, input B), (output A,
+    #: output B)), or None where the user says which channels
+    stereo_channels: tuple[tuple[int, int], tuple[int, int]] | None = None
+
+
 class Backend(Protocol):
     """What every capture backend provides."""
 
     name: str
+    #: what it can do besides playing and recording
+    capabilities: Capabilities
+    #: the highest drive it may be given, dBFS
+    drive_cap_dbfs: float
     sample_rate_hz: float
     n_outputs: int
     #: volts peak at the driven output per FS, when known
@@ -113,6 +133,10 @@ class Backend(Protocol):
 
     def reference_input(self) -> int | None:
         """The input wired straight to the driven output, if any."""
+
+    def pad_input_ohms(self) -> float | None:
+        """What the pad and the input present to the stage's output, when
+        known."""
 
     #: the output the stimulus drives, from 1
     drive_output: int

@@ -29,7 +29,7 @@ from pathlib import Path
 import numpy as np
 
 from benchkit import units
-from benchkit.capture import CLIP_STOP_FS, InputChannel, RawRecording, count_stream
+from benchkit.capture import Capabilities, CLIP_STOP_FS, InputChannel, RawRecording, count_stream
 from benchkit.errors import BenchkitError
 from benchkit.recordings import WavStreamWriter
 from benchkit.signals import Stimulus
@@ -162,6 +162,9 @@ class PortAudioBackend:
         interface's manual states it (the pre-flight's fault check).
     """
 
+    #: a real interface: the user wires, shorts and switches; a profile gives volts
+    capabilities = Capabilities()
+
     def __init__(
         self,
         device: str,
@@ -232,6 +235,9 @@ class PortAudioBackend:
 
     def reference_input(self) -> int | None:
         return self.ref_channel
+
+    def pad_input_ohms(self) -> float | None:
+        return None  # (a profile's pad says it)
 
     def describe(self) -> dict:
         return {

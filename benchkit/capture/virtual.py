@@ -28,7 +28,7 @@ from pathlib import Path
 import numpy as np
 import scipy.signal
 
-from benchkit.capture import CLIP_STOP_FS, InputChannel, RawRecording, count_stream
+from benchkit.capture import Capabilities, CLIP_STOP_FS, InputChannel, RawRecording, count_stream
 from benchkit.capture.stages import StageModel, StereoCoupling, first_order_highpass, make_stage, split_stereo
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
@@ -115,6 +115,9 @@ class VirtualBench:
     """
 
     name = "virtual"
+    capabilities = Capabilities(simulated=True, switchable_load=True, stereo_channels=((1, 3), (1, 2)))
+    #: a simulated interface protects nothing: full scale
+    drive_cap_dbfs = 0.0
     drive_output = 1
     lead_s = 0.05
 
