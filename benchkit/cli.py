@@ -651,7 +651,7 @@ def watch(
     """
     from benchkit import record
     from benchkit.signals import check_level
-    from benchkit.kinds.watch import SteadyTone
+    from benchkit.kinds.watch import check_dc_source, dc_reader, SteadyTone, watch_session
 
     code = 0
     with _live_run(), (_logbook(filing) if record else contextlib.nullcontext((None, None))) as (book, labels):
@@ -666,13 +666,13 @@ def watch(
         if drive > backend.drive_cap_dbfs + 1e-9:
             raise BenchkitError(f"--level {drive:.1f} dBFS is above the drive cap of {backend.drive_cap_dbfs:g} dBFS; "
                                 "lower it, or raise the cap knowingly (--drive-cap)")
-        _check_dc(dc_source, dc_resource, backend, profile)
+        check_dc_source(dc_source, dc_resource, backend, profile)
         plan = record.plan_run(backend, profile, [drive], frequency, in_channel, live["gain"], live["margin"],
                              live["rail"], live["pad_rating"], load, live["btl"], say=_err)
         for w in plan.warnings:
             _err(f"warning: {w}")
         scale = profile.stage_volts_per_fs if profile is not None else backend.inputs()[in_channel - 1].volts_per_fs
-        dc, dc_scale, meter = _watch_dc(dc_source, dc_resource, backend, profile)
+        dc, dc_scale, meter = dc_reader(dc_source, dc_resource, backend, profile)
         try:
             tone = SteadyTone(frequency, drive, backend.sample_rate_hz, None, in_channel,
                               getattr(backend, "drive_output", 1), backend.n_outputs, scale, load, band, dc=dc,
@@ -681,213 +681,14 @@ def watch(
                           bandwidth_hz=band)
             run = _start_run(book, labels, "watch", backend, profile, calibration, params) if record else None
             with run if run is not None else contextlib.nullcontext():
-                code = _watch_loop(backend, tone, run, record_audio, duration, plain, json_lines)
+                mode = "json" if json_lines else "plain" if plain or not sys.stdout.isatty() else "live"
+                end = watch_session(backend, tone, run, record_audio, duration, mode, _err)
+                code = EXIT_INTERRUPTED if end.interrupted else EXIT_STOPPED_EARLY if end.clipped else 0
         finally:
             if meter is not None:
                 meter.close()
     if code:
         raise typer.Exit(code)
-
-
-def _check_dc(source, resource, backend, profile) -> None:
-    """What a watch's DC source needs, refused before anything plays."""
-    if source == "input" and (profile is None or not profile.dc_coupled or not profile.dc_volts_per_fs):
-        raise BenchkitError("--dc-source input needs a --calibration that says the input is DC coupled")
-    if source == "virtual" and not backend.capabilities.simulated:
-        raise BenchkitError("--dc-source virtual reads the virtual stage: use it with --device virtual")
-    if source == "meter" and not resource:
-        raise BenchkitError("--dc-source meter needs --meter (the meter's VISA address)")
-
-
-def _watch_dc(source, resource, backend, profile):
-    """The DC a watch shows: a meter read in its own thread (the latest
-    value), the measuring input's own DC, or the virtual stage's midpoint."""
-    import threading
-    import time
-
-    from benchkit import meters
-
-    if source is None:
-        return None, None, None
-    if source == "input":
-        return None, profile.dc_volts_per_fs, None
-    if source == "virtual":
-        meter = meters.VirtualMidpoint(backend.stage, accelerated=1.0)  # the stage warms in real time
-    else:
-        meter = meters.ScpiMeter(resource)
-    latest = {"v": None}
-    stop = threading.Event()
-
-    def poll():
-        last = time.monotonic()
-        while not stop.is_set():
-            try:
-                latest["v"] = meter.read()
-            except BenchkitError:
-                latest["v"] = None
-                return
-            stop.wait(0.25)
-            if hasattr(meter, "advance"):  # a model's clock follows the wall's
-                now = time.monotonic()
-                meter.advance(now - last)
-                last = now
-
-    threading.Thread(target=poll, name="benchkit-dc", daemon=True).start()
-
-    class _Closing:
-        def close(self):
-            stop.set()
-            meter.close()
-
-    return (lambda: latest["v"]), None, _Closing()
-
-
-def _watch_loop(backend, tone, run, record_audio: bool, duration, plain: bool, json_lines: bool) -> int:
-    """Show the readings until q, Ctrl-C, --duration or the stream's end;
-    the tone fades out on every path. Returns the exit code."""
-    import time
-
-    from benchkit.report import live as show
-    from benchkit.report.tables import dumps_line
-    from benchkit.analysis.readings import Tracker
-    from benchkit.kinds.watch import ReadingsLog, Watch, summarise
-
-    mode = "json" if json_lines else "plain" if plain or not sys.stdout.isatty() else "live"
-    log = ReadingsLog(run.folder / "readings.csv") if run is not None else None
-    partial = run.folder / "audio.partial.wav" if run is not None and record_audio else None
-    tracker = Tracker()
-    watch = Watch(backend, tone, partial).start()
-    keys = _Keys() if mode == "live" and sys.stdin.isatty() else None
-    display = None
-    if mode == "live":
-        from rich.console import Console
-        from rich.live import Live
-
-        display = Live(show.table(tracker, "benchkit watch"), console=Console(), refresh_per_second=8, transient=False)
-        display.start()
-    started, ended_by, code = time.monotonic(), None, 0
-    title = f"{tone.frequency_hz:g} Hz at {tone.level_dbfs:g} dBFS on {backend.name}"
-    try:
-        for reading in watch.readings():
-            try:
-                if reading is not None:
-                    tracker.add(reading)
-                    if log is not None:
-                        log.add(reading)
-                    if mode == "json":
-                        print(dumps_line(reading.to_dict()), flush=True)
-                    elif mode == "plain":
-                        print(show.plain_line(reading), flush=True)
-                key = keys.read() if keys is not None else None
-                if key == "h":
-                    tracker.toggle_hold()
-                elif key == "r":
-                    tracker.reset()
-                elif key == "q" and ended_by is None:
-                    ended_by = "stopped (q)"
-                    watch.stop(ended_by)
-                if display is not None:
-                    display.update(show.table(tracker, title))
-                if duration is not None and ended_by is None and time.monotonic() - started >= duration:
-                    ended_by = "the duration ran out"
-                    watch.stop(ended_by)
-            except KeyboardInterrupt:
-                if ended_by is None:
-                    ended_by, code = "interrupted (Ctrl-C)", EXIT_INTERRUPTED
-                    watch.stop(ended_by)
-            except BrokenPipeError:  # whoever read stdout has gone (| head)
-                if ended_by is None:
-                    ended_by = "stdout was closed"
-                    watch.stop(ended_by)
-                mode = "quiet"
-    except KeyboardInterrupt:
-        ended_by, code = "interrupted (Ctrl-C)", EXIT_INTERRUPTED
-        watch.stop(ended_by)
-    finally:
-        watch.stop(ended_by or "ended")
-        watch.join()
-        if display is not None:
-            display.stop()
-        if keys is not None:
-            keys.close()
-        if log is not None:
-            log.close()
-    if watch.error is not None:
-        raise watch.error
-    stopped = tone.stop_reason if ended_by is None else ended_by
-    clipped = "clipped" in (tone.stop_reason or "") or (watch.raw is not None and watch.raw.stopped_at is not None)
-    if clipped:
-        _err("benchkit: stopped early: the input clipped (the tone faded out): lower the level or use a larger pad")
-        code = EXIT_STOPPED_EARLY
-    dropped = f", {tracker.disturbed} across a dropout of the stream (left out)" if tracker.disturbed else ""
-    _err(f"watch ended: {stopped}; {units.count(tracker.count, 'reading')}{dropped}; the output faded to silence")
-    for line in _watch_summary(tracker):
-        _err(line)
-    if run is not None and not tracker.count:
-        # nothing to summarise (the input clipped as the tone came in, or the watch was stopped at once)
-        run.fail(f"the watch ended before its first reading: {stopped}")
-        _err(f"run {run.id}: no reading to keep (filed as failed): {run.folder}")
-        return code
-    if run is not None:
-        written = [log.path]
-        if partial is not None and partial.exists():
-            from benchkit.recordings import write_capture_sidecar
-
-            audio = partial.with_name("audio.wav")  # its sidecar: audio.json
-            partial.rename(audio)
-            write_capture_sidecar(audio, {"sample_rate_hz": backend.sample_rate_hz, "device": backend.name,
-                                          "stimulus": tone.description, "channels": [c.to_dict() for c in backend.inputs()],
-                                          "note": "raw, unaligned recording of a watch"})
-            written.append(audio)
-        doc = summarise(log.path, {"frequency_hz": tone.frequency_hz, "level_dbfs": tone.level_dbfs,
-                                   "ended": stopped, "device": backend.name, "conditions": tone.conditions()})
-        from benchkit.report import tables
-
-        written.insert(0, tables.write_json(doc, run.folder / "watch.json"))
-        run.complete(doc, written, written[0], figures=headline_figures(doc))
-        _err(f"run {run.id}: {run.folder}")
-    return code
-
-
-def _watch_summary(tracker) -> list[str]:
-    from benchkit.report.live import value_text
-    from benchkit.analysis.readings import FIGURES
-
-    return [f"  {label:<6} {unit:<5} min {value_text(tracker.min[key], unit).strip():>14}   "
-            f"max {value_text(tracker.max[key], unit).strip():>14}"
-            for key, label, unit in FIGURES if key in tracker.min]
-
-
-class _Keys:
-    """Single key presses from a terminal without Enter (cbreak mode),
-    restored on close; nothing on a system without termios."""
-
-    def __init__(self):
-        self._old = None
-        try:
-            import termios
-            import tty
-
-            self._fd = sys.stdin.fileno()
-            self._old = termios.tcgetattr(self._fd)
-            tty.setcbreak(self._fd)
-        except Exception:  # noqa: BLE001 - not a terminal we can put in cbreak mode
-            self._old = None
-
-    def read(self) -> str | None:
-        if self._old is None:
-            return None
-        import select
-
-        ready, _, _ = select.select([sys.stdin], [], [], 0)
-        return sys.stdin.read(1).lower() if ready else None
-
-    def close(self) -> None:
-        if self._old is not None:
-            import termios
-
-            termios.tcsetattr(self._fd, termios.TCSADRAIN, self._old)
-            self._old = None
 
 
 @app.command()

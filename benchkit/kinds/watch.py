@@ -25,6 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
+from benchkit import units
 from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.spectrum import WINDOW_NAME
 from benchkit.analysis.readings import FIGURES, Reading, watch_figures
@@ -279,6 +280,177 @@ def summarise(path: Path, info: dict | None = None) -> dict:
     return document("watch", {**(info or {}), "readings": len(rows), "first_s": t[0], "last_s": t[-1],
                               "rate_per_s": (len(rows) - 1) / (t[-1] - t[0]) if t[-1] > t[0] else None,
                               "figures": figures, "valid": not clipped, "warnings": warnings, "file": str(path)})
+
+
+def check_dc_source(source, resource, backend, profile) -> None:
+    """What a watch's DC source needs, refused before anything plays."""
+    if source == "input" and (profile is None or not profile.dc_coupled or not profile.dc_volts_per_fs):
+        raise BenchkitError("--dc-source input needs a --calibration that says the input is DC coupled")
+    if source == "virtual" and not backend.capabilities.simulated:
+        raise BenchkitError("--dc-source virtual reads the virtual stage: use it with --device virtual")
+    if source == "meter" and not resource:
+        raise BenchkitError("--dc-source meter needs --meter (the meter's VISA address)")
+
+
+def dc_reader(source, resource, backend, profile):
+    """The DC a watch shows: a meter read in its own thread (the latest
+    value), the measuring input's own DC, or the virtual stage's midpoint."""
+    import time
+
+    from benchkit import meters
+
+    if source is None:
+        return None, None, None
+    if source == "input":
+        return None, profile.dc_volts_per_fs, None
+    if source == "virtual":
+        meter = meters.VirtualMidpoint(backend.stage, accelerated=1.0)  # the stage warms in real time
+    else:
+        meter = meters.ScpiMeter(resource)
+    latest = {"v": None}
+    stop = threading.Event()
+
+    def poll():
+        last = time.monotonic()
+        while not stop.is_set():
+            try:
+                latest["v"] = meter.read()
+            except BenchkitError:
+                latest["v"] = None
+                return
+            stop.wait(0.25)
+            if hasattr(meter, "advance"):  # a model's clock follows the wall's
+                now = time.monotonic()
+                meter.advance(now - last)
+                last = now
+
+    threading.Thread(target=poll, name="benchkit-dc", daemon=True).start()
+
+    class _Closing:
+        def close(self):
+            stop.set()
+            meter.close()
+
+    return (lambda: latest["v"]), None, _Closing()
+
+
+@dataclass(frozen=True)
+class WatchEnd:
+    """How a watch ended: what stopped it, whether Ctrl-C did, whether the
+    input clipped."""
+
+    how: str
+    interrupted: bool
+    clipped: bool
+
+
+def watch_session(backend, tone, run, record_audio: bool, duration, mode: str, say) -> WatchEnd:
+    """Show the readings until q, Ctrl-C, ``duration`` or the stream's end,
+    the tone fading out on every path: one line a reading on stdout in
+    ``mode`` "json" or "plain", a live table in "live" (keys: h holds, r
+    resets, q stops). Files the readings (and with ``record_audio`` the
+    raw audio) in ``run``, if any."""
+    import sys
+    import time
+
+    from benchkit.analysis.readings import Tracker
+    from benchkit.kinds import headline_figures
+    from benchkit.report import live as show
+    from benchkit.report.tables import dumps_line
+
+    log = ReadingsLog(run.folder / "readings.csv") if run is not None else None
+    partial = run.folder / "audio.partial.wav" if run is not None and record_audio else None
+    tracker = Tracker()
+    watch = Watch(backend, tone, partial).start()
+    keys = show.Keys() if mode == "live" and sys.stdin.isatty() else None
+    display = None
+    if mode == "live":
+        from rich.console import Console
+        from rich.live import Live
+
+        display = Live(show.table(tracker, "benchkit watch"), console=Console(), refresh_per_second=8, transient=False)
+        display.start()
+    started, ended_by, interrupted = time.monotonic(), None, False
+    title = f"{tone.frequency_hz:g} Hz at {tone.level_dbfs:g} dBFS on {backend.name}"
+    try:
+        for reading in watch.readings():
+            try:
+                if reading is not None:
+                    tracker.add(reading)
+                    if log is not None:
+                        log.add(reading)
+                    if mode == "json":
+                        print(dumps_line(reading.to_dict()), flush=True)
+                    elif mode == "plain":
+                        print(show.plain_line(reading), flush=True)
+                key = keys.read() if keys is not None else None
+                if key == "h":
+                    tracker.toggle_hold()
+                elif key == "r":
+                    tracker.reset()
+                elif key == "q" and ended_by is None:
+                    ended_by = "stopped (q)"
+                    watch.stop(ended_by)
+                if display is not None:
+                    display.update(show.table(tracker, title))
+                if duration is not None and ended_by is None and time.monotonic() - started >= duration:
+                    ended_by = "the duration ran out"
+                    watch.stop(ended_by)
+            except KeyboardInterrupt:
+                if ended_by is None:
+                    ended_by, interrupted = "interrupted (Ctrl-C)", True
+                    watch.stop(ended_by)
+            except BrokenPipeError:  # whoever read stdout has gone (| head)
+                if ended_by is None:
+                    ended_by = "stdout was closed"
+                    watch.stop(ended_by)
+                mode = "quiet"
+    except KeyboardInterrupt:
+        ended_by, interrupted = "interrupted (Ctrl-C)", True
+        watch.stop(ended_by)
+    finally:
+        watch.stop(ended_by or "ended")
+        watch.join()
+        if display is not None:
+            display.stop()
+        if keys is not None:
+            keys.close()
+        if log is not None:
+            log.close()
+    if watch.error is not None:
+        raise watch.error
+    stopped = tone.stop_reason if ended_by is None else ended_by
+    clipped = "clipped" in (tone.stop_reason or "") or (watch.raw is not None and watch.raw.stopped_at is not None)
+    if clipped:
+        say("benchkit: stopped early: the input clipped (the tone faded out): lower the level or use a larger pad")
+    dropped = f", {tracker.disturbed} across a dropout of the stream (left out)" if tracker.disturbed else ""
+    say(f"watch ended: {stopped}; {units.count(tracker.count, 'reading')}{dropped}; the output faded to silence")
+    for line in show.summary_lines(tracker):
+        say(line)
+    if run is not None and not tracker.count:
+        # nothing to summarise (the input clipped as the tone came in, or the watch was stopped at once)
+        run.fail(f"the watch ended before its first reading: {stopped}")
+        say(f"run {run.id}: no reading to keep (filed as failed): {run.folder}")
+        return WatchEnd(stopped, interrupted, clipped)
+    if run is not None:
+        written = [log.path]
+        if partial is not None and partial.exists():
+            from benchkit.recordings import write_capture_sidecar
+
+            audio = partial.with_name("audio.wav")  # its sidecar: audio.json
+            partial.rename(audio)
+            write_capture_sidecar(audio, {"sample_rate_hz": backend.sample_rate_hz, "device": backend.name,
+                                          "stimulus": tone.description, "channels": [c.to_dict() for c in backend.inputs()],
+                                          "note": "raw, unaligned recording of a watch"})
+            written.append(audio)
+        doc = summarise(log.path, {"frequency_hz": tone.frequency_hz, "level_dbfs": tone.level_dbfs,
+                                   "ended": stopped, "device": backend.name, "conditions": tone.conditions()})
+        from benchkit.report import tables
+
+        written.insert(0, tables.write_json(doc, run.folder / "watch.json"))
+        run.complete(doc, written, written[0], figures=headline_figures(doc))
+        say(f"run {run.id}: {run.folder}")
+    return WatchEnd(stopped, interrupted, clipped)
 
 
 @dataclass(frozen=True)

@@ -92,3 +92,45 @@ def table(tracker: Tracker, title: str):
 def fmt_time(seconds: float) -> str:
     """Seconds into a watch as shown: 12.3 s, or hh:mm:ss from a minute."""
     return time.strftime("%H:%M:%S", time.gmtime(seconds)) if seconds >= 60 else f"{seconds:5.1f} s"
+
+
+def summary_lines(tracker: Tracker) -> list[str]:
+    """Each figure's minimum and maximum over a watch."""
+    return [f"  {label:<6} {unit:<5} min {value_text(tracker.min[key], unit).strip():>14}   "
+            f"max {value_text(tracker.max[key], unit).strip():>14}"
+            for key, label, unit in FIGURES if key in tracker.min]
+
+
+class Keys:
+    """Single key presses from a terminal without Enter (cbreak mode),
+    restored on close; nothing on a system without termios."""
+
+    def __init__(self):
+        self._old = None
+        try:
+            import termios
+            import tty
+
+            import sys
+
+            self._fd = sys.stdin.fileno()
+            self._old = termios.tcgetattr(self._fd)
+            tty.setcbreak(self._fd)
+        except Exception:  # noqa: BLE001 - not a terminal we can put in cbreak mode
+            self._old = None
+
+    def read(self) -> str | None:
+        if self._old is None:
+            return None
+        import select
+        import sys
+
+        ready, _, _ = select.select([sys.stdin], [], [], 0)
+        return sys.stdin.read(1).lower() if ready else None
+
+    def close(self) -> None:
+        if self._old is not None:
+            import termios
+
+            termios.tcsetattr(self._fd, termios.TCSADRAIN, self._old)
+            self._old = None
