@@ -1104,8 +1104,7 @@ def power(
     load's temperature, and keep the pad rated for the highest output.
     Ctrl-C fades the output to silence and reports the completed steps.
     """
-    from benchkit import record
-    from benchkit.kinds.power import power_run
+    from benchkit.kinds.power import plan_power, power_run
 
     with _live_run(), _logbook(filing) as (book, labels):
         opts = _power_options(True, load, live["rail"], **figures)
@@ -1119,21 +1118,11 @@ def power(
         in_channel, calibration = live["in_channel"], live["calibration"]
         if ref_channel is None:
             ref_channel = backend.reference_input()
-        cap = min(backend.drive_cap_dbfs, -0.5)  # (the most any device may get: a simulated one too)
-        gain_fs = record.probe_gain(backend, frequency, -40.0, in_channel)
-        # the highest drive: the cap, or where the input would come within the margin of full scale
-        top = min(cap, -live["margin"] - units.db_from_ratio(gain_fs))
-        _err(f"pre-flight: a -40 dBFS step measured {units.db_from_ratio(gain_fs):+.1f} dB from output to input")
-        plan = record.plan_run(backend, profile, [top], frequency, in_channel, None, live["margin"], live["rail"],
-                             live["pad_rating"], load, live["btl"], say=_err, gain_fs=gain_fs)
+        budget = opts["budget"]
+        plan, first, top, scale = plan_power(backend, profile, frequency, in_channel, live["margin"], live["rail"],
+                                             live["pad_rating"], load, live["btl"], budget, start, say=_err)
         for w in plan.warnings:
             _err(f"warning: {w}")
-        expected = top
-        budget = opts["budget"]
-        scale = plan.stage_vpk[0] / 10 ** (top / 20) if plan.stage_vpk and plan.stage_vpk[0] else None
-        if budget is not None and scale:
-            expected = min(top, units.db_from_ratio(budget.peak_vpk / scale))
-        first = start if start is not None else expected - 40.0
         params = dict(channel=in_channel, ref_channel=ref_channel, frequency_hz=frequency, load_ohms=load,
                       metric=opts["metric"], limits_pct=list(opts["limits_pct"]), onset_db=opts["onset_db"],
                       supply_v=opts["supply_v"], supply_a=opts["supply_a"], rail_v=live["rail"],

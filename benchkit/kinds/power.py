@@ -405,6 +405,31 @@ def rating_verdict(result: PowerResult, rated_w: float, conditions: dict | None)
             "meets": None if got is None else got.power_w >= rated_w, "notes": notes}
 
 
+def plan_power(backend, profile, frequency_hz: float, channel: int, margin_db: float, rail_v, pad_rating_w, load_ohms,
+               bridged: bool, budget, start_dbfs: float | None, say):
+    """The pre-flight of a power run: a -40 dBFS probe step measures the
+    stage's gain; the highest drive is the drive cap or where the input
+    would come within ``margin_db`` of full scale, whichever is lower;
+    the first step lies 40 dB below what the budget expects the stage to
+    reach (or the highest drive), unless ``start_dbfs`` says. Returns the
+    checked plan (:func:`benchkit.record.plan_run`), the first and the
+    highest drive, dBFS, and the stage's volts peak per FS of drive (None
+    without a scale)."""
+    from benchkit import record
+
+    cap = min(backend.drive_cap_dbfs, -0.5)  # (the most any device may get: a simulated one too)
+    gain_fs = record.probe_gain(backend, frequency_hz, -40.0, channel)
+    top = min(cap, -margin_db - units.db_from_ratio(gain_fs))
+    say(f"pre-flight: a -40 dBFS step measured {units.db_from_ratio(gain_fs):+.1f} dB from output to input")
+    plan = record.plan_run(backend, profile, [top], frequency_hz, channel, None, margin_db, rail_v, pad_rating_w,
+                           load_ohms, bridged, say=say, gain_fs=gain_fs)
+    expected = top
+    scale = plan.stage_vpk[0] / 10 ** (top / 20) if plan.stage_vpk and plan.stage_vpk[0] else None
+    if budget is not None and scale:
+        expected = min(top, units.db_from_ratio(budget.peak_vpk / scale))
+    return plan, start_dbfs if start_dbfs is not None else expected - 40.0, top, scale
+
+
 def power_run(
     backend,
     folder: Path,
