@@ -25,9 +25,10 @@ from benchkit.kinds import headline_figures
 from benchkit.analysis.documents import document
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.calibration import load_profile
-from benchkit.errors import BenchkitError, BenchWarning, read_warnings
+from benchkit.errors import BenchkitError, BenchWarning
 from benchkit.units import quantity
 from benchkit.logbook import CATALOG, STATUSES
+from benchkit.report import logbook as logbook_text
 from benchkit.kinds.crosstalk import DEFAULT_FREQS_HZ as DEFAULT_CROSSTALK_FREQS
 from benchkit.kinds.zout import DEFAULT_FREQS_HZ as DEFAULT_ZOUT_FREQS
 
@@ -1382,6 +1383,7 @@ def pad(
     """
     from benchkit import pads as padlib
     from benchkit.preflight import normal_swing_vpk
+    from benchkit.report.pads import pads_lines
 
     try:
         if check and len(check) != 2:
@@ -1397,23 +1399,9 @@ def pad(
     except BenchkitError as exc:
         _err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
-    basis = f"{normal:g} V peak normal swing" + (f"; a fault: the whole {rail:g} V rail" if rail is not None else "")
-    _err(f"{basis}; input full scale {input_fs_vpk:g} V peak, {input_ohms:g} ohm; headroom {headroom_db:g} dB")
-    _err("    R1 ohm    R2 ohm    ratio      normal at input  fault at input   safe to (V pk)   P(R1) -> rating   P(R2) -> rating   noise floor at the stage")
-    for r in reports:
-        floor_uv = units.rms_from_dbfs(input_noise_dbfs) * input_fs_vpk / r.ratio * 1e6
-        fault = "-" if r.fault_peak_fs is None else f"{units.db_from_ratio(r.fault_peak_fs):+.1f} dBFS"
-        _err(f"  {r.pad.r1_ohms:8g}  {r.pad.r2_ohms:8g}  1:{1 / r.ratio:<8.4g}  {units.db_from_ratio(r.input_peak_fs):7.1f} dBFS     "
-             f"{fault:>10}       {r.max_safe_stage_vpk:10.4g}       {r.r1_watts:7.3g} W -> {r.r1_rating_w:g} W   "
-             f"{r.r2_watts:7.3g} W -> {r.r2_rating_w:g} W   +{r.noise_penalty_db:.1f} dB ({floor_uv:.3g} uVrms)")
-        if r.input_peak_fs > 10 ** (-headroom_db / 20) * (1 + 1e-9):
-            _err(f"  warning: the normal swing lands at {units.db_from_ratio(r.input_peak_fs):.1f} dBFS: less than "
-                 f"{headroom_db:g} dB of headroom (the pre-flight refuses a run past its --margin, 3 dB by default)")
-        if r.fault_v is not None and input_max_vpk is not None and r.fault_v * r.ratio > input_max_vpk:
-            _err(f"  warning: a rail fault would put {r.fault_v * r.ratio:.3g} V peak on the input, over its stated "
-                 f"maximum of {input_max_vpk:g} V peak: the pre-flight refuses this pad with --rail {rail:g}")
-    _err("  ratings are at least twice the power held at the worst case; balanced inputs need the pad on both legs;"
-         " keep the interface's ground and a bridged output apart")
+    for line in pads_lines(reports, normal, rail, input_fs_vpk, input_ohms, input_max_vpk, headroom_db,
+                           input_noise_dbfs):
+        _err(line)
     if as_json:
         from benchkit.report.tables import dumps
 
@@ -1534,35 +1522,6 @@ def _book(bench: Optional[Path], write: bool = False):
         raise typer.Exit(EXIT_BAD_INPUT)
 
 
-_SHORT = {"thdn_db": ("THD+N", "{:.1f} dB"), "noise_vrms": ("noise", None), "noise_dbfs": ("noise", "{:.1f} dBFS"),
-          "power_w": ("P", None), "clipping_onset_w": ("onset", None), "low_3db_hz": ("-3dB lo", None),
-          "high_3db_hz": ("-3dB hi", None), "settled_v": ("settled", None), "imd_db": ("IMD", "{:.1f} dB"),
-          "gain_db": ("gain", "{:+.2f} dB"), "noise_a_vrms": ("noise(A)", None), "zout_ohms": ("Zout", "{:.3g} ohm"),
-          "damping_factor": ("DF", "{:.3g}"), "crosstalk_db": ("crosstalk", "{:.1f} dB")}
-_UNITS = {"noise_vrms": "Vrms", "noise_a_vrms": "Vrms", "power_w": "W", "clipping_onset_w": "W", "low_3db_hz": "Hz", "high_3db_hz": "Hz",
-          "settled_v": "V"}
-
-
-def _headline_text(entry) -> str:
-    parts = []
-    for f in entry.figures:
-        if f["value"] is None or f["name"] not in _SHORT:
-            continue
-        label, fmt = _SHORT[f["name"]]
-        value = fmt.format(f["value"]) if fmt else quantity(f["value"], _UNITS[f["name"]], 3)
-        parts.append(f"{label} {value}")
-    return "; ".join(parts)
-
-
-def _entry_doc(entry) -> dict:
-    """A catalog entry as ``log list --json`` prints it: its result's kind
-    by the one name it has now (a version-1 run's catalog keeps the old)."""
-    from benchkit.analysis.documents import V1_KINDS
-
-    doc = entry.to_dict()
-    return {**doc, "kind": V1_KINDS.get(doc.get("kind"), doc.get("kind"))}
-
-
 @log_app.command("list")
 def log_list(
     tags: List[str] = typer.Option([], "--tag", help="Only runs with this tag, key=value (repeatable: all must match)."),
@@ -1586,21 +1545,13 @@ def log_list(
         from benchkit.report.tables import dumps
 
         print(dumps({"kind": "runs", "schema_version": 1, "bench": str(book.root),
-                     "runs": [_entry_doc(e) for e in entries]}))
+                     "runs": [logbook_text.entry_doc(e) for e in entries]}))
         return
     if not entries:
         _err(f"no runs in {book.root} match")
         return
-    width = max(len(e.id) for e in entries)
-    cw = max(8, *(len(e.command) for e in entries))
-    _err(f"  {'run':<{width}}  {'status':<11} {'command':<{cw}} tags / headline figures / note")
-    for e in entries:
-        tags_text = " ".join(f"{k}={v}" for k, v in e.tags.items())
-        valid = "" if e.valid is not False else " INVALID"
-        _err(f"  {e.id:<{width}}  {e.status + valid:<11} {e.command:<{cw}} {tags_text}")
-        line = "; ".join(x for x in (_headline_text(e), e.note.splitlines()[0] if e.note else "") if x)
-        if line:
-            _err(f"  {'':<{width}}  {'':<11} {'':<{cw}} {line}")
+    for line in logbook_text.runs_lines(entries):
+        _err(line)
 
 
 @log_app.command("show")
@@ -1621,26 +1572,8 @@ def log_show(
 
         print(dumps({**record, "status": entry.status, "folder": str(entry.folder)}))
         return
-    cal = record.get("calibration") or {}
-    _err(f"run {entry.id}: {entry.command}, {entry.status}" + ("" if entry.valid is not False else " (INVALID)"))
-    _err(f"  started      {record['started']}" + (f", ended {record['finished']}" if record.get("finished") else ""))
-    _err(f"  device       {record.get('device')}")
-    _err(f"  calibration  {cal.get('file')} (hash {cal.get('hash')})" if cal else "  calibration  none")
-    for key, value in (record.get("stage") or {}).items():
-        _err(f"  stage        {key}: {value}")
-    if entry.tags:
-        _err("  tags         " + " ".join(f"{k}={v}" for k, v in entry.tags.items()))
-    if entry.note:
-        _err("  note         " + entry.note.replace("\n", "\n               "))
-    _err("  options      " + ", ".join(f"{k}={v}" for k, v in (record.get("params") or {}).items()))
-    for f in record.get("figures") or []:
-        _err(f"  figure       {f['name']} = {f['value']:.6g} {f['unit']}" + (f" ({f['at']})" if f.get("at") else "")
-             if f["value"] is not None else f"  figure       {f['name']}: not measured")
-    for w in read_warnings(record.get("warnings")):
-        _err(f"  warning      {w} [{w.code}]")
-    if record.get("error"):
-        _err(f"  ended with   {record['error']}")
-    _err(f"  folder       {entry.folder} ({len(record.get('files') or [])} files)")
+    for line in logbook_text.run_lines(entry, record):
+        _err(line)
 
 
 @log_app.command("note")
@@ -1761,7 +1694,7 @@ def log_reanalyse(
             taken.record["reanalysed"] = logbook.now_iso()
             _finish_run(written, taken, doc, as_json, played=False)
         done = book.entry(entry.id)
-    _err(f"run {done.id}: {done.status}; {_headline_text(done)}")
+    _err(f"run {done.id}: {done.status}; {logbook_text.headline_text(done)}")
 
 
 @log_app.command("remove")

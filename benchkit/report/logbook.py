@@ -1,0 +1,76 @@
+"""What the logbook commands show: runs one or two lines each, one run
+in full, a run as `log list --json` gives it."""
+
+from __future__ import annotations
+
+from benchkit.analysis.documents import V1_KINDS
+from benchkit.errors import read_warnings
+from benchkit.units import quantity
+
+#: how a headline figure is shown in a run's line: its label and format (None: a quantity in its unit)
+SHORT = {"thdn_db": ("THD+N", "{:.1f} dB"), "noise_vrms": ("noise", None), "noise_dbfs": ("noise", "{:.1f} dBFS"),
+          "power_w": ("P", None), "clipping_onset_w": ("onset", None), "low_3db_hz": ("-3dB lo", None),
+          "high_3db_hz": ("-3dB hi", None), "settled_v": ("settled", None), "imd_db": ("IMD", "{:.1f} dB"),
+          "gain_db": ("gain", "{:+.2f} dB"), "noise_a_vrms": ("noise(A)", None), "zout_ohms": ("Zout", "{:.3g} ohm"),
+          "damping_factor": ("DF", "{:.3g}"), "crosstalk_db": ("crosstalk", "{:.1f} dB")}
+UNITS = {"noise_vrms": "Vrms", "noise_a_vrms": "Vrms", "power_w": "W", "clipping_onset_w": "W", "low_3db_hz": "Hz", "high_3db_hz": "Hz",
+          "settled_v": "V"}
+
+
+def headline_text(entry) -> str:
+    """A run's headline figures in a few words ("THD+N -61.2 dB; P 2.74 W")."""
+    parts = []
+    for f in entry.figures:
+        if f["value"] is None or f["name"] not in SHORT:
+            continue
+        label, fmt = SHORT[f["name"]]
+        value = fmt.format(f["value"]) if fmt else quantity(f["value"], UNITS[f["name"]], 3)
+        parts.append(f"{label} {value}")
+    return "; ".join(parts)
+
+
+def entry_doc(entry) -> dict:
+    """A catalog entry as ``log list --json`` prints it: its result's kind
+    by the one name it has now (a version-1 run's catalog keeps the old)."""
+    doc = entry.to_dict()
+    return {**doc, "kind": V1_KINDS.get(doc.get("kind"), doc.get("kind"))}
+
+
+def runs_lines(entries) -> list[str]:
+    """Each run: its id, status, command and tags; under it its headline
+    figures and the first line of its note."""
+    width = max(len(e.id) for e in entries)
+    cw = max(8, *(len(e.command) for e in entries))
+    lines = [f"  {'run':<{width}}  {'status':<11} {'command':<{cw}} tags / headline figures / note"]
+    for e in entries:
+        tags_text = " ".join(f"{k}={v}" for k, v in e.tags.items())
+        valid = "" if e.valid is not False else " INVALID"
+        lines.append(f"  {e.id:<{width}}  {e.status + valid:<11} {e.command:<{cw}} {tags_text}")
+        line = "; ".join(x for x in (headline_text(e), e.note.splitlines()[0] if e.note else "") if x)
+        if line:
+            lines.append(f"  {'':<{width}}  {'':<11} {'':<{cw}} {line}")
+    return lines
+
+
+def run_lines(entry, record: dict) -> list[str]:
+    """One run in full: when, what, the device and the calibration, the
+    stage, tags, note, options, figures, warnings (with their codes), the
+    folder."""
+    cal = record.get("calibration") or {}
+    lines = [f"run {entry.id}: {entry.command}, {entry.status}" + ("" if entry.valid is not False else " (INVALID)"),
+             f"  started      {record['started']}" + (f", ended {record['finished']}" if record.get("finished") else ""),
+             f"  device       {record.get('device')}",
+             f"  calibration  {cal.get('file')} (hash {cal.get('hash')})" if cal else "  calibration  none"]
+    lines += [f"  stage        {key}: {value}" for key, value in (record.get("stage") or {}).items()]
+    if entry.tags:
+        lines.append("  tags         " + " ".join(f"{k}={v}" for k, v in entry.tags.items()))
+    if entry.note:
+        lines.append("  note         " + entry.note.replace("\n", "\n               "))
+    lines.append("  options      " + ", ".join(f"{k}={v}" for k, v in (record.get("params") or {}).items()))
+    lines += [f"  figure       {f['name']} = {f['value']:.6g} {f['unit']}" + (f" ({f['at']})" if f.get("at") else "")
+              if f["value"] is not None else f"  figure       {f['name']}: not measured" for f in record.get("figures") or []]
+    lines += [f"  warning      {w} [{w.code}]" for w in read_warnings(record.get("warnings"))]
+    if record.get("error"):
+        lines.append(f"  ended with   {record['error']}")
+    lines.append(f"  folder       {entry.folder} ({len(record.get('files') or [])} files)")
+    return lines
