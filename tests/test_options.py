@@ -11,7 +11,7 @@ import pytest
 from typer.main import get_command
 
 from benchkit.cli import app
-from benchkit.cli_vocabulary import command_of, modernise, RENAMED, RENAMED_VALUES
+from benchkit.cli.vocabulary import command_of, modernise, RENAMED, RENAMED_VALUES
 
 from conftest import run_cli
 

@@ -1,0 +1,71 @@
+"""The benchkit command line: thin; parses, calls the layers, prints.
+
+Human text goes to stderr, ``--json`` documents to stdout. Bad input ends
+with a one-line reason and a non-zero exit, never a traceback (set
+BENCHKIT_DEBUG=1 to see one). Each module registers its commands on the
+one app (cli.common); this one runs it.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+
+import typer
+
+from benchkit.cli.common import app, err, EXIT_BAD_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_USAGE
+from benchkit.errors import BenchkitError
+
+# the modules that register their commands on the app, imported in the
+# order --help lists them (so not sorted)
+from benchkit.cli import analyze  # noqa: E402
+from benchkit.cli import measure  # noqa: E402
+from benchkit.cli import readout  # noqa: E402
+from benchkit.cli import tools  # noqa: E402
+from benchkit.cli import log  # noqa: E402
+
+COMMANDS = (analyze, measure, readout, tools, log)
+
+
+#: click's errors for a command line it cannot read (typer keeps its own copy of click: found where BadParameter lives)
+_CLICK = sys.modules[typer.BadParameter.__module__]
+
+
+def main() -> None:
+    """Console entry point: the typer app with a last guard against
+    tracebacks. Bad input (a value out of its range, a file that cannot be
+    used) is one line and exit 1; a command line of unknown words (an
+    unknown option, a missing argument) one line and exit 2; a bug one line
+    and exit 3. An option's old name (docs/options.md) is rewritten to
+    its new one first, with a notice."""
+    from benchkit.cli.vocabulary import modernise
+
+    sys.argv[1:] = modernise(sys.argv[1:], err)
+    try:
+        code = app(standalone_mode=False)
+    except _CLICK.UsageError as exc:
+        text, ctx = " ".join(exc.format_message().split()), getattr(exc, "ctx", None)
+        if text:  # (none when a group was given no command: its help is the answer)
+            err(f"benchkit: error: {text}" + (f" (see '{ctx.command_path} --help')" if ctx is not None else ""))
+        # a value out of its range is bad input like any other; a command line of unknown words is a usage error
+        bad_value = isinstance(exc, typer.BadParameter) and not isinstance(exc, _CLICK.MissingParameter)
+        sys.exit(EXIT_BAD_INPUT if bad_value else EXIT_USAGE)
+    except BenchkitError as exc:
+        err(f"benchkit: error: {exc}")
+        sys.exit(EXIT_BAD_INPUT)
+    except KeyboardInterrupt:
+        err("benchkit: interrupted")
+        sys.exit(EXIT_INTERRUPTED)
+    except typer.Abort:  # a prompt that got no answer: stdin closed, or Ctrl-C at the prompt
+        err("benchkit: error: no answer at the prompt (for scripted use, wire first and give --yes)")
+        sys.exit(EXIT_BAD_INPUT)
+    except Exception as exc:  # noqa: BLE001 - the one place that turns bugs into one line
+        if os.environ.get("BENCHKIT_DEBUG"):
+            raise
+        err(f"benchkit: internal error: {type(exc).__name__}: {exc} (set BENCHKIT_DEBUG=1 for details)")
+        sys.exit(EXIT_INTERNAL)
+    sys.exit(code or 0)
+
+
+if __name__ == "__main__":
+    main()
