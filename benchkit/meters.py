@@ -196,5 +196,5 @@ def read_drift_csv(path: str | Path, time_col: str = "1", value_col: str = "2") 
         ta, va = ta[order], va[order]
         warnings.append(BenchWarning("reordered", "the times were not in order: the readings were sorted by time"))
     if np.any(np.diff(ta) == 0):
-        warnings.append(BenchWarning("reordered", "some readings share a time stamp"))
+        warnings.append(BenchWarning("same-time", "some readings share a time stamp"))
     return ta, va, warnings

@@ -17,11 +17,11 @@ from pathlib import Path
 import numpy as np
 
 from benchkit.analysis import refuse_non_finite
-from benchkit.errors import BenchkitError, BenchWarning, warning_docs
+from benchkit.errors import BenchkitError, BenchWarning, read_warnings, warning_docs
 from benchkit.jsonfile import INT as _INT, NUMBER as _NUMBER, TEXT as _TEXT, load_json, wrong_field
 
 SIDECAR_KIND = "capture"
-SIDECAR_SCHEMA_VERSION = 1
+SIDECAR_SCHEMA_VERSION = 2
 
 
 @dataclass(frozen=True)
@@ -39,6 +39,10 @@ class Recording:
     n_channels: int
     sidecar: dict = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
+
+    def all_warnings(self) -> tuple[BenchWarning, ...]:
+        """What was odd about the file, then the warnings its sidecar keeps."""
+        return self.warnings + read_warnings(self.sidecar.get("warnings"))
 
     @property
     def stimulus_frequency_hz(self) -> float | None:

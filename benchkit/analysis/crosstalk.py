@@ -26,6 +26,7 @@ from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
+from benchkit.errors import BenchkitError
 from benchkit.units import quantity
 
 
@@ -109,9 +110,11 @@ def analyze_crosstalk(samples, sample_rate: float, *, frequency_hz: float, drive
     >>> round(x.crosstalk_db, 2)
     -60.0
     """
+    if driven_channel == other_channel:
+        raise BenchkitError("the driven channel and the other one must differ")
     return leak(one_channel(samples, driven_channel, "analyze_crosstalk"),
                 one_channel(samples, other_channel, "analyze_crosstalk"), sample_rate, frequency_hz,
-                driven_scale, other_scale, bandwidth_hz, "A" if driven_channel == 1 else "B")
+                driven_scale, other_scale, bandwidth_hz, "A" if driven_channel < other_channel else "B")
 
 
 def leak(driven, other, sample_rate: float, frequency_hz: float, driven_scale: float | None = None,

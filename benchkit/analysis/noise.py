@@ -158,18 +158,18 @@ def hum_lines(f: np.ndarray, p: np.ndarray, volts_per_fs: float | None = None,
     return best
 
 
-def analyze_noise(x, rate: float, *, bandwidth_hz=DEFAULT_BAND_HZ, volts_per_fs: float | None = None,
+def analyze_noise(samples, sample_rate: float, *, bandwidth_hz=DEFAULT_BAND_HZ, volts_per_fs: float | None = None,
                   scale_source: str = "none", reference_vrms: float | None = None, reference: str | None = None,
                   traces: bool = False, channel: int | None = None) -> NoiseResult:
     """The noise of a capture made with the stage's input terminated.
 
     Parameters
     ----------
-    x : array_like
-        Samples in FS: one channel, or frames x channels (``channel`` picks
-        one); at least half a second.
-    rate : float
-        The sample rate, Hz.
+    samples : array_like
+        In FS: one channel, or frames x channels (``channel`` picks one);
+        at least half a second.
+    sample_rate : float
+        In Hz.
     bandwidth_hz : (lo, hi) or None
         The band integrated (default 20 Hz to 20 kHz; None: 0 to fs/2).
     volts_per_fs : float, optional
@@ -181,7 +181,7 @@ def analyze_noise(x, rate: float, *, bandwidth_hz=DEFAULT_BAND_HZ, volts_per_fs:
     traces : bool
         Keep the PSD the report plots.
     channel : int, optional
-        The channel of 2-D ``x``, from 1.
+        The channel of 2-D ``samples``, from 1.
 
     Returns
     -------
@@ -205,7 +205,7 @@ def analyze_noise(x, rate: float, *, bandwidth_hz=DEFAULT_BAND_HZ, volts_per_fs:
     >>> round(1000 * r.rms_fs, 2)
     0.91
     """
-    x = one_channel(x, channel, "analyze_noise")
+    x, rate = one_channel(samples, channel, "analyze_noise"), float(sample_rate)
     if x.size < int(0.5 * rate):
         raise BenchkitError("a noise measurement needs at least half a second of one channel")
     refuse_non_finite(x)

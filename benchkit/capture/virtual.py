@@ -33,7 +33,7 @@ from benchkit.capture.stages import StageModel, StereoCoupling, first_order_high
 from benchkit.errors import BenchkitError
 from benchkit.pads import Pad
 from benchkit.recordings import WavStreamWriter
-from benchkit.signals import Stimulus
+from benchkit.signals import MAX_DBFS, Stimulus
 
 OVERSAMPLE = 8
 #: The round trip drawn for each run, samples.
@@ -116,8 +116,8 @@ class VirtualBench:
 
     name = "virtual"
     capabilities = Capabilities(simulated=True, switchable_load=True, stereo_channels=((1, 3), (1, 2)))
-    #: a simulated interface protects nothing: full scale
-    drive_cap_dbfs = 0.0
+    #: a simulated interface takes what any output may be given
+    drive_cap_dbfs = MAX_DBFS
     drive_output = 1
     lead_s = 0.05
 

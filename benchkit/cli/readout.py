@@ -86,7 +86,7 @@ def watch(
             with run if run is not None else contextlib.nullcontext():
                 mode = "json" if json_lines else "plain" if plain or not sys.stdout.isatty() else "live"
                 end = watch_session(backend, tone, run, record_audio, duration, mode, err)
-                code = EXIT_INTERRUPTED if end.interrupted else EXIT_STOPPED_EARLY if end.clipped else 0
+                code = EXIT_STOPPED_EARLY if end.clipped else EXIT_INTERRUPTED if end.interrupted else 0
         finally:
             if meter is not None:
                 meter.close()

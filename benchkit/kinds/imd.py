@@ -13,7 +13,7 @@ from pathlib import Path
 
 from benchkit.analysis.documents import document
 from benchkit.analysis.imd import analyze_imd, imd_figures, ImdResult, method_tones
-from benchkit.errors import BenchkitError, BenchWarning, read_warnings
+from benchkit.errors import BenchkitError, BenchWarning
 from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.record import SPOILED
 from benchkit.recordings import read_capture, Recording, Takes
@@ -95,7 +95,7 @@ def analyze_imd_steps(rec: Recording, volts_per_fs: float | None = None, load_oh
         if spoiled:
             r = replace(r, valid=False, warnings=r.warnings + (SPOILED,))
         steps.append(ImdStep(drive, r))
-    warnings = [*rec.warnings, *read_warnings(rec.sidecar.get("warnings"))]
+    warnings = list(rec.all_warnings())
     if twin.method == "difference" and rec.sample_rate_hz < DIFFERENCE_MIN_RATE_HZ and twin.f2_hz > 15000:
         warnings.append(BenchWarning("outside-band", f"at {rec.sample_rate_hz:g} Hz the tones at {twin.f1_hz:g} and {twin.f2_hz:g} Hz sit at the "
                         "converters' band edge and 2f2-f1 beyond it: measure at 96 kHz (--rate 96000)"))

@@ -395,11 +395,11 @@ def rating_verdict(result: PowerResult, rated_w: float, conditions: dict | None)
     lim = result.limits[0][0]
     notes = [f"at {result.frequency_hz:g} Hz only: a rating holds over its whole stated band"]
     if conditions is None:
-        notes.append(BenchWarning("not-preconditioned", "not preconditioned"))
+        notes.append("not preconditioned")
     elif conditions["preconditioning"]["shortened"]:
-        notes.append(BenchWarning("not-preconditioned", f"preconditioning shortened to {conditions['preconditioning']['seconds']:g} s"))
+        notes.append(f"preconditioning shortened to {conditions['preconditioning']['seconds']:g} s")
     if conditions is not None and not conditions["all_channels_driven"]:
-        notes.append(BenchWarning("not-preconditioned", f"{conditions['channels_driven']} channels driven: not an all-channels-driven rating"))
+        notes.append(f"{conditions['channels_driven']} channels driven: not an all-channels-driven rating")
     return {**(conditions or {"rated_power_w": rated_w}), "limit_pct": lim,
             "measured_w": None if got is None else got.power_w,
             "meets": None if got is None else got.power_w >= rated_w, "notes": notes}
@@ -417,9 +417,8 @@ def plan_power(backend, profile, frequency_hz: float, channel: int, margin_db: f
     without a scale)."""
     from benchkit import record
 
-    cap = min(backend.drive_cap_dbfs, -0.5)  # (the most any device may get: a simulated one too)
     gain_fs = record.probe_gain(backend, frequency_hz, -40.0, channel)
-    top = min(cap, -margin_db - units.db_from_ratio(gain_fs))
+    top = min(backend.drive_cap_dbfs, -margin_db - units.db_from_ratio(gain_fs))
     say(f"pre-flight: a -40 dBFS step measured {units.db_from_ratio(gain_fs):+.1f} dB from output to input")
     plan = record.plan_run(backend, profile, [top], frequency_hz, channel, None, margin_db, rail_v, pad_rating_w,
                            load_ohms, bridged, say=say, gain_fs=gain_fs)

@@ -23,7 +23,7 @@ from benchkit import capture, units
 from benchkit.analysis import response as resp, sweep as sw
 from benchkit.analysis.response import response_figures, response_readings
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
-from benchkit.errors import BenchkitError, BenchWarning, read_warnings
+from benchkit.errors import BenchkitError, BenchWarning
 from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.recordings import read_capture, Recording, write_capture
 from benchkit.signals import stepped_tones, sweep_stimulus
@@ -187,8 +187,9 @@ def analyze_sweep(samples, sample_rate: float, *, start_hz: float, stop_hz: floa
                   load_ohms: float | None = None, bandwidth_hz: tuple[float, float] | None = DEFAULT_BAND_HZ,
                   ) -> resp.ResponseResult:
     """The response and the harmonic distortion of a stage from a
-    synchronized exponential sweep made elsewhere (played at unit
-    amplitude, exactly the formula, after unknown silence).
+    synchronized exponential sweep made elsewhere (exactly the formula,
+    after unknown silence; levels are referred to a sweep played at full
+    scale).
 
     Parameters
     ----------
@@ -247,8 +248,8 @@ def analyze_sweep(samples, sample_rate: float, *, start_hz: float, stop_hz: floa
     from benchkit.analysis import one_channel
 
     n = np.asarray(samples).shape[1] if np.ndim(samples) == 2 else 1
-    if n > 1 and channel is None:
-        channel = 1 if reference_channel == 2 else None  # (one_channel asks which)
+    if n == 2 and channel is None and reference_channel in (1, 2):
+        channel = 3 - reference_channel  # the other one (with more, one_channel asks which)
     out = one_channel(samples, channel, "analyze_sweep")
     side = {} if volts_per_fs is None else {"channels": [{"number": channel or 1, "volts_per_fs": volts_per_fs}],
                                             "scale_source": "given"}
@@ -267,7 +268,7 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
     if abs(sweep.rate - rate) > 1e-6:
         sweep = sw.SyncSweep.design(sweep.f1_hz, sweep.f2_hz, sweep.seconds, rate, sweep.faded)
     info = {**_info(rec, ref, ref_channel), "sweep": {**sweep.to_dict(), "level_dbfs": units.db_from_ratio(amplitude)}}
-    warnings = [*rec.warnings, *read_warnings(rec.sidecar.get("warnings"))]
+    warnings = list(rec.all_warnings())
     frac = 0.0
     elsewhere = start is None  # a sweep made elsewhere, after unknown silence
     if elsewhere:
@@ -343,7 +344,7 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
 def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
     rate = rec.sample_rate_hz
     segs = rec.sidecar["stimulus"].get("segments") or []
-    freqs, h, thd, thdn, warnings = [], [], [], [], [*rec.warnings, *read_warnings(rec.sidecar.get("warnings"))]
+    freqs, h, thd, thdn, warnings = [], [], [], [], list(rec.all_warnings())
     buried = 0
     levels = {k: [] for k in HARMONIC_ORDERS}
     for seg in segs:
@@ -438,7 +439,8 @@ def response_run(
 
     def keep_spoiled(cap, take):  # kept, not analysed: a stream fault touched it
         write_capture(folder / f"{name}.spoiled{take}.wav", cap.samples, cap.sample_rate_hz,
-                      sidecar(cap, ["a stream fault (overflow or underflow) touched this take: it was played again"]))
+                      sidecar(cap, [BenchWarning("dropout", "a stream fault (overflow or underflow) touched this take: it was "
+                                                  "played again")]))
 
     cap = capture.run_clean(backend, stim, recorder.partial(name), keep_spoiled)
     path = recorder.store(name, cap.samples, sidecar(cap, warnings))

@@ -15,7 +15,7 @@ from pathlib import Path
 from benchkit import capture
 from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ, step_figures, step_readings, ToneResult
-from benchkit.errors import BenchkitError, BenchWarning, read_warnings, warning_docs
+from benchkit.errors import BenchkitError, BenchWarning, warning_docs
 from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.record import SPOILED, record_steps
 from benchkit.recordings import read_capture, Recording, Takes
@@ -106,7 +106,7 @@ def analyze_steps(
     side = rec.sidecar
     return StepsResult(
         str(rec.path), rec.channel, _first_frequency(stim.get("frequency_hz")), tuple(steps),
-        rec.warnings + read_warnings(side.get("warnings")),
+        rec.all_warnings(),
         device=side.get("device"), latency_samples=side.get("latency_samples"),
         clock_offset_ppm=side.get("clock_offset_ppm"),
         calibration=side.get("calibration"),

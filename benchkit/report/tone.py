@@ -13,11 +13,15 @@ from matplotlib.ticker import FuncFormatter
 
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import ToneResult
+from benchkit.errors import read_warnings
 from benchkit.report import overlays, tables
 from benchkit.report.files import report_folder, stem_of
 from benchkit.report.overlays import colour, finish_overlay
 from benchkit.report.plots import BAND, FAINT, hz_label, LABELLED_HARMONICS, MARK, save_png, TRACE
 from benchkit.units import quantity
+
+#: the warnings that make a result not valid, named on its NOT VALID line
+NOT_VALID_CODES = ("input-clipped", "dropout")
 
 
 #: Plain readings of the harmonic profile (common practice).
@@ -51,7 +55,7 @@ def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> s
     if head:
         lines.append(head)
     if not r.valid:
-        lines.append("  NOT VALID: " + "; ".join(w for w in r.warnings if "clipped" in w))
+        lines.append("  NOT VALID: " + "; ".join(w for w in read_warnings(r.warnings) if w.code in NOT_VALID_CODES))
     fund = f"  fundamental  {r.fundamental_hz:.4f} Hz   {r.fundamental_dbfs:.2f} dBFS"
     if r.fundamental_vrms is not None:
         fund += f"   {quantity(r.fundamental_vrms, 'Vrms')}"
