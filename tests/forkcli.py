@@ -254,11 +254,10 @@ def benchkit(*args, env=None, cwd=None, priority: int = 0):
     """``python -m benchkit *args`` with stdout and stderr piped (text): a
     :class:`Forked` child of this process's fork server, or with
     BENCHKIT_TEST_FORK=0 a ``subprocess.Popen``; ``priority`` as
-    :meth:`ForkServer.spawn` takes it."""
+    :meth:`ForkServer.spawn` takes it (the fork server's children only)."""
     if os.environ.get("BENCHKIT_TEST_FORK", "1") == "0" or not hasattr(os, "fork"):
         return subprocess.Popen([sys.executable, "-m", "benchkit", *args], stdout=subprocess.PIPE,
-                                stderr=subprocess.PIPE, text=True, env=env, cwd=cwd,
-                                preexec_fn=(lambda: raise_priority(priority)) if priority else None)
+                                stderr=subprocess.PIPE, text=True, env=env, cwd=cwd)
     if not _SERVER:
         _SERVER.append(ForkServer())
         atexit.register(_SERVER[0].close)

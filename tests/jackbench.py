@@ -30,10 +30,10 @@ import forkcli
 #: a real-time client that misses its deadline, and the Python patch
 #: clients would (the deliberate stalls of the dropout tests aside).
 AUDIO_PRIORITY = 10
-
-
-def _audio_priority() -> None:
-    forkcli.raise_priority(AUDIO_PRIORITY)
+#: a program started ahead of the rest: nice(1) lowers its nice value where
+#: this user may, and otherwise says so (stderr) and starts it as it is (no
+#: preexec_fn: the test process has threads of its own)
+_AHEAD = ["nice", "-n", f"-{AUDIO_PRIORITY}"] if shutil.which("nice") else []
 
 
 class JackServer:
@@ -49,10 +49,10 @@ class JackServer:
         for _attempt in range(2):
             _forget_dead_servers()
             self.proc = subprocess.Popen(
-                ["jackd", "--no-realtime", "-n", self.name, "-d", "dummy", "-r", str(self.rate), "-p", str(self.period)],
+                [*_AHEAD, "jackd", "--no-realtime", "-n", self.name, "-d", "dummy", "-r", str(self.rate), "-p",
+                 str(self.period)],
                 stdout=subprocess.DEVNULL,
                 stderr=subprocess.DEVNULL,
-                preexec_fn=_audio_priority,
             )
             deadline = time.monotonic() + 60  # only a hang guard: a busy machine is slow to start it
             while time.monotonic() < deadline and self.proc.poll() is None:
@@ -124,8 +124,9 @@ class Patchbay:
                  stall_after: float | None = None, stall_stream: int = 1):
         self.lines: list[str] = []
         self.proc = subprocess.Popen(
-            [sys.executable, __file__, server.name, mode, str(a2), str(a3), str(stall_after or -1), str(stall_stream)],
-            stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, preexec_fn=_audio_priority,
+            [*_AHEAD, sys.executable, __file__, server.name, mode, str(a2), str(a3), str(stall_after or -1),
+             str(stall_stream)],
+            stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True,
         )
         self._reader = threading.Thread(target=self._read, daemon=True)
         self._reader.start()
