@@ -161,3 +161,71 @@ def calibrate(
         created=datetime.now(timezone.utc).isoformat(timespec="seconds"),
         note=note,
     )
+
+
+# --- on the bench ------------------------------------------------------------------
+
+
+def calibrate_bench(o: dict, say: Callable[[str], None], ask: Callable[[str], str]) -> Profile:
+    """``benchkit calibrate`` with its options by key (benchkit.options):
+    the output scale from --reading, the virtual bench's own output, or a
+    voltmeter read while a real interface plays the tone; the steps
+    (``ask`` waits at each wiring step and returns the answer); the profile
+    saved to --file."""
+    from benchkit import pads
+    from benchkit.bench import open_backend
+    from benchkit.calibration import save_profile
+    from benchkit.units import quantity
+
+    level = units.parse_level(o["level"]).to_dbfs()
+    real = dict(sample_rate=o["rate"], in_channel=o["in_channel"], out_channel=o["out_channel"],
+                ref_channel=o["ref_channel"])
+    backend = open_backend(o["device"], "ideal", [], "demo", o["seed"], say, real)
+    virtual = backend.capabilities.simulated
+    if o["reading"] is not None:
+        volts = units.parse_level(o["reading"]).to_vrms()
+    elif virtual:
+        volts = backend.output_vrms(level)
+        say(f"virtual bench: the voltmeter reads {quantity(volts, 'Vrms', 5)} at the output")
+    else:
+        volts = units.parse_level(_read_while_playing(backend, level, ask)).to_vrms()
+
+    def wire(step: str) -> None:
+        if virtual:
+            backend.wiring = step
+        elif step != "stage" and not o["yes"]:
+            what = {"loopback": "a cable from the output straight to the input",
+                    "pad": "the output through the pad into the input"}[step]
+            ask(f"wire {what}, then press Enter")
+
+    resistors = pads.parse_pad(o["pad"]) if o["pad"] else None
+    profile = calibrate(backend, volts, level, o["voltmeter_pct"], resistors, o["input_ohms"] if resistors else None,
+                        o["measure_pad"], o["in_channel"], wire, note=o["note"])
+    save_profile(profile, o["file"])
+    return profile
+
+
+def _read_while_playing(backend, level_dbfs: float, ask: Callable[[str], str]) -> str:
+    """Play a steady tone on a real interface until the user types the
+    voltmeter reading; the tone fades out when the answer comes."""
+    import threading
+
+    stim = stepped_tones(CAL_FREQ_HZ, [level_dbfs], backend.sample_rate_hz, step_s=120.0, settle_s=0.0,
+                         out_channel=backend.drive_output, n_out=backend.n_outputs, lead_s=0.1)
+
+    def play():
+        try:
+            backend.play_record(stim)
+        except BenchkitError:  # the abort that ends the tone lands here
+            pass
+
+    t = threading.Thread(target=play, daemon=True)
+    t.start()
+    try:
+        reading = ""
+        while not reading.strip():  # (Enter alone asks again: the tone keeps playing until a value comes)
+            reading = ask(f"a {CAL_FREQ_HZ:g} Hz tone plays: voltmeter reading at the output (e.g. 0.1414V)")
+        return reading
+    finally:
+        backend.request_abort()
+        t.join(5.0)

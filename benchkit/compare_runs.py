@@ -53,6 +53,25 @@ def run_label(entry: RunEntry) -> str:
     return ", ".join(f"{k}={v}" for k, v in entry.tags.items()) or entry.id
 
 
+def chosen_runs(book: Logbook, refs: list[str], last: int | None = None, command: str | None = None) -> list[str]:
+    """The runs ``compare`` was asked for: ``refs`` as given, or the newest
+    ``last`` complete runs (of ``command``, else of the newest run's
+    command), oldest first; two at least."""
+    if last is not None:
+        if refs or last < 2:
+            raise BenchkitError("give runs or --last N, not both" if refs else "--last compares 2 runs or more")
+        if command is None:
+            newest = book.entries(status="complete", limit=1)
+            command = newest[0].command if newest else None
+        chosen = book.entries(command=command, status="complete", limit=last)
+        if len(chosen) < last:
+            raise BenchkitError(f"the logbook has {len(chosen)} complete {command or ''} run(s), not {last}")
+        refs = [e.id for e in reversed(chosen)]
+    if len(refs) < 2:
+        raise BenchkitError("name two or more runs to compare, or --last 2")
+    return refs
+
+
 def compare_runs(book: Logbook, refs: list[str], anyway: bool = False, out: Path | None = None,
                  title: str | None = None) -> ComparisonReport:
     """Compare logged runs (ids, unique prefixes, 'last', 'last-N'), the

@@ -820,3 +820,39 @@ def _warnings(doc: dict) -> list[dict]:
             if w not in out:
                 out.append(w)
     return out
+
+
+def rebuild_bench(root: Path, say: Callable[[str], None] = lambda _m: None) -> tuple[int, list[str]]:
+    """Index every run folder of a bench afresh (``log rebuild``): a
+    damaged catalog is moved aside first (and said). Returns how many runs
+    were indexed and why others were skipped."""
+    catalog = root / CATALOG
+    try:
+        book = Logbook(root)
+    except BenchkitError as exc:
+        if "not a benchkit catalog" not in str(exc) and "cannot open the catalog" not in str(exc):
+            raise
+        aside = catalog.with_name(f"{catalog.name}.damaged-{datetime.now():%Y%m%d-%H%M%S}")
+        catalog.rename(aside)
+        for extra in ("-wal", "-shm"):
+            catalog.with_name(catalog.name + extra).unlink(missing_ok=True)
+        say(f"the catalog was damaged: moved aside to {aside.name}")
+        book = Logbook(root)
+    with book:
+        return book.rebuild()
+
+
+def open_bench(option: str | os.PathLike | None, write: bool = False) -> Logbook:
+    """The logbook of the bench folder ``option`` names (:func:`resolve_bench`),
+    for a command that reads it (``write``: or changes it): a folder
+    without one is refused unless ``write``; one that cannot be written is
+    opened read-only unless ``write``."""
+    root = resolve_bench(option)
+    if not (root / CATALOG).exists() and not write:
+        raise BenchkitError(f"{root} holds no logbook ({CATALOG}): run a measurement there, or give --bench")
+    try:
+        return Logbook(root)
+    except BenchkitError as exc:
+        if write or not str(exc).startswith("cannot write"):
+            raise
+        return Logbook(root, readonly=True)

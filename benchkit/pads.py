@@ -197,3 +197,21 @@ def design(
         found.append(judge(Pad(r1, r2), worst_stage_v, input_fs_vpk, input_ohms, fault_v))
     found.sort(key=lambda rep: (abs(units.db_from_ratio(rep.ratio / target)), rep.pad.r2_ohms))
     return found[:count]
+
+
+def pads_for(o: dict) -> tuple[float, list[PadReport]]:
+    """``benchkit pad`` with its options by key (benchkit.options): the
+    stage's normal swing, volts peak (the larger of --stage-vpk and the
+    rail's, the pre-flight's rule: docs/safety.md), and the pads designed
+    for it, or the one judged (--check R1 --check R2)."""
+    from benchkit.preflight import normal_swing_vpk
+
+    if o["check"] and len(o["check"]) != 2:
+        raise BenchkitError("--check takes two resistances: --check R1 --check R2")
+    if o["stage_vpk"] is None and o["rail"] is None:
+        raise BenchkitError("give --stage-vpk (the stage's highest output, V peak) or --rail (its supply, V)")
+    swings = (o["stage_vpk"], None if o["rail"] is None else normal_swing_vpk(o["rail"], o["btl"]))
+    normal = max(v for v in swings if v is not None)
+    if o["check"]:
+        return normal, [judge(Pad(*o["check"]), normal, o["input_fs"], o["input_ohms"], o["rail"])]
+    return normal, design(normal, o["input_fs"], o["input_ohms"], o["headroom"], o["series"], fault_v=o["rail"])

@@ -310,3 +310,13 @@ def test_a_refusal_makes_no_bench_folder(row, tmp_path, monkeypatch):
     res = run_cli(*shlex.split(row))
     assert res.returncode == 1 and "benchkit: error:" in res.stderr, res.stderr
     assert not (tmp_path / "new").exists()
+
+
+@pytest.mark.parametrize("row", ["tone --freq 30000", "noise --bandwidth 20:30000", "sweep --span 20:30000",
+                                 "sweep --span 10:30000", "sweep --at 30000", "power --load 8 --freq 40000",
+                                 "imd --tones 60:30000", "gain --freq 25000", "zout --load 8 --freq 30000",
+                                 "crosstalk --freq 30000", "watch --freq 30000 --duration 1"])
+def test_a_frequency_past_half_the_rate_is_named_as_such(row, bench):
+    # whatever else the value upsets (a sweep too short for its span ...), the first reason given is the rate's
+    res = run_cli(*shlex.split(row))
+    assert res.returncode == 1 and "half the sample rate" in res.stderr, res.stderr

@@ -104,8 +104,16 @@ def test_every_kind_is_one_module_named_as_it_is():
     assert all(callable(k.reanalyse) for k in kinds.all_kinds())
     # a kind's run is reported by the kind (the live readout shows its own)
     assert all(callable(k.summary) and callable(k.reports) for k in kinds.all_kinds() if k.name != "watch")
-    # every command that files a run files it under a kind's name
-    filed = set(re.findall(r'start_run\(book, labels, "(\w+)"', "".join(p.read_text() for p in (PKG / "cli").glob("*.py"))))
+    # every kind that measures on a bench is a command of its name, run the one way (benchkit.bench.measure) ...
+    measuring = {k.name for k in kinds.all_kinds() if k.live is not None}
+    assert measuring >= {"tone", "sweep", "power", "imd", "noise", "gain", "zout", "crosstalk"}
+    from typer.main import get_command
+
+    from benchkit.cli import app
+
+    assert measuring <= set(get_command(app).commands)
+    # ... and a run filed another way (a watch, a drift log, zout from two runs) is filed under a kind's name
+    filed = set(re.findall(r'start_run\(book, labels, "(\w+)"', "".join(p.read_text() for p in PKG.rglob("*.py"))))
     assert filed and filed <= found
 
 
@@ -115,6 +123,19 @@ def test_the_registry_loads_no_plotting_and_no_cli():
 
     code = ("import sys; from benchkit import kinds; kinds.all_kinds(); "
             "print(sorted(m for m in ('matplotlib', 'typer', 'sounddevice') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "[]"
+
+
+def test_the_command_line_starts_without_scipy_or_plotting():
+    # every command is declared by its kind, so the command line loads every kind; none of them
+    # may load scipy or matplotlib on import (they take most of a second: benchkit --help would wait)
+    import subprocess
+    import sys
+
+    code = ("import sys; import benchkit.cli; "
+            "print(sorted(m for m in ('matplotlib', 'scipy.signal', 'scipy.fft', 'scipy.optimize', 'sounddevice') "
+            "if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "[]"
 

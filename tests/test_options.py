@@ -4,6 +4,7 @@ one version with a notice."""
 
 from __future__ import annotations
 
+import json
 import re
 from pathlib import Path
 
@@ -11,7 +12,7 @@ import pytest
 from typer.main import get_command
 
 from benchkit.cli import app
-from benchkit.cli.vocabulary import command_of, modernise, RENAMED, RENAMED_VALUES
+from benchkit.options.vocabulary import command_of, modernise, RENAMED, RENAMED_VALUES
 
 from conftest import run_cli
 
@@ -109,3 +110,43 @@ def test_every_help_example_uses_the_current_names():
     for words in examples:
         said = []
         assert modernise(words, said.append) == words and not said, words
+
+
+def test_every_option_comes_from_the_one_table():
+    # benchkit.options.OPTIONS declares each option once; every command builds its options from it
+    from benchkit.options import OPTIONS
+
+    assert set(_options()) - {"--version"} == {o.flag for o in OPTIONS.values()}
+    assert len({o.flag for o in OPTIONS.values()}) == len(OPTIONS)  # one entry an option
+
+
+def test_every_measuring_kind_names_options_of_the_table():
+    # what a kind takes on a bench (its command's options, and a plan's) is named in the vocabulary
+    from benchkit import kinds
+    from benchkit.options import defaults, OPTIONS
+
+    for kind in kinds.all_kinds():
+        if kind.live is not None:
+            taken = set(defaults(kind.live.options, *kind.live.groups)) | set(kind.live.defaults)  # (unknown: KeyError)
+            assert taken <= set(OPTIONS) and set(kind.live.helps) <= taken, kind.name
+            assert {"json", "bench", "device", "rate"} <= taken, kind.name
+
+
+def test_a_one_value_option_given_twice_says_which_is_used(tmp_path):
+    # the last of two is used (as is usual: a script overrides what it gave), and said, not silently
+    res = run_cli("tone", "--load", "8", "--load=4", "--bench", str(tmp_path), "--json")
+    assert res.returncode == 0 and "--load takes one value and is given more than once" in res.stderr
+    assert json.loads(res.stdout)["conditions"]["load_ohms"] == 4.0
+    # an option that repeats, repeats, without a note
+    res = run_cli("tone", "--level", "-30dBFS", "--level", "-24dBFS", "--bench", str(tmp_path))
+    assert res.returncode == 0 and "more than once" not in res.stderr
+
+
+def test_an_option_given_by_its_long_and_short_name_counts_as_given_twice():
+    from typer.main import get_command
+
+    from benchkit.cli import app
+    from benchkit.options.vocabulary import given_twice
+
+    assert given_twice(get_command(app), ["analyze", "x.wav", "-c", "1", "--channel=2"]) == ["--channel"]
+    assert given_twice(get_command(app), ["analyze", "x.wav", "-c2"]) == []

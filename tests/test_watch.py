@@ -249,7 +249,16 @@ def test_a_watch_that_ends_before_its_first_reading_is_filed_failed(tmp_path):
     # a watch can end (its duration out, the input clipping as the tone comes
     # in) before its first reading: no summary of nothing, no error of it; the
     # run is filed as failed and says why
-    res = run_cli("watch", "--sim", "ideal", "--plain", "--duration", "0.01", "--bench", str(tmp_path))
+    res = run_cli("watch", "--sim", "ideal", "--plain", "--duration", "0.01", "--record", "--bench", str(tmp_path))
     assert res.returncode == 0 and "0 readings" in res.stderr and "Traceback" not in res.stderr, res.stderr
     (run,) = json.loads(run_cli("log", "list", "--bench", str(tmp_path), "--json").stdout)["runs"]
     assert run["status"] == "failed" and "before its first reading" in run["error"]
+
+
+def test_a_watch_without_record_files_nothing(tmp_path):
+    # --record keeps the readings as a run; without it the bench folder is not touched
+    res = run_cli("watch", "--sim", "ideal", "--plain", "--duration", "1.5", "--bench", str(tmp_path / "bench"))
+    assert res.returncode == 0 and "THD+N" in res.stdout, res.stderr
+    assert not (tmp_path / "bench").exists()
+    res = run_cli("watch", "--record-audio", "--duration", "0.3", "--bench", str(tmp_path / "bench"))
+    assert res.returncode == 1 and "--record-audio goes with --record" in res.stderr

@@ -16,7 +16,9 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.optimize
+
+# scipy is imported in the functions that use it: it is slow to load, and the
+# command line (which reads this module) starts without it
 from benchkit.errors import BenchWarning
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
@@ -58,6 +60,7 @@ class SettlingFit:
 def fit_settling(t_s, v, band_v: float | None = None) -> SettlingFit | None:
     """Fit the first-order model; None when there are too few readings or
     the fit does not converge (no settling to see)."""
+    import scipy.optimize
     t, y = np.asarray(t_s, float), np.asarray(v, float)
     if t.size < MIN_FIT_POINTS or np.ptp(t) <= 0:
         return None

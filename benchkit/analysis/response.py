@@ -11,7 +11,9 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.optimize
+
+# scipy is imported in the functions that use it: it is slow to load, and the
+# command line (which reads this module) starts without it
 
 from benchkit import units
 from benchkit.analysis.documents import Conditions, document
@@ -93,6 +95,7 @@ class CornerFit:
 def fit_first_order_highpass(freq_hz, mag_db, ref_db: float, near_hz: float) -> CornerFit | None:
     """Fit the high-pass over an octave and a half either side of the low
     -3 dB point ``near_hz`` (where the measured range allows)."""
+    import scipy.optimize
     f = np.asarray(freq_hz, float)
     sel = (f >= near_hz / 2.8) & (f <= near_hz * 2.8)
     if sel.sum() < 5:

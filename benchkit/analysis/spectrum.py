@@ -16,7 +16,9 @@ import threading
 from functools import lru_cache
 
 import numpy as np
-import scipy.fft
+
+# scipy is imported in the functions that use it: it is slow to load, and the
+# command line (which reads this module) starts without it
 
 #: Nuttall (1981) four-term window, continuous first derivative.
 WINDOW_COEFFS = (0.355768, 0.487396, 0.144232, 0.012604)
@@ -46,6 +48,7 @@ _scratch = threading.local()
 def windowed_rfft(x: np.ndarray) -> np.ndarray:
     """``rfft(x * window(len(x)))``, the product formed in a per-thread
     scratch buffer (a fresh array per call costs a third of the FFT)."""
+    import scipy.fft
     n = x.size
     buf = getattr(_scratch, "buf", None)
     if buf is None or buf.size != n:

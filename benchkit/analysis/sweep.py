@@ -28,8 +28,9 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 
 import numpy as np
-import scipy.fft
-import scipy.signal
+
+# scipy is imported in the functions that use it: it is slow to load, and the
+# command line (which reads this module) starts without it
 
 from benchkit.analysis import refuse_non_finite
 from benchkit.errors import BenchkitError
@@ -153,6 +154,7 @@ def deconvolve(response: np.ndarray, sweep: SyncSweep, nfft: int | None = None) 
 
     ``response`` must start where the sweep starts (align it first).
     """
+    import scipy.fft
     y = np.asarray(response, dtype=float)
     if nfft is None:
         nfft = deconvolution_length(sweep, y.size)
@@ -172,6 +174,7 @@ def _inverse_bins(sweep: SyncSweep, nfft: int) -> np.ndarray:
 
 def deconvolution_length(sweep: SyncSweep, n: int) -> int:
     """An FFT length that keeps every response apart from its wrap."""
+    import scipy.fft
     need = int(math.ceil((sweep.duration_s + sweep.harmonic_delay_s(MAX_ORDER + 3) + MAX_IR_S + 1.0) * sweep.rate))
     return scipy.fft.next_fast_len(max(need, n) + int(MAX_IR_S * sweep.rate))
 
@@ -191,6 +194,7 @@ def response_at(h: np.ndarray, sweep: SyncSweep, order: int, freqs: np.ndarray) 
     """The order-k response, windowed out of ``h`` and evaluated at
     ``freqs`` (for k > 1, the harmonic's own frequencies k f), referred to
     its exact time -L ln k."""
+    import scipy.fft
     rate = sweep.rate
     before, after = sweep.windows(order)[order - 1]
     t0 = -sweep.harmonic_delay_s(order)
@@ -341,6 +345,8 @@ def steady_lines(quiet: np.ndarray, rate: float, lo_hz: float = 20.0) -> list[fl
     """Frequencies of steady tones (hum, supply ripple) in a stretch with
     no stimulus. A sweep cannot tell them from distortion: a tone at F
     shows as a harmonic response of order k at F / k."""
+    import scipy.fft
+    import scipy.signal
     n = quiet.size
     if n < int(0.1 * rate):
         return []

@@ -24,7 +24,9 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.fft
+
+# scipy is imported in the functions that use it: it is slow to load, and the
+# command line (which reads this module) starts without it
 
 from benchkit.units import quantity
 from benchkit import units
@@ -555,6 +557,7 @@ def find_dropouts(x: np.ndarray, residual: np.ndarray, sample_rate: float, f0: f
 
 def band_limited(x: np.ndarray, sample_rate: float, band: tuple[float, float]) -> np.ndarray:
     """``x`` with everything outside ``band`` (Hz) removed (its FFT, cut)."""
+    import scipy.fft
     spec = scipy.fft.rfft(x)
     keep = sp.band_bins(x.size, sample_rate, *band)
     spec[: keep.start] = 0.0

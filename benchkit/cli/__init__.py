@@ -38,9 +38,13 @@ def main() -> None:
     unknown option, a missing argument) one line and exit 2; a bug one line
     and exit 3. An option's old name (docs/options.md) is rewritten to
     its new one first, with a notice."""
-    from benchkit.cli.vocabulary import modernise
+    from typer.main import get_command
+
+    from benchkit.options.vocabulary import given_twice, modernise
 
     sys.argv[1:] = modernise(sys.argv[1:], err)
+    for flag in given_twice(get_command(app), sys.argv[1:]):
+        err(f"benchkit: note: {flag} takes one value and is given more than once: the last one given is used")
     try:
         code = app(standalone_mode=False)
     except _CLICK.UsageError as exc:

@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import importlib
 import pkgutil
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any, Callable, ClassVar
 
@@ -91,6 +91,24 @@ class Offline:
     profile: Any = None
     profile_path: Path | None = None
 
+    @classmethod
+    def of(cls, o: dict) -> "Offline":
+        """``analyze``'s options by key (benchkit.options), checked."""
+        from benchkit import units
+        from benchkit.calibration import load_profile
+        from benchkit.kinds.power import figure_options
+        from benchkit.options import JUDGE
+
+        return cls(channel=o["channel"], fundamental_hz=o["fundamental"], bandwidth_hz=units.parse_band(o["bandwidth"]),
+                   averages=o["averages"], volts_per_fs=o["volts_per_fs"], load_ohms=o["load"], out=o["out"],
+                   sweep=units.parse_sweep_spec(o["sweep"]) if o["sweep"] else None, ref_channel=o["ref_channel"],
+                   ref_freq_hz=o["ref_freq"], smooth=o["smooth"],
+                   power=figure_options(o) if o["as_kind"] == "power" else None, imd_method=o["imd"],
+                   noise=o["as_kind"] == "noise", gain=o["as_kind"] == "gain", time_col=o["time_col"],
+                   value_col=o["value_col"], judge={k: o[k] for k in JUDGE},
+                   profile=load_profile(o["calibration"]) if o["calibration"] is not None else None,
+                   profile_path=o["calibration"])
+
     def scale(self, rec) -> tuple[float | None, str]:
         """The capture's volts per full scale and where it came from."""
         return (self.volts_per_fs, "given") if self.volts_per_fs is not None else rec.channel_scale()
@@ -105,6 +123,69 @@ class Analysed:
     doc: dict
     text: str
     write: Callable[[Path], list[Path]] | None = None
+
+
+@dataclass(frozen=True)
+class Measured:
+    """What a kind's live measurement gives :func:`benchkit.bench.measure`:
+    its result, the title of its summary, options of its report files, files
+    of its own beside them, the run's status and how it ended (None,
+    "interrupted" or "device-lost")."""
+
+    result: Any
+    title: str = ""
+    report: dict = field(default_factory=dict)
+    files: tuple = ()
+    status: str = "complete"
+    ended: str | None = None
+
+
+@dataclass(frozen=True)
+class Live:
+    """How a kind measures on a bench; :func:`benchkit.bench.measure` runs
+    every kind the same way. Each part takes the options by their keys in
+    :mod:`benchkit.options` (``o``) or the :class:`benchkit.bench.Bench`
+    under way (``s``).
+
+    Parameters
+    ----------
+    opens
+        ``(o) -> dict``: every option checked that needs no device, and how
+        the device opens (:func:`benchkit.bench.live_setup`'s ``ref``,
+        ``load``, ``stereo``, ``more``; ``within``: the frequencies played
+        or analysed, for :func:`benchkit.bench.check_within`; ``keep``: what
+        it worked out from the options, for ``prepare`` and ``measure`` in
+        the bench's ``more``).
+    prepare
+        ``(s) -> params``: the pre-flight with the device open (sets the
+        drive and plan), and the run's parameters as its record stores them.
+    measure
+        ``(s, folder) -> Measured``: record into the run's folder (the
+        capture on disk first), then analyse.
+    options
+        The keys of the options it takes (its command's, a plan's), beyond
+        its ``groups`` (benchkit.options: "live", "figures", "filing" ...).
+    defaults
+        Its own defaults where they differ from the vocabulary's (a list:
+        the option repeats; ``...``: it must be given).
+    helps
+        An option's help worded for this kind.
+    about
+        Its command's help: what it does, an example, the safety notes.
+    other
+        ``(o, say) -> Filed | None``: a run made another way when the
+        options ask for it (zout --from: two logged runs), else None.
+    """
+
+    opens: Callable[[dict], dict]
+    prepare: Callable[[Any], dict]
+    measure: Callable[[Any, Path], Measured]
+    options: str = ""
+    groups: tuple[str, ...] = ("live", "filing")
+    defaults: dict = field(default_factory=dict)
+    helps: dict = field(default_factory=dict)
+    about: str = ""
+    other: Callable | None = None
 
 
 @dataclass(frozen=True)
@@ -142,6 +223,9 @@ class Kind:
     readings
         ``(result document) -> [analysis.zout.Reading]``: the stage's output
         levels its result holds (an output impedance from two logged runs).
+    live
+        Its :class:`Live`: how it measures on a bench (None: it does not,
+        or not through the one path).
     rank
         Where it stands when a capture is recognised: lower first (a
         two-tone capture is also a stepped one).
@@ -161,6 +245,7 @@ class Kind:
     chosen: Callable[[Offline], bool] | None = None
     analyse: Callable[[Any, Offline], Analysed] | None = None
     readings: Callable[[dict], list] | None = None
+    live: Live | None = None
     rank: int = 50
     reads: str = "capture"
 

@@ -17,7 +17,7 @@ import numpy as np
 
 from benchkit.analysis.drift import analyze_drift, drift_figures, drift_rate_v_per_s, DriftResult, fit_settling
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, Kind, Offline, RunParams
+from benchkit.kinds import Analysed, Kind, Measured, Offline, RunParams
 from benchkit.meters import read_drift_csv, SourceLost
 
 
@@ -211,6 +211,74 @@ def analyse(path: Path, o: Offline) -> Analysed:
                                j.get("window", 60.0), nominal_v=j.get("nominal", 0.0))
     return Analysed(result.to_dict(), report.drift_summary(result, f"{path}: drift"),
                     lambda out: report.drift_reports(result, path, out))
+
+
+# --- on the bench ----------------------------------------------------------------
+
+
+def _source(o: dict, profile, say):
+    """Where the DC is read (--dc-source): the virtual stage's midpoint, a meter, or the measuring input."""
+    from benchkit import meters
+
+    if o["dc_source"] == "virtual":
+        from benchkit.capture.stages import make_stage, parse_params
+
+        return meters.VirtualMidpoint(make_stage("se-class-a", parse_params(o["sim_param"]), seed=o["seed"]),
+                                      o["accelerate"], o["seed"])
+    if o["dc_source"] == "meter":
+        from benchkit.kinds.watch import check_dc_source
+
+        check_dc_source("meter", o["meter"], None, profile)
+        return meters.ScpiMeter(o["meter"])
+    from benchkit.bench import open_backend
+
+    backend = open_backend(o["device"], "ideal", [], "demo", o["seed"], say, dict(in_channel=o["in_channel"]))
+    return meters.InterfaceDc(backend, profile, o["in_channel"])
+
+
+def log(o: dict, say):
+    """A DC log on the bench its options describe (by key,
+    benchkit.options), filed in the logbook: every reading written as it
+    comes, then judged. Returns the filed run and how the log ended."""
+    from benchkit import meters
+    from benchkit.bench import bench_logbook, finish, start_run
+    from benchkit.calibration import load_profile
+    from benchkit.errors import BenchWarning
+
+    virtual = o["dc_source"] == "virtual"
+    step = o["interval"] * (o["accelerate"] if virtual else 1.0)  # the source's own seconds between readings
+    if o["duration"] is not None and o["duration"] < 2 * step:
+        raise BenchkitError(f"--duration {o['duration']:g} s holds fewer than two readings {step:g} s apart"
+                            + (f" (--interval {o['interval']:g} s x --accelerate {o['accelerate']:g} on the virtual "
+                               "source)" if virtual else "") + ": lengthen it or shorten --interval")
+    with bench_logbook(o) as (book, labels):
+        profile = load_profile(o["calibration"]) if o["calibration"] is not None else None
+        reader = _source(o, profile, say)
+        limit = o["dc_limit"]
+        band = o["settle_band"] if o["settle_band"] is not None else (limit / 10 if limit else 1e-3)
+        params = dict(source=o["dc_source"], limit_v=limit, band_v=band, window_s=o["window"], nominal_v=o["nominal"],
+                      interval_s=o["interval"], accelerated=getattr(reader, "accelerated", 0.0) or None)
+        with start_run(book, labels, "drift", reader.name, profile if o["dc_source"] == "input" else None,
+                       o["calibration"], params, say) as run:
+            path = run.folder / LOG
+            amps = meters.ScpiMeter(o["current_meter"], quantity="amps") if o["current_meter"] else None
+            say(f"source: {reader.name}; logging to {path}" + (f"; supply current: {amps.name}" if amps else ""))
+            try:
+                end = log_drift(reader, path, o["interval"], o["duration"], o["until_settled"], band, o["window"],
+                                say=say, current=amps)
+            finally:
+                reader.close()
+                if amps is not None:
+                    amps.close()
+            whole = end.how in ("duration", "settled")
+            notes = () if whole else (BenchWarning("interrupted", f"the log stopped early: {end.message}"),)
+            if end.how == "lost":
+                say(f"benchkit: {end.message}: the log stopped; every reading so far is in {path}")
+            result = analyze_drift_csv(path, limit_v=limit, band_v=band, window_s=o["window"], warnings=notes,
+                                       info={"source": reader.name, "ended": end.how, "accelerated": params["accelerated"]},
+                                       nominal_v=o["nominal"])
+            got = Measured(result, f"{reader.name}: {end.how}", status="complete" if whole else "interrupted")
+            return finish(run, KIND, got, say), end
 
 
 KIND = Kind("drift", reanalyse, DriftParams, summary, reports, figures=drift_figures, overlay=overlay, analyse=analyse, reads="csv")

@@ -14,7 +14,7 @@ from pathlib import Path
 from benchkit.analysis.gain import analyze_gain, gain_figures, gain_readings, GainResult
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, CAPTURE, Kind, Offline, run_capture, RunParams
+from benchkit.kinds import Analysed, CAPTURE, Kind, Live, Measured, Offline, run_capture, RunParams
 from benchkit.recordings import read_capture, Takes
 
 
@@ -109,5 +109,51 @@ def analyse(rec, o: Offline) -> Analysed:
     return Analysed(doc, report.gain_summary(doc, f"{path} channel {rec.channel}: gain"))
 
 
+# --- on the bench ----------------------------------------------------------------
+
+
+def _opens(o: dict) -> dict:
+    from benchkit.bench import opens_tones
+
+    return opens_tones(o, [o["freq"]])
+
+
+def _prepare(s) -> dict:
+    from benchkit.bench import preflight
+    o = s.o
+    s.ref_channel = o["ref_channel"] if o["ref_channel"] is not None else s.backend.reference_input()
+    preflight(s, [o["level"]], o["freq"], o["load"])
+    return dict(channel=s.channel, ref_channel=s.ref_channel, frequency_hz=o["freq"], level_dbfs=s.drive[0],
+                load_ohms=o["load"], bandwidth_hz=s.band)
+
+
+def _measure(s, folder: Path) -> Measured:
+    from benchkit.record import record_steps
+    o = s.o
+    path = record_steps(s.backend, folder, o["freq"], s.drive, channel=s.channel, **s.stored())
+    return Measured(gain_of_capture(path, s.channel, s.ref_channel, s.band, o["load"]))
+
+
+#: the command's help
+ABOUT = """Measure the stage's voltage gain at a frequency and level, in V/V and dB, with its phase.
+
+    The input is measured on --ref-channel (wired to the stage's input)
+    or taken from the drive at the calibrated output scale; the output
+    through the pad at its calibrated scale.
+
+    Example: benchkit gain --freq 1000 --level -30dBFS --load 8 --tag bias=1.2A
+
+    Safety: a gain run is one short tone; start low on an unknown stage,
+    into a dummy load through a pad.
+    """
+
+#: how it measures on a bench: the command's options (benchkit.options) and help
+ON_BENCH = Live(
+    _opens, _prepare, _measure,
+    options="freq ref_channel load bandwidth json",
+    defaults=dict(level="-30 dBFS"),
+    about=ABOUT,
+)
+
 KIND = Kind("gain", reanalyse, GainParams, summary, reports, figures=gain_figures, chosen=lambda o: o.gain, analyse=analyse, readings=gain_readings,
-            rank=10)
+            live=ON_BENCH, rank=10)

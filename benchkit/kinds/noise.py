@@ -19,7 +19,7 @@ import numpy as np
 from benchkit.analysis.noise import analyze_noise, noise_figures, NoiseResult
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams, series_from_csv
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Live, Measured, Offline, run_capture, RunParams, series_from_csv
 from benchkit.recordings import read_capture, Recording
 from benchkit.signals import Segment, Stimulus
 
@@ -134,5 +134,69 @@ def analyse(rec, o: Offline) -> Analysed:
                     lambda out: report.noise_reports(result, Path(rec.path), rec.channel, out))
 
 
+# --- on the bench ----------------------------------------------------------------
+
+#: the longest noise record, seconds (it is held in memory to be analysed)
+LONGEST_S = 600.0
+
+
+def _opens(o: dict) -> dict:
+    from benchkit.bench import at_most, given_band
+
+    at_most(o, "duration", LONGEST_S, "a noise record")
+    return dict(load=o["load"], within=(("--bandwidth", given_band(o["bandwidth"])),))
+
+
+def _reference(o: dict) -> tuple[float | None, str | None]:
+    """The output the SNR is referred to, Vrms, and how it was given."""
+    if o["ref_vrms"] is not None:
+        return o["ref_vrms"], f"{o['ref_vrms']:g} Vrms"
+    if o["load"] is not None:
+        from benchkit.units import vrms_from_watts
+
+        return vrms_from_watts(o["ref_power"], o["load"]), f"{o['ref_power']:g} W into {o['load']:g} ohm"
+    return None, None
+
+
+def _prepare(s) -> dict:
+    if not s.backend.capabilities.simulated and not s.o["yes"]:
+        s.ask("short or terminate the stage's input, then press Enter")
+    vrms, reference = _reference(s.o)
+    return dict(channel=s.channel, bandwidth_hz=s.band or DEFAULT_BAND_HZ,
+                reference_vrms=vrms, reference=reference, length_s=s.o["duration"])
+
+
+def _measure(s, folder: Path) -> Measured:
+    o = s.o
+    result = noise_run(s.backend, folder, o["duration"], s.channel, s.band or DEFAULT_BAND_HZ,
+                       *_reference(o), s.labels.get("note", ""), s.profile, s.calibration_file)
+    return Measured(result, f"noise of {s.backend.name} input {s.channel}, {o['duration']:g} s")
+
+
+#: the command's help
+ABOUT = """Measure the stage's output noise with its input terminated: unweighted and A-weighted, SNR, hum lines.
+
+    Nothing is played. Short the stage's input, or terminate it in the
+    source impedance it is specified with, before the run; the noise is
+    integrated over the band as it stands and A-weighted (IEC 61672-1),
+    in uV and dBV with a scale, and the SNR referred to --ref-power into
+    --load (or --ref-vrms). Hum at 50 or 60 Hz and its harmonics is
+    listed with its levels.
+
+    Example: benchkit noise --duration 10 --load 8 --ref-power 1 --tag bias=1.2A
+
+    Safety: terminate the input with the stage switched off; mind the hot
+    parts of a class-A stage while you do.
+    """
+
+#: how it measures on a bench: the command's options (benchkit.options) and help
+ON_BENCH = Live(
+    _opens, _prepare, _measure,
+    options="load ref_power ref_vrms bandwidth yes json",
+    defaults=dict(duration=5.0),
+    helps=dict(duration="Seconds of noise to record (after half a second of settling), at most 600.", load="Load resistance, ohms: the SNR is referred to --ref-power into it."),
+    about=ABOUT,
+)
+
 KIND = Kind("noise", reanalyse, NoiseParams, summary, reports, figures=noise_figures, overlay=overlay, recognises=recognises,
-            chosen=lambda o: o.noise, analyse=analyse, rank=40)
+            chosen=lambda o: o.noise, analyse=analyse, live=ON_BENCH, rank=40)

@@ -29,7 +29,7 @@ from benchkit.analysis.power import analyze_power, DEFAULT_LIMITS_PCT, JUMP_SLOP
 from benchkit.budget import ClassABudget
 from benchkit.capture import FAULT_ADVICE, HearsFaults, MAX_RETRIES as MAX_RETAKES
 from benchkit.errors import BenchWarning, BenchkitError
-from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Live, Measured, Offline, run_capture, RunParams
 from benchkit.kinds.tone import analyze_steps, is_stepped, StepsResult
 from benchkit.recordings import read_capture
 from benchkit.units import quantity
@@ -608,5 +608,110 @@ def analyse(rec, o: Offline) -> Analysed:
                     lambda out: report.power_reports(result, Path(rec.path), rec.channel, out))
 
 
+# --- on the bench ----------------------------------------------------------------
+
+
+def figure_options(o: dict) -> dict:
+    """How power figures are read (the options of ``analyze --as power``
+    and ``power``), checked: the limits, metric and onset, the supply and
+    the stage's budget where --rail and --bias describe it."""
+    if o["load"] is None:
+        raise BenchkitError("--as power needs --load (ohms)")
+    if o["supply_amps"] is not None and o["supply_volts"] is None:
+        raise BenchkitError("--supply-amps needs --supply-volts")
+    if o["bias"] is not None and o["rail"] is None:
+        raise BenchkitError("--bias describes the stage with --rail: give both for the expected ceiling")
+    # --rail alone is the pre-flight's; with --bias it describes the stage for the budget too
+    budget = ClassABudget(o["rail"], o["bias"], o["load"], o["vsat"]) if o["bias"] is not None else None
+    return dict(load_ohms=o["load"], metric=o["metric"], limits_pct=tuple(o["limit"]), onset_db=o["onset_db"],
+                supply_v=o["supply_volts"], supply_a=o["supply_amps"], budget=budget)
+
+
+def _opens(o: dict) -> dict:
+    from benchkit.analysis.tone import DEFAULT_BAND_HZ
+
+    figures = figure_options(o)
+    if o["current_meter"] and o["supply_volts"] is None:
+        raise BenchkitError("--current-meter needs --supply-volts (efficiency is P / (V I))")
+    if o["precondition"] and o["rated_power"] is None:
+        raise BenchkitError("--precondition needs --rated-power (it holds 1/8 of it)")
+    if o["precondition_s"] is not None and not o["precondition"]:
+        raise BenchkitError("--precondition-s goes with --precondition")
+    return dict(ref=o["ref_channel"], load=o["load"], within=(("--freq", [o["freq"]], DEFAULT_BAND_HZ),),
+                keep=dict(figures=figures))
+
+
+def _prepare(s) -> dict:
+    o, f = s.o, s.more["figures"]
+    s.ref_channel = o["ref_channel"] if o["ref_channel"] is not None else s.backend.reference_input()
+    s.plan, first, top, scale = plan_power(s.backend, s.profile, o["freq"], s.channel, o["margin"], o["rail"],
+                                           o["pad_rating"], o["load"], o["btl"], f["budget"], o["start"], say=s.say)
+    s.more.update(first=first, top=top, scale=scale)  # (the steps' drive is chosen as they go)
+    for w in s.plan.warnings:
+        s.say(f"warning: {w}")
+    return dict(channel=s.channel, ref_channel=s.ref_channel, frequency_hz=o["freq"], load_ohms=o["load"],
+                metric=f["metric"], limits_pct=list(f["limits_pct"]), onset_db=f["onset_db"], supply_v=f["supply_v"],
+                supply_a=f["supply_a"], rail_v=o["rail"], bias_a=o["bias"], vsat_v=o["vsat"], rated_w=o["rated_power"])
+
+
+def _measure(s, folder: Path) -> Measured:
+    o, f = s.o, s.more["figures"]
+    first, top, scale = s.more["first"], s.more["top"], s.more["scale"]
+    conditions = None
+    if o["precondition"]:
+        if not scale:
+            raise BenchkitError("--precondition needs volts at the stage: give --calibration or --volts-per-fs")
+        conditions = precondition(s.backend, o["freq"], o["rated_power"], o["load"], scale,
+                                  o["precondition_s"] or PRECONDITION_S, o["channels"], say=s.say)
+    s.say(f"steps from {first:.1f} dBFS, at most {top:.1f} dBFS (the input's margin or the drive cap)")
+    amps = None
+    if o["current_meter"]:
+        from benchkit.meters import ScpiMeter
+
+        amps = ScpiMeter(o["current_meter"], quantity="amps")
+        s.say(f"supply current: {amps.name}")
+    try:
+        result = power_run(s.backend, folder, o["freq"], first, top, o["load"], s.channel, s.ref_channel, f["metric"],
+                           f["limits_pct"], f["onset_db"], f["supply_v"], f["supply_a"], f["budget"], s.profile,
+                           s.calibration_file, step_db=o["step_db"], fine_db=o["fine_db"], warnings=s.warnings,
+                           note=s.labels.get("note", ""), input_margin_db=o["margin"], rated_w=o["rated_power"],
+                           conditions=conditions, supply_meter=amps)
+    finally:
+        if amps is not None:
+            amps.close()
+    info = result.info or {}
+    title = (f"{o['freq']:g} Hz into {o['load']:g} ohm: {units.count(info.get('steps_played') or 0, 'step')}, "
+             f"{info.get('stimulus_s', 0):.1f} s; stopped: {info.get('stop_reason')}")
+    return Measured(result, title, status="interrupted" if info.get("interrupted") else "complete",
+                    ended="device-lost" if info.get("device_lost") else "interrupted" if info.get("interrupted") else None)
+
+
+#: the command's help
+ABOUT = """Measure the power at set distortion limits: one stream of rising steps, each next level chosen from the last.
+
+    Reports the power where THD+N (or THD) crosses each limit (1 %, 0.1 %
+    and 10 % by default), interpolated on log axes between the bracketing
+    steps, the clipping onset, which half clips first, and with the supply
+    known the efficiency and idle dissipation; beside the expected ceiling
+    when --rail and --bias describe the stage.
+
+    Example: benchkit power --load 8 --rail 24 --bias 0.8 --supply-volts 24 --supply-amps 0.8
+
+    Safety: this drives the stage into clipping at full power. Use a dummy
+    load rated for the power (never a speaker), mind the heat sink and the
+    load's temperature, and keep the pad rated for the highest output.
+    Ctrl-C fades the output to silence and reports the completed steps.
+    """
+
+#: how it measures on a bench: the command's options (benchkit.options) and help
+ON_BENCH = Live(
+    _opens, _prepare, _measure,
+    options="freq start step_db fine_db current_meter rated_power precondition precondition_s channels ref_channel json",
+    groups=("live", "figures", "filing"),
+    defaults=dict(load=...),
+    helps=dict(load="Load resistance, ohms (a dummy load of the right rating)."),
+    about=ABOUT,
+)
+
 KIND = Kind("power", reanalyse, PowerParams, summary, reports, figures=power_figures, overlay=overlay, chosen=lambda o: o.power is not None,
-            analyse=analyse, rank=80)
+            analyse=analyse, live=ON_BENCH, rank=80)

@@ -24,7 +24,7 @@ from benchkit.analysis import response as resp, sweep as sw
 from benchkit.analysis.response import response_figures, response_readings
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError, BenchWarning
-from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
+from benchkit.kinds import Live, Measured, Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
 from benchkit.recordings import read_capture, Recording, write_capture
 from benchkit.signals import stepped_tones, sweep_stimulus
 from benchkit.units import quantity
@@ -516,5 +516,71 @@ def analyse(rec, o: Offline) -> Analysed:
                     lambda out: report.response_reports(result, Path(rec.path), rec.channel, out, o.smooth))
 
 
+# --- on the bench ----------------------------------------------------------------
+
+#: the longest sweep, seconds
+LONGEST_S = 120.0
+
+
+def _opens(o: dict) -> dict:
+    from benchkit.analysis.sweep import SyncSweep
+    from benchkit.bench import at_most, check_within, given_band
+
+    at_most(o, "duration", LONGEST_S, "a sweep")
+    f1, f2 = units.parse_band(o["span"])
+    within = (("--span", (f1, f2)), ("--at", o["at"]), ("--bandwidth", given_band(o["bandwidth"])))
+    if not o["stepped"]:  # the sweep it will play, designed before anything plays (too short for F1 ...)
+        check_within(o["rate"], within)  # (the span first: a span past half the rate is named as such)
+        SyncSweep.design(f1, f2, o["duration"], o["rate"])
+    return dict(ref=o["ref_channel"], load=o["load"], within=within,
+                keep=dict(span=(f1, f2)))
+
+
+def _prepare(s) -> dict:
+    from benchkit.bench import preflight
+
+    o = s.o
+    s.ref_channel = o["ref_channel"]
+    if s.ref_channel is None:
+        s.ref_channel = s.backend.reference_input() or (s.profile.ref_channel if s.profile else None)
+    preflight(s, [o["level"]], o["ref_freq"], o["load"])
+    return dict(channel=s.channel, ref_channel=s.ref_channel, ref_freq_hz=o["ref_freq"], load_ohms=o["load"],
+                bandwidth_hz=s.band, smooth=o["smooth"], span_hz=list(s.more["span"]), level_dbfs=s.drive[0], stepped=o["stepped"])
+
+
+def _measure(s, folder: Path) -> Measured:
+    o, (f1, f2) = s.o, s.more["span"]
+    result = response_run(s.backend, folder, s.drive[0], (f1, f2), o["duration"], o["stepped"], o["per_octave"],
+                          [float(f) for f in o["at"]] or None, s.channel, s.ref_channel, o["load"],
+                          s.band, o["ref_freq"], **s.stored())
+    return Measured(result, f"{result.method} response, {f1:g} to {f2:g} Hz at {s.drive[0]:g} dBFS",
+                    report=dict(smooth=o["smooth"]))
+
+
+#: the command's help
+ABOUT = """Measure frequency response and distortion against frequency: a synchronized sweep, or stepped sines.
+
+    Gives magnitude, phase and group delay, the -3 dB and -1 dB points,
+    passband ripple, the levels at 20 Hz and 20 kHz, the coupling capacitor
+    when the low corner is first order (with --load), and THD, H2 and H3
+    against frequency. The capture is on disk before it is analysed.
+
+    Example: benchkit sweep --span 2:22000 --duration 10 --load 8 --tag bias=1.2A
+
+    Safety: a sweep puts full level at every frequency, the highest too:
+    measure into a dummy load, never a speaker (tweeters burn first), and
+    keep the level low until the stage's gain is known. Ctrl-C fades the
+    output to silence and keeps the partial capture.
+    """
+
+#: how it measures on a bench: the command's options (benchkit.options) and help
+ON_BENCH = Live(
+    _opens, _prepare, _measure,
+    options="span level stepped per_octave at ref_channel ref_freq load bandwidth smooth json",
+    defaults=dict(duration=5.0),
+    helps=dict(duration="The sweep's duration, seconds (rounded so its harmonics line up), at most 120."),
+    about=ABOUT,
+)
+
 KIND = Kind("sweep", reanalyse, SweepParams, summary, reports, figures=response_figures, overlay=overlay, recognises=recognises,
-            chosen=lambda o: o.sweep is not None, analyse=analyse, readings=response_readings, rank=50)
+            chosen=lambda o: o.sweep is not None, analyse=analyse, readings=response_readings, live=ON_BENCH, rank=50)

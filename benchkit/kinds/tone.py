@@ -12,11 +12,11 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 from pathlib import Path
 
-from benchkit import capture
+from benchkit import capture, units
 from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ, step_figures, step_readings, ToneResult
 from benchkit.errors import BenchkitError, BenchWarning, warning_docs
-from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Offline, run_capture, RunParams
+from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Live, Measured, Offline, run_capture, RunParams
 from benchkit.record import SPOILED, record_steps
 from benchkit.recordings import read_capture, Recording, Takes
 
@@ -260,5 +260,54 @@ def analyse(rec, o: Offline) -> Analysed:
                     lambda out: report.tone_reports(result, doc, path, channel, out))
 
 
+# --- on the bench ----------------------------------------------------------------
+
+
+def _opens(o: dict) -> dict:
+    from benchkit.bench import opens_tones
+
+    return opens_tones(o, [o["freq"]])
+
+
+def _prepare(s) -> dict:
+    from benchkit.bench import preflight
+
+    o = s.o
+    preflight(s, o["level"], o["freq"], o["load"])
+    return dict(channel=s.channel, frequency_hz=o["freq"], levels_dbfs=s.drive, load_ohms=o["load"],
+                bandwidth_hz=s.band)
+
+
+def _measure(s, folder: Path) -> Measured:
+    o = s.o
+    steps = tone_run(s.backend, folder, o["freq"], s.drive, load_ohms=o["load"],
+                     bandwidth_hz=s.band, channel=s.channel, traces=True, **s.stored())
+    return Measured(steps, f"{o['freq']:g} Hz, {units.count(len(s.drive), 'step')}, latency "
+                           f"{steps.latency_samples} samples")
+
+
+#: the command's help
+ABOUT = """Play stepped tones into the stage, capture through the pad, analyse each step.
+
+    The whole run is one stream; the raw recording goes to disk as it
+    arrives and the aligned capture is written before it is analysed.
+
+    The run is filed in the bench folder's logbook (runs/<time>-<name>/).
+
+    Example: benchkit tone --level -30dBFS --level -20dBFS --level -14dBFS --load 8 --sim-param bias=1.2 --tag bias=1.2A
+
+    Safety: on a real bench, start low, measure through a pad into a dummy
+    load, and keep speakers off the output. Ctrl-C fades the output to
+    silence and keeps the partial capture.
+    """
+
+#: how it measures on a bench: the command's options (benchkit.options) and help
+ON_BENCH = Live(
+    _opens, _prepare, _measure,
+    options="load bandwidth ref_channel json",
+    defaults=dict(freq=997.0, level=["-20 dBFS"]),
+    about=ABOUT,
+)
+
 KIND = Kind("tone", reanalyse, ToneParams, summary, reports, figures=step_figures, overlay=overlay, recognises=recognises, analyse=analyse,
-            readings=step_readings, rank=90)
+            readings=step_readings, live=ON_BENCH, rank=90)

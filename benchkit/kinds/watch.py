@@ -283,7 +283,7 @@ def summarise(path: Path, info: dict | None = None) -> dict:
 
 
 def check_dc_source(source, resource, backend, profile) -> None:
-    """What a watch's DC source needs, refused before anything plays."""
+    """What a DC source needs (a watch's; a drift log's meter), refused before anything plays."""
     if source == "input" and (profile is None or not profile.dc_coupled or not profile.dc_volts_per_fs):
         raise BenchkitError("--dc-source input needs a --calibration that says the input is DC coupled")
     if source == "virtual" and not backend.capabilities.simulated:
@@ -451,6 +451,41 @@ def watch_session(backend, tone, run, record_audio: bool, duration, mode: str, s
         run.complete(doc, written, written[0], figures=headline_figures(doc))
         say(f"run {run.id}: {run.folder}")
     return WatchEnd(stopped, interrupted, clipped)
+
+
+def watch(o: dict, mode: str, say) -> WatchEnd:
+    """A watch on the bench its options describe (by key, benchkit.options):
+    the device opened and checked, the pre-flight, the DC source, the
+    readings shown in ``mode`` ("live", "plain" or "json"), filed in the
+    logbook with --record."""
+    import contextlib
+
+    from benchkit.bench import Bench, bench_logbook, live_setup, opens_tones, check_within, preflight, start_run
+
+    if o["record_audio"] and not o["record"]:
+        raise BenchkitError("--record-audio goes with --record")
+    opening = opens_tones(o, [o["freq"]])
+    check_within(o["rate"], opening.pop("within"))
+    with bench_logbook(o) if o["record"] else contextlib.nullcontext((None, {})) as (book, labels):
+        s = Bench(o, say, lambda _text: None, labels)
+        s.backend, s.profile = backend, profile = live_setup(o, say, **opening)
+        check_dc_source(o["dc_source"], o["meter"], backend, profile)
+        preflight(s, [o["level"]], o["freq"], o["load"])
+        scale = profile.stage_volts_per_fs if profile is not None else backend.inputs()[s.channel - 1].volts_per_fs
+        dc, dc_scale, meter = dc_reader(o["dc_source"], o["meter"], backend, profile)
+        try:
+            band = s.band
+            tone = SteadyTone(o["freq"], s.drive[0], backend.sample_rate_hz, None, s.channel,
+                              getattr(backend, "drive_output", 1), backend.n_outputs, scale, o["load"], band, dc=dc,
+                              dc_scale=dc_scale)
+            params = dict(channel=s.channel, frequency_hz=o["freq"], level_dbfs=s.drive[0], load_ohms=o["load"],
+                          bandwidth_hz=band)
+            run = start_run(book, labels, "watch", backend, profile, o["calibration"], params, say) if o["record"] else None
+            with run if run is not None else contextlib.nullcontext():
+                return watch_session(backend, tone, run, o["record_audio"], o["duration"], mode, say)
+        finally:
+            if meter is not None:
+                meter.close()
 
 
 @dataclass(frozen=True)

@@ -17,7 +17,7 @@ from typing import Callable, ClassVar
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.analysis.zout import analyze_zout, phasor, Reading, zout_figures, ZoutResult
 from benchkit.errors import BenchkitError
-from benchkit.kinds import Analysed, Kind, RunParams
+from benchkit.kinds import Analysed, Kind, Live, Measured, RunParams
 from benchkit.recordings import read_capture, Takes
 
 
@@ -168,4 +168,98 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     return result.to_dict(), reports(result, folder)
 
 
-KIND = Kind("zout", reanalyse, ZoutParams, summary, reports, figures=zout_figures)
+# --- on the bench ----------------------------------------------------------------
+
+
+def _opens(o: dict) -> dict:
+    return dict(ref=o["ref_channel"], load=o["load"], within=(("--freq", o["freq"], DEFAULT_BAND_HZ),))
+
+
+def _open_load(s) -> float | None:
+    """What loads the "open" output: as given, else the virtual bench's pad
+    and input, else the calibration's pad; None: taken as open."""
+    if s.o["open_load"] is not None:
+        return s.o["open_load"]
+    ohms = s.backend.pad_input_ohms()
+    pad = s.profile.pad if s.profile is not None else None
+    if ohms is None and pad is not None and pad.pad() is not None:
+        ohms = pad.pad().input_impedance(pad.input_ohms or float("inf"))
+    return ohms
+
+
+def _prepare(s) -> dict:
+    from benchkit.bench import preflight
+
+    o = s.o
+    s.ref_channel = o["ref_channel"] if o["ref_channel"] is not None else s.backend.reference_input()
+    preflight(s, [o["level"]], 1000.0, o["load"], volts=False)
+    s.more["open_load"] = _open_load(s)
+    return dict(channel=s.channel, ref_channel=s.ref_channel, load_ohms=o["load"], open_load_ohms=s.more["open_load"],
+                frequencies_hz=list(o["freq"]), level_dbfs=s.drive[0])
+
+
+def _measure(s, folder: Path) -> Measured:
+    def switch(ohms):
+        if s.backend.capabilities.switchable_load:
+            s.backend.connect_load(ohms)
+        elif not s.o["yes"]:
+            s.ask(f"{'disconnect the load' if ohms is None else f'connect the {ohms:g} ohm load'} (no tone is "
+                  "playing), then press Enter")
+
+    result = zout_run(s.backend, folder, s.o["load"], s.o["freq"], s.drive[0], switch, s.more["open_load"], s.channel,
+                      s.ref_channel, s.labels.get("note", ""), s.profile, s.calibration_file, s.warnings)
+    return Measured(result, "output impedance")
+
+
+def from_runs(o: dict, say):
+    """The output impedance from two logged runs' stored results (--from:
+    the unloaded one, then the loaded one), filed as a run of its own with
+    copies of the two results, for reanalysis; None without --from."""
+    from benchkit.bench import bench_logbook, finish, start_run
+    from benchkit.compare_runs import stored_result
+    from benchkit.report.tables import write_json
+
+    if not o["from_runs"]:
+        return None
+    if len(o["from_runs"]) != 2:
+        raise BenchkitError("--from takes two runs: the unloaded one, then the loaded one")
+    with bench_logbook(o) as (book, labels):
+        entries = [book.entry(r) for r in o["from_runs"]]
+        docs = [stored_result(book, e)[1] for e in entries]
+        result = analyze_zout(*(readings_of_result(d) for d in docs), load_ohms=o["load"], open_load_ohms=o["open_load"])
+        params = {"from": [e.id for e in entries], "load_ohms": o["load"], "open_load_ohms": o["open_load"]}
+        with start_run(book, labels, "zout", "logbook", None, None, params, say) as run:
+            copies = [write_json(d, run.folder / f"{state}.result.json") for d, state in zip(docs, ("open", "loaded"))]
+            title = f"output impedance from {entries[0].id} (open) and {entries[1].id} (loaded)"
+            return finish(run, KIND, Measured(result, title, files=tuple(copies)), say)
+
+
+#: the command's help
+ABOUT = """Measure the stage's output impedance and damping factor: the output unloaded, then loaded.
+
+    The same tones (one a --freq) play twice at one level: with the load
+    disconnected, then connected; Zout = R (V_open / V_loaded - 1), with
+    the pad's own loading of the "open" output taken into account when it
+    is known, and the damping factor R / |Zout|. With a reference input
+    the readings are complex, so a capacitor's reactance at low
+    frequencies shows as such. --from takes two logged runs instead (two
+    sweeps give Zout across frequency).
+
+    Example: benchkit zout --load 8 --tag bias=1.2A
+
+    Safety: switch the load only while no tone plays (benchkit waits for
+    you between the two readings). A stage with an output transformer
+    (valve amplifiers) must not run unloaded: do not use this on one.
+    """
+
+#: how it measures on a bench: the command's options (benchkit.options) and help
+ON_BENCH = Live(
+    _opens, _prepare, _measure,
+    options="level ref_channel open_load from_runs yes json",
+    defaults=dict(load=..., freq=list(DEFAULT_FREQS_HZ)),
+    helps=dict(load="The dummy load switched on for the loaded reading, ohms (the damping factor is quoted against it)."),
+    about=ABOUT,
+    other=from_runs,
+)
+
+KIND = Kind("zout", reanalyse, ZoutParams, summary, reports, figures=zout_figures, live=ON_BENCH)

@@ -32,3 +32,4 @@ def pads_lines(reports, normal_vpk: float, rail_v: float | None, input_fs_vpk: f
     lines.append("  ratings are at least twice the power held at the worst case; balanced inputs need the pad on both "
                  "legs; keep the interface's ground and a bridged output apart")
     return lines
+

@@ -1,5 +1,5 @@
-"""One-screen text summaries, for stderr: a comparison's and a budget's
-(each kind's own in ``report/NAME.py``)."""
+"""One-screen text summaries, for stderr: a comparison's, a budget's and a
+calibration profile's (each kind's own in ``report/NAME.py``)."""
 
 from __future__ import annotations
 
@@ -64,3 +64,20 @@ def budget_summary(d: dict) -> str:
         lines.append(f"  limiter at {c['limit_a']:g} A     sense resistor {quantity(c['sense_ohms'], 'ohm', 3)} ({c['vbe_v']:g} V / I), "
                      f"{quantity(c['sense_w'], 'W', 3)} in it: rate it at least {quantity(2 * c['sense_w'], 'W', 2)}")
     return "\n".join(lines)
+
+
+def profile_lines(profile, path) -> list[str]:
+    """What a calibration profile says, as ``benchkit calibrate`` shows it."""
+    u, floor = profile.uncertainty, profile.loopback_floor
+    coupling = "DC coupled" if profile.dc_coupled else f"AC coupled ({profile.ac_corner_hz:.2g} Hz)"
+    return [
+        f"output {quantity(profile.output_vpk_per_fs, 'V', 5)} peak per FS, input "
+        f"{quantity(profile.input_vpk_per_fs, 'V', 5)} peak per FS, pad ratio {profile.pad_ratio:.5g}: "
+        f"{quantity(profile.stage_volts_per_fs, 'V', 5)} peak per FS at the stage",
+        f"loopback floor THD+N {floor['thdn_db']:.1f} dB at {floor['level_dbfs']:.1f} dBFS; "
+        f"{'inverting' if profile.polarity_inverts else 'non-inverting'}; {coupling}; "
+        f"latency {profile.latency_samples} samples",
+        f"uncertainty of the volts: +-{u['total_db']:.3f} dB (voltmeter +-{u['voltmeter_pct']:g} %, repeatability "
+        f"{u['repeatability_db']:.4f} dB)",
+        f"profile: {path} (hash {profile.digest()})",
+    ]

@@ -11,6 +11,8 @@ from pathlib import Path
 
 import numpy as np
 
+from benchkit.errors import BenchkitError
+
 
 def _clean(obj):
     """Make a result JSON-safe: numpy scalars to Python, non-finite to None."""
@@ -60,6 +62,16 @@ def write_deltas_csv(c, path: Path) -> Path:
                         *("" if ch is None else f"{ch:+.6g}" for ch in d.changes),
                         *(d.verdict(k) or "" for k in range(1, len(labels)))])
     return path
+
+
+def write_catalog_file(entries, path: Path) -> Path:
+    """The logbook as CSV (:func:`write_catalog_csv`) in a file."""
+    try:
+        with Path(path).open("w", newline="", encoding="utf-8") as fh:
+            write_catalog_csv(entries, fh)
+    except OSError as exc:
+        raise BenchkitError(f"cannot write {path}: {exc.strerror or exc}") from None
+    return Path(path)
 
 
 def write_catalog_csv(entries, fh) -> None:

@@ -3,7 +3,8 @@
 An option name means one thing, in one unit, in every command; where an
 older name meant something else elsewhere, it was renamed. The old name
 still works for one version: the command line is rewritten before it is
-parsed, with a one-line notice on stderr.
+parsed, with a one-line notice on stderr. A one-value option given twice
+is noted the same way (:func:`given_twice`).
 """
 
 from __future__ import annotations
@@ -77,3 +78,22 @@ def modernise(args: list[str], say: Callable[[str], None]) -> list[str]:
             name = RENAMED_VALUES[(command, out[-1], word)]
         out += [*words, name + eq + value]
     return out
+
+
+def given_twice(root, args: list[str]) -> list[str]:
+    """The options that take one value but are given more than once in
+    ``args``, a command line of the click command ``root`` (the last is
+    used, as is usual: a script may override what it gave; the caller says
+    so, so that it is not silent). ``-c 1 --channel 2`` is twice."""
+    command = root
+    for word in command_of(args).split():
+        command = getattr(command, "commands", {}).get(word)
+
+    def given(flag: str, word: str) -> bool:
+        if flag.startswith("--"):
+            return word == flag or word.startswith(flag + "=")
+        return word.startswith(flag) and not word.startswith("--")  # -c 2 or -c2
+
+    single = [p.opts for p in getattr(command, "params", ()) if p.param_type_name == "option" and not p.multiple
+              and not p.is_flag]
+    return [max(opts, key=len) for opts in single if sum(given(f, a) for f in opts for a in args) > 1]

@@ -5,8 +5,8 @@ frequency, a duration, a count ...), so that a value that cannot be right
 (NaN, infinity, a zero or negative load, a length the machine cannot hold,
 a level above full scale) is refused while the command line is read:
 before a logbook opens, a device starts or a run is filed. The refusal is
-click's "Invalid value for '--load': ..." turned into one line by
-:func:`benchkit.cli.main`.
+one line naming the option: on the command line click's "Invalid value
+for '--load': ..." (:func:`benchkit.cli.main`), in a plan its key.
 
 Text options (levels, bands, pads) are checked by their own parsers in
 :mod:`benchkit.units` and :mod:`benchkit.pads` through :func:`checked`,
@@ -19,10 +19,12 @@ import math
 from pathlib import Path
 from typing import Callable
 
-import typer
-
 from benchkit import units
 from benchkit.errors import BenchkitError
+
+
+class BadValue(BenchkitError):
+    """A value an option cannot take (the command line says which option)."""
 
 
 def _read(value, integer: bool, hint: str = ""):
@@ -34,10 +36,10 @@ def _read(value, integer: bool, hint: str = ""):
         try:
             number = int(text) if integer else float(text)
         except ValueError:
-            raise typer.BadParameter(f"{text!r} is not {'a whole number' if integer else 'a number'}"
+            raise BadValue(f"{text!r} is not {'a whole number' if integer else 'a number'}"
                                      f"{'; ' + hint if hint else ''}") from None
     if integer and number != int(number):
-        raise typer.BadParameter(f"{value!r} is not a whole number")
+        raise BadValue(f"{value!r} is not a whole number")
     return int(number) if integer else float(number)
 
 
@@ -48,19 +50,19 @@ def number(low: float | None = None, high: float | None = None, *, above: bool =
 
     def parse(value):
         x = _read(value, integer, hint)
-        ok = (math.isfinite(x) and (low is None or (x > low if above else x >= low))
-              and (high is None or (x < high if below else x <= high)))
-        if not ok:
+        finite = math.isfinite(x)
+        low_ok = low is None or (finite and (x > low if above else x >= low))
+        high_ok = high is None or (finite and (x < high if below else x <= high))
+        if not (finite and low_ok and high_ok):
             shown = (lambda v: str(int(v))) if integer else (lambda v: f"{v:g}")
-            parts = []
-            if low is not None:
+            parts = []  # a finite value hears of the side it fails; nan of both
+            if not low_ok:
                 parts.append(f"{'above' if above else 'at least'} {shown(low)}")
-            if high is not None:
+            if not high_ok:
                 parts.append(f"{'below' if below else 'at most'} {shown(high)}")
-            span = " and ".join(parts) if parts else "finite"
-            raise typer.BadParameter(f"must be {'a whole number' if integer else 'a finite number'}"
-                                     f"{' ' + span if parts else ''}{' ' + unit if unit else ''}, got {value}"
-                                     f"{'; ' + hint if hint else ''}")
+            raise BadValue(f"must be {'a whole number' if integer else 'a finite number'}"
+                           f"{' ' + ' and '.join(parts) if parts else ''}{' ' + unit if unit else ''}, got {value}"
+                           f"{'; ' + hint if hint else ''}")
         return x
 
     return parse
@@ -76,7 +78,7 @@ def checked(parse: Callable) -> Callable:
         try:
             parse(str(value))
         except BenchkitError as exc:
-            raise typer.BadParameter(str(exc)) from None
+            raise BadValue(str(exc)) from None
         return value
 
     return check
@@ -89,7 +91,7 @@ def one_of(*choices: str) -> Callable:
         word = str(value).strip().lower()
         if word not in choices:
             listed = " or ".join(choices) if len(choices) < 3 else f"one of {', '.join(choices[:-1])} or {choices[-1]}"
-            raise typer.BadParameter(f"must be {listed}, got {value!r}")
+            raise BadValue(f"must be {listed}, got {value!r}")
         return word
 
     return parse
@@ -105,7 +107,7 @@ def when(value) -> str:
     try:
         when = datetime.fromisoformat(text)
     except ValueError:
-        raise typer.BadParameter(f"must be a date YYYY-MM-DD or a time YYYY-MM-DDTHH:MM, got {value!r}") from None
+        raise BadValue(f"must be a date YYYY-MM-DD or a time YYYY-MM-DDTHH:MM, got {value!r}") from None
     if when.time() == datetime.min.time() and when.tzinfo is None and len(text) <= 10:
         return when.date().isoformat()
     return when.isoformat()
@@ -117,12 +119,12 @@ def out_file(value) -> Path:
     path = Path(value)
     try:
         if path.is_dir():
-            raise typer.BadParameter(f"{path} is a folder: give the file to write, e.g. {path / 'profile.json'}")
+            raise BadValue(f"{path} is a folder: give the file to write, e.g. {path / 'profile.json'}")
         parent = next((q for q in path.absolute().parents if q.exists()), None)
     except OSError as exc:  # a name too long, a folder that cannot be read
-        raise typer.BadParameter(f"{path}: {exc.strerror or exc}") from None
+        raise BadValue(f"{path}: {exc.strerror or exc}") from None
     if parent is not None and not parent.is_dir():
-        raise typer.BadParameter(f"{path}: {parent} is a file, not a folder")
+        raise BadValue(f"{path}: {parent} is a file, not a folder")
     return path
 
 
@@ -132,9 +134,9 @@ def out_folder(value) -> Path:
     try:
         is_file = path.exists() and not path.is_dir()
     except OSError as exc:
-        raise typer.BadParameter(f"{path}: {exc.strerror or exc}") from None
+        raise BadValue(f"{path}: {exc.strerror or exc}") from None
     if is_file:
-        raise typer.BadParameter(f"{path} is a file: give a folder to write the reports into")
+        raise BadValue(f"{path} is a file: give a folder to write the reports into")
     return path
 
 
@@ -149,9 +151,9 @@ def _above_zero(parse: Callable, what: str) -> Callable:
             try:
                 x = parse(str(value))
             except BenchkitError as exc:
-                raise typer.BadParameter(str(exc)) from None
+                raise BadValue(str(exc)) from None
         if not (math.isfinite(x) and x > 0):
-            raise typer.BadParameter(f"must be {what} above zero, got {value}")
+            raise BadValue(f"must be {what} above zero, got {value}")
         return x
 
     return parser
@@ -165,7 +167,7 @@ def ohms(value) -> float:
     the one reading of it), from 10 milliohm (a shunt) to 100 Mohm."""
     r = _ohms(value)
     if not 0.01 <= r <= 1e8:
-        raise typer.BadParameter(f"must be a resistance from 0.01 ohm to 100 Mohm, got {value}")
+        raise BadValue(f"must be a resistance from 0.01 ohm to 100 Mohm, got {value}")
     return r
 _hertz = _above_zero(units.parse_frequency, "a frequency in Hz (e.g. 997, 20k)")
 
@@ -175,7 +177,7 @@ def hertz(value) -> float:
     that is a DC drift's business: benchkit drift)."""
     f = _hertz(value)
     if f < 1.0:
-        raise typer.BadParameter(f"must be a frequency of 1 Hz or more, got {value} (a slower change is DC drift: "
+        raise BadValue(f"must be a frequency of 1 Hz or more, got {value} (a slower change is DC drift: "
                                  "benchkit drift)")
     return f
 
