@@ -87,7 +87,7 @@ def measure(kind_name: str, o: dict, say: Callable[[str], None], ask: Callable[[
     if kind.live is None:
         raise BenchkitError(f"{kind_name} is not measured this way")
     made = kind.live.other(o, say) if kind.live.other is not None else None
-    if made is not None:
+    if made is not None or kind.live.over_time:
         return made
     opening = dict(kind.live.opens(o))
     check_within(o["rate"], opening.pop("within", ()))
@@ -335,7 +335,10 @@ def bench_logbook(o: dict):
         if changed:
             stage = {**stage, **fields}
         # the bench remembers a changed stage once a run is filed with it (start_run), not on a refusal
-        yield book, dict(tags=tags, note=o["note"], stage=stage, remember=changed)
+        labels = dict(tags=tags, note=o["note"], stage=stage, remember=changed)
+        if o.get("session"):  # a plan's step (benchkit.session sets it; no command line does)
+            labels["session"] = o["session"]
+        yield book, labels
 
 
 def start_run(book, labels: dict, command: str, backend, profile, calibration: Path | None, params: dict, say):

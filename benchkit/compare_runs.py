@@ -72,6 +72,18 @@ def chosen_runs(book: Logbook, refs: list[str], last: int | None = None, command
     return refs
 
 
+def comparison_folder(book: Logbook, out: Path | None, name: str) -> Path:
+    """The folder a comparison is written in, made: ``out``, or
+    comparisons/<time>-<name> in the bench folder."""
+    if out is None:
+        out = book.root / COMPARISONS / f"{datetime.now():%Y%m%d-%H%M%S}-{name}"
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise BenchkitError(f"cannot create the comparison folder {out}: {exc.strerror or exc}") from None
+    return out
+
+
 def compare_runs(book: Logbook, refs: list[str], anyway: bool = False, out: Path | None = None,
                  title: str | None = None) -> ComparisonReport:
     """Compare logged runs (ids, unique prefixes, 'last', 'last-N'), the
@@ -90,12 +102,7 @@ def compare_runs(book: Logbook, refs: list[str], anyway: bool = False, out: Path
         labels = [e.id for e in entries]
     kind = kinds.of_result(docs[0])
     comparison = compare(docs, labels, None if kind is None else kind.figures, records, anyway=anyway)
-    if out is None:
-        out = book.root / COMPARISONS / f"{datetime.now():%Y%m%d-%H%M%S}-{slug(entries[0].id[16:], 30)}-vs-{slug(entries[1].id[16:], 30)}"
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise BenchkitError(f"cannot create the comparison folder {out}: {exc.strerror or exc}") from None
+    out = comparison_folder(book, out, f"{slug(entries[0].id[16:], 30)}-vs-{slug(entries[1].id[16:], 30)}")
     title = title or " vs ".join(labels)
     doc = {**comparison.to_dict(), "run_ids": [e.id for e in entries]}
     written = [tables.write_json(doc, out / "comparison.json"),

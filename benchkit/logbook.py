@@ -47,7 +47,7 @@ BENCH_ENV = "BENCHKIT_BENCH"
 CATALOG = "logbook.sqlite"
 RUNS, TRASH, SETTINGS, RECORD, LOCK = "runs", "trash", "bench.json", "run.json", ".lock"
 #: The layout of the catalog this code writes; older ones are migrated.
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 RECORD_KIND, RECORD_VERSION = "run", 1
 #: How long a writer waits for another process's transaction, seconds.
 BUSY_TIMEOUT_S = 30.0
@@ -63,7 +63,7 @@ _RECORD_FIELDS = {
     "device": TEXT + (None,), "calibration": (dict, None), "stage": (dict, None), "tags": (dict, None),
     "note": TEXT + (None,), "params": (dict, None), "files": (list, None), "valid": (bool, None),
     "warnings": (list, None), "figures": (list, None), "error": TEXT + (None,), "argv": (list, None),
-    "retry_error": TEXT + (None,),
+    "retry_error": TEXT + (None,), "session": TEXT + (None,),
 }
 _FIGURE_FIELDS = {"name": TEXT, "value": NUMBER + (None,), "unit": TEXT, "at": TEXT + NUMBER + (None,)}
 
@@ -208,6 +208,12 @@ CREATE TABLE figures (
 """
 
 
+_V3 = """
+ALTER TABLE runs ADD COLUMN session TEXT;
+CREATE INDEX runs_session ON runs(session);
+"""
+
+
 def _script(db: sqlite3.Connection, sql: str) -> None:
     """Statements one by one, inside the caller's transaction
     (executescript would commit it first)."""
@@ -226,10 +232,20 @@ def _to_v2(book: "Logbook", db: sqlite3.Connection) -> None:
             _put_figures(db, run_id, record.get("figures") or [])
 
 
+def _to_v3(book: "Logbook", db: sqlite3.Connection) -> None:
+    """Version 3 indexes the session a run was measured in (a plan's)."""
+    _script(db, _V3)
+    for (run_id,) in db.execute("SELECT id FROM runs").fetchall():
+        record = book.read_record(run_id, missing_ok=True)
+        if record is not None and record.get("session"):
+            db.execute("UPDATE runs SET session = ? WHERE id = ?", (record["session"], run_id))
+
+
 #: Step k takes a catalog from version k to k + 1.
 MIGRATIONS: tuple[Callable[["Logbook", sqlite3.Connection], None], ...] = (
     lambda _book, db: _script(db, _V1),
     _to_v2,
+    _to_v3,
 )
 
 
@@ -318,6 +334,8 @@ class RunEntry:
     tags: dict[str, str]
     figures: list[dict]
     folder: Path
+    #: the session (a plan's) it was measured in
+    session: str | None = None
 
     def figure(self, name: str) -> float | None:
         return next((f["value"] for f in self.figures if f["name"] == name), None)
@@ -329,6 +347,7 @@ class RunEntry:
             "calibration": None if not self.calibration_hash else {"file": self.calibration_file, "hash": self.calibration_hash},
             "stage": self.stage, "note": self.note, "valid": self.valid, "warnings": warning_docs(self.warnings),
             "error": self.error, "tags": self.tags, "figures": self.figures, "folder": str(self.folder),
+            "session": self.session,
         }
 
 
@@ -487,13 +506,14 @@ class Logbook:
         db.execute("DELETE FROM tags WHERE run_id = ?", (record["id"],))
         db.execute(
             "INSERT OR REPLACE INTO runs (id, started, finished, command, kind, status, pid, host, device, "
-            "calibration_file, calibration_hash, stage, note, valid, warnings, error) "
-            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            "calibration_file, calibration_hash, stage, note, valid, warnings, error, session) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (record["id"], record["started"], record.get("finished"), record["command"], record.get("result_kind"),
              record["status"], record.get("pid"), record.get("host"), record.get("device"), cal.get("file"),
              cal.get("hash"), json.dumps(record.get("stage") or {}, ensure_ascii=False), record.get("note") or "",
              None if record.get("valid") is None else int(bool(record["valid"])),
-             json.dumps(warning_docs(record.get("warnings")), ensure_ascii=False), record.get("error")))
+             json.dumps(warning_docs(record.get("warnings")), ensure_ascii=False), record.get("error"),
+             record.get("session")))
         db.executemany("INSERT INTO tags (run_id, key, value) VALUES (?, ?, ?)",
                        [(record["id"], k, str(v)) for k, v in (record.get("tags") or {}).items()])
         _put_figures(db, record["id"], record.get("figures") or [])
@@ -515,9 +535,10 @@ class Logbook:
 
     def start(self, command: str, *, tags: dict | None = None, note: str = "", stage: dict | None = None,
               device: str | None = None, calibration: dict | None = None, params: dict | None = None,
-              argv: list[str] | None = None) -> "Run":
-        """Make the run's folder, write its record and insert it as running.
-        The returned :class:`Run` holds the folder's lock until it ends."""
+              argv: list[str] | None = None, session: str | None = None) -> "Run":
+        """Make the run's folder, write its record and insert it as running
+        (``session``: the session it is measured in, a plan's). The
+        returned :class:`Run` holds the folder's lock until it ends."""
         started = datetime.now(timezone.utc).astimezone()
         tags = dict(tags or {})
         folder = self._new_folder(started, "-".join([command, *(f"{k}-{v}" for k, v in tags.items())]))
@@ -529,7 +550,7 @@ class Logbook:
             "pid": os.getpid(), "host": socket.gethostname(), "argv": list(argv if argv is not None else sys.argv[1:]),
             "device": device, "calibration": calibration, "stage": stage or {}, "tags": tags, "note": note,
             "params": params or {}, "result_kind": None, "result_file": None, "files": [], "valid": None,
-            "warnings": [], "figures": [], "error": None,
+            "warnings": [], "figures": [], "error": None, "session": session,
         }
         try:
             self._save_record(record)
@@ -616,12 +637,14 @@ class Logbook:
             status=status, device=row["device"], calibration_file=row["calibration_file"],
             calibration_hash=row["calibration_hash"], stage=json.loads(row["stage"] or "{}"), note=row["note"],
             valid=None if row["valid"] is None else bool(row["valid"]), warnings=list(read_warnings(json.loads(row["warnings"] or "[]"))),
-            error=row["error"], tags=tags, figures=figures, folder=self.folder(row["id"]))
+            error=row["error"], tags=tags, figures=figures, folder=self.folder(row["id"]), session=row["session"])
 
     def entries(self, tags: dict[str, str] | None = None, command: str | None = None, status: str | None = None,
-                since: str | None = None, until: str | None = None, limit: int | None = None) -> list[RunEntry]:
+                since: str | None = None, until: str | None = None, limit: int | None = None,
+                session: str | None = None) -> list[RunEntry]:
         """Runs newest first, filtered by tags (all must match), command,
-        status and start time (ISO dates or times, compared as text)."""
+        status, start time (ISO dates or times, compared as text) and
+        session."""
         if status is not None and status not in STATUSES:
             raise BenchkitError(f"no run can be {status!r}: the states are {', '.join(STATUSES)}")
         if limit is not None and limit < 1:
@@ -634,6 +657,9 @@ class Logbook:
         if command:
             sql += " AND command = ?"
             args.append(command)
+        if session:
+            sql += " AND session = ?"
+            args.append(session)
         if since:
             sql += " AND started >= ?"
             args.append(since)

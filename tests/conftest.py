@@ -42,15 +42,21 @@ def run_cli(*args: str, cwd=None) -> subprocess.CompletedProcess:
     return forkcli.run(*args, cwd=cwd, timeout=500)  # only a hang guard: busy machines are slow
 
 
-@pytest.fixture(scope="session")
-def sox_path() -> str:
-    """The sox program; required in CI (it installs it), skipped elsewhere."""
-    path = shutil.which("sox")
+def system_program(name: str, packages: str, what: str = "") -> str:
+    """A program from Debian's packages: required in CI (it installs
+    them), the test skipped elsewhere with a clear message."""
+    path = shutil.which(name)
     if path is None:
         if os.environ.get("CI"):
-            pytest.fail("sox is not installed; CI must install it (apt-get install sox)")
-        pytest.skip("sox is not installed (apt-get install sox)")
+            pytest.fail(f"{name} is not installed; CI must install it (apt-get install {packages})")
+        pytest.skip(f"{what or name} is not installed (apt-get install {packages})")
     return path
+
+
+@pytest.fixture(scope="session")
+def sox_path() -> str:
+    """The sox program."""
+    return system_program("sox", "sox")
 
 
 @pytest.fixture(autouse=True)

@@ -12,6 +12,7 @@ import math
 import os
 import subprocess
 import sys
+from pathlib import Path
 
 import pytest
 
@@ -27,14 +28,18 @@ def test_demo_runs_and_its_outputs_parse(tmp_path):
     res = run_cli("demo", "--out", str(out))
     assert res.returncode == 0, res.stderr
     assert "report:" in res.stderr and str(out.resolve()) in res.stderr
-    assert "virtual bench" in res.stderr
-    # the demo's folder is a bench folder: every run filed in its logbook
-    names = [f.name.split("-", 2)[2] for f in run_folders(out)]
-    assert names == ["tone-bias-0.8A", "imd-bias-0.8A", "power-bias-0.8A", "tone-bias-1.2A", "imd-bias-1.2A",
-                     "power-bias-1.2A", "sweep-bias-1.2A", "gain-bias-1.2A", "noise-bias-1.2A", "zout-bias-1.2A", "crosstalk-bias-1.2A", "drift-bias-1.2A"]
+    assert "virtual bench" in res.stderr and (out / "report.html").is_file()
+    # the demo's folder is a bench folder: the shipped plan's every run filed in its logbook, twice (two sessions)
+    steps = ["tone", "imd", "power", "sweep", "noise", "zout", "crosstalk", "drift"]
     listed = json.loads(run_cli("log", "list", "--bench", str(out), "--json").stdout)
-    assert [r["status"] for r in listed["runs"]] == ["complete"] * 12
-    for folder in run_folders(out)[:6:3]:
+    assert [r["status"] for r in listed["runs"]] == ["complete"] * 16
+    by_session = {}
+    for r in reversed(listed["runs"]):
+        by_session.setdefault(r["session"], []).append(r)
+    assert sorted(r[0]["tags"]["bias"] for r in by_session.values()) == ["0.8A", "1.2A"]
+    assert all([r["command"] for r in runs] == steps for runs in by_session.values())
+    tones = [Path(r["folder"]) for r in listed["runs"] if r["command"] == "tone"]
+    for folder in tones:
         side = json.loads((folder / "capture.json").read_text())
         assert side["kind"] == "capture" and side["scale_source"] == "simulation"
         doc = json.loads((folder / "capture.result.json").read_text())
@@ -42,7 +47,7 @@ def test_demo_runs_and_its_outputs_parse(tmp_path):
         assert (folder / "capture.wav").stat().st_size > 100_000
         for png in folder.glob("*.png"):
             assert png.read_bytes()[:4] == b"\x89PNG"
-    (tones,) = (out / "comparisons").glob("*-tone-*")
+    (tones,) = (out / "comparisons").glob("*/01-tone")
     with (tones / "comparison.csv").open() as fh:
         rows = {r["figure"]: r for r in csv.DictReader(fh)}
     # textbook class A: more bias current, less distortion at the top level
@@ -51,7 +56,7 @@ def test_demo_runs_and_its_outputs_parse(tmp_path):
     assert (tones / "spectra.png").exists() and (tones / "overlay.png").exists()
     assert (out / "summary.txt").read_text().count("bias") >= 4
     # and less intermodulation at every level (the same curvature, less of it)
-    (imd,) = (out / "comparisons").glob("*-imd-*")
+    (imd,) = (out / "comparisons").glob("*/02-imd")
     with (imd / "comparison.csv").open() as fh:
         rows = {r["figure"]: r for r in csv.DictReader(fh)}
     assert all(rows[f"imd_db@{d:+g}dBFS"]["verdict [1]"] == "better" for d in (-30, -20, -14))

@@ -469,3 +469,30 @@ def test_crosstalk_through_jack_drives_both_outputs(server, tmp_path):
         assert leak["crosstalk_db"] == pytest.approx(-60.0, abs=0.05), leak
     for b in d["balance"]:
         assert b["balance_db"] == pytest.approx(0.0, abs=0.01)
+
+
+def test_a_plan_runs_through_jack_as_one_session(server, tmp_path):
+    # a tone and a short sweep, one session on the real stream, wired as a
+    # loopback: what comes back is what was played (the identity), so the
+    # tone's fundamental is its drive and the response is flat at 0 dB
+    plan = tmp_path / "plan.toml"
+    plan.write_text('[stage]\nname = "a loopback (test)"\nload = 8\n\n[bench]\ndevice = "system"\nvolts-per-fs = 1\n\n'
+                    '[[measure]]\nkind = "tone"\nlevel = "-20dBFS"\nref-channel = 2\n\n'
+                    '[[measure]]\nkind = "sweep"\nspan = "20:22000"\nduration = 2\nlevel = "-14dBFS"\nref-channel = 2\n')
+    bench = tmp_path / "bench"
+    with jackbench.Patchbay(server, "loopback"):
+        proc = jackbench.benchkit(server, "plan", "run", str(plan), "--bench", str(bench))
+        _out, err = proc.communicate(timeout=90)
+    assert proc.returncode == 0, err
+    assert "plan pre-flight: the highest drive is -14.0 dBFS" in err
+    (session,) = (bench / "sessions").iterdir()
+    doc = json.loads((session / "session.json").read_text())
+    assert [s["state"] for s in doc["steps"]] == ["complete", "complete"]
+    tone, sweep = (bench / "runs" / s["run"] for s in doc["steps"])
+    t = json.loads((tone / "capture.result.json").read_text())
+    assert t["steps"][0]["fundamental_dbfs"] == pytest.approx(-20.0, abs=0.01) and "JACK" in t["device"]
+    s = json.loads((sweep / "capture.response.json").read_text())
+    f = np.array(s["response"]["freq_hz"])
+    mid = (f >= 100) & (f <= 10000)
+    assert np.max(np.abs(np.array(s["response"]["mag_db"])[mid])) < 0.05
+    assert json.loads((tone / "run.json").read_text())["session"] == doc["id"]

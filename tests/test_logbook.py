@@ -299,6 +299,8 @@ def test_an_older_catalog_is_migrated_and_a_newer_one_refused(tmp_path):
         run.complete(doc, [], figures=headline_figures(doc))
     with sqlite3.connect(tmp_path / logbook.CATALOG) as db:
         db.execute("DROP TABLE figures")
+        db.execute("DROP INDEX runs_session")  # (version 3's)
+        db.execute("ALTER TABLE runs DROP COLUMN session")
         db.execute("UPDATE meta SET value = '1' WHERE key = 'schema_version'")
     with logbook.Logbook(tmp_path) as book:
         assert book.schema_version() == logbook.SCHEMA_VERSION

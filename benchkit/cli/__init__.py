@@ -23,8 +23,9 @@ from benchkit.cli import measure  # noqa: E402
 from benchkit.cli import readout  # noqa: E402
 from benchkit.cli import tools  # noqa: E402
 from benchkit.cli import log  # noqa: E402
+from benchkit.cli import plan  # noqa: E402
 
-COMMANDS = (analyze, measure, readout, tools, log)
+COMMANDS = (analyze, measure, readout, tools, log, plan)
 
 
 #: click's errors for a command line it cannot read (typer keeps its own copy of click: found where BadParameter lives)

@@ -151,14 +151,14 @@ def live_run():
     except CaptureInterrupted as exc:
         err(f"benchkit: stopped: {exc}")
         if exc.device_lost:
-            _leave()
+            leave()
         raise typer.Exit(EXIT_INTERRUPTED if str(exc).startswith("interrupted") else EXIT_BAD_INPUT)
     except BenchkitError as exc:
         err(f"benchkit: error: {exc}")
         raise typer.Exit(EXIT_BAD_INPUT)
 
 
-def _leave() -> None:
+def leave() -> None:
     """Leave at once after a lost device: PortAudio can hang for good
     shutting down a dead server's client, and everything is on disk."""
     sys.stdout.flush()
@@ -189,6 +189,6 @@ def show(filed, as_json: bool) -> None:
         err(f"benchkit: stopped early: {filed.early[0]}")
         raise typer.Exit(EXIT_STOPPED_EARLY)
     if filed.ended == "device-lost":
-        _leave()
+        leave()
     if filed.ended == "interrupted":
         raise typer.Exit(EXIT_INTERRUPTED)

@@ -24,7 +24,7 @@ RUN = typer.Argument(..., help="Run id, a unique start of it, 'last' or 'last-N'
 
 
 @contextlib.contextmanager
-def _book(bench: Path | None, write: bool = False):
+def book_of(bench: Path | None, write: bool = False):
     """The bench's logbook for a log command (:func:`benchkit.logbook.open_bench`);
     a BenchkitError inside the block is one line and exit 1."""
     from benchkit.logbook import open_bench
@@ -34,16 +34,19 @@ def _book(bench: Path | None, write: bool = False):
 
 
 @log_app.command("list")
-@takes("tag command since until status last bench json")
+@takes("tag command since until status last session bench json")
 def log_list(o: dict) -> None:
     """List the logged runs, newest first, with their headline figures.
 
     Example: benchkit log list --tag bias=1.2A --command power
     """
     from benchkit import logbook
+    from benchkit.session import read_session
 
-    with _book(o["bench"]) as book:
-        entries = book.entries(logbook.parse_tags(o["tag"]), o["command"], o["status"], o["since"], o["until"], o["last"])
+    with book_of(o["bench"]) as book:
+        session = read_session(book.root, o["session"])["id"] if o["session"] else None
+        entries = book.entries(logbook.parse_tags(o["tag"]), o["command"], o["status"], o["since"], o["until"], o["last"],
+                               session=session)
     if o["json"]:
         from benchkit.report.tables import dumps
 
@@ -59,12 +62,19 @@ def log_list(o: dict) -> None:
 
 @log_app.command("show")
 @takes("bench json")
-def log_show(run: str = RUN, o: dict = None) -> None:
-    """Show one run: when, what, with which device and calibration, its tags, note, figures, warnings and files.
+def log_show(run: str = typer.Argument(..., help="Run id, a unique start of it, 'last' or 'last-N'; or a session's id."),
+             o: dict = None) -> None:
+    """Show one run: when, what, with which device and calibration, its tags, note, figures, warnings and files; or a session and its runs.
 
     Example: benchkit log show last
     """
-    with _book(o["bench"]) as book:
+    from benchkit.session import SESSIONS, read_session
+
+    with book_of(o["bench"]) as book:
+        if (book.root / SESSIONS / run).is_dir():
+            doc = read_session(book.root, run)
+            _show_session(doc, book.entries(session=doc["id"]), o["json"])
+            return
         entry = book.entry(run)
         record = book.read_record(entry.id)
     if o["json"]:
@@ -76,6 +86,18 @@ def log_show(run: str = RUN, o: dict = None) -> None:
         err(line)
 
 
+def _show_session(doc: dict, entries, as_json: bool) -> None:
+    from benchkit.report.session import session_lines
+
+    if as_json:
+        from benchkit.report.tables import dumps
+
+        print(dumps({**doc, "runs": [logbook_text.entry_doc(e) for e in entries]}))
+        return
+    for line in session_lines(doc) + (["runs:"] + logbook_text.runs_lines(entries) if entries else []):
+        err(line)
+
+
 @log_app.command("note")
 @takes("append bench")
 def log_note(run: str = RUN, text: str = typer.Argument(..., help="The note."), o: dict = None) -> None:
@@ -83,7 +105,7 @@ def log_note(run: str = RUN, text: str = typer.Argument(..., help="The note."), 
 
     Example: benchkit log note last "swapped the 2200 uF output capacitor"
     """
-    with _book(o["bench"], write=True) as book:
+    with book_of(o["bench"], write=True) as book:
         record = book.set_note(book.entry(run).id, text, o["append"])
     err(f"run {record['id']}: note: {record['note']}")
 
@@ -97,7 +119,7 @@ def log_tag(run: str = RUN, tags: List[str] = typer.Argument(None, help="Tags ke
     """
     from benchkit import logbook
 
-    with _book(o["bench"], write=True) as book:
+    with book_of(o["bench"], write=True) as book:
         if not tags and not o["remove"]:
             raise BenchkitError("give tags key=value to set, or --remove KEY")
         record = book.set_tags(book.entry(run).id, logbook.parse_tags(tags or []), o["remove"])
@@ -113,7 +135,7 @@ def log_export(o: dict) -> None:
     """
     from benchkit.report.tables import write_catalog_csv, write_catalog_file
 
-    with _book(o["bench"]) as book:
+    with book_of(o["bench"]) as book:
         entries = book.entries()
         if o["file"] is None:
             write_catalog_csv(entries, sys.stdout)
@@ -153,7 +175,7 @@ def log_reanalyse(run: str = RUN, o: dict = None) -> None:
     from benchkit.bench import complete
     from benchkit.kinds import reanalyse
 
-    with _book(o["bench"], write=True) as book:
+    with book_of(o["bench"], write=True) as book:
         entry = book.entry(run)
         with book.resume(entry.id) as taken:
             doc, written = reanalyse(taken.folder, taken.record, say=err)
@@ -170,7 +192,7 @@ def log_remove(runs: List[str] = typer.Argument(..., help="Runs to move to the t
 
     Example: benchkit log remove 20261202-101500-tone
     """
-    with _book(o["bench"], write=True) as book:
+    with book_of(o["bench"], write=True) as book:
         for ref in runs:
             dest = book.remove(book.entry(ref).id)
             err(f"moved {ref} to {dest}")
@@ -188,11 +210,27 @@ def compare(runs: List[str] = typer.Argument(None, help="Runs to compare (ids, u
     sweeps the response; drift logs the settled value and rate. Runs
     measured under different conditions are refused unless --anyway.
 
+    Two or more sessions (a plan's, by id or a unique start of it; 'last'
+    names runs here) compare whole: their measurements pair by kind and
+    options, in one table across every kind, and an HTML report of them is
+    written beside it.
+
     Example: benchkit compare --last 2 --command power
     """
     from benchkit.compare_runs import chosen_runs, compare_runs
+    from benchkit.session import is_session
 
-    with _book(o["bench"], write=True) as book:
+    with book_of(o["bench"], write=True) as book:
+        if runs and len(runs) > 1 and all(is_session(book.root, r) and not r.startswith("last") for r in runs):
+            from benchkit.cli.plan import write_session_report
+
+            path, compared = write_session_report(book, list(runs), o["anyway"], None)
+            err(f"report: {path}")
+            if o["json"]:
+                from benchkit.report.tables import dumps
+
+                print(dumps({**compared.to_dict(), "folder": str(compared.folder), "report": str(path)}))
+            return
         refs = chosen_runs(book, list(runs or []), o["last"], o["command"])
         report = compare_runs(book, refs, anyway=o["anyway"], out=o["out"])
     err(report.text)

@@ -22,6 +22,6 @@ def _command(kind):
     return command
 
 
-for _kind in sorted((k for k in kinds.all_kinds() if k.live is not None),
+for _kind in sorted((k for k in kinds.all_kinds() if k.live is not None and not k.live.over_time),
                     key=lambda k: (ORDER.index(k.name) if k.name in ORDER else len(ORDER), k.name)):
     app.command(_kind.name)(_command(_kind))

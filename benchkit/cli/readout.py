@@ -36,24 +36,12 @@ def watch(o: dict) -> None:
         raise typer.Exit(EXIT_STOPPED_EARLY if end.clipped else EXIT_INTERRUPTED)
 
 
+from benchkit.kinds.drift import ON_BENCH as _DRIFT  # noqa: E402
+
+
 @app.command()
-@takes("dc_source meter current_meter interval duration until_settled accelerate device in_channel calibration "
-       "sim_param seed json", "judge", "filing", dc_source="virtual",
-       helps=dict(current_meter="A meter reading the supply's DC current (its VISA resource), logged beside the volts."))
+@takes(_DRIFT.options, *_DRIFT.groups, helps=_DRIFT.helps, **_DRIFT.defaults)
 def drift(o: dict) -> None:
-    """Log the DC operating point as the stage warms: offset, drift rate, settling fit, verdict.
-
-    Every reading goes to log.csv as it comes (Ctrl-C or a crash keeps them
-    all); a live line shows the latest value, the rate and the estimated
-    time to settle. The virtual source is the se-class-a stage's midpoint,
-    its thermal model in accelerated time.
-
-    Example: benchkit drift --dc-source meter --meter TCPIP::192.168.1.50::5025::SOCKET --interval 2 --until-settled --dc-limit 0.05
-
-    Safety: probe a live, hot stage with one hand, with insulated probes,
-    and mind the supply's stored charge; follow local codes for anything
-    mains-powered.
-    """
     from benchkit.kinds.drift import log
 
     with live_run():
@@ -61,3 +49,6 @@ def drift(o: dict) -> None:
     show(filed, o["json"])
     if end.how not in ("duration", "settled"):
         raise typer.Exit(EXIT_INTERRUPTED if end.how == "interrupted" else EXIT_BAD_INPUT)
+
+
+drift.__doc__ = _DRIFT.about

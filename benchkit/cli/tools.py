@@ -131,8 +131,10 @@ def budget(o: dict) -> None:
 def demo(o: dict) -> None:
     """Run the demo on the virtual bench: Test stage B-2 at 0.8 A and 1.2 A bias, compared.
 
-    No hardware and no options needed; writes captures, PNG, CSV, JSON and a
-    summary into the report folder and prints where it is.
+    The shipped plan ('benchkit plan new' copies it) measured as two
+    sessions, compared, and one HTML report. No hardware and no options
+    needed; writes captures, PNG, CSV, JSON, a summary and the report into
+    the report folder and prints where it is.
 
     Example: benchkit demo --out demo-report
     """
@@ -143,7 +145,8 @@ def demo(o: dict) -> None:
         report_folder(o["out"])
         report = run_demo(o["out"], seed=o["seed"], say=err)
     err(report.text)
-    err(f"report: {report.folder.resolve()} ({len(report.files)} files)")
+    err(f"HTML report: {report.report.resolve()}")
+    err(f"report: {report.folder.resolve()} (a bench folder: 'benchkit log list --bench {o['out']}')")
 
 
 @app.command()

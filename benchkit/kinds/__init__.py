@@ -175,17 +175,21 @@ class Live:
     other
         ``(o, say) -> Filed | None``: a run made another way when the
         options ask for it (zout --from: two logged runs), else None.
+    over_time
+        It logs readings over time (drift): ``other`` makes every run,
+        and its command stands with the live readouts.
     """
 
-    opens: Callable[[dict], dict]
-    prepare: Callable[[Any], dict]
-    measure: Callable[[Any, Path], Measured]
+    opens: Callable[[dict], dict] | None
+    prepare: Callable[[Any], dict] | None
+    measure: Callable[[Any, Path], Measured] | None
     options: str = ""
     groups: tuple[str, ...] = ("live", "filing")
     defaults: dict = field(default_factory=dict)
     helps: dict = field(default_factory=dict)
     about: str = ""
     other: Callable | None = None
+    over_time: bool = False
 
 
 @dataclass(frozen=True)

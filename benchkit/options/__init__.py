@@ -172,6 +172,9 @@ OPTIONS: dict[str, Option] = {
     "anyway": _o("--anyway", "Compare runs whose conditions differ (load, frequency, band, calibration, sample rate), with a loud warning.", default=False),
     "append": _o("--append", "Add a line to the note instead of replacing it.", default=False),
     "remove": _o("--remove", "Take this tag off (repeatable).", default=[]),
+    "session": _o("--session", "Only runs of this session (a plan's: its id, a unique start of it, or 'last')."),
+    # plans and sessions
+    "set_stage": _o("--set", "Change a value of the plan's stage for this session, key=value (repeatable), e.g. --set bias=1.2.", default=[]),
 }
 
 #: the options every live measurement takes

@@ -6,10 +6,21 @@ from __future__ import annotations
 from benchkit.units import quantity
 
 
-def _figure_value(v, unit: str) -> str:
+def figure_value(v, unit: str) -> str:
     if v is None:
         return "-"
     return f"{v:.2f} {unit}" if unit in ("dB", "dBc", "dBFS", "%") else f"{quantity(v, unit)}"
+
+
+def change_text(d, k: int) -> str:
+    """Run k's change from the first (a comparison's Delta), with its unit and verdict."""
+    ch = d.changes[k - 1]
+    if ch is None:
+        return "-"
+    unit = d.unit if d.unit in ("dB", "dBc", "dBFS", "%") else ""
+    text = f"{ch:+.2f} {unit}" if unit else ("+" if ch >= 0 else "-") + quantity(abs(ch), d.unit, 3)
+    verdict = d.verdict(k)
+    return text + (f" {verdict}" if verdict else "")
 
 
 def comparison_text(c) -> str:
@@ -23,16 +34,8 @@ def comparison_text(c) -> str:
     name_w = max(len(f"{d.label} ({d.at})" if d.at and d.at not in d.label else d.label) for d in shown)
     for d in shown:
         name = f"{d.label} ({d.at})" if d.at and d.at not in d.label else d.label
-        cells = [f"{_figure_value(v, d.unit):>{max(12, width)}}" for v in d.values]
-        changes = []
-        for k, ch in enumerate(d.changes, start=1):
-            if ch is None:
-                changes.append("-")
-                continue
-            verdict = d.verdict(k)
-            unit = d.unit if d.unit in ("dB", "dBc", "dBFS", "%") else ""
-            text = f"{ch:+.2f} {unit}" if unit else ("+" if ch >= 0 else "-") + quantity(abs(ch), d.unit, 3)
-            changes.append(text + (f" {verdict}" if verdict else ""))
+        cells = [f"{figure_value(v, d.unit):>{max(12, width)}}" for v in d.values]
+        changes = [change_text(d, k) for k in range(1, len(d.values))]
         lines.append(f"  {name:<{name_w}}  " + "  ".join(cells) + "   " + "; ".join(changes))
     if len(shown) < len(ordered):
         lines.append(f"  ... {len(ordered) - len(shown)} more figures in the CSV")
