@@ -15,6 +15,7 @@ import csv
 import json
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Callable
 
 from benchkit.compare_runs import ComparisonReport, compare_runs, comparison_folder
 from benchkit.errors import BenchkitError
@@ -91,11 +92,23 @@ def pair_steps(docs: list[dict]) -> tuple[list[tuple[dict, list[str]]], list[str
     return pairs, unpaired
 
 
-def compare_sessions(book: Logbook, refs: list[str], anyway: bool = False, out: Path | None = None) -> SessionComparison:
+def _compared(root: Path, runs: list[str], anyway: bool, out: Path, title: str) -> ComparisonReport:
+    """One measurement's runs compared, into its folder (a process of a pool may do it)."""
+    with Logbook(root) as book:
+        try:
+            return compare_runs(book, runs, anyway=anyway, out=out, title=title)
+        except BenchkitError as exc:
+            raise BenchkitError(f"step {out.name[:2].lstrip('0')} ({out.name[3:]}): {exc}") from None
+
+
+def compare_sessions(book: Logbook, refs: list[str], anyway: bool = False, out: Path | None = None,
+                     each: Callable = map) -> SessionComparison:
     """Compare sessions (ids, unique starts, 'last', 'last-N'), the first
     the baseline, into one folder (default: comparisons/<time>-sessions-<first>
     in the bench folder): per measurement its own comparison folder, and
-    across every kind the table (CSV), the comparison (JSON) and a summary."""
+    across every kind the table (CSV), the comparison (JSON) and a summary.
+    ``each`` maps the measurements' comparisons (a process pool's map
+    draws their plots side by side)."""
     from benchkit.recordings import write_text_atomic
     from benchkit.report.tables import write_json
 
@@ -109,15 +122,12 @@ def compare_sessions(book: Logbook, refs: list[str], anyway: bool = False, out: 
     if not found:
         raise BenchkitError("the sessions share no complete measurement of the same kind and options: nothing compares")
     out = comparison_folder(book, out, f"sessions-{slug(docs[0]['id'][16:], 30)}")
-    pairs, files = [], []
-    for step, runs in found:
-        title = f"{docs[0]['name']}: {step['kind']}" + (f" ({step['label']})" if step["label"] else "")
-        try:
-            report = compare_runs(book, runs, anyway=anyway, out=out / f"{step['n']:02d}-{step['kind']}", title=title)
-        except BenchkitError as exc:
-            raise BenchkitError(f"step {step['n']} ({step['kind']}): {exc}") from None
-        pairs.append(Pair(step["n"], step["kind"], step["label"], report))
-        files += report.files
+    steps = [step for step, _runs in found]
+    reports = list(each(_compared, [book.root] * len(found), [runs for _s, runs in found], [anyway] * len(found),
+                        [out / f"{s['n']:02d}-{s['kind']}" for s in steps],
+                        [f"{docs[0]['name']}: {s['kind']}" + (f" ({s['label']})" if s["label"] else "") for s in steps]))
+    pairs = [Pair(step["n"], step["kind"], step["label"], report) for step, report in zip(steps, reports)]
+    files = [f for report in reports for f in report.files]
     result = SessionComparison(out, tuple(docs), tuple(labels), tuple(pairs), tuple(unpaired), (), "")
     text = comparison_text(result)
     files = [write_json(result.to_dict(), out / "sessions.json"), write_table(result, out / "sessions.csv"),

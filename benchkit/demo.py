@@ -17,6 +17,7 @@ its logbook, each session in sessions/.
 
 from __future__ import annotations
 
+import contextlib
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -45,6 +46,7 @@ def _session(out: Path, seed: int, bias: str, quiet: bool) -> dict:
 
     plan = read_plan(DEMO_PLAN)
     plan = replace(plan, bench={**plan.bench, "seed": seed})
+
     def say(line: str) -> None:  # side by side: the progress only, marked by its bias
         if not quiet or line.startswith(("[", "plan pre-flight")):
             print(f"[{bias} A] {line}" if quiet else line, file=sys.stderr, flush=True)
@@ -65,18 +67,18 @@ def run_demo(out: Path, seed: int = 1, say: Callable[[str], None] = lambda _m: N
     out.mkdir(parents=True, exist_ok=True)
     say(f"virtual bench: {read_plan(DEMO_PLAN).name}, the plan {DEMO_PLAN.name} at "
         + " and then ".join(f"{b} A" for b in BIASES_A) + " of bias")
-    if together:
-        with ProcessPoolExecutor(len(BIASES_A)) as pool:
+    with ProcessPoolExecutor(len(BIASES_A)) if together else contextlib.nullcontext() as pool:
+        if together:
             docs = list(pool.map(_session, [out] * len(BIASES_A), [seed] * len(BIASES_A), BIASES_A,
                                  [True] * len(BIASES_A)))
-        for doc in docs:
-            say(f"session {doc['id']}: {doc['status']}, tags " + ", ".join(f"{k}={v}" for k, v in doc["tags"].items()))
-    else:
-        docs = [_session(out, seed, bias, False) for bias in BIASES_A]
-    with Logbook(out) as book:
-        compared = compare_sessions(book, [d["id"] for d in docs])
-        report = write_report(book, list(compared.sessions), out / "report.html", compared,
-                              title=f"{docs[0]['name']}: bias {BIASES_A[0]} A against {BIASES_A[1]} A")
+            for doc in docs:
+                say(f"session {doc['id']}: {doc['status']}, tags " + ", ".join(f"{k}={v}" for k, v in doc["tags"].items()))
+        else:
+            docs = [_session(out, seed, bias, False) for bias in BIASES_A]
+        with Logbook(out) as book:
+            compared = compare_sessions(book, [d["id"] for d in docs], each=pool.map if together else map)
+            report = write_report(book, list(compared.sessions), out / "report.html", compared,
+                                  title=f"{docs[0]['name']}: bias {BIASES_A[0]} A against {BIASES_A[1]} A")
     text = "\n".join([f"{docs[0]['name']} on the virtual bench, bias {BIASES_A[0]} A -> {BIASES_A[1]} A "
                       "('benchkit compare' of the two sessions):", compared.text, "",
                       *(f"session {d['id']} ({', '.join(f'{k}={v}' for k, v in d['tags'].items())}): {d['status']}, "

@@ -168,3 +168,19 @@ def write_report(book: Logbook, sessions: list[dict], path: Path, comparison=Non
             f"<style>{_STYLE}</style><script>{_SCRIPT}</script></head><body>{''.join(parts)}"
             '<p class="conditions">written by benchkit</p></body></html>')
     return write_text_atomic(Path(path), page)
+
+
+def report_sessions(book: Logbook, refs: list[str], anyway: bool = False, file: Path | None = None,
+                    say=lambda _m: None):
+    """The report of one session, or of two or more compared (the
+    comparison's table said): its path (default: report.html in the
+    session's or the comparison's folder), and the comparison (or None)."""
+    from benchkit.compare_sessions import compare_sessions
+    from benchkit.session import folder_of, read_session
+
+    if len(refs) == 1:
+        doc = read_session(book.root, refs[0])
+        return write_report(book, [doc], file or folder_of(book.root, doc["id"]) / "report.html"), None
+    compared = compare_sessions(book, refs, anyway)
+    say(compared.text)
+    return write_report(book, list(compared.sessions), file or compared.folder / "report.html", compared), compared

@@ -3,6 +3,10 @@
 from __future__ import annotations
 
 import os
+
+# one BLAS thread in every worker and every command they start, as the
+# command line has it (benchkit/cli/__init__.py): set before numpy loads
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 import shutil
 import signal
 import subprocess
@@ -26,6 +30,13 @@ def pytest_configure(config):
     default again in each program started (an exec keeps only "ignored")."""
     if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
         signal.signal(signal.SIGINT, signal.default_int_handler)
+
+
+def pytest_xdist_auto_num_workers(config):
+    """One worker more than the cores ('-n auto'): one of them holds the
+    real-stream tests (test_jack.py), which mostly wait on the stream,
+    while the others keep every core busy with the rest."""
+    return (os.cpu_count() or 1) + 1
 
 
 def pytest_collection_modifyitems(items):

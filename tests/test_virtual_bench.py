@@ -315,3 +315,18 @@ def test_the_virtual_stage_drives_the_load_the_command_states(tmp_path, args, cl
     assert res.returncode == 0, res.stderr
     thdn = json.loads(res.stdout)["steps"][0]["thdn_pct"]
     assert (thdn > 3.0) if clips else (thdn < 1.0), thdn
+
+
+@pytest.mark.parametrize("n", [1, 7, 8, 1000, 48_001])
+def test_the_fast_decimation_is_scipys_resample_poly(n):
+    # the converters' decimation by FFT convolution gives scipy's polyphase
+    # resampler's samples (scipy.signal.resample_poly, the reference), to rounding
+    import scipy.signal
+
+    from benchkit.capture.virtual import OVERSAMPLE, _decimate, _lowpass
+
+    h = _lowpass(0.46)
+    v = np.random.default_rng(n).standard_normal(n * OVERSAMPLE + 3)
+    want = scipy.signal.resample_poly(v, 1, OVERSAMPLE, window=h)
+    got = _decimate(v, h)
+    assert got.shape == want.shape and np.max(np.abs(got - want)) < 1e-12

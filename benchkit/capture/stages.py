@@ -283,7 +283,13 @@ class SingleEndedClassA(StageModel):
         t_loop = self.params["loop_gain"]
         vi = self.current_limit_v
         top = vi * (1.0 - 1e-12)
-        v = np.minimum(target, 0.999 * vi)
+        # start from the series of g about rest, g(v) - v = (VT / slope0)(x^2/2 + x^3/3 + x^4/4 ...)
+        # with x = v / vi, taken at the target: off by a few tenths of a microvolt at a volt or
+        # two, so that one Newton step lands and a second confirms (three from the target itself)
+        p = self.params
+        x = np.clip(target / vi, -0.5, 0.5)
+        scale = THERMAL_VOLTAGE / (THERMAL_VOLTAGE / vi + p["re"] / p["load"]) / t_loop
+        v = np.minimum(target - scale * x * x * (0.5 + x * (1.0 / 3.0 + 0.25 * x)), 0.999 * vi)
         # Newton on the samples still moving: near the limit a sample takes
         # tens of steps, at rest two or three
         active = np.arange(v.size)

@@ -86,6 +86,15 @@ def _lowpass(fraction: float) -> np.ndarray:
     return scipy.signal.firwin(64 * OVERSAMPLE + 1, cutoff, window=("kaiser", 11.0))
 
 
+def _decimate(v: np.ndarray, h: np.ndarray) -> np.ndarray:
+    """``resample_poly(v, 1, OVERSAMPLE, window=h)``: the same samples (to
+    rounding) by one FFT convolution, kept at every OVERSAMPLE-th point
+    (h's centre tap lands on one: its half length is a multiple of
+    OVERSAMPLE), in about half the time on a long record."""
+    half = (h.size - 1) // 2
+    return scipy.signal.oaconvolve(v, h)[half::OVERSAMPLE][: -(-v.size // OVERSAMPLE)]
+
+
 def _white(rng: np.random.Generator, n: int, dbfs_in_band: float, rate: float) -> np.ndarray:
     """White noise whose level over 20 Hz-20 kHz is ``dbfs_in_band`` (AES17)."""
     rms = 10 ** (dbfs_in_band / 20) / math.sqrt(2)
@@ -296,7 +305,7 @@ class VirtualBench:
         else:
             at_input = [self._reload(self.stage.process(analog, rate * OVERSAMPLE), rate * OVERSAMPLE, {})
                         * self.pad_ratio(), analog]
-        channels = [self._adc(scipy.signal.resample_poly(v, 1, OVERSAMPLE, window=h)) for v in at_input]
+        channels = [self._adc(_decimate(v, h)) for v in at_input]
         channels += [self._adc(np.zeros(total)) for _ in range(len(at_input), s.n_inputs)]
         rec = np.stack(channels, axis=1)
         # the round trip: a delay nobody reports correctly, and clock offset
@@ -444,7 +453,7 @@ class _StreamChain:
         chans = []
         for i, v in enumerate((first, analog)):
             ext_up = np.concatenate([self.hist_up[i], v])
-            down = scipy.signal.upfirdn(self.h / OVERSAMPLE, ext_up, down=OVERSAMPLE)
+            down = scipy.signal.oaconvolve(ext_up, self.h / OVERSAMPLE)[::OVERSAMPLE]  # (upfirdn's down, sooner)
             k = self.hist_up[i].size // OVERSAMPLE
             chans.append(b._adc(down[k : k + n], self.n, self.adc_state[i]))
             self.hist_up[i] = ext_up[ext_up.size - self.hist_up[i].size :]

@@ -11,7 +11,13 @@ from __future__ import annotations
 import os
 import sys
 
-import typer
+# one BLAS thread, set before numpy loads: the analysis's matrices are small
+# (a sine fit's few columns), and idle BLAS threads spinning beside a live
+# stream, or beside a second process, only take the CPU (the demo's two
+# sessions side by side ran a fifth slower with them)
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import typer  # noqa: E402
 
 from benchkit.cli.common import app, err, EXIT_BAD_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_USAGE
 from benchkit.errors import BenchkitError

@@ -222,9 +222,9 @@ def compare(runs: List[str] = typer.Argument(None, help="Runs to compare (ids, u
 
     with book_of(o["bench"], write=True) as book:
         if runs and len(runs) > 1 and all(is_session(book.root, r) and not r.startswith("last") for r in runs):
-            from benchkit.cli.plan import write_session_report
+            from benchkit.session_report import report_sessions
 
-            path, compared = write_session_report(book, list(runs), o["anyway"], None)
+            path, compared = report_sessions(book, list(runs), o["anyway"], None, err)
             err(f"report: {path}")
             if o["json"]:
                 from benchkit.report.tables import dumps

@@ -163,22 +163,8 @@ def report(sessions: List[str] = typer.Argument(..., help="Sessions (ids, unique
     Example: benchkit report last-1 last
     """
     from benchkit.cli.log import book_of
+    from benchkit.session_report import report_sessions
 
     with book_of(o["bench"], write=True) as book:
-        path, _compared = write_session_report(book, sessions, o["anyway"], o["file"])
+        path, _compared = report_sessions(book, sessions, o["anyway"], o["file"], err)
     err(f"report: {path}")
-
-
-def write_session_report(book, refs: list[str], anyway: bool, file: Path | None):
-    """The report of one session, or of two or more compared (the
-    comparison said on stderr): its path, and the comparison (or None)."""
-    from benchkit.compare_sessions import compare_sessions
-    from benchkit.session_report import write_report
-    from benchkit.session import folder_of, read_session
-
-    if len(refs) == 1:
-        doc = read_session(book.root, refs[0])
-        return write_report(book, [doc], file or folder_of(book.root, doc["id"]) / "report.html"), None
-    compared = compare_sessions(book, refs, anyway)
-    err(compared.text)
-    return write_report(book, list(compared.sessions), file or compared.folder / "report.html", compared), compared
