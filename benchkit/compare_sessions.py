@@ -75,20 +75,21 @@ def pair_steps(docs: list[dict]) -> tuple[list[tuple[dict, list[str]]], list[str
     pairs, unpaired = [], []
     used = [set() for _ in docs]
     for step in docs[0]["steps"]:
-        if step["state"] != "complete":
+        if step["state"] != "complete" or not step["run"]:
             unpaired.append(f"step {step['n']} ({step['kind']}) is {step['state']} in {docs[0]['id']}")
             continue
-        runs = [step["run"]]
+        matches = []
         for k, other in enumerate(docs[1:], start=1):
-            match = next((s for s in other["steps"] if s["state"] == "complete" and s["n"] not in used[k]
+            match = next((s for s in other["steps"] if s["state"] == "complete" and s["run"] and s["n"] not in used[k]
                           and _key(s) == _key(step)), None)
             if match is None:
                 unpaired.append(f"step {step['n']} ({step['kind']}) has no like measurement in {other['id']}")
                 break
-            used[k].add(match["n"])
-            runs.append(match["run"])
-        else:
-            pairs.append((step, runs))
+            matches.append(match)
+        else:  # (a step is taken only once it pairs in every session)
+            for k, match in enumerate(matches, start=1):
+                used[k].add(match["n"])
+            pairs.append((step, [step["run"]] + [m["run"] for m in matches]))
     return pairs, unpaired
 
 
@@ -167,14 +168,14 @@ def write_table(c: SessionComparison, path: Path) -> Path:
 
 def comparison_text(c: SessionComparison) -> str:
     """The table on one screen: every measurement's headline figures."""
-    from benchkit.report.summary import change_text, figure_value
+    from benchkit.report.summary import change_text, figure_name, figure_value
 
     lines = [f"!! NOT LIKE FOR LIKE: {p.kind} (step {p.n}): {w}" for p in c.pairs for w in p.report.comparison.warnings]
     lines.append("sessions: " + "; ".join(f"[{k}] {lab} ({d['id']})" for k, (lab, d) in enumerate(zip(c.labels, c.sessions)))
                  + " (changes are from [0])")
     width = max(12, *(len(lab) for lab in c.labels))
     shown = list(rows(c))
-    name_w = max(len(_name(d)) for _p, d in shown)
+    name_w = max((len(figure_name(d)) for _p, d in shown), default=0)
     current = None
     for p, d in shown:
         if p is not current:
@@ -182,10 +183,6 @@ def comparison_text(c: SessionComparison) -> str:
             current = p
         cells = "  ".join(f"{figure_value(v, d.unit):>{width}}" for v in d.values)
         changes = "; ".join(change_text(d, k) for k in range(1, len(d.values)))
-        lines.append(f"  {_name(d):<{name_w}}  {cells}   {changes}")
+        lines.append(f"  {figure_name(d):<{name_w}}  {cells}   {changes}")
     lines += [f"not compared: {u}" for u in c.unpaired]
     return "\n".join(lines)
-
-
-def _name(d) -> str:
-    return f"{d.label} ({d.at})" if d.at and d.at not in d.label else d.label

@@ -300,6 +300,11 @@ def _lock_is_held(path: Path, pid: int | None) -> bool:
         finally:
             os.close(fd)  # (closing drops a lock taken here)
         return False
+    return process_alive(pid)
+
+
+def process_alive(pid: int | None) -> bool:
+    """Whether a process of this id is there (on this host)."""
     if not pid:
         return False
     try:

@@ -118,7 +118,11 @@ class Plan:
     def options(self, index: int, bench_root: Path, session_id: str | None = None) -> dict:
         """Step ``index``'s options by key, as its command would have them:
         the kind's defaults, then the stage's values and the [bench]
-        table's where the kind takes them, then the step's own."""
+        table's where the kind takes them, then the step's own (the
+        virtual stage's parameters add up: the stage's, then those
+        given; a calibration is found from the plan's folder; a step's
+        virtual-bench seed is the [bench] seed plus its index unless it
+        gives its own)."""
         step = self.steps[index]
         taken = kind_options(step.kind)
         o = {key: _default(key, default) for key, default in taken.items()}
@@ -128,15 +132,19 @@ class Plan:
             if option is not None and key in stage:
                 derived[option] = stage[key]
         if "calibration" in derived:
-            derived["calibration"] = (self.folder / derived["calibration"]).resolve()
-        for key, value in {**derived, **self.bench, **step.given}.items():
+            derived["calibration"] = Path(derived["calibration"])
+        given = {**self.bench, **step.given}
+        for key, value in {**derived, **given}.items():
             if key in o and value is not None:
                 o[key] = value
-        if "sim_param" in o and "sim_param" not in step.given and "sim_param" not in self.bench:
-            o["sim_param"] = _stage_on_the_virtual_bench(stage, o.get("sim", "se-class-a"))
-        if "sim_pad" in o and "pad" in stage and "sim_pad" not in self.bench:
+        if isinstance(o.get("calibration"), Path) and not o["calibration"].is_absolute():
+            o["calibration"] = (self.folder / o["calibration"]).resolve()  # (from the plan's folder, wherever given)
+        if "sim_param" in o:  # the stage's values first; a --sim-param given says otherwise (the last one counts)
+            o["sim_param"] = (_stage_on_the_virtual_bench(stage, o.get("sim", "se-class-a"))
+                              + list(self.bench.get("sim_param", [])) + list(step.given.get("sim_param", [])))
+        if "sim_pad" in o and "pad" in stage and "sim_pad" not in given:
             o["sim_pad"] = stage["pad"]
-        if "seed" in o:  # each step its own noise on the virtual bench
+        if "seed" in o and "seed" not in step.given:  # each step its own noise on the virtual bench
             o["seed"] = o["seed"] + index
         o.update(bench=bench_root, session=session_id, tag=[f"{k}={v}" for k, v in self.session_tags().items()],
                  note=f"{self.name}: step {step.title(index)}", stage=None,
@@ -201,6 +209,8 @@ def _value(key: str, value, where: str, repeats: bool):
     if isinstance(value, (dict, list)) and not (repeats and isinstance(value, list)):
         raise BenchkitError(f"{where}: takes one value, got {'a table' if isinstance(value, dict) else 'a list'}")
     items = value if isinstance(value, list) else [value]
+    if not items:
+        raise BenchkitError(f"{where}: an empty list: give one value or more, or leave the option out")
     out = []
     for item in items:
         if isinstance(item, (dict, list)):

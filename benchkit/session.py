@@ -30,7 +30,8 @@ from benchkit.plan import Plan, parse_plan
 SESSIONS = "sessions"
 SESSION_FILE = "session.json"
 SESSION_KIND, SESSION_VERSION = "session", 1
-#: a step's states; a session's are running, complete, incomplete (a step failed) and interrupted
+#: a step's states; a session's are running, complete, interrupted (it stopped: Ctrl-C, a lost
+#: device, a fault) and incomplete (it went to its end with a step failed)
 STEP_STATES = ("pending", "complete", "interrupted", "failed", "skipped")
 
 
@@ -41,7 +42,10 @@ class SessionInterrupted(BenchkitError):
     def __init__(self, doc: dict, why: str, device_lost: bool = False):
         super().__init__(f"{why}: session {doc['id']} stopped; what it measured is filed, the rest is marked skipped "
                          f"('benchkit plan resume {doc['id']}' measures it)")
-        self.doc, self.device_lost = doc, device_lost
+        self.doc, self.why, self.device_lost = doc, why, device_lost
+
+    def __reduce__(self):  # (across a process pool: the demo's sessions)
+        return SessionInterrupted, (self.doc, self.why, self.device_lost)
 
 
 def folder_of(root: Path, session_id: str) -> Path:
@@ -52,22 +56,54 @@ def save(root: Path, doc: dict) -> None:
     write_json_atomic(doc, folder_of(root, doc["id"]) / SESSION_FILE)
 
 
-def all_sessions(root: Path) -> list[dict]:
-    """Every session of a bench folder, newest first (a damaged record is left out)."""
+def _damage(doc) -> str | None:
+    """What is wrong with a session record, or None."""
+    if not isinstance(doc, dict) or doc.get("kind") != SESSION_KIND:
+        return "not a benchkit session record"
+    if doc.get("schema_version") != SESSION_VERSION:
+        return f"schema_version {doc.get('schema_version')!r}, this benchkit reads {SESSION_VERSION}"
+    needs = {"id": str, "name": str, "status": str, "started": str, "plan_text": str, "stage": dict, "tags": dict,
+             "steps": list}
+    for key, kind in needs.items():
+        if not isinstance(doc.get(key), kind):
+            return f"{key} is missing or not a {kind.__name__}"
+    for k, st in enumerate(doc["steps"]):
+        if not (isinstance(st, dict) and isinstance(st.get("n"), int) and isinstance(st.get("kind"), str)
+                and st.get("state") in STEP_STATES and isinstance(st.get("options"), dict)
+                and isinstance(st.get("label"), str) and (st.get("run") is None or isinstance(st["run"], str))):
+            return f"steps[{k}] is damaged"
+    return None
+
+
+def _read(path: Path) -> dict:
+    try:
+        doc = load_json(path)
+    except (OSError, ValueError) as exc:
+        raise BenchkitError(f"the session record {path} is unreadable ({exc})") from None
+    problem = _damage(doc)
+    if problem:
+        raise BenchkitError(f"the session record {path} is damaged ({problem})")
+    return doc
+
+
+def all_sessions(root: Path, say: Callable[[str], None] = lambda _m: None) -> list[dict]:
+    """Every session of a bench folder, newest first (a damaged record is
+    left out, and said)."""
     found = []
     base = Path(root) / SESSIONS
     for path in sorted(base.glob(f"*/{SESSION_FILE}"), reverse=True) if base.is_dir() else []:
         try:
-            doc = load_json(path)
-        except (OSError, ValueError):
-            continue
-        if isinstance(doc, dict) and doc.get("kind") == SESSION_KIND:
-            found.append(doc)
+            found.append(_read(path))
+        except BenchkitError as exc:
+            say(f"warning: {exc}")
     return found
 
 
 def read_session(root: Path, ref: str) -> dict:
     """A session by its id, a unique prefix of it, or 'last' / 'last-N'."""
+    exact = folder_of(root, ref) / SESSION_FILE
+    if exact.exists():
+        return _read(exact)
     every = all_sessions(root)
     m = re.fullmatch(r"last(?:-(\d+))?", ref)
     if m:
@@ -141,11 +177,13 @@ def _drive_of(kind: str, o: dict) -> list[str]:
 
 def preflight(plan: Plan, root: Path, say: Callable[[str], None]) -> None:
     """The pre-flight of the whole plan, before any step plays: every
-    step's options checked as its command checks them, then the highest
-    drive of any step against the drive cap, and with one low probe step
-    through the stage, against the pad, the rail and the input (a power
-    step finds its own top step, below the input's full scale, when it
-    runs)."""
+    step's frequencies against the rate and its band (each value was
+    read by its option's parser with the plan), then the highest drive
+    of any step against the drive cap and, with one low probe step
+    through the stage, against the pad, the rail and the input, on the
+    device as that step opens it (a power step finds its own top step,
+    below the input's full scale, when it runs; each step's own
+    pre-flight runs again as it starts)."""
     from benchkit import bench, record
     from benchkit.signals import check_level
 
@@ -153,16 +191,22 @@ def preflight(plan: Plan, root: Path, say: Callable[[str], None]) -> None:
     for i, step in enumerate(plan.steps):
         o = plan.options(i, root)
         live = kinds.get(step.kind).live
-        if live.opens is not None and live.other is None:
+        if live.opens is not None:
             bench.check_within(o["rate"], dict(live.opens(o)).get("within", ()))
         playing += [(i, text) for text in _drive_of(step.kind, o)]
     if not playing:
         say("plan pre-flight: no step plays a set level (power finds its own, noise and drift play nothing)")
         return
-    o = plan.options(playing[0][0], root)
-    backend, profile = bench.live_setup(o, lambda _m: None, ref=o.get("ref_channel"), load=o.get("load"))
+    def opened(i: int):
+        o = plan.options(i, root)
+        return bench.live_setup(o, lambda _m: None, ref=o.get("ref_channel"), load=o.get("load"))
+
+    backend, profile = opened(playing[0][0])
     try:
         drive, i = max((units.parse_level(text).to_dbfs(backend.output_vpk_per_fs), i) for i, text in playing)
+        if i != playing[0][0]:  # judged on the device as that step opens it (its cap, scale, profile)
+            _close(backend)
+            backend, profile = opened(i)
         step = plan.steps[i]
         try:
             check_level(drive)
@@ -182,13 +226,17 @@ def preflight(plan: Plan, root: Path, say: Callable[[str], None]) -> None:
     except BenchkitError as exc:
         raise BenchkitError(f"plan pre-flight: {exc}") from None
     finally:
-        close = getattr(backend, "close", None)
-        if close is not None:
-            close()
+        _close(backend)
     say(f"plan pre-flight: the highest drive is {drive:.1f} dBFS (step {step.title(i)}): the input, the pad and "
         "the rail allow it")
     for w in got.warnings:
         say(f"warning: plan pre-flight: {w}")
+
+
+def _close(backend) -> None:
+    close = getattr(backend, "close", None)
+    if close is not None:
+        close()
 
 
 # --- running it -------------------------------------------------------------------------
@@ -204,6 +252,36 @@ class SessionEnd:
     @property
     def complete(self) -> bool:
         return self.doc["status"] == "complete"
+
+
+def _alive(pid) -> bool:
+    """Whether the process that ran a session is still there (not this one)."""
+    from benchkit.logbook import process_alive
+
+    return isinstance(pid, int) and pid != os.getpid() and process_alive(pid)
+
+
+def _runs_of(root: Path, session_id: str) -> set[str]:
+    from benchkit.logbook import CATALOG, Logbook
+
+    if not (Path(root) / CATALOG).exists():
+        return set()
+    with Logbook(root) as book:
+        return {e.id for e in book.entries(session=session_id)}
+
+
+def _newest(root: Path, session_id: str, before: set[str]) -> str | None:
+    """The run a step filed (the session's run that was not there before it), if any."""
+    new = sorted(_runs_of(root, session_id) - before)
+    return new[-1] if new else None
+
+
+def _stop(root: Path, doc: dict, rest: list[int], why: str) -> None:
+    """The session stopped: the steps not reached are skipped, and it says so on disk."""
+    for j in rest:
+        doc["steps"][j].update(state="skipped", error=f"not measured: the session stopped ({why})")
+    doc.update(status="interrupted", finished=now_iso())
+    save(root, doc)
 
 
 def _clock(seconds: float) -> str:
@@ -227,6 +305,8 @@ def run_session(plan: Plan, root: Path, say: Callable[[str], None], ask: Callabl
         doc = read_session(root, resume)
         if doc["status"] == "complete":
             raise BenchkitError(f"session {doc['id']} is complete: nothing is left to measure")
+        if doc["status"] == "running" and _alive(doc.get("pid")):
+            raise BenchkitError(f"session {doc['id']} is running (process {doc['pid']}): let it end, or stop it first")
         plan = plan_of(doc)
         doc.update(status="running", finished=None, pid=os.getpid())
     else:
@@ -243,33 +323,42 @@ def run_session(plan: Plan, root: Path, say: Callable[[str], None], ask: Callabl
     for at, i in enumerate(todo):
         st, step = doc["steps"][i], plan.steps[i]
         left = "" if not done else f", about {_clock((time.monotonic() - t0) / done * (len(todo) - at))} left"
-        began = time.monotonic()
-        why = None
+        began, before = time.monotonic(), _runs_of(root, doc["id"])
+        why, lost = None, False
         try:  # (Ctrl-C between steps ends the session as well as within one)
             say(f"[{i + 1}/{len(doc['steps'])}] {step.kind}" + (f": {step.label}" if step.label else "")
                 + f" ({_clock(time.monotonic() - t0)} so far{left})")
             filed = bench.measure(step.kind, plan.options(i, root, doc["id"]), say, ask)
-        except KeyboardInterrupt:
-            why, lost = "interrupted", False
-            st.update(state="interrupted", error="interrupted (Ctrl-C)")
         except CaptureInterrupted as exc:
             why, lost = str(exc), exc.device_lost
             st.update(state="interrupted", error=str(exc))
         except BenchkitError as exc:
             st.update(state="failed", error=str(exc))
             say(f"step {step.title(i)} failed: {exc}")
+        except BaseException as exc:  # Ctrl-C (at a prompt too), or a fault: the record says so, then it goes on up
+            ctrl_c = isinstance(exc, KeyboardInterrupt) or type(exc).__name__ == "Abort"
+            why = "interrupted" if ctrl_c else f"{type(exc).__name__}: {exc}"
+            st.update(state="interrupted" if ctrl_c else "failed", error="interrupted (Ctrl-C)" if ctrl_c else why,
+                      run=_newest(root, doc["id"], before))
+            _stop(root, doc, todo[at + 1:], why)
+            if ctrl_c:
+                raise SessionInterrupted(doc, why) from None
+            raise
         else:
-            st.update(run=filed.run.id, error=None,
-                      state="complete" if filed.status == "complete" and filed.ended is None else "interrupted")
-            if filed.ended is not None:
-                why, lost = filed.ended, filed.ended == "device-lost"
+            stopped = filed.ended or (filed.status if filed.status != "complete" else None)
+            st.update(run=filed.run.id, error=None if stopped is None else f"it ended early: {stopped}",
+                      state="complete" if stopped is None else "interrupted")
+            if filed.early:  # a capture that stopped before its last step (the input clipped): filed, said
+                st["error"] = f"stopped early: {filed.early[0]}"
+                say(f"warning: step {step.title(i)} stopped early: {filed.early[0]}")
+            if stopped is not None:
+                why, lost = stopped, filed.ended == "device-lost"
+        if st["run"] is None:
+            st["run"] = _newest(root, doc["id"], before)  # what an interrupted or failed step filed
         st["seconds"] = round(time.monotonic() - began, 3)
         done += 1
         if why is not None:
-            for j in todo[at + 1:]:
-                doc["steps"][j].update(state="skipped", error=f"not measured: the session stopped ({why})")
-            doc.update(status="interrupted", finished=now_iso())
-            save(root, doc)
+            _stop(root, doc, todo[at + 1:], why)
             raise SessionInterrupted(doc, why, lost)
         save(root, doc)
     states = [st["state"] for st in doc["steps"]]

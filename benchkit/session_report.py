@@ -62,7 +62,10 @@ def _e(value) -> str:
 
 
 def _image(path: Path) -> str:
-    data = base64.b64encode(path.read_bytes()).decode("ascii")
+    try:
+        data = base64.b64encode(path.read_bytes()).decode("ascii")
+    except OSError as exc:
+        return f"<p>{_e(path.name)}: cannot be read ({_e(exc.strerror or exc)})</p>"
     return (f'<figure><img alt="{_e(path.stem)}" src="data:image/png;base64,{data}">'
             f"<figcaption>{_e(path.name)}</figcaption></figure>")
 
@@ -101,10 +104,10 @@ def _run(book: Logbook, step: dict) -> str:
     title = f"{step['n']}. {step['kind']}" + (f": {step['label']}" if step["label"] else "")
     if step["run"] is None:
         return f'<section class="run"><h3>{_e(title)}</h3><p>{_e(step["state"])}: {_e(step.get("error") or "")}</p></section>'
-    entry = book.entry(step["run"])
     try:
+        entry = book.entry(step["run"])
         record, doc = stored_result(book, entry)
-    except BenchkitError as exc:
+    except BenchkitError as exc:  # (a run removed from the logbook, or holding no result)
         return f'<section class="run"><h3>{_e(title)}</h3><p>{_e(exc)}</p></section>'
     figures = kinds.figures_of(doc)
     shown = [f for f in figures if f.headline] + [f for f in figures if not f.headline and f.better][:10]
@@ -131,7 +134,7 @@ def _session(book: Logbook, doc: dict, label: str = "") -> str:
 def _comparison(c) -> str:
     """The before/after table of a session comparison, and its overlays."""
     from benchkit.compare_sessions import rows
-    from benchkit.report.summary import change_text
+    from benchkit.report.summary import change_text, figure_name
 
     out = [f'<div class="unlike">NOT LIKE FOR LIKE: {_e(p.kind)} (step {p.n}): {_e(w)}</div>'
            for p in c.pairs for w in p.report.comparison.warnings]
@@ -141,11 +144,11 @@ def _comparison(c) -> str:
         for k in range(1, len(d.values)):
             verdict = d.verdict(k) or ""
             changes.append(f'<span class="{verdict}">{_e(change_text(d, k))}</span>')
-        body.append([f"{p.n}. {_e(p.kind)}", _e(d.label) + (f" ({_e(d.at)})" if d.at and d.at not in d.label else ""),
+        body.append([f"{p.n}. {_e(p.kind)}", _e(figure_name(d)),
                      _e(d.unit), *(_value(v, d.unit) for v in d.values), "; ".join(changes)])
     n = len(c.labels)
     out.append(_table(["measurement", "figure", "unit", *(f"[{k}] {lab}" for k, lab in enumerate(c.labels)),
-                       "change from [0]"], body, set(range(3, 4 + n))))
+                       "change from [0]"], body, set(range(3, 3 + n))))
     out += [f"<p>not compared: {_e(u)}</p>" for u in c.unpaired]
     for p in c.pairs:
         pngs = [f for f in p.report.files if f.suffix == ".png"]
@@ -171,16 +174,17 @@ def write_report(book: Logbook, sessions: list[dict], path: Path, comparison=Non
 
 
 def report_sessions(book: Logbook, refs: list[str], anyway: bool = False, file: Path | None = None,
-                    say=lambda _m: None):
+                    say=lambda _m: None, out: Path | None = None):
     """The report of one session, or of two or more compared (the
-    comparison's table said): its path (default: report.html in the
-    session's or the comparison's folder), and the comparison (or None)."""
+    comparison's table said; its folder ``out``, default under
+    comparisons/): its path (default: report.html in the session's or the
+    comparison's folder), and the comparison (or None)."""
     from benchkit.compare_sessions import compare_sessions
     from benchkit.session import folder_of, read_session
 
     if len(refs) == 1:
         doc = read_session(book.root, refs[0])
         return write_report(book, [doc], file or folder_of(book.root, doc["id"]) / "report.html"), None
-    compared = compare_sessions(book, refs, anyway)
+    compared = compare_sessions(book, refs, anyway, out)
     say(compared.text)
     return write_report(book, list(compared.sessions), file or compared.folder / "report.html", compared), compared

@@ -104,8 +104,9 @@ def test_the_shipped_plan_reads_and_describes_the_stage_once():
     # a stage value it does not know, a table it does not hold
     ('[stage]\nname = "x"\nload = 8\nwattage = 5\n\n[[measure]]\nkind = "tone"\n', 4, ["no value 'wattage'"]),
     ('[stage]\nname = "x"\nload = 8\n\n[extras]\nfoo = 1\n\n[[measure]]\nkind = "tone"\n', 5, ["not 'extras'"]),
-    # one value where a list is not taken
+    # one value where a list is not taken, and a list of none
     ('[stage]\nname = "x"\nload = 8\n\n[[measure]]\nkind = "tone"\nload = [8, 4]\n', 7, ["takes one value"]),
+    ('[stage]\nname = "x"\nload = 8\n\n[[measure]]\nkind = "tone"\nlevel = []\n', 7, ["an empty list"]),
 ])
 def test_a_bad_plan_is_refused_with_its_line_and_key(text, line, words):
     said = _refusal(text)
@@ -242,6 +243,48 @@ def test_ctrl_c_keeps_what_was_measured_and_resume_measures_the_rest(tmp_path):
         assert {e.session for e in book.entries()} == {doc["id"]} and len(book.entries(status="complete")) == 4
     res = run_cli("plan", "resume", doc["id"], "--bench", str(tmp_path))
     assert res.returncode == 1 and "nothing is left to measure" in res.stderr
+
+
+def test_ctrl_c_in_a_dc_log_stops_the_session_too(tmp_path):
+    # the log keeps its readings and ends interrupted; the steps after it are not played
+    text = SHORT.replace('[[measure]]\nkind = "tone"', '[[measure]]\nkind = "drift"\nduration = 600\ninterval = 1\n'
+                         'accelerate = 20\nnominal = 12\n\n[[measure]]\nkind = "tone"', 1)
+    said = []
+
+    def interrupt_in_the_log(line):
+        said.append(line)
+        if line.lstrip().startswith("t ") and any(x.startswith("[1/5] drift") for x in said):
+            raise KeyboardInterrupt
+
+    with pytest.raises(SessionInterrupted) as stopped:
+        run_session(_plan(text), tmp_path, interrupt_in_the_log)
+    doc = stopped.value.doc
+    assert [s["state"] for s in doc["steps"]] == ["interrupted"] + ["skipped"] * 4 and doc["steps"][0]["run"]
+    with Logbook(tmp_path) as book:
+        assert [e.command for e in book.entries()] == ["drift"]  # the tone never played
+
+
+def test_a_stopped_session_exits_130_and_a_damaged_record_is_one_line(tmp_path, monkeypatch):
+    from typer.testing import CliRunner
+
+    import benchkit.session as session
+    from benchkit.cli import app
+
+    def stopped(*_args, **_kw):
+        raise session.SessionInterrupted({"id": "s1"}, "interrupted")
+
+    monkeypatch.setattr(session, "run_session", stopped)
+    plan = tmp_path / "p.toml"
+    plan.write_text(SHORT)
+    res = CliRunner().invoke(app, ["plan", "run", str(plan), "--bench", str(tmp_path)])
+    assert res.exit_code == 130 and "stopped: interrupted: session s1 stopped" in res.output
+    Logbook(tmp_path).close()
+    (tmp_path / "sessions" / "s2").mkdir(parents=True)
+    (tmp_path / "sessions" / "s2" / "session.json").write_text('{"kind": "session", "schema_version": 1, "steps": []}')
+    res = run_cli("log", "show", "s2", "--bench", str(tmp_path))
+    assert res.returncode == 1 and "is damaged (id is missing" in res.stderr and "Traceback" not in res.stderr
+    res = run_cli("plan", "list", "--bench", str(tmp_path))
+    assert res.returncode == 0 and "warning: the session record" in res.stderr
 
 
 def test_a_plan_above_the_drive_cap_is_refused_before_anything_plays(tmp_path):

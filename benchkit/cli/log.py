@@ -224,7 +224,7 @@ def compare(runs: List[str] = typer.Argument(None, help="Runs to compare (ids, u
         if runs and len(runs) > 1 and all(is_session(book.root, r) and not r.startswith("last") for r in runs):
             from benchkit.session_report import report_sessions
 
-            path, compared = report_sessions(book, list(runs), o["anyway"], None, err)
+            path, compared = report_sessions(book, list(runs), o["anyway"], None, err, out=o["out"])
             err(f"report: {path}")
             if o["json"]:
                 from benchkit.report.tables import dumps

@@ -9,7 +9,7 @@ from typing import List
 
 import typer
 
-from benchkit.cli.common import app, err, EXIT_BAD_INPUT, EXIT_INTERRUPTED, ask, live_run, one_line, takes
+from benchkit.cli.common import app, err, EXIT_BAD_INPUT, EXIT_INTERRUPTED, ask, leave, live_run, one_line, takes
 from benchkit.errors import BenchkitError
 
 plan_app = typer.Typer(no_args_is_help=True, help="Bench plans: a stage described once, measured as one session.")
@@ -80,16 +80,14 @@ def _ran(run) -> None:
     """Run a session (``run()``), and end as it ended."""
     from benchkit.session import SessionInterrupted
 
-    try:
-        with live_run():
+    with live_run():
+        try:
             end = run()
-    except SessionInterrupted as exc:
-        err(f"benchkit: stopped: {exc}")
-        if exc.device_lost:
-            from benchkit.cli.common import leave
-
-            leave()
-        raise typer.Exit(EXIT_INTERRUPTED)
+        except SessionInterrupted as exc:  # (a BenchkitError, told apart first)
+            err(f"benchkit: stopped: {exc}")
+            if exc.device_lost:
+                leave()
+            raise typer.Exit(EXIT_INTERRUPTED)
     if not end.complete:
         raise typer.Exit(EXIT_BAD_INPUT)
 
@@ -141,7 +139,7 @@ def plan_list(o: dict = None) -> None:
     from benchkit.report.session import sessions_lines
     from benchkit.session import all_sessions
 
-    found = all_sessions(resolve_bench(o["bench"]))
+    found = all_sessions(resolve_bench(o["bench"]), err)
     if o["json"]:
         from benchkit.report.tables import dumps
 
@@ -163,8 +161,14 @@ def report(sessions: List[str] = typer.Argument(..., help="Sessions (ids, unique
     Example: benchkit report last-1 last
     """
     from benchkit.cli.log import book_of
+    from benchkit.logbook import resolve_bench
+    from benchkit.session import SESSIONS
     from benchkit.session_report import report_sessions
 
+    with one_line():
+        if not (resolve_bench(o["bench"]) / SESSIONS).is_dir():  # (not a logbook made in a wrong folder)
+            raise BenchkitError(f"{resolve_bench(o['bench'])} holds no sessions ('benchkit plan run' makes them; "
+                                "--bench names the bench folder)")
     with book_of(o["bench"], write=True) as book:
         path, _compared = report_sessions(book, sessions, o["anyway"], o["file"], err)
     err(f"report: {path}")

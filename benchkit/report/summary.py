@@ -12,6 +12,11 @@ def figure_value(v, unit: str) -> str:
     return f"{v:.2f} {unit}" if unit in ("dB", "dBc", "dBFS", "%") else f"{quantity(v, unit)}"
 
 
+def figure_name(d) -> str:
+    """A compared figure's name: its label, and where it was read when the label does not say."""
+    return f"{d.label} ({d.at})" if d.at and d.at not in d.label else d.label
+
+
 def change_text(d, k: int) -> str:
     """Run k's change from the first (a comparison's Delta), with its unit and verdict."""
     ch = d.changes[k - 1]
@@ -31,9 +36,9 @@ def comparison_text(c) -> str:
     lines.append("runs: " + "; ".join(f"[{k}] {lab}" for k, lab in enumerate(c.labels)) + " (changes are from [0])")
     ordered = list(c.headline()) + [d for d in c.deltas if not d.headline]
     shown = ordered if len(ordered) <= 30 else list(c.headline()) + [d for d in ordered if d.better][:30]
-    name_w = max(len(f"{d.label} ({d.at})" if d.at and d.at not in d.label else d.label) for d in shown)
+    name_w = max(len(figure_name(d)) for d in shown)
     for d in shown:
-        name = f"{d.label} ({d.at})" if d.at and d.at not in d.label else d.label
+        name = figure_name(d)
         cells = [f"{figure_value(v, d.unit):>{max(12, width)}}" for v in d.values]
         changes = [change_text(d, k) for k in range(1, len(d.values))]
         lines.append(f"  {name:<{name_w}}  " + "  ".join(cells) + "   " + "; ".join(changes))
