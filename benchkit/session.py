@@ -261,19 +261,15 @@ def _alive(pid) -> bool:
     return isinstance(pid, int) and pid != os.getpid() and process_alive(pid)
 
 
-def _runs_of(root: Path, session_id: str) -> set[str]:
+def _newest(root: Path, session_id: str, kind: str, since: str) -> str | None:
+    """The run a step filed (the session's newest run of its kind since it began), if any."""
     from benchkit.logbook import CATALOG, Logbook
 
     if not (Path(root) / CATALOG).exists():
-        return set()
+        return None
     with Logbook(root) as book:
-        return {e.id for e in book.entries(session=session_id)}
-
-
-def _newest(root: Path, session_id: str, before: set[str]) -> str | None:
-    """The run a step filed (the session's run that was not there before it), if any."""
-    new = sorted(_runs_of(root, session_id) - before)
-    return new[-1] if new else None
+        got = book.entries(command=kind, session=session_id, since=since, limit=1)
+    return got[0].id if got else None
 
 
 def _stop(root: Path, doc: dict, rest: list[int], why: str) -> None:
@@ -323,7 +319,7 @@ def run_session(plan: Plan, root: Path, say: Callable[[str], None], ask: Callabl
     for at, i in enumerate(todo):
         st, step = doc["steps"][i], plan.steps[i]
         left = "" if not done else f", about {_clock((time.monotonic() - t0) / done * (len(todo) - at))} left"
-        began, before = time.monotonic(), _runs_of(root, doc["id"])
+        began, since = time.monotonic(), datetime.now().astimezone().isoformat(timespec="milliseconds")
         why, lost = None, False
         try:  # (Ctrl-C between steps ends the session as well as within one)
             say(f"[{i + 1}/{len(doc['steps'])}] {step.kind}" + (f": {step.label}" if step.label else "")
@@ -339,7 +335,7 @@ def run_session(plan: Plan, root: Path, say: Callable[[str], None], ask: Callabl
             ctrl_c = isinstance(exc, KeyboardInterrupt) or type(exc).__name__ == "Abort"
             why = "interrupted" if ctrl_c else f"{type(exc).__name__}: {exc}"
             st.update(state="interrupted" if ctrl_c else "failed", error="interrupted (Ctrl-C)" if ctrl_c else why,
-                      run=_newest(root, doc["id"], before))
+                      run=_newest(root, doc["id"], step.kind, since))
             _stop(root, doc, todo[at + 1:], why)
             if ctrl_c:
                 raise SessionInterrupted(doc, why) from None
@@ -354,7 +350,7 @@ def run_session(plan: Plan, root: Path, say: Callable[[str], None], ask: Callabl
             if stopped is not None:
                 why, lost = stopped, filed.ended == "device-lost"
         if st["run"] is None:
-            st["run"] = _newest(root, doc["id"], before)  # what an interrupted or failed step filed
+            st["run"] = _newest(root, doc["id"], step.kind, since)  # what an interrupted or failed step filed
         st["seconds"] = round(time.monotonic() - began, 3)
         done += 1
         if why is not None:
