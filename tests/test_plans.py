@@ -332,3 +332,18 @@ def test_the_report_renders_in_a_real_browser(two_sessions, tmp_path):
     assert 'data-images="ready"' in body and images == text.count("<img ") >= 8, body
     console = [line for line in dom.stderr.splitlines() if "CONSOLE" in line or "Uncaught" in line]
     assert not console, console
+
+
+def test_the_sessions_distortion_overlay_reads_at_a_glance(two_sessions):
+    # the tone runs of the two sessions overlaid, THD+N (%) against power (W) on log axes: no tick
+    # labels run together (they did: "0.030.040.050.060.070.080.1")
+    from test_plots import overlapping_tick_labels
+
+    from benchkit.compare_runs import stored_result
+    from benchkit.report.overlays import distortion_figure
+
+    root, docs, _said = two_sessions
+    with Logbook(root) as book:
+        results = [stored_result(book, book.entry(d["steps"][0]["run"]))[1] for d in docs]
+    fig = distortion_figure(results, ["bias=0.8A", "bias=1.2A"], "Test stage B-2 (invented): tone")
+    assert overlapping_tick_labels(fig) == []

@@ -7,13 +7,11 @@ from __future__ import annotations
 from pathlib import Path
 
 from matplotlib.figure import Figure
-from matplotlib.ticker import FuncFormatter
 
-from benchkit.report.plots import log_hz_axis, save_png
+from benchkit.report.plots import log_hz_axis, readable_log, save_png
 
 #: one colour a run, in run order (the first is the baseline)
 COLOURS = ("#1f3b57", "#c2571a", "#4b8a3e", "#7a4b8a", "#8a6d1f", "#2a7f8a")
-PLAIN_NUMBERS = FuncFormatter(lambda v, _pos: f"{v:g}")
 
 
 def colour(i: int) -> str:
@@ -38,12 +36,10 @@ def percent_axes(ax, log_x: bool, x_log_label: str, x_label: str, ylabel: str) -
     """A distortion figure in % on a log axis against power (log) or a level in dB."""
     if log_x:
         ax.set_xscale("log")
-        ax.xaxis.set_major_formatter(PLAIN_NUMBERS)
-        ax.xaxis.set_minor_formatter(PLAIN_NUMBERS)
+        readable_log(ax.xaxis)
     ax.set_xlabel(x_log_label if log_x else x_label)
     ax.set_yscale("log")
-    ax.yaxis.set_major_formatter(PLAIN_NUMBERS)
-    ax.yaxis.set_minor_formatter(PLAIN_NUMBERS)
+    readable_log(ax.yaxis)
     ax.set_ylabel(ylabel)
 
 

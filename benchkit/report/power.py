@@ -7,10 +7,9 @@ import csv
 from pathlib import Path
 
 from matplotlib.figure import Figure
-from matplotlib.ticker import FuncFormatter
 
 from benchkit.report.files import result_csv_png
-from benchkit.report.plots import FAINT, MARK, save_png, TRACE
+from benchkit.report.plots import FAINT, MARK, readable_log, save_png, TRACE
 from benchkit.report.summary import first_half
 from benchkit.units import quantity
 
@@ -86,14 +85,12 @@ def power_figure(result, title: str) -> Figure:
     v = [s.vrms for s in result.steps]
     thdn = [s.thdn_pct for s in result.steps]
     thd = [s.thd_pct for s in result.steps]
-    plain = FuncFormatter(lambda x, _pos: f"{x:g}")
     for a, xs, xlabel in ((ax, p, "output power (W)"), (axv, v, "output level (Vrms)")):
         a.plot(xs, thdn, "-o", ms=3, lw=1.2, color=TRACE, label="THD+N")
         a.plot(xs, thd, "-", lw=0.9, color=FAINT, label="THD")
         a.set_xscale("log")
         a.set_yscale("log")
-        for axis in (a.xaxis, a.yaxis):
-            axis.set_major_formatter(plain)
+        readable_log(a.xaxis, a.yaxis)
         a.set_xlabel(xlabel)
         a.set_ylabel("percent")
         a.grid(True, which="both", color="#e6e6e6", lw=0.5)

@@ -8,12 +8,11 @@ from pathlib import Path
 
 import numpy as np
 from matplotlib.figure import Figure
-from matplotlib.ticker import FuncFormatter
 
 from benchkit.errors import read_warnings
 from benchkit.report import tables
 from benchkit.report.files import report_folder
-from benchkit.report.plots import FAINT, log_hz_axis, save_png, TRACE
+from benchkit.report.plots import FAINT, log_hz_axis, readable_log, save_png, TRACE
 from benchkit.units import quantity
 
 
@@ -74,10 +73,7 @@ def zout_figure(result, title: str) -> Figure:
     lo, hi = ax.get_ylim()
     right.set_ylim(result.load_ohms / lo, result.load_ohms / hi)  # DF = R / |Z|: the same curve, read on the right
     right.set_ylabel(f"damping factor re {result.load_ohms:g} ohm")
-    plain = FuncFormatter(lambda v, _pos: f"{v:g}")
-    for a in (ax, right):
-        a.yaxis.set_major_formatter(plain)
-        a.yaxis.set_minor_formatter(plain)
+    readable_log(ax.yaxis, right.yaxis)
     ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
     ax.legend(loc="upper right", fontsize=8, frameon=False)
     ref = result.at()

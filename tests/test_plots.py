@@ -1,0 +1,59 @@
+"""Plots that read at a glance: log axes whose tick labels never run together."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+from benchkit.report.plots import readable_log
+
+
+def overlapping_tick_labels(fig) -> list[tuple[str, str]]:
+    """Pairs of visible tick labels on one axis whose boxes overlap, once drawn."""
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    renderer = canvas.get_renderer()
+    found = []
+    for ax in fig.axes:
+        for axis in (ax.xaxis, ax.yaxis):
+            ticks = axis.get_major_ticks() + axis.get_minor_ticks()
+            shown = [t.label1 for t in ticks if t.label1.get_visible() and t.label1.get_text()
+                     and t.label1.get_window_extent(renderer).width > 0]
+            boxes = [(lab.get_text(), lab.get_window_extent(renderer)) for lab in shown]
+            for i, (a, box_a) in enumerate(boxes):
+                for b, box_b in boxes[i + 1:]:
+                    if box_a.overlaps(box_b):
+                        found.append((a, b))
+    return found
+
+
+def visible_labels(fig, axis: str) -> list[str]:
+    FigureCanvasAgg(fig).draw()
+    ax = fig.axes[0]
+    ticks = getattr(ax, f"{axis}axis")
+    lo, hi = getattr(ax, f"get_{axis}lim")()
+    return [t.label1.get_text() for t in ticks.get_major_ticks() + ticks.get_minor_ticks()
+            if t.label1.get_text() and lo <= t.get_loc() <= hi]
+
+
+@pytest.mark.parametrize("x, y", [
+    ((0.025, 2.0), (0.028, 0.19)),    # THD+N in % against W over two decades (a tone run's)
+    ((0.2, 9.0), (0.002, 0.09)),      # a power run's top: "0.0020.0030.004..." before
+    ((1e-3, 30.0), (1e-3, 30.0)),     # wide: the decades alone
+    ((2.0, 3.0), (0.05, 0.07)),       # narrow: 2, 3 and 5 where no decade falls inside
+])
+def test_log_axes_label_decades_not_every_minor_tick(x, y):
+    fig = Figure(figsize=(6.4, 4.0), dpi=110)
+    ax = fig.add_subplot(1, 1, 1)
+    ax.plot(np.geomspace(*x, 20), np.geomspace(*y, 20))
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    readable_log(ax.xaxis, ax.yaxis)
+    assert overlapping_tick_labels(fig) == []
+    for axis in "xy":
+        shown = visible_labels(fig, axis)
+        assert shown, axis  # every axis still says what it reads
+        for text in shown:  # only mantissas of 1, 2, 3 and 5 are labelled
+            assert f"{float(text):.1e}"[0] in "1235", (axis, shown)
