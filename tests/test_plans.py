@@ -1,11 +1,13 @@
 """Bench plans, sessions, whole-session comparisons and the HTML report.
 
 The figures a session files are checked against the class-A budget (a
-handbook formula: a constant-current pull-up of I into R swings I x R
-peak, so a clean sine is at most (I R)^2 / 2R) and textbook class-A
-behaviour (more bias, less distortion); the rest is plumbing: what a plan
-refuses, that a session files every step with its id, that Ctrl-C keeps
-what was measured and a resume measures the rest.
+handbook formula, from memory: a constant-current pull-up of I into R
+swings I x R peak, and a sine of peak V gives V^2 / 2R, so a clean sine
+is at most (I R)^2 / 2R) and textbook class-A behaviour (more bias, less
+distortion: common practice); the rest is plumbing (what a plan refuses,
+that a session files every step with its id, that Ctrl-C keeps what was
+measured and a resume measures the rest), and the report is checked in a
+real browser (Debian's chromium).
 """
 
 from __future__ import annotations
