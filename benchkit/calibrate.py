@@ -83,6 +83,8 @@ def calibrate(
     wire: Callable[[str], None] = lambda _step: None,
     interface: str = "",
     note: str = "",
+    pad_tolerance_pct: float = 1.0,
+    load_tolerance_pct: float = 5.0,
 ) -> Profile:
     """Run the calibration steps and return the profile.
 
@@ -133,7 +135,8 @@ def calibrate(
         spec = PadSpec(ratio=with_pad[0][1].fundamental_fs / float(np.mean(amps)), measured=True)
     elif pad is not None:
         rin = input_ohms if input_ohms is not None else math.inf
-        spec = PadSpec(ratio=pad.ratio(rin), r1_ohms=pad.r1_ohms, r2_ohms=pad.r2_ohms, input_ohms=input_ohms)
+        spec = PadSpec(ratio=pad.ratio(rin), r1_ohms=pad.r1_ohms, r2_ohms=pad.r2_ohms, input_ohms=input_ohms,
+                       tolerance_pct=pad_tolerance_pct)
     wire("stage")
     volt_db = units.db_from_ratio(1 + voltmeter_pct / 100.0)
     return Profile(
@@ -157,6 +160,7 @@ def calibrate(
             "voltmeter_db": volt_db,
             "repeatability_db": repeat_db,
             "total_db": math.hypot(volt_db, repeat_db),
+            "load_tolerance_pct": load_tolerance_pct,
         },
         created=datetime.now(timezone.utc).isoformat(timespec="seconds"),
         note=note,
@@ -200,7 +204,8 @@ def calibrate_bench(o: dict, say: Callable[[str], None], ask: Callable[[str], st
 
     resistors = pads.parse_pad(o["pad"]) if o["pad"] else None
     profile = calibrate(backend, volts, level, o["voltmeter_pct"], resistors, o["input_ohms"] if resistors else None,
-                        o["measure_pad"], o["in_channel"], wire, note=o["note"])
+                        o["measure_pad"], o["in_channel"], wire, note=o["note"], pad_tolerance_pct=o["pad_tolerance"],
+                        load_tolerance_pct=o["load_tolerance"])
     save_profile(profile, o["file"])
     return profile
 

@@ -37,6 +37,8 @@ class PadSpec:
     r2_ohms: float | None = None
     input_ohms: float | None = None
     measured: bool = False
+    #: the resistors' tolerance, +-% (None: not stated, a profile from before it was kept)
+    tolerance_pct: float | None = None
 
     def pad(self) -> Pad | None:
         if self.r1_ohms is None or self.r2_ohms is None:
@@ -65,7 +67,9 @@ class Profile:
     #: [[freq_hz, gain_db], ...] of the loopback, re 1 kHz
     loopback_response: list = field(default_factory=list)
     latency_samples: int | None = None
-    #: {"voltmeter_pct", "repeatability_db", "total_db"}
+    #: {"voltmeter_pct", "repeatability_db", "total_db", "load_tolerance_pct"}: the voltmeter's
+    #: accuracy as stated (+-%), the input's read-to-read scatter (a standard deviation, dB), the two
+    #: summed as before (dB), the dummy load's tolerance as stated (+-%)
     uncertainty: dict = field(default_factory=dict)
     created: str = ""
     note: str = ""
@@ -82,6 +86,12 @@ class Profile:
     def to_dict(self) -> dict:
         d = {"kind": PROFILE_KIND, "schema_version": PROFILE_VERSION, **asdict(self)}
         return d
+
+    def chain(self):
+        """The chain's type-B contributions (benchkit.analysis.uncertainty.Chain)."""
+        from benchkit.analysis.uncertainty import Chain
+
+        return Chain.of_profile(self, self.uncertainty.get("load_tolerance_pct"))
 
     def digest(self) -> str:
         """Short hash of the profile's content, recorded by every run that

@@ -186,6 +186,7 @@ def apply_calibration(side: dict, profile, path: str | None, channel: int) -> No
         "input_vpk_per_fs": profile.input_vpk_per_fs,
         "loopback_response": profile.loopback_response,
         "ac_corner_hz": profile.ac_corner_hz,
+        "chain": profile.chain().to_dict(),
     }
 
 

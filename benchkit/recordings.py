@@ -61,6 +61,16 @@ class Recording:
                     return float(v), str(self.sidecar.get("scale_source", "given"))
         return None, "none"
 
+    def chain(self):
+        """The chain's type-B contributions to its volts and watts
+        (benchkit.analysis.uncertainty.Chain): the calibration profile's its
+        sidecar keeps; without one the scale's own are not known and only
+        the load's usual tolerance counts."""
+        from benchkit.analysis.uncertainty import Chain
+
+        kept = Chain.from_dict((self.sidecar.get("calibration") or {}).get("chain"))
+        return kept if kept is not None else Chain(load=Chain.load_rel(None))
+
 
 def sidecar_path(audio_path: str | os.PathLike) -> Path:
     """Where the sidecar of an audio file lives: same folder, same stem, .json."""
@@ -176,7 +186,7 @@ _CHANNEL_FIELDS = {"number": _INT, "role": _TEXT, "volts_per_fs": _NUMBER + (Non
 _CALIBRATION_FIELDS = {"file": _TEXT + (None,), "hash": _TEXT, "interface": _TEXT, "created": _TEXT,
                        "loopback_floor": (dict, None), "uncertainty_db": _NUMBER + (None,), "dc_coupled": (bool,),
                        "polarity_inverts": (bool,), "output_vpk_per_fs": _NUMBER, "input_vpk_per_fs": _NUMBER,
-                       "loopback_response": (list,), "ac_corner_hz": _NUMBER + (None,)}
+                       "loopback_response": (list,), "ac_corner_hz": _NUMBER + (None,), "chain": (dict, None)}
 _SEGMENT_FIELDS = {"start": _INT, "stop": _INT, "settled": _INT, "end": _INT, "frequency_hz": _NUMBER + (list,),
                    "level_dbfs": _NUMBER + (None,), "file": _TEXT + (None,), "channel": _INT}
 

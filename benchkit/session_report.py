@@ -143,7 +143,7 @@ def _comparison(c) -> str:
         changes = []
         for k in range(1, len(d.values)):
             verdict = d.verdict(k) or ""
-            changes.append(f'<span class="{verdict}">{_e(change_text(d, k))}</span>')
+            changes.append(f'<span class="{verdict.replace(" ", "-")}">{_e(change_text(d, k))}</span>')
         body.append([f"{p.n}. {_e(p.kind)}", _e(figure_name(d)),
                      _e(d.unit), *(_value(v, d.unit) for v in d.values), "; ".join(changes)])
     n = len(c.labels)

@@ -43,6 +43,7 @@ from benchkit.analysis.tone import detect_clipping
 from benchkit.errors import BenchWarning, BenchkitError
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
+from benchkit.analysis import uncertainty as ua
 
 
 #: The tones (Hz) and the amplitude ratio f1:f2 each method plays.
@@ -131,6 +132,8 @@ class ImdResult:
     partial_orders: tuple[int, ...] = ()
     #: the products the method needs that could not be read, with why
     unmeasured: tuple[str, ...] = ()
+    #: the figures' standard uncertainties (benchkit.analysis.uncertainty.block)
+    uncertainty: dict | None = field(default=None, compare=False)
 
     @property
     def reference_fs(self) -> float:
@@ -172,6 +175,7 @@ class ImdResult:
             "warnings": list(self.warnings), "scale_source": self.scale_source, "volts_per_fs": vpf,
             "load_ohms": self.load_ohms,
             "products": [p.to_dict(vpf) for p in self.products],
+            "uncertainty": self.uncertainty,
         }
         if vpf is not None:
             d.update(f1_vrms=units.vrms_from_vpk(self.a1_fs * vpf), f2_vrms=units.vrms_from_vpk(self.a2_fs * vpf),
@@ -320,6 +324,7 @@ def analyze_imd(samples, sample_rate: float, *, method: str, f1_hz: float | None
     bins = np.array([freqs[t] * n / sample_rate for t in clear])
     amps = np.abs(sp.read_components(spec, n, bins))
     amp = dict(zip(clear, amps))
+    gain = dict(zip(clear, sp.read_noise_gain(n, bins, spec.size)))
     a1, a2 = float(amp[(1, 0)]), float(amp[(0, 1)])
     if min(a1, a2) <= 0:
         raise BenchkitError("the two tones were not found in the record")
@@ -360,9 +365,49 @@ def analyze_imd(samples, sample_rate: float, *, method: str, f1_hz: float | None
     if spectrum:
         f = np.arange(pw.size) * sample_rate / n
         trace = (f, units.db_from_power_ratio(np.maximum(pw, 1e-30)))
+    # type A: a read's noise, E|e|^2 = the floor's (raw) bin power times what the read makes of it
+    u_amp = {t: floor_amp / sp.sine_amplitude_scale(n) * math.sqrt(float(gain[t]) / 2.0) for t in clear}
+    u_block = _uncertainty(method, amp, u_amp, ref, orders, products, max_order, floor_amp)
     return ImdResult(method, float(sample_rate), n, f1, f2, a1, a2, products, orders, total,
                      float(units.db_from_ratio(max(floor_amp, 1e-300) / ref)), peak, clipped, valid, tuple(warnings),
-                     volts_per_fs, scale_source, load_ohms, trace, tuple(partial), tuple(unmeasured))
+                     volts_per_fs, scale_source, load_ohms, trace, tuple(partial), tuple(unmeasured), u_block)
+
+
+def _uncertainty(method: str, amp: dict, u_amp: dict, ref: float, orders: dict, products: tuple,
+                 max_order: int, floor_amp: float) -> dict:
+    """The uncertainty block: each read's type A (u(A) = sqrt(E|e|^2 / 2)),
+    through the sums and the reference (JCGM 100 5.1.2). An order with a
+    product at the floor is a bound (its read is mostly noise), the total
+    one when every order is."""
+    u_ref = u_amp[(0, 1)] if method == "modulation" else math.hypot(u_amp[(1, 0)], u_amp[(0, 1)])
+    at_floor = {(p.m, p.n) for p in products if p.at_floor}
+    out = ua.Collector()
+    for key, t in (("f1_dbfs", (1, 0)), ("f2_dbfs", (0, 1))):
+        out.put(key, ua.Budget.of(noise=ua.db_from_rel(u_amp[t] / amp[t])))
+    rel = {}
+    for k, terms in _needs(method, max_order).items():
+        if k not in orders:
+            continue
+        got = [t for t in terms if t in amp]
+        u_sum = math.sqrt(sum(u_amp[t] ** 2 for t in got))
+        rel[k] = math.hypot(u_sum / (orders[k] * ref), u_ref / ref) if orders[k] > 0 else math.inf
+        if any(t in at_floor for t in got) or not math.isfinite(rel[k]):
+            out.bound(f"orders.{k}.db", f"orders.{k}.pct")
+        else:
+            out.put(f"orders.{k}.db", ua.Budget.of(noise=rel[k]), ua.DB_PER_REL)
+            out.put(f"orders.{k}.pct", ua.Budget.of(noise=rel[k]), 100.0 * orders[k])
+    total = math.sqrt(sum(v * v for v in orders.values()))
+    heard = [k for k in rel if f"orders.{k}.db" in out.standard]
+    if heard and total > 0:
+        # d total / d order_k = order_k / total
+        u_total = math.sqrt(sum((orders[k] ** 2 / total * rel[k]) ** 2 for k in rel if math.isfinite(rel[k]))) / total
+        out.put("imd_db", ua.Budget.of(noise=u_total), ua.DB_PER_REL)
+        out.put("imd_pct", ua.Budget.of(noise=u_total), 100.0 * total)
+    else:
+        out.bound("imd_db", "imd_pct")
+    out.put_list("products.level_db", [None if p.at_floor or p.amplitude_fs <= 0 else ua.Budget.of(
+        noise=ua.db_from_rel(math.hypot(u_amp[(p.m, p.n)] / p.amplitude_fs, u_ref / ref))) for p in products])
+    return out.block()
 
 
 def _needs(method: str, max_order: int) -> dict:
@@ -392,16 +437,18 @@ def _figures(method: str, amp: dict, ref: float, max_order: int) -> tuple[dict, 
 
 
 def imd_figures(doc: dict) -> list[Figure]:
-    steps = [s for s in doc.get("steps") or [] if isinstance(s, dict) and finite(s.get("drive_dbfs")) is not None]
+    steps = [(i, s) for i, s in enumerate(doc.get("steps") or [])
+             if isinstance(s, dict) and finite(s.get("drive_dbfs")) is not None]
     out = []
-    for s in steps:
+    for i, s in steps:
         at, key = f"drive {s['drive_dbfs']:g} dBFS", f"@{s['drive_dbfs']:+g}dBFS"
-        out.append(Figure(f"imd_db{key}", "IMD", finite(s.get("imd_db")), "dB", "lower", at=at))
+        out.append(Figure(f"imd_db{key}", "IMD", finite(s.get("imd_db")), "dB", "lower", at=at).of(doc, "steps.imd_db", i))
         for order, o in sorted((s.get("orders") or {}).items()):
-            out.append(Figure(f"imd{order}_db{key}", f"IMD order {order}", finite((o or {}).get("db")), "dB", "lower", at=at))
-    valid = [s for s in steps if s.get("valid", True) and finite(s.get("imd_db")) is not None]
+            out.append(Figure(f"imd{order}_db{key}", f"IMD order {order}", finite((o or {}).get("db")), "dB", "lower",
+                              at=at).of(doc, f"steps.orders.{order}.db", i))
+    valid = [(i, s) for i, s in steps if s.get("valid", True) and finite(s.get("imd_db")) is not None]
     if valid:
-        top = max(valid, key=lambda s: s["drive_dbfs"])
+        i, top = max(valid, key=lambda p: p[1]["drive_dbfs"])
         out.append(Figure("imd_db", "IMD at the top valid step", finite(top["imd_db"]), "dB", "lower",
-                          at=f"drive {top['drive_dbfs']:g} dBFS", headline=True))
+                          at=f"drive {top['drive_dbfs']:g} dBFS", headline=True).of(doc, "steps.imd_db", i))
     return out

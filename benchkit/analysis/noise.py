@@ -22,6 +22,8 @@ from benchkit.analysis.weighting import a_weighting_power
 from benchkit.errors import BenchWarning, BenchkitError
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
+from benchkit.analysis import uncertainty as ua
+from benchkit.analysis.uncertainty import Chain
 
 #: Welch segments of about this long: 2 Hz resolution keeps hum lines apart.
 SEGMENT_S = 0.5
@@ -68,6 +70,31 @@ class NoiseResult:
     warnings: tuple[str, ...] = ()
     #: the calibration profile its capture's sidecar names (file, hash ...), none without one
     calibration: dict | None = None
+    #: relative standard uncertainties of the band powers (type A): unweighted, A-weighted
+    power_rel: tuple[float, float] = (0.0, 0.0)
+    #: the chain's type-B contributions to the volts (benchkit.analysis.uncertainty.Chain)
+    chain: Chain | None = None
+    #: relative standard uncertainty of the hum lines' power (type A: the noise under them)
+    hum_rel: float = 0.0
+
+    def uncertainty(self) -> dict:
+        """The uncertainty block: an RMS's relative u is half its power's;
+        the volts take the chain's (the calibration, the pad), the SNR the
+        same (the reference output is stated, not measured)."""
+        out = ua.Collector()
+        for key, rel_p, fs in (("", self.power_rel[0], self.rms_fs), ("_a", self.power_rel[1], self.a_rms_fs)):
+            rel = ua.Budget.of(noise=0.5 * rel_p)
+            out.put(f"noise{key}_dbfs", rel, ua.DB_PER_REL)
+            out.put(f"noise{key}_fs_rms", rel, fs)
+            if self.volts_per_fs is not None:
+                b = rel.plus(self.chain.volts(None) if self.chain else ua.Budget())
+                out.put(f"noise{key}_vrms", b, fs * self.volts_per_fs)
+                out.put(f"noise{key}_dbv", b, ua.DB_PER_REL)
+                if self.reference_vrms is not None:
+                    out.put(f"snr{key}_db", b, ua.DB_PER_REL)
+        if self.hum_rms_fs > 0:
+            out.put("hum_dbfs", ua.Budget.of(noise=0.5 * self.hum_rel), ua.DB_PER_REL)
+        return out.block()
 
     def _volts(self, fs: float) -> float | None:
         # FS is a peak scale: an RMS in FS times volts peak per FS is Vrms
@@ -101,17 +128,65 @@ class NoiseResult:
             "mains_hz": self.mains_hz, "hum": [h.to_dict() for h in self.hum],
             "hum_dbfs": float(units.dbfs_from_rms(self.hum_rms_fs)) if self.hum_rms_fs > 0 else None,
             "scale_source": self.scale_source, "volts_per_fs": self.volts_per_fs,
-            "warnings": list(self.warnings),
+            "warnings": list(self.warnings), "uncertainty": self.uncertainty(),
         }, Conditions(self.sample_rate_hz, self.bandwidth_hz, "Hann", "Welch PSD (Hann, 50 % overlap) integrated over "
                       "the band", None, self.scale_source, self.volts_per_fs,
                       more={"segment_s": SEGMENT_S, "weighting": "A, IEC 61672-1"}).calibrated(self.calibration))
+
+
+def _segment(size: int, rate: float) -> int:
+    """The Welch segment's length: a power of two about SEGMENT_S long."""
+    return min(size, int(2 ** math.ceil(math.log2(SEGMENT_S * rate))))
+
+
+#: The Welch segments' window, a cosine sum (Hann).
+HANN = (0.5, 0.5)
+
+
+def _overlap_rho(n: int) -> float:
+    """How far the band powers of two white-noise segments half a segment
+    apart correlate under the Hann window: (sum w[i] w[i + n/2])^2 / (sum w^2)^2."""
+    w = 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(n) / n)
+    h = n // 2
+    return float(np.sum(w[:-h] * w[h:]) ** 2 / np.sum(w**2) ** 2)
+
+
+def band_power_var(x_size: int, rate: float, f: np.ndarray, p: np.ndarray, band, weight=None,
+                   lines=()) -> tuple[float, float, float]:
+    """A band power read from :func:`psd`, and its variance in two parts: the noise's
+    (benchkit.analysis.uncertainty.welch_power_rel, each bin's expected
+    share taken from the PSD less the part of its square that is the PSD's
+    own scatter, E[p^2] = p^2 (1 + 1 / K)), and each steady line's (hum:
+    ``lines`` in Hz) cross term with the noise under it, 2 c_w P b / K (P
+    its power, b the noise's power in one bin there): a line's own power
+    does not scatter as noise does."""
+    n = _segment(x_size, rate)
+    segments = 1 + max(x_size - n, 0) // (n - n // 2)
+    rho = _overlap_rho(n)
+    k_eff = segments / (1.0 + 2.0 * rho * (segments - 1) / segments)
+    df = f[1] - f[0]
+    w = np.ones_like(p) if weight is None else weight
+    q = np.where((f >= band[0]) & (f <= band[1]), p * w * df, 0.0)
+    noise = q.copy()
+    lines_var = 0.0
+    for fc in lines:
+        k = int(round(fc / df))
+        floor = float(np.median(np.r_[q[max(k - 20, 0): max(k - 3, 0)], q[k + 4: k + 21]])) if q[k] > 0 else 0.0
+        line = max(float(np.sum(q[max(k - 3, 0): k + 4])) - 7 * floor, 0.0)
+        noise[max(k - 3, 0): k + 4] = floor
+        lines_var += 2.0 * ua.bin_correlation(HANN) * line * floor / k_eff
+    total = float(np.sum(q))
+    if total <= 0:
+        return 0.0, 0.0, 0.0
+    noise_var = (ua.welch_power_rel(noise, segments, rho, HANN) * float(np.sum(noise))) ** 2 / (1.0 + 1.0 / k_eff)
+    return total, noise_var, lines_var
 
 
 def psd(x: np.ndarray, rate: float) -> tuple[np.ndarray, np.ndarray]:
     """One-sided power spectral density, FS^2 per Hz (its integral is the mean square)."""
     import scipy.signal
 
-    n = min(x.size, int(2 ** math.ceil(math.log2(SEGMENT_S * rate))))
+    n = _segment(x.size, rate)
     return scipy.signal.welch(x, fs=rate, window="hann", nperseg=n, noverlap=n // 2, detrend="constant",
                               scaling="density")
 
@@ -160,7 +235,7 @@ def hum_lines(f: np.ndarray, p: np.ndarray, volts_per_fs: float | None = None,
 
 def analyze_noise(samples, sample_rate: float, *, bandwidth_hz=DEFAULT_BAND_HZ, volts_per_fs: float | None = None,
                   scale_source: str = "none", reference_vrms: float | None = None, reference: str | None = None,
-                  traces: bool = False, channel: int | None = None) -> NoiseResult:
+                  traces: bool = False, channel: int | None = None, chain: Chain | None = None) -> NoiseResult:
     """The noise of a capture made with the stage's input terminated.
 
     Parameters
@@ -182,6 +257,8 @@ def analyze_noise(samples, sample_rate: float, *, bandwidth_hz=DEFAULT_BAND_HZ, 
         Keep the PSD the report plots.
     channel : int, optional
         The channel of 2-D ``samples``, from 1.
+    chain : Chain, optional
+        The chain's type-B contributions to the volts (calibration, pad).
 
     Returns
     -------
@@ -214,8 +291,13 @@ def analyze_noise(samples, sample_rate: float, *, bandwidth_hz=DEFAULT_BAND_HZ, 
         band = (band[0], rate / 2)
     f, p = psd(x - np.mean(x), rate)
     ms = _band_power(f, p, band)
-    a_ms = _band_power(f, p, band, a_weighting_power(f))
+    weight = a_weighting_power(f)
+    a_ms = _band_power(f, p, band, weight)
     mains, hum, hum_power = hum_lines(f, p, volts_per_fs, band)
+    lines = [h.freq_hz for h in hum]
+    plain, weighted = (band_power_var(x.size, rate, f, p, band, w, lines) for w in (None, weight))
+    power_rel = tuple(math.sqrt(nv + lv) / t if t > 0 else 0.0 for t, nv, lv in (plain, weighted))
+    hum_rel = math.sqrt(plain[2]) / hum_power if hum_power > 0 else 0.0
     warnings = []
     if float(np.max(np.abs(x))) >= 0.999:
         warnings.append(BenchWarning("input-clipped", "the capture reaches full scale: not the noise of a terminated input"))
@@ -230,7 +312,7 @@ def analyze_noise(samples, sample_rate: float, *, bandwidth_hz=DEFAULT_BAND_HZ, 
         warnings.append(BenchWarning("hum", f"hum makes up more than half of the noise: {hum_advice(hum)}, before the noise itself"))
     return NoiseResult(rate, x.size / rate, band, math.sqrt(ms), math.sqrt(a_ms), volts_per_fs, scale_source, mains,
                        hum, math.sqrt(hum_power), reference_vrms, reference, f if traces else None,
-                       p if traces else None, tuple(warnings))
+                       p if traces else None, tuple(warnings), power_rel=power_rel, chain=chain, hum_rel=hum_rel)
 
 
 def hum_advice(lines: tuple[HumLine, ...]) -> str:
@@ -248,6 +330,10 @@ def hum_advice(lines: tuple[HumLine, ...]) -> str:
 
 
 def noise_figures(doc: dict) -> list[Figure]:
+    return [f.of(doc, f.name) for f in _noise_figures(doc)]
+
+
+def _noise_figures(doc: dict) -> list[Figure]:
     scaled = finite(doc.get("noise_vrms")) is not None
     out = [Figure("noise_a_vrms", "noise, A-weighted", finite(doc.get("noise_a_vrms")), "Vrms", "lower", headline=True),
            Figure("noise_vrms", "noise, unweighted", finite(doc.get("noise_vrms")), "Vrms", "lower")] if scaled else [

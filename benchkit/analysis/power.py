@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
+from benchkit.analysis.uncertainty import DB_PER_REL, Budget, Collector, rectangular, rss, stacked
 
 #: Limits reported by default, percent: the first is the headline figure.
 DEFAULT_LIMITS_PCT = (1.0, 0.1, 10.0)
@@ -39,6 +40,30 @@ class LimitPoint:
     def to_dict(self) -> dict:
         return {"limit_pct": self.limit_pct, "power_w": self.power_w, "vrms": self.vrms,
                 "bracketing_steps": [self.below, self.above]}
+
+
+def limit_budget(power_w, metric_pct, point: LimitPoint, power_rel, metric_rel, chain_rel: float) -> Budget:
+    """The relative budget of the power at a limit (JCGM 100 5.1.2 on the
+    log-log interpolation): "noise", the bracketing steps' own (their
+    powers' and metrics' type-A uncertainties through the interpolation's
+    sensitivities); "interpolation", how far a curve through a third step
+    lands from the straight line (rectangular, at most the bracket's
+    width); the chain's (calibration, pad, load: shared by every step,
+    it moves the point with them)."""
+    p, m = np.log(np.asarray(power_w, float)), np.log(np.asarray(metric_pct, float))
+    i, j, y = point.below, point.above, math.log(point.limit_pct)
+    a, b, c, d = p[i], p[j], m[i], m[j]
+    t = (y - c) / (d - c)
+    up, um = np.nan_to_num(np.asarray(power_rel, float)), np.nan_to_num(np.asarray(metric_rel, float))
+    noise = rss((1 - t) * up[i], t * up[j], (b - a) * (y - d) / (d - c) ** 2 * um[i],
+                (b - a) * (y - c) / (d - c) ** 2 * um[j])
+    third = j + 1 if j + 1 < m.size and m[j + 1] > d else (i - 1 if i >= 1 and m[i - 1] < c else None)
+    curve = 0.0
+    if third is not None:
+        ks = sorted((i, j, third))
+        quad = np.polyfit(m[ks], p[ks], 2)
+        curve = min(abs(float(np.polyval(quad, y)) - (a + t * (b - a))), abs(b - a))
+    return Budget.of(noise=noise, interpolation=rectangular(curve), load=chain_rel)
 
 
 def _log_cross(x0, x1, y0, y1, y):
@@ -155,6 +180,16 @@ class PowerStep:
     valid: bool
     #: the supply current a meter read during the step, A
     supply_a: float | None = None
+    #: the step's tone analysis's uncertainty block (benchkit.analysis.uncertainty)
+    uncertainty: dict | None = None
+
+    def rel(self, key: str, part: str = "standard") -> float:
+        """A figure's relative standard uncertainty from the step's block (NaN: none)."""
+        u = ((self.uncertainty or {}).get(part) or {}).get(key)
+        value = {"power_w": self.power_w, "thdn_db": 1.0, "thd_db": 1.0}[key]
+        if not isinstance(u, (int, float)) or not value:
+            return math.nan if part == "standard" else 0.0
+        return u / value / (DB_PER_REL if key.endswith("_db") else 1.0)
 
     def efficiency_pct(self, supply_v: float | None, supply_a: float | None) -> float | None:
         """Output power over supply power, with this step's own current when metered."""
@@ -211,6 +246,37 @@ class PowerResult:
         amps = self.steps[rated.above].supply_a or self.supply_a
         return None if not amps else 100.0 * rated.power_w / (self.supply_v * amps)
 
+    def uncertainty(self) -> dict:
+        """The uncertainty block: each step's figures (``steps.KEY``, from
+        its tone analysis) and the power at each limit (``limits.power_w``,
+        :func:`limit_budget`; None where the steps never reached it)."""
+        names = {"fundamental_vrms": "vrms", "power_w": "power_w", "thd_pct": "thd_pct", "thdn_pct": "thdn_pct",
+                 "noise_vrms": "noise_vrms"}
+        blocks = [{part: {names[k]: v for k, v in ((s.uncertainty or {}).get(part) or {}).items() if k in names}
+                   for part in ("standard", "shared", "dominant")} for s in self.steps]
+        out = Collector()
+        steps = stacked("steps", blocks)
+        for part in ("standard", "shared", "dominant"):
+            getattr(out, part).update(steps.get(part) or {})
+        metric = "thdn_db" if self.metric == "thdn" else "thd_db"
+        power = [s.power_w for s in self.steps]
+        m = [s.thdn_pct if self.metric == "thdn" else s.thd_pct for s in self.steps]
+        p_rel = [math.sqrt(max(s.rel("power_w") ** 2 - s.rel("power_w", "shared") ** 2, 0.0)) for s in self.steps]
+        m_rel = [s.rel(metric) for s in self.steps]
+        budgets = []
+        for _lim, pt in self.limits:
+            if pt is None or any(math.isnan(p_rel[k]) or math.isnan(m_rel[k]) for k in (pt.below, pt.above)):
+                budgets.append(None)
+                continue
+            shared = 0.5 * (self.steps[pt.below].rel("power_w", "shared") + self.steps[pt.above].rel("power_w", "shared"))
+            budgets.append(limit_budget(power, m, pt, p_rel, m_rel, shared))
+        out.put_list("limits.power_w", budgets, [0.0 if pt is None else pt.power_w for _l, pt in self.limits],
+                     bounds=False)
+        named = [None if b is None else (b.dominant if len(b.parts) > 1 else None) for b in budgets]
+        if any(named):
+            out.dominant["limits.power_w"] = named
+        return out.block()
+
     def to_dict(self) -> dict:
         sw = self.supply_w
         d = {
@@ -229,6 +295,7 @@ class PowerResult:
             "expected": self.expected,
             "steps": [s.to_dict(self.supply_v, self.supply_a) for s in self.steps],
             "warnings": list(self.warnings),
+            "uncertainty": self.uncertainty(),
         }
         under = self.measured_under or Conditions(load_ohms=self.load_ohms)
         return document("power", d, under.calibrated((self.info or {}).get("calibration")))
@@ -307,7 +374,7 @@ def analyze_power(steps, *, load_ohms: float, metric: str = "thdn", limits_pct=D
             raise ValueError("every step needs volts and a load")
         rows.append(PowerStep(drive, r.fundamental_vrms, r.power_w, r.thd_pct, r.thdn_pct,
                               {h.order: h.level_dbc for h in r.harmonics if 2 <= h.order <= 5},
-                              r.noise_vrms, r.valid, a))
+                              r.noise_vrms, r.valid, a, r.uncertainty))
     v = [s.vrms for s in rows]
     p = [s.power_w for s in rows]
     m = [s.thdn_pct if metric == "thdn" else s.thd_pct for s in rows]
@@ -333,7 +400,8 @@ def power_figures(doc: dict) -> list[Figure]:
             continue
         # the first limit is the rated point: the headline, under a fixed name
         out.append(Figure("power_w" if i == 0 else f"power_w@{pct:g}%", f"power at {pct:g} % {metric}",
-                          finite(lim.get("power_w")), "W", "higher", at=f"{pct:g} % {metric}", headline=i == 0))
+                          finite(lim.get("power_w")), "W", "higher", at=f"{pct:g} % {metric}",
+                          headline=i == 0).of(doc, "limits.power_w", i))
     out.append(Figure("clipping_onset_w", "clipping onset", finite(doc.get("clipping_onset_w")), "W", "higher",
                       headline=True))
     if finite(doc.get("efficiency_pct")) is not None:

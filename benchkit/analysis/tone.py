@@ -36,6 +36,8 @@ from benchkit.analysis.sinefit import RecordLayout, fit_tone
 from benchkit.errors import BenchWarning, BenchkitError, NoToneError
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
+from benchkit.analysis import uncertainty as ua
+from benchkit.analysis.uncertainty import Chain
 
 DEFAULT_BAND_HZ = (20.0, 20000.0)
 #: Harmonic orders fitted jointly with the fundamental; higher ones are read
@@ -171,6 +173,8 @@ class ToneResult:
     dropouts_s: tuple[float, ...] = ()
     #: no harmonic stands over the noise: ``thd_ratio`` is a bound, not a reading
     thd_upper_bound: bool = False
+    #: the figures' standard uncertainties (benchkit.analysis.uncertainty.block)
+    uncertainty: dict | None = field(default=None, compare=False)
 
     # --- derived figures -------------------------------------------------
     @property
@@ -254,6 +258,8 @@ class ToneResult:
             d["noise_vrms"] = self.noise_vrms
         if self.power_w is not None:
             d["power_w"] = self.power_w
+        if self.uncertainty is not None:
+            d["uncertainty"] = self.uncertainty
         return document("tone", d, self.conditions())
 
     def conditions(self) -> Conditions:
@@ -281,6 +287,9 @@ class _Block:
     noise_power: float
     iterations: int
     fitted_orders: int
+    floor1: float = math.nan  # the fundamental's floor2
+    band_bins: int = 0  # the band's bins (THD+N's band power)
+    noise_bins: int = 0  # the bins the noise was read from (0: from the residual less the harmonics)
     spec_power: np.ndarray | None = None
     residual: np.ndarray | None = None
     fund_wave: np.ndarray | None = None
@@ -404,9 +413,11 @@ def _analyse_block(
     methods = ["fit" if f else "spectrum" for f in from_fit]
 
     res_power += 0.5 * float(np.sum(amps[np.isin(orders, straddling)] ** 2))
-    floor2 = noise_floor_amp2(rspec, n, fit.cycles * n, orders, from_fit)
+    # (the fundamental's floor too: its amplitude's type-A uncertainty)
+    floors = noise_floor_amp2(rspec, n, fit.cycles * n, np.r_[1, orders], np.r_[True, from_fit])
+    floor1, floor2 = float(floors[0]), floors[1:]
     heard = above_noise(amps, floor2)
-    noise_power = _noise_power(rpow, in_band, fit.cycles * n, orders[heard], pscale)
+    noise_power, noise_bins = _noise_power(rpow, in_band, fit.cycles * n, orders[heard], pscale)
     if noise_power is None:
         noise_power = max(res_power - 0.5 * float(np.sum(amps[heard] ** 2)), 0.0)
 
@@ -424,6 +435,9 @@ def _analyse_block(
         noise_power=noise_power,
         iterations=fit.iterations,
         fitted_orders=k_fit,
+        floor1=floor1,
+        band_bins=in_band.stop - in_band.start,
+        noise_bins=noise_bins,
     )
     if keep or dropouts:
         fund = layout.sine(fit.cycles, float(fit.cos[0]), float(fit.sin[0]))
@@ -503,10 +517,11 @@ def above_noise(amps: np.ndarray, floor2: np.ndarray) -> np.ndarray:
     return ~known | (np.asarray(amps) ** 2 > np.where(known, floor2, 0.0) * over_floor_ratio(len(floor2)))
 
 
-def _noise_power(rpow: np.ndarray, in_band: slice, nu1: float, orders: np.ndarray, pscale: float) -> float | None:
+def _noise_power(rpow: np.ndarray, in_band: slice, nu1: float, orders: np.ndarray,
+                 pscale: float) -> tuple[float | None, int]:
     """Band power of the residual away from the fundamental and every
-    harmonic, scaled up to the whole band; None when the harmonics leave
-    too few bins to judge by."""
+    harmonic, scaled up to the whole band, and the number of bins it was
+    read from; None when the harmonics leave too few bins to judge by."""
     keep = np.zeros(rpow.size, dtype=bool)
     keep[in_band] = True
     total = int(np.count_nonzero(keep))
@@ -515,8 +530,8 @@ def _noise_power(rpow: np.ndarray, in_band: slice, nu1: float, orders: np.ndarra
     keep[np.clip(np.add.outer(centres, guard), 0, keep.size - 1)] = False
     kept = int(np.count_nonzero(keep))
     if kept < 8 or kept < 0.2 * total:
-        return None
-    return pscale * float(np.sum(rpow[keep])) * total / kept
+        return None, 0
+    return pscale * float(np.sum(rpow[keep])) * total / kept, kept
 
 
 def find_dropouts(x: np.ndarray, residual: np.ndarray, sample_rate: float, f0: float, amp1: float) -> list[float]:
@@ -677,6 +692,7 @@ def analyze_tone(
     fit_orders: int = FIT_ORDERS,
     check_dropouts: bool = False,
     channel: int | None = None,
+    chain: Chain | None = None,
 ) -> ToneResult:
     """Analyse a steady tone: frequency, level, harmonics, THD, THD+N, noise.
 
@@ -712,6 +728,10 @@ def analyze_tone(
         any found make the result not valid.
     channel : int, optional
         The channel of 2-D ``samples`` to analyse, from 1.
+    chain : Chain, optional
+        The type-B contributions of the chain (calibration, pad, the
+        interface's flatness, the load) to the volts and watts; without
+        one, their uncertainty is the data's alone.
 
     Returns
     -------
@@ -836,6 +856,10 @@ def analyze_tone(
         where = ", ".join(f"{t:.3f} s" for t in gaps[:5]) + (" ..." if len(gaps) > 5 else "")
         warnings.append(BenchWarning("dropout", f"the capture has dropouts or clicks (at {where}); its figures are not valid"))
 
+    thdn = max(math.sqrt(res_power / (p1 / 2.0)), 0.0 if thd_bound else thd)
+    u_block = _uncertainty(blocks, nblk, f0, amp1, orders, amps, floor2, heard, thd if not thd_bound and harmonics else None,
+                           thdn, res_power, noise_power, sample_rate, volts_per_fs, load_ohms, chain)
+
     dc = float(np.mean([b.offset for b in blocks]))
     mean_sq = float(x @ x) / x.size
     ac_rms = math.sqrt(max(mean_sq - 2.0 * dc * float(np.mean(x)) + dc * dc, 0.0))
@@ -851,7 +875,7 @@ def analyze_tone(
         thd_upper_bound=thd_bound,
         # THD+N holds THD by definition: the residual in the band includes
         # every harmonic THD counts (a rounding of the reads apart)
-        thdn_ratio=max(math.sqrt(res_power / (p1 / 2.0)), 0.0 if thd_bound else thd),
+        thdn_ratio=thdn,
         noise_rms_fs=math.sqrt(noise_power),
         dc_fs=dc,
         peak_fs=max(xmax, -xmin),
@@ -870,7 +894,72 @@ def analyze_tone(
         load_ohms=load_ohms,
         traces=result_traces,
         dropouts_s=tuple(gaps),
+        uncertainty=u_block,
     )
+
+
+def _uncertainty(blocks: list[_Block], nblk: int, f0: float, amp1: float, orders: np.ndarray, amps: np.ndarray,
+                 floor2: np.ndarray, heard: np.ndarray, thd: float | None, thdn: float, res_power: float,
+                 noise_power: float, sample_rate: float, volts_per_fs: float | None, load_ohms: float | None,
+                 chain: Chain | None) -> dict:
+    """The result's uncertainty block (benchkit.analysis.uncertainty).
+
+    Type A: an amplitude's from the noise its least-squares read takes in
+    (the floor beside it, E|e|^2: u(A) = sqrt(E|e|^2 / 2), the Cramer-Rao
+    bound 2 sigma^2 / N for white noise), the frequency's from the
+    Cramer-Rao bound var(omega) = 12 / (SNR N^3), a band power's from its
+    degrees of freedom, the harmonics' share of the residual from their
+    reads' (u(A^2 / 2) = A u(A)); each over the blocks averaged. Type B:
+    the chain's, on volts and watts only (ratios do not see the scale), and
+    the interface's flatness between a harmonic and its fundamental."""
+    nb = len(blocks)
+    band_bins = int(np.mean([b.band_bins for b in blocks]))
+    floor1 = float(np.mean([b.floor1 for b in blocks]))
+    if not math.isfinite(floor1):  # no noise bins beside it: the band's noise taken as white
+        floor1 = 2.0 * noise_power / max(band_bins, 1)
+    rel1 = math.sqrt(max(floor1, 0.0) / 2.0 / nb) / amp1
+    uk = np.sqrt(np.maximum(floor2, 0.0) / 2.0 / nb)
+    out = ua.Collector()
+    out.put("fundamental_dbfs", ua.Budget.of(noise=ua.db_from_rel(rel1)))
+    out.put("fundamental_hz", ua.Budget.of(
+        noise=sample_rate / (2 * math.pi) * math.sqrt(6.0 * floor1 / nb) / (amp1 * nblk)))
+    known = heard & (amps > 0)
+    flat = np.array([0.0 if chain is None else chain.flatness_db(float(k) * f0, f0) for k in orders])
+    rel_k = np.where(known, uk / np.where(known, amps, 1.0), np.nan)
+    out.put_list("harmonics.level_dbc", [ua.Budget.of(noise=ua.db_from_rel(math.hypot(r, rel1)), flatness=fl)
+                                         if ok else None for r, fl, ok in zip(rel_k, flat, known)])
+    out.put_list("harmonics.level_dbfs", [ua.Budget.of(noise=ua.db_from_rel(r)) if ok else None
+                                          for r, ok in zip(rel_k, known)])
+    harm_var = float(np.sum((amps[known] * uk[known]) ** 2))  # of their power A^2 / 2
+    if thd is not None and thd > 0:
+        s = 0.5 * float(np.sum(amps[known] ** 2))
+        rel = 0.5 * math.hypot(math.sqrt(harm_var) / s, 2.0 * rel1) if s > 0 else 0.0
+        share = 0.5 * amps[known] ** 2 / s if s > 0 else np.zeros(0)
+        b = ua.Budget.of(noise=ua.db_from_rel(rel), flatness=float(np.sum(share * flat[known])))
+        out.put("thd_db", b)
+        out.put("thd_pct", b, 100.0 * thd * ua.rel_from_db(1.0))
+    else:
+        out.bound("thd_db", "thd_pct")
+    # in the band's sum a line's cross term with the noise weighs as the window's bin correlation says
+    cross = ua.bin_correlation(sp.WINDOW_COEFFS) * harm_var
+    u_res = math.hypot(ua.band_power_rel(band_bins, sp.WINDOW_COEFFS, nb) * noise_power, math.sqrt(cross))
+    rel_thdn = ua.Budget.of(noise=0.5 * math.hypot(u_res / res_power, 2.0 * rel1) if res_power > 0 else 0.0)
+    for key in ("thdn_db", "sinad_db"):
+        out.put(key, rel_thdn, ua.DB_PER_REL)
+    out.put("thdn_pct", rel_thdn, 100.0 * thdn)
+    kept = int(np.mean([b.noise_bins or b.band_bins for b in blocks]))
+    rel_noise = 0.5 * ua.band_power_rel(kept, sp.WINDOW_COEFFS, nb)  # of the RMS: half the power's
+    out.put("noise_dbfs", ua.Budget.of(noise=ua.db_from_rel(rel_noise)))
+    if volts_per_fs is not None:
+        none = ua.Budget()
+        vrms = units.vrms_from_vpk(amp1 * volts_per_fs)
+        out.put("fundamental_vrms", ua.Budget.of(noise=rel1).plus(chain.volts(f0) if chain else none), vrms)
+        out.put("noise_vrms", ua.Budget.of(noise=rel_noise).plus(chain.volts(None) if chain else none),
+                math.sqrt(noise_power) * volts_per_fs)
+        if load_ohms is not None:
+            out.put("power_w", ua.Budget.of(noise=2.0 * rel1).plus(chain.watts(f0) if chain else none),
+                    units.watts_from_vrms(vrms, load_ohms))
+    return out.block()
 
 
 def _traces(blocks: list[_Block], sample_rate: float, n: int) -> ToneTraces:
@@ -899,38 +988,39 @@ def _traces(blocks: list[_Block], sample_rate: float, n: int) -> ToneTraces:
 
 
 def step_figures(doc: dict) -> list[Figure]:
-    steps = [s for s in doc.get("steps") or [] if isinstance(s, dict)]
+    steps = [(i, s) for i, s in enumerate(doc.get("steps") or []) if isinstance(s, dict)]
     out = []
-    for s in steps:
+    for i, s in steps:
         drive = finite(s.get("drive_dbfs"))
         if drive is None:
             continue
         at = f"drive {drive:g} dBFS"
         key = f"@{drive:+g}dBFS"
         out += [
-            Figure(f"thdn_db{key}", "THD+N", finite(s.get("thdn_db")), "dB", "lower", at=at),
-            Figure(f"thd_db{key}", "THD", finite(s.get("thd_db")), "dB", "lower", at=at),
+            Figure(f"thdn_db{key}", "THD+N", finite(s.get("thdn_db")), "dB", "lower", at=at).of(doc, "steps.thdn_db", i),
+            Figure(f"thd_db{key}", "THD", finite(s.get("thd_db")), "dB", "lower", at=at).of(doc, "steps.thd_db", i),
         ]
-        for h in (s.get("harmonics") or [])[:2]:
-            out.append(Figure(f"h{h['order']}_dbc{key}", f"H{h['order']}", finite(h.get("level_dbc")), "dBc", "lower", at=at))
-        out.append(Figure(f"noise_dbfs{key}", "noise", finite(s.get("noise_dbfs")), "dBFS", "lower", at=at))
+        for j, h in enumerate((s.get("harmonics") or [])[:2]):
+            out.append(Figure(f"h{h['order']}_dbc{key}", f"H{h['order']}", finite(h.get("level_dbc")), "dBc", "lower",
+                              at=at).of(doc, "steps.harmonics.level_dbc", i, j))
+        out.append(Figure(f"noise_dbfs{key}", "noise", finite(s.get("noise_dbfs")), "dBFS", "lower",
+                          at=at).of(doc, "steps.noise_dbfs", i))
         if finite(s.get("fundamental_vrms")) is not None:
-            out.append(Figure(f"level_vrms{key}", "level", finite(s.get("fundamental_vrms")), "Vrms", None, at=at))
+            out.append(Figure(f"level_vrms{key}", "level", finite(s.get("fundamental_vrms")), "Vrms", None,
+                              at=at).of(doc, "steps.fundamental_vrms", i))
         if finite(s.get("power_w")) is not None:
-            out.append(Figure(f"power_w{key}", "power", finite(s.get("power_w")), "W", None, at=at))
-    valid = [s for s in steps if s.get("valid", True) and finite(s.get("thdn_db")) is not None]
+            out.append(Figure(f"power_w{key}", "power", finite(s.get("power_w")), "W", None,
+                              at=at).of(doc, "steps.power_w", i))
+    valid = [(i, s) for i, s in steps if s.get("valid", True) and finite(s.get("thdn_db")) is not None]
     if valid:
-        top = max(valid, key=lambda s: s["drive_dbfs"])
+        i, top = max(valid, key=lambda p: p[1]["drive_dbfs"])
         out.append(Figure("thdn_db", "THD+N at the top valid step", finite(top["thdn_db"]), "dB", "lower",
-                          at=f"drive {top['drive_dbfs']:g} dBFS",
-                          headline=True))
-        low = min(valid, key=lambda s: s["drive_dbfs"])
-        if finite(low.get("noise_vrms")) is not None:
-            out.append(Figure("noise_vrms", "noise at the lowest step", finite(low["noise_vrms"]), "Vrms", "lower",
-                              at=f"drive {low['drive_dbfs']:g} dBFS", headline=True))
-        else:
-            out.append(Figure("noise_dbfs", "noise at the lowest step", finite(low.get("noise_dbfs")), "dBFS", "lower",
-                              at=f"drive {low['drive_dbfs']:g} dBFS", headline=True))
+                          at=f"drive {top['drive_dbfs']:g} dBFS", headline=True).of(doc, "steps.thdn_db", i))
+        i, low = min(valid, key=lambda p: p[1]["drive_dbfs"])
+        noise = "noise_vrms" if finite(low.get("noise_vrms")) is not None else "noise_dbfs"
+        out.append(Figure(noise, "noise at the lowest step", finite(low.get(noise)), noise.rpartition("_")[2].replace(
+            "vrms", "Vrms").replace("dbfs", "dBFS"), "lower", at=f"drive {low['drive_dbfs']:g} dBFS",
+            headline=True).of(doc, f"steps.{noise}", i))
     return out
 
 

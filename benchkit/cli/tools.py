@@ -38,7 +38,7 @@ def devices(o: dict) -> None:
 
 
 @app.command()
-@takes("reading level voltmeter_pct pad input_ohms measure_pad note yes device in_channel out_channel ref_channel rate "
+@takes("reading level voltmeter_pct pad pad_tolerance load_tolerance input_ohms measure_pad note yes device in_channel out_channel ref_channel rate "
        "seed", file=...)
 def calibrate(o: dict) -> None:
     """Calibrate an interface: output and input scale, pad, floor, response, polarity, DC coupling.

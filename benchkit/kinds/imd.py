@@ -12,6 +12,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 
 from benchkit.analysis.documents import document
+from benchkit.analysis import uncertainty as ua
 from benchkit.analysis.imd import analyze_imd, imd_figures, ImdResult, method_tones
 from benchkit.errors import BenchkitError, BenchWarning
 from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Live, Measured, Offline, run_capture, RunParams
@@ -38,8 +39,9 @@ class ImdStep:
     result: ImdResult
 
     def to_dict(self) -> dict:
+        """The step's record document, its uncertainty block left to the run's (``steps.KEY``)."""
         d = self.result.to_dict()
-        d.pop("kind"), d.pop("schema_version")
+        d.pop("kind"), d.pop("schema_version"), d.pop("uncertainty", None)
         return {"drive_dbfs": self.drive_dbfs, **d}
 
 
@@ -69,6 +71,7 @@ class ImdSteps:
             "load_ohms": first.load_ohms, "scale_source": first.scale_source, "device": self.device,
             "calibration": self.calibration, "warnings": list(self.warnings),
             "steps": [s.to_dict() for s in self.steps],
+            "uncertainty": ua.stacked("steps", [s.result.uncertainty for s in self.steps]),
         }, first.conditions().calibrated(self.calibration))
 
 

@@ -51,7 +51,7 @@ def analyze_noise_capture(rec: Recording, bandwidth_hz=DEFAULT_BAND_HZ, volts_pe
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
     x = rec.samples[int(settle * rec.sample_rate_hz):]
     result = analyze_noise(x, rec.sample_rate_hz, bandwidth_hz=bandwidth_hz, volts_per_fs=scale, scale_source=source,
-                           reference_vrms=reference_vrms, reference=reference, traces=traces)
+                           reference_vrms=reference_vrms, reference=reference, traces=traces, chain=rec.chain())
     return replace(result, calibration=rec.sidecar.get("calibration"))
 
 

@@ -17,6 +17,7 @@ from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ, step_figures, step_readings, ToneResult
 from benchkit.errors import BenchkitError, BenchWarning, warning_docs
 from benchkit.kinds import Analysed, CAPTURE_WAV, Kind, Live, Measured, Offline, run_capture, RunParams
+from benchkit.analysis import uncertainty as ua
 from benchkit.record import SPOILED, record_steps
 from benchkit.recordings import read_capture, Recording, Takes
 
@@ -29,7 +30,10 @@ class StepResult:
     result: ToneResult
 
     def to_dict(self) -> dict:
-        return {"drive_dbfs": self.drive_dbfs, **self.result.to_dict()}
+        """The step's tone document, its uncertainty block left to the run's (``steps.KEY``)."""
+        d = {"drive_dbfs": self.drive_dbfs, **self.result.to_dict()}
+        d.pop("uncertainty", None)
+        return d
 
 
 @dataclass(frozen=True)
@@ -57,6 +61,7 @@ class StepsResult:
             "calibration": self.calibration,
             "warnings": list(self.warnings),
             "steps": [s.to_dict() for s in self.steps],
+            "uncertainty": ua.stacked("steps", [s.result.uncertainty for s in self.steps]),
         }, (self.steps[0].result.conditions() if self.steps else Conditions()).calibrated(self.calibration))
 
 
@@ -85,6 +90,7 @@ def analyze_steps(
     stim = rec.sidecar["stimulus"]
     scale, source = (volts_per_fs, "given") if volts_per_fs is not None else rec.channel_scale()
     takes = Takes(rec)
+    chain = rec.chain()
     steps = []
     for seg in stim["segments"]:
         x = takes.step(seg)
@@ -95,7 +101,7 @@ def analyze_steps(
         f0 = fundamental_hz if fundamental_hz is not None else float(seg["frequency_hz"])
         result = analyze_tone(x, rec.sample_rate_hz, fundamental_hz=f0, bandwidth_hz=bandwidth_hz, averages=averages,
                               volts_per_fs=scale, scale_source=source, load_ohms=load_ohms, traces=traces,
-                              check_dropouts=True)
+                              check_dropouts=True, chain=chain)
         if seg.get("spoiled"):
             result = replace(result, valid=False, warnings=result.warnings + (SPOILED,))
         cal = rec.sidecar.get("calibration") or {}
@@ -245,7 +251,8 @@ def analyse(rec, o: Offline) -> Analysed:
     result = analyze_tone(rec.samples, rec.sample_rate_hz,
                           fundamental_hz=o.fundamental_hz if o.fundamental_hz is not None else rec.stimulus_frequency_hz,
                           bandwidth_hz=o.bandwidth_hz, averages=o.averages, volts_per_fs=scale, scale_source=source,
-                          load_ohms=o.load_ohms, traces=o.out is not None)
+                          load_ohms=o.load_ohms, traces=o.out is not None,
+                          chain=o.profile.chain() if o.profile is not None else rec.chain())
     cal = rec.sidecar.get("calibration")
     note = floor_warning(result, (cal or {}).get("loopback_floor"))
     if note:

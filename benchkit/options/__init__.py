@@ -152,6 +152,8 @@ OPTIONS: dict[str, Option] = {
     "reading": _o("--reading", "Voltmeter reading at the output jack while the calibration tone plays, e.g. 0.1414V (Vrms).", _level),
     "voltmeter_pct": _o("--voltmeter-pct", "Voltmeter accuracy at the tone's frequency, +-%.", V.number(0.0, 50.0, unit="%"), 1.0),
     "pad": _o("--pad", "The pad's resistors R1:R2 in ohms (e.g. 1.8k:200).", V.PAD),
+    "pad_tolerance": _o("--pad-tolerance", "The pad resistors' tolerance, +-% (their part of the volts' uncertainty; a measured pad replaces it).", V.number(0.0, 50.0, unit="%"), 1.0),
+    "load_tolerance": _o("--load-tolerance", "The dummy load's tolerance, +-%, or your meter's accuracy if you measured it (its part of the watts' uncertainty).", V.number(0.0, 50.0, unit="%"), 5.0),
     "input_ohms": _o("--input-ohms", "The interface input's impedance, ohms (loads the pad).", V.ohms, 10e3),
     "measure_pad": _o("--measure-pad", "Measure the pad's ratio with the pad in place instead.", default=False),
     "stage_vpk": _o("--stage-vpk", "The stage's highest output in normal work, volts peak.", V.VOLTS),

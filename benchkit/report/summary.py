@@ -23,7 +23,12 @@ def change_text(d, k: int) -> str:
     if ch is None:
         return "-"
     unit = d.unit if d.unit in ("dB", "dBc", "dBFS", "%") else ""
-    text = f"{ch:+.2f} {unit}" if unit else ("+" if ch >= 0 else "-") + quantity(abs(ch), d.unit, 3)
+    big = d.change_u(k)
+    if unit:
+        text = f"{ch:+.2f}" + (f" +- {big:.2f}" if big is not None else "") + f" {unit}"
+    else:
+        text = ("+" if ch >= 0 else "-") + quantity(abs(ch), d.unit, 3) + (
+            f" +- {quantity(big, d.unit, 2)}" if big is not None else "")
     verdict = d.verdict(k)
     return text + (f" {verdict}" if verdict else "")
 
@@ -34,6 +39,9 @@ def comparison_text(c) -> str:
     lines = [f"!! {w}" for w in c.warnings]
     width = max(len(lab) for lab in c.labels)
     lines.append("runs: " + "; ".join(f"[{k}] {lab}" for k, lab in enumerate(c.labels)) + " (changes are from [0])")
+    if c.judged():
+        lines.append(f"+- is the change's expanded uncertainty at k = {c.coverage:.2g}: noise alone calls none of the "
+                     f"{c.judged()} figures judged better or worse, 99 times in 100")
     ordered = list(c.headline()) + [d for d in c.deltas if not d.headline]
     shown = ordered if len(ordered) <= 30 else list(c.headline()) + [d for d in ordered if d.better][:30]
     name_w = max(len(figure_name(d)) for d in shown)
@@ -74,6 +82,21 @@ def budget_summary(d: dict) -> str:
     return "\n".join(lines)
 
 
+def _chain_line(profile) -> str:
+    """The volts' and the watts' expanded uncertainty at 1 kHz from the
+    chain, and what it is made of (benchkit.analysis.uncertainty.Chain)."""
+    from benchkit.analysis.uncertainty import COVERAGE
+
+    u, chain = profile.uncertainty, profile.chain()
+    volts, watts = chain.volts(None), chain.watts(None)
+    parts = "; ".join(f"{name} {100 * v:.2f} %" for name, v in volts.parts)
+    pad = "" if profile.pad is None or profile.pad.measured or profile.pad.r1_ohms is None else (
+        f", resistors +-{profile.pad.tolerance_pct if profile.pad.tolerance_pct is not None else 1:g} %")
+    return (f"uncertainty at the stage (k = {COVERAGE}): volts +-{100 * volts.expanded():.2f} %, watts "
+            f"+-{100 * watts.expanded():.2f} % (standard: {parts}{pad}; voltmeter +-{u.get('voltmeter_pct', 0):g} %, "
+            f"repeatability {u.get('repeatability_db', 0):.4f} dB; load +-{u.get('load_tolerance_pct', 5):g} %)")
+
+
 def profile_lines(profile, path) -> list[str]:
     """What a calibration profile says, as ``benchkit calibrate`` shows it."""
     u, floor = profile.uncertainty, profile.loopback_floor
@@ -85,7 +108,6 @@ def profile_lines(profile, path) -> list[str]:
         f"loopback floor THD+N {floor['thdn_db']:.1f} dB at {floor['level_dbfs']:.1f} dBFS; "
         f"{'inverting' if profile.polarity_inverts else 'non-inverting'}; {coupling}; "
         f"latency {profile.latency_samples} samples",
-        f"uncertainty of the volts: +-{u['total_db']:.3f} dB (voltmeter +-{u['voltmeter_pct']:g} %, repeatability "
-        f"{u['repeatability_db']:.4f} dB)",
+        _chain_line(profile),
         f"profile: {path} (hash {profile.digest()})",
     ]

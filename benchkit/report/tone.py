@@ -13,6 +13,7 @@ from matplotlib.ticker import FuncFormatter
 
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import ToneResult
+from benchkit.analysis.uncertainty import shown, shown_quantity
 from benchkit.errors import read_warnings
 from benchkit.report import overlays, tables
 from benchkit.report.files import report_folder, stem_of
@@ -47,6 +48,15 @@ def conditions_line(r: ToneResult) -> str:
     )
 
 
+def _dominant(r: ToneResult, *keys: str) -> str:
+    """", the calibration dominates the W" for the first of ``keys`` with a named dominant contribution."""
+    named = (r.uncertainty or {}).get("dominant") or {}
+    for key in keys:
+        if named.get(key):
+            return f"; the {named[key]} dominates the {'W' if key == 'power_w' else 'volts'}"
+    return ""
+
+
 def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> str:
     """The figures of a tone analysis on one screen, ending with a plain
     reading of the harmonic profile."""
@@ -56,12 +66,14 @@ def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> s
         lines.append(head)
     if not r.valid:
         lines.append("  NOT VALID: " + "; ".join(w for w in read_warnings(r.warnings) if w.code in NOT_VALID_CODES))
-    fund = f"  fundamental  {r.fundamental_hz:.4f} Hz   {r.fundamental_dbfs:.2f} dBFS"
+    u = (r.uncertainty or {}).get("standard") or {}
+    fund = f"  fundamental  {r.fundamental_hz:.4f} Hz   {shown(r.fundamental_dbfs, u.get('fundamental_dbfs'))} dBFS"
     if r.fundamental_vrms is not None:
-        fund += f"   {quantity(r.fundamental_vrms, 'Vrms')}"
+        fund += f"   {shown_quantity(r.fundamental_vrms, u.get('fundamental_vrms'), 'Vrms')}"
     if r.power_w is not None:
-        fund += f"   {quantity(r.power_w, 'W')} into {r.load_ohms:g} ohm"
+        fund += f"   {shown_quantity(r.power_w, u.get('power_w'), 'W')} into {r.load_ohms:g} ohm"
     lines.append(fund)
+    lines.append(f"               (+- is the expanded uncertainty, k = 2{_dominant(r, 'power_w', 'fundamental_vrms')})")
     heard = sum(h.above_noise for h in r.harmonics)
     if not r.harmonics:
         lines.append(f"  THD          not defined: every harmonic lies above the band "
@@ -70,9 +82,9 @@ def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> s
         lines.append(f"  THD          < {r.thd_pct:.4g} %   < {r.thd_db:.2f} dB   (H2..H{r.harmonics[-1].order}: "
                      "none over the noise)")
     else:
-        lines.append(f"  THD          {r.thd_pct:.4g} %   {r.thd_db:.2f} dB   (H2..H{r.harmonics[-1].order}: "
-                     f"{heard} over the noise)")
-    lines.append(f"  THD+N        {r.thdn_pct:.4g} %   {r.thdn_db:.2f} dB   SINAD {r.sinad_db:.2f} dB")
+        lines.append(f"  THD          {r.thd_pct:.4g} %   {shown(r.thd_db, u.get('thd_db'))} dB   "
+                     f"(H2..H{r.harmonics[-1].order}: {heard} over the noise)")
+    lines.append(f"  THD+N        {r.thdn_pct:.4g} %   {shown(r.thdn_db, u.get('thdn_db'))} dB   SINAD {r.sinad_db:.2f} dB")
     noise = f"  noise        {r.noise_dbfs:.1f} dBFS"
     if r.noise_vrms is not None:
         noise += f"   {quantity(r.noise_vrms, 'Vrms')}"

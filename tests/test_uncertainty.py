@@ -1,0 +1,222 @@
+"""Uncertainty of every figure, and comparisons that tell a change from noise.
+
+Outside references: the GUM (JCGM 100:2008: 4.2 the mean's type A, 4.3.7
+a stated tolerance as a rectangular distribution, 5.1.2 and 5.1.6 the
+combination, 5.2 correlated inputs, 6.2-6.3 the coverage factor; section
+numbers from memory) with the worked values of ../shared/REFERENCES.md
+(computed there from those formulas); the Cramer-Rao bound of a sine's
+amplitude in white Gaussian noise, 2 sigma^2 / N (IEEE Std 1057 Annex;
+Kay, Fundamentals of Statistical Signal Processing vol. 1, from memory);
+the band power of white noise from Parseval's theorem; numpy's Gaussian
+generator for the noise. Monte Carlo runs use fixed seeds.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+import benchkit
+from benchkit.analysis import uncertainty as ua
+from benchkit.analysis.compare import IN_NOISE, WITHIN, Delta, Figure, compare
+from benchkit.analysis.imd import analyze_imd
+from benchkit.analysis.weighting import a_weighting_power
+from benchkit.kinds import get as kind_of
+
+from conftest import run_cli
+
+
+# --- the combination against worked values -----------------------------------------
+
+def test_a_stated_tolerance_is_rectangular():
+    # JCGM 100 4.3.7: +-1 % with nothing else known gives u = 0.5774 %
+    assert ua.rectangular(0.01) == pytest.approx(0.005774, abs=1e-6)
+
+
+def test_the_mean_of_readings_and_its_type_a_uncertainty():
+    # JCGM 100 4.2: u = s / sqrt(n), s with n - 1 degrees of freedom
+    mean, u = ua.mean_and_u([1.00, 1.02, 0.98, 1.01, 0.99])
+    assert mean == pytest.approx(1.0) and u == pytest.approx(math.sqrt(0.001 / 4) / math.sqrt(5))
+
+
+def test_watts_from_volts_and_a_load_combine_as_a_product_of_powers():
+    # REFERENCES.md: P = V^2 / R, V = 2.828427 Vrms (u 0.010 V), R = 8.000 ohm (u 0.040 ohm):
+    # u_c / P = 0.8660 % (JCGM 100 5.1.6)
+    chain = ua.Chain(calibration=0.010 / 2.828427, load=0.040 / 8.0)
+    assert chain.watts(None).u == pytest.approx(0.008660, abs=2e-6)
+    watts = benchkit.analyze_tone(2.828427 * math.sqrt(2) / 10 * np.sin(2 * np.pi * 1000 * np.arange(48000) / 48000),
+                                  48000, volts_per_fs=10.0, load_ohms=8.0, chain=chain)
+    assert watts.power_w == pytest.approx(1.0, rel=1e-5)
+    # the clean tone's own noise is nil: the chain's 0.866 % is all of it
+    assert watts.uncertainty["standard"]["power_w"] == pytest.approx(0.00866, rel=1e-3)
+    assert watts.uncertainty["dominant"]["power_w"] == "calibration"
+
+
+def test_a_pads_ratio_from_its_resistors_tolerance():
+    # REFERENCES.md: k = (R1 + R2) / R2, 1800 and 200 ohm each +-1 % rectangular:
+    # k = 10.000, u_c(k) = 0.07348 (0.7348 %), 0.0636 dB (JCGM 100 5.1.2 and 4.3.7)
+    rel = ua.pad_ratio_rel(1800.0, 200.0, 1.0)
+    assert 10.0 * rel == pytest.approx(0.07348, abs=1e-5)
+    # in dB: 20 log10(1 + 0.007348) = 0.0636 there; GUM's sensitivity 20 / ln 10 x u_rel gives 0.0638
+    assert ua.db_from_rel(rel) == pytest.approx(0.0636, abs=3e-4)
+    assert ua.db_from_rel(rel) == pytest.approx(20 / math.log(10) * 0.007348, abs=1e-5)
+
+
+def test_relative_to_db_and_the_expanded_uncertainty():
+    # REFERENCES.md: u_dB = 20 / ln 10 x u_rel = 8.686 x u_rel; U = k u, k = 2 (JCGM 100 6.2-6.3)
+    assert ua.db_from_rel(0.01) == pytest.approx(0.08686, abs=1e-5)
+    assert ua.Budget.of(noise=0.03, pad=0.04).expanded() == pytest.approx(0.10)
+
+
+def test_what_two_runs_on_one_chain_share_cancels_in_their_difference():
+    # JCGM 100 5.2: correlation +1, the shared calibration drops out of the difference
+    d = Delta("power_w", "power", "W", "", (6.00, 6.05), "higher", us=(0.05, 0.05), shared=(0.049, 0.049))
+    assert d.change_u(1) == pytest.approx(2 * math.sqrt(2 * (0.05**2 - 0.049**2)))
+    assert d.verdict(1) == "better"
+    other = Delta("power_w", "power", "W", "", (6.00, 6.05), "higher", us=(0.05, 0.05), shared=(0.049, 0.049),
+                  same_chain=False)
+    assert other.change_u(1) == pytest.approx(2 * math.sqrt(2) * 0.05) and other.verdict(1) == WITHIN
+
+
+def test_the_windows_bin_correlation():
+    # the Hann window's w^2 = 3/8 - cos/2 + cos2/8: rho(+-1) = -2/3, rho(+-2) = 1/6, sum of squares 35/18 (calculus)
+    assert ua.bin_correlation((0.5, 0.5)) == pytest.approx(35 / 18)
+    assert ua.bin_correlation((1.0,)) == pytest.approx(1.0)
+
+
+# --- type A against the Cramer-Rao bound and by Monte Carlo ---------------------------
+
+def _coverage(z) -> np.ndarray:
+    return np.mean(np.abs(np.asarray(z)) <= ua.COVERAGE, axis=0)
+
+
+def test_the_amplitudes_uncertainty_is_the_cramer_rao_bound():
+    # IEEE 1057 Annex / Kay vol. 1: var(A) >= 2 sigma^2 / N for a sine in white noise; the
+    # least-squares fit meets it, and the reported u says so
+    rng = np.random.default_rng(11)
+    n, sigma, amp = 48000, 1e-3, 0.5
+    t = np.arange(n) / 48000
+    reported, got = [], []
+    for _ in range(200):
+        r = benchkit.analyze_tone(amp * np.sin(2 * np.pi * 997 * t + rng.uniform(0, 6.3)) + rng.normal(0, sigma, n), 48000)
+        reported.append(ua.rel_from_db(r.uncertainty["standard"]["fundamental_dbfs"]) * amp)
+        got.append(r.fundamental_fs)
+    crb = math.sqrt(2 * sigma**2 / n)
+    assert np.sqrt(np.mean(np.square(reported))) == pytest.approx(crb, rel=0.05)
+    assert np.std(got, ddof=1) == pytest.approx(crb, rel=0.15)  # 200 draws: the scatter's own +-5 %, thrice
+
+
+def test_the_k2_interval_covers_a_tones_figures_95_percent_of_the_time():
+    # 500 realisations of a tone with a harmonic well above white noise: the fundamental's
+    # level, THD+N (harmonic and noise: power sum, Parseval) and H2 each covered 95 % +- 3 %
+    rng = np.random.default_rng(7)
+    fs, n, amp, h2, sigma = 48000, 12000, 0.5, 0.005, 2e-3
+    t = np.arange(n) / fs
+    noise_in_band = sigma**2 * (20000 - 20) / (fs / 2)
+    truth = (20 * math.log10(amp), 10 * math.log10((noise_in_band + h2**2 / 2) / (amp**2 / 2)), 20 * math.log10(h2 / amp))
+    z = []
+    for _ in range(500):
+        ph = rng.uniform(0, 2 * np.pi)
+        x = amp * np.sin(2 * np.pi * 997 * t + ph) + h2 * np.sin(2 * np.pi * 1994 * t + 2 * ph + 0.3)
+        r = benchkit.analyze_tone(x + rng.normal(0, sigma, n), fs)
+        u = r.uncertainty["standard"]
+        z.append([(r.fundamental_dbfs - truth[0]) / u["fundamental_dbfs"], (r.thdn_db - truth[1]) / u["thdn_db"],
+                  (r.harmonics[0].level_dbc - truth[2]) / u["harmonics.level_dbc"][0]])
+    assert _coverage(z) == pytest.approx([0.95, 0.95, 0.95], abs=0.03)
+
+
+def test_the_k2_interval_covers_a_noise_records_level_95_percent_of_the_time():
+    # white noise of known variance: its band power (Parseval) and A-weighted power (IEC 61672-1's
+    # curve integrated) covered 95 % +- 3 % by the Welch estimate's interval
+    rng = np.random.default_rng(3)
+    fs, sigma = 48000, 1e-3
+    f = np.linspace(20, 20000, 200001)
+    truth = (10 * math.log10(2 * sigma**2 * (20000 - 20) / (fs / 2)),
+             10 * math.log10(2 * sigma**2 / (fs / 2) * np.trapezoid(a_weighting_power(f), f)))  # dBFS: re a full-scale sine
+    z = []
+    for _ in range(500):
+        d = benchkit.analyze_noise(rng.normal(0, sigma, fs), fs).to_dict()
+        u = d["uncertainty"]["standard"]
+        z.append([(d["noise_dbfs"] - truth[0]) / u["noise_dbfs"], (d["noise_a_dbfs"] - truth[1]) / u["noise_a_dbfs"]])
+    assert _coverage(z) == pytest.approx([0.95, 0.95], abs=0.03)
+
+
+def test_an_intermodulation_ratios_uncertainty_matches_its_scatter():
+    # SMPTE-style pair with a square-law stage: the order-2 sidebands' ratio scatters as reported
+    rng = np.random.default_rng(2)
+    fs = 48000
+    t = np.arange(fs) / fs
+    clean = 0.4 * np.sin(2 * np.pi * 60 * t) + 0.1 * np.sin(2 * np.pi * 7000 * t)
+    clean = clean + 0.002 * clean**2
+    got, reported = [], []
+    for _ in range(200):
+        d = analyze_imd(clean + rng.normal(0, 1e-4, fs), fs, method="modulation").to_dict()
+        got.append(d["orders"]["2"]["db"])
+        reported.append(d["uncertainty"]["standard"]["orders.2.db"])
+    assert np.std(got, ddof=1) == pytest.approx(np.mean(reported), rel=0.15)
+    assert "orders.5.db" in d["uncertainty"]["bounds"]  # the 5th order lies in the noise: a bound, no u
+
+
+def test_a_harmonic_below_the_noise_is_a_bound_with_no_uncertainty():
+    rng = np.random.default_rng(5)
+    t = np.arange(48000) / 48000
+    r = benchkit.analyze_tone(0.5 * np.sin(2 * np.pi * 1000 * t) + rng.normal(0, 1e-3, t.size), 48000)
+    d = r.to_dict()
+    assert d["thd_upper_bound"] and "thd_db" in d["uncertainty"]["bounds"] and "thd_db" not in d["uncertainty"]["standard"]
+    assert all(u is None for u in d["uncertainty"]["standard"]["harmonics.level_dbc"])
+
+
+# --- comparisons ----------------------------------------------------------------------
+
+def test_a_bound_against_a_bound_is_in_the_noise_and_a_reading_clear_above_one_is_worse():
+    lower = dict(unit="dB", at="", better="lower")
+    assert Delta("imd3", "IMD 3", values=(-94.5, -93.7), bounds=(True, True), us=(None, None), **lower).verdict(1) == IN_NOISE
+    assert Delta("imd3", "IMD 3", values=(-94.5, -80.0), bounds=(True, False), us=(None, 0.2), **lower).verdict(1) == "worse"
+    assert Delta("imd3", "IMD 3", values=(-94.5, -94.0), bounds=(True, False), us=(None, 0.5), **lower).verdict(1) == IN_NOISE
+
+
+def test_figures_carry_their_uncertainty_into_a_comparison():
+    t = np.arange(48000) / 48000
+    docs = []
+    for seed, h2 in ((1, 0.001), (2, 0.001), (3, 0.004)):
+        x = 0.5 * np.sin(2 * np.pi * 1000 * t) + h2 * np.sin(2 * np.pi * 2000 * t)
+        x = x + np.random.default_rng(seed).normal(0, 3e-4, t.size)
+        r = benchkit.analyze_tone(x, 48000)
+        step = {"drive_dbfs": -6.0, **r.to_dict()}
+        docs.append({"kind": "tone", "frequency_hz": 1000.0, "steps": [step],
+                     "uncertainty": ua.stacked("steps", [step.pop("uncertainty")])})
+    figures = kind_of("tone").figures
+    same = {d.name: d for d in compare(docs[:2], ["a", "b"], figures).deltas}
+    assert same["thdn_db"].verdict(1) == WITHIN and same["h2_dbc@-6dBFS"].verdict(1) == WITHIN
+    worse = {d.name: d for d in compare([docs[0], docs[2]], ["a", "c"], figures).deltas}
+    assert worse["h2_dbc@-6dBFS"].verdict(1) == "worse" and worse["thdn_db"].verdict(1) == "worse"
+    assert isinstance(figures(docs[0])[0], Figure) and figures(docs[0])[0].u is not None
+
+
+def _measure(bench, *args):
+    res = run_cli(*args, "--bench", str(bench), "--json")
+    assert res.returncode == 0, res.stderr
+    return json.loads(res.stdout)
+
+
+def test_the_same_stage_with_fresh_noise_is_within_uncertainty_and_a_bias_change_is_reported(tmp_path):
+    # the virtual bench's stage measured twice with other noise (seeds), then with more bias:
+    # the first pair differs by noise alone, so no figure may be called better or worse
+    bench = tmp_path / "bench"
+    for seed, bias in (("1", "0.8"), ("2", "0.8"), ("3", "1.2")):
+        for kind in (("tone", "--level", "-20dBFS", "--level", "-12dBFS", "--load", "8"),
+                     ("imd", "--level", "-20dBFS", "--load", "8"), ("noise", "--duration", "2", "--load", "8")):
+            _measure(bench, *kind, "--seed", seed, "--sim-param", f"bias={bias}", "--tag", f"take={seed}")
+    for kind in ("tone", "imd", "noise"):
+        fresh = _measure(bench, "compare", "--command", kind, "--last", "3")
+        verdicts = [(d["name"], d["verdicts"][0]) for d in fresh["deltas"] if d["better"]]
+        called = [(n, v) for n, v in verdicts if v not in (WITHIN, IN_NOISE)]
+        assert verdicts and not called, (kind, called)
+        assert all(d["change_expanded_uncertainties"][0] is not None for d in fresh["deltas"]
+                   if d["better"] and d["verdicts"][0] == WITHIN)
+        if kind == "tone":  # more bias, less distortion at the top step (common practice for class A)
+            top = next(d for d in fresh["deltas"] if d["name"] == "thdn_db")
+            assert top["verdicts"][1] == "better"
