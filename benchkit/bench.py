@@ -86,6 +86,9 @@ def measure(kind_name: str, o: dict, say: Callable[[str], None], ask: Callable[[
     kind = kinds.get(kind_name)
     if kind.live is None:
         raise BenchkitError(f"{kind_name} is not measured this way")
+    repeat = o.get("repeat") or 1
+    if repeat > 1 and o.get("from_runs"):
+        raise BenchkitError(f"--repeat {repeat}: a run made from logged runs measures nothing to repeat")
     made = kind.live.other(o, say) if kind.live.other is not None else None
     if made is not None or kind.live.over_time:
         return made
@@ -96,8 +99,50 @@ def measure(kind_name: str, o: dict, say: Callable[[str], None], ask: Callable[[
         s.backend, s.profile = live_setup(o, say, **opening)
         params = kind.live.prepare(s)
         with start_run(book, labels, kind_name, s.backend, s.profile, o.get("calibration"), params, say) as run:
+            if repeat > 1:
+                return takes(run, kind, s, repeat, say)
             got = kind.live.measure(s, run.folder)
             return finish(run, kind, got, say, channel=s.channel)
+
+
+def takes(run, kind, s: "Bench", n: int, say) -> Filed:
+    """``n`` takes of one measurement in one run, each in a folder of its
+    own (``take-1`` ...) with its capture and report files; the run's
+    result is their mean, their scatter its type-A uncertainty
+    (benchkit.analysis.repeats). A take cut short ends the takes: the
+    mean is of those complete (one: that take's result)."""
+    docs, files, status, ended = [], [], "complete", None
+    for k in range(1, n + 1):
+        folder = run.folder / kinds.TAKE.format(k)
+        folder.mkdir(parents=True, exist_ok=True)
+        say(f"take {k} of {n}")
+        got = kind.live.measure(s, folder)
+        say(kind.summary(got.result, f"{got.title} (take {k} of {n})".strip()))
+        files += kind.reports(got.result, folder, s.channel, **got.report) + list(got.files)
+        if got.status == "complete" and got.ended is None:
+            docs.append(got.result.to_dict())
+        if got.status != "complete" or got.ended is not None:
+            status, ended = ("interrupted" if docs else got.status), got.ended
+            break
+    doc = kinds.mean_of_takes(run.folder, docs)
+    say(takes_summary(doc, kind.figures))
+    return complete(run, doc, [run.folder / kinds.TAKES_RESULT, *files], say, status, ended)
+
+
+def takes_summary(doc: dict, figures_of) -> str:
+    """The mean of repeated takes on one screen: its figures that have an
+    uncertainty, each ``value +- U`` (k = 2) and what dominates it."""
+    from benchkit.analysis.uncertainty import shown, shown_quantity
+
+    n = (doc.get("takes") or {}).get("count", 1)
+    lines = [f"mean of {n} takes (+- is the expanded uncertainty, k = 2: their scatter or their own noise, whichever "
+             "is larger)"]
+    figures = [f for f in (figures_of(doc) if figures_of else []) if f.u is not None and f.value is not None]
+    for f in ([f for f in figures if f.headline] + [f for f in figures if not f.headline])[:14]:
+        value = (f"{shown(f.value, f.u)} {f.unit}" if f.unit in ("dB", "dBc", "dBFS", "%")
+                 else shown_quantity(f.value, f.u, f.unit))
+        lines.append(f"  {f.label}{f' ({f.at})' if f.at and f.at not in f.label else ''}: {value}")
+    return "\n".join(lines)
 
 
 def finish(run, kind, got, say, channel: int = 1, played: bool = True) -> Filed:

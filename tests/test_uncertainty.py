@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import json
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -220,3 +221,42 @@ def test_the_same_stage_with_fresh_noise_is_within_uncertainty_and_a_bias_change
         if kind == "tone":  # more bias, less distortion at the top step (common practice for class A)
             top = next(d for d in fresh["deltas"] if d["name"] == "thdn_db")
             assert top["verdicts"][1] == "better"
+
+
+# --- repeated takes ---------------------------------------------------------------------
+
+def test_the_mean_of_takes_and_its_type_a_spread():
+    # JCGM 100 4.2: the mean, and u = s / sqrt(n) where the takes scatter more than their own noise says
+    from benchkit.analysis.repeats import mean_document
+
+    def take(thdn, u, vrms):
+        return {"kind": "tone", "n_samples": 48000, "steps": [{"drive_dbfs": -12.0, "thdn_db": thdn, "fundamental_vrms": vrms}],
+                "uncertainty": {"coverage_factor": 2, "standard": {"steps.thdn_db": [u], "steps.fundamental_vrms": [0.01]},
+                                "shared": {"steps.fundamental_vrms": [0.0099]}}}
+
+    values = [-57.40, -57.46, -57.52]
+    mean = mean_document([take(v, 0.001, 1.0 + i * 1e-4) for i, v in enumerate(values)])
+    assert mean["steps"][0]["thdn_db"] == pytest.approx(-57.46) and mean["n_samples"] == 48000
+    assert mean["uncertainty"]["standard"]["steps.thdn_db"][0] == pytest.approx(np.std(values, ddof=1) / math.sqrt(3))
+    # the shared calibration does not average down; the rest does: sqrt((0.01^2 - 0.0099^2) / 3 + 0.0099^2)
+    assert mean["uncertainty"]["standard"]["steps.fundamental_vrms"][0] == pytest.approx(
+        math.sqrt((0.01**2 - 0.0099**2) / 3 + 0.0099**2))
+    quiet = mean_document([take(-57.46 + d, 0.01, 1.0) for d in (0.0, 1e-4, -1e-4)])
+    assert quiet["uncertainty"]["standard"]["steps.thdn_db"][0] == pytest.approx(0.01 / math.sqrt(3))  # their own noise
+    assert quiet["takes"]["count"] == 3
+
+
+def test_repeated_takes_file_one_run_that_reanalyses_and_compares(tmp_path):
+    bench = tmp_path / "bench"
+    doc = _measure(bench, "tone", "--level", "-20dBFS", "--load", "8", "--repeat", "3", "--tag", "take=a")
+    folder = Path(doc["run"]["folder"])
+    assert doc["takes"]["count"] == 3 and all((folder / f"take-{k}" / "capture.wav").exists() for k in (1, 2, 3))
+    singles = [json.loads((folder / f"take-{k}" / "capture.result.json").read_text())["steps"][0]["thdn_db"] for k in (1, 2, 3)]
+    assert doc["steps"][0]["thdn_db"] == pytest.approx(np.mean(singles))
+    again = _measure(bench, "log", "reanalyse", doc["run"]["id"])
+    assert again["steps"][0]["thdn_db"] == pytest.approx(doc["steps"][0]["thdn_db"], abs=1e-9)
+    _measure(bench, "tone", "--level", "-20dBFS", "--load", "8", "--repeat", "2", "--tag", "take=b")
+    both = _measure(bench, "compare", "--command", "tone", "--last", "2")
+    top = next(d for d in both["deltas"] if d["name"] == "thdn_db")
+    assert top["verdicts"] == [WITHIN] and top["standard_uncertainties"][0] == pytest.approx(
+        doc["uncertainty"]["standard"]["steps.thdn_db"][0])

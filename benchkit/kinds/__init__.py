@@ -184,7 +184,7 @@ class Live:
     prepare: Callable[[Any], dict] | None
     measure: Callable[[Any, Path], Measured] | None
     options: str = ""
-    groups: tuple[str, ...] = ("live", "filing")
+    groups: tuple[str, ...] = ("live", "filing", "takes")
     defaults: dict = field(default_factory=dict)
     helps: dict = field(default_factory=dict)
     about: str = ""
@@ -316,7 +316,15 @@ def reanalyse(folder: Path, record: dict, say: Callable[[str], None] = lambda _m
         kind = get(str(command))
     except BenchkitError:
         raise BenchkitError(f"runs of command {command!r} cannot be analysed again") from None
-    return kind.reanalyse(folder, record, say)
+    taken = sorted((p for p in Path(folder).glob(TAKE.format("*")) if p.is_dir()), key=lambda p: int(p.name[5:]))
+    if not taken:
+        return kind.reanalyse(folder, record, say)
+    docs, files = [], []
+    for take in taken:  # repeated takes: each again, then their mean
+        doc, written = kind.reanalyse(take, record, say)
+        docs.append(doc)
+        files += written
+    return mean_of_takes(Path(folder), docs), [Path(folder) / TAKES_RESULT, *files]
 
 
 def analyse_file(path: Path, options: Offline, say: Callable[[str], None] = lambda _m: None) -> Analysed:
@@ -354,6 +362,23 @@ def analyse_file(path: Path, options: Offline, say: Callable[[str], None] = lamb
 
 
 # --- what every kind module uses ----------------------------------------------------
+
+#: A take's folder in a run of repeated takes (--repeat), and their mean's result file.
+TAKE = "take-{}"
+TAKES_RESULT = "takes.result.json"
+
+
+def mean_of_takes(folder: Path, docs: list[dict]) -> dict:
+    """The mean of a run's takes (benchkit.analysis.repeats), written as
+    the run's result file; one take's result as it is."""
+    from benchkit.analysis.repeats import mean_document
+    from benchkit.report.tables import write_json
+
+    if not docs:
+        raise BenchkitError("no take of the measurement completed")
+    doc = mean_document(docs, [TAKE.format(k) for k in range(1, len(docs) + 1)]) if len(docs) > 1 else docs[0]
+    write_json(doc, folder / TAKES_RESULT)
+    return doc
 
 #: The capture a run stores under its folder (``capture.wav`` and its sidecar).
 CAPTURE = "capture"

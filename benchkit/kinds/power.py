@@ -707,7 +707,7 @@ ABOUT = """Measure the power at set distortion limits: one stream of rising step
 ON_BENCH = Live(
     _opens, _prepare, _measure,
     options="freq start step_db fine_db current_meter rated_power precondition precondition_s channels ref_channel json",
-    groups=("live", "figures", "filing"),
+    groups=("live", "figures", "filing", "takes"),
     defaults=dict(load=...),
     helps=dict(load="Load resistance, ohms (a dummy load of the right rating)."),
     about=ABOUT,

@@ -176,6 +176,7 @@ OPTIONS: dict[str, Option] = {
     "remove": _o("--remove", "Take this tag off (repeatable).", default=[]),
     "session": _o("--session", "Only runs of this session (a plan's: its id, a unique start of it, or 'last')."),
     # plans and sessions
+    "repeat": _o("--repeat", "Measure this many takes in one run: its figures are their mean, and their scatter counts in each figure's uncertainty.", V.COUNT, 1),
     "set_stage": _o("--set", "Change a value of the plan's stage for this session, key=value (repeatable), e.g. --set bias=1.2.", default=[]),
 }
 
@@ -189,10 +190,12 @@ FIGURES = ("limit", "metric", "onset_db", "supply_volts", "supply_amps", "bias",
 JUDGE = ("dc_limit", "nominal", "settle_band", "window")
 #: where a measuring command files its run, and how it is labelled
 FILING = ("bench", "tag", "note", "stage", "stage_info")
+#: repeated takes of one measurement in one run
+TAKES = ("repeat",)
 
 
 #: the groups by name (a kind's ``groups``)
-GROUPS = {"live": LIVE, "figures": FIGURES, "judge": JUDGE, "filing": FILING}
+GROUPS = {"live": LIVE, "figures": FIGURES, "judge": JUDGE, "filing": FILING, "takes": TAKES}
 
 
 def defaults(*groups) -> dict:

@@ -99,7 +99,7 @@ def _chain_line(profile) -> str:
 
 def profile_lines(profile, path) -> list[str]:
     """What a calibration profile says, as ``benchkit calibrate`` shows it."""
-    u, floor = profile.uncertainty, profile.loopback_floor
+    floor = profile.loopback_floor
     coupling = "DC coupled" if profile.dc_coupled else f"AC coupled ({profile.ac_corner_hz:.2g} Hz)"
     return [
         f"output {quantity(profile.output_vpk_per_fs, 'V', 5)} peak per FS, input "
