@@ -260,3 +260,79 @@ def test_repeated_takes_file_one_run_that_reanalyses_and_compares(tmp_path):
     top = next(d for d in both["deltas"] if d["name"] == "thdn_db")
     assert top["verdicts"] == [WITHIN] and top["standard_uncertainties"][0] == pytest.approx(
         doc["uncertainty"]["standard"]["steps.thdn_db"][0])
+
+
+# --- the other kinds' type A against their scatter ----------------------------------------
+
+def test_a_swept_responses_uncertainty_matches_its_scatter():
+    # an exponential sweep through a first-order high-pass (scipy.signal.butter) with white noise
+    # added: the level read at each frequency scatters as reported (the noise read off the
+    # deconvolved response where no response lies)
+    import scipy.signal
+
+    from benchkit.analysis import sweep as sw
+
+    rate = 48000
+    s = sw.SyncSweep.design(10, 20000, 2.0, rate)
+    b, a = scipy.signal.butter(1, 30 / (rate / 2), "high")
+    clean = np.concatenate([scipy.signal.lfilter(b, a, s.samples(0.5)), np.zeros(rate)])
+    freqs = np.array([20.0, 100.0, 1000.0, 10000.0])
+    rng = np.random.default_rng(0)
+    levels, reported = [], []
+    for _ in range(80):
+        got = sw.measure(clean + rng.normal(0, 3e-3, clean.size), s, None, freqs=freqs, amplitude=0.5)
+        levels.append(20 * np.log10(np.abs(got.linear)))
+        reported.append(ua.db_from_rel(got.linear_rel_u))
+    assert np.std(levels, axis=0, ddof=1) == pytest.approx(np.sqrt(np.mean(np.square(reported), axis=0)), rel=0.25)
+
+
+def test_a_corners_uncertainty_is_the_levels_over_the_slope():
+    # JCGM 100 5.1.2: a crossing's sensitivity to the level is 1 / slope. A first-order high-pass at
+    # 10 Hz (its magnitude in closed form, circuit theory) read with 0.01 dB at every frequency: the
+    # -3 dB corner (re the level at 1 kHz) lies where the closed form says, and its u is the two
+    # levels' (there and at 1 kHz) over the closed form's slope there
+    import scipy.optimize
+
+    from benchkit.analysis.response import ResponseResult
+
+    def level(x):
+        return -10 * np.log10(1 + (10 / x) ** 2)
+
+    f = np.geomspace(2, 20000, 2000)
+    r = ResponseResult("sweep", f, level(f), np.zeros_like(f), (), np.full(f.size, np.nan), None, "given", "dB",
+                       1000.0, mag_u_db=np.full(f.size, 0.01))
+    corner = scipy.optimize.brentq(lambda x: level(x) - (level(1000.0) - 3.0), 5, 20)
+    slope = (level(corner * 1.0001) - level(corner * 0.9999)) / (corner * 0.0002)
+    assert r.corners_3db[0] == pytest.approx(corner, rel=1e-4)
+    assert r.uncertainty()["standard"]["low_3db_hz"] == pytest.approx(math.hypot(0.01, 0.01) / slope, rel=0.01)
+
+
+def test_an_output_impedances_uncertainty_matches_its_scatter():
+    # Zout = R (V_open / V_loaded - 1) from two readings of 0.01 % noise each: scatter as reported;
+    # the load's tolerance is its own (shared) part
+    from benchkit.analysis.zout import Reading, analyze_zout
+
+    rng = np.random.default_rng(9)
+    got = []
+    for _ in range(400):
+        a, b = 1.0 + 1e-4 * rng.standard_normal(), (8 / 8.2) * (1.0 + 1e-4 * rng.standard_normal())
+        r = analyze_zout([Reading(1000.0, complex(a), rel_u=1e-4)], [Reading(1000.0, complex(b), rel_u=1e-4)],
+                         load_ohms=8.0, load_rel=ua.rectangular(0.05))
+        got.append(r.points[0].zout_ohms)
+    block = r.to_dict()["uncertainty"]
+    own = math.sqrt(block["standard"]["zout_ohms"] ** 2 - block["shared"]["zout_ohms"] ** 2)
+    assert np.mean(got) == pytest.approx(0.2, abs=0.001) and np.std(got, ddof=1) == pytest.approx(own, rel=0.15)
+    assert block["shared"]["zout_ohms"] == pytest.approx(0.2 * ua.rectangular(0.05), rel=0.01)
+
+
+def test_a_crosstalk_reads_uncertainty_matches_its_scatter():
+    rng = np.random.default_rng(4)
+    t = np.arange(24000) / 48000
+    a = 0.5 * np.sin(2 * np.pi * 1000 * t)
+    got, reported = [], []
+    for _ in range(200):
+        x = benchkit.analyze_crosstalk(np.stack([a + rng.normal(0, 1e-5, t.size), a / 3000 + rng.normal(0, 1e-5, t.size)],
+                                                axis=1), 48000, frequency_hz=1000.0)
+        got.append(x.crosstalk_db)
+        reported.append(x.budget.u)
+    assert np.std(got, ddof=1) == pytest.approx(np.sqrt(np.mean(np.square(reported))), rel=0.15)

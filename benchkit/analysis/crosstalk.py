@@ -26,6 +26,7 @@ from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
+from benchkit.analysis.uncertainty import DB_PER_REL, Budget, Collector, rel_from_db
 from benchkit.errors import BenchkitError
 from benchkit.units import quantity
 
@@ -49,6 +50,14 @@ class Leak:
     ratio: float  # leaked over driven, in volts where both scales are known
     valid: bool
     driven_vrms: float | None = None
+    #: the leak's and the driven tone's relative standard uncertainties (type A: the noise under each read)
+    leaked_rel: float = 0.0
+    driven_rel: float = 0.0
+
+    @property
+    def budget(self) -> Budget | None:
+        """The crosstalk's budget in dB (None: a bound, in the noise)."""
+        return None if self.below_floor else Budget.of(noise=DB_PER_REL * math.hypot(self.leaked_rel, self.driven_rel))
 
     @property
     def crosstalk_db(self) -> float:
@@ -138,8 +147,11 @@ def leak(driven, other, sample_rate: float, frequency_hz: float, driven_scale: f
     around = np.concatenate([around[: max(0, k - guard - lo)], around[k + guard + 1 - lo:]])
     floor = math.sqrt(float(np.median(around)) / math.log(2.0)) * sp.sine_amplitude_scale(n) if around.size else 0.0
     scale = (other_scale / driven_scale) if driven_scale and other_scale else 1.0
+    # the read's noise: the floor's (raw) bin power times what the read makes of it, u(A) = sqrt(E|e|^2 / 2)
+    u_leak = floor / sp.sine_amplitude_scale(n) * math.sqrt(float(sp.read_noise_gain(n, np.array([nu]), spec.size)[0]) / 2)
     return Leak(r.fundamental_hz, driven_name, r.fundamental_fs, amp, floor, amp * scale / r.fundamental_fs, r.valid,
-                r.fundamental_vrms)
+                r.fundamental_vrms, u_leak / amp if amp > 0 else 0.0,
+                rel_from_db(r.uncertainty["standard"]["fundamental_dbfs"]))
 
 
 @dataclass(frozen=True)
@@ -159,15 +171,22 @@ class CrosstalkResult:
     def direction(self, driven: str) -> list[Leak]:
         return [x for x in self.leaks if x.driven == driven]
 
-    def balance(self) -> list[tuple[float, float]]:
-        """(frequency, B over A in dB) where both were driven: their
-        outputs, each at its own input's scale."""
+    def balance_pairs(self) -> list[tuple[Leak, Leak]]:
+        """The (A, B) leaks at each frequency where both were driven, both valid."""
         out = []
         for a in self.direction("A"):
             b = next((x for x in self.direction("B") if abs(x.frequency_hz / a.frequency_hz - 1) < 0.005), None)
             if b is not None and a.valid and b.valid:
-                va, vb = (a.driven_vrms, b.driven_vrms) if self.scaled else (a.driven_fs, b.driven_fs)
-                out.append((a.frequency_hz, float(units.db_from_ratio(vb / va))))
+                out.append((a, b))
+        return out
+
+    def balance(self) -> list[tuple[float, float]]:
+        """(frequency, B over A in dB) where both were driven: their
+        outputs, each at its own input's scale."""
+        out = []
+        for a, b in self.balance_pairs():
+            va, vb = (a.driven_vrms, b.driven_vrms) if self.scaled else (a.driven_fs, b.driven_fs)
+            out.append((a.frequency_hz, float(units.db_from_ratio(vb / va))))
         return out
 
     def near(self, frequency_hz: float = 1000.0) -> list[Leak]:
@@ -178,6 +197,29 @@ class CrosstalkResult:
             if got:
                 out.append(min(got, key=lambda x: abs(math.log(x.frequency_hz / frequency_hz))))
         return out
+
+    def uncertainty(self) -> dict:
+        """The uncertainty block: each leak's (the two reads' type A; a
+        leak in the noise is a bound), each balance's (the two driven
+        levels'; the inputs' scales are taken as known), the headline ones
+        under the top-level keys."""
+        out = Collector()
+        for key, side in (("a_to_b", "A"), ("b_to_a", "B")):
+            out.put_list(f"{key}.crosstalk_db", [x.budget for x in self.direction(side)])
+        near = self.near()
+        worst = max(near, key=lambda x: x.crosstalk_db) if near else None
+        if worst is not None:
+            if worst.budget is None:
+                out.bound("crosstalk_db")
+            else:
+                out.put("crosstalk_db", worst.budget)
+        pairs = self.balance_pairs()
+        out.put_list("balance.balance_db", [Budget.of(noise=DB_PER_REL * math.hypot(a.driven_rel, b.driven_rel))
+                                            for a, b in pairs], bounds=False)
+        if pairs:
+            a, b = min(pairs, key=lambda ab: abs(math.log(ab[0].frequency_hz / 1000.0)))
+            out.put("balance_db", Budget.of(noise=DB_PER_REL * math.hypot(a.driven_rel, b.driven_rel)))
+        return out.block()
 
     def to_dict(self) -> dict:
         near = self.near()
@@ -196,6 +238,7 @@ class CrosstalkResult:
             "balance": [{"frequency_hz": f, "balance_db": b} for f, b in balance],
             "load_ohms": self.load_ohms,
             "warnings": list(self.warnings),
+            "uncertainty": self.uncertainty(),
         }, Conditions(self.sample_rate_hz, self.bandwidth_hz, sp.WINDOW_NAME,
                       "the driven tone fitted; the leak read at its frequency by least squares", 1,
                       "both inputs' scales" if self.scaled else "none", None, self.load_ohms,
@@ -205,12 +248,13 @@ class CrosstalkResult:
 def crosstalk_figures(doc: dict) -> list[Figure]:
     at = f"{quantity(doc['reference_hz'], 'Hz', 4)}" if finite(doc.get("reference_hz")) is not None else ""
     out = [Figure("crosstalk_db", "crosstalk, the worse direction", finite(doc.get("crosstalk_db")), "dB", "lower", at=at,
-                  headline=True),
-           Figure("balance_db", "channel balance", finite(doc.get("balance_db")), "dB", "nearer", at=at, headline=True)]
+                  headline=True).of(doc, "crosstalk_db"),
+           Figure("balance_db", "channel balance", finite(doc.get("balance_db")), "dB", "nearer", at=at,
+                  headline=True).of(doc, "balance_db")]
     for key, name in (("a_to_b", "A into B"), ("b_to_a", "B into A")):
-        for x in doc.get(key) or []:
+        for i, x in enumerate(doc.get(key) or []):
             f = finite(x.get("frequency_hz"))
             if f is not None:
                 out.append(Figure(f"crosstalk_{key}_db@{f:.4g}Hz", f"crosstalk {name}", finite(x.get("crosstalk_db")),
-                                  "dB", "lower", at=f"{quantity(f, 'Hz', 4)}"))
+                                  "dB", "lower", at=f"{quantity(f, 'Hz', 4)}").of(doc, f"{key}.crosstalk_db", i))
     return out

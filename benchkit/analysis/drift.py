@@ -22,6 +22,7 @@ import numpy as np
 from benchkit.errors import BenchWarning
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
+from benchkit.analysis.uncertainty import Budget, Collector
 
 #: A jump between two readings this many times the readings' own noise
 #: (robust: from the median absolute difference) is a step, not drift.
@@ -141,6 +142,20 @@ def drift_rate_v_per_s(t_s, v, window_s: float) -> float | None:
     return float(np.polyfit(t[sel], y[sel], 1)[0])
 
 
+def drift_rate_u(t_s, v, window_s: float) -> float | None:
+    """The standard uncertainty of :func:`drift_rate_v_per_s`: the slope's
+    standard error, sqrt(sum r^2 / (n - 2) / sum (t - mean t)^2) (least
+    squares, handbook formula; the residuals taken as independent)."""
+    t, y = np.asarray(t_s, float), np.asarray(v, float)
+    sel = t >= t[-1] - window_s
+    if sel.sum() < 3 or np.ptp(t[sel]) <= 0:
+        return None
+    ts, ys = t[sel], y[sel]
+    slope, icept = np.polyfit(ts, ys, 1)
+    r = ys - (slope * ts + icept)
+    return float(math.sqrt(float(r @ r) / (ts.size - 2) / float(np.sum((ts - ts.mean()) ** 2))))
+
+
 @dataclass(frozen=True)
 class DriftResult:
     """The figures of a drift log."""
@@ -171,6 +186,21 @@ class DriftResult:
             return "over"
         return "settling"
 
+    def uncertainty(self) -> dict:
+        """The uncertainty block: the settling fit's from its covariance, the
+        rate's from the line's standard error (type A; the meter's own
+        accuracy, shared by two logs on one meter, is not counted)."""
+        out = Collector()
+        if self.fit is not None:
+            for key, u in (("fit.final_v", self.fit.final_sd_v), ("fit.tau_s", self.fit.tau_sd_s),
+                           ("fit.settle_s", self.fit.settle_sd_s)):
+                if u is not None and math.isfinite(u):
+                    out.put(key, Budget.of(noise=u))
+        rate_u = drift_rate_u(self.t_s, self.v, self.window_s) if self.v.size else None
+        if rate_u is not None:
+            out.put("rate_mv_per_min", Budget.of(noise=rate_u), 60e3)
+        return out.block()
+
     def to_dict(self) -> dict:
         v = self.v
         return document("drift", {
@@ -189,6 +219,7 @@ class DriftResult:
             "nominal_v": self.nominal_v,
             "verdict": self.verdict,
             "warnings": list(self.warnings),
+            "uncertainty": self.uncertainty(),
         }, Conditions(method="first-order settling fit by least squares; the rate a line over the last window",
                       more={"window_s": self.window_s}))
 
@@ -265,12 +296,14 @@ def drift_figures(doc: dict) -> list[Figure]:
     fit = doc.get("fit") or {}
     nominal = finite(doc.get("nominal_v")) or 0.0
     settled = finite(fit.get("final_v"))
+    settled_fig = Figure("settled_v", "settled value" if settled is not None else "last value",
+                         settled if settled is not None else finite(doc.get("last_v")), "V", "nearer", target=nominal,
+                         at="settling fit" if settled is not None else "last reading", headline=True)
     return [
-        Figure("settled_v", "settled value" if settled is not None else "last value",
-               settled if settled is not None else finite(doc.get("last_v")), "V", "nearer", target=nominal,
-               at="settling fit" if settled is not None else "last reading", headline=True),
+        settled_fig.of(doc, "fit.final_v") if settled is not None else settled_fig,
         Figure("pp_v", "peak to peak", finite(doc.get("pp_v")), "V", "lower"),
-        Figure("rate_mv_per_min", "drift rate at the end", finite(doc.get("rate_mv_per_min")), "mV/min", "nearer"),
-        Figure("tau_s", "settling time constant", finite(fit.get("tau_s")), "s", "lower"),
-        Figure("settle_s", "time to settle", finite(fit.get("settle_s")), "s", "lower"),
+        Figure("rate_mv_per_min", "drift rate at the end", finite(doc.get("rate_mv_per_min")), "mV/min",
+               "nearer").of(doc, "rate_mv_per_min"),
+        Figure("tau_s", "settling time constant", finite(fit.get("tau_s")), "s", "lower").of(doc, "fit.tau_s"),
+        Figure("settle_s", "time to settle", finite(fit.get("settle_s")), "s", "lower").of(doc, "fit.settle_s"),
     ]

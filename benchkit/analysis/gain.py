@@ -8,12 +8,14 @@ the ratio is of fundamentals, not of broadband levels.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 
 from benchkit import units
 from benchkit.analysis.tone import ToneResult
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import document
+from benchkit.analysis import uncertainty as ua
 from benchkit.units import quantity
 
 
@@ -31,6 +33,8 @@ class GainResult:
     warnings: tuple[str, ...] = ()
     #: the calibration profile its capture's sidecar names (file, hash ...), none without one
     calibration: dict | None = None
+    #: the reference input's type-A relative uncertainty of its level (0: from the drive)
+    reference_rel: float = 0.0
 
     @property
     def gain_vv(self) -> float:
@@ -44,6 +48,23 @@ class GainResult:
     def inverting(self) -> bool | None:
         return None if self.phase_deg is None else abs(self.phase_deg) > 90.0
 
+    def uncertainty(self) -> dict:
+        """The uncertainty block: the two levels' type A (each fitted tone's;
+        a phase's is its amplitude's relative u, in radians) and the output
+        chain's (the calibration, the pad, the flatness: a gain over the
+        calibrated drive takes the voltmeter's reading twice over, which a
+        reference input's shares)."""
+        block = self.output.uncertainty or {}
+        u_out = ua.rel_from_db(((block.get("standard") or {}).get("fundamental_dbfs")) or 0.0)
+        shared = ((block.get("shared") or {}).get("fundamental_vrms") or 0.0) / self.vout_vrms
+        noise = math.hypot(u_out, self.reference_rel)
+        out = ua.Collector()
+        out.put("gain_db", ua.Budget.of(noise=noise, calibration=shared), ua.DB_PER_REL)
+        out.put("gain_vv", ua.Budget.of(noise=noise, calibration=shared), self.gain_vv)
+        if self.phase_deg is not None:
+            out.put("phase_deg", ua.Budget.of(noise=noise), 180.0 / math.pi)
+        return out.block()
+
     def to_dict(self) -> dict:
         return document("gain", {
             "frequency_hz": self.frequency_hz, "drive_dbfs": self.drive_dbfs,
@@ -53,6 +74,7 @@ class GainResult:
             "bandwidth_hz": list(self.output.bandwidth_hz) if self.output.bandwidth_hz else None,
             "sample_rate_hz": self.output.sample_rate_hz,
             "warnings": list(self.warnings) + list(self.output.warnings),
+            "uncertainty": self.uncertainty(),
         }, replace(self.output.conditions(), method=f"output over input ({self.input_source}), each tone fitted",
                    load_ohms=self.load_ohms).calibrated(self.calibration))
 
@@ -107,8 +129,10 @@ def analyze_gain(output: ToneResult, *, drive_dbfs: float, reference: ToneResult
         if reference.fundamental_vrms is None:
             raise ValueError("the reference input needs a voltage scale")
         phase = (output.fundamental_phase_deg - reference.fundamental_phase_deg + 180.0) % 360.0 - 180.0
+        ref_u = ua.rel_from_db(((reference.uncertainty or {}).get("standard") or {}).get("fundamental_dbfs") or 0.0)
         return GainResult(output.fundamental_hz, drive_dbfs, reference.fundamental_vrms, output.fundamental_vrms,
-                          "reference-channel", float(phase), output, load_ohms, tuple(reference.warnings))
+                          "reference-channel", float(phase), output, load_ohms, tuple(reference.warnings),
+                          reference_rel=ref_u)
     vin = float(units.vrms_from_vpk(output_vpk_per_fs * units.ratio_from_db(drive_dbfs)))
     return GainResult(output.fundamental_hz, drive_dbfs, vin, output.fundamental_vrms, "calibrated-drive", None, output,
                       load_ohms)
@@ -116,8 +140,8 @@ def analyze_gain(output: ToneResult, *, drive_dbfs: float, reference: ToneResult
 
 def gain_figures(doc: dict) -> list[Figure]:
     at = f"{quantity(doc.get('frequency_hz', 0), 'Hz', 4)}, drive {doc.get('drive_dbfs', 0):g} dBFS"
-    return [Figure("gain_db", "gain", finite(doc.get("gain_db")), "dB", None, at=at, headline=True),
-            Figure("phase_deg", "phase", finite(doc.get("phase_deg")), "deg", None, at=at)]
+    return [Figure("gain_db", "gain", finite(doc.get("gain_db")), "dB", None, at=at, headline=True).of(doc, "gain_db"),
+            Figure("phase_deg", "phase", finite(doc.get("phase_deg")), "deg", None, at=at).of(doc, "phase_deg")]
 
 
 def gain_readings(doc: dict) -> list:
@@ -125,5 +149,7 @@ def gain_readings(doc: dict) -> list:
     output impedance from two logged runs (:mod:`benchkit.analysis.zout`)."""
     from benchkit.analysis.zout import Reading, phasor
 
+    u, shared = ua.lookup(doc, "gain_db") or 0.0, ua.lookup(doc, "gain_db", part="shared") or 0.0
     return [Reading(float(doc["frequency_hz"]), phasor(float(doc["gain_vv"]), doc.get("phase_deg")),
-                    doc.get("drive_dbfs"), bool(doc.get("valid", True)), doc.get("phase_deg") is not None)]
+                    doc.get("drive_dbfs"), bool(doc.get("valid", True)), doc.get("phase_deg") is not None,
+                    ua.rel_from_db(math.sqrt(max(u * u - shared * shared, 0.0))))]

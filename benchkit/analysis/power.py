@@ -275,6 +275,15 @@ class PowerResult:
         named = [None if b is None else (b.dominant if len(b.parts) > 1 else None) for b in budgets]
         if any(named):
             out.dominant["limits.power_w"] = named
+        if budgets and budgets[0] is not None and self.efficiency_pct is not None:
+            out.put("efficiency_pct", budgets[0], self.efficiency_pct)  # the supply's volts and amps as stated
+        onset = self.onset
+        if onset is not None and 0 < onset.step < len(self.steps) and not math.isnan(p_rel[onset.step]):
+            # interpolated between two steps by a trend: the bracket's half-width in log power, rectangular
+            i = onset.step
+            gap = 0.5 * abs(math.log(self.steps[i].power_w / self.steps[i - 1].power_w))
+            out.put("clipping_onset_w", Budget.of(noise=p_rel[i], interpolation=rectangular(gap),
+                                                  load=self.steps[i].rel("power_w", "shared")), onset.power_w)
         return out.block()
 
     def to_dict(self) -> dict:
@@ -403,9 +412,10 @@ def power_figures(doc: dict) -> list[Figure]:
                           finite(lim.get("power_w")), "W", "higher", at=f"{pct:g} % {metric}",
                           headline=i == 0).of(doc, "limits.power_w", i))
     out.append(Figure("clipping_onset_w", "clipping onset", finite(doc.get("clipping_onset_w")), "W", "higher",
-                      headline=True))
+                      headline=True).of(doc, "clipping_onset_w"))
     if finite(doc.get("efficiency_pct")) is not None:
-        out.append(Figure("efficiency_pct", "efficiency at the first limit", finite(doc["efficiency_pct"]), "%", "higher"))
+        out.append(Figure("efficiency_pct", "efficiency at the first limit", finite(doc["efficiency_pct"]), "%",
+                          "higher").of(doc, "efficiency_pct"))
     if finite(doc.get("idle_dissipation_w")) is not None:
         out.append(Figure("idle_dissipation_w", "idle dissipation", finite(doc["idle_dissipation_w"]), "W", None))
     expected = doc.get("expected") or {}

@@ -20,6 +20,7 @@ from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.spectrum import WINDOW_NAME
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.analysis.compare import Figure, finite
+from benchkit.analysis.uncertainty import Budget, Collector, rel_from_db
 
 #: The level the corners are referred to is read here unless told otherwise.
 REFERENCE_HZ = 1000.0
@@ -173,6 +174,8 @@ class ResponseResult:
     band_hz: tuple[float, float] | None = DEFAULT_BAND_HZ
     warnings: tuple[str, ...] = ()
     info: dict = field(default_factory=dict)
+    #: the magnitude's standard uncertainty at each frequency, dB (type A; None: not known)
+    mag_u_db: np.ndarray | None = None
 
     @property
     def ref_db(self) -> float:
@@ -203,6 +206,56 @@ class ResponseResult:
     def ripple_db(self) -> float | None:
         lo, hi = self.corners_1db
         return ripple(self.freq_hz, self.mag_db, lo, hi, self.band_hz)
+
+    def _u_at(self, f_hz: float | None) -> float | None:
+        """The magnitude's u at a frequency (interpolated in log f), None outside."""
+        if self.mag_u_db is None or f_hz is None or not self.freq_hz[0] <= f_hz <= self.freq_hz[-1]:
+            return None
+        return float(np.interp(math.log(f_hz), np.log(self.freq_hz), self.mag_u_db))
+
+    def _corner_u(self, f_hz: float | None) -> float | None:
+        """A corner's u, Hz: the magnitude's there and at the reference
+        (the level it drops from), over the slope of the curve there
+        (JCGM 100 5.1.2: the crossing's sensitivity to the level)."""
+        u, u_ref = self._u_at(f_hz), self._u_at(self.reference_hz)
+        if u is None or f_hz is None:
+            return None
+        slope = np.gradient(self.mag_db, self.freq_hz)
+        s = abs(float(np.interp(f_hz, self.freq_hz, slope)))
+        return math.hypot(u, u_ref or 0.0) / s if s > 0 else None
+
+    def uncertainty(self) -> dict:
+        """The uncertainty block: the magnitude's at each frequency, levels
+        against the reference's, corners through the curve's slope, the
+        ripple from its two extremes (type A, from the noise under the
+        response; the corner fit and the capacitor take the -3 dB corner's
+        relative u)."""
+        out = Collector()
+        if self.mag_u_db is None:
+            return out.block()
+        out.put_list("response.mag_db", [Budget.of(noise=float(u)) for u in self.mag_u_db])
+        u_ref = self._u_at(self.reference_hz) or 0.0
+        for key, f in (("level_20hz_db", 20.0), ("level_20khz_db", 20000.0)):
+            u = self._u_at(f)
+            if u is not None:
+                out.put(key, Budget.of(noise=math.hypot(u, u_ref)))
+        (low3, high3), (low1, high1) = self.corners_3db, self.corners_1db
+        for key, f in (("low_3db_hz", low3), ("high_3db_hz", high3), ("low_1db_hz", low1), ("high_1db_hz", high1)):
+            u = self._corner_u(f)
+            if u is not None:
+                out.put(key, Budget.of(noise=u))
+        fit, low_u = self.corner_fit, self._corner_u(low3)
+        if fit is not None and fit.fits and low_u is not None and low3:
+            out.put("low_corner_fit.corner_hz", Budget.of(noise=low_u / low3), fit.corner_hz)
+            if self.coupling_capacitor_f is not None:
+                out.put("coupling_capacitor_uf", Budget.of(noise=low_u / low3), self.coupling_capacitor_f * 1e6)
+        if self.ripple_db is not None:
+            lo, hi = low1 or self.freq_hz[0], high1 or self.freq_hz[-1]
+            sel = (self.freq_hz >= lo) & (self.freq_hz <= hi)
+            if sel.any():
+                m, u = self.mag_db[sel], self.mag_u_db[sel]
+                out.put("ripple_db", Budget.of(noise=math.hypot(float(u[np.argmax(m)]), float(u[np.argmin(m)]))))
+        return out.block()
 
     def to_dict(self) -> dict:
         low3, high3 = self.corners_3db
@@ -240,6 +293,7 @@ class ResponseResult:
             },
             "bandwidth_hz": None if self.band_hz is None else list(self.band_hz),
             "warnings": list(self.warnings),
+            "uncertainty": self.uncertainty(),
         }, Conditions(self.info.get("sample_rate_hz"), self.band_hz, WINDOW_NAME if self.method == "stepped" else None,
                       METHODS.get(self.method, self.method), None, self.scale_source, None,
                       self.load_ohms).calibrated(self.info.get("calibration")))
@@ -261,20 +315,20 @@ def thd_db_from_harmonics(curves: tuple[HarmonicCurve, ...], n: int) -> np.ndarr
 
 def response_figures(doc: dict) -> list[Figure]:
     fit = doc.get("low_corner_fit") or {}
-    return [
+    ref = finite(doc.get("reference_level_db")) or 0.0
+    figures = [
         Figure("low_3db_hz", "-3 dB, low", finite(doc.get("low_3db_hz")), "Hz", "lower", headline=True),
         Figure("high_3db_hz", "-3 dB, high", finite(doc.get("high_3db_hz")), "Hz", "higher", headline=True),
         Figure("low_1db_hz", "-1 dB, low", finite(doc.get("low_1db_hz")), "Hz", "lower"),
         Figure("high_1db_hz", "-1 dB, high", finite(doc.get("high_1db_hz")), "Hz", "higher"),
         Figure("ripple_db", "ripple between the -1 dB points", finite(doc.get("ripple_db")), "dB", "lower"),
-        Figure("level_20hz_db", "level at 20 Hz", finite(doc.get("level_20hz_db")), "dB", "nearer",
-               target=finite(doc.get("reference_level_db")) or 0.0),
-        Figure("level_20khz_db", "level at 20 kHz", finite(doc.get("level_20khz_db")), "dB", "nearer",
-               target=finite(doc.get("reference_level_db")) or 0.0),
+        Figure("level_20hz_db", "level at 20 Hz", finite(doc.get("level_20hz_db")), "dB", "nearer", target=ref),
+        Figure("level_20khz_db", "level at 20 kHz", finite(doc.get("level_20khz_db")), "dB", "nearer", target=ref),
         Figure("corner_fit_hz", "first-order corner fit", finite(fit.get("corner_hz")) if fit.get("fits") else None,
                "Hz", "lower"),
         Figure("coupling_capacitor_uf", "coupling capacitor", finite(doc.get("coupling_capacitor_uf")), "uF", None),
     ]
+    return [f.of(doc, "low_corner_fit.corner_hz" if f.name == "corner_fit_hz" else f.name) for f in figures]
 
 
 def response_readings(doc: dict) -> list:
@@ -293,5 +347,7 @@ def response_readings(doc: dict) -> list:
     gm = np.interp(grid, f, mag)
     gp = np.interp(grid, f, np.degrees(np.unwrap(np.radians(ph))))
     drive = (doc.get("sweep") or {}).get("level_dbfs")
-    return [Reading(float(x), phasor(float(units.ratio_from_db(m)), float(p)), drive, True, True)
-            for x, m, p in zip(grid, gm, gp)]
+    u = ((doc.get("uncertainty") or {}).get("standard") or {}).get("response.mag_db")
+    gu = np.interp(grid, f, np.asarray(u, float)) if isinstance(u, list) and len(u) == f.size else np.zeros(grid.size)
+    return [Reading(float(x), phasor(float(units.ratio_from_db(m)), float(p)), drive, True, True, rel_from_db(float(e)))
+            for x, m, p, e in zip(grid, gm, gp, gu)]

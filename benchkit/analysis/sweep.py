@@ -194,12 +194,17 @@ def response_at(h: np.ndarray, sweep: SyncSweep, order: int, freqs: np.ndarray) 
     """The order-k response, windowed out of ``h`` and evaluated at
     ``freqs`` (for k > 1, the harmonic's own frequencies k f), referred to
     its exact time -L ln k."""
-    import scipy.fft
     rate = sweep.rate
     before, after = sweep.windows(order)[order - 1]
     t0 = -sweep.harmonic_delay_s(order)
+    return _windowed_spectrum(h, rate, t0, int(round(before * rate)), int(round(after * rate)), freqs)
+
+
+def _windowed_spectrum(h: np.ndarray, rate: float, t0: float, nb: int, na: int, freqs: np.ndarray) -> np.ndarray:
+    """The spectrum at ``freqs`` of ``h`` windowed from ``nb`` samples
+    before time ``t0`` (s, the response's own zero) to ``na`` after."""
+    import scipy.fft
     at = int(math.floor(t0 * rate))
-    nb, na = int(round(before * rate)), int(round(after * rate))
     seg = h[(np.arange(-nb, na) + at) % h.size] * _window(nb, na)
     # the response's own t = 0 at index 0 (the part before wraps to the
     # end), so the spectrum is smooth; zero-padded 8x, linear
@@ -218,6 +223,35 @@ def response_at(h: np.ndarray, sweep: SyncSweep, order: int, freqs: np.ndarray) 
     return z * np.exp(-2j * np.pi * np.asarray(freqs) * (at / rate - t0))
 
 
+def noise_read(h: np.ndarray, sweep: SyncSweep, freqs: np.ndarray) -> np.ndarray | None:
+    """The RMS of what noise alone adds to the linear response's read at
+    each frequency (:func:`response_at`): the same window laid over a stretch
+    of ``h`` that holds no response (after the linear one, before the
+    harmonics wrapped to the end), its power smoothed over a sixth of an
+    octave (one read of noise scatters as an exponential variable) and
+    scaled to the linear window's energy when the stretch is shorter.
+    Deconvolved noise is the recording's noise through the inverse filter:
+    stationary, the same wherever it is read. None without such a stretch."""
+    rate = sweep.rate
+    before, after = sweep.windows(1)[0]
+    nb, na = int(round(before * rate)), int(round(after * rate))
+    start = na + int(0.05 * rate)  # past the linear response's window
+    stop = h.size - int(math.ceil((sweep.harmonic_delay_s(MAX_ORDER + 3) + MAX_IR_S) * rate))
+    room = stop - start
+    if room < int(0.05 * rate):
+        return None
+    scale = 1.0
+    if room < nb + na:  # a shorter window of the same shape: its noise power in proportion to its energy
+        full = _window(nb, na)
+        nb, na = room * nb // (nb + na), room - room * nb // (nb + na)
+        scale = float(np.sum(full**2) / np.sum(_window(nb, na) ** 2))
+    z = _windowed_spectrum(h, rate, (start + nb) / rate, nb, na, freqs)
+    power = np.abs(z) ** 2 * scale
+    logf = np.log2(np.maximum(np.asarray(freqs, float), 1e-12))
+    smooth = np.array([np.mean(power[np.abs(logf - x) <= 1.0 / 12.0]) for x in logf])
+    return np.sqrt(smooth)
+
+
 @dataclass(frozen=True)
 class SweepResponses:
     """Linear and harmonic responses of one sweep measurement.
@@ -234,6 +268,8 @@ class SweepResponses:
     harmonics: dict
     #: order k -> the lowest fundamental frequency its curve is given at
     lowest_hz: dict = field(default_factory=dict)
+    #: the linear response's relative standard uncertainty at each frequency (type A: the noise under it)
+    linear_rel_u: np.ndarray | None = None
 
 
 def lowest_valid_hz(sweep: SyncSweep, order: int) -> float:
@@ -308,9 +344,21 @@ def measure(output: np.ndarray, sweep: SyncSweep, reference: np.ndarray | None =
         refuse_non_finite(reference, "the reference")
     ref = reference if reference is not None else sweep.samples(amplitude)
     n = deconvolution_length(sweep, max(output.size, ref.size))
-    got = separate(deconvolve(output, sweep, n), sweep, orders, freqs, band_hz)
-    base = response_at(deconvolve(ref, sweep, n), sweep, 1, got.freq_hz)
-    return SweepResponses(got.freq_hz, got.linear / base, got.harmonics, got.lowest_hz)
+    h = deconvolve(output, sweep, n)
+    got = separate(h, sweep, orders, freqs, band_hz)
+    h_ref = deconvolve(ref, sweep, n)
+    base = response_at(h_ref, sweep, 1, got.freq_hz)
+    # type A: each end's noise read against its own response (a read's noise
+    # splits evenly between the level and the phase: sqrt(1/2) of it on the level)
+    rel = None
+    noise = noise_read(h, sweep, got.freq_hz)
+    if noise is not None:
+        rel = noise / np.maximum(np.abs(got.linear), 1e-300) / math.sqrt(2.0)
+        if reference is not None:
+            ref_noise = noise_read(h_ref, sweep, got.freq_hz)
+            if ref_noise is not None:
+                rel = np.hypot(rel, ref_noise / np.maximum(np.abs(base), 1e-300) / math.sqrt(2.0))
+    return SweepResponses(got.freq_hz, got.linear / base, got.harmonics, got.lowest_hz, rel)
 
 
 def find_start(recording: np.ndarray, sweep: SyncSweep) -> float:

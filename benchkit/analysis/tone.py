@@ -1030,4 +1030,6 @@ def step_readings(doc: dict) -> list:
     from benchkit.analysis.zout import Reading
 
     return [Reading(float(s["fundamental_hz"]), complex(units.ratio_from_db(float(s["fundamental_dbfs"]))),
-                    s.get("drive_dbfs"), bool(s.get("valid", True))) for s in doc.get("steps") or []]
+                    s.get("drive_dbfs"), bool(s.get("valid", True)),
+                    rel_u=ua.rel_from_db(ua.lookup(doc, "steps.fundamental_dbfs", i) or 0.0))
+            for i, s in enumerate(doc.get("steps") or [])]

@@ -25,13 +25,14 @@ from __future__ import annotations
 
 import cmath
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 from benchkit.units import quantity
 from benchkit import units
 from benchkit.errors import BenchWarning, BenchkitError
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
+from benchkit.analysis.uncertainty import Budget, Collector
 
 
 #: |k - 1| below this is under what two readings resolve (a tenth of a
@@ -55,6 +56,8 @@ class Reading:
     drive_dbfs: float | None = None
     valid: bool = True
     phase_known: bool = False
+    #: its relative standard uncertainty (type A; 0: not known)
+    rel_u: float = 0.0
 
 
 def phasor(magnitude: float, phase_deg: float | None) -> complex:
@@ -70,6 +73,8 @@ class ZoutPoint:
     load_ohms: float
     valid: bool
     drive_dbfs: float | None = None  # the unloaded reading's
+    #: |Zout|'s standard uncertainty by contribution, ohms (benchkit.analysis.uncertainty.Budget)
+    budget: Budget = field(default_factory=Budget)
 
     @property
     def zout_ohms(self) -> float:
@@ -102,6 +107,23 @@ class ZoutResult:
         valid = [p for p in self.points if p.valid]
         return min(valid, key=lambda p: abs(math.log(p.frequency_hz / frequency_hz))) if valid else None
 
+    def uncertainty(self) -> dict:
+        """The uncertainty block: each point's |Zout| (the two readings' type
+        A through Zout = R (k - 1), and the load's tolerance: Zout scales
+        with R) and its damping factor R / |Zout| (the readings' alone: R
+        cancels), the reference point's under the top-level keys."""
+        out = Collector()
+        points = list(self.points)
+        out.put_list("points.zout_ohms", [p.budget for p in points], bounds=False)
+        damping = [Budget.of(noise=p.budget.unshared().u / p.zout_ohms) if p.zout_ohms else None for p in points]
+        out.put_list("points.damping_factor", damping, [p.damping_factor or 0.0 for p in points], bounds=False)
+        ref = self.at()
+        if ref is not None:
+            out.put("zout_ohms", ref.budget)
+            if ref.zout_ohms:
+                out.put("damping_factor", Budget.of(noise=ref.budget.unshared().u / ref.zout_ohms), ref.damping_factor)
+        return out.block()
+
     def to_dict(self) -> dict:
         ref = self.at()
         return document("zout", {
@@ -111,11 +133,12 @@ class ZoutResult:
             "zout_ohms": None if ref is None else ref.zout_ohms,
             "damping_factor": None if ref is None else ref.damping_factor,
             "points": [p.to_dict() for p in self.points], "warnings": list(self.warnings),
+            "uncertainty": self.uncertainty(),
         }, Conditions(method=self.method, load_ohms=self.load_ohms,
                       more={"open_load_ohms": self.open_load_ohms}).calibrated(self.calibration))
 
 
-def analyze_zout(open_: list[Reading], loaded: list[Reading], *, load_ohms: float,
+def analyze_zout(open_: list[Reading], loaded: list[Reading], *, load_ohms: float, load_rel: float = 0.0,
                  open_load_ohms: float | None = None) -> ZoutResult:
     """The output impedance at each frequency read both unloaded and
     across a load.
@@ -131,6 +154,10 @@ def analyze_zout(open_: list[Reading], loaded: list[Reading], *, load_ohms: floa
     open_load_ohms : float, optional
         What the unloaded output drove (the pad and the input); open when
         not given (a warning says so).
+    load_rel : float
+        The load resistance's relative standard uncertainty (its tolerance
+        +-t: t / sqrt 3): Zout scales with it (the damping factor does not).
+        Each reading's own is its ``rel_u``.
 
     Returns
     -------
@@ -182,7 +209,13 @@ def analyze_zout(open_: list[Reading], loaded: list[Reading], *, load_ohms: floa
             z = open_load_ohms * r_eff * (k - 1.0) / (open_load_ohms - k * r_eff)
         if abs(k - 1.0) < RESOLUTION:
             unresolved.append(a.frequency_hz)
-        points.append(ZoutPoint(a.frequency_hz, complex(k), complex(z), load_ohms, a.valid and b.valid, a.drive_dbfs))
+        # dZ/dk, and k's own u from the two readings' (JCGM 100 5.1.2)
+        dz = r_eff if open_load_ohms is None else (open_load_ohms * r_eff * (open_load_ohms - r_eff)
+                                                   / (open_load_ohms - k * r_eff) ** 2)
+        noise = abs(dz) * abs(k) * math.hypot(a.rel_u, b.rel_u)
+        budget = Budget.of(noise=noise, load=load_rel * abs(z))
+        points.append(ZoutPoint(a.frequency_hz, complex(k), complex(z), load_ohms, a.valid and b.valid, a.drive_dbfs,
+                                budget))
     if not points:
         raise BenchkitError("the unloaded and loaded readings share no frequency")
     if drifted:
@@ -203,12 +236,13 @@ def _hz_list(freqs: list[float]) -> str:
 
 def zout_figures(doc: dict) -> list[Figure]:
     at = f"{doc['reference_hz']:g} Hz" if finite(doc.get("reference_hz")) is not None else ""
-    out = [Figure("zout_ohms", "output impedance", finite(doc.get("zout_ohms")), "ohm", "lower", at=at, headline=True),
+    out = [Figure("zout_ohms", "output impedance", finite(doc.get("zout_ohms")), "ohm", "lower", at=at,
+                  headline=True).of(doc, "zout_ohms"),
            Figure("damping_factor", "damping factor", finite(doc.get("damping_factor")), "", "higher", at=at,
-                  headline=True)]
-    for p in doc.get("points") or []:
+                  headline=True).of(doc, "damping_factor")]
+    for i, p in enumerate(doc.get("points") or []):
         f = finite(p.get("frequency_hz"))
         if f is not None:
             out.append(Figure(f"zout_ohms@{f:.4g}Hz", "output impedance", finite(p.get("zout_ohms")), "ohm", "lower",
-                              at=f"{quantity(f, 'Hz', 4)}"))
+                              at=f"{quantity(f, 'Hz', 4)}").of(doc, "points.zout_ohms", i))
     return out

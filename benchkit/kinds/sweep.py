@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 
 from benchkit import capture, units
-from benchkit.analysis import response as resp, sweep as sw
+from benchkit.analysis import response as resp, sweep as sw, uncertainty as ua
 from benchkit.analysis.response import response_figures, response_readings
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.errors import BenchkitError, BenchWarning
@@ -105,8 +105,9 @@ def _profile_gain(freqs: np.ndarray, cal: dict) -> np.ndarray | None:
 
 
 def _finish(method, freqs, h_fs, curves, thd, thdn, rec: Recording, ref: _Reference, reference_hz, load_ohms,
-            band, warnings, info) -> resp.ResponseResult:
-    """Turn output/reference ratios into the reported magnitude and phase."""
+            band, warnings, info, rel_u=None) -> resp.ResponseResult:
+    """Turn output/reference ratios into the reported magnitude and phase
+    (``rel_u``: their relative standard uncertainty, type A)."""
     warnings = list(warnings)
     out_vpf = rec.channel_scale()[0]
     cal = rec.sidecar.get("calibration") or {}
@@ -141,7 +142,8 @@ def _finish(method, freqs, h_fs, curves, thd, thdn, rec: Recording, ref: _Refere
         mag = mag - ref_level
         mag_units = f"dB re the level at {reference_hz:g} Hz"
     return resp.ResponseResult(method, freqs, np.asarray(mag, float), phase, tuple(curves), thd, thdn, source,
-                               mag_units, reference_hz, load_ohms, band, tuple(warnings), info)
+                               mag_units, reference_hz, load_ohms, band, tuple(warnings), info,
+                               None if rel_u is None else ua.db_from_rel(np.asarray(rel_u, float)))
 
 
 def _info(rec: Recording, ref: _Reference, ref_channel) -> dict:
@@ -338,13 +340,14 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
                         "where k f falls on them (a sweep cannot tell them from distortion; stepped sines can)"))
     thd = resp.thd_db_from_harmonics(tuple(curves), freqs.size)
     thd[blanked] = np.nan  # a sum with an order missing
-    return _finish("sweep", freqs, h, curves, thd, None, rec, ref, reference_hz, load_ohms, band, warnings, info)
+    return _finish("sweep", freqs, h, curves, thd, None, rec, ref, reference_hz, load_ohms, band, warnings, info,
+                   got.linear_rel_u)
 
 
 def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
     rate = rec.sample_rate_hz
     segs = rec.sidecar["stimulus"].get("segments") or []
-    freqs, h, thd, thdn, warnings = [], [], [], [], list(rec.all_warnings())
+    freqs, h, thd, thdn, warnings, rel_u = [], [], [], [], list(rec.all_warnings()), []
     buried = 0
     levels = {k: [] for k in HARMONIC_ORDERS}
     for seg in segs:
@@ -369,6 +372,8 @@ def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
             den = units.ratio_from_db(drive) * np.exp(1j * (2 * np.pi * f0 * (lo - start) / rate - np.pi / 2))
         freqs.append(f0)
         h.append(r.fundamental_fs * np.exp(1j * np.radians(r.fundamental_phase_deg)) / den)
+        rel_u.append(math.hypot(*(ua.rel_from_db(((t.uncertainty or {}).get("standard") or {}).get("fundamental_dbfs")
+                                                 or 0.0) for t in ((r, q) if ref.samples is not None else (r,))), 0.0))
         # distortion against frequency: fundamentals in the band, harmonics in it
         lo, top = band if band else (0.0, 0.45 * rate)
         in_band = lo <= f0 and 2 * f0 <= top
@@ -391,7 +396,7 @@ def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
     curves = [resp.HarmonicCurve(k, f[order], np.array(v)[order]) for k, v in levels.items()]
     info = _info(rec, ref, ref_channel)
     return _finish("stepped", f[order], np.array(h)[order], curves, np.array(thd)[order], np.array(thdn)[order],
-                   rec, ref, reference_hz, load_ohms, band, warnings, info)
+                   rec, ref, reference_hz, load_ohms, band, warnings, info, np.array(rel_u)[order])
 
 
 def response_run(

@@ -9,12 +9,15 @@ sweep runs, one unloaded and one loaded) taken from their stored results.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Callable, ClassVar
 
 
+from benchkit.analysis import uncertainty as ua
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
+from benchkit.analysis.uncertainty import Chain
 from benchkit.analysis.zout import analyze_zout, phasor, Reading, zout_figures, ZoutResult
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Analysed, Kind, Live, Measured, RunParams
@@ -43,9 +46,12 @@ def readings_of_capture(path: Path, channel: int = 1, ref_channel: int | None = 
     if ref_channel is None:
         ref_channel = next((c["number"] for c in rec.sidecar.get("channels") or []
                             if str(c.get("role", "")).startswith("reference")), None)
+    def rel(r) -> float:  # a fitted level's type-A relative uncertainty
+        return ua.rel_from_db(((r.uncertainty or {}).get("standard") or {}).get("fundamental_dbfs") or 0.0)
+
     if ref_channel is None:
-        return [Reading(s.result.fundamental_hz, complex(s.result.fundamental_fs), s.drive_dbfs, s.result.valid)
-                for s in steps.steps]
+        return [Reading(s.result.fundamental_hz, complex(s.result.fundamental_fs), s.drive_dbfs, s.result.valid,
+                        rel_u=rel(s.result)) for s in steps.steps]
     out = []
     takes = Takes(rec)
     for seg, s in zip(rec.sidecar["stimulus"]["segments"], steps.steps):
@@ -53,7 +59,7 @@ def readings_of_capture(path: Path, channel: int = 1, ref_channel: int | None = 
                          fundamental_hz=s.result.fundamental_hz, bandwidth_hz=bandwidth_hz)
         phase = s.result.fundamental_phase_deg - r.fundamental_phase_deg
         out.append(Reading(s.result.fundamental_hz, phasor(s.result.fundamental_fs / r.fundamental_fs, phase),
-                           s.drive_dbfs, s.result.valid and r.valid, True))
+                           s.drive_dbfs, s.result.valid and r.valid, True, math.hypot(rel(s.result), rel(r))))
     return out
 
 
@@ -83,8 +89,9 @@ def zout_of_captures(folder: Path, load_ohms: float, open_load_ohms: float | Non
         if not path.exists():
             path = recover_capture(folder, state)
         got.append(readings_of_capture(path, channel, ref_channel, bandwidth_hz))
-    cal = read_capture(folder / f"{STATES[0]}.wav").sidecar.get("calibration")
-    return replace(analyze_zout(got[0], got[1], load_ohms=load_ohms, open_load_ohms=open_load_ohms), calibration=cal)
+    rec = read_capture(folder / f"{STATES[0]}.wav")
+    return replace(analyze_zout(got[0], got[1], load_ohms=load_ohms, open_load_ohms=open_load_ohms,
+                                load_rel=rec.chain().load), calibration=rec.sidecar.get("calibration"))
 
 
 def zout_run(backend, folder: Path, load_ohms: float, frequencies_hz, level_dbfs: float,
@@ -133,8 +140,10 @@ def analyse_pair(open_path: Path, loaded_path: Path, channel: int, ref_channel: 
             got.append(readings_of_capture(Path(path), channel, ref_channel, bandwidth_hz))
         else:
             r = analyze_tone(rec.samples, rec.sample_rate_hz, bandwidth_hz=bandwidth_hz)
-            got.append([Reading(r.fundamental_hz, complex(r.fundamental_fs), None, r.valid)])
-    result = analyze_zout(got[0], got[1], load_ohms=load_ohms, open_load_ohms=open_load_ohms)
+            got.append([Reading(r.fundamental_hz, complex(r.fundamental_fs), None, r.valid,
+                                rel_u=ua.rel_from_db(r.uncertainty["standard"]["fundamental_dbfs"]))])
+    result = analyze_zout(got[0], got[1], load_ohms=load_ohms, open_load_ohms=open_load_ohms,
+                          load_rel=read_capture(open_path, channel).chain().load)
     doc = {**result.to_dict(), "files": [str(open_path), str(loaded_path)]}
     return Analysed(doc, report.zout_summary(doc, f"output impedance: {open_path} (open), {loaded_path} (loaded)"),
                     lambda out: report.zout_reports(result, Path(loaded_path).parent, out))
@@ -162,7 +171,8 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
         from benchkit.jsonfile import load_json
 
         docs = [load_json(folder / f"{state}.result.json") for state in ("open", "loaded")]
-        result = analyze_zout(*(readings_of_result(d) for d in docs), load_ohms=load, open_load_ohms=open_load)
+        result = analyze_zout(*(readings_of_result(d) for d in docs), load_ohms=load, open_load_ohms=open_load,
+                              load_rel=Chain.load_rel(None))
     else:
         result = zout_of_captures(folder, load, open_load, int(p.channel or 1), p.ref_channel)
     return result.to_dict(), reports(result, folder)
@@ -226,7 +236,8 @@ def from_runs(o: dict, say):
     with bench_logbook(o) as (book, labels):
         entries = [book.entry(r) for r in o["from_runs"]]
         docs = [stored_result(book, e)[1] for e in entries]
-        result = analyze_zout(*(readings_of_result(d) for d in docs), load_ohms=o["load"], open_load_ohms=o["open_load"])
+        result = analyze_zout(*(readings_of_result(d) for d in docs), load_ohms=o["load"], open_load_ohms=o["open_load"],
+                              load_rel=Chain.load_rel(None))
         params = {"from": [e.id for e in entries], "load_ohms": o["load"], "open_load_ohms": o["open_load"]}
         with start_run(book, labels, "zout", "logbook", None, None, params, say) as run:
             copies = [write_json(d, run.folder / f"{state}.result.json") for d, state in zip(docs, ("open", "loaded"))]

@@ -3,6 +3,8 @@ calibration profile's (each kind's own in ``report/NAME.py``)."""
 
 from __future__ import annotations
 
+import math
+
 from benchkit.units import quantity
 
 
@@ -24,8 +26,9 @@ def change_text(d, k: int) -> str:
         return "-"
     unit = d.unit if d.unit in ("dB", "dBc", "dBFS", "%") else ""
     big = d.change_u(k)
-    if unit:
-        text = f"{ch:+.2f}" + (f" +- {big:.2f}" if big is not None else "") + f" {unit}"
+    if unit:  # to the uncertainty's two significant digits, at least to 0.01
+        places = 2 if not big else max(2, min(6, 1 - math.floor(math.log10(big))))
+        text = f"{ch:+.{places}f}" + (f" +- {big:.{places}f}" if big is not None else "") + f" {unit}"
     else:
         text = ("+" if ch >= 0 else "-") + quantity(abs(ch), d.unit, 3) + (
             f" +- {quantity(big, d.unit, 2)}" if big is not None else "")
