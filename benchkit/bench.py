@@ -132,16 +132,14 @@ def takes(run, kind, s: "Bench", n: int, say) -> Filed:
 def takes_summary(doc: dict, figures_of) -> str:
     """The mean of repeated takes on one screen: its figures that have an
     uncertainty, each ``value +- U`` (k = 2) and what dominates it."""
-    from benchkit.analysis.uncertainty import shown, shown_quantity
+    from benchkit.report.summary import figure_name, figure_shown
 
     n = (doc.get("takes") or {}).get("count", 1)
     lines = [f"mean of {n} takes (+- is the expanded uncertainty, k = 2: their scatter or their own noise, whichever "
              "is larger)"]
     figures = [f for f in (figures_of(doc) if figures_of else []) if f.u is not None and f.value is not None]
     for f in ([f for f in figures if f.headline] + [f for f in figures if not f.headline])[:14]:
-        value = (f"{shown(f.value, f.u)} {f.unit}" if f.unit in ("dB", "dBc", "dBFS", "%")
-                 else shown_quantity(f.value, f.u, f.unit))
-        lines.append(f"  {f.label}{f' ({f.at})' if f.at and f.at not in f.label else ''}: {value}")
+        lines.append(f"  {figure_name(f)}: {figure_shown(f)}")
     return "\n".join(lines)
 
 

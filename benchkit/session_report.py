@@ -20,6 +20,7 @@ from benchkit import kinds
 from benchkit.errors import BenchkitError
 from benchkit.logbook import Logbook
 from benchkit.recordings import write_text_atomic
+from benchkit.report.summary import figure_shown
 
 #: the page's own look: plain, printable
 _STYLE = """
@@ -111,11 +112,11 @@ def _run(book: Logbook, step: dict) -> str:
         return f'<section class="run"><h3>{_e(title)}</h3><p>{_e(exc)}</p></section>'
     figures = kinds.figures_of(doc)
     shown = [f for f in figures if f.headline] + [f for f in figures if not f.headline and f.better][:10]
-    body = [[_e(f.label), _e(f.at), f"{_value(f.value, f.unit)}"] for f in shown]
+    body = [[_e(f.label), _e(f.at), _e(figure_shown(f))] for f in shown]
     pngs = [entry.folder / name for name in record.get("files") or []
             if name.endswith(".png") and "-drive-" not in name and (entry.folder / name).exists()]
     return (f'<section class="run"><h3>{_e(title)}</h3><p class="conditions">run {_e(entry.id)}, {_e(entry.status)}, '
-            f"{_e(entry.started)}</p>" + (_table(["figure", "at", "value"], body, {2}) if body else "")
+            f"{_e(entry.started)}</p>" + (_table(["figure", "at", "value (+- U, k = 2)"], body, {2}) if body else "")
             + _conditions(doc) + _warnings(doc) + "".join(_image(p) for p in pngs) + "</section>")
 
 

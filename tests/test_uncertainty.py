@@ -336,3 +336,32 @@ def test_a_crosstalk_reads_uncertainty_matches_its_scatter():
         got.append(x.crosstalk_db)
         reported.append(x.budget.u)
     assert np.std(got, ddof=1) == pytest.approx(np.sqrt(np.mean(np.square(reported))), rel=0.15)
+
+
+def test_the_calibration_chain_reaches_every_runs_volts_and_watts(tmp_path):
+    # a profile made with a 1.8k:200 pad of 1 % resistors into the virtual interface's 10 k input, a
+    # voltmeter of +-0.5 % and a load of +-1 %; a tone run with it: its volts carry the voltmeter
+    # (0.5 % / sqrt 3, JCGM 100 4.3.7) and the loaded divider's ratio (each resistor 1 % / sqrt 3,
+    # through numerical partial derivatives of (R1 + R2 || Rin) / (R2 || Rin), JCGM 100 5.1.2), its
+    # watts twice the volts' relative u and the load's (5.1.6)
+    profile = tmp_path / "profile.json"
+    res = run_cli("calibrate", "--reading", "0.14142V", "--pad", "1.8k:200", "--pad-tolerance", "1", "--load-tolerance",
+                  "1", "--voltmeter-pct", "0.5", "--file", str(profile))
+    assert res.returncode == 0, res.stderr
+
+    def ratio(r1, r2, rin=10e3):
+        r2p = r2 * rin / (r2 + rin)
+        return (r1 + r2p) / r2p
+
+    k = ratio(1800.0, 200.0)
+    partials = [(ratio(1800.0 * (1 + 1e-6), 200.0) - k) / (1800.0 * 1e-6), (ratio(1800.0, 200.0 * (1 + 1e-6)) - k) / (200.0 * 1e-6)]
+    pad = math.hypot(partials[0] * 1800.0 * 0.01 / math.sqrt(3), partials[1] * 200.0 * 0.01 / math.sqrt(3)) / k
+    volts = math.hypot(0.005 / math.sqrt(3), pad)
+    doc = _measure(tmp_path / "bench", "tone", "--level", "-20dBFS", "--load", "8", "--calibration", str(profile))
+    u, step = doc["uncertainty"], doc["steps"][0]
+    assert u["standard"]["steps.fundamental_vrms"][0] / step["fundamental_vrms"] == pytest.approx(volts, rel=0.01)
+    assert u["standard"]["steps.power_w"][0] / step["power_w"] == pytest.approx(math.hypot(2 * volts, 0.01 / math.sqrt(3)),
+                                                                                rel=0.01)
+    assert u["dominant"]["steps.power_w"][0] == "pad" and u["shared"]["steps.power_w"][0] > 0.99 * u["standard"]["steps.power_w"][0]
+    # ratios do not see the scale: THD+N's u is the noise's alone
+    assert "steps.thdn_db" not in (u.get("shared") or {})

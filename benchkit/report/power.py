@@ -11,6 +11,7 @@ from matplotlib.figure import Figure
 from benchkit.report.files import result_csv_png
 from benchkit.report.plots import FAINT, MARK, readable_log, save_png, TRACE
 from benchkit.report.summary import first_half
+from benchkit.analysis.uncertainty import shown_quantity
 from benchkit.units import quantity
 
 
@@ -19,16 +20,24 @@ def power_summary(r, title: str = "") -> str:
     beside expected when the stage is described."""
     metric = "THD+N" if r.metric == "thdn" else "THD"
     lines = [title] if title else []
-    for lim, pt in r.limits:
+    block = r.uncertainty()
+    u = block.get("standard") or {}
+    named = block.get("dominant") or {}
+    for i, (lim, pt) in enumerate(r.limits):
         if pt is None:
             lines.append(f"  at {lim:g} % {metric}".ljust(22) + "not reached")
         else:
             s0, s1 = r.steps[pt.below], r.steps[pt.above]
-            lines.append(f"  at {lim:g} % {metric}".ljust(22) + f"{quantity(pt.power_w, 'W')} ({quantity(pt.vrms, 'Vrms', 4)}), "
+            ui = (u.get("limits.power_w") or [None] * len(r.limits))[i]
+            lead = (named.get("limits.power_w") or [None] * len(r.limits))[i]
+            lines.append(f"  at {lim:g} % {metric}".ljust(22) + f"{shown_quantity(pt.power_w, ui, 'W')} "
+                         f"({quantity(pt.vrms, 'Vrms', 4)}{f'; the {lead} dominates' if lead else ''}), "
                          f"between the {s0.drive_dbfs:.2f} and {s1.drive_dbfs:.2f} dBFS steps")
     if r.onset is not None:
-        lines.append(f"  clipping onset       {quantity(r.onset.power_w, 'W')} ({quantity(r.onset.vrms, 'Vrms', 4)}, "
-                     f"THD+N {r.onset.departure_db:g} dB over its low-level trend)")
+        lines.append(f"  clipping onset       {shown_quantity(r.onset.power_w, u.get('clipping_onset_w'), 'W')} "
+                     f"({quantity(r.onset.vrms, 'Vrms', 4)}, THD+N {r.onset.departure_db:g} dB over its low-level trend)")
+    if u:
+        lines.append("  (+- is the expanded uncertainty, k = 2)")
     if r.half:
         lines.append(f"  clipping half        {r.half}")
     eff = r.efficiency_pct

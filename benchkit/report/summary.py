@@ -14,6 +14,17 @@ def figure_value(v, unit: str) -> str:
     return f"{v:.2f} {unit}" if unit in ("dB", "dBc", "dBFS", "%") else f"{quantity(v, unit)}"
 
 
+def figure_shown(f) -> str:
+    """A comparable figure's value with its expanded uncertainty (k = 2) when it has one."""
+    from benchkit.analysis.uncertainty import shown, shown_quantity
+
+    if f.value is None:
+        return "-"
+    if f.unit in ("dB", "dBc", "dBFS", "%"):
+        return f"{shown(f.value, f.u)} {f.unit}" + (" (a bound)" if f.bound else "")
+    return shown_quantity(f.value, f.u, f.unit) if f.u is not None else figure_value(f.value, f.unit)
+
+
 def figure_name(d) -> str:
     """A compared figure's name: its label, and where it was read when the label does not say."""
     return f"{d.label} ({d.at})" if d.at and d.at not in d.label else d.label

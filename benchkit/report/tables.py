@@ -48,19 +48,27 @@ def write_json(doc, path: Path) -> Path:
 
 
 def write_deltas_csv(c, path: Path) -> Path:
-    """A comparison, one row a figure: its value in each run, the change
-    from the first run and the verdict (better, worse, same)."""
+    """A comparison, one row a figure: its value and standard uncertainty
+    in each run, the change from the first run, the change's expanded
+    uncertainty (at the comparison's coverage factor) and the verdict
+    (better, worse, within uncertainty, in the noise; same, where the
+    uncertainty is not known)."""
     labels = list(c.labels)
+    n = len(labels)
     with path.open("w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
         w.writerow(["figure", "at", "unit", "better_when", *(f"value [{k}] {lab}" for k, lab in enumerate(labels)),
-                    *(f"change [{k}]-[0]" for k in range(1, len(labels))),
-                    *(f"verdict [{k}]" for k in range(1, len(labels)))])
+                    *(f"u [{k}]" for k in range(n)), *(f"change [{k}]-[0]" for k in range(1, n)),
+                    *(f"U of change [{k}] (k={c.coverage:.3g})" for k in range(1, n)),
+                    *(f"verdict [{k}]" for k in range(1, n))])
         for d in c.deltas:
+            us = list(d.us) + [None] * (n - len(d.us))
             w.writerow([d.name, d.at, d.unit, d.better or "",
                         *("" if v is None else f"{v:.6g}" for v in d.values),
+                        *("" if u is None else f"{u:.3g}" for u in us),
                         *("" if ch is None else f"{ch:+.6g}" for ch in d.changes),
-                        *(d.verdict(k) or "" for k in range(1, len(labels)))])
+                        *("" if d.change_u(k) is None else f"{d.change_u(k):.3g}" for k in range(1, n)),
+                        *(d.verdict(k) or "" for k in range(1, n))])
     return path
 
 

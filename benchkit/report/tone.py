@@ -114,17 +114,19 @@ def _harmonic_cell(h) -> str:
 def steps_summary(steps, title: str = "") -> str:
     """A stepped-tone run as a table: one line per step."""
     lines = [title] if title else []
-    lines.append("  drive dBFS    level        power      THD+N %    THD+N dB      H2 dBc      H3 dBc")
+    lines.append("  drive dBFS    level        power      THD+N %    THD+N dB (+- U)      H2 dBc      H3 dBc")
     for s in steps.steps:
         r = s.result
         by_order = {h.order: h for h in r.harmonics}
         level = quantity(r.fundamental_vrms, "Vrms") if r.fundamental_vrms is not None else f"{r.fundamental_dbfs:.2f} dBFS"
         power = quantity(r.power_w, "W") if r.power_w is not None else "-"
         mark = "" if r.valid else ("   NOT VALID (clipped capture)" if r.clipped else "   NOT VALID (see the warnings)")
+        thdn = shown(r.thdn_db, ((r.uncertainty or {}).get("standard") or {}).get("thdn_db"))
         lines.append(
-            f"  {s.drive_dbfs:9.2f}   {level:>11}  {power:>10}  {r.thdn_pct:9.4g}  {r.thdn_db:9.2f}  "
+            f"  {s.drive_dbfs:9.2f}   {level:>11}  {power:>10}  {r.thdn_pct:9.4g}  {thdn:>18}  "
             f"{_harmonic_cell(by_order.get(2)):>10}  {_harmonic_cell(by_order.get(3)):>10}{mark}"
         )
+    lines.append("  (U: the expanded uncertainty, k = 2)")
     seen = set()
     for w in list(steps.warnings) + [w for s in steps.steps for w in s.result.warnings]:
         if w not in seen:
