@@ -92,5 +92,5 @@ def watch_figures(doc: dict) -> list[Figure]:
     """A watch: the last reading of each figure (where the adjustment ended)."""
     better = {"thdn_db": "lower", "thd_db": "lower", "h2_dbc": "lower", "h3_dbc": "lower", "noise_dbfs": "lower"}
     return [Figure(key, f"{f['label']}, last reading", finite(f.get("last")), f["unit"], better.get(key),
-                   headline=key == "thdn_db")
+                   headline=key == "thdn_db").of(doc, f"figures.{key}.last")
             for key, f in (doc.get("figures") or {}).items()]

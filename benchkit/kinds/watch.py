@@ -30,6 +30,7 @@ from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.spectrum import WINDOW_NAME
 from benchkit.analysis.readings import FIGURES, Reading, watch_figures
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
+from benchkit.analysis.uncertainty import Budget, Collector
 from benchkit.capture import FAULT_ADVICE, HearsFaults
 from benchkit.errors import BenchWarning, BenchkitError
 from benchkit.kinds import Kind, RunParams, series_from_csv
@@ -247,6 +248,11 @@ class ReadingsLog:
         self._fh.close()
 
 
+#: The last reading's uncertainty is the scatter of this many last readings
+#: (where an adjustment ended, the stage steady).
+LAST_READINGS = 10
+
+
 def summarise(path: Path, info: dict | None = None) -> dict:
     """The result of a recorded watch, from its readings.csv: for each
     figure the first, last, minimum and maximum; how many readings, how
@@ -261,11 +267,14 @@ def summarise(path: Path, info: dict | None = None) -> dict:
         raise BenchkitError(f"{path}: no readings")
     figures = {}
     disturbed = sum(r.get("disturbed") == "true" for r in rows)
+    spread = Collector()
     for key, label, unit in FIGURES:
         vals = [float(r[key]) for r in rows if r.get(key) not in (None, "") and r.get("disturbed") != "true"]
         if vals:
             figures[key] = {"label": label, "unit": unit, "first": vals[0], "last": vals[-1], "min": min(vals),
                             "max": max(vals)}
+            if len(vals) >= 3:  # one reading's type A: the scatter of the last few (JCGM 100 4.2)
+                spread.put(f"figures.{key}.last", Budget.of(repeats=float(np.std(vals[-LAST_READINGS:], ddof=1))))
     t = [float(r["t_s"]) for r in rows]
     clipped = sum(r["clipped"] == "true" for r in rows)
     lost = sum(r["tone_lost"] == "true" for r in rows)
@@ -279,7 +288,8 @@ def summarise(path: Path, info: dict | None = None) -> dict:
                         f"figures ({FAULT_ADVICE})"))
     return document("watch", {**(info or {}), "readings": len(rows), "first_s": t[0], "last_s": t[-1],
                               "rate_per_s": (len(rows) - 1) / (t[-1] - t[0]) if t[-1] > t[0] else None,
-                              "figures": figures, "valid": not clipped, "warnings": warnings, "file": str(path)})
+                              "figures": figures, "valid": not clipped, "warnings": warnings, "file": str(path),
+                              "uncertainty": spread.block()})
 
 
 def check_dc_source(source, resource, backend, profile) -> None:

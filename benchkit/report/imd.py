@@ -12,6 +12,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
 from benchkit import units
+from benchkit.analysis.uncertainty import lookup, shown as with_u
 from benchkit.errors import read_warnings
 from benchkit.report import tables
 from benchkit.report.files import report_folder, stem_of
@@ -34,14 +35,15 @@ def imd_summary(d: dict, title: str = "") -> str:
     f1, f2 = d["tones_hz"]
     ref = "re f2" if d["method"] == "modulation" else "re f1 + f2"
     lines.append(f"  method       {d['method']}: {f1:g} Hz + {f2:g} Hz at {d['tone_ratio']:g}:1; products {ref}")
-    lines.append("  drive dBFS    peak at stage   IMD %      IMD dB   order 2 dB  order 3 dB")
-    for s in d["steps"]:
+    lines.append("  drive dBFS    peak at stage   IMD %     IMD dB (+- U)     order 2 dB  order 3 dB")
+    for i, s in enumerate(d["steps"]):
         peak = (quantity(s["peak_v"], "V") if s.get("peak_v") is not None
                 else f"{units.dbfs_from_peak(max(s['peak_fs'], 1e-12)):.2f} dBFS")
         o = s.get("orders") or {}
         mark = "" if s["valid"] else ("   NOT VALID (clipped capture)" if s["clipped"] else "   NOT VALID (see the warnings)")
         drive = "-" if s["drive_dbfs"] is None else f"{s['drive_dbfs']:.2f}"
-        lines.append(f"  {drive:>9}   {peak:>13}  {s['imd_pct']:9.4g}  {s['imd_db']:8.2f}  "
+        imd = with_u(s["imd_db"], lookup(d, "steps.imd_db", i))
+        lines.append(f"  {drive:>9}   {peak:>13}  {s['imd_pct']:9.4g}  {imd:>17}  "
                      f"{_order_cell(o.get('2')):>10}  {_order_cell(o.get('3')):>10}{mark}")
     valid = [s for s in d["steps"] if s["valid"]]
     if valid:

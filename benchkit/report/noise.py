@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 from matplotlib.figure import Figure
 
+from benchkit.analysis.uncertainty import lookup, shown, shown_quantity
 from benchkit.errors import read_warnings
 from benchkit.report.files import result_csv_png
 from benchkit.report.plots import BAND, FAINT, log_hz_axis, MARK, save_png, TRACE
@@ -22,11 +23,14 @@ def noise_summary(d: dict, title: str = "") -> str:
     lo, hi = d["bandwidth_hz"]
     band = f"{lo:g} Hz to {hi:g} Hz"
 
-    def level(v, db, dbfs):
-        return f"{quantity(v, 'Vrms')} ({db:.1f} dBV, {dbfs:.1f} dBFS)" if v is not None else f"{dbfs:.1f} dBFS"
+    def level(key):
+        v, dbfs, u = d[f"{key}_vrms"], d[f"{key}_dbfs"], lookup(d, f"{key}_vrms")
+        if v is None:
+            return f"{shown(dbfs, lookup(d, f'{key}_dbfs'), 1)} dBFS"
+        return f"{shown_quantity(v, u, 'Vrms')} ({d[f'{key}_dbv'] or 0:.1f} dBV, {dbfs:.1f} dBFS)"
 
-    lines.append(f"  unweighted   {level(d['noise_vrms'], d['noise_dbv'] or 0, d['noise_dbfs'])} over {band}")
-    lines.append(f"  A-weighted   {level(d['noise_a_vrms'], d['noise_a_dbv'] or 0, d['noise_a_dbfs'])}")
+    lines.append(f"  unweighted   {level('noise')} over {band}")
+    lines.append(f"  A-weighted   {level('noise_a')}   (+- is the expanded uncertainty, k = 2)")
     ref = d.get("snr_reference")
     if ref and d.get("snr_db") is not None:
         lines.append(f"  SNR          {d['snr_db']:.1f} dB, {d['snr_a_db']:.1f} dB A-weighted, re {ref['what']} "

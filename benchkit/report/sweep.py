@@ -11,6 +11,7 @@ from pathlib import Path
 import numpy as np
 from matplotlib.figure import Figure
 
+from benchkit.analysis.uncertainty import lookup, shown_quantity
 from benchkit.report import tables
 from benchkit.report.files import report_folder, stem_of
 from benchkit.report.overlays import colour, finish_overlay
@@ -22,8 +23,8 @@ def response_summary(r, title: str = "") -> str:
     """The derived figures of a frequency response, one screen."""
     d = r.to_dict()
 
-    def hz(v):
-        return "beyond the measured range" if v is None else f"{quantity(v, 'Hz', 4)}"
+    def hz(v, key=None):
+        return "beyond the measured range" if v is None else shown_quantity(v, lookup(d, key) if key else None, "Hz")
 
     def db(v):
         return "not measured" if v is None else f"{v:+.2f} dB"
@@ -32,8 +33,9 @@ def response_summary(r, title: str = "") -> str:
     lines += [
         f"  method       {r.method}, referred by {r.scale_source}; magnitude in {r.mag_units}",
         f"  at {r.reference_hz:g} Hz   {r.ref_db:+.2f} dB",
-        f"  -3 dB        {hz(d['low_3db_hz'])} and {hz(d['high_3db_hz'])}",
-        f"  -1 dB        {hz(d['low_1db_hz'])} and {hz(d['high_1db_hz'])}",
+        f"  -3 dB        {hz(d['low_3db_hz'], 'low_3db_hz')} and {hz(d['high_3db_hz'], 'high_3db_hz')}"
+        + ("   (+- is the expanded uncertainty, k = 2)" if (d.get("uncertainty") or {}).get("standard") else ""),
+        f"  -1 dB        {hz(d['low_1db_hz'], 'low_1db_hz')} and {hz(d['high_1db_hz'], 'high_1db_hz')}",
         f"  ripple       {'not measured' if d['ripple_db'] is None else format(d['ripple_db'], '.2f') + ' dB peak to peak'}",
         f"  20 Hz, 20 kHz {db(d['level_20hz_db'])}, {db(d['level_20khz_db'])}",
     ]
