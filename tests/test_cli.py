@@ -10,6 +10,9 @@ from __future__ import annotations
 import csv
 import json
 import math
+import os
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -211,3 +214,18 @@ def test_a_stream_written_capture_survives_a_lost_header_update(tmp_path):
     data, rate = sf.read(str(path))
     assert rate == RATE and data.shape == (1500, 2) and data[0, 0] == 0.25
     w.close()
+
+
+def test_shell_completion_completes_commands_and_options():
+    # typer's completion (click's protocol: the shell passes the words in COMP_WORDS): a command
+    # from its start, an option of it from its start; and the script a shell installs
+    exe = Path(sys.executable).with_name("benchkit")
+    env = {**os.environ, "_BENCHKIT_COMPLETE": "complete_bash"}
+    got = subprocess.run([str(exe)], env={**env, "COMP_WORDS": "benchkit lo", "COMP_CWORD": "1"}, capture_output=True,
+                         text=True, timeout=60)
+    assert got.stdout.split() == ["log"]
+    got = subprocess.run([str(exe)], env={**env, "COMP_WORDS": "benchkit tone --lo", "COMP_CWORD": "2"},
+                         capture_output=True, text=True, timeout=60)
+    assert "--load" in got.stdout.split()
+    script = subprocess.run([str(exe), "--show-completion", "bash"], capture_output=True, text=True, timeout=60)
+    assert "_BENCHKIT_COMPLETE" in script.stdout and script.returncode == 0

@@ -18,7 +18,7 @@ from benchkit.errors import BenchkitError
 
 
 app = typer.Typer(
-    add_completion=False,
+    add_completion=True,
     no_args_is_help=True,
     pretty_exceptions_enable=False,
     help="benchkit: a calibrated bench analyzer for audio amplifier stages.",
