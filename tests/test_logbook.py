@@ -381,3 +381,15 @@ def test_drift_logs_compare_on_their_settled_value(tmp_path):
     settled = {d["name"]: d for d in comp["deltas"]}["settled_v"]
     assert comp["of"] == "drift" and settled["better"] == "nearer" and len(settled["values"]) == 2
     assert (Path(comp["folder"]) / "overlay.png").read_bytes()[:4] == b"\x89PNG"
+
+
+def test_log_show_prints_quantities_as_a_person_reads_them(tmp_path):
+    # a stored option and a figure through the one quantity formatter: 2.828 Vrms, not 2.8284271247461903;
+    # microvolts, not an exponent
+    bench = tmp_path / "bench"
+    _json(run_cli("noise", "--duration", "1", "--load", "8", "--bench", str(bench), "--json"))
+    text = run_cli("log", "show", "last", "--bench", str(bench))
+    shown = text.stdout + text.stderr
+    assert "reference_vrms=2.828 Vrms" in shown and "bandwidth_hz=[20 Hz, 20 kHz]" in shown
+    figure = next(line for line in shown.splitlines() if "noise_a_vrms =" in line)
+    assert "uVrms" in figure and "e-0" not in figure

@@ -52,6 +52,23 @@ def runs_lines(entries) -> list[str]:
     return lines
 
 
+#: a stored option's unit, from the end of its key
+KEY_UNITS = (("_vrms", "Vrms"), ("_vpk", "V"), ("_hz", "Hz"), ("_ohms", "ohm"), ("_dbfs", "dBFS"), ("_db", "dB"),
+             ("_pct", "%"), ("_w", "W"), ("_v", "V"), ("_a", "A"), ("_s", "s"))
+
+
+def param_text(key: str, value) -> str:
+    """A stored option as a person reads it: a number in the unit its key
+    ends in, through the one quantity formatter (``reference_vrms`` 2.828
+    Vrms, not 2.8284271247461903); a list item by item."""
+    if isinstance(value, list):
+        return "[" + ", ".join(param_text(key, v) for v in value) + "]"
+    if isinstance(value, float):
+        unit = next((u for end, u in KEY_UNITS if key.endswith(end)), "")
+        return quantity(value, unit) if unit else quantity(value, "")
+    return str(value)
+
+
 def run_lines(entry, record: dict) -> list[str]:
     """One run in full: when, what, the device and the calibration, the
     stage, tags, note, options, figures, warnings (with their codes), the
@@ -66,8 +83,8 @@ def run_lines(entry, record: dict) -> list[str]:
         lines.append("  tags         " + " ".join(f"{k}={v}" for k, v in entry.tags.items()))
     if entry.note:
         lines.append("  note         " + entry.note.replace("\n", "\n               "))
-    lines.append("  options      " + ", ".join(f"{k}={v}" for k, v in (record.get("params") or {}).items()))
-    lines += [f"  figure       {f['name']} = {f['value']:.6g} {f['unit']}" + (f" ({f['at']})" if f.get("at") else "")
+    lines.append("  options      " + ", ".join(f"{k}={param_text(k, v)}" for k, v in (record.get("params") or {}).items()))
+    lines += [f"  figure       {f['name']} = {quantity(f['value'], f['unit'])}" + (f" ({f['at']})" if f.get("at") else "")
               if f["value"] is not None else f"  figure       {f['name']}: not measured" for f in record.get("figures") or []]
     lines += [f"  warning      {w} [{w.code}]" for w in read_warnings(record.get("warnings"))]
     if record.get("error"):
