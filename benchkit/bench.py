@@ -111,7 +111,7 @@ def takes(run, kind, s: "Bench", n: int, say) -> Filed:
     result is their mean, their scatter its type-A uncertainty
     (benchkit.analysis.repeats). A take cut short ends the takes: the
     mean is of those complete (one: that take's result)."""
-    docs, files, status, ended = [], [], "complete", None
+    docs, files, status, ended, partial = [], [], "complete", None, None
     for k in range(1, n + 1):
         folder = run.folder / kinds.TAKE.format(k)
         folder.mkdir(parents=True, exist_ok=True)
@@ -121,10 +121,10 @@ def takes(run, kind, s: "Bench", n: int, say) -> Filed:
         files += kind.reports(got.result, folder, s.channel, **got.report) + list(got.files)
         if got.status == "complete" and got.ended is None:
             docs.append(got.result.to_dict())
-        if got.status != "complete" or got.ended is not None:
-            status, ended = ("interrupted" if docs else got.status), got.ended
+        else:  # a take cut short ends the takes; alone, what it measured is the run's result
+            status, ended, partial = ("interrupted" if docs else got.status), got.ended, got.result.to_dict()
             break
-    doc = kinds.mean_of_takes(run.folder, docs)
+    doc = kinds.mean_of_takes(run.folder, docs or [partial])
     say(takes_summary(doc, kind.figures))
     return complete(run, doc, [run.folder / kinds.TAKES_RESULT, *files], say, status, ended)
 

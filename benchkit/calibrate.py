@@ -161,6 +161,7 @@ def calibrate(
             "repeatability_db": repeat_db,
             "total_db": math.hypot(volt_db, repeat_db),
             "load_tolerance_pct": load_tolerance_pct,
+            "repeatability_reads": int(amps.size),
         },
         created=datetime.now(timezone.utc).isoformat(timespec="seconds"),
         note=note,

@@ -8,6 +8,8 @@ renderer once the figure is drawn.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 from matplotlib.backends.backend_agg import FigureCanvasAgg
@@ -63,3 +65,19 @@ def test_log_axes_label_decades_not_every_minor_tick(x, y):
         assert shown, axis  # every axis still says what it reads
         for text in shown:  # only mantissas of 1, 2, 3 and 5 are labelled
             assert f"{float(text):.1e}"[0] in "1235", (axis, shown)
+
+
+def test_a_runs_plots_are_titled_by_its_stage_and_tags_not_its_file(tmp_path):
+    # a logged run names the stage (--stage-info name=...) and its tags; a file made elsewhere keeps its name
+    import json
+
+    from benchkit.report.files import title_of
+
+    from conftest import run_cli
+
+    res = run_cli("tone", "--level", "-20dBFS", "--tag", "bias=1.2A", "--stage-info", "name=Stage X-1", "--bench",
+                  str(tmp_path / "bench"), "--json")
+    assert res.returncode == 0, res.stderr
+    folder = Path(json.loads(res.stdout)["run"]["folder"])
+    assert title_of(folder / "capture.wav") == "Stage X-1; bias=1.2A"
+    assert title_of(tmp_path / "elsewhere.wav") == "elsewhere.wav"

@@ -365,3 +365,37 @@ def test_the_calibration_chain_reaches_every_runs_volts_and_watts(tmp_path):
     assert u["dominant"]["steps.power_w"][0] == "pad" and u["shared"]["steps.power_w"][0] > 0.99 * u["standard"]["steps.power_w"][0]
     # ratios do not see the scale: THD+N's u is the noise's alone
     assert "steps.thdn_db" not in (u.get("shared") or {})
+
+
+def test_a_crowded_or_unknown_uncertainty_is_never_a_zero():
+    # harmonics too close for noise bins between them (a 0.1 s record of 100 Hz): the band's noise
+    # taken as white gives every read an uncertainty, not 0
+    rng = np.random.default_rng(1)
+    t = np.arange(4800) / 48000
+    r = benchkit.analyze_tone(0.5 * np.sin(2 * np.pi * 100 * t) + 0.005 * np.sin(2 * np.pi * 200 * t)
+                              + rng.normal(0, 1e-4, t.size), 48000)
+    u = r.uncertainty["standard"]
+    assert u["thd_db"] > 0 and u["thdn_db"] > 0 and u["harmonics.level_dbc"][0] > 0
+    # readings whose own uncertainty is not known give an output impedance with none (not 0)
+    from benchkit.analysis.zout import Reading, analyze_zout
+
+    z = analyze_zout([Reading(1000.0, 1.0)], [Reading(1000.0, 0.975)], load_ohms=8.0).to_dict()["uncertainty"]
+    assert "zout_ohms" not in z["standard"] and z["standard"]["points.zout_ohms"] == [None]
+
+
+def test_what_is_left_of_a_shared_part_follows_the_change():
+    # a 3 % relative error common to both runs moves 100 W by 3 W and 130 W by 3.9 W: their difference
+    # keeps 0.9 W of it (JCGM 100 5.2 with the sensitivities of a ratio)
+    d = Delta("power_w", "power", "W", "", (100.0, 130.0), "higher", us=(math.hypot(0.1, 3.0), math.hypot(0.1, 3.9)),
+              shared=(3.0, 3.9), coverage=2.0)
+    assert d.change_u(1) == pytest.approx(2 * math.sqrt(0.1**2 + 0.1**2 + 0.9**2))
+
+
+def test_the_mean_of_takes_keeps_a_clipped_take_and_counts_as_it_found_them():
+    from benchkit.analysis.repeats import mean_document
+
+    takes = [{"kind": "tone", "clipped": c, "valid": not c, "steps_played": 12, "thdn_db": -60.0 + 0.1 * i}
+             for i, c in enumerate((False, True, False))]
+    mean = mean_document(takes)
+    assert mean["clipped"] is True and mean["valid"] is False and mean["steps_played"] == 12
+    assert mean["thdn_db"] == pytest.approx(-59.9)

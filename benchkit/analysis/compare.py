@@ -190,7 +190,10 @@ class Delta:
             return None
         var = self.us[0] ** 2 + self.us[k] ** 2
         if self.same_chain and len(self.shared) > k:
-            var -= self.shared[0] ** 2 + self.shared[k] ** 2
+            # each run's own part, and what is left of the shared one: a relative error common to both
+            # moves each value in proportion, so the difference keeps (s_k - s_0)
+            s0, sk = self.shared[0], self.shared[k]
+            var = (self.us[0] ** 2 - s0 * s0) + (self.us[k] ** 2 - sk * sk) + (sk - s0) ** 2
         return self.coverage * math.sqrt(max(var, 0.0))
 
     def verdict(self, k: int) -> str | None:
@@ -331,7 +334,7 @@ def compare(docs: list[dict], labels: list[str], figures_of: Callable[[dict], li
     if not deltas:
         raise BenchkitError("the runs share no figure to compare (a stepped run pairs steps by drive level)")
     judged = sum(1 for d in deltas if d.better is not None and all(u is not None for u in d.us))
-    k = coverage_for(judged)
+    k = coverage_for(judged * (len(docs) - 1))  # every figure of every run against the first
     deltas = [replace(d, coverage=k) for d in deltas]
     warnings = [BenchWarning("not-like-for-like", f"NOT LIKE FOR LIKE: {p}") for p in problems]
     return Comparison(kind, tuple(labels), tuple(deltas), tuple(conditions), tuple(warnings), not problems)

@@ -50,17 +50,18 @@ class GainResult:
 
     def uncertainty(self) -> dict:
         """The uncertainty block: the two levels' type A (each fitted tone's;
-        a phase's is its amplitude's relative u, in radians) and the output
-        chain's (the calibration, the pad, the flatness: a gain over the
-        calibrated drive takes the voltmeter's reading twice over, which a
-        reference input's shares)."""
-        block = self.output.uncertainty or {}
-        u_out = ua.rel_from_db(((block.get("standard") or {}).get("fundamental_dbfs")) or 0.0)
-        shared = ((block.get("shared") or {}).get("fundamental_vrms") or 0.0) / self.vout_vrms
-        noise = math.hypot(u_out, self.reference_rel)
+        a phase's is its amplitude's relative u, in radians) and, of the
+        chain, the pad (on the output's input alone) and the interface's
+        flatness at the frequency. The voltmeter cancels: the input's scale
+        was calibrated from the output's, and both inputs share it."""
+        u_out = ((self.output.uncertainty or {}).get("standard") or {}).get("fundamental_dbfs")
+        noise = math.nan if u_out is None else math.hypot(ua.rel_from_db(u_out), self.reference_rel)
+        chain = self.output.chain
+        budget = ua.Budget.of(noise=noise, pad=chain.pad if chain else 0.0,
+                              flatness=ua.rel_from_db(chain.flatness_db(self.frequency_hz)) if chain else 0.0)
         out = ua.Collector()
-        out.put("gain_db", ua.Budget.of(noise=noise, calibration=shared), ua.DB_PER_REL)
-        out.put("gain_vv", ua.Budget.of(noise=noise, calibration=shared), self.gain_vv)
+        out.put("gain_db", budget, ua.DB_PER_REL)
+        out.put("gain_vv", budget, self.gain_vv)
         if self.phase_deg is not None:
             out.put("phase_deg", ua.Budget.of(noise=noise), 180.0 / math.pi)
         return out.block()
@@ -149,7 +150,7 @@ def gain_readings(doc: dict) -> list:
     output impedance from two logged runs (:mod:`benchkit.analysis.zout`)."""
     from benchkit.analysis.zout import Reading, phasor
 
-    u, shared = ua.lookup(doc, "gain_db") or 0.0, ua.lookup(doc, "gain_db", part="shared") or 0.0
+    u, shared = ua.lookup(doc, "gain_db"), ua.lookup(doc, "gain_db", part="shared") or 0.0
+    own = None if u is None else ua.rel_from_db(math.sqrt(max(u * u - shared * shared, 0.0)))
     return [Reading(float(doc["frequency_hz"]), phasor(float(doc["gain_vv"]), doc.get("phase_deg")),
-                    doc.get("drive_dbfs"), bool(doc.get("valid", True)), doc.get("phase_deg") is not None,
-                    ua.rel_from_db(math.sqrt(max(u * u - shared * shared, 0.0))))]
+                    doc.get("drive_dbfs"), bool(doc.get("valid", True)), doc.get("phase_deg") is not None, own)]

@@ -57,13 +57,15 @@ def limit_budget(power_w, metric_pct, point: LimitPoint, power_rel, metric_rel, 
     up, um = np.nan_to_num(np.asarray(power_rel, float)), np.nan_to_num(np.asarray(metric_rel, float))
     noise = rss((1 - t) * up[i], t * up[j], (b - a) * (y - d) / (d - c) ** 2 * um[i],
                 (b - a) * (y - c) / (d - c) ** 2 * um[j])
-    third = j + 1 if j + 1 < m.size and m[j + 1] > d else (i - 1 if i >= 1 and m[i - 1] < c else None)
+    ok = np.isfinite(m) & np.isfinite(p)
+    third = (j + 1 if j + 1 < m.size and ok[j + 1] and m[j + 1] > d
+             else (i - 1 if i >= 1 and ok[i - 1] and m[i - 1] < c else None))
     curve = 0.0
     if third is not None:
         ks = sorted((i, j, third))
         quad = np.polyfit(m[ks], p[ks], 2)
         curve = min(abs(float(np.polyval(quad, y)) - (a + t * (b - a))), abs(b - a))
-    return Budget.of(noise=noise, interpolation=rectangular(curve), load=chain_rel)
+    return Budget.of(noise=noise, interpolation=rectangular(curve), chain=chain_rel)
 
 
 def _log_cross(x0, x1, y0, y1, y):
@@ -283,7 +285,7 @@ class PowerResult:
             i = onset.step
             gap = 0.5 * abs(math.log(self.steps[i].power_w / self.steps[i - 1].power_w))
             out.put("clipping_onset_w", Budget.of(noise=p_rel[i], interpolation=rectangular(gap),
-                                                  load=self.steps[i].rel("power_w", "shared")), onset.power_w)
+                                                  chain=self.steps[i].rel("power_w", "shared")), onset.power_w)
         return out.block()
 
     def to_dict(self) -> dict:

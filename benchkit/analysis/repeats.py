@@ -4,10 +4,13 @@ type-A uncertainty (JCGM 100 4.2: u = s / sqrt(n)).
 Pure: the takes' result documents in, one document of the same kind out,
 so that everything that reads a result (its kind's figures, comparisons,
 the logbook's headline figures, reports) reads the mean as it would one
-take. Every number the takes share a place for is averaged (a figure in
-dB averaged in dB: the takes lie close); a list whose length differs
-between takes (an adaptive run's steps) and anything not a number is the
-first take's.
+take. Every measured number the takes share a place for is averaged (a
+figure in dB averaged in dB: the takes lie close); a list whose length
+differs between takes (an adaptive run's steps) and anything else not a
+number is the first take's.
+
+A flag holds for the mean when it holds for any take (clipped), or for
+every take (valid); counts and indices are the first take's.
 
 Each figure with an uncertainty gets u^2 = max(s^2 / n, u_A^2 / n) +
 u_shared^2: the larger of the takes' scatter and their own type A (a few
@@ -31,18 +34,24 @@ def _is_number(x) -> bool:
     return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
 
 
-def _mean(values: list):
+#: Flags that hold for the mean only when they hold for every take; any other flag holds when it holds for any.
+ALL_TAKES = frozenset({"valid", "comparable", "fits"})
+
+
+def _mean(values: list, key: str = ""):
     first = values[0]
     if isinstance(first, dict):
-        return {k: (_mean([v[k] for v in values]) if all(isinstance(v, dict) and k in v for v in values) else first[k])
-                for k in first}
+        return {k: (_mean([v[k] for v in values], k) if all(isinstance(v, dict) and k in v for v in values)
+                    else first[k]) for k in first}
     if isinstance(first, list):
         if all(isinstance(v, list) and len(v) == len(first) for v in values):
-            return [_mean([v[i] for v in values]) for i in range(len(first))]
+            return [_mean([v[i] for v in values], key) for i in range(len(first))]
         return first
-    if all(_is_number(v) for v in values):
-        return first if all(v == first for v in values) else float(np.mean(values))
-    return first
+    if all(isinstance(v, bool) for v in values):  # a take clipped, or was not valid: so is the mean
+        return all(values) if key in ALL_TAKES else any(values)
+    if all(_is_number(v) for v in values) and not any(isinstance(v, int) for v in values):
+        return float(np.mean(values))
+    return first  # counts and indices (a step's number), text: the first take's
 
 
 def values_at(doc, path: str):

@@ -348,6 +348,7 @@ def response_readings(doc: dict) -> list:
     gp = np.interp(grid, f, np.degrees(np.unwrap(np.radians(ph))))
     drive = (doc.get("sweep") or {}).get("level_dbfs")
     u = ((doc.get("uncertainty") or {}).get("standard") or {}).get("response.mag_db")
-    gu = np.interp(grid, f, np.asarray(u, float)) if isinstance(u, list) and len(u) == f.size else np.zeros(grid.size)
-    return [Reading(float(x), phasor(float(units.ratio_from_db(m)), float(p)), drive, True, True, rel_from_db(float(e)))
-            for x, m, p, e in zip(grid, gm, gp, gu)]
+    known = isinstance(u, list) and len(u) == f.size and all(isinstance(e, (int, float)) for e in u)
+    gu = np.interp(grid, f, np.asarray(u, float)) if known else np.full(grid.size, np.nan)
+    return [Reading(float(x), phasor(float(units.ratio_from_db(m)), float(p)), drive, True, True,
+                    rel_from_db(float(e)) if np.isfinite(e) else None) for x, m, p, e in zip(grid, gm, gp, gu)]

@@ -175,6 +175,8 @@ class ToneResult:
     thd_upper_bound: bool = False
     #: the figures' standard uncertainties (benchkit.analysis.uncertainty.block)
     uncertainty: dict | None = field(default=None, compare=False)
+    #: the chain's type-B contributions it was analysed with (None: none stated)
+    chain: Chain | None = field(default=None, compare=False, repr=False)
 
     # --- derived figures -------------------------------------------------
     @property
@@ -895,6 +897,7 @@ def analyze_tone(
         traces=result_traces,
         dropouts_s=tuple(gaps),
         uncertainty=u_block,
+        chain=chain,
     )
 
 
@@ -914,9 +917,12 @@ def _uncertainty(blocks: list[_Block], nblk: int, f0: float, amp1: float, orders
     the interface's flatness between a harmonic and its fundamental."""
     nb = len(blocks)
     band_bins = int(np.mean([b.band_bins for b in blocks]))
+    # where no noise bins lie beside a read (harmonics crowded: a short record, a low tone), the
+    # band's noise taken as white: a fitted read's E|e|^2 = 4 sigma^2 / N = 2 P_noise / (band bins)
+    white = 2.0 * noise_power / max(band_bins, 1)
     floor1 = float(np.mean([b.floor1 for b in blocks]))
-    if not math.isfinite(floor1):  # no noise bins beside it: the band's noise taken as white
-        floor1 = 2.0 * noise_power / max(band_bins, 1)
+    floor1 = floor1 if math.isfinite(floor1) else white
+    floor2 = np.where(np.isfinite(floor2), floor2, white)
     rel1 = math.sqrt(max(floor1, 0.0) / 2.0 / nb) / amp1
     uk = np.sqrt(np.maximum(floor2, 0.0) / 2.0 / nb)
     out = ua.Collector()
@@ -1024,6 +1030,10 @@ def step_figures(doc: dict) -> list[Figure]:
     return out
 
 
+def _rel(u_db: float | None) -> float | None:
+    return None if u_db is None else ua.rel_from_db(u_db)
+
+
 def step_readings(doc: dict) -> list:
     """A stepped-tone result's step levels (FS), as output readings for an
     output impedance from two logged runs (:mod:`benchkit.analysis.zout`)."""
@@ -1031,5 +1041,5 @@ def step_readings(doc: dict) -> list:
 
     return [Reading(float(s["fundamental_hz"]), complex(units.ratio_from_db(float(s["fundamental_dbfs"]))),
                     s.get("drive_dbfs"), bool(s.get("valid", True)),
-                    rel_u=ua.rel_from_db(ua.lookup(doc, "steps.fundamental_dbfs", i) or 0.0))
+                    rel_u=_rel(ua.lookup(doc, "steps.fundamental_dbfs", i)))
             for i, s in enumerate(doc.get("steps") or [])]

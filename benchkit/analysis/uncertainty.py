@@ -40,7 +40,7 @@ COVERAGE = 2
 DB_PER_REL = 20.0 / math.log(10.0)
 #: Contributions a comparison of two runs of one chain shares (correlation
 #: +1: they cancel in the difference, JCGM 100 5.2).
-SHARED = frozenset({"calibration", "pad", "flatness", "load"})
+SHARED = frozenset({"calibration", "pad", "flatness", "load", "chain"})
 
 
 def rectangular(half_width: float) -> float:
@@ -83,7 +83,13 @@ class Budget:
 
     @classmethod
     def of(cls, **parts: float | None) -> "Budget":
-        return cls(tuple((k, float(v)) for k, v in parts.items() if v is not None and math.isfinite(v) and v > 0))
+        """Named contributions; a zero one is left out, a non-finite one
+        (not known) makes the whole budget not known (:attr:`known`)."""
+        return cls(tuple((k, float(v)) for k, v in parts.items() if v is not None and not (v == 0)))
+
+    @property
+    def known(self) -> bool:
+        return all(math.isfinite(v) for _, v in self.parts)
 
     @property
     def u(self) -> float:
@@ -207,14 +213,15 @@ class Chain:
         the repeatability of the two reads."""
         u = profile.uncertainty or {}
         volt = rectangular(float(u.get("voltmeter_pct") or 0.0) / 100.0)
-        repeat = rel_from_db(float(u.get("repeatability_db") or 0.0))
+        repeat = rel_from_db(float(u.get("repeatability_db") or 0.0))  # one read's scatter
+        reads = max(int(u.get("repeatability_reads") or 1), 1)  # the input's scale is their mean
         pad, spec = 0.0, profile.pad
-        if spec is not None and spec.measured:
-            pad = math.sqrt(2.0) * repeat
+        if spec is not None and spec.measured:  # one read through the pad over the mean of the reads
+            pad = repeat * math.sqrt(1.0 + 1.0 / reads)
         elif spec is not None and spec.r1_ohms is not None and spec.r2_ohms is not None:
             tol = getattr(spec, "tolerance_pct", None)
             pad = pad_ratio_rel(spec.r1_ohms, spec.r2_ohms, PAD_TOLERANCE_PCT if tol is None else tol, spec.input_ohms)
-        return cls(math.hypot(volt, repeat), pad, cls.load_rel(load_tolerance_pct),
+        return cls(math.hypot(volt, repeat / math.sqrt(reads)), pad, cls.load_rel(load_tolerance_pct),
                    tuple(tuple(p) for p in profile.loopback_response or ()))
 
     @staticmethod
@@ -279,7 +286,10 @@ class Collector:
         self.bounds: list[str] = []
 
     def put(self, key: str, budget: Budget, scale: float = 1.0) -> None:
-        """``key``'s budget, in the figure's unit after ``scale``."""
+        """``key``'s budget, in the figure's unit after ``scale`` (left out
+        when a contribution is not known, or the scale is not finite)."""
+        if not budget.known or not math.isfinite(scale):
+            return
         self.standard[key] = budget.u * abs(scale)
         common = rss(*(v for k, v in budget.parts if k in SHARED)) * abs(scale)
         if common > 0:
@@ -289,14 +299,17 @@ class Collector:
 
     def put_list(self, key: str, budgets: list, scales=None, bounds: bool = True) -> None:
         """An array figure's budgets, each in its unit after its ``scales``
-        (None: the item is a bound, or with ``bounds`` False has no value)."""
+        (None: the item is a bound, or with ``bounds`` False has no value;
+        a budget not known gives None too, not a bound)."""
         scales = [1.0] * len(budgets) if scales is None else [abs(s) for s in scales]
+        is_bound = any(b is None for b in budgets)
+        budgets = [None if b is None or not b.known or not math.isfinite(s) else b for b, s in zip(budgets, scales)]
         self.standard[key] = [None if b is None else b.u * s for b, s in zip(budgets, scales)]
         common = [None if b is None else rss(*(v for k, v in b.parts if k in SHARED)) * s
                   for b, s in zip(budgets, scales)]
         if any(common):
             self.shared[key] = common
-        if bounds and any(b is None for b in budgets):
+        if bounds and is_bound:
             self.bound(key)
 
     def bound(self, *keys: str) -> None:

@@ -56,8 +56,8 @@ class Reading:
     drive_dbfs: float | None = None
     valid: bool = True
     phase_known: bool = False
-    #: its relative standard uncertainty (type A; 0: not known)
-    rel_u: float = 0.0
+    #: its relative standard uncertainty (type A; None: not known)
+    rel_u: float | None = None
 
 
 def phasor(magnitude: float, phase_deg: float | None) -> complex:
@@ -115,12 +115,13 @@ class ZoutResult:
         out = Collector()
         points = list(self.points)
         out.put_list("points.zout_ohms", [p.budget for p in points], bounds=False)
-        damping = [Budget.of(noise=p.budget.unshared().u / p.zout_ohms) if p.zout_ohms else None for p in points]
+        damping = [Budget.of(noise=p.budget.unshared().u / p.zout_ohms) if p.zout_ohms and p.budget.known else None
+                   for p in points]
         out.put_list("points.damping_factor", damping, [p.damping_factor or 0.0 for p in points], bounds=False)
         ref = self.at()
         if ref is not None:
             out.put("zout_ohms", ref.budget)
-            if ref.zout_ohms:
+            if ref.zout_ohms and ref.budget.known:
                 out.put("damping_factor", Budget.of(noise=ref.budget.unshared().u / ref.zout_ohms), ref.damping_factor)
         return out.block()
 
@@ -212,7 +213,8 @@ def analyze_zout(open_: list[Reading], loaded: list[Reading], *, load_ohms: floa
         # dZ/dk, and k's own u from the two readings' (JCGM 100 5.1.2)
         dz = r_eff if open_load_ohms is None else (open_load_ohms * r_eff * (open_load_ohms - r_eff)
                                                    / (open_load_ohms - k * r_eff) ** 2)
-        noise = abs(dz) * abs(k) * math.hypot(a.rel_u, b.rel_u)
+        # (a reading's u not known: nor is Zout's)
+        noise = math.nan if a.rel_u is None or b.rel_u is None else abs(dz) * abs(k) * math.hypot(a.rel_u, b.rel_u)
         budget = Budget.of(noise=noise, load=load_rel * abs(z))
         points.append(ZoutPoint(a.frequency_hz, complex(k), complex(z), load_ohms, a.valid and b.valid, a.drive_dbfs,
                                 budget))

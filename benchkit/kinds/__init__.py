@@ -316,7 +316,7 @@ def reanalyse(folder: Path, record: dict, say: Callable[[str], None] = lambda _m
         kind = get(str(command))
     except BenchkitError:
         raise BenchkitError(f"runs of command {command!r} cannot be analysed again") from None
-    taken = sorted((p for p in Path(folder).glob(TAKE.format("*")) if p.is_dir()), key=lambda p: int(p.name[5:]))
+    taken = taken_folders(Path(folder))
     if not taken:
         return kind.reanalyse(folder, record, say)
     docs, files = [], []
@@ -324,7 +324,7 @@ def reanalyse(folder: Path, record: dict, say: Callable[[str], None] = lambda _m
         doc, written = kind.reanalyse(take, record, say)
         docs.append(doc)
         files += written
-    return mean_of_takes(Path(folder), docs), [Path(folder) / TAKES_RESULT, *files]
+    return mean_of_takes(Path(folder), docs, [t.name for t in taken]), [Path(folder) / TAKES_RESULT, *files]
 
 
 def analyse_file(path: Path, options: Offline, say: Callable[[str], None] = lambda _m: None) -> Analysed:
@@ -368,15 +368,31 @@ TAKE = "take-{}"
 TAKES_RESULT = "takes.result.json"
 
 
-def mean_of_takes(folder: Path, docs: list[dict]) -> dict:
-    """The mean of a run's takes (benchkit.analysis.repeats), written as
-    the run's result file; one take's result as it is."""
+def taken_folders(folder: Path) -> list[Path]:
+    """The take folders a run of repeated takes averaged (its mean's
+    ``takes``; a take cut short is not among them), none for a run of one."""
+    from benchkit.jsonfile import load_json
+
+    try:
+        names = (load_json(folder / TAKES_RESULT).get("takes") or {}).get("folders") or []
+    except (OSError, ValueError, AttributeError):
+        names = []  # (a run killed before its mean: every whole-numbered take folder)
+        numbered = [p for p in folder.glob(TAKE.format("*")) if p.is_dir() and p.name[5:].isdigit()]
+        names = [p.name for p in sorted(numbered, key=lambda p: int(p.name[5:]))]
+    return [folder / n for n in names if (folder / n).is_dir()]
+
+
+def mean_of_takes(folder: Path, docs: list[dict], names: list[str] | None = None) -> dict:
+    """The mean of a run's takes (benchkit.analysis.repeats) in the folders
+    ``names`` (default take-1 ...), written as the run's result file; one
+    take's result as it is."""
     from benchkit.analysis.repeats import mean_document
     from benchkit.report.tables import write_json
 
     if not docs:
         raise BenchkitError("no take of the measurement completed")
-    doc = mean_document(docs, [TAKE.format(k) for k in range(1, len(docs) + 1)]) if len(docs) > 1 else docs[0]
+    names = names or [TAKE.format(k) for k in range(1, len(docs) + 1)]
+    doc = mean_document(docs, names) if len(docs) > 1 else {**docs[0], "takes": {"count": 1, "folders": names[:1]}}
     write_json(doc, folder / TAKES_RESULT)
     return doc
 

@@ -273,8 +273,9 @@ def summarise(path: Path, info: dict | None = None) -> dict:
         if vals:
             figures[key] = {"label": label, "unit": unit, "first": vals[0], "last": vals[-1], "min": min(vals),
                             "max": max(vals)}
-            if len(vals) >= 3:  # one reading's type A: the scatter of the last few (JCGM 100 4.2)
-                spread.put(f"figures.{key}.last", Budget.of(repeats=float(np.std(vals[-LAST_READINGS:], ddof=1))))
+            scatter = float(np.std(vals[-LAST_READINGS:], ddof=1)) if len(vals) >= 3 else 0.0
+            if scatter > 0:  # one reading's type A: the scatter of the last few (JCGM 100 4.2); none: not known
+                spread.put(f"figures.{key}.last", Budget.of(repeats=scatter))
     t = [float(r["t_s"]) for r in rows]
     clipped = sum(r["clipped"] == "true" for r in rows)
     lost = sum(r["tone_lost"] == "true" for r in rows)

@@ -46,8 +46,9 @@ def readings_of_capture(path: Path, channel: int = 1, ref_channel: int | None = 
     if ref_channel is None:
         ref_channel = next((c["number"] for c in rec.sidecar.get("channels") or []
                             if str(c.get("role", "")).startswith("reference")), None)
-    def rel(r) -> float:  # a fitted level's type-A relative uncertainty
-        return ua.rel_from_db(((r.uncertainty or {}).get("standard") or {}).get("fundamental_dbfs") or 0.0)
+    def rel(*results) -> float | None:  # fitted levels' type-A relative uncertainty, root-sum-square
+        got = [((r.uncertainty or {}).get("standard") or {}).get("fundamental_dbfs") for r in results]
+        return None if any(u is None for u in got) else ua.rel_from_db(math.hypot(*got))
 
     if ref_channel is None:
         return [Reading(s.result.fundamental_hz, complex(s.result.fundamental_fs), s.drive_dbfs, s.result.valid,
@@ -59,7 +60,7 @@ def readings_of_capture(path: Path, channel: int = 1, ref_channel: int | None = 
                          fundamental_hz=s.result.fundamental_hz, bandwidth_hz=bandwidth_hz)
         phase = s.result.fundamental_phase_deg - r.fundamental_phase_deg
         out.append(Reading(s.result.fundamental_hz, phasor(s.result.fundamental_fs / r.fundamental_fs, phase),
-                           s.drive_dbfs, s.result.valid and r.valid, True, math.hypot(rel(s.result), rel(r))))
+                           s.drive_dbfs, s.result.valid and r.valid, True, rel(s.result, r)))
     return out
 
 

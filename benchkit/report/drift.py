@@ -10,7 +10,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from benchkit.report import tables
-from benchkit.report.files import report_folder
+from benchkit.report.files import report_folder, title_of
 from benchkit.report.overlays import colour, finish_overlay
 from benchkit.report.plots import BAND, MARK, save_png, TRACE
 from benchkit.units import quantity
@@ -126,7 +126,7 @@ def drift_reports(result, log: Path, out: Path) -> list[Path]:
     return [
         tables.write_json(result.to_dict(), out / f"{log.stem}.drift.json"),
         write_drift_csv(result, out / f"{log.stem}.drift.csv"),
-        drift_png(result, out / f"{log.stem}.drift.png", log.name),
+        drift_png(result, out / f"{log.stem}.drift.png", title_of(log)),
     ]
 
 

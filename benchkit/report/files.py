@@ -18,6 +18,28 @@ def report_folder(out: Path) -> Path:
     return out
 
 
+def title_of(path: Path) -> str:
+    """What the plots of a capture (or a log) are titled: the stage's name
+    and the run's tags when it was measured as a logged run (its run.json
+    beside it, or above a take's folder), else the file's name."""
+    from benchkit.jsonfile import load_json
+
+    path = Path(path)
+    for folder in (path.parent, path.parent.parent):
+        record = folder / "run.json"
+        if record.is_file():
+            try:
+                d = load_json(record)
+            except (OSError, ValueError):
+                break
+            name = str((d.get("stage") or {}).get("name") or "")
+            tags = ", ".join(f"{k}={v}" for k, v in (d.get("tags") or {}).items())
+            if name or tags:
+                return "; ".join(p for p in (name, tags) if p)
+            break
+    return path.name
+
+
 def stem_of(path: Path, channel: int) -> str:
     """What a capture's report files are named after: its stem, with the
     channel when it is not the first."""
@@ -31,5 +53,5 @@ def result_csv_png(result, path: Path, channel: int, out: Path, what: str, write
     return [
         tables.write_json(result.to_dict(), out / f"{stem}.{what}.json"),
         write_csv(result, out / f"{stem}.{what}.csv"),
-        plot(result, out / f"{stem}.{what}.png", path.name),
+        plot(result, out / f"{stem}.{what}.png", title_of(path)),
     ]

@@ -15,7 +15,7 @@ from benchkit import units
 from benchkit.analysis.uncertainty import lookup, shown as with_u
 from benchkit.errors import read_warnings
 from benchkit.report import tables
-from benchkit.report.files import report_folder, stem_of
+from benchkit.report.files import report_folder, stem_of, title_of
 from benchkit.report.overlays import percent_axes, colour, finish_overlay
 from benchkit.report.plots import hz_label, save_png
 from benchkit.units import quantity
@@ -99,7 +99,7 @@ def imd_reports(result, path: Path, channel: int, out: Path) -> list[Path]:
     return [
         tables.write_json(doc, out / f"{stem}.imd.json"),
         write_imd_csv(result, out / f"{stem}.imd.csv"),
-        imd_png([doc], [path.name], out / f"{stem}.imd.png", path.name, spectrum=spectrum),
+        imd_png([doc], [path.name], out / f"{stem}.imd.png", title_of(path), spectrum=spectrum),
     ]
 
 

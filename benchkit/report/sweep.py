@@ -13,7 +13,7 @@ from matplotlib.figure import Figure
 
 from benchkit.analysis.uncertainty import lookup, shown_quantity
 from benchkit.report import tables
-from benchkit.report.files import report_folder, stem_of
+from benchkit.report.files import report_folder, stem_of, title_of
 from benchkit.report.overlays import colour, finish_overlay
 from benchkit.report.plots import FAINT, hz_label, log_hz_axis, MARK, save_png, TRACE
 from benchkit.units import quantity
@@ -149,8 +149,8 @@ def response_reports(result, path: Path, channel: int, out: Path, smooth: int | 
     return [
         tables.write_json(result.to_dict(), out / f"{stem}.response.json"),
         write_response_csv(result, out / f"{stem}.response.csv"),
-        response_png(result, out / f"{stem}.response.png", path.name, smooth),
-        distortion_png(result, out / f"{stem}.distortion.png", path.name),
+        response_png(result, out / f"{stem}.response.png", title_of(path), smooth),
+        distortion_png(result, out / f"{stem}.distortion.png", title_of(path)),
     ]
 
 

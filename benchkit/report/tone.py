@@ -16,7 +16,7 @@ from benchkit.analysis.tone import ToneResult
 from benchkit.analysis.uncertainty import shown, shown_quantity
 from benchkit.errors import read_warnings
 from benchkit.report import overlays, tables
-from benchkit.report.files import report_folder, stem_of
+from benchkit.report.files import report_folder, stem_of, title_of
 from benchkit.report.overlays import colour, finish_overlay
 from benchkit.report.plots import BAND, FAINT, hz_label, LABELLED_HARMONICS, MARK, save_png, TRACE
 from benchkit.units import quantity
@@ -289,7 +289,7 @@ def residual_png(result: ToneResult, path: Path, title: str) -> Path:
 def tone_reports(result, doc, path: Path, channel: int, out: Path) -> list[Path]:
     report_folder(out)
     stem = stem_of(path, channel)
-    title = f"{path.name}, channel {channel}"
+    title = f"{title_of(path)}, channel {channel}"
     return [
         tables.write_json(doc, out / f"{stem}.result.json"),
         write_harmonics_csv(result, out / f"{stem}.harmonics.csv"),
@@ -305,12 +305,12 @@ def steps_reports(steps, path: Path, channel: int, out: Path) -> list[Path]:
     written = [
         tables.write_json(steps.to_dict(), out / f"{stem}.result.json"),
         write_steps_csv(steps, out / f"{stem}.steps.csv"),
-        overlays.distortion_png([steps.to_dict()], [path.name], out / f"{stem}.thdn.png", f"{path.name}: THD+N",
+        overlays.distortion_png([steps.to_dict()], [path.name], out / f"{stem}.thdn.png", f"{title_of(path)}: THD+N",
                                 caption=conditions_line(steps.steps[0].result)),
     ]
     for s in steps.steps:
         tag = f"{stem}-drive{s.drive_dbfs:+.0f}dBFS"
-        title = f"{path.name}, drive {s.drive_dbfs:g} dBFS"
+        title = f"{title_of(path)}, drive {s.drive_dbfs:g} dBFS"
         written += [
             spectrum_png(s.result, out / f"{tag}.spectrum.png", title),
             residual_png(s.result, out / f"{tag}.residual.png", title),

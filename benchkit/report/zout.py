@@ -11,7 +11,7 @@ from matplotlib.figure import Figure
 
 from benchkit.errors import read_warnings
 from benchkit.report import tables
-from benchkit.report.files import report_folder
+from benchkit.report.files import report_folder, title_of
 from benchkit.report.plots import FAINT, log_hz_axis, readable_log, save_png, TRACE
 from benchkit.units import quantity
 
@@ -95,5 +95,5 @@ def zout_reports(result, folder: Path, out: Path, name: str = "zout") -> list[Pa
     return [
         tables.write_json(result.to_dict(), out / f"{name}.json"),
         write_zout_csv(result, out / f"{name}.csv"),
-        zout_png(result, out / f"{name}.png", folder.name),
+        zout_png(result, out / f"{name}.png", title_of(folder / f"{name}.png")),
     ]
