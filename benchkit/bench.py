@@ -81,8 +81,12 @@ class Filed:
     early: list = field(default_factory=list)
 
 
-def measure(kind_name: str, o: dict, say: Callable[[str], None], ask: Callable[[str], None]) -> Filed:
-    """Measure one kind on the bench its options describe, and file it."""
+def measure(kind_name: str, o: dict, say: Callable[[str], None], ask: Callable[[str], None],
+            tell: Callable[[str], None] | None = None) -> Filed:
+    """Measure one kind on the bench its options describe, and file it:
+    progress and notes through ``say``, its result's summary through
+    ``tell`` (default ``say``)."""
+    tell = tell or say
     kind = kinds.get(kind_name)
     if kind.live is None:
         raise BenchkitError(f"{kind_name} is not measured this way")
@@ -100,12 +104,12 @@ def measure(kind_name: str, o: dict, say: Callable[[str], None], ask: Callable[[
         params = kind.live.prepare(s)
         with start_run(book, labels, kind_name, s.backend, s.profile, o.get("calibration"), params, say) as run:
             if repeat > 1:
-                return takes(run, kind, s, repeat, say)
+                return takes(run, kind, s, repeat, say, tell)
             got = kind.live.measure(s, run.folder)
-            return finish(run, kind, got, say, channel=s.channel)
+            return finish(run, kind, got, say, channel=s.channel, tell=tell)
 
 
-def takes(run, kind, s: "Bench", n: int, say) -> Filed:
+def takes(run, kind, s: "Bench", n: int, say, tell=None) -> Filed:
     """``n`` takes of one measurement in one run, each in a folder of its
     own (``take-1`` ...) with its capture and report files; the run's
     result is their mean, their scatter its type-A uncertainty
@@ -117,7 +121,7 @@ def takes(run, kind, s: "Bench", n: int, say) -> Filed:
         folder.mkdir(parents=True, exist_ok=True)
         say(f"take {k} of {n}")
         got = kind.live.measure(s, folder)
-        say(kind.summary(got.result, f"{got.title} (take {k} of {n})".strip()))
+        (tell or say)(kind.summary(got.result, f"{got.title} (take {k} of {n})".strip()))
         files += kind.reports(got.result, folder, s.channel, **got.report) + list(got.files)
         if got.status == "complete" and got.ended is None:
             docs.append(got.result.to_dict())
@@ -125,7 +129,7 @@ def takes(run, kind, s: "Bench", n: int, say) -> Filed:
             status, ended, partial = ("interrupted" if docs else got.status), got.ended, got.result.to_dict()
             break
     doc = kinds.mean_of_takes(run.folder, docs or [partial])
-    say(takes_summary(doc, kind.figures))
+    (tell or say)(takes_summary(doc, kind.figures))
     return complete(run, doc, [run.folder / kinds.TAKES_RESULT, *files], say, status, ended)
 
 
@@ -143,9 +147,10 @@ def takes_summary(doc: dict, figures_of) -> str:
     return "\n".join(lines)
 
 
-def finish(run, kind, got, say, channel: int = 1, played: bool = True) -> Filed:
-    """A run's result on one screen and in its report files (its kind's), and the run completed."""
-    say(kind.summary(got.result, got.title))
+def finish(run, kind, got, say, channel: int = 1, played: bool = True, tell=None) -> Filed:
+    """A run's result on one screen (through ``tell``, default ``say``) and
+    in its report files (its kind's), and the run completed."""
+    (tell or say)(kind.summary(got.result, got.title))
     written = kind.reports(got.result, run.folder, channel, **got.report)
     return complete(run, got.result.to_dict(), written + list(got.files), say, got.status, got.ended, played)
 

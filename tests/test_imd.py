@@ -172,7 +172,7 @@ def test_imd_runs_compare(tmp_path):
     assert deltas["imd_db"]["changes"][0] == pytest.approx(-6.02, abs=0.1)
     assert deltas["imd_db"]["verdicts"][0] == "better"
     listed = run_cli("log", "list")
-    assert "IMD" in listed.stderr
+    assert "IMD" in listed.stdout  # what was asked for: stdout
 
 
 @pytest.mark.parametrize("args,needle", [

@@ -393,3 +393,16 @@ def test_log_show_prints_quantities_as_a_person_reads_them(tmp_path):
     assert "reference_vrms=2.828 Vrms" in shown and "bandwidth_hz=[20 Hz, 20 kHz]" in shown
     figure = next(line for line in shown.splitlines() if "noise_a_vrms =" in line)
     assert "uVrms" in figure and "e-0" not in figure
+
+
+def test_what_was_asked_goes_to_stdout_and_json_alone_with_json(tmp_path):
+    # `benchkit log list 2>/dev/null | grep bias` finds the run; a measurement's summary is on stdout,
+    # its progress on stderr; with --json stdout holds one JSON document and nothing else
+    bench = tmp_path / "bench"
+    measured = run_cli("tone", "--level", "-20dBFS", "--tag", "bias=1.2A", "--bench", str(bench))
+    assert measured.returncode == 0 and "THD+N" in measured.stdout and "run folder:" in measured.stderr
+    assert "run folder:" not in measured.stdout
+    listed = run_cli("log", "list", "--bench", str(bench))
+    assert any("bias=1.2A" in line for line in listed.stdout.splitlines())
+    as_json = run_cli("tone", "--level", "-20dBFS", "--bench", str(bench), "--json")
+    assert json.loads(as_json.stdout)["kind"] == "tone" and "THD+N" in as_json.stderr

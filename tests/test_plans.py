@@ -183,9 +183,9 @@ def test_log_list_and_show_by_session(two_sessions):
     assert res.returncode == 0, res.stderr
     assert sorted(r["id"] for r in json.loads(res.stdout)["runs"]) == sorted(s["run"] for s in second["steps"])
     assert all(r["session"] == second["id"] for r in json.loads(res.stdout)["runs"])
-    res = run_cli("log", "show", first["id"], "--bench", str(root))
-    assert res.returncode == 0 and f"session {first['id']}" in res.stderr
-    assert all(s["run"] in res.stderr for s in first["steps"])
+    res = run_cli("log", "show", first["id"], "--bench", str(root))  # what was asked for: stdout
+    assert res.returncode == 0 and f"session {first['id']}" in res.stdout
+    assert all(s["run"] in res.stdout for s in first["steps"])
     res = run_cli("plan", "list", "--bench", str(root), "--json")
     assert [d["id"] for d in json.loads(res.stdout)["sessions"]] == [second["id"], first["id"]]
     res = run_cli("log", "list", "--bench", str(root), "--session", "no-such-session")

@@ -9,7 +9,7 @@ import typer
 
 from benchkit import kinds
 from benchkit.analysis.documents import document
-from benchkit.cli.common import app, err, EXIT_BAD_INPUT, one_line, progress, takes
+from benchkit.cli.common import answer, app, err, EXIT_BAD_INPUT, one_line, progress, takes
 from benchkit.errors import BenchkitError
 
 
@@ -45,7 +45,7 @@ def analyze(files: List[Path] = typer.Argument(..., help="WAV or FLAC captures."
     for path, analyse in progress(jobs, "analysing"):
         try:
             got = analyse(path)
-            err(got.text)
+            answer(got.text, o["json"])
             for written in got.write(o["out"]) if got.write is not None and o["out"] is not None else ():
                 err(f"  wrote        {written}")
         except BenchkitError as exc:

@@ -34,7 +34,18 @@ EXIT_INTERRUPTED = 130
 
 
 def err(text: str) -> None:
+    """Progress, notes and warnings: stderr."""
     print(text, file=sys.stderr)
+
+
+def answer(text: str, as_json: bool = False) -> None:
+    """What the user asked for (a list, a run shown, a comparison's table,
+    a result's summary): stdout, unless ``--json`` holds stdout for the
+    JSON document alone, when it goes with the notes to stderr. Its
+    warning lines ("warning ...", "!! ...") go to stderr either way."""
+    for line in text.split("\n"):
+        warns = line.lstrip().startswith(("warning", "!! "))
+        print(line, file=sys.stderr if as_json or warns else sys.stdout)
 
 
 def progress(items: list, what: str):
@@ -171,7 +182,7 @@ def measured(kind: str, o: dict) -> None:
     from benchkit import bench
 
     with live_run():
-        filed = bench.measure(kind, o, err, ask)
+        filed = bench.measure(kind, o, err, ask, tell=lambda text: answer(text, o["json"]))
     show(filed, o["json"])
 
 

@@ -10,7 +10,7 @@ from typing import List
 import typer
 
 from benchkit import units
-from benchkit.cli.common import app, err, one_line, show, takes
+from benchkit.cli.common import answer, app, err, one_line, show, takes
 from benchkit.errors import BenchkitError
 from benchkit.report import logbook as logbook_text
 
@@ -57,7 +57,7 @@ def log_list(o: dict) -> None:
         err(f"no runs in {book.root} match")
         return
     for line in logbook_text.runs_lines(entries):
-        err(line)
+        answer(line)
 
 
 @log_app.command("show")
@@ -83,7 +83,7 @@ def log_show(run: str = typer.Argument(..., help="Run id, a unique start of it, 
         print(dumps({**record, "status": entry.status, "folder": str(entry.folder)}))
         return
     for line in logbook_text.run_lines(entry, record):
-        err(line)
+        answer(line)
 
 
 def _show_session(doc: dict, entries, as_json: bool) -> None:
@@ -95,7 +95,7 @@ def _show_session(doc: dict, entries, as_json: bool) -> None:
         print(dumps({**doc, "runs": [logbook_text.entry_doc(e) for e in entries]}))
         return
     for line in session_lines(doc) + (["runs:"] + logbook_text.runs_lines(entries) if entries else []):
-        err(line)
+        answer(line)
 
 
 @log_app.command("note")
@@ -224,7 +224,8 @@ def compare(runs: List[str] = typer.Argument(None, help="Runs to compare (ids, u
         if runs and len(runs) > 1 and all(is_session(book.root, r) and not r.startswith("last") for r in runs):
             from benchkit.session_report import report_sessions
 
-            path, compared = report_sessions(book, list(runs), o["anyway"], None, err, out=o["out"])
+            path, compared = report_sessions(book, list(runs), o["anyway"], None,
+                                             lambda text: answer(text, o["json"]), out=o["out"])
             err(f"report: {path}")
             if o["json"]:
                 from benchkit.report.tables import dumps
@@ -233,7 +234,7 @@ def compare(runs: List[str] = typer.Argument(None, help="Runs to compare (ids, u
             return
         refs = chosen_runs(book, list(runs or []), o["last"], o["command"])
         report = compare_runs(book, refs, anyway=o["anyway"], out=o["out"])
-    err(report.text)
+    answer(report.text, o["json"])
     for path in report.files:
         err(f"  wrote        {path}")
     if o["json"]:

@@ -9,7 +9,7 @@ from typing import List
 
 import typer
 
-from benchkit.cli.common import app, err, EXIT_BAD_INPUT, EXIT_INTERRUPTED, ask, leave, live_run, one_line, takes
+from benchkit.cli.common import answer, app, err, EXIT_BAD_INPUT, EXIT_INTERRUPTED, ask, leave, live_run, one_line, takes
 from benchkit.errors import BenchkitError
 
 plan_app = typer.Typer(no_args_is_help=True, help="Bench plans: a stage described once, measured as one session.")
@@ -73,7 +73,7 @@ def plan_check(file: Path = PLAN, o: dict = None) -> None:
                                for s in plan.steps]}))
         return
     for line in plan_lines(plan):
-        err(line)
+        answer(line)
 
 
 def _ran(run) -> None:
@@ -145,8 +145,10 @@ def plan_list(o: dict = None) -> None:
 
         print(dumps({"kind": "sessions", "schema_version": 1, "sessions": found}))
         return
-    for line in sessions_lines(found) if found else ["no sessions in this bench ('benchkit plan run' makes one)"]:
-        err(line)
+    for line in sessions_lines(found) if found else ():
+        answer(line)
+    if not found:
+        err("no sessions in this bench ('benchkit plan run' makes one)")
 
 
 @app.command()

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from benchkit.cli.common import app, ask, err, one_line, takes
+from benchkit.cli.common import answer, app, ask, err, one_line, takes
 from benchkit.errors import BenchkitError
 
 
@@ -31,8 +31,8 @@ def devices(o: dict) -> None:
     else:
         for d in entries:
             idx = "-" if d["index"] is None else d["index"]
-            err(f"  {idx:>3}  {d['name']}  [{d['host_api']}]  in {d['max_input_channels']}, out "
-                 f"{d['max_output_channels']}, {d['default_sample_rate_hz']:g} Hz")
+            answer(f"  {idx:>3}  {d['name']}  [{d['host_api']}]  in {d['max_input_channels']}, out "
+                   f"{d['max_output_channels']}, {d['default_sample_rate_hz']:g} Hz")
     if note:
         err(f"benchkit: {note}")
 
@@ -58,7 +58,7 @@ def calibrate(o: dict) -> None:
     with one_line():
         profile = calibrate_bench(o, err, ask)
     for line in profile_lines(profile, o["file"]):
-        err(line)
+        answer(line)
 
 
 @app.command()
@@ -88,7 +88,7 @@ def pad(o: dict) -> None:
         normal, reports = pads_for(o)
     for line in pads_lines(reports, normal, o["rail"], o["input_fs"], o["input_ohms"], o["input_max"], o["headroom"],
                            o["input_noise"]):
-        err(line)
+        answer(line, o["json"])
     if o["json"]:
         from benchkit.report.tables import dumps
 
@@ -118,7 +118,7 @@ def budget(o: dict) -> None:
     with one_line():
         doc = ClassABudget(o["rail"], o["bias"], o["load"], o["vsat"]).to_dict(o["target_power"], o["limit_current"],
                                                                              o["vbe"])
-    err(summary.budget_summary(doc))
+    answer(summary.budget_summary(doc), o["json"])
     if o["json"]:
         from benchkit.report.tables import dumps
 
