@@ -26,7 +26,7 @@ from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import DEFAULT_BAND_HZ, analyze_tone
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.documents import Conditions, document
-from benchkit.analysis.uncertainty import DB_PER_REL, Budget, Collector, rel_from_db
+from benchkit.analysis.uncertainty import DB_PER_REL, Budget, Collector
 from benchkit.errors import BenchkitError
 from benchkit.units import quantity
 
@@ -151,7 +151,7 @@ def leak(driven, other, sample_rate: float, frequency_hz: float, driven_scale: f
     u_leak = floor / sp.sine_amplitude_scale(n) * math.sqrt(float(sp.read_noise_gain(n, np.array([nu]), spec.size)[0]) / 2)
     return Leak(r.fundamental_hz, driven_name, r.fundamental_fs, amp, floor, amp * scale / r.fundamental_fs, r.valid,
                 r.fundamental_vrms, u_leak / amp if amp > 0 else 0.0,
-                rel_from_db(r.uncertainty["standard"]["fundamental_dbfs"]))
+                r.level_rel_u)
 
 
 @dataclass(frozen=True)

@@ -54,8 +54,8 @@ class GainResult:
         chain, the pad (on the output's input alone) and the interface's
         flatness at the frequency. The voltmeter cancels: the input's scale
         was calibrated from the output's, and both inputs share it."""
-        u_out = ((self.output.uncertainty or {}).get("standard") or {}).get("fundamental_dbfs")
-        noise = math.nan if u_out is None else math.hypot(ua.rel_from_db(u_out), self.reference_rel)
+        u_out = self.output.level_rel_u
+        noise = math.nan if u_out is None else math.hypot(u_out, self.reference_rel)
         chain = self.output.chain
         budget = ua.Budget.of(noise=noise, pad=chain.pad if chain else 0.0,
                               flatness=ua.rel_from_db(chain.flatness_db(self.frequency_hz)) if chain else 0.0)
@@ -130,7 +130,7 @@ def analyze_gain(output: ToneResult, *, drive_dbfs: float, reference: ToneResult
         if reference.fundamental_vrms is None:
             raise ValueError("the reference input needs a voltage scale")
         phase = (output.fundamental_phase_deg - reference.fundamental_phase_deg + 180.0) % 360.0 - 180.0
-        ref_u = ua.rel_from_db(((reference.uncertainty or {}).get("standard") or {}).get("fundamental_dbfs") or 0.0)
+        ref_u = reference.level_rel_u or 0.0
         return GainResult(output.fundamental_hz, drive_dbfs, reference.fundamental_vrms, output.fundamental_vrms,
                           "reference-channel", float(phase), output, load_ohms, tuple(reference.warnings),
                           reference_rel=ref_u)

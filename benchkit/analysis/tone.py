@@ -212,6 +212,13 @@ class ToneResult:
         return units.dbfs_from_rms(self.noise_rms_fs)
 
     @property
+    def level_rel_u(self) -> float | None:
+        """The fundamental amplitude's relative standard uncertainty, type A
+        (None: not known)."""
+        u = ((self.uncertainty or {}).get("standard") or {}).get("fundamental_dbfs")
+        return None if u is None else ua.rel_from_db(u)
+
+    @property
     def fundamental_vrms(self) -> float | None:
         if self.volts_per_fs is None:
             return None

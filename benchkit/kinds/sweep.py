@@ -372,8 +372,8 @@ def _stepped_response(rec, ref, ref_channel, reference_hz, load_ohms, band):
             den = units.ratio_from_db(drive) * np.exp(1j * (2 * np.pi * f0 * (lo - start) / rate - np.pi / 2))
         freqs.append(f0)
         h.append(r.fundamental_fs * np.exp(1j * np.radians(r.fundamental_phase_deg)) / den)
-        rel_u.append(math.hypot(*(ua.rel_from_db(((t.uncertainty or {}).get("standard") or {}).get("fundamental_dbfs")
-                                                 or 0.0) for t in ((r, q) if ref.samples is not None else (r,))), 0.0))
+        rel_u.append(math.hypot(*(math.nan if t.level_rel_u is None else t.level_rel_u
+                                  for t in ((r, q) if ref.samples is not None else (r,))), 0.0))
         # distortion against frequency: fundamentals in the band, harmonics in it
         lo, top = band if band else (0.0, 0.45 * rate)
         in_band = lo <= f0 and 2 * f0 <= top

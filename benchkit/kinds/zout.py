@@ -15,7 +15,6 @@ from pathlib import Path
 from typing import Callable, ClassVar
 
 
-from benchkit.analysis import uncertainty as ua
 from benchkit.analysis.tone import DEFAULT_BAND_HZ
 from benchkit.analysis.uncertainty import Chain
 from benchkit.analysis.zout import analyze_zout, phasor, Reading, zout_figures, ZoutResult
@@ -47,8 +46,8 @@ def readings_of_capture(path: Path, channel: int = 1, ref_channel: int | None = 
         ref_channel = next((c["number"] for c in rec.sidecar.get("channels") or []
                             if str(c.get("role", "")).startswith("reference")), None)
     def rel(*results) -> float | None:  # fitted levels' type-A relative uncertainty, root-sum-square
-        got = [((r.uncertainty or {}).get("standard") or {}).get("fundamental_dbfs") for r in results]
-        return None if any(u is None for u in got) else ua.rel_from_db(math.hypot(*got))
+        got = [r.level_rel_u for r in results]
+        return None if any(u is None for u in got) else math.hypot(*got)
 
     if ref_channel is None:
         return [Reading(s.result.fundamental_hz, complex(s.result.fundamental_fs), s.drive_dbfs, s.result.valid,
@@ -142,7 +141,7 @@ def analyse_pair(open_path: Path, loaded_path: Path, channel: int, ref_channel: 
         else:
             r = analyze_tone(rec.samples, rec.sample_rate_hz, bandwidth_hz=bandwidth_hz)
             got.append([Reading(r.fundamental_hz, complex(r.fundamental_fs), None, r.valid,
-                                rel_u=ua.rel_from_db(r.uncertainty["standard"]["fundamental_dbfs"]))])
+                                rel_u=r.level_rel_u)])
     result = analyze_zout(got[0], got[1], load_ohms=load_ohms, open_load_ohms=open_load_ohms,
                           load_rel=read_capture(open_path, channel).chain().load)
     doc = {**result.to_dict(), "files": [str(open_path), str(loaded_path)]}
