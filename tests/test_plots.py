@@ -81,3 +81,32 @@ def test_a_runs_plots_are_titled_by_its_stage_and_tags_not_its_file(tmp_path):
     folder = Path(json.loads(res.stdout)["run"]["folder"])
     assert title_of(folder / "capture.wav") == "Stage X-1; bias=1.2A"
     assert title_of(tmp_path / "elsewhere.wav") == "elsewhere.wav"
+
+
+def test_a_response_plots_its_group_delay_and_keeps_its_corner_labels_inside():
+    # a first-order high-pass at 10 Hz and low-pass at 30 kHz (closed forms, circuit theory): the group
+    # delay panel draws -d(phase)/d(omega), fc / (2 pi (fc^2 + f^2)) for the high-pass, and both -3 dB
+    # labels lie inside the figure (the upper one was cut off at the right edge before)
+    from benchkit.analysis.response import ResponseResult
+    from benchkit.report.sweep import response_figure
+
+    f = np.geomspace(2, 40000, 1200)
+    h = (1j * f / (10 + 1j * f)) / (1 + 1j * f / 30000)
+    r = ResponseResult("sweep", f, 20 * np.log10(np.abs(h)), np.degrees(np.angle(h)), (), np.full(f.size, np.nan), None,
+                       "given", "dB re 1 V/V", 1000.0)
+    fig = response_figure(r, "band-pass")
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    delay = fig.axes[2]
+    assert "group delay" in delay.get_ylabel()
+    x, y = delay.lines[0].get_data()
+    at = (x > 20) & (x < 200)  # where the low-pass adds under a microsecond
+    want = 1e3 * (10 / (2 * np.pi * (10**2 + x[at] ** 2)) + 30000 / (2 * np.pi * (30000**2 + x[at] ** 2)))
+    assert np.allclose(y[at], want, rtol=0.02)
+    box = fig.bbox
+    labels = [t for t in fig.axes[0].texts if t.get_text().startswith("-3 dB")]
+    assert len(labels) == 2
+    for t in labels:
+        e = t.get_window_extent(canvas.get_renderer())
+        assert box.x0 <= e.x0 and e.x1 <= box.x1, t.get_text()
+    assert overlapping_tick_labels(fig) == []

@@ -80,22 +80,25 @@ def _response_caption(r) -> str:
 
 
 def response_figure(result, title: str, smooth_fraction: int | None = None) -> Figure:
-    """Magnitude over a phase panel, log frequency, the -3 dB corners
-    marked; smoothing (1/N octave) changes the plot only."""
+    """Magnitude over a phase and a group delay panel, log frequency, the
+    -3 dB corners marked (each label on the inner side of its line, so
+    that neither runs off the plot); smoothing (1/N octave) changes the
+    plot only."""
     from benchkit.analysis import response as resp
 
     f = result.freq_hz
-    fig = Figure(figsize=(10, 6.4))
-    ax, axp = fig.add_subplot(2, 1, 1), fig.add_subplot(2, 1, 2)
+    fig = Figure(figsize=(10, 7.6))
+    grid = fig.add_gridspec(3, 1, height_ratios=(2.0, 1.0, 1.0))
+    ax, axp, axd = (fig.add_subplot(grid[i, 0]) for i in range(3))
     mag = resp.smooth(f, result.mag_db, smooth_fraction) if smooth_fraction else result.mag_db
     ax.plot(f, mag, color=TRACE, lw=1.2)
     ref = result.ref_db
     low, high = result.corners_3db
-    for x in (low, high):
+    for x, inward in ((low, 1), (high, -1)):
         if x is not None:
             ax.axvline(x, color=MARK, lw=0.8, ls="--")
             ax.annotate(f"-3 dB {hz_label(round(x, 2 if x < 100 else 0))} Hz", (x, ref - 3), textcoords="offset points",
-                        xytext=(5, -12), fontsize=8, color=MARK)
+                        xytext=(5 * inward, -12), ha="left" if inward > 0 else "right", fontsize=8, color=MARK)
     ax.axhline(ref - 3, color=FAINT, lw=0.6, ls=":")
     span = max(6.0, float(np.nanmax(mag) - np.nanmin(mag)) + 2.0)
     ax.set_ylim(min(ref - 6, float(np.nanmin(mag)) - 1), max(ref + 3, float(np.nanmax(mag)) + 1) if span < 60 else ref + 6)
@@ -104,11 +107,20 @@ def response_figure(result, title: str, smooth_fraction: int | None = None) -> F
     ax.set_title(f"{title}: magnitude{smooth_note}", loc="left", fontsize=10)
     axp.plot(f, result.phase_deg, color=TRACE, lw=1.0)
     axp.set_ylabel("phase (deg)")
-    axp.set_xlabel("frequency (Hz)")
-    for a in (ax, axp):
+    # group delay, -d(phase)/d(omega): a coupling capacitor's low corner shows as delay rising below it
+    delay_ms = 1e3 * resp.group_delay_s(f, result.phase_deg)
+    axd.plot(f, delay_ms, color=TRACE, lw=1.0)
+    finite = delay_ms[np.isfinite(delay_ms)]
+    if finite.size:
+        lo_d, hi_d = np.percentile(finite, [1, 99])
+        pad = max(0.1 * (hi_d - lo_d), 0.01)
+        axd.set_ylim(lo_d - pad, hi_d + pad)
+    axd.set_ylabel("group delay (ms)")
+    axd.set_xlabel("frequency (Hz)")
+    for a in (ax, axp, axd):
         log_hz_axis(a)
     fig.text(0.01, 0.01, _response_caption(result), fontsize=7.5, color="#333333", ha="left", va="bottom")
-    fig.subplots_adjust(left=0.09, right=0.97, top=0.94, bottom=0.11, hspace=0.28)
+    fig.subplots_adjust(left=0.09, right=0.97, top=0.95, bottom=0.09, hspace=0.32)
     return fig
 
 
