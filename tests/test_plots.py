@@ -110,3 +110,27 @@ def test_a_response_plots_its_group_delay_and_keeps_its_corner_labels_inside():
         e = t.get_window_extent(canvas.get_renderer())
         assert box.x0 <= e.x0 and e.x1 <= box.x1, t.get_text()
     assert overlapping_tick_labels(fig) == []
+
+
+def test_a_noise_comparison_draws_in_the_units_of_each_runs_own_plot(tmp_path, monkeypatch):
+    # two runs with a scale of 20 V/FS: the overlay in dB re 1 V/sqrt(Hz), 20 log10(20) = 26.02 dB over the
+    # density in FS (as each run's plot draws it); without a scale, in FS/sqrt(Hz) - never FS^2/Hz
+    from types import SimpleNamespace
+
+    import benchkit.report.overlays as overlays
+    from benchkit.kinds import get
+
+    got = {}
+    monkeypatch.setattr(overlays, "lines_png", lambda series, labels, path, title, warnings, xl, yl, logx: got.update(
+        series=series, unit=yl) or path)
+    entries = []
+    for name in ("a", "b"):
+        folder = tmp_path / name
+        folder.mkdir()
+        (folder / "capture.noise.csv").write_text("freq_hz,psd_fs2_per_hz,psd_a_fs2_per_hz\n100.0,1.0e-10,1.0e-10\n")
+        entries.append(SimpleNamespace(folder=folder))
+    comparison = SimpleNamespace(labels=("a", "b"), warnings=())
+    get("noise").overlay(comparison, [{"volts_per_fs": 20.0}] * 2, entries, tmp_path, "t")
+    assert got["unit"] == "dB re 1 V/sqrt(Hz)" and got["series"][0][1][0] == pytest.approx(-100 + 20 * np.log10(20))
+    get("noise").overlay(comparison, [{"volts_per_fs": None}] * 2, entries, tmp_path, "t")
+    assert got["unit"] == "dB re 1 FS/sqrt(Hz)" and got["series"][0][1][0] == pytest.approx(-100.0)

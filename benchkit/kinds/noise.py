@@ -102,17 +102,20 @@ def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
 
 
 def overlay(comparison, docs: list[dict], entries, out: Path, title: str) -> list[Path]:
-    """The noise density each run left in its CSV, in dB, against frequency."""
-    import numpy as np
-
+    """The noise density each run left in its CSV, in dB against frequency:
+    in volts when every run has a scale (as each run's own plot), else in FS."""
     from benchkit.report import overlays
+    from benchkit.report.noise import density_db
 
-    series = []
-    for e in entries:
+    scales = [d.get("volts_per_fs") for d in docs]
+    scaled = all(isinstance(s, (int, float)) and s > 0 for s in scales)
+    series, unit = [], ""
+    for e, scale in zip(entries, scales):
         f, psd = series_from_csv(e.folder, "capture.noise.csv", "freq_hz", "psd_fs2_per_hz")
-        series.append((f, 10 * np.log10(np.maximum(psd, 1e-300))))
+        db, unit = density_db(psd, scale if scaled else None)
+        series.append((f, db))
     return [overlays.lines_png(series, comparison.labels, out / "overlay.png", f"{title}: noise density",
-                               comparison.warnings, "frequency (Hz)", "dB re 1 FS^2/Hz", True)]
+                               comparison.warnings, "frequency (Hz)", unit, True)]
 
 
 def recognises(rec) -> bool:

@@ -66,15 +66,26 @@ def write_noise_csv(result, path: Path) -> Path:
     return path
 
 
+def density_db(psd_fs2_per_hz, volts_per_fs: float | None):
+    """A noise density in dB, and its unit: re 1 V/sqrt(Hz) with a scale,
+    else re 1 FS/sqrt(Hz) (the run's plot and the comparison's overlay alike)."""
+    db = 10 * np.log10(np.maximum(np.asarray(psd_fs2_per_hz, float), 1e-300))
+    if volts_per_fs:
+        return db + 20 * np.log10(volts_per_fs), "dB re 1 V/sqrt(Hz)"
+    return db, "dB re 1 FS/sqrt(Hz)"
+
+
 def noise_figure(result, title: str) -> Figure:
     """The noise spectrum (density, log frequency), the A-weighted density
     beside it, the band shaded and the hum lines marked with their levels."""
     from benchkit.analysis.weighting import a_weighting_power
 
     f, p = result.freq_hz[1:], result.psd_fs2_per_hz[1:]
-    scale = result.volts_per_fs
-    unit = "dB re 1 V/sqrt(Hz)" if scale else "dB re 1 FS/sqrt(Hz)"
-    to_db = (lambda q: 10 * np.log10(np.maximum(q, 1e-300)) + (20 * np.log10(scale) if scale else 0.0))
+    unit = density_db(1.0, result.volts_per_fs)[1]
+
+    def to_db(q):
+        return density_db(q, result.volts_per_fs)[0]
+
     fig = Figure(figsize=(10, 5.6))
     ax = fig.add_subplot(1, 1, 1)
     lo, hi = result.bandwidth_hz
