@@ -134,3 +134,27 @@ def test_a_noise_comparison_draws_in_the_units_of_each_runs_own_plot(tmp_path, m
     assert got["unit"] == "dB re 1 V/sqrt(Hz)" and got["series"][0][1][0] == pytest.approx(-100 + 20 * np.log10(20))
     get("noise").overlay(comparison, [{"volts_per_fs": None}] * 2, entries, tmp_path, "t")
     assert got["unit"] == "dB re 1 FS/sqrt(Hz)" and got["series"][0][1][0] == pytest.approx(-100.0)
+
+
+def test_a_spectrums_harmonic_labels_never_collide():
+    # a hard-clipped sine's odd harmonics (Fourier series: every one well over the noise) crowd the top
+    # decade of a log axis: no two labels' boxes overlap, none leaves the axes, and the low orders are named
+    from benchkit import analyze_tone
+    from benchkit.report.tone import spectrum_figure
+
+    t = np.arange(48000) / 48000
+    x = np.clip(1.3 * np.sin(2 * np.pi * 997 * t), -1, 1) * 0.5
+    x = x + 0.3 * x**2 + np.random.default_rng(1).normal(0, 1e-6, t.size)  # even orders too
+    fig = spectrum_figure(analyze_tone(x, 48000, traces=True), "clipped")
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    renderer = canvas.get_renderer()
+    ax = fig.axes[0]
+    texts = [t for t in ax.texts if t.get_text()]
+    boxes = [t.get_window_extent(renderer) for t in texts]
+    frame = ax.get_window_extent(renderer)
+    assert all(frame.x0 <= b.x0 and b.x1 <= frame.x1 for b in boxes)
+    assert not [(a.get_text(), b.get_text()) for i, (a, ba) in enumerate(zip(texts, boxes))
+                for b, bb in list(zip(texts, boxes))[i + 1:] if ba.overlaps(bb)]
+    named = {t.get_text().split("\n")[0] for t in texts}
+    assert {"H2", "H3"} <= named

@@ -25,6 +25,36 @@ def hz_label(v, _pos=None) -> str:
     return f"{v / 1000:g}k" if v >= 1000 else f"{v:g}"
 
 
+def renderer_of(fig: Figure):
+    """The figure's Agg renderer (an Agg canvas attached when it has none), to measure text boxes."""
+    canvas = fig.canvas if isinstance(fig.canvas, FigureCanvasAgg) else FigureCanvasAgg(fig)
+    return canvas.get_renderer()
+
+
+def labels_apart(ax, points, levels=(6, 28, 50, 72, -34, -56), placed=None, **style) -> list:
+    """Label ``points`` ((x, y, text), in data units) above each point (or below it), each
+    at the lowest of ``levels`` (offsets in points) where its box overlaps
+    none placed before it (``placed``: boxes already there, such as another
+    label's) and stays inside the axes; one that fits nowhere is left out,
+    its marker speaking for it. Call once the axes' limits and the
+    figure's layout are set: the boxes are measured by the Agg renderer."""
+    renderer = renderer_of(ax.figure)
+    frame = ax.get_window_extent(renderer)
+    placed = list(placed or [])
+    drawn = []
+    for x, y, text in points:
+        for dy in levels:
+            a = ax.annotate(text, (x, y), textcoords="offset points", xytext=(0, dy), ha="center", **style)
+            box = a.get_window_extent(renderer)
+            inside = frame.x0 <= box.x0 and box.x1 <= frame.x1 and frame.y0 <= box.y0 and box.y1 <= frame.y1
+            if inside and not any(box.overlaps(b) for b in placed):
+                placed.append(box)
+                drawn.append(a)
+                break
+            a.remove()
+    return drawn
+
+
 def save_png(fig: Figure, path: Path) -> Path:
     FigureCanvasAgg(fig)
     fig.savefig(path, dpi=110)

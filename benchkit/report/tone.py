@@ -18,7 +18,8 @@ from benchkit.errors import read_warnings
 from benchkit.report import overlays, tables
 from benchkit.report.files import report_folder, stem_of, title_of
 from benchkit.report.overlays import colour, finish_overlay
-from benchkit.report.plots import BAND, FAINT, hz_label, LABELLED_HARMONICS, MARK, save_png, TRACE
+from benchkit.report.plots import (BAND, FAINT, hz_label, labels_apart, LABELLED_HARMONICS, MARK, renderer_of, save_png,
+                                   TRACE)
 from benchkit.units import quantity
 
 #: the warnings that make a result not valid, named on its NOT VALID line
@@ -219,19 +220,14 @@ def spectrum_figure(result: ToneResult, title: str) -> Figure:
     band = tr.spectrum_dbfs[(tr.freq_hz >= max(lo, lo_f)) & (tr.freq_hz <= hi)]
     floor = float(np.median(band if band.size else tr.spectrum_dbfs[sel]))
     ax.plot([result.fundamental_hz], [result.fundamental_dbfs], "o", ms=6, mfc="none", mec=MARK, zorder=3)
-    ax.annotate(
+    fundamental = ax.annotate(
         f"{result.fundamental_hz:.2f} Hz\n{result.fundamental_dbfs:.2f} dBFS",
         (result.fundamental_hz, result.fundamental_dbfs),
         textcoords="offset points", xytext=(8, -4), fontsize=8, color=MARK, va="top",
     )
-    for i, h in enumerate(result.harmonics[:LABELLED_HARMONICS]):
-        if h.level_dbfs < floor + 10.0:  # not clear of the noise: leave unlabelled
-            continue
+    heard = [h for h in result.harmonics[:LABELLED_HARMONICS] if h.level_dbfs >= floor + 10.0]  # clear of the noise
+    for h in heard:
         ax.plot([h.freq_hz], [h.level_dbfs], "v", ms=5, color=MARK, zorder=3)
-        ax.annotate(  # alternate heights so neighbours on a log axis do not collide
-            f"H{h.order}\n{h.level_dbc:.1f} dBc", (h.freq_hz, h.level_dbfs),
-            textcoords="offset points", xytext=(0, 6 + 22 * (i % 2)), ha="center", fontsize=7, color=MARK,
-        )
     ax.set_xscale("log")
     ax.set_xlim(lo_f, tr.freq_hz[-1])
     ax.xaxis.set_major_formatter(FuncFormatter(hz_label))
@@ -242,6 +238,10 @@ def spectrum_figure(result: ToneResult, title: str) -> Figure:
     ax.set_title(title, loc="left", fontsize=10)
     fig.text(0.01, 0.01, conditions_line(result), fontsize=7.5, color="#333333", ha="left", va="bottom", wrap=True)
     fig.subplots_adjust(left=0.08, right=0.98, top=0.92, bottom=0.16)
+    # each harmonic's label where it collides with no other (and not with the fundamental's)
+    labels_apart(ax, [(h.freq_hz, h.level_dbfs, f"H{h.order}\n{h.level_dbc:.1f} dBc") for h in heard],
+                 placed=[fundamental.get_window_extent(renderer_of(fig))], fontsize=7, color=MARK,
+                 bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85})
     return fig
 
 
