@@ -158,3 +158,29 @@ def test_a_spectrums_harmonic_labels_never_collide():
                 for b, bb in list(zip(texts, boxes))[i + 1:] if ba.overlaps(bb)]
     named = {t.get_text().split("\n")[0] for t in texts}
     assert {"H2", "H3"} <= named
+
+
+def test_a_power_plots_onset_label_stays_off_its_curves_and_its_top_off_the_frame():
+    # the hard-clip stage of analyze_power's example (Fourier: onset where the peaks reach 10 V): the onset's
+    # label box holds no point of either curve, and the top point stands clear of the frame
+    import benchkit
+    from benchkit.report.power import power_figure
+
+    t = np.arange(24000) / 48000
+    steps = []
+    for vpk in np.arange(8.0, 12.01, 0.25):
+        out = np.clip(vpk * np.sin(2 * np.pi * 1000 * t), -10.0, 10.0) + np.random.default_rng(1).normal(0, 1e-4, t.size)
+        steps.append((20 * np.log10(vpk / 20), benchkit.analyze_tone(out / 20.0, 48000, volts_per_fs=20.0, load_ohms=8.0)))
+    result = benchkit.analyze_power(steps, load_ohms=8.0)
+    fig = power_figure(result, "hard clip")
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    renderer = canvas.get_renderer()
+    ax = fig.axes[0]
+    onset = next(t for t in ax.texts if t.get_text().startswith("onset"))
+    box = onset.get_window_extent(renderer)
+    for line in ax.lines[:2]:  # THD+N, THD
+        points = ax.transData.transform(np.column_stack(line.get_data()))
+        assert not any(box.contains(x, y) for x, y in points)
+    top = max(ax.transData.transform(np.column_stack(ax.lines[0].get_data()))[:, 1])
+    assert ax.get_window_extent(renderer).y1 - top > 10  # pixels

@@ -103,6 +103,8 @@ def power_figure(result, title: str) -> Figure:
         a.set_xlabel(xlabel)
         a.set_ylabel("percent")
         a.grid(True, which="both", color="#e6e6e6", lw=0.5)
+        # room above the top point (it sat on the frame) for the labels there
+        a.set_ylim(top=2.5 * max(max(thdn), max(thd)))
     for lim, pt in result.limits:
         ax.axhline(lim, color=FAINT, lw=0.6, ls=":")
         if pt is not None:
@@ -110,9 +112,11 @@ def power_figure(result, title: str) -> Figure:
             ax.annotate(f"{quantity(pt.power_w, 'W', 3)} at {lim:g} %", (pt.power_w, lim), textcoords="offset points",
                         xytext=(-8, 6), ha="right", fontsize=8, color=MARK)
     if result.onset is not None:
+        # along its line at the foot of the plot, clear of the curves (they rise from well above it there)
         ax.axvline(result.onset.power_w, color=MARK, lw=0.8, ls="--")
-        ax.annotate(f"onset {quantity(result.onset.power_w, 'W', 3)}", (result.onset.power_w, min(thdn)), textcoords="offset points",
-                    xytext=(4, 4), fontsize=8, color=MARK)
+        ax.annotate(f"onset {quantity(result.onset.power_w, 'W', 3)}", (result.onset.power_w, 0.0),
+                    xycoords=("data", "axes fraction"), textcoords="offset points", xytext=(4, 4), fontsize=8,
+                    color=MARK)
     if result.expected:
         ax.axvline(result.expected["max_sine_w"], color="#4b8a3e", lw=0.8, ls="-.")
         ax.annotate(f"expected ceiling {quantity(result.expected['max_sine_w'], 'W', 3)}", (result.expected["max_sine_w"], max(thdn)),
