@@ -24,7 +24,7 @@ import math
 
 import numpy as np
 
-from benchkit.analysis.uncertainty import block
+from benchkit.analysis.uncertainty import block, mean_and_u
 
 #: The key of the takes in the mean's document.
 TAKES = "takes"
@@ -78,7 +78,7 @@ def _combine(values: list, own: list, shared: list, n: int):
     if not all(_is_number(v) for v in values) or not all(_is_number(u) for u in own):
         return None
     common = [s if _is_number(s) else 0.0 for s in shared]
-    scatter = float(np.var(values, ddof=1)) / n
+    scatter = mean_and_u(values)[1] ** 2  # (s / sqrt n)^2
     own_a = float(np.mean([max(u * u - s * s, 0.0) for u, s in zip(own, common)])) / n
     return math.sqrt(max(scatter, own_a) + float(np.mean(np.square(common))))
 

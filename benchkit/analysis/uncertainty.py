@@ -121,11 +121,6 @@ class Budget:
         return Budget(tuple(p for p in self.parts if p[0] not in SHARED))
 
 
-def db_budget(rel: Budget, power: bool = False) -> Budget:
-    """A budget of relative uncertainties as one in dB (10 log for a power)."""
-    return rel.scaled(DB_PER_REL / (2.0 if power else 1.0))
-
-
 # --- the analysis window's band-power statistics -------------------------------------
 
 @lru_cache(maxsize=8)
