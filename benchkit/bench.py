@@ -93,7 +93,7 @@ def measure(kind_name: str, o: dict, say: Callable[[str], None], ask: Callable[[
     repeat = o.get("repeat") or 1
     if repeat > 1 and o.get("from_runs"):
         raise BenchkitError(f"--repeat {repeat}: a run made from logged runs measures nothing to repeat")
-    made = kind.live.other(o, say) if kind.live.other is not None else None
+    made = kind.live.other(o, say, tell) if kind.live.other is not None else None
     if made is not None or kind.live.over_time:
         return made
     opening = dict(kind.live.opens(o))

@@ -6,7 +6,7 @@ import sys
 
 import typer
 
-from benchkit.cli.common import app, err, EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_STOPPED_EARLY, live_run, show, takes
+from benchkit.cli.common import answer, app, err, EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_STOPPED_EARLY, live_run, show, takes
 
 
 @app.command()
@@ -45,7 +45,7 @@ def drift(o: dict) -> None:
     from benchkit.kinds.drift import log
 
     with live_run():
-        filed, end = log(o, err)
+        filed, end = log(o, err, lambda text: answer(text, o["json"]))
     show(filed, o["json"])
     if end.how not in ("duration", "settled"):
         raise typer.Exit(EXIT_INTERRUPTED if end.how == "interrupted" else EXIT_BAD_INPUT)

@@ -173,7 +173,7 @@ class Live:
     about
         Its command's help: what it does, an example, the safety notes.
     other
-        ``(o, say) -> Filed | None``: a run made another way when the
+        ``(o, say, tell) -> Filed | None``: a run made another way when the
         options ask for it (zout --from: two logged runs), else None.
     over_time
         It logs readings over time (drift): ``other`` makes every run,

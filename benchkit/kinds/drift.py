@@ -236,10 +236,11 @@ def _source(o: dict, profile, say):
     return meters.InterfaceDc(backend, profile, o["in_channel"])
 
 
-def log(o: dict, say):
+def log(o: dict, say, tell=None):
     """A DC log on the bench its options describe (by key,
     benchkit.options), filed in the logbook: every reading written as it
-    comes, then judged. Returns the filed run and how the log ended."""
+    comes, then judged (its summary through ``tell``, default ``say``).
+    Returns the filed run and how the log ended."""
     from benchkit import meters
     from benchkit.bench import bench_logbook, finish, start_run
     from benchkit.calibration import load_profile
@@ -278,7 +279,7 @@ def log(o: dict, say):
                                        info={"source": reader.name, "ended": end.how, "accelerated": params["accelerated"]},
                                        nominal_v=o["nominal"])
             got = Measured(result, f"{reader.name}: {end.how}", status="complete" if whole else "interrupted")
-            return finish(run, KIND, got, say), end
+            return finish(run, KIND, got, say, tell=tell), end
 
 
 #: the command's help
@@ -305,7 +306,7 @@ ON_BENCH = Live(
     defaults=dict(dc_source="virtual"),
     helps=dict(current_meter="A meter reading the supply's DC current (its VISA resource), logged beside the volts."),
     about=ABOUT,
-    other=lambda o, say: log(o, say)[0],
+    other=lambda o, say, tell=None: log(o, say, tell)[0],
     over_time=True,
 )
 

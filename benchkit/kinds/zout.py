@@ -221,7 +221,7 @@ def _measure(s, folder: Path) -> Measured:
     return Measured(result, "output impedance")
 
 
-def from_runs(o: dict, say):
+def from_runs(o: dict, say, tell=None):
     """The output impedance from two logged runs' stored results (--from:
     the unloaded one, then the loaded one), filed as a run of its own with
     copies of the two results, for reanalysis; None without --from."""
@@ -242,7 +242,7 @@ def from_runs(o: dict, say):
         with start_run(book, labels, "zout", "logbook", None, None, params, say) as run:
             copies = [write_json(d, run.folder / f"{state}.result.json") for d, state in zip(docs, ("open", "loaded"))]
             title = f"output impedance from {entries[0].id} (open) and {entries[1].id} (loaded)"
-            return finish(run, KIND, Measured(result, title, files=tuple(copies)), say)
+            return finish(run, KIND, Measured(result, title, files=tuple(copies)), say, tell=tell)
 
 
 #: the command's help
