@@ -1,5 +1,9 @@
 """Warnings carry codes: one list of codes, documented, the same shape in
-every document, and version-1 texts still read."""
+every document, and version-1 texts still read.
+
+Plumbing only: no measured figure is checked here, so no outside source
+is named; the figures a warning speaks of are checked against their
+sources in the measurement tests."""
 
 from __future__ import annotations
 

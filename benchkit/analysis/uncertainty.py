@@ -29,7 +29,7 @@ Pure: numbers in, numbers out.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
@@ -198,7 +198,6 @@ class Chain:
     pad: float = 0.0
     load: float = 0.0
     response: tuple = ()
-    notes: dict = field(default_factory=dict, compare=False)
 
     @classmethod
     def of_profile(cls, profile, load_tolerance_pct: float | None = None) -> "Chain":
