@@ -18,6 +18,16 @@ import pytest
 import forkcli
 
 
+#: the demo stage of a plan (DESIGN.md's invented scenario), for the tests' plans
+PLAN_STAGE = """[stage]
+name = "Test stage B-2 (invented)"
+load = 8
+rail = 24
+bias = 0.8
+vsat = 1.0
+pad = "1.8k:200"
+"""
+
 def cosine(freq_hz: float, rate: float, seconds: float = 1.0, amp: float = 0.5, phase: float = 0.0) -> np.ndarray:
     n = np.arange(int(round(rate * seconds)))
     return amp * np.cos(2 * np.pi * freq_hz * n / rate + phase)

@@ -27,18 +27,10 @@ from benchkit.logbook import Logbook
 from benchkit.plan import DEMO_PLAN, parse_plan, read_plan
 from benchkit.session import SessionInterrupted, read_session, run_session
 
-from conftest import run_cli, system_program
+from conftest import PLAN_STAGE, run_cli, system_program
 
 #: a short plan: the demo stage, a tone at two levels, a power run, noise and a DC log
-SHORT = """
-[stage]
-name = "Test stage B-2 (invented)"
-load = 8
-rail = 24
-bias = 0.8
-vsat = 1.0
-pad = "1.8k:200"
-
+SHORT = PLAN_STAGE + """
 [[measure]]
 kind = "tone"
 level = ["-30dBFS", "-14dBFS"]

@@ -17,7 +17,7 @@ from benchkit.errors import read_warnings
 from benchkit.report import tables
 from benchkit.report.files import report_folder, stem_of, title_of
 from benchkit.report.overlays import percent_axes, colour, finish_overlay
-from benchkit.report.plots import hz_label, save_png
+from benchkit.report.plots import floored, hz_label, labels_apart, save_png
 from benchkit.units import quantity
 
 
@@ -143,21 +143,24 @@ def imd_figure(docs, labels, title: str, warnings=(), spectrum=None) -> Figure:
         lo, hi = (f2 - 5.5 * f1, f2 + 5.5 * f1) if step.get("method", docs[0].get("method")) == "modulation" else (
             0.0, min(f[-1], 2 * f2 - f1 + 2 * (f2 - f1)))
         sel = (f >= max(lo, 10.0)) & (f <= hi)
-        axs.plot(f[sel], level[sel], lw=0.7, color=colour(0))
+        bottom = max(float(np.median(level[sel])) - 30.0, -220.0)
+        axs.plot(f[sel], floored(level[sel], bottom), lw=0.7, color=colour(0))
         shown = [p for p in step.get("products") or [] if not p.get("at_floor") and lo <= p["frequency_hz"] <= hi]
         db = [units.dbfs_from_peak(max(p["amplitude_fs"], 1e-15)) for p in shown]
         axs.plot([p["frequency_hz"] for p in shown], db, "v", ms=5, color="#c2571a")
-        for k, (p, y) in enumerate(sorted(zip(shown, db), key=lambda q: -q[1])[:8]):
-            axs.annotate(f"{p['label']}\n{p['level_db']:.1f} dB", (p["frequency_hz"], y), textcoords="offset points",
-                         xytext=(0, 8 + 14 * (k % 2)), ha="center", fontsize=7, color="#c2571a")
         axs.set_xlim(max(lo, 0.0), hi)
-        axs.set_ylim(max(float(np.median(level[sel])) - 30.0, -220.0), 5.0)
+        axs.set_ylim(bottom, 5.0)
+        products = [(p["frequency_hz"], y, f"{p['label']}\n{p['level_db']:.1f} dB")
+                    for p, y in sorted(zip(shown, db), key=lambda q: -q[1])[:8]]
         axs.xaxis.set_major_formatter(FuncFormatter(hz_label))
         axs.set_xlabel("frequency (Hz)")
         axs.set_ylabel("dBFS" if step["drive_dbfs"] is None else f"dBFS, drive {step['drive_dbfs']:g} dBFS")
         axs.grid(True, which="both", color="#e6e6e6", lw=0.5)
         fig.subplots_adjust(hspace=0.32)
-    return finish_overlay(fig, ax, f"{title}: intermodulation", warnings, "", "upper left", 0.09)
+    finish_overlay(fig, ax, f"{title}: intermodulation", warnings, "", "upper left", 0.09)
+    if spectrum is not None:  # the products' labels once the layout is set, where they collide with nothing
+        labels_apart(axs, products, fontsize=7, color="#c2571a")
+    return fig
 
 
 def imd_png(docs, labels, path: Path, title: str, warnings=(), spectrum=None) -> Path:

@@ -13,7 +13,7 @@ from matplotlib.figure import Figure
 from benchkit.analysis.uncertainty import lookup, shown, shown_quantity
 from benchkit.errors import read_warnings
 from benchkit.report.files import result_csv_png
-from benchkit.report.plots import BAND, FAINT, log_hz_axis, MARK, save_png, TRACE
+from benchkit.report.plots import BAND, FAINT, labels_apart, LEGEND_PLACES, legend_clear, log_hz_axis, MARK, save_png, TRACE
 from benchkit.units import quantity
 
 
@@ -80,7 +80,8 @@ def noise_figure(result, title: str) -> Figure:
     beside it, the band shaded and the hum lines marked with their levels."""
     from benchkit.analysis.weighting import a_weighting_power
 
-    f, p = result.freq_hz[1:], result.psd_fs2_per_hz[1:]
+    shown = result.freq_hz >= max(result.freq_hz[1], 5.0)  # from 5 Hz (or the first bin above DC)
+    f, p = result.freq_hz[shown], result.psd_fs2_per_hz[shown]
     unit = density_db(1.0, result.volts_per_fs)[1]
 
     def to_db(q):
@@ -92,23 +93,24 @@ def noise_figure(result, title: str) -> Figure:
     ax.axvspan(max(lo, f[0]), hi, color=BAND, zorder=0, label="measurement band")
     ax.plot(f, to_db(p), color=TRACE, lw=0.8, label="noise density")
     ax.plot(f, to_db(p * a_weighting_power(f)), color=FAINT, lw=0.8, label="A-weighted")
+    hum = []
     for h in result.hum:
         k = int(np.argmin(np.abs(f - h.freq_hz)))
         ax.plot([f[k]], [to_db(p[k])], "v", ms=5, color=MARK)
-        ax.annotate(f"{h.freq_hz:g} Hz\n{h.level_dbfs:.1f} dBFS", (f[k], to_db(p[k])), textcoords="offset points",
-                    xytext=(0, 6), ha="center", fontsize=7, color=MARK)
+        hum.append((f[k], to_db(p[k]), f"{h.freq_hz:g} Hz\n{h.level_dbfs:.1f} dBFS"))
     log_hz_axis(ax)
-    ax.set_xlim(max(f[0], 5.0), f[-1])
+    ax.set_xlim(f[0], f[-1])
     in_band = to_db(p[(f >= lo) & (f <= hi)])
     ax.set_ylim(float(np.min(in_band)) - 30.0, float(np.max(in_band)) + 12.0)
     ax.set_xlabel("frequency (Hz)")
     ax.set_ylabel(unit)
     ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
-    ax.legend(loc="upper right", fontsize=8, frameon=False)
     d = result.to_dict()
     ax.set_title(f"{title}: noise {d['noise_dbfs']:.1f} dBFS, A-weighted {d['noise_a_dbfs']:.1f} dBFS", loc="left",
                  fontsize=10)
     fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.11)
+    labels_apart(ax, hum, fontsize=7, color=MARK)
+    legend_clear(ax, ("upper right", *LEGEND_PLACES), fontsize=8, frameon=False)
     return fig
 
 

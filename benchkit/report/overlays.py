@@ -8,7 +8,7 @@ from pathlib import Path
 
 from matplotlib.figure import Figure
 
-from benchkit.report.plots import log_hz_axis, readable_log, save_png
+from benchkit.report.plots import LEGEND_PLACES, legend_clear, log_hz_axis, readable_log, save_png
 
 #: one colour a run, in run order (the first is the baseline)
 COLOURS = ("#1f3b57", "#c2571a", "#4b8a3e", "#7a4b8a", "#8a6d1f", "#2a7f8a")
@@ -22,13 +22,13 @@ def finish_overlay(fig, ax, title: str, warnings, caption: str, legend: str, lef
     """Grid, legend, title, a caption (the conditions, or in red the
     warnings that the runs do not compare like for like)."""
     ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
-    ax.legend(loc=legend, fontsize=8, frameon=False)
     ax.set_title(title, loc="left", fontsize=10)
     if warnings:
         fig.text(0.01, 0.01, "  ".join(warnings), fontsize=8, color="#b00020", ha="left", va="bottom", wrap=True)
     elif caption:
         fig.text(0.01, 0.01, caption, fontsize=7.5, color="#333333", ha="left", va="bottom", wrap=True)
     fig.subplots_adjust(left=left, right=0.97, top=0.92, bottom=0.15)
+    legend_clear(ax, (legend, *(p for p in LEGEND_PLACES if p != legend)), fontsize=8, frameon=False)
     return fig
 
 
@@ -78,7 +78,7 @@ def lines_figure(series, labels, title: str, warnings, xlabel: str, ylabel: str,
         log_hz_axis(ax)
     ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)
-    return finish_overlay(fig, ax, title, warnings, "", "best", 0.09)
+    return finish_overlay(fig, ax, title, warnings, "", "upper right", 0.09)
 
 
 def lines_png(series, labels, path: Path, title: str, warnings, xlabel: str, ylabel: str, log_x: bool) -> Path:

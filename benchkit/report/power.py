@@ -9,7 +9,7 @@ from pathlib import Path
 from matplotlib.figure import Figure
 
 from benchkit.report.files import result_csv_png
-from benchkit.report.plots import FAINT, MARK, readable_log, save_png, TRACE
+from benchkit.report.plots import BESIDE, FAINT, labels_apart, legend_clear, MARK, readable_log, save_png, TRACE
 from benchkit.report.summary import first_half
 from benchkit.analysis.uncertainty import shown_quantity
 from benchkit.units import quantity
@@ -105,29 +105,41 @@ def power_figure(result, title: str) -> Figure:
         a.grid(True, which="both", color="#e6e6e6", lw=0.5)
         # room above the top point (it sat on the frame) for the labels there
         a.set_ylim(top=2.5 * max(max(thdn), max(thd)))
+    # and right of it for the limits' labels: left of a crossing the onset's and the ceiling's lines run
+    ax.set_xlim(right=2.5 * max(p))
+    labels = []
     for lim, pt in result.limits:
         ax.axhline(lim, color=FAINT, lw=0.6, ls=":")
         if pt is not None:
             ax.plot([pt.power_w], [lim], "s", ms=6, mfc="none", mec=MARK)
-            ax.annotate(f"{quantity(pt.power_w, 'W', 3)} at {lim:g} %", (pt.power_w, lim), textcoords="offset points",
-                        xytext=(-8, 6), ha="right", fontsize=8, color=MARK)
+            labels.append((pt.power_w, lim, f"{quantity(pt.power_w, 'W', 3)} at {lim:g} %", MARK))
     if result.onset is not None:
-        # along its line at the foot of the plot, clear of the curves (they rise from well above it there)
         ax.axvline(result.onset.power_w, color=MARK, lw=0.8, ls="--")
-        ax.annotate(f"onset {quantity(result.onset.power_w, 'W', 3)}", (result.onset.power_w, 0.0),
-                    xycoords=("data", "axes fraction"), textcoords="offset points", xytext=(4, 4), fontsize=8,
-                    color=MARK)
     if result.expected:
         ax.axvline(result.expected["max_sine_w"], color="#4b8a3e", lw=0.8, ls="-.")
-        ax.annotate(f"expected ceiling {quantity(result.expected['max_sine_w'], 'W', 3)}", (result.expected["max_sine_w"], max(thdn)),
-                    textcoords="offset points", xytext=(-4, -12), ha="right", fontsize=8, color="#4b8a3e")
-    ax.legend(loc="upper left", fontsize=8, frameon=False)
     ax.set_title(f"{title}: distortion against power", loc="left", fontsize=10)
     axv.set_title("against level", loc="left", fontsize=10)
     half = f"; clipping half: {result.half}" if result.half else ""
     fig.text(0.01, 0.01, f"{result.frequency_hz:g} Hz into {result.load_ohms:g} ohm; limits on "
              f"{'THD+N' if result.metric == 'thdn' else 'THD'}{half}", fontsize=7.5, color="#333333", ha="left", va="bottom")
     fig.subplots_adjust(left=0.07, right=0.98, top=0.92, bottom=0.14, wspace=0.22)
+    # every label beside its point where no curve, line or other label runs through it: the limits' at
+    # their crossings, the onset's and the ceiling's along their lines (from the foot up)
+    placed = []
+    for x, y, text, shade in labels:
+        labels_apart(ax, [(x, y, text)], BESIDE, placed, fontsize=8, color=shade)
+    along = ([(result.onset.power_w, f"onset {quantity(result.onset.power_w, 'W', 3)}", MARK)]
+             if result.onset is not None else [])
+    if result.expected:
+        ceiling = result.expected["max_sine_w"]
+        along.append((ceiling, f"expected ceiling {quantity(ceiling, 'W', 3)}", "#4b8a3e"))
+    y0, y1 = ax.get_ylim()
+    for x, text, shade in along:
+        for height in (0.02, 0.2, 0.4, 0.6, 0.8):  # the first clear height, as a fraction of the log axis
+            if labels_apart(ax, [(x, y0 * (y1 / y0) ** height, text)], ((4, 0, "left"), (-4, 0, "right")), placed,
+                            fontsize=8, color=shade):
+                break
+    legend_clear(ax, fontsize=8, frameon=False)
     return fig
 
 

@@ -15,7 +15,7 @@ from benchkit.analysis.uncertainty import lookup, shown_quantity
 from benchkit.report import tables
 from benchkit.report.files import report_folder, stem_of, title_of
 from benchkit.report.overlays import colour, finish_overlay
-from benchkit.report.plots import FAINT, hz_label, log_hz_axis, MARK, save_png, TRACE
+from benchkit.report.plots import FAINT, hz_label, legend_clear, log_hz_axis, MARK, save_png, TRACE
 from benchkit.units import quantity
 
 
@@ -143,10 +143,10 @@ def distortion_figure(result, title: str) -> Figure:
     log_hz_axis(ax)
     ax.set_xlabel("fundamental frequency (Hz)")
     ax.set_ylabel("dB re the fundamental")
-    ax.legend(loc="upper left", fontsize=8, frameon=False)
     ax.set_title(f"{title}: distortion against frequency", loc="left", fontsize=10)
     fig.text(0.01, 0.01, _response_caption(result), fontsize=7.5, color="#333333", ha="left", va="bottom")
     fig.subplots_adjust(left=0.09, right=0.97, top=0.92, bottom=0.15)
+    legend_clear(ax, fontsize=8, frameon=False)
     return fig
 
 

@@ -18,7 +18,7 @@ from benchkit.errors import read_warnings
 from benchkit.report import overlays, tables
 from benchkit.report.files import report_folder, stem_of, title_of
 from benchkit.report.overlays import colour, finish_overlay
-from benchkit.report.plots import (BAND, FAINT, hz_label, labels_apart, LABELLED_HARMONICS, MARK, renderer_of, save_png,
+from benchkit.report.plots import (BAND, FAINT, floored, hz_label, labels_apart, LABELLED_HARMONICS, MARK, renderer_of, save_png,
                                    TRACE)
 from benchkit.units import quantity
 
@@ -215,10 +215,11 @@ def spectrum_figure(result: ToneResult, title: str) -> Figure:
     lo_f = max(tr.freq_hz[1], min(10.0, result.fundamental_hz / 2))
     sel = tr.freq_hz >= lo_f
     ax.axvspan(max(result.bandwidth_hz[0], lo_f), result.bandwidth_hz[1], color=BAND, zorder=0, label="measurement band")
-    ax.plot(tr.freq_hz[sel], tr.spectrum_dbfs[sel], color=TRACE, lw=0.8, zorder=2)
     lo, hi = result.bandwidth_hz
     band = tr.spectrum_dbfs[(tr.freq_hz >= max(lo, lo_f)) & (tr.freq_hz <= hi)]
     floor = float(np.median(band if band.size else tr.spectrum_dbfs[sel]))
+    bottom = max(floor - 25.0, -260.0)
+    ax.plot(tr.freq_hz[sel], floored(tr.spectrum_dbfs[sel], bottom), color=TRACE, lw=0.8, zorder=2)
     ax.plot([result.fundamental_hz], [result.fundamental_dbfs], "o", ms=6, mfc="none", mec=MARK, zorder=3)
     fundamental = ax.annotate(
         f"{result.fundamental_hz:.2f} Hz\n{result.fundamental_dbfs:.2f} dBFS",
@@ -231,7 +232,7 @@ def spectrum_figure(result: ToneResult, title: str) -> Figure:
     ax.set_xscale("log")
     ax.set_xlim(lo_f, tr.freq_hz[-1])
     ax.xaxis.set_major_formatter(FuncFormatter(hz_label))
-    ax.set_ylim(max(floor - 25.0, -260.0), max(5.0, result.fundamental_dbfs + 10.0))
+    ax.set_ylim(bottom, max(5.0, result.fundamental_dbfs + 10.0))
     ax.set_xlabel("frequency (Hz)")
     ax.set_ylabel("level of a sine (dBFS)")
     ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
@@ -305,7 +306,7 @@ def steps_reports(steps, path: Path, channel: int, out: Path) -> list[Path]:
     written = [
         tables.write_json(steps.to_dict(), out / f"{stem}.result.json"),
         write_steps_csv(steps, out / f"{stem}.steps.csv"),
-        overlays.distortion_png([steps.to_dict()], [path.name], out / f"{stem}.thdn.png", f"{title_of(path)}: THD+N",
+        overlays.distortion_png([steps.to_dict()], ["THD+N"], out / f"{stem}.thdn.png", f"{title_of(path)}: THD+N",
                                 caption=conditions_line(steps.steps[0].result)),
     ]
     for s in steps.steps:
@@ -327,19 +328,22 @@ def spectra_figure(results, labels, title: str, warnings=()) -> Figure:
     top = max(r.fundamental_dbfs for r in results)
     lo_f = max(results[0].traces.freq_hz[1], min(10.0, results[0].fundamental_hz / 2))
     floors = []
+    for r in results:
+        tr = r.traces
+        band = tr.spectrum_dbfs[(tr.freq_hz >= r.bandwidth_hz[0]) & (tr.freq_hz <= r.bandwidth_hz[1])]
+        floors.append(float(np.median(band)) if band.size else -200.0)
+    bottom = max(min(floors) - 25.0, -260.0)
     for i, (label, r) in enumerate(zip(labels, results)):
         tr = r.traces
         sel = tr.freq_hz >= lo_f
-        ax.plot(tr.freq_hz[sel], tr.spectrum_dbfs[sel], lw=0.7, color=colour(i), alpha=0.85,
+        ax.plot(tr.freq_hz[sel], floored(tr.spectrum_dbfs[sel], bottom), lw=0.7, color=colour(i), alpha=0.85,
                 label=f"{label}: THD+N {r.thdn_db:.1f} dB")
         shown = r.harmonics[:9]
         ax.plot([h.freq_hz for h in shown], [h.level_dbfs for h in shown], "o", ms=5, mfc="none", mec=colour(i))
-        band = tr.spectrum_dbfs[(tr.freq_hz >= r.bandwidth_hz[0]) & (tr.freq_hz <= r.bandwidth_hz[1])]
-        floors.append(float(np.median(band)) if band.size else -200.0)
     ax.set_xscale("log")
     ax.xaxis.set_major_formatter(FuncFormatter(hz_label))
     ax.set_xlim(lo_f, results[0].traces.freq_hz[-1])
-    ax.set_ylim(max(min(floors) - 25.0, -260.0), max(5.0, top + 10.0))
+    ax.set_ylim(bottom, max(5.0, top + 10.0))
     ax.set_xlabel("frequency (Hz)")
     ax.set_ylabel("level of a sine (dBFS)")
     return finish_overlay(fig, ax, title, warnings, "", "upper right", 0.08)
