@@ -54,6 +54,15 @@ class Bench:
         return units.parse_band(self.o["bandwidth"])
 
     @property
+    def stage_volts_per_fs(self) -> float | None:
+        """Volts peak at the stage per FS at the measured input: the
+        profile's, else the input's own (--volts-per-fs, the virtual
+        bench's), else None."""
+        if self.profile is not None:
+            return self.profile.stage_volts_per_fs
+        return self.backend.inputs()[self.channel - 1].volts_per_fs
+
+    @property
     def calibration_file(self) -> str | None:
         return None if self.o.get("calibration") is None else str(self.o["calibration"])
 

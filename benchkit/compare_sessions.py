@@ -168,21 +168,18 @@ def write_table(c: SessionComparison, path: Path) -> Path:
 
 def comparison_text(c: SessionComparison) -> str:
     """The table on one screen: every measurement's headline figures."""
-    from benchkit.report.summary import change_text, figure_name, figure_value
+    from benchkit.report.summary import delta_table
 
     lines = [f"!! NOT LIKE FOR LIKE: {p.kind} (step {p.n}): {w}" for p in c.pairs for w in p.report.comparison.warnings]
     lines.append("sessions: " + "; ".join(f"[{k}] {lab} ({d['id']})" for k, (lab, d) in enumerate(zip(c.labels, c.sessions)))
                  + " (changes are from [0])")
-    width = max(12, *(len(lab) for lab in c.labels))
-    shown = list(rows(c))
-    name_w = max((len(figure_name(d)) for _p, d in shown), default=0)
-    current = None
-    for p, d in shown:
-        if p is not current:
-            lines.append(f"{p.n}. {p.kind}" + (f" ({p.label})" if p.label else ""))
-            current = p
-        cells = "  ".join(f"{figure_value(v, d.unit):>{width}}" for v in d.values)
-        changes = "; ".join(change_text(d, k) for k in range(1, len(d.values)))
-        lines.append(f"  {figure_name(d):<{name_w}}  {cells}   {changes}")
+    groups: list = []
+    for p, d in rows(c):
+        if not groups or groups[-1][0] is not p:
+            groups.append((p, []))
+        groups[-1][1].append(d)
+    if groups:
+        lines.append(delta_table([(f"{p.n}. {p.kind}" + (f" ({p.label})" if p.label else ""), ds) for p, ds in groups],
+                                 len(c.labels)))
     lines += [f"not compared: {u}" for u in c.unpaired]
     return "\n".join(lines)

@@ -370,6 +370,39 @@ def _digits(v: float, digits: int) -> str:
     return text.rstrip("0").rstrip(".") if "." in text else text
 
 
+def prefix_scale(unit: str) -> float:
+    """What one of ``unit`` is in its base unit: ``prefix_scale("uVrms")`` is 1e-6."""
+    return _split_unit(unit)[0]
+
+
+def in_one_unit(values, unit: str, digits: int = 4) -> tuple[str, list[str]]:
+    """A column of quantities in one unit, the same decimal places in every
+    cell (so their points line up and a reader compares them at a glance):
+    a unit that takes a prefix gets the prefix and places the largest
+    needs for ``digits`` significant digits (and the smallest for two, up
+    to 6 places); a ratio or level (%, dB) the
+    places its smallest needs (at most 5). Returns the unit as the header
+    shows it and the cells ("-" for None)."""
+    known = [abs(v) for v in values if v is not None and math.isfinite(v)]
+    scale, base, tail = _split_unit(unit)
+    size, prefix = 1.0, ""
+    if known and base in _PREFIXABLE and max(known) > 0:
+        top = max(known) * scale
+        size, prefix = next(((s, p) for s, p in _SI if top >= s * (1 - 0.5 * 10 ** (1 - digits))), _SI[-1])
+    # a prefixed unit: the places the largest needs; a ratio or a level
+    # (%, dB), which spans decades: the places the smallest needs, at most 5
+    nonzero = [v for v in known if v > 0]
+    if base in _PREFIXABLE or not nonzero:
+        top = max(known) * scale / size if nonzero else 1.0
+        places = max(0, digits - 1 - int(math.floor(math.log10(top))))
+        if nonzero:  # and at least two significant digits of the smallest
+            places = min(6, max(places, 1 - int(math.floor(math.log10(min(nonzero) * scale / size)))))
+    else:
+        places = min(5, max(0, digits - 1 - int(math.floor(math.log10(min(nonzero))))))
+    cells = ["-" if v is None or not math.isfinite(v) else f"{v * scale / size:.{places}f}" for v in values]
+    return (f"{prefix}{base}{tail}" if base in _PREFIXABLE else unit), cells
+
+
 def count(n: int, noun: str, plural: str | None = None) -> str:
     """``count(1, "step")`` is "1 step", ``count(3, "step")`` "3 steps"."""
     return f"{n} {noun if n == 1 else (plural or noun + 's')}"

@@ -81,6 +81,10 @@ def test_a_runs_plots_are_titled_by_its_stage_and_tags_not_its_file(tmp_path):
     folder = Path(json.loads(res.stdout)["run"]["folder"])
     assert title_of(folder / "capture.wav") == "Stage X-1; bias=1.2A"
     assert title_of(tmp_path / "elsewhere.wav") == "elsewhere.wav"
+    # a run naming neither: its command and when it started, not capture.wav
+    record = json.loads((folder / "run.json").read_text())
+    (folder / "run.json").write_text(json.dumps({**record, "stage": None, "tags": {}}))
+    assert title_of(folder / "capture.wav") == f"tone run of {record['started'][:10]} {record['started'][11:16]}"
 
 
 def test_a_response_plots_its_group_delay_and_keeps_its_corner_labels_inside():
@@ -134,6 +138,27 @@ def test_a_noise_comparison_draws_in_the_units_of_each_runs_own_plot(tmp_path, m
     assert got["unit"] == "dB re 1 V/sqrt(Hz)" and got["series"][0][1][0] == pytest.approx(-100 + 20 * np.log10(20))
     get("noise").overlay(comparison, [{"volts_per_fs": None}] * 2, entries, tmp_path, "t")
     assert got["unit"] == "dB re 1 FS/sqrt(Hz)" and got["series"][0][1][0] == pytest.approx(-100.0)
+
+
+@pytest.mark.parametrize("scale", [2.0, 20.36, None])
+def test_a_calibrated_spectrum_reads_in_dbv_beside_dbfs_and_its_overlay_alike(scale):
+    # a full-scale sine is scale / sqrt 2 V rms, so dBV = dBFS + 20 log10(scale / sqrt 2) (0 dBV = 1 Vrms,
+    # IEC 60027-3 level conventions); 2 V/FS: +3.01 dB. Two runs with that scale overlay alike; no scale, no volts
+    from benchkit.analysis.tone import analyze_tone
+    from benchkit.report.tone import spectra_figure, spectrum_figure
+
+    rate = 48000
+    t = np.arange(rate) / rate
+    r = analyze_tone(0.5 * np.sin(2 * np.pi * 1000 * t), rate, volts_per_fs=scale, traces=True)
+    for fig in (spectrum_figure(r, "t"), spectra_figure([r, r], ["a", "b"], "t")):
+        FigureCanvasAgg(fig).draw()
+        ax = fig.axes[0]
+        if scale is None:
+            assert ax.child_axes == []
+            continue
+        (right,) = ax.child_axes
+        assert "dBV" in right.get_ylabel()
+        assert np.subtract(right.get_ylim(), ax.get_ylim()) == pytest.approx([20 * np.log10(scale / np.sqrt(2))] * 2)
 
 
 def test_a_spectrums_harmonic_labels_never_collide():

@@ -18,7 +18,7 @@ import numpy as np
 from benchkit import units
 from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.spectrum import WINDOW_NAME
-from benchkit.analysis.tone import DEFAULT_BAND_HZ
+from benchkit.analysis.tone import DEFAULT_BAND_HZ, HARMONIC_OVER_FLOOR_DB
 from benchkit.analysis.compare import Figure, finite
 from benchkit.analysis.uncertainty import Budget, Collector, rel_from_db
 
@@ -145,10 +145,32 @@ class HarmonicCurve:
     order: int
     freq_hz: np.ndarray
     level_dbc: np.ndarray
+    #: what noise alone reads as at each frequency, dBc (None: not known)
+    floor_dbc: np.ndarray | None = None
+
+    @property
+    def in_noise(self) -> np.ndarray:
+        """Where the level does not stand over its noise floor by
+        HARMONIC_OVER_FLOOR_DB (the tone analysis's test for one harmonic):
+        noise may make up much of the reading there."""
+        return in_noise(self.level_dbc, self.floor_dbc)
 
     def to_dict(self) -> dict:
         ok = np.isfinite(self.level_dbc)
-        return {"order": self.order, "freq_hz": self.freq_hz[ok].tolist(), "level_dbc": self.level_dbc[ok].tolist()}
+        out = {"order": self.order, "freq_hz": self.freq_hz[ok].tolist(), "level_dbc": self.level_dbc[ok].tolist()}
+        if self.floor_dbc is not None:
+            out["floor_dbc"] = self.floor_dbc[ok].tolist()
+        return out
+
+
+def in_noise(level_db: np.ndarray, floor_db: np.ndarray | None) -> np.ndarray:
+    """Where a level stands less than HARMONIC_OVER_FLOOR_DB over its noise
+    floor (nowhere where the floor is not known)."""
+    level = np.asarray(level_db, float)
+    if floor_db is None:
+        return np.zeros(level.shape, bool)
+    floor = np.asarray(floor_db, float)
+    return np.isfinite(level) & np.isfinite(floor) & (level < floor + HARMONIC_OVER_FLOOR_DB)
 
 
 @dataclass(frozen=True)
@@ -181,6 +203,20 @@ class ResponseResult:
     def ref_db(self) -> float:
         v = level_at(self.freq_hz, self.mag_db, self.reference_hz)
         return float(np.max(self.mag_db)) if v is None else v
+
+    @property
+    def thd_floor_db(self) -> np.ndarray | None:
+        """What noise alone reads as THD at each frequency, over the orders
+        summed there (None where the harmonics' floors are not known)."""
+        if not self.harmonics or any(c.floor_dbc is None for c in self.harmonics):
+            return None
+        return thd_db_from_harmonics(tuple(HarmonicCurve(c.order, c.freq_hz, np.where(np.isfinite(c.level_dbc), c.floor_dbc, np.nan))
+                                           for c in self.harmonics), self.freq_hz.size)
+
+    @property
+    def thd_in_noise(self) -> np.ndarray:
+        """Where THD does not stand over its noise floor (see HarmonicCurve.in_noise)."""
+        return in_noise(self.thd_db, self.thd_floor_db)
 
     @property
     def corners_3db(self):
@@ -290,6 +326,8 @@ class ResponseResult:
                 "freq_hz": self.freq_hz.tolist(),
                 "thd_db": self.thd_db.tolist(),
                 "thdn_db": None if self.thdn_db is None else self.thdn_db.tolist(),
+                "thd_floor_db": None if self.thd_floor_db is None else self.thd_floor_db.tolist(),
+                "thd_in_noise": self.thd_in_noise.tolist(),
             },
             "bandwidth_hz": None if self.band_hz is None else list(self.band_hz),
             "warnings": list(self.warnings),

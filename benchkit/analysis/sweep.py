@@ -43,6 +43,9 @@ FADE_OUT_OCTAVES = 1.0 / 12.0
 MAX_ORDER = 5
 #: Longest window kept after the linear response, s.
 MAX_IR_S = 1.0
+#: How far either side of the noise stretch the chirp an abrupt sweep end
+#: deconvolves to is kept out of the noise read (see noise_read), s.
+CLICK_GUARD_S = 0.05
 #: A harmonic's curve starts where its frequency stands this many periods
 #: of its window's shorter side above the sweep's start (measured on a
 #: static polynomial: the level then reads within 0.5 dB of the
@@ -223,19 +226,21 @@ def _windowed_spectrum(h: np.ndarray, rate: float, t0: float, nb: int, na: int, 
     return z * np.exp(-2j * np.pi * np.asarray(freqs) * (at / rate - t0))
 
 
-def noise_read(h: np.ndarray, sweep: SyncSweep, freqs: np.ndarray) -> np.ndarray | None:
-    """The RMS of what noise alone adds to the linear response's read at
-    each frequency (:func:`response_at`): the same window laid over a stretch
-    of ``h`` that holds no response (after the linear one, before the
-    harmonics wrapped to the end), its power smoothed over a sixth of an
-    octave (one read of noise scatters as an exponential variable) and
-    scaled to the linear window's energy when the stretch is shorter.
-    Deconvolved noise is the recording's noise through the inverse filter:
-    stationary, the same wherever it is read. None without such a stretch."""
+def noise_read(h: np.ndarray, sweep: SyncSweep, freqs: np.ndarray, order: int = 1) -> np.ndarray | None:
+    """The RMS of what noise alone adds to the order-k response's read at
+    ``freqs`` (:func:`response_at`; for k > 1, the harmonic's own
+    frequencies): the order's window laid over a stretch of ``h`` that
+    holds no response (after the linear one, before the harmonics wrapped
+    to the end), its power smoothed over a sixth of an octave (one read of
+    noise scatters as an exponential variable) and scaled to the window's
+    energy when the stretch is shorter. Deconvolved noise is the
+    recording's noise through the inverse filter: stationary, the same
+    wherever it is read. None without such a stretch."""
     rate = sweep.rate
-    before, after = sweep.windows(1)[0]
+    spans = sweep.windows(order)
+    start = int(round(spans[0][1] * rate)) + int(0.05 * rate)  # past the linear response's window
+    before, after = spans[order - 1]
     nb, na = int(round(before * rate)), int(round(after * rate))
-    start = na + int(0.05 * rate)  # past the linear response's window
     stop = h.size - int(math.ceil((sweep.harmonic_delay_s(MAX_ORDER + 3) + MAX_IR_S) * rate))
     room = stop - start
     if room < int(0.05 * rate):
@@ -245,11 +250,23 @@ def noise_read(h: np.ndarray, sweep: SyncSweep, freqs: np.ndarray) -> np.ndarray
         full = _window(nb, na)
         nb, na = room * nb // (nb + na), room - room * nb // (nb + na)
         scale = float(np.sum(full**2) / np.sum(_window(nb, na) ** 2))
+    freqs = np.asarray(freqs, float)
     z = _windowed_spectrum(h, rate, (start + nb) / rate, nb, na, freqs)
     power = np.abs(z) ** 2 * scale
-    logf = np.log2(np.maximum(np.asarray(freqs, float), 1e-12))
-    smooth = np.array([np.mean(power[np.abs(logf - x) <= 1.0 / 12.0]) for x in logf])
-    return np.sqrt(smooth)
+    # a sweep that ends abruptly (not faded) ends in a click, which
+    # deconvolves to a chirp after the linear response: frequency f at
+    # T^ - L ln(f / f1). Where it crosses the stretch the read is not noise;
+    # it is bridged from the frequencies either side (the floor is smooth)
+    t_click = sweep.duration_s - sweep.L * np.log(np.maximum(freqs, 1e-12) / sweep.f1_hz)
+    clean = sweep.faded | ~((t_click > start / rate - CLICK_GUARD_S) & (t_click < (start + nb + na) / rate + CLICK_GUARD_S))
+    if not clean.any():
+        return None
+    logf = np.log2(np.maximum(freqs, 1e-12))
+    smooth = np.array([np.mean(power[clean & (np.abs(logf - x) <= 1.0 / 12.0)]) if (clean & (np.abs(logf - x) <= 1.0 / 12.0)).any()
+                       else np.nan for x in logf])
+    known = np.isfinite(smooth)
+    order = np.argsort(logf[known])
+    return np.sqrt(np.interp(logf, logf[known][order], smooth[known][order]))
 
 
 @dataclass(frozen=True)
@@ -270,6 +287,9 @@ class SweepResponses:
     lowest_hz: dict = field(default_factory=dict)
     #: the linear response's relative standard uncertainty at each frequency (type A: the noise under it)
     linear_rel_u: np.ndarray | None = None
+    #: order k -> the RMS noise alone reads as at each fundamental, relative to
+    #: the fundamental as ``harmonics`` are (NaN where that curve is; empty: not known)
+    harmonic_floor: dict = field(default_factory=dict)
 
 
 def lowest_valid_hz(sweep: SyncSweep, order: int) -> float:
@@ -352,13 +372,18 @@ def measure(output: np.ndarray, sweep: SyncSweep, reference: np.ndarray | None =
     # splits evenly between the level and the phase: sqrt(1/2) of it on the level)
     rel = None
     noise = noise_read(h, sweep, got.freq_hz)
+    floors = {}
+    for k, z in got.harmonics.items():
+        read = noise_read(h, sweep, np.minimum(k * got.freq_hz, 0.5 * sweep.rate), k)
+        if read is not None:
+            floors[k] = np.where(np.isfinite(z), read / np.maximum(np.abs(got.linear), 1e-300), np.nan)
     if noise is not None:
         rel = noise / np.maximum(np.abs(got.linear), 1e-300) / math.sqrt(2.0)
         if reference is not None:
             ref_noise = noise_read(h_ref, sweep, got.freq_hz)
             if ref_noise is not None:
                 rel = np.hypot(rel, ref_noise / np.maximum(np.abs(base), 1e-300) / math.sqrt(2.0))
-    return SweepResponses(got.freq_hz, got.linear / base, got.harmonics, got.lowest_hz, rel)
+    return SweepResponses(got.freq_hz, got.linear / base, got.harmonics, got.lowest_hz, rel, floors)
 
 
 def find_start(recording: np.ndarray, sweep: SyncSweep) -> float:

@@ -353,13 +353,20 @@ def shown(value: float, u: float | None, digits: int = 2, k: float = COVERAGE) -
     """``value +- U`` (expanded, k = 2), the value to the uncertainty's two
     significant digits, but never finer than ``digits`` + 1 decimals
     (``-6.021 +- <0.001``)."""
+    text, big = shown_parts(value, u, digits, k)
+    return text if big is None else f"{text} +- {big}"
+
+
+def shown_parts(value: float, u: float | None, digits: int = 2, k: float = COVERAGE) -> tuple[str, str | None]:
+    """:func:`shown` in two parts, the value and U (None without u), for a
+    table's two columns."""
     if u is None or not math.isfinite(u) or u <= 0:
-        return f"{value:.{digits}f}"
+        return f"{value:.{digits}f}", None
     big = k * u
     decimals = max(0, min(digits + 1, 1 - int(math.floor(math.log10(big)))))
     if round(big, decimals) == 0:
-        return f"{value:.{decimals}f} +- <{10.0 ** -decimals:.{decimals}f}"
-    return f"{value:.{decimals}f} +- {big:.{decimals}f}"
+        return f"{value:.{decimals}f}", f"<{10.0 ** -decimals:.{decimals}f}"
+    return f"{value:.{decimals}f}", f"{big:.{decimals}f}"
 
 
 def shown_quantity(value: float, u: float | None, unit: str, k: float = COVERAGE) -> str:

@@ -15,6 +15,7 @@ import typer
 
 from benchkit import __version__
 from benchkit.errors import BenchkitError
+from benchkit.report.screen import emit
 
 
 app = typer.Typer(
@@ -34,8 +35,9 @@ EXIT_INTERRUPTED = 130
 
 
 def err(text: str) -> None:
-    """Progress, notes and warnings: stderr."""
-    print(text, file=sys.stderr)
+    """Progress, notes and warnings: stderr (warnings in colour on a
+    terminal, benchkit.report.screen)."""
+    emit(text, sys.stderr)
 
 
 def answer(text: str, as_json: bool = False) -> None:
@@ -45,7 +47,7 @@ def answer(text: str, as_json: bool = False) -> None:
     warning lines ("warning ...", "!! ...") go to stderr either way."""
     for line in text.split("\n"):
         warns = line.lstrip().startswith(("warning", "!! "))
-        print(line, file=sys.stderr if as_json or warns else sys.stdout)
+        emit(line, sys.stderr if as_json or warns else sys.stdout)
 
 
 def progress(items: list, what: str):

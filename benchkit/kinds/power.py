@@ -172,7 +172,7 @@ class AdaptiveSteps(HearsFaults):
     def __init__(self, planner: LevelPlanner, frequency_hz: float, rate: float, metric: str = "thdn",
                  in_channel: int = 1, ref_channel: int | None = None, out_channel: int = 1, n_out: int = 2,
                  lead_s: float = 0.05, step_s: float = 0.5, settle_s: float = 0.2, gap_s: float = 0.05,
-                 input_margin_db: float = 3.0, max_s: float = 300.0, supply_meter=None, on_schedule=None):
+                 input_margin_db: float = 3.0, max_s: float = 300.0, supply_meter=None, on_schedule=None, on_step=None):
         from benchkit import signals
 
         self._signals = signals
@@ -210,6 +210,10 @@ class AdaptiveSteps(HearsFaults):
         #: called with this stimulus after each step is scheduled (power_run
         #: keeps the planned sidecar on disk up to date with it)
         self.on_schedule = on_schedule
+        #: called with each step's drive (dBFS), fundamental (FS peak) and
+        #: THD+N or THD (%) once analysed, ``retake=True`` where a dropout
+        #: spoiled it (a live display; on the stream's thread: keep it short)
+        self.on_step = on_step or (lambda *_a, **_k: None)
         self._schedule(planner.first())
 
     # --- what a backend plays ----------------------------------------------
@@ -317,6 +321,7 @@ class AdaptiveSteps(HearsFaults):
             # figures are not the stage's, so this level is played again
             k = len(self.segments) - 1
             self.spoiled.add(k)
+            self.on_step(seg.level_dbfs, r.fundamental_fs, math.nan, retake=True)
             takes = sum(1 for i in self.spoiled if self.segments[i].level_dbfs == seg.level_dbfs)
             if takes > MAX_RETAKES:
                 self.spoiled_out = True
@@ -325,6 +330,7 @@ class AdaptiveSteps(HearsFaults):
                 self._schedule(seg.level_dbfs)
             return
         value = r.thdn_pct if self.metric == "thdn" else r.thd_pct
+        self.on_step(seg.level_dbfs, r.fundamental_fs, value)
         nxt = self.planner.next(seg.level_dbfs, value)
         if nxt is None:
             self.stop(self.planner.reason)
@@ -457,12 +463,14 @@ def power_run(
     rated_w: float | None = None,
     conditions: dict | None = None,
     supply_meter=None,
+    on_step=None,
 ) -> PowerResult:
     """A stepped-level run to the highest limit: one stream, each next
     level chosen from the step just recorded; the capture and its sidecar
     on disk before the analysis; an interrupted run keeps (and reports)
     its completed steps, with ``info["interrupted"]`` set. A
-    ``supply_meter`` (reading amps) is read half way through every step."""
+    ``supply_meter`` (reading amps) is read half way through every step;
+    ``on_step`` hears each step analysed (:class:`AdaptiveSteps`)."""
     from benchkit import capture
     from benchkit.record import Recorder
 
@@ -478,7 +486,7 @@ def power_run(
                          ref_channel=ref_channel or backend.reference_input(), out_channel=getattr(backend, "drive_output", 1),
                          n_out=backend.n_outputs, lead_s=getattr(backend, "lead_s", 0.05), step_s=step_s,
                          settle_s=settle_s, input_margin_db=input_margin_db, supply_meter=supply_meter,
-                         on_schedule=journal)
+                         on_schedule=journal, on_step=on_step)
     partial = recorder.partial(name)
     interrupted = None
     try:
@@ -670,12 +678,19 @@ def _measure(s, folder: Path) -> Measured:
 
         amps = ScpiMeter(o["current_meter"], quantity="amps")
         s.say(f"supply current: {amps.name}")
+    import sys
+
+    from benchkit.report.live import StepBoard
+
+    board = StepBoard(f"power run: {o['freq']:g} Hz into {o['load']:g} ohm", f["limits_pct"], f["metric"],
+                      s.stage_volts_per_fs, o["load"], s.say, live=sys.stderr.isatty())
     try:
-        result = power_run(s.backend, folder, o["freq"], first, top, o["load"], s.channel, s.ref_channel, f["metric"],
-                           f["limits_pct"], f["onset_db"], f["supply_v"], f["supply_a"], f["budget"], s.profile,
-                           s.calibration_file, step_db=o["step_db"], fine_db=o["fine_db"], warnings=s.warnings,
-                           note=s.labels.get("note", ""), input_margin_db=o["margin"], rated_w=o["rated_power"],
-                           conditions=conditions, supply_meter=amps)
+        with board:
+            result = power_run(s.backend, folder, o["freq"], first, top, o["load"], s.channel, s.ref_channel, f["metric"],
+                               f["limits_pct"], f["onset_db"], f["supply_v"], f["supply_a"], f["budget"], s.profile,
+                               s.calibration_file, step_db=o["step_db"], fine_db=o["fine_db"], warnings=s.warnings,
+                               note=s.labels.get("note", ""), input_margin_db=o["margin"], rated_w=o["rated_power"],
+                               conditions=conditions, supply_meter=amps, on_step=board.step)
     finally:
         if amps is not None:
             amps.close()

@@ -333,7 +333,8 @@ def _sweep_response(rec, ref, ref_channel, sweep, start, amplitude, reference_hz
             hit = sw.line_mask(freqs, k, lines, 4 * rate / max(quiet.size, 1)) & np.isfinite(level)
             level[hit] = np.nan
             blanked |= hit
-        curves.append(resp.HarmonicCurve(k, freqs, level))
+        floor = got.harmonic_floor.get(k)
+        curves.append(resp.HarmonicCurve(k, freqs, level, None if floor is None else units.db_from_ratio(floor)))
     if lines:
         shown = ", ".join(f"{x:.0f}" for x in lines[:6])
         warnings.append(BenchWarning("hum", f"steady lines at {shown} Hz (hum or ripple) before the sweep: the harmonic curves are blanked "

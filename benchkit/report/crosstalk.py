@@ -11,21 +11,26 @@ from matplotlib.figure import Figure
 from benchkit.errors import read_warnings
 from benchkit.report.files import result_csv_png
 from benchkit.report.plots import log_hz_axis, MARK, save_png, TRACE
+from benchkit.report.screen import Column, table_text
 from benchkit.units import quantity
 
 
 def crosstalk_summary(d: dict, title: str = "") -> str:
     """A crosstalk result (its document): a line a frequency."""
     lines = [title] if title else []
-    lines.append("  freq Hz      A into B dB   B into A dB   balance B-A dB")
     balance = {round(b["frequency_hz"], 3): b["balance_db"] for b in d["balance"]}
-    for a, b in zip(d["a_to_b"], d["b_to_a"]):
-        def cell(x):
-            return f"{'<' if x['below_floor'] else ' '}{x['crosstalk_db']:.1f}"
 
+    def cell(x):
+        return f"{'<' if x['below_floor'] else ''}{x['crosstalk_db']:.1f}"
+
+    rows = []
+    for a, b in zip(d["a_to_b"], d["b_to_a"]):
         bal = balance.get(round(a["frequency_hz"], 3))
-        lines.append(f"  {a['frequency_hz']:>9.5g}   {cell(a):>11}   {cell(b):>11}   "
-                     f"{'-' if bal is None else f'{bal:+.3f}':>14}")
+        rows.append([f"{a['frequency_hz']:.5g}", cell(a), cell(b), "-" if bal is None else f"{bal:+.3f}"])
+    lines.append(table_text([Column("frequency (Hz)"), Column("A into B (dB)"), Column("B into A (dB)"),
+                             Column("balance B-A (dB)")], rows))
+    if any(x["below_floor"] for x in (*d["a_to_b"], *d["b_to_a"])):
+        lines.append("  (<: below the floor, an upper bound)")
     if d.get("crosstalk_db") is not None:
         lines.append(f"  at {quantity(d['reference_hz'], 'Hz', 4)}  crosstalk {d['crosstalk_db']:.1f} dB (the worse direction), "
                      f"separation {-d['crosstalk_db']:.1f} dB"

@@ -21,7 +21,8 @@ def report_folder(out: Path) -> Path:
 def title_of(path: Path) -> str:
     """What the plots of a capture (or a log) are titled: the stage's name
     and the run's tags when it was measured as a logged run (its run.json
-    beside it, or above a take's folder), else the file's name."""
+    beside it, or above a take's folder), the run's command and start when
+    it names neither, else the file's name."""
     from benchkit.jsonfile import load_json
 
     path = Path(path)
@@ -36,7 +37,8 @@ def title_of(path: Path) -> str:
             tags = ", ".join(f"{k}={v}" for k, v in (d.get("tags") or {}).items())
             if name or tags:
                 return "; ".join(p for p in (name, tags) if p)
-            break
+            started = str(d.get("started") or "")[:16].replace("T", " ")
+            return f"{d.get('command') or 'a'} run of {started}" if started else path.name
     return path.name
 
 

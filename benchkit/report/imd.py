@@ -12,13 +12,14 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
 from benchkit import units
-from benchkit.analysis.uncertainty import lookup, shown as with_u
+from benchkit.analysis.uncertainty import lookup, shown_parts
 from benchkit.errors import read_warnings
 from benchkit.report import tables
 from benchkit.report.files import report_folder, stem_of, title_of
 from benchkit.report.overlays import percent_axes, colour, finish_overlay
-from benchkit.report.plots import floored, hz_label, labels_apart, save_png
-from benchkit.units import quantity
+from benchkit.report.plots import floored, hz_label, labels_apart, save_png, volts_axis
+from benchkit.report.screen import Column, table_text
+from benchkit.units import in_one_unit
 
 
 def _order_cell(order: dict | None) -> str:
@@ -35,16 +36,21 @@ def imd_summary(d: dict, title: str = "") -> str:
     f1, f2 = d["tones_hz"]
     ref = "re f2" if d["method"] == "modulation" else "re f1 + f2"
     lines.append(f"  method       {d['method']}: {f1:g} Hz + {f2:g} Hz at {d['tone_ratio']:g}:1; products {ref}")
-    lines.append("  drive dBFS    peak at stage   IMD %     IMD dB (+- U)     order 2 dB  order 3 dB")
-    for i, s in enumerate(d["steps"]):
-        peak = (quantity(s["peak_v"], "V") if s.get("peak_v") is not None
-                else f"{units.dbfs_from_peak(max(s['peak_fs'], 1e-12)):.2f} dBFS")
+    steps = d["steps"]
+    volts = all(s.get("peak_v") is not None for s in steps)
+    peak_unit, peaks = in_one_unit([s["peak_v"] if volts else units.dbfs_from_peak(max(s["peak_fs"], 1e-12)) for s in steps],
+                                   "V" if volts else "dBFS")
+    pct_unit, pcts = in_one_unit([s["imd_pct"] for s in steps], "%")
+    rows = []
+    for i, (s, peak, pct) in enumerate(zip(steps, peaks, pcts)):
         o = s.get("orders") or {}
-        mark = "" if s["valid"] else ("   NOT VALID (clipped capture)" if s["clipped"] else "   NOT VALID (see the warnings)")
-        drive = "-" if s["drive_dbfs"] is None else f"{s['drive_dbfs']:.2f}"
-        imd = with_u(s["imd_db"], lookup(d, "steps.imd_db", i))
-        lines.append(f"  {drive:>9}   {peak:>13}  {s['imd_pct']:9.4g}  {imd:>17}  "
-                     f"{_order_cell(o.get('2')):>10}  {_order_cell(o.get('3')):>10}{mark}")
+        mark = "" if s["valid"] else "NOT VALID (clipped capture)" if s["clipped"] else "NOT VALID (see the warnings)"
+        imd, big = shown_parts(s["imd_db"], lookup(d, "steps.imd_db", i))
+        rows.append(["-" if s["drive_dbfs"] is None else f"{s['drive_dbfs']:.2f}", peak, pct, imd, big or "-",
+                     _order_cell(o.get("2")), _order_cell(o.get("3")), mark])
+    lines.append(table_text([Column("drive (dBFS)"), Column(f"peak at stage ({peak_unit})"), Column(f"IMD ({pct_unit})"),
+                             Column("IMD (dB)"), Column("U (dB)"), Column("order 2 (dB)"), Column("order 3 (dB)"),
+                             Column("", "left")], rows))
     valid = [s for s in d["steps"] if s["valid"]]
     if valid:
         top = max(valid, key=lambda s: s["drive_dbfs"] or 0.0)
@@ -155,6 +161,7 @@ def imd_figure(docs, labels, title: str, warnings=(), spectrum=None) -> Figure:
         axs.xaxis.set_major_formatter(FuncFormatter(hz_label))
         axs.set_xlabel("frequency (Hz)")
         axs.set_ylabel("dBFS" if step["drive_dbfs"] is None else f"dBFS, drive {step['drive_dbfs']:g} dBFS")
+        volts_axis(axs, step.get("volts_per_fs"), "level")
         axs.grid(True, which="both", color="#e6e6e6", lw=0.5)
         fig.subplots_adjust(hspace=0.32)
     finish_overlay(fig, ax, f"{title}: intermodulation", warnings, "", "upper left", 0.09)

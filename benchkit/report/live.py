@@ -134,3 +134,93 @@ class Keys:
 
             termios.tcsetattr(self._fd, termios.TCSADRAIN, self._old)
             self._old = None
+
+
+class StepBoard:
+    """What a stepped power run shows while it drives the stage up: each
+    step's drive, the output (volts and watts with a calibration and a
+    load, else dBFS), THD+N (or THD) and the next limit it approaches. A
+    live table on stderr when stderr is a terminal; one line a step
+    otherwise (``say``). ``step`` may be called from the audio thread: it
+    only files the step, the table is drawn on the display's own thread."""
+
+    SHOWN = 12  # the latest steps in the table
+
+    def __init__(self, title: str, limits_pct, metric: str, volts_per_fs: float | None, load_ohms: float | None,
+                 say, live: bool):
+        self.title, self.limits, self.metric = title, sorted(float(x) for x in limits_pct), metric
+        self.volts_per_fs, self.load_ohms, self.say = volts_per_fs, load_ohms, say
+        self.steps: list[tuple] = []
+        self.retakes = 0
+        self._display = None
+        self._started = time.monotonic()
+        if live:
+            from rich.console import Console
+            from rich.live import Live
+
+            self._display = Live(console=Console(stderr=True), get_renderable=self.table, refresh_per_second=4,
+                                 transient=False)
+
+    def __enter__(self) -> "StepBoard":
+        if self._display is not None:
+            self._display.start()
+        return self
+
+    def __exit__(self, *_exc) -> None:
+        if self._display is not None:
+            self._display.refresh()
+            self._display.stop()
+
+    def _output(self, amplitude_fs: float) -> tuple[str, str]:
+        if not self.volts_per_fs:
+            return f"{units.dbfs_from_peak(amplitude_fs):.2f} dBFS", "-"
+        vrms = units.vrms_from_vpk(amplitude_fs * self.volts_per_fs)
+        watts = quantity(vrms * vrms / self.load_ohms, "W", 3) if self.load_ohms else "-"
+        return quantity(vrms, "V", 4), watts
+
+    def _next_limit(self, pct: float, before: float | None) -> str:
+        """How near the next limit up is, and which way the figure moves
+        (at low drive noise holds it up, falling as the drive rises)."""
+        way = "" if before is None else "rising, " if pct > before else "falling, "
+        ahead = [x for x in self.limits if x > pct]
+        if not ahead:
+            return f"{way}past {self.limits[-1]:g} %"
+        return f"{way}{pct / ahead[0] * 100:.0f} % of {ahead[0]:g} %"
+
+    def step(self, level_dbfs: float, amplitude_fs: float, pct: float, retake: bool = False) -> None:
+        """A step analysed (``retake``: spoiled by a dropout, to be played again)."""
+        if retake:
+            self.retakes += 1
+            if self._display is None:
+                self.say(f"step at {level_dbfs:.2f} dBFS spoiled by a dropout: played again")
+            return
+        before = self.steps[-1][3] if self.steps else None
+        self.steps.append((len(self.steps) + 1, level_dbfs, amplitude_fs, pct, before))
+        if self._display is None:
+            volts, watts = self._output(amplitude_fs)
+            self.say(f"step {len(self.steps):>2}  drive {level_dbfs:7.2f} dBFS  output {volts:>10}  {watts:>8}  "
+                     f"{self._metric_name} {pct:8.4f} %  ({self._next_limit(pct, before)})")
+
+    @property
+    def _metric_name(self) -> str:
+        return "THD+N" if self.metric == "thdn" else "THD"
+
+    def table(self):
+        from rich.table import Table
+        from rich.text import Text
+
+        t = Table(title=self.title, title_justify="left", box=None, pad_edge=False, header_style="bold")
+        for name in ("step", "drive (dBFS)", "output", "power", f"{self._metric_name} (%)", "next limit"):
+            t.add_column(name, justify="left" if name == "next limit" else "right", no_wrap=True)
+        for n, level, amp, pct, before in self.steps[-self.SHOWN:]:
+            volts, watts = self._output(amp)
+            near = next((x for x in self.limits if x > pct), None)
+            style = "bold red" if near is None else "yellow" if pct > 0.5 * near else ""
+            t.add_row(str(n), f"{level:.2f}", volts, watts, Text(f"{pct:.4f}", style=style), self._next_limit(pct, before))
+        caption = Text()
+        if self.retakes:
+            caption.append(f"{units.count(self.retakes, 'step')} spoiled by dropouts, played again\n", style="bold")
+        caption.append(f"{fmt_time(time.monotonic() - self._started)}: stepping up to the highest limit "
+                       f"({', '.join(f'{x:g} %' for x in self.limits)}).  Ctrl-C fades out and keeps the steps done.")
+        t.caption, t.caption_justify = caption, "left"
+        return t

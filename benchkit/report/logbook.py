@@ -39,17 +39,18 @@ def entry_doc(entry) -> dict:
 def runs_lines(entries) -> list[str]:
     """Each run: its id, status, command and tags; under it its headline
     figures and the first line of its note."""
-    width = max(len(e.id) for e in entries)
-    cw = max(8, *(len(e.command) for e in entries))
-    lines = [f"  {'run':<{width}}  {'status':<11} {'command':<{cw}} tags / headline figures / note"]
+    from benchkit.report.screen import Column, table_text
+
+    rows = []
     for e in entries:
-        tags_text = " ".join(f"{k}={v}" for k, v in e.tags.items())
         valid = "" if e.valid is not False else " INVALID"
-        lines.append(f"  {e.id:<{width}}  {e.status + valid:<11} {e.command:<{cw}} {tags_text}")
+        rows.append([e.id, e.status + valid, e.command, " ".join(f"{k}={v}" for k, v in e.tags.items())])
         line = "; ".join(x for x in (headline_text(e), e.note.splitlines()[0] if e.note else "") if x)
         if line:
-            lines.append(f"  {'':<{width}}  {'':<11} {'':<{cw}} {line}")
-    return lines
+            rows.append(["", "", "", line])
+    columns = [Column("run", "left"), Column("status", "left"), Column("command", "left"),
+               Column("tags / headline figures / note", "left")]
+    return table_text(columns, rows).split("\n")
 
 
 #: a stored option's unit, from the end of its key

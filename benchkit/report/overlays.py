@@ -20,14 +20,15 @@ def colour(i: int) -> str:
 
 def finish_overlay(fig, ax, title: str, warnings, caption: str, legend: str, left: float) -> Figure:
     """Grid, legend, title, a caption (the conditions, or in red the
-    warnings that the runs do not compare like for like)."""
+    warnings that the runs do not compare like for like); room at the
+    right for a second axis (volts) where there is one."""
     ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
     ax.set_title(title, loc="left", fontsize=10)
     if warnings:
         fig.text(0.01, 0.01, "  ".join(warnings), fontsize=8, color="#b00020", ha="left", va="bottom", wrap=True)
     elif caption:
         fig.text(0.01, 0.01, caption, fontsize=7.5, color="#333333", ha="left", va="bottom", wrap=True)
-    fig.subplots_adjust(left=left, right=0.97, top=0.92, bottom=0.15)
+    fig.subplots_adjust(left=left, right=0.91 if any(a.child_axes for a in fig.axes) else 0.97, top=0.92, bottom=0.15)
     legend_clear(ax, (legend, *(p for p in LEGEND_PLACES if p != legend)), fontsize=8, frameon=False)
     return fig
 

@@ -164,3 +164,27 @@ def log_hz_axis(ax) -> None:
     ax.set_xscale("log")
     ax.xaxis.set_major_formatter(FuncFormatter(hz_label))
     ax.grid(True, which="both", color="#eeeeee", lw=0.5)
+
+
+def volts_axis(ax, volts_per_fs: float | None, what: str = "level of a sine"):
+    """Beside a left axis in dBFS, a right one in dBV (0 dBV = 1 Vrms) when
+    a calibration gives volts: a full-scale sine is ``volts_per_fs``
+    (peak volts per FS) over sqrt 2 volts RMS. Nothing without volts.
+    Leave the right margin room for its labels."""
+    if not volts_per_fs:
+        return None
+    from benchkit import units
+
+    shift = float(units.dbv_from_vrms(units.vrms_from_vpk(volts_per_fs)))
+    right = ax.secondary_yaxis("right", functions=(lambda y: y + shift, lambda y: y - shift))
+    right.set_ylabel(f"{what} (dBV)")
+    return right
+
+
+def shared_scale(scales) -> float | None:
+    """The volts per FS all of several runs share (to 0.1 %), else None:
+    an overlay draws volts only when every run's plot does, alike."""
+    scales = list(scales)
+    if not scales or any(not s for s in scales):
+        return None
+    return scales[0] if max(scales) <= min(scales) * 1.001 else None

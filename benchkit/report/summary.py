@@ -47,23 +47,67 @@ def change_text(d, k: int) -> str:
     return text + (f" {verdict}" if verdict else "")
 
 
+def _change_cells(d, k: int, size: float) -> list[str]:
+    """Run k's change from the first, its expanded uncertainty (to two
+    significant digits, the change to the same places; dB at least to
+    0.01) and the verdict, in a unit ``size`` times the figure's."""
+    ch, big = d.changes[k - 1], d.change_u(k)
+    if ch is None:
+        return ["-", "-", d.verdict(k) or ""]
+    if d.unit not in LEVELS and abs(big or ch) < 0.01 * size:  # too fine for the row's prefix: its own
+        return [("+" if ch >= 0 else "-") + quantity(abs(ch), d.unit, 3),
+                "-" if big is None else quantity(big, d.unit, 2), d.verdict(k) or ""]
+    ch, big = ch / size, None if big is None else big / size
+    if big:
+        places = max(0, min(6, 1 - math.floor(math.log10(big))))
+        if d.unit in LEVELS:
+            places = max(2, places)
+    else:
+        places = 2 if d.unit in LEVELS or ch == 0 else max(0, min(6, 2 - math.floor(math.log10(abs(ch)))))
+    return [f"{ch:+.{places}f}", "-" if big is None else f"{big:.{places}f}", d.verdict(k) or ""]
+
+
+#: units whose values print to two decimals (ratios and levels)
+LEVELS = ("dB", "dBc", "dBFS", "%")
+
+
+def delta_table(groups, n: int) -> str:
+    """Compared figures as one table: each figure's unit (one prefix for
+    the row), its value in each of ``n`` runs, and for each later run the
+    change from [0], the change's U and the verdict. ``groups``: (heading
+    or None, deltas) in order; a heading takes a row of its own."""
+    from benchkit.report.screen import Column, table_text
+    from benchkit.units import in_one_unit, prefix_scale
+
+    rows = []
+    for heading, deltas in groups:
+        if heading:
+            rows.append([heading] + [""] * (1 + n + 3 * (n - 1)))
+        for d in deltas:
+            if d.unit in LEVELS:
+                unit, values = d.unit, ["-" if v is None else f"{v:.2f}" for v in d.values]
+            else:
+                unit, values = in_one_unit(d.values, d.unit)
+            size = prefix_scale(unit) if d.unit not in LEVELS else 1.0
+            changes = [cell for k in range(1, n) for cell in _change_cells(d, k, size)]
+            rows.append([("  " if heading else "") + figure_name(d), unit, *values, *changes])
+    columns = [Column("figure", "left"), Column("unit", "left"), *(Column(f"[{k}]") for k in range(n))]
+    for k in range(1, n):
+        columns += [Column(f"change [{k}]-[0]"), Column("U"), Column("verdict", "left")]
+    return table_text(columns, rows)
+
+
 def comparison_text(c) -> str:
     """A comparison, figure by figure: each run's value, the change from
     the first and whether it is better or worse; the headline first."""
     lines = [f"!! {w}" for w in c.warnings]
-    width = max(len(lab) for lab in c.labels)
     lines.append("runs: " + "; ".join(f"[{k}] {lab}" for k, lab in enumerate(c.labels)) + " (changes are from [0])")
     if c.judged():
-        lines.append(f"+- is the change's expanded uncertainty at k = {c.coverage:.2g}: noise alone calls none of the "
+        lines.append(f"U is the change's expanded uncertainty at k = {c.coverage:.2g}: noise alone calls none of the "
                      f"{c.judged()} figures judged better or worse, 99 times in 100")
     ordered = list(c.headline()) + [d for d in c.deltas if not d.headline]
     shown = ordered if len(ordered) <= 30 else list(c.headline()) + [d for d in ordered if d.better][:30]
-    name_w = max(len(figure_name(d)) for d in shown)
-    for d in shown:
-        name = figure_name(d)
-        cells = [f"{figure_value(v, d.unit):>{max(12, width)}}" for v in d.values]
-        changes = [change_text(d, k) for k in range(1, len(d.values))]
-        lines.append(f"  {name:<{name_w}}  " + "  ".join(cells) + "   " + "; ".join(changes))
+    lines.append(delta_table([(None, shown)], len(c.labels)))
     if len(shown) < len(ordered):
         lines.append(f"  ... {len(ordered) - len(shown)} more figures in the CSV")
     return "\n".join(lines)

@@ -11,6 +11,7 @@ from pathlib import Path
 import numpy as np
 from matplotlib.figure import Figure
 
+from benchkit.analysis.tone import HARMONIC_OVER_FLOOR_DB
 from benchkit.analysis.uncertainty import lookup, shown_quantity
 from benchkit.report import tables
 from benchkit.report.files import report_folder, stem_of, title_of
@@ -48,13 +49,18 @@ def response_summary(r, title: str = "") -> str:
     thd = [v for v in r.thd_db if v == v]
     if thd:
         lines.append(f"  THD          {min(thd):.1f} to {max(thd):.1f} dB over frequency")
+        buried = int(np.count_nonzero(r.thd_in_noise))
+        if buried:
+            lines.append(f"  in the noise THD at {buried} of {len(thd)} frequencies stands less than "
+                         f"{HARMONIC_OVER_FLOOR_DB:g} dB over what noise alone reads as (marked on the plot)")
     lines += [f"  warning      {w}" for w in r.warnings]
     return "\n".join(lines)
 
 
 def write_response_csv(result, path: Path) -> Path:
     """One row per frequency: magnitude, phase, group delay, THD (THD+N
-    for stepped sines) and H2..H5, raw (never smoothed); empty where not
+    for stepped sines), what noise alone reads as THD there and whether
+    THD stands in it, and H2..H5, raw (never smoothed); empty where not
     measured."""
     from benchkit.analysis.response import group_delay_s
 
@@ -62,13 +68,16 @@ def write_response_csv(result, path: Path) -> Path:
     orders = [c.order for c in result.harmonics]
     with path.open("w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
-        w.writerow(["freq_hz", f"mag_db ({result.mag_units})", "phase_deg", "group_delay_s", "thd_db", "thdn_db"]
-                   + [f"h{k}_dbc" for k in orders])
+        w.writerow(["freq_hz", f"mag_db ({result.mag_units})", "phase_deg", "group_delay_s", "thd_db", "thdn_db",
+                    "thd_floor_db", "thd_in_noise"] + [f"h{k}_dbc" for k in orders])
+        floor, buried = result.thd_floor_db, result.thd_in_noise
         for i, f in enumerate(result.freq_hz):
-            cells = [result.thd_db[i], None if result.thdn_db is None else result.thdn_db[i]]
-            cells += [c.level_dbc[i] for c in result.harmonics]
-            w.writerow([f"{f:.4f}", f"{result.mag_db[i]:.4f}", f"{result.phase_deg[i]:.3f}", f"{gd[i]:.4e}"]
-                       + ["" if v is None or not math.isfinite(v) else f"{v:.2f}" for v in cells])
+            cells = [result.thd_db[i], None if result.thdn_db is None else result.thdn_db[i],
+                     None if floor is None else floor[i]]
+            cells = ["" if v is None or not math.isfinite(v) else f"{v:.2f}" for v in cells]
+            cells.append("yes" if buried[i] else "" if floor is None or not math.isfinite(result.thd_db[i]) else "no")
+            cells += ["" if not math.isfinite(c.level_dbc[i]) else f"{c.level_dbc[i]:.2f}" for c in result.harmonics]
+            w.writerow([f"{f:.4f}", f"{result.mag_db[i]:.4f}", f"{result.phase_deg[i]:.3f}", f"{gd[i]:.4e}", *cells])
     return path
 
 
@@ -129,17 +138,40 @@ def response_png(result, path: Path, title: str, smooth_fraction: int | None = N
     return save_png(response_figure(result, title, smooth_fraction=smooth_fraction), path)
 
 
+def _plot_marked(ax, f, y, buried, label: str, **style) -> None:
+    """A curve drawn solid where it stands over its noise floor and dotted,
+    fainter, where it does not (the dotted stretches reach one point into
+    their neighbours, so the two join)."""
+    y = np.asarray(y, float)
+    near = buried.copy()
+    near[1:] |= buried[:-1]
+    near[:-1] |= buried[1:]
+    ax.plot(f, np.where(buried, np.nan, y), label=label, **style)
+    if buried.any():
+        ax.plot(f, np.where(near, y, np.nan), **{**style, "ls": ":", "alpha": 0.55})
+
+
 def distortion_figure(result, title: str) -> Figure:
     """THD (and THD+N for stepped sines), H2 and H3 against the
-    fundamental's frequency, in dB re the fundamental."""
+    fundamental's frequency, in dB re the fundamental; where a sweep knows
+    what noise alone reads as, that floor is drawn and the points that do
+    not stand over it are dotted."""
+    from matplotlib.lines import Line2D
+
     fig = Figure(figsize=(10, 5.2))
     ax = fig.add_subplot(1, 1, 1)
     f = result.freq_hz
-    ax.plot(f, result.thd_db, color=TRACE, lw=1.4, label="THD")
+    floor = result.thd_floor_db
+    if floor is not None:
+        ax.plot(f, floor, color=FAINT, lw=0.9, ls="-.", label="noise floor (THD)")
+    _plot_marked(ax, f, result.thd_db, result.thd_in_noise, "THD", color=TRACE, lw=1.4)
     if result.thdn_db is not None:
         ax.plot(f, result.thdn_db, color=FAINT, lw=1.2, ls="--", label="THD+N")
     for c, shade in zip(result.harmonics[:2], (MARK, "#4b8a3e")):
-        ax.plot(c.freq_hz, c.level_dbc, color=shade, lw=0.9, label=f"H{c.order}")
+        _plot_marked(ax, c.freq_hz, c.level_dbc, c.in_noise, f"H{c.order}", color=shade, lw=0.9)
+    if result.thd_in_noise.any() or any(c.in_noise.any() for c in result.harmonics[:2]):
+        ax.add_line(Line2D([], [], color=TRACE, lw=1.2, ls=":", alpha=0.55,
+                           label=f"dotted: < {HARMONIC_OVER_FLOOR_DB:g} dB over the noise"))
     log_hz_axis(ax)
     ax.set_xlabel("fundamental frequency (Hz)")
     ax.set_ylabel("dB re the fundamental")

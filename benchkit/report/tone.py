@@ -13,14 +13,15 @@ from matplotlib.ticker import FuncFormatter
 
 from benchkit.analysis import spectrum as sp
 from benchkit.analysis.tone import ToneResult
-from benchkit.analysis.uncertainty import shown, shown_quantity
+from benchkit.analysis.uncertainty import shown, shown_parts, shown_quantity
 from benchkit.errors import read_warnings
 from benchkit.report import overlays, tables
 from benchkit.report.files import report_folder, stem_of, title_of
 from benchkit.report.overlays import colour, finish_overlay
 from benchkit.report.plots import (BAND, FAINT, floored, hz_label, labels_apart, LABELLED_HARMONICS, MARK, renderer_of, save_png,
+                                   shared_scale, volts_axis,
                                    TRACE)
-from benchkit.units import quantity
+from benchkit.units import in_one_unit, quantity
 
 #: the warnings that make a result not valid, named on its NOT VALID line
 NOT_VALID_CODES = ("input-clipped", "dropout")
@@ -113,21 +114,28 @@ def _harmonic_cell(h) -> str:
 
 
 def steps_summary(steps, title: str = "") -> str:
-    """A stepped-tone run as a table: one line per step."""
+    """A stepped-tone run as a table: a row a step, the units in the
+    headers, the decimal points in line."""
+    from benchkit.report.screen import Column, table_text
+
+    rs = [s.result for s in steps.steps]
+    volts = all(r.fundamental_vrms is not None for r in rs)
+    level_unit, levels = in_one_unit([r.fundamental_vrms if volts else r.fundamental_dbfs for r in rs],
+                                     "Vrms" if volts else "dBFS")
+    power_unit, powers = in_one_unit([r.power_w for r in rs], "W")
+    thdn_unit, thdn_pct = in_one_unit([r.thdn_pct for r in rs], "%")
+    parts = [shown_parts(r.thdn_db, ((r.uncertainty or {}).get("standard") or {}).get("thdn_db")) for r in rs]
+    rows = []
+    for s, level, power, pct, (thdn, big) in zip(steps.steps, levels, powers, thdn_pct, parts):
+        by_order = {h.order: h for h in s.result.harmonics}
+        mark = "" if s.result.valid else "NOT VALID (clipped capture)" if s.result.clipped else "NOT VALID (see the warnings)"
+        rows.append([f"{s.drive_dbfs:.2f}", level, power, pct, thdn, big or "-",
+                     _harmonic_cell(by_order.get(2)), _harmonic_cell(by_order.get(3)), mark])
+    columns = [Column("drive (dBFS)"), Column(f"level ({level_unit})"), Column(f"power ({power_unit})"),
+               Column(f"THD+N ({thdn_unit})"), Column("THD+N (dB)"), Column("U (dB)"), Column("H2 (dBc)"),
+               Column("H3 (dBc)"), Column("", "left")]
     lines = [title] if title else []
-    lines.append("  drive dBFS    level        power      THD+N %    THD+N dB (+- U)      H2 dBc      H3 dBc")
-    for s in steps.steps:
-        r = s.result
-        by_order = {h.order: h for h in r.harmonics}
-        level = quantity(r.fundamental_vrms, "Vrms") if r.fundamental_vrms is not None else f"{r.fundamental_dbfs:.2f} dBFS"
-        power = quantity(r.power_w, "W") if r.power_w is not None else "-"
-        mark = "" if r.valid else ("   NOT VALID (clipped capture)" if r.clipped else "   NOT VALID (see the warnings)")
-        thdn = shown(r.thdn_db, ((r.uncertainty or {}).get("standard") or {}).get("thdn_db"))
-        lines.append(
-            f"  {s.drive_dbfs:9.2f}   {level:>11}  {power:>10}  {r.thdn_pct:9.4g}  {thdn:>18}  "
-            f"{_harmonic_cell(by_order.get(2)):>10}  {_harmonic_cell(by_order.get(3)):>10}{mark}"
-        )
-    lines.append("  (U: the expanded uncertainty, k = 2)")
+    lines += [table_text(columns, rows), "  (U: the expanded uncertainty, k = 2; in brackets: not over the noise)"]
     seen = set()
     for w in list(steps.warnings) + [w for s in steps.steps for w in s.result.warnings]:
         if w not in seen:
@@ -235,10 +243,11 @@ def spectrum_figure(result: ToneResult, title: str) -> Figure:
     ax.set_ylim(bottom, max(5.0, result.fundamental_dbfs + 10.0))
     ax.set_xlabel("frequency (Hz)")
     ax.set_ylabel("level of a sine (dBFS)")
+    volts = volts_axis(ax, result.volts_per_fs)
     ax.grid(True, which="both", color="#e6e6e6", lw=0.5)
     ax.set_title(title, loc="left", fontsize=10)
     fig.text(0.01, 0.01, conditions_line(result), fontsize=7.5, color="#333333", ha="left", va="bottom", wrap=True)
-    fig.subplots_adjust(left=0.08, right=0.98, top=0.92, bottom=0.16)
+    fig.subplots_adjust(left=0.08, right=0.92 if volts else 0.98, top=0.92, bottom=0.16)
     # each harmonic's label where it collides with no other (and not with the fundamental's)
     labels_apart(ax, [(h.freq_hz, h.level_dbfs, f"H{h.order}\n{h.level_dbc:.1f} dBc") for h in heard],
                  placed=[fundamental.get_window_extent(renderer_of(fig))], fontsize=7, color=MARK,
@@ -346,6 +355,7 @@ def spectra_figure(results, labels, title: str, warnings=()) -> Figure:
     ax.set_ylim(bottom, max(5.0, top + 10.0))
     ax.set_xlabel("frequency (Hz)")
     ax.set_ylabel("level of a sine (dBFS)")
+    volts_axis(ax, shared_scale(r.volts_per_fs for r in results))
     return finish_overlay(fig, ax, title, warnings, "", "upper right", 0.08)
 
 

@@ -1,0 +1,150 @@
+"""The live displays as a person sees them: the command runs in a real
+pseudo-terminal (tmux, Debian's package), and the test reads the screen
+tmux shows, not the bytes the program wrote.
+
+Plumbing of what a person reads: no outside source applies; the values
+asserted come from the run's own result file, which other tests check
+against theirs.
+"""
+
+from __future__ import annotations
+
+import json
+import shlex
+import subprocess
+import sys
+import time
+import uuid
+from pathlib import Path
+
+import pytest
+
+from conftest import run_folders, system_program
+
+DONE = "[benchkit exited"
+
+
+class Terminal:
+    """A tmux server of its own with one pane WIDTH x HEIGHT, running one
+    command; the pane's screen (and what scrolled off it) read as text."""
+
+    def __init__(self, tmux: str, width: int = 120, height: int = 50):
+        self.tmux, self.socket = tmux, f"benchkit-test-{uuid.uuid4().hex[:8]}"
+        self.width, self.height = width, height
+
+    def _call(self, *args: str) -> str:
+        return subprocess.run([self.tmux, "-L", self.socket, *args], check=True, capture_output=True, text=True).stdout
+
+    def run(self, *argv: str, cwd: Path, env: str = "") -> None:
+        command = env + " " + " ".join(shlex.quote(a) for a in (sys.executable, "-m", "benchkit", *argv))
+        # the pane stays open after the command, showing how it exited
+        self._call("new-session", "-d", "-x", str(self.width), "-y", str(self.height), "-c", str(cwd),
+                   f"{command}; echo '{DONE}' $?; sleep 600")
+
+    def screen(self, escapes: bool = False) -> str:
+        """The screen's text (with ``escapes``: its colours as escape sequences too)."""
+        return self._call("capture-pane", "-p", "-J", "-S", "-", *(["-e"] if escapes else []))
+
+    def wait_done(self, hang_guard_s: float = 400.0) -> str:
+        """The screen once the command has exited (it waits on the command,
+        which waits on its stream; the guard only stops a hang)."""
+        until = time.monotonic() + hang_guard_s
+        while time.monotonic() < until:
+            text = self.screen()
+            if DONE in text:
+                return text
+            time.sleep(0.2)
+        raise AssertionError("the command did not finish:\n" + self.screen())
+
+    def close(self) -> None:
+        subprocess.run([self.tmux, "-L", self.socket, "kill-server"], capture_output=True)
+
+
+@pytest.fixture
+def terminal():
+    t = Terminal(system_program("tmux", "tmux", "a terminal multiplexer (for the screen tests)"))
+    yield t
+    t.close()
+
+
+def _result(bench: Path) -> dict:
+    (folder,) = run_folders(bench)
+    record = json.loads((folder / "run.json").read_text())
+    return json.loads((folder / record["result_file"]).read_text())
+
+
+def test_a_power_run_shows_its_steps_live_on_a_terminal(terminal, tmp_path):
+    # on a terminal the steps are a table redrawn in place (step, drive, output, power, THD+N, the next
+    # limit), not a line a step; the top step's drive and THD+N are those the result file holds
+    bench = tmp_path / "bench"
+    terminal.run("power", "--load", "8", "--rail", "24", "--bias", "0.8", "--limit", "1", "--start", "-20",
+                 "--bench", str(bench), cwd=tmp_path)
+    screen = terminal.wait_done()
+    assert f"{DONE} 0" in screen, screen
+    header = next(line for line in screen.splitlines() if "drive (dBFS)" in line)
+    assert header.split() == ["step", "drive", "(dBFS)", "output", "power", "THD+N", "(%)", "next", "limit"]
+    assert "step  1  drive" not in screen  # the plain lines are for pipes
+    top = _result(bench)["steps"][-1]  # (in rising drive)
+    rows = [line.split() for line in screen.splitlines()]
+    assert any(r[1:2] == [f"{top['drive_dbfs']:.2f}"] and f"{top['thdn_pct']:.4f}" in r for r in rows), (top, screen)
+    assert "Ctrl-C fades out" in screen
+
+
+def test_a_power_run_in_a_pipe_prints_a_line_a_step(tmp_path):
+    # without a terminal: one plain line a step on stderr, as many as the result has steps, stdout untouched
+    from conftest import run_cli
+
+    bench = tmp_path / "bench"
+    res = run_cli("power", "--load", "8", "--rail", "24", "--bias", "0.8", "--limit", "1", "--start", "-20",
+                  "--bench", str(bench), "--json")
+    assert res.returncode == 0, res.stderr
+    lines = [line for line in res.stderr.splitlines() if line.startswith("step ") and " drive " in line]
+    steps = json.loads(res.stdout)["steps"]
+    assert len(lines) >= len(steps) and f"{steps[-1]['thdn_pct']:.4f} %" in res.stderr
+    assert "drive (dBFS)" not in res.stderr
+
+
+def test_watch_shows_its_table_on_a_terminal(terminal, tmp_path):
+    # the watch's live table: a row a figure with now, min, max and the trend, and the keys it takes
+    terminal.run("watch", "--duration", "3", "--level", "-20dBFS", "--bench", str(tmp_path / "bench"), cwd=tmp_path)
+    screen = terminal.wait_done()
+    assert f"{DONE} 0" in screen, screen
+    header = next(line for line in screen.splitlines() if " now " in line)
+    assert header.split() == ["figure", "now", "min", "max", "trend"]
+    assert any(line.split()[:1] == ["THD+N"] for line in screen.splitlines()), screen
+    assert "keys: h hold" in screen
+
+
+@pytest.mark.parametrize("no_color", [False, True])
+def test_warnings_stand_out_in_colour_on_a_terminal_and_no_color_turns_it_off(terminal, tmp_path, no_color):
+    # no-color.org: NO_COLOR set (to anything) means no colour; the words are the same either way
+    terminal.run("tone", "--level", "-20dBFS", "--bench", str(tmp_path / "bench"), cwd=tmp_path,
+                 env="NO_COLOR=1" if no_color else "")
+    terminal.wait_done()
+    screen = terminal.screen(escapes=True)
+    warning = next(line for line in screen.splitlines() if "no load given" in line)
+    assert ("\x1b[" in warning) is not no_color, repr(warning)
+    table = next(line for line in screen.splitlines() if "drive (dBFS)" in line)
+    assert "\x1b[" not in table.replace("\x1b[0m", "") or not no_color
+
+
+def test_a_tables_decimal_points_line_up_under_units_in_its_headers():
+    from benchkit.report.screen import Column, table_text
+    from benchkit.units import in_one_unit
+
+    unit, cells = in_one_unit([0.447, 1.414, 4.46, None], "Vrms")
+    assert (unit, cells) == ("Vrms", ["0.447", "1.414", "4.460", "-"])
+    assert in_one_unit([347e-6, 90e-6], "Vrms") == ("uVrms", ["347.0", "90.0"])
+    assert in_one_unit([0.07811, 20.9], "%") == ("%", ["0.07811", "20.90000"])
+    text = table_text([Column(f"level ({unit})"), Column("H2 (dBc)"), Column("note", "left")],
+                      [[cells[0], "-79.6", ""], [cells[1], "(-107.3)", "x"], [cells[2], "-50.93", ""], [cells[3], "-", ""]])
+    lines = text.splitlines()
+    assert lines[0].split() == ["level", "(Vrms)", "H2", "(dBc)", "note"]
+    rows = list(zip(lines[1:4], cells[:3], ["-79.6", "(-107.3)", "-50.93"]))
+
+    def point(line: str, cell: str, after: int = 0) -> int:
+        at = line.index(cell, after)
+        return at + cell.index(".")
+
+    assert len({point(line, level) for line, level, _ in rows}) == 1, text
+    assert len({point(line, h2, point(line, level) + 4) for line, level, h2 in rows}) == 1, text
