@@ -200,6 +200,79 @@ class Level:
         return f"{self.value:g} {self.unit}{load}"
 
 
+#: what a level can be shown in, alike in every command (--levels-in):
+#: re full scale, re 1 Vrms, re 0.7746 Vrms, re a reference the user sets
+#: (--dbr-ref), volts RMS, watts into the load
+LEVEL_UNITS = ("dBFS", "dBV", "dBu", "dBr", "V", "W")
+
+
+@dataclass(frozen=True)
+class LevelView:
+    """How levels are shown: ``unit`` one of LEVEL_UNITS, or None for each
+    screen's own way (dBFS, and volts where a calibration gives them);
+    ``ref`` the level dBr is read against (a dBFS one for levels in FS,
+    else volts). A level that cannot be shown so (volts without a
+    calibration, watts without a load) falls back to the nearest it can."""
+
+    unit: str | None = None
+    ref: Level | None = None
+
+    def value(self, dbfs: float, vrms: float | None = None, watts: float | None = None) -> tuple[float, str]:
+        """A level (its dBFS; its volts RMS and watts where known) as a
+        number in the chosen unit, and that unit."""
+        unit = self.unit or ("V" if vrms is not None else "dBFS")
+        if unit == "W":
+            if watts is not None:
+                return watts, "W"
+            unit = "V"
+        if unit == "dBr":
+            if self.ref is None or self.ref.unit == "dBFS":
+                return dbfs - (self.ref.value if self.ref is not None else 0.0), "dBr"
+            if vrms is not None:
+                return db_from_ratio(vrms / self.ref.to_vrms()), "dBr"
+            unit = "dBFS"
+        if vrms is None or unit == "dBFS":
+            return dbfs, "dBFS"
+        if unit == "V":
+            return vrms, "Vrms"
+        return float(dbv_from_vrms(vrms) if unit == "dBV" else dbu_from_vrms(vrms)), unit
+
+    def own(self, dbfs: float | None, vrms: float | None = None, watts: float | None = None) -> bool:
+        """Whether a level shows in a unit of its own here (dBV, dBu, dBr:
+        the screens show dBFS, volts and watts anyway)."""
+        return self.unit is not None and dbfs is not None and self.value(dbfs, vrms, watts)[1] not in ("dBFS", "Vrms", "W")
+
+    def text(self, dbfs: float, vrms: float | None = None, watts: float | None = None) -> str:
+        """:meth:`value` as a person reads it: "+4.00 dBu", "1.228 Vrms"."""
+        v, unit = self.value(dbfs, vrms, watts)
+        return quantity(v, unit, 4) if unit in ("Vrms", "W") else f"{v:+.2f} {unit}" if unit != "dBFS" else f"{v:.2f} dBFS"
+
+
+_VIEW = LevelView()
+
+
+def level_view() -> LevelView:
+    """How this process shows levels (:func:`show_levels_in`)."""
+    return _VIEW
+
+
+def show_levels_in(unit: str | None, ref: str | None = None) -> LevelView:
+    """Show every level in ``unit`` (LEVEL_UNITS; None: each screen's own
+    way), dBr against ``ref`` (a level, e.g. "2.83Vrms" or "-20dBFS"; 0 dBFS
+    when not given). Raises BenchkitError on a unit or level it cannot read."""
+    global _VIEW
+    if unit is not None:
+        match = {u.lower(): u for u in LEVEL_UNITS}.get(unit.strip().lower())
+        if match is None:
+            raise BenchkitError(f"cannot show levels in {unit!r}: use one of {', '.join(LEVEL_UNITS)}")
+        unit = match
+    level = parse_level(ref) if ref else None
+    if level is not None and unit != "dBr":
+        raise BenchkitError("--dbr-ref sets the reference of dBr: give it with --levels-in dBr")
+    _VIEW = LevelView(unit, level)
+    return _VIEW
+
+
 def parse_level(text: str) -> Level:
     """Parse a level such as "-12 dBFS", "0.5 Vrms", "300 mVrms", "-6 dBV",
     "+4 dBu", "2.8 Vpk", "2 W@8ohm" or "2 W into 8 ohm".

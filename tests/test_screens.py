@@ -10,6 +10,7 @@ against theirs.
 from __future__ import annotations
 
 import json
+import math
 import shlex
 import subprocess
 import sys
@@ -148,3 +149,31 @@ def test_a_tables_decimal_points_line_up_under_units_in_its_headers():
 
     assert len({point(line, level) for line, level, _ in rows}) == 1, text
     assert len({point(line, h2, point(line, level) + 4) for line, level, h2 in rows}) == 1, text
+
+
+@pytest.mark.parametrize("choice, header, convert", [
+    (("--levels-in", "dBu"), "level (dBu)", lambda v: 20 * math.log10(v / math.sqrt(0.6))),
+    (("--dbr-ref", "2Vrms"), "level (dBr)", lambda v: 20 * math.log10(v / 2.0)),
+])
+def test_one_level_unit_in_the_tone_table_the_watch_line_and_the_power_steps(tmp_path, choice, header, convert):
+    # dBu re sqrt(0.6) V, dBr re the level given (common definitions): the tone table's level column and
+    # the watch's line show the level the result holds in volts, converted; a power run's steps alike
+    from conftest import run_cli
+
+    tone = run_cli("tone", "--level", "-30dBFS", "--level", "-20dBFS", *choice, "--bench", str(tmp_path / "b"), "--json")
+    assert tone.returncode == 0, tone.stderr
+    vrms = [s["fundamental_vrms"] for s in json.loads(tone.stdout)["steps"]]
+    table = tone.stderr.splitlines()
+    at = next(i for i, line in enumerate(table) if header in line)
+    shown = [float(line.split()[1]) for line in table[at + 1: at + 3]]
+    assert shown == pytest.approx([convert(v) for v in vrms], abs=0.006)
+    watch = run_cli("watch", "--plain", "--duration", "1", "--level", "-20dBFS", *choice)
+    assert watch.returncode == 0, watch.stderr
+    first = watch.stdout.splitlines()[0].split()
+    level = float(first[first.index("level") + 1])
+    volts = float(first[first.index("Vrms") - 1])
+    assert level == pytest.approx(convert(volts), abs=0.01)
+    power = run_cli("power", "--load", "8", "--rail", "24", "--bias", "0.8", "--limit", "1", "--start", "-12", *choice)
+    assert power.returncode == 0, power.stderr
+    unit = header.split("(")[1].rstrip(")")
+    assert sum(f" {unit}  " in line for line in power.stderr.splitlines() if line.startswith("step ")) >= 3

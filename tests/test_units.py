@@ -151,3 +151,34 @@ def test_every_resistance_option_reads_the_same_text(tmp_path):
     short = run_cli("pad", "--rail", "24", "--input-ohms", "10k", "--check", "1.8k", "--check", "200R", "--json")
     assert plain.returncode == 0 and short.returncode == 0, short.stderr
     assert json.loads(plain.stdout)["pads"] == json.loads(short.stdout)["pads"]
+
+
+@pytest.fixture
+def levels_in():
+    """Choose how levels are shown for one test, then back to each screen's own way."""
+    yield units.show_levels_in
+    units.show_levels_in(None)
+
+
+@pytest.mark.parametrize("unit, ref, want", [
+    ("dBu", None, 4.0),                               # 1.228 Vrms is +4 dBu (common practice, pro line level; rounded: 5e-3 dB)
+    ("dBV", None, 20 * math.log10(1.228)),            # +1.78 dBV
+    ("dBr", "2.456Vrms", -6.0206),                    # half the voltage of the reference: -6.02 dB
+    ("dBr", "-10dBFS", -20.0 + 10.0),                 # re a level in FS: the difference of the dBFS
+    ("V", None, 1.228),
+    ("W", None, 1.228 ** 2 / 8),                      # Vrms^2 / R into the 8 ohm load
+])
+def test_a_level_shows_in_the_unit_chosen(levels_in, unit, ref, want):
+    # a sine at -20 dBFS that is 1.228 Vrms at the stage (0 dBu = sqrt(0.6) V, 0 dBV = 1 V: common definitions)
+    view = levels_in(unit.lower(), ref)
+    value, shown = view.value(-20.0, 1.228, 1.228 ** 2 / 8)
+    assert value == pytest.approx(want, abs=5e-3) and shown == {"V": "Vrms"}.get(unit, unit)
+    # without volts (no calibration) a level in volts falls back to dBFS; a dBr re FS needs none
+    assert view.value(-20.0)[1] == ("dBr" if ref == "-10dBFS" else "dBFS")
+
+
+def test_a_level_unit_it_cannot_show_is_refused(levels_in):
+    with pytest.raises(BenchkitError, match="use one of dBFS, dBV, dBu, dBr, V, W"):
+        levels_in("dBm")
+    with pytest.raises(BenchkitError, match="--dbr-ref"):
+        levels_in("dBu", "1Vrms")

@@ -15,7 +15,7 @@ from benchkit.errors import BenchkitError
 
 @app.command()
 @takes("channel fundamental bandwidth averages volts_per_fs load calibration out sweep ref_channel ref_freq smooth "
-       "time_col value_col as_kind zout open_load imd rail json", "figures", "judge",
+       "time_col value_col as_kind zout open_load imd rail json", "figures", "judge", "shown",
        helps=dict(calibration="Calibration profile: volts at the stage from its scale and pad.",
                   rail="Describe the stage (se-class-a): its rail, V, for the expected ceiling (with --bias).",
                   ref_channel="Response and gain captures: the reference input (default: the sidecar's).",

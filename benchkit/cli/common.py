@@ -99,7 +99,12 @@ def takes(*groups, helps: dict | None = None, **own):
 
         @functools.wraps(command)
         def wrapper(**kwargs):
-            return command(o={key: kwargs.pop(key) for key in chosen}, **kwargs)
+            o = {key: kwargs.pop(key) for key in chosen}
+            if "levels_in" in o:  # one way of showing levels for all the command prints and draws
+                from benchkit import units
+
+                units.show_levels_in(o["levels_in"] or ("dBr" if o["dbr_ref"] else None), o["dbr_ref"])
+            return command(o=o, **kwargs)
 
         wrapper.__signature__ = inspect.Signature([p.replace(kind=inspect.Parameter.KEYWORD_ONLY) for p in mine] + extra)
         wrapper.__annotations__ = {p.name: p.annotation for p in mine + extra}  # (types, not the module's text)

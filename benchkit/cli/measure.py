@@ -14,7 +14,7 @@ ORDER = ("tone", "noise", "gain", "imd", "zout", "crosstalk", "sweep", "power")
 def _command(kind):
     live = kind.live
 
-    @takes(live.options, *live.groups, helps=live.helps, **live.defaults)
+    @takes(live.options, *live.groups, "shown", helps=live.helps, **live.defaults)
     def command(o: dict) -> None:
         measured(kind.name, o)
 

@@ -11,7 +11,7 @@ from benchkit.cli.common import answer, app, err, EXIT_BAD_INPUT, EXIT_INTERRUPT
 
 @app.command()
 @takes("freq level load bandwidth duration plain json_lines record record_audio dc_source meter ref_channel", "live",
-       "filing", helps=dict(duration="Stop after this many seconds (default: until q or Ctrl-C)."))
+       "filing", "shown", helps=dict(duration="Stop after this many seconds (default: until q or Ctrl-C)."))
 def watch(o: dict) -> None:
     """Play a steady tone and show its figures live while you adjust the stage.
 

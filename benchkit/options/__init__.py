@@ -177,6 +177,10 @@ OPTIONS: dict[str, Option] = {
     "session": _o("--session", "Only runs of this session (a plan's: its id, a unique start of it, or 'last')."),
     # plans and sessions
     "repeat": _o("--repeat", "Measure this many takes in one run: its figures are their mean, and their scatter counts in each figure's uncertainty.", V.COUNT, 1),
+    # how levels are shown
+    "levels_in": _o("--levels-in", "Show levels in dBFS, dBV, dBu, dBr (against --dbr-ref), V or W (into the load): summaries, tables, live displays and the spectra's second axis.",
+                    V.one_of(*(u.lower() for u in units.LEVEL_UNITS))),
+    "dbr_ref": _o("--dbr-ref", "The level dBr is read against, e.g. 2.83Vrms or -20dBFS (levels then show in dBr).", _level),
     "set_stage": _o("--set", "Change a value of the plan's stage for this session, key=value (repeatable), e.g. --set bias=1.2.", default=[]),
 }
 
@@ -192,10 +196,12 @@ JUDGE = ("dc_limit", "nominal", "settle_band", "window")
 FILING = ("bench", "tag", "note", "stage", "stage_info")
 #: repeated takes of one measurement in one run
 TAKES = ("repeat",)
+#: how a command that shows levels shows them
+SHOWN = ("levels_in", "dbr_ref")
 
 
 #: the groups by name (a kind's ``groups``)
-GROUPS = {"live": LIVE, "figures": FIGURES, "judge": JUDGE, "filing": FILING, "takes": TAKES}
+GROUPS = {"live": LIVE, "figures": FIGURES, "judge": JUDGE, "filing": FILING, "takes": TAKES, "shown": SHOWN}
 
 
 def defaults(*groups) -> dict:

@@ -55,6 +55,9 @@ def marks(r: Reading | None, held: bool) -> list[str]:
 def plain_line(r: Reading) -> str:
     """One reading on one line (for logs and pipes)."""
     parts = [f"t {r.t_s:8.2f} s"]
+    view = units.level_view()
+    if view.own(r.level_dbfs, r.level_vrms, r.power_w):
+        parts.append(f"level {view.text(r.level_dbfs, r.level_vrms, r.power_w)}")
     for key, label, unit in FIGURES:
         v = getattr(r, key)
         if v is not None:
@@ -73,6 +76,15 @@ def table(tracker: Tracker, title: str):
     for name, justify in (("figure", "left"), ("now", "right"), ("min", "right"), ("max", "right"), ("trend", "left")):
         t.add_column(name, justify=justify, no_wrap=True)
     if r is not None:
+        view = units.level_view()
+        if view.own(r.level_dbfs, r.level_vrms, r.power_w):
+            # the level as levels are shown: it rises and falls with the dBFS, so its extremes are theirs
+            def shown(which):
+                return "-" if which.get("level_dbfs") is None else view.text(
+                    which["level_dbfs"], which.get("level_vrms"), which.get("power_w"))
+            unit = view.value(r.level_dbfs, r.level_vrms)[1]
+            t.add_row(f"level ({unit})", view.text(r.level_dbfs, r.level_vrms, r.power_w), shown(tracker.min),
+                      shown(tracker.max), sparkline(tracker.history["level_dbfs"]))
         for key, label, unit in FIGURES:
             if not _shown(r, key) and key not in tracker.min:
                 continue
@@ -172,11 +184,12 @@ class StepBoard:
             self._display.stop()
 
     def _output(self, amplitude_fs: float) -> tuple[str, str]:
-        if not self.volts_per_fs:
-            return f"{units.dbfs_from_peak(amplitude_fs):.2f} dBFS", "-"
-        vrms = units.vrms_from_vpk(amplitude_fs * self.volts_per_fs)
-        watts = quantity(vrms * vrms / self.load_ohms, "W", 3) if self.load_ohms else "-"
-        return quantity(vrms, "V", 4), watts
+        """The output level as levels are shown (volts RMS by default, with
+        a calibration), and the power."""
+        vrms = units.vrms_from_vpk(amplitude_fs * self.volts_per_fs) if self.volts_per_fs else None
+        watts = vrms * vrms / self.load_ohms if vrms is not None and self.load_ohms else None
+        level = units.level_view().text(units.dbfs_from_peak(amplitude_fs), vrms, watts)
+        return level, "-" if watts is None else quantity(watts, "W", 3)
 
     def _next_limit(self, pct: float, before: float | None) -> str:
         """How near the next limit up is, and which way the figure moves

@@ -14,7 +14,7 @@ from benchkit.analysis.uncertainty import lookup, shown, shown_quantity
 from benchkit.errors import read_warnings
 from benchkit.report.files import result_csv_png
 from benchkit.report.plots import BAND, FAINT, labels_apart, LEGEND_PLACES, legend_clear, log_hz_axis, MARK, save_png, TRACE
-from benchkit.units import quantity
+from benchkit.units import level_view, quantity
 
 
 def noise_summary(d: dict, title: str = "") -> str:
@@ -23,11 +23,16 @@ def noise_summary(d: dict, title: str = "") -> str:
     lo, hi = d["bandwidth_hz"]
     band = f"{lo:g} Hz to {hi:g} Hz"
 
+    view = level_view()
+
     def level(key):
         v, dbfs, u = d[f"{key}_vrms"], d[f"{key}_dbfs"], lookup(d, f"{key}_vrms")
         if v is None:
             return f"{shown(dbfs, lookup(d, f'{key}_dbfs'), 1)} dBFS"
-        return f"{shown_quantity(v, u, 'Vrms')} ({d[f'{key}_dbv'] or 0:.1f} dBV, {dbfs:.1f} dBFS)"
+        also = [f"{d[f'{key}_dbv'] or 0:.1f} dBV", f"{dbfs:.1f} dBFS"]
+        if view.own(dbfs, v) and view.unit != "dBV":  # (shown already)
+            also.insert(0, view.text(dbfs, v))
+        return f"{shown_quantity(v, u, 'Vrms')} ({', '.join(also)})"
 
     lines.append(f"  unweighted   {level('noise')} over {band}")
     lines.append(f"  A-weighted   {level('noise_a')}   (+- is the expanded uncertainty, k = 2)")

@@ -167,17 +167,22 @@ def log_hz_axis(ax) -> None:
 
 
 def volts_axis(ax, volts_per_fs: float | None, what: str = "level of a sine"):
-    """Beside a left axis in dBFS, a right one in dBV (0 dBV = 1 Vrms) when
-    a calibration gives volts: a full-scale sine is ``volts_per_fs``
-    (peak volts per FS) over sqrt 2 volts RMS. Nothing without volts.
-    Leave the right margin room for its labels."""
-    if not volts_per_fs:
-        return None
+    """Beside a left axis in dBFS, a right one in the dB unit levels are
+    shown in (benchkit.units.level_view: dBu or dBr as chosen, else dBV,
+    0 dBV = 1 Vrms) when it can be had: a full-scale sine is
+    ``volts_per_fs`` (peak volts per FS) over sqrt 2 volts RMS, and a dBr
+    against a dBFS reference needs no volts. None otherwise. Leave the
+    right margin room for its labels."""
     from benchkit import units
 
-    shift = float(units.dbv_from_vrms(units.vrms_from_vpk(volts_per_fs)))
+    view = units.level_view()
+    unit = view.unit if view.unit in ("dBu", "dBr") else "dBV"
+    full = units.vrms_from_vpk(volts_per_fs) if volts_per_fs else None
+    shift, shown = units.LevelView(unit, view.ref).value(0.0, full)
+    if shown != unit:  # (volts it has not got)
+        return None
     right = ax.secondary_yaxis("right", functions=(lambda y: y + shift, lambda y: y - shift))
-    right.set_ylabel(f"{what} (dBV)")
+    right.set_ylabel(f"{what} ({unit})")
     return right
 
 

@@ -20,6 +20,24 @@ class Column:
     align: str = "decimal"
 
 
+def level_column(levels) -> tuple[str, list[str]]:
+    """Levels ((dBFS, volts RMS or None, watts or None) each) as one table
+    column in the unit levels are shown in (benchkit.units.level_view):
+    the unit for the header and the cells, one unit for all of them (volts
+    and watts with the prefix the column needs, dB to 0.01)."""
+    from benchkit.units import in_one_unit, level_view
+
+    view = level_view()
+    got = [view.value(*lv) for lv in levels]
+    units_seen = {u for _v, u in got}
+    if len(units_seen) > 1:  # some without volts: the column in what all have
+        got = [(dbfs, "dBFS") for dbfs, *_rest in levels]
+    unit = got[0][1] if got else "dBFS"
+    if unit in ("Vrms", "W"):
+        return in_one_unit([v for v, _u in got], unit)
+    return unit, [f"{v:+.2f}" if unit != "dBFS" else f"{v:.2f}" for v, _u in got]
+
+
 def _in_line(cells: list[str]) -> list[str]:
     """Cells padded on the right so their decimal points fall in one column
     (a cell with no point lines its end up with the others' points)."""

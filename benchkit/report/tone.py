@@ -21,7 +21,7 @@ from benchkit.report.overlays import colour, finish_overlay
 from benchkit.report.plots import (BAND, FAINT, floored, hz_label, labels_apart, LABELLED_HARMONICS, MARK, renderer_of, save_png,
                                    shared_scale, volts_axis,
                                    TRACE)
-from benchkit.units import in_one_unit, quantity
+from benchkit.units import in_one_unit, level_view, quantity
 
 #: the warnings that make a result not valid, named on its NOT VALID line
 NOT_VALID_CODES = ("input-clipped", "dropout")
@@ -74,6 +74,9 @@ def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> s
         fund += f"   {shown_quantity(r.fundamental_vrms, u.get('fundamental_vrms'), 'Vrms')}"
     if r.power_w is not None:
         fund += f"   {shown_quantity(r.power_w, u.get('power_w'), 'W')} into {r.load_ohms:g} ohm"
+    view = level_view()
+    if view.own(r.fundamental_dbfs, r.fundamental_vrms, r.power_w):
+        fund += f"   {view.text(r.fundamental_dbfs, r.fundamental_vrms, r.power_w)}"
     lines.append(fund)
     lines.append(f"               (+- is the expanded uncertainty, k = 2{_dominant(r, 'power_w', 'fundamental_vrms')})")
     heard = sum(h.above_noise for h in r.harmonics)
@@ -90,6 +93,8 @@ def tone_summary(r: ToneResult, name: str = "", channel: int | None = None) -> s
     noise = f"  noise        {r.noise_dbfs:.1f} dBFS"
     if r.noise_vrms is not None:
         noise += f"   {quantity(r.noise_vrms, 'Vrms')}"
+    if view.own(r.noise_dbfs, r.noise_vrms):
+        noise += f"   {view.text(r.noise_dbfs, r.noise_vrms)}"
     lines.append(noise)
     lines.append(f"  DC {r.dc_fs:+.3g} FS   peak {r.peak_fs:.4g} FS   crest factor {r.crest_factor:.3f}")
     if r.harmonics:
@@ -116,12 +121,10 @@ def _harmonic_cell(h) -> str:
 def steps_summary(steps, title: str = "") -> str:
     """A stepped-tone run as a table: a row a step, the units in the
     headers, the decimal points in line."""
-    from benchkit.report.screen import Column, table_text
+    from benchkit.report.screen import Column, level_column, table_text
 
     rs = [s.result for s in steps.steps]
-    volts = all(r.fundamental_vrms is not None for r in rs)
-    level_unit, levels = in_one_unit([r.fundamental_vrms if volts else r.fundamental_dbfs for r in rs],
-                                     "Vrms" if volts else "dBFS")
+    level_unit, levels = level_column([(r.fundamental_dbfs, r.fundamental_vrms, r.power_w) for r in rs])
     power_unit, powers = in_one_unit([r.power_w for r in rs], "W")
     thdn_unit, thdn_pct = in_one_unit([r.thdn_pct for r in rs], "%")
     parts = [shown_parts(r.thdn_db, ((r.uncertainty or {}).get("standard") or {}).get("thdn_db")) for r in rs]
