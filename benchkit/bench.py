@@ -13,6 +13,7 @@ Options arrive by their keys in the vocabulary (:mod:`benchkit.options`);
 from __future__ import annotations
 
 import contextlib
+import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
@@ -20,6 +21,7 @@ from typing import Any, Callable
 from benchkit import kinds, units
 from benchkit.errors import BenchkitError
 from benchkit.logbook import CATALOG
+from benchkit.report.live import Measuring
 from benchkit.units import quantity
 
 #: the lowest tone a step can analyse with the band 'full' (five periods in the pre-flight's probe)
@@ -114,7 +116,8 @@ def measure(kind_name: str, o: dict, say: Callable[[str], None], ask: Callable[[
         with start_run(book, labels, kind_name, s.backend, s.profile, o.get("calibration"), params, say) as run:
             if repeat > 1:
                 return takes(run, kind, s, repeat, say, tell)
-            got = kind.live.measure(s, run.folder)
+            with Measuring(kind_name, shown=not kind.live.shows_itself and sys.stderr.isatty()):
+                got = kind.live.measure(s, run.folder)
             return finish(run, kind, got, say, channel=s.channel, tell=tell)
 
 
@@ -129,7 +132,8 @@ def takes(run, kind, s: "Bench", n: int, say, tell=None) -> Filed:
         folder = run.folder / kinds.TAKE.format(k)
         folder.mkdir(parents=True, exist_ok=True)
         say(f"take {k} of {n}")
-        got = kind.live.measure(s, folder)
+        with Measuring(f"{kind.name}, take {k} of {n}", shown=not kind.live.shows_itself and sys.stderr.isatty()):
+            got = kind.live.measure(s, folder)
         (tell or say)(kind.summary(got.result, f"{got.title} (take {k} of {n})".strip()))
         files += kind.reports(got.result, folder, s.channel, **got.report) + list(got.files)
         if got.status == "complete" and got.ended is None:

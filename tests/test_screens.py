@@ -177,3 +177,17 @@ def test_one_level_unit_in_the_tone_table_the_watch_line_and_the_power_steps(tmp
     assert power.returncode == 0, power.stderr
     unit = header.split("(")[1].rstrip(")")
     assert sum(f" {unit}  " in line for line in power.stderr.splitlines() if line.startswith("step ")) >= 3
+
+
+def test_a_measurement_shows_how_long_it_has_been_measuring_on_a_terminal(terminal, tmp_path):
+    # anything longer than a second says on the terminal what it is measuring, redrawn in place, and is left
+    # as "measured ... in" when it ends; it comes before the summary, which the run's result file matches
+    terminal.run("sweep", "--duration", "3", "--bench", str(tmp_path / "bench"), cwd=tmp_path)
+    screen = terminal.wait_done()
+    assert f"{DONE} 0" in screen, screen
+    lines = screen.splitlines()
+    done = next(i for i, line in enumerate(lines) if line.startswith("measured sweep in "))
+    summary = next(i for i, line in enumerate(lines) if line.startswith("sweep response"))
+    assert done < summary and not any("measuring sweep" in line for line in lines[done:])
+    ripple = _result(tmp_path / "bench")["ripple_db"]
+    assert f"ripple       {ripple:.2f} dB" in screen

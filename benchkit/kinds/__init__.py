@@ -178,6 +178,9 @@ class Live:
     over_time
         It logs readings over time (drift): ``other`` makes every run,
         and its command stands with the live readouts.
+    shows_itself
+        It draws its own live display while it measures (power's steps);
+        else a terminal shows how long it has been measuring.
     """
 
     opens: Callable[[dict], dict] | None
@@ -190,6 +193,7 @@ class Live:
     about: str = ""
     other: Callable | None = None
     over_time: bool = False
+    shows_itself: bool = False
 
 
 @dataclass(frozen=True)

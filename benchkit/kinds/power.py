@@ -726,6 +726,7 @@ ON_BENCH = Live(
     defaults=dict(load=...),
     helps=dict(load="Load resistance, ohms (a dummy load of the right rating)."),
     about=ABOUT,
+    shows_itself=True,
 )
 
 KIND = Kind("power", reanalyse, PowerParams, summary, reports, figures=power_figures, overlay=overlay, chosen=lambda o: o.power is not None,

@@ -237,3 +237,41 @@ class StepBoard:
                        f"({', '.join(f'{x:g} %' for x in self.limits)}).  Ctrl-C fades out and keeps the steps done.")
         t.caption, t.caption_justify = caption, "left"
         return t
+
+
+class Measuring:
+    """While a measurement plays and is analysed, a line on a terminal
+    (stderr) saying what and for how long, redrawn in place, with how to
+    stop it; left as "measured in ..." when it ends. Notes printed
+    meanwhile appear above it. Nothing when not ``shown``."""
+
+    def __init__(self, what: str, shown: bool):
+        self.what, self._display, self._started = what, None, time.monotonic()
+        self._done: str | None = None
+        if shown:
+            from rich.console import Console
+            from rich.live import Live
+
+            self._display = Live(console=Console(stderr=True), get_renderable=self._line, refresh_per_second=4,
+                                 transient=False)
+
+    def _line(self):
+        from rich.text import Text
+
+        if self._done is not None:
+            return Text(self._done)
+        spin = "|/-\\"[int(time.monotonic() * 4) % 4]
+        return Text(f"{spin} measuring {self.what}: {fmt_time(time.monotonic() - self._started).strip()}  "
+                    "(Ctrl-C fades the output to silence and keeps what was captured)", style="bold")
+
+    def __enter__(self) -> "Measuring":
+        if self._display is not None:
+            self._display.start()
+        return self
+
+    def __exit__(self, kind, *_exc) -> None:
+        if self._display is not None:
+            took = fmt_time(time.monotonic() - self._started).strip()
+            self._done = f"measured {self.what} in {took}" if kind is None else f"{self.what} stopped after {took}"
+            self._display.refresh()
+            self._display.stop()

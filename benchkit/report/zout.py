@@ -13,7 +13,8 @@ from benchkit.errors import read_warnings
 from benchkit.report import tables
 from benchkit.report.files import report_folder, title_of
 from benchkit.report.plots import FAINT, log_hz_axis, readable_log, save_png, TRACE
-from benchkit.units import quantity
+from benchkit.report.screen import Column, table_text
+from benchkit.units import in_one_unit, quantity
 
 
 def zout_summary(d: dict, title: str = "") -> str:
@@ -21,12 +22,14 @@ def zout_summary(d: dict, title: str = "") -> str:
     lines = [title] if title else []
     open_load = "open" if d["open_load_ohms"] is None else f"{quantity(d['open_load_ohms'], 'ohm', 4)} (pad and input)"
     lines.append(f"  loads        {d['load_ohms']:g} ohm against {open_load}; {d['method']}")
-    lines.append("  freq Hz      |Zout| ohm    R ohm       X ohm      damping")
-    for p in d["points"]:
-        df = "-" if p["damping_factor"] is None else f"{p['damping_factor']:.3g}"
-        mark = "" if p["valid"] else "   NOT VALID"
-        lines.append(f"  {p['frequency_hz']:>9.5g}   {p['zout_ohms']:10.4g}  {p['resistance_ohms']:10.4g}  "
-                     f"{p['reactance_ohms']:10.4g}  {df:>8}{mark}")
+    pts = d["points"]
+    z_unit, zs = in_one_unit([p["zout_ohms"] for p in pts], "ohm")
+    r_unit, rs = in_one_unit([p["resistance_ohms"] for p in pts], "ohm")
+    x_unit, xs = in_one_unit([p["reactance_ohms"] for p in pts], "ohm")
+    rows = [[f"{p['frequency_hz']:.5g}", z, r, x, "-" if p["damping_factor"] is None else f"{p['damping_factor']:.1f}",
+             "" if p["valid"] else "NOT VALID"] for p, z, r, x in zip(pts, zs, rs, xs)]
+    lines.append(table_text([Column("frequency (Hz)"), Column(f"|Zout| ({z_unit})"), Column(f"R ({r_unit})"),
+                             Column(f"X ({x_unit})"), Column("damping factor"), Column("", "left")], rows))
     if d.get("zout_ohms") is not None:
         df = "-" if d["damping_factor"] is None else f"{d['damping_factor']:.3g}"
         lines.append(f"  at {d['reference_hz']:g} Hz  Zout {quantity(d['zout_ohms'], 'ohm', 4)}, damping factor {df} re "
