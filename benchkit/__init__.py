@@ -29,6 +29,8 @@ _EXPORTS = {
     "analyze_crosstalk": "benchkit.analysis.crosstalk",
     "analyze_drift": "benchkit.analysis.drift",
     "analyze_sweep": "benchkit.kinds.sweep",
+    "analyze_grid": "benchkit.kinds.grid",
+    "analyze_power_bandwidth": "benchkit.kinds.power_bandwidth",
     "ToneResult": "benchkit.analysis.tone",
     "Harmonic": "benchkit.analysis.tone",
     "ImdResult": "benchkit.analysis.imd",
@@ -40,6 +42,8 @@ _EXPORTS = {
     "Leak": "benchkit.analysis.crosstalk",
     "DriftResult": "benchkit.analysis.drift",
     "ResponseResult": "benchkit.analysis.response",
+    "GridResult": "benchkit.kinds.grid",
+    "BandwidthResult": "benchkit.kinds.power_bandwidth",
     "BenchkitError": "benchkit.errors",
     "BenchWarning": "benchkit.errors",
 }

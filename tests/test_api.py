@@ -22,7 +22,8 @@ from benchkit import BenchkitError
 
 ENTRY_POINTS = sorted(n for n in benchkit.__all__ if n.startswith("analyze_"))
 #: the data each entry point takes by position; everything else is a keyword
-DATA = {"analyze_zout": 2, "analyze_drift": 2, "analyze_power": 1, "analyze_gain": 1}
+DATA = {"analyze_zout": 2, "analyze_drift": 2, "analyze_power": 1, "analyze_gain": 1, "analyze_grid": 1,
+        "analyze_power_bandwidth": 1}
 
 
 def test_import_benchkit_loads_nothing_heavy():
@@ -34,7 +35,7 @@ def test_import_benchkit_loads_nothing_heavy():
 def test_one_entry_point_a_kind():
     from benchkit import kinds
 
-    assert ENTRY_POINTS == sorted(f"analyze_{k}" for k in kinds.names() if k != "watch")  # (watch: a live readout)
+    assert ENTRY_POINTS == sorted(f"analyze_{k.replace('-', '_')}" for k in kinds.names() if k != "watch")  # (watch: live)
 
 
 @pytest.mark.parametrize("name", ENTRY_POINTS)

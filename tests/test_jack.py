@@ -77,6 +77,26 @@ def test_poly_stage_through_jack(server, tmp_path):
     assert by_order[3] == pytest.approx(20 * math.log10(a3 * amp**3 / 4 / h1), abs=0.1)
 
 
+def test_a_grid_through_jack_reads_the_poly_harmonics_in_every_cell(server, tmp_path):
+    # two frequencies x two levels on the real stream through y = x + a2 x^2 + a3 x^3: every cell's
+    # H2 and H3 from the power-reduction identities (frequency does not enter: the stage has no memory)
+    a2, a3 = 0.02, 0.01
+    with jackbench.Patchbay(server, "poly", a2=a2, a3=a3):
+        proc = jackbench.benchkit(server, "grid", "--device", "system", "--ref-channel", "2", "--at", "500", "--at", "3000",
+                                  "--level", "-20dBFS", "--level", "-14dBFS", "--bench", str(tmp_path / "run"), "--json")
+        out, err = proc.communicate(timeout=90)
+    assert proc.returncode == 0, err
+    doc = json.loads(out)
+    assert doc["kind"] == "grid" and len(doc["steps"]) == 4
+    assert {(c["frequency_hz"], c["drive_dbfs"]) for c in doc["steps"]} == {(f, d) for f in (500.0, 3000.0) for d in (-20.0, -14.0)}
+    for cell in doc["steps"]:
+        amp = 10 ** (cell["drive_dbfs"] / 20)
+        h1 = amp + 3 * a3 * amp**3 / 4
+        by_order = {h["order"]: h["level_dbc"] for h in cell["harmonics"]}
+        assert by_order[2] == pytest.approx(20 * math.log10(a2 * amp**2 / 2 / h1), abs=0.1), cell["frequency_hz"]
+        assert by_order[3] == pytest.approx(20 * math.log10(a3 * amp**3 / 4 / h1), abs=0.1), cell["frequency_hz"]
+
+
 def _aligned_exactly(folder) -> bool:
     # the reference input of a loopback is the stimulus itself, sample for sample
     data, _ = sf.read(folder / "capture.wav", always_2d=True)

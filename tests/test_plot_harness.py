@@ -66,6 +66,17 @@ level = "-20dBFS"
 freq = [100, 1000, 10000]
 
 [[measure]]
+kind = "power-bandwidth"
+at = [1000, 5000]
+limit = [1]
+start = -16
+
+[[measure]]
+kind = "grid"
+at = [50, 1000, 10000]
+level = ["-30dBFS", "-12dBFS"]
+
+[[measure]]
 kind = "drift"
 duration = 600
 interval = 1
@@ -166,7 +177,7 @@ def _shrunk(box, by: float = SLACK):
 def test_the_harness_draws_every_kind(figures):
     # every measurement's plot, each run's own and each comparison's overlay
     names = " ".join(figures)
-    for stem in ("spectrum", "residual", "thdn", "imd", "power", "response", "noise", "zout", "crosstalk", "drift"):
+    for stem in ("spectrum", "residual", "thdn", "imd", "power", "response", "noise", "zout", "crosstalk", "grid", "power-bandwidth", "drift"):
         assert f".{stem}" in names or f"{stem}." in names, (stem, sorted(figures))
     assert sum(n.startswith("comparisons/") for n in figures) >= 6, sorted(figures)
 

@@ -144,20 +144,70 @@ class Poly(StageModel):
         return v_in * (p["gain"] + v_in * (p["a2"] + v_in * (p["a3"] + v_in * (p["a4"] + v_in * p["a5"]))))
 
 
-class HardClip(StageModel):
+@lru_cache(maxsize=64)
+def first_order_lowpass(corner_hz: float, rate: float) -> tuple[np.ndarray, np.ndarray]:
+    """(b, a) of a first-order Butterworth low-pass (bilinear, the corner
+    prewarped), designed once per corner and rate (do not modify)."""
+    return scipy.signal.butter(1, corner_hz, btype="lowpass", fs=rate)
+
+
+class LowPassed:
+    """A stage part: a first-order low-pass at the ``fc`` parameter, its
+    state kept from block to block (back to rest on reset)."""
+
+    params: dict
+
+    def reset(self):
+        super().reset()
+        self._lp_state, self._lp_rate = None, None
+
+    def _low_pass(self, v, rate):
+        if not self.params["fc"] < 0.45 * rate:
+            raise BenchkitError(f"stage parameter fc ({self.params['fc']:g} Hz) must lie below the bench's band")
+        b, a = first_order_lowpass(self.params["fc"], rate)
+        if self._lp_state is None or self._lp_rate != rate:
+            self._lp_state, self._lp_rate = np.zeros(1), rate
+        out, self._lp_state = scipy.signal.lfilter(b, a, v, zi=self._lp_state)
+        return out
+
+
+class FilteredPoly(LowPassed, Poly):
+    """A first-order low-pass, then the polynomial: the harmonics follow
+    the filtered amplitude B = A |H(f)|, so distortion falls above the
+    corner (H2 as B, H3 as B^2), as a stage whose open-loop gain (and so
+    its feedback) falls with frequency is made to behave."""
+
+    NAME = "filtered-poly"
+    SUMMARY = ("a first-order low-pass at fc, then the polynomial gain v + a2 v^2 + a3 v^3 + a4 v^4 + a5 v^5 "
+               "(distortion that depends on frequency)")
+    PARAMS = (*Poly.PARAMS[:-1], Param("fc", 5000.0, "Hz", "the low-pass corner before the polynomial"), ROUT)
+
+    def validate(self):
+        self._positive("fc")
+
+    def _transfer(self, v_in, rate):
+        return super()._transfer(self._low_pass(v_in, rate), rate)
+
+
+class HardClip(LowPassed, StageModel):
     NAME = "hard-clip"
-    SUMMARY = "gain with symmetric hard clipping at +-vclip volts"
+    SUMMARY = ("gain with symmetric hard clipping at +-vclip volts; with fc, a first-order low-pass after the "
+               "clipper (an output filter: the power it can deliver falls above fc)")
     PARAMS = (
         Param("gain", 10.0, "V/V", "voltage gain"),
         Param("vclip", 9.5, "V", "clipping level, either polarity"),
+        Param("fc", 0.0, "Hz", "corner of a first-order low-pass after the clipper; 0: none"),
         ROUT,
     )
 
     def validate(self):
         self._positive("vclip")
+        if self.params["fc"] < 0:
+            raise BenchkitError("stage parameter fc must not be negative (0: no low-pass)")
 
     def _transfer(self, v_in, rate):
-        return np.clip(self.params["gain"] * v_in, -self.params["vclip"], self.params["vclip"])
+        out = np.clip(self.params["gain"] * v_in, -self.params["vclip"], self.params["vclip"])
+        return out if not self.params["fc"] else self._low_pass(out, rate)
 
 
 class SingleEndedClassA(StageModel):
@@ -398,7 +448,7 @@ def split_stereo(params: dict[str, float]) -> tuple[dict[str, float], dict[str, 
     return model, {k: v for k, v in params.items() if k in StereoCoupling.PARAMS}
 
 
-MODELS: dict[str, type[StageModel]] = {m.NAME: m for m in (Ideal, Poly, HardClip, SingleEndedClassA)}
+MODELS: dict[str, type[StageModel]] = {m.NAME: m for m in (Ideal, Poly, FilteredPoly, HardClip, SingleEndedClassA)}
 
 
 def model_params(name: str) -> tuple[Param, ...]:

@@ -263,17 +263,19 @@ _KINDS: dict[str, Kind] = {}
 
 def names() -> tuple[str, ...]:
     """The name of every kind, from the modules in this package (none
-    imported: a kind's module bears its name)."""
-    return tuple(sorted(info.name for info in pkgutil.iter_modules(__path__) if not info.name.startswith("_")))
+    imported: a kind's module bears its name, a hyphen as an underscore)."""
+    return tuple(sorted(info.name.replace("_", "-") for info in pkgutil.iter_modules(__path__)
+                        if not info.name.startswith("_")))
 
 
 def _load() -> dict[str, Kind]:
     if not _KINDS:
         found = {}
         for name in names():
-            kind = importlib.import_module(f"{__name__}.{name}").KIND
+            module = name.replace("-", "_")
+            kind = importlib.import_module(f"{__name__}.{module}").KIND
             if kind.name != name:
-                raise RuntimeError(f"benchkit/kinds/{name}.py declares a kind named {kind.name!r}")
+                raise RuntimeError(f"benchkit/kinds/{module}.py declares a kind named {kind.name!r}")
             found[name] = kind
         _KINDS.update(found)  # all of them, or none: a module that fails to import says so every time
     return _KINDS

@@ -78,6 +78,7 @@ OPTIONS: dict[str, Option] = {
     "step_db": _o("--step-db", "Step while THD+N rises slowly, dB (a quarter of it once it rises fast).", V.number(0.0, 6.0, above=True, unit="dB"), 1.0),
     "fine_db": _o("--fine-db", "Bisect until each limit lies between steps this close, dB.", V.number(0.0, 6.0, above=True, unit="dB"), 0.1),
     "current_meter": _o("--current-meter", f"A meter reading the supply's DC current, {_VISA}; needs --supply-volts in a power run."),
+    "at_power": _o("--at-power", "Levels as output powers into --load, W (repeatable): each one's drive comes from the stage's measured gain.", V.WATTS, []),
     "rated_power": _o("--rated-power", "The claimed power, W: say whether the power at the first limit reaches it.", V.WATTS),
     "precondition": _o("--precondition", "First hold 1/8 of --rated-power for an hour (16 CFR 432 manner).", default=False),
     "precondition_s": _o("--precondition-s", "Shorten (or lengthen) the preconditioning, seconds: the report says so.", V.number(0.0, 7200.0, unit="s")),

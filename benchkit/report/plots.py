@@ -11,7 +11,7 @@ from pathlib import Path
 
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
-from matplotlib.ticker import Formatter, FuncFormatter
+from matplotlib.ticker import Formatter
 
 
 TRACE = "#1f3b57"
@@ -139,7 +139,12 @@ class ReadableLog(Formatter):
     """Labels a log axis can hold without them running together: the
     decades, and 2 and 5 within them while the axis spans under about
     two decades (and 3 below half a decade); never every minor tick.
-    Plain numbers ("0.05", "2", "20"), as the trade reads them."""
+    Plain numbers ("0.05", "2", "20"), as the trade reads them; ``text``
+    writes one (frequencies: "2k")."""
+
+    def __init__(self, text=None):
+        super().__init__()
+        self.text = text or (lambda x: f"{x:g}")
 
     def __call__(self, x, pos=None):
         import math
@@ -150,7 +155,7 @@ class ReadableLog(Formatter):
         decades = math.log10(hi / lo) if lo > 0 else 99.0
         keep = (1,) if decades > 2.2 else (1, 2, 5) if decades > 0.6 else (1, 2, 3, 5)
         mantissa = round(x / 10 ** math.floor(math.log10(x) + 1e-9), 6)
-        return f"{x:g}" if mantissa in keep else ""
+        return self.text(x) if mantissa in keep else ""
 
 
 def readable_log(*axes) -> None:
@@ -161,8 +166,11 @@ def readable_log(*axes) -> None:
 
 
 def log_hz_axis(ax) -> None:
+    """A log frequency axis labelled "20", "200", "2k" (ReadableLog: the
+    decades, and 2 and 5 where the axis spans less than two decades)."""
     ax.set_xscale("log")
-    ax.xaxis.set_major_formatter(FuncFormatter(hz_label))
+    ax.xaxis.set_major_formatter(ReadableLog(hz_label))
+    ax.xaxis.set_minor_formatter(ReadableLog(hz_label))
     ax.grid(True, which="both", color="#eeeeee", lw=0.5)
 
 
