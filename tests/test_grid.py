@@ -126,3 +126,25 @@ def test_a_frequency_whose_distortion_lies_above_the_band_is_refused(tmp_path):
     res = run_cli("power-bandwidth", "--load", "8", "--at", "10000", "--bench", str(tmp_path / "bench"))
     assert res.returncode == 2 or res.returncode == 1, res.stderr
     assert "third harmonic lies above the 20000 Hz band" in res.stderr and "Traceback" not in res.stderr
+
+
+@pytest.mark.parametrize("exponent", [2.0, 0.5])
+def test_a_corners_uncertainty_agrees_with_a_monte_carlo_of_its_powers(exponent):
+    # JCGM 101 (propagation by Monte Carlo) against the law of propagation corner_u applies (JCGM 100
+    # 5.1.2): powers on a straight line in log-log, P = (f / 1 kHz)^-n, each with 1 % of own standard
+    # uncertainty; the chain's shared part (here 3 %) cancels in their ratio and must not count. n = 2 puts
+    # the corner next to the reference (one of its two points), n = 0.5 between two others
+    import numpy as np
+
+    from benchkit.kinds.power_bandwidth import corner_u, corners
+
+    freqs = [1000.0, 2000.0, 4000.0, 8000.0]
+    truth = [(f / 1000.0) ** -exponent for f in freqs]
+    points = [{"frequency_hz": f, "power_w": p, "power_u_w": p * math.hypot(0.01, 0.03), "power_shared_u_w": 0.03 * p}
+              for f, p in zip(freqs, truth)]
+    high = corners(freqs, truth)[1]
+    assert high == pytest.approx(1000 * 10 ** (0.3 / exponent), rel=1e-9)  # (f / 1 kHz)^n = 10^0.3
+    rng = np.random.default_rng(1)
+    shared = 1 + 0.03 * rng.standard_normal(20000)
+    draws = [corners(freqs, [p * s * (1 + 0.01 * rng.standard_normal()) for p in truth])[1] for s in shared]
+    assert corner_u(points, high, 1000.0) == pytest.approx(np.std(draws), rel=0.08)

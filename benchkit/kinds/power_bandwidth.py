@@ -65,6 +65,49 @@ def corners(freqs, powers, reference_hz: float = REFERENCE_HZ, drop_db: float = 
     return walk(range(k - 1, -1, -1)), walk(range(k + 1, len(pts)))
 
 
+def corner_u(points: list[dict], corner_hz: float | None, reference_hz: float | None) -> float | None:
+    """A -3 dB frequency's standard uncertainty, Hz: the relative u of the
+    power interpolated there (the two bracketing points', by their weights)
+    and of the reference's, over the curve's slope in log power against
+    log frequency (JCGM 100 5.1.2: the crossing's sensitivity to the
+    level), and the straight line's departure from the curve between the
+    two points. The part every power shares (one chain: its calibration,
+    pad and load) cancels in their ratio (JCGM 100 5.2, correlation +1) and
+    is left out. None where a power's u is not known."""
+    if corner_hz is None:
+        return None
+
+    def own(p):
+        u, shared = p.get("power_u_w"), p.get("power_shared_u_w") or 0.0
+        return None if u is None else math.sqrt(max(u * u - shared * shared, 0.0))
+
+    known = sorted((p["frequency_hz"], p["power_w"], own(p)) for p in points if p["power_w"])
+    below = [q for q in known if q[0] <= corner_hz]
+    above = [q for q in known if q[0] > corner_hz]
+    ref = next((q for q in known if q[0] == reference_hz), None)
+    if not below or not above or ref is None or any(q[2] is None for q in (below[-1], above[0], ref)):
+        return None
+    (f0, p0, u0), (f1, p1, u1) = below[-1], above[0]
+    w = math.log(corner_hz / f0) / math.log(f1 / f0)
+    slope = math.log(p1 / p0) / math.log(f1 / f0)
+    # the level read at the corner less the reference's: each power's weight in it (the
+    # reference counted once where it is one of the two points)
+    weights = {f0: (1 - w, u0 / p0), f1: (w, u1 / p1)}
+    c, r = weights.get(ref[0], (0.0, ref[2] / ref[1]))
+    weights[ref[0]] = (c - 1.0, r)
+    rel = math.sqrt(sum((c * r) ** 2 for c, r in weights.values()))
+    # the straight line between the two points against the curve: its bend
+    # from the next point out (a second difference), at most half the bend
+    # times the distances to the two points, taken as rectangular (JCGM 100 4.3.7)
+    third = above[1] if len(above) > 1 else below[-2] if len(below) > 1 else None
+    if third is not None:
+        xs, ys = zip(*sorted((math.log(f), math.log(p)) for f, p, _u in ((f0, p0, u0), (f1, p1, u1), third)))
+        bend = 2 * ((ys[2] - ys[1]) / (xs[2] - xs[1]) - (ys[1] - ys[0]) / (xs[1] - xs[0])) / (xs[2] - xs[0])
+        x = math.log(corner_hz)
+        rel = math.hypot(rel, abs(bend) * (x - math.log(f0)) * (math.log(f1) - x) / 2 / math.sqrt(3))
+    return corner_hz * rel / abs(slope) if slope else None
+
+
 @dataclass(frozen=True)
 class BandwidthResult:
     """The power at the rated distortion at each frequency measured."""
@@ -91,6 +134,7 @@ class BandwidthResult:
             lim = next(iter(d.get("limits") or []), {})
             points.append({"frequency_hz": f, "power_w": self.power_at(r), "vrms": lim.get("vrms"),
                            "power_u_w": lookup(d, "limits.power_w", 0) if lim else None,
+                           "power_shared_u_w": lookup(d, "limits.power_w", 0, part="shared") if lim else None,
                            "reached": lim.get("power_w") is not None, "steps": len(d.get("steps") or []),
                            "stop_reason": d.get("stop_reason"), "file": d.get("file")})
         measured = [(p["frequency_hz"], p["power_w"]) for p in points if p["power_w"] is not None]
@@ -99,8 +143,9 @@ class BandwidthResult:
         return document("power-bandwidth", {
             "load_ohms": self.load_ohms, "limit_pct": self.limit_pct, "limit_metric": self.metric,
             "reference_hz": ref[0], "reference_power_w": ref[1], "drop_db": DROP_DB,
-            "low_3db_hz": low, "high_3db_hz": high, "points": points, "runs": docs,
-            "warnings": list(self.warnings),
+            "low_3db_hz": low, "high_3db_hz": high,
+            "low_3db_u_hz": corner_u(points, low, ref[0]), "high_3db_u_hz": corner_u(points, high, ref[0]),
+            "points": points, "runs": docs, "warnings": list(self.warnings),
         })
 
 
@@ -168,11 +213,15 @@ def bandwidth_figures(doc: dict) -> list[Figure]:
     metric = "THD+N" if doc.get("limit_metric", "thdn") == "thdn" else "THD"
     at = f"{doc.get('limit_pct', 1):g} % {metric}"
     out = [Figure(f"power_w@{p['frequency_hz']:g}Hz", "power", finite(p.get("power_w")), "W", "higher",
-                  at=f"{p['frequency_hz']:g} Hz, {at}", u=p.get("power_u_w")) for p in doc.get("points") or []]
+                  at=f"{p['frequency_hz']:g} Hz, {at}", u=p.get("power_u_w"), shared=p.get("power_shared_u_w") or 0.0)
+           for p in doc.get("points") or []]
+    ref = next((p for p in doc.get("points") or [] if p["frequency_hz"] == doc.get("reference_hz")), {})
     out += [Figure("reference_power_w", f"power near {REFERENCE_HZ:g} Hz", finite(doc.get("reference_power_w")), "W",
-                   "higher", at=at, headline=True),
-            Figure("low_3db_hz", "-3 dB power, low", finite(doc.get("low_3db_hz")), "Hz", "lower", headline=True),
-            Figure("high_3db_hz", "-3 dB power, high", finite(doc.get("high_3db_hz")), "Hz", "higher", headline=True)]
+                   "higher", at=at, headline=True, u=ref.get("power_u_w"), shared=ref.get("power_shared_u_w") or 0.0),
+            Figure("low_3db_hz", "-3 dB power, low", finite(doc.get("low_3db_hz")), "Hz", "lower", headline=True,
+                   u=doc.get("low_3db_u_hz")),
+            Figure("high_3db_hz", "-3 dB power, high", finite(doc.get("high_3db_hz")), "Hz", "higher", headline=True,
+                   u=doc.get("high_3db_u_hz"))]
     return out
 
 

@@ -39,8 +39,10 @@ def bandwidth_summary(doc: dict, title: str = "") -> str:
     lines.append("  (U: the expanded uncertainty, k = 2)")
 
     def corner(key):
-        v = doc.get(key)
-        return quantity(v, "Hz", 3) if v is not None else "beyond the frequencies measured"
+        v, u = doc.get(key), doc.get(key.replace("_hz", "_u_hz"))
+        if v is None:
+            return "beyond the frequencies measured"
+        return quantity(v, "Hz", 3) + ("" if u is None else f" +- {quantity(2 * u, 'Hz', 2)}")
 
     if doc.get("reference_power_w") is not None:
         lines.append(f"  -3 dB        low {corner('low_3db_hz')}, high {corner('high_3db_hz')} (re "
