@@ -45,6 +45,8 @@ class Bench:
     plan: Any = None
     #: what a kind keeps from its options and pre-flight for its measurement
     more: dict = field(default_factory=dict)
+    #: the bench's logbook (what a kind reads of earlier runs)
+    book: Any = None
 
     @property
     def channel(self) -> int:
@@ -110,7 +112,7 @@ def measure(kind_name: str, o: dict, say: Callable[[str], None], ask: Callable[[
     opening = dict(kind.live.opens(o))
     check_within(o["rate"], opening.pop("within", ()))
     with bench_logbook(o) as (book, labels):
-        s = Bench(o, say, ask, labels, more=opening.pop("keep", {}))
+        s = Bench(o, say, ask, labels, more=opening.pop("keep", {}), book=book)
         s.backend, s.profile = live_setup(o, say, **opening)
         params = kind.live.prepare(s)
         with start_run(book, labels, kind_name, s.backend, s.profile, o.get("calibration"), params, say) as run:
@@ -274,6 +276,7 @@ def live_setup(o: dict, say, ref: int | None = None, stereo: bool = False, more:
     worked out for."""
     from benchkit.calibration import load_profile
 
+    kinds.one_scale(o)
     calibration = o["calibration"]
     if o["override_drive_cap"]:
         say("WARNING: the drive cap is overridden: full-scale drive can overload the stage, the pad, the "

@@ -68,6 +68,7 @@ FILES = {
     "folder": lambda d: (d / "a-folder").mkdir(exist_ok=True) or d / "a-folder",
     "missing": lambda d: d / "no-such-file.wav",
     "long_name": lambda d: d / ("a" * 300),
+    "profile_good": lambda d: _profile(d / "p0.json"),
     "profile_ratio_text": lambda d: _profile(d / "p1.json", pad={"ratio": "0.1"}),
     "profile_uncertainty_list": lambda d: _profile(d / "p2.json", uncertainty=[1, 2]),
     "profile_96k": lambda d: _profile(d / "p3.json", sample_rate_hz=96000.0),
@@ -197,6 +198,11 @@ REFUSED = [
     "tone --calibration {profile_channel_text}", "tone --calibration {profile_deep}",
     "tone --calibration {profile_not_json}", "tone --calibration {profile_zero_scale}",
     "tone --calibration {profile_nan_text}", "analyze {wav} --calibration {profile_ratio_text}",
+    # two scales at once: neither wins silently
+    "tone --calibration {profile_good} --volts-per-fs 2", "analyze {wav} --calibration {profile_good} --volts-per-fs 2",
+    # distortion across frequency and level, power bandwidth
+    "grid --at-power 1", "grid --load 8 --at-power 1 --level -20dBFS", "grid --at 30000", "grid --span 20",
+    "power-bandwidth --load 8 --at 10000", "power-bandwidth --at 1000", "power-bandwidth --load 8 --at 0.5",
     # files to analyse
     "analyze {missing}", "analyze {folder}", "analyze {garbage_wav}", "analyze {empty_wav}", "analyze {nan_wav}",
     "analyze {wav} --fundamental nan", "analyze {wav} --fundamental 30000", "analyze {wav} --averages 100000",

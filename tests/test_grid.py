@@ -148,3 +148,19 @@ def test_a_corners_uncertainty_agrees_with_a_monte_carlo_of_its_powers(exponent)
     shared = 1 + 0.03 * rng.standard_normal(20000)
     draws = [corners(freqs, [p * s * (1 + 0.01 * rng.standard_normal()) for p in truth])[1] for s in shared]
     assert corner_u(points, high, 1000.0) == pytest.approx(np.std(draws), rel=0.08)
+
+
+def test_the_grids_top_level_comes_from_the_newest_power_run_into_the_same_load(tmp_path):
+    # no budget given: the top level is 80 % of the power at 1 % that a logged power run into 8 ohm found,
+    # and the cell at 1 kHz makes that power (P = Vrms^2 / R)
+    bench = tmp_path / "bench"
+    power = run_cli("power", "--load", "8", "--limit", "1", "--start", "-16", "--bench", str(bench), "--json")
+    assert power.returncode == 0, power.stderr
+    watts = json.loads(power.stdout)["power_at_limit_w"]["1"]
+    res = run_cli("grid", "--load", "8", "--at", "1000", "--bench", str(bench), "--json")
+    assert res.returncode == 0, res.stderr
+    doc = json.loads(res.stdout)
+    assert doc["powers_w"] == pytest.approx([0.1, 1.0, 0.8 * watts])
+    top = max(doc["steps"], key=lambda c: c["drive_dbfs"])
+    assert top["power_w"] == pytest.approx(0.8 * watts, rel=0.03)
+    assert "of power run" in res.stderr

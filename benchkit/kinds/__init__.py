@@ -95,6 +95,8 @@ class Offline:
     def of(cls, o: dict) -> "Offline":
         """``analyze``'s options by key (benchkit.options), checked."""
         from benchkit import units
+
+        one_scale(o)
         from benchkit.calibration import load_profile
         from benchkit.kinds.power import figure_options
         from benchkit.options import JUDGE
@@ -405,6 +407,15 @@ def mean_of_takes(folder: Path, docs: list[dict], names: list[str] | None = None
 #: The capture a run stores under its folder (``capture.wav`` and its sidecar).
 CAPTURE = "capture"
 CAPTURE_WAV = f"{CAPTURE}.wav"
+
+
+def one_scale(o: dict) -> None:
+    """Refuse two scales at once: a calibration profile and --volts-per-fs
+    both say what one FS is in volts at the stage, and neither may win
+    silently."""
+    if o.get("calibration") is not None and o.get("volts_per_fs") is not None:
+        raise BenchkitError("--calibration and --volts-per-fs both give the volts at the stage: give one (the profile "
+                            "holds the interface's scale and the pad; --volts-per-fs is for a bench without one)")
 
 
 def run_capture(folder: Path, channel: int, say: Callable[[str], None], stem: str = CAPTURE):

@@ -5,8 +5,9 @@ frequency and against level.
 
 The levels are drives (dBFS, or volts at the interface output) or, with
 --at-power, output powers into --load worked out from the stage's measured
-gain; by default 0.1 W, 1 W and, when --rail and --bias describe the
-stage, 80 % of its largest clean sine (near the 1 % point); else three
+gain; by default 0.1 W, 1 W and 80 % of the power near the 1 % point: the
+budget's largest clean sine when --rail and --bias describe the stage, else
+the newest logged power run's into the same load; without a load, three
 drives. A run records through :mod:`benchkit.record` (the capture on disk
 before anything is analysed) and analyses the stored capture with
 :func:`benchkit.kinds.tone.analyze_steps`.
@@ -234,6 +235,20 @@ def powers_of(o: dict) -> list[float] | None:
     return powers
 
 
+def near_limit_from_log(book, load_ohms: float) -> tuple[float, str] | None:
+    """The power at the rated distortion of the newest complete power run
+    into the same load in the logbook, and its id (None: there is none)."""
+    entries = getattr(book, "entries", None)
+    if entries is None:
+        return None
+    for e in entries(command="power", status="complete", limit=20):
+        params = (book.read_record(e.id, missing_ok=True) or {}).get("params") or {}
+        watts = e.figure("power_w")
+        if watts and params.get("load_ohms") == load_ohms:
+            return watts, e.id
+    return None
+
+
 def _opens(o: dict) -> dict:
     from benchkit.bench import opens_tones
 
@@ -261,6 +276,13 @@ def _prepare(s) -> dict:
     from benchkit.bench import preflight
 
     o, freqs, powers = s.o, s.more["freqs"], s.more["powers"]
+    if powers is not None and not o["at_power"] and (o["rail"] is None or o["bias"] is None):
+        logged = near_limit_from_log(s.book, o["load"])
+        if logged is not None:  # the top level near the 1 % point a power run of this stage found
+            top = NEAR_LIMIT_SHARE * logged[0]
+            powers = s.more["powers"] = [p for p in powers if p < 0.8 * top] + [top]
+            s.say(f"top level: {NEAR_LIMIT_SHARE:.0%} of the {units.quantity(logged[0], 'W', 3)} at the rated distortion "
+                  f"of power run {logged[1]}")
     levels = _drives_for(s, powers) if powers else (o["level"] or list(DEFAULT_DRIVES))
     probe = min(freqs, key=lambda f: abs(math.log(f / 1000.0)))
     preflight(s, levels, probe, o["load"])
@@ -292,8 +314,9 @@ ABOUT = """Measure THD+N, THD, H2 and H3 across frequency at several levels, in 
     from 20 Hz to 20 kHz by default; --at or --span and --per-octave),
     every cell settled and analysed alone. Levels are drives (--level) or
     output powers into --load (--at-power, from the stage's measured gain);
-    with a load and a scale and no level given: 0.1 W, 1 W and, when
-    --rail and --bias describe the stage, 80 % of its largest clean sine.
+    with a load and a scale and no level given: 0.1 W, 1 W and 80 % of
+    the stage's largest clean sine (its budget, from --rail and --bias) or
+    of the power at 1 % the newest logged power run into that load found.
 
     Example: benchkit grid --load 8 --rail 24 --bias 0.8 --tag bias=0.8A
 
