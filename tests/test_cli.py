@@ -227,3 +227,54 @@ def test_shell_completion_completes_commands_and_options():
     got = subprocess.run([str(exe)], env={**env, "COMP_WORDS": "benchkit tone --lo", "COMP_CWORD": "2"},
                          capture_output=True, text=True, timeout=60)
     assert "--load" in got.stdout.split()
+
+
+def test_analyze_channel_all_reads_every_channel_of_each_file(tmp_path):
+    # a two-channel capture: 0.5 FS of 1 kHz, and 0.25 FS with 1 % of 2 kHz (-40 dBc: a plain ratio);
+    # --channel all gives a document a channel, each with its own figures
+    import json
+
+    import numpy as np
+    import soundfile as sf
+
+    t = np.arange(48000) / 48000
+    x = np.column_stack([0.5 * np.sin(2 * np.pi * 1000 * t),
+                         0.25 * np.sin(2 * np.pi * 1000 * t) + 0.0025 * np.sin(2 * np.pi * 2000 * t)])
+    wav = tmp_path / "two.wav"
+    sf.write(str(wav), x, 48000, subtype="FLOAT")
+    res = run_cli("analyze", str(wav), "--channel", "all", "--json")
+    assert res.returncode == 0, res.stderr
+    docs = json.loads(res.stdout)
+    assert [d["channel"] for d in docs] == [1, 2]
+    assert docs[0]["fundamental_dbfs"] == pytest.approx(-6.0206, abs=1e-3)
+    assert docs[1]["harmonics"][0]["level_dbc"] == pytest.approx(-40.0, abs=0.01)
+
+
+def test_analyze_of_many_files_prints_one_table_and_writes_one_summary_csv(tmp_path):
+    # three single tones with 1 %, 0.1 % and 0.01 % of H2 (-40, -60, -80 dBc: plain ratios): one table, a
+    # row a file, instead of a summary a file; --out writes summary.csv, a row a file, beside the reports
+    import csv
+    import json
+
+    import numpy as np
+    import soundfile as sf
+
+    t = np.arange(48000) / 48000
+    files = []
+    for k, ratio in enumerate((1e-2, 1e-3, 1e-4)):
+        path = tmp_path / f"h2-{k}.wav"
+        sf.write(str(path), 0.5 * np.sin(2 * np.pi * 1000 * t) + 0.5 * ratio * np.sin(2 * np.pi * 2000 * t), 48000,
+                 subtype="FLOAT")
+        files.append(path)
+    out = tmp_path / "out"
+    res = run_cli("analyze", *map(str, files), "--out", str(out), "--json")
+    assert res.returncode == 0, res.stderr
+    docs = json.loads(res.stdout)
+    assert [round(d["thd_db"]) for d in docs] == [-40, -60, -80]
+    table = [line for line in res.stderr.splitlines() if ".wav" in line and "wrote" not in line]
+    assert len(table) == 3 and all(line.split()[0] == str(f) for line, f in zip(table, files))
+    assert "fundamental" not in res.stderr  # (no per-file summaries)
+    with (out / "summary.csv").open() as fh:
+        rows = list(csv.DictReader(fh))
+    assert [r["file"] for r in rows] == [str(f) for f in files]
+    assert [float(r["THD (dB)"]) for r in rows] == pytest.approx([d["thd_db"] for d in docs], abs=1e-4)

@@ -166,3 +166,22 @@ def test_a_run_that_stops_early_files_its_steps_and_says_so_in_its_exit_code(tmp
     assert [s["drive_dbfs"] for s in doc["steps"]] == [-40.0, -30.0]
     listed = json.loads(run_cli("log", "list", "--bench", str(tmp_path), "--json").stdout)["runs"]
     assert [r["status"] for r in listed] == ["complete"]
+
+
+def test_a_tone_steps_length_and_averages_are_the_users_and_survive_reanalysis(tmp_path):
+    # --step-duration 2 at 48 kHz analyses 96000 samples a step (after it settles), in --averages 4 blocks;
+    # analysing the run again from its folder keeps both (plumbing: no outside source applies)
+    import json
+
+    from conftest import run_cli, the_run
+
+    bench = tmp_path / "bench"
+    res = run_cli("tone", "--level", "-20dBFS", "--step-duration", "2", "--averages", "4", "--bench", str(bench), "--json")
+    assert res.returncode == 0, res.stderr
+    step = json.loads(res.stdout)["steps"][0]
+    assert step["n_samples"] == 96000 and step["conditions"]["averages"] == 4
+    folder = the_run(bench)
+    again = run_cli("log", "reanalyse", folder.name, "--bench", str(bench))
+    assert again.returncode == 0, again.stderr
+    redone = json.loads((folder / "capture.result.json").read_text())["steps"][0]
+    assert redone["conditions"]["averages"] == 4 and redone["thdn_db"] == pytest.approx(step["thdn_db"], abs=1e-9)

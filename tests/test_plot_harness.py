@@ -31,7 +31,7 @@ seed = 3
 
 [[measure]]
 kind = "tone"
-level = ["-30dBFS", "-20dBFS", "-11dBFS"]
+level = ["-30dBFS", "-11dBFS"]
 
 [[measure]]
 kind = "imd"
@@ -122,7 +122,11 @@ def every_plot(root: Path) -> dict[str, Figure]:
 
 
 def _drawn(fig: Figure):
-    fig.canvas.draw()
+    """The figure's renderer, the figure drawn by it once (the checks change
+    nothing, so every check reads the one drawing)."""
+    if not getattr(fig, "_harness_drawn", False):
+        fig.canvas.draw()
+        fig._harness_drawn = True
     return fig.canvas.get_renderer()
 
 

@@ -167,6 +167,8 @@ def test_one_level_unit_in_the_tone_table_the_watch_line_and_the_power_steps(tmp
     at = next(i for i, line in enumerate(table) if header in line)
     shown = [float(line.split()[1]) for line in table[at + 1: at + 3]]
     assert shown == pytest.approx([convert(v) for v in vrms], abs=0.006)
+    if choice[0] != "--levels-in":
+        return  # (the live displays once: they show a level the one way whatever the unit)
     watch = run_cli("watch", "--plain", "--duration", "1", "--level", "-20dBFS", *choice)
     assert watch.returncode == 0, watch.stderr
     first = watch.stdout.splitlines()[0].split()

@@ -13,6 +13,35 @@ from benchkit.cli.common import answer, app, err, EXIT_BAD_INPUT, one_line, prog
 from benchkit.errors import BenchkitError
 
 
+def each_channel(files, options):
+    """(file, its options) to analyse: with --channel all, one a channel of
+    each file but its reference input (--ref-channel, or the one its
+    sidecar names); a file that cannot be read keeps one, to say why."""
+    from dataclasses import replace
+
+    import soundfile as sf
+
+    from benchkit.jsonfile import load_json
+
+    for path in files:
+        if options.channel != "all":
+            yield path, options
+            continue
+        try:
+            n = sf.info(str(path)).channels
+        except (RuntimeError, OSError, ValueError):
+            n = 1
+        ref = options.ref_channel
+        if ref is None:
+            try:
+                ref = load_json(Path(path).with_suffix(".json")).get("reference_channel")
+            except (OSError, ValueError, AttributeError, BenchkitError):  # no sidecar, or one it cannot read
+                ref = None
+        for k in range(1, n + 1):
+            if k != ref or n == 1:
+                yield path, replace(options, channel=k)
+
+
 @app.command()
 @takes("channel fundamental bandwidth averages volts_per_fs load calibration out sweep ref_channel ref_freq smooth "
        "time_col value_col as_kind zout open_load imd rail json", "figures", "judge", "shown",
@@ -26,7 +55,8 @@ def analyze(files: List[Path] = typer.Argument(..., help="WAV or FLAC captures."
     A capture that benchkit wrote (stepped tones, a sweep or stepped
     sines, a two-tone, noise or crosstalk run) is recognised from its
     sidecar; --sweep, --imd, --as noise and --zout analyse ones made
-    elsewhere.
+    elsewhere. Several files (or --channel all) print one table, a row a
+    file and channel, and --out writes summary.csv beside the reports.
 
     Example: benchkit analyze sample_captures/b2-bias0.8A-997Hz-steps.wav --load 8 --out report/
     """
@@ -34,18 +64,27 @@ def analyze(files: List[Path] = typer.Argument(..., help="WAV or FLAC captures."
         options = kinds.Offline.of(o)
         if o["zout"] is not None and len(files) != 2:
             raise BenchkitError("--zout takes two captures: the stage unloaded, then loaded")
+        if o["zout"] is not None and o["channel"] == "all":
+            raise BenchkitError("--zout reads one channel of its two captures: give --channel N")
     if o["zout"] is not None:
         from benchkit.kinds.zout import analyse_pair
 
         jobs = [(files[0], lambda _path: analyse_pair(files[0], files[1], o["channel"], o["ref_channel"],
                                                       options.bandwidth_hz, o["zout"], o["open_load"]))]
     else:
-        jobs = [(path, lambda path: kinds.analyse_file(Path(path), options, say=err)) for path in files]
+        jobs = [(path, lambda path, options=options: kinds.analyse_file(Path(path), options, say=err))
+                for path, options in each_channel(files, options)]
     docs, failed = [], 0
+    batch = len(jobs) > 1  # many: one table, a row a file and channel (their warnings still said)
     for path, analyse in progress(jobs, "analysing"):
         try:
             got = analyse(path)
-            answer(got.text, o["json"])
+            if batch:
+                for line in got.text.split("\n"):
+                    if line.lstrip().startswith(("warning", "NOT VALID")):
+                        err(f"{path}: {line.strip()}")
+            else:
+                answer(got.text, o["json"])
             for written in got.write(o["out"]) if got.write is not None and o["out"] is not None else ():
                 err(f"  wrote        {written}")
         except BenchkitError as exc:
@@ -54,6 +93,14 @@ def analyze(files: List[Path] = typer.Argument(..., help="WAV or FLAC captures."
             docs.append(document("error", {"file": str(path), "error": str(exc)}))
             continue
         docs.append(got.doc)
+    if batch:
+        from benchkit.report.summary import batch_table
+        from benchkit.report.tables import write_batch_csv
+
+        headers, rows = kinds.batch_rows(docs)
+        answer(batch_table(headers, rows), o["json"])
+        if o["out"] is not None:
+            err(f"  wrote        {write_batch_csv(headers, rows, Path(o['out']) / 'summary.csv')}")
     if o["json"]:
         from benchkit.report.tables import dumps
 

@@ -310,6 +310,31 @@ def figures_of(doc: dict) -> list:
     return [] if kind is None or kind.figures is None else kind.figures(doc)
 
 
+def batch_rows(docs) -> tuple[list[tuple[str, str]], list[list]]:
+    """Results of many captures as rows: file, channel, kind, valid, and
+    the headline figures ((label, unit) each, in the order they first
+    appear; a run without one leaves it empty; a single tone's: its THD+N,
+    THD and noise); an error's row says so."""
+    from benchkit.analysis.compare import Figure, finite
+
+    names: dict[str, tuple[str, str]] = {}
+    rows = []
+    for d in docs:
+        heads = {} if d.get("kind") == "error" else {f.name: f for f in figures_of(d) if f.headline}
+        if not heads and "thdn_db" in d:  # one tone, analysed alone
+            heads = {k: Figure(k, label, finite(d.get(k)), unit) for k, label, unit in
+                     (("thdn_db", "THD+N", "dB"), ("thd_db", "THD", "dB"), ("noise_dbfs", "noise", "dBFS"))}
+        for f in heads.values():
+            names.setdefault(f.name, (f.label, f.unit))
+        valid = d.get("valid")
+        if valid is None and d.get("steps"):
+            valid = all(s.get("valid", True) for s in d["steps"])
+        rows.append([d.get("file", ""), d.get("channel", ""), d.get("kind", ""),
+                     "error: " + d["error"] if d.get("kind") == "error" else "" if valid is None else "yes" if valid else "NO",
+                     {k: f.value for k, f in heads.items()}])
+    return list(names.values()), [r[:4] + [r[4].get(k) for k in names] for r in rows]
+
+
 def headline_figures(doc: dict) -> list[dict]:
     """The figures the logbook indexes: THD+N at the top valid step, noise,
     power at the first limit, the -3 dB points, the settled value ..."""

@@ -160,13 +160,16 @@ def tone_run(
     load_ohms: float | None = None,
     bandwidth_hz: tuple[float, float] | None = DEFAULT_BAND_HZ,
     traces: bool = False,
+    averages: int = 1,
     **record,
 ) -> StepsResult:
     """Play stepped tones, store the capture (:func:`record_steps`, which
     takes ``record``: name, channel, note, calibration, step lengths ...),
-    then analyse every step of the stored capture."""
+    then analyse every step of the stored capture (each in ``averages``
+    blocks, averaged)."""
     path = record_steps(backend, folder, frequency_hz, levels_dbfs, **record)
-    return analyze_steps(read_capture(path, record.get("channel", 1)), bandwidth_hz, load_ohms, traces=traces)
+    return analyze_steps(read_capture(path, record.get("channel", 1)), bandwidth_hz, load_ohms, traces=traces,
+                         averages=averages)
 
 
 @dataclass(frozen=True)
@@ -178,6 +181,8 @@ class ToneParams(RunParams):
     levels_dbfs: tuple[float, ...] = ()
     load_ohms: float | None = None
     bandwidth_hz: tuple[float, float] | None = (20.0, 20000.0)
+    step_s: float = 1.0
+    averages: int = 1
 
 
 def summary(steps: StepsResult, title: str) -> str:
@@ -195,7 +200,7 @@ def reports(steps: StepsResult, folder: Path, channel: int = 1, **options) -> li
 def reanalyse(folder: Path, record: dict, say) -> tuple[dict, list[Path]]:
     p = ToneParams.from_dict(record.get("params"))
     rec = run_capture(folder, int(p.channel or 1), say)
-    steps = analyze_steps(rec, p.band(), p.load_ohms, traces=True)
+    steps = analyze_steps(rec, p.band(), p.load_ohms, traces=True, averages=int(p.averages or 1))
     return steps.to_dict(), reports(steps, folder, rec.channel)
 
 
@@ -282,13 +287,13 @@ def _prepare(s) -> dict:
     o = s.o
     preflight(s, o["level"], o["freq"], o["load"])
     return dict(channel=s.channel, frequency_hz=o["freq"], levels_dbfs=s.drive, load_ohms=o["load"],
-                bandwidth_hz=s.band)
+                bandwidth_hz=s.band, step_s=o["step_duration"], averages=o["averages"])
 
 
 def _measure(s, folder: Path) -> Measured:
     o = s.o
-    steps = tone_run(s.backend, folder, o["freq"], s.drive, load_ohms=o["load"],
-                     bandwidth_hz=s.band, channel=s.channel, traces=True, **s.stored())
+    steps = tone_run(s.backend, folder, o["freq"], s.drive, load_ohms=o["load"], bandwidth_hz=s.band, channel=s.channel,
+                     traces=True, averages=o["averages"], step_s=o["step_duration"], **s.stored())
     return Measured(steps, f"{o['freq']:g} Hz, {units.count(len(s.drive), 'step')}, latency "
                            f"{steps.latency_samples} samples")
 
@@ -311,7 +316,7 @@ ABOUT = """Play stepped tones into the stage, capture through the pad, analyse e
 #: how it measures on a bench: the command's options (benchkit.options) and help
 ON_BENCH = Live(
     _opens, _prepare, _measure,
-    options="load bandwidth ref_channel json",
+    options="load bandwidth ref_channel step_duration averages json",
     defaults=dict(freq=997.0, level=["-20 dBFS"]),
     about=ABOUT,
 )

@@ -194,6 +194,11 @@ WATTS = number(0.0, above=True, unit="W")
 PERCENT = number(0.0, 100.0, above=True, below=True, unit="%")
 COUNT = number(1, 1_000_000, integer=True)
 CHANNEL = number(1, 256, integer=True, hint="channels are numbered from 1")
+
+
+def channel_or_all(value):
+    """A channel number, or "all" (every channel of the file)."""
+    return "all" if str(value).strip().lower() == "all" else CHANNEL(value)
 SEED = number(0, 2**32 - 1, integer=True)
 RATE = number(8000.0, 768000.0, unit="Hz")
 #: a live readout or a drift log may run a day

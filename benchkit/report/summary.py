@@ -169,3 +169,24 @@ def profile_lines(profile, path) -> list[str]:
         _chain_line(profile),
         f"profile: {path} (hash {profile.digest()})",
     ]
+
+
+def batch_table(headers, rows) -> str:
+    """Many captures on one screen (:func:`benchkit.kinds.batch_rows`): a
+    row a file and channel, the headline figures in columns (units in the
+    headers, one prefix a column)."""
+    from benchkit.report.screen import Column, table_text
+    from benchkit.units import in_one_unit
+
+    columns = [Column("file", "left"), Column("channel", "right"), Column("kind", "left"), Column("valid", "left")]
+    cells = [[str(r[0]), str(r[1]), r[2], r[3]] for r in rows]
+    for k, (label, unit) in enumerate(headers):
+        values = [r[4 + k] for r in rows]
+        if unit in LEVELS or unit in ("dBV", "dBu"):
+            shown, texts = unit, ["-" if v is None else f"{v:.2f}" for v in values]
+        else:
+            shown, texts = in_one_unit(values, unit)
+        columns.append(Column(f"{label} ({shown})"))
+        for row, text in zip(cells, texts):
+            row.append(text)
+    return table_text(columns, cells)

@@ -100,3 +100,19 @@ def write_catalog_csv(entries, fh) -> None:
                     *(e.tags.get(k, "") for k in keys),
                     *("" if figures.get(n) is None else f"{figures[n]:.6g}" for n in columns),
                     " | ".join(e.warnings)])
+
+
+def write_batch_csv(headers, rows, path: Path) -> Path:
+    """Many captures' results (:func:`benchkit.kinds.batch_rows`), a row a
+    file and channel: its kind, whether it is valid, and each headline
+    figure (units in the column names)."""
+    try:
+        Path(path).parent.mkdir(parents=True, exist_ok=True)
+        with Path(path).open("w", newline="", encoding="utf-8") as fh:
+            w = csv.writer(fh)
+            w.writerow(["file", "channel", "kind", "valid", *(f"{label} ({unit})" for label, unit in headers)])
+            for r in rows:
+                w.writerow([*r[:4], *("" if v is None else f"{v:.6g}" for v in r[4:])])
+    except OSError as exc:
+        raise BenchkitError(f"cannot write {path}: {exc.strerror or exc}") from None
+    return Path(path)
