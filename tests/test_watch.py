@@ -262,3 +262,19 @@ def test_a_watch_without_record_files_nothing(tmp_path):
     assert not (tmp_path / "bench").exists()
     res = run_cli("watch", "--record-audio", "--duration", "0.3", "--bench", str(tmp_path / "bench"))
     assert res.returncode == 1 and "--record-audio goes with --record" in res.stderr
+
+
+def test_a_steady_figures_trend_is_flat_and_a_real_change_shows():
+    # the trend spans at least eight times the figure's resolution: 1.414 V scattered by 20 uV (under a
+    # tenth of a percent) draws one flat line, not the full height; a 1 % rise draws bottom to top.
+    # (The resolutions are the readout's own choice: plumbing, no outside source.)
+    from benchkit.analysis.readings import resolution
+
+    steady = [1.414 + 20e-6 * (-1) ** k for k in range(10)]
+    assert len(set(sparkline(steady, resolution=resolution("level_vrms", steady)))) == 1
+    rising = [1.414] * 5 + [1.414 * 1.01] * 5
+    bars = sparkline(rising, resolution=resolution("level_vrms", rising))
+    assert bars[0] == "▁" and bars[-1] == "█"
+    # THD+N wandering by 0.02 dB: flat; by 2 dB: the full height
+    assert len(set(sparkline([-60.0, -60.02, -59.99, -60.01], resolution=resolution("thdn_db", [])))) == 1
+    assert set(sparkline([-62.0, -60.0], resolution=resolution("thdn_db", []))) == {"▁", "█"}

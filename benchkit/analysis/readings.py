@@ -24,6 +24,21 @@ FIGURES = (
     ("dc_v", "DC", "V"),
 )
 READING_VERSION = 1
+#: The smallest change of each figure worth seeing in its trend: levels in
+#: dB to a hundredth, distortion and noise to a tenth (the scatter of one
+#: reading); volts and watts relative to their value (a tenth of a percent
+#: of volts, two tenths of watts); DC to a tenth of a millivolt.
+RESOLUTION = {"level_dbfs": 0.01, "thdn_db": 0.1, "thd_db": 0.1, "h2_dbc": 0.1, "h3_dbc": 0.1, "noise_dbfs": 0.1,
+              "dc_v": 1e-4}
+RELATIVE_RESOLUTION = {"level_vrms": 1e-3, "power_w": 2e-3}
+
+
+def resolution(key: str, values) -> float:
+    """The smallest change of figure ``key`` its trend shows, in its unit."""
+    if key in RELATIVE_RESOLUTION:
+        vals = [abs(v) for v in values if v is not None]
+        return RELATIVE_RESOLUTION[key] * (max(vals) if vals else 1.0)
+    return RESOLUTION.get(key, 0.0)
 
 
 @dataclass(frozen=True)

@@ -9,20 +9,27 @@ import time
 
 from benchkit import units
 from benchkit.units import quantity
-from benchkit.analysis.readings import FIGURES, Reading, Tracker
+from benchkit.analysis.readings import FIGURES, Reading, resolution, Tracker
 
 _BARS = "▁▂▃▄▅▆▇█"
 
 
-def sparkline(values, width: int = 32) -> str:
-    """A trend in block characters, the lowest value at the bottom."""
+def sparkline(values, width: int = 32, resolution: float = 0.0) -> str:
+    """A trend in block characters, the lowest value at the bottom: the
+    values to ``resolution`` (the smallest change worth seeing), the bars
+    spanning at least eight times it, centred, so a steady figure's scatter
+    below it draws a flat line, not the full height."""
     vals = [v for v in list(values)[-width:] if v is not None and math.isfinite(v)]
     if not vals:
         return ""
+    if resolution > 0:  # to the resolution: a scatter below it is no change
+        vals = [round(v / resolution) * resolution for v in vals]
     lo, hi = min(vals), max(vals)
-    if hi - lo < 1e-12 * max(1.0, abs(hi)):
+    span = max(hi - lo, 8.0 * resolution)
+    if span < 1e-12 * max(1.0, abs(hi)):
         return _BARS[3] * len(vals)
-    return "".join(_BARS[min(7, int((v - lo) / (hi - lo) * 8))] for v in vals)
+    lo -= (span - (hi - lo)) / 2.0
+    return "".join(_BARS[max(0, min(7, int((v - lo) / span * 8)))] for v in vals)
 
 
 def value_text(v: float | None, unit: str) -> str:
@@ -33,6 +40,12 @@ def value_text(v: float | None, unit: str) -> str:
     if unit == "V":  # DC: a midpoint near 12 V moves by millivolts
         return f"{v:+.4f} V"
     return quantity(v, unit, 4)
+
+
+def trend(tracker: Tracker, key: str) -> str:
+    """A figure's trend at its meaningful resolution (benchkit.analysis.readings.resolution)."""
+    history = tracker.history[key]
+    return sparkline(history, resolution=resolution(key, history))
 
 
 def _shown(r: Reading, key: str) -> bool:
@@ -84,12 +97,12 @@ def table(tracker: Tracker, title: str):
                     which["level_dbfs"], which.get("level_vrms"), which.get("power_w"))
             unit = view.value(r.level_dbfs, r.level_vrms)[1]
             t.add_row(f"level ({unit})", view.text(r.level_dbfs, r.level_vrms, r.power_w), shown(tracker.min),
-                      shown(tracker.max), sparkline(tracker.history["level_dbfs"]))
+                      shown(tracker.max), trend(tracker, "level_dbfs"))
         for key, label, unit in FIGURES:
             if not _shown(r, key) and key not in tracker.min:
                 continue
             t.add_row(f"{label} ({unit})", value_text(getattr(r, key), unit), value_text(tracker.min.get(key), unit),
-                      value_text(tracker.max.get(key), unit), sparkline(tracker.history[key]))
+                      value_text(tracker.max.get(key), unit), trend(tracker, key))
     notes = marks(r, tracker.held is not None)
     caption = Text()
     for m in notes:
