@@ -43,10 +43,12 @@ def pytest_configure(config):
 
 
 def pytest_xdist_auto_num_workers(config):
-    """One worker more than the cores ('-n auto'): one of them holds the
+    """Two workers more than the cores ('-n auto'): one of them holds the
     real-stream tests (test_jack.py), which mostly wait on the stream,
-    while the others keep every core busy with the rest."""
-    return (os.cpu_count() or 1) + 1
+    while the others keep every core busy with the rest, and hold their
+    share of the cores when other work competes for them (measured beside
+    busy.sh: 400 s with three workers, 357 s with four; DEVELOPERS.md)."""
+    return (os.cpu_count() or 1) + 2
 
 
 def pytest_collection_modifyitems(items):
