@@ -161,7 +161,45 @@ class Keys:
             self._old = None
 
 
-class StepBoard:
+class OnTerminal:
+    """A display redrawn in place on stderr (``render`` makes what it
+    shows, on rich's own thread) while a ``with`` block runs, left showing
+    its last state; nothing at all when not ``live``. Notes printed
+    meanwhile appear above it. A subclass sets what ``render`` reads
+    before calling ``__init__`` (rich renders once at once)."""
+
+    def __init__(self, live: bool):
+        self._display, self._started = None, time.monotonic()
+        if live:
+            from rich.console import Console
+            from rich.live import Live
+
+            self._display = Live(console=Console(stderr=True), get_renderable=self.render, refresh_per_second=4,
+                                 transient=False)
+
+    @property
+    def live(self) -> bool:
+        return self._display is not None
+
+    def render(self):
+        raise NotImplementedError
+
+    def ended(self, failed: bool) -> None:
+        """Called as the block ends, before the last drawing."""
+
+    def __enter__(self):
+        if self._display is not None:
+            self._display.start()
+        return self
+
+    def __exit__(self, kind, *_exc) -> None:
+        if self._display is not None:
+            self.ended(kind is not None)
+            self._display.refresh()
+            self._display.stop()
+
+
+class StepBoard(OnTerminal):
     """What a stepped power run shows while it drives the stage up: each
     step's drive, the output (volts and watts with a calibration and a
     load, else dBFS), THD+N (or THD) and the next limit it approaches. A
@@ -177,24 +215,7 @@ class StepBoard:
         self.volts_per_fs, self.load_ohms, self.say = volts_per_fs, load_ohms, say
         self.steps: list[tuple] = []
         self.retakes = 0
-        self._display = None
-        self._started = time.monotonic()
-        if live:
-            from rich.console import Console
-            from rich.live import Live
-
-            self._display = Live(console=Console(stderr=True), get_renderable=self.table, refresh_per_second=4,
-                                 transient=False)
-
-    def __enter__(self) -> "StepBoard":
-        if self._display is not None:
-            self._display.start()
-        return self
-
-    def __exit__(self, *_exc) -> None:
-        if self._display is not None:
-            self._display.refresh()
-            self._display.stop()
+        super().__init__(live)
 
     def _output(self, amplitude_fs: float) -> tuple[str, str]:
         """The output level as levels are shown (volts RMS by default, with
@@ -217,12 +238,12 @@ class StepBoard:
         """A step analysed (``retake``: spoiled by a dropout, to be played again)."""
         if retake:
             self.retakes += 1
-            if self._display is None:
+            if not self.live:
                 self.say(f"step at {level_dbfs:.2f} dBFS spoiled by a dropout: played again")
             return
         before = self.steps[-1][3] if self.steps else None
         self.steps.append((len(self.steps) + 1, level_dbfs, amplitude_fs, pct, before))
-        if self._display is None:
+        if not self.live:
             volts, watts = self._output(amplitude_fs)
             self.say(f"step {len(self.steps):>2}  drive {level_dbfs:7.2f} dBFS  output {volts:>10}  {watts:>8}  "
                      f"{self._metric_name} {pct:8.4f} %  ({self._next_limit(pct, before)})")
@@ -231,7 +252,7 @@ class StepBoard:
     def _metric_name(self) -> str:
         return "THD+N" if self.metric == "thdn" else "THD"
 
-    def table(self):
+    def render(self):
         from rich.table import Table
         from rich.text import Text
 
@@ -252,23 +273,18 @@ class StepBoard:
         return t
 
 
-class Measuring:
+class Measuring(OnTerminal):
     """While a measurement plays and is analysed, a line on a terminal
     (stderr) saying what and for how long, redrawn in place, with how to
-    stop it; left as "measured in ..." when it ends. Notes printed
-    meanwhile appear above it. Nothing when not ``shown``."""
+    stop it; left as "measured in ..." when it ends. Nothing when not
+    ``shown``."""
 
     def __init__(self, what: str, shown: bool):
-        self.what, self._display, self._started = what, None, time.monotonic()
+        self.what = what
         self._done: str | None = None
-        if shown:
-            from rich.console import Console
-            from rich.live import Live
+        super().__init__(shown)
 
-            self._display = Live(console=Console(stderr=True), get_renderable=self._line, refresh_per_second=4,
-                                 transient=False)
-
-    def _line(self):
+    def render(self):
         from rich.text import Text
 
         if self._done is not None:
@@ -277,14 +293,6 @@ class Measuring:
         return Text(f"{spin} measuring {self.what}: {fmt_time(time.monotonic() - self._started).strip()}  "
                     "(Ctrl-C fades the output to silence and keeps what was captured)", style="bold")
 
-    def __enter__(self) -> "Measuring":
-        if self._display is not None:
-            self._display.start()
-        return self
-
-    def __exit__(self, kind, *_exc) -> None:
-        if self._display is not None:
-            took = fmt_time(time.monotonic() - self._started).strip()
-            self._done = f"measured {self.what} in {took}" if kind is None else f"{self.what} stopped after {took}"
-            self._display.refresh()
-            self._display.stop()
+    def ended(self, failed: bool) -> None:
+        took = fmt_time(time.monotonic() - self._started).strip()
+        self._done = f"{self.what} stopped after {took}" if failed else f"measured {self.what} in {took}"
