@@ -156,7 +156,7 @@ def test_a_tables_decimal_points_line_up_under_units_in_its_headers():
     (("--dbr-ref", "2Vrms"), "level (dBr)", lambda v: 20 * math.log10(v / 2.0)),
 ])
 def test_one_level_unit_in_the_tone_table_the_watch_line_and_the_power_steps(tmp_path, choice, header, convert):
-    # dBu re sqrt(0.6) V, dBr re the level given (common definitions): the tone table's level column and
+    # dBu re sqrt(0.6) V, dBr re the level given (common practice, from memory): the tone table's level column and
     # the watch's line show the level the result holds in volts, converted; a power run's steps alike
     from conftest import run_cli
 
