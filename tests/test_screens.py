@@ -42,6 +42,21 @@ class Terminal:
         self._call("new-session", "-d", "-x", str(self.width), "-y", str(self.height), "-c", str(cwd),
                    f"{command}; echo '{DONE}' $?; sleep 600")
 
+    def press(self, *keys: str) -> None:
+        """Keys typed into the pane, one at a time, as a person types them."""
+        for key in keys:
+            self._call("send-keys", "-l", key)
+
+    def wait_for(self, text: str, hang_guard_s: float = 120.0) -> str:
+        """The screen once it shows ``text`` (the guard only stops a hang)."""
+        until = time.monotonic() + hang_guard_s
+        while time.monotonic() < until:
+            screen = self.screen()
+            if text in screen:
+                return screen
+            time.sleep(0.1)
+        raise AssertionError(f"the screen never showed {text!r}:\n" + self.screen())
+
     def screen(self, escapes: bool = False) -> str:
         """The screen's text (with ``escapes``: its colours as escape sequences too)."""
         return self._call("capture-pane", "-p", "-J", "-S", "-", *(["-e"] if escapes else []))
@@ -49,13 +64,7 @@ class Terminal:
     def wait_done(self, hang_guard_s: float = 400.0) -> str:
         """The screen once the command has exited (it waits on the command,
         which waits on its stream; the guard only stops a hang)."""
-        until = time.monotonic() + hang_guard_s
-        while time.monotonic() < until:
-            text = self.screen()
-            if DONE in text:
-                return text
-            time.sleep(0.2)
-        raise AssertionError("the command did not finish:\n" + self.screen())
+        return self.wait_for(DONE, hang_guard_s)
 
     def close(self) -> None:
         subprocess.run([self.tmux, "-L", self.socket, "kill-server"], capture_output=True)
@@ -114,6 +123,32 @@ def test_watch_shows_its_table_on_a_terminal(terminal, tmp_path):
     assert header.split() == ["figure", "now", "min", "max", "trend"]
     assert any(line.split()[:1] == ["THD+N"] for line in screen.splitlines()), screen
     assert "keys: h hold" in screen
+
+
+def test_watch_keys_turn_the_virtual_bias_and_step_the_spectrum_averaging(terminal, tmp_path):
+    # on the virtual bench + and - turn the simulated stage's bias: from 0.5 A its current limit
+    # (I_bias x R_L = 4 V peak into 8 ohm, the model's circuit identity, docs/virtual-bench.md) cuts the
+    # 5.6 V peak a -10 dBFS drive asks for; ten turns up (1.0 A: 8 V) clear it, and the THD+N falls by
+    # tens of dB. The recorded watch keeps each turn; a steps the spectrum's averaging from 4 blocks to 16
+    bench = tmp_path / "bench"
+    terminal.run("watch", "--duration", "6", "--level", "-10dBFS", "--load", "8", "--sim-param", "bias=0.5",
+                 "--record", "--bench", str(bench), cwd=tmp_path)
+    before = terminal.wait_for("readings.")
+    assert "the power mean of" in before and "bias 0.50 A" in before
+    terminal.press(*"+" * 10, "a")
+    after = terminal.wait_for("bias 1.00 A")
+    screen = terminal.wait_done()
+    assert f"{DONE} 0" in screen, screen
+    assert "the power mean of 16 blocks" in screen
+    marks = next(line for line in screen.splitlines() if " f     2" in line)
+    assert "3" in marks.split("f", 1)[1]  # the harmonics marked beside the fundamental
+    doc = _result(bench)
+    turns = doc["bias_turns"]
+    assert [t["bias_a"] for t in turns] == pytest.approx([0.5 + 0.05 * k for k in range(1, 11)])
+    rows = (next(bench.glob("runs/*")) / "readings.csv").read_text().splitlines()[1:]
+    column = doc["figures"]  # the first reading's THD+N (clipped by the current limit) and the last's
+    assert column["thdn_db"]["first"] > -25.0 and column["thdn_db"]["last"] < -50.0, (column, after)
+    assert len(rows) == doc["readings"]
 
 
 @pytest.mark.parametrize("no_color", [False, True])

@@ -7,8 +7,13 @@ tone plays, benchkit.report.live shows them.
 
 from __future__ import annotations
 
+import threading
 from collections import deque
 from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from benchkit import units
 from benchkit.analysis.compare import Figure, finite
 
 #: The figures a reading has, in display order: (key, label, unit).
@@ -21,6 +26,8 @@ FIGURES = (
     ("h2_dbc", "H2", "dBc"),
     ("h3_dbc", "H3", "dBc"),
     ("noise_dbfs", "noise", "dBFS"),
+    ("residual_vrms", "residual", "Vrms"),
+    ("residual_dbfs", "residual", "dBFS"),
     ("dc_v", "DC", "V"),
 )
 READING_VERSION = 1
@@ -28,9 +35,9 @@ READING_VERSION = 1
 #: dB to a hundredth, distortion and noise to a tenth (the scatter of one
 #: reading); volts and watts relative to their value (a tenth of a percent
 #: of volts, two tenths of watts); DC to a tenth of a millivolt.
-RESOLUTION = {"level_dbfs": 0.01, "thdn_db": 0.1, "thd_db": 0.1, "h2_dbc": 0.1, "h3_dbc": 0.1, "noise_dbfs": 0.1,
+RESOLUTION = {"level_dbfs": 0.01, "residual_dbfs": 0.1, "thdn_db": 0.1, "thd_db": 0.1, "h2_dbc": 0.1, "h3_dbc": 0.1, "noise_dbfs": 0.1,
               "dc_v": 1e-4}
-RELATIVE_RESOLUTION = {"level_vrms": 1e-3, "power_w": 2e-3}
+RELATIVE_RESOLUTION = {"level_vrms": 1e-3, "power_w": 2e-3, "residual_vrms": 1e-2}
 
 
 def resolution(key: str, values) -> float:
@@ -61,6 +68,9 @@ class Reading:
     #: the stream reported a dropout (over- or underflow) inside the block:
     #: its figures are shown marked and left out of minimum, maximum and trend
     disturbed: bool = False
+    #: what is left of the block without its fundamental (THD+N's numerator), in the band
+    residual_dbfs: float | None = None
+    residual_vrms: float | None = None
 
     def to_dict(self) -> dict:
         return {"kind": "reading", "schema_version": READING_VERSION, **asdict(self)}
@@ -101,6 +111,55 @@ class Tracker:
     @property
     def shown(self) -> Reading | None:
         return self.held if self.held is not None else self.last
+
+
+class SpectrumAverage:
+    """The power mean of the last ``count`` spectra of a live readout (each
+    a sine's level in dBFS at each bin, one block's), for a spectrum view
+    that settles the noise while it follows a change: reset on a new
+    count or a new block length."""
+
+    def __init__(self, count: int = 4):
+        self.count = max(1, int(count))
+        self._lock = threading.Lock()  # added to by the stream's thread, read by the screen's
+        self.reset()
+
+    def reset(self) -> None:
+        with self._lock:
+            self._powers: deque = deque()
+            self._sum = None
+            self.freq_hz = None
+
+    def set_count(self, count: int) -> None:
+        with self._lock:
+            self.count = max(1, int(count))
+            self._trim()
+
+    def _trim(self) -> None:
+        while len(self._powers) > self.count:
+            self._sum = self._sum - self._powers.popleft()
+
+    def add(self, freq_hz, spectrum_dbfs) -> None:
+        power = units.ratio_from_db(spectrum_dbfs) ** 2
+        if self._sum is not None and self._sum.shape != power.shape:
+            self.reset()
+        with self._lock:
+            self.freq_hz = np.asarray(freq_hz, dtype=float)
+            self._powers.append(power)
+            self._sum = power.copy() if self._sum is None else self._sum + power
+            self._trim()
+
+    @property
+    def held(self) -> int:
+        """How many spectra the mean holds now (fewer than ``count`` at the start)."""
+        return len(self._powers)
+
+    def mean_dbfs(self):
+        """The frequencies and the averaged spectrum, dBFS a bin (None before the first)."""
+        with self._lock:
+            if self._sum is None or not self._powers:
+                return None
+            return self.freq_hz, units.db_from_power_ratio(self._sum / len(self._powers))
 
 
 def watch_figures(doc: dict) -> list[Figure]:

@@ -102,6 +102,21 @@ class StageModel:
     def _transfer(self, v_in: np.ndarray, rate: float) -> np.ndarray:
         raise NotImplementedError
 
+    def turn(self, name: str, value: float) -> float:
+        """Set parameter ``name`` to ``value`` while it runs (a trimmer
+        turned on the bench), refused as the model would refuse it at the
+        start (the old value kept); returns the value set."""
+        if name not in self.params:
+            raise BenchkitError(f"stage model {self.NAME!r} has no parameter {name!r}")
+        old = self.params[name]
+        self.params = {**self.params, name: float(value)}
+        try:
+            self.validate()
+        except BenchkitError:
+            self.params = {**self.params, name: old}
+            raise
+        return self.params[name]
+
     def advance(self, seconds: float) -> None:
         """Let time pass with no signal (warming up, settling)."""
         self.time_s += seconds

@@ -347,7 +347,8 @@ class VirtualBench:
         latency = int(self._rng.integers(*LATENCY_RANGE))
         self.last_latency_samples = latency
         chain = _StreamChain(self, rate)
-        block = int(0.05 * rate)
+        realtime = getattr(stimulus, "realtime", False)
+        block = int((0.02 if realtime else 0.05) * rate)  # a live readout's blocks as a stream's, 20 ms
         pending = np.zeros((latency, s.n_inputs))  # the round trip: what is still on its way back
         got, pos, stopped, events = [], 0, None, ()
         tail = LATENCY_RANGE[1] + int(0.05 * rate)
@@ -356,11 +357,9 @@ class VirtualBench:
         # one that is watched live runs at the pace of the clock
         keep = getattr(stimulus, "keep_s", None)
         keep_n = int(keep * rate) if keep else None
-        started = time.monotonic() if getattr(stimulus, "realtime", False) else None
+        started = time.monotonic() if realtime else None
         try:
             while True:
-                if started is not None:
-                    time.sleep(max(0.0, started + pos / rate - time.monotonic()))
                 out = stimulus.render(pos, block)
                 if out.shape[0] == 0:
                     if tail <= 0:
@@ -380,6 +379,8 @@ class VirtualBench:
                     stopped = pos + int(hot[0])
                     events = (f"frame {stopped}: the input clipped; the run stopped",)
                     stimulus.stop("the input clipped")
+                if started is not None:  # a block is heard once its last frame has been recorded
+                    time.sleep(max(0.0, started + (pos + out.shape[0]) / rate - time.monotonic()))
                 stimulus.listen(back, pos)
                 pos += out.shape[0]
         finally:

@@ -15,10 +15,14 @@ from benchkit.cli.common import answer, app, err, EXIT_BAD_INPUT, EXIT_INTERRUPT
 def watch(o: dict) -> None:
     """Play a steady tone and show its figures live while you adjust the stage.
 
-    Five times a second: level (V and W with a scale and --load), THD+N,
-    THD, H2, H3, noise and, with --dc-source, DC; each with its minimum,
-    maximum and trend since the start. Keys: h holds the display, r resets
-    min/max, q stops. Marks a clipped input or a lost tone.
+    Ten times a second: level (V and W with a scale and --load), THD+N,
+    THD, H2, H3, noise, the residual's level and, with --dc-source, DC;
+    each with its minimum, maximum and trend since the start; beside them
+    the spectrum, averaged over the last 4 blocks, the harmonics marked.
+    Keys: h holds the display, r resets min/max, s shows or hides the
+    spectrum, a steps its averaging (1, 4, 16, 64 blocks), q stops; on the
+    virtual bench + and - turn the simulated stage's bias by 50 mA. Marks
+    a clipped input or a lost tone.
 
     Example: benchkit watch --level -20dBFS --load 8 --sim-param bias=1.2 --record --tag trim=R7
 

@@ -20,6 +20,7 @@ import csv
 import math
 import queue
 import threading
+import time
 from dataclasses import asdict, dataclass
 from pathlib import Path
 
@@ -28,7 +29,7 @@ import numpy as np
 from benchkit import units
 from benchkit.analysis.documents import Conditions, document
 from benchkit.analysis.spectrum import WINDOW_NAME
-from benchkit.analysis.readings import FIGURES, Reading, watch_figures
+from benchkit.analysis.readings import FIGURES, Reading, SpectrumAverage, watch_figures
 from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
 from benchkit.analysis.uncertainty import Budget, Collector
 from benchkit.capture import FAULT_ADVICE, HearsFaults
@@ -36,13 +37,19 @@ from benchkit.errors import BenchWarning, BenchkitError
 from benchkit.kinds import Kind, RunParams, series_from_csv
 
 
-#: A reading this often (5 a second).
-UPDATE_S = 0.2
+#: A reading this often (10 a second).
+UPDATE_S = 0.1
 #: Each reading analyses the latest block: at least this long, and at
-#: least PERIODS periods of the tone (the harmonics stay resolved).
+#: least PERIODS periods of the tone (the harmonics stay resolved); blocks
+#: longer than UPDATE_S overlap (at 20 Hz a reading analyses the last
+#: second, moved on by a tenth each time).
 MIN_BLOCK_S, PERIODS = 0.25, 20
 #: The tone ramps in from silence over this long (no step at switch-on).
 RAMP_S = 0.5
+#: The first reading waits this long more than the ramp and a block: the
+#: round trip of the stream (the ramp comes back late by it; a USB
+#: interface's is some tens of ms, common practice).
+ROUND_TRIP_S = 0.1
 #: A fundamental this far under the strongest seen since the ramp: the tone is lost.
 LOST_DB = 20.0
 def block_seconds(frequency_hz: float) -> float:
@@ -56,7 +63,11 @@ class SteadyTone(HearsFaults):
     ``on_reading(reading)`` is called from the backend's listening thread.
     ``dc()`` (optional) gives the latest DC reading of a meter, volts;
     ``dc_scale`` (a DC-coupled measuring input's volts per FS) reads the
-    DC from the analysed block itself.
+    DC from the analysed block itself. ``spectrum`` (a
+    :class:`SpectrumAverage`, optional) takes each block's spectrum for a
+    live spectrum view. ``started_at`` is the clock (``time.monotonic``)
+    when the first frames were asked for: a reading at ``t_s`` shows audio
+    recorded by ``started_at + t_s``.
     """
 
     realtime = True
@@ -65,18 +76,21 @@ class SteadyTone(HearsFaults):
     def __init__(self, frequency_hz: float, level_dbfs: float, rate: float, on_reading, in_channel: int = 1,
                  out_channel: int = 1, n_out: int = 2, volts_per_fs: float | None = None,
                  load_ohms: float | None = None, bandwidth_hz=DEFAULT_BAND_HZ, max_s: float = 24 * 3600.0,
-                 update_s: float = UPDATE_S, dc=None, dc_scale: float | None = None):
+                 update_s: float = UPDATE_S, dc=None, dc_scale: float | None = None,
+                 spectrum: SpectrumAverage | None = None):
         from benchkit import signals
 
         signals.check_level(level_dbfs)
         self.frequency_hz, self.level_dbfs, self.sample_rate_hz = float(frequency_hz), float(level_dbfs), float(rate)
         self.amplitude = 10 ** (level_dbfs / 20)
-        self.on_reading, self.dc, self.dc_scale = on_reading, dc, dc_scale
+        self.on_reading, self.dc, self.dc_scale, self.spectrum = on_reading, dc, dc_scale, spectrum
+        self.started_at: float | None = None
         self.in_col, self.out_col, self.n_out = in_channel - 1, out_channel - 1, n_out
         self.volts_per_fs, self.load_ohms, self.bandwidth_hz = volts_per_fs, load_ohms, bandwidth_hz
         self.block_n = int(round(block_seconds(frequency_hz) * rate))
         self.update_n = int(round(update_s * rate))
         self.ramp_n = int(RAMP_S * rate)
+        self.first_n = int((RAMP_S + ROUND_TRIP_S) * rate) + self.block_n  # the ramp come back, then a block
         self.max_samples = int(max_s * rate)
         self._buf = np.zeros(self.block_n)
         self._filled = 0
@@ -110,6 +124,8 @@ class SteadyTone(HearsFaults):
 
     def render(self, start: int, frames: int) -> np.ndarray:
         """The next ``frames``: the ramp, the tone; after a stop, a 20 ms fade and then nothing."""
+        if self.started_at is None:
+            self.started_at = time.monotonic()
         with self._lock:
             if self._fade_from is not None:
                 left = self._fade_from + self._fade_n - start
@@ -150,28 +166,37 @@ class SteadyTone(HearsFaults):
             self._buf = np.concatenate([self._buf[x.size:], x])
         self._filled = min(self.block_n, self._filled + x.size)
         self._since += x.size
-        ready = self._filled == self.block_n and self._heard > self.ramp_n + self.block_n
+        ready = self._filled == self.block_n and self._heard > self.first_n
         if ready and self._since >= self.update_n and self._fade_from is None:
             self._since = self._since - self.update_n if self._since < 2 * self.update_n else 0
             start = self._heard - self.block_n
             disturbed = any(a < self._heard and b > start for a, b in self._faults)
             self.on_reading(self.analyse(self._buf, self._heard / self.sample_rate_hz, disturbed))
 
+    @property
+    def heard_s(self) -> float:
+        """Seconds of the measuring input heard so far."""
+        return self._heard / self.sample_rate_hz
+
     def analyse(self, x: np.ndarray, t_s: float, disturbed: bool = False) -> Reading:
         dc = self.dc() if self.dc is not None else None
         clipped = bool(np.max(np.abs(x)) >= 0.999)
         try:
             r = analyze_tone(x, self.sample_rate_hz, fundamental_hz=self.frequency_hz, bandwidth_hz=self.bandwidth_hz,
-                             volts_per_fs=self.volts_per_fs, load_ohms=self.load_ohms)
+                             volts_per_fs=self.volts_per_fs, load_ohms=self.load_ohms, traces=self.spectrum is not None)
         except BenchkitError:
             return Reading(t_s, None, None, None, None, None, None, None, None, dc, clipped, True, disturbed)
+        if self.spectrum is not None and not disturbed:
+            self.spectrum.add(r.traces.freq_hz, r.traces.spectrum_dbfs)
         if dc is None and self.dc_scale is not None:
             dc = r.dc_fs * self.dc_scale
         self._loudest = max(self._loudest, r.fundamental_dbfs)
         lost = r.fundamental_dbfs < self._loudest - LOST_DB or abs(r.fundamental_hz / self.frequency_hz - 1) > 0.01
         h = {k.order: k.level_dbc for k in r.harmonics}
+        residual = units.ratio_from_db(r.thdn_db)  # THD+N is the residual's level re the fundamental
         return Reading(t_s, r.fundamental_dbfs, r.fundamental_vrms, r.power_w, r.thdn_db, r.thd_db, h.get(2), h.get(3),
-                       r.noise_dbfs, dc, clipped or r.clipped, lost, disturbed)
+                       r.noise_dbfs, dc, clipped or r.clipped, lost, disturbed, r.fundamental_dbfs + r.thdn_db,
+                       None if r.fundamental_vrms is None else r.fundamental_vrms * residual)
 
 
 class Watch:
@@ -306,7 +331,6 @@ def check_dc_source(source, resource, backend, profile) -> None:
 def dc_reader(source, resource, backend, profile):
     """The DC a watch shows: a meter read in its own thread (the latest
     value), the measuring input's own DC, or the virtual stage's midpoint."""
-    import time
 
     from benchkit import meters
 
@@ -345,6 +369,36 @@ def dc_reader(source, resource, backend, profile):
     return (lambda: latest["v"]), None, _Closing()
 
 
+#: The averaging counts of the spectrum view the a key steps through.
+AVERAGING = (1, 4, 16, 64)
+#: How far + and - turn the virtual stage's bias, A.
+BIAS_STEP_A = 0.05
+
+
+class BiasKnob:
+    """The virtual stage's bias, turned from the keyboard (+ and -) while
+    a watch runs: the screwdriver moment with no hardware. Each turn is
+    kept (``turns``: when, in seconds of the tone, and the bias set)."""
+
+    def __init__(self, backend):
+        stage = getattr(backend, "stage", None) if backend.capabilities.simulated else None
+        self.stage = stage if stage is not None and "bias" in stage.params else None
+        self.turns: list[dict] = []
+
+    def turn(self, steps: int, t_s: float) -> str | None:
+        """Turn it ``steps`` steps (negative: down); None, or why it would not turn."""
+        try:
+            bias = self.stage.turn("bias", round(self.stage.params["bias"] + steps * BIAS_STEP_A, 6))
+        except BenchkitError as exc:
+            return str(exc)
+        self.turns.append({"t_s": round(t_s, 3), "bias_a": bias})
+        return None
+
+    def note(self) -> str:
+        return (f"virtual stage: bias {self.stage.params['bias']:.2f} A "
+                f"(+ and - turn it by {1000 * BIAS_STEP_A:g} mA)")
+
+
 @dataclass(frozen=True)
 class WatchEnd:
     """How a watch ended: what stopped it, whether Ctrl-C did, whether the
@@ -358,11 +412,11 @@ class WatchEnd:
 def watch_session(backend, tone, run, record_audio: bool, duration, mode: str, say) -> WatchEnd:
     """Show the readings until q, Ctrl-C, ``duration`` or the stream's end,
     the tone fading out on every path: one line a reading on stdout in
-    ``mode`` "json" or "plain", a live table in "live" (keys: h holds, r
-    resets, q stops). Files the readings (and with ``record_audio`` the
+    ``mode`` "json" or "plain", a live table and spectrum in "live" (keys:
+    h holds, r resets, s spectrum, a averaging, + - the virtual bias, q
+    stops). Files the readings (and with ``record_audio`` the
     raw audio) in ``run``, if any."""
     import sys
-    import time
 
     from benchkit.analysis.readings import Tracker
     from benchkit.kinds import headline_figures
@@ -372,17 +426,27 @@ def watch_session(backend, tone, run, record_audio: bool, duration, mode: str, s
     log = ReadingsLog(run.folder / "readings.csv") if run is not None else None
     partial = run.folder / "audio.partial.wav" if run is not None and record_audio else None
     tracker = Tracker()
-    watch = Watch(backend, tone, partial).start()
     keys = show.Keys() if mode == "live" and sys.stdin.isatty() else None
-    display = None
+    knob = BiasKnob(backend) if keys is not None else None
+    knob = knob if knob is not None and knob.stage is not None else None
+    spectrum = tone.spectrum = SpectrumAverage(AVERAGING[1]) if mode == "live" else None
+    watch = Watch(backend, tone, partial).start()
+    display, spectrum_shown, why = None, True, None
+    title = f"{tone.frequency_hz:g} Hz at {tone.level_dbfs:g} dBFS on {backend.name}"
+
+    def screen():
+        notes = tuple(n for n in (knob.note() if knob is not None else None, why) if n)
+        keys_text = show.KEYS if knob is None else show.KEYS.replace(", q stop", ", + - bias, q stop")
+        return show.screen(tracker, title, spectrum if spectrum_shown else None, tone.frequency_hz, tone.bandwidth_hz,
+                           keys_text, notes)
+
     if mode == "live":
         from rich.console import Console
         from rich.live import Live
 
-        display = Live(show.table(tracker, "benchkit watch"), console=Console(), refresh_per_second=8, transient=False)
+        display = Live(screen(), console=Console(), auto_refresh=False, transient=False)
         display.start()
     started, ended_by, interrupted = time.monotonic(), None, False
-    title = f"{tone.frequency_hz:g} Hz at {tone.level_dbfs:g} dBFS on {backend.name}"
     try:
         for reading in watch.readings():
             try:
@@ -399,11 +463,19 @@ def watch_session(backend, tone, run, record_audio: bool, duration, mode: str, s
                     tracker.toggle_hold()
                 elif key == "r":
                     tracker.reset()
+                    spectrum.reset()
+                elif key == "s":
+                    spectrum_shown = not spectrum_shown
+                elif key == "a":
+                    spectrum.set_count(AVERAGING[(AVERAGING.index(spectrum.count) + 1) % len(AVERAGING)]
+                                       if spectrum.count in AVERAGING else AVERAGING[0])
+                elif key in ("+", "=", "-") and knob is not None:
+                    why = knob.turn(-1 if key == "-" else 1, tone.heard_s)
                 elif key == "q" and ended_by is None:
                     ended_by = "stopped (q)"
                     watch.stop(ended_by)
-                if display is not None:
-                    display.update(show.table(tracker, title))
+                if display is not None and (reading is not None or key is not None):
+                    display.update(screen(), refresh=True)
                 if duration is not None and ended_by is None and time.monotonic() - started >= duration:
                     ended_by = "the duration ran out"
                     watch.stop(ended_by)
@@ -454,8 +526,9 @@ def watch_session(backend, tone, run, record_audio: bool, duration, mode: str, s
                                           "stimulus": tone.description, "channels": [c.to_dict() for c in backend.inputs()],
                                           "note": "raw, unaligned recording of a watch"})
             written.append(audio)
+        turned = {"bias_turns": knob.turns} if knob is not None and knob.turns else {}
         doc = summarise(log.path, {"frequency_hz": tone.frequency_hz, "level_dbfs": tone.level_dbfs,
-                                   "ended": stopped, "device": backend.name, "conditions": tone.conditions()})
+                                   "ended": stopped, "device": backend.name, "conditions": tone.conditions(), **turned})
         from benchkit.report import tables
 
         written.insert(0, tables.write_json(doc, run.folder / "watch.json"))

@@ -79,8 +79,13 @@ def plain_line(r: Reading) -> str:
     return "  ".join(parts)
 
 
-def table(tracker: Tracker, title: str):
-    """The live table: figure, now, minimum, maximum, trend."""
+#: The keys a watch takes, as its screen names them.
+KEYS = "h hold, r reset, s spectrum, a averaging, q stop (or Ctrl-C)"
+
+
+def table(tracker: Tracker, title: str, keys: str = KEYS, notes: tuple[str, ...] = ()):
+    """The live table: figure, now, minimum, maximum, trend; ``notes``
+    (a line each) above the keys."""
     from rich.table import Table
     from rich.text import Text
 
@@ -103,15 +108,99 @@ def table(tracker: Tracker, title: str):
                 continue
             t.add_row(f"{label} ({unit})", value_text(getattr(r, key), unit), value_text(tracker.min.get(key), unit),
                       value_text(tracker.max.get(key), unit), trend(tracker, key))
-    notes = marks(r, tracker.held is not None)
     caption = Text()
-    for m in notes:
+    for m in marks(r, tracker.held is not None):
         caption.append(m + "\n", style="bold red" if not m.startswith("HELD") else "bold")
+    for note in notes:
+        caption.append(note + "\n")
     when = f"{fmt_time(r.t_s)}, {units.count(tracker.count, 'reading')}" if r is not None else "waiting for the first reading"
-    caption.append(f"{when}.  keys: h hold, r reset min/max, q stop (Ctrl-C stops too)")
+    caption.append(f"{when}.  keys: {keys}")
     t.caption = caption
     t.caption_justify = "left"
     return t
+
+
+#: The spectrum view: columns, rows and dB a row.
+SPECTRUM_COLS, SPECTRUM_ROWS, SPECTRUM_DB_ROW = 60, 10, 12.0
+#: Harmonics marked in the spectrum view: up to this order.
+MARKED_ORDERS = 9
+
+
+def spectrum_view(spectrum, fundamental_hz: float, band=None, cols: int = SPECTRUM_COLS, rows: int = SPECTRUM_ROWS,
+                  db_row: float = SPECTRUM_DB_ROW):
+    """The averaged spectrum as text: a bar a column on a log-frequency
+    axis across the band (the strongest bin of the column, in eighths of
+    a row), dBFS down the side, the fundamental (``f``) and its harmonics
+    (2 to 9) marked under the columns that hold them. None before the
+    first spectrum."""
+    import numpy as np
+    from rich.text import Text
+
+    got = spectrum.mean_dbfs()
+    if got is None:
+        return None
+    freq, db = got
+    lo = max(band[0] if band else 20.0, freq[1])
+    hi = min(band[1] if band else freq[-1], freq[-1])
+    edges = np.geomspace(lo, hi, cols + 1)
+    idx = np.searchsorted(freq, edges)
+    centre = np.sqrt(edges[:-1] * edges[1:])
+    level = np.empty(cols)
+    for c in range(cols):  # the column's strongest bin, or the bin nearest its centre where it holds none
+        a, b = idx[c], idx[c + 1]
+        level[c] = db[a:b].max() if b > a else db[min(int(np.searchsorted(freq, centre[c])), freq.size - 1)]
+    top = db_row * math.ceil(max(level.max(), -db_row * rows + db_row) / db_row)
+    out = Text(f"spectrum, the power mean of {units.count(spectrum.held, 'block')} (dBFS)\n", style="bold")
+    for row in range(rows):
+        ceiling = top - row * db_row  # this row spans ceiling - db_row .. ceiling
+        label = f"{ceiling:>5.0f} " if row % 2 == 0 else " " * 6
+        eighths = np.clip(np.floor((level - (ceiling - db_row)) / db_row * 8), 0, 8).astype(int)
+        out.append(label + "".join(" " if e == 0 else _BARS[e - 1] for e in eighths) + "\n")
+    marks = [" "] * cols
+    for k in range(MARKED_ORDERS, 0, -1):  # the lower orders win a shared column
+        f = k * fundamental_hz
+        if lo <= f <= hi:
+            marks[min(int(np.searchsorted(edges, f)) - 1, cols - 1)] = "f" if k == 1 else str(k)
+    out.append(" " * 6 + "".join(marks) + "\n", style="bold")
+    ticks = [" "] * cols
+    for f, name in ((20, "20"), (100, "100"), (1000, "1k"), (10000, "10k")):
+        at = max(0, int(np.searchsorted(edges, f)) - 1)
+        if lo <= f <= hi and at + len(name) <= cols and all(t == " " for t in ticks[max(0, at - 1):at + len(name)]):
+            ticks[at:at + len(name)] = name
+    out.append(" " * 6 + "".join(ticks) + " Hz")
+    return out
+
+
+def screen(tracker: Tracker, title: str, spectrum=None, fundamental_hz: float | None = None, band=None,
+           keys: str = KEYS, notes: tuple[str, ...] = ()):
+    """What a watch's terminal shows: the table and, with a spectrum
+    average, the spectrum view beside it (under it on a narrow terminal)."""
+    shown = table(tracker, title, keys, notes)
+    view = spectrum_view(spectrum, fundamental_hz, band) if spectrum is not None else None
+    return shown if view is None else _Beside(shown, view)
+
+
+class _Beside:
+    """Two renderables side by side where the terminal is wide enough for
+    both at their natural widths, else one under the other."""
+
+    GAP = 4
+
+    def __init__(self, left, right):
+        self.left, self.right = left, right
+
+    def __rich_console__(self, console, options):
+        from rich.measure import Measurement
+        from rich.table import Table
+
+        widths = [Measurement.get(console, options, r).maximum for r in (self.left, self.right)]
+        if sum(widths) + self.GAP <= options.max_width:
+            grid = Table.grid(padding=(0, self.GAP))
+            grid.add_row(self.left, self.right)
+            yield grid
+        else:
+            yield self.left
+            yield self.right
 
 
 def fmt_time(seconds: float) -> str:
@@ -121,9 +210,11 @@ def fmt_time(seconds: float) -> str:
 
 def summary_lines(tracker: Tracker) -> list[str]:
     """Each figure's minimum and maximum over a watch."""
-    return [f"  {label:<6} {unit:<5} min {value_text(tracker.min[key], unit).strip():>14}   "
+    shown = [(key, label, unit) for key, label, unit in FIGURES if key in tracker.min]
+    width = max((len(label) for _k, label, _u in shown), default=0)
+    return [f"  {label:<{width}} {unit:<5} min {value_text(tracker.min[key], unit).strip():>14}   "
             f"max {value_text(tracker.max[key], unit).strip():>14}"
-            for key, label, unit in FIGURES if key in tracker.min]
+            for key, label, unit in shown]
 
 
 class Keys:
@@ -131,7 +222,7 @@ class Keys:
     restored on close; nothing on a system without termios."""
 
     def __init__(self):
-        self._old = None
+        self._old, self._pending = None, ""
         try:
             import termios
             import tty
@@ -145,13 +236,17 @@ class Keys:
             self._old = None
 
     def read(self) -> str | None:
+        """The next key pressed, or None. Read from the descriptor itself:
+        a text stream's buffer would hide keys typed together from select."""
         if self._old is None:
             return None
+        import os
         import select
-        import sys
 
-        ready, _, _ = select.select([sys.stdin], [], [], 0)
-        return sys.stdin.read(1).lower() if ready else None
+        if not self._pending and select.select([self._fd], [], [], 0)[0]:
+            self._pending = os.read(self._fd, 256).decode(errors="replace")
+        key, self._pending = self._pending[:1], self._pending[1:]
+        return key.lower() or None
 
     def close(self) -> None:
         if self._old is not None:
