@@ -375,12 +375,13 @@ class _BenchLater:
 
 
 @contextlib.contextmanager
-def bench_logbook(o: dict):
+def bench_logbook(o: dict, remembered: bool = True):
     """The bench's logbook, opened (and checked writable) before anything
     plays, with the run's labels: tags, note and the stage description
-    (a --stage file or --stage-info fields update the remembered one). A
-    bench without a catalog yet is checked writable and opened when a run
-    is filed in it."""
+    (a --stage file or --stage-info fields update the remembered one;
+    ``remembered=False``: the stage is what they give alone, and the
+    bench's stays as it is). A bench without a catalog yet is checked
+    writable and opened when a run is filed in it."""
     from benchkit import logbook
 
     tags = logbook.parse_tags(o["tag"])
@@ -392,24 +393,26 @@ def bench_logbook(o: dict):
         else:
             logbook.check_writable(root)
             book = _BenchLater(root, stack)
-        stage = logbook.read_settings(root).get("stage") or {}
+        stage = (logbook.read_settings(root).get("stage") or {}) if remembered else {}
         if o["stage"] is not None:
             stage = logbook.read_stage(o["stage"])
         changed = o["stage"] is not None or bool(fields)
         if changed:
             stage = {**stage, **fields}
         # the bench remembers a changed stage once a run is filed with it (start_run), not on a refusal
-        labels = dict(tags=tags, note=o["note"], stage=stage, remember=changed)
+        labels = dict(tags=tags, note=o["note"], stage=stage, remember=changed and remembered)
         if o.get("session"):  # a plan's step (benchkit.session sets it; no command line does)
             labels["session"] = o["session"]
         yield book, labels
 
 
-def start_run(book, labels: dict, command: str, backend, profile, calibration: Path | None, params: dict, say):
+def start_run(book, labels: dict, command: str, backend, profile, calibration: Path | None, params: dict, say,
+              filed: dict | None = None):
     """File the run in the logbook as running; its folder is where it writes;
     ``params`` as its kind's :class:`benchkit.kinds.RunParams` stores them.
     ``backend`` is the capture backend, or the name of a source (a drift
-    log's, the logbook's)."""
+    log's, the logbook's, "file" for a capture made elsewhere: ``filed``
+    says which, benchkit.filing)."""
     cal = None if profile is None else {"file": str(calibration), "hash": profile.digest()}
     labels = dict(labels)
     if labels.pop("remember", False):
@@ -418,6 +421,7 @@ def start_run(book, labels: dict, command: str, backend, profile, calibration: P
         device = backend
     else:
         device, params = backend.name, {**params, "sample_rate_hz": backend.sample_rate_hz}
-    run = book.start(command, device=device, calibration=cal, params=kinds.get(command).params.stored(params), **labels)
+    run = book.start(command, device=device, calibration=cal, params=kinds.get(command).params.stored(params), filed=filed,
+                     **labels)
     say(f"run {run.id} (logbook {book.root / CATALOG})")
     return run

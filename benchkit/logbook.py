@@ -51,6 +51,8 @@ SCHEMA_VERSION = 3
 RECORD_KIND, RECORD_VERSION = "run", 1
 #: How long a writer waits for another process's transaction, seconds.
 BUSY_TIMEOUT_S = 30.0
+#: The device of a run filed from a capture made elsewhere (``log file``, benchkit.filing).
+FILED_DEVICE = "file"
 #: What a run can be. "incomplete": its process went away while it ran.
 STATUSES = ("running", "complete", "interrupted", "failed", "incomplete")
 
@@ -63,7 +65,7 @@ _RECORD_FIELDS = {
     "device": TEXT + (None,), "calibration": (dict, None), "stage": (dict, None), "tags": (dict, None),
     "note": TEXT + (None,), "params": (dict, None), "files": (list, None), "valid": (bool, None),
     "warnings": (list, None), "figures": (list, None), "error": TEXT + (None,), "argv": (list, None),
-    "retry_error": TEXT + (None,), "session": TEXT + (None,),
+    "retry_error": TEXT + (None,), "session": TEXT + (None,), "filed": (dict, None),
 }
 _FIGURE_FIELDS = {"name": TEXT, "value": NUMBER + (None,), "unit": TEXT, "at": TEXT + NUMBER + (None,)}
 
@@ -342,6 +344,11 @@ class RunEntry:
     #: the session (a plan's) it was measured in
     session: str | None = None
 
+    @property
+    def filed(self) -> bool:
+        """Filed from a capture made elsewhere (``log file``), not measured here."""
+        return self.device == FILED_DEVICE
+
     def figure(self, name: str) -> float | None:
         return next((f["value"] for f in self.figures if f["name"] == name), None)
 
@@ -540,10 +547,11 @@ class Logbook:
 
     def start(self, command: str, *, tags: dict | None = None, note: str = "", stage: dict | None = None,
               device: str | None = None, calibration: dict | None = None, params: dict | None = None,
-              argv: list[str] | None = None, session: str | None = None) -> "Run":
+              argv: list[str] | None = None, session: str | None = None, filed: dict | None = None) -> "Run":
         """Make the run's folder, write its record and insert it as running
-        (``session``: the session it is measured in, a plan's). The
-        returned :class:`Run` holds the folder's lock until it ends."""
+        (``session``: the session it is measured in, a plan's; ``filed``:
+        a capture made elsewhere, where it came from). The returned
+        :class:`Run` holds the folder's lock until it ends."""
         started = datetime.now(timezone.utc).astimezone()
         tags = dict(tags or {})
         folder = self._new_folder(started, "-".join([command, *(f"{k}-{v}" for k, v in tags.items())]))
@@ -557,6 +565,8 @@ class Logbook:
             "params": params or {}, "result_kind": None, "result_file": None, "files": [], "valid": None,
             "warnings": [], "figures": [], "error": None, "session": session,
         }
+        if filed is not None:
+            record["filed"] = filed
         try:
             self._save_record(record)
             with self._write() as db:

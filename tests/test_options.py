@@ -56,7 +56,7 @@ def test_an_option_is_one_thing():
     assert "--gain" not in [o for o, c in opts.items() if "analyze" in c]  # analyze --as gain
     for gone in ("--resource", "--dc-resource", "--current-resource", "--supply-meter", "--source", "--length", "--step"):
         assert gone not in opts, gone
-    assert opts["--limit"] == {"analyze", "power", "power-bandwidth"}  # percent of distortion, not a row count
+    assert opts["--limit"] == {"analyze", "log file", "power", "power-bandwidth"}  # percent of distortion, not a row count
     assert opts["--out"] == {"analyze", "compare", "demo"}  # a folder; a file is --file
 
 

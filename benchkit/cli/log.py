@@ -10,7 +10,7 @@ from typing import List
 import typer
 
 from benchkit import units
-from benchkit.cli.common import answer, app, err, one_line, show, takes
+from benchkit.cli.common import answer, app, err, EXIT_BAD_INPUT, one_line, show, takes
 from benchkit.errors import BenchkitError
 from benchkit.report import logbook as logbook_text
 
@@ -183,6 +183,42 @@ def log_reanalyse(run: str = RUN, o: dict = None) -> None:
             show(complete(taken, doc, written, err, played=False), o["json"])
         done = book.entry(entry.id)
     err(f"run {done.id}: {done.status}; {logbook_text.headline_text(done)}")
+
+
+@log_app.command("file")
+@takes("channel fundamental bandwidth averages volts_per_fs load calibration ref_channel ref_freq smooth as_kind level "
+       "rail json", "figures", "filing", level=None,
+       helps=dict(level="A capture of one tone: the drive it was made at, e.g. -20dBFS (its step pairs with measured "
+                       "tone runs at that drive).",
+                  stage="The stage the captures are of: a JSON object or 'key: value' lines (the bench's remembered "
+                        "one is left as it is).",
+                  stage_info="A field of the captures' stage, key=value (repeatable), e.g. name=B-2.",
+                  volts_per_fs="Volts peak at the stage per full scale of the capture (overrides its sidecar)."))
+def log_file(files: List[Path] = typer.Argument(..., help="WAV or FLAC captures made elsewhere.", show_default=False),
+             o: dict = None) -> None:
+    """File captures made elsewhere in the logbook: each analysed as 'analyze' does, filed as a run of its kind.
+
+    Each capture becomes a run of its own (device "file"): a copy of it
+    with its sidecar, its result and reports, its stage, tags and note,
+    and where it came from (its path and SHA-256). It then lists,
+    compares and analyses again like a measured run. A capture that
+    cannot be read or analysed is refused and nothing of it is filed.
+
+    Example: benchkit log file amp-997Hz.wav --volts-per-fs 20.36 --level -20dBFS --load 8 --stage-info name=B-2 --tag bias=1.2A
+    """
+    from benchkit.filing import file_captures
+
+    with one_line():
+        filed, refused = file_captures(list(files), o, err, lambda text: answer(text, o["json"]))
+    for path, why in refused:
+        err(f"benchkit: error: {why}" if str(path) in why else f"benchkit: error: {path}: {why}")
+    if o["json"]:
+        from benchkit.report.tables import dumps
+
+        docs = [{**f.doc, "run": {"id": f.run.id, "folder": str(f.run.folder), "status": f.status}} for f in filed]
+        print(dumps(docs[0] if len(docs) == 1 else docs))
+    if refused:
+        raise typer.Exit(EXIT_BAD_INPUT)
 
 
 @log_app.command("remove")

@@ -362,18 +362,26 @@ def reanalyse(folder: Path, record: dict, say: Callable[[str], None] = lambda _m
 
 def analyse_file(path: Path, options: Offline, say: Callable[[str], None] = lambda _m: None) -> Analysed:
     """One file analysed offline by its kind: a table of readings (CSV) by
-    the kind that reads tables; a capture by the first kind, in rank order,
-    that ``analyze``'s options ask for or that its sidecar shows (a plain
-    tone when none does), with the calibration profile given applied to
-    the capture's scale in this one place."""
+    the kind that reads tables; a capture by the kind :func:`recognised`
+    finds for it."""
+    path = Path(path)
+    if path.suffix.lower() == ".csv":
+        return next(k for k in all_kinds() if k.analyse is not None and k.reads == "csv").analyse(path, options)
+    kind, rec = recognised(path, options, say)
+    return kind.analyse(rec, options)
+
+
+def recognised(path: Path, options: Offline, say: Callable[[str], None] = lambda _m: None):
+    """A capture read and the kind that analyses it offline, ``(kind,
+    recording)``: the first kind, in rank order, that ``analyze``'s options
+    ask for or that its sidecar shows (a plain tone when none does), with
+    the calibration profile given applied to the capture's scale in this
+    one place."""
     from dataclasses import replace
 
     from benchkit.recordings import read_capture
 
     path = Path(path)
-    kinds = [k for k in all_kinds() if k.analyse is not None]
-    if path.suffix.lower() == ".csv":
-        return next(k for k in kinds if k.reads == "csv").analyse(path, options)
     rec = read_capture(path, options.channel)
     for w in rec.warnings:  # (an ignored sidecar: the text says so, as the JSON does)
         say(f"warning: {path}: {w}")
@@ -387,11 +395,12 @@ def analyse_file(path: Path, options: Offline, say: Callable[[str], None] = lamb
         rec = replace(rec, sidecar=side)
     if options.load_ohms is not None and options.volts_per_fs is None and rec.channel_scale()[0] is None:
         raise BenchkitError(f"{path}: --load needs a voltage scale (--volts-per-fs, or a sidecar that gives one)")
-    for kind in kinds:
-        if kind.reads == "capture" and ((kind.chosen is not None and kind.chosen(options))
-                                        or (kind.recognises is not None and kind.recognises(rec))):
-            return kind.analyse(rec, options)
-    return get("tone").analyse(rec, options)
+    for kind in all_kinds():
+        if kind.analyse is not None and kind.reads == "capture" and (
+                (kind.chosen is not None and kind.chosen(options))
+                or (kind.recognises is not None and kind.recognises(rec))):
+            return kind, rec
+    return get("tone"), rec
 
 
 # --- what every kind module uses ----------------------------------------------------

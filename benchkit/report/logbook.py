@@ -44,8 +44,10 @@ def runs_lines(entries) -> list[str]:
     rows = []
     for e in entries:
         valid = "" if e.valid is not False else " INVALID"
-        rows.append([e.id, e.status + valid, e.command, " ".join(f"{k}={v}" for k, v in e.tags.items())])
-        line = "; ".join(x for x in (headline_text(e), e.note.splitlines()[0] if e.note else "") if x)
+        filed = " (filed)" if e.filed else ""
+        rows.append([e.id, e.status + valid, e.command + filed, " ".join(f"{k}={v}" for k, v in e.tags.items())])
+        stage = f"stage {e.stage['name']}" if isinstance(e.stage, dict) and e.stage.get("name") else ""
+        line = "; ".join(x for x in (headline_text(e), stage, e.note.splitlines()[0] if e.note else "") if x)
         if line:
             rows.append(["", "", "", line])
     columns = [Column("run", "left"), Column("status", "left"), Column("command", "left"),
@@ -70,6 +72,17 @@ def param_text(key: str, value) -> str:
     return str(value)
 
 
+def filed_lines(filed) -> list[str]:
+    """Where a run filed from a capture made elsewhere came from, and the
+    scale it was filed with (none for a measured run)."""
+    if not isinstance(filed, dict):
+        return []
+    scale = filed.get("volts_per_fs")
+    return [f"  filed from   {filed.get('from')} (sha256 {filed.get('sha256')})",
+            f"  scale        {quantity(scale, 'V', 4)} peak per FS ({filed.get('scale_source')})"
+            if isinstance(scale, (int, float)) else "  scale        none"]
+
+
 def run_lines(entry, record: dict) -> list[str]:
     """One run in full: when, what, the device and the calibration, the
     stage, tags, note, options, figures, warnings (with their codes), the
@@ -78,6 +91,7 @@ def run_lines(entry, record: dict) -> list[str]:
     lines = [f"run {entry.id}: {entry.command}, {entry.status}" + ("" if entry.valid is not False else " (INVALID)"),
              f"  started      {record['started']}" + (f", ended {record['finished']}" if record.get("finished") else ""),
              f"  device       {record.get('device')}",
+             *filed_lines(record.get("filed")),
              f"  calibration  {cal.get('file')} (hash {cal.get('hash')})" if cal else "  calibration  none"]
     lines += [f"  stage        {key}: {value}" for key, value in (record.get("stage") or {}).items()]
     if entry.tags:
