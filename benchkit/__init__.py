@@ -31,6 +31,7 @@ _EXPORTS = {
     "analyze_sweep": "benchkit.kinds.sweep",
     "analyze_grid": "benchkit.kinds.grid",
     "analyze_power_bandwidth": "benchkit.kinds.power_bandwidth",
+    "analyze_loopback": "benchkit.analysis.loopback",
     "ToneResult": "benchkit.analysis.tone",
     "Harmonic": "benchkit.analysis.tone",
     "ImdResult": "benchkit.analysis.imd",
@@ -44,6 +45,7 @@ _EXPORTS = {
     "ResponseResult": "benchkit.analysis.response",
     "GridResult": "benchkit.kinds.grid",
     "BandwidthResult": "benchkit.kinds.power_bandwidth",
+    "LoopbackResult": "benchkit.analysis.loopback",
     "BenchkitError": "benchkit.errors",
     "BenchWarning": "benchkit.errors",
 }

@@ -35,6 +35,7 @@ WARNING_CODES = {
     "no-reference": "no reference input: what only a reference can tell is left out",
     "no-scale": "an input has no voltage scale: figures are in FS",
     "clock-offset": "the recorder's clock runs against the player's",
+    "latency-moves": "the round trip changed between starts of the stream",
     "sweep-start": "close to the sweep's start the figures may not be read",
     "interface-limited": "the interface, not the stage, limits the figure",
     "profile-range": "the calibration profile does not cover the whole range: it is held at its edge",

@@ -271,9 +271,13 @@ def record_steps(
 
     recorder = Recorder(backend, folder, channel, note, calibration, calibration_file, extra or {})
 
+    def each(value, which):
+        """A value given one a step, for the steps ``which`` (one for all stays as it is)."""
+        return [value[i] for i in which] if isinstance(value, (list, tuple)) else value
+
     def play(which, stem):
         stim = stepped_tones([freqs[i] for i in which], [levels_dbfs[i] for i in which], backend.sample_rate_hz,
-                             step_s=step_s, settle_s=settle_s, out_channel=[outs[i] for i in which],
+                             step_s=each(step_s, which), settle_s=each(settle_s, which), out_channel=[outs[i] for i in which],
                              n_out=backend.n_outputs, lead_s=lead, twin=twin, marker_out=outs[0])
         recorder.journal(stim, stem)
         cap = capture.run(backend, stim, recorder.partial(stem))

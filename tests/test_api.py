@@ -23,7 +23,7 @@ from benchkit import BenchkitError
 ENTRY_POINTS = sorted(n for n in benchkit.__all__ if n.startswith("analyze_"))
 #: the data each entry point takes by position; everything else is a keyword
 DATA = {"analyze_zout": 2, "analyze_drift": 2, "analyze_power": 1, "analyze_gain": 1, "analyze_grid": 1,
-        "analyze_power_bandwidth": 1}
+        "analyze_power_bandwidth": 1, "analyze_loopback": 2}
 
 
 def test_import_benchkit_loads_nothing_heavy():

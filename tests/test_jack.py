@@ -309,6 +309,24 @@ def test_calibrate_on_the_jack_loopback(server, tmp_path):
     assert prof["latency_samples"] > 0
 
 
+def test_loopback_self_test_on_the_jack_loopback(server, tmp_path):
+    # a digital loopback is a wire: the input reads what the output plays to the last bit of float32
+    # (its residual far under any converter's), both inputs alike, the response flat, the round trip
+    # the same at every start (two periods: the server's), and no dropout in the stream
+    with jackbench.Patchbay(server, "loopback"):
+        proc = jackbench.benchkit(server, "loopback", "--device", "system", "--ref-channel", "2", "--yes",
+                                  "--duration", "3", "--starts", "3", "--bench", str(tmp_path / "run"), "--json")
+        out, err = proc.communicate(timeout=180)
+    assert proc.returncode == 0, err
+    d = json.loads(out)
+    assert [round(r["drive_dbfs"]) for r in d["levels"]] == [-60, -50, -40, -30, -20, -12]  # up to the drive cap
+    assert all(r["level_dbfs"] == pytest.approx(r["drive_dbfs"], abs=0.01) for r in d["levels"])
+    assert d["best_thdn_db"] < -120.0
+    assert max(abs(r["gain_db"]) for r in d["response"]) < 0.01 and d["worst_match_db"] < 1e-3
+    assert len(set(d["latencies_samples"])) == 1 and d["latency_spread_samples"] == 0
+    assert d["dropouts"] == 0 and d["faults_reported"] == 0
+
+
 def test_sweep_through_jack_separates_the_poly_harmonics(server, tmp_path):
     # a sweep played and captured on a real stream; the poly client's H2 and
     # H3 against the power-reduction identities, the flat response against

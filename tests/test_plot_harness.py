@@ -77,6 +77,12 @@ at = [50, 1000, 10000]
 level = ["-30dBFS", "-12dBFS"]
 
 [[measure]]
+kind = "loopback"
+duration = 1
+starts = 2
+yes = true
+
+[[measure]]
 kind = "drift"
 duration = 600
 interval = 1
@@ -181,7 +187,7 @@ def _shrunk(box, by: float = SLACK):
 def test_the_harness_draws_every_kind(figures):
     # every measurement's plot, each run's own and each comparison's overlay
     names = " ".join(figures)
-    for stem in ("spectrum", "residual", "thdn", "imd", "power", "response", "noise", "zout", "crosstalk", "grid", "power-bandwidth", "drift"):
+    for stem in ("spectrum", "residual", "thdn", "imd", "power", "response", "noise", "zout", "crosstalk", "grid", "power-bandwidth", "loopback", "drift"):
         assert f".{stem}" in names or f"{stem}." in names, (stem, sorted(figures))
     assert sum(n.startswith("comparisons/") for n in figures) >= 6, sorted(figures)
 

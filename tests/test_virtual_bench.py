@@ -97,6 +97,22 @@ def test_a_gap_the_stream_did_not_report_is_heard_and_the_step_played_again(tmp_
     assert any("gaps or clicks in every take" in w for w in bad.warnings)
 
 
+def test_a_retaken_step_keeps_its_own_length_and_settling(tmp_path):
+    # steps of their own lengths (a grid's: 20 periods or more at each frequency): the take of the one a
+    # stream fault spoiled plays that step alone, at its own length and settling
+    from benchkit.record import record_steps
+
+    flaky = GlitchingBench(virtual_bench("ideal", {}, seed=2), glitched={1}, segment=1)
+    path = record_steps(flaky, tmp_path, [100.0, 1000.0, 5000.0], [-30.0] * 3, step_s=[0.2, 0.3, 0.4],
+                        settle_s=[0.1, 0.15, 0.05])
+    segs = json.loads(path.with_suffix(".json").read_text())["stimulus"]["segments"]
+    assert flaky.takes == 2 and segs[1]["file"] == "capture.retry1.wav" and "file" not in segs[0]
+    retake = json.loads((tmp_path / "capture.retry1.json").read_text())["stimulus"]["segments"]
+    rate = flaky.sample_rate_hz
+    assert len(retake) == 1 and retake[0]["frequency_hz"] == 1000.0
+    assert retake[0]["end"] - retake[0]["settled"] == round(0.3 * rate)
+
+
 def test_coupling_capacitor_corner():
     # circuit theory: C into R is a first-order high-pass at 1/(2 pi R C);
     # 2200 uF into 8 ohm: 9.04 Hz, where the response is -3.01 dB

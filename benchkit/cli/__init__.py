@@ -17,25 +17,26 @@ import sys
 # sessions side by side ran a fifth slower with them)
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
-import typer  # noqa: E402
-
-from benchkit.cli.common import app, err, EXIT_BAD_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_USAGE
-from benchkit.errors import BenchkitError
-
-# the modules that register their commands on the app, imported in the
-# order --help lists them (so not sorted)
-from benchkit.cli import analyze  # noqa: E402
-from benchkit.cli import measure  # noqa: E402
-from benchkit.cli import readout  # noqa: E402
-from benchkit.cli import tools  # noqa: E402
-from benchkit.cli import log  # noqa: E402
-from benchkit.cli import plan  # noqa: E402
-
-COMMANDS = (analyze, measure, readout, tools, log, plan)
+#: the modules that register their commands on the app, in the order --help lists them (so not sorted)
+COMMAND_MODULES = ("analyze", "measure", "readout", "tools", "log", "plan")
 
 
-#: click's errors for a command line it cannot read (typer keeps its own copy of click: found where BadParameter lives)
-_CLICK = sys.modules[typer.BadParameter.__module__]
+def _load():
+    """The app with every command registered (typer, the kinds, numpy: a
+    few tenths of a second, which ``benchkit --version`` does without)."""
+    import importlib
+
+    from benchkit.cli.common import app
+
+    for name in COMMAND_MODULES:
+        importlib.import_module(f"benchkit.cli.{name}")
+    return app
+
+
+def __getattr__(name: str):
+    if name == "app":
+        return _load()
+    raise AttributeError(f"module 'benchkit.cli' has no attribute {name!r}")
 
 
 def main() -> None:
@@ -45,21 +46,31 @@ def main() -> None:
     unknown option, a missing argument) one line and exit 2; a bug one line
     and exit 3. An option's old name (docs/options.md) is rewritten to
     its new one first, with a notice."""
+    if sys.argv[1:] == ["--version"]:  # the one answer that needs no command loaded
+        from benchkit import __version__
+
+        print(f"benchkit {__version__}")
+        return
+    import typer
     from typer.main import get_command
 
+    from benchkit.cli.common import err, EXIT_BAD_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_USAGE
+    from benchkit.errors import BenchkitError
     from benchkit.options.vocabulary import given_twice, modernise
 
+    app = _load()
+    click = sys.modules[typer.BadParameter.__module__]  # (typer keeps its own copy of click: found where BadParameter lives)
     sys.argv[1:] = modernise(sys.argv[1:], err)
     for flag in given_twice(get_command(app), sys.argv[1:]):
         err(f"benchkit: note: {flag} takes one value and is given more than once: the last one given is used")
     try:
         code = app(standalone_mode=False)
-    except _CLICK.UsageError as exc:
+    except click.UsageError as exc:
         text, ctx = " ".join(exc.format_message().split()), getattr(exc, "ctx", None)
         if text:  # (none when a group was given no command: its help is the answer)
             err(f"benchkit: error: {text}" + (f" (see '{ctx.command_path} --help')" if ctx is not None else ""))
         # a value out of its range is bad input like any other; a command line of unknown words is a usage error
-        bad_value = isinstance(exc, typer.BadParameter) and not isinstance(exc, _CLICK.MissingParameter)
+        bad_value = isinstance(exc, typer.BadParameter) and not isinstance(exc, click.MissingParameter)
         sys.exit(EXIT_BAD_INPUT if bad_value else EXIT_USAGE)
     except BenchkitError as exc:
         err(f"benchkit: error: {exc}")

@@ -59,6 +59,8 @@ def calibrate(o: dict) -> None:
         profile = calibrate_bench(o, err, ask)
     for line in profile_lines(profile, o["file"]):
         answer(line)
+    err(f"the interface's whole floor (residual against level, noise, response, round trip, dropouts) goes into the "
+        f"profile with: benchkit loopback --calibration {o['file']}")
 
 
 @app.command()

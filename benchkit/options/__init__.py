@@ -177,6 +177,7 @@ OPTIONS: dict[str, Option] = {
     "remove": _o("--remove", "Take this tag off (repeatable).", default=[]),
     "session": _o("--session", "Only runs of this session (a plan's: its id, a unique start of it, or 'last')."),
     # plans and sessions
+    "starts": _o("--starts", "Start the stream this many times and compare the round trip each start finds.", V.COUNT, 5),
     "repeat": _o("--repeat", "Measure this many takes in one run: its figures are their mean, and their scatter counts in each figure's uncertainty.", V.COUNT, 1),
     # how levels are shown
     "levels_in": _o("--levels-in", "Show levels in dBFS, dBV, dBu, dBr (against --dbr-ref), V or W (into the load): summaries, tables, live displays and the spectra's second axis.",
