@@ -343,7 +343,7 @@ class PortAudioBackend:
         ramp = np.linspace(1.0, 0.0, fade_n, dtype=np.float32)
         cap_fs = np.float32(units.ratio_from_db(self.drive_cap_dbfs))
         state = {"pos": 0, "fade_at": -1, "last": time.monotonic(), "faults": [], "statuses": [], "clipped_at": -1,
-                 "end": total, "block": 0}
+                 "end": total, "block": 0, "stop_at": total}
         in_col = self.in_channel - 1
         done = threading.Event()
         self._abort.clear()
@@ -400,7 +400,7 @@ class PortAudioBackend:
             state["pos"] = pos + frames
             # after an abort, keep recording silence for a round trip, so
             # the capture shows the fade arriving
-            finished = state["pos"] >= state["end"] or (fa >= 0 and pos - fa >= fade_n + after_abort)
+            finished = state["pos"] >= min(state["end"], state["stop_at"]) or (fa >= 0 and pos - fa >= fade_n + after_abort)
             if finished:
                 done.set()
                 raise sd.CallbackStop
@@ -408,6 +408,26 @@ class PortAudioBackend:
         writer = WavStreamWriter(partial, rate, self.n_inputs) if partial is not None else None
         stop_writer = threading.Event()
         written = {"frames": 0, "heard": 0}
+        # a stimulus known in advance with its marker: once the span the marker is looked for in has come
+        # back, the round trip is known, and the stream ends a round trip and two blocks after the last
+        # frame played, not after the tail's worst case
+        marker = getattr(stimulus, "marker", None)
+        segments = getattr(stimulus, "segments", ())
+        window = (segments[0].start if segments else n_play) + (marker.size if marker is not None else 0)
+        early = {"open": not listening and marker is not None and marker.size > 0 and window < n_play}
+        ref_col = (self.reference_input() or 1) - 1
+
+        def end_early() -> None:
+            from benchkit.capture.align import find_marker
+
+            early["open"] = False
+            try:
+                found = find_marker(ring.get(0, window)[:, ref_col].astype(np.float64), marker)
+            except BenchkitError:
+                return  # (capture.run says so once the stream has ended)
+            latency = found - stimulus.marker_start
+            if 0 <= latency and n_play + latency + 2 * self.blocksize < total:
+                state["stop_at"] = n_play + latency + 2 * self.blocksize
 
         def drain():
             # off the audio thread: the raw recording to disk, and to a
@@ -421,6 +441,8 @@ class PortAudioBackend:
                         written["frames"] = upto
                     except OSError as exc:  # disk full, folder gone: the run goes on in memory
                         state["writer_error"] = f"{exc.strerror or exc}"
+                if early["open"] and upto >= window:
+                    end_early()
                 if listening and upto > written["heard"]:
                     try:
                         stimulus.listen(ring.get(written["heard"], upto).astype(np.float64), written["heard"])
@@ -432,7 +454,7 @@ class PortAudioBackend:
                     return
 
         thread = (threading.Thread(target=drain, name="benchkit-capture-writer", daemon=True)
-                  if writer or listening else None)
+                  if writer or listening or early["open"] else None)
         reason = None
         lost = False
         count_stream(self.name, "play_record")
@@ -482,7 +504,7 @@ class PortAudioBackend:
         if reason is None and state.get("error") is not None:
             reason = f"the audio callback failed ({state['error']!r})"
         clipped_at = state["clipped_at"] if state["clipped_at"] >= 0 else None
-        if reason is None and state["pos"] < state["end"] and state["fade_at"] < 0:
+        if reason is None and state["pos"] < min(state["end"], state["stop_at"]) and state["fade_at"] < 0:
             reason = "the audio stream ended before the run did (device or server gone?)"
             lost = True
         if reason is not None:
