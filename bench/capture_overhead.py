@@ -8,6 +8,7 @@ Run: python bench/capture_overhead.py
 
 from __future__ import annotations
 
+import importlib
 import shutil
 import sys
 import tempfile
@@ -34,7 +35,7 @@ def main() -> None:
 
         os.environ.update(env)
         from benchkit.capture import run
-        from benchkit.capture.align import find_marker  # noqa: F401 - its scipy loads once a process, not a run
+        importlib.import_module("benchkit.capture.align")  # its scipy loads once a process, not once a run
         from benchkit.capture.portaudio import PortAudioBackend
 
         backend = PortAudioBackend("system", ref_channel=2)
