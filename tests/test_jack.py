@@ -327,6 +327,22 @@ def test_loopback_self_test_on_the_jack_loopback(server, tmp_path):
     assert d["dropouts"] == 0 and d["faults_reported"] == 0
 
 
+def test_loopback_counts_a_dropout_in_its_long_stream(server, tmp_path):
+    # the client that sleeps 0.2 s in its callback (an overflow and an underflow reported, as the retry
+    # test's), once, a second into the tone of the sixth stream: the long one after the levels, the
+    # response, the silence and two starts. The self-test counts it and says so; it is not played again
+    with jackbench.Patchbay(server, "loopback", stall_after=1.0, stall_stream=6) as bay:
+        proc = jackbench.benchkit(server, "loopback", "--device", "system", "--ref-channel", "2", "--yes",
+                                  "--duration", "3", "--starts", "2", "--bench", str(tmp_path / "run"), "--json")
+        out, err = proc.communicate(timeout=180)
+    assert proc.returncode == 0, err
+    assert bay.stalled
+    d = json.loads(out)
+    assert d["faults_reported"] >= 1 and d["dropouts"] >= 1
+    assert any(w["code"] == "dropout" for w in d["warnings"])
+    assert not list((tmp_path / "run").glob("runs/*/stream.retry*"))
+
+
 def test_sweep_through_jack_separates_the_poly_harmonics(server, tmp_path):
     # a sweep played and captured on a real stream; the poly client's H2 and
     # H3 against the power-reduction identities, the flat response against
