@@ -145,7 +145,9 @@ def takes(run, kind, s: "Bench", n: int, say, tell=None) -> Filed:
             break
     doc = kinds.mean_of_takes(run.folder, docs or [partial])
     (tell or say)(takes_summary(doc, kind.figures))
-    return complete(run, doc, [run.folder / kinds.TAKES_RESULT, *files], say, status, ended)
+    written = [run.folder / kinds.TAKES_RESULT, *files]
+    doc = kinds.near_floor(doc, written, run.folder / kinds.TAKE.format(1), tell or say)
+    return complete(run, doc, written, say, status, ended)
 
 
 def takes_summary(doc: dict, figures_of) -> str:
@@ -164,10 +166,12 @@ def takes_summary(doc: dict, figures_of) -> str:
 
 def finish(run, kind, got, say, channel: int = 1, played: bool = True, tell=None) -> Filed:
     """A run's result on one screen (through ``tell``, default ``say``) and
-    in its report files (its kind's), and the run completed."""
+    in its report files (its kind's), its figures near the interface's
+    floor marked (:func:`benchkit.kinds.near_floor`), and the run completed."""
     (tell or say)(kind.summary(got.result, got.title))
-    written = kind.reports(got.result, run.folder, channel, **got.report)
-    return complete(run, got.result.to_dict(), written + list(got.files), say, got.status, got.ended, played)
+    written = kind.reports(got.result, run.folder, channel, **got.report) + list(got.files)
+    doc = kinds.near_floor(got.result.to_dict(), written, run.folder, tell or say)
+    return complete(run, doc, written, say, got.status, got.ended, played)
 
 
 def complete(run, doc: dict, written: list[Path], say, status: str = "complete", ended: str | None = None,

@@ -20,6 +20,7 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 from benchkit.errors import BenchkitError
+from benchkit.interface_floor import problem as floor_problem
 from benchkit.pads import Pad
 from benchkit.jsonfile import load_json, typed
 
@@ -64,6 +65,11 @@ class Profile:
     ac_corner_hz: float | None = None
     #: the interface alone, looped back: {"thdn_db", "noise_dbfs", "level_dbfs", "frequency_hz", "bandwidth_hz"}
     loopback_floor: dict = field(default_factory=dict)
+    #: the interface's self-test (benchkit loopback): {"levels_dbfs": [ascending], "thdn_db": [one a level],
+    #: "noise_dbfs", "noise_a_dbfs" (dBFS at the input, null: not measured), "bandwidth_hz": [lo, hi],
+    #: "measured" (ISO time), "source"}; empty: none, and results fall back on loopback_floor
+    #: (benchkit.interface_floor)
+    interface_floor: dict = field(default_factory=dict)
     #: [[freq_hz, gain_db], ...] of the loopback, re 1 kHz
     loopback_response: list = field(default_factory=list)
     latency_samples: int | None = None
@@ -85,6 +91,8 @@ class Profile:
 
     def to_dict(self) -> dict:
         d = {"kind": PROFILE_KIND, "schema_version": PROFILE_VERSION, **asdict(self)}
+        if not d["interface_floor"]:  # a profile without one is written, and hashed, as before it existed
+            del d["interface_floor"]
         return d
 
     def chain(self):
@@ -144,4 +152,7 @@ def load_profile(path: str | os.PathLike) -> Profile:
             raise BenchkitError(f"calibration profile {p}: {name} must be a positive number")
     if not 0 < prof.pad_ratio <= 1:
         raise BenchkitError(f"calibration profile {p}: the pad ratio must lie between 0 and 1")
+    wrong = floor_problem(prof.interface_floor)
+    if wrong:
+        raise BenchkitError(f"calibration profile {p}: interface_floor is damaged ({wrong})")
     return prof

@@ -49,6 +49,7 @@ WARNING_CODES = {
     "not-like-for-like": "the runs compared differ in their conditions",
     "safety": "the wiring or the settings put the stage, the load or the interface at risk",
     "near-floor": "a level lands close to the interface's floor",
+    "near-interface-floor": "figures lie within 6 dB of the interface's own floor: they may be the interface's",
     "no-load": "no load was given: a power stage belongs on a dummy load of the right rating",
     "gain-over-given": "the stage's gain measured over the gain given: the pre-flight took the measured one",
     "ignored": "a file, or a part of one, could not be read and was ignored",

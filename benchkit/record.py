@@ -188,6 +188,8 @@ def apply_calibration(side: dict, profile, path: str | None, channel: int) -> No
         "ac_corner_hz": profile.ac_corner_hz,
         "chain": profile.chain().to_dict(),
     }
+    if profile.interface_floor:  # (a profile without one leaves the block as it was before it existed)
+        side["calibration"]["interface_floor"] = profile.interface_floor
 
 
 def clock_offset_ppm(cap, stim) -> float | None:

@@ -184,7 +184,7 @@ _SIDECAR_FIELDS = {
 }
 _CHANNEL_FIELDS = {"number": _INT, "role": _TEXT, "volts_per_fs": _NUMBER + (None,)}
 _CALIBRATION_FIELDS = {"file": _TEXT + (None,), "hash": _TEXT, "interface": _TEXT, "created": _TEXT,
-                       "loopback_floor": (dict, None), "uncertainty_db": _NUMBER + (None,), "dc_coupled": (bool,),
+                       "loopback_floor": (dict, None), "interface_floor": (dict, None), "uncertainty_db": _NUMBER + (None,), "dc_coupled": (bool,),
                        "polarity_inverts": (bool,), "output_vpk_per_fs": _NUMBER, "input_vpk_per_fs": _NUMBER,
                        "loopback_response": (list,), "ac_corner_hz": _NUMBER + (None,), "chain": (dict, None)}
 _SEGMENT_FIELDS = {"start": _INT, "stop": _INT, "settled": _INT, "end": _INT, "frequency_hz": _NUMBER + (list,),
@@ -353,6 +353,13 @@ def repair_wav(path: str | os.PathLike) -> int:
         fh.write(nbytes.to_bytes(4, "little"))
         fh.truncate(44 + nbytes)
     return frames
+
+
+def kept_calibration(folder: Path) -> dict | None:
+    """The calibration block the captures in a folder keep (the first
+    sidecar's that has one), or None."""
+    docs = (_read_sidecar(audio)[0] for audio in sorted(Path(folder).glob("*.wav")))
+    return next((doc["calibration"] for doc in docs if doc.get("calibration")), None)
 
 
 def stopped_early(folder: Path) -> list[str]:

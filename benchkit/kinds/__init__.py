@@ -351,13 +351,41 @@ def reanalyse(folder: Path, record: dict, say: Callable[[str], None] = lambda _m
         raise BenchkitError(f"runs of command {command!r} cannot be analysed again") from None
     taken = taken_folders(Path(folder))
     if not taken:
-        return kind.reanalyse(folder, record, say)
-    docs, files = [], []
-    for take in taken:  # repeated takes: each again, then their mean
-        doc, written = kind.reanalyse(take, record, say)
-        docs.append(doc)
-        files += written
-    return mean_of_takes(Path(folder), docs, [t.name for t in taken]), [Path(folder) / TAKES_RESULT, *files]
+        doc, files = kind.reanalyse(folder, record, say)
+    else:
+        docs, files = [], []
+        for take in taken:  # repeated takes: each again, then their mean
+            doc, written = kind.reanalyse(take, record, say)
+            docs.append(doc)
+            files += written
+        doc, files = mean_of_takes(Path(folder), docs, [t.name for t in taken]), [Path(folder) / TAKES_RESULT, *files]
+    return near_floor(doc, files, taken[0] if taken else Path(folder), say), files
+
+
+def near_floor(doc: dict, files: list[Path], folder: Path, say: Callable[[str], None]) -> dict:
+    """A run's result with its figures near the interface's floor marked
+    (:func:`benchkit.interface_floor.mark`; the floor of the result's
+    calibration block, else of the captures' sidecars in ``folder``), its
+    result file (the first of ``files``) written again when marked, and
+    the floor said through ``say``."""
+    from benchkit.interface_floor import mark, summary_line
+    from benchkit.recordings import kept_calibration
+
+    marked = mark(doc, None if doc.get("calibration") else kept_calibration(folder))
+    if marked is not doc:
+        _result_again(marked, files)
+        say(summary_line(marked))
+    return marked
+
+
+def _result_again(doc: dict, files: list[Path]) -> list[Path]:
+    """Write ``doc`` again over its result file, the first of ``files``
+    (a kind's report files: its result JSON first)."""
+    from benchkit.report.tables import write_json
+
+    if files and Path(files[0]).suffix == ".json":
+        write_json(doc, Path(files[0]))
+    return files
 
 
 def analyse_file(path: Path, options: Offline, say: Callable[[str], None] = lambda _m: None) -> Analysed:
@@ -368,7 +396,14 @@ def analyse_file(path: Path, options: Offline, say: Callable[[str], None] = lamb
     if path.suffix.lower() == ".csv":
         return next(k for k in all_kinds() if k.analyse is not None and k.reads == "csv").analyse(path, options)
     kind, rec = recognised(path, options, say)
-    return kind.analyse(rec, options)
+    got = kind.analyse(rec, options)
+    from benchkit.interface_floor import mark, summary_line
+
+    doc = mark(got.doc, rec.sidecar.get("calibration"))
+    if doc is got.doc:
+        return got
+    write = None if got.write is None else (lambda out: _result_again(doc, got.write(out)))
+    return Analysed(doc, f"{got.text}\n{summary_line(doc)}", write)
 
 
 def recognised(path: Path, options: Offline, say: Callable[[str], None] = lambda _m: None):

@@ -105,7 +105,7 @@ def analyze_steps(
         if seg.get("spoiled"):
             result = replace(result, valid=False, warnings=result.warnings + (SPOILED,))
         cal = rec.sidecar.get("calibration") or {}
-        notes = [floor_warning(result, cal.get("loopback_floor")), dc_warning(result, cal.get("dc_coupled"))]
+        notes = [floor_warning(result, cal), dc_warning(result, cal.get("dc_coupled"))]
         if any(notes):
             result = replace(result, warnings=result.warnings + tuple(n for n in notes if n))
         steps.append(StepResult(drive, result))
@@ -123,13 +123,17 @@ def analyze_steps(
 FLOOR_MARGIN_DB = 3.0
 
 
-def floor_warning(result: ToneResult, floor: dict | None) -> str | None:
-    """A warning when a THD+N lies within FLOOR_MARGIN_DB of the loopback
-    floor the calibration measured (the interface, not the stage)."""
-    if not floor or "thdn_db" not in floor or "level_dbfs" not in floor:
+def floor_warning(result: ToneResult, calibration: dict | None) -> str | None:
+    """A warning when a THD+N lies within FLOOR_MARGIN_DB of the interface's
+    own floor at its level (the interface, not the stage): the floor a
+    capture's calibration block holds, its THD+N at this level as
+    :meth:`benchkit.interface_floor.Floor.thdn_db_at` reads it."""
+    from benchkit.interface_floor import floor_of
+
+    floor = floor_of(calibration)
+    limit = None if floor is None else floor.thdn_db_at(result.fundamental_dbfs)
+    if limit is None:
         return None
-    # the interface's residual is about constant in dBFS: refer it to this level
-    limit = floor["thdn_db"] + floor["level_dbfs"] - result.fundamental_dbfs
     if result.thdn_db < limit + FLOOR_MARGIN_DB:
         return BenchWarning("interface-limited", f"THD+N {result.thdn_db:.1f} dB is within {FLOOR_MARGIN_DB:g} dB of the "
                             f"interface's own floor ({limit:.1f} dB at this level): limited by the interface, not the stage")
@@ -259,7 +263,7 @@ def analyse(rec, o: Offline) -> Analysed:
                           load_ohms=o.load_ohms, traces=o.out is not None,
                           chain=o.profile.chain() if o.profile is not None else rec.chain())
     cal = rec.sidecar.get("calibration")
-    note = floor_warning(result, (cal or {}).get("loopback_floor"))
+    note = floor_warning(result, cal)
     if note:
         result = replace(result, warnings=result.warnings + (note,))
     d = result.to_dict()
