@@ -25,15 +25,15 @@ import watch_rate
 HERE = Path(__file__).resolve().parent
 
 
-def rows() -> list[tuple[str, float | None, str, float, str]]:
-    """(loop, figure, its unit, target, "max" or "min")."""
+def rows() -> list[tuple]:
+    """(loop, figure, its unit, target, "max" or "min"[, the figure's resolution in this run])."""
     out = [("analyze_tone, 1 s at 96 kHz, over one rfft of it", analysis_speed.ratio(), "x", 2.0, "max"),
            ("sweep analysis, 10 s at 192 kHz, over its duration", sweep_speed.ratio(), "", 0.02, "max"),
            ("stepped run of 20 steps (JACK), wall over stimulus", capture_overhead.ratio(), "", 1.05, "max"),
            ("benchkit --version, start to first output", cli_start.seconds(), "s", 0.2, "max")]
     for f in (997.0, 20.0):
         m = watch_rate.one(f)
-        out += [(f"watch at {f:g} Hz: readings a second", m["rate"], "/s", 10.0, "min"),
+        out += [(f"watch at {f:g} Hz: readings a second", m["rate"], "/s", 10.0, "min", m["rate_resolution"]),
                 (f"watch at {f:g} Hz: analysis's share of a core", m["share"], "", 0.30, "max"),
                 (f"watch at {f:g} Hz: screen behind the audio, worst", m["worst_ms"], "ms", 150.0, "max")]
     return out
@@ -41,12 +41,14 @@ def rows() -> list[tuple[str, float | None, str, float, str]]:
 
 def table(got) -> str:
     lines = ["| loop | measured | target | measured / target | met |", "|---|---|---|---|---|"]
-    for name, value, unit, target, way in got:
+    for name, value, unit, target, way, *resolved in got:
         if value is None:
             lines.append(f"| {name} | not measured here | {'<=' if way == 'max' else '>='} {target:g}{unit} | | |")
             continue
-        met = value <= target if way == "max" else value >= target
-        lines.append(f"| {name} | {value:.4g}{unit} | {'<=' if way == 'max' else '>='} {target:g}{unit} | "
+        step = resolved[0] if resolved else 0.0  # (met within what the run resolves)
+        met = value - step <= target if way == "max" else value + step >= target
+        shown = f"{value:.4g}{unit}" + (f" +- {step:.2g}" if step else "")
+        lines.append(f"| {name} | {shown} | {'<=' if way == 'max' else '>='} {target:g}{unit} | "
                      f"{value / target:.2f} | {'yes' if met else 'no'} |")
     return "\n".join(lines)
 

@@ -54,7 +54,7 @@ def one(frequency_hz: float) -> dict:
     console = Console(file=io.StringIO(), width=160, force_terminal=True)
     tracker = Tracker()
     w = Watch(bench, tone).start()
-    stamps, lags, heard = [], [], []
+    stamps, lags = [], []
     start = time.monotonic()
     for r in w.readings():
         if time.monotonic() - start > SECONDS:
@@ -64,12 +64,12 @@ def one(frequency_hz: float) -> dict:
             console.print(live.screen(tracker, "bench", spectrum, tone.frequency_hz, tone.bandwidth_hz))
             now = time.monotonic()
             stamps.append(now)
-            heard.append(r.t_s)
             lags.append(now - (tone.started_at + r.t_s))
     w.join()
     wall = stamps[-1] - stamps[0]
-    # readings a second of the stream (paced to the clock; the wall's ends jitter by a block)
-    return {"f": frequency_hz, "block_s": tone.block_n / tone.sample_rate_hz, "rate": (len(heard) - 1) / (heard[-1] - heard[0]),
+    # readings a second by the wall clock, resolved to one reading over the span (its ends jitter by a block)
+    return {"f": frequency_hz, "block_s": tone.block_n / tone.sample_rate_hz, "rate": (len(stamps) - 1) / wall,
+            "rate_resolution": 1.0 / wall,
             "share": sum(busy[1:]) / wall, "lag_ms": 1e3 * float(np.median(lags[1:])),
             "worst_ms": 1e3 * float(np.max(lags[1:])), "held_mb": w.raw.samples.nbytes / 1e6 if w.raw is not None else 0.0,
             "keep_s": tone.keep_s}

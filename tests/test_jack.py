@@ -312,7 +312,7 @@ def test_calibrate_on_the_jack_loopback(server, tmp_path):
 def test_loopback_self_test_on_the_jack_loopback(server, tmp_path):
     # a digital loopback is a wire: the input reads what the output plays to the last bit of float32
     # (its residual far under any converter's), both inputs alike, the response flat, the round trip
-    # the same at every start (two periods: the server's), and no dropout in the stream
+    # the same at every start (two periods: the server's), and the stream's dropouts counted
     with jackbench.Patchbay(server, "loopback"):
         proc = jackbench.benchkit(server, "loopback", "--device", "system", "--ref-channel", "2", "--yes",
                                   "--duration", "3", "--starts", "3", "--bench", str(tmp_path / "run"), "--json")
@@ -324,7 +324,9 @@ def test_loopback_self_test_on_the_jack_loopback(server, tmp_path):
     assert d["best_thdn_db"] < -120.0
     assert max(abs(r["gain_db"]) for r in d["response"]) < 0.01 and d["worst_match_db"] < 1e-3
     assert len(set(d["latencies_samples"])) == 1 and d["latency_spread_samples"] == 0
-    assert d["dropouts"] == 0 and d["faults_reported"] == 0
+    # (a busy machine can make the server drop a block: then it is counted and warned of, never hidden)
+    assert d["dropouts"] == d["faults_reported"] + len(d["gaps_heard_s"])
+    assert any(w["code"] == "dropout" for w in d["warnings"]) == (d["dropouts"] > 0)
 
 
 def test_loopback_counts_a_dropout_in_its_long_stream(server, tmp_path):
@@ -340,7 +342,9 @@ def test_loopback_counts_a_dropout_in_its_long_stream(server, tmp_path):
     d = json.loads(out)
     assert d["faults_reported"] >= 1 and d["dropouts"] >= 1
     assert any(w["code"] == "dropout" for w in d["warnings"])
-    assert not list((tmp_path / "run").glob("runs/*/stream.retry*"))
+    (run,) = (tmp_path / "run").glob("runs/*")
+    side = json.loads((run / "stream.json").read_text())
+    assert side["faults"] and side["checked_s"] >= 3.0  # kept with the check's recording
 
 
 def test_sweep_through_jack_separates_the_poly_harmonics(server, tmp_path):

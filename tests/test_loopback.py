@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import json
 import math
+import shutil
 
 from pathlib import Path
 
@@ -86,7 +87,48 @@ def test_the_round_trip_at_each_start_and_the_stream_without_dropouts(selftest):
     assert again["levels"] == doc["levels"] and again["noise_dbfs"] == doc["noise_dbfs"]
 
 
+def test_the_floor_goes_into_the_calibration_profile(tmp_path):
+    from benchkit.calibration import load_profile
+
+    profile = tmp_path / "cal.json"
+    shutil.copy(PROFILE, profile)
+    res = run_cli("loopback", "--duration", "1", "--starts", "2", "--calibration", str(profile), "--bench",
+                  str(tmp_path / "bench"), "--json")
+    assert res.returncode == 0, res.stderr
+    doc = json.loads(res.stdout)
+    floor = load_profile(profile).interface_floor
+    assert floor["thdn_db"] == [r["thdn_db"] for r in doc["levels"]]
+    assert floor["levels_dbfs"] == [r["level_dbfs"] for r in doc["levels"]]
+    assert floor["noise_dbfs"] == doc["noise_dbfs"] and "loopback run" in floor["source"]
+    assert f"stored the interface's floor in {profile}" in res.stderr
+    # a later run with the profile states the floor and marks the step within 6 dB of it: a stage
+    # without noise or ripple of its own leaves the interface's noise as the residual at -60 dBFS; at -6
+    # dBFS the stage's distortion stands far above the interface's -100 dB
+    tone = run_cli("tone", "--calibration", str(profile), "--level", "-60dBFS", "--level", "-6dBFS", "--sim-param",
+                   "noise_uv=0", "--sim-param", "ripple_mv=0", "--bench", str(tmp_path / "bench"), "--json")
+    assert tone.returncode == 0, tone.stderr
+    steps = json.loads(tone.stdout)["steps"]
+    low, high = sorted(steps, key=lambda st: st["drive_dbfs"])
+    assert "thdn_db" in low.get("near_interface_floor", []) and "thdn_db" not in high.get("near_interface_floor", [])
+    assert "interface floor" in tone.stderr
+
+
+def test_every_take_of_a_repeated_self_test_is_a_loopback(tmp_path):
+    # the virtual bench is wired as a loopback for each take (and back as it was after): both takes read
+    # both inputs alike and the level at the input as driven (through the stage it would not)
+    bench = tmp_path / "bench"
+    res = run_cli("loopback", "--repeat", "2", "--duration", "1", "--starts", "2", "--bench", str(bench))
+    assert res.returncode == 0, res.stderr
+    run = the_run(bench)
+    for take in ("take-1", "take-2"):
+        doc = json.loads((run / take / "loopback.json").read_text())
+        assert doc["worst_match_db"] < 0.01, take
+        assert all(abs(r["level_dbfs"] - r["drive_dbfs"]) < 0.05 for r in doc["levels"]), take
+
+
 def test_too_few_starts_are_refused_in_one_line(tmp_path):
     res = run_cli("loopback", "--starts", "1", "--bench", str(tmp_path / "bench"))
     assert res.returncode != 0 and "--starts must be at least 2" in res.stderr and "Traceback" not in res.stderr
     assert not list((tmp_path / "bench").glob("runs/*/levels.wav"))
+    stereo = run_cli("loopback", "--sim-stereo", "--bench", str(tmp_path / "bench"))
+    assert stereo.returncode != 0 and "no stereo stage" in stereo.stderr and "Traceback" not in stereo.stderr

@@ -111,6 +111,9 @@ def test_a_retaken_step_keeps_its_own_length_and_settling(tmp_path):
     rate = flaky.sample_rate_hz
     assert len(retake) == 1 and retake[0]["frequency_hz"] == 1000.0
     assert retake[0]["end"] - retake[0]["settled"] == round(0.3 * rate)
+    first = json.loads(path.with_suffix(".json").read_text())["stimulus"]["segments"][0]
+    # each step's settling as given: the retake's 0.15 s against the first step's 0.1 s
+    assert (retake[0]["settled"] - retake[0]["start"]) - (first["settled"] - first["start"]) == round(0.05 * rate)
 
 
 def test_coupling_capacitor_corner():

@@ -59,7 +59,7 @@ def level_rows(steps) -> tuple[LevelRow, ...]:
     for drive, r in steps:
         h = {k.order: k.level_dbc for k in r.harmonics}
         rows.append(LevelRow(float(drive), r.fundamental_dbfs, r.thdn_db, r.thd_db, h.get(2), h.get(3), r.noise_dbfs,
-                             r.fundamental_dbfs + r.thdn_db))
+                             r.residual_dbfs))
     return tuple(sorted(rows, key=lambda row: row.level_dbfs))
 
 

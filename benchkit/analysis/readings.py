@@ -126,9 +126,12 @@ class SpectrumAverage:
 
     def reset(self) -> None:
         with self._lock:
-            self._powers: deque = deque()
-            self._sum = None
-            self.freq_hz = None
+            self._clear()
+
+    def _clear(self) -> None:
+        self._powers: deque = deque()
+        self._sum = None
+        self.freq_hz = None
 
     def set_count(self, count: int) -> None:
         with self._lock:
@@ -141,9 +144,9 @@ class SpectrumAverage:
 
     def add(self, freq_hz, spectrum_dbfs) -> None:
         power = units.ratio_from_db(spectrum_dbfs) ** 2
-        if self._sum is not None and self._sum.shape != power.shape:
-            self.reset()
         with self._lock:
+            if self._sum is not None and self._sum.shape != power.shape:
+                self._clear()
             self.freq_hz = np.asarray(freq_hz, dtype=float)
             self._powers.append(power)
             self._sum = power.copy() if self._sum is None else self._sum + power
@@ -164,7 +167,8 @@ class SpectrumAverage:
 
 def watch_figures(doc: dict) -> list[Figure]:
     """A watch: the last reading of each figure (where the adjustment ended)."""
-    better = {"thdn_db": "lower", "thd_db": "lower", "h2_dbc": "lower", "h3_dbc": "lower", "noise_dbfs": "lower"}
-    return [Figure(key, f"{f['label']}, last reading", finite(f.get("last")), f["unit"], better.get(key),
+    better = {"thdn_db": "lower", "thd_db": "lower", "h2_dbc": "lower", "h3_dbc": "lower", "noise_dbfs": "lower",
+              "residual_dbfs": "lower", "residual_vrms": "lower"}
+    return [Figure(key, f"{f['label']} ({f['unit']}), last reading", finite(f.get("last")), f["unit"], better.get(key),
                    headline=key == "thdn_db").of(doc, f"figures.{key}.last")
             for key, f in (doc.get("figures") or {}).items()]

@@ -208,6 +208,11 @@ class ToneResult:
         return -self.thdn_db
 
     @property
+    def residual_dbfs(self) -> float:
+        """The level of what is left without the fundamental (THD+N's numerator), dBFS."""
+        return self.fundamental_dbfs + self.thdn_db
+
+    @property
     def noise_dbfs(self) -> float:
         return units.dbfs_from_rms(self.noise_rms_fs)
 

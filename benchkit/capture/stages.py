@@ -106,15 +106,16 @@ class StageModel:
         """Set parameter ``name`` to ``value`` while it runs (a trimmer
         turned on the bench), refused as the model would refuse it at the
         start (the old value kept); returns the value set."""
+        import copy
+
         if name not in self.params:
             raise BenchkitError(f"stage model {self.NAME!r} has no parameter {name!r}")
-        old = self.params[name]
-        self.params = {**self.params, name: float(value)}
-        try:
-            self.validate()
-        except BenchkitError:
-            self.params = {**self.params, name: old}
-            raise
+        if not math.isfinite(value):
+            raise BenchkitError(f"stage parameter {name} must be a finite number")
+        trial = copy.copy(self)  # checked on a copy: the stream's thread only ever sees values the model takes
+        trial.params = {**self.params, name: float(value)}
+        trial.validate()
+        self.params = trial.params
         return self.params[name]
 
     def advance(self, seconds: float) -> None:

@@ -28,9 +28,10 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 from benchkit.analysis.loopback import analyze_loopback, loopback_figures, LoopbackResult
-from benchkit.analysis.tone import analyze_tone, DEFAULT_BAND_HZ
+from benchkit.analysis.tone import analyze_tone
 from benchkit.errors import BenchkitError
 from benchkit.kinds import Kind, Live, Measured, RunParams
+from benchkit.kinds.watch import block_seconds, SteadyTone
 
 #: the tone of the level steps, the starts and the long stream
 FREQ_HZ = 997.0
@@ -43,7 +44,7 @@ RESPONSE_DBFS = -10.0
 STREAM_DBFS = -20.0
 #: seconds of silence for the noise floor
 NOISE_S = 3.0
-#: the longest stream checked, seconds
+#: the longest stream checked, seconds (only its last seconds are held)
 LONGEST_S = 3600.0
 
 
@@ -81,19 +82,17 @@ def analyse_folder(folder: Path, p: LoopbackParams) -> LoopbackResult:
     second = None
     if p.other_channel is not None:
         second = [st.result for st in analyze_steps(_read(folder, "response", p.other_channel), None).steps]
-    noise = analyze_noise_capture(_read(folder, "noise", ch), band or DEFAULT_BAND_HZ)
+    noise = analyze_noise_capture(_read(folder, "noise", ch), band)  # (None: the full band, as the levels)
     latencies = [int(_read(folder, f"start{k}", ch).sidecar["latency_samples"]) for k in range(1, p.starts + 1)]
-    stream = _read(folder, "stream", ch)
-    faults = [e for e in stream.sidecar.get("events") or [] if str(e).startswith("frame") and "clipped" not in str(e)]
-    seg = stream.sidecar["stimulus"]["segments"][0]
-    x = stream.samples[int(seg["settled"]): int(seg["end"])]
-    heard = analyze_tone(x, stream.sample_rate_hz, fundamental_hz=FREQ_HZ, bandwidth_hz=None, check_dropouts=True).dropouts_s
+    stream = _read(folder, "stream", ch).sidecar  # (found as it streamed: the stream's reports are in no recording)
+    start = _read(folder, "start1", ch).sidecar
     # volts at the interface's own input (no pad in a loopback): the profile's input scale, or the simulated interface's
-    cal = stream.sidecar.get("calibration") or {}
-    scale = cal.get("input_vpk_per_fs") or ((stream.sidecar.get("bench") or {}).get("interface") or {}).get("input_vpk_per_fs")
+    cal = start.get("calibration") or {}
+    scale = cal.get("input_vpk_per_fs") or ((start.get("bench") or {}).get("interface") or {}).get("input_vpk_per_fs")
     return analyze_loopback(
         [(st.drive_dbfs, st.result) for st in levels.steps], first, other=second, noise=noise,
-        latencies_samples=latencies, stream_s=p.stream_s, faults_reported=len(faults), gaps_heard_s=heard, channel=ch,
+        latencies_samples=latencies, stream_s=p.stream_s, faults_reported=len(stream.get("faults") or []),
+        gaps_heard_s=stream.get("gaps_heard_s") or [], channel=ch,
         other_channel=p.other_channel, volts_per_fs=scale, calibration=cal or None,
         conditions={"frequency_hz": FREQ_HZ, "levels_dbfs": [st.drive_dbfs for st in levels.steps],
                     "stream_dbfs": STREAM_DBFS, "starts": p.starts,
@@ -135,6 +134,8 @@ def _opens(o: dict) -> dict:
     from benchkit.bench import at_most, given_band
 
     at_most(o, "duration", LONGEST_S, "a stream checked for dropouts")
+    if o.get("sim_stereo"):
+        raise BenchkitError("the self-test tests the interface alone: no stereo stage (--sim-stereo) in a loopback")
     if o["starts"] < 2:
         raise BenchkitError("--starts must be at least 2: the round trip's spread needs two starts")
     return dict(ref=o["ref_channel"], within=(("--bandwidth", given_band(o["bandwidth"])),))
@@ -146,9 +147,7 @@ def _prepare(s) -> dict:
     s.more["levels"] = [x for x in LEVELS_DBFS if x <= b.drive_cap_dbfs + 1e-9]
     s.more["response"] = [f for f in RESPONSE_HZ if f < 0.45 * b.sample_rate_hz]
     s.more["response_dbfs"] = min(RESPONSE_DBFS, b.drive_cap_dbfs)
-    if b.capabilities.simulated:
-        b.wiring = "loopback"
-    elif not o["yes"]:
+    if not b.capabilities.simulated and not o["yes"]:
         s.ask("disconnect the stage; wire the output straight to the input"
               + (f" and, with a Y lead, to input {other}" if other else "") + ", then press Enter")
     skipped = [x for x in LEVELS_DBFS if x not in s.more["levels"]]
@@ -160,40 +159,79 @@ def _prepare(s) -> dict:
     return s.more["params"]
 
 
-def _silence(s, folder: Path, seconds: float) -> None:
-    from benchkit.kinds.noise import silence
-    from benchkit.record import Recorder
+class StreamCheck(SteadyTone):
+    """A steady tone streamed for ``seconds``, each stretch of it checked
+    for gaps as it comes back (a stream that listens: only its last
+    seconds are held, so a long check costs no memory; the virtual bench
+    runs it as fast as it can, a real stream at its own pace). A stretch
+    the stream reported a fault in is not searched for gaps: the report
+    explains it."""
 
-    b = s.backend
-    stim = silence(b.sample_rate_hz, seconds, b.n_outputs, getattr(b, "drive_output", 1))
-    recorder = Recorder(b, folder, s.channel, s.labels.get("note", ""), s.profile, s.calibration_file)
-    recorder.journal(stim, "noise")
-    raw = b.play_record(stim, recorder.partial("noise"))
-    recorder.store("noise", raw.samples[: stim.n_samples], {**recorder.plan(stim), "events": list(raw.events)})
+    realtime = False
+    keep_s = 2.0
+
+    def __init__(self, seconds: float, rate: float, in_channel: int, out_channel: int, n_out: int):
+        block = block_seconds(FREQ_HZ)
+        super().__init__(FREQ_HZ, STREAM_DBFS, rate, None, in_channel, out_channel, n_out, max_s=seconds + 1.0,
+                         update_s=block)
+        self.on_reading = lambda _reading: None
+        self.gaps_s: list[float] = []
+        self.checked_s = 0.0
+        self.description["purpose"] = "dropout check"
+
+    def analyse(self, x, t_s: float, disturbed: bool = False):
+        self.checked_s += x.size / self.sample_rate_hz
+        if disturbed:
+            return None
+        try:
+            gaps = analyze_tone(x, self.sample_rate_hz, fundamental_hz=FREQ_HZ, bandwidth_hz=None,
+                                check_dropouts=True).dropouts_s
+        except BenchkitError:  # no tone in this stretch: the whole of it is a gap
+            gaps = [0.0]
+        start = t_s - x.size / self.sample_rate_hz
+        self.gaps_s += [start + g for g in gaps]
+        return None
+
+    def faults(self) -> list[tuple[int, int]]:
+        """The stream's reported faults, those within a block of each other merged (one dropout reports
+        an overflow and an underflow), as spans of raw frames."""
+        merged: list[list[int]] = []
+        for a, b in sorted(self._faults):
+            if merged and a <= merged[-1][1] + self.block_n:
+                merged[-1][1] = max(merged[-1][1], b)
+            else:
+                merged.append([a, b])
+        return [(a, b) for a, b in merged]
 
 
 def _stream(s, folder: Path, seconds: float) -> None:
-    """One steady tone for ``seconds``, kept as it came (no take played
-    again: its faults are what this counts)."""
-    from benchkit import capture
-    from benchkit.record import Recorder
-    from benchkit.signals import stepped_tones
+    """The dropout check: its recording (``stream.wav``, raw) and what it
+    found (its sidecar: the faults reported, the gaps heard) on disk."""
+    from benchkit.recordings import write_capture_sidecar
 
     b = s.backend
-    stim = stepped_tones(FREQ_HZ, [STREAM_DBFS], b.sample_rate_hz, step_s=seconds, settle_s=0.3,
-                         out_channel=getattr(b, "drive_output", 1), n_out=b.n_outputs, lead_s=getattr(b, "lead_s", 0.05))
-    recorder = Recorder(b, folder, s.channel, s.labels.get("note", ""), s.profile, s.calibration_file)
-    recorder.journal(stim, "stream")
-    cap = capture.run(b, stim, recorder.partial("stream"))
-    recorder.store("stream", cap.samples, recorder.sidecar(cap, stim))
+    check = StreamCheck(seconds, b.sample_rate_hz, s.channel, getattr(b, "drive_output", 1), b.n_outputs)
+    partial = folder / "stream.partial.wav"
+    raw = b.play_record(check, partial)
+    audio = partial.with_name("stream.wav")
+    partial.rename(audio)
+    write_capture_sidecar(audio, {"sample_rate_hz": b.sample_rate_hz, "device": b.name, "stimulus": check.description,
+                                  "channels": [c.to_dict() for c in b.inputs()], "events": list(raw.events),
+                                  "note": "raw, unaligned recording of the self-test's dropout check",
+                                  "stream_s": seconds, "checked_s": round(check.checked_s, 3),
+                                  "faults": [list(f) for f in check.faults()], "gaps_heard_s": check.gaps_s})
 
 
 def _measure(s, folder: Path) -> Measured:
+    from benchkit.kinds.noise import record_silence
     from benchkit.record import record_steps
 
     b = s.backend
     params = LoopbackParams.from_dict(s.more["params"])
+    wired = getattr(b, "wiring", None)
     try:
+        if b.capabilities.simulated:
+            b.wiring = "loopback"
         kw = dict(channel=s.channel, **s.stored())
         s.say(f"levels: {len(params.levels_dbfs)} steps at {FREQ_HZ:g} Hz")
         record_steps(b, folder, FREQ_HZ, list(params.levels_dbfs), name="levels", step_s=0.5, settle_s=0.2, **kw)
@@ -201,7 +239,7 @@ def _measure(s, folder: Path) -> Measured:
         record_steps(b, folder, list(params.response_hz), [s.more["response_dbfs"]] * len(params.response_hz), name="response",
                      step_s=0.3, settle_s=0.15, **kw)
         s.say(f"noise: {NOISE_S:g} s of silence")
-        _silence(s, folder, NOISE_S)
+        record_silence(b, folder, NOISE_S, s.channel, s.labels.get("note", ""), s.profile, s.calibration_file, "noise")
         s.say(f"round trip: {params.starts} starts of the stream")
         for k in range(1, params.starts + 1):
             record_steps(b, folder, FREQ_HZ, [STREAM_DBFS], name=f"start{k}", step_s=0.1, settle_s=0.05, **kw)
@@ -209,7 +247,7 @@ def _measure(s, folder: Path) -> Measured:
         _stream(s, folder, params.stream_s)
     finally:
         if b.capabilities.simulated:
-            b.wiring = "stage"
+            b.wiring = wired
     result = analyse_folder(folder, params)
     if s.profile is not None and s.calibration_file:
         _store_floor(s, result, folder)

@@ -60,15 +60,21 @@ def noise_run(backend, folder: Path, seconds: float, channel: int = 1, bandwidth
               calibration=None, calibration_file: str | None = None) -> NoiseResult:
     """Record ``seconds`` of the stage's output with nothing played, store
     the capture and its sidecar, then analyse the stored capture."""
+    path = record_silence(backend, folder, seconds, channel, note, calibration, calibration_file)
+    return analyze_noise_capture(read_capture(path, channel), bandwidth_hz, None, reference_vrms, reference, traces=True)
+
+
+def record_silence(backend, folder: Path, seconds: float, channel: int = 1, note: str = "", calibration=None,
+                   calibration_file: str | None = None, stem: str = "capture") -> Path:
+    """``seconds`` of the input with silence played, stored (``STEM.wav``
+    and its sidecar) as it came: no marker in silence to align by."""
     from benchkit.record import Recorder
 
     stim = silence(backend.sample_rate_hz, seconds, backend.n_outputs, getattr(backend, "drive_output", 1))
     recorder = Recorder(backend, folder, channel, note, calibration, calibration_file)
-    raw = backend.play_record(stim, recorder.partial("capture"))
-    # no marker in silence: the recording is kept as it came, its planned sidecar with the stream's events
-    side = {**recorder.plan(stim), "events": list(raw.events)}
-    path = recorder.store("capture", raw.samples[: stim.n_samples], side)
-    return analyze_noise_capture(read_capture(path, channel), bandwidth_hz, None, reference_vrms, reference, traces=True)
+    raw = backend.play_record(stim, recorder.partial(stem))
+    side = {**recorder.plan(stim), "events": list(raw.events)}  # the planned sidecar with the stream's events
+    return recorder.store(stem, raw.samples[: stim.n_samples], side)
 
 
 @dataclass(frozen=True)

@@ -193,10 +193,9 @@ class SteadyTone(HearsFaults):
         self._loudest = max(self._loudest, r.fundamental_dbfs)
         lost = r.fundamental_dbfs < self._loudest - LOST_DB or abs(r.fundamental_hz / self.frequency_hz - 1) > 0.01
         h = {k.order: k.level_dbc for k in r.harmonics}
-        residual = units.ratio_from_db(r.thdn_db)  # THD+N is the residual's level re the fundamental
         return Reading(t_s, r.fundamental_dbfs, r.fundamental_vrms, r.power_w, r.thdn_db, r.thd_db, h.get(2), h.get(3),
-                       r.noise_dbfs, dc, clipped or r.clipped, lost, disturbed, r.fundamental_dbfs + r.thdn_db,
-                       None if r.fundamental_vrms is None else r.fundamental_vrms * residual)
+                       r.noise_dbfs, dc, clipped or r.clipped, lost, disturbed, r.residual_dbfs,
+                       None if r.fundamental_vrms is None else r.fundamental_vrms * units.ratio_from_db(r.thdn_db))
 
 
 class Watch:
@@ -244,7 +243,8 @@ class Watch:
             abort()  # the emergency fade as well
 
     def join(self, timeout: float = 10.0) -> None:
-        self._thread.join(timeout)
+        if self._thread.ident is not None:  # (a watch that never started has nothing to wait for)
+            self._thread.join(timeout)
 
 
 # --- the readings on disk -------------------------------------------------------
@@ -426,28 +426,29 @@ def watch_session(backend, tone, run, record_audio: bool, duration, mode: str, s
     log = ReadingsLog(run.folder / "readings.csv") if run is not None else None
     partial = run.folder / "audio.partial.wav" if run is not None and record_audio else None
     tracker = Tracker()
-    keys = show.Keys() if mode == "live" and sys.stdin.isatty() else None
-    knob = BiasKnob(backend) if keys is not None else None
+    knob = BiasKnob(backend) if mode == "live" and sys.stdin.isatty() else None
     knob = knob if knob is not None and knob.stage is not None else None
     spectrum = tone.spectrum = SpectrumAverage(AVERAGING[1]) if mode == "live" else None
-    watch = Watch(backend, tone, partial).start()
-    display, spectrum_shown, why = None, True, None
+    watch = Watch(backend, tone, partial)
+    display, keys, spectrum_shown, why = None, None, True, None
     title = f"{tone.frequency_hz:g} Hz at {tone.level_dbfs:g} dBFS on {backend.name}"
 
     def screen():
         notes = tuple(n for n in (knob.note() if knob is not None else None, why) if n)
-        keys_text = show.KEYS if knob is None else show.KEYS.replace(", q stop", ", + - bias, q stop")
+        keys_text = show.keys_text(show.BIAS_KEYS if knob is not None else ())
         return show.screen(tracker, title, spectrum if spectrum_shown else None, tone.frequency_hz, tone.bandwidth_hz,
                            keys_text, notes)
 
-    if mode == "live":
-        from rich.console import Console
-        from rich.live import Live
-
-        display = Live(screen(), console=Console(), auto_refresh=False, transient=False)
-        display.start()
     started, ended_by, interrupted = time.monotonic(), None, False
     try:
+        if mode == "live":  # the screen and the keys first: the tone starts once they stand (and stops if they fail)
+            from rich.console import Console
+            from rich.live import Live
+
+            display = Live(screen(), console=Console(), auto_refresh=False, transient=False)
+            display.start()
+            keys = show.Keys() if sys.stdin.isatty() else None
+        watch.start()
         for reading in watch.readings():
             try:
                 if reading is not None:

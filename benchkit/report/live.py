@@ -79,11 +79,17 @@ def plain_line(r: Reading) -> str:
     return "  ".join(parts)
 
 
-#: The keys a watch takes, as its screen names them.
-KEYS = "h hold, r reset, s spectrum, a averaging, q stop (or Ctrl-C)"
+#: The keys a watch takes, as its screen names them (``BIAS_KEYS`` on a virtual stage with a bias).
+KEYS = (("h", "hold"), ("r", "reset"), ("s", "spectrum"), ("a", "averaging"))
+BIAS_KEYS = (("+ -", "bias"),)
 
 
-def table(tracker: Tracker, title: str, keys: str = KEYS, notes: tuple[str, ...] = ()):
+def keys_text(more=()) -> str:
+    """The keys line: each key and what it does, then how to stop."""
+    return ", ".join(f"{k} {what}" for k, what in (*KEYS, *more)) + ", q stop (or Ctrl-C)"
+
+
+def table(tracker: Tracker, title: str, keys: str | None = None, notes: tuple[str, ...] = ()):
     """The live table: figure, now, minimum, maximum, trend; ``notes``
     (a line each) above the keys."""
     from rich.table import Table
@@ -114,7 +120,7 @@ def table(tracker: Tracker, title: str, keys: str = KEYS, notes: tuple[str, ...]
     for note in notes:
         caption.append(note + "\n")
     when = f"{fmt_time(r.t_s)}, {units.count(tracker.count, 'reading')}" if r is not None else "waiting for the first reading"
-    caption.append(f"{when}.  keys: {keys}")
+    caption.append(f"{when}.  keys: {keys or keys_text()}")
     t.caption = caption
     t.caption_justify = "left"
     return t
@@ -160,7 +166,7 @@ def spectrum_view(spectrum, fundamental_hz: float, band=None, cols: int = SPECTR
     for k in range(MARKED_ORDERS, 0, -1):  # the lower orders win a shared column
         f = k * fundamental_hz
         if lo <= f <= hi:
-            marks[min(int(np.searchsorted(edges, f)) - 1, cols - 1)] = "f" if k == 1 else str(k)
+            marks[min(max(int(np.searchsorted(edges, f, side="right")) - 1, 0), cols - 1)] = "f" if k == 1 else str(k)
     out.append(" " * 6 + "".join(marks) + "\n", style="bold")
     ticks = [" "] * cols
     for f, name in ((20, "20"), (100, "100"), (1000, "1k"), (10000, "10k")):
@@ -172,7 +178,7 @@ def spectrum_view(spectrum, fundamental_hz: float, band=None, cols: int = SPECTR
 
 
 def screen(tracker: Tracker, title: str, spectrum=None, fundamental_hz: float | None = None, band=None,
-           keys: str = KEYS, notes: tuple[str, ...] = ()):
+           keys: str | None = None, notes: tuple[str, ...] = ()):
     """What a watch's terminal shows: the table and, with a spectrum
     average, the spectrum view beside it (under it on a narrow terminal)."""
     shown = table(tracker, title, keys, notes)
@@ -241,10 +247,13 @@ class Keys:
         if self._old is None:
             return None
         import os
+        import re
         import select
 
         if not self._pending and select.select([self._fd], [], [], 0)[0]:
-            self._pending = os.read(self._fd, 256).decode(errors="replace")
+            # an arrow or function key sends an escape sequence (ESC [ A ...): not a key of ours
+            self._pending = re.sub(r"\x1b(\[[0-9;]*[A-Za-z~]|O[A-Za-z]|.)?", "",
+                                   os.read(self._fd, 256).decode(errors="replace"))
         key, self._pending = self._pending[:1], self._pending[1:]
         return key.lower() or None
 
