@@ -117,7 +117,15 @@ def _run(book: Logbook, step: dict) -> str:
             if name.endswith(".png") and "-drive-" not in name and (entry.folder / name).exists()]
     return (f'<section class="run"><h3>{_e(title)}</h3><p class="conditions">run {_e(entry.id)}, {_e(entry.status)}, '
             f"{_e(entry.started)}</p>" + (_table(["figure", "at", "value (+- U, k = 2)"], body, {2}) if body else "")
-            + _conditions(doc) + _warnings(doc) + "".join(_image(p) for p in pngs) + "</section>")
+            + _conditions(doc) + _floor(doc) + _warnings(doc) + "".join(_image(p) for p in pngs) + "</section>")
+
+
+def _floor(doc: dict) -> str:
+    """The interface's floor the result was judged against (its calibration's), if any."""
+    from benchkit.interface_floor import summary_line
+
+    line = summary_line(doc)
+    return f'<p class="conditions">{_e(line)}</p>' if line else ""
 
 
 def _session(book: Logbook, doc: dict, label: str = "") -> str:

@@ -132,3 +132,21 @@ def test_too_few_starts_are_refused_in_one_line(tmp_path):
     assert not list((tmp_path / "bench").glob("runs/*/levels.wav"))
     stereo = run_cli("loopback", "--sim-stereo", "--bench", str(tmp_path / "bench"))
     assert stereo.returncode != 0 and "no stereo stage" in stereo.stderr and "Traceback" not in stereo.stderr
+
+
+def test_a_session_that_starts_with_the_self_test_reports_the_floor_it_found(tmp_path):
+    # the plan's calibration takes the self-test's floor; the tone step after it is judged against it,
+    # and the session's HTML report states the floor beside that run's figures
+    shutil.copy(PROFILE, tmp_path / "cal.json")
+    (tmp_path / "plan.toml").write_text('[stage]\nname = "Test stage B-2 (invented)"\nload = 8\ncalibration = "cal.json"\n\n'
+                                       '[[measure]]\nkind = "loopback"\nduration = 1\nstarts = 2\nyes = true\n\n'
+                                       '[[measure]]\nkind = "tone"\nlevel = ["-60dBFS"]\n')
+    bench = tmp_path / "bench"
+    res = run_cli("plan", "run", str(tmp_path / "plan.toml"), "--bench", str(bench))
+    assert res.returncode == 0, res.stderr
+    (session,) = [p.name for p in (bench / "sessions").iterdir()]
+    page = tmp_path / "report.html"
+    rep = run_cli("report", session, "--bench", str(bench), "--file", str(page))
+    assert rep.returncode == 0, rep.stderr
+    text = page.read_text()
+    assert text.count("interface floor (loopback run") == 1  # the tone's section; the self-test is not judged by itself
