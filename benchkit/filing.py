@@ -117,6 +117,8 @@ def one_step(side: dict, rec, doc: dict, level, options: kinds.Offline, path: Pa
                             "-20dBFS), so that it files as a step that pairs with measured tone runs at that drive")
     out_scale = options.profile.output_vpk_per_fs if options.profile is not None else None
     drive = units.parse_level(level).to_dbfs(out_scale)
+    if drive > 0.0:
+        raise BenchkitError(f"--level {level} is a drive of {drive:+.1f} dBFS, above full scale: no output plays that")
     f = float(doc["fundamental_hz"])
     n = int(rec.samples.size)
     side["stimulus"] = {"kind": "stepped-tones", "frequency_hz": f, "levels_dbfs": [drive],

@@ -201,17 +201,30 @@ def _margins(node: dict, floor: Floor, scale: float | None) -> dict[str, float]:
     return got
 
 
-def _walk(node, floor: Floor, scale: float | None) -> int:
+def _same_band(band, floor: Floor) -> bool:
+    """Whether a figure's band is the floor's (to 1 %): noise and THD+N over another band are another figure."""
+    if band is None or floor.bandwidth_hz is None:
+        return True
+    try:
+        return all(abs(float(a) - float(b)) <= 0.01 * max(abs(float(b)), 1.0) for a, b in zip(band, floor.bandwidth_hz))
+    except (TypeError, ValueError):
+        return False
+
+
+def _walk(node, floor: Floor, scale: float | None, band=None) -> int:
     """Mark every node under ``node`` in place; how many figures were marked."""
     if isinstance(node, list):
-        return sum(_walk(item, floor, scale) for item in node)
+        return sum(_walk(item, floor, scale, band) for item in node)
     if not isinstance(node, dict):
         return 0
     cond = node.get("conditions")
     if isinstance(cond, dict) and _number(cond.get("volts_per_fs")) and cond["volts_per_fs"] > 0:
         scale = cond["volts_per_fs"]
+    for where in (cond if isinstance(cond, dict) else {}, node):
+        if isinstance(where.get("bandwidth_hz"), (list, tuple)) and len(where["bandwidth_hz"]) == 2:
+            band = where["bandwidth_hz"]
     marked = 0
-    margins = _margins(node, floor, scale)
+    margins = _margins(node, floor, scale) if _same_band(band, floor) else {}
     if margins:
         near = [k for k, m in margins.items() if m < MARGIN_DB]
         node["interface_floor_margin_db"] = {k: round(m, 2) for k, m in margins.items()}
@@ -220,7 +233,7 @@ def _walk(node, floor: Floor, scale: float | None) -> int:
         marked += len(near)
     for key, value in list(node.items()):
         if key not in _SKIPPED and isinstance(value, (dict, list)):
-            marked += _walk(value, floor, scale)
+            marked += _walk(value, floor, scale, band)
     return marked
 
 

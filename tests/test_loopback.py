@@ -111,6 +111,14 @@ def test_the_floor_goes_into_the_calibration_profile(tmp_path):
     low, high = sorted(steps, key=lambda st: st["drive_dbfs"])
     assert "thdn_db" in low.get("near_interface_floor", []) and "thdn_db" not in high.get("near_interface_floor", [])
     assert "interface floor" in tone.stderr
+    # the floor changes no scale: the profile's hash, which runs compare by, stays as it was
+    assert load_profile(profile).digest() == load_profile(PROFILE).digest()
+    # noise over another band than the floor's is another figure: not judged against it
+    noise = run_cli("noise", "--calibration", str(profile), "--duration", "1", "--bandwidth", "400:4000", "--yes",
+                    "--bench", str(tmp_path / "bench"), "--json")
+    assert noise.returncode == 0, noise.stderr
+    doc = json.loads(noise.stdout)
+    assert "interface_floor_margin_db" not in doc and "near_interface_floor" not in doc
 
 
 def test_every_take_of_a_repeated_self_test_is_a_loopback(tmp_path):

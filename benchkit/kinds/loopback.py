@@ -259,7 +259,13 @@ def _store_floor(s, result: LoopbackResult, folder: Path) -> None:
     """The interface's floor into the calibration profile the run used."""
     from benchkit.calibration import save_profile
 
+    from benchkit.interface_floor import problem
+
     floor = result.floor(f"loopback run {folder.name}", datetime.now(timezone.utc).isoformat(timespec="seconds"))
+    why = problem(floor)
+    if why:  # (a profile that would not load again is not written)
+        s.say(f"warning: the interface's floor was not stored in {s.calibration_file}: {why}")
+        return
     save_profile(replace(s.profile, interface_floor=floor), s.calibration_file)
     s.say(f"stored the interface's floor in {s.calibration_file}: later runs with it state it and mark figures "
           "within 6 dB of it")
