@@ -64,12 +64,15 @@ class RecordLayout:
         cost far less than m complex exponentials and lose only ~m ulp."""
 
         def powers(pos: np.ndarray) -> np.ndarray:
-            out = np.empty((pos.size, count), dtype=complex)
-            out[:, 0] = 1.0
+            # built as (count, positions), each row the last times the base
+            # (contiguous rows: one vectorised product a power), then viewed
+            # the other way round
+            out = np.empty((count, pos.size), dtype=complex)
+            out[0] = 1.0
             if count > 1:
                 base = _phasor(pos * cycles)
-                np.cumprod(np.broadcast_to(base[:, None], (pos.size, count - 1)), axis=1, out=out[:, 1:])
-            return out
+                np.cumprod(np.broadcast_to(base, (count - 1, pos.size)), axis=0, out=out[1:])
+            return out.T
 
         return powers(self.bstart), powers(self.i), powers(self.tail)
 
@@ -100,11 +103,11 @@ class RecordLayout:
         g = x[: self.main].reshape(self.blocks, self.block) @ np.concatenate(cols, axis=1)
         z = g[:, :m] + 1j * g[:, m : 2 * m]
         xt = x[self.main :]
-        s = np.einsum("bk,bk->k", ub, z) + xt @ tail
+        s = np.sum(ub * z, axis=0) + xt @ tail
         if not weighted:
             return s, None
         zt = g[:, 2 * m : 3 * m] + 1j * g[:, 3 * m :]
-        t = np.einsum("bk,bk->k", ub, self.t_block[:, None] * z + zt) + (self.t_tail * xt) @ tail
+        t = np.sum(ub * (self.t_block[:, None] * z + zt), axis=0) + (self.t_tail * xt) @ tail
         return s, t
 
     def sine(self, cycles: float, a: float, b: float) -> np.ndarray:

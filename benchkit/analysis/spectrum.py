@@ -57,9 +57,10 @@ def windowed_rfft(x: np.ndarray) -> np.ndarray:
 
 
 def power(spec: np.ndarray) -> np.ndarray:
-    """``|spec|^2`` in one contiguous pass over the complex array."""
-    v = spec.view(np.float64).reshape(-1, 2)
-    return np.einsum("ij,ij->i", v, v)
+    """``|spec|^2``, as the sum of two squares (no square root)."""
+    out = np.square(spec.real)
+    out += np.square(spec.imag)
+    return out
 
 
 def _dirichlet(mu: np.ndarray, n: int) -> np.ndarray:
@@ -111,32 +112,41 @@ def kernel_at_bins(j: np.ndarray, delta: float, n: int) -> np.ndarray:
         out[near] = _integer_bin_kernel(n)[j[near] + 3]
         return out
     s_delta = np.sin(np.pi * min(delta, 1.0 - delta))  # sin(pi delta), without rounding loss near 1
-    ang = np.pi * (j - delta) / n
-    ca = np.cos(ang)
     weights = [WINDOW_COEFFS[0] if k == 0 else (-1) ** abs(k) * WINDOW_COEFFS[abs(k)] / 2.0 for k in range(-3, 4)]
     contiguous = j.ndim == 1 and j.size > 1 and int(j[-1] - j[0]) == j.size - 1 and bool(np.all(np.diff(j) == 1))
     if contiguous:
-        # sin(pi (j - k - delta) / n) for k = -3..3 are shifts of one array
-        ext = np.sin(np.pi * (np.arange(j[0] - 3, j[-1] + 4) - delta) / n)
+        # sin(pi (j - k - delta) / n) for k = -3..3 are shifts of one array;
+        # the run of angles from a table (two short exp calls, not thousands
+        # of sines), and near the tone, where a small sine needs its relative
+        # accuracy, from sin itself
+        m = np.arange(j[0] - 3, j[-1] + 4)
+        turn = _turns(np.pi * (m[0] - delta) / n, m.size, np.pi / n)
+        ext = turn.imag
+        close = np.abs(m) <= 64
+        ext[close] = np.sin(np.pi * (m[close] - delta) / n)
         recip = 1.0 / ext
         sa = ext[3:3 + j.size]
+        ca = turn.real[3:3 + j.size]
     else:
+        ang = np.pi * (j - delta) / n
+        ca = np.cos(ang)
         sa = np.sin(ang)
-    tr = np.zeros(j.shape)
-    ti = np.zeros(j.shape)
-    for k, c in zip(range(-3, 4), weights):
-        # D(mu - k) carries (-1)^(j-k) sin(pi mu); (-1)^k c is the window's
-        # weight without its alternating sign; 1 / sin(pi (j - k - delta) / n)
-        g = (-1) ** k * c * np.exp(1j * np.pi * k * (n - 1) / n)
-        if contiguous:
-            inv = recip[3 - k: 3 - k + j.size]
-        else:
-            inv = 1.0 / (sa * math.cos(math.pi * k / n) - ca * math.sin(math.pi * k / n))
-        tr += g.real * inv
-        ti += g.imag * inv
-    # (-1)^j e^{j pi delta} e^{j ang} (-(-1)^j sin(pi delta)) (tr + j ti); (-1)^j squared is 1
+    # D(mu - k) carries (-1)^(j-k) sin(pi mu); with (-1)^k c_k (the window's
+    # weight without its alternating sign) and D's phase in g_k, what is left
+    # is t = sum_k g_k / sin(pi (j - k - delta) / n)
+    g = np.array([(-1) ** k * c * np.exp(1j * np.pi * k * (n - 1) / n) for k, c in zip(range(-3, 4), weights)])
+    if contiguous:
+        # a seven-tap filter over the shifted reciprocals: t[i] = sum_k g_k recip[i + 3 - k]
+        t = np.convolve(recip, g.real, mode="valid") + 1j * np.convolve(recip, g.imag, mode="valid")
+    else:
+        t = np.zeros(j.shape, dtype=complex)
+        for k, gk in zip(range(-3, 4), g):
+            t += gk / (sa * math.cos(math.pi * k / n) - ca * math.sin(math.pi * k / n))
+    # (-1)^j e^{j pi delta} e^{j ang} (-(-1)^j sin(pi delta)) t; (-1)^j squared is 1
     scale = -np.exp(1j * np.pi * delta) * s_delta
-    out = scale * ((ca * tr - sa * ti) + 1j * (ca * ti + sa * tr))
+    rot = ca + 1j * sa
+    rot *= scale
+    out = rot * t
     near = np.abs(j) <= 8
     if np.any(near):
         jn = j[near]
@@ -148,36 +158,72 @@ def kernel_at_bins(j: np.ndarray, delta: float, n: int) -> np.ndarray:
     return out
 
 
-def remove_tone(spec: np.ndarray, n: int, nu: float, amplitude: complex, offset: float, span: int = 4096) -> np.ndarray:
+def _turns(first: float, count: int, step: float) -> np.ndarray:
+    """``e^{j (first + i step)}`` for i = 0..count-1, as the outer product of
+    about sqrt(count) block starts and in-block steps: each value within a
+    few ulp of the direct exponential, for two short exp calls."""
+    b = max(1, math.isqrt(count))
+    starts = np.exp(1j * (first + step * b * np.arange(-(-count // b))))
+    return np.multiply.outer(starts, np.exp(1j * step * np.arange(b))).ravel()[:count]
+
+
+def remove_tone(spec: np.ndarray, n: int, nu: float, amplitude: complex, offset: float, span: int = 4096,
+                out: np.ndarray | None = None) -> np.ndarray:
     """The windowed spectrum with a sine and an offset taken out.
 
     ``spec = rfft(x * window(n))``; the result is ``rfft((x - offset - A
     cos(2 pi nu k / n + phi)) * window(n))`` with ``amplitude = A e^{j
     phi}``: exact within ``span`` bins of the tone, and beyond them short
     only by the window's far sidelobes (below -250 dB there). Costs far less
-    than a second FFT.
+    than a second FFT. Only the bins of :func:`removal_bins` change; ``out=spec``
+    takes the tone out in place.
     """
-    out = spec.copy()
+    if out is None:
+        out = spec.copy()
+    elif out is not spec:
+        out[...] = spec
     out[:4] -= offset * _integer_bin_kernel(n)[3:3 + min(4, out.size)]
     whole = int(np.floor(nu))
     delta = nu - whole
-    lo, hi = max(0, whole - span), min(out.size, whole + span + 1)
-    m = np.arange(lo, hi)
     alpha = amplitude / 2.0
-    out[lo:hi] -= alpha * kernel_at_bins(m - whole, delta, n)
-    # the negative-frequency image, W(m + nu), near DC and (W has period n)
-    # near n/2: W(m + nu) = W(j' - (1 - delta)) with j' = m + whole + 1 (- n)
-    split = max(0, min(out.size, n // 2 - whole))  # below it m + nu is nearer 0 than n
-    for wrap, first, last in ((0, 0, split), (n, split, out.size)):
-        lo2 = max(first, wrap - whole - span)
-        hi2 = min(last, wrap - whole + span + 1)
-        if hi2 > lo2:
-            j2 = np.arange(lo2, hi2) + whole - wrap
-            if delta == 0.0:
-                out[lo2:hi2] -= np.conj(alpha) * kernel_at_bins(j2, 0.0, n)
-            else:
-                out[lo2:hi2] -= np.conj(alpha) * kernel_at_bins(j2 + 1, 1.0 - delta, n)
+    for lo, hi, image, wrap in _tone_ranges(n, whole, out.size, span):
+        if not image:
+            out[lo:hi] -= alpha * kernel_at_bins(np.arange(lo - whole, hi - whole), delta, n)
+            continue
+        j2 = np.arange(lo, hi) + whole - wrap
+        if delta == 0.0:
+            out[lo:hi] -= np.conj(alpha) * kernel_at_bins(j2, 0.0, n)
+        else:
+            out[lo:hi] -= np.conj(alpha) * kernel_at_bins(j2 + 1, 1.0 - delta, n)
     return out
+
+
+def _tone_ranges(n: int, whole: int, size: int, span: int) -> list[tuple[int, int, bool, int]]:
+    """The bin ranges ``[lo, hi)`` :func:`remove_tone` changes for a tone at
+    bin ``whole`` (+ a fraction): its own, and its negative-frequency image's
+    near DC and (W has period n) near n/2, ``W(m + nu) = W(j' - (1 - delta))``
+    with ``j' = m + whole + 1 (- n)``; each with whether it is the image and
+    its wrap (0 or n)."""
+    ranges = [(max(0, whole - span), min(size, whole + span + 1), False, 0)]
+    split = max(0, min(size, n // 2 - whole))  # below it m + nu is nearer 0 than n
+    for wrap, first, last in ((0, 0, split), (n, split, size)):
+        lo, hi = max(first, wrap - whole - span), min(last, wrap - whole + span + 1)
+        if hi > lo:
+            ranges.append((lo, hi, True, wrap))
+    return [r for r in ranges if r[1] > r[0]]
+
+
+def removal_bins(n: int, nu: float, size: int, span: int = 4096) -> list[slice]:
+    """The bins :func:`remove_tone` changes, as disjoint slices in order
+    (the offset's four bins at DC included)."""
+    edges = sorted([(0, min(4, size))] + [(lo, hi) for lo, hi, _i, _w in _tone_ranges(n, int(np.floor(nu)), size, span)])
+    merged: list[list[int]] = []
+    for lo, hi in edges:
+        if merged and lo <= merged[-1][1]:
+            merged[-1][1] = max(merged[-1][1], hi)
+        else:
+            merged.append([lo, hi])
+    return [slice(lo, hi) for lo, hi in merged]
 
 
 def refine_peak(spec: np.ndarray, peak: int, n: int) -> float:

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 
@@ -379,7 +380,7 @@ def _analyse_block(
 ) -> _Block:
     n = x.size
     energy = float(x @ x)
-    nu0, amp0, spec, spec_power = _find_tone(x, sample_rate, hint_hz)
+    nu0, amp0, spec, power = _find_tone(x, sample_rate, hint_hz)
     f_start = nu0 * sample_rate / n
     # the fit models the signal, harmonics above the band included (they
     # would bias the fundamental otherwise); the band decides what is reported
@@ -401,10 +402,14 @@ def _analyse_block(
     # the residual's windowed spectrum: the record's, less the fitted offset
     # and fundamental (exact kernel), which spares a second FFT
     amp1 = complex(float(fit.cos[0]), -float(fit.sin[0]))  # A e^{j phi}
-    rspec = sp.remove_tone(spec, n, fit.cycles * n, amp1, fit.offset)
+    # (in place: the record's own spectrum is not needed again; its power,
+    # where the report keeps it, is copied first)
+    spec_power = power.copy() if keep else None
+    rspec = sp.remove_tone(spec, n, fit.cycles * n, amp1, fit.offset, out=spec)
+    rpow = power  # the residual's power: the record's, but where the tone came out
+    for changed in sp.removal_bins(n, fit.cycles * n, rspec.size):
+        rpow[changed] = sp.power(rspec[changed])
     in_band = sp.band_bins(n, sample_rate, *band)
-    rpow = np.zeros(rspec.size)
-    rpow[in_band] = sp.power(rspec[in_band])
     pscale = sp.power_scale(n)
     res_power = pscale * float(np.sum(rpow[in_band]))
     # a harmonic whose main lobe straddles a band edge would count in part:
@@ -507,15 +512,22 @@ def noise_floor_amp2(rspec: np.ndarray, n: int, nu1: float, orders: np.ndarray,
     if idx.size < 5:
         return out
     width = min(FLOOR_BINS, idx.size)
-    power = sp.power(rspec[idx])
     at = orders * nu1
-    first = np.clip(np.searchsorted(idx, at) - width // 2, 0, idx.size - width)
-    pools = power[first[:, None] + np.arange(width)[None, :]]
+    # (searched as whole bins: idx[i] >= at exactly when idx[i] >= ceil(at))
+    first = np.clip(np.searchsorted(idx, np.ceil(at).astype(idx.dtype)) - width // 2, 0, idx.size - width)
+    pools = sp.power(rspec[idx[first[:, None] + np.arange(width)[None, :]]])
     # the read's gain varies by under 0.1 % with the fraction of a bin: one will do
-    gain = np.full(orders.size, float(sp.read_noise_gain(n, at[:1], size)[0]))
+    gain = np.full(orders.size, _read_gain(n, size, int(round(float(at[0]) * 64))))
     if fitted is not None:
         gain[fitted] = sp.fit_noise_gain(n)
     return np.median(pools, axis=1) / math.log(2.0) * gain
+
+
+@lru_cache(maxsize=64)
+def _read_gain(n: int, size: int, sixty_fourths: int) -> float:
+    """:func:`benchkit.analysis.spectrum.read_noise_gain` at a bin given to
+    1/64 (closer than the gain moves by), kept for the next record."""
+    return float(sp.read_noise_gain(n, np.array([sixty_fourths / 64.0]), size)[0])
 
 
 def over_floor_ratio(k: int) -> float:
