@@ -127,3 +127,26 @@ def test_a_gap_or_a_skipped_block_is_found(f0, fault):
     r = analyze_tone(x[:48000], rate, fundamental_hz=f0, check_dropouts=True)
     assert not r.valid
     assert any("dropouts" in w for w in r.warnings)
+
+
+@settings(max_examples=200, deadline=None)
+@given(size=st.integers(20, 5000), frac=st.floats(0.0, 0.7), count=st.integers(1, 60))
+def test_noise_runs_are_the_bins_outside_every_lobe(size, frac, count):
+    # the floor pools' noise bins, kept as runs between lobes, against the
+    # definition spelt out bin by bin: all bins but DC's lobe (0..lobe) and
+    # centre +- lobe of each multiple of nu1 (a lobe past the end takes the
+    # last bin)
+    from benchkit.analysis import spectrum as sp
+    from benchkit.analysis.tone import _noise_bin, _noise_gaps
+
+    lobe = sp.MAIN_LOBE_BINS + 1
+    nu1 = 2 * lobe + 2 + frac * size
+    noise = np.ones(size, dtype=bool)
+    noise[: lobe + 1] = False
+    for k in range(1, count + 1):
+        c = int(np.rint(k * nu1))
+        noise[np.clip(np.arange(c - lobe, c + lobe + 1), 0, size - 1)] = False
+    starts, lengths = _noise_gaps(size, nu1, count, lobe)
+    ends = np.cumsum(lengths)
+    assert int(ends[-1]) == int(np.count_nonzero(noise))
+    assert np.array_equal(_noise_bin(np.arange(int(ends[-1])), starts, lengths, ends), np.flatnonzero(noise))

@@ -317,8 +317,10 @@ def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tupl
     n = x.size
     # no offset removal needed: the window puts a DC offset >100 dB down by
     # the first bin searched
-    spec = sp.windowed_rfft(x)
-    power = sp.power(spec)
+    # (both in per-thread buffers: _analyse_block is done with them before
+    # the next record; the report's copy of the power is made there)
+    spec = sp.windowed_rfft(x, scratch=True)
+    power = sp.scratch_power(spec)
     kmin, kmax = MIN_PERIODS + 1, n // 2 - sp.MAIN_LOBE_BINS - 1
     if kmax <= kmin:
         raise BenchkitError(f"the record is too short to analyse ({n} samples)")
@@ -504,23 +506,43 @@ def noise_floor_amp2(rspec: np.ndarray, n: int, nu1: float, orders: np.ndarray,
     if orders.size == 0 or nu1 < 2 * lobe + 2:
         return out
     size = rspec.size
-    noise = np.ones(size, dtype=bool)
-    noise[: lobe + 1] = False  # DC and the offset's lobe
-    centres = np.rint(np.arange(1, int(orders[-1]) + 2) * nu1).astype(int)
-    noise[np.clip(np.add.outer(centres, np.arange(-lobe, lobe + 1)), 0, size - 1)] = False
-    idx = np.flatnonzero(noise)
-    if idx.size < 5:
+    starts, lengths = _noise_gaps(size, nu1, int(orders[-1]) + 1, lobe)
+    ends = np.cumsum(lengths)  # noise bins up to the end of each gap
+    total = int(ends[-1])
+    if total < 5:
         return out
-    width = min(FLOOR_BINS, idx.size)
+    width = min(FLOOR_BINS, total)
     at = orders * nu1
-    # (searched as whole bins: idx[i] >= at exactly when idx[i] >= ceil(at))
-    first = np.clip(np.searchsorted(idx, np.ceil(at).astype(idx.dtype)) - width // 2, 0, idx.size - width)
-    pools = sp.power(rspec[idx[first[:, None] + np.arange(width)[None, :]]])
+    # the noise bins below each harmonic (below ceil(at): the bins are whole)
+    below = np.sum(np.clip(np.ceil(at)[:, None] - starts[None, :], 0, lengths[None, :]), axis=1).astype(np.int64)
+    first = np.clip(below - width // 2, 0, total - width)
+    pools = sp.power(rspec[_noise_bin(first[:, None] + np.arange(width)[None, :], starts, lengths, ends)])
     # the read's gain varies by under 0.1 % with the fraction of a bin: one will do
     gain = np.full(orders.size, _read_gain(n, size, int(round(float(at[0]) * 64))))
     if fitted is not None:
         gain[fitted] = sp.fit_noise_gain(n)
     return np.median(pools, axis=1) / math.log(2.0) * gain
+
+
+def _noise_gaps(size: int, nu1: float, count: int, lobe: int) -> tuple[np.ndarray, np.ndarray]:
+    """The noise bins of a spectrum of ``size`` bins as runs (first bin,
+    length): every bin but DC with the offset's lobe (bins 0..lobe) and the
+    main lobe (centre +- lobe) of each of the first ``count`` multiples of
+    ``nu1``; a lobe reaching past the last bin takes that bin. The runs lie
+    between the lobes, so the i-th noise bin is found without listing them
+    all."""
+    centres = np.rint(np.arange(1, count + 1) * nu1).astype(np.int64)
+    lo = np.minimum(np.concatenate([[0], centres - lobe]), size - 1)
+    hi = np.minimum(np.concatenate([[lobe], centres + lobe]), size - 1)
+    starts = np.maximum.accumulate(hi) + 1  # a run after each lobe, up to the next one
+    stops = np.concatenate([lo[1:], [size]])
+    return starts, np.maximum(stops - starts, 0)
+
+
+def _noise_bin(rank: np.ndarray, starts: np.ndarray, lengths: np.ndarray, ends: np.ndarray) -> np.ndarray:
+    """The noise bin of each ``rank`` (0: the lowest) in the runs of :func:`_noise_gaps`."""
+    run = np.searchsorted(ends, rank, side="right")
+    return starts[run] + rank - (ends[run] - lengths[run])
 
 
 @lru_cache(maxsize=64)
