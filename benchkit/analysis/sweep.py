@@ -262,11 +262,27 @@ def noise_read(h: np.ndarray, sweep: SyncSweep, freqs: np.ndarray, order: int = 
     if not clean.any():
         return None
     logf = np.log2(np.maximum(freqs, 1e-12))
-    smooth = np.array([np.mean(power[clean & (np.abs(logf - x) <= 1.0 / 12.0)]) if (clean & (np.abs(logf - x) <= 1.0 / 12.0)).any()
-                       else np.nan for x in logf])
+    smooth = _sixth_octave_mean(logf, power, clean)
     known = np.isfinite(smooth)
     order = np.argsort(logf[known])
     return np.sqrt(np.interp(logf, logf[known][order], smooth[known][order]))
+
+
+def _sixth_octave_mean(logf: np.ndarray, power: np.ndarray, clean: np.ndarray) -> np.ndarray:
+    """At each point i, the mean of ``power`` over the clean points j with
+    |log2 f_j - log2 f_i| <= 1/12 (NaN where there is none). With the
+    clean points sorted by log2 f, each such set is one contiguous run,
+    found by bisection; the runs are summed in the order of ``logf``."""
+    sel = np.flatnonzero(clean)
+    sel = sel[np.argsort(logf[sel], kind="stable")]
+    keys, vals = logf[sel], power[sel]
+    lo = np.searchsorted(keys, logf - 1.0 / 12.0, side="left")
+    hi = np.searchsorted(keys, logf + 1.0 / 12.0, side="right")
+    out = np.full(logf.shape, np.nan)
+    for i, (a, b) in enumerate(zip(lo, hi)):
+        if b > a:
+            out[i] = np.mean(vals[a:b])
+    return out
 
 
 @dataclass(frozen=True)
@@ -343,6 +359,21 @@ def separate(h: np.ndarray, sweep: SyncSweep, orders: int = MAX_ORDER, freqs: np
     return SweepResponses(freqs, linear, harmonics, lowest)
 
 
+@lru_cache(maxsize=8)
+def _played_linear(sweep: SyncSweep, nfft: int, freqs_bytes: bytes) -> np.ndarray:
+    """The linear response, at the float64 frequencies packed in
+    ``freqs_bytes``, of the digital sweep played at unit amplitude,
+    deconvolved with an ``nfft``-point FFT: what :func:`measure` refers an
+    output to without a wired reference. Deconvolution and windowing are
+    linear, so the sweep played at amplitude A reads A times this; it
+    depends only on the sweep's design, the FFT length and the frequencies,
+    so it is computed once for each (kept read-only)."""
+    freqs = np.frombuffer(freqs_bytes, dtype=float)
+    out = response_at(deconvolve(sweep.samples(), sweep, nfft), sweep, 1, freqs)
+    out.setflags(write=False)
+    return out
+
+
 def log_grid(lo_hz: float, hi_hz: float, per_octave: int = 24) -> np.ndarray:
     """Log-spaced frequencies from lo to hi, ``per_octave`` to the octave."""
     n = max(2, int(math.ceil(math.log2(hi_hz / lo_hz) * per_octave)) + 1)
@@ -362,12 +393,14 @@ def measure(output: np.ndarray, sweep: SyncSweep, reference: np.ndarray | None =
     refuse_non_finite(output)
     if reference is not None:
         refuse_non_finite(reference, "the reference")
-    ref = reference if reference is not None else sweep.samples(amplitude)
-    n = deconvolution_length(sweep, max(output.size, ref.size))
+    n = deconvolution_length(sweep, max(output.size, reference.size if reference is not None else sweep.n_samples))
     h = deconvolve(output, sweep, n)
     got = separate(h, sweep, orders, freqs, band_hz)
-    h_ref = deconvolve(ref, sweep, n)
-    base = response_at(h_ref, sweep, 1, got.freq_hz)
+    if reference is not None:
+        h_ref = deconvolve(reference, sweep, n)
+        base = response_at(h_ref, sweep, 1, got.freq_hz)
+    else:
+        base = amplitude * _played_linear(sweep, n, got.freq_hz.tobytes())
     # type A: each end's noise read against its own response (a read's noise
     # splits evenly between the level and the phase: sqrt(1/2) of it on the level)
     rel = None
