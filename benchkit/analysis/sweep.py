@@ -163,7 +163,7 @@ def deconvolve(response: np.ndarray, sweep: SyncSweep, nfft: int | None = None) 
         nfft = deconvolution_length(sweep, y.size)
     spec = scipy.fft.rfft(y, nfft)
     spec *= _inverse_bins(sweep, nfft)
-    return scipy.fft.irfft(spec, nfft)
+    return scipy.fft.irfft(spec, nfft, overwrite_x=True)
 
 
 @lru_cache(maxsize=2)
@@ -182,15 +182,28 @@ def deconvolution_length(sweep: SyncSweep, n: int) -> int:
     return scipy.fft.next_fast_len(max(need, n) + int(MAX_IR_S * sweep.rate))
 
 
+@lru_cache(maxsize=32)
 def _window(n_before: int, n_after: int) -> np.ndarray:
     """Flat, with raised-cosine tapers over half the span before and a
-    third of the span after."""
+    third of the span after (kept, read-only: a sweep's windows recur)."""
     w = np.ones(n_before + n_after)
     a = max(1, n_before // 2)
     w[:a] = 0.5 - 0.5 * np.cos(np.pi * (np.arange(a) + 0.5) / a)
     b = max(1, n_after // 3)
     w[w.size - b:] = 0.5 + 0.5 * np.cos(np.pi * (np.arange(b) + 0.5) / b)
+    w.setflags(write=False)
     return w
+
+
+def _circular_product(h: np.ndarray, start: int, w: np.ndarray, out: np.ndarray) -> None:
+    """out[i] = h[(start + i) mod N] w[i], N = h.size, written straight into
+    ``out`` from contiguous runs of ``h`` (no index array, no copy)."""
+    i, n = 0, h.size
+    while i < out.size:
+        j = (start + i) % n
+        m = min(out.size - i, n - j)
+        np.multiply(h[j:j + m], w[i:i + m], out=out[i:i + m])
+        i += m
 
 
 def response_at(h: np.ndarray, sweep: SyncSweep, order: int, freqs: np.ndarray) -> np.ndarray:
@@ -208,16 +221,16 @@ def _windowed_spectrum(h: np.ndarray, rate: float, t0: float, nb: int, na: int, 
     before time ``t0`` (s, the response's own zero) to ``na`` after."""
     import scipy.fft
     at = int(math.floor(t0 * rate))
-    seg = h[(np.arange(-nb, na) + at) % h.size] * _window(nb, na)
+    w = _window(nb, na)
     # the response's own t = 0 at index 0 (the part before wraps to the
     # end), so the spectrum is smooth; zero-padded 8x, linear
     # interpolation between its bins is then exact to about 1e-4 for what
     # lies within a tenth of the window of t = 0
-    nfft = scipy.fft.next_fast_len(8 * seg.size)
+    nfft = scipy.fft.next_fast_len(8 * (nb + na))
     buf = np.zeros(nfft)
-    buf[:na] = seg[nb:]
-    buf[nfft - nb:] = seg[:nb]
-    spec = scipy.fft.rfft(buf)
+    _circular_product(h, at, w[nb:], buf[:na])
+    _circular_product(h, at - nb, w[:nb], buf[nfft - nb:])
+    spec = scipy.fft.rfft(buf, overwrite_x=True)
     grid = np.asarray(freqs, float) * nfft / rate
     k = np.clip(np.floor(grid).astype(int), 0, spec.size - 2)
     frac = grid - k
@@ -271,18 +284,18 @@ def noise_read(h: np.ndarray, sweep: SyncSweep, freqs: np.ndarray, order: int = 
 def _sixth_octave_mean(logf: np.ndarray, power: np.ndarray, clean: np.ndarray) -> np.ndarray:
     """At each point i, the mean of ``power`` over the clean points j with
     |log2 f_j - log2 f_i| <= 1/12 (NaN where there is none). With the
-    clean points sorted by log2 f, each such set is one contiguous run,
-    found by bisection; the runs are summed in the order of ``logf``."""
+    clean points sorted by log2 f, each such set is one contiguous run
+    [lo_i, hi_i), found by bisection and summed in one pass."""
     sel = np.flatnonzero(clean)
     sel = sel[np.argsort(logf[sel], kind="stable")]
-    keys, vals = logf[sel], power[sel]
+    keys, vals = logf[sel], np.append(power[sel], 0.0)
     lo = np.searchsorted(keys, logf - 1.0 / 12.0, side="left")
     hi = np.searchsorted(keys, logf + 1.0 / 12.0, side="right")
-    out = np.full(logf.shape, np.nan)
-    for i, (a, b) in enumerate(zip(lo, hi)):
-        if b > a:
-            out[i] = np.mean(vals[a:b])
-    return out
+    count = hi - lo
+    # reduceat over the pairs (lo_i, hi_i): its even entries are the runs'
+    # sums (an empty run reads one value, blanked below by its zero count)
+    sums = np.add.reduceat(vals, np.stack([lo, hi], axis=1).ravel())[::2]
+    return np.where(count > 0, sums / np.maximum(count, 1), np.nan)
 
 
 @dataclass(frozen=True)
