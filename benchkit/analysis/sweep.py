@@ -156,22 +156,69 @@ def deconvolve(response: np.ndarray, sweep: SyncSweep, nfft: int | None = None) 
     wrapped round to the end of the buffer (negative times).
 
     ``response`` must start where the sweep starts (align it first).
+
+    h = IDFT_N(DFT_N(y) G) with G = X~(f) / fs at the bins (the imaginary
+    parts of its f = 0 and f = fs/2 bins dropped, as a real inverse
+    transform does). For an even N = 2M this runs as two complex
+    transforms of M points, faster than real transforms of N: with
+    z[m] = y[2m] + j y[2m+1] and Z = DFT_M(z),
+
+        Y[k] = a_k Z[k] + b_k Z*[M-k],   a_k = (1 - j W^k) / 2,  b_k = (1 + j W^k) / 2,
+
+    W = exp(-2 pi j / N), and h's samples packed the same way,
+    h[2m] + j h[2m+1] = IDFT_M(Z'), where (h real, so H[k+M] = H*[M-k])
+
+        Z'[k] = c_k H[k] + d_k H*[M-k],   c_k = (1 + j W^-k) / 2,  d_k = (1 - j W^-k) / 2.
+
+    With H = G Y both steps fold into Z'[k] = P_k Z[k] + Q_k Z*[M-k]
+    (:func:`_deconvolution_kernel`); Z[M] is Z[0].
     """
     import scipy.fft
     y = np.asarray(response, dtype=float)
     if nfft is None:
         nfft = deconvolution_length(sweep, y.size)
-    spec = scipy.fft.rfft(y, nfft)
-    spec *= _inverse_bins(sweep, nfft)
-    return scipy.fft.irfft(spec, nfft, overwrite_x=True)
+    kernel = _deconvolution_kernel(sweep, nfft)
+    if nfft % 2:
+        spec = scipy.fft.rfft(y, nfft)
+        spec *= kernel[0]
+        return scipy.fft.irfft(spec, nfft, overwrite_x=True)
+    p, q = kernel
+    buf = np.zeros(nfft)
+    buf[:min(y.size, nfft)] = y[:nfft]
+    z = scipy.fft.fft(buf.view(complex), overwrite_x=True)
+    mirror = np.empty_like(z)  # Z*[M-k], k = 0..M-1
+    mirror[0] = z[0]
+    mirror[1:] = z[:0:-1]
+    np.conjugate(mirror, out=mirror)
+    mirror *= q
+    z *= p
+    z += mirror
+    return scipy.fft.ifft(z, overwrite_x=True).view(float)
 
 
 @lru_cache(maxsize=2)
-def _inverse_bins(sweep: SyncSweep, nfft: int) -> np.ndarray:
-    """X~(f) / fs at the bins of an nfft-point FFT (kept: the output and
-    its reference are deconvolved alike)."""
-    out = sweep.inverse(np.fft.rfftfreq(nfft, 1 / sweep.rate)) / sweep.rate
-    out.setflags(write=False)
+def _deconvolution_kernel(sweep: SyncSweep, nfft: int) -> tuple[np.ndarray, ...]:
+    """What :func:`deconvolve` multiplies by (kept, read-only: the output
+    and its reference are deconvolved alike): for an odd ``nfft``, G =
+    X~(f) / fs at the bins of an nfft-point real FFT; for an even one, P
+    and Q for k = 0..M-1 (M = nfft / 2), with G's end bins made real:
+
+        P_k = c_k G_k a_k + d_k (G_{M-k} b_{M-k})*
+        Q_k = c_k G_k b_k + d_k (G_{M-k} a_{M-k})*
+    """
+    g = sweep.inverse(np.fft.rfftfreq(nfft, 1 / sweep.rate)) / sweep.rate
+    if nfft % 2:
+        out: tuple[np.ndarray, ...] = (g,)
+    else:
+        m = nfft // 2
+        g[0], g[m] = g[0].real, g[m].real
+        w = np.exp(-2j * np.pi * np.arange(m + 1) / nfft)
+        ga, gb = g * (0.5 - 0.5j * w), g * (0.5 + 0.5j * w)
+        c, d = 0.5 + 0.5j * np.conj(w[:m]), 0.5 - 0.5j * np.conj(w[:m])
+        rev = slice(m, 0, -1)  # index M-k for k = 0..M-1
+        out = (c * ga[:m] + d * np.conj(gb[rev]), c * gb[:m] + d * np.conj(ga[rev]))
+    for a in out:
+        a.setflags(write=False)
     return out
 
 
@@ -230,13 +277,29 @@ def _windowed_spectrum(h: np.ndarray, rate: float, t0: float, nb: int, na: int, 
     buf = np.zeros(nfft)
     _circular_product(h, at, w[nb:], buf[:na])
     _circular_product(h, at - nb, w[:nb], buf[nfft - nb:])
-    spec = scipy.fft.rfft(buf, overwrite_x=True)
     grid = np.asarray(freqs, float) * nfft / rate
-    k = np.clip(np.floor(grid).astype(int), 0, spec.size - 2)
+    k = np.clip(np.floor(grid).astype(int), 0, nfft // 2 - 1)
     frac = grid - k
-    z = spec[k] * (1 - frac) + spec[k + 1] * frac
+    spec = _rfft_bins(buf, np.concatenate([k, k + 1]))
+    z = spec[:k.size] * (1 - frac) + spec[k.size:] * frac
     # index 0 is sample ``at``; the exact time is t0
     return z * np.exp(-2j * np.pi * np.asarray(freqs) * (at / rate - t0))
+
+
+def _rfft_bins(x: np.ndarray, bins: np.ndarray) -> np.ndarray:
+    """rfft(x)[bins] (0 <= bins <= N/2, N = x.size; ``x`` is overwritten).
+    For an even N = 2M, from one complex transform of M points (see
+    :func:`deconvolve`): X[k] = a_k Z[k mod M] + b_k Z*[(M - k) mod M],
+    evaluated at the bins asked for only."""
+    import scipy.fft
+    n = x.size
+    if n % 2:
+        return scipy.fft.rfft(x, overwrite_x=True)[bins]
+    m = n // 2
+    z = scipy.fft.fft(x.view(complex), overwrite_x=True)
+    zk, zm = z[bins % m], np.conj(z[(m - bins) % m])
+    w = np.exp(-2j * np.pi * bins / n)
+    return 0.5 * (zk + zm) - 0.5j * w * (zk - zm)
 
 
 def noise_read(h: np.ndarray, sweep: SyncSweep, freqs: np.ndarray, order: int = 1) -> np.ndarray | None:
