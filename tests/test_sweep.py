@@ -112,6 +112,30 @@ def test_harmonic_responses_lie_where_novak_puts_them():
     assert abs(r.harmonics[3][0]) < 1e-3  # no third-order term, none separated
 
 
+@pytest.mark.parametrize("nfft", [150000, 150001])
+def test_deconvolution_equals_the_real_transforms(nfft):
+    # deconvolve's half-length complex transforms against rfft, X~(f)/fs, irfft
+    # (the end bins' imaginary parts dropped, as irfft does) for an even length,
+    # and the plain path for an odd one
+    import scipy.fft
+    sw = SyncSweep.design(20.0, 20000.0, 2.0, 48000)
+    y = np.random.default_rng(7).standard_normal(sw.n_samples + 100)
+    want = scipy.fft.irfft(scipy.fft.rfft(y, nfft) * sw.inverse(np.fft.rfftfreq(nfft, 1 / 48000)) / 48000, nfft)
+    got = deconvolve(y, sw, nfft)
+    assert got.shape == (nfft,)
+    assert np.max(np.abs(got - want)) < 1e-12 * np.max(np.abs(want))
+
+
+@pytest.mark.parametrize("n", [4096, 4095])
+def test_rfft_bins_equal_the_real_transform(n):
+    import scipy.fft
+    from benchkit.analysis.sweep import _rfft_bins
+    x = np.random.default_rng(8).standard_normal(n)
+    bins = np.array([0, 1, 7, n // 4, n // 2 - 1, n // 2])
+    want = scipy.fft.rfft(x)[bins]
+    assert np.max(np.abs(_rfft_bins(x.copy(), bins) - want)) < 1e-12 * np.max(np.abs(want))
+
+
 # --- derived figures (circuit theory) ---------------------------------------------
 
 

@@ -156,22 +156,69 @@ def deconvolve(response: np.ndarray, sweep: SyncSweep, nfft: int | None = None) 
     wrapped round to the end of the buffer (negative times).
 
     ``response`` must start where the sweep starts (align it first).
+
+    h = IDFT_N(DFT_N(y) G) with G = X~(f) / fs at the bins (the imaginary
+    parts of its f = 0 and f = fs/2 bins dropped, as a real inverse
+    transform does). For an even N = 2M this runs as two complex
+    transforms of M points, faster than real transforms of N: with
+    z[m] = y[2m] + j y[2m+1] and Z = DFT_M(z),
+
+        Y[k] = a_k Z[k] + b_k Z*[M-k],   a_k = (1 - j W^k) / 2,  b_k = (1 + j W^k) / 2,
+
+    W = exp(-2 pi j / N), and h's samples packed the same way,
+    h[2m] + j h[2m+1] = IDFT_M(Z'), where (h real, so H[k+M] = H*[M-k])
+
+        Z'[k] = c_k H[k] + d_k H*[M-k],   c_k = (1 + j W^-k) / 2,  d_k = (1 - j W^-k) / 2.
+
+    With H = G Y both steps fold into Z'[k] = P_k Z[k] + Q_k Z*[M-k]
+    (:func:`_deconvolution_kernel`); Z[M] is Z[0].
     """
     import scipy.fft
     y = np.asarray(response, dtype=float)
     if nfft is None:
         nfft = deconvolution_length(sweep, y.size)
-    spec = scipy.fft.rfft(y, nfft)
-    spec *= _inverse_bins(sweep, nfft)
-    return scipy.fft.irfft(spec, nfft)
+    kernel = _deconvolution_kernel(sweep, nfft)
+    if nfft % 2:
+        spec = scipy.fft.rfft(y, nfft)
+        spec *= kernel[0]
+        return scipy.fft.irfft(spec, nfft, overwrite_x=True)
+    p, q = kernel
+    buf = np.zeros(nfft)
+    buf[:min(y.size, nfft)] = y[:nfft]
+    z = scipy.fft.fft(buf.view(complex), overwrite_x=True)
+    mirror = np.empty_like(z)  # Z*[M-k], k = 0..M-1
+    mirror[0] = z[0]
+    mirror[1:] = z[:0:-1]
+    np.conjugate(mirror, out=mirror)
+    mirror *= q
+    z *= p
+    z += mirror
+    return scipy.fft.ifft(z, overwrite_x=True).view(float)
 
 
 @lru_cache(maxsize=2)
-def _inverse_bins(sweep: SyncSweep, nfft: int) -> np.ndarray:
-    """X~(f) / fs at the bins of an nfft-point FFT (kept: the output and
-    its reference are deconvolved alike)."""
-    out = sweep.inverse(np.fft.rfftfreq(nfft, 1 / sweep.rate)) / sweep.rate
-    out.setflags(write=False)
+def _deconvolution_kernel(sweep: SyncSweep, nfft: int) -> tuple[np.ndarray, ...]:
+    """What :func:`deconvolve` multiplies by (kept, read-only: the output
+    and its reference are deconvolved alike): for an odd ``nfft``, G =
+    X~(f) / fs at the bins of an nfft-point real FFT; for an even one, P
+    and Q for k = 0..M-1 (M = nfft / 2), with G's end bins made real:
+
+        P_k = c_k G_k a_k + d_k (G_{M-k} b_{M-k})*
+        Q_k = c_k G_k b_k + d_k (G_{M-k} a_{M-k})*
+    """
+    g = sweep.inverse(np.fft.rfftfreq(nfft, 1 / sweep.rate)) / sweep.rate
+    if nfft % 2:
+        out: tuple[np.ndarray, ...] = (g,)
+    else:
+        m = nfft // 2
+        g[0], g[m] = g[0].real, g[m].real
+        w = np.exp(-2j * np.pi * np.arange(m + 1) / nfft)
+        ga, gb = g * (0.5 - 0.5j * w), g * (0.5 + 0.5j * w)
+        c, d = 0.5 + 0.5j * np.conj(w[:m]), 0.5 - 0.5j * np.conj(w[:m])
+        rev = slice(m, 0, -1)  # index M-k for k = 0..M-1
+        out = (c * ga[:m] + d * np.conj(gb[rev]), c * gb[:m] + d * np.conj(ga[rev]))
+    for a in out:
+        a.setflags(write=False)
     return out
 
 
@@ -182,15 +229,28 @@ def deconvolution_length(sweep: SyncSweep, n: int) -> int:
     return scipy.fft.next_fast_len(max(need, n) + int(MAX_IR_S * sweep.rate))
 
 
+@lru_cache(maxsize=32)
 def _window(n_before: int, n_after: int) -> np.ndarray:
     """Flat, with raised-cosine tapers over half the span before and a
-    third of the span after."""
+    third of the span after (kept, read-only: a sweep's windows recur)."""
     w = np.ones(n_before + n_after)
     a = max(1, n_before // 2)
     w[:a] = 0.5 - 0.5 * np.cos(np.pi * (np.arange(a) + 0.5) / a)
     b = max(1, n_after // 3)
     w[w.size - b:] = 0.5 + 0.5 * np.cos(np.pi * (np.arange(b) + 0.5) / b)
+    w.setflags(write=False)
     return w
+
+
+def _circular_product(h: np.ndarray, start: int, w: np.ndarray, out: np.ndarray) -> None:
+    """out[i] = h[(start + i) mod N] w[i], N = h.size, written straight into
+    ``out`` from contiguous runs of ``h`` (no index array, no copy)."""
+    i, n = 0, h.size
+    while i < out.size:
+        j = (start + i) % n
+        m = min(out.size - i, n - j)
+        np.multiply(h[j:j + m], w[i:i + m], out=out[i:i + m])
+        i += m
 
 
 def response_at(h: np.ndarray, sweep: SyncSweep, order: int, freqs: np.ndarray) -> np.ndarray:
@@ -208,22 +268,38 @@ def _windowed_spectrum(h: np.ndarray, rate: float, t0: float, nb: int, na: int, 
     before time ``t0`` (s, the response's own zero) to ``na`` after."""
     import scipy.fft
     at = int(math.floor(t0 * rate))
-    seg = h[(np.arange(-nb, na) + at) % h.size] * _window(nb, na)
+    w = _window(nb, na)
     # the response's own t = 0 at index 0 (the part before wraps to the
     # end), so the spectrum is smooth; zero-padded 8x, linear
     # interpolation between its bins is then exact to about 1e-4 for what
     # lies within a tenth of the window of t = 0
-    nfft = scipy.fft.next_fast_len(8 * seg.size)
+    nfft = scipy.fft.next_fast_len(8 * (nb + na))
     buf = np.zeros(nfft)
-    buf[:na] = seg[nb:]
-    buf[nfft - nb:] = seg[:nb]
-    spec = scipy.fft.rfft(buf)
+    _circular_product(h, at, w[nb:], buf[:na])
+    _circular_product(h, at - nb, w[:nb], buf[nfft - nb:])
     grid = np.asarray(freqs, float) * nfft / rate
-    k = np.clip(np.floor(grid).astype(int), 0, spec.size - 2)
+    k = np.clip(np.floor(grid).astype(int), 0, nfft // 2 - 1)
     frac = grid - k
-    z = spec[k] * (1 - frac) + spec[k + 1] * frac
+    spec = _rfft_bins(buf, np.concatenate([k, k + 1]))
+    z = spec[:k.size] * (1 - frac) + spec[k.size:] * frac
     # index 0 is sample ``at``; the exact time is t0
     return z * np.exp(-2j * np.pi * np.asarray(freqs) * (at / rate - t0))
+
+
+def _rfft_bins(x: np.ndarray, bins: np.ndarray) -> np.ndarray:
+    """rfft(x)[bins] (0 <= bins <= N/2, N = x.size; ``x`` is overwritten).
+    For an even N = 2M, from one complex transform of M points (see
+    :func:`deconvolve`): X[k] = a_k Z[k mod M] + b_k Z*[(M - k) mod M],
+    evaluated at the bins asked for only."""
+    import scipy.fft
+    n = x.size
+    if n % 2:
+        return scipy.fft.rfft(x, overwrite_x=True)[bins]
+    m = n // 2
+    z = scipy.fft.fft(x.view(complex), overwrite_x=True)
+    zk, zm = z[bins % m], np.conj(z[(m - bins) % m])
+    w = np.exp(-2j * np.pi * bins / n)
+    return 0.5 * (zk + zm) - 0.5j * w * (zk - zm)
 
 
 def noise_read(h: np.ndarray, sweep: SyncSweep, freqs: np.ndarray, order: int = 1) -> np.ndarray | None:
@@ -262,11 +338,27 @@ def noise_read(h: np.ndarray, sweep: SyncSweep, freqs: np.ndarray, order: int = 
     if not clean.any():
         return None
     logf = np.log2(np.maximum(freqs, 1e-12))
-    smooth = np.array([np.mean(power[clean & (np.abs(logf - x) <= 1.0 / 12.0)]) if (clean & (np.abs(logf - x) <= 1.0 / 12.0)).any()
-                       else np.nan for x in logf])
+    smooth = _sixth_octave_mean(logf, power, clean)
     known = np.isfinite(smooth)
     order = np.argsort(logf[known])
     return np.sqrt(np.interp(logf, logf[known][order], smooth[known][order]))
+
+
+def _sixth_octave_mean(logf: np.ndarray, power: np.ndarray, clean: np.ndarray) -> np.ndarray:
+    """At each point i, the mean of ``power`` over the clean points j with
+    |log2 f_j - log2 f_i| <= 1/12 (NaN where there is none). With the
+    clean points sorted by log2 f, each such set is one contiguous run
+    [lo_i, hi_i), found by bisection and summed in one pass."""
+    sel = np.flatnonzero(clean)
+    sel = sel[np.argsort(logf[sel], kind="stable")]
+    keys, vals = logf[sel], np.append(power[sel], 0.0)
+    lo = np.searchsorted(keys, logf - 1.0 / 12.0, side="left")
+    hi = np.searchsorted(keys, logf + 1.0 / 12.0, side="right")
+    count = hi - lo
+    # reduceat over the pairs (lo_i, hi_i): its even entries are the runs'
+    # sums (an empty run reads one value, blanked below by its zero count)
+    sums = np.add.reduceat(vals, np.stack([lo, hi], axis=1).ravel())[::2]
+    return np.where(count > 0, sums / np.maximum(count, 1), np.nan)
 
 
 @dataclass(frozen=True)
@@ -343,6 +435,21 @@ def separate(h: np.ndarray, sweep: SyncSweep, orders: int = MAX_ORDER, freqs: np
     return SweepResponses(freqs, linear, harmonics, lowest)
 
 
+@lru_cache(maxsize=8)
+def _played_linear(sweep: SyncSweep, nfft: int, freqs_bytes: bytes) -> np.ndarray:
+    """The linear response, at the float64 frequencies packed in
+    ``freqs_bytes``, of the digital sweep played at unit amplitude,
+    deconvolved with an ``nfft``-point FFT: what :func:`measure` refers an
+    output to without a wired reference. Deconvolution and windowing are
+    linear, so the sweep played at amplitude A reads A times this; it
+    depends only on the sweep's design, the FFT length and the frequencies,
+    so it is computed once for each (kept read-only)."""
+    freqs = np.frombuffer(freqs_bytes, dtype=float)
+    out = response_at(deconvolve(sweep.samples(), sweep, nfft), sweep, 1, freqs)
+    out.setflags(write=False)
+    return out
+
+
 def log_grid(lo_hz: float, hi_hz: float, per_octave: int = 24) -> np.ndarray:
     """Log-spaced frequencies from lo to hi, ``per_octave`` to the octave."""
     n = max(2, int(math.ceil(math.log2(hi_hz / lo_hz) * per_octave)) + 1)
@@ -362,12 +469,14 @@ def measure(output: np.ndarray, sweep: SyncSweep, reference: np.ndarray | None =
     refuse_non_finite(output)
     if reference is not None:
         refuse_non_finite(reference, "the reference")
-    ref = reference if reference is not None else sweep.samples(amplitude)
-    n = deconvolution_length(sweep, max(output.size, ref.size))
+    n = deconvolution_length(sweep, max(output.size, reference.size if reference is not None else sweep.n_samples))
     h = deconvolve(output, sweep, n)
     got = separate(h, sweep, orders, freqs, band_hz)
-    h_ref = deconvolve(ref, sweep, n)
-    base = response_at(h_ref, sweep, 1, got.freq_hz)
+    if reference is not None:
+        h_ref = deconvolve(reference, sweep, n)
+        base = response_at(h_ref, sweep, 1, got.freq_hz)
+    else:
+        base = amplitude * _played_linear(sweep, n, got.freq_hz.tobytes())
     # type A: each end's noise read against its own response (a read's noise
     # splits evenly between the level and the phase: sqrt(1/2) of it on the level)
     rel = None
