@@ -301,3 +301,31 @@ def test_a_result_marked_twice_holds_one_warning_and_its_figures_once():
     twice = mark(once)
     assert twice == once and [w["code"] for w in twice["warnings"]] == ["near-interface-floor"]
     assert twice["steps"][0]["near_interface_floor"] == ["thdn_db", "noise_dbfs"]
+
+
+def test_a_batch_analyze_states_each_results_floor_as_one_file_does(tmp_path):
+    # plumbing, no outside figure: the batch prints the line the single file prints, once a result
+    bench = tmp_path / "bench"
+    bare = _profile(tmp_path, "bare.json", None, loopback=False)
+    doc = _json(run_cli("tone", "--calibration", str(bare), "--level", "-40dBFS", "--level", "-10dBFS", "--bench",
+                        str(bench), "--json"))
+    folder = Path(doc["run"]["folder"])
+    captures = []
+    for name in ("one", "two"):
+        capture = tmp_path / name / "capture.wav"
+        capture.parent.mkdir()
+        shutil.copy(folder / "capture.wav", capture)
+        shutil.copy(folder / "capture.json", capture.with_suffix(".json"))
+        captures.append(capture)
+    floor = {**CURVE, "levels_dbfs": [-30.0, -10.0], "thdn_db": [-60.0, -90.0], "noise_dbfs": -130.0}
+    prof = str(_profile(tmp_path, "floor.json", floor))
+    alone = run_cli("analyze", str(captures[0]), "--calibration", prof)
+    assert alone.returncode == 0, alone.stderr
+    (line,) = [x for x in alone.stdout.splitlines() if x.startswith("interface floor (")]
+    assert "1 figure within 6 dB of it is marked" in line and "THD+N judged only at" in line
+    batch = run_cli("analyze", *map(str, captures), "--calibration", prof)
+    assert batch.returncode == 0, batch.stderr
+    assert [x for x in batch.stdout.splitlines() if "interface floor (" in x] == [f"{c}: {line}" for c in captures]
+    # with --json the lines go to stderr, and stdout holds the JSON list alone
+    as_json = run_cli("analyze", *map(str, captures), "--calibration", prof, "--json")
+    assert len(json.loads(as_json.stdout)) == 2 and f"{captures[1]}: {line}" in as_json.stderr
