@@ -14,9 +14,20 @@ gives the same figures. A failure there marks the run failed, as a live
 run's does.
 
 A filed run says where it came from: its device is ``"file"``, and its
-record's ``filed`` holds the original path, the file's SHA-256 and the
-scale used (volts per FS given, or the calibration profile, whose file and
-digest the record's ``calibration`` keeps as a live run's does).
+record's ``filed`` holds the original path, the file's SHA-256, the
+SHA-256 of the copy stored in the run folder (``copy_sha256``, hashed
+from the folder after the copy was written) and the scale used (volts
+per FS given, or the calibration profile, whose file and digest the
+record's ``calibration`` keeps as a live run's does). The copy is checked
+against the original before the run is analysed: a WAV copied byte for
+byte must hash as the original did when it was analysed (so ``sha256``
+and ``copy_sha256`` agree); a capture in another format, rewritten as a
+WAV, must hold the original's samples. A copy that fails the check fails
+its run.
+
+Several captures file one by one: one that cannot be filed (refused, or
+an error of the file system while it is read or copied) is reported in
+one line and the others are filed still.
 
 A capture of one tone that benchkit did not write (no stepped sidecar) is
 filed as a tone run of one step at the drive ``--level`` states, so that
@@ -26,6 +37,7 @@ its figures pair with a measured tone run's at that drive.
 from __future__ import annotations
 
 import hashlib
+import os
 import shutil
 from dataclasses import dataclass, fields
 from pathlib import Path
@@ -59,6 +71,19 @@ def sha256_of(path: Path) -> str:
     with open(path, "rb") as fh:
         for block in iter(lambda: fh.read(1 << 20), b""):
             digest.update(block)
+    return digest.hexdigest()
+
+
+def copy_hashing(source: Path, dest: Path) -> str:
+    """Copy ``source`` to ``dest`` byte for byte; the SHA-256 of the bytes
+    read (and written), hex."""
+    digest = hashlib.sha256()
+    with open(source, "rb") as fin, open(dest, "wb") as fout:
+        for block in iter(lambda: fin.read(1 << 20), b""):
+            digest.update(block)
+            fout.write(block)
+        fout.flush()
+        os.fsync(fout.fileno())
     return digest.hexdigest()
 
 
@@ -153,10 +178,13 @@ def params_for(kind: kinds.Kind, side: dict, rate: float, options: kinds.Offline
     return kind.params(**chosen).to_dict()
 
 
-def copy_capture(source: Path, folder: Path, sidecar: dict) -> Path:
+def copy_capture(source: Path, folder: Path, sidecar: dict, sha256: str | None = None) -> tuple[Path, str]:
     """The capture copied into the run's folder as ``capture.wav`` (a WAV
     byte for byte; another format rewritten as 32-bit float WAV), with its
-    sidecar and the takes its steps played again lie in."""
+    sidecar and the takes its steps played again lie in; checked against
+    the original (``sha256``: the original's hash when it was analysed).
+    Returns the copy and its SHA-256, hashed from the folder after it was
+    written."""
     from benchkit.recordings import write_capture, write_capture_sidecar
 
     dest = folder / kinds.CAPTURE_WAV
@@ -168,13 +196,27 @@ def copy_capture(source: Path, folder: Path, sidecar: dict) -> Path:
                 if (source.parent / part).exists():
                     shutil.copyfile(source.parent / part, folder / part)
     if source.suffix.lower() == ".wav":
-        shutil.copyfile(source, dest)
+        read = copy_hashing(source, dest)
+        if sha256 is not None and read != sha256:
+            raise BenchkitError(f"{source} changed after it was analysed (SHA-256 {sha256[:12]}... then, {read[:12]}... "
+                                "now): not filed; file it again")
+        stored = sha256_of(dest)
+        if stored != read:
+            raise BenchkitError(f"the copy of {source} in {folder} does not match it (SHA-256 {stored[:12]}... against "
+                                f"{read[:12]}...): not filed")
         write_capture_sidecar(dest, sidecar)
-        return dest
+        return dest, stored
+    import numpy as np
     import soundfile as sf
 
+    if sha256 is not None and sha256_of(source) != sha256:
+        raise BenchkitError(f"{source} changed after it was analysed: not filed; file it again")
     data, rate = sf.read(str(source), dtype="float64", always_2d=True)
-    return write_capture(dest, data, rate, sidecar)
+    write_capture(dest, data, rate, sidecar)
+    kept, kept_rate = sf.read(str(dest), dtype="float64", always_2d=True)
+    if kept_rate != rate or kept.shape != data.shape or not np.array_equal(kept, data.astype(np.float32)):
+        raise BenchkitError(f"the copy of {source} in {folder} does not hold its samples: not filed")
+    return dest, sha256_of(dest)
 
 
 def file_one(ready: Prepared, book, labels: dict, options: kinds.Offline, say: Callable[[str], None]):
@@ -186,7 +228,8 @@ def file_one(ready: Prepared, book, labels: dict, options: kinds.Offline, say: C
     run = start_run(book, labels, ready.kind.name, DEVICE, options.profile, options.profile_path, ready.params, say,
                     filed=ready.filed)
     with run:
-        copy_capture(ready.path, run.folder, ready.sidecar)
+        _copy, digest = copy_capture(ready.path, run.folder, ready.sidecar, ready.filed.get("sha256"))
+        run.record["filed"] = {**(run.record.get("filed") or {}), "copy_sha256": digest}
         doc, written = kinds.reanalyse(run.folder, run.record, say)
         return complete(run, doc, written, say, played=False)
 
@@ -196,7 +239,9 @@ def file_captures(files: list[Path], o: dict, say: Callable[[str], None], tell: 
     (``o``: the options by key). Options are checked before any capture is
     read; then each capture is analysed, and filed when its analysis
     succeeded. Returns the runs filed and the errors of those refused
-    (``(file, reason)``)."""
+    (``(file, reason)``): a capture refused, or one the file system failed
+    on (read, hashed or copied), is one of those, and the others are filed
+    still."""
     from benchkit.bench import bench_logbook
 
     options = offline_options(o)
@@ -212,4 +257,7 @@ def file_captures(files: list[Path], o: dict, say: Callable[[str], None], tell: 
                 done.append(file_one(ready, book, labels, options, say))
             except BenchkitError as exc:
                 refused.append((path, str(exc)))
+            except OSError as exc:  # (a disk full, a file gone or unreadable: this capture only)
+                where = f" ({exc.filename})" if exc.filename and str(exc.filename) != str(path) else ""
+                refused.append((path, f"{path}: cannot file it: {exc.strerror or exc}{where}"))
     return done, refused

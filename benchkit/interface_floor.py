@@ -15,6 +15,22 @@ interface's input, a result's ``fundamental_dbfs`` is too), and noise in
 dBFS at the input against the floor's noise, unweighted with unweighted
 and A-weighted with A-weighted.
 
+The floor's THD+N is measured at one frequency (997 Hz: the self-test's
+level steps, the calibration's loopback), so THD+N is judged against it
+only where the result's fundamental lies in the floor's *judged range*
+(:meth:`Floor.judged_hz`): where the self-test's response steps (one
+level, 20 Hz to 20 kHz) read a THD+N within :data:`FLAT_DB` of their
+reading nearest the floor's frequency, the contiguous span around it
+(``flat_hz``, stored with the floor); a floor that states no such span
+(the calibration's one loopback point, a floor stored before the span
+was) is taken to hold within :data:`SPAN_OCTAVES` octave either side of
+its frequency. A THD+N at a fundamental outside that range is not judged
+(no margin, no mark) and counted in the floor's ``not_judged``; a result
+that states no frequency is judged. Noise is judged at every frequency:
+the floor's noise is over the whole band, as a result's is. The line
+that states the floor (:func:`summary_line`) states the range and the
+count not judged.
+
 Pure: documents in, documents out; no I/O, no printing.
 """
 
@@ -34,6 +50,23 @@ from benchkit.errors import BenchWarning
 #: (10^(-6/10) = 0.25; common practice, from memory: a measuring set should
 #: sit some 6 to 10 dB under what it measures).
 MARGIN_DB = 6.0
+
+#: Where the floor states no frequency: the self-test's and the
+#: calibration's loopback tone (benchkit.kinds.loopback.FREQ_HZ,
+#: benchkit.calibrate.CAL_FREQ_HZ), Hz.
+TEST_FREQ_HZ = 997.0
+
+#: A floor without a measured flat span is trusted this many octaves
+#: either side of its frequency (a judgement, not a published figure: an
+#: interface's residual is mostly its noise, flat over the band, and within
+#: an octave the harmonics a 20 kHz band keeps change little).
+SPAN_OCTAVES = 1.0
+
+#: The self-test's THD+N across its response steps counts as flat while
+#: it stays within this of its reading nearest the floor's frequency, dB
+#: (half the marking margin: a floor off by this still marks a figure
+#: within 3 dB of it).
+FLAT_DB = 3.0
 
 #: The warning a result gets when any of its figures is marked.
 CODE = "near-interface-floor"
@@ -67,6 +100,12 @@ class Floor:
         When it was measured and what by (a self-test run, the calibration).
     field
         The profile's field it came from: "interface_floor" or "loopback_floor".
+    frequency_hz
+        The frequency its THD+N was measured at (None: not stated,
+        :data:`TEST_FREQ_HZ` taken).
+    flat_hz
+        The span around it where its self-test's THD+N read flat within
+        :data:`FLAT_DB` ([lo, hi] Hz; None: not measured).
     """
 
     levels_dbfs: tuple[float, ...] = ()
@@ -77,6 +116,33 @@ class Floor:
     measured: str | None = None
     source: str = ""
     field: str = "interface_floor"
+    frequency_hz: float | None = None
+    flat_hz: list | None = None
+
+    def judged_hz(self) -> tuple[float, float]:
+        """The fundamentals whose THD+N is judged against this floor, Hz:
+        its ``flat_hz``, else :data:`SPAN_OCTAVES` either side of its
+        frequency."""
+        if self.flat_hz is not None:
+            return float(self.flat_hz[0]), float(self.flat_hz[1])
+        f = self.frequency_hz or TEST_FREQ_HZ
+        return f / 2.0**SPAN_OCTAVES, f * 2.0**SPAN_OCTAVES
+
+    def judges(self, fundamental_hz: float | None) -> bool:
+        """Whether a THD+N at this fundamental is judged against the floor
+        (its judged range, to 1 %; a fundamental not stated is judged)."""
+        if fundamental_hz is None:
+            return True
+        lo, hi = self.judged_hz()
+        return lo * 0.99 <= fundamental_hz <= hi * 1.01
+
+    def rule(self) -> str:
+        """Where its THD+N is judged, in words."""
+        lo, hi = self.judged_hz()
+        f = self.frequency_hz or TEST_FREQ_HZ
+        why = (f"where its self-test's THD+N read flat within {FLAT_DB:g} dB" if self.flat_hz is not None
+               else f"{SPAN_OCTAVES:g} octave either side of {f:g} Hz, assumed")
+        return f"THD+N judged only at {lo:.4g}-{hi:.4g} Hz ({why}), noise at every frequency"
 
     def thdn_db_at(self, level_dbfs: float) -> float | None:
         """The floor's THD+N at an input level, dB (None: it has none).
@@ -116,14 +182,17 @@ class Floor:
         """The floor as a result document states it."""
         return {"from": self.field, "source": self.source, "measured": self.measured,
                 "levels_dbfs": list(self.levels_dbfs), "thdn_db": list(self.thdn_db), "noise_dbfs": self.noise_dbfs,
-                "noise_a_dbfs": self.noise_a_dbfs, "bandwidth_hz": self.bandwidth_hz, "margin_db": MARGIN_DB}
+                "noise_a_dbfs": self.noise_a_dbfs, "bandwidth_hz": self.bandwidth_hz, "margin_db": MARGIN_DB,
+                "frequency_hz": self.frequency_hz or TEST_FREQ_HZ, "flat_hz": self.flat_hz,
+                "judged_hz": [round(v, 3) for v in self.judged_hz()]}
 
     def text(self) -> str:
         """The floor in words: its lowest THD+N and where, its noise."""
         parts = []
         if self.thdn_db:
             k = int(np.argmin(self.thdn_db))
-            parts.append(f"THD+N {self.thdn_db[k]:.1f} dB at {self.levels_dbfs[k]:.0f} dBFS")
+            parts.append(f"THD+N {self.thdn_db[k]:.1f} dB at {self.levels_dbfs[k]:.0f} dBFS, "
+                         f"{self.frequency_hz or TEST_FREQ_HZ:g} Hz")
         if self.noise_dbfs is not None:
             parts.append(f"noise {self.noise_dbfs:.1f} dBFS")
         if self.noise_a_dbfs is not None:
@@ -154,6 +223,13 @@ def problem(floor: dict) -> str | None:
     band = floor.get("bandwidth_hz")
     if band is not None and not (isinstance(band, list) and len(band) == 2 and all(_number(v) for v in band)):
         return "bandwidth_hz must be [lo, hi] in Hz"
+    flat = floor.get("flat_hz")
+    if flat is not None and not (isinstance(flat, list) and len(flat) == 2 and all(_number(v) and v > 0 for v in flat)
+                                 and flat[0] <= flat[1]):
+        return "flat_hz must be [lo, hi] in Hz"
+    f = floor.get("frequency_hz")
+    if f is not None and not (_number(f) and f > 0):
+        return "frequency_hz must be a frequency in Hz or null"
     return None
 
 
@@ -166,7 +242,8 @@ def floor_of(calibration: dict | None) -> Floor | None:
     if isinstance(got, dict) and got and problem(got) is None:
         floor = Floor(tuple(got.get("levels_dbfs", [])), tuple(got.get("thdn_db", [])), got.get("noise_dbfs"),
                       got.get("noise_a_dbfs"), got.get("bandwidth_hz"), got.get("measured"),
-                      str(got.get("source") or "interface self-test"))
+                      str(got.get("source") or "interface self-test"), frequency_hz=got.get("frequency_hz"),
+                      flat_hz=got.get("flat_hz"))
         return floor if floor.thdn_db or floor.noise_dbfs is not None or floor.noise_a_dbfs is not None else None
     old = cal.get("loopback_floor")
     if not isinstance(old, dict) or not old:
@@ -178,27 +255,34 @@ def floor_of(calibration: dict | None) -> Floor | None:
     where = cal.get("file")
     return Floor((old["level_dbfs"],) if point else (), (old["thdn_db"],) if point else (), noise, None,
                  old.get("bandwidth_hz"), cal.get("created") or None,
-                 "the calibration's loopback" + (f" ({where})" if where else ""), "loopback_floor")
+                 "the calibration's loopback" + (f" ({where})" if where else ""), "loopback_floor",
+                 old["frequency_hz"] if _number(old.get("frequency_hz")) and old["frequency_hz"] > 0 else None)
 
 
-def _margins(node: dict, floor: Floor, scale: float | None) -> dict[str, float]:
+def _margins(node: dict, floor: Floor, scale: float | None, hz: float | None) -> tuple[dict[str, float], int]:
     """Each figure of one node comparable with the floor, and its margin
-    over it (figure less floor, dB)."""
-    got = {}
+    over it (figure less floor, dB); and how many of its THD+N figures
+    were not judged, their fundamental ``hz`` outside the floor's judged
+    range."""
+    got, skipped = {}, 0
     thdn, level = node.get("thdn_db"), node.get("fundamental_dbfs")
     if _number(thdn) and _number(level):
         at = floor.thdn_db_at(level)
-        if at is not None:
+        if at is not None and not floor.judges(hz):
+            skipped += 1
+        elif at is not None:
             got["thdn_db"] = thdn - at
     elif _number(node.get("thdn_pct")) and _number(node.get("vrms")) and scale and node["thdn_pct"] > 0:
         # a power step: its level at the input from its volts and the run's scale (volts peak per FS)
         at = floor.thdn_db_at(units.dbfs_from_rms(node["vrms"] / scale))
-        if at is not None:
+        if at is not None and not floor.judges(hz):
+            skipped += 1
+        elif at is not None:
             got["thdn_pct"] = units.db_from_ratio(node["thdn_pct"] / 100.0) - at
     for key, ref in (("noise_dbfs", floor.noise_dbfs), ("noise_a_dbfs", floor.noise_a_dbfs)):
         if _number(node.get(key)) and ref is not None:
             got[key] = node[key] - ref
-    return got
+    return got, skipped
 
 
 def _same_band(band, floor: Floor) -> bool:
@@ -211,20 +295,33 @@ def _same_band(band, floor: Floor) -> bool:
         return False
 
 
-def _walk(node, floor: Floor, scale: float | None, band=None) -> int:
-    """Mark every node under ``node`` in place; how many figures were marked."""
+#: What :func:`mark` writes into a node (taken out again before it marks, so that marking twice marks once).
+_MARKS = ("interface_floor_margin_db", "near_interface_floor")
+
+
+def _walk(node, floor: Floor, scale: float | None, band=None, hz: float | None = None) -> tuple[int, int]:
+    """Mark every node under ``node`` in place (its old marks replaced);
+    how many figures were marked, and how many THD+N figures were not
+    judged for their frequency."""
     if isinstance(node, list):
-        return sum(_walk(item, floor, scale, band) for item in node)
+        counts = [_walk(item, floor, scale, band, hz) for item in node]
+        return sum(c[0] for c in counts), sum(c[1] for c in counts)
     if not isinstance(node, dict):
-        return 0
+        return 0, 0
+    for key in _MARKS:
+        node.pop(key, None)
     cond = node.get("conditions")
     if isinstance(cond, dict) and _number(cond.get("volts_per_fs")) and cond["volts_per_fs"] > 0:
         scale = cond["volts_per_fs"]
     for where in (cond if isinstance(cond, dict) else {}, node):
         if isinstance(where.get("bandwidth_hz"), (list, tuple)) and len(where["bandwidth_hz"]) == 2:
             band = where["bandwidth_hz"]
+    for key in ("fundamental_hz", "frequency_hz"):  # a node's own frequency, else the one it lies under
+        if _number(node.get(key)) and node[key] > 0:
+            hz = float(node[key])
+            break
     marked = 0
-    margins = _margins(node, floor, scale) if _same_band(band, floor) else {}
+    margins, skipped = _margins(node, floor, scale, hz) if _same_band(band, floor) else ({}, 0)
     if margins:
         near = [k for k, m in margins.items() if m < MARGIN_DB]
         node["interface_floor_margin_db"] = {k: round(m, 2) for k, m in margins.items()}
@@ -233,8 +330,9 @@ def _walk(node, floor: Floor, scale: float | None, band=None) -> int:
         marked += len(near)
     for key, value in list(node.items()):
         if key not in _SKIPPED and isinstance(value, (dict, list)):
-            marked += _walk(value, floor, scale, band)
-    return marked
+            m, k = _walk(value, floor, scale, band, hz)
+            marked, skipped = marked + m, skipped + k
+    return marked, skipped
 
 
 def mark(doc: dict, calibration: dict | None = None) -> dict:
@@ -248,10 +346,18 @@ def mark(doc: dict, calibration: dict | None = None) -> dict:
     ``vrms`` and the run's volts per FS), ``noise_dbfs`` or
     ``noise_a_dbfs`` gets ``interface_floor_margin_db`` (each figure less
     the floor there, dB) and, where a margin is under :data:`MARGIN_DB`,
-    ``near_interface_floor`` (those figures' keys). The document gets
-    ``interface_floor`` (the floor as used, its source, and ``marked``:
-    how many figures) and, when any is marked, one warning of code
+    ``near_interface_floor`` (those figures' keys). A THD+N is judged
+    only at a fundamental (the node's ``fundamental_hz`` or
+    ``frequency_hz``, else the one of the node it lies under) within the
+    floor's judged range (:meth:`Floor.judged_hz`; the module's note);
+    noise at every frequency. The document gets ``interface_floor`` (the
+    floor as used, its source, its judged range, ``marked``: how many
+    figures, ``not_judged``: how many THD+N figures lay outside the
+    range) and, when any is marked, one warning of code
     ``near-interface-floor``.
+
+    Marking is idempotent: a document marked before has its old marks and
+    its old warning of that code replaced, so ``mark(mark(d)) == mark(d)``.
 
     Parameters
     ----------
@@ -278,8 +384,10 @@ def mark(doc: dict, calibration: dict | None = None) -> dict:
     if floor is None:
         return doc
     out = copy.deepcopy(doc)
-    marked = _walk(out, floor, None)
-    out["interface_floor"] = {**floor.to_dict(), "marked": marked}
+    marked, skipped = _walk(out, floor, None)
+    out["interface_floor"] = {**floor.to_dict(), "marked": marked, "not_judged": skipped}
+    if isinstance(out.get("warnings"), list):  # (a warning of this code is this function's own: made again below)
+        out["warnings"] = [w for w in out["warnings"] if not (isinstance(w, dict) and w.get("code") == CODE)]
     if marked:
         one = marked == 1
         warning = BenchWarning(CODE, f"{units.count(marked, 'figure')} {'lies' if one else 'lie'} within {MARGIN_DB:g} "
@@ -291,13 +399,21 @@ def mark(doc: dict, calibration: dict | None = None) -> dict:
 
 def summary_line(doc: dict) -> str | None:
     """The floor a marked document used, in one line for its summary on
-    screen (None: it used none)."""
+    screen (None: it used none): its figures, where its THD+N is judged
+    (:meth:`Floor.rule`), how many figures are marked and how many THD+N
+    figures were not judged for their frequency."""
     used = doc.get("interface_floor") if isinstance(doc, dict) else None
     if not isinstance(used, dict):
         return None
+    flat = used.get("flat_hz")
     floor = Floor(tuple(used.get("levels_dbfs") or ()), tuple(used.get("thdn_db") or ()), used.get("noise_dbfs"),
-                  used.get("noise_a_dbfs"))
+                  used.get("noise_a_dbfs"), frequency_hz=used.get("frequency_hz"),
+                  flat_hz=flat if isinstance(flat, list) and len(flat) == 2 else None)
     n = used.get("marked", 0)
     marks = (f"{units.count(n, 'figure')} within {MARGIN_DB:g} dB of it {'is' if n == 1 else 'are'} marked" if n
              else f"no figure lies within {MARGIN_DB:g} dB of it")
-    return f"interface floor ({used.get('source')}): {floor.text() or 'no figures'}; {marks}"
+    skipped = used.get("not_judged") or 0
+    if skipped:
+        marks += f"; {units.count(skipped, 'THD+N figure')} at other frequencies not judged"
+    rule = f"; {floor.rule()}" if floor.thdn_db else ""
+    return f"interface floor ({used.get('source')}): {floor.text() or 'no figures'}{rule}; {marks}"

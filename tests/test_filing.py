@@ -188,3 +188,75 @@ def test_a_stepped_capture_benchkit_wrote_files_with_the_figures_analyze_gives(t
             assert mine[key] == pytest.approx(theirs[key], rel=1e-9), key
     record = _json(run_cli("log", "show", "last", "--bench", str(bench), "--json"))
     assert record["filed"]["scale_source"] == "simulation" and record["params"]["load_ohms"] == 8.0
+
+
+def _file_options(tmp_path: Path) -> dict:
+    from benchkit.options import defaults
+
+    return {**defaults("channel fundamental bandwidth averages volts_per_fs load calibration ref_channel ref_freq smooth "
+                       "as_kind rail json", "figures", "filing"), "level": "-20dBFS", "volts_per_fs": 20.0,
+            "stage_info": ["name=B-2"], "bench": tmp_path / "bench"}
+
+
+def test_a_file_system_error_on_one_capture_leaves_the_others_filed(tmp_path, monkeypatch):
+    from typer.testing import CliRunner
+
+    from benchkit import filing
+    from benchkit.cli import app
+
+    files = [_tone_with_h2(tmp_path / f"{name}.wav", 0.3, 0.01) for name in ("a", "b", "c")]
+    real = filing.copy_capture
+
+    def disk_full_on_b(source, folder, sidecar, sha256=None):
+        if source.name == "b.wav":
+            raise OSError(28, "No space left on device", str(folder / "capture.wav"))
+        return real(source, folder, sidecar, *([sha256] if sha256 else []))
+
+    monkeypatch.setattr(filing, "copy_capture", disk_full_on_b)
+    done, refused = filing.file_captures(files, _file_options(tmp_path), lambda _m: None, lambda _m: None)
+    assert [d.status for d in done] == ["complete", "complete"]
+    ((path, why),) = refused
+    assert path == files[1] and why.startswith(f"{files[1]}: cannot file it: No space left on device (")
+    # the command: each failure in one line, the others filed, a non-zero exit, no traceback
+    res = CliRunner().invoke(app, ["log", "file", *map(str, files), "--volts-per-fs", "20", "--level", "-20dBFS",
+                                   "--stage-info", "name=B-2", "--bench", str(tmp_path / "bench2")])
+    assert res.exit_code == 1 and "Traceback" not in res.output
+    (error,) = [line for line in res.output.splitlines() if line.startswith("benchkit: error:")]
+    assert error.startswith(f"benchkit: error: {files[1]}: cannot file it: No space left on device (")
+    assert len(run_folders(tmp_path / "bench2")) == 3  # a, c complete; b's run failed, as a live run's would
+
+
+def test_the_hash_recorded_is_the_stored_copys_and_a_changed_original_is_not_filed(tmp_path, monkeypatch):
+    from benchkit import filing, logbook
+
+    wav = _tone_with_h2(tmp_path / "a.wav", 0.3, 0.01)
+    flac = tmp_path / "b.flac"
+    sf.write(str(flac), sf.read(str(wav))[0], RATE, subtype="PCM_24")
+    done, refused = filing.file_captures([wav, flac], _file_options(tmp_path), lambda _m: None, lambda _m: None)
+    assert refused == [] and len(done) == 2
+    for filed, original in zip(done, (wav, flac)):
+        record = filed.run.record["filed"]
+        stored = (filed.run.folder / "capture.wav").read_bytes()
+        assert record["copy_sha256"] == hashlib.sha256(stored).hexdigest()  # hashlib's, of the bytes on disk
+        assert record["sha256"] == hashlib.sha256(original.read_bytes()).hexdigest()
+    assert done[0].run.record["filed"]["copy_sha256"] == done[0].run.record["filed"]["sha256"]  # a WAV: byte for byte
+    # the FLAC rewritten as a float WAV holds its samples (24-bit integers are exact in float32)
+    assert np.array_equal(sf.read(str(done[1].run.folder / "capture.wav"))[0], sf.read(str(flac))[0])
+
+    # the original changed between its analysis and its copy: the copy is not the file analysed, the run fails
+    real = filing.prepare
+
+    def then_changed(path, *a, **k):
+        ready = real(path, *a, **k)
+        x = sf.read(str(path))[0]
+        sf.write(str(path), 0.5 * x, RATE, subtype="FLOAT")
+        return ready
+
+    monkeypatch.setattr(filing, "prepare", then_changed)
+    o = {**_file_options(tmp_path), "bench": tmp_path / "bench3"}
+    done, refused = filing.file_captures([wav], o, lambda _m: None, lambda _m: None)
+    ((_path, why),) = refused
+    assert done == [] and "changed after it was analysed" in why and "\n" not in why
+    with logbook.Logbook(tmp_path / "bench3") as book:
+        (entry,) = book.entries()
+    assert entry.status == "failed" and "changed after it was analysed" in entry.error

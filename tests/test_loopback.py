@@ -100,6 +100,15 @@ def test_the_floor_goes_into_the_calibration_profile(tmp_path):
     assert floor["thdn_db"] == [r["thdn_db"] for r in doc["levels"]]
     assert floor["levels_dbfs"] == [r["level_dbfs"] for r in doc["levels"]]
     assert floor["noise_dbfs"] == doc["noise_dbfs"] and "loopback run" in floor["source"]
+    # its THD+N's frequency, and the span of the response's frequencies around it where the response
+    # steps' THD+N stays within 3 dB of the one nearest 997 Hz (recomputed here from the result's rows)
+    assert floor["frequency_hz"] == 997.0
+    rows = sorted(doc["response"], key=lambda r: r["frequency_hz"])
+    k = min(range(len(rows)), key=lambda i: abs(rows[i]["frequency_hz"] - 997.0))
+    lo, hi = floor["flat_hz"]
+    assert lo <= 1000.0 <= hi
+    inside = [r for r in rows if lo * 0.999 <= r["frequency_hz"] <= hi * 1.001]
+    assert all(abs(r["thdn_db"] - rows[k]["thdn_db"]) <= 3.0 for r in inside)
     assert f"stored the interface's floor in {profile}" in res.stderr
     # a later run with the profile states the floor and marks the step within 6 dB of it: a stage
     # without noise or ripple of its own leaves the interface's noise as the residual at -60 dBFS; at -6

@@ -44,13 +44,15 @@ class LevelRow:
 class ResponseRow:
     """One frequency of the response: the measuring input re its level at
     REF_HZ, the second input likewise, and the two against each other
-    (level dB and phase degrees, the measuring input's less the second's)."""
+    (level dB and phase degrees, the measuring input's less the second's);
+    the measuring input's THD+N there (dB, at the response's level)."""
 
     frequency_hz: float
     gain_db: float
     other_db: float | None = None
     match_db: float | None = None
     phase_deg: float | None = None
+    thdn_db: float | None = None
 
 
 def level_rows(steps) -> tuple[LevelRow, ...]:
@@ -74,12 +76,12 @@ def response_rows(first, second=None) -> tuple[ResponseRow, ...]:
     for i, r in enumerate(first):
         gain = units.db_from_ratio(r.fundamental_fs / first[ref].fundamental_fs)
         if second is None:
-            rows.append(ResponseRow(r.fundamental_hz, gain))
+            rows.append(ResponseRow(r.fundamental_hz, gain, thdn_db=r.thdn_db))
             continue
         o = second[i]
         phase = (r.fundamental_phase_deg - o.fundamental_phase_deg + 180.0) % 360.0 - 180.0
         rows.append(ResponseRow(r.fundamental_hz, gain, units.db_from_ratio(o.fundamental_fs / second[ref].fundamental_fs),
-                                units.db_from_ratio(r.fundamental_fs / o.fundamental_fs), phase))
+                                units.db_from_ratio(r.fundamental_fs / o.fundamental_fs), phase, r.thdn_db))
     return tuple(rows)
 
 
@@ -133,10 +135,32 @@ class LoopbackResult:
         """A level in dBFS at the input as volts RMS, with a scale."""
         return None if self.volts_per_fs is None else units.rms_from_dbfs(dbfs) * self.volts_per_fs
 
+    def flat_hz(self, frequency_hz: float, within_db: float) -> list[float] | None:
+        """The span of the response's frequencies, around the one nearest
+        ``frequency_hz``, over which its THD+N stays within ``within_db``
+        of its reading there ([lo, hi] Hz; None: no THD+N read)."""
+        rows = [row for row in self.response if row.thdn_db is not None and np.isfinite(row.thdn_db)]
+        if not rows:
+            return None
+        rows.sort(key=lambda row: row.frequency_hz)
+        k = min(range(len(rows)), key=lambda i: abs(np.log(rows[i].frequency_hz / frequency_hz)))
+        lo = hi = k
+        while lo > 0 and abs(rows[lo - 1].thdn_db - rows[k].thdn_db) <= within_db:
+            lo -= 1
+        while hi < len(rows) - 1 and abs(rows[hi + 1].thdn_db - rows[k].thdn_db) <= within_db:
+            hi += 1
+        return [float(f"{rows[lo].frequency_hz:.6g}"), float(f"{rows[hi].frequency_hz:.6g}")]
+
     def floor(self, source: str, measured: str) -> dict:
         """The interface's floor as a calibration profile keeps it: the
-        residual THD+N against input level, the noise over the band."""
+        residual THD+N against input level and the frequency it was read
+        at, the span around it where the response's THD+N reads flat
+        (:data:`benchkit.interface_floor.FLAT_DB`), the noise over the band."""
+        from benchkit.interface_floor import FLAT_DB, TEST_FREQ_HZ
+
+        f = float(self.conditions.get("frequency_hz") or TEST_FREQ_HZ)
         return {"levels_dbfs": [row.level_dbfs for row in self.levels], "thdn_db": [row.thdn_db for row in self.levels],
+                "frequency_hz": f, "flat_hz": self.flat_hz(f, FLAT_DB),
                 "noise_dbfs": self.noise_dbfs, "noise_a_dbfs": self.noise_a_dbfs,
                 "bandwidth_hz": list(self.bandwidth_hz) if self.bandwidth_hz else None, "measured": measured,
                 "source": source}

@@ -42,6 +42,26 @@ def each_channel(files, options):
                 yield path, replace(options, channel=k)
 
 
+def floor_lines(docs: list[dict]) -> list[str]:
+    """The interface floor each result of a batch was judged against, one
+    line a result that has one, as a single file's summary states it
+    (:func:`benchkit.interface_floor.summary_line`), led by its file (and
+    channel, when the batch holds several channels of one file)."""
+    from benchkit.interface_floor import summary_line
+
+    files = [d.get("file") for d in docs]
+    lines = []
+    for d in docs:
+        line = summary_line(d)
+        if line is None:
+            continue
+        where = str(d.get("file") or "")
+        if files.count(d.get("file")) > 1 and d.get("channel") is not None:
+            where += f" channel {d['channel']}"
+        lines.append(f"{where}: {line}" if where else line)
+    return lines
+
+
 @app.command()
 @takes("channel fundamental bandwidth averages volts_per_fs load calibration out sweep ref_channel ref_freq smooth "
        "time_col value_col as_kind zout open_load imd rail json", "figures", "judge", "shown",
@@ -56,7 +76,9 @@ def analyze(files: List[Path] = typer.Argument(..., help="WAV or FLAC captures."
     sines, a two-tone, noise or crosstalk run) is recognised from its
     sidecar; --sweep, --imd, --as noise and --zout analyse ones made
     elsewhere. Several files (or --channel all) print one table, a row a
-    file and channel, and --out writes summary.csv beside the reports.
+    file and channel, then the interface floor each result was judged
+    against (a line a result, as one file's summary states it), and --out
+    writes summary.csv beside the reports.
 
     Example: benchkit analyze sample_captures/b2-bias0.8A-997Hz-steps.wav --load 8 --out report/
     """
@@ -99,6 +121,8 @@ def analyze(files: List[Path] = typer.Argument(..., help="WAV or FLAC captures."
 
         headers, rows = kinds.batch_rows(docs)
         answer(batch_table(headers, rows), o["json"])
+        for line in floor_lines(docs):
+            answer(line, o["json"])
         if o["out"] is not None:
             err(f"  wrote        {write_batch_csv(headers, rows, Path(o['out']) / 'summary.csv')}")
     if o["json"]:

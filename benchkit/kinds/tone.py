@@ -124,14 +124,22 @@ FLOOR_MARGIN_DB = 3.0
 
 
 def floor_warning(result: ToneResult, calibration: dict | None) -> str | None:
-    """A warning when a THD+N lies within FLOOR_MARGIN_DB of the interface's
-    own floor at its level (the interface, not the stage): the floor a
-    capture's calibration block holds, its THD+N at this level as
-    :meth:`benchkit.interface_floor.Floor.thdn_db_at` reads it."""
+    """A warning when a THD+N lies within FLOOR_MARGIN_DB of the
+    calibration's one loopback point (``loopback_floor``) at its level
+    (the interface, not the stage), its THD+N at this level as
+    :meth:`benchkit.interface_floor.Floor.thdn_db_at` reads it, and only
+    at a fundamental that floor judges (:meth:`~benchkit.interface_floor.Floor.judges`).
+
+    None when the calibration holds a self-test's floor
+    (``interface_floor``): :func:`benchkit.interface_floor.mark` judges
+    every figure against that one and warns once, so the figure is not
+    warned about twice."""
     from benchkit.interface_floor import floor_of
 
     floor = floor_of(calibration)
-    limit = None if floor is None else floor.thdn_db_at(result.fundamental_dbfs)
+    if floor is None or floor.field != "loopback_floor" or not floor.judges(result.fundamental_hz):
+        return None
+    limit = floor.thdn_db_at(result.fundamental_dbfs)
     if limit is None:
         return None
     if result.thdn_db < limit + FLOOR_MARGIN_DB:
