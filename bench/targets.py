@@ -29,6 +29,7 @@ def rows() -> list[tuple]:
     """(loop, figure, its unit, target, "max" or "min"[, the figure's resolution in this run])."""
     out = [("analyze_tone, 1 s at 96 kHz, over one rfft of it", analysis_speed.ratio(), "x", 2.0, "max"),
            ("sweep analysis, 10 s at 192 kHz, over its duration", sweep_speed.ratio(), "", 0.02, "max"),
+           ("the same, the first of its sweep design in a process", sweep_speed.first_ratio(), "", 0.02, "max"),
            ("stepped run of 20 steps (JACK), wall over stimulus", capture_overhead.ratio(), "", 1.05, "max"),
            ("benchkit --version, start to first output", cli_start.seconds(), "s", 0.2, "max")]
     for f in (997.0, 20.0):

@@ -141,7 +141,7 @@ def kernel_at_bins(j: np.ndarray, delta: float, n: int) -> np.ndarray:
         # of sines), and near the tone, where a small sine needs its relative
         # accuracy, from sin itself
         m = np.arange(j[0] - 3, j[-1] + 4)
-        turn = _turns(np.pi * (m[0] - delta) / n, m.size, np.pi / n)
+        turn = phasor_run(np.pi * (m[0] - delta) / n, m.size, np.pi / n)
         ext = turn.imag
         close = np.abs(m) <= 64
         ext[close] = np.sin(np.pi * (m[close] - delta) / n)
@@ -179,7 +179,7 @@ def kernel_at_bins(j: np.ndarray, delta: float, n: int) -> np.ndarray:
     return out
 
 
-def _turns(first: float, count: int, step: float) -> np.ndarray:
+def phasor_run(first: float, count: int, step: float) -> np.ndarray:
     """``e^{j (first + i step)}`` for i = 0..count-1, as the outer product of
     about sqrt(count) block starts and in-block steps: each value within a
     few ulp of the direct exponential, for two short exp calls."""

@@ -33,6 +33,7 @@ import numpy as np
 # command line (which reads this module) starts without it
 
 from benchkit.analysis import refuse_non_finite
+from benchkit.analysis.spectrum import phasor_run
 from benchkit.errors import BenchkitError
 
 #: Raised-cosine fade-in over the first third of an octave and fade-out
@@ -131,9 +132,11 @@ class SyncSweep:
         out = np.zeros(f.shape, dtype=complex)
         pos = f > 0
         fp = f[pos]
-        out[pos] = 2 * np.sqrt(fp / self.L) * np.exp(
-            -2j * np.pi * fp * self.L * (1 - np.log(fp / self.f1_hz)) + 1j * np.pi / 4
-        )
+        phase = -2 * np.pi * fp * self.L * (1 - np.log(fp / self.f1_hz)) + np.pi / 4
+        mag = 2 * np.sqrt(fp / self.L)
+        # (the real cosine and sine: far quicker than a complex exponential)
+        out.real[pos] = mag * np.cos(phase)
+        out.imag[pos] = mag * np.sin(phase)
         return out
 
     def windows(self, orders: int) -> list[tuple[float, float]]:
@@ -212,11 +215,22 @@ def _deconvolution_kernel(sweep: SyncSweep, nfft: int) -> tuple[np.ndarray, ...]
     else:
         m = nfft // 2
         g[0], g[m] = g[0].real, g[m].real
-        w = np.exp(-2j * np.pi * np.arange(m + 1) / nfft)
-        ga, gb = g * (0.5 - 0.5j * w), g * (0.5 + 0.5j * w)
-        c, d = 0.5 + 0.5j * np.conj(w[:m]), 0.5 - 0.5j * np.conj(w[:m])
+        # a_k = 1/2 - (j/2) W^k, b_k = 1 - a_k; c_k = conj(a_k), d_k = 1 - c_k
+        # (W^k from a table of phasors; each step in place: these arrays are
+        # the transform's length, and fresh ones cost their pages)
+        a = phasor_run(0.0, m + 1, -2 * np.pi / nfft)
+        a *= -0.5j
+        a += 0.5
+        ga = g * a
+        gb = np.subtract(g, ga, out=g)  # g b_k = g - g a_k
         rev = slice(m, 0, -1)  # index M-k for k = 0..M-1
-        out = (c * ga[:m] + d * np.conj(gb[rev]), c * gb[:m] + d * np.conj(ga[rev]))
+        c = np.conjugate(a[:m], out=a[:m])
+        d = np.subtract(1.0, c)
+        p = c * ga[:m]
+        p += np.conjugate(gb[rev]) * d
+        q = np.multiply(c, gb[:m], out=c)
+        q += np.conjugate(ga[rev]) * d
+        out = (p, q)
     for a in out:
         a.setflags(write=False)
     return out
