@@ -514,7 +514,11 @@ def noise_floor_amp2(rspec: np.ndarray, n: int, nu1: float, orders: np.ndarray,
     width = min(FLOOR_BINS, total)
     at = orders * nu1
     # the noise bins below each harmonic (below ceil(at): the bins are whole)
-    below = np.sum(np.clip(np.ceil(at)[:, None] - starts[None, :], 0, lengths[None, :]), axis=1).astype(np.int64)
+    # (one bisection a harmonic: the run at or before ceil(at), the runs
+    # below it whole and its own part)
+    c = np.ceil(at)
+    run = np.maximum(np.searchsorted(starts, c, side="right") - 1, 0)
+    below = ((ends - lengths)[run] + np.clip(c - starts[run], 0, lengths[run])).astype(np.int64)
     first = np.clip(below - width // 2, 0, total - width)
     pools = sp.power(rspec[_noise_bin(first[:, None] + np.arange(width)[None, :], starts, lengths, ends)])
     # the read's gain varies by under 0.1 % with the fraction of a bin: one will do
