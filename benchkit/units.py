@@ -283,6 +283,18 @@ class LevelView:
         return quantity(shown, shown_unit, 4) if shown_unit in ("Vrms", "W") else (
             f"{shown:.2f} dBFS" if shown_unit == "dBFS" else f"{shown:+.2f} {shown_unit}")
 
+    def also(self, value: float | None, unit: str, volts_per_fs: float | None = None,
+             load_ohms: float | None = None, shown: tuple[str, ...] = ("Vrms", "W")) -> str:
+        """A stored level (:meth:`stored`) as text in the chosen unit, for a
+        screen that shows it already in ``shown``: "" when no unit is
+        chosen, the value is missing, or the chosen one falls back to one
+        of those."""
+        if self.unit is None or value is None:
+            return ""
+        if self.stored(value, unit, volts_per_fs, load_ohms)[1] in shown:
+            return ""
+        return self.stored_text(value, unit, volts_per_fs, load_ohms)
+
     def own(self, dbfs: float | None, vrms: float | None = None, watts: float | None = None) -> bool:
         """Whether a level shows in a unit of its own here (dBV, dBu, dBr:
         the screens show dBFS, volts and watts anyway)."""
