@@ -29,6 +29,9 @@ class ComparisonReport:
     entries: tuple[RunEntry, ...]
     files: tuple[Path, ...]
     text: str
+    #: each run's scale and load ((volts peak per FS, ohms), None where it
+    #: has none): what shows its levels in other units
+    scales: tuple[tuple[float | None, float | None], ...] = ()
 
 
 def stored_result(book: Logbook, entry: RunEntry) -> tuple[dict, dict]:
@@ -91,6 +94,7 @@ def compare_runs(book: Logbook, refs: list[str], anyway: bool = False, out: Path
     comparisons/<time>-<first>-vs-<second> in the bench folder)."""
     from benchkit.recordings import write_text_atomic
     from benchkit.report import summary, tables
+    from benchkit.report.logbook import level_scale
 
     entries = [book.entry(r) for r in refs]
     if len({e.id for e in entries}) < len(entries):
@@ -109,7 +113,14 @@ def compare_runs(book: Logbook, refs: list[str], anyway: bool = False, out: Path
                tables.write_deltas_csv(comparison, out / "comparison.csv")]
     if kind.overlay is not None:  # (a single figure, a gain: the delta table says it all)
         written += kind.overlay(comparison, docs, entries, out, title)
-    text = f"{title}\n" + summary.comparison_text(comparison)
+    scales = tuple(_scale(level_scale(d), c) for d, c in zip(docs, comparison.conditions))
+    text = f"{title}\n" + summary.comparison_text(comparison, scales)
     written.append(write_text_atomic(out / "summary.txt", text + "\n"))
-    return ComparisonReport(out, comparison, tuple(entries), tuple(written), text)
+    return ComparisonReport(out, comparison, tuple(entries), tuple(written), text, scales)
+
+
+def _scale(scale: tuple[float | None, float | None], conditions: dict) -> tuple[float | None, float | None]:
+    """A run's scale and load, the load from its conditions when its result keeps none."""
+    vpf, load = scale
+    return vpf, load if load is not None else conditions.get("load_ohms")
 

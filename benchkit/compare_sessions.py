@@ -168,7 +168,7 @@ def write_table(c: SessionComparison, path: Path) -> Path:
 
 def comparison_text(c: SessionComparison) -> str:
     """The table on one screen: every measurement's headline figures."""
-    from benchkit.report.summary import delta_table
+    from benchkit.report.summary import delta_table, levels_shown
 
     lines = [f"!! NOT LIKE FOR LIKE: {p.kind} (step {p.n}): {w}" for p in c.pairs for w in p.report.comparison.warnings]
     lines.append("sessions: " + "; ".join(f"[{k}] {lab} ({d['id']})" for k, (lab, d) in enumerate(zip(c.labels, c.sessions)))
@@ -177,7 +177,7 @@ def comparison_text(c: SessionComparison) -> str:
     for p, d in rows(c):
         if not groups or groups[-1][0] is not p:
             groups.append((p, []))
-        groups[-1][1].append(d)
+        groups[-1][1].extend(levels_shown([d], p.report.scales))
     if groups:
         lines.append(delta_table([(f"{p.n}. {p.kind}" + (f" ({p.label})" if p.label else ""), ds) for p, ds in groups],
                                  len(c.labels)))

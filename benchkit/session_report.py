@@ -143,12 +143,13 @@ def _session(book: Logbook, doc: dict, label: str = "") -> str:
 def _comparison(c) -> str:
     """The before/after table of a session comparison, and its overlays."""
     from benchkit.compare_sessions import rows
-    from benchkit.report.summary import change_text, figure_name
+    from benchkit.report.summary import change_text, figure_name, levels_shown
 
     out = [f'<div class="unlike">NOT LIKE FOR LIKE: {_e(p.kind)} (step {p.n}): {_e(w)}</div>'
            for p in c.pairs for w in p.report.comparison.warnings]
     body = []
     for p, d in rows(c):
+        d = levels_shown([d], p.report.scales)[0]
         changes = []
         for k in range(1, len(d.values)):
             verdict = d.verdict(k) or ""

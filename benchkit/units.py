@@ -206,6 +206,11 @@ class Level:
 LEVEL_UNITS = ("dBFS", "dBV", "dBu", "dBr", "V", "W")
 
 
+#: the units a level is stored in (results, figures): of a sine, re full
+#: scale, volts RMS, watts into the load
+STORED_LEVELS = ("dBFS", "Vrms", "W")
+
+
 @dataclass(frozen=True)
 class LevelView:
     """How levels are shown: ``unit`` one of LEVEL_UNITS, or None for each
@@ -217,25 +222,78 @@ class LevelView:
     unit: str | None = None
     ref: Level | None = None
 
-    def value(self, dbfs: float, vrms: float | None = None, watts: float | None = None) -> tuple[float, str]:
-        """A level (its dBFS; its volts RMS and watts where known) as a
-        number in the chosen unit, and that unit."""
+    def value(self, dbfs: float | None, vrms: float | None = None, watts: float | None = None) -> tuple[float, str]:
+        """A level (its dBFS; its volts RMS and watts where known; one of
+        dBFS and volts at least) as a number in the chosen unit, and that unit."""
         unit = self.unit or ("V" if vrms is not None else "dBFS")
         if unit == "W":
             if watts is not None:
                 return watts, "W"
             unit = "V"
         if unit == "dBr":
-            if self.ref is None or self.ref.unit == "dBFS":
+            if (self.ref is None or self.ref.unit == "dBFS") and dbfs is not None:
                 return dbfs - (self.ref.value if self.ref is not None else 0.0), "dBr"
+            if (self.ref is None or self.ref.unit == "dBFS") and vrms is not None:
+                return vrms, "Vrms"  # (re a level in FS, and no scale to read this one in FS)
             if vrms is not None:
                 return db_from_ratio(vrms / self.ref.to_vrms()), "dBr"
             unit = "dBFS"
+        if dbfs is None and unit == "dBFS":
+            return vrms, "Vrms"  # (a level known only in volts: no scale to read it in FS)
         if vrms is None or unit == "dBFS":
             return dbfs, "dBFS"
         if unit == "V":
             return vrms, "Vrms"
         return float(dbv_from_vrms(vrms) if unit == "dBV" else dbu_from_vrms(vrms)), unit
+
+    def stored(self, value: float, unit: str, volts_per_fs: float | None = None,
+               load_ohms: float | None = None) -> tuple[float, str]:
+        """A level as stored (``unit`` dBFS, Vrms or W, of a sine) in the
+        chosen unit: the scale (volts peak per FS) and the load give what
+        the stored unit alone does not; without them it falls back, as
+        :meth:`value` does (a level known only in volts stays in volts).
+        With no unit chosen it is left as stored."""
+        if self.unit is None or unit not in STORED_LEVELS:
+            return value, unit
+        dbfs = vrms = watts = None
+        if unit == "dBFS":
+            dbfs = value
+            vrms = None if volts_per_fs is None else float(rms_from_dbfs(value)) * volts_per_fs
+        elif unit == "Vrms":
+            vrms = value
+        else:
+            watts = value
+            vrms = None if load_ohms is None else math.sqrt(max(value, 0.0) * load_ohms)
+        if vrms is not None:
+            if dbfs is None and volts_per_fs:
+                dbfs = float(dbfs_from_rms(vrms / volts_per_fs))
+            if watts is None and load_ohms:
+                watts = vrms * vrms / load_ohms
+        if dbfs is None and vrms is None:  # a power with no load: only watts
+            return value, unit
+        return self.value(dbfs, vrms, watts)
+
+    def stored_text(self, value: float, unit: str, volts_per_fs: float | None = None,
+                    load_ohms: float | None = None) -> str:
+        """:meth:`stored` as a person reads it; a level left as stored (no
+        unit chosen, or not a level) prints as :func:`quantity` prints it."""
+        shown, shown_unit = self.stored(value, unit, volts_per_fs, load_ohms)
+        if self.unit is None or unit not in STORED_LEVELS:
+            return quantity(value, unit)
+        return quantity(shown, shown_unit, 4) if shown_unit in ("Vrms", "W") else (
+            f"{shown:.2f} dBFS" if shown_unit == "dBFS" else f"{shown:+.2f} {shown_unit}")
+
+    def also(self, value: float | None, unit: str, volts_per_fs: float | None = None,
+             load_ohms: float | None = None, shown: tuple[str, ...] = ("Vrms", "W")) -> str:
+        """A stored level (:meth:`stored`) as text in the chosen unit, for a
+        screen that shows it already in ``shown``: "" when no unit is
+        chosen, the value is missing, or the chosen one falls back to one
+        of those."""
+        if self.unit is None or value is None:
+            return ""
+        if self.stored(value, unit, volts_per_fs, load_ohms)[1] in shown:
+            return ""
+        return self.stored_text(value, unit, volts_per_fs, load_ohms)
 
     def own(self, dbfs: float | None, vrms: float | None = None, watts: float | None = None) -> bool:
         """Whether a level shows in a unit of its own here (dBV, dBu, dBr:

@@ -184,3 +184,21 @@ def test_bad_imd_input_is_one_line(args, needle):
     res = run_cli("imd", *args)
     assert res.returncode == 1
     assert needle in res.stderr and "Traceback" not in res.stderr
+
+
+def test_the_imd_table_keeps_the_peak_and_shows_its_sine_in_the_unit_chosen(tmp_path):
+    # a two-tone's peak is a peak: its column stays in volts peak whatever --levels-in says; the level in the
+    # chosen unit is a column of its own, named as the sine whose peak is the composite's
+    # (dBu = 20 log10(Vrms / 0.7746 V); a sine's RMS is its peak / sqrt(2))
+    plain = run_cli("imd", "--level", "-20dBFS", "--load", "8", "--json")
+    assert plain.returncode == 0, plain.stderr
+    assert "peak at stage (Vpk)" in plain.stderr and "sine of that peak" not in plain.stderr
+    res = run_cli("imd", "--level", "-20dBFS", "--load", "8", "--levels-in", "dBu", "--json")
+    assert res.returncode == 0, res.stderr
+    peak = json.loads(res.stdout)["steps"][0]["peak_v"]
+    lines = res.stderr.splitlines()
+    at = next(i for i, line in enumerate(lines) if "sine of that peak (dBu)" in line)
+    assert "peak at stage (Vpk)" in lines[at]
+    cells = lines[at + 1].split()
+    assert float(cells[1]) == pytest.approx(peak, abs=0.0006)
+    assert float(cells[2]) == pytest.approx(20 * math.log10(peak / math.sqrt(2) / 0.7746), abs=0.006)

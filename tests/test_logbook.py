@@ -12,6 +12,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import math
 import os
 import signal
 import sqlite3
@@ -406,3 +407,77 @@ def test_what_was_asked_goes_to_stdout_and_json_alone_with_json(tmp_path):
     assert any("bias=1.2A" in line for line in listed.stdout.splitlines())
     as_json = run_cli("tone", "--level", "-20dBFS", "--bench", str(bench), "--json")
     assert json.loads(as_json.stdout)["kind"] == "tone" and "THD+N" in as_json.stderr
+
+
+def _calibrated_tone_runs(tmp_path: Path, *seeds: str) -> Path:
+    """A bench whose tone runs were measured with a calibration profile (volts at the stage)."""
+    cal, bench = tmp_path / "cal.json", tmp_path / "bench"
+    made = run_cli("calibrate", "--reading", "0.14142V", "--pad", "1.8k:200", "--file", str(cal))
+    assert made.returncode == 0, made.stderr
+    for seed in seeds:
+        _json(run_cli("tone", "--level", "-20dBFS", "--load", "8", "--seed", seed, "--calibration", str(cal),
+                      "--bench", str(bench), "--json"))
+    return bench
+
+
+def _figure(line: str) -> float:
+    """The number of a `log show` figure line ("  figure  noise_vrms = -67.00 dBu (drive ...)")."""
+    return float(line.split("=", 1)[1].split()[0])
+
+
+def test_log_show_and_list_show_levels_in_the_unit_chosen(tmp_path):
+    # the run stores its noise in volts RMS; --levels-in reads it in dBu, dBV, and (with the run's scale,
+    # volts peak per FS) in dBFS. The dB figures and THD+N (ratios) are left as they are.
+    bench = _calibrated_tone_runs(tmp_path, "1")
+    record = _json(run_cli("log", "show", "last", "--bench", str(bench), "--json"))
+    noise = next(f for f in record["figures"] if f["name"] == "noise_vrms")
+    volts = noise["value"]
+    result = json.loads((Path(_runs(bench)[0]["folder"]) / record["result_file"]).read_text())
+    vpf = result["conditions"]["volts_per_fs"]
+    want = {
+        "dBu": 20 * math.log10(volts / 0.7746),               # dBu = 20 log10(Vrms / 0.7746 V), 0 dBu = sqrt(0.6) V
+        "dBV": 20 * math.log10(volts / 1.0),                  # dBV = 20 log10(Vrms / 1 V)
+        "dBFS": 20 * math.log10(math.sqrt(2) * volts / vpf),  # AES17: a sine whose peak reaches FS is 0 dBFS
+    }
+    plain = run_cli("log", "show", "last", "--bench", str(bench))
+    assert plain.returncode == 0, plain.stderr
+    line = next(x for x in plain.stdout.splitlines() if "noise_vrms =" in x)
+    assert "uVrms" in line  # (without the option: as stored)
+    thdn = next(x for x in plain.stdout.splitlines() if "thdn_db =" in x)
+    for unit, value in want.items():
+        shown = run_cli("log", "show", "last", "--levels-in", unit, "--bench", str(bench))
+        assert shown.returncode == 0, shown.stderr
+        line = next(x for x in shown.stdout.splitlines() if "noise_vrms =" in x)
+        assert f" {unit} " in line and _figure(line) == pytest.approx(value, abs=0.006), line
+        assert thdn in shown.stdout.splitlines()  # a ratio: not a level
+    listed = run_cli("log", "list", "--levels-in", "dBu", "--bench", str(bench))
+    assert listed.returncode == 0, listed.stderr
+    assert f"noise {want['dBu']:+.2f} dBu" in listed.stdout
+
+
+def test_log_compare_shows_levels_in_the_unit_chosen(tmp_path):
+    # the delta table's levels (the fundamental, the noise) in dBV read from the volts each run stored; their
+    # change in dB; the comparison's files keep the stored units
+    bench = _calibrated_tone_runs(tmp_path, "1", "2")
+    plain = _json(run_cli("compare", "--last", "2", "--bench", str(bench), "--json"))
+    level = next(d for d in plain["deltas"] if d["name"].startswith("level_vrms"))
+    assert level["unit"] == "Vrms"
+    res = run_cli("compare", "--last", "2", "--levels-in", "dBV", "--bench", str(bench))
+    assert res.returncode == 0, res.stderr
+    row = next(x for x in res.stdout.splitlines() if x.strip().startswith("level (drive -20 dBFS)"))
+    cells = row.split(")", 1)[1].split()
+    dbv = [20 * math.log10(v / 1.0) for v in level["values"]]  # dBV = 20 log10(Vrms / 1 V)
+    assert cells[0] == "dBV" and [float(c) for c in cells[1:3]] == pytest.approx(dbv, abs=0.006), row
+    assert float(cells[3]) == pytest.approx(dbv[1] - dbv[0], abs=1e-5)
+    unchanged = next(x for x in res.stdout.splitlines() if x.strip().startswith("THD+N (drive -20 dBFS)"))
+    assert " dB " in unchanged
+    again = _json(run_cli("compare", "--last", "2", "--levels-in", "dBV", "--bench", str(bench), "--json"))
+    assert next(d for d in again["deltas"] if d["name"].startswith("level_vrms"))["unit"] == "Vrms"
+
+
+def test_a_level_unit_the_logbook_cannot_show_is_one_line(tmp_path):
+    bench = _calibrated_tone_runs(tmp_path, "1")
+    for args in (("--levels-in", "dBm"), ("--levels-in", "dBu", "--dbr-ref", "1Vrms"), ("--dbr-ref", "loud")):
+        res = run_cli("log", "show", "last", *args, "--bench", str(bench))
+        assert res.returncode != 0 and "Traceback" not in res.stderr, res.stderr
+        assert len(res.stderr.strip().splitlines()) == 1, res.stderr

@@ -226,3 +226,33 @@ def test_a_measurement_shows_how_long_it_has_been_measuring_on_a_terminal(termin
     assert done < summary and not any("measuring sweep" in line for line in lines[done:])
     ripple = _result(tmp_path / "bench")["ripple_db"]
     assert f"ripple       {ripple:.2f} dB" in screen
+
+
+@pytest.fixture
+def shown_in():
+    """Levels shown in a unit for one test, then back to each screen's own way."""
+    from benchkit import units
+
+    yield units.show_levels_in
+    units.show_levels_in(None)
+
+
+def test_the_gain_and_power_bandwidth_summaries_show_levels_in_the_unit_chosen(shown_in):
+    # dBu = 20 log10(Vrms / 0.7746 V) (0 dBu = sqrt(0.6) V); without --levels-in the screens are as they were
+    from benchkit.report.gain import gain_summary
+    from benchkit.report.power_bandwidth import bandwidth_summary
+
+    gain = {"gain_vv": 10.0, "gain_db": 20.0, "frequency_hz": 997.0, "phase_deg": 0.5, "inverting": False,
+            "vin_vrms": 0.04472, "input_source": "reference-channel", "vout_vrms": 0.4472, "load_ohms": 8.0}
+    band = {"points": [{"frequency_hz": f, "power_w": v * v / 8, "power_u_w": 0.08, "vrms": v, "reached": True}
+                       for f, v in ((20.0, 4.63), (1000.0, 4.68))],
+            "limit_pct": 1.0, "limit_metric": "thdn", "reference_power_w": None, "warnings": []}
+    assert "dBu" not in gain_summary(gain) and "level (Vrms)" in bandwidth_summary(band)
+    shown_in("dBu")
+    text = gain_summary(gain)
+    for v in (0.04472, 0.4472):
+        assert f"({20 * math.log10(v / 0.7746):+.2f} dBu)" in text
+    table = bandwidth_summary(band).splitlines()
+    assert "level (dBu)" in table[0] and "(W)" in table[0]  # the power stays a power
+    assert [float(line.split()[-1]) for line in table[1:3]] == pytest.approx(
+        [20 * math.log10(v / 0.7746) for v in (4.63, 4.68)], abs=0.006)

@@ -182,3 +182,23 @@ def test_a_level_unit_it_cannot_show_is_refused(levels_in):
         levels_in("dBm")
     with pytest.raises(BenchkitError, match="--dbr-ref"):
         levels_in("dBu", "1Vrms")
+
+
+def test_a_stored_level_shows_in_the_unit_chosen_or_as_stored(levels_in):
+    # a level stored in volts or dBFS, read with a run's scale (volts peak per FS) and load: 1.228 Vrms is
+    # +4 dBu (0 dBu = sqrt(0.6) V); with 20 V peak per FS it is 20 log10(sqrt(2) x 1.228 / 20) dBFS (AES17)
+    dbfs = 20 * math.log10(math.sqrt(2) * 1.228 / 20.0)
+    assert levels_in(None).stored(1.228, "Vrms", 20.0, 8.0) == (1.228, "Vrms")  # nothing chosen: as stored
+    view = levels_in("dBu")
+    assert view.stored(1.228, "Vrms")[0] == pytest.approx(4.0, abs=5e-3)
+    assert view.stored(dbfs, "dBFS", 20.0)[0] == pytest.approx(4.0, abs=5e-3)
+    assert view.stored(dbfs, "dBFS") == (dbfs, "dBFS")         # no scale: stays in FS
+    assert view.stored(-67.0, "dB") == (-67.0, "dB")           # a ratio is not a level
+    assert levels_in("dBFS").stored(1.228, "Vrms", 20.0)[0] == pytest.approx(dbfs)
+    assert levels_in("dBFS").stored(1.228, "Vrms") == (1.228, "Vrms")  # no scale: stays in volts
+    assert levels_in("W").stored(1.228, "Vrms", None, 8.0)[0] == pytest.approx(1.228 ** 2 / 8)
+    assert levels_in("W").stored(0.5, "W") == (0.5, "W")      # a power without its load: only watts
+    assert levels_in("V").stored(0.5, "W", None, 8.0)[0] == pytest.approx(2.0)
+    assert levels_in("dBr", "-10dBFS").stored(1.228, "Vrms") == (1.228, "Vrms")  # re FS, no scale
+    assert levels_in("dBr", "-10dBFS").stored(1.228, "Vrms", 20.0)[0] == pytest.approx(dbfs + 10.0)
+    assert levels_in("dBu").stored_text(1.228, "Vrms") == "+4.00 dBu"

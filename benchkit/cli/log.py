@@ -34,7 +34,7 @@ def book_of(bench: Path | None, write: bool = False):
 
 
 @log_app.command("list")
-@takes("tag command since until status last session bench json")
+@takes("tag command since until status last session bench json", "shown")
 def log_list(o: dict) -> None:
     """List the logged runs, newest first, with their headline figures.
 
@@ -61,7 +61,7 @@ def log_list(o: dict) -> None:
 
 
 @log_app.command("show")
-@takes("bench json")
+@takes("bench json", "shown")
 def log_show(run: str = typer.Argument(..., help="Run id, a unique start of it, 'last' or 'last-N'; or a session's id."),
              o: dict = None) -> None:
     """Show one run: when, what, with which device and calibration, its tags, note, figures, warnings and files; or a session and its runs.
@@ -82,8 +82,22 @@ def log_show(run: str = typer.Argument(..., help="Run id, a unique start of it, 
 
         print(dumps({**record, "status": entry.status, "folder": str(entry.folder)}))
         return
-    for line in logbook_text.run_lines(entry, record):
+    for line in logbook_text.run_lines(entry, record, logbook_text.level_scale(_stored_doc(entry, record))):
         answer(line)
+
+
+def _stored_doc(entry, record: dict) -> dict | None:
+    """The result a run stored, or None (none yet, or unreadable: its
+    levels then show in their stored units)."""
+    from benchkit.jsonfile import load_json
+
+    name = record.get("result_file")
+    if not name:
+        return None
+    try:
+        return load_json(entry.folder / name)
+    except (OSError, ValueError):
+        return None
 
 
 def _show_session(doc: dict, entries, as_json: bool) -> None:
@@ -235,7 +249,7 @@ def log_remove(runs: List[str] = typer.Argument(..., help="Runs to move to the t
 
 
 @app.command()
-@takes("last command anyway out bench json",
+@takes("last command anyway out bench json", "shown",
        helps=dict(out="Comparison folder (default: comparisons/<time>-<runs> in the bench folder)."))
 def compare(runs: List[str] = typer.Argument(None, help="Runs to compare (ids, unique starts, 'last', 'last-N'); the "
                                              "first is the baseline."), o: dict = None) -> None:

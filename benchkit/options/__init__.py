@@ -180,7 +180,7 @@ OPTIONS: dict[str, Option] = {
     "starts": _o("--starts", "Start the stream this many times and compare the round trip each start finds.", V.COUNT, 5),
     "repeat": _o("--repeat", "Measure this many takes in one run: its figures are their mean, and their scatter counts in each figure's uncertainty.", V.COUNT, 1),
     # how levels are shown
-    "levels_in": _o("--levels-in", "Show levels in dBFS, dBV, dBu, dBr (against --dbr-ref), V or W (into the load): summaries, tables, live displays and the spectra's second axis.",
+    "levels_in": _o("--levels-in", "Show levels in dBFS, dBV, dBu, dBr (against --dbr-ref), V or W (into the load): summaries, tables, live displays, the spectra's second axis, the logbook's figures and comparisons.",
                     V.one_of(*(u.lower() for u in units.LEVEL_UNITS))),
     "dbr_ref": _o("--dbr-ref", "The level dBr is read against, e.g. 2.83Vrms or -20dBFS (levels then show in dBr).", _level),
     "set_stage": _o("--set", "Change a value of the plan's stage for this session, key=value (repeatable), e.g. --set bias=1.2.", default=[]),

@@ -18,8 +18,8 @@ from benchkit.report import tables
 from benchkit.report.files import report_folder, stem_of, title_of
 from benchkit.report.overlays import percent_axes, colour, finish_overlay
 from benchkit.report.plots import floored, hz_label, labels_apart, save_png, volts_axis
-from benchkit.report.screen import Column, table_text
-from benchkit.units import in_one_unit
+from benchkit.report.screen import Column, level_column, table_text
+from benchkit.units import in_one_unit, level_view
 
 
 def _order_cell(order: dict | None) -> str:
@@ -27,6 +27,15 @@ def _order_cell(order: dict | None) -> str:
     if not order:
         return "-"
     return f"{order['db']:.1f}" + (" partial" if order.get("partial") else "")
+
+
+def _equal_peak_sine(step: dict) -> tuple[float, float | None, float | None]:
+    """The level of a sine whose peak is a two-tone step's composite peak
+    (the tones' amplitudes summed): its dBFS, volts RMS and watts into
+    the load where known (a level for :func:`level_column`)."""
+    dbfs = float(units.dbfs_from_peak(units.ratio_from_db(step["f1_dbfs"]) + units.ratio_from_db(step["f2_dbfs"])))
+    vrms = None if step.get("peak_v") is None else units.vrms_from_vpk(step["peak_v"])
+    return dbfs, vrms, step.get("equivalent_power_w")
 
 
 def imd_summary(d: dict, title: str = "") -> str:
@@ -38,19 +47,26 @@ def imd_summary(d: dict, title: str = "") -> str:
     lines.append(f"  method       {d['method']}: {f1:g} Hz + {f2:g} Hz at {d['tone_ratio']:g}:1; products {ref}")
     steps = d["steps"]
     volts = all(s.get("peak_v") is not None for s in steps)
+    # the composite's peak is a peak (volts peak, or dBFS: a sine whose peak reaches FS is 0 dBFS)
     peak_unit, peaks = in_one_unit([s["peak_v"] if volts else units.dbfs_from_peak(max(s["peak_fs"], 1e-12)) for s in steps],
-                                   "V" if volts else "dBFS")
+                                   "Vpk" if volts else "dBFS")
     pct_unit, pcts = in_one_unit([s["imd_pct"] for s in steps], "%")
+    # levels in a unit chosen (--levels-in): a column of its own, said to be the sine of the composite's peak
+    # (the level the plot's equivalent sine power is of), beside the peak, never in place of it
+    sine_unit, sines = level_column([_equal_peak_sine(s) for s in steps]) if level_view().unit else (None, [None] * len(steps))
     rows = []
-    for i, (s, peak, pct) in enumerate(zip(steps, peaks, pcts)):
+    for i, (s, peak, sine, pct) in enumerate(zip(steps, peaks, sines, pcts)):
         o = s.get("orders") or {}
         mark = "" if s["valid"] else "NOT VALID (clipped capture)" if s["clipped"] else "NOT VALID (see the warnings)"
         imd, big = shown_parts(s["imd_db"], lookup(d, "steps.imd_db", i))
-        rows.append(["-" if s["drive_dbfs"] is None else f"{s['drive_dbfs']:.2f}", peak, pct, imd, big or "-",
-                     _order_cell(o.get("2")), _order_cell(o.get("3")), mark])
-    lines.append(table_text([Column("drive (dBFS)"), Column(f"peak at stage ({peak_unit})"), Column(f"IMD ({pct_unit})"),
-                             Column("IMD (dB)"), Column("U (dB)"), Column("order 2 (dB)"), Column("order 3 (dB)"),
-                             Column("", "left")], rows))
+        rows.append(["-" if s["drive_dbfs"] is None else f"{s['drive_dbfs']:.2f}", peak, *([sine] if sine_unit else []),
+                     pct, imd, big or "-", _order_cell(o.get("2")), _order_cell(o.get("3")), mark])
+    lines.append(table_text([Column("drive (dBFS)"), Column(f"peak at stage ({peak_unit})"),
+                             *([Column(f"sine of that peak ({sine_unit})")] if sine_unit else []),
+                             Column(f"IMD ({pct_unit})"), Column("IMD (dB)"), Column("U (dB)"), Column("order 2 (dB)"),
+                             Column("order 3 (dB)"), Column("", "left")], rows))
+    if sine_unit:
+        lines.append("  (sine of that peak: the level of a sine whose peak is the two tones' summed peak)")
     valid = [s for s in d["steps"] if s["valid"]]
     if valid:
         top = max(valid, key=lambda s: s["drive_dbfs"] or 0.0)

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from benchkit.analysis.documents import V1_KINDS
 from benchkit.errors import read_warnings
-from benchkit.units import quantity
+from benchkit.units import level_view, quantity
 
 #: how a headline figure is shown in a run's line: its label and format (None: a quantity in its unit)
 SHORT = {"thdn_db": ("THD+N", "{:.1f} dB"), "noise_vrms": ("noise", None), "noise_dbfs": ("noise", "{:.1f} dBFS"),
@@ -25,6 +25,8 @@ def headline_text(entry) -> str:
             continue
         label, fmt = SHORT[f["name"]]
         value = fmt.format(f["value"]) if fmt else quantity(f["value"], UNITS[f["name"]], 3)
+        if is_level(f["name"], f.get("unit", "")) and level_view().unit is not None:  # (no scale in the catalog)
+            value = level_view().stored_text(f["value"], f["unit"])
         parts.append(f"{label} {value}")
     return "; ".join(parts)
 
@@ -83,10 +85,48 @@ def filed_lines(filed) -> list[str]:
             if isinstance(scale, (int, float)) else "  scale        none"]
 
 
-def run_lines(entry, record: dict) -> list[str]:
+def is_level(name: str, unit: str) -> bool:
+    """Whether a stored figure is a level of the signal, shown in the unit
+    levels are shown in: one in dBFS or volts RMS. A power (W) stays a
+    power, as the tables' power columns do; a ratio (dB, dBc), a DC volt
+    (V) stay as they are."""
+    return unit in ("dBFS", "Vrms")
+
+
+def level_scale(doc: dict | None) -> tuple[float | None, float | None]:
+    """What reads a stored result's levels in other units: its scale
+    (volts peak per FS at the stage) and its load (ohms), None where it
+    has none."""
+    if not isinstance(doc, dict):
+        return None, None
+    steps = doc.get("steps") if isinstance(doc.get("steps"), list) else []
+    first = steps[0] if steps and isinstance(steps[0], dict) else {}
+    places = [doc.get("conditions"), doc, first.get("conditions"), first]
+
+    def known(key):
+        for where in places:
+            v = where.get(key) if isinstance(where, dict) else None
+            if isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0:
+                return float(v)
+        return None
+
+    return known("volts_per_fs"), known("load_ohms")
+
+
+def figure_text(f: dict, scale: tuple[float | None, float | None] = (None, None)) -> str:
+    """A stored figure's value: a level in the unit levels are shown in
+    (:func:`benchkit.units.level_view`, read with the run's ``scale``),
+    anything else in its own unit."""
+    if is_level(f["name"], f["unit"]):
+        return level_view().stored_text(f["value"], f["unit"], *scale)
+    return quantity(f["value"], f["unit"])
+
+
+def run_lines(entry, record: dict, scale: tuple[float | None, float | None] = (None, None)) -> list[str]:
     """One run in full: when, what, the device and the calibration, the
-    stage, tags, note, options, figures, warnings (with their codes), the
-    folder."""
+    stage, tags, note, options, figures (levels in the unit levels are
+    shown in, read with the run's ``scale``: :func:`level_scale`),
+    warnings (with their codes), the folder."""
     cal = record.get("calibration") or {}
     lines = [f"run {entry.id}: {entry.command}, {entry.status}" + ("" if entry.valid is not False else " (INVALID)"),
              f"  started      {record['started']}" + (f", ended {record['finished']}" if record.get("finished") else ""),
@@ -99,7 +139,7 @@ def run_lines(entry, record: dict) -> list[str]:
     if entry.note:
         lines.append("  note         " + entry.note.replace("\n", "\n               "))
     lines.append("  options      " + ", ".join(f"{k}={param_text(k, v)}" for k, v in (record.get("params") or {}).items()))
-    lines += [f"  figure       {f['name']} = {quantity(f['value'], f['unit'])}" + (f" ({f['at']})" if f.get("at") else "")
+    lines += [f"  figure       {f['name']} = {figure_text(f, scale)}" + (f" ({f['at']})" if f.get("at") else "")
               if f["value"] is not None else f"  figure       {f['name']}: not measured" for f in record.get("figures") or []]
     lines += [f"  warning      {w} [{w.code}]" for w in read_warnings(record.get("warnings"))]
     if record.get("error"):

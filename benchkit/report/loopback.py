@@ -8,7 +8,7 @@ import csv
 from pathlib import Path
 
 from benchkit.errors import BenchkitError
-from benchkit.units import quantity
+from benchkit.units import level_view, quantity
 
 
 def loopback_summary(d: dict, title: str = "") -> str:
@@ -24,6 +24,9 @@ def loopback_summary(d: dict, title: str = "") -> str:
                              Column("H2 (dBc)"), Column("H3 (dBc)"), Column("residual (dBFS)")], rows, "    "))
     volts = "" if d.get("noise_vrms") is None else (f" ({quantity(d['noise_vrms'], 'Vrms', 3)}, "
                                                     f"A {quantity(d['noise_a_vrms'], 'Vrms', 3)} at the input)")
+    view = level_view()
+    if view.own(d["noise_dbfs"], d.get("noise_vrms")):  # the floor at the input, in the unit levels are shown in
+        volts += f" ({view.text(d['noise_dbfs'], d.get('noise_vrms'))}, A {view.text(d['noise_a_dbfs'], d.get('noise_a_vrms'))})"
     lines.append(f"  noise floor  {d['noise_dbfs']:.1f} dBFS, A-weighted {d['noise_a_dbfs']:.1f} dBFS{volts}")
     low, high = d["response_low_db"], d["response_high_db"]
     first, last = d["response"][0]["frequency_hz"], d["response"][-1]["frequency_hz"]

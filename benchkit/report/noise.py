@@ -17,6 +17,10 @@ from benchkit.report.plots import BAND, FAINT, labels_apart, LEGEND_PLACES, lege
 from benchkit.units import level_view, quantity
 
 
+def _also(text: str) -> str:
+    return f", {text}" if text else ""
+
+
 def noise_summary(d: dict, title: str = "") -> str:
     """A noise result (its document), one screen."""
     lines = [title] if title else []
@@ -39,11 +43,15 @@ def noise_summary(d: dict, title: str = "") -> str:
     ref = d.get("snr_reference")
     if ref and d.get("snr_db") is not None:
         lines.append(f"  SNR          {d['snr_db']:.1f} dB, {d['snr_a_db']:.1f} dB A-weighted, re {ref['what']} "
-                     f"({quantity(ref['vrms'], 'Vrms')})")
+                     f"({quantity(ref['vrms'], 'Vrms')}{_also(view.also(ref['vrms'], 'Vrms'))})")
     if d.get("hum"):
-        parts = [f"{h['freq_hz']:g} Hz {h['level_dbfs']:.1f} dBFS" + (f" ({quantity(h['level_vrms'], 'Vrms')})"
-                                                                       if h.get("level_vrms") else "")
-                 for h in d["hum"]]
+        def hum(h):
+            also = [quantity(h["level_vrms"], "Vrms")] if h.get("level_vrms") else []
+            if view.own(h["level_dbfs"], h.get("level_vrms")):
+                also.append(view.text(h["level_dbfs"], h.get("level_vrms")))
+            return f"{h['freq_hz']:g} Hz {h['level_dbfs']:.1f} dBFS" + (f" ({', '.join(also)})" if also else "")
+
+        parts = [hum(h) for h in d["hum"]]
         lines.append(f"  hum          {d['mains_hz']:g} Hz mains: " + "; ".join(parts))
     else:
         lines.append("  hum          no mains lines above the noise")

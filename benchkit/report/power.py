@@ -12,7 +12,14 @@ from benchkit.report.files import result_csv_png
 from benchkit.report.plots import BESIDE, FAINT, labels_apart, legend_clear, MARK, readable_log, save_png, TRACE
 from benchkit.report.summary import first_half
 from benchkit.analysis.uncertainty import shown_quantity
-from benchkit.units import quantity
+from benchkit.units import level_view, quantity
+
+
+def _also(vrms: float | None) -> str:
+    """A level in volts RMS also in the unit levels are shown in (dBV,
+    dBu, dBr), after the volts; nothing when that is volts or watts."""
+    text = level_view().also(vrms, "Vrms")
+    return f", {text}" if text else ""
 
 
 def power_summary(r, title: str = "") -> str:
@@ -31,11 +38,11 @@ def power_summary(r, title: str = "") -> str:
             ui = (u.get("limits.power_w") or [None] * len(r.limits))[i]
             lead = (named.get("limits.power_w") or [None] * len(r.limits))[i]
             lines.append(f"  at {lim:g} % {metric}".ljust(22) + f"{shown_quantity(pt.power_w, ui, 'W')} "
-                         f"({quantity(pt.vrms, 'Vrms', 4)}{f'; the {lead} dominates' if lead else ''}), "
+                         f"({quantity(pt.vrms, 'Vrms', 4)}{_also(pt.vrms)}{f'; the {lead} dominates' if lead else ''}), "
                          f"between the {s0.drive_dbfs:.2f} and {s1.drive_dbfs:.2f} dBFS steps")
     if r.onset is not None:
         lines.append(f"  clipping onset       {shown_quantity(r.onset.power_w, u.get('clipping_onset_w'), 'W')} "
-                     f"({quantity(r.onset.vrms, 'Vrms', 4)}, THD+N {r.onset.departure_db:g} dB over its low-level trend)")
+                     f"({quantity(r.onset.vrms, 'Vrms', 4)}{_also(r.onset.vrms)}, THD+N {r.onset.departure_db:g} dB over its low-level trend)")
     if u:
         lines.append("  (+- is the expanded uncertainty, k = 2)")
     if r.half:

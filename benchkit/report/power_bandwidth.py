@@ -14,7 +14,8 @@ from benchkit.report import tables
 from benchkit.report.files import report_folder, title_of
 from benchkit.report.overlays import colour
 from benchkit.report.plots import labels_apart, legend_clear, log_hz_axis, readable_log, save_png, BESIDE
-from benchkit.report.screen import Column, table_text
+from benchkit.report.logbook import level_scale
+from benchkit.report.screen import Column, stored_level_column, table_text
 from benchkit.units import in_one_unit, prefix_scale, quantity
 
 
@@ -31,7 +32,7 @@ def bandwidth_summary(doc: dict, title: str = "") -> str:
     places = max((len(c) - c.index(".") - 1 for c in powers if "." in c), default=0)
     u_cells = ["-" if p.get("power_u_w") is None or p["power_w"] is None else
                f"{2 * p['power_u_w'] / prefix_scale(p_unit):.{places}f}" for p in pts]
-    v_unit, volts = in_one_unit([p.get("vrms") for p in pts], "Vrms")
+    v_unit, volts = stored_level_column([p.get("vrms") for p in pts], "Vrms", level_scale(doc))
     rows = [[f"{p['frequency_hz']:g}", w, u, v, "" if p["reached"] else f"not reached ({p.get('stop_reason') or 'stopped'})"]
             for p, w, u, v in zip(pts, powers, u_cells, volts)]
     lines.append(table_text([Column("frequency (Hz)"), Column(f"power at {_metric(doc)} ({p_unit})"), Column(f"U ({p_unit})"),

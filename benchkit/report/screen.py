@@ -38,6 +38,24 @@ def level_column(levels) -> tuple[str, list[str]]:
     return unit, [f"{v:+.2f}" if unit != "dBFS" else f"{v:.2f}" for v, _u in got]
 
 
+def stored_level_column(values, unit: str, scale: tuple[float | None, float | None] = (None, None)) -> tuple[str, list[str]]:
+    """Levels as a result stored them (``unit`` dBFS or Vrms; None where
+    missing) as one column in the unit levels are shown in, read with the
+    result's ``scale`` (volts peak per FS, load ohms); as stored when no
+    unit is chosen or some cannot be shown in it."""
+    from benchkit.units import in_one_unit, level_view
+
+    view = level_view()
+    got = [None if v is None else view.stored(v, unit, *scale) for v in values]
+    seen = {g[1] for g in got if g is not None}
+    if view.unit is None or len(seen) != 1 or seen == {unit}:
+        return in_one_unit(values, unit)
+    shown = seen.pop()
+    if shown in ("Vrms", "W"):
+        return in_one_unit([None if g is None else g[0] for g in got], shown)
+    return shown, ["-" if g is None else f"{g[0]:+.2f}" if shown != "dBFS" else f"{g[0]:.2f}" for g in got]
+
+
 def _in_line(cells: list[str]) -> list[str]:
     """Cells padded on the right so their decimal points fall in one column
     (a cell with no point lines its end up with the others' points)."""

@@ -8,10 +8,77 @@ import math
 from benchkit.units import quantity
 
 
+#: the units a level can be shown in that are dB (--levels-in): printed as the dB figures are
+DB_LEVELS = ("dBV", "dBu", "dBr")
+
+
 def figure_value(v, unit: str) -> str:
     if v is None:
         return "-"
-    return f"{v:.2f} {unit}" if unit in ("dB", "dBc", "dBFS", "%") else f"{quantity(v, unit)}"
+    return f"{v:.2f} {unit}" if unit in ("dB", "dBc", "dBFS", "%", *DB_LEVELS) else f"{quantity(v, unit)}"
+
+
+class ShownDelta:
+    """A compared level (a comparison's Delta) in the unit levels are
+    shown in: its values, changes and their uncertainty converted; its
+    name, direction and verdicts the figure's own (judged as measured)."""
+
+    def __init__(self, delta, unit: str, values: tuple, slopes: tuple):
+        self.delta, self.unit, self.values, self.slopes = delta, unit, values, slopes
+
+    def __getattr__(self, name):
+        return getattr(self.delta, name)
+
+    @property
+    def changes(self) -> tuple:
+        first = self.values[0]
+        return tuple(None if v is None or first is None else v - first for v in self.values[1:])
+
+    def change_u(self, k: int):
+        """The change's expanded uncertainty, carried into the unit shown
+        (the slope of the conversion, the mean of the two runs')."""
+        big = self.delta.change_u(k)
+        s0, sk = self.slopes[0], self.slopes[k]
+        if big is None or s0 is None or sk is None:
+            return None
+        return big * (abs(s0) + abs(sk)) / 2.0
+
+
+def _slope(convert, v: float) -> float | None:
+    """d convert / dv at v, by a central difference."""
+    h = 1e-6 * max(abs(v), 1e-9)
+    try:
+        slope = (convert(v + h) - convert(v - h)) / (2.0 * h)
+    except (ValueError, ZeroDivisionError):
+        return None
+    return slope if math.isfinite(slope) else None
+
+
+def levels_shown(deltas, scales=()) -> list:
+    """Compared figures with the levels among them in the unit levels are
+    shown in (:func:`benchkit.units.level_view`), each run's read with its
+    ``scales`` ((volts peak per FS, load ohms) a run); a level some run
+    cannot show so stays as stored, as does everything else."""
+    from benchkit.report.logbook import is_level
+    from benchkit.units import level_view
+
+    view = level_view()
+    if view.unit is None:
+        return list(deltas)
+    out = []
+    for d in deltas:
+        if not is_level(d.name, d.unit) or len(scales) < len(d.values):
+            out.append(d)
+            continue
+        got = [None if v is None else view.stored(v, d.unit, *scales[k]) for k, v in enumerate(d.values)]
+        seen = {g[1] for g in got if g is not None}
+        if len(seen) != 1 or seen == {d.unit}:
+            out.append(d)
+            continue
+        slopes = tuple(None if v is None else _slope(lambda x, k=k: view.stored(x, d.unit, *scales[k])[0], v)
+                       for k, v in enumerate(d.values))
+        out.append(ShownDelta(d, seen.pop(), tuple(None if g is None else g[0] for g in got), slopes))
+    return out
 
 
 def figure_shown(f) -> str:
@@ -35,7 +102,7 @@ def change_text(d, k: int) -> str:
     ch = d.changes[k - 1]
     if ch is None:
         return "-"
-    unit = d.unit if d.unit in ("dB", "dBc", "dBFS", "%") else ""
+    unit = d.unit if d.unit in ("dB", "dBc", "dBFS", "%", *DB_LEVELS) else ""
     big = d.change_u(k)
     if unit:  # to the uncertainty's two significant digits, at least to 0.01
         places = 2 if not big else max(2, min(6, 1 - math.floor(math.log10(big))))
@@ -54,21 +121,23 @@ def _change_cells(d, k: int, size: float) -> list[str]:
     ch, big = d.changes[k - 1], d.change_u(k)
     if ch is None:
         return ["-", "-", d.verdict(k) or ""]
-    if d.unit not in LEVELS and abs(big or ch) < 0.01 * size:  # too fine for the row's prefix: its own
+    if d.unit not in SHOWN_DB and abs(big or ch) < 0.01 * size:  # too fine for the row's prefix: its own
         return [("+" if ch >= 0 else "-") + quantity(abs(ch), d.unit, 3),
                 "-" if big is None else quantity(big, d.unit, 2), d.verdict(k) or ""]
     ch, big = ch / size, None if big is None else big / size
     if big:
         places = max(0, min(6, 1 - math.floor(math.log10(big))))
-        if d.unit in LEVELS:
+        if d.unit in SHOWN_DB:
             places = max(2, places)
     else:
-        places = 2 if d.unit in LEVELS or ch == 0 else max(0, min(6, 2 - math.floor(math.log10(abs(ch)))))
+        places = 2 if d.unit in SHOWN_DB or ch == 0 else max(0, min(6, 2 - math.floor(math.log10(abs(ch)))))
     return [f"{ch:+.{places}f}", "-" if big is None else f"{big:.{places}f}", d.verdict(k) or ""]
 
 
 #: units whose values print to two decimals (ratios and levels)
 LEVELS = ("dB", "dBc", "dBFS", "%")
+#: and with them the dB units a level may be shown in
+SHOWN_DB = LEVELS + DB_LEVELS
 
 
 def delta_table(groups, n: int) -> str:
@@ -84,11 +153,11 @@ def delta_table(groups, n: int) -> str:
         if heading:
             rows.append([heading] + [""] * (1 + n + 3 * (n - 1)))
         for d in deltas:
-            if d.unit in LEVELS:
+            if d.unit in SHOWN_DB:
                 unit, values = d.unit, ["-" if v is None else f"{v:.2f}" for v in d.values]
             else:
                 unit, values = in_one_unit(d.values, d.unit)
-            size = prefix_scale(unit) if d.unit not in LEVELS else 1.0
+            size = prefix_scale(unit) if d.unit not in SHOWN_DB else 1.0
             changes = [cell for k in range(1, n) for cell in _change_cells(d, k, size)]
             rows.append([("  " if heading else "") + figure_name(d), unit, *values, *changes])
     columns = [Column("figure", "left"), Column("unit", "left"), *(Column(f"[{k}]") for k in range(n))]
@@ -97,9 +166,11 @@ def delta_table(groups, n: int) -> str:
     return table_text(columns, rows)
 
 
-def comparison_text(c) -> str:
+def comparison_text(c, scales=()) -> str:
     """A comparison, figure by figure: each run's value, the change from
-    the first and whether it is better or worse; the headline first."""
+    the first and whether it is better or worse; the headline first; the
+    levels in the unit levels are shown in, each run's read with its
+    ``scales`` (:func:`levels_shown`)."""
     lines = [f"!! {w}" for w in c.warnings]
     lines.append("runs: " + "; ".join(f"[{k}] {lab}" for k, lab in enumerate(c.labels)) + " (changes are from [0])")
     if c.judged():
@@ -107,7 +178,7 @@ def comparison_text(c) -> str:
                      f"{c.judged()} figures judged better or worse, 99 times in 100")
     ordered = list(c.headline()) + [d for d in c.deltas if not d.headline]
     shown = ordered if len(ordered) <= 30 else list(c.headline()) + [d for d in ordered if d.better][:30]
-    lines.append(delta_table([(None, shown)], len(c.labels)))
+    lines.append(delta_table([(None, levels_shown(shown, scales))], len(c.labels)))
     if len(shown) < len(ordered):
         lines.append(f"  ... {len(ordered) - len(shown)} more figures in the CSV")
     return "\n".join(lines)
