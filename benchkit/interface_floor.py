@@ -142,7 +142,8 @@ class Floor:
         f = self.frequency_hz or TEST_FREQ_HZ
         why = (f"where its self-test's THD+N read flat within {FLAT_DB:g} dB" if self.flat_hz is not None
                else f"{SPAN_OCTAVES:g} octave either side of {f:g} Hz, assumed")
-        return f"THD+N judged only at {lo:.4g}-{hi:.4g} Hz ({why}), noise at every frequency"
+        where = f"{lo:.4g} Hz" if f"{lo:.4g}" == f"{hi:.4g}" else f"{lo:.4g}-{hi:.4g} Hz"
+        return f"THD+N judged only at {where} ({why}), noise at every frequency"
 
     def thdn_db_at(self, level_dbfs: float) -> float | None:
         """The floor's THD+N at an input level, dB (None: it has none).
