@@ -115,3 +115,26 @@ def test_remove_tone_equals_the_fft_of_the_residual(n, nu):
     got = sp.remove_tone(np.fft.rfft(x * sp.window(n)), n, nu, 0.7 * np.exp(0.4j), 0.01)
     want = np.fft.rfft(rest * sp.window(n))
     assert np.max(np.abs(got - want)) < 1e-11 * n
+
+
+@pytest.mark.parametrize("n", [
+    96000,   # 300 x 320, whole rows
+    88200,   # 294 x 300
+    33075,   # odd: 175 x 189
+    35721,   # 189 x 189
+    98304,   # 256 x 384
+    1920000,  # 1280 x 1500
+    96001,   # no split: one transform
+])
+def test_block_fft_equals_scipy_rfft(n):
+    """The four-step transform against scipy.fft.rfft (reference library),
+    to a few ulp of the largest bin, also for odd lengths."""
+    from scipy.fft import rfft
+    from benchkit.analysis import blockfft
+    x = np.random.default_rng(n).standard_normal(n)
+    out = np.empty(n // 2 + 1, dtype=complex)
+    got = blockfft.rfft(x, out)
+    ref = rfft(x)
+    assert got is out
+    assert np.max(np.abs(got - ref)) < 4e-15 * np.max(np.abs(ref))
+    assert (blockfft.split(n) is None) == (n == 96001)

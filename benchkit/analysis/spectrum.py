@@ -12,10 +12,11 @@ off the FFT by least squares, without scalloping loss.
 from __future__ import annotations
 
 import math
-import threading
 from functools import lru_cache
 
 import numpy as np
+
+from benchkit.analysis import blockfft
 
 # scipy is imported in the functions that use it: it is slow to load, and the
 # command line (which reads this module) starts without it
@@ -42,32 +43,21 @@ def window(n: int) -> np.ndarray:
     return _window_cached(int(n))
 
 
-_scratch = threading.local()
-# numpy 2 writes an FFT into a given array: a spectrum kept in one buffer per
-# thread spares the page faults of a fresh one, here half an FFT's time
-_FFT_OUT = int(np.__version__.split(".")[0]) >= 2
-
-
-def _buffer(name: str, size: int, dtype) -> np.ndarray:
-    buf = getattr(_scratch, name, None)
-    if buf is None or buf.size != size:
-        buf = np.empty(size, dtype=dtype)
-        setattr(_scratch, name, buf)
-    return buf
-
-
 def windowed_rfft(x: np.ndarray, scratch: bool = False) -> np.ndarray:
     """``rfft(x * window(len(x)))``, the product formed in a per-thread
     scratch buffer (a fresh array per call costs a third of the FFT).
 
-    With ``scratch`` the spectrum itself is written to a per-thread buffer:
-    valid until the next such call on the same thread, for a caller that
-    is done with it by then (and may change it in place)."""
+    With ``scratch`` the spectrum itself is written to a per-thread buffer
+    (by :func:`benchkit.analysis.blockfft.rfft`, which allocates nothing
+    long): valid until the next such call on the same thread, for a caller
+    that is done with it by then (and may change it in place). Without
+    numpy 2, which can write a transform into a given array, scipy's
+    transform serves both."""
     import scipy.fft
     n = x.size
-    windowed = np.multiply(x, window(n), out=_buffer("windowed", n, float))
-    if scratch and _FFT_OUT:
-        return np.fft.rfft(windowed, out=_buffer("spectrum", n // 2 + 1, complex))
+    windowed = np.multiply(x, window(n), out=blockfft.scratch("windowed", n, float))
+    if scratch and blockfft.OUT_SUPPORTED:
+        return blockfft.rfft(windowed, blockfft.scratch("spectrum", n // 2 + 1, complex))
     return scipy.fft.rfft(windowed)
 
 
@@ -81,7 +71,7 @@ def power(spec: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
 def scratch_power(spec: np.ndarray) -> np.ndarray:
     """:func:`power` of a 1-D spectrum into a per-thread buffer (the terms
     of :func:`windowed_rfft`'s ``scratch``)."""
-    return power(spec, out=_buffer("power", spec.size, float))
+    return power(spec, out=blockfft.scratch("power", spec.size, float))
 
 
 def _dirichlet(mu: np.ndarray, n: int) -> np.ndarray:
