@@ -269,7 +269,7 @@ class ResponseResult:
         out = Collector()
         if self.mag_u_db is None:
             return out.block()
-        out.put_list("response.mag_db", [Budget.of(noise=float(u)) for u in self.mag_u_db])
+        out.put_columns("response.mag_db", noise=self.mag_u_db)
         u_ref = self._u_at(self.reference_hz) or 0.0
         for key, f in (("level_20hz_db", 20.0), ("level_20khz_db", 20000.0)):
             u = self._u_at(f)

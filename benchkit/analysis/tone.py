@@ -305,15 +305,19 @@ class _Block:
     floor1: float = math.nan  # the fundamental's floor2
     band_bins: int = 0  # the band's bins (THD+N's band power)
     noise_bins: int = 0  # the bins the noise was read from (0: from the residual less the harmonics)
+    energy: float = 0.0  # sum x^2 of its samples
+    total: float = 0.0  # sum x
     spec_power: np.ndarray | None = None
     residual: np.ndarray | None = None
     fund_wave: np.ndarray | None = None
     dropouts_s: list[float] = field(default_factory=list)
 
 
-def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tuple[float, complex, np.ndarray, np.ndarray]:
+def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None,
+               mean: float) -> tuple[float, complex, np.ndarray, np.ndarray]:
     """Fundamental from the windowed spectrum: fractional bin, complex
-    amplitude ``A e^{j phi}`` there, the spectrum and its power."""
+    amplitude ``A e^{j phi}`` there, the spectrum and its power (``mean``:
+    the record's mean)."""
     n = x.size
     # no offset removal needed: the window puts a DC offset >100 dB down by
     # the first bin searched
@@ -342,7 +346,6 @@ def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tupl
         # (the window's DFT at integer bins is a_0 N, -a_1 N/2, a_2 N/2, ...)
         low = spec[1:kmin].copy()
         coeffs = sp.WINDOW_COEFFS
-        mean = float(np.mean(x))
         for k in range(1, min(len(coeffs), kmin)):
             low[k - 1] -= mean * (-1) ** k * coeffs[k] * n / 2.0
         if np.max(np.abs(low) ** 2) > power[peak]:
@@ -364,6 +367,12 @@ def _find_tone(x: np.ndarray, sample_rate: float, hint_hz: float | None) -> tupl
     return nu, sp.peak_amplitude(spec, peak, nu, n), spec, power
 
 
+@lru_cache(maxsize=8)
+def _layout(n: int) -> RecordLayout:
+    """The fit's index layout of a record of ``n`` samples, kept for the next one."""
+    return RecordLayout(n)
+
+
 def _harmonic_orders(f0: float, sample_rate: float, n: int, hi_hz: float, guard_bins: float = sp.MAIN_LOBE_BINS + 1) -> np.ndarray:
     """Orders 2..K below ``hi_hz`` and at least ``guard_bins`` clear of fs/2."""
     limit = min(hi_hz, sample_rate / 2.0 - guard_bins * sample_rate / n)
@@ -381,14 +390,14 @@ def _analyse_block(
     dropouts: bool = False,
 ) -> _Block:
     n = x.size
-    energy = float(x @ x)
-    nu0, amp0, spec, power = _find_tone(x, sample_rate, hint_hz)
+    energy, total = float(x @ x), float(np.sum(x))
+    nu0, amp0, spec, power = _find_tone(x, sample_rate, hint_hz, total / n)
     f_start = nu0 * sample_rate / n
     # the fit models the signal, harmonics above the band included (they
     # would bias the fundamental otherwise); the band decides what is reported
     below_nyquist = _harmonic_orders(f_start, sample_rate, n, sample_rate / 2.0, guard_bins=2.0)
     k_fit = max(1, min(fit_orders, int(below_nyquist[-1]) if below_nyquist.size else 1))
-    layout = RecordLayout(n)
+    layout = _layout(n)
     fit = fit_tone(x, layout, nu0 / n, k_fit, start=amp0, energy=energy)
     if abs(fit.cycles * n - nu0) > 1.5:
         raise BenchkitError("the sine fit did not settle on the tone found in the spectrum; give --fundamental")
@@ -433,7 +442,8 @@ def _analyse_block(
         phases[~from_fit] = np.angle(z)
     methods = ["fit" if f else "spectrum" for f in from_fit]
 
-    res_power += 0.5 * float(np.sum(amps[np.isin(orders, straddling)] ** 2))
+    if straddling.size:
+        res_power += 0.5 * float(np.sum(amps[np.isin(orders, straddling)] ** 2))
     # (the fundamental's floor too: its amplitude's type-A uncertainty)
     floors = noise_floor_amp2(rspec, n, fit.cycles * n, np.r_[1, orders], np.r_[True, from_fit])
     floor1, floor2 = float(floors[0]), floors[1:]
@@ -459,6 +469,8 @@ def _analyse_block(
         floor1=floor1,
         band_bins=in_band.stop - in_band.start,
         noise_bins=noise_bins,
+        energy=energy,
+        total=total,
     )
     if keep or dropouts:
         fund = layout.sine(fit.cycles, float(fit.cos[0]), float(fit.sin[0]))
@@ -525,7 +537,16 @@ def noise_floor_amp2(rspec: np.ndarray, n: int, nu1: float, orders: np.ndarray,
     gain = np.full(orders.size, _read_gain(n, size, int(round(float(at[0]) * 64))))
     if fitted is not None:
         gain[fitted] = sp.fit_noise_gain(n)
-    return np.median(pools, axis=1) / math.log(2.0) * gain
+    return _row_medians(pools) / math.log(2.0) * gain
+
+
+def _row_medians(a: np.ndarray) -> np.ndarray:
+    """``np.median(a, axis=1)``, by one partition of the rows."""
+    k = a.shape[1] // 2
+    if a.shape[1] % 2:
+        return np.partition(a, k, axis=1)[:, k]
+    part = np.partition(a, (k - 1, k), axis=1)
+    return (part[:, k - 1] + part[:, k]) / 2.0
 
 
 def _noise_gaps(size: int, nu1: float, count: int, lobe: int) -> tuple[np.ndarray, np.ndarray]:
@@ -815,10 +836,11 @@ def analyze_tone(
     x = one_channel(samples, channel, "analyze_tone")
     if x.size == 0:
         raise BenchkitError("the capture holds no samples")
-    refuse_non_finite(x)
+    xmax, xmin = float(np.max(x)), float(np.min(x))  # NaN if any sample is
+    if not (math.isfinite(xmax) and math.isfinite(xmin)):
+        refuse_non_finite(x)
     if not (sample_rate > 0 and math.isfinite(sample_rate)):
         raise BenchkitError(f"sample rate must be a positive number of Hz, got {sample_rate}")
-    xmax, xmin = float(np.max(x)), float(np.min(x))
     if xmax == xmin:
         raise BenchkitError(
             "the capture is silent (every sample is zero)" if xmax == 0 else "the capture is constant: no tone in it"
@@ -845,7 +867,7 @@ def analyze_tone(
         _analyse_block(x[i * nblk : (i + 1) * nblk], sample_rate, band, fundamental_hz, fit_orders, traces, check_dropouts)
         for i in range(int(averages))
     ]
-    f0 = float(np.mean([b.freq_hz for b in blocks]))
+    f0 = float(_avg([b.freq_hz for b in blocks]))
     tol = 0.005 * f0
     if f0 > band[1] + tol or f0 < band[0] - tol:
         raise BenchkitError(
@@ -855,33 +877,26 @@ def analyze_tone(
     first = blocks[0]
     nh = min(b.orders.size for b in blocks)
     orders = first.orders[:nh]
-    p1 = float(np.mean([b.amp1**2 for b in blocks]))
+    p1 = float(_avg([b.amp1**2 for b in blocks]))
     amp1 = math.sqrt(p1)
-    pk = np.mean([b.amps[:nh] ** 2 for b in blocks], axis=0) if nh else np.zeros(0)
+    pk = _avg([b.amps[:nh] ** 2 for b in blocks]) if nh else np.zeros(0)
     amps = np.sqrt(pk)
-    floor2 = np.mean([b.floor2[:nh] for b in blocks], axis=0) if nh else np.zeros(0)
+    floor2 = _avg([b.floor2[:nh] for b in blocks]) if nh else np.zeros(0)
     heard = above_noise(amps, floor2) & (amps > ROUNDOFF_DBC_RATIO * amp1)
     rel = np.array([b.phases[:nh] - orders * b.phase1 for b in blocks])
     weights = np.array([b.amps[:nh] for b in blocks]) + 1e-300
     rel_phase = np.angle(np.sum(weights * np.exp(1j * rel), axis=0)) if nh else np.zeros(0)
-    res_power = float(np.mean([b.res_power for b in blocks]))
-    noise_power = float(np.mean([b.noise_power for b in blocks]))
+    res_power = float(_avg([b.res_power for b in blocks]))
+    noise_power = float(_avg([b.noise_power for b in blocks]))
 
     level_dbc = units.db_from_ratio(amps / amp1) if nh else []
     level_dbfs = units.dbfs_from_peak(amps) if nh else []
     phase_deg = _wrap_deg(rel_phase)
     harmonics = tuple(
-        Harmonic(
-            order=int(orders[i]),
-            freq_hz=float(orders[i] * f0),
-            amplitude_fs=float(amps[i]),
-            level_dbc=float(level_dbc[i]),
-            level_dbfs=float(level_dbfs[i]),
-            phase_deg=float(phase_deg[i]),
-            method=first.methods[i],
-            above_noise=bool(heard[i]),
-        )
-        for i in range(nh)
+        Harmonic(order=k, freq_hz=f, amplitude_fs=a, level_dbc=dbc, level_dbfs=dbfs, phase_deg=ph, method=m, above_noise=h)
+        for k, f, a, dbc, dbfs, ph, m, h in zip(orders.tolist(), (orders * f0).tolist(), amps.tolist(),
+                                                 np.asarray(level_dbc).tolist(), np.asarray(level_dbfs).tolist(),
+                                                 phase_deg.tolist(), first.methods, heard.tolist())
     )
     thd_bound = False
     if harmonics and not np.isfinite(floor2).all():
@@ -912,9 +927,11 @@ def analyze_tone(
     u_block = _uncertainty(blocks, nblk, f0, amp1, orders, amps, floor2, heard, thd if not thd_bound and harmonics else None,
                            thdn, res_power, noise_power, sample_rate, volts_per_fs, load_ohms, chain)
 
-    dc = float(np.mean([b.offset for b in blocks]))
-    mean_sq = float(x @ x) / x.size
-    ac_rms = math.sqrt(max(mean_sq - 2.0 * dc * float(np.mean(x)) + dc * dc, 0.0))
+    dc = float(_avg([b.offset for b in blocks]))
+    # (one block spans the record: its sums are the record's)
+    energy, total = (first.energy, first.total) if len(blocks) == 1 else (float(x @ x), float(np.sum(x)))
+    mean_sq = energy / x.size
+    ac_rms = math.sqrt(max(mean_sq - 2.0 * dc * (total / x.size) + dc * dc, 0.0))
     result_traces = _traces(blocks, sample_rate, nblk) if traces else None
     return ToneResult(
         sample_rate_hz=float(sample_rate),
@@ -951,6 +968,12 @@ def analyze_tone(
     )
 
 
+def _avg(values: list):
+    """The mean over the blocks of a figure or an array of them (one
+    block's own, as it is)."""
+    return values[0] if len(values) == 1 else np.mean(values, axis=0)
+
+
 def _uncertainty(blocks: list[_Block], nblk: int, f0: float, amp1: float, orders: np.ndarray, amps: np.ndarray,
                  floor2: np.ndarray, heard: np.ndarray, thd: float | None, thdn: float, res_power: float,
                  noise_power: float, sample_rate: float, volts_per_fs: float | None, load_ohms: float | None,
@@ -966,11 +989,11 @@ def _uncertainty(blocks: list[_Block], nblk: int, f0: float, amp1: float, orders
     the chain's, on volts and watts only (ratios do not see the scale), and
     the interface's flatness between a harmonic and its fundamental."""
     nb = len(blocks)
-    band_bins = int(np.mean([b.band_bins for b in blocks]))
+    band_bins = int(_avg([b.band_bins for b in blocks]))
     # where no noise bins lie beside a read (harmonics crowded: a short record, a low tone), the
     # band's noise taken as white: a fitted read's E|e|^2 = 4 sigma^2 / N = 2 P_noise / (band bins)
     white = 2.0 * noise_power / max(band_bins, 1)
-    floor1 = float(np.mean([b.floor1 for b in blocks]))
+    floor1 = float(_avg([b.floor1 for b in blocks]))
     floor1 = floor1 if math.isfinite(floor1) else white
     floor2 = np.where(np.isfinite(floor2), floor2, white)
     rel1 = math.sqrt(max(floor1, 0.0) / 2.0 / nb) / amp1
@@ -980,12 +1003,10 @@ def _uncertainty(blocks: list[_Block], nblk: int, f0: float, amp1: float, orders
     out.put("fundamental_hz", ua.Budget.of(
         noise=sample_rate / (2 * math.pi) * math.sqrt(6.0 * floor1 / nb) / (amp1 * nblk)))
     known = heard & (amps > 0)
-    flat = np.array([0.0 if chain is None else chain.flatness_db(float(k) * f0, f0) for k in orders])
+    flat = np.zeros(orders.size) if chain is None else np.array([chain.flatness_db(float(k) * f0, f0) for k in orders])
     rel_k = np.where(known, uk / np.where(known, amps, 1.0), np.nan)
-    out.put_list("harmonics.level_dbc", [ua.Budget.of(noise=ua.db_from_rel(math.hypot(r, rel1)), flatness=fl)
-                                         if ok else None for r, fl, ok in zip(rel_k, flat, known)])
-    out.put_list("harmonics.level_dbfs", [ua.Budget.of(noise=ua.db_from_rel(r)) if ok else None
-                                          for r, ok in zip(rel_k, known)])
+    out.put_columns("harmonics.level_dbc", known, noise=ua.db_from_rel(np.hypot(rel_k, rel1)), flatness=flat)
+    out.put_columns("harmonics.level_dbfs", known, noise=ua.db_from_rel(rel_k))
     harm_var = float(np.sum((amps[known] * uk[known]) ** 2))  # of their power A^2 / 2
     if thd is not None and thd > 0:
         s = 0.5 * float(np.sum(amps[known] ** 2))
@@ -1003,7 +1024,7 @@ def _uncertainty(blocks: list[_Block], nblk: int, f0: float, amp1: float, orders
     for key in ("thdn_db", "sinad_db"):
         out.put(key, rel_thdn, ua.DB_PER_REL)
     out.put("thdn_pct", rel_thdn, 100.0 * thdn)
-    kept = int(np.mean([b.noise_bins or b.band_bins for b in blocks]))
+    kept = int(_avg([b.noise_bins or b.band_bins for b in blocks]))
     rel_noise = 0.5 * ua.band_power_rel(kept, sp.WINDOW_COEFFS, nb)  # of the RMS: half the power's
     out.put("noise_dbfs", ua.Budget.of(noise=ua.db_from_rel(rel_noise)))
     if volts_per_fs is not None:
@@ -1020,7 +1041,7 @@ def _uncertainty(blocks: list[_Block], nblk: int, f0: float, amp1: float, orders
 
 def _traces(blocks: list[_Block], sample_rate: float, n: int) -> ToneTraces:
     first = blocks[0]
-    power = np.mean([b.spec_power for b in blocks], axis=0)
+    power = _avg([b.spec_power for b in blocks])
     scale = sp.sine_amplitude_scale(n)
     freq = np.arange(power.size) * sample_rate / n
     spectrum_dbfs = units.db_from_ratio(np.sqrt(power) * scale)

@@ -306,6 +306,28 @@ class Collector:
         if bounds and is_bound:
             self.bound(key)
 
+    def put_columns(self, key: str, present=None, **parts) -> None:
+        """:meth:`put_list` with the budgets given as columns, one array a
+        contribution (an item a row), for long arrays: an item not
+        ``present`` is None and makes the figure a bound; one with a
+        contribution not known is None."""
+        cols = [np.asarray(v, dtype=float) for v in parts.values()]
+        size = cols[0].size
+        present = np.ones(size, dtype=bool) if present is None else np.asarray(present, dtype=bool)
+        known = present.copy()
+        for c in cols:
+            known &= np.isfinite(c)
+        ok = known.tolist()
+        # (in the order given, as Budget.u sums them)
+        self.standard[key] = [v if k else None for v, k in zip(np.sqrt(sum(c * c for c in cols)).tolist(), ok)]
+        common = [c for name, c in zip(parts, cols) if name in SHARED]
+        if common:
+            shared = np.sqrt(sum(c * c for c in common))
+            if np.any(shared[known] > 0):
+                self.shared[key] = [v if k else None for v, k in zip(shared.tolist(), ok)]
+        if not present.all():
+            self.bound(key)
+
     def bound(self, *keys: str) -> None:
         self.bounds += [k for k in keys if k not in self.bounds]
 
