@@ -185,8 +185,6 @@ def copy_capture(source: Path, folder: Path, sidecar: dict, sha256: str | None =
     the original (``sha256``: the original's hash when it was analysed).
     Returns the copy and its SHA-256, hashed from the folder after it was
     written."""
-    from benchkit.recordings import write_capture, write_capture_sidecar
-
     dest = folder / kinds.CAPTURE_WAV
     stim = sidecar.get("stimulus") if isinstance(sidecar.get("stimulus"), dict) else {}
     for seg in stim.get("segments") or []:  # a step played again lies in a take beside it, under its own name
@@ -195,11 +193,28 @@ def copy_capture(source: Path, folder: Path, sidecar: dict, sha256: str | None =
             for part in (Path(take).name, Path(take).with_suffix(".json").name):
                 if (source.parent / part).exists():
                     shutil.copyfile(source.parent / part, folder / part)
+    try:
+        return _copy_checked(source, dest, folder, sidecar, sha256)
+    except BaseException:
+        # (a copy that failed its check is not the capture: none is left behind)
+        from benchkit.recordings import sidecar_path
+
+        for part in (dest, sidecar_path(dest)):
+            part.unlink(missing_ok=True)
+        raise
+
+
+def _copy_checked(source: Path, dest: Path, folder: Path, sidecar: dict, sha256: str | None) -> tuple[Path, str]:
+    from benchkit.recordings import write_capture, write_capture_sidecar
+
+    def changed(now: str) -> BenchkitError:
+        return BenchkitError(f"{source} changed after it was analysed (SHA-256 {sha256[:12]}... then, {now[:12]}... "
+                             "now): not filed; file it again")
+
     if source.suffix.lower() == ".wav":
         read = copy_hashing(source, dest)
         if sha256 is not None and read != sha256:
-            raise BenchkitError(f"{source} changed after it was analysed (SHA-256 {sha256[:12]}... then, {read[:12]}... "
-                                "now): not filed; file it again")
+            raise changed(read)
         stored = sha256_of(dest)
         if stored != read:
             raise BenchkitError(f"the copy of {source} in {folder} does not match it (SHA-256 {stored[:12]}... against "
@@ -209,8 +224,8 @@ def copy_capture(source: Path, folder: Path, sidecar: dict, sha256: str | None =
     import numpy as np
     import soundfile as sf
 
-    if sha256 is not None and sha256_of(source) != sha256:
-        raise BenchkitError(f"{source} changed after it was analysed: not filed; file it again")
+    if sha256 is not None and (now := sha256_of(source)) != sha256:
+        raise changed(now)
     data, rate = sf.read(str(source), dtype="float64", always_2d=True)
     write_capture(dest, data, rate, sidecar)
     kept, kept_rate = sf.read(str(dest), dtype="float64", always_2d=True)

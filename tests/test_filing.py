@@ -260,3 +260,5 @@ def test_the_hash_recorded_is_the_stored_copys_and_a_changed_original_is_not_fil
     with logbook.Logbook(tmp_path / "bench3") as book:
         (entry,) = book.entries()
     assert entry.status == "failed" and "changed after it was analysed" in entry.error
+    # and its folder keeps no copy of a file that is not the one analysed
+    assert not list(Path(entry.folder).glob("capture.*"))
