@@ -119,14 +119,18 @@ class Floor:
     frequency_hz: float | None = None
     flat_hz: list | None = None
 
+    @property
+    def tested_hz(self) -> float:
+        """The frequency its THD+N was measured at (the self-test's when not stated)."""
+        return self.frequency_hz or TEST_FREQ_HZ
+
     def judged_hz(self) -> tuple[float, float]:
         """The fundamentals whose THD+N is judged against this floor, Hz:
         its ``flat_hz``, else :data:`SPAN_OCTAVES` either side of its
         frequency."""
         if self.flat_hz is not None:
             return float(self.flat_hz[0]), float(self.flat_hz[1])
-        f = self.frequency_hz or TEST_FREQ_HZ
-        return f / 2.0**SPAN_OCTAVES, f * 2.0**SPAN_OCTAVES
+        return self.tested_hz / 2.0**SPAN_OCTAVES, self.tested_hz * 2.0**SPAN_OCTAVES
 
     def judges(self, fundamental_hz: float | None) -> bool:
         """Whether a THD+N at this fundamental is judged against the floor
@@ -139,9 +143,8 @@ class Floor:
     def rule(self) -> str:
         """Where its THD+N is judged, in words."""
         lo, hi = self.judged_hz()
-        f = self.frequency_hz or TEST_FREQ_HZ
         why = (f"where its self-test's THD+N read flat within {FLAT_DB:g} dB" if self.flat_hz is not None
-               else f"{SPAN_OCTAVES:g} octave either side of {f:g} Hz, assumed")
+               else f"{SPAN_OCTAVES:g} octave either side of {self.tested_hz:g} Hz, assumed")
         where = f"{lo:.4g} Hz" if f"{lo:.4g}" == f"{hi:.4g}" else f"{lo:.4g}-{hi:.4g} Hz"
         return f"THD+N judged only at {where} ({why}), noise at every frequency"
 
@@ -184,7 +187,7 @@ class Floor:
         return {"from": self.field, "source": self.source, "measured": self.measured,
                 "levels_dbfs": list(self.levels_dbfs), "thdn_db": list(self.thdn_db), "noise_dbfs": self.noise_dbfs,
                 "noise_a_dbfs": self.noise_a_dbfs, "bandwidth_hz": self.bandwidth_hz, "margin_db": MARGIN_DB,
-                "frequency_hz": self.frequency_hz or TEST_FREQ_HZ, "flat_hz": self.flat_hz,
+                "frequency_hz": self.tested_hz, "flat_hz": self.flat_hz,
                 "judged_hz": [round(v, 3) for v in self.judged_hz()]}
 
     def text(self) -> str:
@@ -193,7 +196,7 @@ class Floor:
         if self.thdn_db:
             k = int(np.argmin(self.thdn_db))
             parts.append(f"THD+N {self.thdn_db[k]:.1f} dB at {self.levels_dbfs[k]:.0f} dBFS, "
-                         f"{self.frequency_hz or TEST_FREQ_HZ:g} Hz")
+                         f"{self.tested_hz:g} Hz")
         if self.noise_dbfs is not None:
             parts.append(f"noise {self.noise_dbfs:.1f} dBFS")
         if self.noise_a_dbfs is not None:
@@ -267,19 +270,17 @@ def _margins(node: dict, floor: Floor, scale: float | None, hz: float | None) ->
     range."""
     got, skipped = {}, 0
     thdn, level = node.get("thdn_db"), node.get("fundamental_dbfs")
+    key = at = None
     if _number(thdn) and _number(level):
-        at = floor.thdn_db_at(level)
-        if at is not None and not floor.judges(hz):
-            skipped += 1
-        elif at is not None:
-            got["thdn_db"] = thdn - at
+        key, at, value = "thdn_db", floor.thdn_db_at(level), thdn
     elif _number(node.get("thdn_pct")) and _number(node.get("vrms")) and scale and node["thdn_pct"] > 0:
         # a power step: its level at the input from its volts and the run's scale (volts peak per FS)
-        at = floor.thdn_db_at(units.dbfs_from_rms(node["vrms"] / scale))
-        if at is not None and not floor.judges(hz):
-            skipped += 1
-        elif at is not None:
-            got["thdn_pct"] = units.db_from_ratio(node["thdn_pct"] / 100.0) - at
+        key, at = "thdn_pct", floor.thdn_db_at(units.dbfs_from_rms(node["vrms"] / scale))
+        value = units.db_from_ratio(node["thdn_pct"] / 100.0)
+    if at is not None and not floor.judges(hz):
+        skipped += 1
+    elif at is not None:
+        got[key] = value - at
     for key, ref in (("noise_dbfs", floor.noise_dbfs), ("noise_a_dbfs", floor.noise_a_dbfs)):
         if _number(node.get(key)) and ref is not None:
             got[key] = node[key] - ref

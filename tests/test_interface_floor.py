@@ -16,6 +16,7 @@ import shutil
 from pathlib import Path
 
 import pytest
+from hypothesis import given, settings, strategies as st
 
 from benchkit.calibration import load_profile
 from benchkit.errors import BenchkitError
@@ -268,7 +269,6 @@ def test_the_calibrations_older_check_judges_only_near_its_frequency_and_yields_
 
 # --- marking twice marks once ---------------------------------------------------------------------
 
-from hypothesis import given, settings, strategies as st  # noqa: E402
 
 _figure = st.one_of(st.none(), st.floats(-140.0, 0.0))
 _node = st.fixed_dictionaries({}, optional={"thdn_db": _figure, "fundamental_dbfs": _figure, "noise_dbfs": _figure,
