@@ -534,7 +534,7 @@ def noise_floor_amp2(rspec: np.ndarray, n: int, nu1: float, orders: np.ndarray,
     first = np.clip(below - width // 2, 0, total - width)
     pools = sp.power(rspec[_noise_bin(first[:, None] + np.arange(width)[None, :], starts, lengths, ends)])
     # the read's gain varies by under 0.1 % with the fraction of a bin: one will do
-    gain = np.full(orders.size, _read_gain(n, size, int(round(float(at[0]) * 64))))
+    gain = np.full(orders.size, _read_gain(n, int(round(float(at[0]) * 64))))
     if fitted is not None:
         gain[fitted] = sp.fit_noise_gain(n)
     return _row_medians(pools) / math.log(2.0) * gain
@@ -571,10 +571,10 @@ def _noise_bin(rank: np.ndarray, starts: np.ndarray, lengths: np.ndarray, ends: 
 
 
 @lru_cache(maxsize=64)
-def _read_gain(n: int, size: int, sixty_fourths: int) -> float:
+def _read_gain(n: int, sixty_fourths: int) -> float:
     """:func:`benchkit.analysis.spectrum.read_noise_gain` at a bin given to
     1/64 (closer than the gain moves by), kept for the next record."""
-    return float(sp.read_noise_gain(n, np.array([sixty_fourths / 64.0]), size)[0])
+    return float(sp.read_noise_gain(n, np.array([sixty_fourths / 64.0]), n // 2 + 1)[0])
 
 
 def over_floor_ratio(k: int) -> float:
