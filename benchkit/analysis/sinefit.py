@@ -24,15 +24,69 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
+from benchkit.analysis.blockfft import scratch
 from benchkit.errors import BenchkitError
 
 
 def _phasor(cycles: np.ndarray) -> np.ndarray:
     """e^{j 2 pi cycles}, reducing the argument to one turn first."""
     return np.exp(2j * np.pi * np.mod(cycles, 1.0))
+
+
+class _SumWeights:
+    """Real weight matrices that sum complex rows, seen as interleaved (re,
+    im) pairs: ``kron(w, I_2)`` applies the real weights w to both parts.
+
+    ``powers`` holds, for block starts, in-block offsets and tail, the
+    weights ``t^q`` (q = 0..2) as ``(2 positions, 6)``. ``rows`` sums the
+    rows of :meth:`RecordLayout.conj_data_sums` (the blocks, then the
+    tail's samples): ``rows[False]`` just adds them up; ``rows[True]``
+    takes rows z and then zt, adds up the z for conj S, and the z times t
+    plus the zt for conj T."""
+
+    def __init__(self, layout_n: int):
+        n = layout_n
+        block = max(1, math.isqrt(n))
+        main = n // block * block
+        centre = (n - 1) / 2.0
+        t_block = (np.arange(0, main, block, dtype=float) - centre) / n
+        t_in = np.arange(block, dtype=float) / n
+        t_tail = (np.arange(main, n, dtype=float) - centre) / n
+        pair = np.eye(2)
+        q = np.arange(3)[:, None]
+        self.powers = tuple(np.kron((t**q).T, pair) for t in (t_block, t_in, t_tail))
+        t_rows = np.concatenate([t_block, t_tail])
+        ones, zeros = np.ones_like(t_rows), np.zeros_like(t_rows)
+        self.rows = {
+            False: np.kron(ones[:, None], pair),
+            True: np.kron(np.block([[ones[:, None], t_rows[:, None]], [zeros[:, None], ones[:, None]]]), pair),
+        }
+        for w in (*self.powers, *self.rows.values()):
+            w.flags.writeable = False
+
+
+@lru_cache(maxsize=8)
+def _sum_weights(n: int) -> _SumWeights:
+    """The weights of a record of n samples, built once per length."""
+    return _SumWeights(n)
+
+
+@lru_cache(maxsize=None)
+def _binomial_weights(max_power: int) -> np.ndarray:
+    """``E_p = sum_q C(p, q) B_q I_{p-q}``, as a real map from the products
+    ``B_q I_r`` (flattened over q, r; interleaved re, im) to the E_p."""
+    size = max_power + 1
+    w = np.zeros((size * size, size))
+    for q in range(size):
+        for r in range(size - q):
+            w[q * size + r, q + r] = math.comb(q + r, q)
+    w = np.kron(w, np.eye(2))
+    w.flags.writeable = False
+    return w
 
 
 class RecordLayout:
@@ -56,63 +110,110 @@ class RecordLayout:
         self.t_block = (self.bstart - centre) / n  # t at the start of each block
         self.t_in = self.i / n  # t offset inside a block
         self.t_tail = (self.tail - centre) / n
+        # the three sets of positions end to end, for one pass of
+        # harmonic_phasors; _cuts splits them again
+        self.positions = np.concatenate([self.bstart, self.i, self.tail])
+        self._cuts = (self.blocks, self.blocks + self.block)
+        self._weights = _sum_weights(n)
 
-    def harmonic_phasors(self, cycles: float, count: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def harmonic_phasors(
+        self, cycles: float, count: int, out: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``e^{j 2 pi m c n}`` for m = 0..count-1, split as block starts
-        ``(blocks, count)``, in-block offsets ``(block, count)`` and tail
-        ``(tail, count)``. Powers by doubling runs, ``b^(k..k+m-1) =
-        b^(k-1) b^(1..m)``: a handful of vectorised products instead of
-        complex exponentials, each power within a few ulp."""
-
-        def powers(pos: np.ndarray) -> np.ndarray:
-            # built as (count, positions), contiguous rows, then viewed the
-            # other way round
+        ``(count, blocks)``, in-block offsets ``(count, block)`` and tail
+        ``(count, tail)``: one row per m, contiguous. Powers by doubling
+        runs, ``b^(k..k+m-1) = b^(k-1) b^(1..m)``: a handful of vectorised
+        products instead of complex exponentials, each power within a few
+        ulp. The three sets of positions go through together, so each step
+        is one numpy call. ``out``, complex ``(count, positions)``, takes
+        the table if given (the sections returned are views of it)."""
+        pos = self.positions
+        if out is None:
             out = np.empty((count, pos.size), dtype=complex)
-            out[0] = 1.0
-            if count > 1:
-                out[1] = _phasor(pos * cycles)
-            k = 2
-            while k < count:
-                m = min(k - 1, count - k)
-                np.multiply(out[1 : m + 1], out[k - 1], out=out[k : k + m])
-                k += m
-            return out.T
+        out[0] = 1.0
+        if count > 1:
+            # e^{j 2 pi c n} from its cosine and sine, the argument reduced
+            # to one turn first (n c - floor(n c) is np.mod(n c, 1), exactly)
+            turn = pos * cycles
+            turn -= np.floor(turn)
+            turn *= 2.0 * np.pi
+            np.cos(turn, out=out[1].real)
+            np.sin(turn, out=out[1].imag)
+        k = 2
+        while k < count:
+            m = min(k - 1, count - k)
+            np.multiply(out[1 : m + 1], out[k - 1], out=out[k : k + m])
+            k += m
+        b, i = self._cuts
+        return out[:, :b], out[:, b:i], out[:, i:]
 
-        return powers(self.bstart), powers(self.i), powers(self.tail)
+    def record_sums(self, ph, max_power: int) -> np.ndarray:
+        """``E_p(m c) = sum_n t_n^p e^{j 2 pi m c n}`` for p = 0..max_power
+        (at most 2) and every m of the phasors ``ph`` (from
+        :meth:`harmonic_phasors`), as rows ``(max_power + 1, count)``.
 
-    def record_sums(self, ph, max_power: int) -> list[np.ndarray]:
-        """``E_p(m c) = sum_n t_n^p e^{j 2 pi m c n}`` for p = 0..max_power and
-        every m of the phasors ``ph`` (from :meth:`harmonic_phasors`)."""
-        ub, vi, tail = ph
-        sb = [ub.T @ (self.t_block**q) for q in range(max_power + 1)]
-        si = [vi.T @ (self.t_in**r) for r in range(max_power + 1)]
-        out = []
-        for p in range(max_power + 1):
-            total = sum(math.comb(p, q) * sb[q] * si[p - q] for q in range(p + 1))
-            out.append(total + tail.T @ (self.t_tail**p))
-        return out
+        With ``t_n = t_b + t_i``, ``E_p = sum_q C(p, q) B_q I_{p-q} + L_p``
+        where ``B_q = sum_b t_b^q u_b``, ``I_r = sum_i t_i^r v_i`` and
+        ``L_p`` is the tail's own sum. Each of these is one real matrix
+        product of the phasor rows, seen as interleaved (re, im) pairs, with
+        the weights ``t^q`` spread over both parts (see :func:`_sum_weights`).
+        """
+        if max_power > 2:
+            raise ValueError("record_sums goes up to t^2")
+        q = 2 * (max_power + 1)
+        b, i, tail = (
+            (p.view(float) @ w[:, :q]).view(complex) for p, w in zip(ph, self._weights.powers)
+        )  # (count, max_power + 1) each
+        prod = (b[:, :, None] * i[:, None, :]).reshape(b.shape[0], -1)
+        e = (prod.view(float) @ _binomial_weights(max_power)).view(complex)
+        e += tail
+        return np.ascontiguousarray(e.T)
 
     def data_sums(self, x: np.ndarray, ph, orders: int, weighted: bool) -> tuple[np.ndarray, np.ndarray | None]:
         """``S_m = sum_n x[n] e^{-j 2 pi m c n}`` for m = 0..orders and, if
-        ``weighted``, ``T_m = sum_n t_n x[n] e^{-j 2 pi m c n}``.
+        ``weighted``, ``T_m = sum_n t_n x[n] e^{-j 2 pi m c n}``: the complex
+        conjugates of the rows of :meth:`conj_data_sums`."""
+        sums = self.conj_data_sums(x, ph, orders, weighted).conj()
+        return sums[0], (sums[1] if weighted else None)
 
-        One matrix product over the record; everything else is short.
+    def conj_data_sums(self, x: np.ndarray, ph, orders: int, weighted: bool) -> np.ndarray:
+        """``conj S_m = sum_n x[n] e^{j 2 pi m c n}`` and, if ``weighted``,
+        ``conj T_m`` (with ``t_n x[n]``), as rows ``(1 or 2, orders + 1)``.
+
+        One matrix product over the record, the in-block phasors (as real
+        and imaginary rows, and again times ``t_i`` if ``weighted``) against
+        the record reshaped to ``(blocks, block)``: it gives, for each block
+        b, ``z_b = sum_i x[bB + i] v_i`` and ``zt_b = sum_i t_i x[bB + i]
+        v_i``. Then ``conj S = sum_b u_b z_b`` and ``conj T = sum_b u_b (t_b
+        z_b + zt_b)``, the tail's samples added as blocks of their own; these
+        sums over b are one more (short) matrix product.
         """
-        m = orders + 1
-        ub, vi, tail = (p[:, :m].conj() for p in ph)
-        cols = [vi.real, vi.imag]
+        k = orders + 1
+        ub, vi, tail = ph
+        blocks = self.blocks
+        width = 2 if weighted else 1
+        # the work arrays (a few hundred kB at 96,000 samples) are per-thread
+        # scratch: fresh ones past the C library's mapping threshold would
+        # be faulted in from the kernel on every call
+        cols = scratch("sinefit_cols", (width, 2, k, self.block), float)
+        cols[0, 0] = vi[:k].real
+        cols[0, 1] = vi[:k].imag
         if weighted:
-            vt = vi * self.t_in[:, None]
-            cols += [vt.real, vt.imag]
-        g = x[: self.main].reshape(self.blocks, self.block) @ np.concatenate(cols, axis=1)
-        z = g[:, :m] + 1j * g[:, m : 2 * m]
-        xt = x[self.main :]
-        s = np.sum(ub * z, axis=0) + xt @ tail
-        if not weighted:
-            return s, None
-        zt = g[:, 2 * m : 3 * m] + 1j * g[:, 3 * m :]
-        t = np.sum(ub * (self.t_block[:, None] * z + zt), axis=0) + (self.t_tail * xt) @ tail
-        return s, t
+            np.multiply(cols[0], self.t_in, out=cols[1])
+        g = scratch("sinefit_blocksums", (width, 2, k, blocks), float)
+        np.matmul(cols.reshape(-1, self.block), x[: self.main].reshape(blocks, self.block).T, out=g.reshape(-1, blocks))
+        # z_b u_b (and zt_b u_b) for every block, then the tail's samples
+        # x[n] e^{j 2 pi m c n} as rows of their own
+        z = scratch("sinefit_rows", (k, width, blocks + tail.shape[1]), complex)
+        z.real[:, :, :blocks] = g[:, 0].transpose(1, 0, 2)
+        z.imag[:, :, :blocks] = g[:, 1].transpose(1, 0, 2)
+        z[:, :, :blocks] *= ub[:k, None, :]
+        np.multiply(tail[:k], x[self.main :], out=z[:, 0, blocks:])
+        z[:, 1:, blocks:] = 0.0
+        # conj S: the z rows summed; conj T: the z rows weighted by t, plus
+        # the zt rows summed (see _SumWeights.rows)
+        w = self._weights.rows[weighted]
+        return np.ascontiguousarray((z.reshape(k, -1).view(float) @ w).view(complex).T)
 
     def sine(self, cycles: float, a: float, b: float) -> np.ndarray:
         """``a cos(2 pi c n) + b sin(2 pi c n)`` for the whole record.
@@ -235,14 +336,15 @@ def fit_tone(
     n = layout.n
     k_all = np.arange(0, orders + 1)
     m = 2 * orders + 1
+    pick = np.r_[0, 2 : 2 * orders + 1 : 2, 3 : 2 * orders + 2 : 2]
 
     def sums(c: float, weighted: bool):
-        ph = layout.harmonic_phasors(c, m)
+        ph = layout.harmonic_phasors(c, m, out=scratch("sinefit_phasors", (m, layout.positions.size), complex))
         e = layout.record_sums(ph, 2 if weighted else 0)
-        s, t = layout.data_sums(x, ph, orders, weighted)
-        r0 = np.concatenate([[s[0].real], s[1:].real, -s[1:].imag])
-        r1 = None if t is None else np.concatenate([[t[0].real], t[1:].real, -t[1:].imag])
-        return e, r0, r1
+        # [Re S_0, Re S_1..K, -Im S_1..K], and the same of T: from the
+        # conjugates, whose imaginary parts are -Im S
+        r = layout.conj_data_sums(x, ph, orders, weighted).view(float)[:, pick]
+        return e, r[0], (r[1] if weighted else None)
 
     c = cycles0
     if start is None:
