@@ -195,18 +195,20 @@ class RecordLayout:
         # the work arrays (a few hundred kB at 96,000 samples) are per-thread
         # scratch: fresh ones past the C library's mapping threshold would
         # be faulted in from the kernel on every call
-        cols = scratch("sinefit_cols", (width, 2, k, self.block), float)
-        cols[0, 0] = vi[:k].real
-        cols[0, 1] = vi[:k].imag
+        # rows Re v_0..v_K, Im v_1..v_K (v_0 = 1 has no imaginary part)
+        cols = scratch("sinefit_cols", (width, 2 * k - 1, self.block), float)
+        cols[0, :k] = vi[:k].real
+        cols[0, k:] = vi[1:k].imag
         if weighted:
             np.multiply(cols[0], self.t_in, out=cols[1])
-        g = scratch("sinefit_blocksums", (width, 2, k, blocks), float)
+        g = scratch("sinefit_blocksums", (width, 2 * k - 1, blocks), float)
         np.matmul(cols.reshape(-1, self.block), x[: self.main].reshape(blocks, self.block).T, out=g.reshape(-1, blocks))
         # z_b u_b (and zt_b u_b) for every block, then the tail's samples
         # x[n] e^{j 2 pi m c n} as rows of their own
         z = scratch("sinefit_rows", (k, width, blocks + tail.shape[1]), complex)
-        z.real[:, :, :blocks] = g[:, 0].transpose(1, 0, 2)
-        z.imag[:, :, :blocks] = g[:, 1].transpose(1, 0, 2)
+        z.real[:, :, :blocks] = g[:, :k].transpose(1, 0, 2)
+        z.imag[0, :, :blocks] = 0.0
+        z.imag[1:, :, :blocks] = g[:, k:].transpose(1, 0, 2)
         z[:, :, :blocks] *= ub[:k, None, :]
         np.multiply(tail[:k], x[self.main :], out=z[:, 0, blocks:])
         z[:, 1:, blocks:] = 0.0
@@ -275,14 +277,53 @@ def _gram(e: np.ndarray, orders: int, out: np.ndarray | None = None) -> np.ndarr
     return g
 
 
+class _FitTables:
+    """Constants of :func:`fit_tone` for a number of harmonic orders K.
+
+    The parameters are ordered ``[offset, a_1, b_1, a_2, b_2, ...]`` (a_k of
+    ``cos(2 pi k c n)``, b_k of ``sin``), so that ``theta[1:]`` seen as
+    complex is ``a_k + j b_k``, the conjugate of ``A_k e^{j phi_k}``, and
+    the data sums ``conj S_m`` are, as (re, im) pairs, the right-hand side.
+
+    ``gram`` maps ``E_p(m c)`` (m = 0..2K, interleaved re, im) to the Gram
+    matrix of those columns, flattened: the rows are :func:`_gram` of the
+    unit real and imaginary parts, reordered. ``pick`` takes the right-hand
+    side from ``conj S`` (all but ``Im conj S_0``, which is zero). The
+    frequency column's weights ``[0, k b_k, -k a_k]`` are ``kw *
+    theta[swap]``; ``kphase`` is ``2 pi j k``.
+    """
+
+    def __init__(self, orders: int):
+        m = 2 * orders + 1
+        k = np.arange(1, orders + 1)
+        order = np.empty(m, dtype=int)  # from _gram's [1, cos_1..K, sin_1..K]
+        order[0], order[1::2], order[2::2] = 0, k, k + orders
+        units = np.eye(2 * m).view(complex)
+        self.gram = np.stack([_gram(e, orders)[np.ix_(order, order)].ravel() for e in units])
+        self.pick = np.r_[0, 2 : 2 * orders + 2]
+        self.swap = np.arange(m)
+        self.swap[1::2], self.swap[2::2] = self.swap[2::2], self.swap[1::2].copy()
+        self.kw = np.zeros(m)
+        self.kw[1::2], self.kw[2::2] = k, -k
+        self.kphase = 2j * np.pi * k
+        for a in (self.gram, self.pick, self.swap, self.kw, self.kphase):
+            a.flags.writeable = False
+
+
+@lru_cache(maxsize=None)
+def _fit_tables(orders: int) -> _FitTables:
+    return _FitTables(orders)
+
+
 def _solve(g: np.ndarray, rhs: np.ndarray) -> np.ndarray:
     """Solve a normal-equation system after scaling it to unit diagonal."""
-    d = 1.0 / np.sqrt(np.abs(np.diag(g)))
+    d = np.abs(g.diagonal()) ** -0.5
     try:
-        sol = np.linalg.solve(g * np.outer(d, d), rhs * d) * d
+        sol = np.linalg.solve(g * d * d[:, None], rhs * d)
     except np.linalg.LinAlgError as exc:
         raise BenchkitError("the sine fit is singular: the record is too short or holds no usable tone") from exc
-    if not np.all(np.isfinite(sol)):
+    sol *= d
+    if not np.isfinite(sol).all():
         raise BenchkitError("the sine fit did not converge: the record holds no usable tone")
     return sol
 
@@ -334,38 +375,42 @@ def fit_tone(
     IEEE Std 1241-2010, section 4.1.4 (sine fitting, with harmonics).
     """
     n = layout.n
-    k_all = np.arange(0, orders + 1)
     m = 2 * orders + 1
-    pick = np.r_[0, 2 : 2 * orders + 1 : 2, 3 : 2 * orders + 2 : 2]
+    tab = _fit_tables(orders)
+    phasors = scratch("sinefit_phasors", (m, layout.positions.size), complex)
 
     def sums(c: float, weighted: bool):
-        ph = layout.harmonic_phasors(c, m, out=scratch("sinefit_phasors", (m, layout.positions.size), complex))
+        """Gram matrices for t^0 (and t^1, t^2 if ``weighted``), and the
+        right-hand sides [sum x u] (and [sum t x u])."""
+        ph = layout.harmonic_phasors(c, m, out=phasors)
         e = layout.record_sums(ph, 2 if weighted else 0)
-        # [Re S_0, Re S_1..K, -Im S_1..K], and the same of T: from the
-        # conjugates, whose imaginary parts are -Im S
-        r = layout.conj_data_sums(x, ph, orders, weighted).view(float)[:, pick]
-        return e, r[0], (r[1] if weighted else None)
+        grams = (e.view(float) @ tab.gram).reshape(-1, m, m)
+        r = layout.conj_data_sums(x, ph, orders, weighted).view(float)[:, tab.pick]
+        return grams, r
 
     c = cycles0
     if start is None:
-        e, r0, _ = sums(c, False)
-        theta = _solve(_gram(e[0], orders), r0)
+        grams, r = sums(c, False)
+        theta = _solve(grams[0], r[0])
     else:
         theta = np.zeros(m)
-        theta[1], theta[orders + 1] = start.real, -start.imag
+        theta[1], theta[2] = start.real, -start.imag
     g = np.empty((m + 1, m + 1))
+    rhs = np.empty(m + 1)
     it = 0
     for it in range(1, max_iter + 1):
-        e, r0, r1 = sums(c, True)
+        grams, r = sums(c, True)
         # d/dc of sum_k a_k cos + b_k sin is 2 pi n sum_k k (b_k cos_k - a_k sin_k);
         # with n = N t + const the constant part lies in the span of the
         # columns, so the frequency column is D = t (w . columns)
-        a, b = theta[1 : orders + 1], theta[orders + 1 :]
-        w = np.concatenate([[0.0], k_all[1:] * b, -k_all[1:] * a])
-        _gram(e[0], orders, out=g[:m, :m])
-        g[m, :m] = g[:m, m] = _gram(e[1], orders) @ w
-        g[m, m] = w @ _gram(e[2], orders) @ w
-        sol = _solve(g, np.concatenate([r0, [w @ r1]]))
+        w = tab.kw * theta[tab.swap]
+        g[:m, :m] = grams[0]
+        border = grams[1:] @ w  # G_1 w, G_2 w
+        g[m, :m] = g[:m, m] = border[0]
+        g[m, m] = border[1] @ w
+        rhs[:m] = r[0]
+        rhs[m] = r[1] @ w
+        sol = _solve(g, rhs)
         theta = sol[:-1]
         step = sol[-1] / (2.0 * np.pi * n)
         # keep each step within half a bin; the start is already that close
@@ -373,25 +418,22 @@ def fit_tone(
         c += step
         # the column D moves each phase by 2 pi k step (n - centre): the part
         # 2 pi k step centre went into the coefficients; take it out again so
-        # they refer to n = 0 at the new frequency
-        z = (theta[1 : orders + 1] - 1j * theta[orders + 1 :]) * np.exp(
-            -2j * np.pi * k_all[1:] * step * layout.centre
-        )
-        theta[1 : orders + 1], theta[orders + 1 :] = z.real, -z.imag
+        # they refer to n = 0 at the new frequency (a_k + j b_k is conj A e^{j phi})
+        theta[1:].view(complex)[...] *= np.exp(tab.kphase * (step * layout.centre))
         bins = abs(step) * n
         if bins < 1e-11:
             # converged: a step this small moves the coefficients by far
             # less than the float64 floor, so the last solve stands
             break
         if energy is not None:
-            rss = max(energy - float(theta @ r0), 0.0)
+            rss = max(energy - float(theta @ r[0]), 0.0)
             left = 10.0 * bins * bins  # bins of error left, with margin
             # a frequency error of e bins leaves about A (2 pi e) / sqrt(12)
             # of the fundamental in the residual (time centred on the record)
-            amp2 = theta[1] ** 2 + theta[orders + 1] ** 2
+            amp2 = theta[1] ** 2 + theta[2] ** 2
             if amp2 * (2.0 * np.pi * left) ** 2 / 12.0 < 1e-6 * rss / n:
                 break
     else:
-        e, r0, _ = sums(c, False)
-        theta = _solve(_gram(e[0], orders), r0)
-    return SineFit(cycles=c, offset=float(theta[0]), cos=theta[1 : orders + 1], sin=theta[orders + 1 :], iterations=it)
+        grams, r = sums(c, False)
+        theta = _solve(grams[0], r[0])
+    return SineFit(cycles=c, offset=float(theta[0]), cos=theta[1::2], sin=theta[2::2], iterations=it)
