@@ -48,18 +48,11 @@ class _SumWeights:
     takes rows z and then zt, adds up the z for conj S, and the z times t
     plus the zt for conj T."""
 
-    def __init__(self, layout_n: int):
-        n = layout_n
-        block = max(1, math.isqrt(n))
-        main = n // block * block
-        centre = (n - 1) / 2.0
-        t_block = (np.arange(0, main, block, dtype=float) - centre) / n
-        t_in = np.arange(block, dtype=float) / n
-        t_tail = (np.arange(main, n, dtype=float) - centre) / n
+    def __init__(self, layout: RecordLayout):
         pair = np.eye(2)
         q = np.arange(3)[:, None]
-        self.powers = tuple(np.kron((t**q).T, pair) for t in (t_block, t_in, t_tail))
-        t_rows = np.concatenate([t_block, t_tail])
+        self.powers = tuple(np.kron((t**q).T, pair) for t in (layout.t_block, layout.t_in, layout.t_tail))
+        t_rows = np.concatenate([layout.t_block, layout.t_tail])
         ones, zeros = np.ones_like(t_rows), np.zeros_like(t_rows)
         self.rows = {
             False: np.kron(ones[:, None], pair),
@@ -71,8 +64,9 @@ class _SumWeights:
 
 @lru_cache(maxsize=8)
 def _sum_weights(n: int) -> _SumWeights:
-    """The weights of a record of n samples, built once per length."""
-    return _SumWeights(n)
+    """The weights of a record of n samples, built once per length (a
+    record's layout is built per call)."""
+    return _SumWeights(RecordLayout(n))
 
 
 @lru_cache(maxsize=None)
@@ -114,7 +108,10 @@ class RecordLayout:
         # harmonic_phasors; _cuts splits them again
         self.positions = np.concatenate([self.bstart, self.i, self.tail])
         self._cuts = (self.blocks, self.blocks + self.block)
-        self._weights = _sum_weights(n)
+
+    @property
+    def _weights(self) -> _SumWeights:
+        return _sum_weights(self.n)
 
     def harmonic_phasors(
         self, cycles: float, count: int, out: np.ndarray | None = None
