@@ -138,3 +138,19 @@ def test_block_fft_equals_scipy_rfft(n):
     assert got is out
     assert np.max(np.abs(got - ref)) < 4e-15 * np.max(np.abs(ref))
     assert (blockfft.split(n) is None) == (n == 96001)
+
+
+def test_block_sums_paths_agree():
+    # the shorter paths fit_tone takes (no t weights, phasors into a given
+    # array) give the same sums as the full ones
+    n, c = 4801, 0.0311
+    x = np.random.default_rng(2).standard_normal(n)
+    layout = RecordLayout(n)
+    ph = layout.harmonic_phasors(c, 7)
+    out = np.empty((7, layout.positions.size), dtype=complex)
+    for a, b in zip(layout.harmonic_phasors(c, 7, out=out), ph):
+        assert np.array_equal(a, b)
+    assert np.allclose(layout.record_sums(ph, 0)[0], layout.record_sums(ph, 2)[0], rtol=1e-13, atol=1e-12)
+    full = layout.conj_data_sums(x, ph, 3, weighted=True)
+    assert np.allclose(layout.conj_data_sums(x, ph, 3, weighted=False)[0], full[0], rtol=1e-13, atol=1e-12)
+    assert full.shape == (2, 4)

@@ -24,15 +24,63 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
+from benchkit.analysis.blockfft import scratch
 from benchkit.errors import BenchkitError
 
 
 def _phasor(cycles: np.ndarray) -> np.ndarray:
     """e^{j 2 pi cycles}, reducing the argument to one turn first."""
     return np.exp(2j * np.pi * np.mod(cycles, 1.0))
+
+
+class _SumWeights:
+    """Real weight matrices that sum complex rows, seen as interleaved (re,
+    im) pairs: ``kron(w, I_2)`` applies the real weights w to both parts.
+
+    ``powers`` holds, for block starts, in-block offsets and tail, the
+    weights ``t^q`` (q = 0..2) as ``(2 positions, 6)``. ``rows`` sums the
+    rows of :meth:`RecordLayout.conj_data_sums` (the blocks, then the
+    tail's samples): ``rows[False]`` just adds them up; ``rows[True]``
+    takes rows z and then zt, adds up the z for conj S, and the z times t
+    plus the zt for conj T."""
+
+    def __init__(self, layout: RecordLayout):
+        pair = np.eye(2)
+        q = np.arange(3)[:, None]
+        self.powers = tuple(np.kron((t**q).T, pair) for t in (layout.t_block, layout.t_in, layout.t_tail))
+        t_rows = np.concatenate([layout.t_block, layout.t_tail])
+        ones, zeros = np.ones_like(t_rows), np.zeros_like(t_rows)
+        self.rows = {
+            False: np.kron(ones[:, None], pair),
+            True: np.kron(np.block([[ones[:, None], t_rows[:, None]], [zeros[:, None], ones[:, None]]]), pair),
+        }
+        for w in (*self.powers, *self.rows.values()):
+            w.flags.writeable = False
+
+
+@lru_cache(maxsize=8)
+def _sum_weights(n: int) -> _SumWeights:
+    """The weights of a record of n samples, built once per length (a
+    record's layout is built per call)."""
+    return _SumWeights(RecordLayout(n))
+
+
+@lru_cache(maxsize=None)
+def _binomial_weights(max_power: int) -> np.ndarray:
+    """``E_p = sum_q C(p, q) B_q I_{p-q}``, as a real map from the products
+    ``B_q I_r`` (flattened over q, r; interleaved re, im) to the E_p."""
+    size = max_power + 1
+    w = np.zeros((size * size, size))
+    for q in range(size):
+        for r in range(size - q):
+            w[q * size + r, q + r] = math.comb(q + r, q)
+    w = np.kron(w, np.eye(2))
+    w.flags.writeable = False
+    return w
 
 
 class RecordLayout:
@@ -56,63 +104,115 @@ class RecordLayout:
         self.t_block = (self.bstart - centre) / n  # t at the start of each block
         self.t_in = self.i / n  # t offset inside a block
         self.t_tail = (self.tail - centre) / n
+        # the three sets of positions end to end, for one pass of
+        # harmonic_phasors; _cuts splits them again
+        self.positions = np.concatenate([self.bstart, self.i, self.tail])
+        self._cuts = (self.blocks, self.blocks + self.block)
 
-    def harmonic_phasors(self, cycles: float, count: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    @property
+    def _weights(self) -> _SumWeights:
+        return _sum_weights(self.n)
+
+    def harmonic_phasors(
+        self, cycles: float, count: int, out: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``e^{j 2 pi m c n}`` for m = 0..count-1, split as block starts
-        ``(blocks, count)``, in-block offsets ``(block, count)`` and tail
-        ``(tail, count)``. Powers by doubling runs, ``b^(k..k+m-1) =
-        b^(k-1) b^(1..m)``: a handful of vectorised products instead of
-        complex exponentials, each power within a few ulp."""
-
-        def powers(pos: np.ndarray) -> np.ndarray:
-            # built as (count, positions), contiguous rows, then viewed the
-            # other way round
+        ``(count, blocks)``, in-block offsets ``(count, block)`` and tail
+        ``(count, tail)``: one row per m, contiguous. Powers by doubling
+        runs, ``b^(k..k+m-1) = b^(k-1) b^(1..m)``: a handful of vectorised
+        products instead of complex exponentials, each power within a few
+        ulp. The three sets of positions go through together, so each step
+        is one numpy call. ``out``, complex ``(count, positions)``, takes
+        the table if given (the sections returned are views of it)."""
+        pos = self.positions
+        if out is None:
             out = np.empty((count, pos.size), dtype=complex)
-            out[0] = 1.0
-            if count > 1:
-                out[1] = _phasor(pos * cycles)
-            k = 2
-            while k < count:
-                m = min(k - 1, count - k)
-                np.multiply(out[1 : m + 1], out[k - 1], out=out[k : k + m])
-                k += m
-            return out.T
+        out[0] = 1.0
+        if count > 1:
+            # e^{j 2 pi c n} from its cosine and sine, the argument reduced
+            # to one turn first (n c - floor(n c) is np.mod(n c, 1), exactly)
+            turn = pos * cycles
+            turn -= np.floor(turn)
+            turn *= 2.0 * np.pi
+            np.cos(turn, out=out[1].real)
+            np.sin(turn, out=out[1].imag)
+        k = 2
+        while k < count:
+            m = min(k - 1, count - k)
+            np.multiply(out[1 : m + 1], out[k - 1], out=out[k : k + m])
+            k += m
+        b, i = self._cuts
+        return out[:, :b], out[:, b:i], out[:, i:]
 
-        return powers(self.bstart), powers(self.i), powers(self.tail)
+    def record_sums(self, ph, max_power: int) -> np.ndarray:
+        """``E_p(m c) = sum_n t_n^p e^{j 2 pi m c n}`` for p = 0..max_power
+        (at most 2) and every m of the phasors ``ph`` (from
+        :meth:`harmonic_phasors`), as rows ``(max_power + 1, count)``.
 
-    def record_sums(self, ph, max_power: int) -> list[np.ndarray]:
-        """``E_p(m c) = sum_n t_n^p e^{j 2 pi m c n}`` for p = 0..max_power and
-        every m of the phasors ``ph`` (from :meth:`harmonic_phasors`)."""
-        ub, vi, tail = ph
-        sb = [ub.T @ (self.t_block**q) for q in range(max_power + 1)]
-        si = [vi.T @ (self.t_in**r) for r in range(max_power + 1)]
-        out = []
-        for p in range(max_power + 1):
-            total = sum(math.comb(p, q) * sb[q] * si[p - q] for q in range(p + 1))
-            out.append(total + tail.T @ (self.t_tail**p))
-        return out
+        With ``t_n = t_b + t_i``, ``E_p = sum_q C(p, q) B_q I_{p-q} + L_p``
+        where ``B_q = sum_b t_b^q u_b``, ``I_r = sum_i t_i^r v_i`` and
+        ``L_p`` is the tail's own sum. Each of these is one real matrix
+        product of the phasor rows, seen as interleaved (re, im) pairs, with
+        the weights ``t^q`` spread over both parts (see :func:`_sum_weights`).
+        """
+        if max_power > 2:
+            raise ValueError("record_sums goes up to t^2")
+        q = 2 * (max_power + 1)
+        b, i, tail = (
+            (p.view(float) @ w[:, :q]).view(complex) for p, w in zip(ph, self._weights.powers)
+        )  # (count, max_power + 1) each
+        prod = (b[:, :, None] * i[:, None, :]).reshape(b.shape[0], -1)
+        e = (prod.view(float) @ _binomial_weights(max_power)).view(complex)
+        e += tail
+        return np.ascontiguousarray(e.T)
 
     def data_sums(self, x: np.ndarray, ph, orders: int, weighted: bool) -> tuple[np.ndarray, np.ndarray | None]:
         """``S_m = sum_n x[n] e^{-j 2 pi m c n}`` for m = 0..orders and, if
-        ``weighted``, ``T_m = sum_n t_n x[n] e^{-j 2 pi m c n}``.
+        ``weighted``, ``T_m = sum_n t_n x[n] e^{-j 2 pi m c n}``: the complex
+        conjugates of the rows of :meth:`conj_data_sums`."""
+        sums = self.conj_data_sums(x, ph, orders, weighted).conj()
+        return sums[0], (sums[1] if weighted else None)
 
-        One matrix product over the record; everything else is short.
+    def conj_data_sums(self, x: np.ndarray, ph, orders: int, weighted: bool) -> np.ndarray:
+        """``conj S_m = sum_n x[n] e^{j 2 pi m c n}`` and, if ``weighted``,
+        ``conj T_m`` (with ``t_n x[n]``), as rows ``(1 or 2, orders + 1)``.
+
+        One matrix product over the record, the in-block phasors (as real
+        and imaginary rows, and again times ``t_i`` if ``weighted``) against
+        the record reshaped to ``(blocks, block)``: it gives, for each block
+        b, ``z_b = sum_i x[bB + i] v_i`` and ``zt_b = sum_i t_i x[bB + i]
+        v_i``. Then ``conj S = sum_b u_b z_b`` and ``conj T = sum_b u_b (t_b
+        z_b + zt_b)``, the tail's samples added as blocks of their own; these
+        sums over b are one more (short) matrix product.
         """
-        m = orders + 1
-        ub, vi, tail = (p[:, :m].conj() for p in ph)
-        cols = [vi.real, vi.imag]
+        k = orders + 1
+        ub, vi, tail = ph
+        blocks = self.blocks
+        width = 2 if weighted else 1
+        # the work arrays (a few hundred kB at 96,000 samples) are per-thread
+        # scratch: fresh ones past the C library's mapping threshold would
+        # be faulted in from the kernel on every call
+        # rows Re v_0..v_K, Im v_1..v_K (v_0 = 1 has no imaginary part)
+        cols = scratch("sinefit_cols", (width, 2 * k - 1, self.block), float)
+        cols[0, :k] = vi[:k].real
+        cols[0, k:] = vi[1:k].imag
         if weighted:
-            vt = vi * self.t_in[:, None]
-            cols += [vt.real, vt.imag]
-        g = x[: self.main].reshape(self.blocks, self.block) @ np.concatenate(cols, axis=1)
-        z = g[:, :m] + 1j * g[:, m : 2 * m]
-        xt = x[self.main :]
-        s = np.sum(ub * z, axis=0) + xt @ tail
-        if not weighted:
-            return s, None
-        zt = g[:, 2 * m : 3 * m] + 1j * g[:, 3 * m :]
-        t = np.sum(ub * (self.t_block[:, None] * z + zt), axis=0) + (self.t_tail * xt) @ tail
-        return s, t
+            np.multiply(cols[0], self.t_in, out=cols[1])
+        g = scratch("sinefit_blocksums", (width, 2 * k - 1, blocks), float)
+        np.matmul(cols.reshape(-1, self.block), x[: self.main].reshape(blocks, self.block).T, out=g.reshape(-1, blocks))
+        # z_b u_b (and zt_b u_b) for every block, then the tail's samples
+        # x[n] e^{j 2 pi m c n} as rows of their own
+        z = scratch("sinefit_rows", (k, width, blocks + tail.shape[1]), complex)
+        z.real[:, :, :blocks] = g[:, :k].transpose(1, 0, 2)
+        z.imag[0, :, :blocks] = 0.0
+        z.imag[1:, :, :blocks] = g[:, k:].transpose(1, 0, 2)
+        z[:, :, :blocks] *= ub[:k, None, :]
+        np.multiply(tail[:k], x[self.main :], out=z[:, 0, blocks:])
+        z[:, 1:, blocks:] = 0.0
+        # conj S: the z rows summed; conj T: the z rows weighted by t, plus
+        # the zt rows summed (see _SumWeights.rows)
+        w = self._weights.rows[weighted]
+        return np.ascontiguousarray((z.reshape(k, -1).view(float) @ w).view(complex).T)
 
     def sine(self, cycles: float, a: float, b: float) -> np.ndarray:
         """``a cos(2 pi c n) + b sin(2 pi c n)`` for the whole record.
@@ -174,14 +274,53 @@ def _gram(e: np.ndarray, orders: int, out: np.ndarray | None = None) -> np.ndarr
     return g
 
 
+class _FitTables:
+    """Constants of :func:`fit_tone` for a number of harmonic orders K.
+
+    The parameters are ordered ``[offset, a_1, b_1, a_2, b_2, ...]`` (a_k of
+    ``cos(2 pi k c n)``, b_k of ``sin``), so that ``theta[1:]`` seen as
+    complex is ``a_k + j b_k``, the conjugate of ``A_k e^{j phi_k}``, and
+    the data sums ``conj S_m`` are, as (re, im) pairs, the right-hand side.
+
+    ``gram`` maps ``E_p(m c)`` (m = 0..2K, interleaved re, im) to the Gram
+    matrix of those columns, flattened: the rows are :func:`_gram` of the
+    unit real and imaginary parts, reordered. ``pick`` takes the right-hand
+    side from ``conj S`` (all but ``Im conj S_0``, which is zero). The
+    frequency column's weights ``[0, k b_k, -k a_k]`` are ``kw *
+    theta[swap]``; ``kphase`` is ``2 pi j k``.
+    """
+
+    def __init__(self, orders: int):
+        m = 2 * orders + 1
+        k = np.arange(1, orders + 1)
+        order = np.empty(m, dtype=int)  # from _gram's [1, cos_1..K, sin_1..K]
+        order[0], order[1::2], order[2::2] = 0, k, k + orders
+        units = np.eye(2 * m).view(complex)
+        self.gram = np.stack([_gram(e, orders)[np.ix_(order, order)].ravel() for e in units])
+        self.pick = np.r_[0, 2 : 2 * orders + 2]
+        self.swap = np.arange(m)
+        self.swap[1::2], self.swap[2::2] = self.swap[2::2], self.swap[1::2].copy()
+        self.kw = np.zeros(m)
+        self.kw[1::2], self.kw[2::2] = k, -k
+        self.kphase = 2j * np.pi * k
+        for a in (self.gram, self.pick, self.swap, self.kw, self.kphase):
+            a.flags.writeable = False
+
+
+@lru_cache(maxsize=None)
+def _fit_tables(orders: int) -> _FitTables:
+    return _FitTables(orders)
+
+
 def _solve(g: np.ndarray, rhs: np.ndarray) -> np.ndarray:
     """Solve a normal-equation system after scaling it to unit diagonal."""
-    d = 1.0 / np.sqrt(np.abs(np.diag(g)))
+    d = np.abs(g.diagonal()) ** -0.5
     try:
-        sol = np.linalg.solve(g * np.outer(d, d), rhs * d) * d
+        sol = np.linalg.solve(g * d * d[:, None], rhs * d)
     except np.linalg.LinAlgError as exc:
         raise BenchkitError("the sine fit is singular: the record is too short or holds no usable tone") from exc
-    if not np.all(np.isfinite(sol)):
+    sol *= d
+    if not np.isfinite(sol).all():
         raise BenchkitError("the sine fit did not converge: the record holds no usable tone")
     return sol
 
@@ -233,37 +372,42 @@ def fit_tone(
     IEEE Std 1241-2010, section 4.1.4 (sine fitting, with harmonics).
     """
     n = layout.n
-    k_all = np.arange(0, orders + 1)
     m = 2 * orders + 1
+    tab = _fit_tables(orders)
+    phasors = scratch("sinefit_phasors", (m, layout.positions.size), complex)
 
     def sums(c: float, weighted: bool):
-        ph = layout.harmonic_phasors(c, m)
+        """Gram matrices for t^0 (and t^1, t^2 if ``weighted``), and the
+        right-hand sides [sum x u] (and [sum t x u])."""
+        ph = layout.harmonic_phasors(c, m, out=phasors)
         e = layout.record_sums(ph, 2 if weighted else 0)
-        s, t = layout.data_sums(x, ph, orders, weighted)
-        r0 = np.concatenate([[s[0].real], s[1:].real, -s[1:].imag])
-        r1 = None if t is None else np.concatenate([[t[0].real], t[1:].real, -t[1:].imag])
-        return e, r0, r1
+        grams = (e.view(float) @ tab.gram).reshape(-1, m, m)
+        r = layout.conj_data_sums(x, ph, orders, weighted).view(float)[:, tab.pick]
+        return grams, r
 
     c = cycles0
     if start is None:
-        e, r0, _ = sums(c, False)
-        theta = _solve(_gram(e[0], orders), r0)
+        grams, r = sums(c, False)
+        theta = _solve(grams[0], r[0])
     else:
         theta = np.zeros(m)
-        theta[1], theta[orders + 1] = start.real, -start.imag
+        theta[1], theta[2] = start.real, -start.imag
     g = np.empty((m + 1, m + 1))
+    rhs = np.empty(m + 1)
     it = 0
     for it in range(1, max_iter + 1):
-        e, r0, r1 = sums(c, True)
+        grams, r = sums(c, True)
         # d/dc of sum_k a_k cos + b_k sin is 2 pi n sum_k k (b_k cos_k - a_k sin_k);
         # with n = N t + const the constant part lies in the span of the
         # columns, so the frequency column is D = t (w . columns)
-        a, b = theta[1 : orders + 1], theta[orders + 1 :]
-        w = np.concatenate([[0.0], k_all[1:] * b, -k_all[1:] * a])
-        _gram(e[0], orders, out=g[:m, :m])
-        g[m, :m] = g[:m, m] = _gram(e[1], orders) @ w
-        g[m, m] = w @ _gram(e[2], orders) @ w
-        sol = _solve(g, np.concatenate([r0, [w @ r1]]))
+        w = tab.kw * theta[tab.swap]
+        g[:m, :m] = grams[0]
+        border = grams[1:] @ w  # G_1 w, G_2 w
+        g[m, :m] = g[:m, m] = border[0]
+        g[m, m] = border[1] @ w
+        rhs[:m] = r[0]
+        rhs[m] = r[1] @ w
+        sol = _solve(g, rhs)
         theta = sol[:-1]
         step = sol[-1] / (2.0 * np.pi * n)
         # keep each step within half a bin; the start is already that close
@@ -271,25 +415,22 @@ def fit_tone(
         c += step
         # the column D moves each phase by 2 pi k step (n - centre): the part
         # 2 pi k step centre went into the coefficients; take it out again so
-        # they refer to n = 0 at the new frequency
-        z = (theta[1 : orders + 1] - 1j * theta[orders + 1 :]) * np.exp(
-            -2j * np.pi * k_all[1:] * step * layout.centre
-        )
-        theta[1 : orders + 1], theta[orders + 1 :] = z.real, -z.imag
+        # they refer to n = 0 at the new frequency (a_k + j b_k is conj A e^{j phi})
+        theta[1:].view(complex)[...] *= np.exp(tab.kphase * (step * layout.centre))
         bins = abs(step) * n
         if bins < 1e-11:
             # converged: a step this small moves the coefficients by far
             # less than the float64 floor, so the last solve stands
             break
         if energy is not None:
-            rss = max(energy - float(theta @ r0), 0.0)
+            rss = max(energy - float(theta @ r[0]), 0.0)
             left = 10.0 * bins * bins  # bins of error left, with margin
             # a frequency error of e bins leaves about A (2 pi e) / sqrt(12)
             # of the fundamental in the residual (time centred on the record)
-            amp2 = theta[1] ** 2 + theta[orders + 1] ** 2
+            amp2 = theta[1] ** 2 + theta[2] ** 2
             if amp2 * (2.0 * np.pi * left) ** 2 / 12.0 < 1e-6 * rss / n:
                 break
     else:
-        e, r0, _ = sums(c, False)
-        theta = _solve(_gram(e[0], orders), r0)
-    return SineFit(cycles=c, offset=float(theta[0]), cos=theta[1 : orders + 1], sin=theta[orders + 1 :], iterations=it)
+        grams, r = sums(c, False)
+        theta = _solve(grams[0], r[0])
+    return SineFit(cycles=c, offset=float(theta[0]), cos=theta[1::2], sin=theta[2::2], iterations=it)
