@@ -11,6 +11,7 @@ off the FFT by least squares, without scalloping loss.
 
 from __future__ import annotations
 
+import cmath
 import math
 from functools import lru_cache
 
@@ -97,24 +98,86 @@ def kernel(mu: np.ndarray, n: int) -> np.ndarray:
     return _dirichlet(mu[..., None] + _SHIFTS, n) @ _WEIGHTS
 
 
+#: The window's DFT as seven shifted Dirichlet kernels, ``W(mu) = sum_s c_s
+#: D(mu + s)`` for s = -3..3: c_0 = a_0, c_{+-m} = (-1)^m a_m / 2.
+_TAPS = tuple(WINDOW_COEFFS[0] if s == 0 else (-1) ** abs(s) * WINDOW_COEFFS[abs(s)] / 2.0 for s in range(-3, 4))
+_TAP_ARRAY = np.array(_TAPS)
+_TAP_SHIFTS = np.arange(-3.0, 4.0)
+#: ``S = sum_s c_s = a_0 - a_1 + a_2 - a_3``.
+_TAP_SUM = sum(_TAPS)
+#: Angles within this many bins of zero get their cotangent from tan itself
+#: (a small sine needs its relative accuracy); farther ones from a phasor run.
+_DIRECT_COT_BINS = 64
+#: Longest run of half-bin phasors kept per record length (256 KB).
+_TURN_TABLE_MAX = 1 << 14
+
+
+@lru_cache(maxsize=8)
 def _integer_bin_kernel(n: int) -> np.ndarray:
-    """W at integer bins -3..3: (-1)^|k| a_|k| n / 2, and a_0 n at 0."""
-    a = np.asarray(WINDOW_COEFFS)
-    m = np.abs(np.arange(-3, 4))
-    return np.where(m == 0, a[0] * n, (-1.0) ** m * a[m] * n / 2.0)
+    """W at integer bins -3..3: (-1)^|k| a_|k| n / 2, and a_0 n at 0 (n c_k);
+    read-only."""
+    out = n * _TAP_ARRAY
+    out.setflags(write=False)
+    return out
+
+
+@lru_cache(maxsize=8)
+def _turn_table(n: int, size: int) -> np.ndarray:
+    """``e^{j pi i / n}`` for i = 0..size-1, each from exp itself; read-only."""
+    out = np.exp(1j * (np.pi / n) * np.arange(size))
+    out.setflags(write=False)
+    return out
+
+
+def _cot_run(first: int, count: int, delta: float, n: int) -> np.ndarray:
+    """``cot(pi (m - delta) / n)`` for m = first..first+count-1.
+
+    Far from m = 0 as the ratio of the parts of ``e^{j pi (first - delta) /
+    n} e^{j pi i / n}`` (a cached run of exponentials turned by one
+    constant: each within a few ulp of the direct one); within
+    ``_DIRECT_COT_BINS`` of it, where a small sine needs its relative
+    accuracy, from tan itself."""
+    start = cmath.exp(1j * (math.pi * (first - delta) / n))
+    if count <= _TURN_TABLE_MAX:
+        turn = _turn_table(n, max(64, 1 << (count - 1).bit_length()))[:count] * start
+    else:
+        turn = phasor_run(math.pi * (first - delta) / n, count, math.pi / n)
+    cot = turn.real / turn.imag
+    lo, hi = max(0, -_DIRECT_COT_BINS - first), min(count, _DIRECT_COT_BINS + 1 - first)
+    if hi > lo:
+        cot[lo:hi] = 1.0 / np.tan(np.pi * (np.arange(first + lo, first + hi) - delta) / n)
+    return cot
+
+
+def _cot_sums(j: np.ndarray, delta: float, n: int) -> np.ndarray:
+    """``C(j) = sum_s c_s cot(pi (j + s - delta) / n)`` at integer ``j``: for a
+    contiguous run a seven-tap filter over one :func:`_cot_run`."""
+    if j.ndim == 1 and j.size > 1 and int(j[-1] - j[0]) == j.size - 1 and bool(np.all(np.diff(j) == 1)):
+        return np.convolve(_cot_run(int(j[0]) - 3, j.size + 6, delta, n), _TAP_ARRAY, mode="valid")
+    return (1.0 / np.tan(np.pi * ((j[..., None] + _TAP_SHIFTS) - delta) / n)) @ _TAP_ARRAY
+
+
+def _fraction_factor(delta: float) -> complex:
+    """``P = -sin(pi delta) e^{j pi delta}``, the factor every ``D(N - delta)``
+    (N an integer) shares: ``sin(pi mu) e^{-j pi mu}`` at ``mu = N - delta``."""
+    return -math.sin(math.pi * min(delta, 1.0 - delta)) * cmath.exp(1j * math.pi * delta)  # no rounding loss near 1
 
 
 def kernel_at_bins(j: np.ndarray, delta: float, n: int) -> np.ndarray:
     """``W(j - delta)`` for integer offsets ``j`` and one fraction ``0 <=
     delta < 1``: the same kernel as :func:`kernel`, for many bins at once.
 
-    With mu = j - delta, ``sin(pi mu) = -(-1)^j sin(pi delta)`` and
-    ``e^{-j pi mu (n-1)/n} = (-1)^j e^{j pi delta} e^{j pi mu / n}`` split the
-    large phases off exactly, so W stays accurate to a few ulp thousands of
-    bins from the tone. Near the tone (|j| <= 8), where the two-term sine
-    difference would cancel for a tone close to a bin, each shifted
-    Dirichlet kernel is summed as ``-e^{j pi delta} sin(pi delta) (cot(pi
-    nu_k / n) + j)`` with ``nu_k = (j - k) - delta`` formed exactly.
+    The Dirichlet kernel is ``D(mu) = sin(pi mu) e^{-j pi mu} (cot(pi mu /
+    n) + j)``, and at ``mu = N - delta`` (N an integer) its first factor is
+    ``P = -sin(pi delta) e^{j pi delta}`` whatever N; so
+    ``W(j - delta) = P (C(j) + j S)`` with ``C(j) = sum_s c_s cot(pi (j + s
+    - delta) / n)`` and ``S = sum_s c_s``. No large phase is formed, so W
+    stays accurate thousands of bins from the tone, and the arguments ``(j +
+    s) - delta`` are exact, so a tone a hair from a bin loses nothing to
+    cancellation (P is small where one cotangent is large). For a
+    contiguous run, C is a seven-tap filter over one run of cotangents
+    (:func:`_cot_run`: a cached table of exponentials, not thousands of
+    tangents).
     """
     j = np.asarray(j, dtype=np.int64)
     if delta == 0.0:
@@ -122,51 +185,25 @@ def kernel_at_bins(j: np.ndarray, delta: float, n: int) -> np.ndarray:
         near = np.abs(j) <= 3
         out[near] = _integer_bin_kernel(n)[j[near] + 3]
         return out
-    s_delta = np.sin(np.pi * min(delta, 1.0 - delta))  # sin(pi delta), without rounding loss near 1
-    weights = [WINDOW_COEFFS[0] if k == 0 else (-1) ** abs(k) * WINDOW_COEFFS[abs(k)] / 2.0 for k in range(-3, 4)]
-    contiguous = j.ndim == 1 and j.size > 1 and int(j[-1] - j[0]) == j.size - 1 and bool(np.all(np.diff(j) == 1))
-    if contiguous:
-        # sin(pi (j - k - delta) / n) for k = -3..3 are shifts of one array;
-        # the run of angles from a table (two short exp calls, not thousands
-        # of sines), and near the tone, where a small sine needs its relative
-        # accuracy, from sin itself
-        m = np.arange(j[0] - 3, j[-1] + 4)
-        turn = phasor_run(np.pi * (m[0] - delta) / n, m.size, np.pi / n)
-        ext = turn.imag
-        close = np.abs(m) <= 64
-        ext[close] = np.sin(np.pi * (m[close] - delta) / n)
-        recip = 1.0 / ext
-        sa = ext[3:3 + j.size]
-        ca = turn.real[3:3 + j.size]
-    else:
-        ang = np.pi * (j - delta) / n
-        ca = np.cos(ang)
-        sa = np.sin(ang)
-    # D(mu - k) carries (-1)^(j-k) sin(pi mu); with (-1)^k c_k (the window's
-    # weight without its alternating sign) and D's phase in g_k, what is left
-    # is t = sum_k g_k / sin(pi (j - k - delta) / n)
-    g = np.array([(-1) ** k * c * np.exp(1j * np.pi * k * (n - 1) / n) for k, c in zip(range(-3, 4), weights)])
-    if contiguous:
-        # a seven-tap filter over the shifted reciprocals: t[i] = sum_k g_k recip[i + 3 - k]
-        t = np.convolve(recip, g.real, mode="valid") + 1j * np.convolve(recip, g.imag, mode="valid")
-    else:
-        t = np.zeros(j.shape, dtype=complex)
-        for k, gk in zip(range(-3, 4), g):
-            t += gk / (sa * math.cos(math.pi * k / n) - ca * math.sin(math.pi * k / n))
-    # (-1)^j e^{j pi delta} e^{j ang} (-(-1)^j sin(pi delta)) t; (-1)^j squared is 1
-    scale = -np.exp(1j * np.pi * delta) * s_delta
-    rot = ca + 1j * sa
-    rot *= scale
-    out = rot * t
-    near = np.abs(j) <= 8
-    if np.any(near):
-        jn = j[near]
-        acc = np.zeros(jn.shape, dtype=complex)
-        for k, c in zip(range(-3, 4), weights):
-            nu_k = (jn - k) - delta
-            acc += c * (1.0 / np.tan(np.pi * nu_k / n) + 1j)
-        out[near] = -np.exp(1j * np.pi * delta) * s_delta * acc
+    p = _fraction_factor(delta)
+    out = _cot_sums(j, delta, n) * p
+    out += p * 1j * _TAP_SUM
     return out
+
+
+def _subtract_kernel(seg: np.ndarray, first: int, delta: float, n: int, factor: complex) -> None:
+    """``seg[i] -= factor W(first + i - delta)`` in place (see
+    :func:`kernel_at_bins`): ``factor P`` folded into one constant, no
+    kernel array formed."""
+    if delta == 0.0:
+        table = _integer_bin_kernel(n)
+        for j in range(max(first, -3), min(first + seg.size, 4)):
+            seg[j - first] -= factor * table[j + 3]
+        return
+    q = factor * _fraction_factor(delta)
+    c = np.convolve(_cot_run(first - 3, seg.size + 6, delta, n), _TAP_ARRAY, mode="valid")
+    seg -= q * 1j * _TAP_SUM
+    seg -= np.multiply(c, q, out=np.empty(c.size, dtype=complex))
 
 
 def phasor_run(first: float, count: int, step: float) -> np.ndarray:
@@ -186,26 +223,26 @@ def remove_tone(spec: np.ndarray, n: int, nu: float, amplitude: complex, offset:
     cos(2 pi nu k / n + phi)) * window(n))`` with ``amplitude = A e^{j
     phi}``: exact within ``span`` bins of the tone, and beyond them short
     only by the window's far sidelobes (below -250 dB there). Costs far less
-    than a second FFT. Only the bins of :func:`removal_bins` change; ``out=spec``
-    takes the tone out in place.
+    than a second FFT: per range of bins one run of cotangents, a seven-tap
+    filter and two in-place subtractions (:func:`kernel_at_bins`'s method).
+    Only the bins of :func:`removal_bins` change; ``out=spec`` takes the
+    tone out in place.
     """
     if out is None:
         out = spec.copy()
     elif out is not spec:
         out[...] = spec
     out[:4] -= offset * _integer_bin_kernel(n)[3:3 + min(4, out.size)]
-    whole = int(np.floor(nu))
+    whole = math.floor(nu)
     delta = nu - whole
     alpha = amplitude / 2.0
     for lo, hi, image, wrap in _tone_ranges(n, whole, out.size, span):
         if not image:
-            out[lo:hi] -= alpha * kernel_at_bins(np.arange(lo - whole, hi - whole), delta, n)
-            continue
-        j2 = np.arange(lo, hi) + whole - wrap
-        if delta == 0.0:
-            out[lo:hi] -= np.conj(alpha) * kernel_at_bins(j2, 0.0, n)
+            _subtract_kernel(out[lo:hi], lo - whole, delta, n, alpha)
+        elif delta == 0.0:
+            _subtract_kernel(out[lo:hi], lo + whole - wrap, 0.0, n, alpha.conjugate())
         else:
-            out[lo:hi] -= np.conj(alpha) * kernel_at_bins(j2 + 1, 1.0 - delta, n)
+            _subtract_kernel(out[lo:hi], lo + whole - wrap + 1, 1.0 - delta, n, alpha.conjugate())
     return out
 
 
