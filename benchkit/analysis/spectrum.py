@@ -274,33 +274,54 @@ def removal_bins(n: int, nu: float, size: int, span: int = 4096) -> list[slice]:
     return [slice(lo, hi) for lo, hi in merged]
 
 
+def _kernel_at(mu: float, n: int) -> complex:
+    """:func:`kernel` at one real ``mu``, in scalar math (for a point or two
+    numpy's per-call cost would dominate): ``P sum_s c_s (cot(pi (mu + s) /
+    n) + j)`` (see :func:`kernel_at_bins`) with ``P = sin(pi r) e^{-j pi
+    r}``, ``r = mu - round(mu)``; a term whose ``sin(pi (mu + s) / n)`` is
+    below 1e-9 takes :func:`_dirichlet`'s limit ``e^{-j pi x (n-1)/n} n
+    cos(pi x) / cos(pi x / n)`` at ``x = mu + s``, as :func:`kernel` does."""
+    r = mu - round(mu)  # exact
+    cot = imag = 0.0
+    limit = 0j
+    for s, c in zip(range(-3, 4), _TAPS):
+        x = mu + s
+        t = math.tan(math.pi * x / n)
+        if abs(t) < 1e-9:
+            limit += c * cmath.exp(-1j * math.pi * x * (n - 1) / n) * (n * math.cos(math.pi * x) / math.cos(math.pi * x / n))
+        else:
+            cot += c / t
+            imag += c
+    return math.sin(math.pi * r) * cmath.exp(-1j * math.pi * r) * complex(cot, imag) + limit
+
+
 def refine_peak(spec: np.ndarray, peak: int, n: int) -> float:
     """Fractional bin of a single tone whose largest bin is ``peak``.
 
     Solves ``|X[p+1]| / |X[p-1]| = |W(p+1-nu)| / |W(p-1-nu)|`` for nu with
     the exact window kernel (secant steps from parabolic interpolation), so
     the estimate carries no interpolation bias; leakage from other
-    components limits it to ~1e-5 bin.
+    components limits it to ~1e-5 bin. Each step evaluates W at two points
+    in scalar math (:func:`_kernel_at`).
     """
-    mags = np.abs(spec[peak - 1 : peak + 2])
-    lp, cp, rp = np.log(np.maximum(mags, 1e-300))
+    lp, cp, rp = (math.log(max(abs(complex(spec[k])), 1e-300)) for k in (peak - 1, peak, peak + 1))
     den = lp - 2.0 * cp + rp
     d0 = 0.5 * (lp - rp) / den if den < 0 else 0.0
     target = rp - lp
-    if not np.isfinite(target):
-        return float(peak + np.clip(d0, -0.5, 0.5))
+    if not math.isfinite(target):
+        return float(peak + min(max(d0, -0.5), 0.5))
 
     def h(d: float) -> float:
-        w = np.abs(kernel(np.array([1.0 - d, -1.0 - d]), n))
-        return float(np.log(w[0]) - np.log(w[1]) - target)
+        return math.log(abs(_kernel_at(1.0 - d, n))) - math.log(abs(_kernel_at(-1.0 - d, n))) - target
 
-    a, b = float(np.clip(d0, -0.5, 0.5)), float(np.clip(d0, -0.5, 0.5)) + 1e-3
+    a = min(max(d0, -0.5), 0.5)
+    b = a + 1e-3
     ha, hb = h(a), h(b)
     for _ in range(8):
         if hb == ha:
             break
         a, b, ha = b, b - hb * (b - a) / (hb - ha), hb
-        b = float(np.clip(b, -0.6, 0.6))
+        b = min(max(b, -0.6), 0.6)
         hb = h(b)
         if abs(b - a) < 1e-7:  # the sine fit takes it from here
             break
@@ -418,4 +439,4 @@ def band_bins(n: int, sample_rate: float, lo_hz: float, hi_hz: float) -> slice:
 def peak_amplitude(spec: np.ndarray, peak: int, nu: float, n: int) -> complex:
     """``A e^{j phi}`` of a tone at fractional bin ``nu`` from its largest
     bin alone (its negative-frequency image neglected): a starting value."""
-    return complex(2.0 * spec[peak] / kernel(np.array([peak - nu]), n)[0])
+    return 2.0 * complex(spec[peak]) / _kernel_at(peak - nu, n)
