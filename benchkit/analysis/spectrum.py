@@ -369,28 +369,68 @@ def read_components(spec: np.ndarray, n: int, bins: np.ndarray, half_width: int 
     nu = np.asarray(bins, dtype=float)
     if nu.size == 0:
         return np.zeros(0, dtype=complex)
-    m, g1, g2 = _read_basis(n, nu, spec.size, half_width)
-    x = spec[m]
+    m, basis = _read_basis(n, nu, spec.size, half_width, rows=3)
+    np.take(spec, m, out=basis[:, 2], mode="clip")  # (m is in range; 'clip' spares a buffer)
+    # the normal equations of the real least squares, all in one product:
+    # Re(u^H v) is the dot product of the interleaved real parts
+    rows = basis.view(float)
+    gram = rows @ rows.transpose(0, 2, 1)
+    a11, a12, a22, b1, b2 = gram[:, 0, 0], gram[:, 0, 1], gram[:, 1, 1], gram[:, 0, 2], gram[:, 1, 2]
+    out = np.empty(nu.size, dtype=complex)
+    out.real = a22 * b1 - a12 * b2
+    out.imag = a11 * b2 - a12 * b1
+    out *= 2.0 / (a11 * a22 - a12 * a12)
+    return out
 
-    def rdot(u, v):
-        return np.sum(u.real * v.real + u.imag * v.imag, axis=1)
 
-    a11, a12, a22 = rdot(g1, g1), rdot(g1, g2), rdot(g2, g2)
-    b1, b2 = rdot(g1, x), rdot(g2, x)
-    det = a11 * a22 - a12 * a12
-    p = (a22 * b1 - a12 * b2) / det
-    q = (a11 * b2 - a12 * b1) / det
-    return 2.0 * (p + 1j * q)
+#: Per component, the rows of [[w1 + w2], [j (w1 - w2)]] in terms of
+#: ``sin(pi r) e^{j pi r}`` (first column) and its conjugate (second).
+_READ_ROWS = (np.array([-1.0, -1j]), np.array([1.0, -1j]))
+_READ_SIGNS = np.array([-1.0, 1.0])
 
 
-def _read_basis(n: int, nu: np.ndarray, size: int, half_width: int):
+def _read_basis(n: int, nu: np.ndarray, size: int, half_width: int, rows: int = 2):
     """The bins a read at ``nu`` uses and its two real basis vectors:
-    X = p (w1 + w2) + q j (w1 - w2), alpha = p + j q (real least squares)."""
-    offs = np.arange(-half_width, half_width + 1)
-    m = np.clip(np.rint(nu)[:, None] + offs[None, :], 0, size - 1).astype(int)
-    w1 = kernel(m - nu[:, None], n)
-    w2 = kernel(m + nu[:, None], n)
-    return m, w1 + w2, 1j * (w1 - w2)
+    X = p (w1 + w2) + q j (w1 - w2), alpha = p + j q (real least squares),
+    with w1 = W(m - nu), w2 = W(m + nu). Returned as ``m`` (K, bins) and
+    an array (K, rows, bins) whose rows 0 and 1 hold the two vectors (the
+    rest for the caller).
+
+    W as in :func:`kernel_at_bins`: with ``r = nu - round(nu)`` and ``P =
+    -sin(pi r) e^{j pi r}``, ``w1 = P Z1`` and ``w2 = -conj(P) Z2``, where
+    ``Z = sum_s c_s (cot(pi x / n) + j)`` at ``x = m -+ nu + s``; so the two
+    vectors are one 2 x 2 matrix per component times (Z1, Z2). A term whose
+    tangent is below 1e-9 (a read within ~1e-9 n / pi bins of a bin) takes
+    :func:`kernel`'s limit ``e^{-j pi x (n-1)/n} n cos(pi x) / cos(pi x /
+    n)``, which is ``P (n / tan(pi x)) (1 + j tan(pi x / n))``; at an exact
+    bin (r = 0) the basis comes from :func:`kernel` itself."""
+    near = np.rint(nu)
+    r = nu - near  # exact
+    m = near.astype(int)[:, None] + np.arange(-half_width, half_width + 1)
+    np.maximum(m, 0, out=m)
+    np.minimum(m, size - 1, out=m)
+    x = (m[:, None, :, None] + _TAP_SHIFTS) + np.multiply.outer(nu, _READ_SIGNS)[:, :, None, None]  # (K, 2, bins, 7)
+    tan = np.tan(x * (np.pi / n))
+    small = np.abs(tan) < 1e-9
+    basis = np.empty((nu.size, rows, m.shape[1]), dtype=complex)
+    if small.any():
+        if not r.all():
+            w1, w2 = kernel(m - nu[:, None], n), kernel(m + nu[:, None], n)
+            np.add(w1, w2, out=basis[:, 0])
+            np.multiply(w1 - w2, 1j, out=basis[:, 1])
+            return m, basis
+        z = 1.0 / tan + 1j
+        z[small] = (n / np.tan(np.pi * x[small])) * (1.0 + 1j * tan[small])
+        z = z @ _TAP_ARRAY
+    else:
+        z = (1.0 / tan) @ _TAP_ARRAY + 1j * _TAP_SUM
+    angle = np.pi * r
+    p = np.sin(angle) * np.exp(1j * angle)  # -P
+    mix = np.empty((nu.size, 2, 2), dtype=complex)
+    np.multiply.outer(p, _READ_ROWS[0], out=mix[:, :, 0])
+    np.multiply.outer(p.conj(), _READ_ROWS[1], out=mix[:, :, 1])
+    np.matmul(mix, z, out=basis[:, :2])
+    return m, basis
 
 
 def read_noise_gain(n: int, bins: np.ndarray, size: int, half_width: int = 3) -> np.ndarray:
@@ -407,13 +447,13 @@ def read_noise_gain(n: int, bins: np.ndarray, size: int, half_width: int = 3) ->
     nu = np.asarray(bins, dtype=float)
     if nu.size == 0:
         return np.zeros(0)
-    m, g1, g2 = _read_basis(n, nu, size, half_width)
+    m, basis = _read_basis(n, nu, size, half_width)
     a = np.asarray(WINDOW_COEFFS)
     h = np.concatenate([(-1.0) ** np.arange(3, 0, -1) * a[3:0:-1] / 2, [a[0]], (-1.0) ** np.arange(1, 4) * a[1:] / 2])
     hh = np.convolve(h, h)  # offsets -6..6
     d = m[:, :, None] - m[:, None, :]
     c = np.where(np.abs(d) <= 6, hh[np.clip(d + 6, 0, 12)], 0.0)
-    g = np.stack([g1, g2], axis=2)  # (K, bins, 2)
+    g = basis.transpose(0, 2, 1)  # (K, bins, 2)
     mm = np.einsum("kbi,kbj->kij", g.conj(), g).real
     bb = 0.5 * np.einsum("kbi,kbc,kcj->kij", g.conj(), c, g).real
     inv = np.linalg.inv(mm)
