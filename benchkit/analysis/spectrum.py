@@ -102,6 +102,7 @@ def kernel(mu: np.ndarray, n: int) -> np.ndarray:
 #: D(mu + s)`` for s = -3..3: c_0 = a_0, c_{+-m} = (-1)^m a_m / 2.
 _TAPS = tuple(WINDOW_COEFFS[0] if s == 0 else (-1) ** abs(s) * WINDOW_COEFFS[abs(s)] / 2.0 for s in range(-3, 4))
 _TAP_ARRAY = np.array(_TAPS)
+_TAP_PAIRS = tuple(zip(range(-3, 4), _TAPS))
 _TAP_SHIFTS = np.arange(-3.0, 4.0)
 #: ``S = sum_s c_s = a_0 - a_1 + a_2 - a_3``.
 _TAP_SUM = sum(_TAPS)
@@ -284,10 +285,11 @@ def _kernel_at(mu: float, n: int) -> complex:
     r = mu - round(mu)  # exact
     cot = imag = 0.0
     limit = 0j
-    for s, c in zip(range(-3, 4), _TAPS):
+    tan, pi = math.tan, math.pi
+    for s, c in _TAP_PAIRS:
         x = mu + s
-        t = math.tan(math.pi * x / n)
-        if abs(t) < 1e-9:
+        t = tan(pi * x / n)
+        if -1e-9 < t < 1e-9:
             limit += c * cmath.exp(-1j * math.pi * x * (n - 1) / n) * (n * math.cos(math.pi * x) / math.cos(math.pi * x / n))
         else:
             cot += c / t
