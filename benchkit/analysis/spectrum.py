@@ -279,9 +279,10 @@ def _kernel_at(mu: float, n: int) -> complex:
     """:func:`kernel` at one real ``mu``, in scalar math (for a point or two
     numpy's per-call cost would dominate): ``P sum_s c_s (cot(pi (mu + s) /
     n) + j)`` (see :func:`kernel_at_bins`) with ``P = sin(pi r) e^{-j pi
-    r}``, ``r = mu - round(mu)``; a term whose ``sin(pi (mu + s) / n)`` is
-    below 1e-9 takes :func:`_dirichlet`'s limit ``e^{-j pi x (n-1)/n} n
-    cos(pi x) / cos(pi x / n)`` at ``x = mu + s``, as :func:`kernel` does."""
+    r}``, ``r = mu - round(mu)``; a term whose ``tan(pi (mu + s) / n)`` is
+    below 1e-9 (:func:`_dirichlet`'s test on the sine, to within round-off)
+    takes its limit ``e^{-j pi x (n-1)/n} n cos(pi x) / cos(pi x / n)`` at
+    ``x = mu + s``, as :func:`kernel` does."""
     r = mu - round(mu)  # exact
     cot = imag = 0.0
     limit = 0j
