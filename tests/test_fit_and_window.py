@@ -154,3 +154,28 @@ def test_block_sums_paths_agree():
     full = layout.conj_data_sums(x, ph, 3, weighted=True)
     assert np.allclose(layout.conj_data_sums(x, ph, 3, weighted=False)[0], full[0], rtol=1e-13, atol=1e-12)
     assert full.shape == (2, 4)
+
+
+@pytest.mark.parametrize("n", [4801, 96000, 1920000])
+def test_fast_kernels_equal_the_reference_kernel(n):
+    # the scalar kernel and the read basis (cotangent forms) against kernel(),
+    # near a bin (its limit branch), at an exact bin and far from one
+    mus = [0.3, -0.7, 1e-9, -1e-12, 1e-4, 1.0, -1.0, 0.0, 2.5, -3.0, 1 - 1e-13]
+    for mu in mus:
+        assert abs(sp._kernel_at(mu, n) - sp.kernel(np.array([mu]), n)[0]) < 1e-15 * n
+    nu = np.array([20.3, 1994.0000001, 2991.0, 997.00000001234 * 7, 5.5, 3.0])
+    m, basis = sp._read_basis(n, nu, n // 2 + 1, 3)
+    w1, w2 = sp.kernel(m - nu[:, None], n), sp.kernel(m + nu[:, None], n)
+    assert np.max(np.abs(basis[:, 0] - (w1 + w2))) < 1e-14 * n
+    assert np.max(np.abs(basis[:, 1] - 1j * (w1 - w2))) < 1e-14 * n
+
+
+@pytest.mark.parametrize("nu", [997.0, 997.0 + 1e-6, 997.3, 997.5, 997.9999])
+def test_refine_peak_and_peak_amplitude_on_a_lone_tone(nu):
+    n = 96000
+    k = np.arange(n)
+    spec = np.fft.rfft(0.5 * np.cos(2 * np.pi * nu * k / n + 0.3) * sp.window(n))
+    peak = int(np.argmax(np.abs(spec)))
+    got = sp.refine_peak(spec, peak, n)
+    assert got == pytest.approx(nu, abs=2e-5)
+    assert abs(sp.peak_amplitude(spec, peak, nu, n) - 0.5 * np.exp(0.3j)) < 1e-4

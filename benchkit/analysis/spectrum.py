@@ -11,6 +11,7 @@ off the FFT by least squares, without scalloping loss.
 
 from __future__ import annotations
 
+import cmath
 import math
 from functools import lru_cache
 
@@ -97,24 +98,87 @@ def kernel(mu: np.ndarray, n: int) -> np.ndarray:
     return _dirichlet(mu[..., None] + _SHIFTS, n) @ _WEIGHTS
 
 
+#: The window's DFT as seven shifted Dirichlet kernels, ``W(mu) = sum_s c_s
+#: D(mu + s)`` for s = -3..3: c_0 = a_0, c_{+-m} = (-1)^m a_m / 2.
+_TAPS = tuple(WINDOW_COEFFS[0] if s == 0 else (-1) ** abs(s) * WINDOW_COEFFS[abs(s)] / 2.0 for s in range(-3, 4))
+_TAP_ARRAY = np.array(_TAPS)
+_TAP_PAIRS = tuple(zip(range(-3, 4), _TAPS))
+_TAP_SHIFTS = np.arange(-3.0, 4.0)
+#: ``S = sum_s c_s = a_0 - a_1 + a_2 - a_3``.
+_TAP_SUM = sum(_TAPS)
+#: Angles within this many bins of zero get their cotangent from tan itself
+#: (a small sine needs its relative accuracy); farther ones from a phasor run.
+_DIRECT_COT_BINS = 64
+#: Longest run of half-bin phasors kept per record length (256 KB).
+_TURN_TABLE_MAX = 1 << 14
+
+
+@lru_cache(maxsize=8)
 def _integer_bin_kernel(n: int) -> np.ndarray:
-    """W at integer bins -3..3: (-1)^|k| a_|k| n / 2, and a_0 n at 0."""
-    a = np.asarray(WINDOW_COEFFS)
-    m = np.abs(np.arange(-3, 4))
-    return np.where(m == 0, a[0] * n, (-1.0) ** m * a[m] * n / 2.0)
+    """W at integer bins -3..3: (-1)^|k| a_|k| n / 2, and a_0 n at 0 (n c_k);
+    read-only."""
+    out = n * _TAP_ARRAY
+    out.setflags(write=False)
+    return out
+
+
+@lru_cache(maxsize=8)
+def _turn_table(n: int, size: int) -> np.ndarray:
+    """``e^{j pi i / n}`` for i = 0..size-1, each from exp itself; read-only."""
+    out = np.exp(1j * (np.pi / n) * np.arange(size))
+    out.setflags(write=False)
+    return out
+
+
+def _cot_run(first: int, count: int, delta: float, n: int) -> np.ndarray:
+    """``cot(pi (m - delta) / n)`` for m = first..first+count-1.
+
+    Far from m = 0 as the ratio of the parts of ``e^{j pi (first - delta) /
+    n} e^{j pi i / n}`` (a cached run of exponentials turned by one
+    constant: each within a few ulp of the direct one); within
+    ``_DIRECT_COT_BINS`` of it, where a small sine needs its relative
+    accuracy, from tan itself."""
+    start = cmath.exp(1j * (math.pi * (first - delta) / n))
+    if count <= _TURN_TABLE_MAX:
+        turn = _turn_table(n, max(64, 1 << (count - 1).bit_length()))[:count] * start
+    else:
+        turn = phasor_run(math.pi * (first - delta) / n, count, math.pi / n)
+    cot = turn.real / turn.imag
+    lo, hi = max(0, -_DIRECT_COT_BINS - first), min(count, _DIRECT_COT_BINS + 1 - first)
+    if hi > lo:
+        cot[lo:hi] = 1.0 / np.tan(np.pi * (np.arange(first + lo, first + hi) - delta) / n)
+    return cot
+
+
+def _cot_sums(j: np.ndarray, delta: float, n: int) -> np.ndarray:
+    """``C(j) = sum_s c_s cot(pi (j + s - delta) / n)`` at integer ``j``: for a
+    contiguous run a seven-tap filter over one :func:`_cot_run`."""
+    if j.ndim == 1 and j.size > 1 and int(j[-1] - j[0]) == j.size - 1 and bool(np.all(np.diff(j) == 1)):
+        return np.convolve(_cot_run(int(j[0]) - 3, j.size + 6, delta, n), _TAP_ARRAY, mode="valid")
+    return (1.0 / np.tan(np.pi * ((j[..., None] + _TAP_SHIFTS) - delta) / n)) @ _TAP_ARRAY
+
+
+def _fraction_factor(delta: float) -> complex:
+    """``P = -sin(pi delta) e^{j pi delta}``, the factor every ``D(N - delta)``
+    (N an integer) shares: ``sin(pi mu) e^{-j pi mu}`` at ``mu = N - delta``."""
+    return -math.sin(math.pi * min(delta, 1.0 - delta)) * cmath.exp(1j * math.pi * delta)  # no rounding loss near 1
 
 
 def kernel_at_bins(j: np.ndarray, delta: float, n: int) -> np.ndarray:
     """``W(j - delta)`` for integer offsets ``j`` and one fraction ``0 <=
     delta < 1``: the same kernel as :func:`kernel`, for many bins at once.
 
-    With mu = j - delta, ``sin(pi mu) = -(-1)^j sin(pi delta)`` and
-    ``e^{-j pi mu (n-1)/n} = (-1)^j e^{j pi delta} e^{j pi mu / n}`` split the
-    large phases off exactly, so W stays accurate to a few ulp thousands of
-    bins from the tone. Near the tone (|j| <= 8), where the two-term sine
-    difference would cancel for a tone close to a bin, each shifted
-    Dirichlet kernel is summed as ``-e^{j pi delta} sin(pi delta) (cot(pi
-    nu_k / n) + j)`` with ``nu_k = (j - k) - delta`` formed exactly.
+    The Dirichlet kernel is ``D(mu) = sin(pi mu) e^{-j pi mu} (cot(pi mu /
+    n) + j)``, and at ``mu = N - delta`` (N an integer) its first factor is
+    ``P = -sin(pi delta) e^{j pi delta}`` whatever N; so
+    ``W(j - delta) = P (C(j) + j S)`` with ``C(j) = sum_s c_s cot(pi (j + s
+    - delta) / n)`` and ``S = sum_s c_s``. No large phase is formed, so W
+    stays accurate thousands of bins from the tone, and the arguments ``(j +
+    s) - delta`` are exact, so a tone a hair from a bin loses nothing to
+    cancellation (P is small where one cotangent is large). For a
+    contiguous run, C is a seven-tap filter over one run of cotangents
+    (:func:`_cot_run`: a cached table of exponentials, not thousands of
+    tangents).
     """
     j = np.asarray(j, dtype=np.int64)
     if delta == 0.0:
@@ -122,51 +186,25 @@ def kernel_at_bins(j: np.ndarray, delta: float, n: int) -> np.ndarray:
         near = np.abs(j) <= 3
         out[near] = _integer_bin_kernel(n)[j[near] + 3]
         return out
-    s_delta = np.sin(np.pi * min(delta, 1.0 - delta))  # sin(pi delta), without rounding loss near 1
-    weights = [WINDOW_COEFFS[0] if k == 0 else (-1) ** abs(k) * WINDOW_COEFFS[abs(k)] / 2.0 for k in range(-3, 4)]
-    contiguous = j.ndim == 1 and j.size > 1 and int(j[-1] - j[0]) == j.size - 1 and bool(np.all(np.diff(j) == 1))
-    if contiguous:
-        # sin(pi (j - k - delta) / n) for k = -3..3 are shifts of one array;
-        # the run of angles from a table (two short exp calls, not thousands
-        # of sines), and near the tone, where a small sine needs its relative
-        # accuracy, from sin itself
-        m = np.arange(j[0] - 3, j[-1] + 4)
-        turn = phasor_run(np.pi * (m[0] - delta) / n, m.size, np.pi / n)
-        ext = turn.imag
-        close = np.abs(m) <= 64
-        ext[close] = np.sin(np.pi * (m[close] - delta) / n)
-        recip = 1.0 / ext
-        sa = ext[3:3 + j.size]
-        ca = turn.real[3:3 + j.size]
-    else:
-        ang = np.pi * (j - delta) / n
-        ca = np.cos(ang)
-        sa = np.sin(ang)
-    # D(mu - k) carries (-1)^(j-k) sin(pi mu); with (-1)^k c_k (the window's
-    # weight without its alternating sign) and D's phase in g_k, what is left
-    # is t = sum_k g_k / sin(pi (j - k - delta) / n)
-    g = np.array([(-1) ** k * c * np.exp(1j * np.pi * k * (n - 1) / n) for k, c in zip(range(-3, 4), weights)])
-    if contiguous:
-        # a seven-tap filter over the shifted reciprocals: t[i] = sum_k g_k recip[i + 3 - k]
-        t = np.convolve(recip, g.real, mode="valid") + 1j * np.convolve(recip, g.imag, mode="valid")
-    else:
-        t = np.zeros(j.shape, dtype=complex)
-        for k, gk in zip(range(-3, 4), g):
-            t += gk / (sa * math.cos(math.pi * k / n) - ca * math.sin(math.pi * k / n))
-    # (-1)^j e^{j pi delta} e^{j ang} (-(-1)^j sin(pi delta)) t; (-1)^j squared is 1
-    scale = -np.exp(1j * np.pi * delta) * s_delta
-    rot = ca + 1j * sa
-    rot *= scale
-    out = rot * t
-    near = np.abs(j) <= 8
-    if np.any(near):
-        jn = j[near]
-        acc = np.zeros(jn.shape, dtype=complex)
-        for k, c in zip(range(-3, 4), weights):
-            nu_k = (jn - k) - delta
-            acc += c * (1.0 / np.tan(np.pi * nu_k / n) + 1j)
-        out[near] = -np.exp(1j * np.pi * delta) * s_delta * acc
+    p = _fraction_factor(delta)
+    out = _cot_sums(j, delta, n) * p
+    out += p * 1j * _TAP_SUM
     return out
+
+
+def _subtract_kernel(seg: np.ndarray, first: int, delta: float, n: int, factor: complex) -> None:
+    """``seg[i] -= factor W(first + i - delta)`` in place (see
+    :func:`kernel_at_bins`): ``factor P`` folded into one constant, no
+    kernel array formed."""
+    if delta == 0.0:
+        table = _integer_bin_kernel(n)
+        for j in range(max(first, -3), min(first + seg.size, 4)):
+            seg[j - first] -= factor * table[j + 3]
+        return
+    q = factor * _fraction_factor(delta)
+    c = np.convolve(_cot_run(first - 3, seg.size + 6, delta, n), _TAP_ARRAY, mode="valid")
+    seg -= q * 1j * _TAP_SUM
+    seg -= np.multiply(c, q, out=np.empty(c.size, dtype=complex))
 
 
 def phasor_run(first: float, count: int, step: float) -> np.ndarray:
@@ -186,26 +224,26 @@ def remove_tone(spec: np.ndarray, n: int, nu: float, amplitude: complex, offset:
     cos(2 pi nu k / n + phi)) * window(n))`` with ``amplitude = A e^{j
     phi}``: exact within ``span`` bins of the tone, and beyond them short
     only by the window's far sidelobes (below -250 dB there). Costs far less
-    than a second FFT. Only the bins of :func:`removal_bins` change; ``out=spec``
-    takes the tone out in place.
+    than a second FFT: per range of bins one run of cotangents, a seven-tap
+    filter and two in-place subtractions (:func:`kernel_at_bins`'s method).
+    Only the bins of :func:`removal_bins` change; ``out=spec`` takes the
+    tone out in place.
     """
     if out is None:
         out = spec.copy()
     elif out is not spec:
         out[...] = spec
     out[:4] -= offset * _integer_bin_kernel(n)[3:3 + min(4, out.size)]
-    whole = int(np.floor(nu))
+    whole = math.floor(nu)
     delta = nu - whole
     alpha = amplitude / 2.0
     for lo, hi, image, wrap in _tone_ranges(n, whole, out.size, span):
         if not image:
-            out[lo:hi] -= alpha * kernel_at_bins(np.arange(lo - whole, hi - whole), delta, n)
-            continue
-        j2 = np.arange(lo, hi) + whole - wrap
-        if delta == 0.0:
-            out[lo:hi] -= np.conj(alpha) * kernel_at_bins(j2, 0.0, n)
+            _subtract_kernel(out[lo:hi], lo - whole, delta, n, alpha)
+        elif delta == 0.0:
+            _subtract_kernel(out[lo:hi], lo + whole - wrap, 0.0, n, alpha.conjugate())
         else:
-            out[lo:hi] -= np.conj(alpha) * kernel_at_bins(j2 + 1, 1.0 - delta, n)
+            _subtract_kernel(out[lo:hi], lo + whole - wrap + 1, 1.0 - delta, n, alpha.conjugate())
     return out
 
 
@@ -237,33 +275,56 @@ def removal_bins(n: int, nu: float, size: int, span: int = 4096) -> list[slice]:
     return [slice(lo, hi) for lo, hi in merged]
 
 
+def _kernel_at(mu: float, n: int) -> complex:
+    """:func:`kernel` at one real ``mu``, in scalar math (for a point or two
+    numpy's per-call cost would dominate): ``P sum_s c_s (cot(pi (mu + s) /
+    n) + j)`` (see :func:`kernel_at_bins`) with ``P = sin(pi r) e^{-j pi
+    r}``, ``r = mu - round(mu)``; a term whose ``tan(pi (mu + s) / n)`` is
+    below 1e-9 (:func:`_dirichlet`'s test on the sine, to within round-off)
+    takes its limit ``e^{-j pi x (n-1)/n} n cos(pi x) / cos(pi x / n)`` at
+    ``x = mu + s``, as :func:`kernel` does."""
+    r = mu - round(mu)  # exact
+    cot = imag = 0.0
+    limit = 0j
+    tan, pi = math.tan, math.pi
+    for s, c in _TAP_PAIRS:
+        x = mu + s
+        t = tan(pi * x / n)
+        if -1e-9 < t < 1e-9:
+            limit += c * cmath.exp(-1j * math.pi * x * (n - 1) / n) * (n * math.cos(math.pi * x) / math.cos(math.pi * x / n))
+        else:
+            cot += c / t
+            imag += c
+    return math.sin(math.pi * r) * cmath.exp(-1j * math.pi * r) * complex(cot, imag) + limit
+
+
 def refine_peak(spec: np.ndarray, peak: int, n: int) -> float:
     """Fractional bin of a single tone whose largest bin is ``peak``.
 
     Solves ``|X[p+1]| / |X[p-1]| = |W(p+1-nu)| / |W(p-1-nu)|`` for nu with
     the exact window kernel (secant steps from parabolic interpolation), so
     the estimate carries no interpolation bias; leakage from other
-    components limits it to ~1e-5 bin.
+    components limits it to ~1e-5 bin. Each step evaluates W at two points
+    in scalar math (:func:`_kernel_at`).
     """
-    mags = np.abs(spec[peak - 1 : peak + 2])
-    lp, cp, rp = np.log(np.maximum(mags, 1e-300))
+    lp, cp, rp = (math.log(max(abs(complex(spec[k])), 1e-300)) for k in (peak - 1, peak, peak + 1))
     den = lp - 2.0 * cp + rp
     d0 = 0.5 * (lp - rp) / den if den < 0 else 0.0
     target = rp - lp
-    if not np.isfinite(target):
-        return float(peak + np.clip(d0, -0.5, 0.5))
+    if not math.isfinite(target):
+        return float(peak + min(max(d0, -0.5), 0.5))
 
     def h(d: float) -> float:
-        w = np.abs(kernel(np.array([1.0 - d, -1.0 - d]), n))
-        return float(np.log(w[0]) - np.log(w[1]) - target)
+        return math.log(abs(_kernel_at(1.0 - d, n))) - math.log(abs(_kernel_at(-1.0 - d, n))) - target
 
-    a, b = float(np.clip(d0, -0.5, 0.5)), float(np.clip(d0, -0.5, 0.5)) + 1e-3
+    a = min(max(d0, -0.5), 0.5)
+    b = a + 1e-3
     ha, hb = h(a), h(b)
     for _ in range(8):
         if hb == ha:
             break
         a, b, ha = b, b - hb * (b - a) / (hb - ha), hb
-        b = float(np.clip(b, -0.6, 0.6))
+        b = min(max(b, -0.6), 0.6)
         hb = h(b)
         if abs(b - a) < 1e-7:  # the sine fit takes it from here
             break
@@ -311,28 +372,68 @@ def read_components(spec: np.ndarray, n: int, bins: np.ndarray, half_width: int 
     nu = np.asarray(bins, dtype=float)
     if nu.size == 0:
         return np.zeros(0, dtype=complex)
-    m, g1, g2 = _read_basis(n, nu, spec.size, half_width)
-    x = spec[m]
+    m, basis = _read_basis(n, nu, spec.size, half_width, rows=3)
+    np.take(spec, m, out=basis[:, 2], mode="clip")  # (m is in range; 'clip' spares a buffer)
+    # the normal equations of the real least squares, all in one product:
+    # Re(u^H v) is the dot product of the interleaved real parts
+    rows = basis.view(float)
+    gram = rows @ rows.transpose(0, 2, 1)
+    a11, a12, a22, b1, b2 = gram[:, 0, 0], gram[:, 0, 1], gram[:, 1, 1], gram[:, 0, 2], gram[:, 1, 2]
+    out = np.empty(nu.size, dtype=complex)
+    out.real = a22 * b1 - a12 * b2
+    out.imag = a11 * b2 - a12 * b1
+    out *= 2.0 / (a11 * a22 - a12 * a12)
+    return out
 
-    def rdot(u, v):
-        return np.sum(u.real * v.real + u.imag * v.imag, axis=1)
 
-    a11, a12, a22 = rdot(g1, g1), rdot(g1, g2), rdot(g2, g2)
-    b1, b2 = rdot(g1, x), rdot(g2, x)
-    det = a11 * a22 - a12 * a12
-    p = (a22 * b1 - a12 * b2) / det
-    q = (a11 * b2 - a12 * b1) / det
-    return 2.0 * (p + 1j * q)
+#: Per component, the rows of [[w1 + w2], [j (w1 - w2)]] in terms of
+#: ``sin(pi r) e^{j pi r}`` (first column) and its conjugate (second).
+_READ_ROWS = (np.array([-1.0, -1j]), np.array([1.0, -1j]))
+_READ_SIGNS = np.array([-1.0, 1.0])
 
 
-def _read_basis(n: int, nu: np.ndarray, size: int, half_width: int):
+def _read_basis(n: int, nu: np.ndarray, size: int, half_width: int, rows: int = 2):
     """The bins a read at ``nu`` uses and its two real basis vectors:
-    X = p (w1 + w2) + q j (w1 - w2), alpha = p + j q (real least squares)."""
-    offs = np.arange(-half_width, half_width + 1)
-    m = np.clip(np.rint(nu)[:, None] + offs[None, :], 0, size - 1).astype(int)
-    w1 = kernel(m - nu[:, None], n)
-    w2 = kernel(m + nu[:, None], n)
-    return m, w1 + w2, 1j * (w1 - w2)
+    X = p (w1 + w2) + q j (w1 - w2), alpha = p + j q (real least squares),
+    with w1 = W(m - nu), w2 = W(m + nu). Returned as ``m`` (K, bins) and
+    an array (K, rows, bins) whose rows 0 and 1 hold the two vectors (the
+    rest for the caller).
+
+    W as in :func:`kernel_at_bins`: with ``r = nu - round(nu)`` and ``P =
+    -sin(pi r) e^{j pi r}``, ``w1 = P Z1`` and ``w2 = -conj(P) Z2``, where
+    ``Z = sum_s c_s (cot(pi x / n) + j)`` at ``x = m -+ nu + s``; so the two
+    vectors are one 2 x 2 matrix per component times (Z1, Z2). A term whose
+    tangent is below 1e-9 (a read within ~1e-9 n / pi bins of a bin) takes
+    :func:`kernel`'s limit ``e^{-j pi x (n-1)/n} n cos(pi x) / cos(pi x /
+    n)``, which is ``P (n / tan(pi x)) (1 + j tan(pi x / n))``; at an exact
+    bin (r = 0) the basis comes from :func:`kernel` itself."""
+    near = np.rint(nu)
+    r = nu - near  # exact
+    m = near.astype(int)[:, None] + np.arange(-half_width, half_width + 1)
+    np.maximum(m, 0, out=m)
+    np.minimum(m, size - 1, out=m)
+    x = (m[:, None, :, None] + _TAP_SHIFTS) + np.multiply.outer(nu, _READ_SIGNS)[:, :, None, None]  # (K, 2, bins, 7)
+    tan = np.tan(x * (np.pi / n))
+    small = np.abs(tan) < 1e-9
+    basis = np.empty((nu.size, rows, m.shape[1]), dtype=complex)
+    if small.any():
+        if not r.all():
+            w1, w2 = kernel(m - nu[:, None], n), kernel(m + nu[:, None], n)
+            np.add(w1, w2, out=basis[:, 0])
+            np.multiply(w1 - w2, 1j, out=basis[:, 1])
+            return m, basis
+        z = 1.0 / tan + 1j
+        z[small] = (n / np.tan(np.pi * x[small])) * (1.0 + 1j * tan[small])
+        z = z @ _TAP_ARRAY
+    else:
+        z = (1.0 / tan) @ _TAP_ARRAY + 1j * _TAP_SUM
+    angle = np.pi * r
+    p = np.sin(angle) * np.exp(1j * angle)  # -P
+    mix = np.empty((nu.size, 2, 2), dtype=complex)
+    np.multiply.outer(p, _READ_ROWS[0], out=mix[:, :, 0])
+    np.multiply.outer(p.conj(), _READ_ROWS[1], out=mix[:, :, 1])
+    np.matmul(mix, z, out=basis[:, :2])
+    return m, basis
 
 
 def read_noise_gain(n: int, bins: np.ndarray, size: int, half_width: int = 3) -> np.ndarray:
@@ -349,13 +450,13 @@ def read_noise_gain(n: int, bins: np.ndarray, size: int, half_width: int = 3) ->
     nu = np.asarray(bins, dtype=float)
     if nu.size == 0:
         return np.zeros(0)
-    m, g1, g2 = _read_basis(n, nu, size, half_width)
+    m, basis = _read_basis(n, nu, size, half_width)
     a = np.asarray(WINDOW_COEFFS)
     h = np.concatenate([(-1.0) ** np.arange(3, 0, -1) * a[3:0:-1] / 2, [a[0]], (-1.0) ** np.arange(1, 4) * a[1:] / 2])
     hh = np.convolve(h, h)  # offsets -6..6
     d = m[:, :, None] - m[:, None, :]
     c = np.where(np.abs(d) <= 6, hh[np.clip(d + 6, 0, 12)], 0.0)
-    g = np.stack([g1, g2], axis=2)  # (K, bins, 2)
+    g = basis.transpose(0, 2, 1)  # (K, bins, 2)
     mm = np.einsum("kbi,kbj->kij", g.conj(), g).real
     bb = 0.5 * np.einsum("kbi,kbc,kcj->kij", g.conj(), c, g).real
     inv = np.linalg.inv(mm)
@@ -381,4 +482,4 @@ def band_bins(n: int, sample_rate: float, lo_hz: float, hi_hz: float) -> slice:
 def peak_amplitude(spec: np.ndarray, peak: int, nu: float, n: int) -> complex:
     """``A e^{j phi}`` of a tone at fractional bin ``nu`` from its largest
     bin alone (its negative-frequency image neglected): a starting value."""
-    return complex(2.0 * spec[peak] / kernel(np.array([peak - nu]), n)[0])
+    return 2.0 * complex(spec[peak]) / _kernel_at(peak - nu, n)
