@@ -284,3 +284,18 @@ def test_a_profile_reads_back_as_written(tmp_path):
                   input_vpk_per_fs=2)
     path = save_profile(Profile(**fields), tmp_path / "p.json")
     assert load_profile(path).digest() == Profile(**fields).digest()
+
+
+def test_a_drive_worked_out_to_land_on_the_input_limit_passes_and_one_over_it_does_not():
+    """A power run's highest drive is -margin less the measured gain in dB:
+    whatever the gain, the round trip through dB must not refuse it (it
+    did, by one ulp, for some gains); a hundredth of a dB over is refused."""
+    from benchkit import units
+    from benchkit.preflight import check
+
+    for gain_db in [-0.2 + k * 1e-7 for k in range(-200, 200)] + [-20.13, 3.7, -0.05]:
+        gain = units.ratio_from_db(gain_db)
+        top = -3.0 - units.db_from_ratio(gain)
+        assert check([top - 40.0, top], gain, margin_db=3.0).input_peak_fs[-1] == pytest.approx(units.ratio_from_db(-3.0))
+        with pytest.raises(BenchkitError, match="over the -3 dBFS limit"):
+            check([top + 0.01], gain, margin_db=3.0)
