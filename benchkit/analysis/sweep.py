@@ -484,13 +484,22 @@ def measure(output: np.ndarray, sweep: SyncSweep, reference: np.ndarray | None =
     if reference is not None:
         refuse_non_finite(reference, "the reference")
     n = deconvolution_length(sweep, max(output.size, reference.size if reference is not None else sweep.n_samples))
-    h = deconvolve(output, sweep, n)
-    got = separate(h, sweep, orders, freqs, band_hz)
+    freqs = log_grid(*sweep.band_hz) if freqs is None else np.asarray(freqs, float)
+    _deconvolution_kernel(sweep, n)  # (built once, before the two deconvolutions share it)
+    # the played sweep's own response (the first time for its design: a
+    # deconvolution as long as the output's) on a second thread, beside the
+    # output's: the transforms let go of the interpreter while they run
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        played = None if reference is not None else pool.submit(_played_linear, sweep, n, freqs.tobytes())
+        h = deconvolve(output, sweep, n)
+        got = separate(h, sweep, orders, freqs, band_hz)
+        if played is not None:
+            base = amplitude * played.result()
     if reference is not None:
         h_ref = deconvolve(reference, sweep, n)
         base = response_at(h_ref, sweep, 1, got.freq_hz)
-    else:
-        base = amplitude * _played_linear(sweep, n, got.freq_hz.tobytes())
     # type A: each end's noise read against its own response (a read's noise
     # splits evenly between the level and the phase: sqrt(1/2) of it on the level)
     rel = None
