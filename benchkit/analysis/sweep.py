@@ -209,7 +209,14 @@ def _deconvolution_kernel(sweep: SyncSweep, nfft: int) -> tuple[np.ndarray, ...]
         P_k = c_k G_k a_k + d_k (G_{M-k} b_{M-k})*
         Q_k = c_k G_k b_k + d_k (G_{M-k} a_{M-k})*
     """
-    g = sweep.inverse(np.fft.rfftfreq(nfft, 1 / sweep.rate)) / sweep.rate
+    freqs = np.fft.rfftfreq(nfft, 1 / sweep.rate)
+    g = np.empty(freqs.size, dtype=complex)
+
+    def inverse(lo: int, hi: int) -> None:
+        g[lo:hi] = sweep.inverse(freqs[lo:hi])
+        g[lo:hi] /= sweep.rate
+
+    _in_halves(inverse, g.size)
     if nfft % 2:
         out: tuple[np.ndarray, ...] = (g,)
     else:
@@ -218,22 +225,47 @@ def _deconvolution_kernel(sweep: SyncSweep, nfft: int) -> tuple[np.ndarray, ...]
         # a_k = 1/2 - (j/2) W^k, b_k = 1 - a_k; c_k = conj(a_k), d_k = 1 - c_k
         # (W^k from a table of phasors; each step in place: these arrays are
         # the transform's length, and fresh ones cost their pages)
-        a = phasor_run(0.0, m + 1, -2 * np.pi / nfft)
-        a *= -0.5j
-        a += 0.5
-        ga = g * a
-        gb = np.subtract(g, ga, out=g)  # g b_k = g - g a_k
-        rev = slice(m, 0, -1)  # index M-k for k = 0..M-1
-        c = np.conjugate(a[:m], out=a[:m])
-        d = np.subtract(1.0, c)
-        p = c * ga[:m]
-        p += np.conjugate(gb[rev]) * d
-        q = np.multiply(c, gb[:m], out=c)
-        q += np.conjugate(ga[rev]) * d
+        a = np.empty(m + 1, dtype=complex)
+        ga = np.empty_like(a)
+
+        def halves_a(lo: int, hi: int) -> None:
+            a[lo:hi] = phasor_run(-2 * np.pi * lo / nfft, hi - lo, -2 * np.pi / nfft)
+            a[lo:hi] *= -0.5j
+            a[lo:hi] += 0.5
+            np.multiply(g[lo:hi], a[lo:hi], out=ga[lo:hi])
+            np.subtract(g[lo:hi], ga[lo:hi], out=g[lo:hi])  # g b_k = g - g a_k
+
+        _in_halves(halves_a, m + 1)
+        gb = g
+        p, q = np.empty(m, dtype=complex), np.empty(m, dtype=complex)
+
+        def halves_pq(lo: int, hi: int) -> None:
+            rev = slice(m - lo, m - hi, -1)  # index M-k for k = lo..hi-1
+            c = np.conjugate(a[lo:hi])
+            d = np.subtract(1.0, c)
+            np.multiply(c, ga[lo:hi], out=p[lo:hi])
+            p[lo:hi] += np.conjugate(gb[rev]) * d
+            np.multiply(c, gb[lo:hi], out=q[lo:hi])
+            q[lo:hi] += np.conjugate(ga[rev]) * d
+
+        _in_halves(halves_pq, m)
         out = (p, q)
     for a in out:
         a.setflags(write=False)
     return out
+
+
+def _in_halves(work, size: int) -> None:
+    """``work(lo, hi)`` over the two halves of ``range(size)`` at once, one
+    on a second thread (numpy lets go of the interpreter in long
+    element-wise loops: the halves run on two cores where there are two)."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    mid = size // 2
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        other = pool.submit(work, mid, size)
+        work(0, mid)
+        other.result()
 
 
 def deconvolution_length(sweep: SyncSweep, n: int) -> int:
