@@ -113,7 +113,12 @@ class SyncSweep:
         """The sweep as played: its phase starts at zero, so it starts at
         zero; with fades when ``faded``."""
         t = np.arange(self.n_samples) / self.rate
-        x = amplitude * np.sin(2 * np.pi * self.f1_hz * self.L * (np.exp(t / self.L) - 1.0))
+        x = np.empty(t.size)
+
+        def part(lo: int, hi: int) -> None:
+            x[lo:hi] = amplitude * np.sin(2 * np.pi * self.f1_hz * self.L * (np.exp(t[lo:hi] / self.L) - 1.0))
+
+        _in_halves(part, x.size)
         if self.faded:
             t_in = self.L * math.log(2 ** FADE_IN_OCTAVES)
             t_out = self.L * math.log(2 ** FADE_OUT_OCTAVES)
