@@ -64,8 +64,8 @@ class _SumWeights:
 
 @lru_cache(maxsize=8)
 def _sum_weights(n: int) -> _SumWeights:
-    """The weights of a record of n samples, built once per length (a
-    record's layout is built per call)."""
+    """The weights of a record of n samples, built once per length (for
+    any caller's layout of that length)."""
     return _SumWeights(RecordLayout(n))
 
 
